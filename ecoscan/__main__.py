@@ -1,0 +1,5 @@
+"""Allow ``python -m ecoscan``."""
+
+from ecoscan.cli import main
+
+raise SystemExit(main())

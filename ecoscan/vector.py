@@ -1,0 +1,571 @@
+"""Reading and writing points and plot polygons (CSV, GeoPackage, GeoJSON, Shapefile).
+
+Vector layers are read with pyogrio to WKB, which shapely 2 takes directly. Every CSV of points
+that ecoscan writes has its CRS beside it in a sidecar ``NAME.prj`` (WKT), read back
+automatically.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pyogrio
+import shapely
+from pyproj import CRS
+
+from ecoscan.crs import crs_label, looks_like_degrees, parse_crs, to_metric, transform_xy
+from ecoscan.errors import InputError
+from ecoscan.outputs import atomic_path, format_value
+from ecoscan.points import PointSet
+
+__all__ = [
+    "Plot",
+    "PlotLayer",
+    "plots_from_geometries",
+    "read_plots",
+    "read_points",
+    "reproject_geometries",
+    "sidecar_prj",
+    "write_plots",
+    "write_points",
+]
+
+VECTOR_SUFFIXES = {".gpkg", ".geojson", ".json", ".shp", ".fgb"}
+PLOT_ID_FIELDS = ("plot_id", "id", "name")
+
+
+def _check_exists(path: Path, what: str) -> None:
+    if not path.exists():
+        raise InputError(f"{what} file {str(path)!r} does not exist; check the path")
+    if path.is_dir() and path.suffix.lower() not in {".gdb"}:
+        raise InputError(f"{what} path {str(path)!r} is a folder; give the file itself")
+
+
+def sidecar_prj(path: str | os.PathLike) -> Path:
+    """The sidecar CRS file beside a CSV: ``points.csv`` -> ``points.prj``."""
+    p = Path(path)
+    return p.with_suffix(".prj")
+
+
+# --------------------------------------------------------------------------- points: read
+
+
+def _parse_float_column(values: list[str], name: str, path: Path) -> np.ndarray:
+    out = np.empty(len(values))
+    for i, v in enumerate(values):
+        try:
+            out[i] = float(v)
+        except ValueError:
+            raise InputError(
+                f"{path.name}: row {i + 2} has {name} = {v!r}, which is not a number; "
+                "fix or delete that row"
+            ) from None
+        if not math.isfinite(out[i]):
+            raise InputError(
+                f"{path.name}: row {i + 2} has a missing or infinite {name} ({v!r}); "
+                "every point needs finite coordinates"
+            )
+    return out
+
+
+def _attribute_column(values: list[str]) -> np.ndarray:
+    try:
+        return np.array([float(v) if v.strip() else np.nan for v in values])
+    except ValueError:
+        return np.array(values, dtype=object)
+
+
+def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            sample = fh.read(4096)
+            fh.seek(0)
+            try:
+                dialect = csv.Sniffer().sniff(sample, delimiters=",;\t")
+            except csv.Error:
+                dialect = csv.excel
+            rows = list(csv.reader(fh, dialect))
+    except UnicodeDecodeError:
+        raise InputError(f"{path.name} is not a text CSV file; save it as UTF-8 CSV") from None
+    rows = [r for r in rows if any(c.strip() for c in r)]
+    if not rows:
+        raise InputError(f"{path.name} is empty; it needs a header row with x and y columns")
+    header = [h.strip() for h in rows[0]]
+    lower = [h.lower() for h in header]
+    if "x" not in lower or "y" not in lower:
+        raise InputError(
+            f"{path.name} has no 'x' and 'y' columns (found: {', '.join(header) or 'none'}); "
+            "name the easting column x and the northing column y"
+        )
+    body = rows[1:]
+    if not body:
+        raise InputError(f"{path.name} has a header but no points")
+    ncol = len(header)
+    for i, r in enumerate(body):
+        if len(r) < ncol:
+            body[i] = r + [""] * (ncol - len(r))
+    cols = list(zip(*body, strict=False))
+    ix, iy = lower.index("x"), lower.index("y")
+    x = _parse_float_column([c.strip() for c in cols[ix]], header[ix], path)
+    y = _parse_float_column([c.strip() for c in cols[iy]], header[iy], path)
+    attrs = {}
+    for j, name in enumerate(header):
+        if j in (ix, iy) or not name:
+            continue
+        attrs[name] = _attribute_column(list(cols[j]))
+    return x, y, attrs
+
+
+def _read_layer(path: Path, layer: str | None, what: str):
+    try:
+        meta, _fids, geom, field_data = pyogrio.raw.read(path, layer=layer)
+    except Exception as exc:  # pyogrio raises several DataSourceError/DataLayerError types
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(
+            f"cannot read {what} file {path.name}: {msg}; give a GeoPackage, GeoJSON or Shapefile"
+        ) from None
+    geoms = shapely.from_wkb(geom) if geom is not None else np.array([], dtype=object)
+    fields = [str(f) for f in meta.get("fields", [])]
+    crs = parse_crs(meta.get("crs"), what=path.name) if meta.get("crs") else None
+    return geoms, fields, list(field_data), crs
+
+
+def _vector_attr(values) -> np.ndarray:
+    arr = np.asarray(values)
+    if arr.dtype.kind in "iufb":
+        return arr.astype(float) if arr.dtype.kind != "b" else arr
+    return np.array([("" if v is None else str(v)) for v in arr], dtype=object)
+
+
+def read_points(
+    path: str | os.PathLike,
+    crs: str | CRS | None = None,
+    *,
+    layer: str | None = None,
+) -> PointSet:
+    """Read plant positions and bring them into a metric CRS.
+
+    Parameters
+    ----------
+    path : path-like
+        A CSV with ``x`` and ``y`` columns (other columns become attributes; the CRS comes
+        from a sidecar ``.prj`` if present), or a GeoPackage / GeoJSON / Shapefile point layer.
+    crs : str or pyproj.CRS, optional
+        The CRS of the coordinates (``EPSG:XXXX``). Needed only for CSVs from elsewhere; it
+        overrides a sidecar or embedded CRS.
+    layer : str, optional
+        Layer name for multi-layer files such as GeoPackage.
+
+    Returns
+    -------
+    PointSet
+        Coordinates in metres. Geographic or non-metre input is reprojected to the local UTM
+        zone, and ``notes`` says so.
+
+    Raises
+    ------
+    InputError
+        Missing file, missing columns, non-numeric or missing coordinates, no points, or
+        coordinates that look like degrees with no CRS.
+    """
+    p = Path(path)
+    _check_exists(p, "points")
+    user_crs = parse_crs(crs)
+    notes: list[str] = []
+    suffix = p.suffix.lower()
+    if suffix in (".csv", ".txt", ".tsv"):
+        x, y, attrs = _read_points_csv(p)
+        file_crs = None
+        prj = sidecar_prj(p)
+        if prj.exists():
+            file_crs = parse_crs(prj.read_text(encoding="utf-8"), what=prj.name)
+    elif suffix in VECTOR_SUFFIXES:
+        geoms, fields, data, file_crs = _read_layer(p, layer, "points")
+        if len(geoms) == 0:
+            raise InputError(f"{p.name} has no features; it needs a layer of points")
+        types = shapely.get_type_id(geoms)
+        if np.any(types == 4):  # MultiPoint: one row per part
+            parts, index = shapely.get_parts(geoms, return_index=True)
+            geoms, data = parts, [np.asarray(d)[index] for d in data]
+            types = shapely.get_type_id(geoms)
+        bad = (types != 0) | shapely.is_empty(geoms)
+        if np.all(bad):
+            raise InputError(
+                f"{p.name} holds no point geometries; give a point layer (plots go to --plots)"
+            )
+        if np.any(bad):
+            notes.append(f"{int(bad.sum())} non-point or empty features in {p.name} were skipped")
+        keep = ~bad
+        geoms = geoms[keep]
+        x, y = shapely.get_x(geoms), shapely.get_y(geoms)
+        attrs = {f: _vector_attr(np.asarray(d)[keep]) for f, d in zip(fields, data, strict=True)}
+        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+            raise InputError(f"{p.name} has points with missing coordinates; remove them")
+    else:
+        raise InputError(
+            f"{p.name}: unknown points format {p.suffix!r}; use .csv, .gpkg, .geojson or .shp"
+        )
+    if x.size == 0:
+        raise InputError(f"{p.name} contains no points")
+    use_crs = user_crs or file_crs
+    if user_crs is not None and file_crs is not None and user_crs != file_crs:
+        notes.append(f"--crs {crs_label(user_crs)} overrides the CRS stored with {p.name}")
+    if use_crs is None and looks_like_degrees(x, y):
+        raise InputError(
+            f"{p.name} has no CRS and its coordinates look like longitude/latitude degrees; "
+            "pass --crs EPSG:4326 (or the right CRS) so distances can be computed in metres"
+        )
+    x, y, frame = to_metric(x, y, use_crs)
+    if frame.note:
+        notes.append(frame.note)
+    if use_crs is None:
+        notes.append(f"{p.name} has no CRS; coordinates are taken as metres")
+    return PointSet(x, y, attrs, frame.crs, notes)
+
+
+# -------------------------------------------------------------------------- points: write
+
+
+def _fields_for_write(points: PointSet) -> tuple[list[str], list[np.ndarray]]:
+    names, data = [], []
+    for k, v in points.attrs.items():
+        arr = np.asarray(v)
+        if arr.dtype.kind == "O":
+            arr = np.array(["" if a is None else str(a) for a in arr], dtype=object)
+        names.append(k)
+        data.append(arr)
+    return names, data
+
+
+def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "points") -> Path:
+    """Write points atomically; the extension picks the format.
+
+    Parameters
+    ----------
+    points : PointSet
+        The points to write.
+    path : path-like
+        ``.csv`` (``x``, ``y`` first, then attributes; CRS in a sidecar ``.prj``), ``.gpkg``
+        (CRS stored), or ``.geojson`` (reprojected to WGS 84 longitude/latitude, RFC 7946).
+    layer : str
+        Layer name inside a GeoPackage.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix == ".csv":
+        if points.crs is not None:
+            with atomic_path(sidecar_prj(p)) as tmp:
+                tmp.write_text(points.crs.to_wkt(), encoding="utf-8")
+        names = list(points.attrs)
+        lines = [",".join(["x", "y", *names])]
+        cols = [points.attrs[k] for k in names]
+        xs = [f"{v:.3f}" for v in points.x]
+        ys = [f"{v:.3f}" for v in points.y]
+        for i in range(points.n):
+            cells = [xs[i], ys[i]] + [_csv_cell(c[i]) for c in cols]
+            lines.append(",".join(cells))
+        with atomic_path(p) as tmp:
+            tmp.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        return p
+    if suffix in (".gpkg", ".geojson", ".json"):
+        x, y, crs = points.x, points.y, points.crs
+        if suffix != ".gpkg" and crs is not None:
+            wgs = CRS.from_epsg(4326)
+            x, y = transform_xy(x, y, crs, wgs)
+            crs = wgs
+        geoms = shapely.to_wkb(shapely.points(x, y)) if points.n else np.array([], dtype=object)
+        names, data = _fields_for_write(points)
+        driver = "GPKG" if suffix == ".gpkg" else "GeoJSON"
+        with atomic_path(p) as tmp:
+            pyogrio.raw.write(
+                tmp,
+                np.asarray(geoms, dtype=object),
+                data,
+                names,
+                layer=layer if driver == "GPKG" else None,
+                driver=driver,
+                geometry_type="Point",
+                crs=crs.to_wkt() if crs is not None else None,
+            )
+        return p
+    raise InputError(f"unknown output format {p.suffix!r}; use .csv, .gpkg or .geojson")
+
+
+def _csv_cell(v) -> str:
+    s = format_value(v)
+    if any(ch in s for ch in ',"\n'):
+        s = '"' + s.replace('"', '""') + '"'
+    return s
+
+
+# ---------------------------------------------------------------------------------- plots
+
+
+@dataclass
+class Plot:
+    """One survey plot.
+
+    Attributes
+    ----------
+    plot_id : str
+        The plot's identifier.
+    geometry : shapely.Polygon or shapely.MultiPolygon
+        The plot outline in the layer's metric CRS (holes allowed).
+    attrs : dict
+        Other fields of the feature.
+    """
+
+    plot_id: str
+    geometry: shapely.Geometry
+    attrs: dict = field(default_factory=dict)
+
+    @property
+    def area_m2(self) -> float:
+        """Plot area in square metres."""
+        return float(self.geometry.area)
+
+
+@dataclass
+class PlotLayer:
+    """Plot polygons in a metric CRS, with notes on how they were read."""
+
+    plots: list[Plot]
+    crs: CRS | None
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def ids(self) -> list[str]:
+        """Plot ids in layer order."""
+        return [p.plot_id for p in self.plots]
+
+
+def reproject_geometries(geoms, src: CRS, dst: CRS):
+    """Reproject shapely geometries from ``src`` to ``dst`` (vectorised over vertices)."""
+    if src == dst:
+        return geoms
+
+    def _tr(coords: np.ndarray) -> np.ndarray:
+        xx, yy = transform_xy(coords[:, 0], coords[:, 1], src, dst)
+        return np.column_stack([xx, yy])
+
+    return shapely.transform(geoms, _tr)
+
+
+def _polygonal(geom):
+    """Keep only the polygonal part of a geometry (after make_valid)."""
+    if geom is None or geom.is_empty:
+        return None
+    t = geom.geom_type
+    if t in ("Polygon", "MultiPolygon"):
+        return geom
+    if t == "GeometryCollection":
+        polys = [g for g in shapely.get_parts(geom) if g.geom_type in ("Polygon", "MultiPolygon")]
+        if not polys:
+            return None
+        return shapely.union_all(polys)
+    return None
+
+
+def plots_from_geometries(
+    geoms,
+    ids: list[str],
+    attrs: list[dict] | None = None,
+    source: str = "plots",
+) -> tuple[list[Plot], list[str]]:
+    """Build :class:`Plot` records, repairing invalid polygons and skipping non-polygons.
+
+    Parameters
+    ----------
+    geoms : array of shapely geometries
+        Candidate plot outlines.
+    ids : list of str
+        One id per geometry.
+    attrs : list of dict, optional
+        Other fields per geometry.
+    source : str
+        File name for messages.
+
+    Returns
+    -------
+    plots : list of Plot
+    notes : list of str
+        What was repaired or skipped.
+    """
+    notes: list[str] = []
+    plots: list[Plot] = []
+    attrs = attrs or [{} for _ in ids]
+    for g, pid, a in zip(geoms, ids, attrs, strict=True):
+        if g is None or g.is_empty:
+            continue
+        if g.geom_type not in ("Polygon", "MultiPolygon"):
+            notes.append(f"feature {pid} in {source} is a {g.geom_type}, not a polygon; skipped")
+            continue
+        if not g.is_valid:
+            reason = shapely.is_valid_reason(g)
+            g = _polygonal(shapely.make_valid(g))
+            notes.append(f"plot {pid} in {source} was an invalid polygon ({reason}); repaired")
+            if g is None:
+                notes.append(f"plot {pid} has no area after repair; skipped")
+                continue
+        if g.area <= 0:
+            notes.append(f"plot {pid} has zero area; skipped")
+            continue
+        plots.append(Plot(str(pid), g, a))
+    return plots, notes
+
+
+def read_plots(
+    path: str | os.PathLike,
+    *,
+    target_crs: CRS | None = None,
+    id_field: str | None = None,
+    layer: str | None = None,
+    points_have_crs: bool = True,
+) -> PlotLayer:
+    """Read plot polygons, pick their ids, repair them and bring them into a metric CRS.
+
+    Parameters
+    ----------
+    path : path-like
+        A GeoPackage, GeoJSON or Shapefile polygon layer. MultiPolygons and holes work.
+    target_crs : pyproj.CRS, optional
+        The CRS of the points the plots go with; plots are reprojected to it. When None the
+        plots are brought to a metric CRS on their own (UTM for degrees).
+    id_field : str, optional
+        Field holding the plot id. Default: a field named ``plot_id``, ``id`` or ``name``
+        (case-insensitive), else the feature number starting at 1.
+    layer : str, optional
+        Layer name for multi-layer files.
+    points_have_crs : bool
+        False when the points carry no CRS: then the plots must already be in metres, and the
+        points are taken to share the plots' CRS.
+
+    Returns
+    -------
+    PlotLayer
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, unknown id field, duplicate ids, no polygons.
+    """
+    p = Path(path)
+    _check_exists(p, "plots")
+    geoms, fields, data, src_crs = _read_layer(p, layer, "plots")
+    notes: list[str] = []
+    lower = {f.lower(): f for f in fields}
+    if id_field is not None:
+        if id_field not in fields:
+            match = lower.get(id_field.lower())
+            if match is None:
+                raise InputError(
+                    f"{p.name} has no field {id_field!r} for plot ids "
+                    f"(fields: {', '.join(fields) or 'none'}); choose one with --id-field"
+                )
+            id_field = match
+        chosen = id_field
+    else:
+        chosen = next((lower[f] for f in PLOT_ID_FIELDS if f in lower), None)
+    if chosen is not None:
+        col = data[fields.index(chosen)]
+        ids = [_id_text(v, i) for i, v in enumerate(col)]
+    else:
+        ids = [str(i + 1) for i in range(len(geoms))]
+    dup = sorted({i for i in ids if ids.count(i) > 1})
+    if dup:
+        raise InputError(
+            f"{p.name}: plot ids are not unique ({', '.join(dup[:5])}); "
+            "give a field with one id per plot using --id-field"
+        )
+    attrs = [
+        {f: _plain(data[j][i]) for j, f in enumerate(fields) if f != chosen}
+        for i in range(len(geoms))
+    ]
+    if len(geoms) and src_crs is not None:
+        if target_crs is not None:
+            if src_crs != target_crs:
+                geoms = reproject_geometries(geoms, src_crs, target_crs)
+                notes.append(
+                    f"plots in {crs_label(src_crs)} were reprojected to the points' CRS "
+                    f"{crs_label(target_crs)}"
+                )
+            out_crs = target_crs
+        else:
+            coords = shapely.get_coordinates(geoms)
+            _x, _y, frame = to_metric(coords[:, 0], coords[:, 1], src_crs)
+            if frame.reprojected_from is not None:
+                if not points_have_crs:
+                    raise InputError(
+                        f"the points carry no CRS but the plots in {p.name} are in "
+                        f"{crs_label(src_crs)}; pass --crs with the points' CRS"
+                    )
+                geoms = reproject_geometries(geoms, src_crs, frame.crs)
+                notes.append(frame.note.replace("input", "plots"))
+            elif not points_have_crs:
+                notes.append(
+                    f"points without CRS are taken to be in the plots' CRS {crs_label(src_crs)}"
+                )
+            out_crs = frame.crs
+    else:
+        out_crs = target_crs
+        if len(geoms) and target_crs is not None:
+            notes.append(
+                f"{p.name} has no CRS; taken to be the points' CRS {crs_label(target_crs)}"
+            )
+    plots, more = plots_from_geometries(geoms, ids, attrs, p.name)
+    notes += more
+    if not plots:
+        raise InputError(
+            f"{p.name} contains no polygons with area; the plots layer needs polygon features"
+        )
+    return PlotLayer(plots, out_crs, notes)
+
+
+def _id_text(v, i: int) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return str(i + 1)
+    if isinstance(v, (float, np.floating)) and float(v).is_integer():
+        return str(int(v))
+    return str(v)
+
+
+def _plain(v):
+    if isinstance(v, np.generic):
+        return v.item()
+    return v
+
+
+def write_plots(layer: PlotLayer, path: str | os.PathLike) -> Path:
+    """Write plot outlines (GeoPackage or GeoJSON, by extension) atomically, with ``plot_id``."""
+    p = Path(path)
+    suffix = p.suffix.lower()
+    geoms = [pl.geometry for pl in layer.plots]
+    crs = layer.crs
+    if suffix != ".gpkg" and crs is not None:
+        wgs = CRS.from_epsg(4326)
+        geoms = list(reproject_geometries(np.array(geoms, dtype=object), crs, wgs))
+        crs = wgs
+    geoms = [shapely.MultiPolygon([g]) if g.geom_type == "Polygon" else g for g in geoms]
+    driver = "GPKG" if suffix == ".gpkg" else "GeoJSON"
+    ids = np.array([pl.plot_id for pl in layer.plots], dtype=object)
+    with atomic_path(p) as tmp:
+        pyogrio.raw.write(
+            tmp,
+            np.array(shapely.to_wkb(geoms), dtype=object),
+            [ids],
+            ["plot_id"],
+            layer="plots" if driver == "GPKG" else None,
+            driver=driver,
+            geometry_type="MultiPolygon",
+            crs=crs.to_wkt() if crs is not None else None,
+        )
+    return p
