@@ -1,0 +1,1 @@
+"""Whole surveys: many rasters (sites, dates), one plot layer, one set of settings."""

@@ -1,0 +1,318 @@
+"""The survey file: a TOML description of a whole survey.
+
+Example::
+
+    [survey]
+    name = "Spring and autumn flights"
+    plots = "plots.gpkg"          # paths are relative to this file
+    output = "results"
+
+    [statistics]                  # dispersion settings (see ecoscan.analysis)
+    simulations = 999
+    seed = 7
+
+    [[raster]]
+    path = "spring_rgb.tif"
+    site = "North slope"
+    date = "2026-04-20"
+    [raster.detect]               # detector settings (see ecoscan.detect)
+    method = "imagery"
+    diameter_m = [0.6, 2.5]
+
+Every problem in the file (unknown keys, wrong types, missing files) is collected and
+reported at once, each with the line it comes from, before any work starts.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import re
+import tomllib
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ecoscan.errors import InputError
+
+__all__ = ["RasterEntry", "SurveyConfig", "load_survey", "locate_keys"]
+
+_SECTIONS = {
+    "survey": {"name", "plots", "output", "plot_id_field", "plots_layer", "workers", "crs"},
+    "statistics": None,  # keys of ecoscan.analysis.DispersionSettings
+    "scales": None,  # "enabled" plus keys of ecoscan.scales.ScalesSettings
+    "change": {"enabled", "tolerance_m", "estimate_shift"},
+    "compare": {"enabled", "by", "permutations"},
+    "raster": {"path", "name", "site", "date", "detect"},
+}
+
+
+def _settings_keys(module: str, cls: str) -> set[str] | None:
+    """Field names of a settings dataclass, or None when that part of ecoscan is absent."""
+    try:
+        mod = __import__(module, fromlist=[cls])
+        klass = getattr(mod, cls)
+    except (ImportError, AttributeError):
+        return None
+    return {f.name for f in dataclasses.fields(klass)}
+
+
+@dataclass(frozen=True)
+class RasterEntry:
+    """One raster of the survey.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        The raster file (absolute).
+    name : str
+        Unique short label (default: the file name without extension).
+    site, date : str
+        Site name and date or season label.
+    detect : dict
+        Detector settings for :class:`ecoscan.detect.DetectionSettings`.
+    line : int
+        Line of the ``[[raster]]`` header in the survey file.
+    """
+
+    path: Path
+    name: str
+    site: str
+    date: str
+    detect: dict
+    line: int
+
+
+@dataclass(frozen=True)
+class SurveyConfig:
+    """A parsed and checked survey file."""
+
+    path: Path
+    name: str
+    plots: Path
+    output: Path
+    rasters: tuple[RasterEntry, ...]
+    plot_id_field: str | None = None
+    plots_layer: str | None = None
+    workers: int = 1
+    statistics: dict = field(default_factory=dict)
+    scales: dict = field(default_factory=dict)
+    change: dict = field(default_factory=dict)
+    compare: dict = field(default_factory=dict)
+
+    @property
+    def scales_enabled(self) -> bool:
+        """Whether the multi-scale analysis is switched on."""
+        return bool(self.scales.get("enabled", False))
+
+
+_HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+_KEY = re.compile(r"^\s*([A-Za-z0-9_\-\.\"' ]+?)\s*=")
+
+
+def locate_keys(text: str) -> dict[tuple, int]:
+    """Map each table and key of a TOML text to its line number (1-based).
+
+    Keys of array tables carry their index: ``("raster", 0, "detect", "method")``. Tables
+    themselves map under their own path. Only plain and dotted keys are tracked, which is
+    what survey files use.
+    """
+    where: dict[tuple, int] = {}
+    counts: dict[str, int] = {}
+    current: tuple = ()
+    for no, line in enumerate(text.splitlines(), start=1):
+        m = _HEADER.match(line)
+        if m and not _KEY.match(line):
+            parts = [p.strip().strip("\"'") for p in m.group(2).split(".")]
+            if m.group(1) == "[[":
+                name = ".".join(parts)
+                counts[name] = counts.get(name, 0) + 1
+                current = (*parts, counts[name] - 1)
+            elif parts[0] in counts:
+                current = (parts[0], counts[parts[0]] - 1, *parts[1:])
+            else:
+                current = tuple(parts)
+            where.setdefault(current, no)
+            continue
+        k = _KEY.match(line)
+        if k:
+            key = tuple(p.strip().strip("\"'") for p in k.group(1).split("."))
+            where.setdefault((*current, *key), no)
+    return where
+
+
+class _Problems:
+    def __init__(self, source: Path, lines: dict[tuple, int]):
+        self.source = source
+        self.lines = lines
+        self.items: list[tuple[int, str]] = []
+
+    def add(self, path: tuple, message: str) -> None:
+        line = self.lines.get(path)
+        while line is None and path:
+            path = path[:-1]
+            line = self.lines.get(path)
+        self.items.append((line or 0, message))
+
+    def raise_if_any(self) -> None:
+        if not self.items:
+            return
+        self.items.sort(key=lambda t: t[0])
+        body = "\n".join(f"  line {ln}: {msg}" if ln else f"  {msg}" for ln, msg in self.items)
+        n = len(self.items)
+        raise InputError(
+            f"{self.source.name} has {n} problem{'s' if n > 1 else ''}; fix "
+            f"{'them' if n > 1 else 'it'} and run again:\n{body}"
+        )
+
+
+def _unknown(
+    problems: _Problems, where: tuple, table: Mapping, allowed: Iterable[str], section: str
+) -> None:
+    allowed = set(allowed)
+    for key in table:
+        if key not in allowed:
+            near = difflib.get_close_matches(key, sorted(allowed), n=1)
+            hint = f" (did you mean '{near[0]}'?)" if near else ""
+            problems.add((*where, key), f"unknown key '{key}' in [{section}]{hint}")
+
+
+def _as_str(problems: _Problems, where: tuple, value: Any, what: str) -> str | None:
+    if value is None:
+        return None
+    if isinstance(value, (str, int, float)) and not isinstance(value, bool):
+        return str(value)
+    if hasattr(value, "isoformat"):  # TOML dates
+        return value.isoformat()
+    problems.add(where, f"{what} should be text, not {type(value).__name__}")
+    return None
+
+
+def load_survey(path: str | Path) -> SurveyConfig:
+    """Read and check a survey file.
+
+    Parameters
+    ----------
+    path : path-like
+        The TOML survey file. Relative paths inside it are relative to its folder.
+
+    Returns
+    -------
+    SurveyConfig
+
+    Raises
+    ------
+    InputError
+        With every problem found, each on its own line with its line number.
+    """
+    src = Path(path)
+    if not src.is_file():
+        raise InputError(f"survey file {str(src)!r} does not exist; check the path")
+    text = src.read_text(encoding="utf-8")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{src.name} is not valid TOML: {exc}") from None
+    lines = locate_keys(text)
+    problems = _Problems(src, lines)
+    base = src.resolve().parent
+
+    for key in data:
+        if key not in _SECTIONS:
+            near = difflib.get_close_matches(key, sorted(_SECTIONS), n=1)
+            hint = f" (did you mean [{near[0]}]?)" if near else ""
+            problems.add((key,), f"unknown section [{key}]{hint}")
+
+    survey = data.get("survey", {})
+    if not isinstance(survey, dict):
+        problems.add(("survey",), "[survey] must be a table")
+        survey = {}
+    _unknown(problems, ("survey",), survey, _SECTIONS["survey"], "survey")
+
+    def _file(where: tuple, value: Any, what: str, must_exist: bool = True) -> Path | None:
+        s = _as_str(problems, where, value, what)
+        if s is None:
+            return None
+        p = (base / s).resolve()
+        if must_exist and not p.exists():
+            problems.add(where, f"{what} file '{s}' does not exist (looked in {p.parent})")
+        return p
+
+    plots = None
+    if "plots" not in survey:
+        problems.add(("survey",), "[survey] needs 'plots = \"FILE\"' (the plot polygons)")
+    else:
+        plots = _file(("survey", "plots"), survey["plots"], "plots")
+    output = _file(("survey", "output"), survey.get("output", "results"), "output", False)
+    workers = survey.get("workers", 1)
+    if not isinstance(workers, int) or isinstance(workers, bool) or workers < 1:
+        problems.add(("survey", "workers"), "workers must be a whole number of at least 1")
+        workers = 1
+
+    def _section(name: str, extra: set[str], module: str | None, cls: str | None) -> dict:
+        table = data.get(name, {})
+        if not isinstance(table, dict):
+            problems.add((name,), f"[{name}] must be a table")
+            return {}
+        allowed = set(extra)
+        if module:
+            keys = _settings_keys(module, cls)
+            if keys is None:
+                return dict(table)
+            allowed |= keys
+        _unknown(problems, (name,), table, allowed, name)
+        return dict(table)
+
+    statistics = _section("statistics", set(), "ecoscan.analysis", "DispersionSettings")
+    scales = _section("scales", {"enabled"}, "ecoscan.scales", "ScalesSettings")
+    change = _section("change", _SECTIONS["change"], None, None)
+    compare = _section("compare", _SECTIONS["compare"], None, None)
+    if compare.get("by", "auto") not in ("auto", "site", "date", "plot"):
+        problems.add(("compare", "by"), "by must be 'auto', 'site', 'date' or 'plot'")
+
+    det_keys = _settings_keys("ecoscan.detect", "DetectionSettings")
+    rasters: list[RasterEntry] = []
+    entries = data.get("raster", [])
+    if not isinstance(entries, list) or not entries:
+        problems.add(("raster",), "the survey needs at least one [[raster]] table")
+        entries = []
+    names: set[str] = set()
+    for i, entry in enumerate(entries):
+        where = ("raster", i)
+        _unknown(problems, where, entry, _SECTIONS["raster"], "raster")
+        if "path" not in entry:
+            problems.add(where, "[[raster]] needs 'path = \"FILE\"'")
+            continue
+        p = _file((*where, "path"), entry["path"], "raster")
+        name = _as_str(problems, (*where, "name"), entry.get("name"), "name") or (
+            Path(str(entry["path"])).stem
+        )
+        if name in names:
+            problems.add((*where, "name"), f"two rasters are named '{name}'; give each a name")
+        names.add(name)
+        site = _as_str(problems, (*where, "site"), entry.get("site", "site"), "site") or "site"
+        date = _as_str(problems, (*where, "date"), entry.get("date", ""), "date") or ""
+        det = entry.get("detect", {})
+        if not isinstance(det, dict):
+            problems.add((*where, "detect"), "detect must be a table of detector settings")
+            det = {}
+        if det_keys is not None:
+            _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
+        if p is not None:
+            rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
+    problems.raise_if_any()
+    return SurveyConfig(
+        path=src.resolve(),
+        name=str(survey.get("name", src.stem)),
+        plots=plots,  # type: ignore[arg-type]
+        output=output,  # type: ignore[arg-type]
+        rasters=tuple(rasters),
+        plot_id_field=survey.get("plot_id_field"),
+        plots_layer=survey.get("plots_layer"),
+        workers=workers,
+        statistics=statistics,
+        scales=scales,
+        change=change,
+        compare=compare,
+    )

@@ -1,0 +1,70 @@
+"""The survey file: parsing, relative paths, and problems reported all at once with lines."""
+
+import pytest
+
+from ecoscan.errors import InputError
+from ecoscan.survey.config import load_survey, locate_keys
+
+GOOD = """\
+[survey]
+name = "trial"
+plots = "plots.gpkg"
+output = "out"
+
+[[raster]]
+path = "a.tif"
+site = "North"
+date = 2026-04-20
+
+[[raster]]
+path = "b.tif"
+site = "North"
+date = "autumn"
+"""
+
+
+def _touch(tmp_path, *names):
+    for n in names:
+        (tmp_path / n).write_bytes(b"")
+
+
+def test_good_file_and_relative_paths(tmp_path):
+    _touch(tmp_path, "plots.gpkg", "a.tif", "b.tif")
+    f = tmp_path / "s.toml"
+    f.write_text(GOOD)
+    cfg = load_survey(f)
+    assert cfg.plots == (tmp_path / "plots.gpkg").resolve()
+    assert cfg.output == (tmp_path / "out").resolve()
+    assert [r.name for r in cfg.rasters] == ["a", "b"]
+    assert cfg.rasters[0].date == "2026-04-20"  # TOML dates become ISO text
+    assert cfg.rasters[1].line == 11
+
+
+def test_locate_keys_tracks_array_tables():
+    where = locate_keys(GOOD)
+    assert where[("survey", "plots")] == 3
+    assert where[("raster", 1, "path")] == 12
+    assert where[("raster", 0)] == 6
+
+
+def test_all_problems_reported_at_once_with_lines(tmp_path):
+    _touch(tmp_path, "plots.gpkg")
+    text = GOOD.replace('site = "North"\ndate = 2026', 'sight = "North"\ndate = 2026')
+    text += "\n[statistic]\nseed = 3\n"
+    f = tmp_path / "s.toml"
+    f.write_text(text)
+    with pytest.raises(InputError) as e:
+        load_survey(f)
+    msg = str(e.value)
+    assert "3 problems" in msg or "4 problems" in msg
+    assert "line 7: raster file 'a.tif' does not exist" in msg
+    assert "line 8: unknown key 'sight' in [raster] (did you mean 'site'?)" in msg
+    assert "line 12: raster file 'b.tif' does not exist" in msg
+    assert "unknown section [statistic] (did you mean [statistics]?)" in msg
+
+
+def test_invalid_toml(tmp_path):
+    f = tmp_path / "s.toml"
+    f.write_text("[survey\n")
+    with pytest.raises(InputError, match="not valid TOML"):
+        load_survey(f)
