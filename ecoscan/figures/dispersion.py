@@ -1,0 +1,281 @@
+"""Figures for one plot's dispersion analysis and for the survey overview."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import matplotlib.colors as mcolors
+import numpy as np
+import shapely
+from matplotlib.patches import PathPatch
+from matplotlib.path import Path as MplPath
+from scipy import stats as sps
+
+from ecoscan.figures import PALETTE, new_figure, save_figure
+from ecoscan.stats.nearest import CE_SE_CONSTANT
+
+__all__ = [
+    "add_polygon",
+    "nn_histogram_figure",
+    "plot_map_figure",
+    "quadrat_map_figure",
+    "r_against_n_figure",
+]
+
+
+def _polygon_path(geom: shapely.Geometry, dx: float, dy: float) -> MplPath:
+    verts, codes = [], []
+    for poly in shapely.get_parts(geom):
+        for ring in [poly.exterior, *poly.interiors]:
+            c = np.asarray(ring.coords) - (dx, dy)
+            verts.append(c)
+            codes += [MplPath.MOVETO] + [MplPath.LINETO] * (len(c) - 2) + [MplPath.CLOSEPOLY]
+    return MplPath(np.vstack(verts), codes)
+
+
+def add_polygon(ax, geom: shapely.Geometry, origin: tuple[float, float], **kw) -> None:
+    """Draw a (multi)polygon with holes, shifted so that ``origin`` is at (0, 0)."""
+    style = {"facecolor": "none", "edgecolor": "#222222", "linewidth": 1.2}
+    style.update(kw)
+    ax.add_patch(PathPatch(_polygon_path(geom, *origin), **style))
+
+
+def plot_map_figure(
+    path: str | os.PathLike,
+    polygon: shapely.Geometry,
+    xy: np.ndarray,
+    *,
+    image: np.ndarray | None = None,
+    image_extent: tuple[float, float, float, float] | None = None,
+    title: str = "",
+    sizes_m: np.ndarray | None = None,
+) -> Path:
+    """Map of the plants in a plot over an image thumbnail, with the plot outline.
+
+    Parameters
+    ----------
+    path : path-like
+        PNG to write.
+    polygon : shapely geometry
+        Plot outline, metres.
+    xy : numpy.ndarray, shape (n, 2)
+        Plant positions, metres.
+    image : numpy.ndarray, optional
+        Thumbnail, (H, W) or (H, W, 3) floats in [0, 1] or uint8.
+    image_extent : tuple, optional
+        (left, right, bottom, top) of the thumbnail in map metres.
+    title : str
+        Figure title.
+    sizes_m : numpy.ndarray, optional
+        Crown diameters in metres, drawn to scale as circles.
+    """
+    x0, y0, x1, y1 = polygon.bounds
+    pad = 0.04 * max(x1 - x0, y1 - y0)
+    fig, ax = new_figure(5.2, 5.2 * max(0.5, min(1.6, (y1 - y0) / max(x1 - x0, 1e-9))))
+    ax.grid(False)
+    if image is not None and image_extent is not None:
+        left, right, bottom, top = image_extent
+        cmap = "gray" if image.ndim == 2 else None
+        ax.imshow(
+            image,
+            extent=(left - x0, right - x0, bottom - y0, top - y0),
+            cmap=cmap,
+            interpolation="nearest",
+        )
+    add_polygon(ax, polygon, (x0, y0), edgecolor="#ffffff", linewidth=2.4)
+    add_polygon(ax, polygon, (x0, y0), edgecolor="#1f4e8c", linewidth=1.2)
+    if len(xy):
+        if sizes_m is not None and np.all(np.isfinite(sizes_m)):
+            from matplotlib.collections import EllipseCollection
+
+            ax.add_collection(
+                EllipseCollection(
+                    sizes_m,
+                    sizes_m,
+                    0,
+                    units="xy",
+                    offsets=xy - (x0, y0),
+                    offset_transform=ax.transData,
+                    facecolors="none",
+                    edgecolors=PALETTE["new"],
+                    linewidths=0.8,
+                )
+            )
+        ax.plot(
+            xy[:, 0] - x0,
+            xy[:, 1] - y0,
+            "+",
+            color="#e3b505",
+            ms=5,
+            mew=1.1,
+            label=f"{len(xy)} detected plants",
+        )
+        ax.legend(loc="upper right", fontsize=8, framealpha=0.85)
+    ax.set_xlim(-pad, x1 - x0 + pad)
+    ax.set_ylim(-pad, y1 - y0 + pad)
+    ax.set_aspect("equal")
+    ax.set_xlabel("easting from plot corner (m)")
+    ax.set_ylabel("northing from plot corner (m)")
+    ax.set_title(title, fontsize=10)
+    return save_figure(fig, path)
+
+
+def nn_histogram_figure(
+    path: str | os.PathLike,
+    nn_m: np.ndarray,
+    density_per_m2: float,
+    *,
+    title: str = "",
+) -> Path:
+    """Histogram of nearest-neighbour distances with the density expected under CSR.
+
+    Under complete spatial randomness with intensity λ the nearest-neighbour distance has
+    density f(r) = 2πλr·exp(−λπr²) (Clark & Evans 1954), drawn scaled to the counts.
+    """
+    fig, ax = new_figure(5.2, 3.4)
+    d = np.asarray(nn_m, float)
+    d = d[np.isfinite(d)]
+    if d.size:
+        top = max(float(d.max()), 2.5 / np.sqrt(max(density_per_m2, 1e-12)) * 0.5) * 1.05
+        bins = np.linspace(0, top, min(30, max(8, d.size // 4)) + 1)
+        ax.hist(
+            d,
+            bins=bins,
+            color="#8fa8c8",
+            edgecolor="#1f4e8c",
+            linewidth=0.6,
+            label=f"observed (n = {d.size})",
+        )
+        r = np.linspace(0, top, 300)
+        lam = density_per_m2
+        pdf = 2 * np.pi * lam * r * np.exp(-lam * np.pi * r**2)
+        ax.plot(
+            r,
+            pdf * d.size * (bins[1] - bins[0]),
+            color="#7d6b15",
+            linewidth=2,
+            label="expected if random",
+        )
+        ax.axvline(
+            d.mean(),
+            color="#1f4e8c",
+            linestyle="--",
+            linewidth=1,
+            label=f"observed mean {d.mean():.2f} m",
+        )
+        ax.axvline(
+            0.5 / np.sqrt(lam),
+            color="#7d6b15",
+            linestyle=":",
+            linewidth=1.2,
+            label=f"random mean {0.5 / np.sqrt(lam):.2f} m",
+        )
+        ax.legend(fontsize=8)
+    ax.set_xlabel("distance to nearest neighbour (m)")
+    ax.set_ylabel("number of plants")
+    ax.set_title(title, fontsize=10)
+    return save_figure(fig, path)
+
+
+def quadrat_map_figure(
+    path: str | os.PathLike,
+    polygon: shapely.Geometry,
+    cells: Sequence[shapely.Geometry],
+    counts: np.ndarray,
+    *,
+    title: str = "",
+) -> Path:
+    """Map of quadrat counts: each cell (clipped to the plot) shaded by its count."""
+    x0, y0, x1, y1 = polygon.bounds
+    fig, ax = new_figure(5.2, 5.2 * max(0.5, min(1.6, (y1 - y0) / max(x1 - x0, 1e-9))))
+    ax.grid(False)
+    counts = np.asarray(counts)
+    norm = mcolors.Normalize(0, max(1, int(counts.max()) if counts.size else 1))
+    import matplotlib as mpl
+
+    cmap = mpl.colormaps["cividis"]
+    for cell, c in zip(cells, counts, strict=True):
+        if cell.is_empty:
+            continue
+        add_polygon(ax, cell, (x0, y0), facecolor=cmap(norm(c)), edgecolor="#ffffff", linewidth=0.6)
+        if cell.area > 0.02 * polygon.area / max(len(cells), 1):
+            pt = cell.representative_point()
+            ax.text(
+                pt.x - x0,
+                pt.y - y0,
+                str(int(c)),
+                ha="center",
+                va="center",
+                fontsize=7,
+                color="white" if norm(c) < 0.55 else "black",
+            )
+    add_polygon(ax, polygon, (x0, y0), edgecolor="#222222", linewidth=1.2)
+    sm = mpl.cm.ScalarMappable(norm=norm, cmap=cmap)
+    fig.colorbar(sm, ax=ax, shrink=0.8, label="plants per quadrat")
+    pad = 0.03 * max(x1 - x0, y1 - y0)
+    ax.set_xlim(-pad, x1 - x0 + pad)
+    ax.set_ylim(-pad, y1 - y0 + pad)
+    ax.set_aspect("equal")
+    ax.set_xlabel("easting from plot corner (m)")
+    ax.set_ylabel("northing from plot corner (m)")
+    ax.set_title(title, fontsize=10)
+    return save_figure(fig, path)
+
+
+def r_against_n_figure(
+    path: str | os.PathLike,
+    rows: Sequence[Mapping],
+    *,
+    alpha: float = 0.05,
+    label_key: str = "plot_id",
+) -> Path:
+    """Every plot's Clark–Evans R against its number of points, with the random band.
+
+    Under complete spatial randomness the standard error of R is
+    0.26136 / √(nρ) / (0.5 / √ρ) = 0.52272 / √n (Clark & Evans 1954), so the band where R
+    is not significantly different from 1 at ``alpha`` (two-sided, normal approximation,
+    no edge correction) is 1 ± z₁₋α/₂ · 0.52272 / √n.
+    """
+    fig, ax = new_figure(6.4, 4.0)
+    n = np.array([float(r.get("n") or 0) for r in rows])
+    big = max(40.0, float(n.max()) * 1.15 if n.size else 40.0)
+    nn = np.linspace(2, big, 400)
+    half = sps.norm.ppf(1 - alpha / 2) * 2 * CE_SE_CONSTANT / np.sqrt(nn)
+    ax.fill_between(
+        nn, 1 - half, 1 + half, color="#dddddd", label=f"not significant at α = {alpha:g}"
+    )
+    ax.axhline(1, color="#7f7f7f", linewidth=0.8)
+    ax.axhline(2.1491, color="#1f4e8c", linewidth=0.6, linestyle=":")
+    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=7, color="#1f4e8c")
+    ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
+    ax.text(30, 0.02, " 30 points", fontsize=7, color="#666666")
+    for key in ("clustered", "random", "regular"):
+        sel = [r for r in rows if r.get("pattern") == key and r.get("R") not in (None, "")]
+        if sel:
+            ax.scatter(
+                [float(r["n"]) for r in sel],
+                [float(r["R"]) for r in sel],
+                color=PALETTE[key],
+                marker={"clustered": "s", "random": "o", "regular": "D"}[key],
+                s=36,
+                label=f"{key} (Monte Carlo)",
+                zorder=3,
+                edgecolor="black",
+                linewidth=0.4,
+            )
+            for r in sel:
+                ax.annotate(
+                    str(r.get(label_key, "")),
+                    (float(r["n"]), float(r["R"])),
+                    fontsize=7,
+                    xytext=(4, 3),
+                    textcoords="offset points",
+                )
+    ax.set_xlim(0, big)
+    ax.set_ylim(0, 2.3)
+    ax.set_xlabel("number of plants in the plot, n")
+    ax.set_ylabel("Clark–Evans R (no edge correction)")
+    ax.legend(fontsize=8, loc="lower right")
+    return save_figure(fig, path)

@@ -1,0 +1,262 @@
+"""The survey report: one self-contained HTML file (figures embedded, no network access)."""
+
+from __future__ import annotations
+
+import base64
+import html
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ecoscan import __version__
+from ecoscan.outputs import format_value, write_text
+
+__all__ = [
+    "CAUTIONS_HTML",
+    "ReportSection",
+    "build_report",
+    "figure_html",
+    "methods_html",
+    "table_html",
+]
+
+_CSS = """
+:root { --ink:#1d2430; --muted:#5b6575; --line:#d9dee6; --accent:#1f4e8c; --paper:#fbfbf8;
+        --clustered:#7d6b15; --regular:#1f4e8c; --random:#6b6b6b; }
+* { box-sizing: border-box; }
+body { margin:0; font-family: system-ui, -apple-system, "Segoe UI", sans-serif; color:var(--ink);
+       background:var(--paper); line-height:1.45; }
+header.top { background:#22303f; color:#f4f1e8; padding:1.4rem 2rem 1.1rem; }
+header.top h1 { margin:0 0 .2rem; font-size:1.55rem; font-weight:600; }
+header.top p { margin:0; color:#c9cfd8; font-size:.92rem; }
+nav.toc { padding:.6rem 2rem; border-bottom:1px solid var(--line); background:#fff;
+          font-size:.9rem; position:sticky; top:0; z-index:2; }
+nav.toc a { margin-right:1.1rem; color:var(--accent); text-decoration:none; }
+main { padding:0 2rem 3rem; max-width:1400px; }
+h2 { margin:2rem 0 .6rem; font-size:1.25rem; border-bottom:2px solid var(--ink);
+     padding-bottom:.2rem; }
+h3 { margin:1.2rem 0 .4rem; font-size:1.05rem; }
+table.data { border-collapse:collapse; font-size:.84rem; background:#fff; margin:.4rem 0 1rem; }
+table.data th, table.data td { border-bottom:1px solid var(--line); padding:.28rem .55rem;
+     text-align:right; white-space:nowrap; }
+table.data th { background:#eef1f5; font-weight:600; position:sticky; top:2.2rem; }
+table.data td.text, table.data th.text { text-align:left; }
+table.data td.warn { text-align:left; white-space:normal; max-width:28rem; color:#7a4b00; }
+.scroll { overflow-x:auto; }
+.tag { display:inline-block; padding:.05rem .45rem; border-radius:.7rem; color:#fff;
+       font-size:.78rem; }
+.tag.clustered { background:var(--clustered); } .tag.regular { background:var(--regular); }
+.tag.random { background:var(--random); } .tag.none { background:#aaa; }
+.cards { display:grid; grid-template-columns:repeat(auto-fill, minmax(420px, 1fr)); gap:1rem; }
+.card { background:#fff; border:1px solid var(--line); border-radius:.4rem; padding:.8rem 1rem; }
+.card h3 { margin-top:0; }
+.card .facts { font-size:.85rem; color:var(--muted); margin:.1rem 0 .5rem; }
+figure { margin:.4rem 0; } figure img { max-width:100%; height:auto; display:block; }
+figcaption { font-size:.8rem; color:var(--muted); }
+.figrow { display:flex; flex-wrap:wrap; gap:.6rem; } .figrow figure { flex:1 1 300px; }
+.caution { background:#fff7e6; border-left:4px solid #c98a00; padding:.7rem 1rem; }
+.method { background:#fff; border:1px solid var(--line); padding:.6rem 1rem; margin:.5rem 0; }
+code, .formula { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size:.85rem; }
+footer { color:var(--muted); font-size:.8rem; padding:1rem 2rem; border-top:1px solid var(--line); }
+"""
+
+CAUTIONS_HTML = """
+<div class="caution">
+<p><strong>Automated counts need checking in the field.</strong> Detection accuracy depends on
+image resolution, season, illumination, crown overlap and the detector settings. Before any
+management decision (thinning, replanting, herbicide or grazing plans, compliance reporting),
+check a sample of plots on the ground and compare with <code>ecoscan validate</code>.</p>
+<p><strong>Statistics describe pattern, not cause.</strong> A clustered or regular verdict says
+how the plants stand, not why. Results depend on the plot boundary, the scale of analysis
+and the quadrat size; plots with fewer than 30 plants give weak tests (common practice).</p>
+<p><strong>Local rules come first.</strong> Field work, drone flights and management actions
+are governed by local regulations, land-owner permissions and licensed professional
+practice; ecoscan's output does not replace them.</p>
+</div>
+"""
+
+
+@dataclass
+class ReportSection:
+    """A titled part of the report; ``body`` is ready HTML."""
+
+    title: str
+    body: str
+    anchor: str = ""
+    children: list[ReportSection] = field(default_factory=list)
+
+
+def _esc(v: Any) -> str:
+    return html.escape(str(v), quote=True)
+
+
+def figure_html(png: str | os.PathLike, caption: str = "", alt: str = "") -> str:
+    """An ``<figure>`` with the PNG embedded as a data URI (no external file needed)."""
+    data = base64.b64encode(Path(png).read_bytes()).decode("ascii")
+    cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
+    return (
+        f'<figure><img src="data:image/png;base64,{data}" alt="{_esc(alt or caption)}">'
+        f"{cap}</figure>"
+    )
+
+
+def pattern_tag(pattern: Any) -> str:
+    """A small coloured label for a verdict (text is always shown, colour is secondary)."""
+    p = str(pattern or "")
+    cls = p if p in ("clustered", "regular", "random") else "none"
+    return f'<span class="tag {cls}">{_esc(p or "no test")}</span>'
+
+
+def table_html(
+    rows: Sequence[Mapping[str, Any]],
+    columns: Sequence[str],
+    *,
+    headers: Sequence[str] | None = None,
+    digits: int = 3,
+) -> str:
+    """A data table; numbers right-aligned, verdicts tagged, warnings wrapped."""
+    headers = list(headers or columns)
+    out = ['<div class="scroll"><table class="data"><thead><tr>']
+    for c, h in zip(columns, headers, strict=True):
+        numeric = all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
+        out.append(f'<th class="{"" if numeric else "text"}">{_esc(h)}</th>')
+    out.append("</tr></thead><tbody>")
+    for r in rows:
+        out.append("<tr>")
+        for c in columns:
+            v = r.get(c)
+            if (
+                c in ("pattern", "verdict")
+                and isinstance(v, str)
+                and v in ("clustered", "regular", "random", "")
+            ):
+                out.append(f'<td class="text">{pattern_tag(v)}</td>')
+            elif c == "warnings":
+                out.append(f'<td class="warn">{_esc(format_value(v))}</td>')
+            elif isinstance(v, float):
+                s = format_value(round(v, digits) if abs(v) < 1e6 else v)
+                out.append(f"<td>{_esc(s or '–')}</td>")
+            elif isinstance(v, int):
+                out.append(f"<td>{v}</td>")
+            else:
+                out.append(f'<td class="text">{_esc(format_value(v) or "–")}</td>')
+        out.append("</tr>")
+    out.append("</tbody></table></div>")
+    return "".join(out)
+
+
+def methods_html(extra: Sequence[str] = ()) -> str:
+    """The methods section: each formula with its published source."""
+    items = [
+        (
+            "Clark–Evans nearest-neighbour index",
+            "ρ = n / A; expected mean distance under complete spatial randomness "
+            "r̄<sub>E</sub> = 1 / (2√ρ); R = r̄<sub>A</sub> / r̄<sub>E</sub>; "
+            "SE = 0.26136 / √(nρ); z = (r̄<sub>A</sub> − r̄<sub>E</sub>) / SE. "
+            "R = 0 when all plants coincide, about 1 at random, 2.1491 for a hexagonal "
+            "lattice.",
+            "Clark, P. J. &amp; Evans, F. C. (1954). Ecology 35: 445–453.",
+        ),
+        (
+            "Edge correction from area and perimeter",
+            "Expected mean distance 0.5√(A/n) + (0.0514 + 0.041/√n)·P/n and variance "
+            "0.0703·A/n² + 0.037·P·√(A/n⁵), P the plot perimeter; R<sub>Donnelly</sub> is the "
+            "observed mean over this expectation.",
+            "Donnelly, K. P. (1978). In Hodder (ed.), Simulation Studies in Archaeology, "
+            "Cambridge Univ. Press, 91–95.",
+        ),
+        (
+            "Guard zone",
+            "Only plants farther than the guard distance from the plot edge are focal; their "
+            "neighbours may be any plant; the density is that of the whole plot.",
+            "Border (reduced-sample) method, e.g. Ripley, B. D. (1977). JRSS B 39: 172–212.",
+        ),
+        (
+            "Monte Carlo test in the exact plot shape (the verdict)",
+            "The same number of plants is placed at random in the plot polygon many times; "
+            "p = (1 + k) / (N + 1) where k simulations are at least as extreme; two-sided "
+            "p = min(1, 2·min(p<sub>lower</sub>, p<sub>upper</sub>)).",
+            "Besag, J. &amp; Diggle, P. J. (1977). Applied Statistics 26: 327–333.",
+        ),
+        (
+            "Quadrats",
+            "Square cells clipped to the plot; expected counts n·a<sub>i</sub>/A; Pearson "
+            "X² = Σ (O − E)² / E with (cells − 1) degrees of freedom, two-sided p; "
+            "variance-to-mean ratio s²/x̄; expected counts below 5 weaken the χ² "
+            "approximation (common practice).",
+            "Pearson's chi-square; Cochran's rule (common practice).",
+        ),
+        (
+            "Morisita's index and its standardised form",
+            "I<sub>δ</sub> = q Σ n<sub>i</sub>(n<sub>i</sub> − 1) / (N(N − 1)); standardised "
+            "I<sub>p</sub> in [−1, 1] with ±0.5 at the 95% limits.",
+            "Morisita, M. (1959). Mem. Fac. Sci. Kyushu Univ. E 2: 215–235; Smith-Gill, S. J. "
+            "(1975). J. Morphology 146: 35–54, as given in Krebs, C. J. (1999) Ecological "
+            "Methodology, 2nd ed.",
+        ),
+    ]
+    out = []
+    for title, formula, source in items:
+        out.append(
+            f'<div class="method"><strong>{title}.</strong> <span class="formula">{formula}'
+            f"</span><br><em>Source:</em> {source}</div>"
+        )
+    out.extend(extra)
+    return "\n".join(out)
+
+
+def _section_html(sec: ReportSection, level: int = 2) -> str:
+    anchor = f' id="{_esc(sec.anchor)}"' if sec.anchor else ""
+    parts = [f"<h{level}{anchor}>{_esc(sec.title)}</h{level}>", sec.body]
+    for child in sec.children:
+        parts.append(_section_html(child, min(level + 1, 4)))
+    return "\n".join(parts)
+
+
+def build_report(
+    path: str | os.PathLike,
+    *,
+    title: str,
+    subtitle: str,
+    sections: Sequence[ReportSection],
+    provenance: Mapping[str, Any] | None = None,
+) -> Path:
+    """Write the self-contained HTML report atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        The ``report.html`` to write.
+    title, subtitle : str
+        Heading lines.
+    sections : sequence of ReportSection
+        Top-level sections, in order; each appears in the navigation bar.
+    provenance : mapping, optional
+        Shown in the footer (version, run time, inputs).
+    """
+    nav = " ".join(f'<a href="#{_esc(s.anchor)}">{_esc(s.title)}</a>' for s in sections if s.anchor)
+    body = "\n".join(_section_html(s) for s in sections)
+    prov = ""
+    if provenance:
+        prov = " · ".join(f"{_esc(k)}: {_esc(v)}" for k, v in provenance.items())
+    doc = f"""<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>{_esc(title)}</title>
+<style>{_CSS}</style>
+</head>
+<body>
+<header class="top"><h1>{_esc(title)}</h1><p>{_esc(subtitle)}</p></header>
+<nav class="toc">{nav}</nav>
+<main>
+{body}
+</main>
+<footer>Made by ecoscan {__version__}. {prov}</footer>
+</body>
+</html>
+"""
+    return write_text(path, doc)
