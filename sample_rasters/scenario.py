@@ -161,7 +161,7 @@ def marrow_plots(rng: np.random.Generator) -> list[PlotTruth]:
     parents = np.array([[ox + 64, oy + 16], [ox + 84, oy + 22], [ox + 70, oy + 42]])
     kids = np.vstack([p + rng.normal(0, 2.6, (60, 2)) for p in parents])
     rng.shuffle(kids)
-    xy = _hard_core_fill(_inside(thicket, kids, 1.5), 2.0)[:75]
+    xy = _hard_core_fill(_inside(thicket, kids, 1.5), 2.2)[:75]
     h = rng.uniform(6, 10, len(xy))
     out.append(PlotTruth("thicket", "Marrow Wood", "clustered", thicket, xy, 0.2 * h, h))
     return out

@@ -272,6 +272,8 @@ def load_survey(path: str | Path) -> SurveyConfig:
         problems.add(("compare", "by"), "by must be 'auto', 'site', 'date' or 'plot'")
 
     det_keys = _settings_keys("ecoscan.detect", "DetectionSettings")
+    if det_keys is not None:
+        det_keys |= {"diameter"}  # accepted as "MIN:MAX" or [MIN, MAX]
     rasters: list[RasterEntry] = []
     entries = data.get("raster", [])
     if not isinstance(entries, list) or not entries:

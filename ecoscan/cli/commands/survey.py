@@ -1,0 +1,75 @@
+"""``ecoscan survey``: run a whole survey described in a TOML file."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+NAME = "survey"
+HELP = "run detection, statistics, comparison and change for a whole survey file"
+DESCRIPTION = (
+    "Run every raster of a survey file through detection and the per-plot statistics, compare "
+    "sites or plots, follow plants between consecutive dates, and write one output folder with "
+    "tables, GIS layers, figures, provenance (run.json) and report.html. A rerun skips rasters "
+    "whose detections are already done and unchanged."
+)
+EXAMPLE = "ecoscan survey sample_rasters/survey.toml -o results"
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    """Options of ``ecoscan survey``."""
+    p.add_argument("survey", metavar="SURVEY.toml", help="the survey file")
+    p.add_argument(
+        "-o", "--output", metavar="DIR", help="output folder (default: [survey] output in the file)"
+    )
+    p.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help="detection worker processes (default: [survey] workers, else 1)",
+    )
+    p.add_argument("--no-report", action="store_true", help="skip figures and report.html")
+
+
+def print_summary(run) -> None:
+    """Print the per-plot table and where the outputs are."""
+    from ecoscan.tables import format_table
+
+    cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "pattern"]
+    print(
+        format_table(
+            run.rows,
+            cols,
+            headers=["site", "date", "plot", "n", "per ha", "R", "R edge", "p MC", "verdict"],
+        )
+    )
+    for ch in run.changes:
+        print(
+            f"change {ch.site} {ch.earlier} -> {ch.later}: shift "
+            f"{ch.result.shift_x_m:+.2f} m E, {ch.result.shift_y_m:+.2f} m N"
+        )
+    report = run.output / "report.html"
+    print(f"\nresults in {run.output}" + (f"\nreport: {report}" if report.exists() else ""))
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``ecoscan survey``."""
+    from ecoscan.cli._common import print_notes
+    from ecoscan.errors import InputError
+    from ecoscan.survey.config import load_survey
+    from ecoscan.survey.runner import run_survey
+
+    if args.workers is not None and args.workers < 1:
+        raise InputError("--workers must be at least 1")
+    cfg = load_survey(args.survey)
+    res = run_survey(
+        cfg,
+        output=Path(args.output) if args.output else None,
+        workers=args.workers,
+        report=not args.no_report,
+    )
+    print_notes(res.notes, args.quiet)
+    print_summary(res)
+    sys.stdout.flush()
+    return 0

@@ -1,0 +1,436 @@
+"""Run a whole survey: detection and analysis for every raster and plot, then comparison,
+change between dates, figures, provenance and the report.
+
+Output folder layout::
+
+    OUTDIR/
+      dispersion.csv      one row per raster and plot (site, date, raster, then the
+                          dispersion columns of ecoscan.analysis)
+      dispersion.json     the same numbers with all parameters
+      points.csv/.prj     every analysed plant (x, y, plot_id, site, date, raster, attributes)
+      plots.gpkg          the plot outlines in the survey CRS
+      points/NAME.gpkg    detected plants per raster (also NAME.csv); NAME.key.json marks a
+                          finished detection for the rerun cache
+      scales.csv, functions.csv   when [scales] is enabled
+      change/SITE_D1_D2/  change between consecutive dates of a site
+      compare/            comparison between sites (or plots)
+      figures/            PNG figures
+      run.json            provenance: version, parameters, input sizes and SHA-256, times
+      report.html         the self-contained report
+"""
+
+from __future__ import annotations
+
+import itertools
+import logging
+import re
+import time
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ecoscan import __version__
+from ecoscan.crs import crs_label
+from ecoscan.errors import InputError
+from ecoscan.inputs import SurveyInputs, assign_plots
+from ecoscan.outputs import write_csv, write_json
+from ecoscan.points import PointSet
+from ecoscan.progress import progress
+from ecoscan.survey.cache import file_sha256, is_fresh, mark_done, settings_key
+from ecoscan.survey.config import RasterEntry, SurveyConfig
+from ecoscan.vector import (
+    PlotLayer,
+    read_plots,
+    read_points,
+    reproject_geometries,
+    write_plots,
+    write_points,
+)
+
+log = logging.getLogger("ecoscan")
+
+__all__ = ["RasterRun", "SurveyRun", "run_survey", "slug"]
+
+
+def slug(text: str) -> str:
+    """A file-name-safe version of a label."""
+    s = re.sub(r"[^A-Za-z0-9._-]+", "-", str(text)).strip("-")
+    return s or "x"
+
+
+@dataclass
+class RasterRun:
+    """What the survey found in one raster."""
+
+    entry: RasterEntry
+    method: str
+    points: PointSet  # survey CRS, analysed points only, with a plot_id attribute
+    inputs: SurveyInputs
+    dispersion: list
+    scales: list | None
+    notes: list[str]
+    cached: bool
+    pixel_size_m: float
+
+
+@dataclass
+class ChangeRun:
+    """Change between two consecutive dates of one site."""
+
+    site: str
+    earlier: str
+    later: str
+    result: Any
+    folder: Path
+
+
+@dataclass
+class SurveyRun:
+    """Everything a survey run produced."""
+
+    config: SurveyConfig
+    output: Path
+    crs_text: str
+    rasters: list[RasterRun] = field(default_factory=list)
+    rows: list[dict] = field(default_factory=list)
+    changes: list[ChangeRun] = field(default_factory=list)
+    comparisons: list = field(default_factory=list)
+    compare_by: str = ""
+    notes: list[str] = field(default_factory=list)
+    files: list[Path] = field(default_factory=list)
+
+
+def _layer_subset(layer: PlotLayer, keep: np.ndarray) -> PlotLayer:
+    return PlotLayer(
+        [p for p, k in zip(layer.plots, keep, strict=True) if k], layer.crs, list(layer.notes)
+    )
+
+
+def _raster_footprint(path: Path, survey_crs):
+    """The raster's footprint polygon in the survey CRS."""
+    import shapely
+
+    from ecoscan.raster import open_raster
+
+    info = open_raster(path)
+    t = info.transform
+    corners = np.array([[0, 0], [info.width, 0], [info.width, info.height], [0, info.height]])
+    xs = t.a * corners[:, 0] + t.b * corners[:, 1] + t.c
+    ys = t.d * corners[:, 0] + t.e * corners[:, 1] + t.f
+    poly = shapely.Polygon(np.column_stack([xs, ys]))
+    if info.crs is not None and survey_crs is not None and info.crs != survey_crs:
+        poly = reproject_geometries(
+            np.array([poly.segmentize(max(poly.length / 400, 1e-9))]), info.crs, survey_crs
+        )[0]
+    return poly, info
+
+
+def _to_survey_crs(points: PointSet, crs) -> PointSet:
+    if crs is None or points.crs is None or points.crs == crs:
+        return points
+    from ecoscan.crs import transform_xy
+
+    x, y = transform_xy(points.x, points.y, points.crs, crs)
+    return PointSet(
+        x,
+        y,
+        points.attrs,
+        crs,
+        [*points.notes, f"points reprojected to the survey CRS {crs_label(crs)}"],
+    )
+
+
+def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, workers: int):
+    from ecoscan.detect import DetectionSettings, detect_raster
+
+    settings = DetectionSettings.from_mapping(entry.detect)
+    pts_dir = out / "points"
+    gpkg, csv = pts_dir / f"{slug(entry.name)}.gpkg", pts_dir / f"{slug(entry.name)}.csv"
+    key_file = pts_dir / f"{slug(entry.name)}.key.json"
+    key = settings_key(raster=file_sha256(entry.path), plots=plots_hash, detect=settings.to_dict())
+    if is_fresh(key_file, key, [gpkg, csv]):
+        import json
+
+        info = json.loads(key_file.read_text(encoding="utf-8"))
+        pts = read_points(csv)
+        return (
+            pts,
+            info.get("method", settings.method),
+            info.get("notes", []),
+            True,
+            float(info.get("pixel_size_m", float("nan"))),
+            settings,
+        )
+    res = detect_raster(entry.path, settings, plots=layer, workers=workers)
+    write_points(res.points, gpkg)
+    write_points(res.points, csv)
+    mark_done(
+        key_file,
+        key,
+        method=res.method,
+        notes=list(res.notes),
+        pixel_size_m=float(res.pixel_size_m),
+        raster=entry.path.name,
+    )
+    return res.points, res.method, list(res.notes), False, float(res.pixel_size_m), settings
+
+
+def run_survey(
+    config: SurveyConfig,
+    *,
+    output: Path | None = None,
+    workers: int | None = None,
+    report: bool = True,
+) -> SurveyRun:
+    """Run every step of a survey and write its output folder.
+
+    Parameters
+    ----------
+    config : SurveyConfig
+        A checked survey file (:func:`ecoscan.survey.config.load_survey`).
+    output : pathlib.Path, optional
+        Output folder; default the one named in the survey file.
+    workers : int, optional
+        Detection worker processes; default from the survey file.
+    report : bool
+        Write figures and ``report.html``.
+
+    Returns
+    -------
+    SurveyRun
+    """
+    from ecoscan.analysis import DispersionSettings, analyse, dispersion_rows
+
+    started = datetime.now(UTC)
+    t0 = time.perf_counter()
+    out = Path(output or config.output)
+    out.mkdir(parents=True, exist_ok=True)
+    stat_settings = DispersionSettings.from_mapping(config.statistics)
+    layer = read_plots(config.plots, id_field=config.plot_id_field, layer=config.plots_layer)
+    survey_crs = layer.crs
+    run = SurveyRun(config, out, crs_label(survey_crs), notes=list(layer.notes))
+    plots_hash = file_sha256(config.plots)
+    scales_settings = None
+    if config.scales_enabled:
+        from ecoscan.scales import ScalesSettings
+
+        scales_settings = ScalesSettings.from_mapping(
+            {k: v for k, v in config.scales.items() if k != "enabled"}
+        )
+
+    for entry in progress(config.rasters, desc="rasters", unit="raster"):
+        footprint, _info = _raster_footprint(entry.path, survey_crs)
+        import shapely
+
+        touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
+        if not np.any(touches):
+            raise InputError(
+                f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
+                "none of the plots; check its CRS and the plots file"
+            )
+        sub = _layer_subset(layer, touches)
+        log.info("detecting plants in %s", entry.path.name)
+        pts, method, notes, cached, px, _settings = _detect(
+            entry, sub, out, plots_hash, workers or config.workers
+        )
+        pts = _to_survey_crs(pts, survey_crs)
+        idx = assign_plots(pts, sub)
+        keep = idx >= 0
+        pts = pts.subset(keep)
+        idx = idx[keep]
+        pts.attrs["plot_id"] = np.array([sub.plots[i].plot_id for i in idx], dtype=object)
+        inputs = SurveyInputs(pts, sub, idx, list(notes))
+        disp = analyse(inputs, stat_settings)
+        scl = None
+        if scales_settings is not None:
+            from ecoscan.scales import analyse_scales
+
+            scl = analyse_scales(inputs, scales_settings)
+        run.rasters.append(RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px))
+        for row in dispersion_rows(disp):
+            run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
+        run.notes += [f"{entry.name}: {n}" for n in notes]
+
+    _write_tables(run, stat_settings)
+    _run_change(run)
+    _run_compare(run)
+    if report:
+        from ecoscan.survey.reporting import write_report
+
+        run.files += write_report(run, stat_settings)
+    finished = datetime.now(UTC)
+    _write_provenance(
+        run, stat_settings, scales_settings, started, finished, time.perf_counter() - t0
+    )
+    return run
+
+
+def _write_tables(run: SurveyRun, stat_settings) -> None:
+    from ecoscan.analysis import DISPERSION_COLUMNS
+
+    out = run.output
+    cols = ["site", "date", "raster", *DISPERSION_COLUMNS]
+    extra = [k for r in run.rows for k in r if k not in cols]
+    cols += list(dict.fromkeys(extra))
+    run.files.append(write_csv(out / "dispersion.csv", run.rows, cols))
+    run.files.append(
+        write_json(
+            out / "dispersion.json",
+            {
+                "ecoscan_version": __version__,
+                "survey": run.config.name,
+                "crs": run.crs_text,
+                "parameters": stat_settings.to_dict(),
+                "plots": run.rows,
+            },
+        )
+    )
+    parts = []
+    for rr in run.rasters:
+        p = rr.points
+        attrs = {
+            "plot_id": p.attrs["plot_id"],
+            "site": np.full(p.n, rr.entry.site, dtype=object),
+            "date": np.full(p.n, rr.entry.date, dtype=object),
+            "raster": np.full(p.n, rr.entry.name, dtype=object),
+        }
+        attrs.update({k: v for k, v in p.attrs.items() if k not in attrs})
+        parts.append(PointSet(p.x, p.y, attrs, p.crs))
+    allpts = PointSet.concat(parts)
+    if allpts.crs is None and run.rasters:
+        allpts.crs = run.rasters[0].inputs.layer.crs
+    run.files.append(write_points(allpts, out / "points.csv"))
+    layer = read_plots(
+        run.config.plots, id_field=run.config.plot_id_field, layer=run.config.plots_layer
+    )
+    run.files.append(write_plots(layer, out / "plots.gpkg"))
+    if any(rr.scales for rr in run.rasters):
+        from ecoscan.scales import function_rows, scales_rows
+
+        srows, frows = [], []
+        for rr in run.rasters:
+            if not rr.scales:
+                continue
+            lab = {"site": rr.entry.site, "date": rr.entry.date, "raster": rr.entry.name}
+            srows += [{**lab, **r} for r in scales_rows(rr.scales)]
+            frows += [{**lab, **r} for r in function_rows(rr.scales)]
+        run.files.append(write_csv(out / "scales.csv", srows))
+        run.files.append(write_csv(out / "functions.csv", frows))
+
+
+def _run_change(run: SurveyRun) -> None:
+    cfg = run.config.change
+    if not cfg.get("enabled", True):
+        return
+    from ecoscan.change import detect_change, write_change
+
+    by_site: dict[str, list[RasterRun]] = {}
+    for rr in run.rasters:
+        by_site.setdefault(rr.entry.site, []).append(rr)
+    tol = float(cfg.get("tolerance_m", 1.0))
+    for site, rrs in by_site.items():
+        for method in dict.fromkeys(r.method for r in rrs):
+            seq = sorted((r for r in rrs if r.method == method), key=lambda r: r.entry.date)
+            for a, b in itertools.pairwise(seq):
+                plots = PlotLayer(
+                    [p for p in a.inputs.plots if p.plot_id in set(b.inputs.layer.ids)],
+                    a.inputs.layer.crs,
+                )
+                res = detect_change(
+                    a.points,
+                    b.points,
+                    tol,
+                    plots=plots if plots.plots else None,
+                    estimate_shift=bool(cfg.get("estimate_shift", True)),
+                )
+                folder = run.output / "change" / slug(f"{site}_{a.entry.date}_{b.entry.date}")
+                run.files += write_change(folder, res)
+                run.changes.append(ChangeRun(site, a.entry.date, b.entry.date, res, folder))
+
+
+def _run_compare(run: SurveyRun) -> None:
+    cfg = run.config.compare
+    if not cfg.get("enabled", True) or not run.rasters:
+        return
+    from ecoscan.compare import compare_groups, read_results, write_comparison
+
+    by = cfg.get("by", "auto")
+    if by == "auto":
+        many_sites = len({r.entry.site for r in run.rasters}) > 1
+        groupings = ["site", "plot"] if many_sites else ["plot"]
+    else:
+        groupings = [by]
+    table = read_results(run.output)
+    seed = int(run.config.statistics.get("seed", 1))
+    perms = int(cfg.get("permutations", 999))
+    for g in groupings:
+        res = compare_groups([table], by=g, permutations=perms, seed=seed)
+        run.files += write_comparison(run.output / f"compare-by-{g}", res)
+        run.comparisons.append((g, res))
+    run.compare_by = ",".join(groupings)
+
+
+def _write_provenance(run, stat_settings, scales_settings, started, finished, seconds) -> None:
+    cfg = run.config
+    inputs = [
+        {
+            "role": "survey",
+            "path": str(cfg.path),
+            "bytes": cfg.path.stat().st_size,
+            "sha256": file_sha256(cfg.path),
+        },
+        {
+            "role": "plots",
+            "path": str(cfg.plots),
+            "bytes": cfg.plots.stat().st_size,
+            "sha256": file_sha256(cfg.plots),
+        },
+    ]
+    for e in cfg.rasters:
+        inputs.append(
+            {
+                "role": "raster",
+                "name": e.name,
+                "site": e.site,
+                "date": e.date,
+                "path": str(e.path),
+                "bytes": e.path.stat().st_size,
+                "sha256": file_sha256(e.path),
+                "detect": e.detect,
+            }
+        )
+    write_json(
+        run.output / "run.json",
+        {
+            "ecoscan_version": __version__,
+            "survey": cfg.name,
+            "crs": run.crs_text,
+            "started_utc": started.isoformat(timespec="seconds"),
+            "finished_utc": finished.isoformat(timespec="seconds"),
+            "seconds": round(seconds, 2),
+            "statistics": stat_settings.to_dict(),
+            "scales": scales_settings.to_dict() if scales_settings else None,
+            "change": cfg.change,
+            "compare": {**cfg.compare, "by_used": run.compare_by},
+            "inputs": inputs,
+            "rasters": [
+                {
+                    "name": r.entry.name,
+                    "method": r.method,
+                    "plants": r.points.n,
+                    "from_cache": r.cached,
+                    "pixel_size_m": r.pixel_size_m,
+                }
+                for r in run.rasters
+            ],
+            "notes": run.notes,
+            "outputs": sorted(
+                str(p.relative_to(run.output))
+                for p in run.files
+                if Path(p).is_relative_to(run.output)
+            ),
+        },
+    )

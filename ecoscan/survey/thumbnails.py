@@ -1,0 +1,77 @@
+"""Small previews of a raster around a plot, for the report's maps."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import rasterio
+from rasterio.errors import NotGeoreferencedWarning
+from rasterio.windows import Window, from_bounds
+
+__all__ = ["preview"]
+
+
+def _stretch(a: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    v = a[valid]
+    if v.size == 0:
+        return np.zeros_like(a)
+    lo, hi = np.percentile(v, [1, 99])
+    if hi <= lo:
+        hi = lo + 1
+    out = np.clip((a - lo) / (hi - lo), 0, 1)
+    out[~valid] = 1.0
+    return out
+
+
+def preview(
+    path: str,
+    bounds: tuple[float, float, float, float],
+    *,
+    rgb: bool,
+    max_side: int = 700,
+) -> tuple[np.ndarray, tuple[float, float, float, float]] | None:
+    """Read a reduced-resolution preview of a raster over map bounds.
+
+    Parameters
+    ----------
+    path : str
+        The raster.
+    bounds : (xmin, ymin, xmax, ymax)
+        Area to preview, in the raster's CRS.
+    rgb : bool
+        Read the first three bands as colour; otherwise the first band in grey.
+    max_side : int
+        Longest side of the preview in pixels.
+
+    Returns
+    -------
+    (image, extent) or None
+        ``image`` is (h, w, 3) or (h, w) floats in [0, 1]; ``extent`` is (left, right,
+        bottom, top) in map units. None when the bounds miss the raster.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with rasterio.open(path) as src:
+            win = from_bounds(*bounds, transform=src.transform)
+            full = Window(0, 0, src.width, src.height)
+            try:
+                win = win.intersection(full).round_offsets().round_lengths()
+            except rasterio.errors.WindowError:
+                return None
+            if win.width < 1 or win.height < 1:
+                return None
+            f = max(1.0, max(win.width, win.height) / max_side)
+            shape = (max(1, int(win.height / f)), max(1, int(win.width / f)))
+            bands = [1, 2, 3] if rgb and src.count >= 3 else [1]
+            data = src.read(bands, window=win, out_shape=(len(bands), *shape), out_dtype="float32")
+            mask = src.read_masks(bands, window=win, out_shape=(len(bands), *shape))
+            t = src.window_transform(win)
+    valid = np.all(mask > 0, axis=0) & np.all(np.isfinite(data), axis=0)
+    w_px, h_px = win.width, win.height
+    extent = (t.c, t.c + t.a * w_px, t.f + t.e * h_px, t.f)
+    if len(bands) == 3:
+        img = np.stack([_stretch(b, valid) for b in data], axis=-1)
+    else:
+        img = _stretch(data[0], valid)
+    return img, extent
