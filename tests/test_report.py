@@ -1,0 +1,75 @@
+"""The HTML report: self-contained, images decode in a real browser, no console errors."""
+
+import os
+
+import numpy as np
+import pytest
+import shapely
+
+from ecoscan.figures.dispersion import nn_histogram_figure, r_against_n_figure
+from ecoscan.report import ReportSection, build_report, figure_html, table_html
+
+from .browser import IMAGES_OK_JS, find_chromium, inspect_page
+
+
+def _small_report(tmp_path):
+    rng = np.random.default_rng(0)
+    nn = rng.rayleigh(1.0, 80)
+    f1 = nn_histogram_figure(tmp_path / "nn.png", nn, 0.08, title="test plot")
+    rows = [
+        {"plot_id": "a", "n": 80, "R": 1.02, "pattern": "random", "warnings": ""},
+        {
+            "plot_id": "b",
+            "n": 20,
+            "R": 1.7,
+            "pattern": "regular",
+            "warnings": "fewer than 30 points",
+        },
+    ]
+    f2 = r_against_n_figure(tmp_path / "rn.png", rows)
+    body = table_html(rows, ["plot_id", "n", "R", "pattern", "warnings"])
+    body += figure_html(f1, "spacing") + figure_html(f2, "R against n")
+    return build_report(
+        tmp_path / "report.html",
+        title="Test survey",
+        subtitle="unit test",
+        sections=[
+            ReportSection("Summary", body, "summary"),
+            ReportSection("Cautions", "<p>check in the field</p>", "cautions"),
+        ],
+    )
+
+
+def test_report_is_self_contained(tmp_path):
+    path = _small_report(tmp_path)
+    text = path.read_text()
+    assert text.count("data:image/png;base64,") == 2
+    # no external resources: nothing fetched over the network (self-contained file)
+    for bad in ("http://", "https://", "<script src", "<link "):
+        assert bad not in text
+    assert "fewer than 30 points" in text
+
+
+@pytest.mark.browser
+def test_report_in_headless_chromium(tmp_path):
+    if find_chromium() is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("CI must run the browser test: install Debian's chromium")
+        pytest.skip("chromium is not installed (apt-get install chromium)")
+    path = _small_report(tmp_path)
+    out = inspect_page(path, tmp_path / "screenshot.png", IMAGES_OK_JS)
+    assert out["value"]["count"] == 2
+    assert out["value"]["decoded"] == 2
+    assert out["value"]["sections"] == 2
+    assert out["errors"] == []
+    png = (tmp_path / "screenshot.png").read_bytes()
+    assert png[:8] == b"\x89PNG\r\n\x1a\n" and len(png) > 10_000
+
+
+def test_polygon_drawing_handles_holes(tmp_path):
+    from ecoscan.figures.dispersion import quadrat_map_figure
+
+    poly = shapely.box(0, 0, 10, 10).difference(shapely.box(4, 4, 6, 6))
+    cells = [poly.intersection(shapely.box(x, y, x + 5, y + 5)) for x in (0, 5) for y in (0, 5)]
+    p = quadrat_map_figure(tmp_path / "q.png", poly, cells, np.array([1, 2, 3, 4]))
+    assert p.read_bytes()[:4] == b"\x89PNG"
