@@ -1,0 +1,147 @@
+"""The bundled demo survey end to end, checked against its known (synthetic) ground truth.
+
+The demo data is invented (sample_rasters/scenario.py); its true plant positions and the
+patterns each plot was built with are the ground truth here.
+"""
+
+import dataclasses
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from ecoscan.cli import main
+from ecoscan.stats.matching import match_points
+from ecoscan.survey.config import load_survey
+from ecoscan.survey.runner import run_survey
+from ecoscan.vector import read_points
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "sample_rasters"
+BUILT_AS = {
+    "rows": "regular",
+    "regen": "clustered",
+    "scatter": "random",
+    "corner": "random",
+    "thinned": "regular",
+    "thicket": "clustered",
+}
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    cfg = load_survey(DEMO / "survey.toml")
+    cfg = dataclasses.replace(
+        cfg,
+        statistics={**cfg.statistics, "simulations": 399},
+        scales={**cfg.scales, "simulations": 99},
+    )
+    return cfg, run_survey(cfg, output=out)
+
+
+def test_verdicts_match_how_the_plots_were_built(demo_run):
+    _cfg, run = demo_run
+    got = {(r["raster"], r["plot_id"]): r["pattern"] for r in run.rows}
+    assert len(got) == 12  # 4 Tansy plots x 2 dates + 2 Marrow plots x 2 rasters
+    wrong = {k: v for k, v in got.items() if v != BUILT_AS[k[1]]}
+    assert not wrong, wrong
+
+
+def test_small_plot_flagged(demo_run):
+    _cfg, run = demo_run
+    corner = [r for r in run.rows if r["plot_id"] == "corner"]
+    assert corner and all("30" in r["warnings"] for r in corner)
+
+
+@pytest.mark.parametrize(
+    "raster, truth, tol",
+    [
+        ("tansy-spring", "tansy_spring_plants.csv", 0.5),
+        ("tansy-autumn", "tansy_autumn_plants.csv", 0.5),
+        ("marrow-chm", "marrow_trees.csv", 1.0),
+        ("marrow-classes", "marrow_trees.csv", 1.0),
+    ],
+)
+def test_detection_f1_against_truth(demo_run, raster, truth, tol):
+    _cfg, run = demo_run
+    rr = next(r for r in run.rasters if r.entry.name == raster)
+    ref = read_points(DEMO / "truth" / truth)
+    m = match_points(rr.points.xy, ref.xy, tol)
+    precision = m.n_matched / max(rr.points.n, 1)
+    recall = m.n_matched / ref.n
+    f1 = 2 * precision * recall / (precision + recall)
+    assert f1 >= 0.95, (raster, precision, recall)
+
+
+def test_change_recovers_shift_losses_and_recruits(demo_run):
+    _cfg, run = demo_run
+    assert len(run.changes) == 1
+    ch = run.changes[0]
+    # the autumn mosaic was built shifted by (+0.30, -0.20) m (sample_rasters/scenario.py)
+    assert abs(ch.result.shift_x_m - 0.30) < 0.08
+    assert abs(ch.result.shift_y_m + 0.20) < 0.08
+    truth = {r["plot_id"]: r for r in _read_csv(DEMO / "truth" / "tansy_change.csv")}
+    rows = {r["plot_id"]: r for r in _change_rows(ch.result)}
+    for pid, t in truth.items():
+        assert abs(rows[pid]["lost"] - int(t["lost"])) <= max(2, 0.15 * int(t["lost"]))
+        assert abs(rows[pid]["new"] - int(t["recruits"])) <= max(2, 0.15 * int(t["recruits"]))
+
+
+def _change_rows(result):
+    from ecoscan.change import change_rows
+
+    return change_rows(result)
+
+
+def _read_csv(path):
+    import csv
+
+    with open(path) as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_outputs_and_provenance(demo_run):
+    _cfg, run = demo_run
+    out = run.output
+    for name in (
+        "dispersion.csv",
+        "dispersion.json",
+        "points.csv",
+        "points.prj",
+        "plots.gpkg",
+        "run.json",
+        "report.html",
+    ):
+        assert (out / name).exists(), name
+    prov = json.loads((out / "run.json").read_text())
+    rasters = [i for i in prov["inputs"] if i["role"] == "raster"]
+    assert len(rasters) == 4 and all(len(i["sha256"]) == 64 for i in rasters)
+    header = (out / "dispersion.csv").read_text().splitlines()[0].split(",")
+    assert header[:4] == ["site", "date", "raster", "plot_id"]
+    assert not list(out.rglob("*.tmp-ecoscan*"))
+
+
+def test_rerun_is_identical_and_uses_the_cache(demo_run, tmp_path):
+    cfg, run = demo_run
+    first = (run.output / "dispersion.csv").read_bytes()
+    again = run_survey(cfg, output=run.output, report=False)
+    assert all(r.cached for r in again.rasters)
+    assert (run.output / "dispersion.csv").read_bytes() == first
+
+
+def test_bad_survey_file_exit_code(tmp_path, capsys):
+    bad = tmp_path / "s.toml"
+    bad.write_text('[survey]\nplots = "missing.gpkg"\n[[raster]]\npath = "none.tif"\n')
+    assert main(["survey", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: s.toml has 2 problems")
+    assert "Traceback" not in err
+    assert not (tmp_path / "results").exists()
+
+
+def test_detected_points_are_inside_plots(demo_run):
+    _cfg, run = demo_run
+    for rr in run.rasters:
+        assert np.all(rr.inputs.plot_index >= 0)
