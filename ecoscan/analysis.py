@@ -1,0 +1,592 @@
+"""Per-plot dispersion analysis: orchestration of the statistics in :mod:`ecoscan.stats`.
+
+For every plot this runs the same methods whatever its size: nearest-neighbour distances
+(KD-tree), the Clark–Evans index without and with Donnelly's edge correction, a guard-zone
+estimate, the Monte Carlo test in the exact plot polygon (the verdict), and a quadrat
+analysis on a grid clipped to the plot. Results are typed records; :func:`write_analysis`
+writes the results folder (``dispersion.csv``, ``dispersion.json``, ``points.csv`` + ``.prj``,
+``plots.gpkg``).
+
+The method reference, with formulas, constants and sources, is ``docs/methods-dispersion.md``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import zlib
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+
+from ecoscan import __version__
+from ecoscan.crs import crs_label
+from ecoscan.errors import InputError
+from ecoscan.inputs import SurveyInputs
+from ecoscan.outputs import write_csv, write_json
+from ecoscan.points import PointSet
+from ecoscan.progress import progress
+from ecoscan.stats.montecarlo import ALTERNATIVES, MonteCarloResult, monte_carlo_nn
+from ecoscan.stats.nearest import (
+    ClarkEvansResult,
+    EdgeCorrectedResult,
+    clark_evans,
+    default_guard_m,
+    donnelly,
+    guard_zone,
+    nn_distances,
+)
+from ecoscan.stats.quadrat import MIN_EXPECTED, QuadratResult, default_quadrat_size, quadrat_test
+from ecoscan.vector import write_plots, write_points
+
+__all__ = [
+    "CAUTION",
+    "DISPERSION_COLUMNS",
+    "EXTRA_COLUMNS",
+    "DispersionSettings",
+    "PlotDispersion",
+    "analyse",
+    "analyse_plot",
+    "check_outdir",
+    "dispersion_rows",
+    "plot_rng",
+    "write_analysis",
+]
+
+#: Required columns of ``dispersion.csv``, in order (results-folder convention).
+DISPERSION_COLUMNS: tuple[str, ...] = (
+    "plot_id",
+    "n",
+    "area_m2",
+    "density_per_ha",
+    "mean_nn_m",
+    "expected_nn_m",
+    "R",
+    "z",
+    "p",
+    "R_donnelly",
+    "z_donnelly",
+    "p_donnelly",
+    "p_mc",
+    "pattern",
+    "quadrat_size_m",
+    "quadrat_chi2",
+    "quadrat_df",
+    "quadrat_p",
+    "vmr",
+    "morisita",
+    "morisita_std",
+    "warnings",
+)
+
+#: Further columns that follow the required ones.
+EXTRA_COLUMNS: tuple[str, ...] = (
+    "perimeter_m",
+    "expected_nn_donnelly_m",
+    "expected_nn_mc_m",
+    "p_mc_clustered",
+    "p_mc_regular",
+    "simulations",
+    "guard_m",
+    "n_guard_focal",
+    "R_guard",
+    "z_guard",
+    "p_guard",
+    "quadrat_cells",
+    "quadrat_low_expected",
+    "n_coincident",
+)
+
+#: Usual caution printed with every result.
+CAUTION = (
+    "Automated point positions and counts need checking in the field before they drive "
+    "management decisions or field work; follow local rules and licensed practice."
+)
+
+#: Fewer points than this are flagged (common practice for nearest-neighbour tests).
+MIN_POINTS_ADVISED = 30
+
+
+def _type_name(t: type | tuple[type, ...]) -> str:
+    if isinstance(t, tuple):
+        return " or ".join(x.__name__ for x in t)
+    return t.__name__
+
+
+@dataclass(frozen=True)
+class DispersionSettings:
+    """Parameters of the dispersion analysis.
+
+    Attributes
+    ----------
+    simulations : int
+        Monte Carlo simulations under complete spatial randomness (default 999).
+    seed : int
+        Random seed (≥ 0); every plot gets its own stream from it (see :func:`plot_rng`).
+    alpha : float
+        Significance level for the verdict (default 0.05).
+    alternative : {'two-sided', 'clustered', 'regular'}
+        Alternative hypothesis of all tests.
+    guard_m : float or None
+        Guard-zone width in metres; None uses 1/√ρ per plot (twice the expected NN distance
+        under CSR; :func:`ecoscan.stats.nearest.default_guard_m`).
+    quadrat_m : float or None
+        Quadrat side in metres; None uses √(2A/n) per plot (cell area ≈ 2A/n, common
+        practice; :func:`ecoscan.stats.quadrat.default_quadrat_size`).
+    min_points : int
+        Plots with fewer points get a warning (default 30, common practice).
+    """
+
+    simulations: int = 999
+    seed: int = 1
+    alpha: float = 0.05
+    alternative: str = "two-sided"
+    guard_m: float | None = None
+    quadrat_m: float | None = None
+    min_points: int = MIN_POINTS_ADVISED
+
+    _TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
+        "simulations": int,
+        "seed": int,
+        "alpha": (int, float),
+        "alternative": str,
+        "guard_m": (int, float),
+        "quadrat_m": (int, float),
+        "min_points": int,
+    }
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.simulations, (int, np.integer)) or self.simulations < 1:
+            raise InputError(
+                f"simulations must be a whole number of at least 1 (got {self.simulations!r}); "
+                "999 is usual"
+            )
+        if not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
+            raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
+        if not (0.0 < float(self.alpha) < 1.0):
+            raise InputError(f"alpha must lie between 0 and 1 (got {self.alpha!r}); 0.05 is usual")
+        if self.alternative not in ALTERNATIVES:
+            raise InputError(
+                f"alternative must be one of {', '.join(ALTERNATIVES)} (got {self.alternative!r})"
+            )
+        if self.guard_m is not None and not (
+            np.isfinite(float(self.guard_m)) and float(self.guard_m) >= 0
+        ):
+            raise InputError(
+                f"guard width must be a number of metres >= 0 (got {self.guard_m!r}); "
+                "leave it out for the default 1/sqrt(density)"
+            )
+        if self.quadrat_m is not None and not (
+            np.isfinite(float(self.quadrat_m)) and float(self.quadrat_m) > 0
+        ):
+            raise InputError(
+                f"quadrat size must be a positive number of metres (got {self.quadrat_m!r}); "
+                "leave it out for the default sqrt(2 * area / n)"
+            )
+        if not isinstance(self.min_points, (int, np.integer)) or self.min_points < 0:
+            raise InputError(f"min_points must be a whole number >= 0 (got {self.min_points!r})")
+
+    @classmethod
+    def from_mapping(cls, d: Mapping[str, Any]) -> DispersionSettings:
+        """Settings from a mapping (e.g. a TOML table); unknown keys are refused.
+
+        Parameters
+        ----------
+        d : mapping
+            Keys among the attribute names; missing keys take their defaults.
+
+        Raises
+        ------
+        InputError
+            Unknown key, wrong type or impossible value.
+        """
+        known = [f.name for f in dataclasses.fields(cls)]
+        unknown = [k for k in d if k not in known]
+        if unknown:
+            raise InputError(
+                f"unknown dispersion setting(s) {', '.join(map(repr, unknown))}; "
+                f"allowed: {', '.join(known)}"
+            )
+        for k, v in d.items():
+            t = cls._TYPES[k]
+            if v is None and k in ("guard_m", "quadrat_m"):
+                continue
+            if isinstance(v, bool) or not isinstance(v, t):
+                raise InputError(f"dispersion setting {k!r} must be {_type_name(t)} (got {v!r})")
+        return cls(**dict(d))
+
+    def to_dict(self) -> dict[str, Any]:
+        """The settings as a plain dict (JSON-ready)."""
+        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
+
+    @property
+    def smallest_p(self) -> float:
+        """Smallest Monte Carlo p-value attainable with these settings."""
+        k = 2.0 if self.alternative == "two-sided" else 1.0
+        return min(1.0, k / (self.simulations + 1.0))
+
+
+def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
+    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``.
+
+    A plot's numbers depend only on the seed and its own id, not on the other plots or their
+    order.
+    """
+    return np.random.default_rng(np.random.SeedSequence([int(seed), zlib.crc32(plot_id.encode())]))
+
+
+@dataclass(frozen=True)
+class PlotDispersion:
+    """All dispersion statistics of one plot.
+
+    Attributes
+    ----------
+    plot_id : str
+        The plot.
+    n : int
+        Points in the plot.
+    area_m2, perimeter_m : float
+        Plot area (m²) and perimeter (m, holes included).
+    density_per_ha : float
+        n / area, per hectare.
+    nn_m : numpy.ndarray
+        Each point's nearest-neighbour distance, metres (for histograms).
+    clark_evans, donnelly, guard, monte_carlo, quadrat
+        The result records, or None when the plot has fewer than 2 points.
+    pattern : str
+        ``'clustered'``, ``'random'`` or ``'regular'`` from the Monte Carlo test at ``alpha``;
+        empty when not tested.
+    guard_m, quadrat_m : float
+        The guard width and quadrat side used, metres.
+    n_coincident : int
+        Points at distance 0 from another point.
+    warnings : tuple of str
+        What the reader should know about this plot's numbers.
+    """
+
+    plot_id: str
+    n: int
+    area_m2: float
+    perimeter_m: float
+    density_per_ha: float
+    nn_m: np.ndarray
+    clark_evans: ClarkEvansResult | None
+    donnelly: EdgeCorrectedResult | None
+    guard: EdgeCorrectedResult | None
+    monte_carlo: MonteCarloResult | None
+    quadrat: QuadratResult | None
+    pattern: str
+    guard_m: float
+    quadrat_m: float
+    n_coincident: int
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def row(self) -> dict[str, Any]:
+        """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
+        nan = float("nan")
+        ce, dn, gz, mc, qd = (
+            self.clark_evans,
+            self.donnelly,
+            self.guard,
+            self.monte_carlo,
+            self.quadrat,
+        )
+        r: dict[str, Any] = {
+            "plot_id": self.plot_id,
+            "n": self.n,
+            "area_m2": self.area_m2,
+            "density_per_ha": self.density_per_ha,
+            "mean_nn_m": ce.mean_nn_m if ce else nan,
+            "expected_nn_m": ce.expected_nn_m if ce else nan,
+            "R": ce.statistic if ce else nan,
+            "z": ce.z if ce else nan,
+            "p": ce.pvalue if ce else nan,
+            "R_donnelly": dn.statistic if dn else nan,
+            "z_donnelly": dn.z if dn else nan,
+            "p_donnelly": dn.pvalue if dn else nan,
+            "p_mc": mc.pvalue if mc else nan,
+            "pattern": self.pattern,
+            "quadrat_size_m": self.quadrat_m,
+            "quadrat_chi2": qd.statistic if qd else nan,
+            "quadrat_df": qd.df if qd else None,
+            "quadrat_p": qd.pvalue if qd else nan,
+            "vmr": qd.vmr if qd else nan,
+            "morisita": qd.morisita if qd else nan,
+            "morisita_std": qd.morisita_std if qd else nan,
+            "warnings": "; ".join(self.warnings),
+            "perimeter_m": self.perimeter_m,
+            "expected_nn_donnelly_m": dn.expected_nn_m if dn else nan,
+            "expected_nn_mc_m": mc.expected_nn_m if mc else nan,
+            "p_mc_clustered": mc.p_lower if mc else nan,
+            "p_mc_regular": mc.p_upper if mc else nan,
+            "simulations": mc.simulations if mc else None,
+            "guard_m": self.guard_m,
+            "n_guard_focal": gz.n_focal if gz else None,
+            "R_guard": gz.statistic if gz else nan,
+            "z_guard": gz.z if gz else nan,
+            "p_guard": gz.pvalue if gz else nan,
+            "quadrat_cells": qd.q if qd else None,
+            "quadrat_low_expected": qd.n_low_expected if qd else None,
+            "n_coincident": self.n_coincident,
+        }
+        return r
+
+
+def _verdict(mc: MonteCarloResult, alpha: float) -> str:
+    if not mc.pvalue < alpha:
+        return "random"
+    if mc.alternative == "two-sided":
+        return mc.direction
+    return mc.alternative
+
+
+def analyse_plot(
+    xy: np.ndarray,
+    polygon,
+    plot_id: str,
+    settings: DispersionSettings | None = None,
+) -> PlotDispersion:
+    """Every dispersion statistic for one plot.
+
+    Parameters
+    ----------
+    xy : numpy.ndarray, shape (n, 2)
+        The plot's points, metres.
+    polygon : shapely.Polygon or shapely.MultiPolygon
+        The plot outline, metres.
+    plot_id : str
+        The plot's id; with ``settings.seed`` it sets the plot's random stream.
+    settings : DispersionSettings, optional
+        Parameters (default: :class:`DispersionSettings()`).
+
+    Returns
+    -------
+    PlotDispersion
+
+    Raises
+    ------
+    InputError
+        When the quadrat size asks for an impossibly fine grid.
+
+    Notes
+    -----
+    The same methods run for every plot whatever its size. Fewer than ``min_points`` points is
+    flagged but computed; fewer than 2 points gives no statistic, with a warning saying why.
+    References: Clark & Evans (1954); Donnelly (1978); Besag & Diggle (1977); Morisita (1959);
+    Smith-Gill (1975).
+    """
+    s = settings or DispersionSettings()
+    xy = np.asarray(xy, float).reshape(-1, 2)
+    n = xy.shape[0]
+    area = float(polygon.area)
+    perim = float(polygon.length)
+    dens = n / area * 1e4
+    warn: list[str] = []
+    guard_m = float(s.guard_m) if s.guard_m is not None else default_guard_m(n, area)
+    quad_m = float(s.quadrat_m) if s.quadrat_m is not None else default_quadrat_size(n, area)
+    if n < 2:
+        warn.append(
+            "no points in this plot: no statistics"
+            if n == 0
+            else "only 1 point: nearest-neighbour and quadrat statistics need at least 2"
+        )
+        return PlotDispersion(
+            plot_id,
+            n,
+            area,
+            perim,
+            dens,
+            np.full(n, np.inf),
+            None,
+            None,
+            None,
+            None,
+            None,
+            "",
+            guard_m,
+            quad_m,
+            0,
+            tuple(warn),
+        )
+    if n < s.min_points:
+        warn.append(
+            f"only {n} points (fewer than {s.min_points}): the tests have little power; "
+            "read the verdict with caution"
+        )
+    d = nn_distances(xy)
+    n_zero = int(np.sum(d == 0.0))
+    if n_zero:
+        warn.append(
+            f"{n_zero} points share their position with another point (distance 0 m); "
+            "check for duplicate detections"
+        )
+    alt = s.alternative
+    ce = clark_evans(xy, area, alternative=alt)
+    dn = donnelly(xy, polygon, alternative=alt, nn=d)
+    gz = guard_zone(xy, polygon, guard_m, alternative=alt, nn=d)
+    if gz.n_focal < 2:
+        warn.append(
+            f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
+            "no guard-zone estimate (use a smaller --guard)"
+        )
+    mc = monte_carlo_nn(
+        xy,
+        polygon,
+        simulations=s.simulations,
+        alternative=alt,
+        rng=plot_rng(s.seed, plot_id),
+        observed_mean_m=float(d.mean()),
+    )
+    try:
+        qd = quadrat_test(xy, polygon, quad_m)
+    except ValueError as exc:
+        raise InputError(f"plot {plot_id}: {exc} (--quadrat sets the side in metres)") from None
+    if qd.q < 2:
+        warn.append(
+            f"the {quad_m:.3g} m quadrat grid gives only {qd.q} cell: no quadrat test "
+            "(use a smaller --quadrat)"
+        )
+    elif qd.n_low_expected:
+        warn.append(
+            f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
+            "the chi-square p-value is approximate"
+        )
+    return PlotDispersion(
+        plot_id,
+        n,
+        area,
+        perim,
+        dens,
+        d,
+        ce,
+        dn,
+        gz,
+        mc,
+        qd,
+        _verdict(mc, s.alpha),
+        guard_m,
+        quad_m,
+        n_zero,
+        tuple(warn),
+    )
+
+
+def analyse(
+    inputs: SurveyInputs, settings: DispersionSettings | None = None
+) -> list[PlotDispersion]:
+    """Analyse every plot of the layer, in layer order, empty plots included.
+
+    Parameters
+    ----------
+    inputs : SurveyInputs
+        Points and plots in one metric CRS (:func:`ecoscan.inputs.load_points_and_plots`).
+    settings : DispersionSettings, optional
+        Parameters (default: :class:`DispersionSettings()`).
+
+    Returns
+    -------
+    list of PlotDispersion
+        One per plot. Each plot's random stream comes from
+        ``SeedSequence([seed, crc32(plot_id)])``, so its numbers do not depend on the others.
+    """
+    s = settings or DispersionSettings()
+    out = []
+    plots = inputs.plots
+    for i in progress(range(len(plots)), total=len(plots), desc="plots", unit="plot"):
+        plot = plots[i]
+        out.append(analyse_plot(inputs.plot_points(i), plot.geometry, plot.plot_id, s))
+    return out
+
+
+def dispersion_rows(results: Iterable[PlotDispersion]) -> list[dict[str, Any]]:
+    """Table rows, one per plot: :data:`DISPERSION_COLUMNS` in order, then the extras."""
+    return [r.row() for r in results]
+
+
+def _analysed_points(inputs: SurveyInputs) -> PointSet:
+    m = inputs.plot_index >= 0
+    pts = inputs.points.subset(m)
+    ids = np.array([p.plot_id for p in inputs.plots], dtype=object)[inputs.plot_index[m]]
+    attrs = {"plot_id": ids}
+    attrs.update({k: v for k, v in pts.attrs.items() if k != "plot_id"})
+    return PointSet(pts.x, pts.y, attrs, pts.crs, list(pts.notes))
+
+
+def check_outdir(outdir: str | os.PathLike) -> Path:
+    """Refuse an output path that exists and is not a folder (before anything is written)."""
+    p = Path(outdir)
+    if p.exists() and not p.is_dir():
+        raise InputError(f"output path {str(p)!r} is a file; give a folder for the results")
+    return p
+
+
+def write_analysis(
+    outdir: str | os.PathLike,
+    inputs: SurveyInputs,
+    results: Sequence[PlotDispersion],
+    settings: DispersionSettings,
+    *,
+    notes: Sequence[str] = (),
+) -> list[Path]:
+    """Write the results folder of an analysis.
+
+    Parameters
+    ----------
+    outdir : path-like
+        Folder to write into (created if needed).
+    inputs : SurveyInputs
+        The analysed points and plots.
+    results : sequence of PlotDispersion
+        From :func:`analyse`.
+    settings : DispersionSettings
+        The parameters used (recorded in ``dispersion.json``).
+    notes : sequence of str
+        Notes for the reader (reprojection, points left out...).
+
+    Returns
+    -------
+    list of pathlib.Path
+        ``dispersion.csv``, ``dispersion.json``, ``points.csv``, ``points.prj`` (when the CRS
+        is known) and ``plots.gpkg``, each written atomically.
+    """
+    out = check_outdir(outdir)
+    rows = dispersion_rows(results)
+    columns = list(DISPERSION_COLUMNS) + list(EXTRA_COLUMNS)
+    json_rows = []
+    for res, r in zip(results, rows, strict=True):
+        jr = dict(r)
+        jr["warnings"] = list(res.warnings)
+        json_rows.append(jr)
+    doc = {
+        "ecoscan_version": __version__,
+        "command": "analyse",
+        "parameters": settings.to_dict(),
+        "crs": crs_label(inputs.points.crs),
+        "crs_wkt": inputs.points.crs.to_wkt() if inputs.points.crs is not None else None,
+        "methods": {
+            "verdict": "Monte Carlo rank test of the mean nearest-neighbour distance in the "
+            "exact plot polygon (Besag & Diggle 1977)",
+            "R": "Clark & Evans (1954), no edge correction",
+            "R_donnelly": "Donnelly (1978): E = 0.5 sqrt(A/n) + (0.0514 + 0.041/sqrt(n)) P/n, "
+            "Var = 0.0703 A/n^2 + 0.037 P sqrt(A/n^5)",
+            "R_guard": "guard zone: focal points at least guard_m inside the edge",
+            "quadrat": "Pearson X^2 on a square grid clipped to the plot, two-sided p",
+        },
+        "notes": list(notes),
+        "caution": CAUTION,
+        "columns": columns,
+        "plots": json_rows,
+    }
+    pts = _analysed_points(inputs)
+    written = [
+        write_csv(out / "dispersion.csv", rows, columns),
+        write_json(out / "dispersion.json", doc),
+        write_points(pts, out / "points.csv"),
+    ]
+    if pts.crs is not None:
+        written.append(out / "points.prj")
+    written.append(write_plots(inputs.layer, out / "plots.gpkg"))
+    return written

@@ -1,0 +1,154 @@
+"""Quadrat analysis: chi-square against scipy.stats, Morisita (1959), Smith-Gill (1975) via
+Krebs (1999), the index of dispersion, exact clipped geometry and the boundary rule."""
+
+import numpy as np
+import pytest
+import shapely
+from scipy import stats as sps
+
+from ecoscan.stats.csr import uniform_in_polygon
+from ecoscan.stats.quadrat import (
+    default_quadrat_size,
+    morisita_index,
+    quadrat_test,
+    standardised_morisita,
+)
+
+SQUARE = shapely.box(0, 0, 100, 100)
+IRREGULAR = shapely.Polygon([(0, 0), (100, 0), (130, 60), (60, 110), (20, 80), (0, 40)])
+
+
+def test_chi_square_agrees_with_scipy_on_clipped_grid():
+    # reference: scipy.stats.chisquare with expected counts n * a_i / A (upper tail) and
+    # scipy.stats.chi2.cdf (lower tail); two-sided = min(1, 2 min(lower, upper))
+    xy = uniform_in_polygon(IRREGULAR, 300, rng=1)
+    r = quadrat_test(xy, IRREGULAR, 15.0)
+    ref = sps.chisquare(r.counts, r.expected)
+    assert r.statistic == pytest.approx(ref.statistic, rel=1e-12)
+    assert r.df == r.q - 1
+    assert r.p_upper == pytest.approx(ref.pvalue, rel=1e-10)
+    lower = sps.chi2.cdf(ref.statistic, r.q - 1)
+    assert r.pvalue == pytest.approx(min(1.0, 2 * min(lower, ref.pvalue)), rel=1e-10)
+
+
+def test_too_even_pattern_has_small_two_sided_p():
+    # one point at the centre of every cell: X2 = 0, lower tail tiny (two-sided test)
+    j, i = np.mgrid[0:10, 0:10]
+    xy = np.column_stack([i.ravel() * 10 + 5, j.ravel() * 10 + 5]).astype(float)
+    r = quadrat_test(xy, SQUARE, 10.0)
+    assert r.statistic == 0.0
+    assert r.pvalue == pytest.approx(2 * sps.chi2.cdf(0.0, 99))
+    assert r.pvalue < 1e-10
+    assert morisita_index(r.counts) == 0.0  # no cell holds two points
+
+
+def test_clipped_cells_cover_plot_exactly():
+    # exact geometry: the clipped cells' areas sum to the plot area; expected = n a_i / A
+    xy = uniform_in_polygon(IRREGULAR, 50, rng=2)
+    r = quadrat_test(xy, IRREGULAR, 12.0)
+    assert r.cell_area_m2.sum() == pytest.approx(IRREGULAR.area, rel=1e-12)
+    np.testing.assert_allclose(r.expected, 50 * r.cell_area_m2 / IRREGULAR.area)
+    assert r.counts.sum() == 50
+    assert shapely.union_all(r.cells).area == pytest.approx(IRREGULAR.area, rel=1e-9)
+
+
+def test_counts_match_cell_membership():
+    # every point is counted in the clipped cell that contains it (shapely as reference)
+    xy = uniform_in_polygon(IRREGULAR, 200, rng=4)
+    r = quadrat_test(xy, IRREGULAR, 9.0)
+    pts = shapely.points(xy)
+    for cell, c in zip(r.cells, r.counts, strict=True):
+        assert int(shapely.covers(cell, pts).sum()) == c
+
+
+def test_index_of_dispersion_equal_cells():
+    # equal cells: X2 / (q - 1) equals the variance-to-mean ratio s2 / mean
+    rng = np.random.default_rng(6)
+    xy = rng.uniform(0, 100, (400, 2))
+    r = quadrat_test(xy, SQUARE, 20.0)
+    assert r.q == 25
+    assert r.vmr == pytest.approx(np.var(r.counts, ddof=1) / np.mean(r.counts), rel=1e-12)
+
+
+def test_morisita_all_in_one_quadrat_equals_q():
+    # Morisita (1959): I_delta = q when all individuals fall in one quadrat
+    rng = np.random.default_rng(7)
+    xy = rng.uniform(20.5, 29.5, (40, 2))  # inside the cell [20, 30) x [20, 30)
+    r = quadrat_test(xy, SQUARE, 10.0)
+    assert r.q == 100
+    assert r.morisita == pytest.approx(100.0, rel=1e-12)
+    # Smith-Gill (1975) via Krebs (1999): the maximum standardised value is +1
+    assert r.morisita_std == pytest.approx(1.0)
+
+
+def test_morisita_formula_and_random_expectation():
+    # Morisita (1959): I = q sum n(n-1) / (N (N-1)); about 1 for a random pattern
+    counts = np.array([3, 0, 1, 4, 2])
+    assert morisita_index(counts) == pytest.approx(5 * (6 + 0 + 0 + 12 + 2) / (10 * 9))
+    vals = [
+        quadrat_test(uniform_in_polygon(IRREGULAR, 100, rng=s), IRREGULAR, 20.0).morisita
+        for s in range(200)
+    ]
+    se = np.std(vals, ddof=1) / np.sqrt(len(vals))
+    assert abs(np.mean(vals) - 1.0) < 4 * se
+
+
+def test_standardised_morisita_limits():
+    # Smith-Gill (1975) as given by Krebs (1999): I_p = +0.5 at the clumped index M_c and
+    # -0.5 at the uniform index M_u, 0 at I = 1; M from chi-square quantiles with q-1 df
+    q, n = 25, 100
+    mu = (sps.chi2.ppf(0.025, q - 1) - q + n) / (n - 1)
+    mc = (sps.chi2.ppf(0.975, q - 1) - q + n) / (n - 1)
+    assert standardised_morisita(mc, n, q) == pytest.approx(0.5)
+    assert standardised_morisita(mu, n, q) == pytest.approx(-0.5)
+    assert standardised_morisita(1.0, n, q) == pytest.approx(0.0)
+    assert standardised_morisita(q, n, q) == pytest.approx(1.0)
+    # between M_c and q: 0.5 + 0.5 (I - M_c) / (q - M_c)
+    i = (mc + q) / 2
+    assert standardised_morisita(i, n, q) == pytest.approx(0.75)
+    # below M_u: -0.5 + 0.5 (I - M_u) / M_u; at I = 0 this is -1
+    assert standardised_morisita(0.0, n, q) == pytest.approx(-1.0)
+
+
+def test_boundary_rule_half_open_cells():
+    # documented rule: [x0, x1) x [y0, y1); last column and row closed
+    xy = np.array([[10.0, 5.0], [100.0, 100.0], [0.0, 0.0], [5.0, 20.0]])
+    r = quadrat_test(xy, SQUARE, 10.0)
+    cell = {(int(a), int(b)): int(c) for a, b, c in zip(r.row, r.col, r.counts, strict=True)}
+    assert cell[(0, 1)] == 1  # x = 10 on a grid line goes right
+    assert cell[(9, 9)] == 1  # far corner stays in the last cell
+    assert cell[(0, 0)] == 1
+    assert cell[(2, 0)] == 1  # y = 20 on a grid line goes up
+    assert r.counts.sum() == 4
+
+
+def test_boundary_point_next_to_empty_cell_goes_across_the_line():
+    # an L-shaped plot: the point (10, 15) lies on the plot boundary x = 10 and on a grid
+    # line; the cell to its right has no plot area, so it is counted in the cell to its left
+    plot = shapely.Polygon([(0, 0), (20, 0), (20, 10), (10, 10), (10, 20), (0, 20)])
+    xy = np.array([[10.0, 15.0], [5.0, 5.0], [15.0, 5.0]])
+    r = quadrat_test(xy, plot, 10.0)
+    assert r.q == 3
+    cell = {(int(a), int(b)): int(c) for a, b, c in zip(r.row, r.col, r.counts, strict=True)}
+    assert cell[(1, 0)] == 1
+
+
+def test_points_outside_refused():
+    with pytest.raises(ValueError, match="outside"):
+        quadrat_test(np.array([[150.0, 50.0], [50.0, 50.0]]), SQUARE, 10.0)
+
+
+def test_default_size_rule_and_low_expected_count():
+    # common practice: cell area about 2A/n (quoted from memory)
+    assert default_quadrat_size(50, 10_000.0) == pytest.approx(20.0)
+    xy = uniform_in_polygon(SQUARE, 50, rng=3)
+    r = quadrat_test(xy, SQUARE)
+    assert r.cell_size_m == pytest.approx(20.0)
+    # 25 equal cells expecting 2 points each: all below Cochran's 5 (common practice)
+    assert r.n_low_expected == 25
+    assert quadrat_test(xy, SQUARE, 50.0).n_low_expected == 0
+
+
+def test_absurd_grid_refused():
+    with pytest.raises(ValueError, match="larger quadrats"):
+        quadrat_test(np.array([[1.0, 1.0], [2.0, 2.0]]), SQUARE, 0.01)
