@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 
 from ecoscan.analysis import (
@@ -77,6 +78,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the analysis and write the results folder."""
+    # pyogrio reports every layer it writes at INFO level; keep the terminal for results
+    logging.getLogger("pyogrio").setLevel(logging.WARNING)
     settings = DispersionSettings(
         simulations=args.simulations,
         seed=args.seed,
