@@ -156,7 +156,7 @@ def test_bad_input_one_line_exit_2_no_output(case, survey, tmp_path, capsys):
     if "--simulations" not in args:
         argv += ["--simulations", "19"]
     rc, stdout, stderr = _run(argv, capsys)
-    assert rc == 2
+    assert rc == 2 and stdout == ""
     lines = [ln for ln in stderr.splitlines() if ln.strip()]
     assert len(lines) == 1 and lines[0].startswith("error: "), stderr
     assert BAD[case] in lines[0]
