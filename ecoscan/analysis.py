@@ -424,7 +424,7 @@ def analyse_plot(
             "check for duplicate detections"
         )
     alt = s.alternative
-    ce = clark_evans(xy, area, alternative=alt)
+    ce = clark_evans(xy, area, alternative=alt, nn=d)
     dn = donnelly(xy, polygon, alternative=alt, nn=d)
     gz = guard_zone(xy, polygon, guard_m, alternative=alt, nn=d)
     if gz.n_focal < 2:

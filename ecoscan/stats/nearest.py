@@ -141,7 +141,11 @@ def _normal_p(z: float, alternative: str) -> float:
 
 
 def clark_evans(
-    xy: np.ndarray, area_m2: float, *, alternative: str = "two-sided"
+    xy: np.ndarray,
+    area_m2: float,
+    *,
+    alternative: str = "two-sided",
+    nn: np.ndarray | None = None,
 ) -> ClarkEvansResult:
     """Clark–Evans nearest-neighbour index without edge correction.
 
@@ -153,6 +157,8 @@ def clark_evans(
         Area of the study window in m².
     alternative : {'two-sided', 'clustered', 'regular'}
         Alternative hypothesis.
+    nn : numpy.ndarray, optional
+        Precomputed :func:`nn_distances` of ``xy`` (metres), to avoid a second KD-tree.
 
     Returns
     -------
@@ -169,7 +175,7 @@ def clark_evans(
     if n < 2:
         nan = float("nan")
         return ClarkEvansResult(nan, nan, nan, n, rho, nan, nan, nan)
-    d = nn_distances(xy)
+    d = nn_distances(xy) if nn is None else np.asarray(nn, float)
     mean = float(d.mean())
     expected = 0.5 / np.sqrt(rho)
     se = CE_SE_CONSTANT / np.sqrt(n * rho)
