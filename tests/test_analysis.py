@@ -162,3 +162,29 @@ def test_write_analysis_refuses_file_as_folder(tmp_path):
     inputs = _inputs()
     with pytest.raises(InputError, match="is a file"):
         write_analysis(f, inputs, analyse(inputs, FAST), FAST)
+
+
+def test_multipolygon_plot_with_hole():
+    # a plot in two parts, one with a hole: area by exact geometry, simulations stay inside
+    part1 = shapely.box(0, 0, 40, 40).difference(shapely.box(15, 15, 25, 25))
+    part2 = shapely.box(60, 0, 80, 20)
+    plot = shapely.MultiPolygon([part1, part2])
+    xy = uniform_in_polygon(plot, 60, rng=4)
+    r = analyse_plot(xy, plot, "two-parts", FAST)
+    assert r.area_m2 == pytest.approx(1600 - 100 + 400)
+    assert r.perimeter_m == pytest.approx(160 + 40 + 80)
+    assert r.quadrat.cell_area_m2.sum() == pytest.approx(r.area_m2)
+    # Donnelly's E is an approximation here; the Monte Carlo expectation in the exact shape
+    # must still be close to it (within 5 %)
+    assert r.monte_carlo.expected_nn_m == pytest.approx(r.donnelly.expected_nn_m, rel=0.05)
+
+
+def test_fixed_guard_and_quadrat_are_used():
+    poly = shapely.box(0, 0, 50, 50)
+    xy = uniform_in_polygon(poly, 50, rng=6)
+    s = DispersionSettings(simulations=19, guard_m=5.0, quadrat_m=25.0)
+    row = analyse_plot(xy, poly, "p", s).row()
+    assert row["guard_m"] == 5.0 and row["quadrat_size_m"] == 25.0
+    assert row["quadrat_cells"] == 4 and row["quadrat_df"] == 3
+    inner = shapely.box(5, 5, 45, 45)
+    assert row["n_guard_focal"] == int(shapely.contains_xy(inner, xy[:, 0], xy[:, 1]).sum())

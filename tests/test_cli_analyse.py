@@ -172,3 +172,30 @@ def test_output_path_that_is_a_file_is_refused(survey, tmp_path, capsys):
     rc, _, stderr = _run(argv, capsys)
     assert rc == 2 and stderr.startswith("error: ") and "is a file" in stderr
     assert f.read_text() == "keep me"
+
+
+def test_options_reach_the_analysis(survey, tmp_path, capsys):
+    pts, plots = survey
+    out = tmp_path / "res"
+    argv = [
+        "analyse", str(pts), "--plots", str(plots), "--crs", "EPSG:32633", "-o", str(out),
+        "--simulations", "49", "--seed", "5", "--alpha", "0.1", "--alternative", "clustered",
+        "--guard", "3", "--quadrat", "20",
+    ]  # fmt: skip
+    rc, _, stderr = _run(argv, capsys)
+    assert rc == 0, stderr
+    doc = json.loads((out / "dispersion.json").read_text())
+    assert doc["parameters"] == {
+        "simulations": 49,
+        "seed": 5,
+        "alpha": 0.1,
+        "alternative": "clustered",
+        "guard_m": 3.0,
+        "quadrat_m": 20.0,
+        "min_points": 30,
+    }
+    meadow = doc["plots"][0]
+    assert meadow["guard_m"] == 3.0 and meadow["quadrat_size_m"] == 20.0
+    assert meadow["simulations"] == 49
+    # one-sided: p_mc is the lower-tail rank p-value
+    assert meadow["p_mc"] == meadow["p_mc_clustered"]
