@@ -127,6 +127,13 @@ class ClarkEvansResult:
     expected_nn_m: float
     se_m: float
 
+    @property
+    def direction(self) -> str:
+        """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
+        if not np.isfinite(self.z) or self.z == 0:
+            return ""
+        return "clustered" if self.z < 0 else "regular"
+
 
 def _normal_p(z: float, alternative: str) -> float:
     if not np.isfinite(z):
@@ -266,6 +273,13 @@ class EdgeCorrectedResult:
     se_m: float
     method: str
     guard_m: float = float("nan")
+
+    @property
+    def direction(self) -> str:
+        """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
+        if not np.isfinite(self.z) or self.z == 0:
+            return ""
+        return "clustered" if self.z < 0 else "regular"
 
 
 def _nan_edge(method: str, n_focal: int = 0, guard_m: float = float("nan")) -> EdgeCorrectedResult:
