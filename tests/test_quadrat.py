@@ -174,3 +174,23 @@ def test_quadrat_monte_carlo_flags_clumping():
     r = quadrat_test(xy, SQUARE)
     p, _, up = quadrat_monte_carlo(r, 199, rng=2)
     assert up == pytest.approx(1 / 200) and p == pytest.approx(2 / 200)
+
+
+@pytest.mark.parametrize("case", range(40))
+def test_every_point_counted_once_even_on_grid_lines(case):
+    # points on integer positions fall on grid lines and the plot edge; the L-shaped plot
+    # has cells outside it: the counts must still add up to n with no cell outside the plot
+    rng = np.random.default_rng(case)
+    cell = float(rng.choice([1.0, 2.0, 2.5, 5.0, 7.0]))
+    plot = shapely.Polygon([(0, 0), (20, 0), (20, 10), (10, 10), (10, 20), (0, 20)])
+    xy = rng.integers(0, 21, (int(rng.integers(2, 60)), 2)).astype(float)
+    xy = xy[shapely.intersects_xy(plot, xy[:, 0], xy[:, 1])]
+    if xy.shape[0] < 2:
+        return
+    r = quadrat_test(xy, plot, cell)
+    assert r.counts.sum() == xy.shape[0]
+    assert np.all(r.cell_area_m2 > 0)
+    # a cell never holds more points than it covers (points on shared edges are covered by
+    # two cells but counted in one)
+    covered = shapely.covers(r.cells[:, None], shapely.points(xy)[None, :]).sum(axis=1)
+    assert np.all(r.counts <= covered)
