@@ -49,9 +49,11 @@ def mean_nn_batch(patterns: np.ndarray) -> np.ndarray:
 
     Notes
     -----
-    One small KD-tree per pattern (the loop runs over patterns, never over points). Measured
-    against one joint tree over all patterns laid side by side, the small trees were about
-    1.5 times faster: each fits in the processor cache.
+    One small KD-tree per pattern (the loop runs over patterns, never over points). For
+    patterns of 300–1,000 points this measured 1.2–2.5 times faster than one joint tree over
+    all patterns laid side by side (each small tree fits in the processor cache); for very
+    small patterns the joint tree was about 1.5 times faster, but per-pattern trees keep one
+    code path and bounded memory.
     """
     p = np.asarray(patterns, float)
     if p.ndim != 3 or p.shape[2] != 2 or p.shape[1] < 2:
