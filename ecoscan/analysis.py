@@ -39,7 +39,13 @@ from ecoscan.stats.nearest import (
     guard_zone,
     nn_distances,
 )
-from ecoscan.stats.quadrat import MIN_EXPECTED, QuadratResult, default_quadrat_size, quadrat_test
+from ecoscan.stats.quadrat import (
+    MIN_EXPECTED,
+    QuadratResult,
+    default_quadrat_size,
+    quadrat_monte_carlo,
+    quadrat_test,
+)
 from ecoscan.vector import write_plots, write_points
 
 __all__ = [
@@ -95,6 +101,7 @@ EXTRA_COLUMNS: tuple[str, ...] = (
     "R_guard",
     "z_guard",
     "p_guard",
+    "quadrat_p_mc",
     "quadrat_cells",
     "quadrat_low_expected",
     "n_coincident",
@@ -265,6 +272,9 @@ class PlotDispersion:
         Points at distance 0 from another point.
     warnings : tuple of str
         What the reader should know about this plot's numbers.
+    quadrat_p_mc : float
+        Two-sided Monte Carlo p-value of the quadrat X² (multinomial simulation with the
+        same number of simulations; exact where the chi-square approximation is not).
     """
 
     plot_id: str
@@ -283,6 +293,7 @@ class PlotDispersion:
     quadrat_m: float
     n_coincident: int
     warnings: tuple[str, ...] = field(default_factory=tuple)
+    quadrat_p_mc: float = float("nan")
 
     def row(self) -> dict[str, Any]:
         """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
@@ -328,6 +339,7 @@ class PlotDispersion:
             "R_guard": gz.statistic if gz else nan,
             "z_guard": gz.z if gz else nan,
             "p_guard": gz.pvalue if gz else nan,
+            "quadrat_p_mc": self.quadrat_p_mc,
             "quadrat_cells": qd.q if qd else None,
             "quadrat_low_expected": qd.n_low_expected if qd else None,
             "n_coincident": self.n_coincident,
@@ -424,7 +436,7 @@ def analyse_plot(
             "check for duplicate detections"
         )
     alt = s.alternative
-    ce = clark_evans(xy, area, alternative=alt)
+    ce = clark_evans(xy, area, alternative=alt, nn=d)
     dn = donnelly(xy, polygon, alternative=alt, nn=d)
     gz = guard_zone(xy, polygon, guard_m, alternative=alt, nn=d)
     if gz.n_focal < 2:
@@ -432,12 +444,13 @@ def analyse_plot(
             f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
             "no guard-zone estimate (use a smaller --guard)"
         )
+    rng = plot_rng(s.seed, plot_id)
     mc = monte_carlo_nn(
         xy,
         polygon,
         simulations=s.simulations,
         alternative=alt,
-        rng=plot_rng(s.seed, plot_id),
+        rng=rng,
         observed_mean_m=float(d.mean()),
     )
     try:
@@ -452,8 +465,9 @@ def analyse_plot(
     elif qd.n_low_expected:
         warn.append(
             f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
-            "the chi-square p-value is approximate"
+            "quadrat_p is approximate (quadrat_p_mc is exact)"
         )
+    q_p_mc, _, _ = quadrat_monte_carlo(qd, s.simulations, rng=rng)
     return PlotDispersion(
         plot_id,
         n,
@@ -471,6 +485,7 @@ def analyse_plot(
         quad_m,
         n_zero,
         tuple(warn),
+        q_p_mc,
     )
 
 

@@ -36,7 +36,7 @@ def test_rank_pvalues_vectorised_rows():
     rng = np.random.default_rng(0)
     sims = rng.normal(size=(5, 19))
     obs = rng.normal(size=5)
-    p, lo, up = rank_pvalues(obs, sims, "regular")
+    p, _lo, up = rank_pvalues(obs, sims, "regular")
     for i in range(5):
         assert up[i] == pytest.approx((1 + np.sum(sims[i] >= obs[i])) / 20)
     np.testing.assert_array_equal(p, up)

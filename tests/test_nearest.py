@@ -194,3 +194,13 @@ def test_guard_zone_too_wide_gives_nan():
     xy = uniform_in_polygon(poly, 20, rng=1)
     g = guard_zone(xy, poly, 6.0)  # buffer(-6) of a 10 m square is empty
     assert g.n_focal == 0 and np.isnan(g.statistic)
+
+
+def test_direction_follows_sign_of_z():
+    # Clark & Evans (1954): R < 1 (z < 0) aggregation, R > 1 (z > 0) regular spacing
+    j, i = np.mgrid[0:20, 0:20]
+    grid = np.column_stack([i.ravel() * 2.0, j.ravel() * 2.0])
+    assert clark_evans(grid, 40.0 * 40.0).direction == "regular"
+    clumped = np.vstack([grid[:200] * 0.01, grid[:200] * 0.01 + 0.001])
+    assert clark_evans(clumped, 40.0 * 40.0).direction == "clustered"
+    assert clark_evans(grid[:1], 10.0).direction == ""

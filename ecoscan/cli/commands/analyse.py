@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 
 from ecoscan.analysis import (
@@ -19,13 +20,12 @@ from ecoscan.tables import format_table
 
 NAME = "analyse"
 HELP = "test per plot whether plants are clustered, random or regular"
-DESCRIPTION = (
-    "For every plot: nearest-neighbour distances, the Clark-Evans index R (uncorrected, "
-    "with Donnelly's edge correction and with a guard zone), a Monte Carlo test in the exact "
-    "plot polygon that gives the verdict, and a quadrat analysis (chi-square, variance-to-mean "
-    "ratio, Morisita's index). Writes OUTDIR/dispersion.csv, dispersion.json, points.csv and "
-    "plots.gpkg, and prints a table."
-)
+DESCRIPTION = """\
+For every plot: nearest-neighbour distances, the Clark-Evans index R (uncorrected, with
+Donnelly's edge correction and with a guard zone), a Monte Carlo test in the exact plot
+polygon that gives the verdict, and a quadrat analysis (chi-square, variance-to-mean ratio,
+Morisita's index). Writes OUTDIR/dispersion.csv, dispersion.json, points.csv and plots.gpkg,
+and prints a table. Automated counts need field checks before they drive decisions."""
 EXAMPLE = "ecoscan analyse plants.csv --plots plots.geojson --crs EPSG:32633 -o results"
 
 #: Columns of the terminal table, with their headings.
@@ -77,6 +77,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the analysis and write the results folder."""
+    # pyogrio reports every layer it writes at INFO level; keep the terminal for results
+    logging.getLogger("pyogrio").setLevel(logging.WARNING)
     settings = DispersionSettings(
         simulations=args.simulations,
         seed=args.seed,
