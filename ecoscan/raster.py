@@ -106,7 +106,10 @@ def _unit_factor(crs: CRS) -> float:
 def _ground_pixel_size(transform: Affine, crs: CRS, width: int, height: int) -> float:
     """Ground pixel size in metres at the raster centre for a geographic or odd-unit CRS."""
     c, r = width / 2.0, height / 2.0
-    xs = np.array([transform * (c, r), transform * (c + 1, r), transform * (c, r + 1)])
+    cc = np.array([c, c + 1, c])
+    rr = np.array([r, r, r + 1])
+    t = transform
+    xs = np.column_stack([t.a * cc + t.b * rr + t.c, t.d * cc + t.e * rr + t.f])
     _x, _y, frame = to_metric(xs[:, 0], xs[:, 1], crs)
     mx, my = transform_xy(xs[:, 0], xs[:, 1], crs, frame.crs)
     dx = math.hypot(mx[1] - mx[0], my[1] - my[0])

@@ -12,11 +12,13 @@ crown centre, pixel centres at integer positions (the centre of the top-left pix
 from __future__ import annotations
 
 import os
+import warnings
 from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
 import rasterio
+from rasterio.errors import NotGeoreferencedWarning
 from rasterio.transform import Affine
 from scipy import ndimage
 from scipy.spatial import cKDTree
@@ -420,7 +422,8 @@ def write_geotiff(
     kw = {}
     if transform is not None:
         kw["transform"] = transform
-    with atomic_path(p) as tmp:
+    with atomic_path(p) as tmp, warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
         with rasterio.open(
             tmp,
             "w",
@@ -432,6 +435,7 @@ def write_geotiff(
             crs=crs,
             nodata=nodata,
             tiled=w >= 256 and h >= 256,
+            photometric="RGB" if count == 3 and arr.dtype == np.uint8 else "MINISBLACK",
             **kw,
         ) as dst:
             dst.write(arr)

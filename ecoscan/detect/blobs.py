@@ -131,6 +131,7 @@ def detect_blobs(
     min_response: float,
     min_value: float,
     valid: np.ndarray | None = None,
+    origin: tuple[int, int] = (0, 0),
 ) -> dict[str, np.ndarray]:
     """Find bright blobs as maxima of the normalised DoG over position and scale.
 
@@ -147,11 +148,15 @@ def detect_blobs(
         Smallest value of the layer smoothed at the blob's scale, at its centre.
     valid : numpy.ndarray of bool, optional
         Pixels that may hold a blob centre.
+    origin : (int, int)
+        Column and row of the array's first pixel in the raster (multiples of
+        ``scales.align``). Positions are returned in raster pixels, computed as an integer
+        pixel plus a sub-pixel offset so that tiled and whole-image runs agree to the bit.
 
     Returns
     -------
     dict of numpy.ndarray
-        ``row``, ``col`` (sub-pixel, full resolution, in the array's pixel frame),
+        ``row``, ``col`` (sub-pixel, full resolution, raster pixel frame),
         ``sigma`` (full-resolution pixels), ``response`` and ``value``.
     """
     img = np.asarray(layer, np.float32)
@@ -200,8 +205,8 @@ def detect_blobs(
         dx = _vertex(resp, zi, yi, xi, axis=2, size=w)
         dz = _vertex(resp, zi, yi, xi, axis=0, size=ext.size)
         sig = scales.sigmas[ext[zi]] * k**dz
-        out["row"].append((yi + dy + 0.5) * f - 0.5)
-        out["col"].append((xi + dx + 0.5) * f - 0.5)
+        out["row"].append((yi * f + origin[1]) + ((dy + 0.5) * f - 0.5))
+        out["col"].append((xi * f + origin[0]) + ((dx + 0.5) * f - 0.5))
         out["sigma"].append(sig)
         out["response"].append(r)
         out["value"].append(value)

@@ -39,6 +39,7 @@ def tree_tops(
     min_height: float,
     crown_width_px,
     radius_cap_px: int,
+    origin: tuple[int, int] = (0, 0),
 ) -> dict[str, np.ndarray]:
     """Tree tops by the variable-window local-maximum rule.
 
@@ -54,11 +55,14 @@ def tree_tops(
         Maps heights (m) to crown width in pixels (the search window diameter).
     radius_cap_px : int
         Largest search radius in pixels (the tiles' overlap is sized from it).
+    origin : (int, int)
+        Column and row of the array's first pixel in the raster.
 
     Returns
     -------
     dict of numpy.ndarray
-        ``row``, ``col`` (pixel frame of the array; plateau centre) and ``height``.
+        ``row``, ``col`` (raster pixel frame; plateau centre), ``height``, and the
+        array indices ``_irow``, ``_icol`` of each top.
     """
     h = np.asarray(heights, np.float32)
     local = ndimage.maximum_filter(h, size=3, mode="constant", cval=-np.inf) == h
@@ -69,8 +73,6 @@ def tree_tops(
     pad = radius_cap_px
     hp = np.pad(h, pad, mode="constant", constant_values=-np.inf)
     is_top = np.zeros(cy.size, dtype=bool)
-    off_r = np.zeros(cy.size)
-    off_c = np.zeros(cy.size)
     for r in np.unique(rad):
         sel = np.flatnonzero(rad == r)
         dy, dx = _disc_offsets(int(r))
@@ -78,16 +80,31 @@ def tree_tops(
         p = hv[sel, None]
         before = (dy < 0) | ((dy == 0) & (dx < 0))  # earlier in raster order
         ok = (q < p) | ((q == p) & ~before[None])
-        top = ok.all(axis=1)
-        is_top[sel] = top
-        # plateau centre: mean offset of the equal pixels (and the top itself)
-        eq = (q == p) & top[:, None]
-        neq = eq.sum(axis=1)
-        off_r[sel] = (eq * dy[None]).sum(axis=1) / (neq + 1)
-        off_c[sel] = (eq * dx[None]).sum(axis=1) / (neq + 1)
+        is_top[sel] = ok.all(axis=1)
+    # plateaus: connected equal-height local maxima; one top per plateau (the first in
+    # raster order), placed at the plateau's centroid
+    lab, _n = ndimage.label(cand, structure=np.ones((3, 3), dtype=bool))
+    comp = lab[cy, cx]
+    first = np.zeros(cy.size, dtype=bool)
+    _u, idx = np.unique(comp[is_top], return_index=True)
+    first[np.flatnonzero(is_top)[idx]] = True
+    is_top &= first
+    off_r = np.zeros(cy.size)
+    off_c = np.zeros(cy.size)
+    size = np.bincount(comp, minlength=lab.max() + 1)
+    multi = is_top & (size[comp] > 1)
+    if multi.any():
+        # mean offset from the top pixel (integer differences: identical in every tile)
+        owner = np.full(lab.max() + 1, -1)
+        owner[comp[multi]] = np.flatnonzero(multi)
+        pr, pc = np.nonzero(np.isin(lab, comp[multi]))
+        o = owner[lab[pr, pc]]
+        n_o = np.bincount(o, minlength=cy.size)
+        off_r = np.bincount(o, weights=pr - cy[o], minlength=cy.size) / np.maximum(n_o, 1)
+        off_c = np.bincount(o, weights=pc - cx[o], minlength=cy.size) / np.maximum(n_o, 1)
     return {
-        "row": (cy + off_r)[is_top].astype(float),
-        "col": (cx + off_c)[is_top].astype(float),
+        "row": ((cy + origin[1]) + off_r)[is_top].astype(float),
+        "col": ((cx + origin[0]) + off_c)[is_top].astype(float),
         "height": hv[is_top].astype(float),
         "_irow": cy[is_top],
         "_icol": cx[is_top],
@@ -96,6 +113,7 @@ def tree_tops(
 
 def crown_areas(
     heights: np.ndarray,
+    raw_heights: np.ndarray,
     valid: np.ndarray,
     top_rows: np.ndarray,
     top_cols: np.ndarray,
@@ -106,7 +124,10 @@ def crown_areas(
     Parameters
     ----------
     heights : numpy.ndarray
-        Smoothed heights, metres.
+        Smoothed heights, metres (the surface that is flooded).
+    raw_heights : numpy.ndarray
+        Unsmoothed heights, metres: crown pixels are those at least ``floor_m`` high here,
+        so smoothing does not widen crowns.
     valid : numpy.ndarray of bool
         Valid pixels.
     top_rows, top_cols : numpy.ndarray of int
@@ -121,7 +142,7 @@ def crown_areas(
     """
     markers = np.zeros(heights.shape, dtype=np.int32)
     markers[top_rows, top_cols] = np.arange(1, top_rows.size + 1)
-    mask = valid & (heights >= floor_m)
+    mask = valid & (raw_heights >= floor_m)
     mask[top_rows, top_cols] = True
     lab = watershed(-heights, markers, mask=mask)
     counts = np.bincount(lab.ravel(), minlength=top_rows.size + 1)

@@ -112,10 +112,12 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         layer = vegetation_layer(data, p.index)
         del data
         layer[~valid] = p.fill_value
-        found = blobs.detect_blobs(layer, p.scales, p.min_response, p.min_value, valid)
+        found = blobs.detect_blobs(
+            layer, p.scales, p.min_response, p.min_value, valid, origin=(c0, r0)
+        )
         out = {
-            "col": found["col"] + c0,
-            "row": found["row"] + r0,
+            "col": found["col"],
+            "row": found["row"],
             "sigma_px": found["sigma"],
             "score": found["response"],
             "index_value": found["value"],
@@ -130,10 +132,11 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
             p.min_height,
             _crown_width_px(p.crown_rule, p.pixel_size_m),
             p.radius_cap_px,
+            origin=(c0, r0),
         )
-        out = {"col": tops["col"] + c0, "row": tops["row"] + r0, "height_m": tops["height"]}
+        out = {"col": tops["col"], "row": tops["row"], "height_m": tops["height"]}
         if p.crowns:
-            px = chm.crown_areas(hs, valid, tops["_irow"], tops["_icol"], p.crown_floor_m)
+            px = chm.crown_areas(hs, h, valid, tops["_irow"], tops["_icol"], p.crown_floor_m)
             out["area_m2"] = px * p.pixel_size_m**2
     elif p.method == "classes":
         c1w, r1w = tile.window[2], tile.window[3]
