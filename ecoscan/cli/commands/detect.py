@@ -1,0 +1,196 @@
+"""``ecoscan detect``: one point per plant from a raster."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ecoscan.cli._common import add_plots_args, print_notes
+from ecoscan.detect import DetectionSettings, detect_raster
+from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
+from ecoscan.errors import InputError
+from ecoscan.raster import plots_from_mask
+from ecoscan.tables import format_table
+from ecoscan.vector import read_plots, write_points
+
+NAME = "detect"
+HELP = "find one point per plant in an orthomosaic, canopy height model or class map"
+DESCRIPTION = (
+    "Detect plants in a raster and write one point per plant (x, y in metres, then "
+    "diameter_m / height_m / area_m2 / score / tile). Detectors: imagery (Excess Green or "
+    "NDVI, then multi-scale blob detection), chm (tree tops in a height-dependent window), "
+    "classes (patches of chosen class values). Automated counts need field checks."
+)
+EXAMPLE = "ecoscan detect ortho.tif -o plants.csv --diameter 0.5:3 --plots plots.gpkg --workers 2"
+
+OUTPUT_SUFFIXES = (".csv", ".gpkg", ".geojson", ".json")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    """Options of ``ecoscan detect``."""
+    p.add_argument("raster", help="GeoTIFF or any GDAL raster")
+    p.add_argument(
+        "-o",
+        "--output",
+        required=True,
+        metavar="POINTS",
+        help="output points: .csv (with .prj), .gpkg, or .geojson (WGS 84)",
+    )
+    p.add_argument(
+        "--method",
+        choices=("auto", "imagery", "chm", "classes"),
+        default="auto",
+        help="detector (default auto: 3+ bands imagery, 1 float band chm, 1 integer band "
+        "classes when --classes is given)",
+    )
+    p.add_argument(
+        "--bands",
+        default="",
+        metavar="LIST",
+        help="bands to use, e.g. 1,2,3 (red, green, blue) or red=3,nir=4 (NDVI); default "
+        "1,2,3 or band 1",
+    )
+    p.add_argument(
+        "--index",
+        choices=("auto", "exg", "ndvi", "band"),
+        default="auto",
+        help="imagery vegetation layer (default: NDVI when red and nir are named, else "
+        "Excess Green)",
+    )
+    p.add_argument(
+        "--diameter",
+        default="0.5:3",
+        metavar="MIN:MAX",
+        help="expected crown diameter range in metres (default 0.5:3)",
+    )
+    p.add_argument(
+        "--threshold",
+        type=float,
+        metavar="VALUE",
+        help="imagery: vegetation threshold in index units (default: Otsu on the whole raster)",
+    )
+    p.add_argument(
+        "--min-contrast",
+        type=float,
+        metavar="VALUE",
+        help="imagery: weakest crown-to-ground contrast in index units "
+        "(default: half the Otsu class contrast)",
+    )
+    p.add_argument(
+        "--min-height",
+        type=float,
+        default=2.0,
+        metavar="METRES",
+        help="chm: lowest tree top kept (default 2)",
+    )
+    p.add_argument(
+        "--crown-rule",
+        choices=tuple(CROWN_RULES),
+        default="combined",
+        help="chm: crown-width-from-height rule of Popescu & Wynne (2004) (default combined)",
+    )
+    p.add_argument(
+        "--smooth",
+        type=float,
+        metavar="METRES",
+        help="chm: Gaussian smoothing sigma in metres (default one pixel)",
+    )
+    p.add_argument(
+        "--crowns",
+        action="store_true",
+        help="chm: delineate crowns by watershed and report area_m2",
+    )
+    p.add_argument("--classes", metavar="LIST", help="classes: plant class values, e.g. 3,4")
+    p.add_argument(
+        "--min-area",
+        type=float,
+        metavar="M2",
+        help="classes: smallest patch in m² (default a quarter of the smallest crown's area)",
+    )
+    p.add_argument(
+        "--no-split",
+        action="store_true",
+        help="classes: do not split touching crowns",
+    )
+    p.add_argument(
+        "--pixel-size",
+        type=float,
+        metavar="METRES",
+        help="pixel size for a raster without georeferencing (output in local coordinates)",
+    )
+    p.add_argument(
+        "--tile-size",
+        type=int,
+        default=1024,
+        metavar="PIXELS",
+        help="tile size; memory use follows it (default 1024)",
+    )
+    p.add_argument(
+        "--workers", type=int, default=1, metavar="N", help="local processes (default 1)"
+    )
+    add_plots_args(p, required=False)
+    p.add_argument(
+        "--mask",
+        metavar="RASTER",
+        help="raster of plot ids (or a 0/1 mask) instead of --plots",
+    )
+
+
+def settings_from_args(args: argparse.Namespace) -> DetectionSettings:
+    """Build :class:`DetectionSettings` from parsed options."""
+    lo, hi = parse_diameter(args.diameter)
+    return DetectionSettings(
+        method=args.method,
+        bands=args.bands,
+        index=args.index,
+        diameter_min_m=lo,
+        diameter_max_m=hi,
+        threshold=args.threshold,
+        min_contrast=args.min_contrast,
+        min_height_m=args.min_height,
+        crown_rule=args.crown_rule,
+        smooth_m=args.smooth,
+        crowns=args.crowns,
+        classes=parse_classes(args.classes) if args.classes else (),
+        min_area_m2=args.min_area,
+        split_touching=not args.no_split,
+        tile_size_px=args.tile_size,
+        pixel_size_m=args.pixel_size,
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    """Detect, write the points, print a summary."""
+    out = Path(args.output)
+    if out.suffix.lower() not in OUTPUT_SUFFIXES:
+        raise InputError(
+            f"unknown output format {out.suffix!r} for {out.name}; use .csv, .gpkg or .geojson"
+        )
+    if args.workers < 1:
+        raise InputError(f"--workers must be at least 1 (got {args.workers})")
+    settings = settings_from_args(args)
+    if args.plots and args.mask:
+        raise InputError("give either --plots or --mask, not both")
+    plots = None
+    if args.plots:
+        plots = read_plots(args.plots, id_field=args.id_field)
+    elif args.mask:
+        plots = plots_from_mask(args.mask, pixel_size_m=args.pixel_size)
+    res = detect_raster(args.raster, settings, plots=plots, workers=args.workers)
+    write_points(res.points, out)
+    print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
+    rows = [
+        {"item": "plants", "value": res.n},
+        {"item": "method", "value": res.method + (f" ({res.index})" if res.index else "")},
+        {"item": "pixel size (m)", "value": res.pixel_size_m},
+        {"item": "tiles read", "value": f"{res.tiles_read} of {res.tiles_total}"},
+        {"item": "megapixels read", "value": res.megapixels_read},
+        {"item": "output", "value": str(out)},
+    ]
+    print(format_table(rows, ["item", "value"], digits=3))
+    if plots is not None and res.n:
+        ids = res.points.attrs["plot_id"]
+        per = [{"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())} for p in plots.plots]
+        print()
+        print(format_table(per, ["plot_id", "plants"]))
+    return 0

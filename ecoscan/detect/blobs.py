@@ -1,0 +1,301 @@
+"""Multi-scale blob detection on a vegetation layer: a pyramid of differences of Gaussians.
+
+The scale-normalised Laplacian σ²∇²L has an extremum at the scale of a blob (Lindeberg,
+T. 1998, Feature detection with automatic scale selection, IJCV 30: 79–116): a flat disc of
+radius r responds most at σ = r / √2, a Gaussian blob of standard deviation s at σ = s.
+Following Lowe (2004, Distinctive image features from scale-invariant keypoints, IJCV 60:
+91–110) the normalised Laplacian is approximated by a difference of Gaussians between
+neighbouring scales, and large scales are computed on an image halved once per octave, so
+the filters stay short and the cost is dominated by the full-resolution octave.
+
+Everything here works on one array (a tile's read window) and is exactly local: a
+candidate's value depends only on pixels within :attr:`BlobScales.support_px` of it, and the
+pyramid grid is aligned to multiples of ``2 ** max_level`` pixels, so a tiled run finds the
+same candidates as a whole-image run. Overlapping candidates are pruned afterwards, over all
+tiles at once, by :func:`prune_blobs`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+from scipy.spatial import cKDTree
+
+__all__ = ["BlobScales", "blob_scales", "detect_blobs", "prune_blobs"]
+
+#: Scale-normalised Laplacian response of a flat disc of unit contrast at its best scale:
+#: −σ²∇²L at the centre equals 2x·e^(−x) with x = r² / (2σ²), largest (2/e) at σ = r/√2.
+DISC_RESPONSE = 2.0 / math.e
+
+_TRUNCATE = 4.0  # Gaussian kernels are cut at 4 standard deviations (scipy's default)
+
+
+@dataclass(frozen=True)
+class BlobScales:
+    """The scales searched, in full-resolution pixels.
+
+    Attributes
+    ----------
+    sigmas : numpy.ndarray
+        Scale-space σ of each searched scale, with one extra scale below and above the
+        range (needed to recognise a maximum over scale; never reported).
+    levels : numpy.ndarray of int
+        Pyramid level of each scale (the image is halved ``level`` times).
+    k : float
+        Ratio between neighbouring scales, 2 ** (1 / scales_per_octave).
+    """
+
+    sigmas: np.ndarray
+    levels: np.ndarray
+    k: float
+
+    @property
+    def max_level(self) -> int:
+        """Deepest pyramid level."""
+        return int(self.levels.max())
+
+    @property
+    def align(self) -> int:
+        """Tile windows must start at multiples of this many pixels."""
+        return 2**self.max_level
+
+    @property
+    def support_px(self) -> int:
+        """How far (pixels) the filters reach: the overlap tiles need for exact candidates."""
+        reach = 0.0
+        for s, lev in zip(self.sigmas, self.levels, strict=True):
+            f = 2**lev
+            # widest blur of this scale, the 3×3 maximum and the 2×2 steps of the pyramid
+            reach = max(reach, _TRUNCATE * s * math.sqrt(self.k) + 2 * f + f)
+        return math.ceil(reach) + 2
+
+
+def blob_scales(
+    radius_min_px: float, radius_max_px: float, scales_per_octave: int = 3, base: float = 1.6
+) -> BlobScales:
+    """Scales for crowns of radius ``radius_min_px`` to ``radius_max_px``.
+
+    Parameters
+    ----------
+    radius_min_px, radius_max_px : float
+        Smallest and largest crown radius in pixels.
+    scales_per_octave : int
+        Scales per doubling of σ.
+    base : float
+        A scale is computed on the pyramid level where its σ is between ``base`` and
+        ``2 * base`` pixels (Lowe 2004 uses 1.6).
+
+    Returns
+    -------
+    BlobScales
+    """
+    k = 2.0 ** (1.0 / scales_per_octave)
+    smin = radius_min_px / math.sqrt(2.0)
+    smax = radius_max_px / math.sqrt(2.0)
+    n = max(1, math.ceil(math.log(smax / smin) / math.log(k) - 1e-9) + 1)
+    i = np.arange(-1, n + 1)
+    sig = smin * k**i
+    lev = np.maximum(0, np.floor(np.log2(sig / base) + 1e-9)).astype(int)
+    # the padding scales live on the level of their inner neighbour
+    lev[0], lev[-1] = lev[1], lev[-2]
+    return BlobScales(sig, lev, k)
+
+
+def _halve(img: np.ndarray) -> np.ndarray:
+    """Mean of 2×2 blocks; a partial block at the far edge averages the pixels it has."""
+    h, w = img.shape
+    h2, w2 = (h + 1) // 2, (w + 1) // 2
+    pad = np.zeros((h2 * 2, w2 * 2), dtype=np.float32)
+    pad[:h, :w] = img
+    cnt = np.zeros_like(pad)
+    cnt[:h, :w] = 1.0
+    s = pad.reshape(h2, 2, w2, 2).sum(axis=(1, 3))
+    c = cnt.reshape(h2, 2, w2, 2).sum(axis=(1, 3))
+    return (s / c).astype(np.float32)
+
+
+def _halve_mask(valid: np.ndarray) -> np.ndarray:
+    h, w = valid.shape
+    h2, w2 = (h + 1) // 2, (w + 1) // 2
+    pad = np.ones((h2 * 2, w2 * 2), dtype=bool)
+    pad[:h, :w] = valid
+    return pad.reshape(h2, 2, w2, 2).all(axis=(1, 3))
+
+
+def detect_blobs(
+    layer: np.ndarray,
+    scales: BlobScales,
+    min_response: float,
+    min_value: float,
+    valid: np.ndarray | None = None,
+    origin: tuple[int, int] = (0, 0),
+) -> dict[str, np.ndarray]:
+    """Find bright blobs as maxima of the normalised DoG over position and scale.
+
+    Parameters
+    ----------
+    layer : numpy.ndarray
+        2-D vegetation layer (index units), invalid pixels already filled with the
+        background level.
+    scales : BlobScales
+        Scales to search.
+    min_response : float
+        Smallest scale-normalised response (index units).
+    min_value : float
+        Smallest value of the layer smoothed at the blob's scale, at its centre.
+    valid : numpy.ndarray of bool, optional
+        Pixels that may hold a blob centre.
+    origin : (int, int)
+        Column and row of the array's first pixel in the raster (multiples of
+        ``scales.align``). Positions are returned in raster pixels, computed as an integer
+        pixel plus a sub-pixel offset so that tiled and whole-image runs agree to the bit.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``row``, ``col`` (sub-pixel, full resolution, raster pixel frame),
+        ``sigma`` (full-resolution pixels), ``response`` and ``value``.
+    """
+    img = np.asarray(layer, np.float32)
+    if valid is None:
+        valid = np.ones(img.shape, dtype=bool)
+    k = scales.k
+    norm = 1.0 / (math.sqrt(k) - 1.0 / math.sqrt(k))
+    out: dict[str, list[np.ndarray]] = {n: [] for n in ("row", "col", "sigma", "response", "value")}
+    inner = np.arange(1, scales.sigmas.size - 1)
+    level_img, level_valid = img, valid
+    for lev in range(scales.max_level + 1):
+        if lev > 0:
+            level_img = _halve(level_img)
+            level_valid = _halve_mask(level_valid)
+        mine = inner[scales.levels[inner] == lev]
+        if mine.size == 0:
+            continue
+        f = 2**lev
+        ext = np.arange(mine[0] - 1, mine[-1] + 2)  # scales compared, incl. neighbours
+        blur_s = scales.sigmas[ext[0]] * k ** (np.arange(ext.size + 1) - 0.5)
+        box_var = (f * f - 1) / 12.0  # blur already applied by the 2×2 means, in full-res px²
+        blurs = []
+        for b in blur_s:
+            local = math.sqrt(max(b * b - box_var, 0.04)) / f
+            blurs.append(ndimage.gaussian_filter(level_img, local, truncate=_TRUNCATE))
+        resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
+        del blurs[-1]
+        peak = ndimage.maximum_filter(resp, size=3, mode="nearest") == resp
+        peak[0] = False
+        peak[-1] = False
+        peak &= resp >= min_response
+        peak &= level_valid[None]
+        zi, yi, xi = np.nonzero(peak)
+        if zi.size == 0:
+            continue
+        # value: the layer smoothed at the lower blur of the chosen scale, at the centre
+        value = np.empty(zi.size, dtype=np.float32)
+        for z in np.unique(zi):
+            sel = zi == z
+            value[sel] = blurs[z][yi[sel], xi[sel]]
+        ok = value >= min_value
+        zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
+        r = resp[zi, yi, xi]
+        h, w = level_img.shape
+        dy = _vertex(resp, zi, yi, xi, axis=1, size=h)
+        dx = _vertex(resp, zi, yi, xi, axis=2, size=w)
+        dz = _vertex(resp, zi, yi, xi, axis=0, size=ext.size)
+        sig = scales.sigmas[ext[zi]] * k**dz
+        out["row"].append((yi * f + origin[1]) + ((dy + 0.5) * f - 0.5))
+        out["col"].append((xi * f + origin[0]) + ((dx + 0.5) * f - 0.5))
+        out["sigma"].append(sig)
+        out["response"].append(r)
+        out["value"].append(value)
+    return {n: (np.concatenate(v).astype(float) if v else np.empty(0)) for n, v in out.items()}
+
+
+def _vertex(
+    a: np.ndarray, zi: np.ndarray, yi: np.ndarray, xi: np.ndarray, axis: int, size: int
+) -> np.ndarray:
+    """Offset (−0.5..0.5) of the parabola through a peak and its two neighbours on one axis."""
+    idx = [zi, yi, xi]
+    c = idx[axis]
+    lo = c - 1
+    hi = c + 1
+    inside = (lo >= 0) & (hi < size)
+    lo = np.clip(lo, 0, size - 1)
+    hi = np.clip(hi, 0, size - 1)
+    i_lo, i_hi = list(idx), list(idx)
+    i_lo[axis], i_hi[axis] = lo, hi
+    f0 = a[tuple(idx)].astype(float)
+    fm = a[tuple(i_lo)].astype(float)
+    fp = a[tuple(i_hi)].astype(float)
+    den = fm - 2 * f0 + fp
+    with np.errstate(invalid="ignore", divide="ignore"):
+        off = np.where(den < 0, 0.5 * (fm - fp) / den, 0.0)
+    off = np.where(inside, np.clip(off, -0.5, 0.5), 0.0)
+    return off
+
+
+def prune_blobs(
+    x: np.ndarray,
+    y: np.ndarray,
+    radius: np.ndarray,
+    score: np.ndarray,
+    *,
+    overlap: float = 1.0,
+) -> np.ndarray:
+    """Keep the strongest of overlapping blobs (greedy non-maximum suppression, vectorised).
+
+    Two blobs conflict when their centres are closer than ``overlap`` times the larger
+    radius (one centre lies inside the other crown). The result equals the greedy rule
+    "take the strongest remaining blob, drop everything that conflicts with it", computed in
+    rounds over a KD-tree's pair list instead of a Python loop over pairs. Ties in score are
+    broken by position (lower y, then lower x) so the outcome never depends on input order.
+
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        Blob centres (any consistent unit, e.g. pixels).
+    radius : numpy.ndarray
+        Blob radii in the same unit.
+    score : numpy.ndarray
+        Larger is stronger.
+    overlap : float
+        Conflict distance as a fraction of the larger radius.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+        True for the blobs kept.
+    """
+    n = x.size
+    keep = np.zeros(n, dtype=bool)
+    if n == 0:
+        return keep
+    order = np.lexsort((radius, x, y, -score))
+    rank = np.empty(n, dtype=np.int64)
+    rank[order] = np.arange(n)
+    xy = np.column_stack([x, y])
+    pairs = cKDTree(xy).query_pairs(r=overlap * float(radius.max()), output_type="ndarray")
+    if pairs.size:
+        i, j = pairs[:, 0], pairs[:, 1]
+        d = np.hypot(x[i] - x[j], y[i] - y[j])
+        conflict = d < overlap * np.maximum(radius[i], radius[j])
+        i, j = i[conflict], j[conflict]
+        # orient each edge from the stronger (lower rank) to the weaker blob
+        swap = rank[i] > rank[j]
+        better = np.where(swap, j, i)
+        worse = np.where(swap, i, j)
+    else:
+        better = worse = np.empty(0, dtype=np.int64)
+    alive = np.ones(n, dtype=bool)
+    while alive.any():
+        live = alive[better] & alive[worse]
+        dominated = np.zeros(n, dtype=bool)
+        dominated[worse[live]] = True
+        leaders = alive & ~dominated
+        keep |= leaders
+        alive &= ~leaders
+        hit = leaders[better] & alive[worse]
+        alive[worse[hit]] = False
+    return keep

@@ -1,0 +1,165 @@
+"""Per-tile work for the three detectors: job in, table of detections out.
+
+A :class:`TileJob` carries everything a worker needs (raster description, tile, detector
+parameters that were fixed globally beforehand); :func:`run_tile` reads the tile's window,
+runs the detector and returns the detections whose centres lie in the tile's core, in
+raster pixel coordinates. No global state, so jobs can run anywhere.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ecoscan.detect import blobs, chm, classes
+from ecoscan.detect.indices import excess_green, ndvi
+from ecoscan.detect.settings import CROWN_RULES
+from ecoscan.detect.tiling import Tile, in_core
+from ecoscan.raster import RasterInfo, read_window
+
+__all__ = ["DetectorParams", "TileJob", "run_tile", "vegetation_layer"]
+
+
+@dataclass(frozen=True)
+class DetectorParams:
+    """Detector parameters fixed once for the whole raster (never per tile).
+
+    Attributes
+    ----------
+    method : str
+        ``imagery``, ``chm`` or ``classes``.
+    bands : tuple of int
+        1-based bands read.
+    index : str
+        Imagery: ``exg``, ``ndvi`` or ``band``.
+    scales : BlobScales or None
+        Imagery: scales searched.
+    min_response, min_value, fill_value : float
+        Imagery: response and vegetation thresholds, and the value given to invalid pixels.
+    min_height, smooth_px, crown_rule, radius_cap_px, crown_floor_m, crowns : ...
+        CHM options.
+    class_values, min_area_px, split, h_px : ...
+        Classes options.
+    pixel_size_m : float
+        Ground pixel size.
+    """
+
+    method: str
+    bands: tuple[int, ...]
+    pixel_size_m: float
+    index: str = "exg"
+    scales: blobs.BlobScales | None = None
+    min_response: float = 0.0
+    min_value: float = -np.inf
+    fill_value: float = 0.0
+    min_height: float = 2.0
+    smooth_px: float = 1.0
+    crown_rule: str = "combined"
+    radius_cap_px: int = 1
+    crown_floor_m: float = 1.0
+    crowns: bool = False
+    class_values: tuple[int, ...] = field(default_factory=tuple)
+    min_area_px: float = 1.0
+    split: bool = True
+    h_px: float = 1.0
+
+
+@dataclass(frozen=True)
+class TileJob:
+    """One unit of work: a raster, a tile and the global parameters."""
+
+    info: RasterInfo
+    tile: Tile
+    params: DetectorParams
+
+
+def vegetation_layer(data: np.ndarray, index: str) -> np.ndarray:
+    """The vegetation layer of band data (bands in the order the index needs).
+
+    ``exg``: bands red, green, blue (Woebbecke et al. 1995); ``ndvi``: red, nir (Rouse et
+    al. 1974); ``band``: the first band unchanged.
+    """
+    if index == "exg":
+        return excess_green(data[0], data[1], data[2])
+    if index == "ndvi":
+        return ndvi(data[0], data[1])
+    return np.asarray(data[0], np.float32)
+
+
+def _crown_width_px(rule: str, pixel_size_m: float):
+    a, b, c = CROWN_RULES[rule]
+
+    def f(h):
+        return (a + b * h + c * h * h) / pixel_size_m
+
+    return f
+
+
+def run_tile(job: TileJob) -> dict[str, np.ndarray]:
+    """Detect plants in one tile; keep those whose centre lies in the tile's core.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``col``, ``row`` in raster pixel coordinates (0 = centre of the first pixel),
+        detector attributes, and ``tile``.
+    """
+    p, tile = job.params, job.tile
+    c0, r0, _c1, _r1 = tile.window
+    data, valid = read_window(job.info, p.bands, tile.window)
+    if p.method == "imagery":
+        layer = vegetation_layer(data, p.index)
+        del data
+        layer[~valid] = p.fill_value
+        found = blobs.detect_blobs(
+            layer, p.scales, p.min_response, p.min_value, valid, origin=(c0, r0)
+        )
+        out = {
+            "col": found["col"],
+            "row": found["row"],
+            "sigma_px": found["sigma"],
+            "score": found["response"],
+            "index_value": found["value"],
+        }
+    elif p.method == "chm":
+        h = np.where(valid, data[0], 0.0).astype(np.float32)
+        del data
+        hs = chm.smooth_chm(h, p.smooth_px)
+        tops = chm.tree_tops(
+            hs,
+            valid,
+            p.min_height,
+            _crown_width_px(p.crown_rule, p.pixel_size_m),
+            p.radius_cap_px,
+            origin=(c0, r0),
+        )
+        out = {"col": tops["col"], "row": tops["row"], "height_m": tops["height"]}
+        if p.crowns:
+            px = chm.crown_areas(hs, h, valid, tops["_irow"], tops["_icol"], p.crown_floor_m)
+            out["area_m2"] = px * p.pixel_size_m**2
+    elif p.method == "classes":
+        c1w, r1w = tile.window[2], tile.window[3]
+        cut = (r0 > 0, r1w < job.info.height, c0 > 0, c1w < job.info.width)
+        found = classes.class_patches(
+            data[0],
+            valid,
+            p.class_values,
+            p.min_area_px,
+            split=p.split,
+            h_px=p.h_px,
+            cut_sides=cut,
+        )
+        out = {
+            "col": found["col"] + c0,
+            "row": found["row"] + r0,
+            "area_m2": found["area_px"] * p.pixel_size_m**2,
+            "class_value": found["class_value"].astype(float),
+            "_edge": found["edge"],
+        }
+    else:  # pragma: no cover - guarded by the caller
+        raise ValueError(p.method)
+    keep = in_core(tile, out["col"], out["row"])
+    res = {k: np.asarray(v)[keep] for k, v in out.items()}
+    res["tile"] = np.full(int(keep.sum()), tile.index, dtype=np.int64)
+    return res

@@ -1,0 +1,59 @@
+"""Vegetation layers from image bands (published indices), computed in float32."""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["excess_green", "ndvi"]
+
+
+def excess_green(red: np.ndarray, green: np.ndarray, blue: np.ndarray) -> np.ndarray:
+    """Excess Green index ExG = 2g − r − b on chromatic coordinates.
+
+    Woebbecke, D. M. et al. (1995). Color indices for weed identification under various
+    soil, residue, and lighting conditions. Trans. ASAE 38: 259–269. Chromatic coordinates
+    r = R / (R + G + B), g = G / (R + G + B), b = B / (R + G + B).
+
+    Parameters
+    ----------
+    red, green, blue : numpy.ndarray
+        Band values (any consistent radiometric unit, e.g. digital numbers).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 ExG in [−1, 2]; 0 where R + G + B = 0.
+    """
+    r = np.asarray(red, np.float32)
+    g = np.asarray(green, np.float32)
+    b = np.asarray(blue, np.float32)
+    s = r + g + b
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = (2.0 * g - r - b) / s
+    out[~(s > 0)] = 0.0
+    return out.astype(np.float32, copy=False)
+
+
+def ndvi(red: np.ndarray, nir: np.ndarray) -> np.ndarray:
+    """Normalised Difference Vegetation Index NDVI = (NIR − Red) / (NIR + Red).
+
+    Rouse, J. W. et al. (1974). Monitoring vegetation systems in the Great Plains with ERTS.
+    NASA SP-351.
+
+    Parameters
+    ----------
+    red, nir : numpy.ndarray
+        Red and near-infrared reflectance (or digital numbers on the same scale).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 NDVI in [−1, 1]; 0 where NIR + Red = 0.
+    """
+    r = np.asarray(red, np.float32)
+    n = np.asarray(nir, np.float32)
+    s = n + r
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = (n - r) / s
+    out[~(s != 0)] = 0.0
+    return out.astype(np.float32, copy=False)

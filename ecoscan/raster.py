@@ -1,0 +1,389 @@
+"""Opening and checking rasters, windowed reads with masks, and global statistics.
+
+Rasters are read with rasterio (GDAL), so GeoTIFF and any GDAL format work. Validity comes
+from GDAL's dataset mask, which combines nodata values, internal masks and alpha bands.
+Pixel sizes are in metres: projected rasters in feet are converted with the CRS unit factor,
+geographic rasters get the ground size of a pixel at the raster centre (and detected points
+are reprojected to the local UTM zone by the caller). A raster without georeferencing is
+refused unless a pixel size is given; its coordinates are then local, pixel-based metres
+with the origin at the lower-left corner and y pointing up.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import rasterio
+import rasterio.features
+import shapely
+from pyproj import CRS
+from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
+from rasterio.transform import Affine
+from rasterio.windows import Window
+
+from ecoscan.crs import crs_label, to_metric, transform_xy
+from ecoscan.errors import InputError
+from ecoscan.vector import PlotLayer, plots_from_geometries
+
+__all__ = [
+    "RasterInfo",
+    "open_raster",
+    "pixel_to_map",
+    "plots_from_mask",
+    "read_decimated",
+    "read_window",
+]
+
+
+@dataclass(frozen=True)
+class RasterInfo:
+    """What ecoscan needs to know about a raster before reading it.
+
+    Attributes
+    ----------
+    path : str
+        The file.
+    width, height : int
+        Columns and rows.
+    count : int
+        Number of data bands (alpha bands excluded).
+    dtype : str
+        Data type of the first band, e.g. ``uint8``, ``float32``.
+    transform : affine.Affine
+        Pixel-corner to map transform (for a raster without georeferencing: a local one in
+        metres built from the given pixel size).
+    crs : pyproj.CRS or None
+        The raster's CRS; None for local pixel-based coordinates.
+    pixel_size_m : float
+        Ground size of one pixel in metres (geometric mean of width and height).
+    descriptions : tuple of str
+        Band descriptions (lower case, '' when unset), one per data band.
+    colorinterp : tuple of str
+        GDAL colour interpretation per data band (``red``, ``green``, ``undefined``...).
+    data_bands : tuple of int
+        1-based indices of the data bands (alpha bands are left out).
+    notes : list of str
+        What was assumed or converted, for the user.
+    """
+
+    path: str
+    width: int
+    height: int
+    count: int
+    dtype: str
+    transform: Affine
+    crs: CRS | None
+    pixel_size_m: float
+    descriptions: tuple[str, ...]
+    colorinterp: tuple[str, ...]
+    data_bands: tuple[int, ...]
+    local: bool = False
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        """Rows, columns."""
+        return self.height, self.width
+
+    @property
+    def megapixels(self) -> float:
+        """Raster size in megapixels."""
+        return self.width * self.height / 1e6
+
+
+def _unit_factor(crs: CRS) -> float:
+    for ax in crs.axis_info:
+        if ax.direction in ("east", "north", "west", "south"):
+            return float(ax.unit_conversion_factor or 1.0)
+    return 1.0
+
+
+def _ground_pixel_size(transform: Affine, crs: CRS, width: int, height: int) -> float:
+    """Ground pixel size in metres at the raster centre for a geographic or odd-unit CRS."""
+    c, r = width / 2.0, height / 2.0
+    cc = np.array([c, c + 1, c])
+    rr = np.array([r, r, r + 1])
+    t = transform
+    xs = np.column_stack([t.a * cc + t.b * rr + t.c, t.d * cc + t.e * rr + t.f])
+    _x, _y, frame = to_metric(xs[:, 0], xs[:, 1], crs)
+    mx, my = transform_xy(xs[:, 0], xs[:, 1], crs, frame.crs)
+    dx = math.hypot(mx[1] - mx[0], my[1] - my[0])
+    dy = math.hypot(mx[2] - mx[0], my[2] - my[0])
+    return math.sqrt(dx * dy)
+
+
+def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -> RasterInfo:
+    """Open a raster, check it, and describe it in metres.
+
+    Parameters
+    ----------
+    path : path-like
+        GeoTIFF or any raster GDAL reads.
+    pixel_size_m : float, optional
+        Pixel size in metres for a raster without georeferencing (required then); with a
+        georeferenced raster it is ignored and a note says so.
+
+    Returns
+    -------
+    RasterInfo
+
+    Raises
+    ------
+    InputError
+        Missing, unreadable or truncated file; no georeferencing and no pixel size; a
+        non-positive pixel size.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"raster file {str(p)!r} does not exist; check the path")
+    if p.is_dir():
+        raise InputError(f"raster path {str(p)!r} is a folder; give the raster file itself")
+    notes: list[str] = []
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            with rasterio.open(p) as src:
+                if src.count < 1:
+                    raise InputError(f"{p.name} has no bands")
+                # read one pixel at the far corner: catches many truncated files early
+                src.read(1, window=Window(src.width - 1, src.height - 1, 1, 1))
+                ci = tuple(c.name for c in src.colorinterp)
+                data_bands = tuple(i + 1 for i, c in enumerate(ci) if c != "alpha")
+                if not data_bands:
+                    raise InputError(f"{p.name} holds only an alpha band; it has no data")
+                desc = tuple((src.descriptions[i - 1] or "").strip().lower() for i in data_bands)
+                info = dict(
+                    width=src.width,
+                    height=src.height,
+                    transform=src.transform,
+                    crs=CRS.from_user_input(src.crs.to_wkt()) if src.crs else None,
+                    dtype=src.dtypes[data_bands[0] - 1],
+                    colorinterp=tuple(ci[i - 1] for i in data_bands),
+                )
+    except InputError:
+        raise
+    except (RasterioIOError, rasterio.errors.RasterioError) as exc:
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(
+            f"cannot read raster {p.name}: {msg}; give a GeoTIFF or another raster GDAL reads "
+            "(the file may be truncated or not a raster)"
+        ) from None
+    transform: Affine = info["transform"]
+    crs: CRS | None = info["crs"]
+    georef = not transform.is_identity or crs is not None
+    local = False
+    if not georef:
+        if pixel_size_m is None:
+            raise InputError(
+                f"{p.name} has no georeferencing (no CRS and no pixel size); give "
+                "--pixel-size METRES to work in local pixel-based coordinates"
+            )
+        if not pixel_size_m > 0:
+            raise InputError(f"--pixel-size must be positive (got {pixel_size_m})")
+        ps = float(pixel_size_m)
+        transform = Affine(ps, 0, 0, 0, -ps, info["height"] * ps)
+        local = True
+        notes.append(
+            f"{p.name} has no georeferencing; points are in local pixel-based coordinates "
+            f"(metres from the lower-left corner, {ps:g} m per pixel)"
+        )
+    else:
+        if pixel_size_m is not None:
+            notes.append(f"--pixel-size is ignored: {p.name} carries its own georeferencing")
+        sx = math.hypot(transform.a, transform.d)
+        sy = math.hypot(transform.b, transform.e)
+        if crs is None:
+            ps = math.sqrt(sx * sy)
+            notes.append(f"{p.name} has no CRS; its map units are taken as metres")
+        elif crs.is_geographic:
+            ps = _ground_pixel_size(transform, crs, info["width"], info["height"])
+            notes.append(
+                f"{p.name} is in {crs_label(crs)} (degrees); pixel size taken as {ps:.3g} m at "
+                "the raster centre and points are reprojected to the local UTM zone"
+            )
+        else:
+            f = _unit_factor(crs)
+            ps = math.sqrt(sx * sy) * f
+            if abs(f - 1.0) > 1e-9:
+                notes.append(
+                    f"{p.name} is in {crs_label(crs)} with units of {f:.6g} m; pixel size "
+                    f"converted to {ps:.3g} m"
+                )
+        if not (ps > 0 and math.isfinite(ps)):
+            raise InputError(f"{p.name} has a zero or invalid pixel size; fix its georeferencing")
+        if abs(sx - sy) > 0.01 * max(sx, sy):
+            notes.append(f"{p.name} has non-square pixels; the mean pixel size {ps:.3g} m is used")
+    return RasterInfo(
+        path=str(p),
+        width=info["width"],
+        height=info["height"],
+        count=len(data_bands),
+        dtype=info["dtype"],
+        transform=transform,
+        crs=None if local else crs,
+        pixel_size_m=ps,
+        descriptions=desc,
+        colorinterp=info["colorinterp"],
+        data_bands=data_bands,
+        local=local,
+        notes=notes,
+    )
+
+
+def _open(info: RasterInfo):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        return rasterio.open(info.path)
+
+
+def read_window(
+    info: RasterInfo, bands: tuple[int, ...], window: tuple[int, int, int, int]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Read bands in a pixel window, with the validity mask.
+
+    Parameters
+    ----------
+    info : RasterInfo
+        The raster.
+    bands : tuple of int
+        1-based band indices.
+    window : (col0, row0, col1, row1)
+        Pixel window, end exclusive, inside the raster.
+
+    Returns
+    -------
+    data : numpy.ndarray
+        float32, shape (len(bands), rows, columns).
+    valid : numpy.ndarray
+        bool, shape (rows, columns): False where GDAL's mask (nodata, internal mask or
+        alpha) marks a pixel invalid in any of the bands, or the value is not finite.
+    """
+    c0, r0, c1, r1 = window
+    win = Window(c0, r0, c1 - c0, r1 - r0)
+    try:
+        with _open(info) as src:
+            data = src.read(list(bands), window=win, out_dtype="float32")
+            masks = src.read_masks(list(bands), window=win)
+    except RasterioIOError as exc:
+        raise InputError(
+            f"cannot read pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
+            f"{str(exc).splitlines()[0]}; the file may be truncated"
+        ) from None
+    valid = np.all(masks > 0, axis=0) & np.all(np.isfinite(data), axis=0)
+    return data, valid
+
+
+def read_decimated(
+    info: RasterInfo, bands: tuple[int, ...], max_pixels: int = 4_000_000
+) -> tuple[np.ndarray, np.ndarray]:
+    """Read the whole raster at reduced resolution (overviews when present) for statistics.
+
+    Parameters
+    ----------
+    info : RasterInfo
+        The raster.
+    bands : tuple of int
+        1-based band indices.
+    max_pixels : int
+        Largest number of pixels to read per band; the raster is decimated by a whole factor
+        to fit.
+
+    Returns
+    -------
+    data, valid : numpy.ndarray
+        As :func:`read_window`, at the decimated resolution.
+    """
+    f = max(1, math.ceil(math.sqrt(info.width * info.height / max_pixels)))
+    shape = (len(bands), max(1, info.height // f), max(1, info.width // f))
+    try:
+        with _open(info) as src:
+            data = src.read(list(bands), out_shape=shape, out_dtype="float32")
+            masks = src.read_masks(list(bands), out_shape=shape)
+    except RasterioIOError as exc:
+        raise InputError(
+            f"cannot read {Path(info.path).name}: {str(exc).splitlines()[0]}; "
+            "the file may be truncated"
+        ) from None
+    valid = np.all(masks > 0, axis=0) & np.all(np.isfinite(data), axis=0)
+    return data, valid
+
+
+def pixel_to_map(info: RasterInfo, col: np.ndarray, row: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Map coordinates of pixel positions (pixel centres at integer col, row).
+
+    Parameters
+    ----------
+    info : RasterInfo
+        The raster.
+    col, row : numpy.ndarray
+        Sub-pixel column and row, 0 at the centre of the first pixel.
+
+    Returns
+    -------
+    x, y : numpy.ndarray
+        Coordinates in the raster's CRS (or local metres).
+    """
+    t = info.transform
+    cc = np.asarray(col, float) + 0.5
+    rr = np.asarray(row, float) + 0.5
+    return t.a * cc + t.b * rr + t.c, t.d * cc + t.e * rr + t.f
+
+
+def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = None) -> PlotLayer:
+    """Turn a raster of plot ids (or a 0/1 mask) into plot polygons.
+
+    Every non-zero, valid value becomes one plot whose id is that value; a 0/1 mask gives a
+    single plot ``1``. Polygons come from :func:`rasterio.features.shapes` and are brought to
+    a metric CRS like any plot layer.
+
+    Parameters
+    ----------
+    path : path-like
+        Single-band integer raster aligned with (or at least in the CRS of) the imagery.
+    pixel_size_m : float, optional
+        Pixel size in metres when the mask has no georeferencing.
+
+    Returns
+    -------
+    PlotLayer
+
+    Raises
+    ------
+    InputError
+        Unreadable file, non-integer values, or no non-zero pixels.
+    """
+    info = open_raster(path, pixel_size_m=pixel_size_m)
+    if np.dtype(info.dtype).kind not in "iub":
+        raise InputError(
+            f"{Path(path).name} is not an integer raster; --mask needs plot ids or 0/1 values"
+        )
+    with _open(info) as src:
+        band = src.read(info.data_bands[0])
+        valid = src.read_masks(info.data_bands[0]) > 0
+    use = valid & (band != 0)
+    if not np.any(use):
+        raise InputError(f"{Path(path).name} has no non-zero pixels; it marks no plot")
+    values = band.astype(np.int32)
+    geoms: dict[int, list] = {}
+    for geom, val in rasterio.features.shapes(values, mask=use, transform=info.transform):
+        geoms.setdefault(int(val), []).append(shapely.geometry.shape(geom))
+    ids = sorted(geoms)
+    polys = np.array([shapely.union_all(geoms[i]) for i in ids], dtype=object)
+    crs = info.crs
+    notes = list(info.notes)
+    if crs is not None:
+        coords = shapely.get_coordinates(polys)
+        _x, _y, frame = to_metric(coords[:, 0], coords[:, 1], crs)
+        if frame.reprojected_from is not None:
+            from ecoscan.vector import reproject_geometries
+
+            polys = reproject_geometries(polys, crs, frame.crs)
+            notes.append(frame.note.replace("input", "mask"))
+        crs = frame.crs
+    plots, more = plots_from_geometries(polys, [str(i) for i in ids], None, Path(path).name)
+    return PlotLayer(plots, crs, notes + more)

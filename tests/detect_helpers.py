@@ -1,0 +1,97 @@
+"""Synthetic scenes with known plant positions, shared by the detection tests.
+
+All scenes are invented (synthetic ground truth made by ecoscan.synthetic).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from pyproj import CRS
+from rasterio.transform import from_origin
+
+from ecoscan.points import PointSet
+from ecoscan.synthetic import (
+    place_crowns,
+    render_chm,
+    render_classes,
+    render_orthomosaic,
+    write_geotiff,
+)
+
+UTM = "EPSG:32633"
+X0, Y0 = 400000.0, 5600000.0
+
+
+def truth_points(xy_px: np.ndarray, ps: float, attrs: dict | None = None) -> PointSet:
+    """Map coordinates of pixel positions for a north-up raster at (X0, Y0)."""
+    x = X0 + (xy_px[:, 0] + 0.5) * ps
+    y = Y0 - (xy_px[:, 1] + 0.5) * ps
+    return PointSet(x, y, attrs or {}, CRS.from_user_input(UTM))
+
+
+def ortho_scene(
+    folder: Path,
+    seed: int = 1,
+    shape=(600, 560),
+    ps: float = 0.05,
+    n: int = 160,
+    dpx=(12, 40),
+    name: str = "ortho.tif",
+    **kw,
+):
+    """An RGB orthomosaic: returns (path, truth PointSet with diameter_m)."""
+    rng = np.random.default_rng(seed)
+    xy, d = place_crowns(shape, n, dpx, rng, min_gap=0.95)
+    img = render_orthomosaic(xy, d, shape, rng, **kw)
+    path = write_geotiff(folder / name, img, from_origin(X0, Y0, ps, ps), UTM)
+    return path, truth_points(xy, ps, {"diameter_m": d * ps})
+
+
+def chm_scene(
+    folder: Path,
+    seed: int = 2,
+    shape=(500, 480),
+    ps: float = 0.25,
+    n: int = 90,
+    flat_top: float = 0.0,
+    name: str = "chm.tif",
+):
+    """A canopy height model: returns (path, truth PointSet with height_m, diameter_m)."""
+    rng = np.random.default_rng(seed)
+    xy, d = place_crowns(shape, n, (14, 34), rng, min_gap=0.9)
+    h = rng.uniform(6.0, 22.0, xy.shape[0])
+    chm = render_chm(xy, h, d, shape, rng, flat_top=flat_top)
+    path = write_geotiff(folder / name, chm, from_origin(X0, Y0, ps, ps), UTM)
+    return path, truth_points(xy, ps, {"height_m": h, "diameter_m": d * ps})
+
+
+def classes_scene(
+    folder: Path,
+    seed: int = 3,
+    shape=(500, 480),
+    ps: float = 0.1,
+    n: int = 120,
+    name: str = "classes.tif",
+):
+    """A classified raster (plants = class 3, touching allowed)."""
+    rng = np.random.default_rng(seed)
+    xy, d = place_crowns(shape, n, (12, 36), rng, min_gap=0.92)
+    cls = render_classes(xy, d, shape, rng, plant_class=3)
+    path = write_geotiff(folder / name, cls, from_origin(X0, Y0, ps, ps), UTM)
+    return path, truth_points(xy, ps, {"diameter_m": d * ps})
+
+
+def f1_against(points: PointSet, truth: PointSet, tol: float) -> float:
+    """F1 of detections against truth with one-to-one matching."""
+    from ecoscan.stats.matching import match_points
+
+    m = match_points(points.xy, truth.xy, tol)
+    return 2 * m.n_matched / (points.n + truth.n)
+
+
+def sorted_xy(points: PointSet) -> np.ndarray:
+    """Coordinates sorted lexicographically, to compare two runs."""
+    xy = points.xy
+    return xy[np.lexsort((xy[:, 1], xy[:, 0]))]
