@@ -10,9 +10,10 @@ hypothesis (complete spatial randomness, or random labelling), on a common grid 
   ranks of every curve among the s + 1, the vector of each curve's ranks sorted ascending,
   curves ordered lexicographically by those vectors (the most extreme first). The p-value is
   the share of the s + 1 curves as extreme as, or more extreme than, the observed one; the
-  100(1 − α)% global envelope is the range of the simulated curves that are not among the
-  ⌊α (s + 1)⌋ most extreme. The observed curve leaves the global envelope (somewhere) when the
-  test rejects, and where it leaves shows at which distances.
+  100(1 − α)% global envelope is the range of the curves (observed included) whose measure is
+  at least the critical value E_(α), the largest with at most α (s + 1) curves below it. The
+  observed curve leaves the global envelope (somewhere) when the test rejects and stays
+  inside otherwise (up to ties), and where it leaves shows at which distances.
 * **maximum absolute deviation (MAD)** test (Baddeley et al. 2014): T = max_r |T(r) − T̄(r)|,
   p = (1 + #{T_i ≥ T₀}) / (s + 1), envelope T̄ ± the ⌊α (s + 1)⌋-th largest simulated T.
 
@@ -213,10 +214,9 @@ def envelope_test(
             vals = np.unique(e)
             below = np.searchsorted(np.sort(e), vals, side="left")
             crit = vals[below <= k_alpha].max()
-            keep = e[1:] >= crit
-            if keep.any():
-                lo[cols] = sims[:, cols][keep].min(axis=0)
-                hi[cols] = sims[:, cols][keep].max(axis=0)
+            keep = e >= crit
+            lo[cols] = allc[keep].min(axis=0)
+            hi[cols] = allc[keep].max(axis=0)
         else:
             dev = np.max(np.abs(allc - centre[cols]), axis=1)
             p = float((1 + np.sum(dev[1:] >= dev[0])) / (s + 1))
