@@ -1,0 +1,909 @@
+"""Spatial pattern across distances, per plot: second-order functions with envelopes.
+
+For every plot this computes K, L, L − r and g (isotropic edge correction), G, F and J
+(Kaplan–Meier), their border-corrected versions, and simulation envelopes under complete
+spatial randomness in the exact plot polygon with the same number of plants. A global
+envelope test on one function (L by default) says whether the plot departs from randomness at
+all; where the observed curve leaves the global envelope gives the distance ranges at which it
+is clustered or regular, turned into plain words by :func:`interpret`.
+
+Optionally, for two kinds of plants (a point attribute such as species or live/dead), the
+cross-L and K_BB − K_AA with random-labelling envelopes (:mod:`ecoscan.stats.cross`).
+
+Automated plant counts need field checks, and a significant pattern is a description, not a
+cause: check the plots on the ground before acting on a result, and follow local rules and
+licensed practice for management decisions.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import zlib
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass, field, fields
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import shapely
+
+from ecoscan.errors import InputError
+from ecoscan.inputs import SurveyInputs
+from ecoscan.outputs import format_value, write_csv, write_json
+from ecoscan.progress import progress
+from ecoscan.stats.cross import CrossResult, random_labelling_test
+from ecoscan.stats.csr import uniform_in_polygon
+from ecoscan.stats.distance_functions import (
+    EmptySpaceGrid,
+    empty_space_function,
+    j_function,
+    nn_function,
+)
+from ecoscan.stats.edge import boundary_distance
+from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, envelope_test
+from ecoscan.stats.second_order import default_r_max, r_grid, second_order, shorter_side_m
+
+__all__ = [
+    "FUNCTIONS",
+    "FunctionCurve",
+    "PlotScales",
+    "ScalesSettings",
+    "analyse_scales",
+    "format_ranges",
+    "function_rows",
+    "interpret",
+    "plot_rng",
+    "scales_rows",
+    "write_scales",
+]
+
+#: Functions that can be requested, and what they are.
+FUNCTIONS = {
+    "K": "Ripley's K, isotropic correction (m²)",
+    "L": "Besag's L = sqrt(K / pi) and L(r) - r (m)",
+    "g": "pair correlation function, isotropic correction",
+    "G": "nearest-neighbour distance distribution, Kaplan-Meier",
+    "F": "empty-space function, Kaplan-Meier",
+    "J": "J = (1 - G) / (1 - F)",
+}
+#: Functions whose global test may drive the verdict.
+TEST_FUNCTIONS = ("L", "g")
+#: Sign of "clustered" for each curve: +1 when above the envelope means clustered.
+_CLUSTER_SIGN = {"K": 1, "L": 1, "L_minus_r": 1, "g": 1, "G": 1, "F": -1, "J": -1}
+_UNITS = {"K": "m2", "L": "m", "L_minus_r": "m", "g": "1", "G": "1", "F": "1", "J": "1"}
+_FEW_PLANTS = 30
+
+
+@dataclass(frozen=True)
+class ScalesSettings:
+    """Settings of the analysis across scales (also the ``scales`` section of a survey file).
+
+    Attributes
+    ----------
+    simulations : int
+        Patterns simulated under complete spatial randomness per plot (and relabellings).
+    seed : int
+        Random seed; each plot gets its own stream from (seed, plot id).
+    alpha : float
+        Level of the envelopes and the global test.
+    r_max_m : float or None
+        Largest distance, metres; None for the default rule (per plot, see
+        :func:`ecoscan.stats.second_order.default_r_max`).
+    n_r : int
+        Number of distances.
+    functions : tuple of str
+        Which of K, L, g, G, F, J to report.
+    global_test : str
+        ``"erl"`` (extreme rank length) or ``"mad"`` (maximum absolute deviation).
+    test_function : str
+        ``"L"`` or ``"g"``: the function whose global test gives the verdict.
+    min_points : int
+        Plots with fewer plants are reported but not analysed.
+    kind_field : str or None
+        Point attribute with the kind of plant, for the bivariate analysis.
+    kinds : tuple of str or None
+        The two kinds (A, B) to compare, e.g. ``("live", "dead")``.
+    """
+
+    simulations: int = 199
+    seed: int = 1
+    alpha: float = 0.05
+    r_max_m: float | None = None
+    n_r: int = 100
+    functions: tuple[str, ...] = ("K", "L", "g", "G", "F", "J")
+    global_test: str = "erl"
+    test_function: str = "L"
+    min_points: int = 10
+    kind_field: str | None = None
+    kinds: tuple[str, str] | None = None
+
+    def __post_init__(self) -> None:
+        _check(isinstance(self.simulations, int), "simulations must be a whole number")
+        need = int(np.ceil(1.0 / self.alpha - 1 - 1e-9)) if 0 < self.alpha < 1 else 19
+        _check(0 < self.alpha < 1, f"alpha must be between 0 and 1, not {self.alpha}")
+        _check(
+            self.simulations >= need,
+            f"simulations = {self.simulations} is too few for alpha = {self.alpha}; "
+            f"use at least {need} (199 or more is usual)",
+        )
+        _check(
+            self.r_max_m is None or (np.isfinite(self.r_max_m) and self.r_max_m > 0),
+            f"the largest distance must be a positive number of metres, not {self.r_max_m}",
+        )
+        _check(10 <= self.n_r <= 2000, f"n_r must be between 10 and 2000, not {self.n_r}")
+        bad = [f for f in self.functions if f not in FUNCTIONS]
+        _check(
+            not bad and len(self.functions) > 0,
+            f"unknown function(s) {', '.join(bad) or '(none given)'}; "
+            f"choose from {', '.join(FUNCTIONS)}",
+        )
+        _check(
+            self.global_test in GLOBAL_TESTS,
+            f"unknown global test {self.global_test!r}; use one of {', '.join(GLOBAL_TESTS)}",
+        )
+        _check(
+            self.test_function in TEST_FUNCTIONS,
+            f"test_function must be one of {', '.join(TEST_FUNCTIONS)}, not {self.test_function!r}",
+        )
+        _check(self.min_points >= 3, "min_points must be at least 3")
+        if self.kinds is not None:
+            _check(
+                len(self.kinds) == 2 and self.kinds[0] != self.kinds[1],
+                "kinds must be two different values, e.g. live,dead",
+            )
+            _check(self.kind_field is not None, "kinds were given without the kind field")
+
+    @classmethod
+    def from_mapping(cls, d: Mapping[str, Any]) -> ScalesSettings:
+        """Settings from a mapping (e.g. a survey file section); unknown keys are refused.
+
+        Raises
+        ------
+        InputError
+            For unknown keys or impossible values.
+        """
+        names = {f.name for f in fields(cls)}
+        unknown = [k for k in d if k not in names]
+        if unknown:
+            raise InputError(
+                f"unknown scales setting(s) {', '.join(map(str, unknown))}; "
+                f"known: {', '.join(sorted(names))}"
+            )
+        kw = dict(d)
+        try:
+            if "functions" in kw:
+                f = kw["functions"]
+                kw["functions"] = tuple(f.replace(",", " ").split() if isinstance(f, str) else f)
+            if kw.get("kinds") is not None:
+                k = kw["kinds"]
+                kw["kinds"] = tuple(
+                    s.strip() for s in (k.split(",") if isinstance(k, str) else map(str, k))
+                )
+            for key in ("simulations", "seed", "n_r", "min_points"):
+                if key in kw and not isinstance(kw[key], bool):
+                    v = kw[key]
+                    if isinstance(v, float) and v != int(v):
+                        raise InputError(f"{key} must be a whole number, not {v}")
+                    kw[key] = int(v)
+            for key in ("alpha", "r_max_m"):
+                if kw.get(key) is not None:
+                    kw[key] = float(kw[key])
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"bad scales setting: {exc}; check the values' types") from None
+        return cls(**kw)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The settings as plain JSON-ready values."""
+        d = asdict(self)
+        d["functions"] = list(self.functions)
+        d["kinds"] = list(self.kinds) if self.kinds else None
+        return d
+
+
+def _check(ok: bool, message: str) -> None:
+    if not ok:
+        raise InputError(message)
+
+
+@dataclass(frozen=True)
+class FunctionCurve:
+    """One summary function of one plot, with its envelopes.
+
+    Attributes
+    ----------
+    name : str
+        ``K``, ``L``, ``L_minus_r``, ``g``, ``G``, ``F``, ``J``, a ``*_border`` version
+        (no envelope) or ``L_cross`` / ``D_cross`` (random labelling).
+    unit : str
+        Unit of the values (``m2``, ``m`` or ``1``).
+    r_m : numpy.ndarray
+        Distances, metres.
+    observed, theoretical : numpy.ndarray
+        Observed curve and its value under the null hypothesis (NaN when not known in
+        closed form, e.g. L_cross under random labelling: the mean of the simulations is given
+        in ``centre``).
+    envelope : Envelope or None
+        Envelopes and global test, None for the border versions.
+    """
+
+    name: str
+    unit: str
+    r_m: np.ndarray
+    observed: np.ndarray
+    theoretical: np.ndarray
+    envelope: Envelope | None = None
+
+
+@dataclass(frozen=True)
+class PlotScales:
+    """Result of the analysis across scales for one plot.
+
+    Attributes
+    ----------
+    plot_id : str
+    n : int
+        Plants in the plot.
+    area_m2 : float
+    r_max_m : float
+        Largest distance analysed.
+    bandwidth_m : float
+        Kernel bandwidth of g.
+    curves : dict of str to FunctionCurve
+    test_function : str
+    global_test : str
+    global_p : float
+    clustered_ranges_m, regular_ranges_m : list of (float, float)
+    verdict : str
+        Plain words.
+    warnings : list of str
+    cross : CrossResult or None
+    cross_verdict : str
+    """
+
+    plot_id: str
+    n: int
+    area_m2: float
+    r_max_m: float
+    bandwidth_m: float
+    curves: dict[str, FunctionCurve]
+    test_function: str
+    global_test: str
+    global_p: float
+    clustered_ranges_m: list[tuple[float, float]]
+    regular_ranges_m: list[tuple[float, float]]
+    verdict: str
+    simulations: int
+    warnings: list[str] = field(default_factory=list)
+    cross: CrossResult | None = None
+    cross_verdict: str = ""
+
+
+def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
+    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``."""
+    return np.random.default_rng(np.random.SeedSequence([seed, zlib.crc32(plot_id.encode())]))
+
+
+# ------------------------------------------------------------------------ interpretation
+
+
+def _fmt_m(v: float) -> str:
+    """A distance for people: 0.15, 1.2, 11."""
+    v = float(v)
+    if v >= 10:
+        return f"{v:.0f}"
+    if v >= 1:
+        return f"{v:.1f}"
+    return f"{v:.2g}"
+
+
+def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
+    m = np.asarray(mask, bool)
+    if not m.any():
+        return []
+    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1
+    return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]
+
+
+def format_ranges(ranges: Sequence[tuple[float, float]]) -> str:
+    """Ranges as text for a table: ``"0.1-1.2; 4.0-11"`` (metres)."""
+    return "; ".join(f"{_fmt_m(a)}-{_fmt_m(b)}" for a, b in ranges)
+
+
+def _describe(ranges: Sequence[tuple[float, float]], r_first: float) -> str:
+    parts = []
+    for a, b in ranges:
+        if a <= r_first * (1 + 1e-9):
+            parts.append(f"up to {_fmt_m(b)} m")
+        elif np.isclose(a, b):
+            parts.append(f"at about {_fmt_m(a)} m")
+        else:
+            parts.append(f"from {_fmt_m(a)} m to {_fmt_m(b)} m")
+    return " and ".join(parts)
+
+
+def interpret(
+    r_m: np.ndarray,
+    clustered: np.ndarray,
+    regular: np.ndarray,
+    pvalue: float,
+    alpha: float,
+    *,
+    n: int | None = None,
+    r_start: float | None = None,
+    r_start_regular: float | None = None,
+) -> tuple[list[tuple[float, float]], list[tuple[float, float]], str]:
+    """Turn envelope exceedances into distance ranges and a verdict in plain words.
+
+    Parameters
+    ----------
+    r_m : numpy.ndarray
+        Distances, metres.
+    clustered, regular : numpy.ndarray of bool
+        Where the observed curve is on the clustered / regular side of the global envelope.
+    pvalue : float
+        Global test p-value.
+    alpha : float
+        Significance level.
+    n : int, optional
+        Number of plants (adds a caution for small plots).
+    r_start : float, optional
+        Smallest informative distance, metres (below it no simulated pattern has a pair, so
+        nothing can be significant); a clustered range starting there reads "up to".
+        Default r_m[0].
+    r_start_regular : float, optional
+        The same for regular ranges (the first distance where the lower envelope is above
+        zero). Default ``r_start``.
+
+    Returns
+    -------
+    clustered_ranges, regular_ranges : list of (float, float)
+        Ranges in metres (empty unless the global test rejects at ``alpha``).
+    verdict : str
+        E.g. "regular up to 1.2 m; clustered from 4.0 m to 11 m (global test p = 0.005)".
+    """
+    r = np.asarray(r_m, float)
+    r_start = float(r[0]) if r_start is None else float(r_start)
+    r_start_regular = r_start if r_start_regular is None else float(r_start_regular)
+    sig = np.isfinite(pvalue) and pvalue <= alpha
+    small = (
+        f"; only {n} plants, so only strong patterns can be detected"
+        if n is not None and n < _FEW_PLANTS
+        else ""
+    )
+    p_txt = f"global test p = {format_value(round(float(pvalue), 4))}"
+    if not sig:
+        return (
+            [],
+            [],
+            f"no significant departure from a random pattern at distances up to "
+            f"{_fmt_m(r[-1])} m ({p_txt}){small}",
+        )
+    reg = _runs(regular, r)
+    clu = _runs(clustered, r)
+    events = sorted([(x, "regular") for x in reg] + [(x, "clustered") for x in clu])
+    parts: list[str] = []
+    last = None
+    many = {k: sum(1 for _x, kk in events if kk == k) > 2 for k in ("regular", "clustered")}
+    for rng_m, kind in events:
+        text = _describe([rng_m], r_start_regular if kind == "regular" else r_start)
+        if many[kind]:
+            runs = reg if kind == "regular" else clu
+            if rng_m != runs[0]:
+                continue
+            text += f", and in {len(runs) - 1} more distance bands up to {_fmt_m(runs[-1][1])} m"
+        if kind == last:
+            parts[-1] += f" and {text}"
+        else:
+            word = "regular (evenly spaced)" if kind == "regular" else "clustered"
+            parts.append(f"{word} {text}")
+        last = kind
+    if not parts:
+        return [], [], f"departs from a random pattern, without one clear distance range ({p_txt})"
+    return clu, reg, "; ".join(parts) + f" ({p_txt}){small}"
+
+
+# ----------------------------------------------------------------------------- analysis
+
+
+def _curve(name, r, obs, theo, sims, settings, test) -> FunctionCurve:
+    env = envelope_test(obs, sims, theoretical=theo, alpha=settings.alpha, test=test)
+    return FunctionCurve(name, _UNITS[name], r, obs, theo, env)
+
+
+def _too_few(plot_id, n, area, settings, reason) -> PlotScales:
+    return PlotScales(
+        plot_id,
+        n,
+        area,
+        float("nan"),
+        float("nan"),
+        {},
+        settings.test_function,
+        settings.global_test,
+        float("nan"),
+        [],
+        [],
+        reason,
+        settings.simulations,
+        [reason],
+    )
+
+
+def _kind_labels(values: np.ndarray) -> np.ndarray:
+    return np.array([format_value(v) for v in values], dtype=object)
+
+
+def analyse_plot(
+    xy: np.ndarray,
+    polygon: shapely.Geometry,
+    plot_id: str,
+    settings: ScalesSettings,
+    *,
+    kinds: np.ndarray | None = None,
+) -> PlotScales:
+    """The analysis across scales of one plot (see :func:`analyse_scales`).
+
+    Parameters
+    ----------
+    xy : numpy.ndarray, shape (n, 2)
+        Plants in the plot, metres.
+    polygon : shapely.Polygon or shapely.MultiPolygon
+        The plot.
+    plot_id : str
+        Its id (also seeds its random stream).
+    settings : ScalesSettings
+    kinds : numpy.ndarray of str, optional
+        Kind of each plant, for the bivariate analysis.
+
+    Returns
+    -------
+    PlotScales
+    """
+    xy = np.asarray(xy, float).reshape(-1, 2)
+    n = xy.shape[0]
+    area = float(polygon.area)
+    if n < settings.min_points:
+        return _too_few(
+            plot_id,
+            n,
+            area,
+            settings,
+            f"too few plants ({n}) for an analysis across distances; "
+            f"at least {settings.min_points} are needed",
+        )
+    rng = plot_rng(settings.seed, plot_id)
+    warnings: list[str] = []
+    quarter = 0.25 * shorter_side_m(polygon)
+    r_max = default_r_max(polygon, n) if settings.r_max_m is None else settings.r_max_m
+    if settings.r_max_m is not None and r_max > quarter * 1.0001:
+        warnings.append(
+            f"largest distance {_fmt_m(r_max)} m exceeds a quarter of the plot's shorter side "
+            f"({_fmt_m(quarter)} m); estimates at long distances are noisy"
+        )
+    if n < _FEW_PLANTS:
+        warnings.append(f"only {n} plants: only strong patterns can be detected")
+    lam = n / area
+    r = r_grid(r_max, settings.n_r)
+    r_nn = r_grid(min(r_max, 2.5 / np.sqrt(lam)), settings.n_r)
+    want = set(settings.functions) | {settings.test_function}
+    want_dist = bool(want & {"G", "F", "J"})
+    b = boundary_distance(xy, polygon)
+    obs = second_order(xy, polygon, r_max, n_r=settings.n_r, border=True, boundary_m=b)
+    grid = EmptySpaceGrid(polygon) if want_dist else None
+    if want_dist:
+        g_obs = nn_function(xy, polygon, r_nn, boundary_m=b)
+        f_obs = empty_space_function(xy, polygon, r_nn, grid=grid)
+    s = settings.simulations
+    sim_k = np.empty((s, settings.n_r))
+    sim_g = np.empty((s, settings.n_r))
+    sim_G = np.empty((s, settings.n_r))
+    sim_F = np.empty((s, settings.n_r))
+    sims = uniform_in_polygon(polygon, n, size=s, rng=rng)
+    for k in progress(range(s), desc=f"{plot_id} simulations", unit="sim"):
+        so = second_order(sims[k], polygon, r_max, n_r=settings.n_r, border=False)
+        sim_k[k] = so.K_iso_m2
+        sim_g[k] = so.g_iso
+        if want_dist:
+            bk = boundary_distance(sims[k], polygon)
+            sim_G[k] = nn_function(sims[k], polygon, r_nn, boundary_m=bk).km
+            sim_F[k] = empty_space_function(sims[k], polygon, r_nn, grid=grid).km
+    test = settings.global_test
+    curves: dict[str, FunctionCurve] = {}
+    sim_l = np.sqrt(np.maximum(sim_k, 0) / np.pi)
+    if "K" in want:
+        curves["K"] = _curve("K", r, obs.K_iso_m2, np.pi * r**2, sim_k, settings, test)
+    if "L" in want:
+        curves["L"] = _curve("L", r, obs.L_iso_m, r.copy(), sim_l, settings, test)
+        curves["L_minus_r"] = _curve(
+            "L_minus_r", r, obs.L_minus_r_m, np.zeros_like(r), sim_l - r, settings, test
+        )
+    if "g" in want:
+        curves["g"] = _curve("g", r, obs.g_iso, np.ones_like(r), sim_g, settings, test)
+    if want_dist:
+        theo = g_obs.theoretical
+        if "G" in want:
+            curves["G"] = _curve("G", r_nn, g_obs.km, theo, sim_G, settings, test)
+        if "F" in want:
+            curves["F"] = _curve("F", r_nn, f_obs.km, theo, sim_F, settings, test)
+        if "J" in want:
+            curves["J"] = _curve(
+                "J",
+                r_nn,
+                j_function(g_obs.km, f_obs.km),
+                np.ones_like(r_nn),
+                j_function(sim_G, sim_F),
+                settings,
+                test,
+            )
+    # border-corrected versions, observed only (a cross-check of the edge correction)
+    if "K" in want:
+        curves["K_border"] = FunctionCurve("K_border", "m2", r, obs.K_border_m2, np.pi * r**2)
+    if "L" in want:
+        curves["L_border"] = FunctionCurve("L_border", "m", r, obs.L_border_m, r.copy())
+    if "g" in want:
+        curves["g_border"] = FunctionCurve("g_border", "1", r, obs.g_border, np.ones_like(r))
+    if want_dist:
+        if "G" in want:
+            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border, theo)
+        if "F" in want:
+            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border, theo)
+    main = curves[settings.test_function]
+    env = main.envelope
+    clu, reg, verdict = interpret(
+        r,
+        env.above,
+        env.below,
+        env.pvalue,
+        settings.alpha,
+        n=n,
+        r_start=_first(r, env.hi > env.lo),
+        r_start_regular=_first(r, env.lo > 0),
+    )
+    cross, cross_verdict = None, ""
+    if kinds is not None and settings.kinds is not None:
+        cross, cross_verdict, w = _cross(xy, polygon, kinds, settings, r_max, rng)
+        warnings += w
+    return PlotScales(
+        plot_id,
+        n,
+        area,
+        float(r_max),
+        float(obs.bandwidth_m),
+        {k: curves[k] for k in sorted(curves, key=_curve_order)},
+        settings.test_function,
+        test,
+        float(env.pvalue),
+        clu,
+        reg,
+        verdict,
+        s,
+        warnings,
+        cross,
+        cross_verdict,
+    )
+
+
+def _first(r: np.ndarray, mask: np.ndarray) -> float:
+    idx = np.flatnonzero(mask)
+    return float(r[idx[0]]) if idx.size else float(r[0])
+
+
+_ORDER = ["K", "L", "L_minus_r", "g", "G", "F", "J"]
+
+
+def _curve_order(name: str) -> tuple[int, str]:
+    base = name.replace("_border", "")
+    return (_ORDER.index(base) if base in _ORDER else len(_ORDER), name)
+
+
+def _cross(xy, polygon, kinds, settings, r_max, rng):
+    a, b = settings.kinds
+    lab = _kind_labels(kinds)
+    use = (lab == a) | (lab == b)
+    n_a, n_b = int(np.sum(lab == a)), int(np.sum(lab == b))
+    if n_a < 2 or n_b < 2:
+        w = f"bivariate test skipped: {n_a} plants of kind {a!r} and {n_b} of kind {b!r}"
+        return None, "not tested (" + w.split(": ", 1)[1] + ")", [w]
+    res = random_labelling_test(
+        xy[use],
+        lab[use] == b,
+        polygon,
+        r_max_m=r_max,
+        n_r=settings.n_r,
+        simulations=settings.simulations,
+        alpha=settings.alpha,
+        test=settings.global_test,
+        rng=rng,
+        labels=(a, b),
+    )
+    return res, cross_verdict(res, settings.alpha), []
+
+
+def cross_verdict(res: CrossResult, alpha: float) -> str:
+    """Plain words for a random-labelling test of kind B among kind A.
+
+    Parameters
+    ----------
+    res : CrossResult
+    alpha : float
+        Significance level.
+    """
+    a, b = res.label_a, res.label_b
+    r = res.r_m
+    out = []
+    pd = res.D.pvalue
+    if np.isfinite(pd) and pd <= alpha:
+        more = _runs(res.D.above, r)
+        less = _runs(res.D.below, r)
+        if more:
+            out.append(
+                f"{b} plants are more clustered among themselves than {a} plants "
+                f"{_describe(more, r[0])}"
+            )
+        if less:
+            out.append(f"{b} plants are more evenly spread than {a} plants {_describe(less, r[0])}")
+    pl = res.L_cross.pvalue
+    if np.isfinite(pl) and pl <= alpha:
+        near = _runs(res.L_cross.above, r)
+        far = _runs(res.L_cross.below, r)
+        if near:
+            out.append(
+                f"{b} plants lie closer to {a} plants than a random split gives "
+                f"{_describe(near, r[0])}"
+            )
+        if far:
+            out.append(f"{b} and {a} plants are segregated {_describe(far, r[0])}")
+    ps = (
+        f"random labelling p = {format_value(round(float(pd), 4))} (K_BB - K_AA), "
+        f"{format_value(round(float(pl), 4))} (cross-L)"
+    )
+    if not out:
+        return f"{b} plants are placed like a random subset of all plants ({ps})"
+    return "; ".join(out) + f" ({ps})"
+
+
+def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotScales]:
+    """The analysis across scales of every plot, in layer order.
+
+    Parameters
+    ----------
+    inputs : SurveyInputs
+        Points and plots in one metric CRS.
+    settings : ScalesSettings
+
+    Returns
+    -------
+    list of PlotScales
+
+    Raises
+    ------
+    InputError
+        When ``settings.kind_field`` is not an attribute of the points.
+
+    Notes
+    -----
+    Each plot's simulations come from ``np.random.SeedSequence([seed, zlib.crc32(plot_id)])``,
+    so a plot's result does not depend on the other plots in the file.
+    """
+    kinds_all = None
+    if settings.kind_field is not None:
+        attrs = inputs.points.attrs
+        if settings.kind_field not in attrs:
+            raise InputError(
+                f"the points have no field {settings.kind_field!r} (fields: "
+                f"{', '.join(attrs) or 'none'}); check --kind-field"
+            )
+        kinds_all = _kind_labels(attrs[settings.kind_field])
+        if settings.kinds is not None:
+            present = set(kinds_all)
+            missing = [k for k in settings.kinds if k not in present]
+            if missing:
+                raise InputError(
+                    f"field {settings.kind_field!r} has no value {missing[0]!r} (values: "
+                    f"{', '.join(sorted(map(str, present))[:10])}); check --kinds"
+                )
+        else:
+            raise InputError("--kind-field needs --kinds A,B: the two kinds to compare")
+    out = []
+    for i, plot in enumerate(inputs.plots):
+        m = inputs.plot_index == i
+        kinds = None if kinds_all is None else kinds_all[m]
+        out.append(
+            analyse_plot(inputs.plot_points(i), plot.geometry, plot.plot_id, settings, kinds=kinds)
+        )
+    return out
+
+
+# ------------------------------------------------------------------------------- output
+
+SCALES_COLUMNS = [
+    "plot_id",
+    "n",
+    "global_test",
+    "global_p",
+    "clustered_ranges_m",
+    "regular_ranges_m",
+    "verdict",
+    "test_function",
+    "r_max_m",
+    "bandwidth_m",
+    "simulations",
+    "warnings",
+]
+FUNCTION_COLUMNS = [
+    "plot_id",
+    "function",
+    "r_m",
+    "observed",
+    "theoretical",
+    "lo",
+    "hi",
+    "lo_pointwise",
+    "hi_pointwise",
+    "envelope",
+    "unit",
+]
+
+
+def _test_label(test: str, fn: str) -> str:
+    name = {"erl": "extreme rank length", "mad": "maximum absolute deviation"}[test]
+    return f"{name} on {'L(r)' if fn == 'L' else 'g(r)'}"
+
+
+def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
+    """One row per plot for ``scales.csv`` (columns :data:`SCALES_COLUMNS`, then cross)."""
+    rows = []
+    for res in results:
+        row = {
+            "plot_id": res.plot_id,
+            "n": res.n,
+            "global_test": _test_label(res.global_test, res.test_function) if res.curves else "",
+            "global_p": res.global_p,
+            "clustered_ranges_m": format_ranges(res.clustered_ranges_m),
+            "regular_ranges_m": format_ranges(res.regular_ranges_m),
+            "verdict": res.verdict,
+            "test_function": res.test_function,
+            "r_max_m": res.r_max_m,
+            "bandwidth_m": res.bandwidth_m,
+            "simulations": res.simulations,
+            "warnings": "; ".join(res.warnings),
+        }
+        if res.cross is not None or res.cross_verdict:
+            c = res.cross
+            row.update(
+                {
+                    "kind_a": c.label_a if c else "",
+                    "kind_b": c.label_b if c else "",
+                    "n_a": c.n_a if c else None,
+                    "n_b": c.n_b if c else None,
+                    "cross_p": c.L_cross.pvalue if c else None,
+                    "difference_p": c.D.pvalue if c else None,
+                    "cross_verdict": res.cross_verdict,
+                }
+            )
+        rows.append(row)
+    return rows
+
+
+def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, Any]]:
+    e = c.envelope
+    nan = np.full(c.r_m.size, np.nan)
+    lo, hi = (e.lo, e.hi) if e is not None else (nan, nan)
+    lop, hip = (e.lo_pointwise, e.hi_pointwise) if e is not None else (nan, nan)
+    if e is None:
+        label = "none"
+    else:
+        label = f"global {e.test} {100 * (1 - alpha):g}%"
+    theo = c.theoretical
+    return [
+        {
+            "plot_id": plot_id,
+            "function": c.name,
+            "r_m": c.r_m[k],
+            "observed": c.observed[k],
+            "theoretical": theo[k],
+            "lo": lo[k],
+            "hi": hi[k],
+            "lo_pointwise": lop[k],
+            "hi_pointwise": hip[k],
+            "envelope": label,
+            "unit": c.unit,
+        }
+        for k in range(c.r_m.size)
+    ]
+
+
+def function_rows(results: Sequence[PlotScales], alpha: float = 0.05) -> list[dict[str, Any]]:
+    """Long-form rows for ``functions.csv`` (columns :data:`FUNCTION_COLUMNS`).
+
+    The bivariate curves appear as ``L_cross`` (m) and ``D_cross`` = K_BB − K_AA (m²), with
+    the mean of the relabellings as ``theoretical`` for L_cross.
+    """
+    rows: list[dict[str, Any]] = []
+    for res in results:
+        for c in res.curves.values():
+            rows += _curve_rows(res.plot_id, c, alpha)
+        if res.cross is not None:
+            x = res.cross
+            rows += _curve_rows(
+                res.plot_id,
+                FunctionCurve(
+                    "L_cross", "m", x.r_m, x.L_cross.observed, x.L_cross.centre, x.L_cross
+                ),
+                alpha,
+            )
+            rows += _curve_rows(
+                res.plot_id,
+                FunctionCurve("D_cross", "m2", x.r_m, x.D.observed, x.D.centre, x.D),
+                alpha,
+            )
+    return rows
+
+
+def figure_name(plot_id: str) -> str:
+    """File name of a plot's figure: ``scales_<plot id>.png`` with unsafe characters
+    replaced."""
+    safe = re.sub(r"[^A-Za-z0-9._-]+", "_", plot_id).strip("._") or "plot"
+    return f"scales_{safe}.png"
+
+
+def write_scales(
+    outdir: str | os.PathLike, results: Sequence[PlotScales], settings: ScalesSettings
+) -> list[Path]:
+    """Write ``functions.csv``, ``scales.csv``, ``scales.json`` and one figure per plot.
+
+    Parameters
+    ----------
+    outdir : path-like
+        Output folder (created if needed).
+    results : sequence of PlotScales
+    settings : ScalesSettings
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written.
+
+    Raises
+    ------
+    InputError
+        When ``outdir`` exists and is not a folder.
+    """
+    from ecoscan.figures.scales import plot_scales_figure
+
+    out = Path(outdir)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"output path {str(out)!r} is a file; give a folder for -o")
+    rows = scales_rows(results)
+    frows = function_rows(results, settings.alpha)
+    cols = SCALES_COLUMNS + [k for r in rows for k in r if k not in SCALES_COLUMNS]
+    cols = list(dict.fromkeys(cols))
+    paths = [
+        write_csv(out / "functions.csv", frows, FUNCTION_COLUMNS),
+        write_csv(out / "scales.csv", rows, cols),
+        write_json(
+            out / "scales.json",
+            {
+                "settings": settings.to_dict(),
+                "plots": rows,
+                "caution": (
+                    "Automated plant counts need field checks; a significant pattern describes "
+                    "the plot and does not show its cause. Follow local rules and licensed "
+                    "practice before management decisions."
+                ),
+            },
+        ),
+    ]
+    used: set[str] = set()
+    for res in results:
+        if not res.curves:
+            continue
+        name = figure_name(res.plot_id)
+        while name in used:
+            name = name.replace(".png", "_.png")
+        used.add(name)
+        paths.append(plot_scales_figure(res, out / "figures" / name))
+    return paths

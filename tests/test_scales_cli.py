@@ -1,0 +1,209 @@
+"""The analysis across scales end to end: API, settings, files and the command line."""
+
+import csv
+import json
+
+import numpy as np
+import pytest
+import shapely
+from pyproj import CRS
+
+from ecoscan.cli import main
+from ecoscan.errors import InputError
+from ecoscan.inputs import load_points_and_plots
+from ecoscan.points import PointSet
+from ecoscan.scales import ScalesSettings, analyse_scales, interpret, plot_rng
+from ecoscan.stats.csr import uniform_in_polygon
+from ecoscan.vector import Plot, PlotLayer, write_plots, write_points
+
+UTM = CRS.from_epsg(32633)
+X0, Y0 = 500_000.0, 5_000_000.0
+
+
+def _survey(tmp_path):
+    """Invented demo plots: planting rows, clustered regeneration, random scatter, a small plot."""
+    rng = np.random.default_rng(12)
+    plots, parts, kinds = [], [], []
+    rows = shapely.box(X0, Y0, X0 + 30, Y0 + 30)
+    gx, gy = np.meshgrid(np.arange(0.75, 30, 1.5), np.arange(1, 30, 2.0))
+    xy = np.column_stack([X0 + gx.ravel(), Y0 + gy.ravel()]) + rng.normal(0, 0.08, (gx.size, 2))
+    plots.append(Plot("rows", rows))
+    parts.append(xy)
+    kinds += ["live"] * len(xy)
+    regen = shapely.box(X0 + 100, Y0, X0 + 140, Y0 + 40)
+    par = uniform_in_polygon(regen.buffer(3), 14, rng=rng)
+    kids = np.repeat(par, 16, axis=0) + rng.normal(0, 1.2, (224, 2))
+    kids = kids[shapely.contains_xy(regen, kids[:, 0], kids[:, 1])]
+    plots.append(Plot("regen", regen))
+    parts.append(kids)
+    # dead plants: whole clusters died (the ones nearest the west edge)
+    dead = kids[:, 0] < X0 + 115
+    kinds += list(np.where(dead, "dead", "live"))
+    scatter = shapely.Polygon(
+        [(X0 + 200, Y0), (X0 + 240, Y0), (X0 + 240, Y0 + 25), (X0 + 200, Y0 + 35)]
+    )
+    u = uniform_in_polygon(scatter, 200, rng=rng)
+    plots.append(Plot("scatter", scatter))
+    parts.append(u)
+    kinds += ["live"] * 200
+    small = shapely.box(X0 + 300, Y0, X0 + 12 + 300, Y0 + 12)
+    s = uniform_in_polygon(small, 18, rng=rng)
+    plots.append(Plot("small", small))
+    parts.append(s)
+    kinds += ["live"] * 18
+    allxy = np.vstack(parts)
+    pts = PointSet(allxy[:, 0], allxy[:, 1], {"status": np.array(kinds, dtype=object)}, UTM)
+    write_points(pts, tmp_path / "points.csv")
+    write_plots(PlotLayer(plots, UTM), tmp_path / "plots.gpkg")
+    return tmp_path / "points.csv", tmp_path / "plots.gpkg"
+
+
+@pytest.fixture(scope="module")
+def survey(tmp_path_factory):
+    return _survey(tmp_path_factory.mktemp("scales"))
+
+
+@pytest.fixture(scope="module")
+def results(survey):
+    inputs = load_points_and_plots(*survey)
+    settings = ScalesSettings(simulations=39, seed=3)
+    return {r.plot_id: r for r in analyse_scales(inputs, settings)}
+
+
+def test_interpretation_matches_how_each_plot_was_built(results):
+    # synthetic ground truth: rows are regular at short range, regeneration is clustered,
+    # the scatter is random (the test's error rate is 5%, this seed is not a false alarm)
+    rows, regen, scatter = results["rows"], results["regen"], results["scatter"]
+    assert rows.global_p <= 0.05 and rows.regular_ranges_m
+    assert rows.regular_ranges_m[0][0] < 1.0 and rows.verdict.startswith("regular")
+    assert regen.global_p <= 0.05 and regen.clustered_ranges_m
+    assert regen.verdict.startswith("clustered")
+    assert regen.clustered_ranges_m[0][0] < 2.0 < regen.clustered_ranges_m[0][1]
+    assert scatter.global_p > 0.05 and not scatter.clustered_ranges_m
+    assert scatter.verdict.startswith("no significant departure")
+    small = results["small"]
+    assert small.n == 18 and "only 18 plants" in small.verdict
+
+
+def test_each_plot_has_its_own_stream_and_results_repeat(survey, results):
+    # same seed, same numbers; a plot's stream depends on (seed, plot id) only
+    a = plot_rng(3, "regen").uniform(size=3)
+    np.testing.assert_array_equal(a, plot_rng(3, "regen").uniform(size=3))
+    assert not np.array_equal(a, plot_rng(3, "rows").uniform(size=3))
+    inputs = load_points_and_plots(*survey)
+    inputs.layer.plots.reverse()
+    inputs.plot_index = np.where(inputs.plot_index >= 0, 3 - inputs.plot_index, -1)
+    again = {r.plot_id: r for r in analyse_scales(inputs, ScalesSettings(simulations=39, seed=3))}
+    np.testing.assert_array_equal(
+        again["regen"].curves["L"].envelope.lo, results["regen"].curves["L"].envelope.lo
+    )
+
+
+def test_interpret_wording():
+    r = np.arange(1, 21) * 0.5
+    reg = r <= 1.5
+    clu = (r >= 4) & (r <= 8)
+    c, g, text = interpret(r, clu, reg, 0.005, 0.05)
+    assert g == [(0.5, 1.5)] and c == [(4.0, 8.0)]
+    assert text == (
+        "regular (evenly spaced) up to 1.5 m; clustered from 4.0 m to 8.0 m (global test p = 0.005)"
+    )
+    c, g, text = interpret(r, clu, reg, 0.3, 0.05, n=20)
+    assert c == g == [] and "no significant departure" in text and "only 20 plants" in text
+
+
+def test_settings_from_mapping():
+    s = ScalesSettings.from_mapping(
+        {"simulations": 99, "functions": "L,g", "kinds": "live,dead", "kind_field": "status"}
+    )
+    assert s.functions == ("L", "g") and s.kinds == ("live", "dead")
+    assert ScalesSettings.from_mapping(s.to_dict()) == s
+    with pytest.raises(InputError, match="unknown scales setting"):
+        ScalesSettings.from_mapping({"simulation": 99})
+    with pytest.raises(InputError, match="too few"):
+        ScalesSettings.from_mapping({"simulations": 9})
+    with pytest.raises(InputError, match="unknown function"):
+        ScalesSettings.from_mapping({"functions": ["K", "Q"]})
+
+
+def test_cli_writes_the_files(survey, tmp_path, capsys):
+    pts, plots = survey
+    out = tmp_path / "out"
+    rc = main(
+        [
+            "scales",
+            str(pts),
+            "--plots",
+            str(plots),
+            "-o",
+            str(out),
+            "--simulations",
+            "19",
+            "--seed",
+            "2",
+            "--kind-field",
+            "status",
+            "--kinds",
+            "live,dead",
+            "--quiet",
+        ]
+    )
+    assert rc == 0
+    printed = capsys.readouterr().out
+    assert "regen" in printed and "verdict" in printed
+    with open(out / "scales.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["plot_id"] for r in rows] == ["rows", "regen", "scatter", "small"]
+    assert list(rows[0])[:7] == [
+        "plot_id",
+        "n",
+        "global_test",
+        "global_p",
+        "clustered_ranges_m",
+        "regular_ranges_m",
+        "verdict",
+    ]
+    assert "dead" in rows[1]["cross_verdict"]
+    with open(out / "functions.csv") as fh:
+        f = list(csv.DictReader(fh))
+    assert list(f[0])[:7] == ["plot_id", "function", "r_m", "observed", "theoretical", "lo", "hi"]
+    names = {r["function"] for r in f}
+    assert {"K", "L", "L_minus_r", "g", "G", "F", "J", "L_cross", "D_cross"} <= names
+    # K theoretical is πr² (Ripley 1977)
+    k = next(r for r in f if r["function"] == "K")
+    assert float(k["theoretical"]) == pytest.approx(np.pi * float(k["r_m"]) ** 2, rel=1e-5)
+    meta = json.loads((out / "scales.json").read_text())
+    assert meta["settings"]["simulations"] == 19
+    assert sorted(p.name for p in (out / "figures").iterdir()) == [
+        "scales_regen.png",
+        "scales_rows.png",
+        "scales_scatter.png",
+        "scales_small.png",
+    ]
+
+
+def test_cli_bad_input_leaves_no_files(survey, tmp_path, capsys):
+    pts, plots = survey
+    out = tmp_path / "bad"
+    rc = main(
+        [
+            "scales",
+            str(pts),
+            "--plots",
+            str(plots),
+            "-o",
+            str(out),
+            "--kind-field",
+            "status",
+            "--kinds",
+            "live,sick",
+            "--simulations",
+            "19",
+        ]
+    )
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "sick" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()
+    rc = main(["scales", str(pts), "--plots", str(plots), "-o", str(out), "--simulations", "5"])
+    assert rc == 2 and not out.exists()
