@@ -26,7 +26,14 @@ from ecoscan.errors import InputError
 from ecoscan.inputs import assign_plots
 from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
-from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_difference
+from ecoscan.stats.compare_r import (
+    RChangeTest,
+    combine_r_change,
+    plot_nn,
+    pooled_clark_evans,
+    r_change_test,
+    r_difference,
+)
 from ecoscan.stats.matching import match_points
 from ecoscan.stats.nearest import nn_distances
 from ecoscan.stats.rates import paired_change_test, wilson_interval
@@ -68,6 +75,8 @@ CHANGE_COLUMNS = (
     "R_change_se",
     "z_R_change",
     "p_R_change",
+    "R_later_null",
+    "p_R_change_mc",
     "warnings",
 )
 
@@ -290,6 +299,7 @@ def _row(
     status: np.ndarray,
     r_earlier,
     r_later,
+    mc: RChangeTest | None = None,
 ) -> dict[str, Any]:
     persisting = int(np.sum(status == "persisting"))
     lost = int(np.sum(status == "lost"))
@@ -330,6 +340,8 @@ def _row(
         "R_change_se": diff.se,
         "z_R_change": diff.z,
         "p_R_change": diff.pvalue,
+        "R_later_null": float("nan") if mc is None else mc.expected,
+        "p_R_change_mc": float("nan") if mc is None else mc.pvalue,
         "warnings": "; ".join(warn),
     }
 
@@ -344,6 +356,7 @@ def detect_change(
     *,
     plots: PlotLayer | None = None,
     estimate_shift: bool = True,
+    simulations: int = 199,
     seed: int | np.random.Generator | None = 1,
 ) -> ChangeResult:
     """Follow plants between two survey dates: which persist, which were lost, which are new.
@@ -364,8 +377,11 @@ def detect_change(
     estimate_shift : bool
         Estimate and remove an overall co-registration shift first
         (:func:`ecoscan.stats.shift.estimate_shift`).
+    simulations : int
+        Monte Carlo simulations for the test of a change in R beyond random losses and
+        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it.
     seed : int or numpy.random.Generator
-        Seed (used by the shift vote on very large surveys).
+        Seed for the simulations and the shift vote; same seed, same numbers.
 
     Returns
     -------
@@ -382,8 +398,9 @@ def detect_change(
     :func:`ecoscan.stats.matching.match_points`). Per plot: survival = persisting / n_earlier
     with a Wilson (1927) 95 % interval; recruitment = new / n_earlier; the change in count
     is tested with the exact conditional test on lost vs new (McNemar 1947); the change in
-    Clark–Evans R (Clark & Evans 1954) with a z test that treats the dates as independent,
-    which is conservative when most plants persist.
+    Clark–Evans R (Clark & Evans 1954) with a z test that treats the dates as independent
+    (conservative when most plants persist) and with a Monte Carlo test against random
+    mortality and random recruitment that holds the earlier pattern fixed.
     """
     tol = float(tolerance_m) if tolerance_m is not None else float("nan")
     if not (math.isfinite(tol) and tol > 0):
@@ -391,6 +408,8 @@ def detect_change(
             f"tolerance {tolerance_m} m is not a positive distance; give --tolerance in metres, "
             "a little above the positional error between the two surveys (e.g. 0.5)"
         )
+    if int(simulations) < 0:
+        raise InputError(f"--simulations {simulations} is negative; use 0 (skip) or e.g. 199")
     if earlier.n == 0 or later.n == 0:
         which = "earlier" if earlier.n == 0 else "later"
         raise InputError(f"the {which} survey has no plants; check the input file")
@@ -495,16 +514,28 @@ def detect_change(
 
     b_ref = np.column_stack([xl, yl])
     a_ref = np.column_stack([xe, ye])
+    has_e, has_l = np.isfinite(xe), np.isfinite(xl)
+    survived = status == "persisting"
+    gen = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
+    nsim = int(simulations)
+
+    def mc(sel: np.ndarray, geom: shapely.Geometry) -> RChangeTest | None:
+        if nsim == 0:
+            return None
+        data = [(a_ref[sel & has_e], survived[sel & has_e], b_ref[sel & has_l], geom)]
+        return r_change_test(data, simulations=nsim, rng=gen)
+
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
-        e_xys, l_xys = [], []
+        e_xys, l_xys, tests = [], [], []
         for p in plot_list:
             sel = plot_id == p.plot_id
-            e_xys.append(a_ref[sel & np.isfinite(xe)])
-            l_xys.append(b_ref[sel & np.isfinite(xl)])
+            e_xys.append(a_ref[sel & has_e])
+            l_xys.append(b_ref[sel & has_l])
+            tests.append(mc(sel, p.geometry))
             r1 = _group_r([e_xys[-1]], [p], None)
             r2 = _group_r([l_xys[-1]], [p], None)
-            rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2))
+            rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
         inside = plot_id != ""
         overall = _row(
             OVERALL_ID,
@@ -512,6 +543,7 @@ def detect_change(
             status[inside],
             _group_r(e_xys, plot_list, None),
             _group_r(l_xys, plot_list, None),
+            None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
         )
     elif window is None:  # plot ids from attributes, no areas
         nanr = pooled_clark_evans([])
@@ -519,13 +551,14 @@ def detect_change(
             rows.append(_row(pid, float("nan"), status[plot_id == pid], nanr, nanr))
         overall = _row(OVERALL_ID, float("nan"), status, nanr, nanr)
     else:
-        sel_e, sel_l = np.isfinite(xe), np.isfinite(xl)
+        everything = np.ones(total, bool)
         overall = _row(
             OVERALL_ID,
             float(window.area),
             status,
-            _group_r([a_ref[sel_e]], None, window),
-            _group_r([b_ref[sel_l]], None, window),
+            _group_r([a_ref[has_e]], None, window),
+            _group_r([b_ref[has_l]], None, window),
+            mc(everything, window),
         )
     missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]
     if missing:
@@ -540,7 +573,10 @@ def detect_change(
         "matching": "optimal one-to-one assignment within the tolerance (Kuhn 1955)",
         "survival_interval": "Wilson (1927) score interval, 95%",
         "count_change_test": "exact conditional test of lost vs new (McNemar 1947)",
-        "R_change_test": "z test, SE from Clark & Evans (1954), dates taken as independent",
+        "R_change_test": "z test, SE from Clark & Evans (1954), dates taken as independent; "
+        "and Monte Carlo test against random losses and uniform recruits (Besag & Diggle 1977)",
+        "simulations": nsim,
+        "seed": seed if isinstance(seed, (int, type(None))) else "generator",
         "typical_spacing_m": spacing,
         "crs": crs_label(crs),
     }

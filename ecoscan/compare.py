@@ -104,6 +104,12 @@ PAIR_COLUMNS = (
     "R_diff_se",
     "z_R_diff",
     "p_R_diff",
+    "R_donnelly_a",
+    "R_donnelly_b",
+    "R_donnelly_diff",
+    "R_donnelly_diff_se",
+    "z_R_donnelly_diff",
+    "p_R_donnelly_diff",
     "p_R_perm",
     "perm_arrangements",
     "perm_exact",
@@ -113,13 +119,14 @@ PAIR_COLUMNS = (
     "p_ks",
     "p_density_holm",
     "p_R_diff_holm",
+    "p_R_donnelly_diff_holm",
     "p_R_perm_holm",
     "p_mw_holm",
     "p_ks_holm",
     "warnings",
 )
 
-_P_COLUMNS = ("p_density", "p_R_diff", "p_R_perm", "p_mw", "p_ks")
+_P_COLUMNS = ("p_density", "p_R_diff", "p_R_donnelly_diff", "p_R_perm", "p_mw", "p_ks")
 
 
 # ------------------------------------------------------------------------------ reading
@@ -391,6 +398,7 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
     warn: list[str] = []
     rate = poisson_rate_test(a.n, a.area_m2, b.n, b.area_m2)
     diff = r_difference(a.r, b.r)
+    diff_d = r_difference(a.r, b.r, edge_corrected=True)
     perm = r_permutation_test(
         [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
     )
@@ -437,6 +445,12 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         "R_diff_se": diff.se,
         "z_R_diff": diff.z,
         "p_R_diff": diff.pvalue,
+        "R_donnelly_a": a.r.statistic_donnelly,
+        "R_donnelly_b": b.r.statistic_donnelly,
+        "R_donnelly_diff": diff_d.statistic,
+        "R_donnelly_diff_se": diff_d.se,
+        "z_R_donnelly_diff": diff_d.z,
+        "p_R_donnelly_diff": diff_d.pvalue,
         "p_R_perm": perm.pvalue,
         "perm_arrangements": perm.arrangements,
         "perm_exact": perm.exact,

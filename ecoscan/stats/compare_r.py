@@ -30,7 +30,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import stats as sps
@@ -41,10 +41,13 @@ from ecoscan.stats.nearest import CE_SE_CONSTANT, nn_distances
 __all__ = [
     "PlotNN",
     "PooledR",
+    "RChangeTest",
     "RDifference",
     "RPermutationTest",
+    "combine_r_change",
     "plot_nn",
     "pooled_clark_evans",
+    "r_change_test",
     "r_difference",
     "r_permutation_test",
 ]
@@ -214,13 +217,16 @@ class RDifference:
     pvalue: float
 
 
-def r_difference(a: PooledR, b: PooledR) -> RDifference:
+def r_difference(a: PooledR, b: PooledR, *, edge_corrected: bool = False) -> RDifference:
     """z test of the difference between two independent Clark–Evans R values.
 
     Parameters
     ----------
     a, b : PooledR
         The two groups' R (from :func:`pooled_clark_evans`).
+    edge_corrected : bool
+        False: Clark & Evans (1954) R and SE. True: Donnelly's (1978) edge-corrected R and
+        SE (NaN when a group lacks plot perimeters).
 
     Returns
     -------
@@ -229,13 +235,21 @@ def r_difference(a: PooledR, b: PooledR) -> RDifference:
 
     Notes
     -----
-    Uses the CSR standard errors of Clark & Evans (1954), so it is exact in its
-    assumptions only near R = 1; the permutation test (:func:`r_permutation_test`) makes no
-    such assumption. For two dates of the same plants the groups are not independent and this
-    test is conservative (the shared plants make the two R values positively correlated).
+    Both versions use standard errors under complete spatial randomness, so they are exact
+    in their assumptions only near R = 1; the permutation test (:func:`r_permutation_test`)
+    makes no such assumption. Without edge correction, small plots make the SE too small
+    (plants near the boundary have no neighbours outside), so the uncorrected test rejects
+    too often in plots of a few hundred plants; the Donnelly version holds its level (see
+    docs/methods-compare.md for measured rates). For two dates of the same plants the
+    groups are not independent and either test is conservative (the shared plants make the
+    two R values positively correlated).
     """
-    d = a.statistic - b.statistic
-    se = math.hypot(a.se, b.se)
+    if edge_corrected:
+        ra, rb, sa, sb = a.statistic_donnelly, b.statistic_donnelly, a.se_donnelly, b.se_donnelly
+    else:
+        ra, rb, sa, sb = a.statistic, b.statistic, a.se, b.se
+    d = ra - rb
+    se = math.hypot(sa, sb)
     if not (np.isfinite(d) and se > 0):
         nan = float("nan")
         return RDifference(float(d) if np.isfinite(d) else nan, nan, nan, nan)
@@ -352,3 +366,149 @@ def r_permutation_test(
     return RPermutationTest(
         obs, (1 + k) / (permutations + 1), permutations, False, 1.0 / (permutations + 1)
     )
+
+
+@dataclass(frozen=True)
+class RChangeTest:
+    """Monte Carlo test that R changed by more than random losses and recruits explain.
+
+    Attributes
+    ----------
+    statistic : float
+        Observed pooled R on the later date.
+    expected : float
+        Mean pooled R of the later date under the null (random losses, random recruits).
+    pvalue : float
+        Two-sided Monte Carlo p-value.
+    simulations : int
+        Number of simulated later patterns.
+    sum_nn_m : float
+        Observed sum of the later date's nearest-neighbour distances, metres (for pooling).
+    expected_sum_m : float
+        The CSR expectation of that sum, Σ ½ √(A n), metres.
+    simulated_sums_m : numpy.ndarray
+        The simulated sums, one per simulation, metres.
+    """
+
+    statistic: float
+    expected: float
+    pvalue: float
+    simulations: int
+    sum_nn_m: float = 0.0
+    expected_sum_m: float = 0.0
+    simulated_sums_m: np.ndarray = field(default_factory=lambda: np.empty(0))
+
+
+def _nn_sums_batched(patterns: np.ndarray, spacing: float) -> np.ndarray:
+    """Sum of nearest-neighbour distances of each of k patterns (k, n, 2) with one KD-tree.
+
+    The patterns are laid side by side, ``spacing`` apart (more than any within-pattern
+    distance), so each point's nearest neighbour is always in its own pattern.
+    """
+    k, n, _ = patterns.shape
+    if n < 2:
+        return np.zeros(k)
+    shifted = patterns.copy()
+    shifted[:, :, 0] += (np.arange(k) * spacing)[:, None]
+    d = nn_distances(shifted.reshape(-1, 2))
+    return d.reshape(k, n).sum(axis=1)
+
+
+def _combine(parts: Sequence[RChangeTest], nsim: int) -> RChangeTest:
+    nan = float("nan")
+    e_tot = float(sum(p.expected_sum_m for p in parts))
+    if e_tot == 0 or nsim < 1:
+        return RChangeTest(nan, nan, nan, nsim)
+    s_obs = float(sum(p.sum_nn_m for p in parts))
+    sims = [p.simulated_sums_m for p in parts if p.simulated_sums_m.size]
+    s_sim = np.sum(sims, axis=0) if sims else np.zeros(nsim)
+    r_obs = s_obs / e_tot
+    r_sim = s_sim / e_tot
+    eps = 1e-12 * max(1.0, abs(r_obs))
+    lo = 1 + int(np.sum(r_sim <= r_obs + eps))
+    hi = 1 + int(np.sum(r_sim >= r_obs - eps))
+    p = min(1.0, 2.0 * min(lo, hi) / (nsim + 1))
+    return RChangeTest(float(r_obs), float(r_sim.mean()), float(p), nsim, s_obs, e_tot, s_sim)
+
+
+def combine_r_change(tests: Sequence[RChangeTest]) -> RChangeTest:
+    """Pool per-plot :class:`RChangeTest` results (same number of simulations) into one test.
+
+    Parameters
+    ----------
+    tests : sequence of RChangeTest
+        Per-plot results of :func:`r_change_test`, each run with the same ``simulations``.
+
+    Returns
+    -------
+    RChangeTest
+        The test of the pooled R over the plots (simulation k of every plot forms pooled
+        simulation k, as the plots are simulated independently).
+    """
+    nsims = {t.simulations for t in tests}
+    if len(nsims) > 1:
+        raise ValueError("all tests must use the same number of simulations")
+    return _combine(tests, nsims.pop() if nsims else 0)
+
+
+def r_change_test(
+    plots: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray, object]],
+    *,
+    simulations: int = 199,
+    rng: int | np.random.Generator | None = 1,
+) -> RChangeTest:
+    """Did R change between two dates more than random mortality and recruitment would make it?
+
+    Parameters
+    ----------
+    plots : sequence of (earlier_xy, survived, later_xy, polygon)
+        Per plot: the earlier plants (n, 2) in metres, a boolean mask of those that persist,
+        the later plants (m, 2), and the plot polygon (shapely, metres).
+    simulations : int
+        Simulated later patterns.
+    rng : int or numpy.random.Generator
+        Seed; same seed, same p-value.
+
+    Returns
+    -------
+    RChangeTest
+
+    Notes
+    -----
+    Null hypothesis: the plants lost are a random subset of the earlier plants (as many as
+    were lost) and the recruits fall uniformly at random in the plot (as many as appeared),
+    independently of the survivors. Each simulation keeps the earlier pattern, removes a
+    random set of plants of the observed size, adds uniform recruits in the exact plot
+    polygon (:func:`ecoscan.stats.csr.uniform_in_polygon`) and computes the later date's R
+    pooled over the plots as in :func:`pooled_clark_evans`. The p-value is the two-sided rank
+    p-value 2 · min(1 + #{R* ≤ R}, 1 + #{R* ≥ R}) / (N + 1), capped at 1 (Besag & Diggle
+    1977, Applied Statistics 26: 327–333). Because the earlier pattern is held fixed, the
+    strong dependence between the two dates (the survivors are the same plants) is respected,
+    which a z test of two independent R values ignores. Density-dependent (non-random)
+    mortality, e.g. self-thinning that spares evenly spaced plants, shows as R_later above
+    its null expectation.
+    """
+    from ecoscan.stats.csr import uniform_in_polygon
+
+    gen = as_rng(rng)
+    nsim = int(simulations)
+    parts: list[RChangeTest] = []
+    for exy, survived, lxy, poly in plots:
+        exy = np.asarray(exy, float).reshape(-1, 2)
+        lxy = np.asarray(lxy, float).reshape(-1, 2)
+        survived = np.asarray(survived, bool)
+        m = lxy.shape[0]
+        if m < 2 or nsim < 1:
+            continue
+        area = float(poly.area)
+        n_keep = int(survived.sum())
+        n_new = m - n_keep
+        recruits = uniform_in_polygon(poly, n_new, size=nsim, rng=gen)
+        order = np.argsort(gen.uniform(size=(nsim, exy.shape[0])), axis=1)[:, :n_keep]
+        patterns = np.concatenate([exy[order], recruits], axis=1)
+        x0, y0, x1, y1 = poly.bounds
+        sims = _nn_sums_batched(patterns, 2.0 * math.hypot(x1 - x0, y1 - y0) + 1.0)
+        obs = float(nn_distances(lxy).sum())
+        nan = float("nan")
+        parts.append(RChangeTest(nan, nan, nan, nsim, obs, 0.5 * math.sqrt(area * m), sims))
+    return _combine(parts, nsim)
