@@ -37,7 +37,7 @@ TABLE_COLUMNS = (
     "density_change_per_ha",
     "R_earlier",
     "R_later",
-    "p_R_change",
+    "p_R_change_mc",
 )
 TABLE_HEADERS = (
     "plot",
@@ -76,6 +76,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="do not estimate and remove a shift between the two surveys",
     )
+    p.add_argument(
+        "--simulations",
+        type=int,
+        default=199,
+        metavar="N",
+        help="Monte Carlo simulations for the test of a change in R beyond random losses and "
+        "recruits (default 199; 0 skips it)",
+    )
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
 
 
@@ -97,6 +105,7 @@ def run(args: argparse.Namespace) -> int:
         args.tolerance,
         plots=plots,
         estimate_shift=not args.no_shift,
+        simulations=args.simulations,
         seed=args.seed,
     )
     paths = write_change(args.out, result)
