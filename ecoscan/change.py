@@ -85,8 +85,8 @@ PLANT_COLUMNS = (
     "plant_id",
     "status",
     "plot_id",
-    "x_m",
-    "y_m",
+    "x",
+    "y",
     "x_earlier_m",
     "y_earlier_m",
     "x_later_m",
@@ -116,7 +116,8 @@ class ChangeResult:
     status : numpy.ndarray of str
         Per plant: ``persisting``, ``lost`` or ``new``.
     x_m, y_m : numpy.ndarray
-        Plant positions in the reference (earlier) frame, metres.
+        Plant positions in the reference (earlier) frame, metres (columns ``x``, ``y`` of
+        ``plants.csv``, so that the file reads back as points with its ``plants.prj``).
     x_earlier_m, y_earlier_m, x_later_m, y_later_m : numpy.ndarray
         Positions in each survey's own coordinates (NaN where the plant is absent).
     offset_m : numpy.ndarray
@@ -172,8 +173,8 @@ class ChangeResult:
         cols = {
             "status": self.status,
             "plot_id": self.plot_id,
-            "x_m": self.x_m,
-            "y_m": self.y_m,
+            "x": self.x_m,
+            "y": self.y_m,
             "x_earlier_m": self.x_earlier_m,
             "y_earlier_m": self.y_earlier_m,
             "x_later_m": self.x_later_m,
@@ -681,8 +682,13 @@ def write_change(outdir: str | os.PathLike, result: ChangeResult) -> list[Path]:
     from ecoscan.figures.change import change_map
 
     out = Path(outdir)
+    coords = ("x", "y", "x_earlier_m", "y_earlier_m", "x_later_m", "y_later_m")
+    rows = result.plant_rows()
+    for r in rows:  # map coordinates to the millimetre, as ecoscan.vector.write_points does
+        for c in coords:
+            r[c] = f"{r[c]:.3f}" if np.isfinite(r[c]) else ""
     paths = [
-        write_csv(out / "plants.csv", result.plant_rows(), PLANT_COLUMNS),
+        write_csv(out / "plants.csv", rows, PLANT_COLUMNS),
         write_points(result.plants_pointset(), out / "plants.gpkg", layer="plants"),
         write_csv(out / "change.csv", change_rows(result), CHANGE_COLUMNS),
         write_json(out / "change.json", change_summary(result)),

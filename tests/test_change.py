@@ -209,6 +209,10 @@ def test_write_change_files(tmp_path):
     lines = (tmp_path / "out" / "plants.csv").read_text().splitlines()
     assert lines[0].split(",") == list(PLANT_COLUMNS)
     assert len(lines) - 1 == r.status.size
+    csv_back = read_points(tmp_path / "out" / "plants.csv")  # x, y + plants.prj sidecar
+    assert csv_back.crs == UTM33
+    np.testing.assert_allclose(csv_back.x, r.x_m, atol=6e-4)
+    np.testing.assert_allclose(csv_back.attrs["x_later_m"], r.x_later_m, atol=6e-4)
     back = read_points(tmp_path / "out" / "plants.gpkg")
     assert back.n == r.status.size and back.crs == UTM33
     assert int(np.sum(back.attrs["status"] == "lost")) == is_lost.sum()

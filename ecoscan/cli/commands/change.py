@@ -56,6 +56,19 @@ TABLE_HEADERS = (
 )
 
 
+def _show_p(rows: list[dict], columns) -> list[dict]:
+    """Copies of ``rows`` with p-values below 0.001 shown as '<0.001'."""
+    out = []
+    for r in rows:
+        r = dict(r)
+        for c in columns:
+            v = r.get(c)
+            if c.startswith("p") and isinstance(v, float) and v < 0.001:
+                r[c] = "<0.001"
+        out.append(r)
+    return out
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan change``."""
     p.add_argument("earlier", metavar="EARLIER", help="plant points of the earlier date")
@@ -119,7 +132,8 @@ def run(args: argparse.Namespace) -> int:
         f"{c['persisting']} persisting, {c['lost']} lost, {c['new']} new "
         f"(tolerance {result.tolerance_m:g} m)"
     )
-    print(format_table(change_rows(result), TABLE_COLUMNS, headers=TABLE_HEADERS))
+    rows = _show_p(change_rows(result), TABLE_COLUMNS)
+    print(format_table(rows, TABLE_COLUMNS, headers=TABLE_HEADERS))
     print("automated counts: check lost and new plants in the field before acting on them")
     if not args.quiet:
         print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)

@@ -56,6 +56,19 @@ GROUP_HEADERS = (
 )
 
 
+def _show_p(rows: list[dict], columns) -> list[dict]:
+    """Copies of ``rows`` with p-values below 0.001 shown as '<0.001'."""
+    out = []
+    for r in rows:
+        r = dict(r)
+        for c in columns:
+            v = r.get(c)
+            if c.startswith("p") and isinstance(v, float) and v < 0.001:
+                r[c] = "<0.001"
+        out.append(r)
+    return out
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan compare``."""
     p.add_argument(
@@ -103,8 +116,8 @@ def run(args: argparse.Namespace) -> int:
         "density_diff_per_ha",
         f"p_density{sfx}",
         "R_diff",
-        "R_diff_se",
-        f"p_R_diff{sfx}",
+        "R_donnelly_diff",
+        f"p_R_donnelly_diff{sfx}",
         f"p_R_perm{sfx}",
         f"p_mw{sfx}",
         f"p_ks{sfx}",
@@ -115,13 +128,13 @@ def run(args: argparse.Namespace) -> int:
         "Δ plants/ha",
         "p density",
         "ΔR",
-        "SE ΔR",
+        "ΔR edge-corr.",
         "p ΔR (z)",
-        "p ΔR (perm)",
+        "p ΔR (perm.)",
         "p MW",
         "p KS",
     )
-    print(format_table(comparison_rows(result), cols, headers=heads))
+    print(format_table(_show_p(comparison_rows(result), cols), cols, headers=heads))
     if adj:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
     if not args.quiet:
