@@ -1,0 +1,709 @@
+"""Change between two surveys of the same plants: persisting, lost and new plants per plot.
+
+The earlier survey is the reference frame: plot membership and the map position of every
+plant are taken in the earlier survey's coordinates (a recruit's position is its later
+position minus the estimated shift). Both surveys' own coordinates are kept in the plants
+table.
+
+Automated counts need field checks before they drive management decisions: a "lost" plant
+may be one the detector missed, a "new" one a weed or a double detection.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import shapely
+from pyproj import CRS
+
+from ecoscan.crs import crs_label, transform_xy
+from ecoscan.errors import InputError
+from ecoscan.inputs import assign_plots
+from ecoscan.outputs import write_csv, write_json, write_text
+from ecoscan.points import PointSet
+from ecoscan.stats.compare_r import (
+    RChangeTest,
+    combine_r_change,
+    plot_nn,
+    pooled_clark_evans,
+    r_change_test,
+    r_difference,
+)
+from ecoscan.stats.matching import match_points
+from ecoscan.stats.nearest import nn_distances
+from ecoscan.stats.rates import paired_change_test, wilson_interval
+from ecoscan.stats.shift import ShiftResult
+from ecoscan.stats.shift import estimate_shift as _estimate_shift
+from ecoscan.vector import Plot, PlotLayer, reproject_geometries, write_plots, write_points
+
+__all__ = [
+    "CHANGE_COLUMNS",
+    "PLANT_COLUMNS",
+    "ChangeResult",
+    "change_rows",
+    "change_summary",
+    "detect_change",
+    "write_change",
+]
+
+#: Columns of ``change.csv`` in order.
+CHANGE_COLUMNS = (
+    "plot_id",
+    "area_m2",
+    "n_earlier",
+    "n_later",
+    "persisting",
+    "lost",
+    "new",
+    "survival",
+    "survival_low95",
+    "survival_high95",
+    "mortality",
+    "recruitment",
+    "density_earlier_per_ha",
+    "density_later_per_ha",
+    "density_change_per_ha",
+    "p_count_change",
+    "R_earlier",
+    "R_later",
+    "R_change",
+    "R_change_se",
+    "z_R_change",
+    "p_R_change",
+    "R_later_null",
+    "p_R_change_mc",
+    "warnings",
+)
+
+#: Columns of ``plants.csv`` in order.
+PLANT_COLUMNS = (
+    "plant_id",
+    "status",
+    "plot_id",
+    "x",
+    "y",
+    "x_earlier_m",
+    "y_earlier_m",
+    "x_later_m",
+    "y_later_m",
+    "offset_m",
+    "earlier_row",
+    "later_row",
+)
+
+STATUSES = ("persisting", "lost", "new")
+OVERALL_ID = "all"
+MIN_SHIFT_PAIRS = 10
+
+
+@dataclass
+class ChangeResult:
+    """Everything :func:`detect_change` found.
+
+    Attributes
+    ----------
+    shift_x_m, shift_y_m : float
+        The shift removed before matching: later ≈ earlier + shift (0 when not estimated).
+    shift : ShiftResult or None
+        Details of the estimate (None when ``estimate_shift=False``).
+    tolerance_m : float
+        Matching tolerance, metres.
+    status : numpy.ndarray of str
+        Per plant: ``persisting``, ``lost`` or ``new``.
+    x_m, y_m : numpy.ndarray
+        Plant positions in the reference (earlier) frame, metres (columns ``x``, ``y`` of
+        ``plants.csv``, so that the file reads back as points with its ``plants.prj``).
+    x_earlier_m, y_earlier_m, x_later_m, y_later_m : numpy.ndarray
+        Positions in each survey's own coordinates (NaN where the plant is absent).
+    offset_m : numpy.ndarray
+        Distance between a persisting plant's two positions after removing the shift.
+    earlier_row, later_row : numpy.ndarray of float
+        1-based index of the plant in each input (NaN where absent).
+    plot_id : numpy.ndarray of str
+        Plot holding each plant ('' outside every plot).
+    plots : list of dict
+        One row per plot (columns :data:`CHANGE_COLUMNS`).
+    overall : dict
+        The same over all plots (``plot_id`` = ``all``).
+    crs : pyproj.CRS or None
+        CRS of ``x_m``, ``y_m``.
+    layer : PlotLayer or None
+        The plots used (in ``crs``).
+    notes, warnings : list of str
+        What was converted or assumed; what the user should check.
+    parameters : dict
+        Parameters of the run.
+    """
+
+    shift_x_m: float
+    shift_y_m: float
+    shift: ShiftResult | None
+    tolerance_m: float
+    status: np.ndarray
+    x_m: np.ndarray
+    y_m: np.ndarray
+    x_earlier_m: np.ndarray
+    y_earlier_m: np.ndarray
+    x_later_m: np.ndarray
+    y_later_m: np.ndarray
+    offset_m: np.ndarray
+    earlier_row: np.ndarray
+    later_row: np.ndarray
+    plot_id: np.ndarray
+    plots: list[dict[str, Any]]
+    overall: dict[str, Any]
+    crs: CRS | None
+    layer: PlotLayer | None
+    notes: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    parameters: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def counts(self) -> dict[str, int]:
+        """Number of plants per status."""
+        return {s: int(np.sum(self.status == s)) for s in STATUSES}
+
+    def plant_rows(self) -> list[dict[str, Any]]:
+        """The plants table as records (columns :data:`PLANT_COLUMNS`)."""
+        cols = {
+            "status": self.status,
+            "plot_id": self.plot_id,
+            "x": self.x_m,
+            "y": self.y_m,
+            "x_earlier_m": self.x_earlier_m,
+            "y_earlier_m": self.y_earlier_m,
+            "x_later_m": self.x_later_m,
+            "y_later_m": self.y_later_m,
+            "offset_m": self.offset_m,
+            "earlier_row": self.earlier_row,
+            "later_row": self.later_row,
+        }
+        rows = []
+        for i in range(self.status.size):
+            r: dict[str, Any] = {"plant_id": i + 1}
+            for k, v in cols.items():
+                val = v[i]
+                if k.endswith("_row"):
+                    val = None if not np.isfinite(val) else int(val)
+                r[k] = val
+            rows.append(r)
+        return rows
+
+    def plants_pointset(self) -> PointSet:
+        """The plants as a :class:`PointSet` at their reference-frame positions."""
+        attrs = {
+            "plant_id": np.arange(1, self.status.size + 1, dtype=float),
+            "status": self.status.astype(object),
+            "plot_id": self.plot_id.astype(object),
+            "x_earlier_m": self.x_earlier_m,
+            "y_earlier_m": self.y_earlier_m,
+            "x_later_m": self.x_later_m,
+            "y_later_m": self.y_later_m,
+            "offset_m": self.offset_m,
+            "earlier_row": self.earlier_row,
+            "later_row": self.later_row,
+        }
+        return PointSet(self.x_m, self.y_m, attrs, self.crs)
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def _id_text(v: Any) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, (float, np.floating)):
+        if math.isnan(float(v)):
+            return ""
+        if float(v).is_integer():
+            return str(int(v))
+    return str(v).strip()
+
+
+def _align_crs(earlier: PointSet, later: PointSet, notes: list[str]):
+    lx, ly = later.x, later.y
+    crs = earlier.crs
+    if earlier.crs is not None and later.crs is not None and earlier.crs != later.crs:
+        lx, ly = transform_xy(later.x, later.y, later.crs, earlier.crs)
+        notes.append(
+            f"the later survey in {crs_label(later.crs)} was reprojected to the earlier "
+            f"survey's {crs_label(earlier.crs)}"
+        )
+    elif earlier.crs is None and later.crs is not None:
+        crs = later.crs
+        notes.append(f"the earlier survey has no CRS; taken to be {crs_label(later.crs)}")
+    elif later.crs is None and earlier.crs is not None:
+        notes.append(f"the later survey has no CRS; taken to be {crs_label(earlier.crs)}")
+    return np.asarray(lx, float), np.asarray(ly, float), crs
+
+
+def _align_plots(plots: PlotLayer, crs: CRS | None, notes: list[str]) -> PlotLayer:
+    if plots.crs is None or crs is None or plots.crs == crs:
+        return plots
+    geoms = reproject_geometries(
+        np.array([p.geometry for p in plots.plots], dtype=object), plots.crs, crs
+    )
+    notes.append(f"plots in {crs_label(plots.crs)} were reprojected to {crs_label(crs)}")
+    new = [Plot(p.plot_id, g, p.attrs) for p, g in zip(plots.plots, geoms, strict=True)]
+    return PlotLayer(new, crs, list(plots.notes))
+
+
+def _check_overlap(a: np.ndarray, b: np.ndarray, tol: float, warnings: list[str]) -> None:
+    ax0, ay0 = a.min(axis=0) - tol
+    ax1, ay1 = a.max(axis=0) + tol
+    bx0, by0 = b.min(axis=0)
+    bx1, by1 = b.max(axis=0)
+    if ax1 < bx0 or bx1 < ax0 or ay1 < by0 or by1 < ay0:
+        raise InputError(
+            f"the two surveys do not overlap (earlier spans x {ax0 + tol:.1f}–{ax1 - tol:.1f}, "
+            f"y {ay0 + tol:.1f}–{ay1 - tol:.1f}; later x {bx0:.1f}–{bx1:.1f}, "
+            f"y {by0:.1f}–{by1:.1f}); check that both files cover the same site and CRS"
+        )
+    ix = max(0.0, min(ax1 - tol, bx1) - max(ax0 + tol, bx0))
+    iy = max(0.0, min(ay1 - tol, by1) - max(ay0 + tol, by0))
+    ea = max((ax1 - ax0 - 2 * tol) * (ay1 - ay0 - 2 * tol), 1e-12)
+    eb = max((bx1 - bx0) * (by1 - by0), 1e-12)
+    share = ix * iy / min(ea, eb)
+    if share < 0.5:
+        warnings.append(
+            f"the two surveys' extents overlap by only {100 * share:.0f}% of the smaller one; "
+            "plants outside the overlap show as lost or new although they were simply not "
+            "surveyed twice: clip both surveys to the common area or give --plots inside it"
+        )
+
+
+def _typical_spacing(xy: np.ndarray) -> float:
+    if len(xy) < 2:
+        return float("nan")
+    return float(np.median(nn_distances(xy)))
+
+
+def _group_r(xys: list[np.ndarray], plots: list[Plot] | None, window: shapely.Geometry | None):
+    if plots is not None:
+        units = [
+            plot_nn(xy, p.area_m2, float(p.geometry.length))
+            for xy, p in zip(xys, plots, strict=True)
+        ]
+    else:
+        units = [plot_nn(xys[0], float(window.area), float(window.length))]
+    return pooled_clark_evans(units)
+
+
+def _row(
+    plot_id: str,
+    area: float,
+    status: np.ndarray,
+    r_earlier,
+    r_later,
+    mc: RChangeTest | None = None,
+) -> dict[str, Any]:
+    persisting = int(np.sum(status == "persisting"))
+    lost = int(np.sum(status == "lost"))
+    new = int(np.sum(status == "new"))
+    n1, n2 = persisting + lost, persisting + new
+    lo, hi = wilson_interval(persisting, n1) if n1 > 0 else (float("nan"), float("nan"))
+    surv = persisting / n1 if n1 else float("nan")
+    d1 = n1 / area * 1e4 if area > 0 else float("nan")
+    d2 = n2 / area * 1e4 if area > 0 else float("nan")
+    diff = r_difference(r_later, r_earlier)
+    warn: list[str] = []
+    if n1 == 0 and n2 > 0:
+        warn.append("no plants on the earlier date: was this plot surveyed then?")
+    if n2 == 0 and n1 > 0:
+        warn.append("no plants on the later date: was this plot surveyed then?")
+    if 0 < min(n1, n2) < 30:
+        warn.append("fewer than 30 plants on a date: the R test is approximate")
+    return {
+        "plot_id": plot_id,
+        "area_m2": area,
+        "n_earlier": n1,
+        "n_later": n2,
+        "persisting": persisting,
+        "lost": lost,
+        "new": new,
+        "survival": surv,
+        "survival_low95": lo,
+        "survival_high95": hi,
+        "mortality": lost / n1 if n1 else float("nan"),
+        "recruitment": new / n1 if n1 else float("nan"),
+        "density_earlier_per_ha": d1,
+        "density_later_per_ha": d2,
+        "density_change_per_ha": d2 - d1,
+        "p_count_change": paired_change_test(lost, new),
+        "R_earlier": r_earlier.statistic,
+        "R_later": r_later.statistic,
+        "R_change": diff.statistic,
+        "R_change_se": diff.se,
+        "z_R_change": diff.z,
+        "p_R_change": diff.pvalue,
+        "R_later_null": float("nan") if mc is None else mc.expected,
+        "p_R_change_mc": float("nan") if mc is None else mc.pvalue,
+        "warnings": "; ".join(warn),
+    }
+
+
+# ------------------------------------------------------------------------------- public
+
+
+def detect_change(
+    earlier: PointSet,
+    later: PointSet,
+    tolerance_m: float,
+    *,
+    plots: PlotLayer | None = None,
+    estimate_shift: bool = True,
+    simulations: int = 199,
+    seed: int | np.random.Generator | None = 1,
+) -> ChangeResult:
+    """Follow plants between two survey dates: which persist, which were lost, which are new.
+
+    Parameters
+    ----------
+    earlier, later : PointSet
+        Plant positions on the two dates (metric CRS; the later one is reprojected to the
+        earlier one's CRS when they differ).
+    tolerance_m : float
+        Largest distance, metres, between a plant's two positions (after removing the shift)
+        for them to count as the same plant. Choose it above the positional error (a few
+        decimetres for drone mosaics) and well below the typical spacing between plants.
+    plots : PlotLayer, optional
+        Plot polygons; without them, plot membership comes from a ``plot_id`` attribute
+        present in both point sets, else every plant is in one window (the convex hull of
+        all plants).
+    estimate_shift : bool
+        Estimate and remove an overall co-registration shift first
+        (:func:`ecoscan.stats.shift.estimate_shift`).
+    simulations : int
+        Monte Carlo simulations for the test of a change in R beyond random losses and
+        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it.
+    seed : int or numpy.random.Generator
+        Seed for the simulations and the shift vote; same seed, same numbers.
+
+    Returns
+    -------
+    ChangeResult
+
+    Raises
+    ------
+    InputError
+        Tolerance not a positive number, an empty survey, or surveys that do not overlap.
+
+    Notes
+    -----
+    Matching is optimal one-to-one assignment within the tolerance (Kuhn 1955, via
+    :func:`ecoscan.stats.matching.match_points`). Per plot: survival = persisting / n_earlier
+    with a Wilson (1927) 95 % interval; recruitment = new / n_earlier; the change in count
+    is tested with the exact conditional test on lost vs new (McNemar 1947); the change in
+    Clark–Evans R (Clark & Evans 1954) with a z test that treats the dates as independent
+    (conservative when most plants persist) and with a Monte Carlo test against random
+    mortality and random recruitment that holds the earlier pattern fixed.
+    """
+    tol = float(tolerance_m) if tolerance_m is not None else float("nan")
+    if not (math.isfinite(tol) and tol > 0):
+        raise InputError(
+            f"tolerance {tolerance_m} m is not a positive distance; give --tolerance in metres, "
+            "a little above the positional error between the two surveys (e.g. 0.5)"
+        )
+    if int(simulations) < 0:
+        raise InputError(f"--simulations {simulations} is negative; use 0 (skip) or e.g. 199")
+    if earlier.n == 0 or later.n == 0:
+        which = "earlier" if earlier.n == 0 else "later"
+        raise InputError(f"the {which} survey has no plants; check the input file")
+    notes = list(dict.fromkeys([*earlier.notes, *later.notes]))
+    warnings: list[str] = []
+    lx, ly, crs = _align_crs(earlier, later, notes)
+    a = earlier.xy
+    b = np.column_stack([lx, ly])
+    _check_overlap(a, b, tol, warnings)
+    spacing = min(_typical_spacing(a), _typical_spacing(b))
+    if math.isfinite(spacing) and tol > spacing:
+        warnings.append(
+            f"the tolerance {tol:g} m is larger than the typical spacing between plants "
+            f"({spacing:.2f} m, median nearest-neighbour distance): a plant can be within reach "
+            "of several others, so matches become ambiguous; use a smaller --tolerance"
+        )
+    shift_res = None
+    sx = sy = 0.0
+    if estimate_shift:
+        shift_res = _estimate_shift(a, b, tol, rng=seed)
+        if shift_res.n_pairs < MIN_SHIFT_PAIRS:
+            warnings.append(
+                f"only {shift_res.n_pairs} plants pair up unambiguously, too few to estimate a "
+                "shift between the surveys; no shift was removed"
+            )
+        else:
+            sx, sy = shift_res.shift_x_m, shift_res.shift_y_m
+            notes.append(
+                f"shift between the surveys: {sx:+.3f} m east, {sy:+.3f} m north "
+                f"(from {shift_res.n_pairs} plant pairs); removed before matching"
+            )
+            if shift_res.length_m > tol:
+                warnings.append(
+                    f"the shift between the surveys ({shift_res.length_m:.2f} m) is larger than "
+                    "the tolerance; check the co-registration of the two mosaics"
+                )
+    shift = np.array([sx, sy])
+    m = match_points(a + shift, b, tol)
+    n_p, n_l, n_n = m.n_matched, m.unmatched_a.size, m.unmatched_b.size
+    total = n_p + n_l + n_n
+    status = np.array(["persisting"] * n_p + ["lost"] * n_l + ["new"] * n_n, dtype=object)
+    ea_idx = np.r_[m.index_a, m.unmatched_a].astype(np.int64)
+    nan_p = np.full(n_n, np.nan)
+    nan_l = np.full(n_l, np.nan)
+    xe = np.r_[a[ea_idx, 0], nan_p]
+    ye = np.r_[a[ea_idx, 1], nan_p]
+    xl = np.r_[b[m.index_b, 0], nan_l, b[m.unmatched_b, 0]]
+    yl = np.r_[b[m.index_b, 1], nan_l, b[m.unmatched_b, 1]]
+    xr = np.where(np.isfinite(xe), xe, xl - sx)
+    yr = np.where(np.isfinite(ye), ye, yl - sy)
+    offset = np.r_[m.distance_m, nan_l, nan_p]
+    erow = np.r_[ea_idx + 1.0, nan_p]
+    lrow = np.r_[m.index_b + 1.0, nan_l, m.unmatched_b + 1.0]
+
+    # plot membership in the reference (earlier) frame
+    layer = None
+    plot_list: list[Plot] | None = None
+    window = None
+    if plots is not None:
+        layer = _align_plots(plots, crs, notes)
+        plot_list = layer.plots
+        idx = assign_plots(PointSet(xr, yr), layer)
+        ids = np.array([p.plot_id for p in plot_list] + [""], dtype=object)
+        plot_id = ids[idx]  # idx -1 picks ''
+        outside = int(np.sum(idx < 0))
+        if outside == total:
+            raise InputError(
+                "no plant of either survey lies inside any plot; check that --plots covers "
+                "the surveys and shares their CRS"
+            )
+        if outside:
+            notes.append(
+                f"{outside} of {total} plants lie outside every plot: they are listed in the "
+                "plants table with an empty plot_id and left out of the per-plot rows"
+            )
+    elif "plot_id" in earlier.attrs and "plot_id" in later.attrs:
+        pe = np.array([_id_text(v) for v in earlier.attrs["plot_id"]], dtype=object)
+        pl = np.array([_id_text(v) for v in later.attrs["plot_id"]], dtype=object)
+        plot_id = np.r_[pe[ea_idx], pl[m.unmatched_b]].astype(object)
+        only_e = sorted(set(pe) - set(pl) - {""})
+        only_l = sorted(set(pl) - set(pe) - {""})
+        for ids_, when, other in ((only_e, "earlier", "later"), (only_l, "later", "earlier")):
+            if ids_:
+                warnings.append(
+                    f"plot(s) {', '.join(ids_[:8])} appear only in the {when} survey: their "
+                    f"plants count as {'lost' if when == 'earlier' else 'new'}; check that the "
+                    f"{other} survey covered them"
+                )
+        notes.append(
+            "plot membership taken from the plot_id column of the point files; give --plots "
+            "for plot areas, densities and R"
+        )
+    else:
+        plot_id = np.full(total, "", dtype=object)
+        window = shapely.convex_hull(shapely.multipoints(np.column_stack([xr, yr])))
+        if window.area <= 0:
+            raise InputError("the plants lie on a line; give --plots so areas can be measured")
+        notes.append(
+            "no plots given: densities and R use the convex hull of all plants as the window "
+            f"({window.area:.0f} m²); R is biased upward near the hull's edge, give --plots"
+        )
+
+    b_ref = np.column_stack([xl, yl])
+    a_ref = np.column_stack([xe, ye])
+    has_e, has_l = np.isfinite(xe), np.isfinite(xl)
+    survived = status == "persisting"
+    gen = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
+    nsim = int(simulations)
+
+    def mc(sel: np.ndarray, geom: shapely.Geometry) -> RChangeTest | None:
+        if nsim == 0:
+            return None
+        data = [(a_ref[sel & has_e], survived[sel & has_e], b_ref[sel & has_l], geom)]
+        return r_change_test(data, simulations=nsim, rng=gen)
+
+    rows: list[dict[str, Any]] = []
+    if plot_list is not None:
+        e_xys, l_xys, tests = [], [], []
+        for p in plot_list:
+            sel = plot_id == p.plot_id
+            e_xys.append(a_ref[sel & has_e])
+            l_xys.append(b_ref[sel & has_l])
+            tests.append(mc(sel, p.geometry))
+            r1 = _group_r([e_xys[-1]], [p], None)
+            r2 = _group_r([l_xys[-1]], [p], None)
+            rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
+        inside = plot_id != ""
+        overall = _row(
+            OVERALL_ID,
+            float(sum(p.area_m2 for p in plot_list)),
+            status[inside],
+            _group_r(e_xys, plot_list, None),
+            _group_r(l_xys, plot_list, None),
+            None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
+        )
+    elif window is None:  # plot ids from attributes, no areas
+        nanr = pooled_clark_evans([])
+        for pid in sorted(set(plot_id) - {""}):
+            rows.append(_row(pid, float("nan"), status[plot_id == pid], nanr, nanr))
+        overall = _row(OVERALL_ID, float("nan"), status, nanr, nanr)
+    else:
+        everything = np.ones(total, bool)
+        overall = _row(
+            OVERALL_ID,
+            float(window.area),
+            status,
+            _group_r([a_ref[has_e]], None, window),
+            _group_r([b_ref[has_l]], None, window),
+            mc(everything, window),
+        )
+    missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]
+    if missing:
+        warnings.append(
+            f"plot(s) {', '.join(missing[:8])} have plants on one date only: check that both "
+            "surveys covered them before reading their losses or recruits"
+        )
+    params = {
+        "tolerance_m": tol,
+        "estimate_shift": bool(estimate_shift),
+        "reference_frame": "earlier survey",
+        "matching": "optimal one-to-one assignment within the tolerance (Kuhn 1955)",
+        "survival_interval": "Wilson (1927) score interval, 95%",
+        "count_change_test": "exact conditional test of lost vs new (McNemar 1947)",
+        "R_change_test": "z test, SE from Clark & Evans (1954), dates taken as independent; "
+        "and Monte Carlo test against random losses and uniform recruits (Besag & Diggle 1977)",
+        "simulations": nsim,
+        "seed": seed if isinstance(seed, (int, type(None))) else "generator",
+        "typical_spacing_m": spacing,
+        "crs": crs_label(crs),
+    }
+    return ChangeResult(
+        sx,
+        sy,
+        shift_res,
+        tol,
+        status.astype(str),
+        xr,
+        yr,
+        xe,
+        ye,
+        xl,
+        yl,
+        offset,
+        erow,
+        lrow,
+        plot_id.astype(str),
+        rows,
+        overall,
+        crs,
+        layer,
+        notes,
+        warnings,
+        params,
+    )
+
+
+def change_rows(result: ChangeResult, *, overall: bool = True) -> list[dict[str, Any]]:
+    """Per-plot rows of a change result, then the overall row.
+
+    Parameters
+    ----------
+    result : ChangeResult
+        From :func:`detect_change`.
+    overall : bool
+        Append the overall row (``plot_id`` = ``all``).
+
+    Returns
+    -------
+    list of dict
+        Columns :data:`CHANGE_COLUMNS`.
+    """
+    rows = [dict(r) for r in result.plots]
+    if overall:
+        rows.append(dict(result.overall))
+    return rows
+
+
+def change_summary(result: ChangeResult) -> dict[str, Any]:
+    """Everything of a change result that goes into ``change.json``."""
+    sh = result.shift
+    return {
+        "shift_x_m": result.shift_x_m,
+        "shift_y_m": result.shift_y_m,
+        "shift": None
+        if sh is None
+        else {
+            "estimated_x_m": sh.shift_x_m,
+            "estimated_y_m": sh.shift_y_m,
+            "se_x_m": sh.se_x_m,
+            "se_y_m": sh.se_y_m,
+            "pairs": sh.n_pairs,
+            "median_residual_m": sh.residual_m,
+            "iterations": sh.iterations,
+            "converged": sh.converged,
+            "applied": bool(result.shift_x_m != 0.0 or result.shift_y_m != 0.0),
+            "method": "mode of displacement vectors, then iterated median of mutual "
+            "nearest-neighbour residuals",
+        },
+        "counts": result.counts,
+        "parameters": result.parameters,
+        "plots": change_rows(result, overall=False),
+        "overall": result.overall,
+        "notes": result.notes,
+        "warnings": result.warnings,
+        "caution": (
+            "automated counts need field checks before they drive management decisions: a "
+            "lost plant may be a missed detection and a new one a weed or a double detection; "
+            "defer to local rules and licensed practice"
+        ),
+    }
+
+
+def write_change(outdir: str | os.PathLike, result: ChangeResult) -> list[Path]:
+    """Write ``plants.csv``, ``plants.gpkg``, ``change.csv``, ``change.json`` and the map.
+
+    Parameters
+    ----------
+    outdir : path-like
+        Output folder (created if needed).
+    result : ChangeResult
+        From :func:`detect_change`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written (each written atomically).
+    """
+    from ecoscan.figures import save_figure
+    from ecoscan.figures.change import change_map
+
+    out = Path(outdir)
+    coords = ("x", "y", "x_earlier_m", "y_earlier_m", "x_later_m", "y_later_m")
+    rows = result.plant_rows()
+    for r in rows:  # map coordinates to the millimetre, as ecoscan.vector.write_points does
+        for c in coords:
+            r[c] = f"{r[c]:.3f}" if np.isfinite(r[c]) else ""
+    paths = [
+        write_csv(out / "plants.csv", rows, PLANT_COLUMNS),
+        write_points(result.plants_pointset(), out / "plants.gpkg", layer="plants"),
+        write_csv(out / "change.csv", change_rows(result), CHANGE_COLUMNS),
+        write_json(out / "change.json", change_summary(result)),
+    ]
+    if result.crs is not None:
+        paths.append(write_text(out / "plants.prj", result.crs.to_wkt()))
+    if result.layer is not None:
+        paths.append(write_plots(result.layer, out / "plots.gpkg"))
+    fig = change_map(
+        result.x_m,
+        result.y_m,
+        result.status,
+        plots=None if result.layer is None else [p.geometry for p in result.layer.plots],
+        plot_ids=None if result.layer is None else result.layer.ids,
+        shift_m=(result.shift_x_m, result.shift_y_m),
+    )
+    paths.append(save_figure(fig, out / "change_map.png"))
+    return paths

@@ -1,0 +1,142 @@
+"""``ecoscan compare``: compare sites, dates or plots from results folders."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from ecoscan.cli._common import print_notes
+from ecoscan.compare import (
+    BY_CHOICES,
+    compare_groups,
+    comparison_rows,
+    group_rows,
+    read_results,
+    write_comparison,
+)
+from ecoscan.tables import format_table
+
+NAME = "compare"
+HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"
+DESCRIPTION = (
+    "Read results folders of 'ecoscan analyse' or 'ecoscan survey' and compare every pair of "
+    "groups: difference in density (exact test of two Poisson rates), difference in pooled "
+    "Clark-Evans R (z test and a permutation test that moves whole plots), and the "
+    "nearest-neighbour distances (Mann-Whitney U, Kolmogorov-Smirnov). With more than two "
+    "groups p-values are Holm-adjusted. Writes comparison.csv, groups.csv, comparison.json "
+    "and comparison.png."
+)
+EXAMPLE = "ecoscan compare results_planted results_natural -o compare_out --by folder"
+
+GROUP_TABLE = (
+    "rank_regularity",
+    "group",
+    "n_plots",
+    "n",
+    "density_per_ha",
+    "mean_nn_m",
+    "R",
+    "R_low95",
+    "R_high95",
+    "R_donnelly",
+    "pattern",
+)
+GROUP_HEADERS = (
+    "rank",
+    "group",
+    "plots",
+    "n",
+    "plants/ha",
+    "mean NN m",
+    "R",
+    "low 95%",
+    "high 95%",
+    "R Donnelly",
+    "pattern",
+)
+
+
+def _show_p(rows: list[dict], columns) -> list[dict]:
+    """Copies of ``rows`` with p-values below 0.001 shown as '<0.001'."""
+    out = []
+    for r in rows:
+        r = dict(r)
+        for c in columns:
+            v = r.get(c)
+            if c.startswith("p") and isinstance(v, float) and v < 0.001:
+                r[c] = "<0.001"
+        out.append(r)
+    return out
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    """Options of ``ecoscan compare``."""
+    p.add_argument(
+        "results",
+        nargs="+",
+        metavar="RESULTS",
+        help="results folders (each with dispersion.csv, points.csv and plots.gpkg)",
+    )
+    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument(
+        "--by",
+        choices=BY_CHOICES,
+        default="auto",
+        help="what forms a group (default auto: sites when every folder has them, else "
+        "folders; plots for a single folder)",
+    )
+    p.add_argument(
+        "--permutations",
+        type=int,
+        default=999,
+        metavar="N",
+        help="random arrangements of plots for the permutation test (default 999; all "
+        "arrangements are used when there are fewer)",
+    )
+    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``ecoscan compare``."""
+    tables = [read_results(f) for f in args.results]
+    labels = [t.label for t in tables]
+    if len(set(labels)) < len(labels):  # same folder name in different places
+        tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
+    result = compare_groups(tables, args.by, permutations=args.permutations, seed=args.seed)
+    paths = write_comparison(args.out, result)
+    print_notes(result.notes, args.quiet)
+    groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
+    print(format_table(groups, GROUP_TABLE, headers=GROUP_HEADERS))
+    print()
+    adj = len(result.pairs) > 1
+    sfx = "_holm" if adj else ""
+    cols = (
+        "group_a",
+        "group_b",
+        "density_diff_per_ha",
+        f"p_density{sfx}",
+        "R_diff",
+        "R_donnelly_diff",
+        f"p_R_donnelly_diff{sfx}",
+        f"p_R_perm{sfx}",
+        f"p_mw{sfx}",
+        f"p_ks{sfx}",
+    )
+    heads = (
+        "A",
+        "B",
+        "Δ plants/ha",
+        "p density",
+        "ΔR",
+        "ΔR edge-corr.",
+        "p ΔR (z)",
+        "p ΔR (perm.)",
+        "p MW",
+        "p KS",
+    )
+    print(format_table(_show_p(comparison_rows(result), cols), cols, headers=heads))
+    if adj:
+        print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
+    if not args.quiet:
+        print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)
+    return 0

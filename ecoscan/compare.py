@@ -1,0 +1,666 @@
+"""Compare groups of plots (sites, dates, plots, results folders) for density and spacing.
+
+Inputs are results folders written by ``ecoscan analyse`` or ``ecoscan survey``
+(``dispersion.csv``, ``points.csv`` + ``points.prj``, ``plots.gpkg``). Everything compared is
+recomputed from the points and the plot polygons: each plant's nearest neighbour is searched
+within its own plot, densities use the polygon areas. ``dispersion.csv`` supplies the list of
+analysed plots (so that plots with no plants still count in the area) and the site and date
+labels.
+
+For each pair of groups: the difference in density with the exact conditional test of two
+Poisson rates (Przyborowski & Wilenski 1940), the difference in pooled Clark–Evans R with its
+standard error and z test (Clark & Evans 1954), Mann–Whitney U and two-sample
+Kolmogorov–Smirnov tests of the nearest-neighbour distances (``scipy.stats``), and a
+permutation test of the difference in R that moves whole plots between groups. With more
+than two groups every test's p-values are adjusted over the pairs with Holm (1979).
+"""
+
+from __future__ import annotations
+
+import csv
+import itertools
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyogrio
+import shapely
+from scipy import stats as sps
+
+from ecoscan.crs import crs_label, parse_crs
+from ecoscan.errors import InputError
+from ecoscan.outputs import write_csv, write_json
+from ecoscan.points import PointSet
+from ecoscan.stats.compare_r import (
+    PlotNN,
+    PooledR,
+    plot_nn,
+    pooled_clark_evans,
+    r_difference,
+    r_permutation_test,
+)
+from ecoscan.stats.rates import holm_adjust, poisson_rate_test
+from ecoscan.vector import read_points, reproject_geometries
+
+__all__ = [
+    "BY_CHOICES",
+    "GROUP_COLUMNS",
+    "PAIR_COLUMNS",
+    "ComparisonResult",
+    "PlotUnit",
+    "ResultsTable",
+    "compare_groups",
+    "comparison_rows",
+    "group_rows",
+    "read_results",
+    "write_comparison",
+]
+
+BY_CHOICES = ("auto", "site", "date", "plot", "folder")
+
+#: Columns of ``groups.csv`` (one row per group) in order.
+GROUP_COLUMNS = (
+    "group",
+    "rank_regularity",
+    "n_plots",
+    "n",
+    "area_m2",
+    "density_per_ha",
+    "mean_nn_m",
+    "expected_nn_m",
+    "R",
+    "R_se",
+    "R_low95",
+    "R_high95",
+    "z",
+    "p",
+    "R_donnelly",
+    "R_donnelly_se",
+    "pattern",
+    "warnings",
+)
+
+#: Columns of ``comparison.csv`` (one row per pair of groups) in order.
+PAIR_COLUMNS = (
+    "group_a",
+    "group_b",
+    "n_a",
+    "n_b",
+    "area_a_m2",
+    "area_b_m2",
+    "density_a_per_ha",
+    "density_b_per_ha",
+    "density_diff_per_ha",
+    "density_ratio",
+    "density_ratio_low95",
+    "density_ratio_high95",
+    "p_density",
+    "R_a",
+    "R_b",
+    "R_diff",
+    "R_diff_se",
+    "z_R_diff",
+    "p_R_diff",
+    "R_donnelly_a",
+    "R_donnelly_b",
+    "R_donnelly_diff",
+    "R_donnelly_diff_se",
+    "z_R_donnelly_diff",
+    "p_R_donnelly_diff",
+    "p_R_perm",
+    "perm_arrangements",
+    "perm_exact",
+    "mw_u",
+    "p_mw",
+    "ks_d",
+    "p_ks",
+    "p_density_holm",
+    "p_R_diff_holm",
+    "p_R_donnelly_diff_holm",
+    "p_R_perm_holm",
+    "p_mw_holm",
+    "p_ks_holm",
+    "warnings",
+)
+
+_P_COLUMNS = ("p_density", "p_R_diff", "p_R_donnelly_diff", "p_R_perm", "p_mw", "p_ks")
+
+
+# ------------------------------------------------------------------------------ reading
+
+
+def _text(v: Any) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, (float, np.floating)):
+        if math.isnan(float(v)):
+            return ""
+        if float(v).is_integer():
+            return str(int(v))
+    return str(v).strip()
+
+
+@dataclass(frozen=True)
+class PlotUnit:
+    """One analysed plot of one results folder (on one date): the unit that is compared.
+
+    Attributes
+    ----------
+    folder : str
+        Label of the results folder.
+    site, date : str
+        Site and date labels ('' when the folder has none).
+    plot_id : str
+        Plot id.
+    nn : PlotNN
+        Its plants' nearest-neighbour distances (within the plot), count, area and perimeter.
+    """
+
+    folder: str
+    site: str
+    date: str
+    plot_id: str
+    nn: PlotNN
+
+
+@dataclass
+class ResultsTable:
+    """A results folder read back: its analysed plots with their plants.
+
+    Attributes
+    ----------
+    folder : pathlib.Path
+        The folder.
+    label : str
+        Short name (the folder name).
+    dispersion : list of dict
+        Rows of ``dispersion.csv`` as text.
+    points : PointSet
+        The analysed points.
+    units : list of PlotUnit
+        One per analysed plot (and date).
+    has_site, has_date : bool
+        Whether the folder carries site / date labels.
+    notes : list of str
+        What was assumed.
+    """
+
+    folder: Path
+    label: str
+    dispersion: list[dict[str, str]]
+    points: PointSet
+    units: list[PlotUnit]
+    has_site: bool
+    has_date: bool
+    notes: list[str] = field(default_factory=list)
+
+
+def _read_dispersion(path: Path) -> list[dict[str, str]]:
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            rows = list(csv.DictReader(fh))
+    except UnicodeDecodeError:
+        raise InputError(f"{path} is not a UTF-8 CSV file; rewrite it with ecoscan") from None
+    if not rows or "plot_id" not in (rows[0].keys() if rows else []):
+        raise InputError(
+            f"{path} has no rows or no plot_id column; it should be an ecoscan dispersion table"
+        )
+    return [{k.strip(): (v or "").strip() for k, v in r.items() if k} for r in rows]
+
+
+def _read_plot_geoms(path: Path, points_crs) -> dict[tuple[str, str], shapely.Geometry]:
+    """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field."""
+    try:
+        meta, _fid, wkb, data = pyogrio.raw.read(path, layer="plots")
+    except Exception:
+        try:
+            meta, _fid, wkb, data = pyogrio.raw.read(path)
+        except Exception as exc:
+            msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            raise InputError(f"cannot read {path}: {msg}; rerun the analysis") from None
+    fields = [str(f) for f in meta.get("fields", [])]
+    lower = {f.lower(): i for i, f in enumerate(fields)}
+    if "plot_id" not in lower:
+        raise InputError(f"{path} has no plot_id field; rerun the analysis to rewrite it")
+    geoms = shapely.from_wkb(wkb)
+    src = parse_crs(meta.get("crs"), what=path.name) if meta.get("crs") else None
+    if src is not None and points_crs is not None and src != points_crs:
+        geoms = reproject_geometries(geoms, src, points_crs)
+    elif src is not None and points_crs is None and not src.is_projected:
+        raise InputError(f"{path} is in {crs_label(src)} (degrees); rerun the analysis")
+    ids = [_text(v) for v in data[lower["plot_id"]]]
+    sites = [_text(v) for v in data[lower["site"]]] if "site" in lower else [""] * len(ids)
+    return {(s, i): g for s, i, g in zip(sites, ids, geoms, strict=True) if g is not None}
+
+
+def _attr_text(points: PointSet, name: str) -> np.ndarray | None:
+    for k, v in points.attrs.items():
+        if k.lower() == name:
+            return np.array([_text(x) for x in v], dtype=object)
+    return None
+
+
+def read_results(folder: str | os.PathLike, *, label: str | None = None) -> ResultsTable:
+    """Read an ``analyse`` or ``survey`` results folder for comparison.
+
+    Parameters
+    ----------
+    folder : path-like
+        A folder holding ``dispersion.csv``, ``points.csv`` (with ``points.prj``) and
+        ``plots.gpkg`` (layer ``plots``, field ``plot_id``).
+    label : str, optional
+        Name of the folder in tables (default: the folder's name).
+
+    Returns
+    -------
+    ResultsTable
+
+    Raises
+    ------
+    InputError
+        When the folder or one of its files is missing or malformed.
+    """
+    d = Path(folder)
+    if not d.is_dir():
+        raise InputError(f"results folder {str(d)!r} does not exist; give an analyse output folder")
+    missing = [f for f in ("dispersion.csv", "points.csv", "plots.gpkg") if not (d / f).exists()]
+    if missing:
+        raise InputError(
+            f"{d} lacks {', '.join(missing)}; give a folder written by 'ecoscan analyse' or "
+            "'ecoscan survey' (rerun it if the files were moved)"
+        )
+    notes: list[str] = []
+    disp = _read_dispersion(d / "dispersion.csv")
+    pts = read_points(d / "points.csv")
+    notes += [f"{d.name}: {n}" for n in pts.notes]
+    pid = _attr_text(pts, "plot_id")
+    if pid is None:
+        raise InputError(f"{d / 'points.csv'} has no plot_id column; rerun the analysis")
+    site = _attr_text(pts, "site")
+    date = _attr_text(pts, "date")
+    has_site = site is not None or "site" in disp[0]
+    has_date = date is not None or "date" in disp[0]
+    n = pts.n
+    site = site if site is not None else np.full(n, "", dtype=object)
+    date = date if date is not None else np.full(n, "", dtype=object)
+    geoms = _read_plot_geoms(d / "plots.gpkg", pts.crs)
+    lab = label or d.name
+    keys = [(r.get("site", ""), r.get("date", ""), r["plot_id"]) for r in disp]
+    area_of = {k: r.get("area_m2", "") for k, r in zip(keys, disp, strict=True)}
+    point_keys = set(zip(site, date, pid, strict=True))
+    extra = sorted(k for k in point_keys if k not in area_of and k[2] != "")
+    if extra:
+        notes.append(
+            f"{d.name}: {len(extra)} plot(s) have points but no row in dispersion.csv "
+            f"({', '.join(k[2] for k in extra[:5])}); included"
+        )
+    units: list[PlotUnit] = []
+    xy = pts.xy
+    for k in dict.fromkeys(keys + extra):
+        s, t, p = k
+        g = geoms.get((s, p))
+        if g is None:
+            g = geoms.get(("", p))
+        if g is not None:
+            area, perim = float(g.area), float(g.length)
+        else:
+            try:
+                area, perim = float(area_of.get(k, "")), float("nan")
+            except ValueError:
+                raise InputError(
+                    f"{d.name}: plot {p!r} is in neither plots.gpkg nor has an area in "
+                    "dispersion.csv; rerun the analysis"
+                ) from None
+            notes.append(f"{d.name}: plot {p} not in plots.gpkg; its area from dispersion.csv")
+        if not area > 0:
+            raise InputError(f"{d.name}: plot {p!r} has no area; rerun the analysis")
+        sel = (pid == p) & (site == s) & (date == t)
+        units.append(PlotUnit(lab, s, t, p, plot_nn(xy[sel], area, perim)))
+    return ResultsTable(d, lab, disp, pts, units, has_site, has_date, notes)
+
+
+# ---------------------------------------------------------------------------- comparing
+
+
+@dataclass(frozen=True)
+class GroupSummary:
+    """One group's pooled density and Clark–Evans R (see :func:`pooled_clark_evans`)."""
+
+    name: str
+    units: tuple[PlotUnit, ...]
+    n: int
+    area_m2: float
+    r: PooledR
+
+    @property
+    def nn_m(self) -> np.ndarray:
+        """All nearest-neighbour distances of the group (each within its plot), metres."""
+        parts = [u.nn.nn_m for u in self.units]
+        return np.concatenate(parts) if parts else np.empty(0)
+
+    @property
+    def density_per_ha(self) -> float:
+        """Plants per hectare over all the group's plots."""
+        return self.n / self.area_m2 * 1e4 if self.area_m2 > 0 else float("nan")
+
+
+@dataclass
+class ComparisonResult:
+    """Result of :func:`compare_groups`.
+
+    Attributes
+    ----------
+    by : str
+        What the groups are: ``site``, ``date``, ``plot`` or ``folder``.
+    groups : list of GroupSummary
+        In input order.
+    pairs : list of dict
+        One row per pair (columns :data:`PAIR_COLUMNS`).
+    notes : list of str
+        Method notes and what was assumed (including the Holm adjustment).
+    parameters : dict
+        Permutations, seed, methods.
+    """
+
+    by: str
+    groups: list[GroupSummary]
+    pairs: list[dict[str, Any]]
+    notes: list[str] = field(default_factory=list)
+    parameters: dict[str, Any] = field(default_factory=dict)
+
+
+def _group_key(u: PlotUnit, by: str, multi_site: bool) -> str:
+    if by == "folder":
+        return u.folder
+    if by == "site":
+        return u.site or u.folder
+    if by == "date":
+        return u.date
+    return f"{u.site}/{u.plot_id}" if multi_site and u.site else u.plot_id
+
+
+def _pattern(r: PooledR) -> str:
+    use_d = math.isfinite(r.statistic_donnelly) and r.se_donnelly > 0
+    stat, se = (r.statistic_donnelly, r.se_donnelly) if use_d else (r.statistic, r.se)
+    if not math.isfinite(stat):
+        return ""
+    p = 2 * sps.norm.sf(abs((stat - 1.0) / se))
+    if p >= 0.05:
+        return "random"
+    return "regular" if stat > 1 else "clustered"
+
+
+def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
+    nan = float("nan")
+    warn: list[str] = []
+    rate = poisson_rate_test(a.n, a.area_m2, b.n, b.area_m2)
+    diff = r_difference(a.r, b.r)
+    diff_d = r_difference(a.r, b.r, edge_corrected=True)
+    perm = r_permutation_test(
+        [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
+    )
+    if not math.isfinite(perm.pvalue):
+        warn.append("too few plots per group for the permutation test (it moves whole plots)")
+    elif perm.min_pvalue > 0.05:
+        warn.append(
+            f"only {perm.arrangements} arrangements of plots: the permutation p-value cannot go "
+            f"below {perm.min_pvalue:.2g}"
+        )
+    da, db = a.nn_m, b.nn_m
+    if da.size >= 1 and db.size >= 1:
+        mw = sps.mannwhitneyu(da, db, alternative="two-sided")
+        ks = sps.ks_2samp(da, db)
+        mw_u, p_mw, ks_d, p_ks = (
+            float(mw.statistic),
+            float(mw.pvalue),
+            float(ks.statistic),
+            float(ks.pvalue),
+        )
+    else:
+        mw_u = p_mw = ks_d = p_ks = nan
+        warn.append("a group has no nearest-neighbour distances")
+    if min(a.n, b.n) < 30:
+        warn.append("fewer than 30 plants in a group: the R test is approximate")
+    da_ha, db_ha = a.density_per_ha, b.density_per_ha
+    return {
+        "group_a": a.name,
+        "group_b": b.name,
+        "n_a": a.n,
+        "n_b": b.n,
+        "area_a_m2": a.area_m2,
+        "area_b_m2": b.area_m2,
+        "density_a_per_ha": da_ha,
+        "density_b_per_ha": db_ha,
+        "density_diff_per_ha": da_ha - db_ha,
+        "density_ratio": rate.statistic,
+        "density_ratio_low95": rate.ratio_low,
+        "density_ratio_high95": rate.ratio_high,
+        "p_density": rate.pvalue,
+        "R_a": a.r.statistic,
+        "R_b": b.r.statistic,
+        "R_diff": diff.statistic,
+        "R_diff_se": diff.se,
+        "z_R_diff": diff.z,
+        "p_R_diff": diff.pvalue,
+        "R_donnelly_a": a.r.statistic_donnelly,
+        "R_donnelly_b": b.r.statistic_donnelly,
+        "R_donnelly_diff": diff_d.statistic,
+        "R_donnelly_diff_se": diff_d.se,
+        "z_R_donnelly_diff": diff_d.z,
+        "p_R_donnelly_diff": diff_d.pvalue,
+        "p_R_perm": perm.pvalue,
+        "perm_arrangements": perm.arrangements,
+        "perm_exact": perm.exact,
+        "mw_u": mw_u,
+        "p_mw": p_mw,
+        "ks_d": ks_d,
+        "p_ks": p_ks,
+        "warnings": "; ".join(warn),
+    }
+
+
+def compare_groups(
+    results: list[ResultsTable],
+    by: str = "auto",
+    *,
+    permutations: int = 999,
+    seed: int | np.random.Generator | None = 1,
+) -> ComparisonResult:
+    """Compare every pair of groups of plots for density and Clark–Evans R.
+
+    Parameters
+    ----------
+    results : list of ResultsTable
+        Results folders read with :func:`read_results`.
+    by : {'auto', 'site', 'date', 'plot', 'folder'}
+        What forms a group. ``auto``: sites when every folder has site labels, else folders.
+        ``site`` falls back to the folder name for folders without sites.
+    permutations : int
+        Monte Carlo arrangements for the permutation test (≥ 99).
+    seed : int or numpy.random.Generator
+        Seed; same seed, same p-values.
+
+    Returns
+    -------
+    ComparisonResult
+
+    Raises
+    ------
+    InputError
+        Unknown ``by``, too few permutations, no date labels for ``by='date'``, or fewer
+        than two groups.
+
+    References
+    ----------
+    Przyborowski & Wilenski (1940), Biometrika 31: 313–323; Clark & Evans (1954), Ecology
+    35: 445–453; Mann & Whitney (1947), Ann. Math. Statist. 18: 50–60; Kolmogorov–Smirnov via
+    :func:`scipy.stats.ks_2samp`; Holm (1979), Scand. J. Statist. 6: 65–70.
+    """
+    if by not in BY_CHOICES:
+        raise InputError(f"--by {by!r} is not known; choose one of {', '.join(BY_CHOICES)}")
+    if not results:
+        raise InputError("no results folders given; give at least one analyse output folder")
+    if int(permutations) < 99:
+        raise InputError(f"--permutations {permutations} is too few; use at least 99 (e.g. 999)")
+    notes: list[str] = []
+    for r in results:
+        notes += [n for n in r.notes if n not in notes]
+    if by == "auto":
+        by = "site" if all(r.has_site for r in results) else "folder"
+        if by == "folder" and len(results) == 1:
+            by = "plot"
+        notes.append(f"groups are {by}s (choose with --by)")
+    if by == "date" and not all(r.has_date for r in results):
+        lacking = [r.label for r in results if not r.has_date]
+        raise InputError(
+            f"--by date needs dates, but {', '.join(lacking)} has no date column; "
+            "compare survey folders, or use --by folder"
+        )
+    if by == "site" and not all(r.has_site for r in results):
+        notes.append("folders without site labels are grouped under their folder name")
+    units = [u for r in results for u in r.units]
+    multi_site = len({u.site for u in units if u.site}) > 1
+    grouped: dict[str, list[PlotUnit]] = {}
+    for u in units:
+        grouped.setdefault(_group_key(u, by, multi_site), []).append(u)
+    if len(grouped) < 2:
+        raise InputError(
+            f"only one {by} ({next(iter(grouped), '?')}) in the results; give more folders or "
+            "choose another --by"
+        )
+    groups = []
+    for name, us in grouped.items():
+        n = sum(u.nn.n for u in us)
+        area = sum(u.nn.area_m2 for u in us)
+        groups.append(
+            GroupSummary(name, tuple(us), n, area, pooled_clark_evans([u.nn for u in us]))
+        )
+    if by == "date":
+        notes.append(
+            "dates of the same plots share plants, so the tests (which assume independent "
+            "groups) are conservative; use 'ecoscan change' to follow plants between dates"
+        )
+    if by == "plot":
+        notes.append(
+            "with one plot per group the permutation test cannot run; the z test and the "
+            "distance tests treat plants as independent, which neighbours are not quite"
+        )
+    rng = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
+    pairs = [_pair_row(a, b, int(permutations), rng) for a, b in itertools.combinations(groups, 2)]
+    for col in _P_COLUMNS:
+        adj = holm_adjust([p[col] for p in pairs]) if len(pairs) > 1 else [p[col] for p in pairs]
+        for p, v in zip(pairs, adj, strict=True):
+            p[f"{col}_holm"] = float(v)
+    if len(pairs) > 1:
+        notes.append(
+            f"{len(groups)} groups give {len(pairs)} pairwise comparisons: the *_holm columns "
+            "hold p-values adjusted with Holm's (1979) step-down method within each test; "
+            "read those, not the raw p-values"
+        )
+    params = {
+        "by": by,
+        "permutations": int(permutations),
+        "seed": seed if isinstance(seed, (int, type(None))) else "generator",
+        "R": "pooled over plots, nearest neighbours within each plot, expectation from each "
+        "plot's own density (Clark & Evans 1954)",
+        "density_test": "exact conditional test of two Poisson rates (Przyborowski & "
+        "Wilenski 1940)",
+        "permutation_test": "whole plots permuted between the two groups",
+        "adjustment": "Holm (1979)" if len(pairs) > 1 else "none (one comparison)",
+    }
+    return ComparisonResult(by, groups, pairs, notes, params)
+
+
+def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
+    """One row per group (columns :data:`GROUP_COLUMNS`), ranked from most regular (1)."""
+    rs = [g.r.statistic for g in result.groups]
+    order = sorted(range(len(rs)), key=lambda i: -(rs[i] if math.isfinite(rs[i]) else -math.inf))
+    rank = {i: k + 1 for k, i in enumerate(order)}
+    rows = []
+    for i, g in enumerate(result.groups):
+        lo, hi = g.r.ci()
+        warn = []
+        if g.n < 30:
+            warn.append("fewer than 30 plants")
+        rows.append(
+            {
+                "group": g.name,
+                "rank_regularity": rank[i],
+                "n_plots": len(g.units),
+                "n": g.n,
+                "area_m2": g.area_m2,
+                "density_per_ha": g.density_per_ha,
+                "mean_nn_m": g.r.mean_nn_m,
+                "expected_nn_m": g.r.expected_nn_m,
+                "R": g.r.statistic,
+                "R_se": g.r.se,
+                "R_low95": lo,
+                "R_high95": hi,
+                "z": g.r.z,
+                "p": g.r.pvalue,
+                "R_donnelly": g.r.statistic_donnelly,
+                "R_donnelly_se": g.r.se_donnelly,
+                "pattern": _pattern(g.r),
+                "warnings": "; ".join(warn),
+            }
+        )
+    return rows
+
+
+def comparison_rows(result: ComparisonResult) -> list[dict[str, Any]]:
+    """One row per pair of groups (columns :data:`PAIR_COLUMNS`)."""
+    return [dict(p) for p in result.pairs]
+
+
+def write_comparison(outdir: str | os.PathLike, result: ComparisonResult) -> list[Path]:
+    """Write ``comparison.csv``, ``groups.csv``, ``comparison.json`` and ``comparison.png``.
+
+    Parameters
+    ----------
+    outdir : path-like
+        Output folder (created if needed).
+    result : ComparisonResult
+        From :func:`compare_groups`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written (each atomically).
+    """
+    from ecoscan.figures import save_figure
+    from ecoscan.figures.compare import r_by_group
+
+    out = Path(outdir)
+    groups = group_rows(result)
+    pairs = comparison_rows(result)
+    fig = r_by_group(
+        [g["group"] for g in groups],
+        np.array([g["R"] for g in groups], float),
+        np.array([g["R_low95"] for g in groups], float),
+        np.array([g["R_high95"] for g in groups], float),
+        r_donnelly=np.array([g["R_donnelly"] for g in groups], float),
+        by=result.by,
+    )
+    return [
+        write_csv(out / "comparison.csv", pairs, PAIR_COLUMNS),
+        write_csv(out / "groups.csv", groups, GROUP_COLUMNS),
+        write_json(
+            out / "comparison.json",
+            {
+                "by": result.by,
+                "groups": groups,
+                "pairs": pairs,
+                "notes": result.notes,
+                "parameters": result.parameters,
+                "caution": (
+                    "automated detections need field checks before differences between sites "
+                    "or dates drive management decisions; defer to local rules and licensed "
+                    "practice"
+                ),
+            },
+        ),
+        save_figure(fig, out / "comparison.png"),
+    ]
