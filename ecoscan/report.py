@@ -41,7 +41,7 @@ h3 { margin:1.2rem 0 .4rem; font-size:1.05rem; }
 table.data { border-collapse:collapse; font-size:.84rem; background:#fff; margin:.4rem 0 1rem; }
 table.data th, table.data td { border-bottom:1px solid var(--line); padding:.28rem .55rem;
      text-align:right; white-space:nowrap; }
-table.data th { background:#eef1f5; font-weight:600; position:sticky; top:2.2rem; }
+table.data th { background:#eef1f5; font-weight:600; }
 table.data td.text, table.data th.text { text-align:left; }
 table.data td.warn { text-align:left; white-space:normal; max-width:28rem; color:#7a4b00; }
 .scroll { overflow-x:auto; }
@@ -93,12 +93,13 @@ def _esc(v: Any) -> str:
 
 
 def figure_html(png: str | os.PathLike, caption: str = "", alt: str = "") -> str:
-    """An ``<figure>`` with the PNG embedded as a data URI (no external file needed)."""
-    data = base64.b64encode(Path(png).read_bytes()).decode("ascii")
+    """A ``<figure>`` with the PNG or JPEG embedded as a data URI (no external file needed)."""
+    path = Path(png)
+    mime = "image/jpeg" if path.suffix.lower() in (".jpg", ".jpeg") else "image/png"
+    data = base64.b64encode(path.read_bytes()).decode("ascii")
     cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
     return (
-        f'<figure><img src="data:image/png;base64,{data}" alt="{_esc(alt or caption)}">'
-        f"{cap}</figure>"
+        f'<figure><img src="data:{mime};base64,{data}" alt="{_esc(alt or caption)}">{cap}</figure>'
     )
 
 

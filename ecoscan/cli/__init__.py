@@ -93,6 +93,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         format="%(message)s" if not args.verbose else "%(levelname)s %(name)s: %(message)s",
         stream=sys.stderr,
     )
+    logging.getLogger("pyogrio").setLevel(logging.WARNING)  # "Created N records" is noise
     set_quiet(args.quiet)
     if not args.verbose:
         warnings.filterwarnings("ignore", category=RuntimeWarning)

@@ -40,9 +40,13 @@ MARKERS = {
 }
 
 
+#: Resolution of saved figures (dots per inch): sharp on screen, small in the report.
+FIGURE_DPI = 96
+
+
 def new_figure(width_in: float = 6.0, height_in: float = 4.0) -> tuple[Figure, object]:
     """A new figure and axes with ecoscan's plain style."""
-    fig, ax = plt.subplots(figsize=(width_in, height_in), dpi=110)
+    fig, ax = plt.subplots(figsize=(width_in, height_in), dpi=FIGURE_DPI)
     ax.grid(True, color="#dddddd", linewidth=0.6)
     ax.set_axisbelow(True)
     for side in ("top", "right"):
@@ -51,8 +55,11 @@ def new_figure(width_in: float = 6.0, height_in: float = 4.0) -> tuple[Figure, o
 
 
 def save_figure(fig: Figure, path: str | os.PathLike) -> Path:
-    """Save a figure as PNG atomically and close it."""
-    with atomic_path(path, suffix=".png") as tmp:
-        fig.savefig(tmp, format="png", bbox_inches="tight")
+    """Save a figure atomically and close it: PNG, or JPEG for ``.jpg`` (photo-like maps)."""
+    p = Path(path)
+    fmt = "jpeg" if p.suffix.lower() in (".jpg", ".jpeg") else "png"
+    extra = {"pil_kwargs": {"quality": 82, "optimize": True}} if fmt == "jpeg" else {}
+    with atomic_path(p, suffix=p.suffix or ".png") as tmp:
+        fig.savefig(tmp, format=fmt, bbox_inches="tight", dpi=FIGURE_DPI, **extra)
     plt.close(fig)
-    return Path(path)
+    return p

@@ -60,6 +60,23 @@ SUMMARY_HEADERS = [
 ]
 
 
+_SHORT = (
+    ("fewer than 30", "n < 30"),
+    ("fewer than 2", "too few for a test"),
+    ("expect fewer than 5", "few per quadrat"),
+    ("coincid", "coincident points"),
+    ("no points", "empty plot"),
+)
+
+
+def short_warnings(text: str) -> str:
+    """Short flags for a plot's warnings, for the summary table (full text in the plot card)."""
+    if not text:
+        return ""
+    flags = [label for key, label in _SHORT if key in text]
+    return ", ".join(dict.fromkeys(flags)) if flags else text[:40]
+
+
 def _esc(s) -> str:
     return html.escape(str(s))
 
@@ -81,7 +98,7 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
     files.append(
         plot_map_figure(
-            figdir / f"{name}_map.png",
+            figdir / f"{name}_map.jpg",
             plot.geometry,
             xy,
             image=pv[0] if pv else None,
@@ -204,7 +221,8 @@ def write_report(run, stat_settings) -> list[Path]:
         f"from a Monte Carlo test with {stat_settings.simulations} random patterns in the exact "
         f"shape of each plot, at α = {alpha:g}.</p>"
     )
-    summary = intro + table_html(run.rows, SUMMARY_COLUMNS, headers=SUMMARY_HEADERS)
+    short = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in run.rows]
+    summary = intro + table_html(short, SUMMARY_COLUMNS, headers=SUMMARY_HEADERS)
     summary += figure_html(
         files[-1],
         "Clark–Evans R of every plot against its number of plants. Inside the grey band R is "
@@ -299,8 +317,7 @@ def write_report(run, stat_settings) -> list[Path]:
 
 
 def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.compare import comparison_rows
-    from ecoscan.figures.compare import comparison_figure
+    from ecoscan.compare import GROUP_COLUMNS, PAIR_COLUMNS, comparison_rows, group_rows
 
     parts = [
         "<p>Differences between groups of plots: density (exact test for two Poisson "
@@ -310,21 +327,22 @@ def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
         "are adjusted for multiple comparisons (Holm 1979).</p>"
     ]
     for by, res in run.comparisons:
-        rows = comparison_rows(res)
-        files.append(comparison_figure(res, figdir / f"compare_by_{by}.png"))
-        cols = list(rows[0].keys()) if rows else []
-        parts.append(
-            f"<h3>By {by}</h3>"
-            + table_html(rows, cols)
-            + figure_html(files[-1], f"Clark–Evans R per {by} with 95% intervals.")
-        )
+        groups = group_rows(res)
+        pairs = comparison_rows(res)
+        gcols = [c for c in GROUP_COLUMNS if groups and c in groups[0]]
+        pcols = [c for c in PAIR_COLUMNS if pairs and c in pairs[0]]
+        png = run.output / f"compare-by-{by}" / "comparison.png"
+        parts.append(f"<h3>By {_esc(by)}: groups</h3>" + table_html(groups, gcols))
+        if png.exists():
+            parts.append(
+                figure_html(png, f"Clark–Evans R per {by} with 95% intervals, most regular first.")
+            )
+        parts.append(f"<h3>By {_esc(by)}: pairs</h3>" + table_html(pairs, pcols))
     return ReportSection("Comparison", "".join(parts), "comparison")
 
 
 def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.change import change_rows
-    from ecoscan.figures.change import change_map_figure
-    from ecoscan.survey.runner import slug
+    from ecoscan.change import CHANGE_COLUMNS, change_rows
 
     parts = [
         "<p>Plants matched one-to-one between consecutive dates after removing the "
@@ -333,17 +351,16 @@ def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
     ]
     for ch in run.changes:
         rows = change_rows(ch.result)
-        name = slug(f"{ch.site}_{ch.earlier}_{ch.later}")
-        files.append(change_map_figure(ch.result, figdir / f"change_{name}.png"))
         shift = (
             f"Shift found between the mosaics: {ch.result.shift_x_m:+.2f} m east, "
             f"{ch.result.shift_y_m:+.2f} m north."
         )
-        cols = list(rows[0].keys()) if rows else []
+        cols = [c for c in CHANGE_COLUMNS if rows and c in rows[0]]
         parts.append(
             f"<h3>{_esc(ch.site)}: {_esc(ch.earlier)} to {_esc(ch.later)}</h3>"
-            f"<p>{_esc(shift)}</p>"
-            + table_html(rows, cols)
-            + figure_html(files[-1], "Persisting, lost and new plants.")
+            f"<p>{_esc(shift)}</p>" + table_html(rows, cols)
         )
+        png = ch.folder / "change_map.png"
+        if png.exists():
+            parts.append(figure_html(png, "Persisting, lost and new plants."))
     return ReportSection("Change between dates", "".join(parts), "change")

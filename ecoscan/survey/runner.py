@@ -252,7 +252,10 @@ def run_survey(
         run.rasters.append(RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px))
         for row in dispersion_rows(disp):
             run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
-        run.notes += [f"{entry.name}: {n}" for n in notes]
+        for n in notes:
+            text = n if "field check" in n else f"{entry.name}: {n}"
+            if text not in run.notes:
+                run.notes.append(text)
 
     _write_tables(run, stat_settings)
     _run_change(run)

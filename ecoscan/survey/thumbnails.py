@@ -29,7 +29,7 @@ def preview(
     bounds: tuple[float, float, float, float],
     *,
     rgb: bool,
-    max_side: int = 700,
+    max_side: int = 520,
 ) -> tuple[np.ndarray, tuple[float, float, float, float]] | None:
     """Read a reduced-resolution preview of a raster over map bounds.
 
@@ -71,7 +71,9 @@ def preview(
     w_px, h_px = win.width, win.height
     extent = (t.c, t.c + t.a * w_px, t.f + t.e * h_px, t.f)
     if len(bands) == 3:
-        img = np.stack([_stretch(b, valid) for b in data], axis=-1)
+        # one stretch for all three bands keeps the colours true (no hue shift)
+        flat = _stretch(data.reshape(3 * data.shape[1], data.shape[2]), np.tile(valid, (3, 1)))
+        img = np.moveaxis(flat.reshape(data.shape), 0, -1)
     else:
         img = _stretch(data[0], valid)
     return img, extent

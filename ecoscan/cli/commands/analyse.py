@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import logging
 import sys
 
 from ecoscan.analysis import (
@@ -77,8 +76,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the analysis and write the results folder."""
-    # pyogrio reports every layer it writes at INFO level; keep the terminal for results
-    logging.getLogger("pyogrio").setLevel(logging.WARNING)
     settings = DispersionSettings(
         simulations=args.simulations,
         seed=args.seed,
