@@ -116,3 +116,22 @@ def test_mask_raster_restricts_and_labels(tmp_path, capsys):
     one = ids_read == 1.0
     assert np.all((col[one] < 120) & (row[one] < 120))
     assert np.all((col[~one] >= 120) & (row[~one] >= 120))
+
+
+def test_feet_raster_gives_metre_points(tmp_path):
+    # EPSG:2263 is in US survey feet (1 ftUS = 1200/3937 m, NIST): at 0.2 ftUS per pixel
+    # (0.061 m) crowns drawn 14-26 px across are 0.85-1.6 m; points come out in UTM metres.
+    rng = np.random.default_rng(3)
+    shape = (200, 200)
+    xy, d = place_crowns(shape, 30, (14, 26), rng)
+    img = render_orthomosaic(xy, d, shape, rng)
+    path = write_geotiff(
+        tmp_path / "ft.tif", img, from_origin(1000000, 200000, 0.2, 0.2), "EPSG:2263"
+    )
+    ps = 0.2 * 1200 / 3937
+    res = detect_raster(path, DetectionSettings(diameter_min_m=12 * ps, diameter_max_m=28 * ps))
+    assert res.pixel_size_m == pytest.approx(ps)
+    assert res.points.crs.to_epsg() == 32618  # Long Island lies in UTM zone 18N
+    assert res.n >= 27
+    med = np.median(res.points.attrs["diameter_m"])
+    assert med == pytest.approx(np.median(d) * ps, rel=0.15)
