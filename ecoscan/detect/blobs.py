@@ -107,22 +107,60 @@ def blob_scales(
 def _halve(img: np.ndarray) -> np.ndarray:
     """Mean of 2×2 blocks; a partial block at the far edge averages the pixels it has."""
     h, w = img.shape
-    h2, w2 = (h + 1) // 2, (w + 1) // 2
-    pad = np.zeros((h2 * 2, w2 * 2), dtype=np.float32)
-    pad[:h, :w] = img
-    cnt = np.zeros_like(pad)
-    cnt[:h, :w] = 1.0
-    s = pad.reshape(h2, 2, w2, 2).sum(axis=(1, 3))
-    c = cnt.reshape(h2, 2, w2, 2).sum(axis=(1, 3))
-    return (s / c).astype(np.float32)
+    he, we = h - h % 2, w - w % 2
+    out = np.empty(((h + 1) // 2, (w + 1) // 2), dtype=np.float32)
+    acc = img[0:he:2, 0:we:2] + img[1:he:2, 0:we:2]
+    acc += img[0:he:2, 1:we:2]
+    acc += img[1:he:2, 1:we:2]
+    out[: he // 2, : we // 2] = acc * np.float32(0.25)
+    if w % 2:
+        out[: he // 2, -1] = (img[0:he:2, -1] + img[1:he:2, -1]) * np.float32(0.5)
+    if h % 2:
+        out[-1, : we // 2] = (img[-1, 0:we:2] + img[-1, 1:we:2]) * np.float32(0.5)
+    if h % 2 and w % 2:
+        out[-1, -1] = img[-1, -1]
+    return out
 
 
 def _halve_mask(valid: np.ndarray) -> np.ndarray:
+    """A coarse pixel is valid when every fine pixel it covers is valid."""
     h, w = valid.shape
-    h2, w2 = (h + 1) // 2, (w + 1) // 2
-    pad = np.ones((h2 * 2, w2 * 2), dtype=bool)
+    pad = np.ones((h + h % 2, w + w % 2), dtype=bool)
     pad[:h, :w] = valid
-    return pad.reshape(h2, 2, w2, 2).all(axis=(1, 3))
+    return pad[0::2, 0::2] & pad[1::2, 0::2] & pad[0::2, 1::2] & pad[1::2, 1::2]
+
+
+_NEIGHBOURS = [
+    (dz, dy, dx)
+    for dz in (0, -1, 1)
+    for dy in (-1, 0, 1)
+    for dx in (-1, 0, 1)
+    if (dz, dy, dx) != (0, 0, 0)
+]
+
+
+def _scale_space_maxima(
+    resp: np.ndarray, min_response: float, valid: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Positions that reach ``min_response`` and are ≥ all 26 neighbours (inner scales).
+
+    Same result as comparing with a 3×3×3 maximum filter (edges repeated), but only the few
+    pixels above the threshold are compared, 26 vectorised gathers instead of three passes
+    over the whole stack.
+    """
+    _m, h, w = resp.shape
+    cand = resp[1:-1] >= min_response
+    cand &= valid[None]
+    zi, yi, xi = np.nonzero(cand)
+    zi = zi + 1
+    v = resp[zi, yi, xi]
+    for dz, dy, dx in _NEIGHBOURS:
+        if zi.size == 0:
+            break
+        nb = resp[zi + dz, np.clip(yi + dy, 0, h - 1), np.clip(xi + dx, 0, w - 1)]
+        ok = v >= nb
+        zi, yi, xi, v = zi[ok], yi[ok], xi[ok], v[ok]
+    return zi, yi, xi
 
 
 def detect_blobs(
@@ -132,6 +170,7 @@ def detect_blobs(
     min_value: float,
     valid: np.ndarray | None = None,
     origin: tuple[int, int] = (0, 0),
+    background: float = 0.0,
 ) -> dict[str, np.ndarray]:
     """Find bright blobs as maxima of the normalised DoG over position and scale.
 
@@ -152,6 +191,9 @@ def detect_blobs(
         Column and row of the array's first pixel in the raster (multiples of
         ``scales.align``). Positions are returned in raster pixels, computed as an integer
         pixel plus a sub-pixel offset so that tiled and whole-image runs agree to the bit.
+    background : float
+        Layer value assumed beyond the array's edges (bare ground), so that a crown cut by
+        the raster edge is not mirrored into a larger blob centred on the edge.
 
     Returns
     -------
@@ -181,15 +223,14 @@ def detect_blobs(
         blurs = []
         for b in blur_s:
             local = math.sqrt(max(b * b - box_var, 0.04)) / f
-            blurs.append(ndimage.gaussian_filter(level_img, local, truncate=_TRUNCATE))
+            blurs.append(
+                ndimage.gaussian_filter(
+                    level_img, local, truncate=_TRUNCATE, mode="constant", cval=background
+                )
+            )
         resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
         del blurs[-1]
-        peak = ndimage.maximum_filter(resp, size=3, mode="nearest") == resp
-        peak[0] = False
-        peak[-1] = False
-        peak &= resp >= min_response
-        peak &= level_valid[None]
-        zi, yi, xi = np.nonzero(peak)
+        zi, yi, xi = _scale_space_maxima(resp, min_response, level_valid)
         if zi.size == 0:
             continue
         # value: the layer smoothed at the lower blur of the chosen scale, at the centre

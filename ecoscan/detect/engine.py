@@ -113,7 +113,13 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         del data
         layer[~valid] = p.fill_value
         found = blobs.detect_blobs(
-            layer, p.scales, p.min_response, p.min_value, valid, origin=(c0, r0)
+            layer,
+            p.scales,
+            p.min_response,
+            p.min_value,
+            valid,
+            origin=(c0, r0),
+            background=p.fill_value,
         )
         out = {
             "col": found["col"],

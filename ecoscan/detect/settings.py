@@ -124,7 +124,7 @@ class DetectionSettings:
     diameter_max_m: float = 3.0
     threshold: float | None = None
     min_contrast: float | None = None
-    scales_per_octave: int = 3
+    scales_per_octave: int = 4
     min_height_m: float = 2.0
     crown_rule: str = "combined"
     smooth_m: float | None = None
