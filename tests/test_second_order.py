@@ -44,15 +44,19 @@ def test_csr_mean_K_is_pi_r2_and_L_is_r(poly):
     assert abs(np.mean(g[far]) - 1.0) < 0.03
 
 
-def test_estimates_match_brute_force_sums():
+@pytest.mark.parametrize("h", [1.3, 1.0, 0.25], ids=["h-2.6-steps", "h-2-steps", "h-half-step"])
+def test_estimates_match_brute_force_sums(h):
     # the defining double sums evaluated directly over all ordered pairs, with the circle
     # proportion from shapely's clipping of a fine polygonal circle (reference library)
     rng = np.random.default_rng(4)
     xy = uniform_in_polygon(IRREG, 40, rng=rng)
-    res = second_order(xy, IRREG, 8.0, n_r=16, bandwidth_m=1.3)
+    res = second_order(xy, IRREG, 8.0, n_r=16, bandwidth_m=h)
+    # the bandwidth is rounded to whole eighths of the 0.5 m step (documented rule)
+    assert abs(res.bandwidth_m - h) <= 0.5 / 16 + 1e-12
+    h = res.bandwidth_m
     n, area = 40, IRREG.area
     d = np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))
-    ii, jj = np.nonzero((d > 0) & (d <= 8.0 + 1.3))
+    ii, jj = np.nonzero((d > 0) & (d <= 8.0 + h))
     frac = np.array(
         [
             shapely.intersection(
@@ -67,8 +71,8 @@ def test_estimates_match_brute_force_sums():
     b = boundary_distance(xy, IRREG)
     for k, r in enumerate(res.r_m):
         K = area / (n * (n - 1)) * np.sum(w * (dd <= r))
-        t = (r - dd) / 1.3
-        kern = np.where(np.abs(t) < 1, 0.75 / 1.3 * (1 - t**2), 0.0)
+        t = (r - dd) / h
+        kern = np.where(np.abs(t) < 1, 0.75 / h * (1 - t**2), 0.0)
         g = area / (n * (n - 1)) * np.sum(w * kern) / (2 * np.pi * r)
         centres = b >= r
         with np.errstate(invalid="ignore"):
@@ -95,6 +99,9 @@ def test_hard_core_pattern_has_K_zero_below_the_hard_core_distance():
     assert np.all(res.K_iso_m2[below] == 0)
     np.testing.assert_allclose(res.L_minus_r_m[below], -res.r_m[below])
     assert np.all(res.K_iso_m2[res.r_m >= 2.2] > 0)
+    # without jitter every neighbour is at exactly 2 m: K(r) counts d ≤ r, so K jumps at r = 2
+    exact = second_order(np.column_stack([X.ravel(), Y.ravel()]), poly, 10.0, n_r=100)
+    assert exact.K_iso_m2[19] > 0 and exact.K_iso_m2[18] == 0  # r = 2.0 m and 1.9 m
 
 
 def test_thomas_process_is_clustered_at_its_cluster_scale():

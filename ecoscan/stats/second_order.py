@@ -17,7 +17,9 @@ n(n − 1), unbiased for a uniform pattern of n points):
 * K̂(r) = A / (n (n − 1)) · Σ_{i≠j} w_ij 1(d_ij ≤ r)
 * L̂(r) = √(K̂(r) / π), reported also as L̂(r) − r
 * ĝ(r) = A / (n (n − 1)) · Σ_{i≠j} w_ij k_h(r − d_ij) / (2πr), with the Epanechnikov kernel
-  k_h(t) = 3 / (4h) · (1 − t² / h²) on |t| ≤ h and bandwidth h = 0.15 / √λ̂.
+  k_h(t) = 3 / (4h) · (1 − t² / h²) on |t| ≤ h and bandwidth h = 0.15 / √λ̂, rounded to a
+  whole number of eighths of the distance step so that K and g come exactly from one
+  histogram of the pairs (a change of at most 1/16 of the step).
 * border: K̂_b(r) = A / (n − 1) · Σ_{i: b_i ≥ r} Σ_j 1(d_ij ≤ r) / #{i: b_i ≥ r}, and ĝ_b the
   same with the kernel in place of the indicator, divided by 2πr.
 
@@ -50,6 +52,7 @@ __all__ = [
     "pcf_bandwidth",
     "r_grid",
     "second_order",
+    "snap_bandwidth",
 ]
 
 #: c in the pair-correlation bandwidth rule h = c / √λ (Stoyan & Stoyan 1994; from memory).
@@ -220,11 +223,11 @@ class PairTable:
         b = self.boundary_m[order]
         pairs = cKDTree(sxy).query_pairs(reach_m, output_type="ndarray")
         si, sj = pairs[:, 0], pairs[:, 1]
-        x, y = sxy[:, 0], sxy[:, 1]
-        self.d = np.hypot(x[si] - x[sj], y[si] - y[sj])
+        z = sxy[:, 0] + 1j * sxy[:, 1]  # one gather per end instead of two
+        self.d = np.abs(z[si] - z[sj])
         table = EdgeTable(sxy[:n_near], polygon) if n_near else None
-        self.w_i = self._weights(si, b, n_near, table)
-        self.w_j = self._weights(sj, b, n_near, table)
+        self._need_i, self._wt_i = self._weights(si, b, table)
+        self._need_j, self._wt_j = self._weights(sj, b, table)
         self._order, self._si, self._sj = order, si, sj
 
     @property
@@ -237,44 +240,84 @@ class PairTable:
         """Index (into the input points) of each pair's second point."""
         return self._order[self._sj]
 
-    def _weights(self, ends: np.ndarray, b: np.ndarray, n_near: int, table) -> np.ndarray:
-        w = np.ones(self.d.size)
-        cand = np.flatnonzero(ends < n_near)
-        need = cand[self.d[cand] > b[ends[cand]]]
+    def _full(self, need: np.ndarray, wt: np.ndarray, base: float) -> np.ndarray:
+        w = np.full(self.d.size, base)
+        w[need] += wt - 1.0
+        return w
+
+    @property
+    def w_i(self) -> np.ndarray:
+        """Isotropic weight of each pair seen from its first point."""
+        return self._full(self._need_i, self._wt_i, 1.0)
+
+    @property
+    def w_j(self) -> np.ndarray:
+        """Isotropic weight of each pair seen from its second point."""
+        return self._full(self._need_j, self._wt_j, 1.0)
+
+    @property
+    def w_sum(self) -> np.ndarray:
+        """w_i + w_j: the weight of the unordered pair in K and g."""
+        w = self._full(self._need_i, self._wt_i, 2.0)
+        w[self._need_j] += self._wt_j - 1.0
+        return w
+
+    def _weights(self, ends: np.ndarray, b: np.ndarray, table) -> tuple[np.ndarray, np.ndarray]:
+        # only the ends whose circle reaches the boundary (d > b) have a weight other than 1;
+        # they are all among the first n_near points, which the edge table holds
+        need = np.flatnonzero(self.d > b[ends])
+        wt = np.empty(need.size)
         for s in range(0, need.size, _PAIR_CHUNK):
             idx = need[s : s + _PAIR_CHUNK]
             frac = table.fraction(ends[idx], self.d[idx])
-            w[idx] = 1.0 / np.maximum(frac, 1e-9)
-        return w
+            wt[s : s + _PAIR_CHUNK] = 1.0 / np.maximum(frac, 1e-9)
+        return need, wt
 
 
-def _cumulative(d: np.ndarray, w: np.ndarray, dr: float, n_r: int) -> np.ndarray:
-    """Σ w · 1(d ≤ r_k) for k = 1..n_r."""
-    k = np.minimum(np.ceil(d / dr - 1e-9), n_r + 1).astype(np.intp)
-    return np.cumsum(np.bincount(k, weights=w, minlength=n_r + 2))[1 : n_r + 1]
+#: Sub-steps per distance step in the pair histogram; the bandwidth is a whole number of them.
+SUBSTEPS = 8
 
 
-def _epanechnikov_sums(d: np.ndarray, w: np.ndarray, dr: float, n_r: int, h: float) -> np.ndarray:
-    """Σ w · k_h(r_k − d) for k = 1..n_r with the Epanechnikov kernel, exactly.
+def snap_bandwidth(h: float, dr: float) -> float:
+    """The bandwidth rounded to a whole number of 1/8 distance steps (at least one).
 
-    On its support the kernel is a quadratic in d, 3/(4h) · (1 − (r − d)² / h²), so the sum is
-    a combination of Σ w, Σ w d and Σ w d² over the pairs with |r_k − d| < h; those window
-    sums are differences of cumulative sums, three bincounts each way, with no loop over
-    pairs or offsets.
+    With h a multiple of dr / 8, every window end r_k ± h falls on one fine grid, so K and g
+    come exactly from one histogram of the pairs. The change is at most dr / 16.
     """
-    q = d / dr
-    lo = np.clip(np.floor(q - h / dr) + 1, 0, n_r + 1).astype(np.intp)  # first k with r_k + h > d
-    hi = np.clip(np.ceil(q + h / dr), 0, n_r + 1).astype(np.intp)  # first k with r_k - h >= d
-    sums = []
+    step = dr / SUBSTEPS
+    return float(max(1, round(h / step)) * step)
+
+
+def _k_and_kernel_sums(
+    d: np.ndarray, w: np.ndarray, dr: float, n_r: int, h: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Σ w · 1(d ≤ r_k) and Σ w · k_h(r_k − d) (Epanechnikov) for k = 1..n_r, exactly.
+
+    ``h`` must be a whole number H of sub-steps δ = dr / 8 (:func:`snap_bandwidth`). On its
+    support the kernel is a quadratic in d, 3/(4h) · (1 − (r − d)² / h²), so its sum is a
+    combination of Σ w, Σ w d and Σ w d² over the pairs with r_k − h < d < r_k + h. The pairs
+    are binned once into right-closed cells ((c − 1)δ, cδ] with the three moments (three
+    bincounts); K(r_k) and the window sums are differences of cumulative sums at cell edges.
+    """
+    m = SUBSTEPS
+    big_h = round(h * m / dr)
+    q = d * (m / dr)
+    q -= 1e-9  # a pair at exactly r_k counts in K(r_k)
+    cell = q.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
+    n_cells = m * n_r + big_h + 4
     wd = w * d
+    cums = []
     for v in (w, wd, wd * d):
-        c = np.bincount(lo, weights=v, minlength=n_r + 2) - np.bincount(
-            hi, weights=v, minlength=n_r + 2
-        )
-        sums.append(np.cumsum(c)[1 : n_r + 1])
-    s0, s1, s2 = sums
-    r = dr * np.arange(1, n_r + 1)
-    return 0.75 / h * ((1.0 - (r / h) ** 2) * s0 + 2.0 * r / h**2 * s1 - s2 / h**2)
+        c = np.cumsum(np.bincount(cell, weights=v, minlength=n_cells))
+        cums.append(np.r_[0.0, c])  # cums[p] = Σ over d <= p δ
+    k = np.arange(1, n_r + 1)
+    K = cums[0][m * k]
+    upper = m * k + big_h
+    lower = m * k - big_h
+    s0, s1, s2 = (cm[upper] - np.where(lower > 0, cm[np.maximum(lower, 0)], 0.0) for cm in cums)
+    r = dr * k
+    kern = 0.75 / h * ((1.0 - (r / h) ** 2) * s0 + 2.0 * r / h**2 * s1 - s2 / h**2)
+    return K, kern
 
 
 def _kernel_sums(
@@ -336,7 +379,9 @@ def second_order(
     n_r : int
         Number of distances r_k = k · r_max / n_r.
     bandwidth_m : float, optional
-        Kernel bandwidth for g, metres (default 0.15 / √λ, :func:`pcf_bandwidth`).
+        Kernel bandwidth for g, metres (default 0.15 / √λ, :func:`pcf_bandwidth`); rounded
+        to a whole number of eighths of the distance step (:func:`snap_bandwidth`), and the
+        value used is in the result.
     border : bool
         Also compute the border-corrected K and g (NaN otherwise).
     boundary_m : numpy.ndarray, optional
@@ -363,12 +408,14 @@ def second_order(
     if n < 2:
         return SecondOrderResult(r, nan, nan, nan, nan, n, area, float("nan"), 0)
     h = pcf_bandwidth(n / area) if bandwidth_m is None else float(bandwidth_m)
+    h = snap_bandwidth(h, dr)
     pt = PairTable(xy, polygon, r_max_m + h, boundary_m)
     b = pt.boundary_m
-    w = pt.w_i + pt.w_j
+    w = pt.w_sum
     scale = area / (n * (n - 1))
-    K = scale * _cumulative(pt.d, w, dr, n_r)
-    g = scale * _epanechnikov_sums(pt.d, w, dr, n_r, h) / (2 * np.pi * r)
+    k_sum, kern_sum = _k_and_kernel_sums(pt.d, w, dr, n_r, h)
+    K = scale * k_sum
+    g = scale * kern_sum / (2 * np.pi * r)
     if border:
         centres = (n - np.searchsorted(np.sort(b), r, side="left")).astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
