@@ -26,6 +26,7 @@ from ecoscan.errors import InputError
 from ecoscan.inputs import assign_plots
 from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
+from ecoscan.progress import progress
 from ecoscan.stats.compare_r import (
     RChangeTest,
     combine_r_change,
@@ -380,7 +381,8 @@ def detect_change(
         (:func:`ecoscan.stats.shift.estimate_shift`).
     simulations : int
         Monte Carlo simulations for the test of a change in R beyond random losses and
-        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it.
+        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it. Cost: about
+        1 µs per plant per simulation (50 000 plants, 199 simulations: about 20 s).
     seed : int or numpy.random.Generator
         Seed for the simulations and the shift vote; same seed, same numbers.
 
@@ -529,7 +531,7 @@ def detect_change(
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
         e_xys, l_xys, tests = [], [], []
-        for p in plot_list:
+        for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
             sel = plot_id == p.plot_id
             e_xys.append(a_ref[sel & has_e])
             l_xys.append(b_ref[sel & has_l])
