@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 from pathlib import Path
 
@@ -11,6 +12,9 @@ from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, read_points
+
+# GDAL/pyogrio report every layer written at INFO level ("Created N records"); keep quiet.
+logging.getLogger("pyogrio").setLevel(logging.WARNING)
 
 NAME = "change"
 HELP = "follow plants between two dates: persisting, lost and new plants, survival per plot"
