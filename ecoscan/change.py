@@ -28,6 +28,7 @@ from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.stats.compare_r import (
+    PooledR,
     RChangeTest,
     combine_r_change,
     plot_nn,
@@ -284,14 +285,9 @@ def _typical_spacing(xy: np.ndarray) -> float:
     return float(np.median(nn_distances(xy)))
 
 
-def _group_r(xys: list[np.ndarray], plots: list[Plot] | None, window: shapely.Geometry | None):
-    if plots is not None:
-        units = [
-            plot_nn(xy, p.area_m2, float(p.geometry.length))
-            for xy, p in zip(xys, plots, strict=True)
-        ]
-    else:
-        units = [plot_nn(xys[0], float(window.area), float(window.length))]
+def _pooled_r(xys: list[np.ndarray], geoms: list[shapely.Geometry]) -> PooledR:
+    """Clark–Evans R pooled over plots, each plant's neighbour searched in its own plot."""
+    units = [plot_nn(xy, g.area, g.length) for xy, g in zip(xys, geoms, strict=True)]
     return pooled_clark_evans(units)
 
 
@@ -536,16 +532,17 @@ def detect_change(
             e_xys.append(a_ref[sel & has_e])
             l_xys.append(b_ref[sel & has_l])
             tests.append(mc(sel, p.geometry))
-            r1 = _group_r([e_xys[-1]], [p], None)
-            r2 = _group_r([l_xys[-1]], [p], None)
+            r1 = _pooled_r([e_xys[-1]], [p.geometry])
+            r2 = _pooled_r([l_xys[-1]], [p.geometry])
             rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
         inside = plot_id != ""
+        geoms = [p.geometry for p in plot_list]
         overall = _row(
             OVERALL_ID,
             float(sum(p.area_m2 for p in plot_list)),
             status[inside],
-            _group_r(e_xys, plot_list, None),
-            _group_r(l_xys, plot_list, None),
+            _pooled_r(e_xys, geoms),
+            _pooled_r(l_xys, geoms),
             None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
         )
     elif window is None:  # plot ids from attributes, no areas
@@ -559,8 +556,8 @@ def detect_change(
             OVERALL_ID,
             float(window.area),
             status,
-            _group_r([a_ref[has_e]], None, window),
-            _group_r([b_ref[has_l]], None, window),
+            _pooled_r([a_ref[has_e]], [window]),
+            _pooled_r([b_ref[has_l]], [window]),
             mc(everything, window),
         )
     missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]

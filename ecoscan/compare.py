@@ -205,7 +205,7 @@ def _read_dispersion(path: Path) -> list[dict[str, str]]:
             rows = list(csv.DictReader(fh))
     except UnicodeDecodeError:
         raise InputError(f"{path} is not a UTF-8 CSV file; rewrite it with ecoscan") from None
-    if not rows or "plot_id" not in (rows[0].keys() if rows else []):
+    if not rows or "plot_id" not in rows[0]:
         raise InputError(
             f"{path} has no rows or no plot_id column; it should be an ecoscan dispersion table"
         )
@@ -213,7 +213,12 @@ def _read_dispersion(path: Path) -> list[dict[str, str]]:
 
 
 def _read_plot_geoms(path: Path, points_crs) -> dict[tuple[str, str], shapely.Geometry]:
-    """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field."""
+    """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field.
+
+    Not :func:`ecoscan.vector.read_plots`, which rightly refuses repeated plot ids in user
+    input: a survey's ``plots.gpkg`` may hold plot ``P1`` of several sites, told apart by a
+    ``site`` field. The outlines were validated when the analysis wrote them.
+    """
     try:
         meta, _fid, wkb, data = pyogrio.raw.read(path, layer="plots")
     except Exception:
