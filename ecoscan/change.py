@@ -26,7 +26,9 @@ from ecoscan.errors import InputError
 from ecoscan.inputs import assign_plots
 from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
+from ecoscan.progress import progress
 from ecoscan.stats.compare_r import (
+    PooledR,
     RChangeTest,
     combine_r_change,
     plot_nn,
@@ -283,14 +285,9 @@ def _typical_spacing(xy: np.ndarray) -> float:
     return float(np.median(nn_distances(xy)))
 
 
-def _group_r(xys: list[np.ndarray], plots: list[Plot] | None, window: shapely.Geometry | None):
-    if plots is not None:
-        units = [
-            plot_nn(xy, p.area_m2, float(p.geometry.length))
-            for xy, p in zip(xys, plots, strict=True)
-        ]
-    else:
-        units = [plot_nn(xys[0], float(window.area), float(window.length))]
+def _pooled_r(xys: list[np.ndarray], geoms: list[shapely.Geometry]) -> PooledR:
+    """Clark–Evans R pooled over plots, each plant's neighbour searched in its own plot."""
+    units = [plot_nn(xy, g.area, g.length) for xy, g in zip(xys, geoms, strict=True)]
     return pooled_clark_evans(units)
 
 
@@ -380,7 +377,8 @@ def detect_change(
         (:func:`ecoscan.stats.shift.estimate_shift`).
     simulations : int
         Monte Carlo simulations for the test of a change in R beyond random losses and
-        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it.
+        recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it. Cost: about
+        1 µs per plant per simulation (50 000 plants, 199 simulations: about 20 s).
     seed : int or numpy.random.Generator
         Seed for the simulations and the shift vote; same seed, same numbers.
 
@@ -529,21 +527,22 @@ def detect_change(
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
         e_xys, l_xys, tests = [], [], []
-        for p in plot_list:
+        for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
             sel = plot_id == p.plot_id
             e_xys.append(a_ref[sel & has_e])
             l_xys.append(b_ref[sel & has_l])
             tests.append(mc(sel, p.geometry))
-            r1 = _group_r([e_xys[-1]], [p], None)
-            r2 = _group_r([l_xys[-1]], [p], None)
+            r1 = _pooled_r([e_xys[-1]], [p.geometry])
+            r2 = _pooled_r([l_xys[-1]], [p.geometry])
             rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
         inside = plot_id != ""
+        geoms = [p.geometry for p in plot_list]
         overall = _row(
             OVERALL_ID,
             float(sum(p.area_m2 for p in plot_list)),
             status[inside],
-            _group_r(e_xys, plot_list, None),
-            _group_r(l_xys, plot_list, None),
+            _pooled_r(e_xys, geoms),
+            _pooled_r(l_xys, geoms),
             None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
         )
     elif window is None:  # plot ids from attributes, no areas
@@ -557,8 +556,8 @@ def detect_change(
             OVERALL_ID,
             float(window.area),
             status,
-            _group_r([a_ref[has_e]], None, window),
-            _group_r([b_ref[has_l]], None, window),
+            _pooled_r([a_ref[has_e]], [window]),
+            _pooled_r([b_ref[has_l]], [window]),
             mc(everything, window),
         )
     missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]

@@ -43,7 +43,7 @@ from ecoscan.stats.compare_r import (
     r_permutation_test,
 )
 from ecoscan.stats.rates import holm_adjust, poisson_rate_test
-from ecoscan.vector import read_points, reproject_geometries
+from ecoscan.vector import PlotLayer, read_points, reproject_geometries
 
 __all__ = [
     "BY_CHOICES",
@@ -56,6 +56,7 @@ __all__ = [
     "comparison_rows",
     "group_rows",
     "read_results",
+    "results_from_points",
     "write_comparison",
 ]
 
@@ -204,7 +205,7 @@ def _read_dispersion(path: Path) -> list[dict[str, str]]:
             rows = list(csv.DictReader(fh))
     except UnicodeDecodeError:
         raise InputError(f"{path} is not a UTF-8 CSV file; rewrite it with ecoscan") from None
-    if not rows or "plot_id" not in (rows[0].keys() if rows else []):
+    if not rows or "plot_id" not in rows[0]:
         raise InputError(
             f"{path} has no rows or no plot_id column; it should be an ecoscan dispersion table"
         )
@@ -212,7 +213,12 @@ def _read_dispersion(path: Path) -> list[dict[str, str]]:
 
 
 def _read_plot_geoms(path: Path, points_crs) -> dict[tuple[str, str], shapely.Geometry]:
-    """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field."""
+    """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field.
+
+    Not :func:`ecoscan.vector.read_plots`, which rightly refuses repeated plot ids in user
+    input: a survey's ``plots.gpkg`` may hold plot ``P1`` of several sites, told apart by a
+    ``site`` field. The outlines were validated when the analysis wrote them.
+    """
     try:
         meta, _fid, wkb, data = pyogrio.raw.read(path, layer="plots")
     except Exception:
@@ -320,6 +326,66 @@ def read_results(folder: str | os.PathLike, *, label: str | None = None) -> Resu
         sel = (pid == p) & (site == s) & (date == t)
         units.append(PlotUnit(lab, s, t, p, plot_nn(xy[sel], area, perim)))
     return ResultsTable(d, lab, disp, pts, units, has_site, has_date, notes)
+
+
+def results_from_points(
+    points: PointSet,
+    layer: PlotLayer,
+    *,
+    label: str,
+    plot_index: np.ndarray | None = None,
+) -> ResultsTable:
+    """Build a :class:`ResultsTable` in memory, without a results folder.
+
+    Parameters
+    ----------
+    points : PointSet
+        Analysed points, metres. Optional ``site`` and ``date`` attributes split them into
+        sites and dates; plot membership comes from ``plot_index`` or a ``plot_id``
+        attribute.
+    layer : PlotLayer
+        The plots, in the points' CRS. A plot belongs to a site when its ``site`` attribute
+        says so or, without that attribute, when it holds plants of that site on any date;
+        it then counts on every date of that site, also when it holds no plants then.
+    label : str
+        Name of this set of results (the group name for ``by='folder'``).
+    plot_index : numpy.ndarray of int, optional
+        Index into ``layer.plots`` per point, -1 outside (as from
+        :func:`ecoscan.inputs.assign_plots`).
+
+    Returns
+    -------
+    ResultsTable
+    """
+    ids = np.array([p.plot_id for p in layer.plots] + [""], dtype=object)
+    if plot_index is not None:
+        pid = ids[np.asarray(plot_index, dtype=np.int64)]
+    else:
+        pid = _attr_text(points, "plot_id")
+        if pid is None:
+            raise InputError(f"{label}: the points have no plot_id; pass plot_index")
+    site = _attr_text(points, "site")
+    date = _attr_text(points, "date")
+    has_site, has_date = site is not None, date is not None
+    n = points.n
+    site = site if site is not None else np.full(n, "", dtype=object)
+    date = date if date is not None else np.full(n, "", dtype=object)
+    combos = list(dict.fromkeys(zip(site, date, strict=True))) or [("", "")]
+    xy = points.xy
+    units = []
+    for s, t in combos:
+        here = (site == s) & (date == t)
+        of_site = site == s
+        for plot in layer.plots:
+            own = plot.attrs.get("site") if isinstance(plot.attrs, dict) else None
+            if own is not None and _text(own) != s:
+                continue
+            if own is None and has_site and not np.any(of_site & (pid == plot.plot_id)):
+                continue
+            sel = here & (pid == plot.plot_id)
+            g = plot.geometry
+            units.append(PlotUnit(label, s, t, plot.plot_id, plot_nn(xy[sel], g.area, g.length)))
+    return ResultsTable(Path("."), label, [], points, units, has_site, has_date, [])
 
 
 # ---------------------------------------------------------------------------- comparing

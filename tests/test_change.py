@@ -296,3 +296,18 @@ def test_count_change_fields_are_finite():
     for row in change_rows(r):
         for k in ("survival", "R_earlier", "R_later", "p_R_change", "p_R_change_mc"):
             assert math.isfinite(row[k]), k
+
+
+def test_cli_change_accepts_results_folders(tmp_path, capsys):
+    earlier, later, *_ = _scenario(seed=16)
+    for name, pts in (("spring", earlier), ("autumn", later)):
+        (tmp_path / name).mkdir()
+        write_points(pts, tmp_path / name / "points.csv")
+        write_plots(_layer(), tmp_path / name / "plots.gpkg")
+    out = tmp_path / "chg"
+    code = main(["change", str(tmp_path / "spring"), str(tmp_path / "autumn"), "--tolerance",
+                 "0.5", "-o", str(out), "--simulations", "0"])  # fmt: skip
+    assert code == 0
+    assert "plots taken from" in capsys.readouterr().err
+    ids = [line.split(",")[0] for line in (out / "change.csv").read_text().splitlines()[1:]]
+    assert ids == ["A", "B", "all"]

@@ -254,3 +254,41 @@ def test_cli_compare_bad_folder_exits_2_and_writes_nothing(tmp_path, stands, cap
     err = capsys.readouterr().err
     assert code == 2 and err.startswith("error: ") and len(err.strip().splitlines()) == 1
     assert not out.exists()
+
+
+def test_results_from_points_in_memory_matches_folder(tmp_path):
+    from ecoscan.compare import results_from_points
+    from ecoscan.inputs import load_points_and_plots
+
+    f = make_folder(tmp_path / "r", ["planted", "random"], seed=11)
+    g = make_folder(tmp_path / "s", ["random", "random"], seed=12, offset=500)
+    disk = compare_groups([read_results(f), read_results(g)], "folder", permutations=199)
+    mem = []
+    for folder in (f, g):
+        si = load_points_and_plots(folder / "points.csv", folder / "plots.gpkg")
+        mem.append(results_from_points(si.points, si.layer, label=folder.name,
+                                       plot_index=si.plot_index))  # fmt: skip
+    memory = compare_groups(mem, "folder", permutations=199)
+    a, b = comparison_rows(disk)[0], comparison_rows(memory)[0]
+    for k in ("n_a", "n_b", "R_a", "R_b", "p_density", "p_R_perm", "p_ks"):
+        assert a[k] == pytest.approx(b[k]), k
+
+
+def test_results_from_points_keeps_sites_apart():
+    from ecoscan.compare import results_from_points
+
+    rng = np.random.default_rng(13)
+    p1, p2 = shapely.box(0, 0, 30, 30), shapely.box(100, 0, 130, 30)
+    xy = np.vstack([uniform_in_polygon(p1, 80, rng=rng), uniform_in_polygon(p2, 90, rng=rng)])
+    attrs = {
+        "site": np.array(["north"] * 80 + ["south"] * 90, dtype=object),
+        "plot_id": np.array(["N1"] * 80 + ["S1"] * 90, dtype=object),
+    }
+    layer = PlotLayer([Plot("N1", p1), Plot("S1", p2)], None)
+    t = results_from_points(PointSet(xy[:, 0], xy[:, 1], attrs), layer, label="survey")
+    assert [(u.site, u.plot_id, u.nn.n) for u in t.units] == [
+        ("north", "N1", 80),
+        ("south", "S1", 90),
+    ]
+    res = compare_groups([t], "site", permutations=99)
+    assert {g.name: g.n for g in res.groups} == {"north": 80, "south": 90}

@@ -91,7 +91,7 @@ def change_map(
         ax.scatter(
             x[m] - x0,
             y[m] - y0,
-            s=size * (1.6 if s != "persisting" else 1.0),
+            s=size if s == "persisting" else max(3.0 * size, 22.0),
             marker=MARKERS[s],
             color=PALETTE[s],
             label=f"{_LABELS[s]} ({int(m.sum())})",

@@ -321,16 +321,16 @@ def r_permutation_test(
     with k the count at least as extreme as observed. With one plot per group no
     re-labelling other than the swap exists and the p-value is NaN.
     """
-    sa, _na, _aa, ea, *_ = _unit_arrays(units_a, expected)
-    sb, _nb, _ab, eb, *_ = _unit_arrays(units_b, expected)
-    ma, mb = sa.size, sb.size
+    part_a = _unit_arrays(units_a, expected)
+    part_b = _unit_arrays(units_b, expected)
+    ma, mb = part_a[0].size, part_b[0].size
     nan = float("nan")
     if ma == 0 or mb == 0:
         return RPermutationTest(nan, nan, 0, False, nan)
-    s = np.concatenate([sa, sb])
-    e = np.concatenate([ea, eb])
-    n_all = np.concatenate([_na, _nb])
-    a_all = np.concatenate([_aa, _ab])
+    # per plot: summed NN distances, plants, area, expected sum under CSR
+    s, n_all, a_all, e = (
+        np.concatenate([x, y]) for x, y in zip(part_a[:4], part_b[:4], strict=True)
+    )
 
     def stat(mask: np.ndarray) -> np.ndarray:
         # mask: (k, m) boolean, True = group a

@@ -3,12 +3,18 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
+from pathlib import Path
 
 from ecoscan.change import change_rows, detect_change, write_change
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
+from ecoscan.errors import InputError
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, read_points
+
+# GDAL/pyogrio report every layer written at INFO level ("Created N records"); keep quiet.
+logging.getLogger("pyogrio").setLevel(logging.WARNING)
 
 NAME = "change"
 HELP = "follow plants between two dates: persisting, lost and new plants, survival per plot"
@@ -71,8 +77,16 @@ def _show_p(rows: list[dict], columns) -> list[dict]:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan change``."""
-    p.add_argument("earlier", metavar="EARLIER", help="plant points of the earlier date")
-    p.add_argument("later", metavar="LATER", help="plant points of the later date")
+    p.add_argument(
+        "earlier",
+        metavar="EARLIER",
+        help="plant points of the earlier date (a points file, or an analyse results folder)",
+    )
+    p.add_argument(
+        "later",
+        metavar="LATER",
+        help="plant points of the later date (a points file, or an analyse results folder)",
+    )
     p.add_argument(
         "--tolerance",
         type=float,
@@ -100,14 +114,37 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
 
 
+def _points_file(path: str) -> Path:
+    """A points file, or ``points.csv`` inside a results folder."""
+    p = Path(path)
+    if p.is_dir():
+        if not (p / "points.csv").exists():
+            raise InputError(
+                f"{p} is a folder without points.csv; give a points file or a results folder "
+                "of 'ecoscan analyse'"
+            )
+        return p / "points.csv"
+    return p
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan change``."""
-    earlier = read_points(args.earlier, args.crs)
-    later = read_points(args.later, args.crs)
+    earlier_path, later_path = _points_file(args.earlier), _points_file(args.later)
+    earlier = read_points(earlier_path, args.crs)
+    later = read_points(later_path, args.crs)
+    plots_path = args.plots
+    extra_notes = []
+    if (
+        plots_path is None
+        and (earlier_path.parent / "plots.gpkg").exists()
+        and Path(args.earlier).is_dir()
+    ):
+        plots_path = earlier_path.parent / "plots.gpkg"
+        extra_notes.append(f"plots taken from {plots_path} (the earlier results folder)")
     plots = None
-    if args.plots:
+    if plots_path:
         plots = read_plots(
-            args.plots,
+            plots_path,
             target_crs=earlier.crs,
             id_field=args.id_field,
             points_have_crs=earlier.crs is not None,
@@ -122,7 +159,7 @@ def run(args: argparse.Namespace) -> int:
         seed=args.seed,
     )
     paths = write_change(args.out, result)
-    notes = list(result.notes) + ([] if plots is None else plots.notes)
+    notes = extra_notes + list(result.notes) + ([] if plots is None else plots.notes)
     print_notes(notes, args.quiet)
     for w in result.warnings:
         print(f"warning: {w}", file=sys.stderr)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 
 from ecoscan.cli._common import print_notes
@@ -15,6 +16,9 @@ from ecoscan.compare import (
     write_comparison,
 )
 from ecoscan.tables import format_table
+
+# GDAL/pyogrio report every layer written at INFO level ("Created N records"); keep quiet.
+logging.getLogger("pyogrio").setLevel(logging.WARNING)
 
 NAME = "compare"
 HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"
