@@ -5,11 +5,10 @@ import os
 import numpy as np
 import pytest
 import shapely
+from browser import IMAGES_OK_JS, find_chromium, inspect_page
 
 from ecoscan.figures.dispersion import nn_histogram_figure, r_against_n_figure
 from ecoscan.report import ReportSection, build_report, figure_html, table_html
-
-from .browser import IMAGES_OK_JS, find_chromium, inspect_page
 
 
 def _small_report(tmp_path):

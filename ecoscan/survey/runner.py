@@ -175,7 +175,10 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
         pixel_size_m=float(res.pixel_size_m),
         raster=entry.path.name,
     )
-    return res.points, res.method, list(res.notes), False, float(res.pixel_size_m), settings
+    # analyse what was written (coordinates to the millimetre), so that a rerun from the
+    # cache gives byte-identical tables
+    pts = read_points(csv)
+    return pts, res.method, list(res.notes), False, float(res.pixel_size_m), settings
 
 
 def run_survey(
