@@ -100,10 +100,22 @@ def _write_tif(path: Path, arr: np.ndarray, transform, dtype: str, nodata=None, 
     arr = arr if arr.ndim == 3 else arr[None]
     with atomic_path(path) as tmp:
         with rasterio.open(
-            tmp, "w", driver="GTiff", width=arr.shape[2], height=arr.shape[1], count=arr.shape[0],
-            dtype=dtype, transform=transform, crs=CRS_UTM.to_wkt(), nodata=nodata,
-            compress="deflate", predictor=2 if dtype != "float32" else 3, tiled=True,
-            blockxsize=256, blockysize=256, **extra,
+            tmp,
+            "w",
+            driver="GTiff",
+            width=arr.shape[2],
+            height=arr.shape[1],
+            count=arr.shape[0],
+            dtype=dtype,
+            transform=transform,
+            crs=CRS_UTM.to_wkt(),
+            nodata=nodata,
+            compress="deflate",
+            predictor=2 if dtype != "float32" else 3,
+            tiled=True,
+            blockxsize=256,
+            blockysize=256,
+            **extra,
         ) as dst:
             dst.write(arr.astype(dtype))
 
@@ -112,17 +124,27 @@ def _truth_rows(plots, shift=(0.0, 0.0)):
     rows = []
     for p in plots:
         for i, (x, y) in enumerate(p.xy):
-            rows.append({"x": x + shift[0], "y": y + shift[1], "plot_id": p.plot_id,
-                         "diameter_m": p.diameter_m[i], "height_m": p.height_m[i]})
+            rows.append(
+                {
+                    "x": x + shift[0],
+                    "y": y + shift[1],
+                    "plot_id": p.plot_id,
+                    "diameter_m": p.diameter_m[i],
+                    "height_m": p.height_m[i],
+                }
+            )
     return rows
 
 
 def _truth_points(rows) -> PointSet:
     return PointSet(
-        np.array([r["x"] for r in rows]), np.array([r["y"] for r in rows]),
-        {"plot_id": np.array([r["plot_id"] for r in rows], dtype=object),
-         "diameter_m": np.array([r["diameter_m"] for r in rows]),
-         "height_m": np.array([r["height_m"] for r in rows])},
+        np.array([r["x"] for r in rows]),
+        np.array([r["y"] for r in rows]),
+        {
+            "plot_id": np.array([r["plot_id"] for r in rows], dtype=object),
+            "diameter_m": np.array([r["diameter_m"] for r in rows]),
+            "height_m": np.array([r["height_m"] for r in rows]),
+        },
         CRS_UTM,
     )
 
@@ -161,10 +183,32 @@ def main(out: Path = HERE) -> None:
     change = []
     for p in tansy:
         lost = set(log[p.plot_id]["lost"].tolist())
-        change.append({"plot_id": p.plot_id, "spring_n": len(p.xy), "lost": len(lost),
-                       "recruits": len(log[p.plot_id]["recruits"]),
-                       "autumn_n": len(p.xy) - len(lost) + len(log[p.plot_id]["recruits"])})
+        change.append(
+            {
+                "plot_id": p.plot_id,
+                "spring_n": len(p.xy),
+                "lost": len(lost),
+                "recruits": len(log[p.plot_id]["recruits"]),
+                "autumn_n": len(p.xy) - len(lost) + len(log[p.plot_id]["recruits"]),
+            }
+        )
     write_csv(out / "truth" / "tansy_change.csv", change)
+    # every lost shrub (spring position) and every recruit (as it appears in the autumn mosaic)
+    ids, xs, ys, status = [], [], [], []
+    for p in tansy:
+        for x, y in p.xy[log[p.plot_id]["lost"]]:
+            ids.append(p.plot_id), xs.append(x), ys.append(y), status.append("lost")
+        for x, y in log[p.plot_id]["recruits"] + np.asarray(sc.AUTUMN_SHIFT_M):
+            ids.append(p.plot_id), xs.append(x), ys.append(y), status.append("new")
+    write_points(
+        PointSet(
+            np.array(xs),
+            np.array(ys),
+            {"status": np.array(status, dtype=object), "plot_id": np.array(ids, dtype=object)},
+            CRS_UTM,
+        ),
+        out / "truth" / "tansy_lost_and_new.csv",
+    )
 
     # Marrow Wood: canopy height model (spring) and classified map (autumn)
     ox, oy = sc.ORIGIN_MARROW
@@ -187,12 +231,16 @@ def main(out: Path = HERE) -> None:
         "Classes in marrow_autumn_classes.tif (invented): 0 no data, 1 bare ground, "
         "2 grass and litter, 3 tree canopy.\n"
     )
-    write_text(out / "truth" / "README.txt", legend + (
-        "True plant positions of the invented demo survey, made by make_demo.py.\n"
-        "tansy_autumn_plants.csv is given as the plants appear in the autumn mosaic, which is "
-        f"shifted by {sc.AUTUMN_SHIFT_M[0]:+.2f} m east and {sc.AUTUMN_SHIFT_M[1]:+.2f} m north "
-        "against the spring mosaic.\n"
-    ))
+    write_text(
+        out / "truth" / "README.txt",
+        legend
+        + (
+            "True plant positions of the invented demo survey, made by make_demo.py.\n"
+            "tansy_autumn_plants.csv is given as the plants appear in the autumn mosaic, "
+            f"which is shifted by {sc.AUTUMN_SHIFT_M[0]:+.2f} m east and "
+            f"{sc.AUTUMN_SHIFT_M[1]:+.2f} m north against the spring mosaic.\n"
+        ),
+    )
 
 
 if __name__ == "__main__":

@@ -53,7 +53,7 @@ def _hard_core_fill(candidates, min_dist, keep_first=None):
     for c in candidates:
         if not kept or np.min(np.hypot(*(np.asarray(kept) - c).T)) >= min_dist:
             kept.append(c)
-    return np.asarray(kept[0 if keep_first is None else len(keep_first):])
+    return np.asarray(kept[0 if keep_first is None else len(keep_first) :])
 
 
 def _inside(poly, xy, margin):
@@ -80,31 +80,57 @@ def tansy_plots(rng: np.random.Generator) -> list[PlotTruth]:
     out.append(PlotTruth("rows", "Tansy Hollow", "regular", rows, xy, *_shrub_sizes(rng, len(xy))))
     # regen: clusters around 9 seed shrubs in an irregular pentagon
     regen = shapely.Polygon(
-        [(ox + 55, oy + 42), (ox + 100, oy + 40), (ox + 105, oy + 62), (ox + 80, oy + 76),
-         (ox + 57, oy + 70)]
+        [
+            (ox + 55, oy + 42),
+            (ox + 100, oy + 40),
+            (ox + 105, oy + 62),
+            (ox + 80, oy + 76),
+            (ox + 57, oy + 70),
+        ]
     )
     x0, y0, x1, y1 = regen.bounds
-    parents = _inside(regen, np.column_stack([rng.uniform(x0, x1, 60), rng.uniform(y0, y1, 60)]),
-                      5.0)[:9]
+    parents = _inside(
+        regen, np.column_stack([rng.uniform(x0, x1, 60), rng.uniform(y0, y1, 60)]), 5.0
+    )[:9]
     kids = np.vstack([p + rng.normal(0, 1.6, (40, 2)) for p in parents])
     rng.shuffle(kids)
     kids = _inside(regen, kids, 0.6)
     xy = _hard_core_fill(kids, 1.05)[:150]
-    out.append(PlotTruth("regen", "Tansy Hollow", "clustered", regen, xy,
-                         *_shrub_sizes(rng, len(xy), small=True)))
+    out.append(
+        PlotTruth(
+            "regen", "Tansy Hollow", "clustered", regen, xy, *_shrub_sizes(rng, len(xy), small=True)
+        )
+    )
     # scatter: random in an L-shaped plot
     scatter = shapely.Polygon(
-        [(ox + 5, oy + 4), (ox + 60, oy + 4), (ox + 60, oy + 18), (ox + 25, oy + 18),
-         (ox + 25, oy + 34), (ox + 5, oy + 34)]
+        [
+            (ox + 5, oy + 4),
+            (ox + 60, oy + 4),
+            (ox + 60, oy + 18),
+            (ox + 25, oy + 18),
+            (ox + 25, oy + 34),
+            (ox + 5, oy + 34),
+        ]
     )
     xy = _random(scatter, 75, rng, 0.9, 0.6)
-    out.append(PlotTruth("scatter", "Tansy Hollow", "random", scatter, xy,
-                         *_shrub_sizes(rng, len(xy), small=True)))
+    out.append(
+        PlotTruth(
+            "scatter",
+            "Tansy Hollow",
+            "random",
+            scatter,
+            xy,
+            *_shrub_sizes(rng, len(xy), small=True),
+        )
+    )
     # corner: small plot under 30 plants
     corner = shapely.box(ox + 75, oy + 8, ox + 95, oy + 28)
     xy = _random(corner, 22, rng, 0.8, 0.6)
-    out.append(PlotTruth("corner", "Tansy Hollow", "random", corner, xy,
-                         *_shrub_sizes(rng, len(xy), small=True)))
+    out.append(
+        PlotTruth(
+            "corner", "Tansy Hollow", "random", corner, xy, *_shrub_sizes(rng, len(xy), small=True)
+        )
+    )
     return out
 
 
@@ -130,16 +156,18 @@ def autumn_change(
         alive = np.setdiff1d(np.arange(n), lost)
         k = max(1, round(recruits * n))
         x0, y0, x1, y1 = p.polygon.bounds
-        cand = _inside(p.polygon,
-                       np.column_stack([rng.uniform(x0, x1, 50 * k), rng.uniform(y0, y1, 50 * k)]),
-                       0.6)
+        cand = _inside(
+            p.polygon,
+            np.column_stack([rng.uniform(x0, x1, 50 * k), rng.uniform(y0, y1, 50 * k)]),
+            0.6,
+        )
         if p.pattern == "clustered":  # seedlings come up close to surviving shrubs
             near = p.xy[alive][rng.choice(len(alive), 50 * k)] + rng.normal(0, 1.5, (50 * k, 2))
             cand = _inside(p.polygon, near, 0.6)
         new = _hard_core_fill(cand, 1.3, keep_first=list(p.xy[alive]))[:k]
         xy = np.vstack([p.xy[alive], new])
         d = np.r_[p.diameter_m[alive] * 1.05, rng.uniform(0.7, 0.8, len(new))]
-        h = np.r_[p.height_m[alive] * 1.05, 0.4 + 0.8 * d[len(alive):]]
+        h = np.r_[p.height_m[alive] * 1.05, 0.4 + 0.8 * d[len(alive) :]]
         out.append(PlotTruth(p.plot_id, p.site, p.pattern, p.polygon, xy, d, h))
         log[p.plot_id] = {"lost": lost, "recruits": new}
     return out, log

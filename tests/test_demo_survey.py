@@ -145,3 +145,33 @@ def test_detected_points_are_inside_plots(demo_run):
     _cfg, run = demo_run
     for rr in run.rasters:
         assert np.all(rr.inputs.plot_index >= 0)
+
+
+def test_change_finds_the_lost_and_new_plants(demo_run):
+    """Recall and precision of lost and new plants against the demo's known turnover."""
+    _cfg, run = demo_run
+    ch = run.changes[0]
+    plants = read_points(ch.folder / "plants.csv")
+    truth = read_points(DEMO / "truth" / "tansy_lost_and_new.csv")
+    for status, (xcol, ycol) in (
+        ("lost", ("x_earlier_m", "y_earlier_m")),
+        ("new", ("x_later_m", "y_later_m")),
+    ):
+        got = plants.attrs["status"] == status
+        xy = np.column_stack([plants.attrs[xcol][got], plants.attrs[ycol][got]])
+        ref = truth.xy[truth.attrs["status"] == status]
+        m = match_points(xy, ref, 0.5)
+        assert m.n_matched / len(ref) >= 0.9, (status, m.n_matched, len(ref))
+        assert m.n_matched / len(xy) >= 0.85, (status, m.n_matched, len(xy))
+
+
+def test_compare_ranks_regularity_as_built(demo_run):
+    _cfg, run = demo_run
+    from ecoscan.compare import group_rows
+
+    res = dict(run.comparisons)["plot"]
+    rank = {r["group"].split("/")[-1]: r["rank_regularity"] for r in group_rows(res)}
+    regular = [rank[p] for p, k in BUILT_AS.items() if k == "regular"]
+    random_ = [rank[p] for p, k in BUILT_AS.items() if k == "random"]
+    clustered = [rank[p] for p, k in BUILT_AS.items() if k == "clustered"]
+    assert max(regular) < min(random_) and max(random_) < min(clustered), rank
