@@ -107,12 +107,17 @@ def _vote(a: np.ndarray, b: np.ndarray, radius: float, bandwidth: float, gen) ->
     cap = int(max(500, 2e6 / max(per_point, 1e-9)))
     if len(a) > cap:
         a = a[np.sort(gen.choice(len(a), cap, replace=False))]
-    pairs = cKDTree(a).sparse_distance_matrix(cKDTree(b), radius, output_type="ndarray")
-    if pairs.size == 0:
-        return np.zeros(2)
-    # (exactly coincident pairs are dropped by sparse_distance_matrix; they are a single
-    # vector of zero length and cannot change the mode of a cloud of candidates)
+    tb = cKDTree(b)
+    pairs = cKDTree(a).sparse_distance_matrix(tb, radius, output_type="ndarray")
     vec = b[pairs["j"]] - a[pairs["i"]]
+    # sparse_distance_matrix drops exactly coincident pairs (distance 0); add them back, or
+    # two identical surveys would lose every true pair
+    d0, _j0 = tb.query(a, k=1, distance_upper_bound=1e-9)
+    n_zero = int(np.sum(d0 == 0.0))
+    if n_zero:
+        vec = np.vstack([vec, np.zeros((n_zero, 2))])
+    if len(vec) == 0:
+        return np.zeros(2)
     tree = cKDTree(vec)
     probe = vec
     if len(vec) > 20000:  # vote with a seeded subsample of candidates, count against all
