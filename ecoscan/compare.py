@@ -574,6 +574,12 @@ def compare_groups(
     notes: list[str] = []
     for r in results:
         notes += [n for n in r.notes if n not in notes]
+    crss = {crs_label(r.points.crs) for r in results}
+    if len(crss) > 1:
+        notes.append(
+            f"the folders use {len(crss)} different CRSs ({'; '.join(sorted(crss))}); each is "
+            "measured in its own metric CRS, which is all that distances and areas need"
+        )
     if by == "auto":
         by = "site" if all(r.has_site for r in results) else "folder"
         if by == "folder" and len(results) == 1:
