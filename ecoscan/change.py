@@ -527,6 +527,13 @@ def detect_change(
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
         e_xys, l_xys, tests = [], [], []
+        empty = [p.plot_id for p in plot_list if not np.any(plot_id == p.plot_id)]
+        if empty:
+            notes.append(
+                f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, or "
+                "outside both surveys) and are left out of the rows and of the overall area"
+            )
+        plot_list = [p for p in plot_list if p.plot_id not in set(empty)]
         for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
             sel = plot_id == p.plot_id
             e_xys.append(a_ref[sel & has_e])

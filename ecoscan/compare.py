@@ -574,6 +574,12 @@ def compare_groups(
     notes: list[str] = []
     for r in results:
         notes += [n for n in r.notes if n not in notes]
+    crss = {crs_label(r.points.crs) for r in results}
+    if len(crss) > 1:
+        notes.append(
+            f"the folders use {len(crss)} different CRSs ({'; '.join(sorted(crss))}); each is "
+            "measured in its own metric CRS, which is all that distances and areas need"
+        )
     if by == "auto":
         by = "site" if all(r.has_site for r in results) else "folder"
         if by == "folder" and len(results) == 1:
@@ -610,10 +616,16 @@ def compare_groups(
             "groups) are conservative; use 'ecoscan change' to follow plants between dates"
         )
     if by == "plot":
-        notes.append(
-            "with one plot per group the permutation test cannot run; the z test and the "
-            "distance tests treat plants as independent, which neighbours are not quite"
-        )
+        if any(len({u.date for u in g.units}) > 1 for g in groups):
+            notes.append(
+                "a plot's dates share plants, so its group is not several independent plots: "
+                "the permutation test is conservative; use 'ecoscan change' between dates"
+            )
+        else:
+            notes.append(
+                "with one plot per group the permutation test cannot run; the z test and the "
+                "distance tests treat plants as independent, which neighbours are not quite"
+            )
     rng = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
     pairs = [_pair_row(a, b, int(permutations), rng) for a, b in itertools.combinations(groups, 2)]
     for col in _P_COLUMNS:

@@ -311,3 +311,14 @@ def test_cli_change_accepts_results_folders(tmp_path, capsys):
     assert "plots taken from" in capsys.readouterr().err
     ids = [line.split(",")[0] for line in (out / "change.csv").read_text().splitlines()[1:]]
     assert ids == ["A", "B", "all"]
+
+
+def test_plots_empty_on_both_dates_are_left_out():
+    earlier, later, *_ = _scenario(seed=17)
+    layer = _layer()
+    far = Plot("elsewhere", shapely.box(X0 + 500, Y0, X0 + 540, Y0 + 40))
+    r = detect_change(earlier, later, 0.5, plots=PlotLayer([*layer.plots, far], UTM33),
+                      simulations=0)  # fmt: skip
+    assert [row["plot_id"] for row in r.plots] == ["A", "B"]
+    assert r.overall["area_m2"] == pytest.approx(3200.0)
+    assert any("elsewhere" in n for n in r.notes)

@@ -292,3 +292,20 @@ def test_results_from_points_keeps_sites_apart():
     ]
     res = compare_groups([t], "site", permutations=99)
     assert {g.name: g.n for g in res.groups} == {"north": 80, "south": 90}
+
+
+def test_folders_in_different_crs_are_compared_in_their_own_metres(tmp_path):
+    from ecoscan.crs import transform_xy
+
+    a = make_folder(tmp_path / "a", ["random"] * 2, seed=14)
+    b = make_folder(tmp_path / "b", ["random"] * 2, seed=14)
+    # rewrite b in the neighbouring UTM zone: same plants, other CRS
+    t = read_results(b)
+    utm34 = CRS.from_epsg(32634)
+    x, y = transform_xy(t.points.x, t.points.y, UTM33, utm34)
+    write_points(PointSet(x, y, t.points.attrs, utm34), b / "points.csv")
+    res = compare_groups([read_results(a), read_results(b)], "folder", permutations=99)
+    assert any("different CRSs" in n for n in res.notes)
+    ga, gb = res.groups
+    assert ga.n == gb.n  # the plots were reprojected with the points
+    assert ga.r.statistic == pytest.approx(gb.r.statistic, rel=2e-3)  # UTM scale differs a little

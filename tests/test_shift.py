@@ -85,3 +85,11 @@ def test_mutual_pairs_against_brute_force():
 def test_tolerance_must_be_positive():
     with pytest.raises(ValueError):
         estimate_shift(np.zeros((2, 2)), np.zeros((2, 2)), 0.0)
+
+
+def test_identical_surveys_give_zero_shift():
+    # Exact geometry: a survey compared with itself has no shift, every plant pairs up
+    a, _b = _surveys((0.0, 0.0), seed=12)
+    r = estimate_shift(a, a.copy(), 0.6)
+    assert (r.shift_x_m, r.shift_y_m) == (0.0, 0.0)
+    assert r.n_pairs == len(a)

@@ -100,13 +100,24 @@ def mutual_pairs(a: np.ndarray, b: np.ndarray, radius_m: float) -> tuple[np.ndar
 
 def _vote(a: np.ndarray, b: np.ndarray, radius: float, bandwidth: float, gen) -> np.ndarray:
     """Mode of candidate displacement vectors b_j − a_i within ``radius``."""
-    lists = cKDTree(a).query_ball_tree(cKDTree(b), r=radius)
-    counts = np.fromiter((len(x) for x in lists), dtype=np.int64, count=len(lists))
-    if counts.sum() == 0:
+    # keep the candidate list to a few million vectors: vote with a seeded subset of ``a``
+    x0, y0 = b.min(axis=0)
+    x1, y1 = b.max(axis=0)
+    per_point = len(b) / max((x1 - x0) * (y1 - y0), 1e-9) * np.pi * radius**2
+    cap = int(max(500, 2e6 / max(per_point, 1e-9)))
+    if len(a) > cap:
+        a = a[np.sort(gen.choice(len(a), cap, replace=False))]
+    tb = cKDTree(b)
+    pairs = cKDTree(a).sparse_distance_matrix(tb, radius, output_type="ndarray")
+    vec = b[pairs["j"]] - a[pairs["i"]]
+    # sparse_distance_matrix drops exactly coincident pairs (distance 0); add them back, or
+    # two identical surveys would lose every true pair
+    d0, _j0 = tb.query(a, k=1, distance_upper_bound=1e-9)
+    n_zero = int(np.sum(d0 == 0.0))
+    if n_zero:
+        vec = np.vstack([vec, np.zeros((n_zero, 2))])
+    if len(vec) == 0:
         return np.zeros(2)
-    ia = np.repeat(np.arange(len(a)), counts)
-    jb = np.fromiter((j for x in lists for j in x), dtype=np.int64, count=int(counts.sum()))
-    vec = b[jb] - a[ia]
     tree = cKDTree(vec)
     probe = vec
     if len(vec) > 20000:  # vote with a seeded subsample of candidates, count against all
