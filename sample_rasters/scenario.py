@@ -164,7 +164,9 @@ def autumn_change(
         if p.pattern == "clustered":  # seedlings come up close to surviving shrubs
             near = p.xy[alive][rng.choice(len(alive), 50 * k)] + rng.normal(0, 1.5, (50 * k, 2))
             cand = _inside(p.polygon, near, 0.6)
-        new = _hard_core_fill(cand, 1.3, keep_first=list(p.xy[alive]))[:k]
+        # recruits keep 1.3 m from every spring shrub, dead or alive, so that a seedling is
+        # never mistaken for a shrub that died (positions alone could not tell them apart)
+        new = _hard_core_fill(cand, 1.3, keep_first=list(p.xy))[:k]
         xy = np.vstack([p.xy[alive], new])
         d = np.r_[p.diameter_m[alive] * 1.05, rng.uniform(0.7, 0.8, len(new))]
         h = np.r_[p.height_m[alive] * 1.05, 0.4 + 0.8 * d[len(alive) :]]
