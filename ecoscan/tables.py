@@ -66,3 +66,19 @@ def format_table(
 
     sep = "  ".join("-" * w for w in widths)
     return "\n".join([line(headers), sep, *[line(b) for b in body]])
+
+
+def show_small_p(
+    rows: Sequence[Mapping[str, Any]], columns: Sequence[str], *, below: float = 0.001
+) -> list[dict[str, Any]]:
+    """Copies of ``rows`` in which p-value columns (names starting with ``p``) below ``below``
+    read ``<0.001`` rather than a string of zeros, for terminal tables."""
+    out = []
+    for r in rows:
+        r = dict(r)
+        for c in columns:
+            v = r.get(c)
+            if c.startswith("p") and isinstance(v, float) and v < below:
+                r[c] = f"<{below:g}"
+        out.append(r)
+    return out

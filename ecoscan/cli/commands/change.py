@@ -3,18 +3,14 @@
 from __future__ import annotations
 
 import argparse
-import logging
 import sys
 from pathlib import Path
 
 from ecoscan.change import change_rows, detect_change, write_change
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
-from ecoscan.tables import format_table
+from ecoscan.tables import format_table, show_small_p
 from ecoscan.vector import read_plots, read_points
-
-# GDAL/pyogrio report every layer written at INFO level ("Created N records"); keep quiet.
-logging.getLogger("pyogrio").setLevel(logging.WARNING)
 
 NAME = "change"
 HELP = "follow plants between two dates: persisting, lost and new plants, survival per plot"
@@ -60,19 +56,6 @@ TABLE_HEADERS = (
     "R after",
     "p (ΔR)",
 )
-
-
-def _show_p(rows: list[dict], columns) -> list[dict]:
-    """Copies of ``rows`` with p-values below 0.001 shown as '<0.001'."""
-    out = []
-    for r in rows:
-        r = dict(r)
-        for c in columns:
-            v = r.get(c)
-            if c.startswith("p") and isinstance(v, float) and v < 0.001:
-                r[c] = "<0.001"
-        out.append(r)
-    return out
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -169,7 +152,7 @@ def run(args: argparse.Namespace) -> int:
         f"{c['persisting']} persisting, {c['lost']} lost, {c['new']} new "
         f"(tolerance {result.tolerance_m:g} m)"
     )
-    rows = _show_p(change_rows(result), TABLE_COLUMNS)
+    rows = show_small_p(change_rows(result), TABLE_COLUMNS)
     print(format_table(rows, TABLE_COLUMNS, headers=TABLE_HEADERS))
     print("automated counts: check lost and new plants in the field before acting on them")
     if not args.quiet:

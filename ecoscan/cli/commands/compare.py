@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import logging
 import sys
 
 from ecoscan.cli._common import print_notes
@@ -15,10 +14,7 @@ from ecoscan.compare import (
     read_results,
     write_comparison,
 )
-from ecoscan.tables import format_table
-
-# GDAL/pyogrio report every layer written at INFO level ("Created N records"); keep quiet.
-logging.getLogger("pyogrio").setLevel(logging.WARNING)
+from ecoscan.tables import format_table, show_small_p
 
 NAME = "compare"
 HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"
@@ -58,19 +54,6 @@ GROUP_HEADERS = (
     "R Donnelly",
     "pattern",
 )
-
-
-def _show_p(rows: list[dict], columns) -> list[dict]:
-    """Copies of ``rows`` with p-values below 0.001 shown as '<0.001'."""
-    out = []
-    for r in rows:
-        r = dict(r)
-        for c in columns:
-            v = r.get(c)
-            if c.startswith("p") and isinstance(v, float) and v < 0.001:
-                r[c] = "<0.001"
-        out.append(r)
-    return out
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -138,7 +121,7 @@ def run(args: argparse.Namespace) -> int:
         "p MW",
         "p KS",
     )
-    print(format_table(_show_p(comparison_rows(result), cols), cols, headers=heads))
+    print(format_table(show_small_p(comparison_rows(result), cols), cols, headers=heads))
     if adj:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
     if not args.quiet:
