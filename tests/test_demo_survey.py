@@ -175,3 +175,26 @@ def test_compare_ranks_regularity_as_built(demo_run):
     random_ = [rank[p] for p, k in BUILT_AS.items() if k == "random"]
     clustered = [rank[p] for p, k in BUILT_AS.items() if k == "clustered"]
     assert max(regular) < min(random_) and max(random_) < min(clustered), rank
+
+
+@pytest.mark.browser
+def test_survey_report_in_headless_chromium(demo_run):
+    """The demo's report opens in a real browser: every figure decodes, no console errors."""
+    import os
+
+    from browser import IMAGES_OK_JS, find_chromium, inspect_page
+
+    if find_chromium() is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("CI must run the browser test: install Debian's chromium")
+        pytest.skip("chromium is not installed (apt-get install chromium)")
+    _cfg, run = demo_run
+    shot = run.output / "report_screenshot.png"
+    out = inspect_page(run.output / "report.html", shot, IMAGES_OK_JS)
+    html = (run.output / "report.html").read_text()
+    assert out["errors"] == []
+    assert out["value"]["count"] == html.count("<img ") and out["value"]["count"] >= 40
+    assert out["value"]["decoded"] == out["value"]["count"]
+    for heading in ("Summary", "Plots", "Comparison", "Change between dates", "Cautions"):
+        assert f">{heading}</h2>" in html
+    assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
