@@ -235,10 +235,19 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     )
 
 
+#: GDAL's block cache (default 5 % of RAM) would otherwise grow with the raster while a
+#: decimated read walks every block; ecoscan reads each block once, so a small cache is enough.
+GDAL_CACHE_MB = 64
+
+
 def _open(info: RasterInfo):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotGeoreferencedWarning)
         return rasterio.open(info.path)
+
+
+def _env() -> rasterio.Env:
+    return rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB)
 
 
 def read_window(
@@ -266,7 +275,7 @@ def read_window(
     c0, r0, c1, r1 = window
     win = Window(c0, r0, c1 - c0, r1 - r0)
     try:
-        with _open(info) as src:
+        with _env(), _open(info) as src:
             data = src.read(list(bands), window=win, out_dtype="float32")
             masks = src.read_masks(list(bands), window=win)
     except RasterioIOError as exc:
@@ -301,7 +310,7 @@ def read_decimated(
     f = max(1, math.ceil(math.sqrt(info.width * info.height / max_pixels)))
     shape = (len(bands), max(1, info.height // f), max(1, info.width // f))
     try:
-        with _open(info) as src:
+        with _env(), _open(info) as src:
             data = src.read(list(bands), out_shape=shape, out_dtype="float32")
             masks = src.read_masks(list(bands), out_shape=shape)
     except RasterioIOError as exc:
