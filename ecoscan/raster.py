@@ -247,7 +247,8 @@ def _open(info: RasterInfo):
 
 
 def _env() -> rasterio.Env:
-    return rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB)
+    # rasterio passes an integer GDAL_CACHEMAX to GDAL as bytes
+    return rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024)
 
 
 def read_window(
@@ -290,7 +291,7 @@ def read_window(
 def read_decimated(
     info: RasterInfo, bands: tuple[int, ...], max_pixels: int = 4_000_000
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Read the whole raster at reduced resolution (overviews when present) for statistics.
+    """Read the whole raster at reduced resolution, strip by strip, for global statistics.
 
     Parameters
     ----------
@@ -308,11 +309,26 @@ def read_decimated(
         As :func:`read_window`, at the decimated resolution.
     """
     f = max(1, math.ceil(math.sqrt(info.width * info.height / max_pixels)))
-    shape = (len(bands), max(1, info.height // f), max(1, info.width // f))
+    out_h, out_w = max(1, info.height // f), max(1, info.width // f)
+    span_w = min(info.width, out_w * f)
+    data = np.empty((len(bands), out_h, out_w), dtype=np.float32)
+    masks = np.empty((len(bands), out_h, out_w), dtype=np.uint8)
     try:
         with _env(), _open(info) as src:
-            data = src.read(list(bands), out_shape=shape, out_dtype="float32")
-            masks = src.read_masks(list(bands), out_shape=shape)
+            # strips about one block high, so that every block is decoded once while the
+            # data and the masks of the strip are read (a small block cache suffices)
+            block_h = max(1, src.block_shapes[0][0]) if src.block_shapes else 256
+            step = max(1, math.ceil(block_h / f))  # output rows per strip
+            for o0 in range(0, out_h, step):
+                o1 = min(out_h, o0 + step)
+                r0 = o0 * f
+                r1 = min(info.height, o1 * f)
+                win = Window(0, r0, span_w, r1 - r0)
+                shp = (len(bands), o1 - o0, out_w)
+                data[:, o0:o1] = src.read(
+                    list(bands), window=win, out_shape=shp, out_dtype="float32"
+                )
+                masks[:, o0:o1] = src.read_masks(list(bands), window=win, out_shape=shp)
     except RasterioIOError as exc:
         raise InputError(
             f"cannot read {Path(info.path).name}: {str(exc).splitlines()[0]}; "
