@@ -16,11 +16,10 @@ import os
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import rasterio
-import rasterio.features
-import shapely
 from pyproj import CRS
 from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
 from rasterio.transform import Affine
@@ -28,7 +27,9 @@ from rasterio.windows import Window
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.errors import InputError
-from ecoscan.vector import PlotLayer, plots_from_geometries
+
+if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out of them
+    from ecoscan.vector import PlotLayer
 
 __all__ = [
     "RasterInfo",
@@ -382,6 +383,11 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
     InputError
         Unreadable file, non-integer values, or no non-zero pixels.
     """
+    import rasterio.features
+    import shapely
+
+    from ecoscan.vector import PlotLayer, plots_from_geometries, reproject_geometries
+
     info = open_raster(path, pixel_size_m=pixel_size_m)
     if np.dtype(info.dtype).kind not in "iub":
         raise InputError(
@@ -405,8 +411,6 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
         coords = shapely.get_coordinates(polys)
         _x, _y, frame = to_metric(coords[:, 0], coords[:, 1], crs)
         if frame.reprojected_from is not None:
-            from ecoscan.vector import reproject_geometries
-
             polys = reproject_geometries(polys, crs, frame.crs)
             notes.append(frame.note.replace("input", "mask"))
         crs = frame.crs
