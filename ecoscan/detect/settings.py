@@ -90,9 +90,10 @@ class DetectionSettings:
         Vegetation threshold in index units (imagery) : a blob centre must be at least this
         green. None: Otsu (1979) on the valid pixels of the whole raster.
     min_contrast : float or None
-        Smallest scale-normalised blob response, in index units. None: a quarter of the
-        contrast between the two Otsu classes (a crown half as distinct as a typical one
-        still passes; see docs/detection.md).
+        Weakest crown-to-ground contrast kept, in index units; a blob's scale-normalised
+        response must reach 2/e of it (the response of a flat disc of that contrast,
+        Lindeberg 1998). None: half the difference between the means of the two Otsu
+        classes (a crown half as distinct as a typical one still passes).
     scales_per_octave : int
         Scales tried per doubling of the crown diameter.
     min_height_m : float
@@ -124,7 +125,7 @@ class DetectionSettings:
     diameter_max_m: float = 3.0
     threshold: float | None = None
     min_contrast: float | None = None
-    scales_per_octave: int = 4
+    scales_per_octave: int = 3
     min_height_m: float = 2.0
     crown_rule: str = "combined"
     smooth_m: float | None = None
