@@ -488,28 +488,33 @@ def analyse_plot(
     lam = n / area
     r = r_grid(r_max, settings.n_r)
     r_nn = r_grid(min(r_max, 2.5 / np.sqrt(lam)), settings.n_r)
+    # J only up to where F under randomness reaches 0.95: beyond, 1 − F is too small for a
+    # stable ratio (common practice)
+    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), settings.n_r)
+    r_both = np.concatenate([r_nn, r_j])
+    nr = settings.n_r
     want = set(settings.functions) | {settings.test_function}
     want_dist = bool(want & {"G", "F", "J"})
     b = boundary_distance(xy, polygon)
     obs = second_order(xy, polygon, r_max, n_r=settings.n_r, border=True, boundary_m=b)
     grid = EmptySpaceGrid(polygon) if want_dist else None
     if want_dist:
-        g_obs = nn_function(xy, polygon, r_nn, boundary_m=b)
-        f_obs = empty_space_function(xy, polygon, r_nn, grid=grid)
+        g_obs = nn_function(xy, polygon, r_both, boundary_m=b)
+        f_obs = empty_space_function(xy, polygon, r_both, grid=grid)
     s = settings.simulations
-    sim_k = np.empty((s, settings.n_r))
-    sim_g = np.empty((s, settings.n_r))
-    sim_G = np.empty((s, settings.n_r))
-    sim_F = np.empty((s, settings.n_r))
+    sim_k = np.empty((s, nr))
+    sim_g = np.empty((s, nr))
+    sim_G = np.empty((s, 2 * nr))
+    sim_F = np.empty((s, 2 * nr))
     sims = uniform_in_polygon(polygon, n, size=s, rng=rng)
     for k in progress(range(s), desc=f"{plot_id} simulations", unit="sim"):
-        so = second_order(sims[k], polygon, r_max, n_r=settings.n_r, border=False)
+        bk = boundary_distance(sims[k], polygon)
+        so = second_order(sims[k], polygon, r_max, n_r=nr, border=False, boundary_m=bk)
         sim_k[k] = so.K_iso_m2
         sim_g[k] = so.g_iso
         if want_dist:
-            bk = boundary_distance(sims[k], polygon)
-            sim_G[k] = nn_function(sims[k], polygon, r_nn, boundary_m=bk).km
-            sim_F[k] = empty_space_function(sims[k], polygon, r_nn, grid=grid).km
+            sim_G[k] = nn_function(sims[k], polygon, r_both, boundary_m=bk).km
+            sim_F[k] = empty_space_function(sims[k], polygon, r_both, grid=grid).km
     test = settings.global_test
     curves: dict[str, FunctionCurve] = {}
     sim_l = np.sqrt(np.maximum(sim_k, 0) / np.pi)
@@ -523,18 +528,18 @@ def analyse_plot(
     if "g" in want:
         curves["g"] = _curve("g", r, obs.g_iso, np.ones_like(r), sim_g, settings, test)
     if want_dist:
-        theo = g_obs.theoretical
+        theo = g_obs.theoretical[:nr]
         if "G" in want:
-            curves["G"] = _curve("G", r_nn, g_obs.km, theo, sim_G, settings, test)
+            curves["G"] = _curve("G", r_nn, g_obs.km[:nr], theo, sim_G[:, :nr], settings, test)
         if "F" in want:
-            curves["F"] = _curve("F", r_nn, f_obs.km, theo, sim_F, settings, test)
+            curves["F"] = _curve("F", r_nn, f_obs.km[:nr], theo, sim_F[:, :nr], settings, test)
         if "J" in want:
             curves["J"] = _curve(
                 "J",
-                r_nn,
-                j_function(g_obs.km, f_obs.km),
-                np.ones_like(r_nn),
-                j_function(sim_G, sim_F),
+                r_j,
+                j_function(g_obs.km[nr:], f_obs.km[nr:]),
+                np.ones_like(r_j),
+                j_function(sim_G[:, nr:], sim_F[:, nr:]),
                 settings,
                 test,
             )
@@ -547,9 +552,9 @@ def analyse_plot(
         curves["g_border"] = FunctionCurve("g_border", "1", r, obs.g_border, np.ones_like(r))
     if want_dist:
         if "G" in want:
-            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border, theo)
+            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border[:nr], theo)
         if "F" in want:
-            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border, theo)
+            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border[:nr], theo)
     main = curves[settings.test_function]
     env = main.envelope
     clu, reg, verdict = interpret(
