@@ -92,6 +92,7 @@ def main() -> None:
     a = ap.parse_args()
     sims = 19 if a.quick else a.simulations
     print(f"K, L, g (isotropic), 100 distances, n = {a.n}, observed + {sims} simulations, one core")
+    print(f"load average before the run: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     for name, poly in (("square 1 ha", SQUARE), ("irregular 1 ha with hole", IRREGULAR)):
         b = _bench(poly, a.n, sims)
         per = b["t_full_s"] / (sims + 1)
@@ -103,6 +104,7 @@ def main() -> None:
         )
         if sims != 199:
             print(f"  {'':26s} projected for 199 simulations: {per * 200:.1f} s")
+    print(f"load average after the timing runs: {os.getloadavg()[0]:.2f}")
     print("memory for one pattern (tracemalloc peak) at the default largest distance:")
     ns = [2_500, 5_000, 10_000] if a.quick else [2_500, 5_000, 10_000, 20_000, 40_000]
     for n in ns:
