@@ -257,8 +257,13 @@ class PlotScales:
     verdict : str
         Plain words.
     warnings : list of str
+    simulations : int
+        Simulated patterns (and relabellings) used.
+    warnings : list of str
     cross : CrossResult or None
     cross_verdict : str
+    alpha : float
+        Level of the envelopes and tests.
     """
 
     plot_id: str
@@ -277,6 +282,7 @@ class PlotScales:
     warnings: list[str] = field(default_factory=list)
     cross: CrossResult | None = None
     cross_verdict: str = ""
+    alpha: float = 0.05
 
 
 def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
@@ -429,6 +435,7 @@ def _too_few(plot_id, n, area, settings, reason) -> PlotScales:
         reason,
         settings.simulations,
         [reason],
+        alpha=settings.alpha,
     )
 
 
@@ -588,6 +595,7 @@ def analyse_plot(
         warnings,
         cross,
         cross_verdict,
+        settings.alpha,
     )
 
 
@@ -821,16 +829,21 @@ def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, 
     ]
 
 
-def function_rows(results: Sequence[PlotScales], alpha: float = 0.05) -> list[dict[str, Any]]:
+def function_rows(
+    results: Sequence[PlotScales], alpha: float | None = None
+) -> list[dict[str, Any]]:
     """Long-form rows for ``functions.csv`` (columns :data:`FUNCTION_COLUMNS`).
+
+    ``alpha`` only labels the envelopes; by default each result's own level.
 
     The bivariate curves appear as ``L_cross`` (m) and ``D_cross`` = K_BB − K_AA (m²), with
     the mean of the relabellings as ``theoretical`` for L_cross.
     """
     rows: list[dict[str, Any]] = []
     for res in results:
+        a = res.alpha if alpha is None else alpha
         for c in res.curves.values():
-            rows += _curve_rows(res.plot_id, c, alpha)
+            rows += _curve_rows(res.plot_id, c, a)
         if res.cross is not None:
             x = res.cross
             rows += _curve_rows(
@@ -838,12 +851,12 @@ def function_rows(results: Sequence[PlotScales], alpha: float = 0.05) -> list[di
                 FunctionCurve(
                     "L_cross", "m", x.r_m, x.L_cross.observed, x.L_cross.centre, x.L_cross
                 ),
-                alpha,
+                a,
             )
             rows += _curve_rows(
                 res.plot_id,
                 FunctionCurve("D_cross", "m2", x.r_m, x.D.observed, x.D.centre, x.D),
-                alpha,
+                a,
             )
     return rows
 
