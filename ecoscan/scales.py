@@ -670,9 +670,12 @@ def cross_verdict(res: CrossResult, alpha: float) -> str:
         if far:
             out.append(f"{b} and {a} plants are segregated {_describe(far, r[0])}")
     ps = (
-        f"random labelling p = {format_value(round(float(pd), 4))} (K_BB - K_AA), "
-        f"{format_value(round(float(pl), 4))} (cross-L)"
+        f"random labelling: p = {format_value(round(float(pd), 4))} for {b}-{b} clustering, "
+        f"{format_value(round(float(pl), 4))} for {b}-{a} spacing"
     )
+    few = min(res.n_a, res.n_b)
+    if few < 10:
+        ps += f"; only {few} plants of one kind, so only strong effects can be detected"
     if not out:
         return f"{b} plants are placed like a random subset of all plants ({ps})"
     return "; ".join(out) + f" ({ps})"
@@ -698,6 +701,10 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
 
     Notes
     -----
+    With ``kind_field`` and ``kinds`` set, only the plants of those two kinds are analysed
+    (univariate functions included), e.g. the persisting and lost plants of a change
+    analysis, which together are the plants of the first survey.
+
     Each plot's simulations come from ``np.random.SeedSequence([seed, zlib.crc32(plot_id)])``,
     so a plot's result does not depend on the other plots in the file.
     """
@@ -721,12 +728,16 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
         else:
             raise InputError("--kind-field needs --kinds A,B: the two kinds to compare")
     out = []
+    xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
         m = inputs.plot_index == i
-        kinds = None if kinds_all is None else kinds_all[m]
-        out.append(
-            analyse_plot(inputs.plot_points(i), plot.geometry, plot.plot_id, settings, kinds=kinds)
-        )
+        kinds = None
+        if kinds_all is not None:
+            # only the plants of the two kinds compared (e.g. persisting and lost: the plants
+            # of the first survey), for the univariate functions too
+            m &= np.isin(kinds_all, list(settings.kinds))
+            kinds = kinds_all[m]
+        out.append(analyse_plot(xy_all[m], plot.geometry, plot.plot_id, settings, kinds=kinds))
     return out
 
 
