@@ -257,8 +257,13 @@ class PlotScales:
     verdict : str
         Plain words.
     warnings : list of str
+    simulations : int
+        Simulated patterns (and relabellings) used.
+    warnings : list of str
     cross : CrossResult or None
     cross_verdict : str
+    alpha : float
+        Level of the envelopes and tests.
     """
 
     plot_id: str
@@ -277,6 +282,7 @@ class PlotScales:
     warnings: list[str] = field(default_factory=list)
     cross: CrossResult | None = None
     cross_verdict: str = ""
+    alpha: float = 0.05
 
 
 def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
@@ -429,6 +435,7 @@ def _too_few(plot_id, n, area, settings, reason) -> PlotScales:
         reason,
         settings.simulations,
         [reason],
+        alpha=settings.alpha,
     )
 
 
@@ -488,28 +495,33 @@ def analyse_plot(
     lam = n / area
     r = r_grid(r_max, settings.n_r)
     r_nn = r_grid(min(r_max, 2.5 / np.sqrt(lam)), settings.n_r)
+    # J only up to where F under randomness reaches 0.95: beyond, 1 − F is too small for a
+    # stable ratio (common practice)
+    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), settings.n_r)
+    r_both = np.concatenate([r_nn, r_j])
+    nr = settings.n_r
     want = set(settings.functions) | {settings.test_function}
     want_dist = bool(want & {"G", "F", "J"})
     b = boundary_distance(xy, polygon)
     obs = second_order(xy, polygon, r_max, n_r=settings.n_r, border=True, boundary_m=b)
     grid = EmptySpaceGrid(polygon) if want_dist else None
     if want_dist:
-        g_obs = nn_function(xy, polygon, r_nn, boundary_m=b)
-        f_obs = empty_space_function(xy, polygon, r_nn, grid=grid)
+        g_obs = nn_function(xy, polygon, r_both, boundary_m=b)
+        f_obs = empty_space_function(xy, polygon, r_both, grid=grid)
     s = settings.simulations
-    sim_k = np.empty((s, settings.n_r))
-    sim_g = np.empty((s, settings.n_r))
-    sim_G = np.empty((s, settings.n_r))
-    sim_F = np.empty((s, settings.n_r))
+    sim_k = np.empty((s, nr))
+    sim_g = np.empty((s, nr))
+    sim_G = np.empty((s, 2 * nr))
+    sim_F = np.empty((s, 2 * nr))
     sims = uniform_in_polygon(polygon, n, size=s, rng=rng)
     for k in progress(range(s), desc=f"{plot_id} simulations", unit="sim"):
-        so = second_order(sims[k], polygon, r_max, n_r=settings.n_r, border=False)
+        bk = boundary_distance(sims[k], polygon)
+        so = second_order(sims[k], polygon, r_max, n_r=nr, border=False, boundary_m=bk)
         sim_k[k] = so.K_iso_m2
         sim_g[k] = so.g_iso
         if want_dist:
-            bk = boundary_distance(sims[k], polygon)
-            sim_G[k] = nn_function(sims[k], polygon, r_nn, boundary_m=bk).km
-            sim_F[k] = empty_space_function(sims[k], polygon, r_nn, grid=grid).km
+            sim_G[k] = nn_function(sims[k], polygon, r_both, boundary_m=bk).km
+            sim_F[k] = empty_space_function(sims[k], polygon, r_both, grid=grid).km
     test = settings.global_test
     curves: dict[str, FunctionCurve] = {}
     sim_l = np.sqrt(np.maximum(sim_k, 0) / np.pi)
@@ -523,18 +535,18 @@ def analyse_plot(
     if "g" in want:
         curves["g"] = _curve("g", r, obs.g_iso, np.ones_like(r), sim_g, settings, test)
     if want_dist:
-        theo = g_obs.theoretical
+        theo = g_obs.theoretical[:nr]
         if "G" in want:
-            curves["G"] = _curve("G", r_nn, g_obs.km, theo, sim_G, settings, test)
+            curves["G"] = _curve("G", r_nn, g_obs.km[:nr], theo, sim_G[:, :nr], settings, test)
         if "F" in want:
-            curves["F"] = _curve("F", r_nn, f_obs.km, theo, sim_F, settings, test)
+            curves["F"] = _curve("F", r_nn, f_obs.km[:nr], theo, sim_F[:, :nr], settings, test)
         if "J" in want:
             curves["J"] = _curve(
                 "J",
-                r_nn,
-                j_function(g_obs.km, f_obs.km),
-                np.ones_like(r_nn),
-                j_function(sim_G, sim_F),
+                r_j,
+                j_function(g_obs.km[nr:], f_obs.km[nr:]),
+                np.ones_like(r_j),
+                j_function(sim_G[:, nr:], sim_F[:, nr:]),
                 settings,
                 test,
             )
@@ -547,9 +559,9 @@ def analyse_plot(
         curves["g_border"] = FunctionCurve("g_border", "1", r, obs.g_border, np.ones_like(r))
     if want_dist:
         if "G" in want:
-            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border, theo)
+            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border[:nr], theo)
         if "F" in want:
-            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border, theo)
+            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border[:nr], theo)
     main = curves[settings.test_function]
     env = main.envelope
     clu, reg, verdict = interpret(
@@ -583,6 +595,7 @@ def analyse_plot(
         warnings,
         cross,
         cross_verdict,
+        settings.alpha,
     )
 
 
@@ -657,9 +670,12 @@ def cross_verdict(res: CrossResult, alpha: float) -> str:
         if far:
             out.append(f"{b} and {a} plants are segregated {_describe(far, r[0])}")
     ps = (
-        f"random labelling p = {format_value(round(float(pd), 4))} (K_BB - K_AA), "
-        f"{format_value(round(float(pl), 4))} (cross-L)"
+        f"random labelling: p = {format_value(round(float(pd), 4))} for {b}-{b} clustering, "
+        f"{format_value(round(float(pl), 4))} for {b}-{a} spacing"
     )
+    few = min(res.n_a, res.n_b)
+    if few < 10:
+        ps += f"; only {few} plants of one kind, so only strong effects can be detected"
     if not out:
         return f"{b} plants are placed like a random subset of all plants ({ps})"
     return "; ".join(out) + f" ({ps})"
@@ -685,6 +701,10 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
 
     Notes
     -----
+    With ``kind_field`` and ``kinds`` set, only the plants of those two kinds are analysed
+    (univariate functions included), e.g. the persisting and lost plants of a change
+    analysis, which together are the plants of the first survey.
+
     Each plot's simulations come from ``np.random.SeedSequence([seed, zlib.crc32(plot_id)])``,
     so a plot's result does not depend on the other plots in the file.
     """
@@ -708,12 +728,16 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
         else:
             raise InputError("--kind-field needs --kinds A,B: the two kinds to compare")
     out = []
+    xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
         m = inputs.plot_index == i
-        kinds = None if kinds_all is None else kinds_all[m]
-        out.append(
-            analyse_plot(inputs.plot_points(i), plot.geometry, plot.plot_id, settings, kinds=kinds)
-        )
+        kinds = None
+        if kinds_all is not None:
+            # only the plants of the two kinds compared (e.g. persisting and lost: the plants
+            # of the first survey), for the univariate functions too
+            m &= np.isin(kinds_all, list(settings.kinds))
+            kinds = kinds_all[m]
+        out.append(analyse_plot(xy_all[m], plot.geometry, plot.plot_id, settings, kinds=kinds))
     return out
 
 
@@ -816,16 +840,21 @@ def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, 
     ]
 
 
-def function_rows(results: Sequence[PlotScales], alpha: float = 0.05) -> list[dict[str, Any]]:
+def function_rows(
+    results: Sequence[PlotScales], alpha: float | None = None
+) -> list[dict[str, Any]]:
     """Long-form rows for ``functions.csv`` (columns :data:`FUNCTION_COLUMNS`).
+
+    ``alpha`` only labels the envelopes; by default each result's own level.
 
     The bivariate curves appear as ``L_cross`` (m) and ``D_cross`` = K_BB − K_AA (m²), with
     the mean of the relabellings as ``theoretical`` for L_cross.
     """
     rows: list[dict[str, Any]] = []
     for res in results:
+        a = res.alpha if alpha is None else alpha
         for c in res.curves.values():
-            rows += _curve_rows(res.plot_id, c, alpha)
+            rows += _curve_rows(res.plot_id, c, a)
         if res.cross is not None:
             x = res.cross
             rows += _curve_rows(
@@ -833,12 +862,12 @@ def function_rows(results: Sequence[PlotScales], alpha: float = 0.05) -> list[di
                 FunctionCurve(
                     "L_cross", "m", x.r_m, x.L_cross.observed, x.L_cross.centre, x.L_cross
                 ),
-                alpha,
+                a,
             )
             rows += _curve_rows(
                 res.plot_id,
                 FunctionCurve("D_cross", "m2", x.r_m, x.D.observed, x.D.centre, x.D),
-                alpha,
+                a,
             )
     return rows
 

@@ -69,3 +69,19 @@ def test_dead_plants_in_patches_are_detected():
     # same seed, same numbers
     again = random_labelling_test(xy, dead, POLY, simulations=99, rng=7, labels=("live", "dead"))
     np.testing.assert_array_equal(res.D.lo, again.D.lo)
+
+
+def test_cross_verdict_reads_the_patches():
+    # the same synthetic ground truth as above, in plain words
+    from ecoscan.scales import cross_verdict
+
+    rng = np.random.default_rng(6)
+    xy = uniform_in_polygon(POLY, 400, rng=rng)
+    in_patch = (np.hypot(xy[:, 0] - 10, xy[:, 1] - 10) < 4) | (
+        np.hypot(xy[:, 0] - 30, xy[:, 1] - 18) < 4
+    )
+    dead = in_patch | (rng.uniform(size=400) < 0.02)
+    res = random_labelling_test(xy, dead, POLY, simulations=99, rng=7, labels=("live", "dead"))
+    text = cross_verdict(res, 0.05)
+    assert text.startswith("dead plants are more clustered among themselves than live plants")
+    assert "random labelling: p = 0.01 for dead-dead clustering" in text

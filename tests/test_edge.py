@@ -65,3 +65,13 @@ def test_boundary_distance_includes_holes():
     poly = shapely.Polygon([(0, 0), (10, 0), (10, 10), (0, 10)], [[(4, 4), (6, 4), (6, 6), (4, 6)]])
     d = boundary_distance(np.array([[1, 5], [3, 5], [5, 9]]), poly)
     np.testing.assert_allclose(d, [1, 1, 1])
+
+
+@pytest.mark.parametrize("quad_segs", [4, 100], ids=["few-edges", "many-edges"])
+def test_boundary_distance_matches_shapely(quad_segs):
+    # reference library: shapely's distance to the boundary; both code paths (numpy for few
+    # edges, shapely for many)
+    poly = shapely.Point(0, 0).buffer(20, quad_segs=quad_segs).difference(shapely.box(-3, -3, 4, 5))
+    xy = uniform_in_polygon(poly, 300, rng=2)
+    ref = shapely.distance(poly.boundary, shapely.points(xy))
+    np.testing.assert_allclose(boundary_distance(xy, poly), ref, atol=1e-12)

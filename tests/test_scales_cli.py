@@ -207,3 +207,24 @@ def test_cli_bad_input_leaves_no_files(survey, tmp_path, capsys):
     assert not out.exists()
     rc = main(["scales", str(pts), "--plots", str(plots), "-o", str(out), "--simulations", "5"])
     assert rc == 2 and not out.exists()
+
+
+def test_too_few_plants_and_envelope_labels(results):
+    from ecoscan.scales import analyse_plot, function_rows
+
+    poly = shapely.box(0, 0, 10, 10)
+    res = analyse_plot(
+        np.array([[1, 1], [2, 5], [7, 3], [5, 5], [8, 8]]),
+        poly,
+        "tiny",
+        ScalesSettings(simulations=19, alpha=0.1),
+    )
+    assert res.verdict.startswith("too few plants (5)") and not res.curves
+    assert function_rows([res]) == []
+    rows = function_rows([results["scatter"]])
+    assert {r["envelope"] for r in rows if r["function"] == "L"} == {"global erl 95%"}
+    assert {r["envelope"] for r in rows if r["function"] == "K_border"} == {"none"}
+    # L(r) − r is L(r) minus the distance, row by row
+    L = [r for r in rows if r["function"] == "L"]
+    Lm = [r for r in rows if r["function"] == "L_minus_r"]
+    np.testing.assert_allclose([a["observed"] - a["r_m"] for a in L], [b["observed"] for b in Lm])

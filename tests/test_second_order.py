@@ -105,8 +105,9 @@ def test_hard_core_pattern_has_K_zero_below_the_hard_core_distance():
 
 
 def test_thomas_process_is_clustered_at_its_cluster_scale():
-    # Thomas process (Neyman–Scott with Gaussian offspring, σ = 1 m, Thomas 1949): pairs in the
-    # same cluster lie at ~2σ, so L(r) − r > 0 there and g(r) > 1 at short range
+    # Thomas process (Gaussian offspring, σ = 1 m; Thomas 1949, Biometrika 36: 18, from
+    # memory): pairs in the same cluster lie at ~2σ (offset difference has s.d. σ√2), so
+    # L(r) − r > 0 there and g(r) > 1 at short range
     rng = np.random.default_rng(7)
     poly = shapely.box(0, 0, 50, 50)
     parents = uniform_in_polygon(poly.buffer(4), 25, rng=rng)

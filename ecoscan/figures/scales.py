@@ -100,7 +100,21 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
     for ax, k in zip(flat, names, strict=False):
         c = result.curves[k]
         ylabel, title = _LABELS[k]
-        _panel(ax, c.r_m, c.observed, c.theoretical, c.envelope, ylabel, title, _SIGN[k])
+        if k == "J":  # J runs from 0 to infinity around 1: a clipped log scale reads best
+            _panel(
+                ax,
+                c.r_m,
+                _clip(c.observed),
+                c.theoretical,
+                _clip_env(c.envelope),
+                ylabel,
+                title,
+                _SIGN[k],
+            )
+            ax.set_yscale("log")
+            ax.set_ylabel("J(r) (dimensionless, log scale)")
+        else:
+            _panel(ax, c.r_m, c.observed, c.theoretical, c.envelope, ylabel, title, _SIGN[k])
     if result.cross is not None:
         x = result.cross
         a, b = x.label_a, x.label_b
@@ -133,6 +147,25 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
     fig.suptitle(head + "\n" + textwrap.fill(result.verdict, 110), fontsize=9.5)
     fig.tight_layout()
     return save_figure(fig, path)
+
+
+def _clip(v):
+    return np.clip(v, 0.01, 100.0)
+
+
+def _clip_env(env):
+    from dataclasses import replace
+
+    if env is None:
+        return None
+    return replace(
+        env,
+        observed=_clip(env.observed),
+        lo=_clip(env.lo),
+        hi=_clip(env.hi),
+        lo_pointwise=_clip(env.lo_pointwise),
+        hi_pointwise=_clip(env.hi_pointwise),
+    )
 
 
 def _shift(env, r):

@@ -87,9 +87,24 @@ def boundary_distance(xy: np.ndarray, polygon: shapely.Geometry) -> np.ndarray:
     xy = np.asarray(xy, float).reshape(-1, 2)
     if xy.shape[0] == 0:
         return np.empty(0)
-    boundary = polygon.boundary
-    shapely.prepare(boundary)
-    return shapely.distance(boundary, shapely.points(xy[:, 0], xy[:, 1]))
+    seg = oriented_segments(polygon)
+    if seg.shape[0] > 256:  # many vertices: shapely's indexed distance is faster
+        boundary = polygon.boundary
+        shapely.prepare(boundary)
+        return shapely.distance(boundary, shapely.points(xy[:, 0], xy[:, 1]))
+    # few edges: point-to-segment distances in numpy, in chunks of points
+    out = np.empty(xy.shape[0])
+    ax, ay, bx, by = (seg[:, k : k + 1] for k in range(4))
+    ex, ey = bx - ax, by - ay
+    len2 = ex**2 + ey**2
+    step = max(1, 2_000_000 // seg.shape[0])
+    for s in range(0, xy.shape[0], step):
+        px, py = xy[s : s + step, 0], xy[s : s + step, 1]
+        t = np.clip(((px - ax) * ex + (py - ay) * ey) / len2, 0.0, 1.0)
+        out[s : s + step] = np.sqrt(
+            np.min((ax + t * ex - px) ** 2 + (ay + t * ey - py) ** 2, axis=0)
+        )
+    return out
 
 
 class EdgeTable:

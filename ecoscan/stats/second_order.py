@@ -215,19 +215,22 @@ class PairTable:
         xy = np.asarray(xy, float).reshape(-1, 2)
         self.n = xy.shape[0]
         self.boundary_m = boundary_distance(xy, polygon) if boundary_m is None else boundary_m
-        # points whose circles can reach the boundary first, so that "near" is one comparison
-        near = self.boundary_m < reach_m
-        order = np.argsort(~near, kind="stable")
-        n_near = int(near.sum())
+        # work in the KD-tree's own point order: the pairs then come out spatially coherent
+        # and the gathers below stay in cache
+        order = cKDTree(xy).indices
         sxy = xy[order]
         b = self.boundary_m[order]
         pairs = cKDTree(sxy).query_pairs(reach_m, output_type="ndarray")
         si, sj = pairs[:, 0], pairs[:, 1]
         z = sxy[:, 0] + 1j * sxy[:, 1]  # one gather per end instead of two
         self.d = np.abs(z[si] - z[sj])
-        table = EdgeTable(sxy[:n_near], polygon) if n_near else None
-        self._need_i, self._wt_i = self._weights(si, b, table)
-        self._need_j, self._wt_j = self._weights(sj, b, table)
+        # the edge table holds only the points whose circles can reach the boundary
+        near = np.flatnonzero(b < reach_m)
+        slot = np.full(self.n, -1, dtype=np.intp)
+        slot[near] = np.arange(near.size)
+        table = EdgeTable(sxy[near], polygon) if near.size else None
+        self._need_i, self._wt_i = self._weights(si, b, table, slot)
+        self._need_j, self._wt_j = self._weights(sj, b, table, slot)
         self._order, self._si, self._sj = order, si, sj
 
     @property
@@ -262,14 +265,15 @@ class PairTable:
         w[self._need_j] += self._wt_j - 1.0
         return w
 
-    def _weights(self, ends: np.ndarray, b: np.ndarray, table) -> tuple[np.ndarray, np.ndarray]:
-        # only the ends whose circle reaches the boundary (d > b) have a weight other than 1;
-        # they are all among the first n_near points, which the edge table holds
+    def _weights(
+        self, ends: np.ndarray, b: np.ndarray, table, slot: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        # only the ends whose circle reaches the boundary (d > b) have a weight other than 1
         need = np.flatnonzero(self.d > b[ends])
         wt = np.empty(need.size)
         for s in range(0, need.size, _PAIR_CHUNK):
             idx = need[s : s + _PAIR_CHUNK]
-            frac = table.fraction(ends[idx], self.d[idx])
+            frac = table.fraction(slot[ends[idx]], self.d[idx])
             wt[s : s + _PAIR_CHUNK] = 1.0 / np.maximum(frac, 1e-9)
         return need, wt
 
