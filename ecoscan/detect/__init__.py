@@ -356,7 +356,9 @@ def detect_raster(
         Plot polygons: only tiles touching them are read and points are clipped to them
         (each point gets its ``plot_id``).
     workers : int
-        Local processes for the tiles (1 runs in this process).
+        Local processes for the tiles (1 runs in this process). Workers are started fresh
+        (fork server or spawn), so a script calling this with ``workers > 1`` must do so
+        under ``if __name__ == "__main__":``.
 
     Returns
     -------
