@@ -286,7 +286,19 @@ class PlotScales:
 
 
 def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
-    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``."""
+    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``.
+
+    Parameters
+    ----------
+    seed : int
+        The run's seed.
+    plot_id : str
+        The plot's id (UTF-8 bytes hashed with :func:`zlib.crc32`).
+
+    Returns
+    -------
+    numpy.random.Generator
+    """
     return np.random.default_rng(np.random.SeedSequence([seed, zlib.crc32(plot_id.encode())]))
 
 
