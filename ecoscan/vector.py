@@ -73,7 +73,13 @@ def _parse_float_column(values: list[str], name: str, path: Path) -> np.ndarray:
     return out
 
 
-def _attribute_column(values: list[str]) -> np.ndarray:
+#: Columns that hold labels even when every value looks like a number ("1", "2026").
+TEXT_COLUMNS = {"plot_id", "plant_id", "id", "name", "site", "date", "raster", "status"}
+
+
+def _attribute_column(values: list[str], name: str = "") -> np.ndarray:
+    if name.lower() in TEXT_COLUMNS:
+        return np.array(values, dtype=object)
     try:
         return np.array([float(v) if v.strip() else np.nan for v in values])
     except ValueError:
@@ -117,7 +123,7 @@ def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.n
     for j, name in enumerate(header):
         if j in (ix, iy) or not name:
             continue
-        attrs[name] = _attribute_column(list(cols[j]))
+        attrs[name] = _attribute_column(list(cols[j]), name)
     return x, y, attrs
 
 

@@ -110,7 +110,7 @@ def test_mask_raster_restricts_and_labels(tmp_path, capsys):
     )
     pts = read_points(out)
     ids_read = pts.attrs["plot_id"]  # numeric-looking ids come back from CSV as numbers
-    assert set(ids_read.tolist()) == {1.0, 2.0}
+    assert set(ids_read.tolist()) == {"1", "2"}
     col = (pts.x - X0) / 0.1
     row = (Y0 - pts.y) / 0.1
     one = ids_read == 1.0

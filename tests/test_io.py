@@ -96,3 +96,11 @@ def test_no_point_in_any_plot_hints_at_crs(tmp_path):
     write_plots(far, tmp_path / "plots.gpkg")
     with pytest.raises(InputError, match="CRS mix-up"):
         load_points_and_plots(tmp_path / "p.csv", tmp_path / "plots.gpkg")
+
+
+def test_label_columns_stay_text(tmp_path):
+    f = tmp_path / "p.csv"
+    f.write_text("x,y,plot_id,height_m\n10.5,20.5,1,3.5\n30.5,40.5,2,4\n")
+    pts = read_points(f, "EPSG:32633")
+    assert list(pts.attrs["plot_id"]) == ["1", "2"]  # plot "1" is not the number 1.0
+    assert pts.attrs["height_m"].dtype.kind == "f"
