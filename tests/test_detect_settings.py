@@ -109,11 +109,11 @@ def test_mask_raster_restricts_and_labels(tmp_path, capsys):
         == 0
     )
     pts = read_points(out)
-    ids_read = pts.attrs["plot_id"]  # numeric-looking ids come back from CSV as numbers
+    ids_read = pts.attrs["plot_id"]  # plot ids come back from CSV as text labels
     assert set(ids_read.tolist()) == {"1", "2"}
     col = (pts.x - X0) / 0.1
     row = (Y0 - pts.y) / 0.1
-    one = ids_read == 1.0
+    one = ids_read == "1"
     assert np.all((col[one] < 120) & (row[one] < 120))
     assert np.all((col[~one] >= 120) & (row[~one] >= 120))
 
