@@ -72,3 +72,25 @@ def test_polygon_drawing_handles_holes(tmp_path):
     cells = [poly.intersection(shapely.box(x, y, x + 5, y + 5)) for x in (0, 5) for y in (0, 5)]
     p = quadrat_map_figure(tmp_path / "q.png", poly, cells, np.array([1, 2, 3, 4]))
     assert p.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_methods_section_names_the_sources():
+    from ecoscan.report import methods_html
+
+    base = methods_html()
+    assert "Clark, P. J." in base and "Donnelly" in base and "Besag" in base
+    assert "Ripley" not in base
+    full = methods_html(topics=["detection", "scales", "compare", "change"])
+    for source in ("Woebbecke", "Popescu", "Ripley", "Myllymäki", "Holm", "Wilson", "Kuhn"):
+        assert source in full
+
+
+def test_short_warning_flags():
+    from ecoscan.survey.reporting import short_warnings
+
+    text = (
+        "only 22 points (fewer than 30): the tests have little power; 16 of 16 quadrats "
+        "expect fewer than 5 points"
+    )
+    assert short_warnings(text) == "n < 30, few per quadrat"
+    assert short_warnings("") == ""

@@ -60,12 +60,60 @@ SUMMARY_HEADERS = [
 ]
 
 
+#: Columns of the comparison and change tables shown in the report (all are in the CSVs).
+REPORT_GROUP_COLUMNS = [
+    "group",
+    "rank_regularity",
+    "n_plots",
+    "n",
+    "density_per_ha",
+    "mean_nn_m",
+    "R",
+    "R_low95",
+    "R_high95",
+    "R_donnelly",
+    "pattern",
+    "warnings",
+]
+REPORT_PAIR_COLUMNS = [
+    "group_a",
+    "group_b",
+    "n_a",
+    "n_b",
+    "density_diff_per_ha",
+    "p_density_holm",
+    "R_diff",
+    "p_R_donnelly_diff_holm",
+    "p_R_perm_holm",
+    "p_mw_holm",
+    "p_ks_holm",
+    "warnings",
+]
+REPORT_CHANGE_COLUMNS = [
+    "plot_id",
+    "n_earlier",
+    "n_later",
+    "persisting",
+    "lost",
+    "new",
+    "survival",
+    "survival_low95",
+    "survival_high95",
+    "recruitment",
+    "density_change_per_ha",
+    "R_earlier",
+    "R_later",
+    "p_R_change_mc",
+    "warnings",
+]
+
 _SHORT = (
     ("fewer than 30", "n < 30"),
     ("fewer than 2", "too few for a test"),
     ("expect fewer than 5", "few per quadrat"),
     ("coincid", "coincident points"),
     ("no points", "empty plot"),
+    ("arrangements", "few permutations"),
 )
 
 
@@ -295,7 +343,14 @@ def write_report(run, stat_settings) -> list[Path]:
     if run.changes:
         sections.append(_change_section(run, figdir, files))
 
-    sections.append(ReportSection("Methods and sources", methods_html(), "methods"))
+    topics = ["detection"]
+    if any(rr.scales for rr in run.rasters):
+        topics.append("scales")
+    if run.comparisons:
+        topics.append("compare")
+    if run.changes:
+        topics.append("change")
+    sections.append(ReportSection("Methods and sources", methods_html(topics=topics), "methods"))
     sections.append(ReportSection("Cautions", CAUTIONS_HTML, "cautions"))
     notes = "".join(f"<li>{_esc(n)}</li>" for n in run.notes) or "<li>none</li>"
     sections.append(
@@ -317,7 +372,7 @@ def write_report(run, stat_settings) -> list[Path]:
 
 
 def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.compare import GROUP_COLUMNS, PAIR_COLUMNS, comparison_rows, group_rows
+    from ecoscan.compare import comparison_rows, group_rows
 
     parts = [
         "<p>Differences between groups of plots: density (exact test for two Poisson "
@@ -329,20 +384,23 @@ def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
     for by, res in run.comparisons:
         groups = group_rows(res)
         pairs = comparison_rows(res)
-        gcols = [c for c in GROUP_COLUMNS if groups and c in groups[0]]
-        pcols = [c for c in PAIR_COLUMNS if pairs and c in pairs[0]]
+        gcols = [c for c in REPORT_GROUP_COLUMNS if groups and c in groups[0]]
+        pcols = [c for c in REPORT_PAIR_COLUMNS if pairs and c in pairs[0]]
+        many = len(groups) > 2
+        pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
         png = run.output / f"compare-by-{by}" / "comparison.png"
         parts.append(f"<h3>By {_esc(by)}: groups</h3>" + table_html(groups, gcols))
         if png.exists():
             parts.append(
                 figure_html(png, f"Clark–Evans R per {by} with 95% intervals, most regular first.")
             )
-        parts.append(f"<h3>By {_esc(by)}: pairs</h3>" + table_html(pairs, pcols))
+        adj = " (p-values Holm-adjusted; the full table is in comparison.csv)" if many else ""
+        parts.append(f"<h3>By {_esc(by)}: pairs{adj}</h3>" + table_html(pairs, pcols))
     return ReportSection("Comparison", "".join(parts), "comparison")
 
 
 def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.change import CHANGE_COLUMNS, change_rows
+    from ecoscan.change import change_rows
 
     parts = [
         "<p>Plants matched one-to-one between consecutive dates after removing the "
@@ -355,7 +413,8 @@ def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
             f"Shift found between the mosaics: {ch.result.shift_x_m:+.2f} m east, "
             f"{ch.result.shift_y_m:+.2f} m north."
         )
-        cols = [c for c in CHANGE_COLUMNS if rows and c in rows[0]]
+        cols = [c for c in REPORT_CHANGE_COLUMNS if rows and c in rows[0]]
+        rows = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in rows]
         parts.append(
             f"<h3>{_esc(ch.site)}: {_esc(ch.earlier)} to {_esc(ch.later)}</h3>"
             f"<p>{_esc(shift)}</p>" + table_html(rows, cols)
