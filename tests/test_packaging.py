@@ -15,3 +15,10 @@ def test_every_subpackage_is_listed():
     assert found <= listed, f"add these to [tool.setuptools] packages: {sorted(found - listed)}"
     assert "ecoscan.sample_rasters" in listed
     assert (ROOT / "sample_rasters" / "survey.toml").exists()
+
+
+def test_demo_command_finds_its_data():
+    from ecoscan.cli.commands.demo import demo_dir
+
+    d = demo_dir()
+    assert (d / "survey.toml").is_file() and (d / "truth" / "tansy_change.csv").is_file()

@@ -30,20 +30,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def demo_dir() -> Path:
-    """Folder of the bundled demo survey (installed package data or a source checkout)."""
-    try:
-        from importlib.resources import files
-
-        p = Path(str(files("ecoscan.sample_rasters")))
-        if (p / "survey.toml").exists():
-            return p
-    except (ModuleNotFoundError, TypeError):
-        pass
+    """Folder of the bundled demo survey: installed package data, or a source checkout."""
     import ecoscan
 
-    p = Path(ecoscan.__file__).resolve().parent.parent / "sample_rasters"
-    if (p / "survey.toml").exists():
-        return p
+    here = Path(ecoscan.__file__).resolve().parent
+    for p in (here / "sample_rasters", here.parent / "sample_rasters"):
+        if (p / "survey.toml").exists():
+            return p
     from ecoscan.errors import InputError
 
     raise InputError("the demo data is not installed; reinstall ecoscan with 'pip install .'")
@@ -56,9 +49,10 @@ def run(args: argparse.Namespace) -> int:
     from ecoscan.survey.config import load_survey
     from ecoscan.survey.runner import run_survey
 
-    cfg = load_survey(demo_dir() / "survey.toml")
+    data = demo_dir()
+    cfg = load_survey(data / "survey.toml")
     res = run_survey(cfg, output=Path(args.output), workers=args.workers)
     print_notes(res.notes, args.quiet)
     print_summary(res)
-    print("\nThe demo data is invented; see sample_rasters/truth for the true plant positions.")
+    print(f"\nThe demo data is invented; the true plant positions are in {data / 'truth'}.")
     return 0
