@@ -39,7 +39,7 @@ from ecoscan.errors import InputError
 __all__ = ["RasterEntry", "SurveyConfig", "load_survey", "locate_keys"]
 
 _SECTIONS = {
-    "survey": {"name", "plots", "output", "plot_id_field", "plots_layer", "workers", "crs"},
+    "survey": {"name", "plots", "output", "plot_id_field", "plots_layer", "workers"},
     "statistics": None,  # keys of ecoscan.analysis.DispersionSettings
     "scales": None,  # "enabled" plus keys of ecoscan.scales.ScalesSettings
     "change": {"enabled", "tolerance_m", "estimate_shift"},
