@@ -68,3 +68,18 @@ def test_invalid_toml(tmp_path):
     f.write_text("[survey\n")
     with pytest.raises(InputError, match="not valid TOML"):
         load_survey(f)
+
+
+def test_documented_example_parses(tmp_path):
+    """The example in docs/survey-file.md uses only keys the parser knows."""
+    import re
+    from pathlib import Path
+
+    doc = (Path(__file__).resolve().parent.parent / "docs" / "survey-file.md").read_text()
+    text = re.search(r"```toml\n(.*?)```", doc, re.S).group(1)
+    _touch(tmp_path, "plots.gpkg", "spring_rgb.tif")
+    f = tmp_path / "s.toml"
+    f.write_text(text)
+    cfg = load_survey(f)
+    assert cfg.scales_enabled and cfg.rasters[0].detect["method"] == "imagery"
+    assert cfg.statistics["simulations"] == 999 and cfg.workers == 2
