@@ -83,3 +83,17 @@ def test_documented_example_parses(tmp_path):
     cfg = load_survey(f)
     assert cfg.scales_enabled and cfg.rasters[0].detect["method"] == "imagery"
     assert cfg.statistics["simulations"] == 999 and cfg.workers == 2
+
+
+def test_bad_values_reported_with_lines_before_any_work(tmp_path):
+    _touch(tmp_path, "plots.gpkg", "a.tif", "b.tif")
+    text = GOOD.replace('date = "autumn"\n', 'date = "autumn"\n[raster.detect]\nmethod = "lidar"\n')
+    text += '\n[statistics]\nalpha = "high"\n'
+    f = tmp_path / "s.toml"
+    f.write_text(text)
+    with pytest.raises(InputError) as e:
+        load_survey(f)
+    msg = str(e.value)
+    assert "2 problems" in msg
+    assert "line 15: [raster.detect] method 'lidar' is unknown" in msg
+    assert "line 18: [statistics]" in msg and "alpha" in msg

@@ -189,6 +189,30 @@ def _as_str(problems: _Problems, where: tuple, value: Any, what: str) -> str | N
     return None
 
 
+def _check_values(problems: _Problems, statistics: dict, scales: dict, rasters) -> None:
+    """Build every settings object once so that bad values are reported with their line."""
+    checks = [(("statistics",), "ecoscan.analysis", "DispersionSettings", statistics)]
+    checks.append(
+        (
+            ("scales",),
+            "ecoscan.scales",
+            "ScalesSettings",
+            {k: v for k, v in scales.items() if k != "enabled"},
+        )
+    )
+    for i, r in enumerate(rasters):
+        checks.append((("raster", i, "detect"), "ecoscan.detect", "DetectionSettings", r.detect))
+    for where, module, cls, values in checks:
+        try:
+            klass = getattr(__import__(module, fromlist=[cls]), cls)
+        except (ImportError, AttributeError):
+            continue
+        try:
+            klass.from_mapping(values)
+        except InputError as exc:
+            problems.add(where, f"[{'.'.join(str(w) for w in where if isinstance(w, str))}] {exc}")
+
+
 def load_survey(path: str | Path) -> SurveyConfig:
     """Read and check a survey file.
 
@@ -303,6 +327,8 @@ def load_survey(path: str | Path) -> SurveyConfig:
             _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
         if p is not None:
             rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
+    if not problems.items:  # keys are right: now check the values, still before any work
+        _check_values(problems, statistics, scales, rasters)
     problems.raise_if_any()
     return SurveyConfig(
         path=src.resolve(),
