@@ -111,8 +111,10 @@ class EdgeTable:
     """Per-point, per-edge geometry for fast exact circle proportions.
 
     Everything that depends on the point but not on the radius is computed once here, so that
-    the proportion for many (point, radius) pairs costs a few vectorised operations per edge,
-    and only for the edges that the circle actually reaches.
+    the proportion for many (point, radius) pairs costs a few vectorised operations per
+    (circle, edge) pair, and only for the edges within reach of the circle's centre (a
+    per-point list of edges closer than the largest radius asked for: most circles near the
+    boundary reach one or two edges, whatever E is).
 
     Parameters
     ----------
@@ -171,16 +173,40 @@ class EdgeTable:
         index = np.asarray(index, dtype=np.intp)
         r = np.broadcast_to(np.asarray(r, float), index.shape)
         theta = _TWO_PI * self.winding[index]
-        for e in range(self.n_edges):
-            sd = self.seg_dist[e, index]
-            hit = np.flatnonzero(sd < r)
-            if hit.size == 0:
-                continue
-            ii = index[hit]
-            rr = r[hit]
-            beta = np.arccos(np.minimum(self.line_dist[e, ii] / rr, 1.0))
-            over = np.minimum(self.psi_b[e, ii], beta) - np.maximum(self.psi_a[e, ii], -beta)
-            theta[hit] -= self.sign[e, ii] * np.maximum(over, 0.0)
+        if index.size == 0:
+            return theta
+        # the (point, edge) entries that some circle can reach, point by point with the edges
+        # in increasing order (a CSR list): a circle about a point near one straight edge
+        # visits that edge only, not all E of them
+        pts, edges = np.nonzero(self.seg_dist.T < r.max())
+        count = np.bincount(pts, minlength=self.n_points)
+        start = np.cumsum(count) - count
+        sd, ld = self.seg_dist[edges, pts], self.line_dist[edges, pts]
+        pa, pb, sg = self.psi_a[edges, pts], self.psi_b[edges, pts], self.sign[edges, pts]
+        # slot k holds each point's k-th reachable edge. Going slot by slot takes the edges of
+        # every circle in increasing order, and an edge the circle does not reach (distance to
+        # the segment ≥ r) subtracts exactly 0: the same floating-point result as a loop over
+        # all edges that skips those out of reach.
+        left = count[index]
+        first = start[index]
+        sel = None if left.min() > 0 else np.flatnonzero(left > 0)
+        for k in range(int(count.max(initial=0))):
+            if k:
+                sel = np.flatnonzero(left > k) if sel is None else sel[left[sel] > k]
+            f = first + k if sel is None else first[sel] + k
+            rr = r if sel is None else r[sel]
+            beta = ld[f] / rr
+            np.minimum(beta, 1.0, out=beta)
+            np.arccos(beta, out=beta)
+            over = np.minimum(pb[f], beta)
+            over -= np.maximum(pa[f], -beta)
+            np.maximum(over, 0.0, out=over)
+            over *= sg[f]
+            over *= sd[f] < rr
+            if sel is None:
+                theta -= over
+            else:
+                theta[sel] -= over
         return np.clip(theta / _TWO_PI, 0.0, 1.0)
 
 
