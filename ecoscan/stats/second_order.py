@@ -266,7 +266,7 @@ class PairTable:
         return w
 
     def _weights(
-        self, ends: np.ndarray, b: np.ndarray, table, slot: np.ndarray
+        self, ends: np.ndarray, b: np.ndarray, table: EdgeTable | None, slot: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
         # only the ends whose circle reaches the boundary (d > b) have a weight other than 1
         need = np.flatnonzero(self.d > b[ends])
@@ -274,7 +274,8 @@ class PairTable:
         for s in range(0, need.size, _PAIR_CHUNK):
             idx = need[s : s + _PAIR_CHUNK]
             frac = table.fraction(slot[ends[idx]], self.d[idx])
-            wt[s : s + _PAIR_CHUNK] = 1.0 / np.maximum(frac, 1e-9)
+            np.maximum(frac, 1e-9, out=frac)
+            np.divide(1.0, frac, out=wt[s : s + _PAIR_CHUNK])
         return need, wt
 
 
