@@ -154,6 +154,7 @@ class EdgeTable:
         )
         # winding number of each point (1 inside, 1/2 on an edge, 0 outside)
         self.winding = np.sum(self.sign * (self.psi_b - self.psi_a), axis=0) / _TWO_PI
+        self._cache: tuple[float, tuple[np.ndarray, ...]] | None = None
 
     def fraction(self, index: np.ndarray, r: np.ndarray) -> np.ndarray:
         """Proportion of the circle of radius ``r`` about point ``index`` inside the window.
@@ -172,17 +173,39 @@ class EdgeTable:
         """
         index = np.asarray(index, dtype=np.intp)
         r = np.broadcast_to(np.asarray(r, float), index.shape)
-        theta = _TWO_PI * self.winding[index]
         if index.size == 0:
-            return theta
-        # the (point, edge) entries that some circle can reach, point by point with the edges
-        # in increasing order (a CSR list): a circle about a point near one straight edge
-        # visits that edge only, not all E of them
-        pts, edges = np.nonzero(self.seg_dist.T < r.max())
+            return np.empty(0)
+        return self._fraction(index, r, float(r.max()))
+
+    def _reachable(self, r_top: float) -> tuple[np.ndarray, ...]:
+        """The (point, edge) entries closer than ``r_top``, as per-point lists (cached).
+
+        Points are in order and each point's edges in increasing order: ``start[p]`` and
+        ``count[p]`` locate point p's entries in the per-entry arrays ``sd`` (distance to the
+        segment), ``ld`` (to its line), ``pa``, ``pb`` (the angles ψ_a, ψ_b) and ``sg`` (the
+        orientation sign).
+        """
+        if self._cache is not None and self._cache[0] == r_top:
+            return self._cache[1]
+        pts, edges = np.nonzero(self.seg_dist.T < r_top)
         count = np.bincount(pts, minlength=self.n_points)
         start = np.cumsum(count) - count
-        sd, ld = self.seg_dist[edges, pts], self.line_dist[edges, pts]
-        pa, pb, sg = self.psi_a[edges, pts], self.psi_b[edges, pts], self.sign[edges, pts]
+        entries = (
+            count,
+            start,
+            self.seg_dist[edges, pts],
+            self.line_dist[edges, pts],
+            self.psi_a[edges, pts],
+            self.psi_b[edges, pts],
+            self.sign[edges, pts],
+        )
+        self._cache = (r_top, entries)
+        return entries
+
+    def _fraction(self, index: np.ndarray, r: np.ndarray, r_top: float) -> np.ndarray:
+        """:meth:`fraction` for radii ``r`` all ≤ ``r_top`` (the edge lists are for r_top)."""
+        count, start, sd, ld, pa, pb, sg = self._reachable(r_top)
+        theta = _TWO_PI * self.winding[index]
         # slot k holds each point's k-th reachable edge. Going slot by slot takes the edges of
         # every circle in increasing order, and an edge the circle does not reach (distance to
         # the segment ≥ r) subtracts exactly 0: the same floating-point result as a loop over

@@ -61,7 +61,9 @@ BANDWIDTH_CONSTANT = 0.15
 #: :func:`default_r_max`).
 SPACINGS_CAP = 10.0
 
-_PAIR_CHUNK = 1_000_000
+#: Pairs per chunk in the per-pair passes: the temporaries of one chunk stay in the processor's
+#: cache and are reused (whole-length temporaries cost more in fresh memory than in arithmetic).
+_PAIR_CHUNK = 32_768
 
 
 def shorter_side_m(polygon: shapely.Geometry) -> float:
@@ -224,14 +226,27 @@ class PairTable:
         pairs = cKDTree(sxy, leafsize=32).query_pairs(reach_m, output_type="ndarray")
         si, sj = pairs[:, 0], pairs[:, 1]
         z = sxy[:, 0] + 1j * sxy[:, 1]  # one gather per end instead of two
-        self.d = np.abs(z[si] - z[sj])
+        # distances, and the pair ends whose circle reaches the boundary (d > b: only those
+        # have a weight other than 1), a cache-sized chunk of pairs at a time
+        self.d = np.empty(si.size)
+        need_i, need_j = [], []
+        for s in range(0, si.size, _PAIR_CHUNK):
+            ci, cj = si[s : s + _PAIR_CHUNK], sj[s : s + _PAIR_CHUNK]
+            dz = z[ci]
+            dz -= z[cj]
+            dc = np.abs(dz, out=self.d[s : s + _PAIR_CHUNK])
+            need_i.append(np.flatnonzero(dc > b[ci]) + s)
+            need_j.append(np.flatnonzero(dc > b[cj]) + s)
         # the edge table holds only the points whose circles can reach the boundary
         near = np.flatnonzero(b < reach_m)
         slot = np.full(self.n, -1, dtype=np.intp)
         slot[near] = np.arange(near.size)
         table = EdgeTable(sxy[near], polygon) if near.size else None
-        self._need_i, self._wt_i = self._weights(si, b, table, slot)
-        self._need_j, self._wt_j = self._weights(sj, b, table, slot)
+        r_top = float(self.d.max(initial=0.0))
+        self._need_i = np.concatenate(need_i) if need_i else np.empty(0, np.intp)
+        self._need_j = np.concatenate(need_j) if need_j else np.empty(0, np.intp)
+        self._wt_i = self._weights(self._need_i, si, slot, table, r_top)
+        self._wt_j = self._weights(self._need_j, sj, slot, table, r_top)
         self._order, self._si, self._sj = order, si, sj
 
     @property
@@ -267,17 +282,22 @@ class PairTable:
         return w
 
     def _weights(
-        self, ends: np.ndarray, b: np.ndarray, table: EdgeTable | None, slot: np.ndarray
-    ) -> tuple[np.ndarray, np.ndarray]:
-        # only the ends whose circle reaches the boundary (d > b) have a weight other than 1
-        need = np.flatnonzero(self.d > b[ends])
+        self,
+        need: np.ndarray,
+        ends: np.ndarray,
+        slot: np.ndarray,
+        table: EdgeTable | None,
+        r_top: float,
+    ) -> np.ndarray:
+        # exact isotropic weights of the pair ends ``need`` (point ``ends``, whose row in the
+        # edge table is ``slot``); every radius is at most r_top
         wt = np.empty(need.size)
         for s in range(0, need.size, _PAIR_CHUNK):
             idx = need[s : s + _PAIR_CHUNK]
-            frac = table.fraction(slot[ends[idx]], self.d[idx])
+            frac = table._fraction(slot[ends[idx]], self.d[idx], r_top)
             np.maximum(frac, 1e-9, out=frac)
             np.divide(1.0, frac, out=wt[s : s + _PAIR_CHUNK])
-        return need, wt
+        return wt
 
 
 #: Sub-steps per distance step in the pair histogram; the bandwidth is a whole number of them.
@@ -310,16 +330,19 @@ def _k_and_kernel_sums(
     """
     m = SUBSTEPS
     big_h = round(h * m / dr)
-    q = d * (m / dr)
-    q -= 1e-9  # a pair at exactly r_k counts in K(r_k)
-    t, left = np.modf(q)  # t = q − left end of the cell, in [0, 1) (in sub-steps)
-    cell = left.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
     n_cells = m * n_r + big_h + 4
-    wt = w * t
-    m0 = np.bincount(cell, weights=w, minlength=n_cells)
-    m1 = np.bincount(cell, weights=wt, minlength=n_cells)
-    wt *= t
-    m2 = np.bincount(cell, weights=wt, minlength=n_cells)
+    m0, m1, m2 = np.zeros(n_cells), np.zeros(n_cells), np.zeros(n_cells)
+    for s in range(0, d.size, _PAIR_CHUNK):  # cache-sized chunks of pairs
+        q = d[s : s + _PAIR_CHUNK] * (m / dr)
+        q -= 1e-9  # a pair at exactly r_k counts in K(r_k)
+        t, left = np.modf(q)  # t = q − left end of the cell, in [0, 1) (in sub-steps)
+        cell = left.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
+        wc = w[s : s + _PAIR_CHUNK]
+        m0 += np.bincount(cell, weights=wc, minlength=n_cells)
+        wc = wc * t
+        m1 += np.bincount(cell, weights=wc, minlength=n_cells)
+        wc *= t
+        m2 += np.bincount(cell, weights=wc, minlength=n_cells)
     k = np.arange(1, n_r + 1)
     K = np.r_[0.0, np.cumsum(m0)][m * k]  # Σ over d <= r_k
     off = np.arange(-big_h, big_h)  # the window's cells, relative to r_k's cell edge
