@@ -154,6 +154,7 @@ class EdgeTable:
         )
         # winding number of each point (1 inside, 1/2 on an edge, 0 outside)
         self.winding = np.sum(self.sign * (self.psi_b - self.psi_a), axis=0) / _TWO_PI
+        self._theta0 = _TWO_PI * self.winding
         self._cache: tuple[float, tuple[np.ndarray, ...]] | None = None
 
     def fraction(self, index: np.ndarray, r: np.ndarray) -> np.ndarray:
@@ -182,7 +183,7 @@ class EdgeTable:
 
         Points are in order and each point's edges in increasing order: ``start[p]`` and
         ``count[p]`` locate point p's entries in the per-entry arrays ``sd`` (distance to the
-        segment), ``ld`` (to its line), ``pa``, ``pb`` (the angles ψ_a, ψ_b) and ``sg`` (the
+        segment), ``ld`` (to its line), ``npa``, ``pb`` (the angles −ψ_a, ψ_b) and ``sg`` (the
         orientation sign).
         """
         if self._cache is not None and self._cache[0] == r_top:
@@ -195,7 +196,7 @@ class EdgeTable:
             start,
             self.seg_dist[edges, pts],
             self.line_dist[edges, pts],
-            self.psi_a[edges, pts],
+            -self.psi_a[edges, pts],
             self.psi_b[edges, pts],
             self.sign[edges, pts],
         )
@@ -204,8 +205,8 @@ class EdgeTable:
 
     def _fraction(self, index: np.ndarray, r: np.ndarray, r_top: float) -> np.ndarray:
         """:meth:`fraction` for radii ``r`` all ≤ ``r_top`` (the edge lists are for r_top)."""
-        count, start, sd, ld, pa, pb, sg = self._reachable(r_top)
-        theta = _TWO_PI * self.winding[index]
+        count, start, sd, ld, npa, pb, sg = self._reachable(r_top)
+        theta = self._theta0[index]
         # slot k holds each point's k-th reachable edge. Going slot by slot takes the edges of
         # every circle in increasing order, and an edge the circle does not reach (distance to
         # the segment ≥ r) subtracts exactly 0: the same floating-point result as a loop over
@@ -222,7 +223,7 @@ class EdgeTable:
             np.minimum(beta, 1.0, out=beta)
             np.arccos(beta, out=beta)
             over = np.minimum(pb[f], beta)
-            over -= np.maximum(pa[f], -beta)
+            over += np.minimum(npa[f], beta)  # min(ψ_b, β) − max(ψ_a, −β), exactly
             np.maximum(over, 0.0, out=over)
             over *= sg[f]
             over *= sd[f] < rr
@@ -230,7 +231,8 @@ class EdgeTable:
                 theta -= over
             else:
                 theta[sel] -= over
-        return np.clip(theta / _TWO_PI, 0.0, 1.0)
+        theta /= _TWO_PI
+        return np.clip(theta, 0.0, 1.0, out=theta)
 
 
 def circle_fraction_inside(

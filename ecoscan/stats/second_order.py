@@ -281,6 +281,14 @@ class PairTable:
         w[self._need_j] += self._wt_j - 1.0
         return w
 
+    def _w_sum_chunk(self, start: int, stop: int) -> np.ndarray:
+        """``w_sum[start:stop]`` without building the whole array (the same values)."""
+        w = np.full(stop - start, 2.0)
+        for need, wt in ((self._need_i, self._wt_i), (self._need_j, self._wt_j)):
+            a, b = np.searchsorted(need, [start, stop])
+            w[need[a:b] - start] += wt[a:b] - 1.0
+        return w
+
     def _weights(
         self,
         need: np.ndarray,
@@ -315,7 +323,7 @@ def snap_bandwidth(h: float, dr: float) -> float:
 
 
 def _k_and_kernel_sums(
-    d: np.ndarray, w: np.ndarray, dr: float, n_r: int, h: float
+    d: np.ndarray, w: np.ndarray | PairTable, dr: float, n_r: int, h: float
 ) -> tuple[np.ndarray, np.ndarray]:
     """Σ w · 1(d ≤ r_k) and Σ w · k_h(r_k − d) (Epanechnikov) for k = 1..n_r, exactly.
 
@@ -327,6 +335,8 @@ def _k_and_kernel_sums(
     (r − d)² = δ² (a² − 2 a t + t²). The moments are about the cell's own end, so no term is
     much larger than the sum (moments about 0 would cancel by a factor (r / h)²), and each
     window r_k ± h is the sum over its 2H cells.
+
+    ``w`` is the pair weights, or a :class:`PairTable` whose ``w_sum`` is used chunk by chunk.
     """
     m = SUBSTEPS
     big_h = round(h * m / dr)
@@ -335,9 +345,13 @@ def _k_and_kernel_sums(
     for s in range(0, d.size, _PAIR_CHUNK):  # cache-sized chunks of pairs
         q = d[s : s + _PAIR_CHUNK] * (m / dr)
         q -= 1e-9  # a pair at exactly r_k counts in K(r_k)
-        t, left = np.modf(q)  # t = q − left end of the cell, in [0, 1) (in sub-steps)
+        left = np.trunc(q)
         cell = left.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
-        wc = w[s : s + _PAIR_CHUNK]
+        t = np.subtract(q, left, out=q)  # q − left end of the cell, in [0, 1) (in sub-steps)
+        if isinstance(w, PairTable):
+            wc = w._w_sum_chunk(s, min(s + _PAIR_CHUNK, d.size))
+        else:
+            wc = w[s : s + _PAIR_CHUNK]
         m0 += np.bincount(cell, weights=wc, minlength=n_cells)
         wc = wc * t
         m1 += np.bincount(cell, weights=wc, minlength=n_cells)
@@ -447,9 +461,8 @@ def second_order(
     h = snap_bandwidth(h, dr)
     pt = PairTable(xy, polygon, r_max_m + h, boundary_m)
     b = pt.boundary_m
-    w = pt.w_sum
     scale = area / (n * (n - 1))
-    k_sum, kern_sum = _k_and_kernel_sums(pt.d, w, dr, n_r, h)
+    k_sum, kern_sum = _k_and_kernel_sums(pt.d, pt, dr, n_r, h)
     K = scale * k_sum
     g = scale * kern_sum / (2 * np.pi * r)
     if border:
