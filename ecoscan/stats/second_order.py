@@ -345,9 +345,8 @@ def _k_and_kernel_sums(
     for s in range(0, d.size, _PAIR_CHUNK):  # cache-sized chunks of pairs
         q = d[s : s + _PAIR_CHUNK] * (m / dr)
         q -= 1e-9  # a pair at exactly r_k counts in K(r_k)
-        left = np.trunc(q)
-        cell = left.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
-        t = np.subtract(q, left, out=q)  # q − left end of the cell, in [0, 1) (in sub-steps)
+        cell = q.astype(np.intp)  # cell c holds (c δ, (c + 1) δ], shifted by one
+        t = np.subtract(q, cell, out=q)  # q − left end of the cell, in [0, 1) (in sub-steps)
         if isinstance(w, PairTable):
             wc = w._w_sum_chunk(s, min(s + _PAIR_CHUNK, d.size))
         else:
