@@ -111,8 +111,10 @@ class EdgeTable:
     """Per-point, per-edge geometry for fast exact circle proportions.
 
     Everything that depends on the point but not on the radius is computed once here, so that
-    the proportion for many (point, radius) pairs costs a few vectorised operations per edge,
-    and only for the edges that the circle actually reaches.
+    the proportion for many (point, radius) pairs costs a few vectorised operations per
+    (circle, edge) pair, and only for the edges within reach of the circle's centre (a
+    per-point list of edges closer than the largest radius asked for: most circles near the
+    boundary reach one or two edges, whatever E is).
 
     Parameters
     ----------
@@ -152,6 +154,8 @@ class EdgeTable:
         )
         # winding number of each point (1 inside, 1/2 on an edge, 0 outside)
         self.winding = np.sum(self.sign * (self.psi_b - self.psi_a), axis=0) / _TWO_PI
+        self._theta0 = _TWO_PI * self.winding
+        self._cache: tuple[float, tuple[np.ndarray, ...]] | None = None
 
     def fraction(self, index: np.ndarray, r: np.ndarray) -> np.ndarray:
         """Proportion of the circle of radius ``r`` about point ``index`` inside the window.
@@ -170,18 +174,65 @@ class EdgeTable:
         """
         index = np.asarray(index, dtype=np.intp)
         r = np.broadcast_to(np.asarray(r, float), index.shape)
-        theta = _TWO_PI * self.winding[index]
-        for e in range(self.n_edges):
-            sd = self.seg_dist[e, index]
-            hit = np.flatnonzero(sd < r)
-            if hit.size == 0:
-                continue
-            ii = index[hit]
-            rr = r[hit]
-            beta = np.arccos(np.minimum(self.line_dist[e, ii] / rr, 1.0))
-            over = np.minimum(self.psi_b[e, ii], beta) - np.maximum(self.psi_a[e, ii], -beta)
-            theta[hit] -= self.sign[e, ii] * np.maximum(over, 0.0)
-        return np.clip(theta / _TWO_PI, 0.0, 1.0)
+        if index.size == 0:
+            return np.empty(0)
+        return self._fraction(index, r, float(r.max()))
+
+    def _reachable(self, r_top: float) -> tuple[np.ndarray, ...]:
+        """The (point, edge) entries closer than ``r_top``, as per-point lists (cached).
+
+        Points are in order and each point's edges in increasing order: ``start[p]`` and
+        ``count[p]`` locate point p's entries in the per-entry arrays ``sd`` (distance to the
+        segment), ``ld`` (to its line), ``npa``, ``pb`` (the angles −ψ_a, ψ_b) and ``sg`` (the
+        orientation sign).
+        """
+        if self._cache is not None and self._cache[0] == r_top:
+            return self._cache[1]
+        pts, edges = np.nonzero(self.seg_dist.T < r_top)
+        count = np.bincount(pts, minlength=self.n_points)
+        start = np.cumsum(count) - count
+        entries = (
+            count,
+            start,
+            self.seg_dist[edges, pts],
+            self.line_dist[edges, pts],
+            -self.psi_a[edges, pts],
+            self.psi_b[edges, pts],
+            self.sign[edges, pts],
+        )
+        self._cache = (r_top, entries)
+        return entries
+
+    def _fraction(self, index: np.ndarray, r: np.ndarray, r_top: float) -> np.ndarray:
+        """:meth:`fraction` for radii ``r`` all ≤ ``r_top`` (the edge lists are for r_top)."""
+        count, start, sd, ld, npa, pb, sg = self._reachable(r_top)
+        theta = self._theta0[index]
+        # slot k holds each point's k-th reachable edge. Going slot by slot takes the edges of
+        # every circle in increasing order, and an edge the circle does not reach (distance to
+        # the segment ≥ r) subtracts exactly 0: the same floating-point result as a loop over
+        # all edges that skips those out of reach.
+        left = count[index]
+        first = start[index]
+        sel = None if left.min() > 0 else np.flatnonzero(left > 0)
+        for k in range(int(count.max(initial=0))):
+            if k:
+                sel = np.flatnonzero(left > k) if sel is None else sel[left[sel] > k]
+            f = first + k if sel is None else first[sel] + k
+            rr = r if sel is None else r[sel]
+            beta = ld[f] / rr
+            np.minimum(beta, 1.0, out=beta)
+            np.arccos(beta, out=beta)
+            over = np.minimum(pb[f], beta)
+            over += np.minimum(npa[f], beta)  # min(ψ_b, β) − max(ψ_a, −β), exactly
+            np.maximum(over, 0.0, out=over)
+            over *= sg[f]
+            over *= sd[f] < rr
+            if sel is None:
+                theta -= over
+            else:
+                theta[sel] -= over
+        theta /= _TWO_PI
+        return np.clip(theta, 0.0, 1.0, out=theta)
 
 
 def circle_fraction_inside(
