@@ -42,6 +42,17 @@ def add_polygon(ax, geom: shapely.Geometry, origin: tuple[float, float], **kw) -
     ax.add_patch(PathPatch(_polygon_path(geom, *origin), **style))
 
 
+def _plot_frame(ax, polygon: shapely.Geometry, pad: float, title: str) -> None:
+    """Axes of a plot map: metres from the plot's lower-left corner, equal scale."""
+    x0, y0, x1, y1 = polygon.bounds
+    ax.set_xlim(-pad, x1 - x0 + pad)
+    ax.set_ylim(-pad, y1 - y0 + pad)
+    ax.set_aspect("equal")
+    ax.set_xlabel("easting from plot corner (m)")
+    ax.set_ylabel("northing from plot corner (m)")
+    ax.set_title(title, fontsize=10)
+
+
 def plot_map_figure(
     path: str | os.PathLike,
     polygon: shapely.Geometry,
@@ -113,12 +124,7 @@ def plot_map_figure(
             label=f"{len(xy)} detected plants",
         )
         ax.legend(loc="upper right", fontsize=8, framealpha=0.85)
-    ax.set_xlim(-pad, x1 - x0 + pad)
-    ax.set_ylim(-pad, y1 - y0 + pad)
-    ax.set_aspect("equal")
-    ax.set_xlabel("easting from plot corner (m)")
-    ax.set_ylabel("northing from plot corner (m)")
-    ax.set_title(title, fontsize=10)
+    _plot_frame(ax, polygon, pad, title)
     return save_figure(fig, path)
 
 
@@ -215,12 +221,7 @@ def quadrat_map_figure(
     sm = mpl.cm.ScalarMappable(norm=norm, cmap=cmap)
     fig.colorbar(sm, ax=ax, shrink=0.8, label="plants per quadrat")
     pad = 0.03 * max(x1 - x0, y1 - y0)
-    ax.set_xlim(-pad, x1 - x0 + pad)
-    ax.set_ylim(-pad, y1 - y0 + pad)
-    ax.set_aspect("equal")
-    ax.set_xlabel("easting from plot corner (m)")
-    ax.set_ylabel("northing from plot corner (m)")
-    ax.set_title(title, fontsize=10)
+    _plot_frame(ax, polygon, pad, title)
     return save_figure(fig, path)
 
 
