@@ -252,6 +252,7 @@ def r_against_n_figure(
     ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=7, color="#1f4e8c")
     ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
     ax.text(30, 0.02, " 30 points", fontsize=7, color="#666666")
+    labelled: set = set()
     for key in ("clustered", "random", "regular"):
         sel = [r for r in rows if r.get("pattern") == key and r.get("R") not in (None, "")]
         if sel:
@@ -267,6 +268,9 @@ def r_against_n_figure(
                 linewidth=0.4,
             )
             for r in sel:
+                if r.get(label_key) in labelled:  # one label per plot (several dates)
+                    continue
+                labelled.add(r.get(label_key))
                 ax.annotate(
                     str(r.get(label_key, "")),
                     (float(r["n"]), float(r["R"])),
