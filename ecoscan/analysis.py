@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import dataclasses
 import os
-import zlib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,6 +28,7 @@ from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
+from ecoscan.stats.csr import plot_rng
 from ecoscan.stats.montecarlo import ALTERNATIVES, MonteCarloResult, monte_carlo_nn
 from ecoscan.stats.nearest import (
     ClarkEvansResult,
@@ -234,15 +234,6 @@ class DispersionSettings:
         """Smallest Monte Carlo p-value attainable with these settings."""
         k = 2.0 if self.alternative == "two-sided" else 1.0
         return min(1.0, k / (self.simulations + 1.0))
-
-
-def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
-    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``.
-
-    A plot's numbers depend only on the seed and its own id, not on the other plots or their
-    order.
-    """
-    return np.random.default_rng(np.random.SeedSequence([int(seed), zlib.crc32(plot_id.encode())]))
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import os
 import re
-import zlib
 from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
@@ -33,7 +32,7 @@ from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import format_value, write_csv, write_json
 from ecoscan.progress import progress
 from ecoscan.stats.cross import CrossResult, random_labelling_test
-from ecoscan.stats.csr import uniform_in_polygon
+from ecoscan.stats.csr import plot_rng, uniform_in_polygon
 from ecoscan.stats.distance_functions import (
     EmptySpaceGrid,
     empty_space_function,
@@ -285,26 +284,6 @@ class PlotScales:
     alpha: float = 0.05
 
 
-def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
-    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``.
-
-    Parameters
-    ----------
-    seed : int
-        The run's seed.
-    plot_id : str
-        The plot's id (UTF-8 bytes hashed with :func:`zlib.crc32`).
-
-    Returns
-    -------
-    numpy.random.Generator
-    """
-    return np.random.default_rng(np.random.SeedSequence([seed, zlib.crc32(plot_id.encode())]))
-
-
-# ------------------------------------------------------------------------ interpretation
-
-
 def _fmt_m(v: float) -> str:
     """A distance for people: 0.15, 1.2, 11."""
     v = float(v)
@@ -323,6 +302,9 @@ def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
     starts = np.flatnonzero(edges == 1)
     ends = np.flatnonzero(edges == -1) - 1
     return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]
+
+
+# ------------------------------------------------------------------------ interpretation
 
 
 def format_ranges(ranges: Sequence[tuple[float, float]]) -> str:

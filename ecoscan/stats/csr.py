@@ -7,10 +7,12 @@ test in ecoscan, so that simulations happen in the exact plot shape.
 
 from __future__ import annotations
 
+import zlib
+
 import numpy as np
 import shapely
 
-__all__ = ["as_rng", "uniform_in_polygon"]
+__all__ = ["as_rng", "plot_rng", "uniform_in_polygon"]
 
 
 def as_rng(seed: int | np.random.Generator | None) -> np.random.Generator:
@@ -18,6 +20,26 @@ def as_rng(seed: int | np.random.Generator | None) -> np.random.Generator:
     if isinstance(seed, np.random.Generator):
         return seed
     return np.random.default_rng(seed)
+
+
+def plot_rng(seed: int, plot_id: str) -> np.random.Generator:
+    """The random stream of one plot: ``SeedSequence([seed, crc32(plot_id)])``.
+
+    A plot's numbers depend only on the run's seed and its own id (UTF-8 bytes hashed with
+    :func:`zlib.crc32`), not on the other plots or their order.
+
+    Parameters
+    ----------
+    seed : int
+        The run's seed.
+    plot_id : str
+        The plot's id.
+
+    Returns
+    -------
+    numpy.random.Generator
+    """
+    return np.random.default_rng(np.random.SeedSequence([int(seed), zlib.crc32(plot_id.encode())]))
 
 
 def uniform_in_polygon(
