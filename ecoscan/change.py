@@ -45,6 +45,7 @@ from ecoscan.vector import Plot, PlotLayer, reproject_geometries, write_plots, w
 
 __all__ = [
     "CHANGE_COLUMNS",
+    "CHANGE_SUMMARY_COLUMNS",
     "PLANT_COLUMNS",
     "ChangeResult",
     "change_rows",
@@ -80,6 +81,23 @@ CHANGE_COLUMNS = (
     "R_later_null",
     "p_R_change_mc",
     "warnings",
+)
+
+#: The columns of ``change.csv`` worth reading first (terminal table and report).
+CHANGE_SUMMARY_COLUMNS = (
+    "plot_id",
+    "n_earlier",
+    "n_later",
+    "persisting",
+    "lost",
+    "new",
+    "survival",
+    "survival_low95",
+    "survival_high95",
+    "density_change_per_ha",
+    "R_earlier",
+    "R_later",
+    "p_R_change_mc",
 )
 
 #: Columns of ``plants.csv`` in order.

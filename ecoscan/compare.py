@@ -48,6 +48,7 @@ from ecoscan.vector import PlotLayer, read_points, reproject_geometries
 __all__ = [
     "BY_CHOICES",
     "GROUP_COLUMNS",
+    "GROUP_SUMMARY_COLUMNS",
     "PAIR_COLUMNS",
     "ComparisonResult",
     "PlotUnit",
@@ -55,12 +56,46 @@ __all__ = [
     "compare_groups",
     "comparison_rows",
     "group_rows",
+    "pair_summary_columns",
     "read_results",
     "results_from_points",
     "write_comparison",
 ]
 
 BY_CHOICES = ("auto", "site", "date", "plot", "folder")
+
+#: The group columns worth reading first (terminal table and report).
+GROUP_SUMMARY_COLUMNS = (
+    "rank_regularity",
+    "group",
+    "n_plots",
+    "n",
+    "density_per_ha",
+    "mean_nn_m",
+    "R",
+    "R_low95",
+    "R_high95",
+    "R_donnelly",
+    "pattern",
+)
+
+
+def pair_summary_columns(n_pairs: int) -> tuple[str, ...]:
+    """The pair columns worth reading first; Holm-adjusted p-values when there are several."""
+    sfx = "_holm" if n_pairs > 1 else ""
+    return (
+        "group_a",
+        "group_b",
+        "density_diff_per_ha",
+        f"p_density{sfx}",
+        "R_diff",
+        "R_donnelly_diff",
+        f"p_R_donnelly_diff{sfx}",
+        f"p_R_perm{sfx}",
+        f"p_mw{sfx}",
+        f"p_ks{sfx}",
+    )
+
 
 #: Columns of ``groups.csv`` (one row per group) in order.
 GROUP_COLUMNS = (

@@ -60,53 +60,6 @@ SUMMARY_HEADERS = [
 ]
 
 
-#: Columns of the comparison and change tables shown in the report (all are in the CSVs).
-REPORT_GROUP_COLUMNS = [
-    "group",
-    "rank_regularity",
-    "n_plots",
-    "n",
-    "density_per_ha",
-    "mean_nn_m",
-    "R",
-    "R_low95",
-    "R_high95",
-    "R_donnelly",
-    "pattern",
-    "warnings",
-]
-REPORT_PAIR_COLUMNS = [
-    "group_a",
-    "group_b",
-    "n_a",
-    "n_b",
-    "density_diff_per_ha",
-    "p_density_holm",
-    "R_diff",
-    "p_R_donnelly_diff_holm",
-    "p_R_perm_holm",
-    "p_mw_holm",
-    "p_ks_holm",
-    "warnings",
-]
-REPORT_CHANGE_COLUMNS = [
-    "plot_id",
-    "n_earlier",
-    "n_later",
-    "persisting",
-    "lost",
-    "new",
-    "survival",
-    "survival_low95",
-    "survival_high95",
-    "recruitment",
-    "density_change_per_ha",
-    "R_earlier",
-    "R_later",
-    "p_R_change_mc",
-    "warnings",
-]
-
 _SHORT = (
     ("fewer than 30", "n < 30"),
     ("fewer than 2", "too few for a test"),
@@ -372,7 +325,12 @@ def write_report(run, stat_settings) -> list[Path]:
 
 
 def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.compare import comparison_rows, group_rows
+    from ecoscan.compare import (
+        GROUP_SUMMARY_COLUMNS,
+        comparison_rows,
+        group_rows,
+        pair_summary_columns,
+    )
 
     parts = [
         "<p>Differences between groups of plots: density (exact test for two Poisson "
@@ -384,8 +342,9 @@ def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
     for by, res in run.comparisons:
         groups = group_rows(res)
         pairs = comparison_rows(res)
-        gcols = [c for c in REPORT_GROUP_COLUMNS if groups and c in groups[0]]
-        pcols = [c for c in REPORT_PAIR_COLUMNS if pairs and c in pairs[0]]
+        # the same short column sets as the terminal tables; every column is in the CSVs
+        gcols = [*GROUP_SUMMARY_COLUMNS, "warnings"]
+        pcols = [*pair_summary_columns(len(pairs)), "warnings"]
         many = len(groups) > 2
         pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
         png = run.output / f"compare-by-{by}" / "comparison.png"
@@ -400,7 +359,7 @@ def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
 
 
 def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
-    from ecoscan.change import change_rows
+    from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows
 
     parts = [
         "<p>Plants matched one-to-one between consecutive dates after removing the "
@@ -413,7 +372,7 @@ def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
             f"Shift found between the mosaics: {ch.result.shift_x_m:+.2f} m east, "
             f"{ch.result.shift_y_m:+.2f} m north."
         )
-        cols = [c for c in REPORT_CHANGE_COLUMNS if rows and c in rows[0]]
+        cols = [*CHANGE_SUMMARY_COLUMNS, "warnings"]
         rows = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in rows]
         parts.append(
             f"<h3>{_esc(ch.site)}: {_esc(ch.earlier)} to {_esc(ch.later)}</h3>"

@@ -6,7 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from ecoscan.change import change_rows, detect_change, write_change
+from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows, detect_change, write_change
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
 from ecoscan.tables import format_table, show_small_p
@@ -26,21 +26,6 @@ EXAMPLE = (
     "--plots plots.gpkg -o change_spring_autumn"
 )
 
-TABLE_COLUMNS = (
-    "plot_id",
-    "n_earlier",
-    "n_later",
-    "persisting",
-    "lost",
-    "new",
-    "survival",
-    "survival_low95",
-    "survival_high95",
-    "density_change_per_ha",
-    "R_earlier",
-    "R_later",
-    "p_R_change_mc",
-)
 TABLE_HEADERS = (
     "plot",
     "n before",
@@ -152,8 +137,8 @@ def run(args: argparse.Namespace) -> int:
         f"{c['persisting']} persisting, {c['lost']} lost, {c['new']} new "
         f"(tolerance {result.tolerance_m:g} m)"
     )
-    rows = show_small_p(change_rows(result), TABLE_COLUMNS)
-    print(format_table(rows, TABLE_COLUMNS, headers=TABLE_HEADERS))
+    rows = show_small_p(change_rows(result), CHANGE_SUMMARY_COLUMNS)
+    print(format_table(rows, CHANGE_SUMMARY_COLUMNS, headers=TABLE_HEADERS))
     print("automated counts: check lost and new plants in the field before acting on them")
     if not args.quiet:
         print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)

@@ -8,9 +8,11 @@ import sys
 from ecoscan.cli._common import print_notes
 from ecoscan.compare import (
     BY_CHOICES,
+    GROUP_SUMMARY_COLUMNS,
     compare_groups,
     comparison_rows,
     group_rows,
+    pair_summary_columns,
     read_results,
     write_comparison,
 )
@@ -28,19 +30,6 @@ DESCRIPTION = (
 )
 EXAMPLE = "ecoscan compare results_planted results_natural -o compare_out --by folder"
 
-GROUP_TABLE = (
-    "rank_regularity",
-    "group",
-    "n_plots",
-    "n",
-    "density_per_ha",
-    "mean_nn_m",
-    "R",
-    "R_low95",
-    "R_high95",
-    "R_donnelly",
-    "pattern",
-)
 GROUP_HEADERS = (
     "rank",
     "group",
@@ -93,22 +82,10 @@ def run(args: argparse.Namespace) -> int:
     paths = write_comparison(args.out, result)
     print_notes(result.notes, args.quiet)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
-    print(format_table(groups, GROUP_TABLE, headers=GROUP_HEADERS))
+    print(format_table(groups, GROUP_SUMMARY_COLUMNS, headers=GROUP_HEADERS))
     print()
     adj = len(result.pairs) > 1
-    sfx = "_holm" if adj else ""
-    cols = (
-        "group_a",
-        "group_b",
-        "density_diff_per_ha",
-        f"p_density{sfx}",
-        "R_diff",
-        "R_donnelly_diff",
-        f"p_R_donnelly_diff{sfx}",
-        f"p_R_perm{sfx}",
-        f"p_mw{sfx}",
-        f"p_ks{sfx}",
-    )
+    cols = pair_summary_columns(len(result.pairs))
     heads = (
         "A",
         "B",
