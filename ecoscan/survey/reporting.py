@@ -93,7 +93,7 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     sizes = sizes[m] if sizes is not None else None
     bounds = plot.geometry.buffer(2.0).bounds
     pv = None
-    same_crs = rr.inputs.layer.crs is None or _raster_crs(rr.entry.path) == rr.inputs.layer.crs
+    same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
     if same_crs:
         pv = preview(str(rr.entry.path), bounds, rgb=rr.method == "imagery")
     title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
@@ -173,12 +173,6 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
         + "</div></div>"
     )
     return body, files
-
-
-def _raster_crs(path):
-    from ecoscan.raster import open_raster
-
-    return open_raster(path).crs
 
 
 def _fmt(v, digits: int = 3) -> str:

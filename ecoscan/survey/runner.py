@@ -74,6 +74,7 @@ class RasterRun:
     notes: list[str]
     cached: bool
     pixel_size_m: float
+    raster_crs: Any = None  # the raster's own CRS (the report's previews need it)
 
 
 @dataclass
@@ -94,6 +95,7 @@ class SurveyRun:
     config: SurveyConfig
     output: Path
     crs_text: str
+    layer: PlotLayer | None = None  # all plots, in the survey CRS
     rasters: list[RasterRun] = field(default_factory=list)
     rows: list[dict] = field(default_factory=list)
     changes: list[ChangeRun] = field(default_factory=list)
@@ -214,7 +216,7 @@ def run_survey(
     stat_settings = DispersionSettings.from_mapping(config.statistics)
     layer = read_plots(config.plots, id_field=config.plot_id_field, layer=config.plots_layer)
     survey_crs = layer.crs
-    run = SurveyRun(config, out, crs_label(survey_crs), notes=list(layer.notes))
+    run = SurveyRun(config, out, crs_label(survey_crs), layer=layer, notes=list(layer.notes))
     plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
@@ -225,7 +227,7 @@ def run_survey(
         )
 
     for entry in progress(config.rasters, desc="rasters", unit="raster"):
-        footprint, _info = _raster_footprint(entry.path, survey_crs)
+        footprint, info = _raster_footprint(entry.path, survey_crs)
         import shapely
 
         touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
@@ -252,7 +254,9 @@ def run_survey(
             from ecoscan.scales import analyse_scales
 
             scl = analyse_scales(inputs, scales_settings)
-        run.rasters.append(RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px))
+        run.rasters.append(
+            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs)
+        )
         for row in dispersion_rows(disp):
             run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
         for n in notes:
@@ -309,10 +313,7 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
     if allpts.crs is None and run.rasters:
         allpts.crs = run.rasters[0].inputs.layer.crs
     run.files.append(write_points(allpts, out / "points.csv"))
-    layer = read_plots(
-        run.config.plots, id_field=run.config.plot_id_field, layer=run.config.plots_layer
-    )
-    run.files.append(write_plots(layer, out / "plots.gpkg"))
+    run.files.append(write_plots(run.layer, out / "plots.gpkg"))
     if any(rr.scales for rr in run.rasters):
         from ecoscan.scales import function_rows, scales_rows
 
