@@ -111,13 +111,14 @@ def _layer_subset(layer: PlotLayer, keep: np.ndarray) -> PlotLayer:
     )
 
 
-def _raster_footprint(path: Path, survey_crs):
-    """The raster's footprint polygon in the survey CRS."""
+def _raster_footprint(path: Path, survey_crs, pixel_size_m: float | None = None):
+    """The raster's footprint polygon in the survey CRS (``pixel_size_m`` for rasters
+    without georeferencing, as in the detector settings)."""
     import shapely
 
     from ecoscan.raster import open_raster
 
-    info = open_raster(path)
+    info = open_raster(path, pixel_size_m=pixel_size_m)
     t = info.transform
     corners = np.array([[0, 0], [info.width, 0], [info.width, info.height], [0, info.height]])
     xs = t.a * corners[:, 0] + t.b * corners[:, 1] + t.c
@@ -227,7 +228,9 @@ def run_survey(
         )
 
     for entry in progress(config.rasters, desc="rasters", unit="raster"):
-        footprint, info = _raster_footprint(entry.path, survey_crs)
+        footprint, info = _raster_footprint(
+            entry.path, survey_crs, entry.detect.get("pixel_size_m")
+        )
         import shapely
 
         touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
