@@ -286,9 +286,9 @@ def write_report(run, stat_settings) -> list[Path]:
         )
 
     if run.comparisons:
-        sections.append(_comparison_section(run, figdir, files))
+        sections.append(_comparison_section(run))
     if run.changes:
-        sections.append(_change_section(run, figdir, files))
+        sections.append(_change_section(run))
 
     topics = ["detection"]
     if any(rr.scales for rr in run.rasters):
@@ -318,7 +318,7 @@ def write_report(run, stat_settings) -> list[Path]:
     return files
 
 
-def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
+def _comparison_section(run) -> ReportSection:
     from ecoscan.compare import (
         GROUP_SUMMARY_COLUMNS,
         comparison_rows,
@@ -352,7 +352,7 @@ def _comparison_section(run, figdir: Path, files: list[Path]) -> ReportSection:
     return ReportSection("Comparison", "".join(parts), "comparison")
 
 
-def _change_section(run, figdir: Path, files: list[Path]) -> ReportSection:
+def _change_section(run) -> ReportSection:
     from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows
 
     parts = [

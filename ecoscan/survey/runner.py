@@ -165,7 +165,6 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
             info.get("notes", []),
             True,
             float(info.get("pixel_size_m", float("nan"))),
-            settings,
         )
     res = detect_raster(entry.path, settings, plots=layer, workers=workers)
     write_points(res.points, gpkg)
@@ -181,7 +180,7 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
     # analyse what was written (coordinates to the millimetre), so that a rerun from the
     # cache gives byte-identical tables
     pts = read_points(csv)
-    return pts, res.method, list(res.notes), False, float(res.pixel_size_m), settings
+    return pts, res.method, list(res.notes), False, float(res.pixel_size_m)
 
 
 def run_survey(
@@ -241,7 +240,7 @@ def run_survey(
             )
         sub = _layer_subset(layer, touches)
         log.info("detecting plants in %s", entry.path.name)
-        pts, method, notes, cached, px, _settings = _detect(
+        pts, method, notes, cached, px = _detect(
             entry, sub, out, plots_hash, workers or config.workers
         )
         pts = _to_survey_crs(pts, survey_crs)
