@@ -147,6 +147,14 @@ def _normal_p(z: float, alternative: str) -> float:
     raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
 
 
+def _clark_evans_z(mean_m: float, n: int, rho: float) -> tuple[float, float, float]:
+    """Expected mean NN distance 1/(2√ρ), its standard error 0.26136/√(nρ) and z for an
+    observed mean over ``n`` focal points (Clark & Evans 1954)."""
+    expected = 0.5 / np.sqrt(rho)
+    se = CE_SE_CONSTANT / np.sqrt(n * rho)
+    return float(expected), float(se), float((mean_m - expected) / se)
+
+
 def clark_evans(
     xy: np.ndarray,
     area_m2: float,
@@ -184,18 +192,9 @@ def clark_evans(
         return ClarkEvansResult(nan, nan, nan, n, rho, nan, nan, nan)
     d = nn_distances(xy) if nn is None else np.asarray(nn, float)
     mean = float(d.mean())
-    expected = 0.5 / np.sqrt(rho)
-    se = CE_SE_CONSTANT / np.sqrt(n * rho)
-    z = (mean - expected) / se
+    expected, se, z = _clark_evans_z(mean, n, rho)
     return ClarkEvansResult(
-        float(mean / expected),
-        float(z),
-        _normal_p(z, alternative),
-        n,
-        rho,
-        mean,
-        float(expected),
-        float(se),
+        float(mean / expected), z, _normal_p(z, alternative), n, rho, mean, expected, se
     )
 
 
@@ -414,17 +413,15 @@ def guard_zone(
     d = nn_distances(xy) if nn is None else np.asarray(nn, float)
     mean = float(d[focal].mean())
     rho = n / float(polygon.area)
-    expected = 0.5 / np.sqrt(rho)
-    se = CE_SE_CONSTANT / np.sqrt(k * rho)
-    z = (mean - expected) / se
+    expected, se, z = _clark_evans_z(mean, k, rho)  # k focal points, density of all n
     return EdgeCorrectedResult(
         float(mean / expected),
-        float(z),
+        z,
         _normal_p(z, alternative),
         k,
         mean,
-        float(expected),
-        float(se),
+        expected,
+        se,
         "guard",
         float(guard_m),
     )
