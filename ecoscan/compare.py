@@ -76,7 +76,7 @@ GROUP_SUMMARY_COLUMNS = (
     "R_low95",
     "R_high95",
     "R_donnelly",
-    "pattern",
+    "verdict",
 )
 
 
@@ -115,7 +115,7 @@ GROUP_COLUMNS = (
     "p",
     "R_donnelly",
     "R_donnelly_se",
-    "pattern",
+    "verdict",
     "warnings",
 )
 
@@ -512,7 +512,7 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         )
     da, db = a.nn_m, b.nn_m
     if da.size >= 1 and db.size >= 1:
-        mw = sps.mannwhitneyu(da, db, alternative="two-sided")
+        mw = sps.mannwhitneyu(da, db, direction="either")
         ks = sps.ks_2samp(da, db)
         mw_u, p_mw, ks_d, p_ks = (
             float(mw.statistic),
@@ -716,7 +716,7 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
                 "p": g.r.pvalue,
                 "R_donnelly": g.r.statistic_donnelly,
                 "R_donnelly_se": g.r.se_donnelly,
-                "pattern": _pattern(g.r),
+                "verdict": _pattern(g.r),
                 "warnings": "; ".join(warn),
             }
         )

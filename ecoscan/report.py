@@ -129,7 +129,7 @@ def table_html(
         for c in columns:
             v = r.get(c)
             if (
-                c in ("pattern", "verdict")
+                c in ("verdict", "verdict")
                 and isinstance(v, str)
                 and v in ("clustered", "regular", "random", "")
             ):

@@ -43,7 +43,7 @@ def demo_run(tmp_path_factory):
 
 def test_verdicts_match_how_the_plots_were_built(demo_run):
     _cfg, run = demo_run
-    got = {(r["raster"], r["plot_id"]): r["pattern"] for r in run.rows}
+    got = {(r["raster"], r["plot_id"]): r["verdict"] for r in run.rows}
     assert len(got) == 12  # 4 Tansy plots x 2 dates + 2 Marrow plots x 2 rasters
     wrong = {k: v for k, v in got.items() if v != BUILT_AS[k[1]]}
     assert not wrong, wrong

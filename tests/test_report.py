@@ -16,17 +16,17 @@ def _small_report(tmp_path):
     nn = rng.rayleigh(1.0, 80)
     f1 = nn_histogram_figure(tmp_path / "nn.png", nn, 0.08, title="test plot")
     rows = [
-        {"plot_id": "a", "n": 80, "R": 1.02, "pattern": "random", "warnings": ""},
+        {"plot_id": "a", "n": 80, "R": 1.02, "verdict": "random", "warnings": ""},
         {
             "plot_id": "b",
             "n": 20,
             "R": 1.7,
-            "pattern": "regular",
+            "verdict": "regular",
             "warnings": "fewer than 30 points",
         },
     ]
     f2 = r_against_n_figure(tmp_path / "rn.png", rows)
-    body = table_html(rows, ["plot_id", "n", "R", "pattern", "warnings"])
+    body = table_html(rows, ["plot_id", "n", "R", "verdict", "warnings"])
     body += figure_html(f1, "spacing") + figure_html(f2, "R against n")
     return build_report(
         tmp_path / "report.html",

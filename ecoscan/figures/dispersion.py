@@ -254,7 +254,7 @@ def r_against_n_figure(
     ax.text(30, 0.02, " 30 points", fontsize=7, color="#666666")
     labelled: set = set()
     for key in ("clustered", "random", "regular"):
-        sel = [r for r in rows if r.get("pattern") == key and r.get("R") not in (None, "")]
+        sel = [r for r in rows if r.get("verdict") == key and r.get("R") not in (None, "")]
         if sel:
             ax.scatter(
                 [float(r["n"]) for r in sel],

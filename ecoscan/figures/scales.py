@@ -35,7 +35,7 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
     ax.grid(True, color="#dddddd", linewidth=0.6)
     ax.set_axisbelow(True)
     if env is not None:
-        lo, hi = env.lo, env.hi
+        lo, hi = env.band_low, env.band_high
         if np.any(np.isfinite(lo)):
             ax.fill_between(
                 r,
@@ -46,15 +46,15 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
                 linewidth=0,
                 label=f"global envelope ({100 * (1 - env.alpha):g}%)",
             )
-        ax.plot(r, env.lo_pointwise, "--", color="#777777", linewidth=0.8, label="pointwise")
-        ax.plot(r, env.hi_pointwise, "--", color="#777777", linewidth=0.8)
+        ax.plot(r, env.pointwise_low, "--", color="#777777", linewidth=0.8, label="pointwise")
+        ax.plot(r, env.pointwise_high, "--", color="#777777", linewidth=0.8)
     if theo is not None and np.any(np.isfinite(theo)):
         ax.plot(r, theo, ":", color="#444444", linewidth=1.0, label="random (theory)")
-    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="observed")
+    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="value")
     if env is not None and np.isfinite(env.pvalue):
         up = env.above if sign > 0 else env.below
         down = env.below if sign > 0 else env.above
-        ymin = np.nanmin(np.r_[obs, env.lo_pointwise]) if np.any(np.isfinite(obs)) else 0
+        ymin = np.nanmin(np.r_[obs, env.pointwise_low]) if np.any(np.isfinite(obs)) else 0
         for mask, key, lab in ((up, "clustered", names[0]), (down, "regular", names[1])):
             if np.any(mask):
                 ax.plot(
@@ -104,8 +104,8 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
             _panel(
                 ax,
                 c.r_m,
-                _clip(c.observed),
-                c.theoretical,
+                _clip(c.value),
+                c.csr_value,
                 _clip_env(c.envelope),
                 ylabel,
                 title,
@@ -114,17 +114,17 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
             ax.set_yscale("log")
             ax.set_ylabel("J(r) (dimensionless, log scale)")
         else:
-            _panel(ax, c.r_m, c.observed, c.theoretical, c.envelope, ylabel, title, _SIGN[k])
+            _panel(ax, c.r_m, c.value, c.csr_value, c.envelope, ylabel, title, _SIGN[k])
     if result.cross is not None:
         x = result.cross
         a, b = x.label_a, x.label_b
         _panel(
             flat[len(names)],
             x.r_m,
-            x.L_cross.observed - x.r_m,
-            x.L_cross.centre - x.r_m,
-            _shift(x.L_cross, x.r_m),
-            "L_cross(r) − r (m)",
+            x.L_between_kinds.value - x.r_m,
+            x.L_between_kinds.centre - x.r_m,
+            _shift(x.L_between_kinds, x.r_m),
+            "L_between_kinds(r) − r (m)",
             f"cross-L, {b} around {a} (random labelling)",
             1,
             (f"{b} near {a}", "segregated"),
@@ -132,7 +132,7 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
         _panel(
             flat[len(names) + 1],
             x.r_m,
-            x.D.observed,
+            x.D.value,
             x.D.centre,
             x.D,
             "K_BB(r) − K_AA(r) (m²)",
@@ -160,11 +160,11 @@ def _clip_env(env):
         return None
     return replace(
         env,
-        observed=_clip(env.observed),
-        lo=_clip(env.lo),
-        hi=_clip(env.hi),
-        lo_pointwise=_clip(env.lo_pointwise),
-        hi_pointwise=_clip(env.hi_pointwise),
+        observed=_clip(env.value),
+        lo=_clip(env.band_low),
+        hi=_clip(env.band_high),
+        pointwise_low=_clip(env.pointwise_low),
+        pointwise_high=_clip(env.pointwise_high),
     )
 
 
@@ -174,10 +174,10 @@ def _shift(env, r):
 
     return replace(
         env,
-        observed=env.observed - r,
+        observed=env.value - r,
         centre=env.centre - r,
-        lo=env.lo - r,
-        hi=env.hi - r,
-        lo_pointwise=env.lo_pointwise - r,
-        hi_pointwise=env.hi_pointwise - r,
+        lo=env.band_low - r,
+        hi=env.band_high - r,
+        pointwise_low=env.pointwise_low - r,
+        pointwise_high=env.pointwise_high - r,
     )

@@ -19,8 +19,8 @@ from scipy.spatial import cKDTree
 from ecoscan.stats.csr import as_rng, uniform_in_polygon
 
 __all__ = [
-    "ALTERNATIVES",
     "BATCH_POINTS",
+    "DIRECTIONS",
     "MonteCarloResult",
     "mean_nn_batch",
     "monte_carlo_nn",
@@ -28,7 +28,7 @@ __all__ = [
 ]
 
 #: Accepted alternatives: 'clustered' = shorter NN distances than CSR, 'regular' = longer.
-ALTERNATIVES = ("two-sided", "clustered", "regular")
+DIRECTIONS = ("either", "clustered", "regular")
 
 #: Points simulated per batch; fixed so that the same seed always gives the same numbers.
 BATCH_POINTS = 1_000_000
@@ -66,7 +66,7 @@ def mean_nn_batch(patterns: np.ndarray) -> np.ndarray:
 
 
 def rank_pvalues(
-    observed: np.ndarray | float, simulated: np.ndarray, alternative: str = "two-sided"
+    observed: np.ndarray | float, simulated: np.ndarray, direction: str = "either"
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Monte Carlo rank p-values, (1 + k) / (N + 1), vectorised over tests.
 
@@ -76,9 +76,9 @@ def rank_pvalues(
         Observed mean NN distance(s), metres.
     simulated : numpy.ndarray, shape (N,) or (t, N)
         Simulated values under the null hypothesis, metres.
-    alternative : {'two-sided', 'clustered', 'regular'}
+    direction : {'either', 'clustered', 'regular'}
         'clustered' uses the lower tail (short distances), 'regular' the upper tail,
-        'two-sided' min(1, 2 · min(p_lower, p_upper)).
+        'either' min(1, 2 · min(p_lower, p_upper)).
 
     Returns
     -------
@@ -90,16 +90,16 @@ def rank_pvalues(
     ----------
     Besag & Diggle (1977), Applied Statistics 26: 327–333.
     """
-    if alternative not in ALTERNATIVES:
-        raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
+    if direction not in DIRECTIONS:
+        raise ValueError("direction must be 'either', 'clustered' or 'regular'")
     obs = np.asarray(observed, float)
     sim = np.asarray(simulated, float)
     big_n = sim.shape[-1]
     lower = (1.0 + np.sum(sim <= obs[..., None], axis=-1)) / (big_n + 1.0)
     upper = (1.0 + np.sum(sim >= obs[..., None], axis=-1)) / (big_n + 1.0)
-    if alternative == "clustered":
+    if direction == "clustered":
         p = lower
-    elif alternative == "regular":
+    elif direction == "regular":
         p = upper
     else:
         p = np.minimum(1.0, 2.0 * np.minimum(lower, upper))
@@ -115,21 +115,21 @@ class MonteCarloResult:
     statistic : float
         Observed mean NN distance, metres.
     pvalue : float
-        Rank p-value for ``alternative``.
+        Rank p-value for ``direction``.
     p_lower : float
         (1 + #{simulated ≤ observed}) / (N + 1): small when the points are clustered.
     p_upper : float
         (1 + #{simulated ≥ observed}) / (N + 1): small when the points are regular.
     simulations : int
         N, the number of simulated patterns.
-    alternative : str
+    direction : str
         The alternative hypothesis.
     expected_nn_m : float
         Mean of the simulated means: the expected mean NN distance under CSR in this exact
         polygon, metres.
     simulated_nn_m : numpy.ndarray, shape (N,)
         The simulated means, metres (for histograms).
-    direction : str
+    side : str
         ``'clustered'`` when the observed mean lies below the simulated median, else
         ``'regular'``.
     """
@@ -139,10 +139,10 @@ class MonteCarloResult:
     p_lower: float
     p_upper: float
     simulations: int
-    alternative: str
+    direction: str
     expected_nn_m: float
     simulated_nn_m: np.ndarray
-    direction: str
+    side: str
 
 
 def monte_carlo_nn(
@@ -150,7 +150,7 @@ def monte_carlo_nn(
     polygon,
     *,
     simulations: int = 999,
-    alternative: str = "two-sided",
+    direction: str = "either",
     rng: int | np.random.Generator | None = None,
     observed_mean_m: float | None = None,
 ) -> MonteCarloResult:
@@ -164,7 +164,7 @@ def monte_carlo_nn(
         The exact plot outline, metres; holes are excluded from the simulations.
     simulations : int
         Number of simulated CSR patterns N (≥ 1; 999 gives p-values in steps of 0.001).
-    alternative : {'two-sided', 'clustered', 'regular'}
+    direction : {'either', 'clustered', 'regular'}
         Alternative hypothesis; see :func:`rank_pvalues`.
     rng : int or numpy.random.Generator, optional
         Seed or generator; the same seed gives the same p-value.
@@ -187,8 +187,8 @@ def monte_carlo_nn(
     ----------
     Besag & Diggle (1977), Applied Statistics 26: 327–333.
     """
-    if alternative not in ALTERNATIVES:
-        raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
+    if direction not in DIRECTIONS:
+        raise ValueError("direction must be 'either', 'clustered' or 'regular'")
     if int(simulations) < 1:
         raise ValueError("simulations must be at least 1")
     simulations = int(simulations)
@@ -207,16 +207,16 @@ def monte_carlo_nn(
         pats = uniform_in_polygon(polygon, n, size=b, rng=gen)
         sims[done : done + b] = mean_nn_batch(pats)
         done += b
-    p, lo, up = rank_pvalues(observed_mean_m, sims, alternative)
-    direction = "clustered" if observed_mean_m < float(np.median(sims)) else "regular"
+    p, lo, up = rank_pvalues(observed_mean_m, sims, direction)
+    side = "clustered" if observed_mean_m < float(np.median(sims)) else "regular"
     return MonteCarloResult(
         float(observed_mean_m),
         float(p),
         float(lo),
         float(up),
         simulations,
-        alternative,
+        direction,
         float(sims.mean()),
         sims,
-        direction,
+        side,
     )

@@ -36,7 +36,7 @@ SUMMARY_COLUMNS = [
     "R_donnelly",
     "p_donnelly",
     "p_mc",
-    "pattern",
+    "verdict",
     "quadrat_p",
     "morisita_std",
     "warnings",
@@ -165,7 +165,7 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     )
     warn = row.get("warnings") or ""
     body = (
-        f'<div class="card"><h3>Plot {_esc(plot.plot_id)} {pattern_tag(row.get("pattern"))}</h3>'
+        f'<div class="card"><h3>Plot {_esc(plot.plot_id)} {pattern_tag(row.get("verdict"))}</h3>'
         f'<p class="facts">{_esc(facts)}</p>'
         + (f'<p class="facts" style="color:#7a4b00">{_esc(warn)}</p>' if warn else "")
         + '<div class="figrow">'

@@ -37,7 +37,7 @@ TABLE_COLUMNS = (
     ("R_donnelly", "R Donnelly"),
     ("p_donnelly", "p Donnelly"),
     ("p_mc", "p MC"),
-    ("pattern", "pattern"),
+    ("verdict", "verdict"),
     ("quadrat_p", "quadrat p"),
     ("morisita_std", "Morisita std"),
 )
@@ -54,9 +54,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--alpha", type=float, default=0.05, help="significance level of the verdict (0.05)"
     )
     p.add_argument(
-        "--alternative",
-        choices=("two-sided", "clustered", "regular"),
-        default="two-sided",
+        "--direction",
+        choices=("either", "clustered", "regular"),
+        default="either",
         help="alternative hypothesis of the tests (default two-sided)",
     )
     p.add_argument(
@@ -80,7 +80,7 @@ def run(args: argparse.Namespace) -> int:
         simulations=args.simulations,
         seed=args.seed,
         alpha=args.alpha,
-        alternative=args.alternative,
+        direction=args.direction,
         guard_m=args.guard,
         quadrat_m=args.quadrat,
     )
@@ -102,7 +102,7 @@ def run(args: argparse.Namespace) -> int:
     for pid, w in flagged:
         print(f"plot {pid}: {w}")
     print(
-        f"pattern: Monte Carlo test ({settings.simulations} simulations, {settings.alternative}, "
+        f"pattern: Monte Carlo test ({settings.simulations} simulations, {settings.direction}, "
         f"alpha {settings.alpha:g}); results in {outdir}"
     )
     print_notes(notes, quiet=args.quiet)

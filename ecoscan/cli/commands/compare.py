@@ -41,7 +41,7 @@ GROUP_HEADERS = (
     "low 95%",
     "high 95%",
     "R Donnelly",
-    "pattern",
+    "verdict",
 )
 
 

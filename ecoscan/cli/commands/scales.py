@@ -37,7 +37,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--alpha", type=float, default=0.05, help="significance level of the tests (default 0.05)"
     )
     p.add_argument(
-        "--rmax",
+        "--max-distance",
         type=float,
         metavar="METRES",
         help="largest distance in metres (default per plot: a quarter of its shorter side, "
@@ -48,8 +48,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--test",
-        choices=("erl", "mad"),
-        default="erl",
+        choices=("rank-length", "max-deviation"),
+        default="rank-length",
         help="global test: extreme rank length (default) or maximum absolute deviation",
     )
     p.add_argument(
@@ -81,8 +81,8 @@ def run(args: argparse.Namespace) -> int:
             "simulations": args.simulations,
             "seed": args.seed,
             "alpha": args.alpha,
-            "r_max_m": args.rmax,
-            "n_r": args.steps,
+            "max_distance_m": args.max_distance,
+            "steps": args.steps,
             "global_test": args.test,
             "test_function": args.test_function,
             "kind_field": args.kind_field,
@@ -97,8 +97,8 @@ def run(args: argparse.Namespace) -> int:
     paths = write_scales(args.output, results, settings)
     rows = scales_rows(results)
     cols = ["plot_id", "n", "global_p", "verdict"]
-    if any("cross_verdict" in r for r in rows):
-        cols.append("cross_verdict")
+    if any("kinds_verdict" in r for r in rows):
+        cols.append("kinds_verdict")
     print(format_table(rows, cols, max_width=90))
     if not args.quiet:
         print(f"wrote {len(paths)} files to {args.output}")

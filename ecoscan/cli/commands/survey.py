@@ -36,7 +36,7 @@ def print_summary(run) -> None:
     """Print the per-plot table and where the outputs are."""
     from ecoscan.tables import format_table
 
-    cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "pattern"]
+    cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "verdict"]
     print(
         format_table(
             run.rows,
