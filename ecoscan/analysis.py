@@ -47,6 +47,7 @@ from ecoscan.stats.quadrat import (
     quadrat_test,
 )
 from ecoscan.vector import write_plots, write_points
+from ecoscan.vocabulary import RENAMED_VALUES
 
 __all__ = [
     "CAUTION",
@@ -175,6 +176,10 @@ class DispersionSettings:
             raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
         if not (0.0 < float(self.alpha) < 1.0):
             raise InputError(f"alpha must lie between 0 and 1 (got {self.alpha!r}); 0.05 is usual")
+        if self.direction in RENAMED_VALUES and RENAMED_VALUES[self.direction] in DIRECTIONS:
+            raise InputError(
+                f"direction '{self.direction}' was renamed '{RENAMED_VALUES[self.direction]}'"
+            )
         if self.direction not in DIRECTIONS:
             raise InputError(
                 f"direction must be one of {', '.join(DIRECTIONS)} (got {self.direction!r})"

@@ -11,7 +11,8 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan import __version__
-from ecoscan.outputs import format_value, write_text
+from ecoscan.outputs import write_text
+from ecoscan.vocabulary import COLUMNS, format_cell, label
 
 __all__ = [
     "CAUTIONS_HTML",
@@ -114,35 +115,66 @@ def table_html(
     rows: Sequence[Mapping[str, Any]],
     columns: Sequence[str],
     *,
-    headers: Sequence[str] | None = None,
-    digits: int = 3,
+    sortable: bool = False,
+    css_class: str = "",
 ) -> str:
-    """A data table; numbers right-aligned, verdicts tagged, warnings wrapped."""
-    headers = list(headers or columns)
-    out = ['<div class="scroll"><table class="data"><thead><tr>']
-    for c, h in zip(columns, headers, strict=True):
-        numeric = all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
-        out.append(f'<th class="{"" if numeric else "text"}">{_esc(h)}</th>')
+    """A data table with headings, units and number formats from :mod:`ecoscan.vocabulary`.
+
+    Numbers are right-aligned, verdicts tagged, warnings wrapped; each heading carries the
+    column's description as a tooltip.
+
+    Parameters
+    ----------
+    rows : sequence of mappings
+        Records to show.
+    columns : sequence of str
+        Column keys, in order.
+    sortable : bool
+        Let the reader sort by clicking a heading (a few lines of inline script).
+    css_class : str
+        Extra class for the ``<table>``.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> "plants/ha" in table_html([{"density_per_ha": 952.4}], ["density_per_ha"])
+    True
+    """
+    cls = " ".join(x for x in ("data", "sortable" if sortable else "", css_class) if x)
+    out = [f'<div class="scroll"><table class="{cls}"><thead><tr>']
+    numeric = {}
+    for c in columns:
+        col = COLUMNS.get(c)
+        numeric[c] = (
+            col.fmt not in ("text", "bool")
+            if col
+            else all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
+        )
+        tip = f' title="{_esc(col.description)}"' if col else ""
+        out.append(
+            f'<th class="{"num" if numeric[c] else "text"}" scope="col"{tip}>{_esc(label(c))}</th>'
+        )
     out.append("</tr></thead><tbody>")
     for r in rows:
         out.append("<tr>")
         for c in columns:
             v = r.get(c)
             if (
-                c in ("verdict", "verdict")
+                c == "verdict"
                 and isinstance(v, str)
                 and v in ("clustered", "regular", "random", "")
             ):
                 out.append(f'<td class="text">{pattern_tag(v)}</td>')
             elif c == "warnings":
-                out.append(f'<td class="warn">{_esc(format_value(v))}</td>')
-            elif isinstance(v, float):
-                s = format_value(round(v, digits) if abs(v) < 1e6 else v)
-                out.append(f"<td>{_esc(s or '–')}</td>")
-            elif isinstance(v, int):
-                out.append(f"<td>{v}</td>")
+                out.append(f'<td class="warn">{_esc(format_cell(c, v))}</td>')
+            elif numeric[c] and isinstance(v, (int, float)) and not isinstance(v, bool):
+                sort = f' data-v="{float(v):.6g}"' if sortable else ""
+                out.append(f"<td{sort}>{_esc(format_cell(c, v) or '–')}</td>")
             else:
-                out.append(f'<td class="text">{_esc(format_value(v) or "–")}</td>')
+                out.append(f'<td class="text">{_esc(format_cell(c, v) or "–")}</td>')
         out.append("</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)

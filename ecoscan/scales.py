@@ -42,6 +42,7 @@ from ecoscan.stats.distance_functions import (
 from ecoscan.stats.edge import boundary_distance
 from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, envelope_test
 from ecoscan.stats.second_order import default_max_distance, r_grid, second_order, shorter_side_m
+from ecoscan.vocabulary import RENAMED_VALUES
 
 __all__ = [
     "FUNCTIONS",
@@ -137,6 +138,11 @@ class ScalesSettings:
             not bad and len(self.functions) > 0,
             f"unknown function(s) {', '.join(bad) or '(none given)'}; "
             f"choose from {', '.join(FUNCTIONS)}",
+        )
+        _check(
+            RENAMED_VALUES.get(self.global_test) not in GLOBAL_TESTS,
+            f"global test {self.global_test!r} was renamed "
+            f"{RENAMED_VALUES.get(self.global_test)!r}",
         )
         _check(
             self.global_test in GLOBAL_TESTS,
@@ -252,7 +258,7 @@ class PlotScales:
     curves : dict of str to FunctionCurve
     test_function : str
     global_test : str
-    global_p : float
+    p_global : float
     clustered_ranges_m, regular_ranges_m : list of (float, float)
     verdict : str
         Plain words.
@@ -274,7 +280,7 @@ class PlotScales:
     curves: dict[str, FunctionCurve]
     test_function: str
     global_test: str
-    global_p: float
+    p_global: float
     clustered_ranges_m: list[tuple[float, float]]
     regular_ranges_m: list[tuple[float, float]]
     verdict: str
@@ -761,7 +767,7 @@ SCALES_COLUMNS = [
     "plot_id",
     "n",
     "global_test",
-    "global_p",
+    "p_global",
     "clustered_ranges_m",
     "regular_ranges_m",
     "verdict",
@@ -774,7 +780,7 @@ SCALES_COLUMNS = [
 FUNCTION_COLUMNS = [
     "plot_id",
     "function",
-    "r_m",
+    "distance_m",
     "value",
     "csr_value",
     "band_low",
@@ -801,7 +807,7 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
             "plot_id": res.plot_id,
             "n": res.n,
             "global_test": _test_label(res.global_test, res.test_function) if res.curves else "",
-            "global_p": res.global_p,
+            "p_global": res.p_global,
             "clustered_ranges_m": format_ranges(res.clustered_ranges_m),
             "regular_ranges_m": format_ranges(res.regular_ranges_m),
             "verdict": res.verdict,
@@ -819,8 +825,8 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
                     "kind_b": c.label_b if c else "",
                     "n_a": c.n_a if c else None,
                     "n_b": c.n_b if c else None,
-                    "kinds_p": c.L_between_kinds.pvalue if c else None,
-                    "difference_p": c.D.pvalue if c else None,
+                    "p_kinds": c.L_between_kinds.pvalue if c else None,
+                    "p_kind_difference": c.D.pvalue if c else None,
                     "kinds_verdict": res.kinds_verdict,
                 }
             )
@@ -836,13 +842,13 @@ def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, 
     if e is None:
         label = "none"
     else:
-        label = f"global {e.test} {100 * (1 - alpha):g}%"
+        label = f"{100 * (1 - alpha):g}% global band, {e.test} test"
     theo = c.csr_value
     return [
         {
             "plot_id": plot_id,
             "function": c.name,
-            "r_m": c.r_m[k],
+            "distance_m": c.r_m[k],
             "value": c.value[k],
             "csr_value": theo[k],
             "band_low": lo[k],

@@ -41,25 +41,6 @@ SUMMARY_COLUMNS = [
     "morisita_std",
     "warnings",
 ]
-SUMMARY_HEADERS = [
-    "site",
-    "date",
-    "raster",
-    "plot",
-    "n",
-    "plants / ha",
-    "mean NN (m)",
-    "R",
-    "R (edge-corr.)",
-    "p (edge-corr.)",
-    "p (Monte Carlo)",
-    "verdict",
-    "quadrat p",
-    "std. Morisita",
-    "warnings",
-]
-
-
 _SHORT = (
     ("fewer than 30", "n < 30"),
     ("fewer than 2", "too few for a test"),
@@ -217,7 +198,7 @@ def write_report(run, stat_settings) -> list[Path]:
         f"shape of each plot, at α = {alpha:g}.</p>"
     )
     short = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in run.rows]
-    summary = intro + table_html(short, SUMMARY_COLUMNS, headers=SUMMARY_HEADERS)
+    summary = intro + table_html(short, SUMMARY_COLUMNS)
     summary += figure_html(
         files[-1],
         "Clark–Evans R of every plot against its number of plants. Inside the grey band R is "
@@ -267,7 +248,7 @@ def write_report(run, stat_settings) -> list[Path]:
                 "plot_id",
                 "n",
                 "global_test",
-                "global_p",
+                "p_global",
                 "clustered_ranges_m",
                 "regular_ranges_m",
                 "verdict",

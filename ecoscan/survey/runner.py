@@ -159,6 +159,10 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
 
         info = json.loads(key_file.read_text(encoding="utf-8"))
         pts = read_points(csv)
+        log.info(
+            "reused detection for %s (raster, plots and detector settings unchanged)",
+            entry.path.name,
+        )
         return (
             pts,
             info.get("method", settings.method),
@@ -166,6 +170,7 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
             True,
             float(info.get("pixel_size_m", float("nan"))),
         )
+    log.info("detecting plants in %s", entry.path.name)
     res = detect_raster(entry.path, settings, plots=layer, workers=workers)
     write_points(res.points, gpkg)
     write_points(res.points, csv)
@@ -239,7 +244,6 @@ def run_survey(
                 "none of the plots; check its CRS and the plots file"
             )
         sub = _layer_subset(layer, touches)
-        log.info("detecting plants in %s", entry.path.name)
         pts, method, notes, cached, px = _detect(
             entry, sub, out, plots_hash, workers or config.workers
         )

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import sys
 
 from ecoscan.analysis import (
     CAUTION,
@@ -13,8 +12,17 @@ from ecoscan.analysis import (
     dispersion_rows,
     write_analysis,
 )
-from ecoscan.cli._common import add_crs_arg, add_plots_args, add_seed_args, print_notes
+from ecoscan.cli._common import (
+    add_crs_arg,
+    add_plots_args,
+    add_renamed,
+    add_seed_args,
+    choice,
+    print_notes,
+    print_warnings,
+)
 from ecoscan.inputs import load_points_and_plots
+from ecoscan.stats.montecarlo import DIRECTIONS
 from ecoscan.tables import format_table
 
 NAME = "analyse"
@@ -27,19 +35,19 @@ Morisita's index). Writes OUTDIR/dispersion.csv, dispersion.json, points.csv and
 and prints a table. Automated counts need field checks before they drive decisions."""
 EXAMPLE = "ecoscan analyse plants.csv --plots plots.geojson --crs EPSG:32633 -o results"
 
-#: Columns of the terminal table, with their headings.
+#: Columns of the terminal table (headings and formats from ecoscan.vocabulary).
 TABLE_COLUMNS = (
-    ("plot_id", "plot"),
-    ("n", "n"),
-    ("density_per_ha", "per ha"),
-    ("mean_nn_m", "NN mean m"),
-    ("R", "R"),
-    ("R_donnelly", "R Donnelly"),
-    ("p_donnelly", "p Donnelly"),
-    ("p_mc", "p MC"),
-    ("verdict", "verdict"),
-    ("quadrat_p", "quadrat p"),
-    ("morisita_std", "Morisita std"),
+    "plot_id",
+    "n",
+    "density_per_ha",
+    "mean_nn_m",
+    "R",
+    "R_donnelly",
+    "p_donnelly",
+    "p_mc",
+    "verdict",
+    "quadrat_p",
+    "morisita_std",
 )
 
 
@@ -55,10 +63,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--direction",
-        choices=("either", "clustered", "regular"),
+        type=choice("--direction", DIRECTIONS),
         default="either",
-        help="alternative hypothesis of the tests (default two-sided)",
+        metavar="{" + ",".join(DIRECTIONS) + "}",
+        help="departure from randomness the tests look for: either way (default), only "
+        "clustering or only regularity",
     )
+    add_renamed(p, "--alternative")
     p.add_argument(
         "--guard",
         type=float,
@@ -87,25 +98,24 @@ def run(args: argparse.Namespace) -> int:
     outdir = check_outdir(args.output)
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
     notes = list(inputs.notes)
+    warnings = []
     if settings.smallest_p > settings.alpha:
-        notes.append(
+        warnings.append(
             f"with {settings.simulations} simulations the smallest possible Monte Carlo p is "
             f"{settings.smallest_p:.3g}, above alpha = {settings.alpha:g}: no plot can be "
             "called clustered or regular; use more --simulations"
         )
     results = analyse(inputs, settings)
-    write_analysis(outdir, inputs, results, settings, notes=notes)
+    write_analysis(outdir, inputs, results, settings, notes=notes + warnings)
     rows = dispersion_rows(results)
-    keys = [k for k, _ in TABLE_COLUMNS]
-    print(format_table(rows, keys, headers=[h for _, h in TABLE_COLUMNS]))
-    flagged = [(r["plot_id"], r["warnings"]) for r in rows if r["warnings"]]
-    for pid, w in flagged:
-        print(f"plot {pid}: {w}")
+    print(format_table(rows, TABLE_COLUMNS))
     print(
-        f"pattern: Monte Carlo test ({settings.simulations} simulations, {settings.direction}, "
-        f"alpha {settings.alpha:g}); results in {outdir}"
+        f"verdict: Monte Carlo test ({settings.simulations} simulations, direction "
+        f"{settings.direction}, alpha {settings.alpha:g})"
     )
+    warnings += [f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]]
+    print_warnings(warnings)
+    notes.append(f"results in {outdir}")
+    notes.append(f"caution: {CAUTION}")
     print_notes(notes, quiet=args.quiet)
-    if not args.quiet:
-        print(f"caution: {CAUTION}", file=sys.stderr)
     return 0

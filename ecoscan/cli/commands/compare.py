@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import argparse
-import sys
 
-from ecoscan.cli._common import print_notes
+from ecoscan.cli._common import add_renamed, print_notes
 from ecoscan.compare import (
     BY_CHOICES,
     GROUP_SUMMARY_COLUMNS,
@@ -16,7 +15,7 @@ from ecoscan.compare import (
     read_results,
     write_comparison,
 )
-from ecoscan.tables import format_table, show_small_p
+from ecoscan.tables import format_table
 
 NAME = "compare"
 HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"
@@ -30,20 +29,6 @@ DESCRIPTION = (
 )
 EXAMPLE = "ecoscan compare results_planted results_natural -o compare_out --by folder"
 
-GROUP_HEADERS = (
-    "rank",
-    "group",
-    "plots",
-    "n",
-    "plants/ha",
-    "mean NN m",
-    "R",
-    "low 95%",
-    "high 95%",
-    "R Donnelly",
-    "verdict",
-)
-
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan compare``."""
@@ -53,7 +38,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="RESULTS",
         help="results folders (each with dispersion.csv, points.csv and plots.gpkg)",
     )
-    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
+    add_renamed(p, "--out")
     p.add_argument(
         "--by",
         choices=BY_CHOICES,
@@ -79,28 +65,13 @@ def run(args: argparse.Namespace) -> int:
     if len(set(labels)) < len(labels):  # same folder name in different places
         tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
     result = compare_groups(tables, args.by, permutations=args.permutations, seed=args.seed)
-    paths = write_comparison(args.out, result)
-    print_notes(result.notes, args.quiet)
+    paths = write_comparison(args.output, result)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
-    print(format_table(groups, GROUP_SUMMARY_COLUMNS, headers=GROUP_HEADERS))
+    print(format_table(groups, GROUP_SUMMARY_COLUMNS))
     print()
-    adj = len(result.pairs) > 1
     cols = pair_summary_columns(len(result.pairs))
-    heads = (
-        "A",
-        "B",
-        "Δ plants/ha",
-        "p density",
-        "ΔR",
-        "ΔR edge-corr.",
-        "p ΔR (z)",
-        "p ΔR (perm.)",
-        "p MW",
-        "p KS",
-    )
-    print(format_table(show_small_p(comparison_rows(result), cols), cols, headers=heads))
-    if adj:
+    print(format_table(comparison_rows(result), cols))
+    if len(result.pairs) > 1:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
-    if not args.quiet:
-        print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)
+    print_notes([*result.notes, f"wrote {len(paths)} files to {args.output}"], args.quiet)
     return 0

@@ -53,6 +53,9 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_survey(data / "survey.toml")
     res = run_survey(cfg, output=Path(args.output), workers=args.workers)
     print_notes(res.notes, args.quiet)
-    print_summary(res)
-    print(f"\nThe demo data is invented; the true plant positions are in {data / 'truth'}.")
+    print_summary(res, args.quiet)
+    print_notes(
+        [f"the demo data is invented; the true plant positions are in {data / 'truth'}"],
+        args.quiet,
+    )
     return 0

@@ -179,18 +179,18 @@ def run(args: argparse.Namespace) -> int:
     res = detect_raster(args.raster, settings, plots=plots, workers=args.workers)
     write_points(res.points, out)
     print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
-    rows = [
-        {"item": "plants", "value": res.n},
-        {"item": "method", "value": res.method + (f" ({res.index})" if res.index else "")},
-        {"item": "pixel size (m)", "value": res.pixel_size_m},
-        {"item": "tiles read", "value": f"{res.tiles_read} of {res.tiles_total}"},
-        {"item": "megapixels read", "value": res.megapixels_read},
-        {"item": "output", "value": str(out)},
-    ]
-    print(format_table(rows, ["item", "value"], digits=3))
+    row = {
+        "n": res.n,
+        "method": res.method + (f" ({res.index})" if res.index else ""),
+        "pixel_size_m": res.pixel_size_m,
+        "tiles": f"{res.tiles_read} of {res.tiles_total}",
+        "megapixels_read": res.megapixels_read,
+        "output": str(out),
+    }
+    print(format_table([row], list(row)))
     if plots is not None and res.n:
         ids = res.points.attrs["plot_id"]
-        per = [{"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())} for p in plots.plots]
+        per = [{"plot_id": p.plot_id, "n": int((ids == p.plot_id).sum())} for p in plots.plots]
         print()
-        print(format_table(per, ["plot_id", "plants"]))
+        print(format_table(per, ["plot_id", "n"]))
     return 0

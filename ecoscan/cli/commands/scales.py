@@ -4,10 +4,19 @@ from __future__ import annotations
 
 import argparse
 
-from ecoscan.cli._common import add_crs_arg, add_plots_args, add_seed_args, print_notes
+from ecoscan.cli._common import (
+    add_crs_arg,
+    add_plots_args,
+    add_renamed,
+    add_seed_args,
+    choice,
+    print_notes,
+    print_warnings,
+)
 from ecoscan.errors import InputError
 from ecoscan.inputs import load_points_and_plots
 from ecoscan.scales import ScalesSettings, analyse_scales, scales_rows, write_scales
+from ecoscan.stats.envelopes import GLOBAL_TESTS
 from ecoscan.tables import format_table
 
 NAME = "scales"
@@ -39,6 +48,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--max-distance",
         type=float,
+        dest="max_distance",
         metavar="METRES",
         help="largest distance in metres (default per plot: a quarter of its shorter side, "
         "at most 10 typical plant spacings)",
@@ -47,11 +57,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--steps", type=int, default=100, metavar="N", help="number of distances (default 100)"
     )
     p.add_argument(
-        "--test",
-        choices=("rank-length", "max-deviation"),
+        "--global-test",
+        type=choice("--global-test", GLOBAL_TESTS),
         default="rank-length",
-        help="global test: extreme rank length (default) or maximum absolute deviation",
+        metavar="{" + ",".join(GLOBAL_TESTS) + "}",
+        help="global test over all distances: rank-length (extreme rank length, the default) "
+        "or max-deviation (largest absolute deviation from the random-pattern value)",
     )
+    add_renamed(p, "--rmax", "--test")
     p.add_argument(
         "--test-function",
         choices=("L", "g"),
@@ -83,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
             "alpha": args.alpha,
             "max_distance_m": args.max_distance,
             "steps": args.steps,
-            "global_test": args.test,
+            "global_test": args.global_test,
             "test_function": args.test_function,
             "kind_field": args.kind_field,
             "kinds": args.kinds,
@@ -92,17 +105,13 @@ def run(args: argparse.Namespace) -> int:
     if settings.kinds is not None and len(settings.kinds) != 2:
         raise InputError("--kinds needs exactly two values separated by a comma, e.g. live,dead")
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
-    print_notes(inputs.notes, args.quiet)
     results = analyse_scales(inputs, settings)
     paths = write_scales(args.output, results, settings)
     rows = scales_rows(results)
-    cols = ["plot_id", "n", "global_p", "verdict"]
+    cols = ["plot_id", "n", "p_global", "verdict"]
     if any("kinds_verdict" in r for r in rows):
         cols.append("kinds_verdict")
     print(format_table(rows, cols, max_width=90))
-    if not args.quiet:
-        print(f"wrote {len(paths)} files to {args.output}")
-        for r in results:
-            for w in r.warnings:
-                print(f"note: plot {r.plot_id}: {w}")
+    print_warnings([f"plot {r.plot_id}: {w}" for r in results for w in r.warnings])
+    print_notes([*inputs.notes, f"wrote {len(paths)} files to {args.output}"], args.quiet)
     return 0
