@@ -512,7 +512,7 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         )
     da, db = a.nn_m, b.nn_m
     if da.size >= 1 and db.size >= 1:
-        mw = sps.mannwhitneyu(da, db, direction="either")
+        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
         ks = sps.ks_2samp(da, db)
         mw_u, p_mw, ks_d, p_ks = (
             float(mw.statistic),

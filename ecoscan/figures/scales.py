@@ -160,9 +160,9 @@ def _clip_env(env):
         return None
     return replace(
         env,
-        observed=_clip(env.value),
-        lo=_clip(env.band_low),
-        hi=_clip(env.band_high),
+        value=_clip(env.value),
+        band_low=_clip(env.band_low),
+        band_high=_clip(env.band_high),
         pointwise_low=_clip(env.pointwise_low),
         pointwise_high=_clip(env.pointwise_high),
     )
@@ -174,10 +174,10 @@ def _shift(env, r):
 
     return replace(
         env,
-        observed=env.value - r,
+        value=env.value - r,
         centre=env.centre - r,
-        lo=env.band_low - r,
-        hi=env.band_high - r,
+        band_low=env.band_low - r,
+        band_high=env.band_high - r,
         pointwise_low=env.pointwise_low - r,
         pointwise_high=env.pointwise_high - r,
     )

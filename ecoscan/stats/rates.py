@@ -67,7 +67,7 @@ class PoissonRateTest:
 
 def _alt(direction: str) -> str:
     # our words -> scipy.stats.binomtest's keyword values
-    table = {"either": "two-sided", "higher": "greater", "lower": "less"}
+    table = {"either": "two-sided", "higher": "greater", "lower": "less"}  # retired-name
     if direction not in table:
         raise ValueError("direction must be 'either', 'higher' or 'lower'")
     return table[direction]
@@ -91,7 +91,7 @@ def poisson_rate_test(
     exposure1, exposure2 : float
         Exposures (e.g. surveyed areas in m²), > 0.
     direction : {'either', 'higher', 'lower'}
-        'higher': the alternative that rate1 > rate2.
+        'higher': rate1 > rate2 is the departure looked for.
     confidence : float
         Confidence level of the rate-ratio interval.
 
@@ -118,7 +118,7 @@ def poisson_rate_test(
     if k == 0:
         return PoissonRateTest(ratio, 1.0, c1, c2, e1, e2, r1, r2, 0.0, float("inf"))
     p0 = e1 / (e1 + e2)
-    res = sps.binomtest(c1, k, p0, alternative=_alt(direction))
+    res = sps.binomtest(c1, k, p0, alternative=_alt(direction))  # scipy keyword
     ci = res.proportion_ci(confidence_level=confidence, method="exact")
 
     def to_ratio(p: float) -> float:

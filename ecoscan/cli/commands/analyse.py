@@ -69,7 +69,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="departure from randomness the tests look for: either way (default), only "
         "clustering or only regularity",
     )
-    add_renamed(p, "--alternative")
+    add_renamed(p, "--alternative")  # retired-name
     p.add_argument(
         "--guard",
         type=float,

@@ -64,7 +64,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="global test over all distances: rank-length (extreme rank length, the default) "
         "or max-deviation (largest absolute deviation from the random-pattern value)",
     )
-    add_renamed(p, "--rmax", "--test")
+    add_renamed(p, "--rmax", "--test")  # retired-name
     p.add_argument(
         "--test-function",
         choices=("L", "g"),
