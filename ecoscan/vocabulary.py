@@ -100,6 +100,7 @@ _ALL = [
     _c("function", "function", "", "text", "Summary function: K, L, L_minus_r, g, G, F, J..."),
     _c("unit", "unit", "", "text", "Unit of the function's values (m2, m or 1)."),
     _c("warnings", "warnings", "", "text", "What limits the result, in plain words."),
+    _c("flags", "check", "", "text", "Short flags for what limits a result; details below."),
     # --- counts, areas, densities
     _c("n", "n", "", "int", "Plants in the plot (or group)."),
     _c("n_plots", "plots", "", "int", "Plots in the group."),

@@ -106,5 +106,5 @@ def r_by_group(
     ax.set_xlabel(f"{by} (most regular first)")
     ax.set_ylabel("Clark–Evans R (ratio, no unit), 95% CI")
     ax.set_title(title, fontsize=10)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     return fig

@@ -16,7 +16,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ecoscan.figures import MARKERS, PALETTE, save_figure
+from ecoscan.figures import FIGURE_DPI, MARKERS, PALETTE, save_figure
 
 __all__ = ["plot_scales_figure"]
 
@@ -44,13 +44,13 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
                 color="#cccccc",
                 alpha=0.8,
                 linewidth=0,
-                label=f"global envelope ({100 * (1 - env.alpha):g}%)",
+                label=f"global {100 * (1 - env.alpha):g}% band of random patterns",
             )
-        ax.plot(r, env.pointwise_low, "--", color="#777777", linewidth=0.8, label="pointwise")
+        ax.plot(r, env.pointwise_low, "--", color="#777777", linewidth=0.8, label="pointwise band")
         ax.plot(r, env.pointwise_high, "--", color="#777777", linewidth=0.8)
     if theo is not None and np.any(np.isfinite(theo)):
-        ax.plot(r, theo, ":", color="#444444", linewidth=1.0, label="random (theory)")
-    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="value")
+        ax.plot(r, theo, ":", color="#444444", linewidth=1.0, label="random pattern")
+    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="measured")
     if env is not None and np.isfinite(env.pvalue):
         up = env.above if sign > 0 else env.below
         down = env.below if sign > 0 else env.above
@@ -62,14 +62,15 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
                     np.full(int(mask.sum()), ymin),
                     MARKERS[key],
                     color=PALETTE[key],
-                    markersize=3.5,
+                    markersize=4,
                     linestyle="none",
                     label=lab,
                 )
-        title = f"{title}  (global p = {env.pvalue:.3g})"
+        p = "<0.001" if env.pvalue < 0.001 else f"= {env.pvalue:.3f}"
+        title = f"{title}  (global p {p})"
     ax.set_xlabel("distance r (m)")
     ax.set_ylabel(ylabel)
-    ax.set_title(title, fontsize=9)
+    ax.set_title(title)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
 
@@ -95,7 +96,9 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
     npan = len(names) + extra
     ncol = 2
     nrow = int(np.ceil(npan / ncol))
-    fig, axes = plt.subplots(nrow, ncol, figsize=(10, 3.2 * nrow + 0.8), dpi=110, squeeze=False)
+    fig, axes = plt.subplots(
+        nrow, ncol, figsize=(10, 3.3 * nrow + 1.4), dpi=FIGURE_DPI, squeeze=False
+    )
     flat = axes.ravel()
     for ax, k in zip(flat, names, strict=False):
         c = result.curves[k]
@@ -112,7 +115,8 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
                 _SIGN[k],
             )
             ax.set_yscale("log")
-            ax.set_ylabel("J(r) (dimensionless, log scale)")
+            ax.set_ylim(*_j_limits(c))
+            ax.set_ylabel("J(r) (log scale)")
         else:
             _panel(ax, c.r_m, c.value, c.csr_value, c.envelope, ylabel, title, _SIGN[k])
     if result.cross is not None:
@@ -124,8 +128,8 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
             x.L_between_kinds.value - x.r_m,
             x.L_between_kinds.centre - x.r_m,
             _shift(x.L_between_kinds, x.r_m),
-            "L_between_kinds(r) − r (m)",
-            f"cross-L, {b} around {a} (random labelling)",
+            "L between kinds, L(r) − r (m)",
+            f"L between kinds: {b} around {a} (random labelling)",
             1,
             (f"{b} near {a}", "segregated"),
         )
@@ -142,11 +146,37 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
         )
     for ax in flat[npan:]:
         ax.set_visible(False)
-    flat[0].legend(fontsize=7, loc="best", frameon=False)
+    # one legend for all panels, above them (never over a curve)
+    seen: dict[str, object] = {}
+    for ax in flat[:npan]:
+        for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+            seen.setdefault(lab, h)
     head = f"plot {result.plot_id}: {result.n} plants, {result.area_m2:.0f} m²"
-    fig.suptitle(head + "\n" + textwrap.fill(result.verdict, 110), fontsize=9.5)
-    fig.tight_layout()
+    fig.suptitle(head + "\n" + textwrap.fill(result.verdict, 100))
+    fig.tight_layout(rect=(0, 0, 1, 1 - 1.05 / fig.get_figheight()))
+    fig.legend(
+        list(seen.values()),
+        list(seen),
+        loc="upper center",
+        bbox_to_anchor=(0.5, 1 - 0.62 / fig.get_figheight()),
+        ncol=min(4, len(seen)),
+        frameon=False,
+    )
     return save_figure(fig, path)
+
+
+def _j_limits(curve) -> tuple[float, float]:
+    """Log-axis limits for J from the measured curve and its band (not the clip values)."""
+    vals = [curve.value]
+    if curve.envelope is not None:
+        vals += [curve.envelope.band_low, curve.envelope.band_high]
+    v = np.concatenate([np.asarray(a, float) for a in vals])
+    v = v[np.isfinite(v) & (v > 0)]
+    if v.size == 0:
+        return 0.1, 10.0
+    lo, hi = float(v.min()), float(v.max())
+    lo, hi = max(0.01, lo / 1.3), min(100.0, hi * 1.3)
+    return (lo, hi) if hi > lo * 1.5 else (lo / 1.5, hi * 1.5)
 
 
 def _clip(v):
