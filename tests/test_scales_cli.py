@@ -230,7 +230,9 @@ def test_too_few_plants_and_envelope_labels(results):
     assert res.verdict.startswith("too few plants (5)") and not res.curves
     assert function_rows([res]) == []
     rows = function_rows([results["scatter"]])
-    assert {r["band"] for r in rows if r["function"] == "L"} == {"95% global band, rank-length test"}
+    assert {r["band"] for r in rows if r["function"] == "L"} == {
+        "95% global band, rank-length test"
+    }
     assert {r["band"] for r in rows if r["function"] == "K_reduced_sample"} == {"none"}
     # L(r) − r is L(r) minus the distance, row by row
     L = [r for r in rows if r["function"] == "L"]

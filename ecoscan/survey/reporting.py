@@ -91,6 +91,10 @@ _PLAIN = (
         r"the simulated quadrat p is the one to read.",
     ),
     (r"no points in this plot: no statistics", "No plants were found in this plot."),
+    (
+        r"only (\d+) plants: only strong patterns can be detected",
+        r"Only \1 plants: only a strong pattern can show.",
+    ),
 )
 
 _MEANING = {
@@ -128,19 +132,25 @@ def plain_warnings(*texts: str) -> list[str]:
 
     out: list[str] = []
     for text in texts:
-        for part in (text or "").split("; "):
+        text = text or ""
+        for pattern, plain in _PLAIN:
+            text = re.sub(pattern, plain, text)
+        for part in text.split("; "):
             part = part.strip()
             if not part:
                 continue
-            for pattern, plain in _PLAIN:
-                part = re.sub(pattern, plain, part)
             if out and not part[0].isupper() and not out[-1].endswith("."):
                 out[-1] = f"{out[-1]}; {part}"  # a clause of the previous warning
                 continue
             part = part[0].upper() + part[1:]
-            if part not in out:
+            # the same warning from two analyses (e.g. few plants) is said once
+            if not any(_head(o) == _head(part) for o in out):
                 out.append(part)
     return [w if w.endswith(".") else w + "." for w in out]
+
+
+def _head(sentence: str) -> list[str]:
+    return [w.strip(":;,.()") for w in sentence.split()[:3]]
 
 
 def _esc(s) -> str:
