@@ -296,7 +296,7 @@ _ALL = [
     ),
     _c(
         "p_R_change_mc",
-        "p ΔR beyond random change",
+        "p ΔR vs random change",
         "",
         "p",
         "Monte Carlo test: did R change more than random losses and recruits would give?",
