@@ -134,9 +134,9 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(str(e)) from None
     if args.output:
         write_plan(plan, args.output)
-    print(format_table(plan.pattern_rows, PATTERN_COLUMNS, digits=3))
+    print(format_table(plan.pattern_rows, PATTERN_COLUMNS))
     print()
-    print(format_table(plan.design_rows, DESIGN_COLUMNS, digits=3))
+    print(format_table(plan.design_rows, DESIGN_COLUMNS))
     print()
     for a in plan.answers:
         print(a)
