@@ -86,6 +86,7 @@ footer { color:var(--muted); font-size:.85rem; padding:1rem 2rem;
   table.data { font-size:8pt; width:100%; }
   table.data th, table.data td { padding:.12rem .3rem; }
   table.data td { white-space:normal; }
+  table.data th, table.data td.warn { min-width:0; overflow-wrap:anywhere; }
   tr, figure, .method { break-inside:avoid; }
   article.plot { break-inside:avoid-page; border:none; padding:0; }
   .tag { color:#000 !important; background:none !important; border:1px solid #000; }

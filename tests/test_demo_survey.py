@@ -218,6 +218,8 @@ LAYOUT_JS = """
     cw: cw, page_width: document.documentElement.scrollWidth, heads: heads,
     verdict_right: verdict.right, table_right: tb.right, table_bottom: tb.bottom + scrollY,
     downscaled: Array.from(document.images).filter(i => i.width < i.naturalWidth - 1).length,
+    wide_tables: Array.from(document.querySelectorAll('table')).filter(
+      x => x.getBoundingClientRect().right > cw + 1).length,
     images: document.images.length,
   };
 })()
@@ -261,5 +263,6 @@ def test_report_index_fits_screen_and_first_a4_page(demo_run):
     assert screen["downscaled"] == 0 and screen["images"] >= 40
     assert paper["verdict_right"] <= w and paper["table_right"] <= w  # not clipped on A4
     assert paper["table_bottom"] <= h  # the whole index, verdicts included, is on page 1
+    assert paper["wide_tables"] == 0 and paper["page_width"] <= paper["cw"]  # nothing clipped
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
     assert pdf[:5] == b"%PDF-" and pages > 3
