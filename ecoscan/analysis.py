@@ -382,7 +382,7 @@ class PlotDispersion:
 
 #: Donnelly's formulas are trusted down to a plot "half-width" 2A/P of this many typical
 #: spacings 1/√ρ; below it the plot is flagged (measured sizes in docs/methods-dispersion.md).
-DONNELLY_MIN_HALF_WIDTH = 2.0
+DONNELLY_MIN_HALF_WIDTH = 1.5
 
 
 def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
@@ -398,8 +398,8 @@ def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
     Returns
     -------
     str
-        The warning (reason and remedy) when 2A/P < 2/√ρ, i.e. when the plot's half-width
-        2A/P (the half-width of a long strip; the radius of a disc) is below two typical
+        The warning (reason and remedy) when 2A/P < 1.5/√ρ, i.e. when the plot's half-width
+        2A/P (the half-width of a long strip; the radius of a disc) is below 1.5 typical
         spacings 1/√ρ; '' otherwise.
 
     Notes

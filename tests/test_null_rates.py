@@ -112,13 +112,13 @@ def test_guard_p_in_the_table_is_the_monte_carlo_one():
 def test_donnelly_warning_in_narrow_strips_only():
     # issue 10, case 7: a 300 m × 0.8 m plot gave p_donnelly = 1.5e-13 while p_mc = 0.68.
     # Measured Donnelly sizes (n = 100, 600 patterns, docs/methods-dispersion.md): 0.63 at
-    # 2A/P = 0.8 spacings, 0.047 at 1.5 spacings; the warning fires below 2 spacings
+    # 2A/P = 0.8 spacings, 0.15 at 1.0, 0.053 at 1.24, 0.047 at 1.54; warned below 1.5
     xy = uniform_in_polygon(shapely.box(0, 0, 300, 0.8), 100, rng=4)
     res = analyse_plot(xy, shapely.box(0, 0, 300, 0.8), "strip", DispersionSettings(99))
     assert any("Donnelly" in w and "p_mc" in w for w in res.warnings)
     assert donnelly_strip_warning(100, 100 * 100.0, 400.0) == ""
     # exact geometric fact: for a long strip of width w, 2A/P → w (here w = 5 m, n = 100:
-    # spacing √(2000/100) = 4.47 m, so 5 m < 2 spacings)
+    # spacing √(2000/100) = 4.47 m, so 4.94 m < 1.5 spacings)
     assert "2A/P = 4.94 m" in donnelly_strip_warning(100, 400 * 5.0, 810.0)
 
 
