@@ -44,7 +44,6 @@ from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, envelope_test
 from ecoscan.stats.second_order import default_r_max, r_grid, second_order, shorter_side_m
 
 __all__ = [
-    "supported_max_distance",
     "FUNCTIONS",
     "FunctionCurve",
     "PlotScales",
@@ -55,6 +54,7 @@ __all__ = [
     "interpret",
     "plot_rng",
     "scales_rows",
+    "supported_max_distance",
     "write_scales",
 ]
 

@@ -142,7 +142,7 @@ def test_sequential_pvalues_follow_besag_clifford():
     lo, up, used = sequential_pvalues(np.array([10.0]), sims, 8, 2)
     assert up[0] == 1 / 9 and used == 8  # never reached: fixed-N rank p with N = 8
     lo0, up0, _ = sequential_pvalues(np.array([3.5]), sims, 8, 0)
-    p_fixed, lo_f, up_f = rank_pvalues(3.5, sims[:, 0])
+    _, lo_f, up_f = rank_pvalues(3.5, sims[:, 0])
     assert lo0[0] == lo_f and up0[0] == up_f
 
 

@@ -153,7 +153,7 @@ def test_default_grid_whole_cells_expect_five_and_no_thin_edge_cells():
         assert np.ptp(res.cell_area_m2) < 1e-9 * w * h
         assert res.expected.min() >= 5.0
     # two cells at least, even for very few points
-    assert np.prod([int(round(s)) for s in default_quadrat_cells(SQUARE, 4)]) == 5000
+    assert np.prod([round(s) for s in default_quadrat_cells(SQUARE, 4)]) == 5000
     assert quadrat_test(xy, SQUARE, 50.0).n_low_expected == 0
 
 

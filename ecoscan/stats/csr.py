@@ -16,9 +16,15 @@ from functools import lru_cache
 import numpy as np
 import shapely
 
-__all__ = ["SAMPLE_BLOCK", "as_rng", "plot_rng", "triangulate_polygon", "uniform_in_polygon"]
+__all__ = [
+    "SAMPLE_BLOCK",
+    "as_rng",
+    "plot_rng",
+    "triangulate_polygon",
+    "uniform_in_polygon",
+]
 
-#: Points drawn per block: bounds the temporary arrays (about 200 bytes per point in temporaries) whatever
+#: Points drawn per block: bounds the temporary arrays (about 200 bytes per point) whatever
 #: the number of points asked for. Fixed, so the same seed always gives the same points.
 SAMPLE_BLOCK = 262_144
 
