@@ -4,8 +4,8 @@ A grid of rectangular cells of width ``sx`` and height ``sy`` (square when the u
 side) is laid from the lower-left corner of the plot's bounding box. The default grid
 (:func:`default_quadrat_cells`) divides the bounding box into whole cells, so no thin strip of
 cells is left along its far edges. Each cell is clipped to the plot, and its expected count
-under complete spatial randomness is ``n · aᵢ / A`` (aᵢ its area inside the plot, A the plot area), so irregular plots
-and edge cells are handled without discarding anything.
+under complete spatial randomness is ``n · aᵢ / A`` (aᵢ its area inside the plot, A the plot
+area), so irregular plots and edge cells are handled without discarding anything.
 
 Boundary rule: cells are half-open,
 ``[x0 + i·sx, x0 + (i+1)·sx) × [y0 + j·sy, y0 + (j+1)·sy)``;
