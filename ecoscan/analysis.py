@@ -681,12 +681,16 @@ def write_analysis(
         "crs_wkt": inputs.points.crs.to_wkt() if inputs.points.crs is not None else None,
         "methods": {
             "verdict": "Monte Carlo rank test of the mean nearest-neighbour distance in the "
-            "exact plot polygon (Besag & Diggle 1977)",
+            "exact plot polygon (Besag & Diggle 1977), with sequential stopping after "
+            "stop_after simulations as extreme in each tail (Besag & Clifford 1991)",
             "R": "Clark & Evans (1954), no edge correction",
             "R_donnelly": "Donnelly (1978): E = 0.5 sqrt(A/n) + (0.0514 + 0.041/sqrt(n)) P/n, "
             "Var = 0.0703 A/n^2 + 0.037 P sqrt(A/n^5)",
-            "R_guard": "guard zone: focal points at least guard_m inside the edge",
-            "quadrat": "Pearson X^2 on a square grid clipped to the plot, two-sided p",
+            "R_guard": "guard zone: focal points at least guard_m inside the edge; p_guard "
+            "ranks the focal mean among the same simulated patterns as p_mc",
+            "quadrat": "Pearson X^2 on a grid of equal cells fitted to the plot and clipped "
+            "to it, two-sided p; quadrat_p_mc and the morisita_std limits from a multinomial "
+            "simulation",
         },
         "notes": list(notes),
         "caution": CAUTION,

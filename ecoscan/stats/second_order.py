@@ -514,11 +514,7 @@ def second_order(
             counts = _border_counts(pt.d, b[pt.i], dr, n_r) + _border_counts(pt.d, b[pt.j], dr, n_r)
             Kb = bs * counts
             one = np.float64(1.0)
-            gb = (
-                bs
-                * _kernel_sums(pt.d, [one, one], dr, n_r, h, limits=[b[pt.i], b[pt.j]])
-                / ring
-            )
+            gb = bs * _kernel_sums(pt.d, [one, one], dr, n_r, h, limits=[b[pt.i], b[pt.j]]) / ring
         Kb = np.where(centres > 0, Kb, np.nan)
         gb = np.where(centres > 0, gb, np.nan)
     else:
