@@ -170,3 +170,17 @@ def test_numbers_do_not_depend_on_the_number_of_processes():
     b = monte_carlo_nn(xy, RECT, simulations=150, rng=3, stop_after=20, workers=2)
     assert a.pvalue == b.pvalue and a.simulations == b.simulations
     np.testing.assert_array_equal(a.simulated_nn_m, b.simulated_nn_m)
+
+
+def test_large_pattern_path_matches_plain_kdtree():
+    # the unbalanced, leaf-order path for n >= 2000 gives the same means as a plain
+    # scipy cKDTree query (reference library) on the same seeded patterns
+    import shapely as shp
+
+    from ecoscan.stats.montecarlo import _block_stats
+
+    ent = [1, 2, 3, 4]
+    got = _block_stats(shp.to_wkb(RECT), None, 2500, 2, ent, 5)[:, 0]
+    gen = np.random.default_rng(np.random.SeedSequence(ent, spawn_key=(5,)))
+    pats = uniform_in_polygon(RECT, 2500, size=2, rng=gen)
+    np.testing.assert_allclose(got, mean_nn_batch(pats), rtol=1e-12)

