@@ -205,7 +205,7 @@ class DispersionSettings:
         ):
             raise InputError(
                 f"quadrat size must be a positive number of metres (got {self.quadrat_m!r}); "
-                "leave it out for the default sqrt(2 * area / n)"
+                "leave it out for equal cells fitted to the plot"
             )
         if not isinstance(self.min_points, (int, np.integer)) or self.min_points < 0:
             raise InputError(f"min_points must be a whole number >= 0 (got {self.min_points!r})")
