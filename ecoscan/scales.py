@@ -55,6 +55,7 @@ __all__ = [
     "interpret",
     "plot_rng",
     "scales_rows",
+    "supported_max_distance",
     "write_scales",
 ]
 
@@ -440,6 +441,54 @@ def _too_few(plot_id, n, area, settings, reason) -> PlotScales:
     )
 
 
+def supported_max_distance(
+    polygon: shapely.Geometry, n: int, requested_m: float | None
+) -> tuple[float, str]:
+    """The largest distance the analysis uses, capped at what the plot supports, and a note.
+
+    Parameters
+    ----------
+    polygon : shapely.Polygon or shapely.MultiPolygon
+        The plot, metres.
+    n : int
+        Plants in the plot.
+    requested_m : float or None
+        The user's largest distance (``--max-distance``), metres; None for the default.
+
+    Returns
+    -------
+    max_distance_m : float
+        ``requested_m`` capped at a quarter of the shorter side of the plot's minimum
+        rotated rectangle, or the default (:func:`default_max_distance`).
+    note : str
+        A one-line note when the request was capped, else ''.
+
+    Notes
+    -----
+    A quarter of the shorter side is a common rule for the largest distance of K, L and g
+    (common practice): beyond it most circles around the plants leave the plot, the edge
+    weights grow without bound and a few pairs decide the curve, so verdicts there can
+    reverse. The rotated rectangle (not the axis-aligned box) keeps the rule meaningful for
+    plots at an angle.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> supported_max_distance(shapely.box(0, 0, 100, 40), 200, 50.0)[0]
+    10.0
+    """
+    quarter = 0.25 * shorter_side_m(polygon)
+    if requested_m is None:
+        return float(default_max_distance(polygon, n)), ""
+    if requested_m <= quarter * 1.0001:
+        return float(requested_m), ""
+    return float(quarter), (
+        f"largest distance {_fmt_m(requested_m)} m is beyond what the plot supports; capped "
+        f"at {_fmt_m(quarter)} m, a quarter of its shorter side (estimates further out rest on "
+        "few pairs and can reverse the verdict)"
+    )
+
+
 def _kind_labels(values: np.ndarray) -> np.ndarray:
     return np.array([format_value(v) for v in values], dtype=object)
 
@@ -484,18 +533,9 @@ def analyse_plot(
         )
     rng = plot_rng(settings.seed, plot_id)
     warnings: list[str] = []
-    quarter = 0.25 * shorter_side_m(polygon)
-    max_distance = (
-        default_max_distance(polygon, n)
-        if settings.max_distance_m is None
-        else settings.max_distance_m
-    )
-    if settings.max_distance_m is not None and max_distance > quarter * 1.0001:
-        warnings.append(
-            f"largest distance {_fmt_m(max_distance)} m exceeds a quarter of the plot's shorter "
-            "side "
-            f"({_fmt_m(quarter)} m); estimates at long distances are noisy"
-        )
+    max_distance, note = supported_max_distance(polygon, n, settings.max_distance_m)
+    if note:
+        warnings.append(note)
     if n < _FEW_PLANTS:
         warnings.append(f"only {n} plants: only strong patterns can be detected")
     lam = n / area

@@ -181,7 +181,14 @@ _ALL = [
     ),
     _c("n_coincident", "coincident", "", "int", "Plants sharing a position with another plant."),
     # --- quadrats
-    _c("quadrat_size_m", "quadrat side", "m", "m", "Side of the square quadrats."),
+    _c("quadrat_size_m", "quadrat width", "m", "m", "Width (east-west side) of the quadrats."),
+    _c(
+        "quadrat_height_m",
+        "quadrat height",
+        "m",
+        "m",
+        "Height (north-south side) of the quadrats; cells are fitted to the plot.",
+    ),
     _c("quadrat_chi2", "quadrat X²", "", "stat", "Pearson's X² of the quadrat counts."),
     _c("quadrat_df", "quadrat df", "", "int", "Degrees of freedom of the quadrat X²."),
     _c("quadrat_p", "quadrat p", "", "p", "Quadrat test p-value from the X² distribution."),

@@ -180,7 +180,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
     argv = [
         "analyse", str(pts), "--plots", str(plots), "--crs", "EPSG:32633", "-o", str(out),
         "--simulations", "49", "--seed", "5", "--alpha", "0.1", "--direction", "clustered",
-        "--guard", "3", "--quadrat", "20",
+        "--guard", "3", "--quadrat", "20", "--stop-after", "0",
     ]  # fmt: skip
     rc, _, stderr = _run(argv, capsys)
     assert rc == 0, stderr
@@ -193,6 +193,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
         "guard_m": 3.0,
         "quadrat_m": 20.0,
         "min_points": 30,
+        "stop_after": 0,
     }
     meadow = doc["plots"][0]
     assert meadow["guard_m"] == 3.0 and meadow["quadrat_size_m"] == 20.0

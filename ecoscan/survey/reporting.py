@@ -57,6 +57,7 @@ DETAIL_COLUMNS = [
     "p_mc_regular",
     "simulations",
     "quadrat_size_m",
+    "quadrat_height_m",
     "quadrat_cells",
     "quadrat_chi2",
     "quadrat_df",

@@ -222,6 +222,9 @@ def run_survey(
     layer = read_plots(config.plots, id_field=config.plot_id_field, layer=config.plots_layer)
     survey_crs = layer.crs
     run = SurveyRun(config, out, crs_label(survey_crs), layer=layer, notes=list(layer.notes))
+    few = stat_settings.too_few_simulations()
+    if few:  # the same line is in every plot's warnings
+        run.notes.append(few)
     plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
