@@ -513,12 +513,9 @@ def dispersion_rows(results: Iterable[PlotDispersion]) -> list[dict[str, Any]]:
 
 
 def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    m = inputs.plot_index >= 0
-    pts = inputs.points.subset(m)
-    ids = np.array([p.plot_id for p in inputs.plots], dtype=object)[inputs.plot_index[m]]
-    attrs = {"plot_id": ids}
-    attrs.update({k: v for k, v in pts.attrs.items() if k != "plot_id"})
-    return PointSet(pts.x, pts.y, attrs, pts.crs, list(pts.notes))
+    from ecoscan.inputs import points_by_plot
+
+    return points_by_plot(inputs.points, inputs.layer, inputs.membership)
 
 
 def check_outdir(outdir: str | os.PathLike) -> Path:

@@ -32,6 +32,7 @@ from scipy import stats as sps
 
 from ecoscan.crs import crs_label, parse_crs
 from ecoscan.errors import InputError
+from ecoscan.inputs import PlotMembership
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.stats.compare_r import (
@@ -368,7 +369,7 @@ def results_from_points(
     layer: PlotLayer,
     *,
     label: str,
-    plot_index: np.ndarray | None = None,
+    membership: PlotMembership | None = None,
 ) -> ResultsTable:
     """Build a :class:`ResultsTable` in memory, without a results folder.
 
@@ -376,29 +377,30 @@ def results_from_points(
     ----------
     points : PointSet
         Analysed points, metres. Optional ``site`` and ``date`` attributes split them into
-        sites and dates; plot membership comes from ``plot_index`` or a ``plot_id``
-        attribute.
+        sites and dates; plot membership comes from ``membership`` or a ``plot_id``
+        attribute (one row per plant and plot, as in ecoscan's points tables).
     layer : PlotLayer
         The plots, in the points' CRS. A plot belongs to a site when its ``site`` attribute
         says so or, without that attribute, when it holds plants of that site on any date;
         it then counts on every date of that site, also when it holds no plants then.
     label : str
         Name of this set of results (the group name for ``by='folder'``).
-    plot_index : numpy.ndarray of int, optional
-        Index into ``layer.plots`` per point, -1 outside (as from
-        :func:`ecoscan.inputs.assign_plots`).
+    membership : PlotMembership, optional
+        Which plots hold which points (:func:`ecoscan.inputs.assign_plots`).
 
     Returns
     -------
     ResultsTable
     """
-    ids = np.array([p.plot_id for p in layer.plots] + [""], dtype=object)
-    if plot_index is not None:
-        pid = ids[np.asarray(plot_index, dtype=np.int64)]
+    if membership is not None:
+        # one row per (plant, plot): a plant in overlapping plots counts in each
+        ids = np.array(layer.ids, dtype=object)
+        points = points.subset(membership.point)
+        pid = ids[membership.plot]
     else:
         pid = _attr_text(points, "plot_id")
         if pid is None:
-            raise InputError(f"{label}: the points have no plot_id; pass plot_index")
+            raise InputError(f"{label}: the points have no plot_id; pass membership")
     site = _attr_text(points, "site")
     date = _attr_text(points, "date")
     has_site, has_date = site is not None, date is not None

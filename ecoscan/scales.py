@@ -724,7 +724,7 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
     out = []
     xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
-        m = inputs.plot_index == i
+        m = inputs.plot_mask(i)
         kinds = None
         if kinds_all is not None:
             # only the plants of the two kinds compared (e.g. persisting and lost: the plants

@@ -267,7 +267,7 @@ def test_results_from_points_in_memory_matches_folder(tmp_path):
     for folder in (f, g):
         si = load_points_and_plots(folder / "points.csv", folder / "plots.gpkg")
         mem.append(results_from_points(si.points, si.layer, label=folder.name,
-                                       plot_index=si.plot_index))  # fmt: skip
+                                       membership=si.membership))  # fmt: skip
     memory = compare_groups(mem, "folder", permutations=199)
     a, b = comparison_rows(disk)[0], comparison_rows(memory)[0]
     for k in ("n_a", "n_b", "R_a", "R_b", "p_density", "p_R_perm", "p_ks"):

@@ -144,7 +144,7 @@ def test_bad_survey_file_exit_code(tmp_path, capsys):
 def test_detected_points_are_inside_plots(demo_run):
     _cfg, run = demo_run
     for rr in run.rasters:
-        assert np.all(rr.inputs.plot_index >= 0)
+        assert np.all(rr.inputs.membership.in_any())
 
 
 def test_change_finds_the_lost_and_new_plants(demo_run):

@@ -10,7 +10,7 @@ from pyproj import CRS
 
 from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.inputs import load_points_and_plots
+from ecoscan.inputs import assign_plots, load_points_and_plots
 from ecoscan.points import PointSet
 from ecoscan.scales import ScalesSettings, analyse_scales, interpret, plot_rng
 from ecoscan.stats.csr import uniform_in_polygon
@@ -92,7 +92,7 @@ def test_each_plot_has_its_own_stream_and_results_repeat(survey, results):
     assert not np.array_equal(a, plot_rng(3, "rows").uniform(size=3))
     inputs = load_points_and_plots(*survey)
     inputs.layer.plots.reverse()
-    inputs.plot_index = np.where(inputs.plot_index >= 0, 3 - inputs.plot_index, -1)
+    inputs.membership = assign_plots(inputs.points, inputs.layer)
     again = {r.plot_id: r for r in analyse_scales(inputs, ScalesSettings(simulations=39, seed=3))}
     np.testing.assert_array_equal(
         again["regen"].curves["L"].envelope.lo, results["regen"].curves["L"].envelope.lo
