@@ -330,15 +330,17 @@ def _comparison_section(run) -> ReportSection:
         "<p>Differences between groups of plots: density (exact test for two Poisson "
         "rates), Clark–Evans R (z test and a permutation test that moves whole plots "
         "between groups) and the distributions of nearest-neighbour distances "
-        "(Mann–Whitney U, Kolmogorov–Smirnov). With more than two groups the p-values "
-        "are adjusted for multiple comparisons (Holm 1979).</p>"
+        "(Kolmogorov–Smirnov distance, whole plots permuted). Dates of the same plots are "
+        "never pooled; compared by date they are paired plot by plot (sign-flip test). "
+        "With more than two groups the p-values are adjusted for multiple comparisons "
+        "(Holm 1979).</p>"
     ]
     for by, res in run.comparisons:
         groups = group_rows(res)
         pairs = comparison_rows(res)
         # the same short column sets as the terminal tables; every column is in the CSVs
         gcols = [*GROUP_SUMMARY_COLUMNS, "warnings"]
-        pcols = [*pair_summary_columns(len(pairs)), "warnings"]
+        pcols = [*pair_summary_columns(len(pairs), paired=res.paired), "warnings"]
         many = len(groups) > 2
         pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
         png = run.output / f"compare-by-{by}" / "comparison.png"
