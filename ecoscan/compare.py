@@ -781,6 +781,8 @@ def compare_groups(
             key = f"{key} {u.date}".strip()
             date_of[key] = u.date
         grouped.setdefault(key, []).append(u)
+    if by == "date":  # ISO 8601 dates (the survey file insists): text order is time order
+        grouped = dict(sorted(grouped.items()))
     if split_dates:
         notes.append(
             "the same plots were surveyed on several dates: groups are compared date by date "
