@@ -240,7 +240,7 @@ def test_interpret_merges_broken_runs_and_names_the_main_range():
     for a, b in ((2.0, 2.5), (4.0, 4.5), (5.5, 6.5), (7.5, 9.0), (11.0, 11.0)):
         clu |= (r >= a) & (r <= b)
     reg = np.zeros(r.size, bool)
-    c, g, text = interpret(r, clu, reg, 0.01, 0.05)
+    c, _g, text = interpret(r, clu, reg, 0.01, 0.05)
     assert len(c) == 5  # the exact ranges stay in the table columns
     assert text.startswith("clustered from 2.0 m to 9.0 m (and briefly at 1 other distance)")
     assert "more distance bands" not in text

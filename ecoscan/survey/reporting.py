@@ -167,6 +167,7 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     body = (
         f'<div class="card"><h3>Plot {_esc(plot.plot_id)} {pattern_tag(row.get("pattern"))}</h3>'
         f'<p class="facts">{_esc(facts)}</p>'
+        + (f"<p>In words: {_esc(row['summary'])}.</p>" if row.get("summary") else "")
         + (f'<p class="facts" style="color:#7a4b00">{_esc(warn)}</p>' if warn else "")
         + '<div class="figrow">'
         + "".join(figs)
