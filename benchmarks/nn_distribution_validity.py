@@ -67,8 +67,10 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=60, help="plants per plot")
     args = ap.parse_args()
     half = 1.96 * math.sqrt(0.05 * 0.95 / args.reps)
-    print(f"null rejection rates at alpha 0.05, {args.reps} replicates each "
-          f"(binomial 95% half-width around 0.05: ±{half:.3f}); {args.n} plants per plot")  # fmt: skip
+    print(
+        f"null rejection rates at alpha 0.05, {args.reps} replicates each (binomial 95% "
+        f"half-width around 0.05: ±{half:.3f}); {args.n} plants per plot"
+    )
     print(
         f"{'shape':<16} {'plots/group':>11} {'pooled MW':>10} {'pooled KS':>10} {'plot perm.':>10}"
     )
