@@ -665,32 +665,39 @@ def _by_place(units: list[PlotUnit]) -> dict[tuple[str, str], list[PlotUnit]]:
 
 
 def _limit_notes(pairs: list[dict[str, Any]], paired: bool) -> list[str]:
-    """One note per distinct design limit: how low each test's p-value can go."""
-    out: list[str] = []
+    """One note per distinct design limit (how low each test's p-value can go), naming
+    the pair when only one pair has it and counting the pairs otherwise."""
+    found: dict[str, list[str]] = {}
     for p in pairs:
-        na = p["group_a"], p["group_b"]
+        name = f"{p['group_a']} vs {p['group_b']}"
         mp = p.get("_perm_min_p", float("nan"))
-        if math.isfinite(mp) and mp > 0.05:
-            out.append(
-                f"{na[0]} vs {na[1]}: {p['perm_arrangements']} possible arrangements of whole "
-                f"plots, so the permutation p-values cannot go below {mp:.2g}"
-            )
-        elif not math.isfinite(mp):
-            out.append(
-                f"{na[0]} vs {na[1]}: one plot in a group, so no rearrangement of whole plots "
-                "exists and the permutation tests cannot run; the z test and p_mw/p_ks treat "
-                "plants as independent, which neighbours are not quite"
-            )
+        if not math.isfinite(mp):
+            found.setdefault(
+                "one plot in a group: no rearrangement of whole plots exists, so the "
+                "permutation tests cannot run; the z tests treat plants as independent, which "
+                "neighbours are not quite",
+                [],
+            ).append(name)
+        elif mp > 0.05:
+            found.setdefault(
+                f"{p['perm_arrangements']} possible arrangements of whole plots, so the "
+                f"permutation p-values cannot go below {mp:.2g}",
+                [],
+            ).append(name)
         pm = p.get("_paired_min_p", float("nan"))
-        if paired and math.isfinite(pm) and pm > 0.05:
-            out.append(
-                f"{na[0]} vs {na[1]}: {p['paired_plots']} plots on both dates give "
-                f"{p['paired_arrangements']} sign patterns, so the paired p-values cannot go "
-                f"below {pm:.2g}"
-            )
         if paired and p.get("paired_plots", 0) == 0:
-            out.append(f"{na[0]} vs {na[1]}: no plot was surveyed on both dates; no paired test")
-    return list(dict.fromkeys(out))
+            found.setdefault("no plot was surveyed on both dates: no paired test", []).append(name)
+        elif paired and math.isfinite(pm) and pm > 0.05:
+            found.setdefault(
+                f"{p['paired_plots']} plots on both dates give {p['paired_arrangements']} sign "
+                f"patterns, so the paired p-values cannot go below {pm:.2g}",
+                [],
+            ).append(name)
+    out = []
+    for text, names in found.items():
+        who = names[0] if len(names) == 1 else f"{len(names)} of {len(pairs)} pairs"
+        out.append(f"{who}: {text}")
+    return out
 
 
 def compare_groups(
