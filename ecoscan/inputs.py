@@ -247,13 +247,16 @@ def points_by_plot(points: PointSet, layer: PlotLayer, membership: PlotMembershi
     >>> pts = PointSet(np.array([0.5, 1.5]), np.array([0.5, 1.5]))
     >>> out = points_by_plot(pts, lay, assign_plots(pts, lay))
     >>> out.attrs["plot_id"].tolist(), out.attrs["plot_count"].tolist()
-    (['A', 'A', 'B'], [2, 1, 2])
+    (['A', 'B', 'A'], [2, 2, 1])
     """
     ids = np.array(layer.ids, dtype=object)
-    sub = points.subset(membership.point)
+    # in the points' own order, the rows of a plant in several plots next to each other
+    order = np.lexsort((membership.plot, membership.point))
+    pt, pl = membership.point[order], membership.plot[order]
+    sub = points.subset(pt)
     attrs = {
-        "plot_id": ids[membership.plot],
-        "plot_count": membership.plots_per_point()[membership.point].astype(np.int64),
+        "plot_id": ids[pl],
+        "plot_count": membership.plots_per_point()[pt].astype(np.int64),
     }
     attrs.update({k: v for k, v in sub.attrs.items() if k not in attrs})
     return PointSet(sub.x, sub.y, attrs, sub.crs, list(sub.notes))
