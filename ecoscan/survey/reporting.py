@@ -352,6 +352,9 @@ def _comparison_section(run) -> ReportSection:
             )
         adj = " (p-values Holm-adjusted; the full table is in comparison.csv)" if many else ""
         parts.append(f"<h3>By {_esc(by)}: pairs{adj}</h3>" + table_html(pairs, pcols))
+        if res.notes:
+            items = "".join(f"<li>{_esc(n)}</li>" for n in res.notes)
+            parts.append(f"<p>What limits these comparisons:</p><ul>{items}</ul>")
     return ReportSection("Comparison", "".join(parts), "comparison")
 
 
