@@ -106,6 +106,9 @@ def run(args: argparse.Namespace) -> int:
     rows = dispersion_rows(results)
     keys = [k for k, _ in TABLE_COLUMNS]
     print(format_table(rows, keys, headers=[h for _, h in TABLE_COLUMNS]))
+    print()
+    for r in rows:
+        print(f"plot {r['plot_id']}: {r['summary']}")
     flagged = [(r["plot_id"], r["warnings"]) for r in rows if r["warnings"]]
     for pid, w in flagged:
         print(f"plot {pid}: {w}")
