@@ -65,6 +65,7 @@ __all__ = [
     "check_outdir",
     "dispersion_rows",
     "donnelly_strip_warning",
+    "plain_summary",
     "plot_rng",
     "write_analysis",
 ]
@@ -113,6 +114,7 @@ EXTRA_COLUMNS: tuple[str, ...] = (
     "quadrat_cells",
     "quadrat_low_expected",
     "n_coincident",
+    "summary",
 )
 
 #: Usual caution printed with every result.
@@ -311,6 +313,8 @@ class PlotDispersion:
     quadrat_p_mc : float
         Two-sided Monte Carlo p-value of the quadrat X² (multinomial simulation with the
         same number of simulations; exact where the chi-square approximation is not).
+    summary : str
+        One sentence in plain words that reconciles the tests (see :func:`plain_summary`).
     """
 
     plot_id: str
@@ -331,6 +335,7 @@ class PlotDispersion:
     warnings: tuple[str, ...] = field(default_factory=tuple)
     quadrat_p_mc: float = float("nan")
     quadrat_height_m: float = float("nan")
+    summary: str = ""
 
     def row(self) -> dict[str, Any]:
         """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
@@ -381,6 +386,7 @@ class PlotDispersion:
             "quadrat_cells": qd.q if qd else None,
             "quadrat_low_expected": qd.n_low_expected if qd else None,
             "n_coincident": self.n_coincident,
+            "summary": self.summary,
         }
         return r
 
@@ -570,7 +576,7 @@ def analyse_plot(
         )
     qnull = quadrat_null(qd, s.simulations, rng=rng)
     qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
-    return PlotDispersion(
+    res = PlotDispersion(
         plot_id,
         n,
         area,
@@ -590,6 +596,95 @@ def analyse_plot(
         qnull.pvalue,
         quad_h,
     )
+    return dataclasses.replace(res, summary=plain_summary(res, s.alpha, s.smallest_p))
+
+
+def _p_words(p: float) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.2g}"
+
+
+def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 0.0) -> str:
+    """One sentence in plain words that puts a plot's tests side by side.
+
+    The nearest-neighbour tests look at the spacing between neighbouring plants (about
+    ``mean_nn_m``); the quadrat tests look at how counts vary between cells of
+    ``quadrat_m``. A pattern can be evenly spaced at one scale and patchy at the other,
+    so the sentence names the scale of each finding instead of one overall verdict.
+
+    Parameters
+    ----------
+    res : PlotDispersion
+        One plot's results.
+    alpha : float
+        Significance level.
+    smallest_p : float
+        Smallest Monte Carlo p-value the simulations allow; above ``alpha`` the
+        nearest-neighbour test cannot reject, which the sentence says.
+
+    Returns
+    -------
+    str
+        E.g. "no clear departure from random spacing between neighbours (R = 1.03, not
+        significant); evenly spread over 5.4 m quadrats (variance/mean 0.37, p < 0.001):
+        the tests look at different scales (neighbours about 1.6 m apart, quadrats
+        5.4 m), so both can hold".
+
+    Notes
+    -----
+    Direction words: R > 1 means neighbours further apart than at random (evenly spaced),
+    R < 1 closer (clumped) (Clark & Evans 1954); a variance-to-mean ratio of quadrat counts
+    above 1 means patchy, below 1 more even than random (index of dispersion, Fisher,
+    Thornton & Mackenzie 1922). The nearest-neighbour finding is the Monte Carlo verdict
+    (``pattern``); the quadrat finding uses the exact p (``quadrat_p_mc``) when available.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> xy = np.mgrid[1:20:2.0, 1:20:2.0].reshape(2, -1).T
+    >>> s = DispersionSettings(simulations=99)
+    >>> res = analyse_plot(xy, shapely.box(0, 0, 20, 20), "grid", s)
+    >>> plain_summary(res).split(" (")[0]
+    'evenly spaced between neighbours'
+    """
+    if res.n < 2 or res.clark_evans is None:
+        return f"too few plants to describe a pattern (n = {res.n})"
+    r = res.clark_evans.statistic
+    p_mc = res.monte_carlo.pvalue if res.monte_carlo else float("nan")
+    if res.verdict == "regular":
+        nn_dir, nn = 1, f"evenly spaced between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
+    elif res.verdict == "clustered":
+        nn_dir, nn = -1, f"clumped between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
+    else:
+        why = (
+            f"too few simulations to reach p < {alpha:g}"
+            if smallest_p > alpha
+            else "not significant"
+        )
+        nn_dir, nn = (
+            0,
+            f"no clear departure from random spacing between neighbours (R = {r:.2f}, {why})",
+        )
+    qd = res.quadrat
+    if qd is None or qd.q < 2 or not np.isfinite(qd.vmr):
+        return nn
+    qp = res.quadrat_p_mc if np.isfinite(res.quadrat_p_mc) else qd.pvalue
+    side = f"{res.quadrat_m:.2g} m"
+    if qp <= alpha and qd.vmr > 1:
+        q_dir, q = -1, f"patchy over {side} quadrats (variance/mean {qd.vmr:.2f}, {_p_words(qp)})"
+    elif qp <= alpha and qd.vmr < 1:
+        q_dir, q = (
+            1,
+            (f"evenly spread over {side} quadrats (variance/mean {qd.vmr:.2f}, {_p_words(qp)})"),
+        )
+    else:
+        q_dir, q = 0, f"counts per {side} quadrat as random (variance/mean {qd.vmr:.2f})"
+    text = f"{nn}; {q}"
+    if nn_dir != q_dir:
+        text += (
+            f": the tests look at different scales (neighbours about "
+            f"{res.clark_evans.mean_nn_m:.2g} m apart, quadrats {side}), so both can hold"
+        )
+    return text
 
 
 def analyse(
@@ -625,12 +720,9 @@ def dispersion_rows(results: Iterable[PlotDispersion]) -> list[dict[str, Any]]:
 
 
 def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    m = inputs.plot_index >= 0
-    pts = inputs.points.subset(m)
-    ids = np.array([p.plot_id for p in inputs.plots], dtype=object)[inputs.plot_index[m]]
-    attrs = {"plot_id": ids}
-    attrs.update({k: v for k, v in pts.attrs.items() if k != "plot_id"})
-    return PointSet(pts.x, pts.y, attrs, pts.crs, list(pts.notes))
+    from ecoscan.inputs import points_by_plot
+
+    return points_by_plot(inputs.points, inputs.layer, inputs.membership)
 
 
 def check_outdir(outdir: str | os.PathLike) -> Path:

@@ -302,6 +302,32 @@ def _fmt_m(v: float) -> str:
     return f"{v:.2g}"
 
 
+#: Runs shorter than this many distance steps are "brief" in the verdict text.
+_MIN_RUN_STEPS = 3
+#: Runs of one kind separated by at most this many steps (and nothing of the other kind)
+#: are one range in the verdict text.
+_MERGE_GAP_STEPS = 2
+
+
+def _merged_index_runs(mask: np.ndarray, other: np.ndarray) -> list[tuple[int, int]]:
+    """Index runs of ``mask``, merging those split by a short gap free of ``other``."""
+    m = np.asarray(mask, bool)
+    o = np.asarray(other, bool)
+    if not m.any():
+        return []
+    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1
+    out = [(int(starts[0]), int(ends[0]))]
+    for a, b in zip(starts[1:], ends[1:], strict=True):
+        pa, pb = out[-1]
+        if a - pb - 1 <= _MERGE_GAP_STEPS and not o[pb + 1 : a].any():
+            out[-1] = (pa, int(b))
+        else:
+            out.append((int(a), int(b)))
+    return out
+
+
 def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
     m = np.asarray(mask, bool)
     if not m.any():
@@ -391,23 +417,34 @@ def interpret(
         )
     reg = _runs(regular, r)
     clu = _runs(clustered, r)
-    events = sorted([(x, "regular") for x in reg] + [(x, "clustered") for x in clu])
-    parts: list[str] = []
-    last = None
-    many = {k: sum(1 for _x, kk in events if kk == k) > 2 for k in ("regular", "clustered")}
-    for rng_m, kind in events:
-        text = _describe([rng_m], r_start_regular if kind == "regular" else r_start)
-        if many[kind]:
-            runs = reg if kind == "regular" else clu
-            if rng_m != runs[0]:
-                continue
-            text += f", and in {len(runs) - 1} more distance bands up to {_fmt_m(runs[-1][1])} m"
-        if kind == last:
-            parts[-1] += f" and {text}"
+    # the verdict merges runs split by a gap of a step or two and names the main range;
+    # the exact ranges stay in the *_ranges_m columns
+    events = []
+    for kind, mask, other in (("regular", regular, clustered), ("clustered", clustered, regular)):
+        merged = _merged_index_runs(mask, other)
+        if not merged:
+            continue
+        long = [(a, b) for a, b in merged if b - a + 1 >= _MIN_RUN_STEPS]
+        short = len(merged) - len(long)
+        if long:
+            main = max(long, key=lambda t: (t[1] - t[0], -t[0]))
+            shown = sorted(long)[:2] if len(long) <= 2 else [main]
         else:
-            word = "regular (evenly spaced)" if kind == "regular" else "clustered"
-            parts.append(f"{word} {text}")
-        last = kind
+            main = max(merged, key=lambda t: (t[1] - t[0], -t[0]))
+            shown, short = [main], short - 1
+        start = r_start_regular if kind == "regular" else r_start
+        text = _describe([(float(r[a]), float(r[b])) for a, b in shown], start)
+        if len(long) > 2:
+            far = _fmt_m(r[max(long)[1]])
+            text = f"mainly {text}, with {len(long) - 1} further ranges up to {far} m"
+        if short > 0:
+            text += f" (and briefly at {short} other distance{'s' if short > 1 else ''})"
+        events.append((float(r[main[0]]), kind, text))
+    events.sort()
+    parts: list[str] = []
+    for _x, kind, text in events:
+        word = "regular (evenly spaced)" if kind == "regular" else "clustered"
+        parts.append(f"{word} {text}")
     if not parts:
         return [], [], f"departs from a random pattern, without one clear distance range ({p_txt})"
     return clu, reg, "; ".join(parts) + f" ({p_txt}){small}"
@@ -790,7 +827,7 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
     out = []
     xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
-        m = inputs.plot_index == i
+        m = inputs.plot_mask(i)
         kinds = None
         if kinds_all is not None:
             # only the plants of the two kinds compared (e.g. persisting and lost: the plants

@@ -56,7 +56,7 @@ def _scene(tmp_path):
     (tmp_path / "s.toml").write_text(
         '[survey]\nplots = "plots.gpkg"\n[statistics]\nsimulations = 99\n'
         "[scales]\nenabled = true\nsimulations = 19\n"
-        '[[raster]]\npath = "rgb.tif"\nsite = "test"\ndate = "d1"\n'
+        '[[raster]]\npath = "rgb.tif"\nsite = "test"\ndate = "2026-05-01"\n'
         "[raster.detect]\ndiameter = [0.6, 1.5]\n"
     )
     return len(keep)

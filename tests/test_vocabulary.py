@@ -155,23 +155,20 @@ def test_retired_survey_keys_are_refused_with_the_new_name(tmp_path):
 
 def test_results_to_stdout_notes_to_stderr_quiet_silences_notes_only(tmp_path, capsys):
     rng = np.random.default_rng(3)
-    plots = {"a": shapely.box(0, 0, 30, 30), "b": shapely.box(40, 0, 60, 20)}
+    plots = {"a": shapely.box(0, 0, 30, 30), "b": shapely.box(30, 0, 50, 20)}
     xy = np.vstack(
         [uniform_in_polygon(plots["a"], 40, rng=rng), uniform_in_polygon(plots["b"], 8, rng=rng)]
     )
     pts = tmp_path / "p.csv"
     pts.write_text("x,y\n" + "".join(f"{a:.3f},{b:.3f}\n" for a, b in xy))
-    import json
+    from pyproj import CRS
 
-    feats = [
-        {"type": "Feature", "properties": {"plot_id": k},
-         "geometry": shapely.geometry.mapping(g)}
-        for k, g in plots.items()
-    ]  # fmt: skip
-    plots_file = tmp_path / "plots.geojson"
-    plots_file.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    from ecoscan.vector import PlotLayer, plots_from_geometries, write_plots
+
+    recs, _ = plots_from_geometries(list(plots.values()), list(plots))
+    plots_file = write_plots(PlotLayer(recs, CRS.from_epsg(32633)), tmp_path / "plots.gpkg")
     base = ["analyse", str(pts), "--plots", str(plots_file), "--crs", "EPSG:32633",
-            "--simulations", "19"]  # fmt: skip
+            "--simulations", "39"]  # fmt: skip
     assert main([*base, "-o", str(tmp_path / "r1")]) == 0
     out, err = capsys.readouterr()
     assert out.splitlines()[0].split()[:3] == ["plot", "n", "plants/ha"]

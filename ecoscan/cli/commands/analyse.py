@@ -117,6 +117,9 @@ def run(args: argparse.Namespace) -> int:
     write_analysis(outdir, inputs, results, settings, notes=notes + warnings)
     rows = dispersion_rows(results)
     print(format_table(rows, TABLE_COLUMNS))
+    print()
+    for r in rows:
+        print(f"plot {r['plot_id']}: {r['summary']}")
     print(
         f"verdict: Monte Carlo test ({settings.simulations} simulations, direction "
         f"{settings.direction}, alpha {settings.alpha:g})"

@@ -56,6 +56,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "arrangements are used when there are fewer)",
     )
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument(
+        "--pool-dates",
+        action="store_true",
+        help="pool the dates of one site or plot into one group (off by default: the same "
+        "plants would count twice; groups are then compared date by date)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -64,12 +70,18 @@ def run(args: argparse.Namespace) -> int:
     labels = [t.label for t in tables]
     if len(set(labels)) < len(labels):  # same folder name in different places
         tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
-    result = compare_groups(tables, args.by, permutations=args.permutations, seed=args.seed)
+    result = compare_groups(
+        tables,
+        args.by,
+        permutations=args.permutations,
+        seed=args.seed,
+        pool_dates=args.pool_dates,
+    )
     paths = write_comparison(args.output, result)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
     print(format_table(groups, GROUP_SUMMARY_COLUMNS))
     print()
-    cols = pair_summary_columns(len(result.pairs))
+    cols = pair_summary_columns(len(result.pairs), paired=result.paired)
     print(format_table(comparison_rows(result), cols))
     if len(result.pairs) > 1:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
