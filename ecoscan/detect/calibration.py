@@ -147,6 +147,7 @@ class _Window:
     ref: np.ndarray  # (n, 2) col, row
     ref_fold: np.ndarray
     fold_map: np.ndarray  # fold of every pixel of the window
+    ref_index: np.ndarray  # position of each plant in the reference file
 
 
 @dataclass
@@ -351,7 +352,20 @@ def _prepare(
             ref_fold = fold_blocks(bb, ref[:, 0], ref[:, 1])
             fold_map = fold_blocks(bb, cc, rr)
         windows.append(
-            _Window(i, c0, r0, c1, r1, data, valid, polys[i], ref, ref_fold, fold_map)
+            _Window(
+                i,
+                c0,
+                r0,
+                c1,
+                r1,
+                data,
+                valid,
+                polys[i],
+                ref,
+                ref_fold,
+                fold_map,
+                np.flatnonzero(sel),
+            )
         )
     return windows, fold_by, n_folds, notes
 
@@ -529,54 +543,56 @@ def _score_layer(
 # --- the classifier ------------------------------------------------------------------------
 
 
-def _samples(
-    windows: list[_Window], diam_px: np.ndarray, rng: np.random.Generator
-) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
-    """Per window: sample rows, columns (window pixels) and labels (1 plant, 0 ground)."""
+def _sample_pixels(
+    windows: list[_Window], r_hi: float, rng: np.random.Generator
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Candidate training pixels per window (rows, columns in window pixels).
+
+    Around every mapped plant (radius uniform in 0–1.3 ``r_hi``, so dense near the centre)
+    and uniform in the plot; labels are given later from the crown sizes (:func:`_labels`).
+    """
     n_ref = sum(w.ref.shape[0] for w in windows)
     area = sum(w.poly_px.area for w in windows)
     out = []
-    start = 0
     for w in windows:
         n = w.ref.shape[0]
-        rad = 0.5 * diam_px[start : start + n]
-        start += n
         h, wd = w.valid.shape
-        # plant pixels: uniform in the inner 60% of each crown's radius
-        m = max(1, math.ceil(N_PLANT_SAMPLES / max(n_ref, 1)))
+        m = max(1, math.ceil(2 * N_PLANT_SAMPLES / max(n_ref, 1)))
         k = np.repeat(np.arange(n), m)
-        rr = 0.6 * rad[k] * np.sqrt(rng.uniform(size=k.size))
+        rr = 1.3 * r_hi * rng.uniform(size=k.size)
         th = rng.uniform(0, 2 * np.pi, size=k.size)
         pc = w.ref[k, 0] + rr * np.cos(th)
         pr = w.ref[k, 1] + rr * np.sin(th)
-        # ground pixels: uniform in the plot, and in rings beside crowns (shadows, edges),
-        # farther than 1.3 radii from every mapped plant
         n_g = max(1, round(N_GROUND_SAMPLES * w.poly_px.area / max(area, 1e-9)))
         b = w.poly_px.bounds
-        gc = rng.uniform(b[0], b[2], size=3 * n_g)
-        gr = rng.uniform(b[1], b[3], size=3 * n_g)
-        kr = rng.integers(0, n, size=n_g)
-        ring = rad[kr] * rng.uniform(1.3, 2.2, size=n_g)
-        th = rng.uniform(0, 2 * np.pi, size=n_g)
-        gc = np.concatenate([gc, w.ref[kr, 0] + ring * np.cos(th)])
-        gr = np.concatenate([gr, w.ref[kr, 1] + ring * np.sin(th)])
-        inside = shapely.contains_xy(w.poly_px, gc, gr)
-        gc, gr = gc[inside], gr[inside]
-        tree = cKDTree(w.ref)
-        kk = min(8, n)
-        d, j = tree.query(np.column_stack([gc, gr]), k=kk)
-        d = d.reshape(gc.size, kk)
-        j = j.reshape(gc.size, kk)
-        far = np.all(d > 1.3 * rad[j], axis=1)
-        gc, gr = gc[far][:n_g], gr[far][:n_g]
-        col = np.round(np.concatenate([pc, gc])).astype(int) - w.c0
-        row = np.round(np.concatenate([pr, gr])).astype(int) - w.r0
-        lab = np.concatenate([np.ones(pc.size, np.int8), np.zeros(gc.size, np.int8)])
+        gc = rng.uniform(b[0], b[2], size=n_g)
+        gr = rng.uniform(b[1], b[3], size=n_g)
+        c = np.concatenate([pc, gc])
+        r = np.concatenate([pr, gr])
+        inside = shapely.contains_xy(w.poly_px, c, r)
+        c, r = c[inside], r[inside]
+        col = np.round(c).astype(int) - w.c0
+        row = np.round(r).astype(int) - w.r0
         ok = (col >= 0) & (col < wd) & (row >= 0) & (row < h)
-        col, row, lab = col[ok], row[ok], lab[ok]
+        col, row = col[ok], row[ok]
         ok = w.valid[row, col]
-        out.append((row[ok], col[ok], lab[ok]))
+        out.append((row[ok], col[ok]))
     return out
+
+
+def _labels(w: _Window, row: np.ndarray, col: np.ndarray, rad: np.ndarray) -> np.ndarray:
+    """1 within 0.6 radii of a mapped plant, 0 beyond 1.3 radii of all, else -1 (unused)."""
+    if w.ref.shape[0] == 0:
+        return np.zeros(row.size, np.int8)
+    kk = min(8, w.ref.shape[0])
+    d, j = cKDTree(w.ref).query(np.column_stack([col + w.c0, row + w.r0]), k=kk)
+    d = d.reshape(row.size, kk)
+    j = j.reshape(row.size, kk)
+    ratio = np.min(d / np.maximum(rad[j], 0.5), axis=1)
+    lab = np.full(row.size, -1, np.int8)
+    lab[ratio < 0.6] = 1
+    lab[ratio > 1.3] = 0
+    return lab
 
 
 def _features_at(
@@ -610,6 +626,94 @@ def _forest(x: np.ndarray, y: np.ndarray, seed: int):
     )
     model.fit(x, y)
     return model
+
+
+def _classifier_run(
+    windows: list[_Window],
+    band_names: tuple[str, ...],
+    n_folds: int,
+    tol_px: float,
+    broad: tuple[float, float],
+    diam_given: np.ndarray | None,
+    best_simple: _LayerRun | None,
+    seed: int,
+):
+    """Train and cross-validate the pixel classifier; returns (forest, spec, run)."""
+    ref_all = np.concatenate([w.ref for w in windows])
+    nn = cKDTree(ref_all).query(ref_all, k=2)[0][:, 1] if ref_all.shape[0] > 1 else np.ones(1)
+    if diam_given is not None:
+        diam = diam_given.copy()
+    elif best_simple is not None and best_simple.score.f1 >= 0.8:
+        diam = best_simple.ref_diam_px.copy()
+    else:
+        diam = None
+    if diam is not None:
+        med = float(np.nanmedian(diam)) if np.isfinite(diam).any() else float(np.median(nn))
+        diam[~np.isfinite(diam)] = med
+    else:
+        med = float(min(broad[1], np.median(nn)))
+    means = np.concatenate([w.data.mean(axis=0)[w.valid] for w in windows])
+    spec = FeatureSpec(
+        sigma_min=1.0,
+        sigma_max=float(np.clip(0.25 * med, 2.0, 16.0)),
+        num_sigma=4,
+        brightness_scale=float(max(np.percentile(means, 99), 1e-6)),
+    )
+    rng = np.random.default_rng(seed)
+    pix = _sample_pixels(windows, 0.5 * broad[1], rng)
+    feats = [
+        _features_at(w, band_names, spec, r, c) for w, (r, c) in zip(windows, pix, strict=True)
+    ]
+    folds = np.concatenate([w.fold_map[r, c] for w, (r, c) in zip(windows, pix, strict=True)])
+    x_all = np.concatenate(feats)
+
+    def labels(rad: np.ndarray) -> np.ndarray:
+        out, start = [], 0
+        for w, (r, c) in zip(windows, pix, strict=True):
+            n = w.ref.shape[0]
+            out.append(_labels(w, r, c, rad[start : start + n]))
+            start += n
+        return np.concatenate(out)
+
+    if diam is None:
+        # no layer gives crown sizes: a first forest on conservative labels (plants within
+        # a third of the spacing to the nearest neighbour), then scale selection on its map
+        y = labels(np.minimum(0.35 * nn, 0.5 * broad[1]))
+        ok = y >= 0
+        if np.unique(y[ok]).size < 2:
+            return None, None, None
+        first = _forest(x_all[ok], y[ok], seed)
+        maps = [predict_probability(first, w.data, band_names, spec) for w in windows]
+        sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
+        floor = 0.02 * 2.0 / math.e
+        cands = _candidates(maps, windows, sc, floor, 0.0)
+        sig, _r, _v = _strongest_near(cands, windows, tol_px)
+        diam = 2.0 * math.sqrt(2.0) * sig
+        fill = float(np.nanmedian(diam)) if np.isfinite(diam).any() else med
+        diam[~np.isfinite(diam)] = fill
+    y = labels(0.5 * diam)
+    ok = y >= 0
+    x, y, fold = x_all[ok], y[ok], folds[ok]
+    if np.unique(y).size < 2:
+        return None, None, None
+    fold_models = []
+    for f in range(n_folds):
+        tr = fold != f
+        if np.unique(y[tr]).size < 2:
+            return None, None, None
+        fold_models.append(_forest(x[tr], y[tr], seed))
+    maps = [
+        predict_probability(
+            None, w.data, band_names, spec, fold_of_row=w.fold_map, forests=fold_models
+        )
+        for w in windows
+    ]
+    for m, w in zip(maps, windows, strict=True):
+        m[~w.valid] = 0.0
+    run = _score_layer("probability", maps, windows, n_folds, tol_px, broad, 0.0, diam)
+    if run is None:
+        return None, None, None
+    return _forest(x, y, seed), spec, run
 
 
 # --- the whole calibration -----------------------------------------------------------------
@@ -711,18 +815,15 @@ def calibrate_detector(
     margin = sc.support_px + halo
     windows, fold_by, n_folds, more = _prepare(info, reference, plots, names, margin)
     notes += more
-    if given_d is not None:
-        ref_c, ref_r = _to_pixels(info, reference.x, reference.y)
-        lookup = {(round(c, 3), round(r, 3)): d for c, r, d in zip(ref_c, ref_r, given_d, strict=True)}
-        diam_given = np.concatenate(
-            [[lookup[(round(c, 3), round(r, 3))] for c, r in w.ref] for w in windows]
-        )
-    else:
-        diam_given = None
+    diam_given = (
+        None if given_d is None else given_d[np.concatenate([w.ref_index for w in windows])]
+    )
     runs: list[_LayerRun] = []
     for name in available_layers(band_names):
         maps = [simple_layer(w.data, band_names, name) for w in windows]
-        bg = float(np.median(np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)])))
+        bg = float(
+            np.median(np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)]))
+        )
         for m, w in zip(maps, windows, strict=True):
             m[~w.valid] = bg
         run = _score_layer(name, maps, windows, n_folds, tol_px, broad, bg, diam_given)
@@ -735,56 +836,13 @@ def calibrate_detector(
     forest = None
     spec = None
     if want_forest:
-        diam = (
-            best_simple.ref_diam_px.copy()
-            if best_simple is not None
-            else np.full(sum(w.ref.shape[0] for w in windows), np.mean(broad))
+        forest, spec, run = _classifier_run(
+            windows, band_names, n_folds, tol_px, broad, diam_given, best_simple, seed
         )
-        med = float(np.nanmedian(diam)) if np.isfinite(diam).any() else float(np.mean(broad))
-        diam[~np.isfinite(diam)] = med
-        means = np.concatenate([w.data.mean(axis=0)[w.valid] for w in windows])
-        spec = FeatureSpec(
-            sigma_min=1.0,
-            sigma_max=float(np.clip(0.25 * med, 2.0, 16.0)),
-            num_sigma=4,
-            brightness_scale=float(max(np.percentile(means, 99), 1e-6)),
-        )
-        rng = np.random.default_rng(seed)
-        samples = _samples(windows, diam, rng)
-        xs, ys, fs = [], [], []
-        for w, (row, col, lab) in zip(windows, samples, strict=True):
-            xs.append(_features_at(w, band_names, spec, row, col))
-            ys.append(lab)
-            fs.append(w.fold_map[row, col])
-        x = np.concatenate(xs)
-        y = np.concatenate(ys)
-        fold = np.concatenate(fs)
-        if np.unique(y).size == 2:
-            fold_models = []
-            for f in range(n_folds):
-                tr = fold != f
-                if np.unique(y[tr]).size < 2:
-                    fold_models = []
-                    break
-                fold_models.append(_forest(x[tr], y[tr], seed))
-            if fold_models:
-                maps = [
-                    predict_probability(
-                        None, w.data, band_names, spec, fold_of_row=w.fold_map, forests=fold_models
-                    )
-                    for w in windows
-                ]
-                for m, w in zip(maps, windows, strict=True):
-                    m[~w.valid] = 0.0
-                run = _score_layer(
-                    "probability", maps, windows, n_folds, tol_px, broad, 0.0, diam_given
-                )
-                if run is not None:
-                    runs.append(run)
-                    if best_simple is None or (
-                        run.score.f1 >= best_simple.score.f1 + CLASSIFIER_MARGIN
-                    ):
-                        forest = _forest(x, y, seed)
+        if run is not None:
+            runs.append(run)
+            if best_simple is not None and run.score.f1 < best_simple.score.f1 + CLASSIFIER_MARGIN:
+                forest = None
     if not runs:
         raise InputError(
             f"no layer of {names[0]} finds the plants mapped in {names[1]}; check that the "

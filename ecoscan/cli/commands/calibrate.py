@@ -21,8 +21,7 @@ DESCRIPTION = (
     "a readable TOML detector file for `ecoscan detect --detector` and survey files."
 )
 EXAMPLE = (
-    "ecoscan calibrate ortho.tif mapped_plants.csv --plots training_plot.gpkg "
-    "-o detector.toml"
+    "ecoscan calibrate ortho.tif mapped_plants.csv --plots training_plot.gpkg -o detector.toml"
 )
 
 
@@ -126,8 +125,9 @@ def run(args: argparse.Namespace) -> int:
     )
     written = write_detector(out, res.detector)
     print_notes(list(info.notes) + list(ref.notes) + list(plots.notes) + res.notes, args.quiet)
-    print(f"cross-validated accuracy of each layer ({res.folds}, tolerance "
-          f"{res.tolerance_m:.3g} m):")
+    print(
+        f"cross-validated accuracy of each layer ({res.folds}, tolerance {res.tolerance_m:.3g} m):"
+    )
     rows = [s.as_dict() for s in res.scores]
     print(format_table(rows, ["layer", "tp", "fp", "fn", "precision", "recall", "f1"], digits=3))
     det = res.detector
@@ -137,7 +137,10 @@ def run(args: argparse.Namespace) -> int:
         {"item": "precision (cross-validated)", "value": res.chosen.precision},
         {"item": "recall (cross-validated)", "value": res.chosen.recall},
         {"item": "F1 (cross-validated)", "value": res.chosen.f1},
-        {"item": "diameter range (m)", "value": f"{det.diameter_min_m:.3g}:{det.diameter_max_m:.3g}"},
+        {
+            "item": "diameter range (m)",
+            "value": f"{det.diameter_min_m:.3g}:{det.diameter_max_m:.3g}",
+        },
         {"item": "mapped plants", "value": det.training.get("plants", 0)},
         {"item": "written", "value": ", ".join(str(p) for p in written)},
     ]
