@@ -68,6 +68,11 @@ MAX_TRAINING_PIXELS = 40_000_000
 #: Pixels sampled for the classifier: inside crowns and on the ground.
 N_PLANT_SAMPLES = 6000
 N_GROUND_SAMPLES = 9000
+#: Classifier labels, in crown radii from the nearest mapped plant: plant inside
+#: PLANT_INNER, ground beyond GROUND_OUTER (crown rims and the gaps between touching crowns
+#: count as ground, so the plant probability dips between neighbours), unused between.
+PLANT_INNER = 0.6
+GROUND_OUTER = 0.9
 
 
 @dataclass(frozen=True)
@@ -581,7 +586,8 @@ def _sample_pixels(
 
 
 def _labels(w: _Window, row: np.ndarray, col: np.ndarray, rad: np.ndarray) -> np.ndarray:
-    """1 within 0.6 radii of a mapped plant, 0 beyond 1.3 radii of all, else -1 (unused)."""
+    """1 within PLANT_INNER radii of a mapped plant, 0 beyond GROUND_OUTER radii of all,
+    else -1 (unused)."""
     if w.ref.shape[0] == 0:
         return np.zeros(row.size, np.int8)
     kk = min(8, w.ref.shape[0])
@@ -590,8 +596,8 @@ def _labels(w: _Window, row: np.ndarray, col: np.ndarray, rad: np.ndarray) -> np
     j = j.reshape(row.size, kk)
     ratio = np.min(d / np.maximum(rad[j], 0.5), axis=1)
     lab = np.full(row.size, -1, np.int8)
-    lab[ratio < 0.6] = 1
-    lab[ratio > 1.3] = 0
+    lab[ratio < PLANT_INNER] = 1
+    lab[ratio > GROUND_OUTER] = 0
     return lab
 
 
