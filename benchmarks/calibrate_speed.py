@@ -74,7 +74,7 @@ def main() -> None:
         f"{'style':22s} {'layer':12s} {'plants':>6s} {'cv_f1':>6s} {'P':>6s} {'R':>6s} "
         f"{'F1':>6s} {'calib_s':>8s} {'cpu_s':>6s} {'detect_s':>8s}"
     )
-    for style in args.styles.split(","):
+    for style in [s for s in args.styles.split(",") if s]:
         try:
             r = one_style(style, args.size, folder)
         except InputError as exc:
