@@ -15,6 +15,7 @@ COMMANDS = [
     "calibrate",
     "compare",
     "change",
+    "plan",
 ]
 
 

@@ -11,4 +11,5 @@ ORDER = (
     "calibrate",
     "compare",
     "change",
+    "plan",
 )
