@@ -494,6 +494,10 @@ _ALL = [
         "index",
         "Power to detect the planned difference in survival.",
     ),
+    # --- calibration (ecoscan calibrate)
+    _c("layer", "layer", "", "text", "Image layer (band, index or classifier) scored."),
+    _c("diameter_range_m", "diameter range", "m", "text", "Crown diameters detected, MIN:MAX."),
+    _c("mapped_plants", "mapped plants", "", "int", "Reference plants used for training."),
     # --- detection summary
     _c("method", "method", "", "text", "Detector and vegetation layer used."),
     _c("pixel_size_m", "pixel size", "m", "m", "Raster pixel size."),
