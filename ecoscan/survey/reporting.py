@@ -110,15 +110,21 @@ _MEANING = {
 def short_warnings(text: str) -> str:
     """Short flags for a plot's warnings, for the index table (full text in the plot section).
 
+    Notes on the quadrat test are for the analyst and are not flagged here.
+
     Examples
     --------
     >>> short_warnings("only 22 points (fewer than 30): the tests have little power")
     'few plants'
+    >>> short_warnings("3 of 8 quadrats expect fewer than 5 points: quadrat_p is approximate")
+    ''
     """
-    if not text:
+    parts = [t for t in (text or "").split("; ") if t and "quadrat" not in t]
+    if not parts:
         return ""
-    flags = [label for key, label in _SHORT if key in text]
-    return ", ".join(dict.fromkeys(flags)) if flags else text[:40]
+    joined = "; ".join(parts)
+    flags = [label for key, label in _SHORT if key in joined]
+    return ", ".join(dict.fromkeys(flags)) if flags else parts[0][:40]
 
 
 def plain_warnings(*texts: str) -> list[str]:
