@@ -931,6 +931,25 @@ def write_csv(path: str, results: Sequence[Result]) -> None:
     os.replace(tmp, path)
 
 
+def read_csv(path: str) -> list[Result]:
+    """Results back from a CSV written by :func:`write_csv` (to re-render or quote them)."""
+    with open(path, newline="", encoding="utf-8") as fh:
+        return [
+            Result(
+                row["test"],
+                row["command"],
+                row["verdict"] == "1",
+                row["shape"],
+                int(row["n"]),
+                row["process"],
+                int(row["replicates"]),
+                int(row["computed"]),
+                int(row["rejected"]),
+            )
+            for row in csv.DictReader(fh)
+        ]
+
+
 def _cell_text(r: Result | None, flag_band: bool) -> str:
     if r is None or r.replicates == 0:
         return ""
@@ -1032,7 +1051,24 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--seed", type=int, default=20261204)
     ap.add_argument("--markdown", metavar="FILE", help="write the Markdown table here")
     ap.add_argument("--csv", metavar="FILE", help="write the long CSV table here")
+    ap.add_argument(
+        "--from-csv", metavar="FILE", help="print tables from an earlier run's CSV (no run)"
+    )
+    ap.add_argument(
+        "--command", default="", help="with --from-csv: only this command's tests (for quoting)"
+    )
     a = ap.parse_args(argv)
+    if a.from_csv:
+        try:
+            old = [r for r in read_csv(a.from_csv) if a.command in ("", r.command)]
+        except (OSError, KeyError, ValueError) as exc:
+            print(f"error: --from-csv {a.from_csv}: cannot read it ({exc})", file=sys.stderr)
+            return 2
+        for proc, title in (("csr", "size"), ("thomas", "power, Thomas"), ("grid", "power, grid")):
+            if any(r.process == proc for r in old):
+                print(f"\nRejection rate (%), {title}:\n")
+                print("\n".join(markdown_table(old, proc, bold=proc == "csr")))
+        return 0
     reps = 100 if a.quick else a.replicates
     preps = a.power_replicates if a.power_replicates is not None else (50 if a.quick else reps // 2)
     pool = min(a.pool, 600) if a.quick else a.pool
