@@ -19,20 +19,17 @@ Design (stated so the numbers can be read):
   Rule-based verdicts (standardised Morisita beyond ±0.5, the pattern label of a group)
   return 0 (reject) or 1. A NaN p-value means "not computed" (e.g. no focal plants left
   inside the guard zone) and is counted apart.
-- Monte Carlo tests, and what they cost. Cheap ones run as the command runs them: the
-  exact quadrat test draws 999 multinomial tables. The Monte Carlo NN test ranks the
-  observed mean NN distance among 999 simulated means (analyse's default) drawn without
-  replacement from a pool of 5 × ``--pool`` means of random patterns of the same n in the
-  same shape, simulated as the command simulates them (without a pool: 99 fresh
-  simulations). The envelope tests draw 99 simulated curves (the command uses 199) from a
-  pool of ``--pool`` K and g curves. Each replicate's observed pattern is always new, so
-  each replicate is exactly the test as the command runs it; replicates share the pool, so
-  they are not quite independent (the binomial interval is a little too narrow for these
-  rows). The tests that condition on the observed pattern cannot share a pool and use 39
+- Monte Carlo tests, and what they cost. The analyse tests come from one call of
+  ``analyse_plot`` per replicate (the command's own function and defaults) with 99
+  simulations instead of 999, so the Monte Carlo verdict (``p_mc < 0.05``, two-sided) can
+  reach 4 % at most (4.8 % with 999). The envelope tests draw 99 simulated curves (the
+  command uses 199) from a pool of ``--pool`` K and g curves of random patterns of the same
+  n in the same shape, simulated as ``scales`` does. Each replicate's observed pattern is
+  always new, so each replicate is exactly the test as the command runs it; replicates
+  share the pool, so they are not quite independent (the binomial interval is a little too
+  narrow for these rows). The tests that condition on the observed pattern use 39
   simulations (change: random losses and recruits, command default 199) or relabellings
-  (cross-type, default 199); with ``p ≤ 0.05`` two-sided, 39 can still reach 5 %. The
-  size a rank test can reach is set by its rule: ``2·min(p_lower, p_upper) < 0.05`` with
-  999 simulations rejects at most 4.8 %.
+  (cross-type, default 199); with ``p ≤ 0.05`` two-sided, 39 can still reach 5 %.
 - Data per kind: ``plot`` one pattern of exactly n plants; ``labelled`` the same with half
   the plants labelled B at random (the null of random labelling still holds for clustered
   or regular patterns, so its "power" columns are sizes too); ``groups`` two groups of 4
@@ -61,6 +58,7 @@ import datetime as _dt
 import math
 import multiprocessing as mp
 import os
+import subprocess
 import sys
 import time
 from collections.abc import Callable, Sequence
@@ -71,7 +69,7 @@ import numpy as np
 import shapely
 from scipy import stats as sps
 
-from ecoscan.analysis import DispersionSettings
+from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.change import _pooled_r, _row
 from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
 from ecoscan.scales import ScalesSettings, cross_verdict
@@ -79,18 +77,7 @@ from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.envelopes import envelope_test
-from ecoscan.stats.montecarlo import mean_nn_batch, monte_carlo_nn, rank_pvalues
-from ecoscan.stats.nearest import (
-    clark_evans,
-    default_guard_m,
-    donnelly,
-    guard_zone,
-    nn_distances,
-)
 from ecoscan.stats.quadrat import (
-    default_quadrat_size,
-    quadrat_monte_carlo,
-    quadrat_test,
     standardised_morisita,
 )
 from ecoscan.stats.second_order import default_r_max, second_order
@@ -100,8 +87,8 @@ ALPHA = 0.05
 SIZE_BAND = (0.03, 0.07)
 #: Simulations per replicate for the envelope tests (the command uses 199).
 SIMULATIONS = 99
-#: Simulations for the cheap Monte Carlo tests (analyse's default).
-MC_SIMULATIONS = 999
+#: Simulations of each analyse_plot call (the command's default is 999).
+ANALYSE_SIMULATIONS = 99
 #: Simulations / relabellings for the costly tests that cannot share a pool (change,
 #: cross-type); with p ≤ 0.05 read two-sided, 39 can still reach 5 %.
 FEW_SIMULATIONS = 39
@@ -320,82 +307,44 @@ class _Shared:
 
 
 SHARED = _Shared()
-_DEFAULTS = DispersionSettings()  # analyse's defaults: two-sided, guard 1/√ρ, quadrat √(2A/n)
 
 
-def _nn(xy):
-    return SHARED.get("nn", xy, lambda: nn_distances(xy))
+# -- analyse: one call of ecoscan.analysis.analyse_plot per replicate (the command's own
+#    function and defaults, except fewer simulations), its dispersion.csv row read back
 
 
-def _quadrat(xy, polygon):
+def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
     def compute():
-        side = default_quadrat_size(xy.shape[0], float(polygon.area))
-        return quadrat_test(xy, polygon, side)
+        settings = DispersionSettings(
+            simulations=ANALYSE_SIMULATIONS, seed=int(rng.integers(2**31))
+        )
+        return analyse_plot(xy, polygon, "plot", settings).row()
 
-    return SHARED.get("quadrat", xy, compute)
-
-
-# -- analyse (per-plot dispersion), as ecoscan.analysis.analyse_plot calls them
-
-
-@register("Clark–Evans R, no edge correction", "analyse", "plot", verdict=False)
-def p_clark_evans(xy, polygon, rng):
-    return clark_evans(
-        xy, float(polygon.area), alternative=_DEFAULTS.alternative, nn=_nn(xy)
-    ).pvalue
+    return SHARED.get("dispersion", xy, compute)
 
 
-@register("Clark–Evans R, Donnelly correction", "analyse", "plot", verdict=False)
-def p_donnelly(xy, polygon, rng):
-    return donnelly(xy, polygon, alternative=_DEFAULTS.alternative, nn=_nn(xy)).pvalue
+def _column_entry(name: str, column: str, *, verdict: bool = False, rule="le", note="") -> None:
+    register(name, "analyse", "plot", verdict=verdict, rule=rule, note=note)(
+        lambda xy, polygon, rng: float(_dispersion_row(xy, polygon, rng)[column])
+    )
 
 
-@register("Clark–Evans R, guard zone 1/√ρ", "analyse", "plot", verdict=False)
-def p_guard(xy, polygon, rng):
-    g = default_guard_m(xy.shape[0], float(polygon.area))
-    return guard_zone(xy, polygon, g, alternative=_DEFAULTS.alternative, nn=_nn(xy)).pvalue
-
-
-@register(
+_column_entry("Clark–Evans R, no edge correction", "p")
+_column_entry("Clark–Evans R, Donnelly correction", "p_donnelly")
+_column_entry("Clark–Evans R, guard zone 1/√ρ", "p_guard")
+_column_entry(
     "Monte Carlo NN test (the `pattern` verdict)",
-    "analyse",
-    "plot",
+    "p_mc",
     verdict=True,
     rule="lt",
-    note="999 simulated means per replicate (the command's default), drawn from a pool; "
-    "p < 0.05 can reach 4.8 % at most",
+    note=f"{ANALYSE_SIMULATIONS} simulations (the command's default is 999)",
 )
-def p_monte_carlo(xy, polygon, rng):
-    n = xy.shape[0]
-    pool = POOLS.get((polygon.wkb, n))
-    observed = float(_nn(xy).mean())
-    if pool is None or pool.mean_nn.size < MC_SIMULATIONS:
-        return monte_carlo_nn(
-            xy,
-            polygon,
-            simulations=SIMULATIONS,
-            alternative=_DEFAULTS.alternative,
-            rng=rng,
-            observed_mean_m=observed,
-        ).pvalue
-    sims = pool.mean_nn[rng.choice(pool.mean_nn.size, MC_SIMULATIONS, replace=False)]
-    return float(rank_pvalues(observed, sims, _DEFAULTS.alternative)[0])
-
-
-@register("quadrat χ² (quadrat_p)", "analyse", "plot", verdict=False)
-def p_quadrat(xy, polygon, rng):
-    return _quadrat(xy, polygon).pvalue
-
-
-@register(
+_column_entry("quadrat χ² (quadrat_p)", "quadrat_p")
+_column_entry(
     "quadrat exact (quadrat_p_mc)",
-    "analyse",
-    "plot",
-    verdict=False,
-    note="999 multinomial tables (the command's default); p ≤ 0.05 can reach 5.0 %",
+    "quadrat_p_mc",
+    note=f"{ANALYSE_SIMULATIONS} multinomial tables (the command's default is 999)",
 )
-def p_quadrat_exact(xy, polygon, rng):
-    return quadrat_monte_carlo(_quadrat(xy, polygon), MC_SIMULATIONS, rng=rng)[0]
 
 
 @register(
@@ -406,11 +355,12 @@ def p_quadrat_exact(xy, polygon, rng):
     note="the index-of-dispersion test; VMR = X²/(q−1), so it is the quadrat χ² test",
 )
 def p_vmr(xy, polygon, rng):
-    qd = _quadrat(xy, polygon)
-    if not np.isfinite(qd.vmr) or qd.df < 1:
+    row = _dispersion_row(xy, polygon, rng)
+    df = row["quadrat_df"] or 0
+    if not (np.isfinite(row["vmr"]) and df >= 1):
         return float("nan")
-    x = qd.vmr * qd.df
-    return float(min(1.0, 2.0 * min(sps.chi2.sf(x, qd.df), sps.chi2.cdf(x, qd.df))))
+    x = row["vmr"] * df
+    return float(min(1.0, 2.0 * min(sps.chi2.sf(x, df), sps.chi2.cdf(x, df))))
 
 
 @register(
@@ -421,8 +371,8 @@ def p_vmr(xy, polygon, rng):
     note="I_δ read against Smith-Gill's M_u, M_c with the cell count q, ignoring clipping",
 )
 def p_morisita(xy, polygon, rng):
-    qd = _quadrat(xy, polygon)
-    ip = standardised_morisita(qd.morisita, qd.n, qd.q)
+    row = _dispersion_row(xy, polygon, rng)
+    ip = standardised_morisita(row["morisita"], int(row["n"]), int(row["quadrat_cells"] or 0))
     return float("nan") if not np.isfinite(ip) else (0.0 if abs(ip) >= 0.5 else 1.0)
 
 
@@ -434,7 +384,7 @@ def p_morisita(xy, polygon, rng):
     note="±0.5 are read as the 95 % limits",
 )
 def p_morisita_std(xy, polygon, rng):
-    ip = _quadrat(xy, polygon).morisita_std
+    ip = _dispersion_row(xy, polygon, rng)["morisita_std"]
     return float("nan") if not np.isfinite(ip) else (0.0 if abs(ip) >= 0.5 else 1.0)
 
 
@@ -449,7 +399,6 @@ class NullPool:
     r_max_m: float
     K: np.ndarray  # (M, n_r) Ripley's K, m²
     g: np.ndarray  # (M, n_r) pair correlation
-    mean_nn: np.ndarray  # (M_nn,) mean nearest-neighbour distance, metres
 
 
 #: Pools by (shape wkb, n), filled by :func:`build_pools`; empty = simulate per replicate.
@@ -462,19 +411,16 @@ def _curves(xy, polygon, r_max):
     return so.K_iso_m2, so.g_iso
 
 
-def pool_curves(
-    polygon, n: int, count: int, count_nn: int, seed
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """K and g curves of ``count`` random patterns and the mean NN distance of ``count_nn``
-    (for :class:`NullPool`), simulated as the commands simulate them."""
+def pool_curves(polygon, n: int, count: int, seed) -> tuple[np.ndarray, np.ndarray]:
+    """K and g curves of ``count`` random patterns (for :class:`NullPool`), simulated as
+    ``scales`` simulates them."""
     rng = np.random.default_rng(seed)
     r_max = default_r_max(polygon, n)
     ks = np.empty((count, _SCALES.n_r))
     gs = np.empty((count, _SCALES.n_r))
     for i in range(count):
         ks[i], gs[i] = _curves(csr_pattern(polygon, n, rng), polygon, r_max)
-    means = mean_nn_batch(uniform_in_polygon(polygon, n, size=count_nn, rng=rng))
-    return ks, gs, means
+    return ks, gs
 
 
 def _envelopes(xy, polygon, rng):
@@ -715,19 +661,19 @@ def run_chunk(args) -> dict[tuple[str, str, int, str], Tally]:
 
 
 def _pool_job(args):
-    shape, n, count, count_nn, seed = args
-    return shape, n, pool_curves(SHAPES[shape], n, count, count_nn, seed)
+    shape, n, count, seed = args
+    return shape, n, pool_curves(SHAPES[shape], n, count, seed)
 
 
 def build_pools(
     shapes: Sequence[str], sizes: Sequence[int], count: int, seed: int, workers: int
 ) -> None:
-    """Fill :data:`POOLS` per shape and n: ``count`` K and g curves and 5 × ``count`` mean
-    NN distances of random patterns (split over the workers)."""
+    """Fill :data:`POOLS` with ``count`` K and g curves of random patterns per shape and n
+    (split over the workers)."""
     k_jobs = max(workers, 1)
     per = max(1, math.ceil(count / k_jobs))
     jobs = [
-        (s, n, min(per, count - k * per), 5 * min(per, count - k * per), [seed, 7919, i, k])
+        (s, n, min(per, count - k * per), [seed, 7919, i, k])
         for i, (s, n) in enumerate((s, n) for s in shapes for n in sizes)
         for k in range(k_jobs)
         if count - k * per > 0
@@ -739,7 +685,7 @@ def build_pools(
         poly = SHAPES[shape]
         POOLS[poly.wkb, n] = NullPool(
             default_r_max(poly, n),
-            *(np.concatenate([c[j] for c in chunks]) for j in range(3)),
+            *(np.concatenate([c[j] for c in chunks]) for j in range(2)),
         )
 
 
@@ -831,7 +777,7 @@ def run_validity(
     names = tuple(e.name for e in chosen)
     _ACTIVE.clear()  # workers are forked after this, so they see the chosen entries
     _ACTIVE.update({e.name: e for e in chosen})
-    if pool and any(e.kind == "plot" for e in chosen):
+    if pool and any(e.command == "scales" and e.kind == "plot" for e in chosen):
         build_pools(shapes, sizes, pool, seed, workers)
     cells = []
     for s in shapes:
@@ -978,6 +924,20 @@ def markdown_table(results: Sequence[Result], process: str, *, bold: bool) -> li
     return lines
 
 
+def _commit() -> str:
+    try:
+        out = subprocess.run(
+            ["git", "rev-parse", "--short", "HEAD"],
+            capture_output=True,
+            text=True,
+            check=True,
+            cwd=os.path.dirname(os.path.abspath(__file__)),
+        )
+        return out.stdout.strip() or "unknown"
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+
+
 def markdown_report(results: Sequence[Result], *, command: str, seconds: float) -> str:
     """The whole Markdown document: settings, size table, power tables, flags, notes."""
     any_r = results[0] if results else None
@@ -988,8 +948,8 @@ def markdown_report(results: Sequence[Result], *, command: str, seconds: float) 
     out = [
         "# Validity of ecoscan's tests: measured rejection rates",
         "",
-        f"Generated by `{command}` on {today} ({seconds / 60:.1f} min). Do not edit by hand;",
-        "rerun the command after changing a test.",
+        f"Generated by `{command}` on {today} at commit {_commit()} "
+        f"({seconds / 60:.1f} min). Do not edit by hand; rerun after changing a test.",
         "",
         f"Rejection rates in % at α = 5 %. Size: {reps} replicates of complete spatial "
         f"randomness per cell; power: {preps} replicates per alternative. Shapes: "
@@ -1047,15 +1007,18 @@ def main(argv: Sequence[str] | None = None) -> int:
     ap.add_argument("--workers", type=int, default=2, help="processes (default 2)")
     ap.add_argument("--pool", type=int, default=3000, help="pooled curves for envelope tests")
     ap.add_argument("--only", default="", help="run only tests whose name contains this")
+    ap.add_argument("--command", default="", help="run only this command's tests")
+    ap.add_argument(
+        "--keep",
+        metavar="FILE",
+        help="an earlier run's CSV: its rows for tests not run now are kept in the outputs",
+    )
     ap.add_argument("--shapes", default=",".join(SHAPES), help="comma-separated shapes")
     ap.add_argument("--seed", type=int, default=20261204)
     ap.add_argument("--markdown", metavar="FILE", help="write the Markdown table here")
     ap.add_argument("--csv", metavar="FILE", help="write the long CSV table here")
     ap.add_argument(
         "--from-csv", metavar="FILE", help="print tables from an earlier run's CSV (no run)"
-    )
-    ap.add_argument(
-        "--command", default="", help="with --from-csv: only this command's tests (for quoting)"
     )
     a = ap.parse_args(argv)
     if a.from_csv:
@@ -1081,10 +1044,20 @@ def main(argv: Sequence[str] | None = None) -> int:
             file=sys.stderr,
         )
         return 2
-    entries = [e for e in REGISTRY if a.only.lower() in e.name.lower()]
+    entries = [
+        e for e in REGISTRY if a.only.lower() in e.name.lower() and a.command in ("", e.command)
+    ]
     if not entries:
-        print(f"error: --only {a.only!r} matches no test", file=sys.stderr)
+        print(f"error: --only {a.only!r} --command {a.command!r} match no test", file=sys.stderr)
         return 2
+    kept: list[Result] = []
+    if a.keep:
+        try:
+            run_now = {e.name for e in entries}
+            kept = [r for r in read_csv(a.keep) if r.test not in run_now]
+        except (OSError, KeyError, ValueError) as exc:
+            print(f"error: --keep {a.keep}: cannot read it ({exc})", file=sys.stderr)
+            return 2
     t0 = time.perf_counter()
     res = run_validity(
         shapes=shapes,
@@ -1097,6 +1070,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         progress=True,
     )
     secs = time.perf_counter() - t0
+    if kept:  # registry order, earlier rows first where they were not rerun
+        order = {e.name: i for i, e in enumerate(REGISTRY)}
+        res = sorted(kept + res, key=lambda r: order.get(r.test, len(order)))
     cmd = "python benchmarks/validity.py " + " ".join(sys.argv[1:] if argv is None else argv)
     doc = markdown_report(res, command=cmd.strip(), seconds=secs)
     print(doc)

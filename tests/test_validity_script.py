@@ -6,6 +6,7 @@ import csv
 import math
 
 import numpy as np
+import pytest
 from scipy import stats as sps
 
 from benchmarks import validity as v
@@ -13,6 +14,7 @@ from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.scales import ScalesSettings
 from ecoscan.scales import analyse_plot as scales_plot
 from ecoscan.stats.csr import plot_rng, uniform_in_polygon
+from ecoscan.stats.nearest import clark_evans, donnelly
 
 
 def _entries(*prefixes):
@@ -112,15 +114,19 @@ def test_a_biased_test_is_flagged_and_a_fair_one_is_not():
 def test_entries_give_the_commands_numbers():
     poly = v.SHAPES["L+hole"]
     xy = uniform_in_polygon(poly, 60, rng=11)
-    row = analyse_plot(xy, poly, "a", DispersionSettings(simulations=99)).row()
+    seed = int(np.random.default_rng(0).integers(2**31))  # what the entries draw first
+    settings = DispersionSettings(simulations=v.ANALYSE_SIMULATIONS, seed=seed)
+    row = analyse_plot(xy, poly, "plot", settings).row()
     rng = np.random.default_rng(0)
-    p = {e.name: e.pvalue(xy, poly, rng) for e in _entries("Clark–Evans", "quadrat χ²")}
+    p = {e.name: e.pvalue(xy, poly, rng) for e in v.REGISTRY if e.command == "analyse"}
     assert p["Clark–Evans R, no edge correction"] == row["p"]
     assert p["Clark–Evans R, Donnelly correction"] == row["p_donnelly"]
-    assert p["Clark–Evans R, guard zone 1/√ρ"] == row["p_guard"]
-    assert p["quadrat χ² (quadrat_p)"] == row["quadrat_p"]
-    (mstd,) = _entries("standardised Morisita")
-    assert mstd.pvalue(xy, poly, rng) == (0.0 if abs(row["morisita_std"]) >= 0.5 else 1.0)
+    assert p["Monte Carlo NN test (the `pattern` verdict)"] == row["p_mc"]
+    assert p["quadrat exact (quadrat_p_mc)"] == row["quadrat_p_mc"]
+    reject = abs(row["morisita_std"]) >= 0.5
+    assert p["standardised Morisita I_p beyond ±0.5"] == (0.0 if reject else 1.0)
+    # VMR = X² / (q − 1) (docs/methods-dispersion.md), so its test is the quadrat χ² test
+    assert p["VMR: (q−1)·VMR against χ²(q−1)"] == pytest.approx(row["quadrat_p"], rel=1e-9)
     # the envelope test simulates as `scales` does: same stream, same p-value
     v.POOLS.clear()
     (erl,) = _entries("global envelope, L, extreme")
@@ -149,12 +155,19 @@ def test_uncorrected_clark_evans_size_matches_donnellys_edge_bias():
         (e_ce - z * se_ce - e_d) / sd_d
     )
     assert 0.10 < predicted < 0.20  # about 13 %: the edge bias is most of a standard error
+    # the two functions `analyse` calls, as cheap entries of the script's registry type
+    naive_entry = v.Entry(
+        "naive", "analyse", "plot", lambda xy, p, r: clark_evans(xy, p.area).pvalue, False
+    )
+    donnelly_entry = v.Entry(
+        "donnelly", "analyse", "plot", lambda xy, p, r: donnelly(xy, p).pvalue, False
+    )
     res = v.run_validity(
         shapes=["square"],
         sizes=[n],
         replicates=2000,
         power_replicates=0,
-        entries=_entries("Clark–Evans R, no", "Clark–Evans R, Donnelly"),
+        entries=[naive_entry, donnelly_entry],
         seed=7,
         chunk=500,
     )
