@@ -37,7 +37,7 @@ Design (stated so the numbers can be read):
   random, group B random (size) or from the alternative (power); ``dates`` an earlier
   random pattern of n plants, each surviving with probability 0.8, and Poisson(0.2 n)
   recruits (no net change expected) placed at random (size), or as a Thomas / jittered
-  grid pattern (power).
+  grid pattern (power); ``paired`` 8 such plots on two dates (compare's paired tests).
 - Alternatives: Thomas process with parent intensity κ = λ/5 (5 plants per cluster on
   average) and Gaussian offsets σ = 0.5/√λ per axis (half the mean spacing 1/√λ), λ = n/A,
   simulated with parents in the bounding box dilated by 4σ and thinned at random to exactly
@@ -238,6 +238,8 @@ def make_data(kind: str, process: str, polygon, n: int, rng: np.random.Generator
         m = int(rng.poisson(RECRUITS * n))
         recruits = draw(polygon, m, rng) if m >= 2 else csr_pattern(polygon, m, rng)
         return Dates(earlier, survived, recruits)
+    if kind == "paired":
+        return [make_data("dates", process, polygon, n, rng) for _ in range(PAIRED_PLOTS)]
     raise ValueError(f"unknown data kind {kind!r}")
 
 
@@ -535,7 +537,7 @@ def _pair(data: Groups, polygon, rng):
 
 def _pair_entry(name, column, verdict=False, note=""):
     register(name, "compare", "groups", verdict=verdict, note=note)(
-        lambda data, polygon, rng: float(_pair(data, polygon, rng)[column])
+        lambda data, polygon, rng: float(_pair(data, polygon, rng).get(column, float("nan")))
     )
 
 
@@ -549,6 +551,11 @@ _pair_entry(
 )
 _pair_entry("NN distances, Mann–Whitney", "p_mw")
 _pair_entry("NN distances, Kolmogorov–Smirnov", "p_ks")
+_pair_entry(
+    "NN distances, plots permuted",
+    "p_nn_distribution",
+    note="compare's distribution test that moves whole plots (n/a where compare lacks it)",
+)
 
 
 @register(
@@ -561,6 +568,52 @@ _pair_entry("NN distances, Kolmogorov–Smirnov", "p_ks")
 def p_group_pattern(data, polygon, rng):
     label = _pair(data, polygon, rng)["pattern_b"]
     return float("nan") if not label else (1.0 if label == "random" else 0.0)
+
+
+# -- compare --by date: the same plots on two dates, paired sign-flip tests over plots
+#    (registered only where ecoscan.compare has them)
+
+PAIRED_PLOTS = 8
+
+
+def _paired(data: list, polygon, rng):
+    def compute():
+        from ecoscan.compare import _paired as paired_tests
+
+        def units(patterns):
+            return tuple(
+                PlotUnit("validity", "", "", f"p{i}", plot_nn(xy, polygon.area, polygon.length))
+                for i, xy in enumerate(patterns)
+            )
+
+        def group(name, us):
+            n = sum(u.nn.n for u in us)
+            area = sum(u.nn.area_m2 for u in us)
+            return GroupSummary(name, us, n, area, pooled_clark_evans([u.nn for u in us]))
+
+        a = group("earlier", units([d.earlier for d in data]))
+        b = group("later", units([d.later for d in data]))
+        return paired_tests(a, b, 999, rng)
+
+    return SHARED.get("paired", data, compute)
+
+
+if hasattr(__import__("ecoscan.compare", fromlist=["_paired"]), "_paired"):
+    for _name, _col in (
+        ("paired density change over plots (sign flips)", "p_density_paired"),
+        ("paired R change over plots (sign flips)", "p_R_paired"),
+    ):
+        register(
+            _name,
+            "compare",
+            "paired",
+            verdict=False,
+            note=f"{PAIRED_PLOTS} plots on two dates: 256 sign patterns",
+        )(
+            lambda data, polygon, rng, _c=_col: float(
+                _paired(data, polygon, rng).get(_c, float("nan"))
+            )
+        )
 
 
 # -- change: one plot on two dates, as ecoscan.change.detect_change computes its row
@@ -738,6 +791,7 @@ def run_validity(
     pool: int = 0,
     chunk: int = 50,
     progress: bool = False,
+    checkpoint: Callable[[list[Result]], None] | None = None,
 ) -> list[Result]:
     """Measure every selected test's rejection rate in every shape, size and process.
 
@@ -761,6 +815,8 @@ def run_validity(
         Replicates per job.
     progress : bool
         Print the jobs done to stderr.
+    checkpoint : callable, optional
+        Called with the results so far every 6 jobs (partial cells show fewer replicates).
 
     Returns
     -------
@@ -792,29 +848,35 @@ def run_validity(
         for start in range(0, c.replicates, chunk)
     ]
     total: dict[tuple[str, str, int, str], Tally] = {}
+
+    def collect() -> list[Result]:
+        out = []
+        for e in chosen:
+            for c in cells:
+                t = total.get((e.name, c.shape, c.n, c.process), Tally())
+                out.append(
+                    Result(
+                        e.name,
+                        e.command,
+                        e.verdict,
+                        c.shape,
+                        c.n,
+                        c.process,
+                        t.replicates,
+                        t.computed,
+                        t.rejected,
+                    )
+                )
+        return out
+
     for i, part in enumerate(_map(run_chunk, jobs, workers), 1):
         for k, t in part.items():
             total.setdefault(k, Tally()).add(t)
         if progress:
             print(f"\r{i}/{len(jobs)} jobs", end="", file=sys.stderr, flush=True)
-    out = []
-    for e in chosen:
-        for c in cells:
-            t = total.get((e.name, c.shape, c.n, c.process), Tally())
-            out.append(
-                Result(
-                    e.name,
-                    e.command,
-                    e.verdict,
-                    c.shape,
-                    c.n,
-                    c.process,
-                    t.replicates,
-                    t.computed,
-                    t.rejected,
-                )
-            )
-    return out
+        if checkpoint is not None and i % 6 == 0 and i < len(jobs):
+            checkpoint(collect())
+    return collect()
 
 
 def flag_approximate(results: Sequence[Result], band: tuple[float, float] = SIZE_BAND) -> list[str]:
@@ -1059,6 +1121,24 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"error: --keep {a.keep}: cannot read it ({exc})", file=sys.stderr)
             return 2
     t0 = time.perf_counter()
+    cmd = "python benchmarks/validity.py " + " ".join(sys.argv[1:] if argv is None else argv)
+
+    def emit(res: list[Result], final: bool) -> str:
+        if kept:  # registry order; earlier rows kept where they were not rerun
+            order = {e.name: i for i, e in enumerate(REGISTRY)}
+            res = sorted(kept + res, key=lambda r: order.get(r.test, len(order)))
+        doc = markdown_report(res, command=cmd.strip(), seconds=time.perf_counter() - t0)
+        if not final:
+            doc = doc.replace("\n\n", "\n\n**Partial results: the run is not finished.**\n\n", 1)
+        if a.markdown:
+            tmp = f"{a.markdown}.tmp"
+            with open(tmp, "w", encoding="utf-8") as fh:
+                fh.write(doc)
+            os.replace(tmp, a.markdown)
+        if a.csv:
+            write_csv(a.csv, res)
+        return doc
+
     res = run_validity(
         shapes=shapes,
         replicates=reps,
@@ -1068,21 +1148,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         workers=a.workers,
         pool=pool,
         progress=True,
+        checkpoint=lambda r: emit(r, False),
     )
-    secs = time.perf_counter() - t0
-    if kept:  # registry order, earlier rows first where they were not rerun
-        order = {e.name: i for i, e in enumerate(REGISTRY)}
-        res = sorted(kept + res, key=lambda r: order.get(r.test, len(order)))
-    cmd = "python benchmarks/validity.py " + " ".join(sys.argv[1:] if argv is None else argv)
-    doc = markdown_report(res, command=cmd.strip(), seconds=secs)
-    print(doc)
-    if a.markdown:
-        tmp = f"{a.markdown}.tmp"
-        with open(tmp, "w", encoding="utf-8") as fh:
-            fh.write(doc)
-        os.replace(tmp, a.markdown)
-    if a.csv:
-        write_csv(a.csv, res)
+    print(emit(res, True))
     return 0
 
 
