@@ -175,3 +175,20 @@ def test_uncorrected_clark_evans_size_matches_donnellys_edge_bias():
     # binomial tolerance: 2000 replicates, SE ≤ 0.8 %; 4 SE plus 1 % for the formulas
     assert abs(naive.rate - predicted) < 4 * math.sqrt(predicted * (1 - predicted) / 2000) + 0.01
     assert abs(corrected.rate - 0.05) < 4 * math.sqrt(0.05 * 0.95 / 2000)  # 3.0–7.0 %
+
+
+def test_quoted_tables_in_the_method_references_are_replaced(tmp_path):
+    res = [
+        v.Result("Monte Carlo NN test", "analyse", True, "square", 30, "csr", 100, 100, 12),
+        v.Result("Monte Carlo NN test", "analyse", True, "square", 30, "thomas", 50, 50, 40),
+        v.Result("ΔR permutation", "compare", False, "square", 30, "csr", 100, 100, 5),
+    ]
+    doc = tmp_path / "methods-dispersion.md"
+    doc.write_text(f"# x\n\n{v._MARK_START}\nold numbers\n{v._MARK_END}\n\nafter\n", "utf-8")
+    assert v.update_docs(res, str(tmp_path), "run.csv") == [str(doc)]
+    text = doc.read_text("utf-8")
+    assert "old numbers" not in text and text.endswith("\n\nafter\n")
+    assert "| Monte Carlo NN test | analyse | yes | **12.0** |" in text  # outside 3–7 %
+    assert "| Monte Carlo NN test | analyse | yes | 80.0 |" in text  # power, not flagged
+    assert "ΔR permutation" not in text  # compare rows go to methods-compare.md
+    assert v.update_docs(res, str(tmp_path), "run.csv") == []  # nothing left to change
