@@ -842,10 +842,13 @@ def run_validity(
                 reps = replicates if proc == "csr" else power_replicates
                 if reps > 0:
                     cells.append(Cell(s, n, proc, reps, len(cells)))
+    # round robin over the cells, so that partial results (checkpoints) cover every cell
+    rounds = max(math.ceil(c.replicates / chunk) for c in cells) if cells else 0
     jobs = [
-        (c, start, min(chunk, c.replicates - start), seed, names)
-        for c in sorted(cells, key=lambda c: c.process != "csr")  # sizes first
-        for start in range(0, c.replicates, chunk)
+        (c, k * chunk, min(chunk, c.replicates - k * chunk), seed, names)
+        for k in range(rounds)
+        for c in cells
+        if k * chunk < c.replicates
     ]
     total: dict[tuple[str, str, int, str], Tally] = {}
 
