@@ -20,16 +20,20 @@ Design (stated so the numbers can be read):
   return 0 (reject) or 1. A NaN p-value means "not computed" (e.g. no focal plants left
   inside the guard zone) and is counted apart.
 - Monte Carlo tests, and what they cost. The analyse tests come from one call of
-  ``analyse_plot`` per replicate (the command's own function and defaults) with 99
-  simulations instead of 999, so the Monte Carlo verdict (``p_mc < 0.05``, two-sided) can
-  reach 4 % at most (4.8 % with 999). The envelope tests draw 99 simulated curves (the
-  command uses 199) from a pool of ``--pool`` K and g curves of random patterns of the same
-  n in the same shape, simulated as ``scales`` does. Each replicate's observed pattern is
-  always new, so each replicate is exactly the test as the command runs it; replicates
-  share the pool, so they are not quite independent (the binomial interval is a little too
-  narrow for these rows). The tests that condition on the observed pattern use 39
-  simulations (change: random losses and recruits, command default 199) or relabellings
-  (cross-type, default 199); with ``p ≤ 0.05`` two-sided, 39 can still reach 5 %.
+  ``analyse_plot`` per replicate (the command's own function and defaults) whose own
+  Monte Carlo runs a single simulation; its two Monte Carlo p-values are then recomputed as
+  it computes them with 999 simulations (its default): the NN test ranks the observed mean
+  NN distance (``rank_pvalues``) among 999 means drawn without replacement from a pool of
+  5 × ``--pool`` means of random patterns of the same n in the same shape, the quadrat test
+  draws 199 multinomial tables (``quadrat_monte_carlo``). The two-sided verdict
+  ``p_mc < 0.05`` can then reach 4.8 % at most. The envelope tests draw 99 simulated
+  curves (the command uses 199) from a pool of ``--pool`` K and g curves, simulated as
+  ``scales`` does. Each replicate's observed pattern is always new, so each replicate is
+  exactly the test as the command runs it; replicates share the pools, so they are not
+  quite independent (the binomial interval is a little too narrow for these rows). The
+  tests that condition on the observed pattern use 39 simulations (change: random losses
+  and recruits, command default 199) or relabellings (cross-type, default 199); with
+  ``p ≤ 0.05`` two-sided, 39 can still reach 5 %.
 - Data per kind: ``plot`` one pattern of exactly n plants; ``labelled`` the same with half
   the plants labelled B at random (the null of random labelling still holds for clustered
   or regular patterns, so its "power" columns are sizes too); ``groups`` two groups of 4
@@ -77,9 +81,8 @@ from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.envelopes import envelope_test
-from ecoscan.stats.quadrat import (
-    standardised_morisita,
-)
+from ecoscan.stats.montecarlo import mean_nn_batch, rank_pvalues
+from ecoscan.stats.quadrat import quadrat_monte_carlo, standardised_morisita
 from ecoscan.stats.second_order import default_r_max, second_order
 
 ALPHA = 0.05
@@ -87,8 +90,12 @@ ALPHA = 0.05
 SIZE_BAND = (0.03, 0.07)
 #: Simulations per replicate for the envelope tests (the command uses 199).
 SIMULATIONS = 99
-#: Simulations of each analyse_plot call (the command's default is 999).
+#: Simulations of each analyse_plot call without a pool (the command's default is 999).
 ANALYSE_SIMULATIONS = 99
+#: Simulated means / tables for the NN and quadrat Monte Carlo tests with a pool.
+MC_SIMULATIONS = 999
+#: Multinomial tables for the exact quadrat test (999 in the command; 199 can reach 5 %).
+QUADRAT_TABLES = 199
 #: Simulations / relabellings for the costly tests that cannot share a pool (change,
 #: cross-type); with p ≤ 0.05 read two-sided, 39 can still reach 5 %.
 FEW_SIMULATIONS = 39
@@ -317,10 +324,23 @@ SHARED = _Shared()
 
 def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
     def compute():
-        settings = DispersionSettings(
-            simulations=ANALYSE_SIMULATIONS, seed=int(rng.integers(2**31))
-        )
-        return analyse_plot(xy, polygon, "plot", settings).row()
+        # analyse_plot computes every column; its own Monte Carlo runs with one simulation
+        # only, and the two Monte Carlo p-values are then computed as it computes them: the
+        # NN test ranks the observed mean among 999 means drawn from the shape's pool (when
+        # there is one), the quadrat test draws 199 tables.
+        pool = POOLS.get((polygon.wkb, xy.shape[0]))
+        if pool is not None and pool.mean_nn.size < MC_SIMULATIONS:
+            pool = None
+        sims = 1 if pool is not None else ANALYSE_SIMULATIONS
+        settings = DispersionSettings(simulations=sims, seed=int(rng.integers(2**31)))
+        res = analyse_plot(xy, polygon, "plot", settings)
+        row = res.row()
+        if pool is not None:
+            means = pool.mean_nn[rng.choice(pool.mean_nn.size, MC_SIMULATIONS, replace=False)]
+            row["p_mc"] = float(rank_pvalues(row["mean_nn_m"], means, settings.alternative)[0])
+            if res.quadrat is not None:
+                row["quadrat_p_mc"] = quadrat_monte_carlo(res.quadrat, QUADRAT_TABLES, rng=rng)[0]
+        return row
 
     return SHARED.get("dispersion", xy, compute)
 
@@ -339,13 +359,13 @@ _column_entry(
     "p_mc",
     verdict=True,
     rule="lt",
-    note=f"{ANALYSE_SIMULATIONS} simulations (the command's default is 999)",
+    note="999 simulated means from the pool (99 fresh simulations without a pool)",
 )
 _column_entry("quadrat χ² (quadrat_p)", "quadrat_p")
 _column_entry(
     "quadrat exact (quadrat_p_mc)",
     "quadrat_p_mc",
-    note=f"{ANALYSE_SIMULATIONS} multinomial tables (the command's default is 999)",
+    note="199 multinomial tables (99 without a pool; the command draws 999)",
 )
 
 
@@ -401,6 +421,7 @@ class NullPool:
     r_max_m: float
     K: np.ndarray  # (M, n_r) Ripley's K, m²
     g: np.ndarray  # (M, n_r) pair correlation
+    mean_nn: np.ndarray  # (5 M,) mean nearest-neighbour distance, metres
 
 
 #: Pools by (shape wkb, n), filled by :func:`build_pools`; empty = simulate per replicate.
@@ -413,16 +434,18 @@ def _curves(xy, polygon, r_max):
     return so.K_iso_m2, so.g_iso
 
 
-def pool_curves(polygon, n: int, count: int, seed) -> tuple[np.ndarray, np.ndarray]:
-    """K and g curves of ``count`` random patterns (for :class:`NullPool`), simulated as
-    ``scales`` simulates them."""
+def pool_curves(polygon, n: int, count: int, seed) -> tuple[np.ndarray, ...]:
+    """K and g curves of ``count`` random patterns, simulated as ``scales`` simulates them,
+    and the mean NN distance of 5 × ``count`` more, as ``analyse`` simulates them (for
+    :class:`NullPool`)."""
     rng = np.random.default_rng(seed)
     r_max = default_r_max(polygon, n)
     ks = np.empty((count, _SCALES.n_r))
     gs = np.empty((count, _SCALES.n_r))
     for i in range(count):
         ks[i], gs[i] = _curves(csr_pattern(polygon, n, rng), polygon, r_max)
-    return ks, gs
+    means = mean_nn_batch(uniform_in_polygon(polygon, n, size=5 * count, rng=rng))
+    return ks, gs, means
 
 
 def _envelopes(xy, polygon, rng):
@@ -721,8 +744,8 @@ def _pool_job(args):
 def build_pools(
     shapes: Sequence[str], sizes: Sequence[int], count: int, seed: int, workers: int
 ) -> None:
-    """Fill :data:`POOLS` with ``count`` K and g curves of random patterns per shape and n
-    (split over the workers)."""
+    """Fill :data:`POOLS` per shape and n with the statistics of random patterns (see
+    :func:`pool_curves`; split over the workers)."""
     k_jobs = max(workers, 1)
     per = max(1, math.ceil(count / k_jobs))
     jobs = [
@@ -738,7 +761,7 @@ def build_pools(
         poly = SHAPES[shape]
         POOLS[poly.wkb, n] = NullPool(
             default_r_max(poly, n),
-            *(np.concatenate([c[j] for c in chunks]) for j in range(2)),
+            *(np.concatenate([c[j] for c in chunks]) for j in range(3)),
         )
 
 
@@ -833,7 +856,7 @@ def run_validity(
     names = tuple(e.name for e in chosen)
     _ACTIVE.clear()  # workers are forked after this, so they see the chosen entries
     _ACTIVE.update({e.name: e for e in chosen})
-    if pool and any(e.command == "scales" and e.kind == "plot" for e in chosen):
+    if pool and any(e.kind == "plot" for e in chosen):
         build_pools(shapes, sizes, pool, seed, workers)
     cells = []
     for s in shapes:
