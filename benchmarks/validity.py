@@ -20,13 +20,9 @@ Design (stated so the numbers can be read):
   return 0 (reject) or 1. A NaN p-value means "not computed" (e.g. no focal plants left
   inside the guard zone) and is counted apart.
 - Monte Carlo tests, and what they cost. The analyse tests come from one call of
-  ``analyse_plot`` per replicate (the command's own function and defaults) whose own
-  Monte Carlo runs a single simulation; its two Monte Carlo p-values are then recomputed as
-  it computes them with 999 simulations (its default): the NN test ranks the observed mean
-  NN distance (``rank_pvalues``) among 999 means drawn without replacement from a pool of
-  5 × ``--pool`` means of random patterns of the same n in the same shape, the quadrat test
-  draws 199 multinomial tables (``quadrat_monte_carlo``). The two-sided verdict
-  ``p_mc < 0.05`` can then reach 4.8 % at most. The envelope tests draw 99 simulated
+  ``analyse_plot`` per replicate (the command's own function and defaults) with 99
+  simulations instead of 999; the two-sided verdict ``p_mc < 0.05`` can then reach 4 %
+  at most (4.8 % with 999). The envelope tests draw 99 simulated
   curves (the command uses 199) from a pool of ``--pool`` K and g curves, simulated as
   ``scales`` does. Each replicate's observed pattern is always new, so each replicate is
   exactly the test as the command runs it; replicates share the pools, so they are not
@@ -82,8 +78,8 @@ from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.envelopes import envelope_test
-from ecoscan.stats.montecarlo import mean_nn_batch, rank_pvalues
-from ecoscan.stats.quadrat import quadrat_monte_carlo, standardised_morisita
+from ecoscan.stats.montecarlo import mean_nn_batch
+from ecoscan.stats.quadrat import standardised_morisita
 from ecoscan.stats.second_order import default_r_max, second_order
 
 ALPHA = 0.05
@@ -325,23 +321,12 @@ SHARED = _Shared()
 
 def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
     def compute():
-        # analyse_plot computes every column; its own Monte Carlo runs with one simulation
-        # only, and the two Monte Carlo p-values are then computed as it computes them: the
-        # NN test ranks the observed mean among 999 means drawn from the shape's pool (when
-        # there is one), the quadrat test draws 199 tables.
-        pool = POOLS.get((polygon.wkb, xy.shape[0]))
-        if pool is not None and pool.mean_nn.size < MC_SIMULATIONS:
-            pool = None
-        sims = 1 if pool is not None else ANALYSE_SIMULATIONS
-        settings = DispersionSettings(simulations=sims, seed=int(rng.integers(2**31)))
-        res = analyse_plot(xy, polygon, "plot", settings)
-        row = res.row()
-        if pool is not None:
-            means = pool.mean_nn[rng.choice(pool.mean_nn.size, MC_SIMULATIONS, replace=False)]
-            row["p_mc"] = float(rank_pvalues(row["mean_nn_m"], means, settings.alternative)[0])
-            if res.quadrat is not None:
-                row["quadrat_p_mc"] = quadrat_monte_carlo(res.quadrat, QUADRAT_TABLES, rng=rng)[0]
-        return row
+        # every column as analyse computes it, with its own Monte Carlo (guard-zone p,
+        # quadrat tables and Morisita limits come from the same simulations)
+        settings = DispersionSettings(
+            simulations=ANALYSE_SIMULATIONS, seed=int(rng.integers(2**31))
+        )
+        return analyse_plot(xy, polygon, "plot", settings).row()
 
     return SHARED.get("dispersion", xy, compute)
 
@@ -360,13 +345,13 @@ _column_entry(
     "p_mc",
     verdict=True,
     rule="lt",
-    note="999 simulated means from the pool (99 fresh simulations without a pool)",
+    note=f"{ANALYSE_SIMULATIONS} simulations (the command's default is 999)",
 )
 _column_entry("quadrat χ² (quadrat_p)", "quadrat_p")
 _column_entry(
     "quadrat exact (quadrat_p_mc)",
     "quadrat_p_mc",
-    note="199 multinomial tables (99 without a pool; the command draws 999)",
+    note=f"{ANALYSE_SIMULATIONS} multinomial tables (the command's default is 999)",
 )
 
 
@@ -857,7 +842,7 @@ def run_validity(
     names = tuple(e.name for e in chosen)
     _ACTIVE.clear()  # workers are forked after this, so they see the chosen entries
     _ACTIVE.update({e.name: e for e in chosen})
-    if pool and any(e.kind == "plot" for e in chosen):
+    if pool and any(e.command == "scales" and e.kind == "plot" for e in chosen):
         build_pools(shapes, sizes, pool, seed, workers)
     cells = []
     for s in shapes:
