@@ -16,8 +16,10 @@ plants), a scene is rendered and written as a GeoTIFF, then:
 A detection matches a plant one-to-one (optimal assignment, :mod:`ecoscan.stats.matching`)
 within half the smallest stated diameter. Printed: plants, precision, recall and F1 of
 each method, the tuned threshold, and seconds. ``--markdown FILE`` writes the table.
-``--memory-size N`` also writes N×N scenes in fresh processes and reports their peak
-resident memory (the renderer works in 512-row strips).
+``--write DIR`` only writes the scenes (GeoTIFF, truth CSV, plots, settings JSON) for use
+with ``ecoscan detect`` and ``ecoscan validate``. ``--memory-size N`` also writes N×N
+scenes in fresh processes and reports their peak resident memory (the renderer works in
+512-row strips).
 
 Run: ``nice python benchmarks/scene_suite.py`` (about 15 min on two cores at 1500 px);
 ``--size 800`` for a quick run. Not run by the test suite.
@@ -180,7 +182,22 @@ def main(argv: list[str] | None = None) -> int:
     )
     ap.add_argument("--memory-styles", default="dry-shrubs,multispectral")
     ap.add_argument("--skip-accuracy", action="store_true")
+    ap.add_argument(
+        "--write",
+        metavar="DIR",
+        help="only write each style's scene files (GeoTIFF, truth, plots) to DIR",
+    )
     args = ap.parse_args(argv)
+    if args.write:
+        for style in args.styles.split(","):
+            sc = make_scene(style, args.size, args.seed)
+            paths = write_scene(sc, args.write)
+            print(
+                f"{paths.raster}  --diameter {sc.diameter_option}"
+                + (f" --bands {sc.bands_option}" if sc.bands_option else "")
+                + f"  ({sc.n} plants in {paths.truth.name})"
+            )
+        return 0
 
     rows = []
     if not args.skip_accuracy:
