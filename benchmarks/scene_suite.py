@@ -10,11 +10,10 @@ plants), a scene is rendered and written as a GeoTIFF, then:
   natural layer (Excess Green, Woebbecke et al. 1995, for RGB; NDVI, Rouse et al. 1974,
   for the four-band scene), run :func:`skimage.feature.blob_log` over the same diameter
   range (σ = r / √2, 10 scales spaced evenly, its default) and keep the threshold with the
-  best F1 against the truth
-  (60 thresholds from 0.002 to 0.5, refined around the best with 8 more; the scale space is
-  shared between thresholds and the best one is re-run with ``blob_log`` itself as a
-  check). Tuning on the truth is
-  hindsight no user has: the plain column is an upper bound for that method.
+  best F1 against the truth (60 thresholds from 0.002 to 0.5, refined around the best with
+  8 more; the scale space is shared between thresholds and the best one is re-run with
+  ``blob_log`` itself as a check). Tuning on the truth is hindsight no user has: the plain
+  column is an upper bound for that method.
 
 A detection matches a plant one-to-one (optimal assignment, :mod:`ecoscan.stats.matching`)
 within half the smallest stated diameter. Printed: plants, precision, recall and F1 of
