@@ -409,9 +409,18 @@ def detect_raster(
         raise InputError(f"--workers must be at least 1 (got {workers})")
     info = open_raster(path, pixel_size_m=settings.pixel_size_m)
     notes = list(info.notes)
-    method, bands, index, more = choose_method(info, settings)
-    notes += more
-    params, overlap, align, thresholds, more = _global_params(info, settings, method, bands, index)
+    if settings.detector:  # calibrated detector (ecoscan calibrate): its file sets the layer
+        from ecoscan.detect.detector_file import calibrated_params, read_detector
+
+        det = read_detector(settings.detector)
+        method, index = "imagery", f"calibrated:{det.layer}"
+        params, overlap, align, thresholds, more = calibrated_params(det, info, str(path))
+    else:
+        method, bands, index, more = choose_method(info, settings)
+        notes += more
+        params, overlap, align, thresholds, more = _global_params(
+            info, settings, method, bands, index
+        )
     warn = [n for n in more if "unreliable" in n or "no plants" in n or "no trees" in n]
     notes += more
     ps = info.pixel_size_m
