@@ -21,8 +21,8 @@ from pyproj import CRS
 from ecoscan.crs import crs_label, looks_like_degrees, parse_crs, to_metric, transform_xy
 from ecoscan.errors import InputError
 from ecoscan.outputs import atomic_path, format_value
-from ecoscan.safety import check_coordinates
 from ecoscan.points import PointSet
+from ecoscan.safety import check_coordinates
 
 __all__ = [
     "Plot",

@@ -60,7 +60,7 @@ def _command_modules() -> list:
 class _Parser(argparse.ArgumentParser):
     """Argument parser whose errors are one line: ``error: ...`` and exit code 2."""
 
-    def error(self, message: str):  # noqa: D102 - argparse API
+    def error(self, message: str):
         raise InputError(f"{message} (see '{self.prog} --help')")
 
 

@@ -10,8 +10,8 @@ from ecoscan.detect import DetectionSettings, detect_raster
 from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
 from ecoscan.errors import InputError
 from ecoscan.lifecycle import check_output_path
-from ecoscan.safety import cap_workers
 from ecoscan.raster import plots_from_mask
+from ecoscan.safety import cap_workers
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, write_points
 
