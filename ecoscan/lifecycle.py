@@ -185,7 +185,7 @@ def check_output_path(
             raise InputError(f"{option} {path} is a file; give a folder for the results")
         if not folder and out.is_dir():
             raise InputError(f"{option} {path} is a folder; give a file name for the output")
-        if not overwrite:
+        if not overwrite and not (folder and not any(out.iterdir())):  # empty: fill it
             kind = "folder" if folder else "file"
             raise InputError(
                 f"{option} {path}: the {kind} exists; add --overwrite to replace it, or "

@@ -126,7 +126,7 @@ def test_outputs_and_provenance(demo_run):
 def test_rerun_is_identical_and_uses_the_cache(demo_run, tmp_path):
     cfg, run = demo_run
     first = (run.output / "dispersion.csv").read_bytes()
-    again = run_survey(cfg, output=run.output, report=False)
+    again = run_survey(cfg, output=run.output, report=False, overwrite=True)
     assert all(r.cached for r in again.rasters)
     assert (run.output / "dispersion.csv").read_bytes() == first
 
