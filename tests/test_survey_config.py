@@ -96,4 +96,5 @@ def test_bad_values_reported_with_lines_before_any_work(tmp_path):
     msg = str(e.value)
     assert "2 problems" in msg
     assert "line 15: [raster.detect] method 'lidar' is unknown" in msg
-    assert "line 18: [statistics]" in msg and "alpha" in msg
+    # the line of the key itself, not of its section header
+    assert 'line 19: [statistics] alpha should be a number between 0 and 1, not "high"' in msg

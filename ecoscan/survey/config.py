@@ -147,8 +147,14 @@ class _Problems:
         self.source = source
         self.lines = lines
         self.items: list[tuple[int, str]] = []
+        self.paths: list[tuple] = []
+
+    def has(self, where: tuple) -> bool:
+        """Whether a problem was already found in ``where`` or below it."""
+        return any(p[: len(where)] == where for p in self.paths)
 
     def add(self, path: tuple, message: str) -> None:
+        self.paths.append(path)
         line = self.lines.get(path)
         while line is None and path:
             path = path[:-1]
@@ -203,6 +209,8 @@ def _check_values(problems: _Problems, statistics: dict, scales: dict, rasters) 
     for i, r in enumerate(rasters):
         checks.append((("raster", i, "detect"), "ecoscan.detect", "DetectionSettings", r.detect))
     for where, module, cls, values in checks:
+        if problems.has(where):  # its keys were already reported in the file's words
+            continue
         try:
             klass = getattr(__import__(module, fromlist=[cls]), cls)
         except (ImportError, AttributeError):
@@ -372,8 +380,8 @@ def load_survey(path: str | Path) -> SurveyConfig:
         if p is not None:
             rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
     _same_file_names(problems, rasters, entries)
-    if not problems.items:  # keys are right: now check the values, still before any work
-        _check_values(problems, statistics, scales, rasters)
+    # the settings classes check what the key checks cannot (choices, combinations)
+    _check_values(problems, statistics, scales, rasters)
     problems.raise_if_any()
     return SurveyConfig(
         path=src.resolve(),
