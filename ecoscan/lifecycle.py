@@ -170,6 +170,11 @@ def check_output_path(
     'new'
     """
     out = Path(path)
+    for up in out.absolute().parents:
+        if up.exists():
+            if not up.is_dir():
+                raise InputError(f"{option} {path}: {up} is a file, not a folder; check the path")
+            break
     real = Path(os.path.realpath(out))
     for src in inputs:
         if src is None:
