@@ -832,7 +832,7 @@ CASES: list[Case] = [
         "analyse",
         "`-o` names an existing file",
         "exit 2",
-        lambda b, o: _analyse(b, o)[:-4] + [str(_write(o / "f", "x")), "--quiet", *SIMS],
+        lambda b, o: [*_analyse(b, o)[:-4], str(_write(o / "f", "x")), "--quiet", *SIMS],
         says=("is a file",),
     ),
     Case(
