@@ -33,9 +33,11 @@ __all__ = [
     "Terminated",
     "check_output_path",
     "clean_stale",
+    "deferred_signals",
     "install_signal_handlers",
     "output_folder",
     "pid_alive",
+    "stop_pool",
     "worker_init",
 ]
 
@@ -80,7 +82,11 @@ def pid_alive(pid: int) -> bool:
         return False
     except PermissionError:  # exists, owned by someone else
         return True
-    return True
+    try:  # a killed process stays a zombie until its parent reaps it: that is gone too
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return True
+    return stat.rsplit(")", 1)[-1].split()[0] not in ("Z", "X")
 
 
 def clean_stale(folder: str | os.PathLike) -> list[Path]:
@@ -261,6 +267,41 @@ def output_folder(
             shutil.rmtree(tmp, ignore_errors=True)
 
 
+@contextlib.contextmanager
+def deferred_signals() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM until the block ends (e.g. while worker processes start).
+
+    A signal that arrives meanwhile is acted on when the block ends, so a process pool is
+    never interrupted half-way through starting a worker (which would leave a worker the
+    pool does not know about, and so cannot stop). Python runs signal handlers in the main
+    thread whichever thread received the signal, so the handlers themselves defer.
+
+    Examples
+    --------
+    >>> with deferred_signals():
+    ...     pass
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    pending: list[int] = []
+
+    def hold(signum, frame) -> None:
+        pending.append(signum)
+
+    old = {s: signal.signal(s, hold) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+        if signal.SIGTERM in pending:
+            signal.signal(signal.SIGTERM, signal.SIG_IGN)
+            raise Terminated()
+        if pending:
+            raise KeyboardInterrupt()
+
+
 def worker_init(parent_pid: int) -> None:
     """Set up a worker process: ignore Ctrl-C, and exit as soon as the parent is gone.
 
@@ -300,11 +341,9 @@ def stop_pool(executor) -> None:
     """
     procs = list((getattr(executor, "_processes", None) or {}).values())
     executor.shutdown(wait=False, cancel_futures=True)
-    for p in procs:
+    for p in procs:  # workers hold no state worth saving: end them at once
         with contextlib.suppress(Exception):
-            p.terminate()
+            p.kill()
     for p in procs:
         with contextlib.suppress(Exception):
             p.join(timeout=2)
-            if p.is_alive():
-                p.kill()

@@ -144,7 +144,7 @@ def run_plan(
     results: list[Any] = [None] * len(jobs)
     from concurrent.futures import as_completed
 
-    from ecoscan.lifecycle import stop_pool, worker_init
+    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
 
     # workers ignore Ctrl-C and die with their parent; on any error or signal the pool is
     # stopped at once, so no worker outlives the run or holds the caller's pipes open
@@ -155,7 +155,8 @@ def run_plan(
         initargs=(os.getpid(),),
     )
     try:
-        futures = {ex.submit(func, j): i for i, j in enumerate(jobs)}
+        with deferred_signals():  # workers start on submit; never leave one half-started
+            futures = {ex.submit(func, j): i for i, j in enumerate(jobs)}
         for fut in progress(as_completed(futures), total=len(jobs), desc=desc, unit="tile"):
             results[futures[fut]] = fut.result()
     except BaseException:
