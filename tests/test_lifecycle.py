@@ -99,7 +99,7 @@ def test_signal_mid_run_keeps_earlier_results(base, tmp_path, sig, code, word):
     _wait_for(lambda: any(p.name.startswith(".res.tmp-ecoscan") for p in tmp_path.iterdir()))
     time.sleep(0.3)
     proc.send_signal(sig)
-    out, err = proc.communicate(timeout=60)
+    _, err = proc.communicate(timeout=60)
     assert proc.returncode == code, err
     assert err.strip() == f"error: {word}; no partial output was kept"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["res"]  # no temporary folder left
