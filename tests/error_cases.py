@@ -412,6 +412,16 @@ def _check_survey_kept(base: Path, out: Path) -> None:
     assert [p.name for p in (out / "out").iterdir()] == ["old.csv"]
 
 
+def _plan_existing(base: Path, out: Path) -> list[str]:
+    (out / "plan").mkdir()
+    (out / "plan" / "old.csv").write_text("x\n")
+    return ["plan", "--plot-size", "30x30", "--density", "400", "-o", str(out / "plan")]
+
+
+def _check_plan_kept(base: Path, out: Path) -> None:
+    assert [p.name for p in (out / "plan").iterdir()] == ["old.csv"]
+
+
 def _two_sites(base: Path, out: Path) -> list[str]:
     extra = (
         f'[[raster]]\npath = "{base / "chm.tif"}"\nname = "b"\nsite = "North-slope"\n'
@@ -969,6 +979,15 @@ CASES: list[Case] = [
         check=_no_output,
     ),
     # ---------------------------------------------------------------------- survey files
+    Case(
+        "plan-output-exists",
+        "plan",
+        "`-o` folder exists",
+        "exit 2 before any simulation; folder untouched",
+        _plan_existing,
+        says=("--overwrite",),
+        check=_check_plan_kept,
+    ),
     Case(
         "survey-missing",
         "survey",
