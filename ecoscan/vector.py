@@ -129,8 +129,9 @@ def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.n
     header = [h.strip() for h in rows[0]]
     lower = [h.lower() for h in header]
     if "x" not in lower or "y" not in lower:
+        shown = ", ".join(" ".join(h.split()) for h in header)  # one line, even if quoted
         raise InputError(
-            f"{path.name} has no 'x' and 'y' columns (found: {', '.join(header) or 'none'}); "
+            f"{path.name} has no 'x' and 'y' columns (found: {shown or 'none'}); "
             "name the easting column x and the northing column y"
         )
     body = rows[1:]
