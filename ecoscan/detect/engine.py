@@ -63,6 +63,9 @@ class DetectorParams:
     min_area_px: float = 1.0
     split: bool = True
     h_px: float = 1.0
+    #: calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
+    #: data into the plant layer, used instead of :func:`vegetation_layer` when set
+    layer_model: object = None
 
 
 @dataclass(frozen=True)
@@ -109,7 +112,10 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     c0, r0, _c1, _r1 = tile.window
     data, valid = read_window(job.info, p.bands, tile.window)
     if p.method == "imagery":
-        layer = vegetation_layer(data, p.index)
+        if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
+            layer = p.layer_model(data)
+        else:
+            layer = vegetation_layer(data, p.index)
         del data
         layer[~valid] = p.fill_value
         found = blobs.detect_blobs(

@@ -35,7 +35,13 @@ import numpy as np
 from ecoscan import __version__
 from ecoscan.crs import crs_label
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs, assign_plots
+from ecoscan.inputs import (
+    SurveyInputs,
+    assign_plots,
+    one_row_per_plant,
+    points_by_plot,
+    unsurveyed_note,
+)
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
@@ -161,7 +167,13 @@ def _detect(
     stem = slug(entry.name)
     gpkg, csv = pts_dir / f"{stem}.gpkg", pts_dir / f"{stem}.csv"
     key_file = pts_dir / f"{stem}.key.json"
-    key = settings_key(raster=file_sha256(entry.path), plots=plots_hash, detect=settings.to_dict())
+    key = settings_key(
+        raster=file_sha256(entry.path),
+        plots=plots_hash,
+        detect=settings.to_dict(),
+        # a calibrated detector's file (its TOML records its model file's hash)
+        detector=file_sha256(settings.detector) if settings.detector else None,
+    )
     old = (previous / "points") if previous is not None else None
     if old is not None and is_fresh(old / key_file.name, key, [old / gpkg.name, old / csv.name]):
         import json
@@ -259,6 +271,9 @@ def _run_survey(
         stat_settings.quadrat_m, layer.plots, option=f"[statistics] quadrat_m in {config.path.name}"
     )
     run = SurveyRun(config, out, crs_label(survey_crs), layer=layer, notes=list(layer.notes))
+    few = stat_settings.too_few_simulations()
+    if few:  # the same line is in every plot's warnings
+        run.notes.append(few)
     plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
@@ -275,6 +290,7 @@ def _run_survey(
         import shapely
 
         touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
+        gone = [p.plot_id for p, t in zip(layer.plots, touches, strict=True) if not t]
         if not np.any(touches):
             raise InputError(
                 f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
@@ -286,12 +302,12 @@ def _run_survey(
             entry, sub, out, plots_hash, workers or config.workers, previous
         )
         pts = _to_survey_crs(pts, survey_crs)
-        idx = assign_plots(pts, sub)
-        keep = idx >= 0
-        pts = pts.subset(keep)
-        idx = idx[keep]
-        pts.attrs["plot_id"] = np.array([sub.plots[i].plot_id for i in idx], dtype=object)
-        inputs = SurveyInputs(pts, sub, idx, list(notes))
+        pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots
+        member = assign_plots(pts, sub)
+        if gone:
+            notes = [*notes, unsurveyed_note(gone, f"raster {entry.name}")]
+        inputs = SurveyInputs(pts, sub, member, list(notes), gone)
+        pts = points_by_plot(pts, sub, member)
         disp = analyse(inputs, stat_settings)
         scl = None
         if scales_settings is not None:
@@ -390,9 +406,10 @@ def _run_change(run: SurveyRun) -> None:
                     [p for p in a.inputs.plots if p.plot_id in set(b.inputs.layer.ids)],
                     a.inputs.layer.crs,
                 )
+                # each plant once (the points table repeats a plant for every plot holding it)
                 res = detect_change(
-                    a.points,
-                    b.points,
+                    a.inputs.points.subset(a.inputs.membership.in_any()),
+                    b.inputs.points.subset(b.inputs.membership.in_any()),
                     tol,
                     plots=plots if plots.plots else None,
                     estimate_shift=bool(cfg.get("estimate_shift", True)),

@@ -130,6 +130,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--workers", type=int, default=1, metavar="N", help="local processes (default 1)"
     )
+    p.add_argument(
+        "--detector",
+        metavar="DETECTOR.toml",
+        help="imagery: a detector file from `ecoscan calibrate` (its layer, thresholds and "
+        "diameter range replace --index, --threshold, --min-contrast and --diameter)",
+    )
     add_plots_args(p, required=False)
     p.add_argument(
         "--mask",
@@ -158,6 +164,7 @@ def settings_from_args(args: argparse.Namespace) -> DetectionSettings:
         split_touching=not args.no_split,
         tile_size_px=args.tile_size,
         pixel_size_m=args.pixel_size,
+        detector=args.detector,
     )
 
 
@@ -194,7 +201,12 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(rows, ["item", "value"], digits=3))
     if plots is not None and res.n:
         ids = res.points.attrs["plot_id"]
-        per = [{"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())} for p in plots.plots]
+        gone = set(res.unsurveyed)
+        per = [
+            {"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())}
+            for p in plots.plots
+            if p.plot_id not in gone
+        ]
         print()
         print(format_table(per, ["plot_id", "plants"]))
     return 0
