@@ -82,6 +82,8 @@ def _analyse_args(base: Path, out: str, sims: int = 5000) -> list[str]:
         out,
         "--simulations",
         str(sims),
+        "--stop-after",
+        "0",  # every simulation runs (sequential stopping would end the run too soon)
         "--overwrite",
         "--quiet",
     ]
