@@ -6,6 +6,8 @@ import argparse
 import logging
 import sys
 
+from ecoscan.safety import simulations_arg
+
 log = logging.getLogger("ecoscan")
 
 __all__ = ["add_crs_arg", "add_plots_args", "add_seed_args", "print_notes"]
@@ -39,7 +41,7 @@ def add_seed_args(p: argparse.ArgumentParser, *, simulations: int = 999) -> None
     """``--simulations`` and ``--seed`` for Monte Carlo tests."""
     p.add_argument(
         "--simulations",
-        type=int,
+        type=simulations_arg("--simulations"),
         default=simulations,
         metavar="N",
         help=f"Monte Carlo simulations under complete spatial randomness (default {simulations})",

@@ -15,6 +15,7 @@ from ecoscan.analysis import (
 )
 from ecoscan.cli._common import add_crs_arg, add_plots_args, add_seed_args, print_notes
 from ecoscan.inputs import load_points_and_plots
+from ecoscan.lifecycle import output_folder
 from ecoscan.tables import format_table
 
 NAME = "analyse"
@@ -96,13 +97,26 @@ def run(args: argparse.Namespace) -> int:
         stop_after=args.stop_after,
     )
     outdir = check_outdir(args.output)
+    with output_folder(outdir, overwrite=args.overwrite, inputs=[args.points, args.plots]) as tmp:
+        results, inputs, notes = _analyse(args, settings)
+        write_analysis(tmp, inputs, results, settings, notes=notes)
+    _print(args, settings, results, notes, outdir)
+    return 0
+
+
+def _analyse(args: argparse.Namespace, settings: DispersionSettings):
+    from ecoscan.safety import check_quadrat_cells
+
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
+    check_quadrat_cells(settings.quadrat_m, inputs.plots, option="--quadrat")
     notes = list(inputs.notes)
     few = settings.too_few_simulations()
     if few:
         notes.append(few.replace("simulations (999", "--simulations (999"))
-    results = analyse(inputs, settings)
-    write_analysis(outdir, inputs, results, settings, notes=notes)
+    return analyse(inputs, settings), inputs, notes
+
+
+def _print(args, settings, results, notes, outdir) -> None:
     rows = dispersion_rows(results)
     keys = [k for k, _ in TABLE_COLUMNS]
     print(format_table(rows, keys, headers=[h for _, h in TABLE_COLUMNS]))
@@ -119,4 +133,3 @@ def run(args: argparse.Namespace) -> int:
     print_notes(notes, quiet=args.quiet)
     if not args.quiet:
         print(f"caution: {CAUTION}", file=sys.stderr)
-    return 0

@@ -9,6 +9,8 @@ from pathlib import Path
 from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows, detect_change, write_change
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
+from ecoscan.lifecycle import output_folder
+from ecoscan.safety import simulations_arg
 from ecoscan.tables import format_table, show_small_p
 from ecoscan.vector import read_plots, read_points
 
@@ -73,7 +75,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--simulations",
-        type=int,
+        type=simulations_arg("--simulations"),
         default=199,
         metavar="N",
         help="Monte Carlo simulations for the test of a change in R beyond random losses and "
@@ -98,6 +100,15 @@ def _points_file(path: str) -> Path:
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan change``."""
     earlier_path, later_path = _points_file(args.earlier), _points_file(args.later)
+    with output_folder(
+        args.out, overwrite=args.overwrite, inputs=[args.earlier, args.later, args.plots]
+    ) as tmp:
+        result, paths, plots, extra_notes = _change(args, earlier_path, later_path, tmp)
+    _print(args, result, paths, plots, extra_notes)
+    return 0
+
+
+def _change(args, earlier_path: Path, later_path: Path, tmp: Path):
     earlier = read_points(earlier_path, args.crs)
     later = read_points(later_path, args.crs)
     plots_path = args.plots
@@ -126,7 +137,10 @@ def run(args: argparse.Namespace) -> int:
         simulations=args.simulations,
         seed=args.seed,
     )
-    paths = write_change(args.out, result)
+    return result, write_change(tmp, result), plots, extra_notes
+
+
+def _print(args, result, paths, plots, extra_notes) -> None:
     notes = extra_notes + list(result.notes) + ([] if plots is None else plots.notes)
     print_notes(notes, args.quiet)
     for w in result.warnings:
@@ -142,4 +156,3 @@ def run(args: argparse.Namespace) -> int:
     print("automated counts: check lost and new plants in the field before acting on them")
     if not args.quiet:
         print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)
-    return 0

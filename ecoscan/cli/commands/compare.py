@@ -16,6 +16,8 @@ from ecoscan.compare import (
     read_results,
     write_comparison,
 )
+from ecoscan.lifecycle import output_folder
+from ecoscan.safety import simulations_arg
 from ecoscan.tables import format_table, show_small_p
 
 NAME = "compare"
@@ -65,7 +67,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--permutations",
-        type=int,
+        type=simulations_arg("--permutations"),
         default=999,
         metavar="N",
         help="random arrangements of plots for the permutation test (default 999; all "
@@ -82,18 +84,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan compare``."""
-    tables = [read_results(f) for f in args.results]
-    labels = [t.label for t in tables]
-    if len(set(labels)) < len(labels):  # same folder name in different places
-        tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
-    result = compare_groups(
-        tables,
-        args.by,
-        permutations=args.permutations,
-        seed=args.seed,
-        pool_dates=args.pool_dates,
-    )
-    paths = write_comparison(args.out, result)
+    with output_folder(args.out, overwrite=args.overwrite, inputs=args.results) as tmp:
+        tables = [read_results(f) for f in args.results]
+        labels = [t.label for t in tables]
+        if len(set(labels)) < len(labels):  # same folder name in different places
+            tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
+        result = compare_groups(
+            tables,
+            args.by,
+            permutations=args.permutations,
+            seed=args.seed,
+            pool_dates=args.pool_dates,
+        )
+        paths = write_comparison(tmp, result)
     print_notes(result.notes, args.quiet)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
     print(format_table(groups, GROUP_SUMMARY_COLUMNS, headers=GROUP_HEADERS))
