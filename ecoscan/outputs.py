@@ -49,8 +49,12 @@ def atomic_path(path: str | os.PathLike, suffix: str | None = None) -> Iterator[
     dest = Path(path)
     dest.parent.mkdir(parents=True, exist_ok=True)
     sfx = dest.suffix if suffix is None else suffix
+    # the writer's pid in the name lets a later run remove debris of a killed one
+    from ecoscan.lifecycle import TEMP_TAG, clean_stale
+
+    clean_stale(dest.parent)
     fd, tmp = tempfile.mkstemp(
-        prefix=f".{dest.stem}.", suffix=f".tmp-ecoscan{sfx}", dir=dest.parent
+        prefix=f".{dest.stem}{TEMP_TAG}-{os.getpid()}-", suffix=sfx, dir=dest.parent
     )
     os.close(fd)
     tmp_path = Path(tmp)

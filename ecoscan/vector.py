@@ -22,6 +22,7 @@ from ecoscan.crs import crs_label, looks_like_degrees, parse_crs, to_metric, tra
 from ecoscan.errors import InputError
 from ecoscan.outputs import atomic_path, format_value
 from ecoscan.points import PointSet
+from ecoscan.safety import check_coordinates
 
 __all__ = [
     "Plot",
@@ -86,6 +87,23 @@ def _attribute_column(values: list[str], name: str = "") -> np.ndarray:
         return np.array(values, dtype=object)
 
 
+def _read_prj(prj: Path) -> str:
+    """The text of a sidecar CRS file; one-line errors for unreadable or non-text files."""
+    try:
+        return prj.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        try:  # WKT is ASCII; an old tool may have written Latin-1 names in it
+            return prj.read_bytes().decode("latin-1")
+        except OSError:
+            pass
+        raise InputError(f"{prj.name} is not a text file; it should hold the CRS as WKT") from None
+    except OSError as exc:
+        raise InputError(
+            f"cannot read {prj}: {exc.strerror or exc}; check its permissions, or delete it and "
+            "pass --crs"
+        ) from None
+
+
 def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
     try:
         with open(path, newline="", encoding="utf-8-sig") as fh:
@@ -98,14 +116,22 @@ def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.n
             rows = list(csv.reader(fh, dialect))
     except UnicodeDecodeError:
         raise InputError(f"{path.name} is not a text CSV file; save it as UTF-8 CSV") from None
+    except OSError as exc:
+        raise InputError(
+            f"cannot read points file {path}: {exc.strerror or exc}; check the path and its "
+            "permissions"
+        ) from None
+    except csv.Error as exc:
+        raise InputError(f"{path.name} is not a readable CSV file ({exc}); check it") from None
     rows = [r for r in rows if any(c.strip() for c in r)]
     if not rows:
         raise InputError(f"{path.name} is empty; it needs a header row with x and y columns")
     header = [h.strip() for h in rows[0]]
     lower = [h.lower() for h in header]
     if "x" not in lower or "y" not in lower:
+        shown = ", ".join(" ".join(h.split()) for h in header)  # one line, even if quoted
         raise InputError(
-            f"{path.name} has no 'x' and 'y' columns (found: {', '.join(header) or 'none'}); "
+            f"{path.name} has no 'x' and 'y' columns (found: {shown or 'none'}); "
             "name the easting column x and the northing column y"
         )
     body = rows[1:]
@@ -189,7 +215,7 @@ def read_points(
         file_crs = None
         prj = sidecar_prj(p)
         if prj.exists():
-            file_crs = parse_crs(prj.read_text(encoding="utf-8"), what=prj.name)
+            file_crs = parse_crs(_read_prj(prj), what=prj.name)
     elif suffix in VECTOR_SUFFIXES:
         geoms, fields, data, file_crs = _read_layer(p, layer, "points")
         if len(geoms) == 0:
@@ -227,6 +253,7 @@ def read_points(
             "pass --crs EPSG:4326 (or the right CRS) so distances can be computed in metres"
         )
     x, y, frame = to_metric(x, y, use_crs)
+    check_coordinates(x, y, p.name)
     if frame.note:
         notes.append(frame.note)
     if use_crs is None:

@@ -219,6 +219,6 @@ def test_survey_cache_key_follows_detector_file(conifer, tmp_path, monkeypatch):
     entry = runner.RasterEntry(f["raster"], "r", "site", "", {"detector": str(dst)}, 0)
     for _ in range(2):
         with pytest.raises(Stop):
-            runner._detect(entry, None, tmp_path, "plots-hash", 1)
+            runner._detect(entry, None, tmp_path, "plots-hash", 1, previous=tmp_path)
         dst.write_text(dst.read_text() + "\n# edited\n")
     assert keys[0] != keys[1]

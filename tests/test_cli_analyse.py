@@ -85,7 +85,9 @@ def test_analyse_writes_results_and_table(survey, tmp_path, capsys):
     assert any("plot bare" in n and "not surveyed" in n for n in doc["notes"])
     # same seed, same output
     first = (out / "dispersion.csv").read_bytes()
-    rc, _, _ = _run(argv, capsys)
+    rc, _, err = _run(argv, capsys)  # an existing folder is kept without --overwrite
+    assert rc == 2 and "--overwrite" in err and (out / "dispersion.csv").read_bytes() == first
+    rc, _, _ = _run([*argv, "--overwrite"], capsys)
     assert rc == 0 and (out / "dispersion.csv").read_bytes() == first
 
 

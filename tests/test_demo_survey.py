@@ -7,6 +7,7 @@ patterns each plot was built with are the ground truth here.
 import dataclasses
 import json
 import re
+import shutil
 from pathlib import Path
 
 import numpy as np
@@ -127,9 +128,14 @@ def test_outputs_and_provenance(demo_run):
 def test_rerun_is_identical_and_uses_the_cache(demo_run, tmp_path):
     cfg, run = demo_run
     first = (run.output / "dispersion.csv").read_bytes()
-    again = run_survey(cfg, output=run.output, report=False)
+    # rerun over a copy (the module's folder keeps its report for the browser test); the
+    # folder is replaced whole, with the unchanged detections carried over
+    folder = tmp_path / "again"
+    shutil.copytree(run.output, folder)
+    again = run_survey(cfg, output=folder, report=False, overwrite=True)
     assert all(r.cached for r in again.rasters)
-    assert (run.output / "dispersion.csv").read_bytes() == first
+    assert (folder / "dispersion.csv").read_bytes() == first
+    assert not (folder / "report.html").exists()  # nothing of the earlier run is kept
 
 
 def test_bad_survey_file_exit_code(tmp_path, capsys):

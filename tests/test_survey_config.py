@@ -98,7 +98,8 @@ def test_bad_values_reported_with_lines_before_any_work(tmp_path):
     msg = str(e.value)
     assert "2 problems" in msg
     assert "line 15: [raster.detect] method 'lidar' is unknown" in msg
-    assert "line 18: [statistics]" in msg and "alpha" in msg
+    # the line of the key itself, not of its section header
+    assert 'line 19: [statistics] alpha should be a number between 0 and 1, not "high"' in msg
 
 
 @pytest.mark.parametrize("bad", ["03/10/2026", "20/04/2026", "autumn", "2026-4-20"])

@@ -15,13 +15,20 @@ Each sub-command lives in its own module under :mod:`ecoscan.cli.commands` and e
 
 Modules are discovered automatically, so adding a command never touches this file. Bad
 input raises :class:`ecoscan.errors.InputError`, printed as ``error: ...`` with exit code 2.
+
+Exit codes: 0 done; 1 an internal error (one line, the traceback with ``--verbose``); 2 bad
+input or an option error (one line ``error: ...``); 130 interrupted by Ctrl-C; 141 the
+reader of the output went away (``| head``); 143 stopped by SIGTERM. Interrupted runs leave
+no partial output (see :mod:`ecoscan.lifecycle`).
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import logging
+import os
 import pkgutil
 import sys
 import warnings
@@ -29,7 +36,6 @@ from collections.abc import Sequence
 
 from ecoscan import __version__
 from ecoscan.errors import InputError
-from ecoscan.progress import set_quiet
 
 __all__ = ["build_parser", "main"]
 
@@ -51,9 +57,16 @@ def _command_modules() -> list:
     return mods
 
 
+class _Parser(argparse.ArgumentParser):
+    """Argument parser whose errors are one line: ``error: ...`` and exit code 2."""
+
+    def error(self, message: str):
+        raise InputError(f"{message} (see '{self.prog} --help')")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The ``ecoscan`` argument parser with every sub-command registered."""
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="ecoscan",
         description=(
             "Detect plants in rasters, test per plot whether they are clustered, random or "
@@ -66,8 +79,17 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument(
         "--quiet", action="store_true", help="no progress bars or notes (warnings still show)"
     )
-    common.add_argument("--verbose", action="store_true", help="detailed log messages")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    common.add_argument(
+        "--verbose",
+        action="store_true",
+        help="detailed log messages, and the full traceback of an internal error",
+    )
+    common.add_argument(
+        "--overwrite",
+        action="store_true",
+        help="replace an existing output file or folder (refused otherwise)",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for mod in _command_modules():
         example = getattr(mod, "EXAMPLE", "")
         p = sub.add_parser(
@@ -83,8 +105,86 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: errno values that mean "the file system refused", with what to do about it.
+_OS_HINTS = {
+    errno.ENOSPC: "free some disk space or write elsewhere",
+    errno.EDQUOT: "free some disk space or write elsewhere",
+    errno.EROFS: "write the results to a writable folder",
+    errno.EACCES: "check the permissions, or use another path",
+    errno.EPERM: "check the permissions, or use another path",
+    errno.ENOENT: "check the path",
+    errno.EISDIR: "give a file, not a folder",
+    errno.ENOTDIR: "check the path",
+    errno.ENAMETOOLONG: "use a shorter path",
+    errno.EIO: "check the disk or the network share",
+}
+
+
+def _os_message(exc: OSError) -> str | None:
+    """One line for a file-system error caused by the user's paths or disk, else None."""
+    if exc.errno not in _OS_HINTS:
+        return None
+    name = exc.filename if exc.filename is not None else ""
+    where = f"{name}: " if name else ""
+    return f"{where}{exc.strerror or exc}; {_OS_HINTS[exc.errno]}"
+
+
+def _quiet_stdout() -> None:
+    """After a broken pipe: send the rest of the output nowhere, so exit stays quiet."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run ``ecoscan`` with ``argv`` (default: ``sys.argv[1:]``) and return the exit code."""
+    verbose = "--verbose" in (sys.argv[1:] if argv is None else argv)
+    try:
+        from ecoscan.lifecycle import install_signal_handlers
+
+        install_signal_handlers()
+        return _main(argv)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        _quiet_stdout()
+        return 141
+    except KeyboardInterrupt as exc:
+        from ecoscan.lifecycle import Terminated
+
+        sig = "terminated" if isinstance(exc, Terminated) else "interrupted"
+        print(f"error: {sig}; no partial output was kept", file=sys.stderr)
+        return 143 if isinstance(exc, Terminated) else 130
+    except OSError as exc:
+        msg = _os_message(exc)
+        if msg is None or verbose:
+            return _internal(exc, verbose)
+        print(f"error: {msg}", file=sys.stderr)
+        return 2
+    except Exception as exc:  # last resort: one line, and the traceback only on request
+        return _internal(exc, verbose)
+
+
+def _internal(exc: BaseException, verbose: bool) -> int:
+    if verbose:
+        import traceback
+
+        traceback.print_exception(exc)
+    else:
+        print(
+            f"error: unexpected {type(exc).__name__}: {exc} "
+            "(rerun with --verbose for details and report it as a bug)",
+            file=sys.stderr,
+        )
+    return 1
+
+
+def _main(argv: Sequence[str] | None) -> int:
+    from ecoscan.progress import set_quiet
+
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):
@@ -96,23 +196,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         stream=sys.stderr,
     )
     logging.getLogger("pyogrio").setLevel(logging.WARNING)  # "Created N records" is noise
+    if not args.verbose:
+        # GDAL's own messages reach us as exceptions that ecoscan folds into its one-line
+        # errors; the raw log lines are only for --verbose
+        for name in ("rasterio", "fiona", "pyogrio", "pyproj"):
+            logging.getLogger(name).setLevel(logging.CRITICAL)
     set_quiet(args.quiet)
     if not args.verbose:
         warnings.filterwarnings("ignore", category=RuntimeWarning)
-    try:
-        return int(args._run(args) or 0)
-    except InputError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("error: interrupted; no partial output was kept", file=sys.stderr)
-        return 130
-    except Exception as exc:  # last resort: one line, and the traceback only on request
-        if args.verbose:
-            raise
-        print(
-            f"error: unexpected {type(exc).__name__}: {exc} "
-            "(rerun with --verbose for details and report it as a bug)",
-            file=sys.stderr,
-        )
-        return 1
+    code = int(args._run(args) or 0)
+    sys.stdout.flush()
+    return code

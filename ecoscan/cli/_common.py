@@ -7,6 +7,7 @@ import logging
 import sys
 from typing import NoReturn
 
+from ecoscan.safety import simulations_arg
 from ecoscan.vocabulary import RENAMED_OPTIONS, RENAMED_VALUES
 
 log = logging.getLogger("ecoscan")
@@ -96,7 +97,7 @@ def add_seed_args(p: argparse.ArgumentParser, *, simulations: int = 999) -> None
     """``--simulations`` and ``--seed`` for Monte Carlo tests."""
     p.add_argument(
         "--simulations",
-        type=int,
+        type=simulations_arg("--simulations"),
         default=simulations,
         metavar="N",
         help=f"Monte Carlo simulations under complete spatial randomness (default {simulations})",

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 import multiprocessing as mp
+import os
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
@@ -141,10 +142,25 @@ def run_plan(
     if workers == 1 or len(jobs) <= 1:
         return [func(j) for j in progress(jobs, total=len(jobs), desc=desc, unit="tile")]
     results: list[Any] = [None] * len(jobs)
-    with ProcessPoolExecutor(max_workers=min(workers, len(jobs)), mp_context=_context()) as ex:
-        futures = {ex.submit(func, j): i for i, j in enumerate(jobs)}
-        from concurrent.futures import as_completed
+    from concurrent.futures import as_completed
 
+    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+
+    # workers ignore Ctrl-C and die with their parent; on any error or signal the pool is
+    # stopped at once, so no worker outlives the run or holds the caller's pipes open
+    ex = ProcessPoolExecutor(
+        max_workers=min(workers, len(jobs)),
+        mp_context=_context(),
+        initializer=worker_init,
+        initargs=(os.getpid(),),
+    )
+    try:
+        with deferred_signals():  # workers start on submit; never leave one half-started
+            futures = {ex.submit(func, j): i for i, j in enumerate(jobs)}
         for fut in progress(as_completed(futures), total=len(jobs), desc=desc, unit="tile"):
             results[futures[fut]] = fut.result()
+    except BaseException:
+        stop_pool(ex)
+        raise
+    ex.shutdown(wait=True)
     return results

@@ -30,13 +30,28 @@ def settings_key(**parts: Any) -> str:
 
 
 def is_fresh(key_file: Path, key: str, outputs: list[Path]) -> bool:
-    """True when ``key_file`` holds ``key`` and every output exists."""
+    """True when ``key_file`` holds ``key``, every output exists and is as it was written.
+
+    ``key_file`` records the SHA-256 of each output (``files``); an output whose bytes have
+    changed since (truncated, edited, half-copied) makes the cache stale, so a rerun never
+    trusts a damaged file.
+    """
     if not key_file.exists() or not all(p.exists() for p in outputs):
         return False
     try:
-        return json.loads(key_file.read_text(encoding="utf-8")).get("key") == key
+        info = json.loads(key_file.read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return False
+    if not isinstance(info, dict) or info.get("key") != key:
+        return False
+    hashes = info.get("files")
+    if not isinstance(hashes, dict):
+        return False  # written before files were hashed: recompute
+    for p in outputs:
+        want = hashes.get(p.name)
+        if not isinstance(want, str) or file_sha256(p) != want:
+            return False
+    return True
 
 
 def mark_done(key_file: Path, key: str, **info: Any) -> None:

@@ -152,8 +152,14 @@ class _Problems:
         self.source = source
         self.lines = lines
         self.items: list[tuple[int, str]] = []
+        self.paths: list[tuple] = []
+
+    def has(self, where: tuple) -> bool:
+        """Whether a problem was already found in ``where`` or below it."""
+        return any(p[: len(where)] == where for p in self.paths)
 
     def add(self, path: tuple, message: str) -> None:
+        self.paths.append(path)
         line = self.lines.get(path)
         while line is None and path:
             path = path[:-1]
@@ -241,14 +247,42 @@ def _check_values(problems: _Problems, statistics: dict, scales: dict, rasters) 
     for i, r in enumerate(rasters):
         checks.append((("raster", i, "detect"), "ecoscan.detect", "DetectionSettings", r.detect))
     for where, module, cls, values in checks:
+        if problems.has(where):  # its keys were already reported in the file's words
+            continue
         try:
             klass = getattr(__import__(module, fromlist=[cls]), cls)
         except (ImportError, AttributeError):
             continue
         try:
             klass.from_mapping(values)
-        except InputError as exc:
+        except (InputError, TypeError, ValueError, IndexError) as exc:
             problems.add(where, f"[{'.'.join(str(w) for w in where if isinstance(w, str))}] {exc}")
+
+
+def _values(problems: _Problems, where: tuple, section: str, table: Mapping) -> None:
+    """Type and range of every key of one table, each reported at the key's own line."""
+    from ecoscan.survey.schema import check_table
+
+    for key, msg in check_table(section, table):
+        problems.add((*where, key), msg)
+
+
+def _same_file_names(problems: _Problems, rasters: list[RasterEntry], entries: list) -> None:
+    """Refuse two sites (or raster names) that would write the same file or folder."""
+    from ecoscan.survey.runner import slug
+
+    for attr, what in (("site", "sites"), ("name", "raster names")):
+        seen: dict[str, str] = {}
+        for i, r in enumerate(rasters):
+            label = getattr(r, attr)
+            key = slug(label).lower()
+            if key in seen and seen[key] != label:
+                problems.add(
+                    ("raster", i, attr),
+                    f"{what} '{seen[key]}' and '{label}' would share the file name "
+                    f"'{slug(label)}'; rename one so they differ in letters or digits",
+                )
+            seen.setdefault(key, label)
 
 
 def load_survey(path: str | Path) -> SurveyConfig:
@@ -271,7 +305,16 @@ def load_survey(path: str | Path) -> SurveyConfig:
     src = Path(path)
     if not src.is_file():
         raise InputError(f"survey file {str(src)!r} does not exist; check the path")
-    text = src.read_text(encoding="utf-8")
+    try:
+        text = src.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(
+            f"{src.name} is not UTF-8 text (byte {exc.start}); save it as UTF-8 and run again"
+        ) from None
+    except OSError as exc:
+        raise InputError(
+            f"cannot read survey file {src}: {exc.strerror or exc}; check its permissions"
+        ) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -330,6 +373,14 @@ def load_survey(path: str | Path) -> SurveyConfig:
     scales = _section("scales", {"enabled"}, "ecoscan.scales", "ScalesSettings")
     change = _section("change", _SECTIONS["change"], None, None)
     compare = _section("compare", _SECTIONS["compare"], None, None)
+    _values(problems, ("survey",), "survey", survey)
+    for name, table in (
+        ("statistics", statistics),
+        ("scales", scales),
+        ("change", change),
+        ("compare", compare),
+    ):
+        _values(problems, (name,), name, table)
     if compare.get("by", "auto") not in ("auto", "site", "date", "plot"):
         problems.add(("compare", "by"), "by must be 'auto', 'site', 'date' or 'plot'")
 
@@ -363,6 +414,7 @@ def load_survey(path: str | Path) -> SurveyConfig:
             det = {}
         if det_keys is not None:
             _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
+        _values(problems, (*where, "detect"), "raster.detect", det)
         if isinstance(det.get("detector"), str):  # ecoscan calibrate's file, beside the survey
             d = _file((*where, "detect", "detector"), det["detector"], "detector")
             det = {**det, "detector": str(d) if d is not None else det["detector"]}
@@ -375,8 +427,9 @@ def load_survey(path: str | Path) -> SurveyConfig:
                     problems.add((*where, "detect", "detector"), str(exc))
         if p is not None:
             rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
-    if not problems.items:  # keys are right: now check the values, still before any work
-        _check_values(problems, statistics, scales, rasters)
+    _same_file_names(problems, rasters, entries)
+    # the settings classes check what the key checks cannot (choices, combinations)
+    _check_values(problems, statistics, scales, rasters)
     problems.raise_if_any()
     return SurveyConfig(
         path=src.resolve(),

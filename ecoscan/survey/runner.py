@@ -152,13 +152,21 @@ def _to_survey_crs(points: PointSet, crs) -> PointSet:
     )
 
 
-def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, workers: int):
+def _detect(
+    entry: RasterEntry,
+    layer: PlotLayer,
+    out: Path,
+    plots_hash: str,
+    workers: int,
+    previous: Path | None = None,
+):
     from ecoscan.detect import DetectionSettings, detect_raster
 
     settings = DetectionSettings.from_mapping(entry.detect)
     pts_dir = out / "points"
-    gpkg, csv = pts_dir / f"{slug(entry.name)}.gpkg", pts_dir / f"{slug(entry.name)}.csv"
-    key_file = pts_dir / f"{slug(entry.name)}.key.json"
+    stem = slug(entry.name)
+    gpkg, csv = pts_dir / f"{stem}.gpkg", pts_dir / f"{stem}.csv"
+    key_file = pts_dir / f"{stem}.key.json"
     key = settings_key(
         raster=file_sha256(entry.path),
         plots=plots_hash,
@@ -166,9 +174,16 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
         # a calibrated detector's file (its TOML records its model file's hash)
         detector=file_sha256(settings.detector) if settings.detector else None,
     )
-    if is_fresh(key_file, key, [gpkg, csv]):
+    old = (previous / "points") if previous is not None else None
+    if old is not None and is_fresh(old / key_file.name, key, [old / gpkg.name, old / csv.name]):
         import json
+        import shutil
 
+        # the previous run's detections are unchanged and intact: carry them over
+        pts_dir.mkdir(parents=True, exist_ok=True)
+        for name in (gpkg.name, csv.name, f"{stem}.prj", key_file.name):
+            if (old / name).exists():
+                shutil.copy2(old / name, pts_dir / name)
         info = json.loads(key_file.read_text(encoding="utf-8"))
         pts = read_points(csv)
         log.info(
@@ -193,6 +208,7 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
         notes=list(res.notes),
         pixel_size_m=float(res.pixel_size_m),
         raster=entry.path.name,
+        files={csv.name: file_sha256(csv), gpkg.name: file_sha256(gpkg)},
     )
     # analyse what was written (coordinates to the millimetre), so that a rerun from the
     # cache gives byte-identical tables
@@ -206,6 +222,7 @@ def run_survey(
     output: Path | None = None,
     workers: int | None = None,
     report: bool = True,
+    overwrite: bool = False,
 ) -> SurveyRun:
     """Run every step of a survey and write its output folder.
 
@@ -219,20 +236,45 @@ def run_survey(
         Detection worker processes; default from the survey file.
     report : bool
         Write figures and ``report.html``.
+    overwrite : bool
+        Replace an existing output folder (refused otherwise). The folder is built in a
+        temporary sibling and swapped in whole at the end, so no file of an earlier run is
+        kept; detections of the earlier run whose inputs, settings and file hashes are
+        unchanged are carried over instead of being recomputed.
 
     Returns
     -------
     SurveyRun
     """
+    from ecoscan.lifecycle import output_folder
+
+    dest = Path(output or config.output)
+    inputs = [config.path, config.plots, *(e.path for e in config.rasters)]
+    with output_folder(dest, overwrite=overwrite, inputs=inputs) as tmp:
+        previous = dest if (dest / "points").is_dir() else None
+        run = _run_survey(config, tmp, previous, workers, report)
+    # the finished folder is in place: point the run's record at it
+    run.files = [dest / Path(f).relative_to(tmp) for f in run.files]
+    for ch in run.changes:
+        ch.folder = dest / Path(ch.folder).relative_to(tmp)
+    run.output = dest
+    return run
+
+
+def _run_survey(
+    config: SurveyConfig, out: Path, previous: Path | None, workers: int | None, report: bool
+) -> SurveyRun:
     from ecoscan.analysis import DispersionSettings, analyse, dispersion_rows
+    from ecoscan.safety import check_quadrat_cells
 
     started = datetime.now(UTC)
     t0 = time.perf_counter()
-    out = Path(output or config.output)
-    out.mkdir(parents=True, exist_ok=True)
     stat_settings = DispersionSettings.from_mapping(config.statistics)
     layer = read_plots(config.plots, id_field=config.plot_id_field, layer=config.plots_layer)
     survey_crs = layer.crs
+    check_quadrat_cells(
+        stat_settings.quadrat_m, layer.plots, option=f"[statistics] quadrat_m in {config.path.name}"
+    )
     run = SurveyRun(config, out, crs_label(survey_crs), layer=layer, notes=list(layer.notes))
     few = stat_settings.too_few_simulations()
     if few:  # the same line is in every plot's warnings
@@ -261,7 +303,7 @@ def run_survey(
             )
         sub = _layer_subset(layer, touches)
         pts, method, notes, cached, px = _detect(
-            entry, sub, out, plots_hash, workers or config.workers
+            entry, sub, out, plots_hash, workers or config.workers, previous
         )
         pts = _to_survey_crs(pts, survey_crs)
         pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots

@@ -22,6 +22,7 @@ from ecoscan.cli._common import (
     print_warnings,
 )
 from ecoscan.inputs import load_points_and_plots
+from ecoscan.lifecycle import output_folder
 from ecoscan.stats.montecarlo import DIRECTIONS
 from ecoscan.tables import format_table
 
@@ -107,14 +108,26 @@ def run(args: argparse.Namespace) -> int:
         stop_after=args.stop_after,
     )
     outdir = check_outdir(args.output)
+    with output_folder(outdir, overwrite=args.overwrite, inputs=[args.points, args.plots]) as tmp:
+        results, inputs, notes = _analyse(args, settings)
+        write_analysis(tmp, inputs, results, settings, notes=notes)
+    _print(args, settings, results, notes, outdir)
+    return 0
+
+
+def _analyse(args: argparse.Namespace, settings: DispersionSettings):
+    from ecoscan.safety import check_quadrat_cells
+
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
+    check_quadrat_cells(settings.quadrat_m, inputs.plots, option="--quadrat")
     notes = list(inputs.notes)
-    warnings = []
     few = settings.too_few_simulations()
     if few:
-        warnings.append(few.replace("simulations (999", "--simulations (999"))
-    results = analyse(inputs, settings)
-    write_analysis(outdir, inputs, results, settings, notes=notes + warnings)
+        print_warnings([few.replace("simulations (999", "--simulations (999")])
+    return analyse(inputs, settings), inputs, notes
+
+
+def _print(args, settings, results, notes, outdir) -> None:
     rows = dispersion_rows(results)
     print(format_table(rows, TABLE_COLUMNS))
     print()
@@ -124,9 +137,6 @@ def run(args: argparse.Namespace) -> int:
         f"verdict: Monte Carlo test ({settings.simulations} simulations, direction "
         f"{settings.direction}, alpha {settings.alpha:g})"
     )
-    warnings += [f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]]
-    print_warnings(warnings)
-    notes.append(f"results in {outdir}")
-    notes.append(f"caution: {CAUTION}")
+    print_warnings([f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]])
+    notes = [*notes, f"results in {outdir}", f"caution: {CAUTION}"]
     print_notes(notes, quiet=args.quiet)
-    return 0

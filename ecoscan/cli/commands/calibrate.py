@@ -91,6 +91,9 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.output)
     if out.suffix.lower() != ".toml":
         raise InputError(f"-o {args.output}: the detector file is written as .toml")
+    from ecoscan.lifecycle import check_output_path
+
+    check_output_path(out, overwrite=args.overwrite, inputs=[args.raster], option="-o")
     if args.tolerance is not None and not args.tolerance > 0:
         raise InputError(f"--tolerance must be positive metres (got {args.tolerance:g})")
     diameter = parse_diameter(args.diameter) if args.diameter else None

@@ -14,6 +14,8 @@ from ecoscan.cli._common import (
     print_warnings,
 )
 from ecoscan.errors import InputError
+from ecoscan.lifecycle import output_folder
+from ecoscan.safety import simulations_arg
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, read_points
 
@@ -53,7 +55,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "metres; above the positional error, well below the plant spacing (e.g. 0.5)",
     )
     p.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
-    add_renamed(p, "--out")
+    add_renamed(p, "--out")  # retired-name
     add_plots_args(p, required=False)
     add_crs_arg(p)
     p.add_argument(
@@ -63,7 +65,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--simulations",
-        type=int,
+        type=simulations_arg("--simulations"),
         default=199,
         metavar="N",
         help="Monte Carlo simulations for the test of a change in R beyond random losses and "
@@ -88,6 +90,15 @@ def _points_file(path: str) -> Path:
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan change``."""
     earlier_path, later_path = _points_file(args.earlier), _points_file(args.later)
+    with output_folder(
+        args.output, overwrite=args.overwrite, inputs=[args.earlier, args.later, args.plots]
+    ) as tmp:
+        result, paths, plots, extra_notes = _change(args, earlier_path, later_path, tmp)
+    _print(args, result, paths, plots, extra_notes)
+    return 0
+
+
+def _change(args, earlier_path: Path, later_path: Path, tmp: Path):
     earlier = read_points(earlier_path, args.crs)
     later = read_points(later_path, args.crs)
     plots_path = args.plots
@@ -116,7 +127,10 @@ def run(args: argparse.Namespace) -> int:
         simulations=args.simulations,
         seed=args.seed,
     )
-    paths = write_change(args.output, result)
+    return result, write_change(tmp, result), plots, extra_notes
+
+
+def _print(args, result, paths, plots, extra_notes) -> None:
     notes = extra_notes + list(result.notes) + ([] if plots is None else plots.notes)
     c = result.counts
     print(
@@ -129,4 +143,3 @@ def run(args: argparse.Namespace) -> int:
     notes.append(f"wrote {len(paths)} files to {args.output}")
     notes.append("automated counts: check lost and new plants in the field before acting on them")
     print_notes(notes, args.quiet)
-    return 0

@@ -15,6 +15,8 @@ from ecoscan.compare import (
     read_results,
     write_comparison,
 )
+from ecoscan.lifecycle import output_folder
+from ecoscan.safety import simulations_arg
 from ecoscan.tables import format_table
 
 NAME = "compare"
@@ -39,7 +41,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="results folders (each with dispersion.csv, points.csv and plots.gpkg)",
     )
     p.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
-    add_renamed(p, "--out")
+    add_renamed(p, "--out")  # retired-name
     p.add_argument(
         "--by",
         choices=BY_CHOICES,
@@ -49,7 +51,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--permutations",
-        type=int,
+        type=simulations_arg("--permutations"),
         default=999,
         metavar="N",
         help="random arrangements of plots for the permutation test (default 999; all "
@@ -66,18 +68,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan compare``."""
-    tables = [read_results(f) for f in args.results]
-    labels = [t.label for t in tables]
-    if len(set(labels)) < len(labels):  # same folder name in different places
-        tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
-    result = compare_groups(
-        tables,
-        args.by,
-        permutations=args.permutations,
-        seed=args.seed,
-        pool_dates=args.pool_dates,
-    )
-    paths = write_comparison(args.output, result)
+    with output_folder(args.output, overwrite=args.overwrite, inputs=args.results) as tmp:
+        tables = [read_results(f) for f in args.results]
+        labels = [t.label for t in tables]
+        if len(set(labels)) < len(labels):  # same folder name in different places
+            tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
+        result = compare_groups(
+            tables,
+            args.by,
+            permutations=args.permutations,
+            seed=args.seed,
+            pool_dates=args.pool_dates,
+        )
+        paths = write_comparison(tmp, result)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
     print(format_table(groups, GROUP_SUMMARY_COLUMNS))
     print()

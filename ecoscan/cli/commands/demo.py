@@ -51,7 +51,10 @@ def run(args: argparse.Namespace) -> int:
 
     data = demo_dir()
     cfg = load_survey(data / "survey.toml")
-    res = run_survey(cfg, output=Path(args.output), workers=args.workers)
+    from ecoscan.safety import cap_workers
+
+    workers = cap_workers(args.workers, quiet=args.quiet)
+    res = run_survey(cfg, output=Path(args.output), workers=workers, overwrite=args.overwrite)
     print_notes(res.notes, args.quiet)
     print_summary(res, args.quiet)
     print_notes(

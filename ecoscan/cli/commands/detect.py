@@ -9,7 +9,9 @@ from ecoscan.cli._common import add_plots_args, print_notes
 from ecoscan.detect import DetectionSettings, detect_raster
 from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
 from ecoscan.errors import InputError
+from ecoscan.lifecycle import check_output_path
 from ecoscan.raster import plots_from_mask
+from ecoscan.safety import cap_workers
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, write_points
 
@@ -173,17 +175,19 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(
             f"unknown output format {out.suffix!r} for {out.name}; use .csv, .gpkg or .geojson"
         )
-    if args.workers < 1:
-        raise InputError(f"--workers must be at least 1 (got {args.workers})")
     settings = settings_from_args(args)
     if args.plots and args.mask:
         raise InputError("give either --plots or --mask, not both")
+    check_output_path(
+        out, overwrite=args.overwrite, inputs=[args.raster, args.plots, args.mask], option="-o"
+    )
+    workers = cap_workers(args.workers, quiet=args.quiet)
     plots = None
     if args.plots:
         plots = read_plots(args.plots, id_field=args.id_field)
     elif args.mask:
         plots = plots_from_mask(args.mask, pixel_size_m=args.pixel_size)
-    res = detect_raster(args.raster, settings, plots=plots, workers=args.workers)
+    res = detect_raster(args.raster, settings, plots=plots, workers=workers)
     write_points(res.points, out)
     print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
     row = {

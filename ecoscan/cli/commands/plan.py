@@ -101,6 +101,10 @@ def _shapes(args: argparse.Namespace) -> dict[str, shapely.Geometry]:
 
 def run(args: argparse.Namespace) -> int:
     """Make the plan, print its tables and answers, optionally write them."""
+    from ecoscan.lifecycle import check_output_path, output_folder
+
+    if args.output:  # refuse existing results before the simulations, not after
+        check_output_path(args.output, overwrite=args.overwrite, folder=True)
     densities = _pair(args.density, "--density", 0, 1e7)
     survival = _pair(args.survival, "--survival", 0, 1)
     target = _pair(args.target_r, "--target-r", 0, 2.1491)
@@ -133,7 +137,8 @@ def run(args: argparse.Namespace) -> int:
     except ValueError as e:
         raise InputError(str(e)) from None
     if args.output:
-        write_plan(plan, args.output)
+        with output_folder(args.output, overwrite=args.overwrite) as tmp:
+            write_plan(plan, tmp)
     print(format_table(plan.pattern_rows, PATTERN_COLUMNS))
     print()
     print(format_table(plan.design_rows, DESIGN_COLUMNS))

@@ -15,6 +15,7 @@ from ecoscan.cli._common import (
 )
 from ecoscan.errors import InputError
 from ecoscan.inputs import load_points_and_plots
+from ecoscan.lifecycle import output_folder
 from ecoscan.scales import ScalesSettings, analyse_scales, scales_rows, write_scales
 from ecoscan.stats.envelopes import GLOBAL_TESTS
 from ecoscan.tables import format_table
@@ -104,9 +105,14 @@ def run(args: argparse.Namespace) -> int:
     )
     if settings.kinds is not None and len(settings.kinds) != 2:
         raise InputError("--kinds needs exactly two values separated by a comma, e.g. live,dead")
-    inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
-    results = analyse_scales(inputs, settings)
-    paths = write_scales(args.output, results, settings)
+    with output_folder(
+        args.output, overwrite=args.overwrite, inputs=[args.points, args.plots]
+    ) as tmp:
+        inputs = load_points_and_plots(
+            args.points, args.plots, crs=args.crs, id_field=args.id_field
+        )
+        results = analyse_scales(inputs, settings)
+        paths = write_scales(tmp, results, settings)
     rows = scales_rows(results)
     cols = ["plot_id", "n", "p_global", "verdict"]
     if any("kinds_verdict" in r for r in rows):

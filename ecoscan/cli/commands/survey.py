@@ -53,18 +53,20 @@ def print_summary(run, quiet: bool = False) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan survey``."""
     from ecoscan.cli._common import print_notes
-    from ecoscan.errors import InputError
+    from ecoscan.safety import cap_workers
     from ecoscan.survey.config import load_survey
     from ecoscan.survey.runner import run_survey
 
-    if args.workers is not None and args.workers < 1:
-        raise InputError("--workers must be at least 1")
+    workers = cap_workers(args.workers, quiet=args.quiet)
     cfg = load_survey(args.survey)
+    if workers is None and cfg.workers > 1:
+        workers = cap_workers(cfg.workers, quiet=args.quiet, option="[survey] workers")
     res = run_survey(
         cfg,
         output=Path(args.output) if args.output else None,
-        workers=args.workers,
+        workers=workers,
         report=not args.no_report,
+        overwrite=args.overwrite,
     )
     print_notes(res.notes, args.quiet)
     print_summary(res, args.quiet)

@@ -8,6 +8,7 @@ from pathlib import Path
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
 from ecoscan.inputs import overlap_note, unsurveyed_note
+from ecoscan.lifecycle import check_output_path
 from ecoscan.outputs import write_csv
 from ecoscan.tables import format_table
 from ecoscan.validation import COLUMNS, align_points, validate_points
@@ -48,6 +49,12 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"-o {args.output}: the accuracy table is written as .csv")
     if not args.tolerance > 0:
         raise InputError(f"--tolerance must be positive metres (got {args.tolerance:g})")
+    if args.output:
+        check_output_path(
+            args.output,
+            overwrite=args.overwrite,
+            inputs=[args.detected, args.reference, args.plots],
+        )
     det = read_points(args.detected, args.crs)
     ref = read_points(args.reference, args.crs)
     plots = None

@@ -157,7 +157,15 @@ def jpeg_vignette(size: int, seed: int) -> ScenePlan:
         seed=tex,
     )
     return ScenePlan(
-        recipe, ps, RGB, c, r, d, kind, (dmin, dmax), extras={"jpeg_quality": 55, "frame_px": frame}
+        recipe,
+        ps,
+        RGB,
+        c,
+        r,
+        d,
+        kind,
+        (dmin, dmax),
+        extras={"jpeg_quality": 55, "frame_px": frame, "frame_offset_px": tuple(f_off)},
     )
 
 
