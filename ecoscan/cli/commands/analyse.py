@@ -121,10 +121,15 @@ def _analyse(args: argparse.Namespace, settings: DispersionSettings):
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
     check_quadrat_cells(settings.quadrat_m, inputs.plots, option="--quadrat")
     notes = list(inputs.notes)
-    few = settings.too_few_simulations()
+    few = _few_simulations(settings)
     if few:
-        print_warnings([few.replace("simulations (999", "--simulations (999")])
+        notes.append(few)  # kept in dispersion.json; printed as a warning after success
     return analyse(inputs, settings), inputs, notes
+
+
+def _few_simulations(settings: DispersionSettings) -> str:
+    few = settings.too_few_simulations()
+    return few.replace("simulations (999", "--simulations (999") if few else ""
 
 
 def _print(args, settings, results, notes, outdir) -> None:
@@ -137,6 +142,9 @@ def _print(args, settings, results, notes, outdir) -> None:
         f"verdict: Monte Carlo test ({settings.simulations} simulations, direction "
         f"{settings.direction}, alpha {settings.alpha:g})"
     )
-    print_warnings([f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]])
-    notes = [*notes, f"results in {outdir}", f"caution: {CAUTION}"]
+    few = _few_simulations(settings)
+    warnings = [few] if few else []
+    warnings += [f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]]
+    print_warnings(warnings)
+    notes = [n for n in notes if n != few] + [f"results in {outdir}", f"caution: {CAUTION}"]
     print_notes(notes, quiet=args.quiet)
