@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
-from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs
+from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
 from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
@@ -41,6 +41,24 @@ __all__ = [
     "detect_raster",
     "parse_band_spec",
 ]
+
+#: Split a blob into two or more smaller ones inside it reaching this share of its response
+#: (touching crowns). Tuned on benchmarks/tuning_scenes.py.
+SPLIT_RATIO = 0.6
+
+#: A blob whose centre is within this share of its radius of a stronger crown's edge (a lobe
+#: or branch) is pruned with it. Tuned on benchmarks/tuning_scenes.py.
+PRUNE_MARGIN = 0.5
+
+#: Readable names of the detection layers.
+LAYER_LABELS = {
+    "exg": "Excess Green",
+    "ndvi": "NDVI",
+    "darkness": "darkness",
+    "band": "the band values",
+    "exg+darkness": "Excess Green + darkness",
+    "ndvi+darkness": "NDVI + darkness",
+}
 
 #: Columns every detection table may carry, in output order after x, y.
 ATTRIBUTE_ORDER = (
@@ -108,6 +126,25 @@ def _band_error(info: RasterInfo, idx: int) -> InputError:
     )
 
 
+def _band_lookup(info: RasterInfo, settings: DetectionSettings) -> dict[str, int]:
+    """Band of each role (red, green, blue, nir) from --bands, names or colour interpretation."""
+    spec = dict(settings.band_spec)
+    names_in_file = {d: i for d, i in zip(info.descriptions, info.data_bands, strict=True) if d}
+    lookup = dict(spec)
+    if not spec:
+        for key in ("red", "green", "blue", "nir"):
+            for name, i in names_in_file.items():
+                if name == key or (key == "nir" and ("nir" in name or "infrared" in name)):
+                    lookup.setdefault(key, i)
+        for key, i in zip(info.colorinterp, info.data_bands, strict=True):
+            if key in ("red", "green", "blue"):
+                lookup.setdefault(key, i)
+        if info.count >= 3:
+            for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
+                lookup.setdefault(key, i)
+    return lookup
+
+
 def choose_method(
     info: RasterInfo, settings: DetectionSettings
 ) -> tuple[str, tuple[int, ...], str | None, list[str]]:
@@ -127,7 +164,6 @@ def choose_method(
     for idx in spec.values():
         if idx not in info.data_bands:
             raise _band_error(info, idx)
-    names_in_file = {d: i for d, i in zip(info.descriptions, info.data_bands, strict=True) if d}
     method = settings.method
     if method == "auto":
         if len(spec) >= 2 or (not spec and info.count >= 3):
@@ -145,19 +181,7 @@ def choose_method(
     if method in ("chm", "classes"):
         band = next(iter(spec.values()), info.data_bands[0])
         return method, (band,), None, notes
-    # imagery: find red/green/blue/nir
-    lookup = dict(spec)
-    if not spec:
-        for key in ("red", "green", "blue", "nir"):
-            for name, i in names_in_file.items():
-                if name == key or (key == "nir" and ("nir" in name or "infrared" in name)):
-                    lookup.setdefault(key, i)
-        for key, i in zip(info.colorinterp, info.data_bands, strict=True):
-            if key in ("red", "green", "blue"):
-                lookup.setdefault(key, i)
-        if info.count >= 3:
-            for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
-                lookup.setdefault(key, i)
+    lookup = _band_lookup(info, settings)
     index = settings.index
     if index == "auto":
         if "red" in lookup and "nir" in lookup:
@@ -216,6 +240,15 @@ def _global_params(
                 "check --diameter"
             )
     if method == "imagery":
+        scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
+        overlap = max(scales.support_px, math.ceil(dmax_px))
+        auto = (
+            settings.index == "auto"
+            and settings.threshold is None
+            and settings.min_contrast is None
+        )
+        if auto:
+            return _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
         from skimage.filters import threshold_otsu
 
         layer = vegetation_layer(data, index)[valid]
@@ -234,7 +267,6 @@ def _global_params(
             if settings.min_contrast is not None
             else 0.5 * max(hi - lo, 1e-6)
         )
-        scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
         params = DetectorParams(
             method="imagery",
             bands=bands,
@@ -244,13 +276,23 @@ def _global_params(
             min_response=DISC_RESPONSE * contrast,
             min_value=t,
             fill_value=lo,
+            split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         )
-        overlap = max(scales.support_px, math.ceil(dmax_px))
         how = "given" if settings.threshold is not None else "Otsu on the whole raster"
         notes.append(
             f"vegetation threshold {t:.4g} ({how}); smallest crown contrast {contrast:.4g}"
         )
-        th = {"vegetation_threshold": t, "min_contrast": contrast, "background": lo}
+        th = {
+            "layer": index,
+            "layer_chosen_by": "given (--index, --threshold or --min-contrast)",
+            "vegetation_threshold": t,
+            "vegetation_threshold_from": how,
+            "min_contrast": contrast,
+            "min_contrast_from": (
+                "given" if settings.min_contrast is not None else "half the Otsu class gap"
+            ),
+            "background": lo,
+        }
         return params, overlap, scales.align, th, notes
     if method == "chm":
         hmax = float(np.max(data[0][valid]))
@@ -308,6 +350,119 @@ def _global_params(
     overlap = math.ceil(1.5 * dmax_px) + 2
     th = {"min_area_m2": min_area}
     return params, overlap, 1, th, notes
+
+
+#: Pixels read at full resolution to choose the layer and thresholds (sample windows).
+SAMPLE_BUDGET_PX = 1_600_000
+
+
+def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: float):
+    """Full-resolution windows spread over the raster, for layer and threshold statistics.
+
+    The whole raster when it is small; otherwise up to 16 windows on a regular grid whose
+    cores total about :data:`SAMPLE_BUDGET_PX` pixels, each read with a margin of the
+    filters' reach so that its candidates are those of a whole-image run.
+    """
+    from ecoscan.detect.autotune import SampleWindow
+    from ecoscan.raster import read_window
+
+    margin = scales.support_px
+    w, h = info.width, info.height
+    if w * h <= SAMPLE_BUDGET_PX:
+        data, valid = read_window(info, bands, (0, 0, w, h))
+        return [SampleWindow(data, valid, (slice(0, h), slice(0, w)))]
+    side = int(min(max(384, 6 * dmax_px), w, h))
+    n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
+    per = math.ceil(math.sqrt(n))
+    out = []
+    for gy in range(per):
+        for gx in range(per):
+            cy = int((gy + 0.5) * h / per)
+            cx = int((gx + 0.5) * w / per)
+            c0 = int(np.clip(cx - side // 2, 0, w - side))
+            r0 = int(np.clip(cy - side // 2, 0, h - side))
+            win = (
+                max(0, c0 - margin),
+                max(0, r0 - margin),
+                min(w, c0 + side + margin),
+                min(h, r0 + side + margin),
+            )
+            data, valid = read_window(info, bands, win)
+            core = (slice(r0 - win[1], r0 - win[1] + side), slice(c0 - win[0], c0 - win[0] + side))
+            if valid[core].mean() > 0.2:
+                out.append(SampleWindow(data, valid, core))
+    if not out:  # mostly nodata: take the whole raster decimated would lose crowns; use any
+        data, valid = read_window(info, bands, (0, 0, min(w, 2 * side), min(h, 2 * side)))
+        out.append(SampleWindow(data, valid, (slice(0, data.shape[1]), slice(0, data.shape[2]))))
+    return out
+
+
+def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
+    """Layer and thresholds chosen from the image (robust background statistics)."""
+    from ecoscan.detect.autotune import RESPONSE_MADS, VALUE_MADS, choose_layer
+
+    lookup = _band_lookup(info, settings)
+    roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
+    abands = tuple(lookup[r] for r in roles)
+    if not roles:
+        roles, abands = ("band",), bands
+    windows = _sample_windows(info, abands, scales, dmax_px)
+    if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
+        return None, 0, 1, {}, [*notes, "the image is constant: no plants found"]
+    choice = choose_layer(windows, roles, scales)
+    del windows
+    params = DetectorParams(
+        method="imagery",
+        bands=abands,
+        pixel_size_m=info.pixel_size_m,
+        index=choice.name,
+        scales=scales,
+        min_response=DISC_RESPONSE * choice.min_contrast,
+        min_response_by_scale=choice.min_response,
+        min_value=choice.min_value,
+        fill_value=choice.background,
+        roles=roles,
+        terms=choice.terms,
+        split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+    )
+    tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
+    notes.append(
+        f"detection layer: {LAYER_LABELS.get(choice.name, choice.name)}, chosen from the image "
+        f"(separation score {tried})"
+    )
+    notes.append(
+        f"thresholds from the background (median {choice.background:.4g}, robust SD "
+        f"{choice.spread:.4g}): crown contrast at least {choice.min_contrast:.4g}, centre "
+        f"value at least {choice.min_value:.4g}"
+    )
+    if choice.weak:
+        notes.append(
+            f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit near "
+            "the threshold; counts may be unreliable: calibrate a detector on mapped plants "
+            "(ecoscan calibrate) or set --threshold and check with ecoscan validate"
+        )
+    th = {
+        "layer": choice.name,
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_terms": [[n, w] for n, w in choice.terms],
+        "layer_chosen_by": "largest separation score on sample windows",
+        "layer_scores": choice.scores,
+        "background": choice.background,
+        "background_spread": choice.spread,
+        "min_contrast": choice.min_contrast,
+        "min_contrast_from": (
+            f"{RESPONSE_MADS:g} x robust SD (1.4826 MAD) of the blob response over background "
+            "pixels, per scale (median over scales shown as disc contrast)"
+        ),
+        "min_response_by_scale": list(choice.min_response),
+        "vegetation_threshold": choice.min_value,
+        "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
+        "near_threshold_share": choice.near_share,
+        "weak_separation": choice.weak,
+        "split_touching": params.split_ratio > 0,
+    }
+    return params, overlap, scales.align, th, notes
 
 
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
@@ -390,7 +545,13 @@ def detect_raster(
     method, bands, index, more = choose_method(info, settings)
     notes += more
     params, overlap, align, thresholds, more = _global_params(info, settings, method, bands, index)
-    warn = [n for n in more if "unreliable" in n or "no plants" in n or "no trees" in n]
+    warn = [
+        n
+        for n in more
+        if "unreliable" in n or "no plants" in n or "no trees" in n or "weak separation" in n
+    ]
+    if method == "imagery" and thresholds.get("layer"):
+        index = thresholds["layer"]
     notes += more
     ps = info.pixel_size_m
     # target metric CRS, chosen from the raster centre (not the detections)
@@ -429,7 +590,19 @@ def detect_raster(
     attrs: dict[str, np.ndarray] = {}
     if n and method == "imagery":
         radius = math.sqrt(2.0) * table["sigma_px"]
-        keep = prune_blobs(table["col"], table["row"], radius, table["score"])
+        if params.split_ratio > 0:
+            merged = split_merged(
+                table["col"], table["row"], radius, table["score"], params.split_ratio
+            )
+            table = {k: v[~merged] for k, v in table.items()}
+            radius = radius[~merged]
+        keep = prune_blobs(
+            table["col"],
+            table["row"],
+            radius,
+            table["score"],
+            margin=PRUNE_MARGIN if params.split_ratio > 0 else 0.0,
+        )
         table = {k: v[keep] for k, v in table.items()}
         attrs["diameter_m"] = 2.0 * math.sqrt(2.0) * table["sigma_px"] * ps
         attrs["score"] = table["score"]
