@@ -234,6 +234,12 @@ def _global_params(
                 f"the smallest crowns are only {dmin_px:.1f} pixels across; detection of "
                 "crowns under about 3 pixels is unreliable"
             )
+        if dmax_px > MAX_REACH_PX:
+            raise InputError(
+                f"the largest diameter {settings.diameter_max_m:g} m is {dmax_px:.0f} pixels at "
+                f"{ps:.3g} m pixels (at most {MAX_REACH_PX}); check --diameter (metres) and the "
+                "pixel size"
+            )
         if dmax_px > 0.5 * min(info.width, info.height):
             notes.append(
                 f"the largest diameter ({dmax_px:.0f} pixels) is more than half the raster; "
@@ -242,6 +248,9 @@ def _global_params(
     if method == "imagery":
         scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
         overlap = max(scales.support_px, math.ceil(dmax_px))
+        _check_tile_memory(
+            name, settings, overlap, len(bands) + 1, 2 * (scales.sigmas.size + 2), "the blob filter"
+        )
         auto = (
             settings.index == "auto"
             and settings.threshold is None
@@ -295,7 +304,7 @@ def _global_params(
         }
         return params, overlap, scales.align, th, notes
     if method == "chm":
-        hmax = float(np.max(data[0][valid]))
+        hmax = _chm_height_check(name, data[0][valid])
         a, b, c = CROWN_RULES[settings.crown_rule]
         hcap = max(hmax * 1.2 + 1.0, settings.min_height_m)
         cap_px = math.ceil((a + b * hcap + c * hcap**2) / 2.0 / ps)
@@ -311,7 +320,14 @@ def _global_params(
             crown_floor_m=0.5 * settings.min_height_m,
             crowns=settings.crowns,
         )
+        if cap_px > MAX_REACH_PX // 2 or smooth_px > MAX_REACH_PX // 8:
+            raise InputError(
+                f"at {ps:g} m pixels the crown search window of a {hcap:.0f} m tree is "
+                f"{2 * cap_px} pixels across (smoothing {smooth_px:.0f} pixels): too large to "
+                "process; check the pixel size and that heights are in metres"
+            )
         overlap = 2 * cap_px + math.ceil(3 * smooth_px) + 2
+        _check_tile_memory(name, settings, overlap, 1, 4, "the crown search window")
         if hmax < settings.min_height_m:
             notes.append(
                 f"the highest pixel ({hmax:.3g}) is below --min-height {settings.min_height_m:g}: "
@@ -348,6 +364,7 @@ def _global_params(
         h_px=max(1.0, 0.2 * dmin_px / 2.0),
     )
     overlap = math.ceil(1.5 * dmax_px) + 2
+    _check_tile_memory(name, settings, overlap, 1, 6, "the patch search")
     th = {"min_area_m2": min_area}
     return params, overlap, 1, th, notes
 
@@ -465,6 +482,97 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     return params, overlap, scales.align, th, notes
 
 
+#: Tallest plausible height in a canopy height model, metres. The tallest measured living
+#: trees are about 116 m (coast redwood; from memory); 150 m leaves a margin.
+MAX_TREE_HEIGHT_M = 150.0
+#: Coarsest pixel at which single crowns can be told apart, metres (common practice: tree
+#: detection needs several pixels per crown; 20 m pixels are already coarser than most crowns).
+MAX_CHM_PIXEL_M = 20.0
+#: Largest crown search window or blob, in pixels: beyond this the filters and windows
+#: would need gigabytes per tile (memory is checked before anything is allocated).
+MAX_REACH_PX = 2048
+#: Memory one tile may use (bytes), estimated before the work starts.
+MAX_TILE_BYTES = 1.5e9
+
+
+def check_height_model(info: RasterInfo, settings: DetectionSettings) -> None:
+    """Refuse, before any work, a raster that cannot be a canopy height model in metres.
+
+    Checks what the header tells: one band (or one chosen with ``--bands``), not 8-bit
+    integers (ordinary images), a pixel size fine enough to separate crowns. Height values
+    are checked after the decimated read (:func:`_chm_height_check`).
+
+    Raises
+    ------
+    InputError
+        With what is wrong and what to do.
+
+    Examples
+    --------
+    ``detect_raster("ortho.tif", DetectionSettings(method="chm"))`` on a 3-band RGB image
+    raises ``InputError("ortho.tif has 3 bands, but --method chm needs a canopy height
+    model ...")`` before any pixel is read.
+    """
+    name = Path(info.path).name
+    if info.count > 1 and not settings.band_spec:
+        raise InputError(
+            f"{name} has {info.count} bands, but --method chm needs a canopy height model "
+            "(one band of heights in metres); use --method imagery for an image, or choose "
+            "the height band with --bands N"
+        )
+    dt = np.dtype(info.dtype)
+    if dt.kind in "ui" and dt.itemsize == 1:
+        raise InputError(
+            f"{name} holds 8-bit integers ({info.dtype}), which are image brightness values, "
+            "not heights in metres; use --method imagery for an image, or give a canopy "
+            "height model in metres"
+        )
+    ps = info.pixel_size_m
+    if ps > MAX_CHM_PIXEL_M:
+        raise InputError(
+            f"{name} has {ps:g} m pixels, too coarse to separate tree crowns (at most "
+            f"{MAX_CHM_PIXEL_M:g} m); check the pixel size (--pixel-size) or the raster"
+        )
+
+
+def _chm_height_check(name: str, heights: np.ndarray) -> float:
+    """Highest height after the plausibility check; raise InputError when implausible."""
+    finite = np.isfinite(heights)
+    if not finite.all():
+        raise InputError(
+            f"{name} contains infinite or NaN heights that are not marked as nodata; set the "
+            "raster's nodata value (e.g. gdal_edit.py -a_nodata) and retry"
+        )
+    hmax = float(heights.max())
+    hmin = float(heights.min())
+    if hmax > MAX_TREE_HEIGHT_M:
+        raise InputError(
+            f"{name} has heights up to {hmax:.4g}, implausible for trees in metres (at most "
+            f"{MAX_TREE_HEIGHT_M:g} m); convert centimetres or feet to metres, subtract the "
+            "ground (a surface model is not a height model), or declare the nodata value"
+        )
+    if hmin < -MAX_TREE_HEIGHT_M:
+        raise InputError(
+            f"{name} has heights down to {hmin:.4g}, implausible for a canopy height model "
+            "in metres; declare the nodata value or check the units"
+        )
+    return hmax
+
+
+def _check_tile_memory(
+    name: str, settings: DetectionSettings, overlap: int, nbands: int, arrays: int, what: str
+) -> None:
+    """Refuse a plan whose tiles would need more than :data:`MAX_TILE_BYTES`."""
+    side = settings.tile_size_px + 2 * overlap
+    need = float(side) * side * 4 * (nbands + arrays)
+    if overlap > MAX_REACH_PX or need > MAX_TILE_BYTES:
+        raise InputError(
+            f"{what} reaches {overlap} pixels around each tile of {name}, so one tile would "
+            f"need about {need / 1e9:.1f} GB; check the pixel size and --diameter (in metres), "
+            "or lower --tile-size"
+        )
+
+
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
     import shapely
 
@@ -544,6 +652,8 @@ def detect_raster(
     notes = list(info.notes)
     method, bands, index, more = choose_method(info, settings)
     notes += more
+    if method == "chm":
+        check_height_model(info, settings)
     params, overlap, align, thresholds, more = _global_params(info, settings, method, bands, index)
     warn = [
         n
