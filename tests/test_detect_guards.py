@@ -1,9 +1,9 @@
 """Bad input to the detectors is refused before any large allocation, with a clean exit 2.
 
 The bad cases run through the command line (``ecoscan.cli.main``) in one subprocess whose
-address space is capped with ``resource.setrlimit(RLIMIT_AS, ...)``: a detector that started allocating
-for an absurd window would hit the cap (MemoryError, exit 1) instead of exiting 2 with a
-one-line ``error:``. All rasters are invented.
+address space is capped with ``resource.setrlimit(RLIMIT_AS, ...)``: a detector that
+started allocating for an absurd window would hit the cap (MemoryError) instead of
+exiting 2 with a one-line ``error:``. All rasters are invented.
 """
 
 from __future__ import annotations

@@ -38,7 +38,9 @@ __all__ = [
     "DetectionResult",
     "DetectionSettings",
     "choose_method",
+    "describe_settings",
     "detect_raster",
+    "detection_metadata",
     "parse_band_spec",
 ]
 
@@ -119,6 +121,77 @@ class DetectionResult:
         return self.points.n
 
 
+def _plain(v):
+    """JSON-safe copy (numpy scalars and arrays to Python numbers and lists)."""
+    if isinstance(v, dict):
+        return {str(k): _plain(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_plain(x) for x in v]
+    if isinstance(v, np.generic):
+        return v.item()
+    if isinstance(v, np.ndarray):
+        return v.tolist()
+    return v
+
+
+def detection_metadata(result: DetectionResult, settings: DetectionSettings | None = None) -> dict:
+    """What a detection run chose and why, as a JSON-ready mapping.
+
+    Recorded beside the points (``ecoscan detect`` writes it to ``NAME.detection.json``)
+    and in a survey's ``run.json``: the detector, the layer and how it was chosen, every
+    threshold with its origin, and the warnings.
+
+    Examples
+    --------
+    >>> meta = detection_metadata(result)  # doctest: +SKIP
+    >>> meta["thresholds"]["layer"]  # doctest: +SKIP
+    'exg'
+    """
+    out = {
+        "method": result.method,
+        "layer": result.index,
+        "pixel_size_m": float(result.pixel_size_m),
+        "plants": int(result.n),
+        "thresholds": _plain(result.thresholds),
+        "warnings": list(result.warnings),
+        "tiles": {"total": result.tiles_total, "read": result.tiles_read},
+    }
+    if settings is not None:
+        out["settings"] = _plain(settings.to_dict())
+    if result.raster is not None:
+        out["raster"] = Path(result.raster.path).name
+    return out
+
+
+def describe_settings(meta: dict) -> str:
+    """One line on the detection settings of a run, for reports.
+
+    Examples
+    --------
+    >>> describe_settings({"method": "chm", "thresholds": {"min_height_m": 2.0}})
+    'chm detector; lowest tree top 2 m'
+    """
+    th = meta.get("thresholds") or {}
+    method = meta.get("method", "")
+    if method == "imagery" and th:
+        layer = LAYER_LABELS.get(th.get("layer", ""), th.get("layer", ""))
+        chosen = th.get("layer_chosen_by", "")
+        how = "chosen from the image" if chosen.startswith("largest") else "as given"
+        text = (
+            f"imagery detector; layer {layer} ({how}); crown contrast at least "
+            f"{th.get('min_contrast', float('nan')):.3g}, centre value at least "
+            f"{th.get('vegetation_threshold', float('nan')):.3g}"
+        )
+        if th.get("weak_separation"):
+            text += "; weak separation: check by eye or calibrate"
+        return text
+    if method == "chm":
+        return f"chm detector; lowest tree top {th.get('min_height_m', float('nan')):g} m"
+    if method == "classes":
+        return f"classes detector; smallest patch {th.get('min_area_m2', float('nan')):.3g} m²"
+    return f"{method} detector"
+
+
 def _band_error(info: RasterInfo, idx: int) -> InputError:
     return InputError(
         f"band {idx} is out of range: {Path(info.path).name} has data bands "
@@ -143,6 +216,11 @@ def _band_lookup(info: RasterInfo, settings: DetectionSettings) -> dict[str, int
             for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
                 lookup.setdefault(key, i)
     return lookup
+
+
+def _auto_layer(settings: DetectionSettings) -> bool:
+    """True when the imagery layer and thresholds are chosen from the image."""
+    return settings.index == "auto" and settings.threshold is None and settings.min_contrast is None
 
 
 def choose_method(
@@ -196,6 +274,9 @@ def choose_method(
                 "NDVI needs the red and near-infrared bands; name them, e.g. --bands red=3,nir=4"
             )
         bands = (lookup["red"], lookup["nir"])
+    elif index == "darkness":
+        rgb = tuple(lookup[k] for k in ("red", "green", "blue") if k in lookup)
+        bands = rgb or (next(iter(spec.values()), info.data_bands[0]),)
     elif index == "exg":
         if not all(k in lookup for k in ("red", "green", "blue")):
             raise InputError(
@@ -204,8 +285,9 @@ def choose_method(
         bands = (lookup["red"], lookup["green"], lookup["blue"])
     else:
         bands = (next(iter(spec.values()), info.data_bands[0]),)
-    label = {"ndvi": "NDVI", "exg": "Excess Green", "band": "the band values"}[index]
-    notes.append(f"vegetation layer: {label} from band(s) {', '.join(map(str, bands))}")
+    label = LAYER_LABELS[index]
+    if not _auto_layer(settings):
+        notes.append(f"vegetation layer: {label} from band(s) {', '.join(map(str, bands))}")
     return method, bands, index, notes
 
 
@@ -251,12 +333,7 @@ def _global_params(
         _check_tile_memory(
             name, settings, overlap, len(bands) + 1, 2 * (scales.sigmas.size + 2), "the blob filter"
         )
-        auto = (
-            settings.index == "auto"
-            and settings.threshold is None
-            and settings.min_contrast is None
-        )
-        if auto:
+        if _auto_layer(settings):
             return _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
         from skimage.filters import threshold_otsu
 

@@ -106,6 +106,8 @@ def vegetation_layer(data: np.ndarray, index: str) -> np.ndarray:
         return excess_green(data[0], data[1], data[2])
     if index == "ndvi":
         return ndvi(data[0], data[1])
+    if index == "darkness":
+        return darkness(*data)
     return np.asarray(data[0], np.float32)
 
 

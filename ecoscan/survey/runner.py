@@ -75,6 +75,7 @@ class RasterRun:
     cached: bool
     pixel_size_m: float
     raster_crs: Any = None  # the raster's own CRS (the report's previews need it)
+    detection: dict = field(default_factory=dict)  # layer, thresholds and how chosen
 
 
 @dataclass
@@ -147,7 +148,7 @@ def _to_survey_crs(points: PointSet, crs) -> PointSet:
 
 
 def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, workers: int):
-    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
 
     settings = DetectionSettings.from_mapping(entry.detect)
     pts_dir = out / "points"
@@ -165,8 +166,10 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
             info.get("notes", []),
             True,
             float(info.get("pixel_size_m", float("nan"))),
+            info.get("detection", {}),
         )
     res = detect_raster(entry.path, settings, plots=layer, workers=workers)
+    detection = detection_metadata(res)
     write_points(res.points, gpkg)
     write_points(res.points, csv)
     mark_done(
@@ -176,11 +179,12 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
         notes=list(res.notes),
         pixel_size_m=float(res.pixel_size_m),
         raster=entry.path.name,
+        detection=detection,
     )
     # analyse what was written (coordinates to the millimetre), so that a rerun from the
     # cache gives byte-identical tables
     pts = read_points(csv)
-    return pts, res.method, list(res.notes), False, float(res.pixel_size_m)
+    return pts, res.method, list(res.notes), False, float(res.pixel_size_m), detection
 
 
 def run_survey(
@@ -240,7 +244,7 @@ def run_survey(
             )
         sub = _layer_subset(layer, touches)
         log.info("detecting plants in %s", entry.path.name)
-        pts, method, notes, cached, px = _detect(
+        pts, method, notes, cached, px, detection = _detect(
             entry, sub, out, plots_hash, workers or config.workers
         )
         pts = _to_survey_crs(pts, survey_crs)
@@ -257,7 +261,7 @@ def run_survey(
 
             scl = analyse_scales(inputs, scales_settings)
         run.rasters.append(
-            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs)
+            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs, detection)
         )
         for row in dispersion_rows(disp):
             run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
@@ -432,6 +436,7 @@ def _write_provenance(run, stat_settings, scales_settings, started, finished, se
                     "plants": r.points.n,
                     "from_cache": r.cached,
                     "pixel_size_m": r.pixel_size_m,
+                    "detection": r.detection,
                 }
                 for r in run.rasters
             ],
