@@ -1,4 +1,4 @@
-"""Synthetic rasters with known plant positions, for tests, benchmarks and demo data.
+"""Disc scenes: the original synthetic renderers (tests, benchmarks and demo data).
 
 Everything here is invented: crowns are soft-edged discs of varied size and brightness on a
 textured soil, canopy heights are domes, class maps are discs of a chosen class value. The
