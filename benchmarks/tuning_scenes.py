@@ -14,7 +14,9 @@ accuracy measured on the suite is not flattered by tuning on the same look:
 
 Styles: ``mixed`` (all colours on soil), ``grass`` (pale green-grey grass patches between
 darker shrubs), ``pasture`` (dark crowns on green grass), ``clumps`` (touching pairs and
-triples of similar size), ``nir`` (four bands, uint16, blue-green-red-NIR).
+triples of similar size), ``nir`` (four bands, uint16, blue-green-red-NIR), ``canopy``
+(crowns of several greens packed edge to edge over dark shaded ground), ``coarse``
+(``mixed`` averaged over 3 × 3 pixels: 0.15 m pixels, smallest crowns 4 pixels).
 
 Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
 
@@ -33,7 +35,7 @@ from scipy import ndimage
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-STYLES = ("mixed", "grass", "pasture", "clumps", "nir")
+STYLES = ("mixed", "grass", "pasture", "clumps", "nir", "canopy", "coarse")
 TUNING_SEEDS = tuple(range(100, 104))
 PIXEL_M = 0.05
 DIAMETER_M = (0.6, 2.0)
@@ -107,15 +109,24 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     """
     if style not in STYLES:
         raise ValueError(style)
+    if style == "coarse":
+        img, xy, d = make_tuning_scene("mixed", seed, size_px)
+        h = size_px // 3 * 3
+        f = img[:, :h, :h].astype(np.float32).reshape(3, h // 3, 3, h // 3, 3).mean(axis=(2, 4))
+        f += np.random.default_rng(seed).normal(0, 3.0, f.shape).astype(np.float32)
+        keep = (xy[:, 0] < h) & (xy[:, 1] < h)
+        return np.clip(np.rint(f), 0, 255).astype(np.uint8), (xy[keep] - 1.0) / 3.0, d[keep] / 3
     gen = np.random.default_rng(seed * 31 + STYLES.index(style))
     shape = (size_px, size_px)
     dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
-    n = int(size_px * size_px / 3200) if style != "clumps" else int(size_px * size_px / 2600)
-    xy, d = _place(shape, n, dpx, gen, clumps=style == "clumps")
+    n = int(size_px * size_px / {"clumps": 2600, "canopy": 700}.get(style, 3200))
+    xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
     # background
     mott = 0.10 * _noise(shape, gen, 18) + 0.06 * _noise(shape, gen, 4)
     if style == "pasture":
         bg = np.array(_PASTURE, np.float32)[:, None, None] * (1 + 1.3 * mott)[None]
+    elif style == "canopy":
+        bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.45 * (1 + mott)[None]
     else:
         bg = np.array(_LATERITE, np.float32)[:, None, None] * (1 + mott)[None]
     img = bg.copy()
@@ -138,6 +149,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         palette = [_CONIFER]
     elif style == "grass":
         palette = [_GREEN, _OLIVE]
+    elif style == "canopy":
+        palette = [_GREEN, _OLIVE, (70, 120, 52), (88, 132, 70)]
     else:
         palette = [_GREEN, _GREEN, _OLIVE, _STRAW, _GREYBLUE]
     order = np.argsort(d)[::-1]  # small crowns drawn over large ones
@@ -190,17 +203,18 @@ def write_tuning_scene(folder: Path, style: str, seed: int, size_px: int = 640):
     from ecoscan.synthetic import write_geotiff
 
     img, xy, d = make_tuning_scene(style, seed, size_px)
+    ps = 3 * PIXEL_M if style == "coarse" else PIXEL_M
     x0, y0 = 500000.0, 4100000.0
     path = write_geotiff(
         Path(folder) / f"tune_{style}_{seed}.tif",
         img,
-        from_origin(x0, y0, PIXEL_M, PIXEL_M),
+        from_origin(x0, y0, ps, ps),
         "EPSG:32631",
     )
     pts = PointSet(
-        x0 + (xy[:, 0] + 0.5) * PIXEL_M,
-        y0 - (xy[:, 1] + 0.5) * PIXEL_M,
-        {"diameter_m": d * PIXEL_M},
+        x0 + (xy[:, 0] + 0.5) * ps,
+        y0 - (xy[:, 1] + 0.5) * ps,
+        {"diameter_m": d * ps},
         CRS.from_user_input("EPSG:32631"),
     )
     return path, pts

@@ -51,6 +51,15 @@ RESPONSE_MADS = 2.5
 VALUE_MADS = 1.0
 #: Background pixels are those farther than this many crown radii from a plant candidate.
 EXCLUDE = 2.0
+#: Smallest share of the sampled pixels that must remain as background at the widest
+#: exclusion before narrower ones are tried.
+MIN_BACKGROUND = 0.05
+#: Scale (pixels) from which the response threshold rises (see :func:`response_mads`).
+REFERENCE_SIGMA_PX = 4.0
+#: Closed canopy: response noise is this many times that of the pixel noise alone.
+TEXTURE = 3.0
+#: Rounds of background estimation (each excludes the candidates the last one found).
+ROUNDS = 4
 #: Candidates within this factor of the response threshold count as "near the threshold".
 NEAR = 1.3
 #: Warn about weak separation when more than this share of the kept candidates is near it.
@@ -109,6 +118,9 @@ class LayerChoice:
         threshold.
     candidates : int
         Candidates kept in the sample windows.
+    closed : bool
+        Little background between the candidates (closed canopy): the background came
+        from narrow gaps and the centre-value test is off (``min_value`` is −inf).
     scores : dict
         Separation of every layer tried.
     """
@@ -124,6 +136,7 @@ class LayerChoice:
     near_share: float
     candidates: int
     scores: dict = field(default_factory=dict)
+    closed: bool = False
 
     @property
     def weak(self) -> bool:
@@ -226,6 +239,60 @@ def _spreads(layers, windows, scales, masks, fill):
     )
 
 
+def pixel_noise(layer: np.ndarray, valid: np.ndarray) -> float:
+    """Standard deviation of pixel noise by Immerkær's Laplacian-difference estimator.
+
+    Immerkær, J. (1996). Fast noise variance estimation. Computer Vision and Image
+    Understanding 64: 300-302: σ = √(π/2) · mean |I ∗ N| / 6 with
+    N = [[1, −2, 1], [−2, 4, −2], [1, −2, 1]], which cancels smooth structure (crowns,
+    gradients), so the estimate holds where plants cover most of the image. The mean is
+    taken over valid interior pixels.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> img = rng.normal(0, 2.0, (400, 400)) + np.linspace(0, 50, 400)[None]
+    >>> round(pixel_noise(img, np.ones(img.shape, bool)), 1)
+    2.0
+    """
+    from scipy import ndimage
+
+    kern = np.array([[1, -2, 1], [-2, 4, -2], [1, -2, 1]], np.float32)
+    conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
+    inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
+    if not inner.any():
+        return 0.0
+    return float(math.sqrt(math.pi / 2.0) * conv[inner].mean() / 6.0)
+
+
+def _white_spread(scales: BlobScales, shape: tuple[int, int]) -> np.ndarray:
+    """Response spread per scale of unit white noise (fixed seed, so deterministic)."""
+    side = int(min(max(shape), 512))
+    noise = np.random.default_rng(12345).standard_normal((side, side)).astype(np.float32)
+    return response_spread(noise, scales, np.ones((side, side), bool), 0.0)
+
+
+def response_mads(scales: BlobScales) -> np.ndarray:
+    """Response threshold per scale, in background standard deviations.
+
+    Noise maxima get denser at small scales (about one per σ² pixels), so for the same
+    number of false candidates per area the threshold rises as σ falls. For a normal tail
+    P(X > k) ∝ exp(−k²/2), a density ratio ρ is offset by k² + 2 ln ρ: here
+    k(σ) = √(K² + 2 ln max(1, (σ_ref/σ)²)) with K = ``RESPONSE_MADS`` and σ_ref =
+    ``REFERENCE_SIGMA_PX`` (the smallest scale of the tuning scenes).
+
+    Examples
+    --------
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> k = response_mads(blob_scales(2, 20))
+    >>> bool(k[1] > k[-2] == RESPONSE_MADS)
+    True
+    """
+    ratio = np.maximum(1.0, (REFERENCE_SIGMA_PX / scales.sigmas) ** 2)
+    return np.sqrt(RESPONSE_MADS**2 + 2.0 * np.log(ratio))
+
+
 def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     i = np.rint(np.log(sigma / scales.sigmas[0]) / math.log(scales.k)).astype(int)
     return np.clip(i, 0, scales.sigmas.size - 1)
@@ -243,32 +310,50 @@ def _score_layer(layers, windows, scales):
     # background: pixels away from candidates that stand out (their discs and the ring the
     # filters spread around them), found in two rounds as the noise estimate improves
     m, s, sr = m0, s0, sr0
-    for _round in range(2):
+    closed = False
+    for _round in range(ROUNDS):
         strong = (cand["response"] >= RESPONSE_MADS * sr[si]) & (cand["value"] >= m)
-        bg_masks, bg_vals = [], []
-        for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
-            sel = strong & (cand["w"] == wi)
-            covered = _disc_mask(
-                lay.shape,
-                cand["row"][sel],
-                cand["col"][sel],
-                EXCLUDE * math.sqrt(2) * cand["sigma"][sel],
+        # the widest exclusion that leaves enough background; closed canopy leaves little
+        for factor in (EXCLUDE, 1.0, 0.6):
+            bg_masks, bg_vals = [], []
+            for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+                sel = strong & (cand["w"] == wi)
+                covered = _disc_mask(
+                    lay.shape,
+                    cand["row"][sel],
+                    cand["col"][sel],
+                    factor * math.sqrt(2) * cand["sigma"][sel],
+                )
+                bg_masks.append(win.valid & ~covered)
+                bg_vals.append(lay[bg_masks[-1]])
+            bg = np.concatenate(bg_vals)
+            if bg.size >= MIN_BACKGROUND * vals.size:
+                break
+        closed = factor < EXCLUDE
+        if closed:
+            # crowns cover most of the image: background statistics are contaminated by
+            # them; the response noise comes from the pixel noise instead, with room for
+            # texture inside crowns
+            noise = np.median(
+                [pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)]
             )
-            bg_masks.append(win.valid & ~covered)
-            bg_vals.append(lay[bg_masks[-1]])
-        bg = np.concatenate(bg_vals)
-        if bg.size < 0.05 * vals.size:
+            sr = TEXTURE * noise * _white_spread(scales, layers[0].shape)
+            m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
             break
         m1, s1 = robust_centre_scale(bg)
         if not s1 > 0:
             break
         m, s = m1, s1
         sr = _spreads(layers, windows, scales, bg_masks, m)
-    q = cand["response"] / sr[si]
+    kk = response_mads(scales)
+    q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s
-    kept = (q >= RESPONSE_MADS) & (z >= VALUE_MADS)
+    # with little background between crowns (closed canopy) the background median is
+    # not the level crowns must exceed: the centre-value test is dropped
+    zmin = -np.inf if closed else VALUE_MADS
+    kept = (q >= RESPONSE_MADS) & (z >= zmin)
     near = kept & (q < RESPONSE_MADS * NEAR)
-    below = ~kept & (q >= RESPONSE_MADS / NEAR) & (z >= VALUE_MADS)
+    below = ~kept & (q >= RESPONSE_MADS / NEAR) & (z >= zmin)
     n_kept = int(kept.sum())
     near_share = float((near.sum() + below.sum()) / max(n_kept, 1))
     med_q = float(np.median(q[kept])) if n_kept else 0.0
@@ -280,6 +365,7 @@ def _score_layer(layers, windows, scales):
         "separation": med_q * clear,
         "near_share": near_share,
         "candidates": n_kept,
+        "closed": closed,
     }
 
 
@@ -351,9 +437,12 @@ def choose_layer(
         terms=terms,
         background=m,
         spread=s,
-        min_response=tuple(float(v) for v in RESPONSE_MADS * res["response_spread"]),
-        min_contrast=float(np.median(RESPONSE_MADS * res["response_spread"]) / DISC_RESPONSE),
-        min_value=m + VALUE_MADS * s,
+        min_response=tuple(float(v) for v in response_mads(scales) * res["response_spread"]),
+        min_contrast=float(
+            np.median(response_mads(scales) * res["response_spread"]) / DISC_RESPONSE
+        ),
+        min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
+        closed=res["closed"],
         separation=res["separation"],
         near_share=res["near_share"],
         candidates=res["candidates"],
