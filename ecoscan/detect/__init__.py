@@ -52,6 +52,9 @@ SPLIT_RATIO = 0.6
 #: or branch) is pruned with it. Tuned on benchmarks/tuning_scenes.py.
 PRUNE_MARGIN = 0.5
 
+#: Fewer clear candidates than this on the best layer: fall back to the classic Otsu split.
+MIN_CANDIDATES = 10
+
 #: Readable names of the detection layers.
 LAYER_LABELS = {
     "exg": "Excess Green",
@@ -333,8 +336,18 @@ def _global_params(
         _check_tile_memory(
             name, settings, overlap, len(bands) + 1, 2 * (scales.sigmas.size + 2), "the blob filter"
         )
+        fallback = ""
         if _auto_layer(settings):
-            return _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
+            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
+            if auto is not None:
+                return auto
+            fallback = (
+                "weak separation: no layer showed at least "
+                f"{MIN_CANDIDATES} clear plant candidates in the sample windows; fell back to "
+                "Otsu's split of the whole raster; calibrate a detector on mapped plants "
+                "(ecoscan calibrate) or set --threshold, and check with ecoscan validate"
+            )
+            notes.append(fallback)
         from skimage.filters import threshold_otsu
 
         layer = vegetation_layer(data, index)[valid]
@@ -365,12 +378,19 @@ def _global_params(
             split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         )
         how = "given" if settings.threshold is not None else "Otsu on the whole raster"
+        if fallback:
+            how += " (fallback: nothing stood out from the background)"
         notes.append(
             f"vegetation threshold {t:.4g} ({how}); smallest crown contrast {contrast:.4g}"
         )
         th = {
             "layer": index,
-            "layer_chosen_by": "given (--index, --threshold or --min-contrast)",
+            "layer_chosen_by": (
+                "fallback to the classic index"
+                if fallback
+                else "given (--index, --threshold or --min-contrast)"
+            ),
+            "weak_separation": bool(fallback),
             "vegetation_threshold": t,
             "vegetation_threshold_from": how,
             "min_contrast": contrast,
@@ -505,6 +525,8 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         return None, 0, 1, {}, [*notes, "the image is constant: no plants found"]
     choice = choose_layer(windows, roles, scales)
     del windows
+    if choice.candidates < MIN_CANDIDATES:
+        return None
     params = DetectorParams(
         method="imagery",
         bands=abands,
