@@ -5,7 +5,9 @@ import pytest
 from ecoscan import __version__
 from ecoscan.cli import _command_modules, main
 
-COMMANDS = ["demo", "survey", "detect", "analyse", "scales", "validate", "compare", "change"]
+COMMANDS = [
+    "demo", "survey", "detect", "analyse", "scales", "validate", "compare", "change", "plan"
+]
 
 
 def test_all_commands_registered():

@@ -1,4 +1,4 @@
 """One module per sub-command; see :mod:`ecoscan.cli` for the protocol."""
 
 # Order in which commands are listed by ``ecoscan --help``; others follow alphabetically.
-ORDER = ("demo", "survey", "detect", "analyse", "scales", "validate", "compare", "change")
+ORDER = ("demo", "survey", "detect", "analyse", "scales", "validate", "compare", "change", "plan")
