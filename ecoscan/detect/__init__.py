@@ -513,7 +513,12 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
 
 def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
-    from ecoscan.detect.autotune import RESPONSE_MADS, VALUE_MADS, choose_layer
+    from ecoscan.detect.autotune import (
+        REFERENCE_SIGMA_PX,
+        RESPONSE_MADS,
+        VALUE_MADS,
+        choose_layer,
+    )
 
     lookup = _band_lookup(info, settings)
     roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
@@ -568,8 +573,9 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         "background_spread": choice.spread,
         "min_contrast": choice.min_contrast,
         "min_contrast_from": (
-            f"{RESPONSE_MADS:g} x robust SD (1.4826 MAD) of the blob response over background "
-            "pixels, per scale (median over scales shown as disc contrast)"
+            f"{RESPONSE_MADS:g} (rising below sigma {REFERENCE_SIGMA_PX:g} px) x robust SD "
+            "(1.4826 MAD) of the blob response over background pixels, per scale (median "
+            "over scales shown as disc contrast)"
         ),
         "min_response_by_scale": list(choice.min_response),
         "vegetation_threshold": choice.min_value,
