@@ -233,7 +233,11 @@ def _spreads(layers, windows, scales, masks, fill):
         core = np.zeros(mask.shape, dtype=bool)
         core[win.core] = True
         per.append(response_spread(img, scales, mask & core & win.valid, fill))
-    sp = np.nanmedian(np.vstack(per), axis=0)
+    stack = np.vstack(per)
+    has = np.isfinite(stack).any(axis=0)
+    sp = np.full(stack.shape[1], np.nan)
+    if has.any():
+        sp[has] = np.nanmedian(stack[:, has], axis=0)
     return np.where(
         np.isfinite(sp) & (sp > 0), sp, np.nanmax(sp) if np.isfinite(sp).any() else 1e-6
     )
