@@ -29,7 +29,12 @@ from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.stats.csr import plot_rng
-from ecoscan.stats.montecarlo import ALTERNATIVES, MonteCarloResult, monte_carlo_nn
+from ecoscan.stats.montecarlo import (
+    ALTERNATIVES,
+    DEFAULT_STOP_AFTER,
+    MonteCarloResult,
+    monte_carlo_nn,
+)
 from ecoscan.stats.nearest import (
     ClarkEvansResult,
     EdgeCorrectedResult,
@@ -42,8 +47,8 @@ from ecoscan.stats.nearest import (
 from ecoscan.stats.quadrat import (
     MIN_EXPECTED,
     QuadratResult,
-    default_quadrat_size,
-    quadrat_monte_carlo,
+    default_quadrat_cells,
+    quadrat_null,
     quadrat_test,
 )
 from ecoscan.vector import write_plots, write_points
@@ -58,6 +63,8 @@ __all__ = [
     "analyse_plot",
     "check_outdir",
     "dispersion_rows",
+    "donnelly_strip_warning",
+    "plain_summary",
     "plot_rng",
     "write_analysis",
 ]
@@ -102,9 +109,11 @@ EXTRA_COLUMNS: tuple[str, ...] = (
     "z_guard",
     "p_guard",
     "quadrat_p_mc",
+    "quadrat_height_m",
     "quadrat_cells",
     "quadrat_low_expected",
     "n_coincident",
+    "summary",
 )
 
 #: Usual caution printed with every result.
@@ -141,10 +150,15 @@ class DispersionSettings:
         Guard-zone width in metres; None uses 1/√ρ per plot (twice the expected NN distance
         under CSR; :func:`ecoscan.stats.nearest.default_guard_m`).
     quadrat_m : float or None
-        Quadrat side in metres; None uses √(2A/n) per plot (cell area ≈ 2A/n, common
-        practice; :func:`ecoscan.stats.quadrat.default_quadrat_size`).
+        Quadrat side in metres; None fits a grid of equal cells to each plot's bounding box
+        whose whole cells expect at least 5 points where n allows (Cochran's rule, common
+        practice; :func:`ecoscan.stats.quadrat.default_quadrat_cells`).
     min_points : int
         Plots with fewer points get a warning (default 30, common practice).
+    stop_after : int
+        Besag & Clifford's (1991) sequential rule: stop simulating once this many simulated
+        patterns are at least as extreme as the observed one in each tail (default 20); 0
+        always runs all ``simulations``. Both give exact p-values.
     """
 
     simulations: int = 999
@@ -154,6 +168,7 @@ class DispersionSettings:
     guard_m: float | None = None
     quadrat_m: float | None = None
     min_points: int = MIN_POINTS_ADVISED
+    stop_after: int = DEFAULT_STOP_AFTER
 
     _TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
         "simulations": int,
@@ -163,6 +178,7 @@ class DispersionSettings:
         "guard_m": (int, float),
         "quadrat_m": (int, float),
         "min_points": int,
+        "stop_after": int,
     }
 
     def __post_init__(self) -> None:
@@ -191,10 +207,15 @@ class DispersionSettings:
         ):
             raise InputError(
                 f"quadrat size must be a positive number of metres (got {self.quadrat_m!r}); "
-                "leave it out for the default sqrt(2 * area / n)"
+                "leave it out for equal cells fitted to the plot"
             )
         if not isinstance(self.min_points, (int, np.integer)) or self.min_points < 0:
             raise InputError(f"min_points must be a whole number >= 0 (got {self.min_points!r})")
+        if not isinstance(self.stop_after, (int, np.integer)) or self.stop_after < 0:
+            raise InputError(
+                f"stop_after must be a whole number >= 0 (got {self.stop_after!r}); "
+                "0 runs every simulation"
+            )
 
     @classmethod
     def from_mapping(cls, d: Mapping[str, Any]) -> DispersionSettings:
@@ -235,6 +256,27 @@ class DispersionSettings:
         k = 2.0 if self.alternative == "two-sided" else 1.0
         return min(1.0, k / (self.simulations + 1.0))
 
+    def too_few_simulations(self) -> str:
+        """A one-line warning when no Monte Carlo p can fall below alpha, else ''.
+
+        The smallest rank p-value is 1 / (N + 1) for a one-sided test and 2 / (N + 1) for a
+        two-sided one (Besag & Diggle 1977); when that is not below alpha, every plot is
+        called random whatever its pattern.
+
+        Examples
+        --------
+        >>> DispersionSettings(simulations=19).too_few_simulations()[:18]
+        'with 19 simulation'
+        """
+        if self.smallest_p < self.alpha:
+            return ""
+        need = int(np.ceil((2.0 if self.alternative == "two-sided" else 1.0) / self.alpha))
+        return (
+            f"with {self.simulations} simulations the smallest possible Monte Carlo p is "
+            f"{self.smallest_p:.3g}, not below alpha = {self.alpha:g}: no plot can be called "
+            f"clustered or regular; use at least {need} simulations (999 is usual)"
+        )
+
 
 @dataclass(frozen=True)
 class PlotDispersion:
@@ -266,6 +308,8 @@ class PlotDispersion:
     quadrat_p_mc : float
         Two-sided Monte Carlo p-value of the quadrat X² (multinomial simulation with the
         same number of simulations; exact where the chi-square approximation is not).
+    summary : str
+        One sentence in plain words that reconciles the tests (see :func:`plain_summary`).
     """
 
     plot_id: str
@@ -285,6 +329,8 @@ class PlotDispersion:
     n_coincident: int
     warnings: tuple[str, ...] = field(default_factory=tuple)
     quadrat_p_mc: float = float("nan")
+    quadrat_height_m: float = float("nan")
+    summary: str = ""
 
     def row(self) -> dict[str, Any]:
         """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
@@ -329,13 +375,64 @@ class PlotDispersion:
             "n_guard_focal": gz.n_focal if gz else None,
             "R_guard": gz.statistic if gz else nan,
             "z_guard": gz.z if gz else nan,
-            "p_guard": gz.pvalue if gz else nan,
+            "p_guard": mc.guard_pvalue if (mc and gz) else nan,
             "quadrat_p_mc": self.quadrat_p_mc,
+            "quadrat_height_m": self.quadrat_height_m,
             "quadrat_cells": qd.q if qd else None,
             "quadrat_low_expected": qd.n_low_expected if qd else None,
             "n_coincident": self.n_coincident,
+            "summary": self.summary,
         }
         return r
+
+
+#: Donnelly's formulas are trusted down to a plot "half-width" 2A/P of this many typical
+#: spacings 1/√ρ; below it the plot is flagged (measured sizes in docs/methods-dispersion.md).
+DONNELLY_MIN_HALF_WIDTH = 1.5
+
+
+def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
+    """A one-line warning when a plot is too narrow for Donnelly's edge correction, else ''.
+
+    Parameters
+    ----------
+    n : int
+        Points in the plot.
+    area_m2, perimeter_m : float
+        Plot area (m²) and perimeter (m).
+
+    Returns
+    -------
+    str
+        The warning (reason and remedy) when 2A/P < 1.5/√ρ, i.e. when the plot's half-width
+        2A/P (the half-width of a long strip; the radius of a disc) is below 1.5 typical
+        spacings 1/√ρ; '' otherwise.
+
+    Notes
+    -----
+    Donnelly (1978) fitted his formulas to simulations in rectangles of moderate elongation.
+    In narrow strips most neighbours lie beyond the long edges, and the measured size of
+    the Donnelly z-test grows far beyond α (see the table in docs/methods-dispersion.md);
+    the Monte Carlo test in the exact polygon stays exact.
+
+    Examples
+    --------
+    >>> donnelly_strip_warning(100, 400 * 5.0, 2 * 405.0)[:32]
+    'plot narrower than Donnelly's co'
+    >>> donnelly_strip_warning(100, 100 * 100.0, 400.0)
+    ''
+    """
+    if n < 2 or not (area_m2 > 0 and perimeter_m > 0):
+        return ""
+    half_width = 2.0 * area_m2 / perimeter_m
+    spacing = 1.0 / np.sqrt(n / area_m2)
+    if half_width >= DONNELLY_MIN_HALF_WIDTH * spacing:
+        return ""
+    return (
+        f"plot narrower than Donnelly's correction allows (half-width 2A/P = "
+        f"{half_width:.3g} m, under {DONNELLY_MIN_HALF_WIDTH:g} plant spacings of "
+        f"{spacing:.3g} m): p_donnelly is unreliable; use p_mc"
+    )
 
 
 def _verdict(mc: MonteCarloResult, alpha: float) -> str:
@@ -389,7 +486,10 @@ def analyse_plot(
     dens = n / area * 1e4
     warn: list[str] = []
     guard_m = float(s.guard_m) if s.guard_m is not None else default_guard_m(n, area)
-    quad_m = float(s.quadrat_m) if s.quadrat_m is not None else default_quadrat_size(n, area)
+    if s.quadrat_m is not None:
+        quad_m = quad_h = float(s.quadrat_m)
+    else:
+        quad_m, quad_h = default_quadrat_cells(polygon, n)
     if n < 2:
         warn.append(
             "no points in this plot: no statistics"
@@ -413,6 +513,7 @@ def analyse_plot(
             quad_m,
             0,
             tuple(warn),
+            quadrat_height_m=quad_h,
         )
     if n < s.min_points:
         warn.append(
@@ -429,12 +530,18 @@ def analyse_plot(
     alt = s.alternative
     ce = clark_evans(xy, area, alternative=alt, nn=d)
     dn = donnelly(xy, polygon, alternative=alt, nn=d)
+    strip = donnelly_strip_warning(n, area, perim)
+    if strip:
+        warn.append(strip)
     gz = guard_zone(xy, polygon, guard_m, alternative=alt, nn=d)
     if gz.n_focal < 2:
         warn.append(
             f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
             "no guard-zone estimate (use a smaller --guard)"
         )
+    few = s.too_few_simulations()
+    if few:
+        warn.append(few)
     rng = plot_rng(s.seed, plot_id)
     mc = monte_carlo_nn(
         xy,
@@ -443,9 +550,13 @@ def analyse_plot(
         alternative=alt,
         rng=rng,
         observed_mean_m=float(d.mean()),
+        guard_region=(polygon.buffer(-guard_m) if guard_m > 0 else polygon)
+        if gz.n_focal >= 2
+        else None,
+        stop_after=s.stop_after,
     )
     try:
-        qd = quadrat_test(xy, polygon, quad_m)
+        qd = quadrat_test(xy, polygon, quad_m, cell_height_m=quad_h)
     except ValueError as exc:
         raise InputError(f"plot {plot_id}: {exc} (--quadrat sets the side in metres)") from None
     if qd.q < 2:
@@ -458,8 +569,9 @@ def analyse_plot(
             f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
             "quadrat_p is approximate (quadrat_p_mc is exact)"
         )
-    q_p_mc, _, _ = quadrat_monte_carlo(qd, s.simulations, rng=rng)
-    return PlotDispersion(
+    qnull = quadrat_null(qd, s.simulations, rng=rng)
+    qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
+    res = PlotDispersion(
         plot_id,
         n,
         area,
@@ -476,8 +588,98 @@ def analyse_plot(
         quad_m,
         n_zero,
         tuple(warn),
-        q_p_mc,
+        qnull.pvalue,
+        quad_h,
     )
+    return dataclasses.replace(res, summary=plain_summary(res, s.alpha, s.smallest_p))
+
+
+def _p_words(p: float) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.2g}"
+
+
+def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 0.0) -> str:
+    """One sentence in plain words that puts a plot's tests side by side.
+
+    The nearest-neighbour tests look at the spacing between neighbouring plants (about
+    ``mean_nn_m``); the quadrat tests look at how counts vary between cells of
+    ``quadrat_m``. A pattern can be evenly spaced at one scale and patchy at the other,
+    so the sentence names the scale of each finding instead of one overall verdict.
+
+    Parameters
+    ----------
+    res : PlotDispersion
+        One plot's results.
+    alpha : float
+        Significance level.
+    smallest_p : float
+        Smallest Monte Carlo p-value the simulations allow; above ``alpha`` the
+        nearest-neighbour test cannot reject, which the sentence says.
+
+    Returns
+    -------
+    str
+        E.g. "no clear departure from random spacing between neighbours (R = 1.03, not
+        significant); evenly spread over 5.4 m quadrats (variance/mean 0.37, p < 0.001):
+        the tests look at different scales (neighbours about 1.6 m apart, quadrats
+        5.4 m), so both can hold".
+
+    Notes
+    -----
+    Direction words: R > 1 means neighbours further apart than at random (evenly spaced),
+    R < 1 closer (clumped) (Clark & Evans 1954); a variance-to-mean ratio of quadrat counts
+    above 1 means patchy, below 1 more even than random (index of dispersion, Fisher,
+    Thornton & Mackenzie 1922). The nearest-neighbour finding is the Monte Carlo verdict
+    (``pattern``); the quadrat finding uses the exact p (``quadrat_p_mc``) when available.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> xy = np.mgrid[1:20:2.0, 1:20:2.0].reshape(2, -1).T
+    >>> s = DispersionSettings(simulations=99)
+    >>> res = analyse_plot(xy, shapely.box(0, 0, 20, 20), "grid", s)
+    >>> plain_summary(res).split(" (")[0]
+    'evenly spaced between neighbours'
+    """
+    if res.n < 2 or res.clark_evans is None:
+        return f"too few plants to describe a pattern (n = {res.n})"
+    r = res.clark_evans.statistic
+    p_mc = res.monte_carlo.pvalue if res.monte_carlo else float("nan")
+    if res.pattern == "regular":
+        nn_dir, nn = 1, f"evenly spaced between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
+    elif res.pattern == "clustered":
+        nn_dir, nn = -1, f"clumped between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
+    else:
+        why = (
+            f"too few simulations to reach p < {alpha:g}"
+            if smallest_p > alpha
+            else "not significant"
+        )
+        nn_dir, nn = (
+            0,
+            f"no clear departure from random spacing between neighbours (R = {r:.2f}, {why})",
+        )
+    qd = res.quadrat
+    if qd is None or qd.q < 2 or not np.isfinite(qd.vmr):
+        return nn
+    qp = res.quadrat_p_mc if np.isfinite(res.quadrat_p_mc) else qd.pvalue
+    side = f"{res.quadrat_m:.2g} m"
+    if qp <= alpha and qd.vmr > 1:
+        q_dir, q = -1, f"patchy over {side} quadrats (variance/mean {qd.vmr:.2f}, {_p_words(qp)})"
+    elif qp <= alpha and qd.vmr < 1:
+        q_dir, q = (
+            1,
+            (f"evenly spread over {side} quadrats (variance/mean {qd.vmr:.2f}, {_p_words(qp)})"),
+        )
+    else:
+        q_dir, q = 0, f"counts per {side} quadrat as random (variance/mean {qd.vmr:.2f})"
+    text = f"{nn}; {q}"
+    if nn_dir != q_dir:
+        text += (
+            f": the tests look at different scales (neighbours about "
+            f"{res.clark_evans.mean_nn_m:.2g} m apart, quadrats {side}), so both can hold"
+        )
+    return text
 
 
 def analyse(
@@ -513,12 +715,9 @@ def dispersion_rows(results: Iterable[PlotDispersion]) -> list[dict[str, Any]]:
 
 
 def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    m = inputs.plot_index >= 0
-    pts = inputs.points.subset(m)
-    ids = np.array([p.plot_id for p in inputs.plots], dtype=object)[inputs.plot_index[m]]
-    attrs = {"plot_id": ids}
-    attrs.update({k: v for k, v in pts.attrs.items() if k != "plot_id"})
-    return PointSet(pts.x, pts.y, attrs, pts.crs, list(pts.notes))
+    from ecoscan.inputs import points_by_plot
+
+    return points_by_plot(inputs.points, inputs.layer, inputs.membership)
 
 
 def check_outdir(outdir: str | os.PathLike) -> Path:
@@ -574,12 +773,16 @@ def write_analysis(
         "crs_wkt": inputs.points.crs.to_wkt() if inputs.points.crs is not None else None,
         "methods": {
             "verdict": "Monte Carlo rank test of the mean nearest-neighbour distance in the "
-            "exact plot polygon (Besag & Diggle 1977)",
+            "exact plot polygon (Besag & Diggle 1977), with sequential stopping after "
+            "stop_after simulations as extreme in each tail (Besag & Clifford 1991)",
             "R": "Clark & Evans (1954), no edge correction",
             "R_donnelly": "Donnelly (1978): E = 0.5 sqrt(A/n) + (0.0514 + 0.041/sqrt(n)) P/n, "
             "Var = 0.0703 A/n^2 + 0.037 P sqrt(A/n^5)",
-            "R_guard": "guard zone: focal points at least guard_m inside the edge",
-            "quadrat": "Pearson X^2 on a square grid clipped to the plot, two-sided p",
+            "R_guard": "guard zone: focal points at least guard_m inside the edge; p_guard "
+            "ranks the focal mean among the same simulated patterns as p_mc",
+            "quadrat": "Pearson X^2 on a grid of equal cells fitted to the plot and clipped "
+            "to it, two-sided p; quadrat_p_mc and the morisita_std limits from a multinomial "
+            "simulation",
         },
         "notes": list(notes),
         "caution": CAUTION,

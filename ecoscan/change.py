@@ -23,7 +23,7 @@ from pyproj import CRS
 
 from ecoscan.crs import crs_label, transform_xy
 from ecoscan.errors import InputError
-from ecoscan.inputs import assign_plots
+from ecoscan.inputs import assign_plots, one_row_per_plant, overlap_note
 from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
@@ -430,6 +430,7 @@ def detect_change(
     if earlier.n == 0 or later.n == 0:
         which = "earlier" if earlier.n == 0 else "later"
         raise InputError(f"the {which} survey has no plants; check the input file")
+    earlier, later = one_row_per_plant(earlier), one_row_per_plant(later)
     notes = list(dict.fromkeys([*earlier.notes, *later.notes]))
     warnings: list[str] = []
     lx, ly, crs = _align_crs(earlier, later, notes)
@@ -488,10 +489,21 @@ def detect_change(
     if plots is not None:
         layer = _align_plots(plots, crs, notes)
         plot_list = layer.plots
-        idx = assign_plots(PointSet(xr, yr), layer)
-        ids = np.array([p.plot_id for p in plot_list] + [""], dtype=object)
-        plot_id = ids[idx]  # idx -1 picks ''
-        outside = int(np.sum(idx < 0))
+        member = assign_plots(PointSet(xr, yr), layer)
+        ids = np.array([p.plot_id for p in plot_list], dtype=object)
+        first = member.first_plot()
+        # the plants table lists each plant once: all the plots holding it, joined by ';'
+        plot_id = np.r_[ids, [""]].astype(object)[first]
+        for k in np.flatnonzero(member.plots_per_point() > 1):
+            plot_id[k] = ";".join(ids[member.plot[member.point == k]])
+        plot_sel = {}
+        for i, p in enumerate(plot_list):
+            plot_sel[p.plot_id] = np.zeros(total, bool)
+            plot_sel[p.plot_id][member.points_of(i)] = True
+        ov = overlap_note(layer)
+        if ov:
+            warnings.append(ov)
+        outside = int(np.sum(first < 0))
         if outside == total:
             raise InputError(
                 "no plant of either survey lies inside any plot; check that --plots covers "
@@ -545,7 +557,7 @@ def detect_change(
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
         e_xys, l_xys, tests = [], [], []
-        empty = [p.plot_id for p in plot_list if not np.any(plot_id == p.plot_id)]
+        empty = [p.plot_id for p in plot_list if not np.any(plot_sel[p.plot_id])]
         if empty:
             notes.append(
                 f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, or "
@@ -553,7 +565,7 @@ def detect_change(
             )
         plot_list = [p for p in plot_list if p.plot_id not in set(empty)]
         for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
-            sel = plot_id == p.plot_id
+            sel = plot_sel[p.plot_id]
             e_xys.append(a_ref[sel & has_e])
             l_xys.append(b_ref[sel & has_l])
             tests.append(mc(sel, p.geometry))
@@ -572,8 +584,10 @@ def detect_change(
         )
     elif window is None:  # plot ids from attributes, no areas
         nanr = pooled_clark_evans([])
-        for pid in sorted(set(plot_id) - {""}):
-            rows.append(_row(pid, float("nan"), status[plot_id == pid], nanr, nanr))
+        parts = [set(str(v).split(";")) - {""} for v in plot_id]
+        for pid in sorted(set().union(*parts)):
+            sel = np.array([pid in q for q in parts], dtype=bool)
+            rows.append(_row(pid, float("nan"), status[sel], nanr, nanr))
         overall = _row(OVERALL_ID, float("nan"), status, nanr, nanr)
     else:
         everything = np.ones(total, bool)

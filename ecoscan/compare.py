@@ -32,6 +32,7 @@ from scipy import stats as sps
 
 from ecoscan.crs import crs_label, parse_crs
 from ecoscan.errors import InputError
+from ecoscan.inputs import PlotMembership
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.stats.compare_r import (
@@ -42,6 +43,8 @@ from ecoscan.stats.compare_r import (
     r_difference,
     r_permutation_test,
 )
+from ecoscan.stats.nn_distribution import nn_distribution_test
+from ecoscan.stats.paired import paired_sign_flip_test
 from ecoscan.stats.rates import holm_adjust, poisson_rate_test
 from ecoscan.vector import PlotLayer, read_points, reproject_geometries
 
@@ -76,13 +79,28 @@ GROUP_SUMMARY_COLUMNS = (
     "R_low95",
     "R_high95",
     "R_donnelly",
+    "R_donnelly_low95",
+    "R_donnelly_high95",
     "pattern",
 )
 
 
-def pair_summary_columns(n_pairs: int) -> tuple[str, ...]:
-    """The pair columns worth reading first; Holm-adjusted p-values when there are several."""
+def pair_summary_columns(n_pairs: int, *, paired: bool = False) -> tuple[str, ...]:
+    """The pair columns worth reading first; Holm-adjusted p-values when there are several.
+
+    ``paired``: the groups are dates of the same plots; the paired tests come first.
+    """
     sfx = "_holm" if n_pairs > 1 else ""
+    if paired:
+        return (
+            "group_a",
+            "group_b",
+            "paired_plots",
+            "density_diff_paired_per_ha",
+            f"p_density_paired{sfx}",
+            "R_diff_paired",
+            f"p_R_paired{sfx}",
+        )
     return (
         "group_a",
         "group_b",
@@ -92,8 +110,7 @@ def pair_summary_columns(n_pairs: int) -> tuple[str, ...]:
         "R_donnelly_diff",
         f"p_R_donnelly_diff{sfx}",
         f"p_R_perm{sfx}",
-        f"p_mw{sfx}",
-        f"p_ks{sfx}",
+        f"p_nn_distribution{sfx}",
     )
 
 
@@ -115,6 +132,8 @@ GROUP_COLUMNS = (
     "p",
     "R_donnelly",
     "R_donnelly_se",
+    "R_donnelly_low95",
+    "R_donnelly_high95",
     "pattern",
     "warnings",
 )
@@ -153,16 +172,38 @@ PAIR_COLUMNS = (
     "p_mw",
     "ks_d",
     "p_ks",
+    "nn_distribution_gap",
+    "p_nn_distribution",
+    "nn_distribution_arrangements",
+    "paired_plots",
+    "density_diff_paired_per_ha",
+    "p_density_paired",
+    "R_diff_paired",
+    "p_R_paired",
+    "paired_arrangements",
     "p_density_holm",
     "p_R_diff_holm",
     "p_R_donnelly_diff_holm",
     "p_R_perm_holm",
     "p_mw_holm",
     "p_ks_holm",
+    "p_nn_distribution_holm",
+    "p_density_paired_holm",
+    "p_R_paired_holm",
     "warnings",
 )
 
-_P_COLUMNS = ("p_density", "p_R_diff", "p_R_donnelly_diff", "p_R_perm", "p_mw", "p_ks")
+_P_COLUMNS = (
+    "p_density",
+    "p_R_diff",
+    "p_R_donnelly_diff",
+    "p_R_perm",
+    "p_mw",
+    "p_ks",
+    "p_nn_distribution",
+    "p_density_paired",
+    "p_R_paired",
+)
 
 
 # ------------------------------------------------------------------------------ reading
@@ -368,7 +409,7 @@ def results_from_points(
     layer: PlotLayer,
     *,
     label: str,
-    plot_index: np.ndarray | None = None,
+    membership: PlotMembership | None = None,
 ) -> ResultsTable:
     """Build a :class:`ResultsTable` in memory, without a results folder.
 
@@ -376,29 +417,30 @@ def results_from_points(
     ----------
     points : PointSet
         Analysed points, metres. Optional ``site`` and ``date`` attributes split them into
-        sites and dates; plot membership comes from ``plot_index`` or a ``plot_id``
-        attribute.
+        sites and dates; plot membership comes from ``membership`` or a ``plot_id``
+        attribute (one row per plant and plot, as in ecoscan's points tables).
     layer : PlotLayer
         The plots, in the points' CRS. A plot belongs to a site when its ``site`` attribute
         says so or, without that attribute, when it holds plants of that site on any date;
         it then counts on every date of that site, also when it holds no plants then.
     label : str
         Name of this set of results (the group name for ``by='folder'``).
-    plot_index : numpy.ndarray of int, optional
-        Index into ``layer.plots`` per point, -1 outside (as from
-        :func:`ecoscan.inputs.assign_plots`).
+    membership : PlotMembership, optional
+        Which plots hold which points (:func:`ecoscan.inputs.assign_plots`).
 
     Returns
     -------
     ResultsTable
     """
-    ids = np.array([p.plot_id for p in layer.plots] + [""], dtype=object)
-    if plot_index is not None:
-        pid = ids[np.asarray(plot_index, dtype=np.int64)]
+    if membership is not None:
+        # one row per (plant, plot): a plant in overlapping plots counts in each
+        ids = np.array(layer.ids, dtype=object)
+        points = points.subset(membership.point)
+        pid = ids[membership.plot]
     else:
         pid = _attr_text(points, "plot_id")
         if pid is None:
-            raise InputError(f"{label}: the points have no plot_id; pass plot_index")
+            raise InputError(f"{label}: the points have no plot_id; pass membership")
     site = _attr_text(points, "site")
     date = _attr_text(points, "date")
     has_site, has_date = site is not None, date is not None
@@ -464,6 +506,8 @@ class ComparisonResult:
         Method notes and what was assumed (including the Holm adjustment).
     parameters : dict
         Permutations, seed, methods.
+    paired : bool
+        The groups are dates of the same plots (paired columns filled).
     """
 
     by: str
@@ -471,6 +515,7 @@ class ComparisonResult:
     pairs: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
     parameters: dict[str, Any] = field(default_factory=dict)
+    paired: bool = False
 
 
 def _group_key(u: PlotUnit, by: str, multi_site: bool) -> str:
@@ -483,15 +528,51 @@ def _group_key(u: PlotUnit, by: str, multi_site: bool) -> str:
     return f"{u.site}/{u.plot_id}" if multi_site and u.site else u.plot_id
 
 
+def _label_interval(r: PooledR) -> tuple[float, float]:
+    """The 95% interval the group's label is read from: edge-corrected (Donnelly 1978)
+    where the plot perimeters are known, else the plain Clark–Evans one."""
+    if math.isfinite(r.statistic_donnelly) and r.se_donnelly > 0:
+        h = sps.norm.ppf(0.975) * r.se_donnelly
+        return r.statistic_donnelly - h, r.statistic_donnelly + h
+    return r.ci()
+
+
 def _pattern(r: PooledR) -> str:
-    use_d = math.isfinite(r.statistic_donnelly) and r.se_donnelly > 0
-    stat, se = (r.statistic_donnelly, r.se_donnelly) if use_d else (r.statistic, r.se)
-    if not math.isfinite(stat):
+    """The group's label, read from the 95% interval shown beside it."""
+    lo, hi = _label_interval(r)
+    if not (math.isfinite(lo) and math.isfinite(hi)):
         return ""
-    p = 2 * sps.norm.sf(abs((stat - 1.0) / se))
-    if p >= 0.05:
-        return "random"
-    return "regular" if stat > 1 else "clustered"
+    if lo > 1.0:
+        return "regular"
+    if hi < 1.0:
+        return "clustered"
+    return "random"
+
+
+def _paired(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
+    """Sign-flip tests on the plots that appear in both groups (same site and plot id)."""
+    ua = {(u.site, u.plot_id): u for u in a.units}
+    ub = {(u.site, u.plot_id): u for u in b.units}
+    both = [k for k in ua if k in ub]
+    nan = float("nan")
+    if not both:
+        return {"paired_plots": 0}
+    dens = np.array([
+        (ua[k].nn.n / ua[k].nn.area_m2 - ub[k].nn.n / ub[k].nn.area_m2) * 1e4 for k in both
+    ])  # fmt: skip
+    ra = np.array([pooled_clark_evans([ua[k].nn]).statistic for k in both])
+    rb = np.array([pooled_clark_evans([ub[k].nn]).statistic for k in both])
+    td = paired_sign_flip_test(dens, permutations=permutations, rng=rng)
+    tr = paired_sign_flip_test(ra - rb, permutations=permutations, rng=rng)
+    return {
+        "paired_plots": len(both),
+        "density_diff_paired_per_ha": td.statistic,
+        "p_density_paired": td.pvalue,
+        "R_diff_paired": tr.statistic if tr.plots else nan,
+        "p_R_paired": tr.pvalue,
+        "paired_arrangements": td.arrangements,
+        "_paired_min_p": td.min_pvalue,
+    }
 
 
 def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
@@ -504,12 +585,19 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
     )
     if not math.isfinite(perm.pvalue):
-        warn.append("too few plots per group for the permutation test (it moves whole plots)")
+        warn.append(
+            f"{len(a.units)} and {len(b.units)} plot(s): no rearrangement of whole plots "
+            "exists, so the permutation tests cannot run"
+        )
     elif perm.min_pvalue > 0.05:
         warn.append(
-            f"only {perm.arrangements} arrangements of plots: the permutation p-value cannot go "
-            f"below {perm.min_pvalue:.2g}"
+            f"{len(a.units)} and {len(b.units)} plots give {perm.arrangements} arrangements: "
+            f"the permutation p-values cannot go below {perm.min_pvalue:.2g}"
         )
+    dist = nn_distribution_test(
+        [u.nn.nn_m for u in a.units], [u.nn.nn_m for u in b.units],
+        permutations=permutations, rng=rng,
+    )  # fmt: skip
     da, db = a.nn_m, b.nn_m
     if da.size >= 1 and db.size >= 1:
         mw = sps.mannwhitneyu(da, db, alternative="two-sided")
@@ -559,8 +647,57 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         "p_mw": p_mw,
         "ks_d": ks_d,
         "p_ks": p_ks,
+        "nn_distribution_gap": dist.statistic,
+        "p_nn_distribution": dist.pvalue,
+        "nn_distribution_arrangements": dist.arrangements,
+        "_perm_min_p": perm.min_pvalue,
+        "_dist_min_p": dist.min_pvalue,
         "warnings": "; ".join(warn),
     }
+
+
+def _by_place(units: list[PlotUnit]) -> dict[tuple[str, str], list[PlotUnit]]:
+    """Units of the same plot (same site and plot id; same folder without sites)."""
+    out: dict[tuple[str, str], list[PlotUnit]] = {}
+    for u in units:
+        out.setdefault((u.site or u.folder, u.plot_id), []).append(u)
+    return out
+
+
+def _limit_notes(pairs: list[dict[str, Any]], paired: bool) -> list[str]:
+    """One note per distinct design limit (how low each test's p-value can go), naming
+    the pair when only one pair has it and counting the pairs otherwise."""
+    found: dict[str, list[str]] = {}
+    for p in pairs:
+        name = f"{p['group_a']} vs {p['group_b']}"
+        mp = p.get("_perm_min_p", float("nan"))
+        if not math.isfinite(mp):
+            found.setdefault(
+                "one plot in a group: no rearrangement of whole plots exists, so the "
+                "permutation tests cannot run; the z tests treat plants as independent, which "
+                "neighbours are not quite",
+                [],
+            ).append(name)
+        elif mp > 0.05:
+            found.setdefault(
+                f"{p['perm_arrangements']} possible arrangements of whole plots, so the "
+                f"permutation p-values cannot go below {mp:.2g}",
+                [],
+            ).append(name)
+        pm = p.get("_paired_min_p", float("nan"))
+        if paired and p.get("paired_plots", 0) == 0:
+            found.setdefault("no plot was surveyed on both dates: no paired test", []).append(name)
+        elif paired and math.isfinite(pm) and pm > 0.05:
+            found.setdefault(
+                f"{p['paired_plots']} plots on both dates give {p['paired_arrangements']} sign "
+                f"patterns, so the paired p-values cannot go below {pm:.2g}",
+                [],
+            ).append(name)
+    out = []
+    for text, names in found.items():
+        who = names[0] if len(names) == 1 else f"{len(names)} of {len(pairs)} pairs"
+        out.append(f"{who}: {text}")
+    return out
 
 
 def compare_groups(
@@ -569,6 +706,7 @@ def compare_groups(
     *,
     permutations: int = 999,
     seed: int | np.random.Generator | None = 1,
+    pool_dates: bool = False,
 ) -> ComparisonResult:
     """Compare every pair of groups of plots for density and Clark–Evans R.
 
@@ -583,10 +721,16 @@ def compare_groups(
         Monte Carlo arrangements for the permutation test (≥ 99).
     seed : int or numpy.random.Generator
         Seed; same seed, same p-values.
+    pool_dates : bool
+        Pool the dates of one place into one group (by site, plot or folder). Off by
+        default: the same plots surveyed on two dates hold largely the same plants, so
+        groups are then formed per date and only groups of the same date are compared.
 
     Returns
     -------
     ComparisonResult
+        With ``by='date'`` each pair also carries paired sign-flip tests over the plots
+        surveyed on both dates.
 
     Raises
     ------
@@ -630,9 +774,32 @@ def compare_groups(
         notes.append("folders without site labels are grouped under their folder name")
     units = [u for r in results for u in r.units]
     multi_site = len({u.site for u in units if u.site}) > 1
+    # dates of one site hold the same plants: never pooled unless asked
+    split_dates = (
+        by in ("site", "plot", "folder")
+        and not pool_dates
+        and any(len({u.date for u in us}) > 1 for us in _by_place(units).values())
+    )
     grouped: dict[str, list[PlotUnit]] = {}
+    date_of: dict[str, str] = {}
     for u in units:
-        grouped.setdefault(_group_key(u, by, multi_site), []).append(u)
+        key = _group_key(u, by, multi_site)
+        if split_dates:
+            key = f"{key} {u.date}".strip()
+            date_of[key] = u.date
+        grouped.setdefault(key, []).append(u)
+    if by == "date":  # ISO 8601 dates (the survey file insists): text order is time order
+        grouped = dict(sorted(grouped.items()))
+    if split_dates:
+        notes.append(
+            "the same plots were surveyed on several dates: groups are compared date by date "
+            "(pooling dates would count the same plants twice); --pool-dates pools them"
+        )
+    elif pool_dates and any(len({u.date for u in us}) > 1 for us in _by_place(units).values()):
+        notes.append(
+            "dates pooled on request (--pool-dates): a plant surveyed on two dates counts "
+            "twice, so n and the tests overstate the evidence"
+        )
     if len(grouped) < 2:
         raise InputError(
             f"only one {by} ({next(iter(grouped), '?')}) in the results; give more folders or "
@@ -645,31 +812,49 @@ def compare_groups(
         groups.append(
             GroupSummary(name, tuple(us), n, area, pooled_clark_evans([u.nn for u in us]))
         )
-    if by == "date":
-        notes.append(
-            "dates of the same plots share plants, so the tests (which assume independent "
-            "groups) are conservative; use 'ecoscan change' to follow plants between dates"
+    pairs_of = [
+        (a, b)
+        for a, b in itertools.combinations(groups, 2)
+        if not split_dates or date_of[a.name] == date_of[b.name]
+    ]
+    if not pairs_of:
+        raise InputError(
+            f"no two {by}s share a survey date, so nothing can be compared date by date; "
+            "add --pool-dates to pool each one's dates (the same plants then count twice)"
         )
-    if by == "plot":
-        if any(len({u.date for u in g.units}) > 1 for g in groups):
-            notes.append(
-                "a plot's dates share plants, so its group is not several independent plots: "
-                "the permutation test is conservative; use 'ecoscan change' between dates"
-            )
-        else:
-            notes.append(
-                "with one plot per group the permutation test cannot run; the z test and the "
-                "distance tests treat plants as independent, which neighbours are not quite"
-            )
+    paired = by == "date"
+    if paired:
+        notes.append(
+            "dates of the same plots are compared pair-wise: the *_paired columns test the "
+            "per-plot differences by flipping their signs (plots are the units); the other "
+            "tests treat the dates as independent groups and are only approximate here"
+        )
+    notes.append(
+        "the distance distributions are compared by permuting whole plots "
+        "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and reject "
+        "too often (about 9% and 15% of pairs of random plots at the 5% level): approximate"
+    )
     rng = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
-    pairs = [_pair_row(a, b, int(permutations), rng) for a, b in itertools.combinations(groups, 2)]
+    pairs = []
+    for a, b in pairs_of:
+        row = _pair_row(a, b, int(permutations), rng)
+        if paired:
+            row.update(_paired(a, b, int(permutations), rng))
+        pairs.append(row)
+    notes += _limit_notes(pairs, paired)
+    for p in pairs:
+        for k in [k for k in p if k.startswith("_")]:
+            del p[k]
     for col in _P_COLUMNS:
-        adj = holm_adjust([p[col] for p in pairs]) if len(pairs) > 1 else [p[col] for p in pairs]
+        if not all(col in p for p in pairs):
+            continue
+        vals = [p[col] for p in pairs]
+        adj = holm_adjust(vals) if len(pairs) > 1 else vals
         for p, v in zip(pairs, adj, strict=True):
             p[f"{col}_holm"] = float(v)
     if len(pairs) > 1:
         notes.append(
-            f"{len(groups)} groups give {len(pairs)} pairwise comparisons: the *_holm columns "
+            f"{len(pairs)} pairwise comparisons: the *_holm columns "
             "hold p-values adjusted with Holm's (1979) step-down method within each test; "
             "read those, not the raw p-values"
         )
@@ -682,9 +867,13 @@ def compare_groups(
         "density_test": "exact conditional test of two Poisson rates (Przyborowski & "
         "Wilenski 1940)",
         "permutation_test": "whole plots permuted between the two groups",
+        "distance_distribution_test": "two-sample Kolmogorov-Smirnov distance between the "
+        "groups' nearest-neighbour distances, whole plots permuted",
+        "paired_test": "sign-flip test of per-plot differences (dates of the same plots)",
+        "pool_dates": bool(pool_dates),
         "adjustment": "Holm (1979)" if len(pairs) > 1 else "none (one comparison)",
     }
-    return ComparisonResult(by, groups, pairs, notes, params)
+    return ComparisonResult(by, groups, pairs, notes, params, paired)
 
 
 def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
@@ -695,6 +884,9 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
     rows = []
     for i, g in enumerate(result.groups):
         lo, hi = g.r.ci()
+        dlo, dhi = _label_interval(g.r)
+        if not (math.isfinite(g.r.statistic_donnelly) and g.r.se_donnelly > 0):
+            dlo = dhi = float("nan")
         warn = []
         if g.n < 30:
             warn.append("fewer than 30 plants")
@@ -716,6 +908,8 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
                 "p": g.r.pvalue,
                 "R_donnelly": g.r.statistic_donnelly,
                 "R_donnelly_se": g.r.se_donnelly,
+                "R_donnelly_low95": dlo,
+                "R_donnelly_high95": dhi,
                 "pattern": _pattern(g.r),
                 "warnings": "; ".join(warn),
             }
@@ -725,7 +919,7 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
 
 def comparison_rows(result: ComparisonResult) -> list[dict[str, Any]]:
     """One row per pair of groups (columns :data:`PAIR_COLUMNS`)."""
-    return [dict(p) for p in result.pairs]
+    return [{k: p.get(k, "") for k in PAIR_COLUMNS} for p in result.pairs]
 
 
 def write_comparison(outdir: str | os.PathLike, result: ComparisonResult) -> list[Path]:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -13,7 +14,21 @@ from ecoscan.errors import InputError
 from ecoscan.points import PointSet
 from ecoscan.vector import Plot, PlotLayer, read_plots, read_points
 
-__all__ = ["SurveyInputs", "assign_plots", "load_points_and_plots", "points_in_plot"]
+__all__ = [
+    "PlotMembership",
+    "SurveyInputs",
+    "assign_plots",
+    "drop_plots",
+    "load_points_and_plots",
+    "one_row_per_plant",
+    "overlap_note",
+    "overlapping_plots",
+    "plot_membership",
+    "points_by_plot",
+    "points_in_plot",
+    "unsurveyed_note",
+    "unsurveyed_plots",
+]
 
 
 def points_in_plot(x: np.ndarray, y: np.ndarray, plot: shapely.Geometry) -> np.ndarray:
@@ -38,49 +53,377 @@ def points_in_plot(x: np.ndarray, y: np.ndarray, plot: shapely.Geometry) -> np.n
     return inside
 
 
-def assign_plots(points: PointSet, layer: PlotLayer) -> np.ndarray:
-    """Index of the plot holding each point (first plot in layer order), or -1 for none."""
-    out = np.full(points.n, -1, dtype=np.int64)
-    for i, plot in enumerate(layer.plots):
-        free = out < 0
-        if not np.any(free):
-            break
-        idx = np.flatnonzero(free)
-        m = points_in_plot(points.x[idx], points.y[idx], plot.geometry)
-        out[idx[m]] = i
-    return out
+@dataclass(frozen=True)
+class PlotMembership:
+    """Which plots hold which points: one entry per (point, plot) pair.
+
+    A point can lie in several plots (overlapping or nested plots), so membership is a list
+    of pairs, not one plot per point. Pairs are sorted by plot, then point.
+
+    Attributes
+    ----------
+    point : numpy.ndarray of int
+        Point index of each pair.
+    plot : numpy.ndarray of int
+        Plot index (into the layer) of each pair.
+    n_points, n_plots : int
+        Sizes of the point set and the plot layer.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> sq = [shapely.box(0, 0, 10, 10), shapely.box(5, 0, 15, 10)]
+    >>> m = plot_membership(np.array([2.0, 7.0]), np.array([5.0, 5.0]), sq)
+    >>> m.counts().tolist(), m.points_of(1).tolist()
+    ([2, 1], [1])
+    """
+
+    point: np.ndarray
+    plot: np.ndarray
+    n_points: int
+    n_plots: int
+
+    def points_of(self, i: int) -> np.ndarray:
+        """Indices (ascending) of the points in plot ``i``."""
+        lo, hi = np.searchsorted(self.plot, [i, i + 1])
+        return self.point[lo:hi]
+
+    def counts(self) -> np.ndarray:
+        """Points per plot, in layer order."""
+        return np.bincount(self.plot, minlength=self.n_plots)
+
+    def plots_per_point(self) -> np.ndarray:
+        """How many plots hold each point (0 outside every plot)."""
+        return np.bincount(self.point, minlength=self.n_points)
+
+    def in_any(self) -> np.ndarray:
+        """Boolean mask of the points inside at least one plot."""
+        return self.plots_per_point() > 0
+
+    def first_plot(self) -> np.ndarray:
+        """Lowest plot index holding each point, -1 outside every plot."""
+        out = np.full(self.n_points, self.n_plots, dtype=np.int64)
+        np.minimum.at(out, self.point, self.plot)
+        out[out == self.n_plots] = -1
+        return out
+
+
+def plot_membership(
+    x: np.ndarray, y: np.ndarray, geometries: Sequence[shapely.Geometry]
+) -> PlotMembership:
+    """Every (point, plot) pair where the plot holds the point, boundary included.
+
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        Point coordinates (metres), in the plots' CRS.
+    geometries : sequence of shapely.Polygon or shapely.MultiPolygon
+        Plot outlines in layer order.
+
+    Returns
+    -------
+    PlotMembership
+        One pair per point and plot holding it; a point in two overlapping plots gives two
+        pairs.
+
+    Notes
+    -----
+    One vectorised query of a shapely ``STRtree`` over the plots with the ``intersects``
+    predicate (points on a boundary count as inside, as in :func:`points_in_plot`).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> m = plot_membership(np.array([1.0, 50.0]), np.array([1.0, 50.0]), [shapely.box(0, 0, 2, 2)])
+    >>> m.point.tolist(), m.plot.tolist()
+    ([0], [0])
+    """
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    geoms = np.asarray(list(geometries), dtype=object)
+    if x.size == 0 or geoms.size == 0:
+        e = np.empty(0, dtype=np.int64)
+        return PlotMembership(e, e.copy(), int(x.size), int(geoms.size))
+    tree = shapely.STRtree(geoms)
+    pt, pl = tree.query(shapely.points(x, y), predicate="intersects")
+    order = np.lexsort((pt, pl))
+    return PlotMembership(
+        pt[order].astype(np.int64), pl[order].astype(np.int64), int(x.size), int(geoms.size)
+    )
+
+
+def overlapping_plots(layer: PlotLayer) -> list[tuple[str, str, float]]:
+    """Pairs of plots whose interiors overlap, with the shared area in m².
+
+    Parameters
+    ----------
+    layer : PlotLayer
+        Plot polygons in a metric CRS.
+
+    Returns
+    -------
+    list of (str, str, float)
+        ``(plot_id_a, plot_id_b, overlap_m2)`` in layer order; plots that only touch along
+        an edge are not listed.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
+    >>> lay = PlotLayer([a, b], None)
+    >>> overlapping_plots(lay)
+    [('A', 'B', 2.0)]
+    """
+    geoms = np.asarray([p.geometry for p in layer.plots], dtype=object)
+    if geoms.size < 2:
+        return []
+    a, b = shapely.STRtree(geoms).query(geoms, predicate="intersects")
+    keep = a < b
+    a, b = a[keep], b[keep]
+    area = shapely.area(shapely.intersection(geoms[a], geoms[b]))
+    ids = layer.ids
+    return [
+        (ids[i], ids[j], float(s))
+        for i, j, s in sorted(zip(a.tolist(), b.tolist(), area.tolist(), strict=True))
+        if s > 1e-9 * max(1.0, min(geoms[i].area, geoms[j].area))
+    ]
+
+
+def overlap_note(layer: PlotLayer) -> str | None:
+    """One warning naming the overlapping plots, or None when no plots overlap.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
+    >>> lay = PlotLayer([a, b], None)
+    >>> overlap_note(lay).split(":")[0]
+    '1 pair of plots overlap'
+    """
+    pairs = overlapping_plots(layer)
+    if not pairs:
+        return None
+    shown = ", ".join(f"{a} & {b} ({s:.0f} m²)" for a, b, s in pairs[:6])
+    more = f" and {len(pairs) - 6} more" if len(pairs) > 6 else ""
+    k = len(pairs)
+    return (
+        f"{k} pair{'s' if k > 1 else ''} of plots overlap: {shown}{more}; a plant in "
+        "several plots counts in each of them (the points table has one row per plant and "
+        "plot), so those plots' results are not independent"
+    )
+
+
+def assign_plots(points: PointSet, layer: PlotLayer) -> PlotMembership:
+    """Plot membership of every point: all plots holding it (see :func:`plot_membership`).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
+    >>> lay = PlotLayer([a, b], None)
+    >>> assign_plots(PointSet(np.array([0.5]), np.array([0.5])), lay).counts().tolist()
+    [1, 1]
+    """
+    return plot_membership(points.x, points.y, [p.geometry for p in layer.plots])
+
+
+def points_by_plot(points: PointSet, layer: PlotLayer, membership: PlotMembership) -> PointSet:
+    """The points in plots, one row per (point, plot) pair, with ``plot_id`` and ``plot_count``.
+
+    A plant inside two overlapping plots appears twice, once with each ``plot_id`` (a
+    one-to-many spatial join, as GIS tools make it); ``plot_count`` says in how many plots
+    it lies, so that totals over all plots can be made without double counting (keep the
+    rows with the first of its plots, or divide by ``plot_count``).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
+    >>> lay = PlotLayer([a, b], None)
+    >>> pts = PointSet(np.array([0.5, 1.5]), np.array([0.5, 1.5]))
+    >>> out = points_by_plot(pts, lay, assign_plots(pts, lay))
+    >>> out.attrs["plot_id"].tolist(), out.attrs["plot_count"].tolist()
+    (['A', 'B', 'A'], [2, 2, 1])
+    """
+    ids = np.array(layer.ids, dtype=object)
+    # in the points' own order, the rows of a plant in several plots next to each other
+    order = np.lexsort((membership.plot, membership.point))
+    pt, pl = membership.point[order], membership.plot[order]
+    sub = points.subset(pt)
+    attrs = {
+        "plot_id": ids[pl],
+        "plot_count": membership.plots_per_point()[pt].astype(np.int64),
+    }
+    attrs.update({k: v for k, v in sub.attrs.items() if k not in attrs})
+    return PointSet(sub.x, sub.y, attrs, sub.crs, list(sub.notes))
+
+
+def unsurveyed_plots(
+    layer: PlotLayer, membership: PlotMembership, extent: shapely.Geometry | None
+) -> list[int]:
+    """Indices of the plots that hold no point and lie wholly outside the surveyed extent.
+
+    Parameters
+    ----------
+    layer : PlotLayer
+        The plots.
+    membership : PlotMembership
+        Points per plot.
+    extent : shapely.Geometry or None
+        What was surveyed: a raster's footprint, or for a points file the convex hull of
+        all its points. None: every plot counts as surveyed.
+
+    Returns
+    -------
+    list of int
+        Plots to leave out: an empty plot outside the extent was not looked at, so it is
+        "not surveyed", not "no plants".
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(9, 9, 10, 10))
+    >>> lay = PlotLayer([a, b], None)
+    >>> m = plot_membership(np.array([1.0]), np.array([1.0]), [p.geometry for p in lay.plots])
+    >>> unsurveyed_plots(lay, m, shapely.box(0, 0, 3, 3))
+    [1]
+    """
+    if extent is None or not layer.plots:
+        return []
+    geoms = np.asarray([p.geometry for p in layer.plots], dtype=object)
+    touches = shapely.intersects(geoms, extent)
+    empty = membership.counts() == 0
+    return np.flatnonzero(empty & ~touches).tolist()
+
+
+def unsurveyed_note(ids: Sequence[str], what: str) -> str:
+    """The one note naming plots left out as not surveyed.
+
+    Examples
+    --------
+    >>> unsurveyed_note(["P7"], "the raster's footprint")
+    "plot P7 lies outside the raster's footprint: not surveyed (not 'no plants'), left out"
+    """
+    ids = list(ids)
+    shown = ", ".join(ids[:10]) + (f" and {len(ids) - 10} more" if len(ids) > 10 else "")
+    one = len(ids) == 1
+    return (
+        f"plot{'' if one else 's'} {shown} lie{'s' if one else ''} outside {what}: not "
+        "surveyed (not 'no plants'), left out"
+    )
+
+
+def drop_plots(
+    layer: PlotLayer, membership: PlotMembership, drop: Sequence[int]
+) -> tuple[PlotLayer, PlotMembership]:
+    """The layer without the plots ``drop`` and the membership renumbered to match.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> a, b = Plot("A", shapely.box(0, 0, 1, 1)), Plot("B", shapely.box(0, 0, 2, 2))
+    >>> lay = PlotLayer([a, b], None)
+    >>> m = plot_membership(np.array([1.5]), np.array([1.5]), [p.geometry for p in lay.plots])
+    >>> lay2, m2 = drop_plots(lay, m, [0])
+    >>> lay2.ids, m2.plot.tolist()
+    (['B'], [0])
+    """
+    if not len(drop):
+        return layer, membership
+    keep = np.ones(len(layer.plots), bool)
+    keep[list(drop)] = False
+    new_index = np.cumsum(keep) - 1
+    sel = keep[membership.plot]
+    new_layer = PlotLayer(
+        [p for p, k in zip(layer.plots, keep, strict=True) if k], layer.crs, list(layer.notes)
+    )
+    m = PlotMembership(
+        membership.point[sel],
+        new_index[membership.plot[sel]],
+        membership.n_points,
+        int(keep.sum()),
+    )
+    return new_layer, m
 
 
 @dataclass
 class SurveyInputs:
-    """Points and plots in one metric CRS, with each point's plot.
+    """Points and plots in one metric CRS, with the plots holding each point.
 
     Attributes
     ----------
     points : PointSet
         All points read.
     layer : PlotLayer
-        The plots, in the points' CRS.
-    plot_index : numpy.ndarray
-        For each point, the index into ``layer.plots`` of its plot, or -1.
+        The plots, in the points' CRS (plots left out as not surveyed are not in it).
+    membership : PlotMembership
+        Every (point, plot) pair; a point in overlapping plots is in each of them.
     notes : list of str
         What was assumed or converted, for the user.
+    unsurveyed : list of str
+        Ids of the plots left out because the points do not reach them.
     """
 
     points: PointSet
     layer: PlotLayer
-    plot_index: np.ndarray
+    membership: PlotMembership
     notes: list[str] = field(default_factory=list)
+    unsurveyed: list[str] = field(default_factory=list)
 
     def plot_points(self, i: int) -> np.ndarray:
         """Coordinates (n, 2) of the points in plot ``i``."""
-        m = self.plot_index == i
-        return np.column_stack([self.points.x[m], self.points.y[m]])
+        idx = self.membership.points_of(i)
+        return np.column_stack([self.points.x[idx], self.points.y[idx]])
+
+    def plot_mask(self, i: int) -> np.ndarray:
+        """Boolean mask over all points of those in plot ``i``."""
+        m = np.zeros(self.points.n, bool)
+        m[self.membership.points_of(i)] = True
+        return m
 
     @property
     def plots(self) -> list[Plot]:
         """The plots in layer order."""
         return self.layer.plots
+
+
+def one_row_per_plant(points: PointSet) -> PointSet:
+    """Undo the one-row-per-plot layout of ecoscan's points tables.
+
+    ecoscan writes a plant that lies in several overlapping plots once per plot, with
+    ``plot_count`` > 1 (see :func:`points_by_plot`). Read back, such a table must count
+    each plant once: rows at the same position are merged, their plot ids joined by ';'.
+    Tables without ``plot_count`` > 1 are returned unchanged.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = PointSet(np.array([1.0, 1.0, 5.0]), np.array([1.0, 1.0, 5.0]),
+    ...                {"plot_id": np.array(["A", "B", "A"], dtype=object),
+    ...                 "plot_count": np.array([2, 2, 1])})
+    >>> one = one_row_per_plant(pts)
+    >>> one.n, one.attrs["plot_id"].tolist()
+    (2, ['A;B', 'A'])
+    """
+    cnt = points.attrs.get("plot_count")
+    if cnt is None or points.n == 0 or not np.any(np.asarray(cnt, float) > 1):
+        return points
+    _u, first, inv = np.unique(points.xy, axis=0, return_index=True, return_inverse=True)
+    inv = np.asarray(inv).ravel()
+    keep = np.sort(first)
+    out = points.subset(keep)
+    if "plot_id" in points.attrs:
+        joined: dict[int, list[str]] = {}
+        for k, g in zip(inv.tolist(), points.attrs["plot_id"].tolist(), strict=True):
+            joined.setdefault(k, []).append(str(g))
+        out.attrs["plot_id"] = np.array([";".join(joined[k]) for k in inv[keep]], dtype=object)
+    return out
 
 
 def load_points_and_plots(
@@ -92,7 +435,7 @@ def load_points_and_plots(
     points_layer: str | None = None,
     plots_layer: str | None = None,
 ) -> SurveyInputs:
-    """Read points and plots, put them in one metric CRS and find each point's plot.
+    """Read points and plots, put them in one metric CRS and find each point's plots.
 
     Parameters
     ----------
@@ -108,13 +451,17 @@ def load_points_and_plots(
     Returns
     -------
     SurveyInputs
+        A point in several plots (overlapping or nested plots) belongs to each; a note warns
+        when plots overlap. A plot that holds no point and lies wholly outside the convex
+        hull of all the points read is left out as not surveyed (a points file has no
+        footprint; its hull is the surveyed extent we can vouch for), with one note naming it.
 
     Raises
     ------
     InputError
         From reading, or when no point falls inside any plot (most often a CRS mix-up).
     """
-    pts = read_points(points_path, crs, layer=points_layer)
+    pts = one_row_per_plant(read_points(points_path, crs, layer=points_layer))
     layer = read_plots(
         plots_path,
         target_crs=pts.crs,
@@ -124,8 +471,9 @@ def load_points_and_plots(
     )
     if pts.crs is None and layer.crs is not None:
         pts = PointSet(pts.x, pts.y, pts.attrs, layer.crs, pts.notes)
-    idx = assign_plots(pts, layer)
-    if not np.any(idx >= 0):
+    member = assign_plots(pts, layer)
+    inside = member.in_any()
+    if not np.any(inside):
         px0, py0 = float(pts.x.min()), float(pts.y.min())
         bx0, by0, _bx1, _by1 = shapely.total_bounds([p.geometry for p in layer.plots])
         raise InputError(
@@ -135,7 +483,16 @@ def load_points_and_plots(
             "CRS of both files"
         )
     notes = list(pts.notes) + [n for n in layer.notes if n not in pts.notes]
-    outside = int(np.sum(idx < 0))
+    outside = int(np.sum(~inside))
     if outside:
         notes.append(f"{outside} of {pts.n} points lie outside every plot and were left out")
-    return SurveyInputs(pts, layer, idx, notes)
+    ov = overlap_note(layer)
+    if ov:
+        notes.append(ov)
+    hull = shapely.convex_hull(shapely.multipoints(pts.xy))
+    drop = unsurveyed_plots(layer, member, hull)
+    gone = [layer.plots[i].plot_id for i in drop]
+    if gone:
+        notes.append(unsurveyed_note(gone, "the area the points cover (their convex hull)"))
+        layer, member = drop_plots(layer, member, drop)
+    return SurveyInputs(pts, layer, member, notes, gone)

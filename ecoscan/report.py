@@ -245,19 +245,25 @@ def methods_html(extra: Sequence[str] = (), topics: Sequence[str] = ()) -> str:
         (
             "Guard zone",
             "Only plants farther than the guard distance from the plot edge are focal; their "
-            "neighbours may be any plant; the density is that of the whole plot.",
+            "neighbours may be any plant; the density is that of the whole plot. Its p-value "
+            "ranks the focal mean among the same random patterns as the verdict, each with "
+            "its own number of focal plants.",
             "Border (reduced-sample) method, e.g. Ripley, B. D. (1977). JRSS B 39: 172–212.",
         ),
         (
             "Monte Carlo test in the exact plot shape (the verdict)",
             "The same number of plants is placed at random in the plot polygon many times; "
             "p = (1 + k) / (N + 1) where k simulations are at least as extreme; two-sided "
-            "p = min(1, 2·min(p<sub>lower</sub>, p<sub>upper</sub>)).",
-            "Besag, J. &amp; Diggle, P. J. (1977). Applied Statistics 26: 327–333.",
+            "p = min(1, 2·min(p<sub>lower</sub>, p<sub>upper</sub>)). Simulation stops "
+            "early once h simulations are as extreme in each tail (p = h / l after l "
+            "simulations), which only happens when p is large.",
+            "Besag, J. &amp; Diggle, P. J. (1977). Applied Statistics 26: 327–333; Besag, J. "
+            "&amp; Clifford, P. (1991). Biometrika 78: 301–304.",
         ),
         (
             "Quadrats",
-            "Square cells clipped to the plot; expected counts n·a<sub>i</sub>/A; Pearson "
+            "Equal cells fitted to the plot (each whole cell expecting at least 5 plants "
+            "where the count allows), clipped to it; expected counts n·a<sub>i</sub>/A; Pearson "
             "X² = Σ (O − E)² / E with (cells − 1) degrees of freedom, two-sided p; "
             "variance-to-mean ratio s²/x̄; expected counts below 5 weaken the χ² "
             "approximation (common practice).",
@@ -266,7 +272,8 @@ def methods_html(extra: Sequence[str] = (), topics: Sequence[str] = ()) -> str:
         (
             "Morisita's index and its standardised form",
             "I<sub>δ</sub> = q Σ n<sub>i</sub>(n<sub>i</sub> − 1) / (N(N − 1)); standardised "
-            "I<sub>p</sub> in [−1, 1] with ±0.5 at the 95% limits.",
+            "I<sub>p</sub> in [−1, 1] with ±0.5 at the 95% limits, taken from the multinomial "
+            "simulation of the plot's own cells (exact for clipped, unequal cells).",
             "Morisita, M. (1959). Mem. Fac. Sci. Kyushu Univ. E 2: 215–235; Smith-Gill, S. J. "
             "(1975). J. Morphology 146: 35–54, as given in Krebs, C. J. (1999) Ecological "
             "Methodology, 2nd ed.",

@@ -54,6 +54,7 @@ __all__ = [
     "interpret",
     "plot_rng",
     "scales_rows",
+    "supported_max_distance",
     "write_scales",
 ]
 
@@ -294,6 +295,32 @@ def _fmt_m(v: float) -> str:
     return f"{v:.2g}"
 
 
+#: Runs shorter than this many distance steps are "brief" in the verdict text.
+_MIN_RUN_STEPS = 3
+#: Runs of one kind separated by at most this many steps (and nothing of the other kind)
+#: are one range in the verdict text.
+_MERGE_GAP_STEPS = 2
+
+
+def _merged_index_runs(mask: np.ndarray, other: np.ndarray) -> list[tuple[int, int]]:
+    """Index runs of ``mask``, merging those split by a short gap free of ``other``."""
+    m = np.asarray(mask, bool)
+    o = np.asarray(other, bool)
+    if not m.any():
+        return []
+    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1
+    out = [(int(starts[0]), int(ends[0]))]
+    for a, b in zip(starts[1:], ends[1:], strict=True):
+        pa, pb = out[-1]
+        if a - pb - 1 <= _MERGE_GAP_STEPS and not o[pb + 1 : a].any():
+            out[-1] = (pa, int(b))
+        else:
+            out.append((int(a), int(b)))
+    return out
+
+
 def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
     m = np.asarray(mask, bool)
     if not m.any():
@@ -383,23 +410,34 @@ def interpret(
         )
     reg = _runs(regular, r)
     clu = _runs(clustered, r)
-    events = sorted([(x, "regular") for x in reg] + [(x, "clustered") for x in clu])
-    parts: list[str] = []
-    last = None
-    many = {k: sum(1 for _x, kk in events if kk == k) > 2 for k in ("regular", "clustered")}
-    for rng_m, kind in events:
-        text = _describe([rng_m], r_start_regular if kind == "regular" else r_start)
-        if many[kind]:
-            runs = reg if kind == "regular" else clu
-            if rng_m != runs[0]:
-                continue
-            text += f", and in {len(runs) - 1} more distance bands up to {_fmt_m(runs[-1][1])} m"
-        if kind == last:
-            parts[-1] += f" and {text}"
+    # the verdict merges runs split by a gap of a step or two and names the main range;
+    # the exact ranges stay in the *_ranges_m columns
+    events = []
+    for kind, mask, other in (("regular", regular, clustered), ("clustered", clustered, regular)):
+        merged = _merged_index_runs(mask, other)
+        if not merged:
+            continue
+        long = [(a, b) for a, b in merged if b - a + 1 >= _MIN_RUN_STEPS]
+        short = len(merged) - len(long)
+        if long:
+            main = max(long, key=lambda t: (t[1] - t[0], -t[0]))
+            shown = sorted(long)[:2] if len(long) <= 2 else [main]
         else:
-            word = "regular (evenly spaced)" if kind == "regular" else "clustered"
-            parts.append(f"{word} {text}")
-        last = kind
+            main = max(merged, key=lambda t: (t[1] - t[0], -t[0]))
+            shown, short = [main], short - 1
+        start = r_start_regular if kind == "regular" else r_start
+        text = _describe([(float(r[a]), float(r[b])) for a, b in shown], start)
+        if len(long) > 2:
+            far = _fmt_m(r[max(long)[1]])
+            text = f"mainly {text}, with {len(long) - 1} further ranges up to {far} m"
+        if short > 0:
+            text += f" (and briefly at {short} other distance{'s' if short > 1 else ''})"
+        events.append((float(r[main[0]]), kind, text))
+    events.sort()
+    parts: list[str] = []
+    for _x, kind, text in events:
+        word = "regular (evenly spaced)" if kind == "regular" else "clustered"
+        parts.append(f"{word} {text}")
     if not parts:
         return [], [], f"departs from a random pattern, without one clear distance range ({p_txt})"
     return clu, reg, "; ".join(parts) + f" ({p_txt}){small}"
@@ -430,6 +468,54 @@ def _too_few(plot_id, n, area, settings, reason) -> PlotScales:
         settings.simulations,
         [reason],
         alpha=settings.alpha,
+    )
+
+
+def supported_max_distance(
+    polygon: shapely.Geometry, n: int, requested_m: float | None
+) -> tuple[float, str]:
+    """The largest distance the analysis uses, capped at what the plot supports, and a note.
+
+    Parameters
+    ----------
+    polygon : shapely.Polygon or shapely.MultiPolygon
+        The plot, metres.
+    n : int
+        Plants in the plot.
+    requested_m : float or None
+        The user's largest distance (``--rmax``), metres; None for the default.
+
+    Returns
+    -------
+    max_distance_m : float
+        ``requested_m`` capped at a quarter of the shorter side of the plot's minimum
+        rotated rectangle, or the default (:func:`default_r_max`).
+    note : str
+        A one-line note when the request was capped, else ''.
+
+    Notes
+    -----
+    A quarter of the shorter side is a common rule for the largest distance of K, L and g
+    (common practice): beyond it most circles around the plants leave the plot, the edge
+    weights grow without bound and a few pairs decide the curve, so verdicts there can
+    reverse. The rotated rectangle (not the axis-aligned box) keeps the rule meaningful for
+    plots at an angle.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> supported_max_distance(shapely.box(0, 0, 100, 40), 200, 50.0)[0]
+    10.0
+    """
+    quarter = 0.25 * shorter_side_m(polygon)
+    if requested_m is None:
+        return float(default_r_max(polygon, n)), ""
+    if requested_m <= quarter * 1.0001:
+        return float(requested_m), ""
+    return float(quarter), (
+        f"largest distance {_fmt_m(requested_m)} m is beyond what the plot supports; capped "
+        f"at {_fmt_m(quarter)} m, a quarter of its shorter side (estimates further out rest on "
+        "few pairs and can reverse the verdict)"
     )
 
 
@@ -477,13 +563,9 @@ def analyse_plot(
         )
     rng = plot_rng(settings.seed, plot_id)
     warnings: list[str] = []
-    quarter = 0.25 * shorter_side_m(polygon)
-    r_max = default_r_max(polygon, n) if settings.r_max_m is None else settings.r_max_m
-    if settings.r_max_m is not None and r_max > quarter * 1.0001:
-        warnings.append(
-            f"largest distance {_fmt_m(r_max)} m exceeds a quarter of the plot's shorter side "
-            f"({_fmt_m(quarter)} m); estimates at long distances are noisy"
-        )
+    r_max, note = supported_max_distance(polygon, n, settings.r_max_m)
+    if note:
+        warnings.append(note)
     if n < _FEW_PLANTS:
         warnings.append(f"only {n} plants: only strong patterns can be detected")
     lam = n / area
@@ -724,7 +806,7 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
     out = []
     xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
-        m = inputs.plot_index == i
+        m = inputs.plot_mask(i)
         kinds = None
         if kinds_all is not None:
             # only the plants of the two kinds compared (e.g. persisting and lost: the plants

@@ -162,17 +162,26 @@ def validate_points(
     di = assign_plots(detected, layer)
     ri = assign_plots(reference, layer)
     rows = []
-    tot = np.zeros(3, dtype=np.int64)
-    tot_off = 0.0
+    # a plot holding neither a detection nor a reference plant was not surveyed by either
+    # (another site, or outside both): left out, not scored as a perfect empty plot
     for i, p in enumerate(layer.plots):
-        a = detected.xy[di == i]
-        b = reference.xy[ri == i]
+        a = detected.xy[di.points_of(i)]
+        b = reference.xy[ri.points_of(i)]
+        if a.shape[0] == 0 and b.shape[0] == 0:
+            continue
         m = match_points(a, b, tolerance_m)
         tp = m.n_matched
         fp, fn = a.shape[0] - tp, b.shape[0] - tp
-        off = float(m.distance_m.sum())
-        rows.append(accuracy(p.plot_id, tp, fp, fn, off))
-        tot += (tp, fp, fn)
-        tot_off += off
+        rows.append(accuracy(p.plot_id, tp, fp, fn, float(m.distance_m.sum())))
+    # overall: every plant once, also where plots overlap (each scored in the first plot
+    # holding it), and never matched across plots
+    tot = np.zeros(3, dtype=np.int64)
+    tot_off = 0.0
+    df, rf = di.first_plot(), ri.first_plot()
+    for i in range(len(layer.plots)):
+        a, b = detected.xy[df == i], reference.xy[rf == i]
+        m = match_points(a, b, tolerance_m)
+        tot += (m.n_matched, a.shape[0] - m.n_matched, b.shape[0] - m.n_matched)
+        tot_off += float(m.distance_m.sum())
     rows.append(accuracy("all", int(tot[0]), int(tot[1]), int(tot[2]), tot_off))
     return rows

@@ -151,7 +151,7 @@ def test_write_analysis_folder(tmp_path):
     assert doc["plots"][0]["p_mc"] == pytest.approx(res[0].monte_carlo.pvalue)
     with open(tmp_path / "out" / "points.csv", newline="") as fh:
         prow = list(csv.reader(fh))
-    assert prow[0] == ["x", "y", "plot_id", "height_m"]
+    assert prow[0] == ["x", "y", "plot_id", "plot_count", "height_m"]
     assert len(prow) == 1 + 120
     assert {r[2] for r in prow[1:]} == {"north", "east"}
 

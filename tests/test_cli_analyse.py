@@ -73,13 +73,16 @@ def test_analyse_writes_results_and_table(survey, tmp_path, capsys):
         assert (out / name).is_file()
     header = (out / "dispersion.csv").read_text().splitlines()[0].split(",")
     assert header[: len(DISPERSION_COLUMNS)] == list(DISPERSION_COLUMNS)
-    for pid in PLOTS:
-        assert pid in stdout
+    assert "meadow" in stdout and "slope" in stdout
+    # "bare" lies beyond every point (outside their convex hull): not surveyed, so it is
+    # left out with a note naming it instead of reading as a plot with no plants
+    assert "bare" not in stdout and "plot bare lies outside" in stderr
     # plots came in WGS 84 and were reprojected: the output says so
     assert "reprojected" in stderr
     doc = json.loads((out / "dispersion.json").read_text())
     assert any("reprojected" in n for n in doc["notes"])
-    assert doc["plots"][2]["n"] == 0 and doc["plots"][2]["warnings"]
+    assert [p["plot_id"] for p in doc["plots"]] == ["meadow", "slope"]
+    assert any("plot bare" in n and "not surveyed" in n for n in doc["notes"])
     # same seed, same output
     first = (out / "dispersion.csv").read_bytes()
     rc, _, _ = _run(argv, capsys)
@@ -180,7 +183,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
     argv = [
         "analyse", str(pts), "--plots", str(plots), "--crs", "EPSG:32633", "-o", str(out),
         "--simulations", "49", "--seed", "5", "--alpha", "0.1", "--alternative", "clustered",
-        "--guard", "3", "--quadrat", "20",
+        "--guard", "3", "--quadrat", "20", "--stop-after", "0",
     ]  # fmt: skip
     rc, _, stderr = _run(argv, capsys)
     assert rc == 0, stderr
@@ -193,6 +196,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
         "guard_m": 3.0,
         "quadrat_m": 20.0,
         "min_points": 30,
+        "stop_after": 0,
     }
     meadow = doc["plots"][0]
     assert meadow["guard_m"] == 3.0 and meadow["quadrat_size_m"] == 20.0

@@ -6,7 +6,15 @@ from ecoscan import __version__
 from ecoscan.cli import _command_modules, main
 
 COMMANDS = [
-    "demo", "survey", "detect", "analyse", "scales", "validate", "compare", "change", "plan"
+    "demo",
+    "survey",
+    "detect",
+    "analyse",
+    "scales",
+    "validate",
+    "compare",
+    "change",
+    "plan",
 ]
 
 

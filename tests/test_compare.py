@@ -187,14 +187,28 @@ def test_survey_folders_by_site_and_date(tmp_path):
                     offset=1000),
     ]  # fmt: skip
     tables = [read_results(f) for f in folders]
+    # the two dates of "north" hold the same plots: by default never pooled, so sites are
+    # compared date by date (only groups of the same date form pairs)
     by_site = compare_groups(tables, "auto", permutations=199)
     assert by_site.by == "site"
     g = {r["group"]: r for r in group_rows(by_site)}
-    assert g["north"]["n_plots"] == 4 and g["south"]["n_plots"] == 2
-    assert g["north"]["rank_regularity"] == 1
+    assert set(g) == {"north 2025-05-01", "north 2025-09-01", "south 2025-05-01"}
+    assert g["north 2025-05-01"]["n_plots"] == 2
+    assert [(p["group_a"], p["group_b"]) for p in comparison_rows(by_site)] == [
+        ("north 2025-05-01", "south 2025-05-01")
+    ]
+    assert any("date by date" in n for n in by_site.notes)
+    pooled = compare_groups(tables, "site", permutations=199, pool_dates=True)
+    g = {r["group"]: r for r in group_rows(pooled)}
+    assert g["north"]["n_plots"] == 4 and g["north"]["rank_regularity"] == 1
+    assert any("count" in n and "twice" in n for n in pooled.notes)
     by_date = compare_groups(tables, "date", permutations=199)
     assert {r["group"] for r in group_rows(by_date)} == {"2025-05-01", "2025-09-01"}
-    assert any("conservative" in n for n in by_date.notes)
+    (pair,) = comparison_rows(by_date)
+    assert pair["paired_plots"] == 2  # north's P1 and P2 on both dates
+    # 2 plots: 4 sign patterns, p cannot go below 2/4 (exact sign-flip test)
+    assert pair["paired_arrangements"] == 4 and pair["p_R_paired"] >= 0.5
+    assert any("cannot go below 0.5" in n for n in by_date.notes)
 
 
 def test_by_date_needs_dates(stands):
@@ -267,7 +281,7 @@ def test_results_from_points_in_memory_matches_folder(tmp_path):
     for folder in (f, g):
         si = load_points_and_plots(folder / "points.csv", folder / "plots.gpkg")
         mem.append(results_from_points(si.points, si.layer, label=folder.name,
-                                       plot_index=si.plot_index))  # fmt: skip
+                                       membership=si.membership))  # fmt: skip
     memory = compare_groups(mem, "folder", permutations=199)
     a, b = comparison_rows(disk)[0], comparison_rows(memory)[0]
     for k in ("n_a", "n_b", "R_a", "R_b", "p_density", "p_R_perm", "p_ks"):
@@ -309,3 +323,30 @@ def test_folders_in_different_crs_are_compared_in_their_own_metres(tmp_path):
     ga, gb = res.groups
     assert ga.n == gb.n  # the plots were reprojected with the points
     assert ga.r.statistic == pytest.approx(gb.r.statistic, rel=2e-3)  # UTM scale differs a little
+
+
+def test_group_label_follows_the_interval_shown_beside_it():
+    # Random plants in small square plots: the plain Clark-Evans R is biased upward by the
+    # edge (Donnelly 1978), so its 95% interval can exclude 1 while the edge-corrected
+    # one does not. The label must agree with an interval that groups.csv shows.
+    from ecoscan.compare import results_from_points
+
+    rng = np.random.default_rng(2)
+    tabs = []
+    for lab, off in (("east", 0.0), ("west", 1000.0)):
+        plots = [
+            Plot(f"Q{k}", shapely.box(off + 20 * k, 0, off + 20 * k + 12, 12)) for k in range(6)
+        ]
+        xy = np.vstack([uniform_in_polygon(p.geometry, 40, rng=rng) for p in plots])
+        ids = np.repeat([p.plot_id for p in plots], 40).astype(object)
+        pts = PointSet(xy[:, 0], xy[:, 1], {"plot_id": ids}, UTM33)
+        tabs.append(results_from_points(pts, PlotLayer(plots, UTM33), label=lab))
+    rows = group_rows(compare_groups(tabs, "folder", permutations=199))
+    assert any(r["R_low95"] > 1.0 for r in rows)  # the plain interval misleads here
+    for r in rows:
+        lo, hi = r["R_donnelly_low95"], r["R_donnelly_high95"]
+        # the interval is R_donnelly ± 1.96 SE (normal quantile from scipy)
+        assert (lo + hi) / 2 == pytest.approx(r["R_donnelly"])
+        assert (hi - lo) / 2 == pytest.approx(sps.norm.ppf(0.975) * r["R_donnelly_se"])
+        want = "regular" if lo > 1 else "clustered" if hi < 1 else "random"
+        assert r["pattern"] == want

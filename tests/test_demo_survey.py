@@ -144,7 +144,7 @@ def test_bad_survey_file_exit_code(tmp_path, capsys):
 def test_detected_points_are_inside_plots(demo_run):
     _cfg, run = demo_run
     for rr in run.rasters:
-        assert np.all(rr.inputs.plot_index >= 0)
+        assert np.all(rr.inputs.membership.in_any())
 
 
 def test_change_finds_the_lost_and_new_plants(demo_run):
@@ -170,10 +170,15 @@ def test_compare_ranks_regularity_as_built(demo_run):
     from ecoscan.compare import group_rows
 
     res = dict(run.comparisons)["plot"]
+    # groups are "site/plot date": the dates of one plot are never pooled
     rank = {r["group"].split("/")[-1]: r["rank_regularity"] for r in group_rows(res)}
-    regular = [rank[p] for p, k in BUILT_AS.items() if k == "regular"]
-    random_ = [rank[p] for p, k in BUILT_AS.items() if k == "random"]
-    clustered = [rank[p] for p, k in BUILT_AS.items() if k == "clustered"]
+    plot_of = {g: g.split(" ")[0] for g in rank}
+    assert len(rank) == 2 * len(set(plot_of.values()))  # two dates per plot
+
+    def ranks(kind):
+        return [rank[g] for g in rank if BUILT_AS[plot_of[g]] == kind]
+
+    regular, random_, clustered = ranks("regular"), ranks("random"), ranks("clustered")
     assert max(regular) < min(random_) and max(random_) < min(clustered), rank
 
 

@@ -109,3 +109,28 @@ def test_ndvi_from_named_bands(tmp_path):
 def test_same_input_same_output(scene, whole):
     again = detect_raster(scene[0], SET)
     np.testing.assert_array_equal(again.points.xy, whole.points.xy)
+
+
+def test_overlapping_plots_each_get_their_plants_and_plots_off_the_raster_are_left_out(
+    scene, whole
+):
+    # p1 and p2 overlap on [X0+6, X0+11]; "away" lies 1 km off the raster. Reference counts:
+    # shapely.contains_xy on the untiled detections (boundary cases aside, as above).
+    crs = CRS.from_user_input(UTM)
+    b1 = shapely.box(X0 + 2, Y0 - 12, X0 + 11, Y0 - 3)
+    b2 = shapely.box(X0 + 6, Y0 - 12, X0 + 15, Y0 - 3)
+    away = shapely.box(X0 + 1000, Y0 - 12, X0 + 1010, Y0 - 3)
+    layer = PlotLayer([Plot("p1", b1), Plot("p2", b2), Plot("away", away)], crs)
+    res = detect_raster(
+        scene[0], DetectionSettings(**{**SET.to_dict(), "tile_size_px": 128}), plots=layer
+    )
+    ids = res.points.attrs["plot_id"]
+    for pid, box in (("p1", b1), ("p2", b2)):
+        assert int(np.sum(ids == pid)) == int(
+            shapely.contains_xy(box, whole.points.x, whole.points.y).sum()
+        )
+    both = shapely.contains_xy(b1.intersection(b2), whole.points.x, whole.points.y).sum()
+    assert both > 0 and int(np.sum(res.points.attrs["plot_count"] == 2)) == 2 * both
+    assert res.unsurveyed == ["away"]
+    assert any("plot away lies outside" in n for n in res.notes)
+    assert any("overlap" in n for n in res.warnings)

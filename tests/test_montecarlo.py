@@ -127,3 +127,60 @@ def test_size_under_csr(poly):
     clu = np.mean([c.pvalue < 0.05 and c.z < 0 for c in ce])
     assert reg > 0.025 + BAND
     assert clu < reg / 4
+
+
+def test_sequential_pvalues_follow_besag_clifford():
+    # Besag & Clifford (1991), Biometrika 78: 301-304: p = h / l when the h-th simulated value
+    # at least as extreme as the observed one comes at simulation l; (1 + g) / (N + 1) after N
+    from ecoscan.stats.montecarlo import sequential_pvalues
+
+    sims = np.array([3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, 6.0])[:, None]
+    lo, up, used = sequential_pvalues(np.array([3.5]), sims, 99, 2)
+    assert lo[0] == 2 / 2  # 3 and 1 are both <= 3.5 by l = 2
+    assert up[0] == 2 / 5  # 4 (l = 3) and 5 (l = 5) are >= 3.5
+    assert used == 5
+    lo, up, used = sequential_pvalues(np.array([10.0]), sims, 8, 2)
+    assert up[0] == 1 / 9 and used == 8  # never reached: fixed-N rank p with N = 8
+    lo0, up0, _ = sequential_pvalues(np.array([3.5]), sims, 8, 0)
+    _, lo_f, up_f = rank_pvalues(3.5, sims[:, 0])
+    assert lo0[0] == lo_f and up0[0] == up_f
+
+
+def test_sequential_verdicts_equal_fixed_n_on_seeded_patterns():
+    # issue 10, item 10: verdicts unchanged by the sequential rule (seeded data); a random
+    # pattern stops early, a clear one uses every simulation
+    rng = np.random.default_rng(5)
+    parents = uniform_in_polygon(RECT, 5, rng=rng)
+    clus = np.repeat(parents, 20, axis=0) + rng.normal(0, 1.0, (100, 2))
+    clus = clus[shapely.contains_xy(RECT, clus[:, 0], clus[:, 1])]
+    j, i = np.mgrid[0:10, 0:20]
+    grid = np.column_stack([i.ravel() * 5 + 2.5, j.ravel() * 5 + 2.5]).astype(float)
+    rand = uniform_in_polygon(RECT, 100, rng=9)
+    for xy, want in ((clus, "clustered"), (grid, "regular"), (rand, "random")):
+        fixed = monte_carlo_nn(xy, RECT, simulations=499, rng=1)
+        seq = monte_carlo_nn(xy, RECT, simulations=499, rng=1, stop_after=20)
+        for res in (fixed, seq):
+            assert (res.direction if res.pvalue < 0.05 else "random") == want
+    assert seq.simulations < 150 and fixed.simulations == 499
+
+
+def test_numbers_do_not_depend_on_the_number_of_processes():
+    xy = uniform_in_polygon(RECT, 60, rng=4)
+    a = monte_carlo_nn(xy, RECT, simulations=150, rng=3, stop_after=20, workers=1)
+    b = monte_carlo_nn(xy, RECT, simulations=150, rng=3, stop_after=20, workers=2)
+    assert a.pvalue == b.pvalue and a.simulations == b.simulations
+    np.testing.assert_array_equal(a.simulated_nn_m, b.simulated_nn_m)
+
+
+def test_large_pattern_path_matches_plain_kdtree():
+    # the unbalanced, leaf-order path for n >= 2000 gives the same means as a plain
+    # scipy cKDTree query (reference library) on the same seeded patterns
+    import shapely as shp
+
+    from ecoscan.stats.montecarlo import _block_stats
+
+    ent = [1, 2, 3, 4]
+    got = _block_stats(shp.to_wkb(RECT), None, 2500, 2, ent, 5)[:, 0]
+    gen = np.random.default_rng(np.random.SeedSequence(ent, spawn_key=(5,)))
+    pats = uniform_in_polygon(RECT, 2500, size=2, rng=gen)
+    np.testing.assert_allclose(got, mean_nn_batch(pats), rtol=1e-12)

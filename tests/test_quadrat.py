@@ -8,7 +8,7 @@ from scipy import stats as sps
 
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.quadrat import (
-    default_quadrat_size,
+    default_quadrat_cells,
     morisita_index,
     quadrat_monte_carlo,
     quadrat_test,
@@ -139,14 +139,21 @@ def test_points_outside_refused():
         quadrat_test(np.array([[150.0, 50.0], [50.0, 50.0]]), SQUARE, 10.0)
 
 
-def test_default_size_rule_and_low_expected_count():
-    # common practice: cell area about 2A/n (quoted from memory)
-    assert default_quadrat_size(50, 10_000.0) == pytest.approx(20.0)
+def test_default_grid_whole_cells_expect_five_and_no_thin_edge_cells():
+    # issue 10, case 5. Cochran's rule: expected counts of at least 5 (common practice).
+    # n = 50 in a 100 m square: 3 × 3 equal cells of 33.3 m, each expecting 5.6 points
     xy = uniform_in_polygon(SQUARE, 50, rng=3)
     r = quadrat_test(xy, SQUARE)
-    assert r.cell_size_m == pytest.approx(20.0)
-    # 25 equal cells expecting 2 points each: all below Cochran's 5 (common practice)
-    assert r.n_low_expected == 25
+    assert r.cell_size_m == pytest.approx(100 / 3) and r.cell_height_m == pytest.approx(100 / 3)
+    assert r.q == 9 and r.n_low_expected == 0
+    # exact geometric fact: in a rectangle the fitted grid has equal cells, none thin
+    for poly, n in ((shapely.box(0, 0, 50, 50), 100), (shapely.box(0, 0, 400, 5), 100)):
+        w, h = default_quadrat_cells(poly, n)
+        res = quadrat_test(uniform_in_polygon(poly, n, rng=1), poly)
+        assert np.ptp(res.cell_area_m2) < 1e-9 * w * h
+        assert res.expected.min() >= 5.0
+    # two cells at least, even for very few points
+    assert np.prod([round(s) for s in default_quadrat_cells(SQUARE, 4)]) == 5000
     assert quadrat_test(xy, SQUARE, 50.0).n_low_expected == 0
 
 

@@ -19,7 +19,7 @@ date = 2026-04-20
 [[raster]]
 path = "b.tif"
 site = "North"
-date = "autumn"
+date = "2026-10-03"
 """
 
 
@@ -87,7 +87,9 @@ def test_documented_example_parses(tmp_path):
 
 def test_bad_values_reported_with_lines_before_any_work(tmp_path):
     _touch(tmp_path, "plots.gpkg", "a.tif", "b.tif")
-    text = GOOD.replace('date = "autumn"\n', 'date = "autumn"\n[raster.detect]\nmethod = "lidar"\n')
+    text = GOOD.replace(
+        'date = "2026-10-03"\n', 'date = "2026-10-03"\n[raster.detect]\nmethod = "lidar"\n'
+    )
     text += '\n[statistics]\nalpha = "high"\n'
     f = tmp_path / "s.toml"
     f.write_text(text)
@@ -97,3 +99,29 @@ def test_bad_values_reported_with_lines_before_any_work(tmp_path):
     assert "2 problems" in msg
     assert "line 15: [raster.detect] method 'lidar' is unknown" in msg
     assert "line 18: [statistics]" in msg and "alpha" in msg
+
+
+@pytest.mark.parametrize("bad", ["03/10/2026", "20/04/2026", "autumn", "2026-4-20"])
+def test_dates_must_be_iso_so_that_they_sort_in_time_order(tmp_path, bad):
+    # 03/10/2026 is 3 October day-first and 10 March month-first; sorted as text, 03/10
+    # comes before 20/04 and autumn before spring. ISO 8601 (YYYY-MM-DD) has one reading
+    # and sorts in time order (common practice).
+    _touch(tmp_path, "plots.gpkg", "a.tif", "b.tif")
+    f = tmp_path / "s.toml"
+    f.write_text(GOOD.replace('date = "2026-10-03"', f'date = "{bad}"'))
+    with pytest.raises(InputError) as exc:
+        load_survey(f)
+    msg = str(exc.value)
+    assert f"line 14: date '{bad}'" in msg and "YYYY-MM-DD" in msg
+
+
+def test_iso_dates_sort_in_time_order(tmp_path):
+    _touch(tmp_path, "plots.gpkg", "a.tif", "b.tif")
+    f = tmp_path / "s.toml"
+    f.write_text(GOOD.replace("date = 2026-04-20", 'date = "2026-11-02"'))
+    cfg = load_survey(f)
+    dates = [r.date for r in cfg.rasters]
+    assert sorted(dates) == ["2026-10-03", "2026-11-02"]
+    with pytest.raises(InputError, match="not a calendar date"):
+        f.write_text(GOOD.replace('date = "2026-10-03"', 'date = "2026-02-30"'))
+        load_survey(f)

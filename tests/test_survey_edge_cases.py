@@ -56,7 +56,7 @@ def _scene(tmp_path):
     (tmp_path / "s.toml").write_text(
         '[survey]\nplots = "plots.gpkg"\n[statistics]\nsimulations = 99\n'
         "[scales]\nenabled = true\nsimulations = 19\n"
-        '[[raster]]\npath = "rgb.tif"\nsite = "test"\ndate = "d1"\n'
+        '[[raster]]\npath = "rgb.tif"\nsite = "test"\ndate = "2026-05-01"\n'
         "[raster.detect]\ndiameter = [0.6, 1.5]\n"
     )
     return len(keep)
@@ -72,3 +72,19 @@ def test_empty_single_and_uncovered_plots(tmp_path):
     assert abs(rows["west"]["n"] - n_west) <= 1
     html = (tmp_path / "out" / "report.html").read_text()
     assert "Plot bare" in html and "Plot lone" in html
+
+
+def test_survey_with_too_few_simulations_says_so(tmp_path):
+    # issue 10, case 12: with 19 simulations the smallest two-sided Monte Carlo p is
+    # 2 / 20 = 0.1 (Besag & Diggle 1977), so no plot can be called clustered or regular at
+    # α = 0.05; the survey labelled every plot "random" without a word
+    _scene(tmp_path)
+    toml = (tmp_path / "s.toml").read_text()
+    toml = toml.replace("simulations = 99", "simulations = 19").replace(
+        "enabled = true", "enabled = false"
+    )
+    (tmp_path / "s.toml").write_text(toml)
+    run = run_survey(load_survey(tmp_path / "s.toml"), output=tmp_path / "out")
+    assert any("smallest possible Monte Carlo p is 0.1" in n for n in run.notes)
+    west = next(r for r in run.rows if r["plot_id"] == "west")
+    assert "use at least 40 simulations" in west["warnings"]

@@ -74,6 +74,7 @@ ATTRIBUTE_ORDER = (
     "index_value",
     "class_value",
     "plot_id",
+    "plot_count",
     "tile",
 )
 
@@ -104,6 +105,11 @@ class DetectionResult:
         Pixels read, including overlaps, in millions.
     warnings : list of str
         The notes that need attention.
+    raster : RasterInfo
+        The raster read.
+    unsurveyed : list of str
+        Plots given that lie wholly outside the raster: not surveyed, so left out (no
+        count, not a zero).
     """
 
     points: PointSet
@@ -117,6 +123,7 @@ class DetectionResult:
     megapixels_read: float = 0.0
     warnings: list[str] = field(default_factory=list)
     raster: RasterInfo | None = None
+    unsurveyed: list[str] = field(default_factory=list)
 
     @property
     def n(self) -> int:
@@ -694,6 +701,16 @@ def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
     return shapely.polygons(rings)
 
 
+def _raster_polygon(info: RasterInfo):
+    """The raster's outline (pixel corners) in its own CRS."""
+    import shapely
+
+    t = info.transform
+    cs = np.array([0, info.width, info.width, 0], float)
+    rs = np.array([0, 0, info.height, info.height], float)
+    return shapely.Polygon(np.column_stack([t.a * cs + t.b * rs + t.c, t.d * cs + t.e * rs + t.f]))
+
+
 def _plots_in(layer: PlotLayer, crs) -> np.ndarray:
     from ecoscan.vector import reproject_geometries
 
@@ -747,7 +764,12 @@ def detect_raster(
     """
     import shapely
 
-    from ecoscan.inputs import assign_plots
+    from ecoscan.inputs import (
+        assign_plots,
+        overlap_note,
+        points_by_plot,
+        unsurveyed_note,
+    )
     from ecoscan.vector import PlotLayer
 
     settings = settings or DetectionSettings()
@@ -854,19 +876,41 @@ def detect_raster(
     if frame.reprojected_from is not None:
         x, y = transform_xy(x, y, info.crs, frame.crs)
     pts = PointSet(x, y, attrs, frame.crs, [])
-    if plots is not None and pts.n:
+    unsurveyed: list[str] = []
+    if plots is not None:
         geoms = _plots_in(plots, None if info.local else frame.crs)
         layer = PlotLayer(
             [type(p)(p.plot_id, g, p.attrs) for p, g in zip(plots.plots, geoms, strict=True)],
             frame.crs,
         )
-        idx = assign_plots(pts, layer)
-        pts = pts.subset(idx >= 0)
-        pts.attrs["plot_id"] = np.array(
-            [layer.plots[i].plot_id for i in idx[idx >= 0]], dtype=object
+        ov = overlap_note(layer)
+        if ov:
+            notes.append(ov)
+            warn.append(ov)
+        # what the raster covers, in the plots' frame: plots outside it were not surveyed
+        rgeoms = _plots_in(plots, None if info.local else info.crs)
+        foot = _raster_polygon(info)
+        covered = shapely.area(shapely.intersection(rgeoms, foot)) / np.maximum(
+            shapely.area(rgeoms), 1e-12
         )
-    elif plots is not None:
-        pts.attrs["plot_id"] = np.empty(0, dtype=object)
+        unsurveyed = [p.plot_id for p, c in zip(plots.plots, covered, strict=True) if c <= 0]
+        if unsurveyed:
+            notes.append(unsurveyed_note(unsurveyed, f"{Path(info.path).name}"))
+        part = [
+            f"{p.plot_id} ({100 * c:.0f}%)"
+            for p, c in zip(plots.plots, covered, strict=True)
+            if 0 < c < 0.99
+        ]
+        if part:
+            msg = (
+                f"plot(s) {', '.join(part[:8])} lie only partly inside "
+                f"{Path(info.path).name}: their counts cover that part only; use a raster "
+                "that covers them or leave them out"
+            )
+            notes.append(msg)
+            warn.append(msg)
+        member = assign_plots(pts, layer)
+        pts = points_by_plot(pts, layer, member)
     ordered = {k: pts.attrs[k] for k in ATTRIBUTE_ORDER if k in pts.attrs}
     pts = PointSet(pts.x, pts.y, ordered, pts.crs, [])
     if pts.n == 0:
@@ -891,4 +935,5 @@ def detect_raster(
         megapixels_read=mp_read,
         warnings=warn,
         raster=info,
+        unsurveyed=unsurveyed,
     )

@@ -1,11 +1,14 @@
-"""Quadrat analysis on a square grid clipped to the plot.
+"""Quadrat analysis on a grid clipped to the plot.
 
-A grid of square cells of side ``s`` is laid from the lower-left corner of the plot's bounding
-box. Each cell is clipped to the plot, and its expected count under complete spatial
-randomness is ``n · aᵢ / A`` (aᵢ its area inside the plot, A the plot area), so irregular plots
-and edge cells are handled without discarding anything.
+A grid of rectangular cells of width ``sx`` and height ``sy`` (square when the user gives one
+side) is laid from the lower-left corner of the plot's bounding box. The default grid
+(:func:`default_quadrat_cells`) divides the bounding box into whole cells, so no thin strip of
+cells is left along its far edges. Each cell is clipped to the plot, and its expected count
+under complete spatial randomness is ``n · aᵢ / A`` (aᵢ its area inside the plot, A the plot
+area), so irregular plots and edge cells are handled without discarding anything.
 
-Boundary rule: cells are half-open, ``[x0 + i·s, x0 + (i+1)·s) × [y0 + j·s, y0 + (j+1)·s)``;
+Boundary rule: cells are half-open,
+``[x0 + i·sx, x0 + (i+1)·sx) × [y0 + j·sy, y0 + (j+1)·sy)``;
 a point exactly on an inner grid line belongs to the cell to its right (or above). The last
 column and row are closed, so a point on the far edge of the grid stays in the grid. A point
 that would land in a cell with no area inside the plot (possible only for points on the plot
@@ -14,7 +17,9 @@ boundary along a grid line) goes to the neighbouring cell on the other side of t
 Statistics: Pearson's X² with q − 1 degrees of freedom and a two-sided p-value (too even is
 as informative as too clumped); the index of dispersion (variance-to-mean ratio); Morisita's
 index (Morisita 1959) and the standardised Morisita index (Smith-Gill 1975, as given by
-Krebs 1999, Ecological Methodology, 2nd ed.).
+Krebs 1999, Ecological Methodology, 2nd ed.). On clipped (unequal) cells the chi-square
+limits of the standardised index are wrong, so :func:`quadrat_null` takes them from the
+multinomial simulation that also gives the exact p-value of X².
 """
 
 from __future__ import annotations
@@ -28,11 +33,14 @@ from scipy import stats as sps
 from ecoscan.stats.csr import as_rng
 
 __all__ = [
+    "DEFAULT_EXPECTED",
     "MIN_EXPECTED",
+    "QuadratNull",
     "QuadratResult",
-    "default_quadrat_size",
+    "default_quadrat_cells",
     "morisita_index",
     "quadrat_monte_carlo",
+    "quadrat_null",
     "quadrat_test",
     "standardised_morisita",
 ]
@@ -41,34 +49,61 @@ __all__ = [
 #: thumb; common practice).
 MIN_EXPECTED = 5.0
 
+#: Points a whole default cell expects under complete spatial randomness, where n allows
+#: (Cochran's rule of at least 5 expected per cell; common practice).
+DEFAULT_EXPECTED = 5.0
+
 #: Largest grid (cells in the bounding box) that is built; larger grids are refused.
 MAX_CELLS = 4_000_000
 
 
-def default_quadrat_size(n: int, area_m2: float) -> float:
-    """Default quadrat side: cell area ≈ 2A/n, i.e. about two points per cell.
+def default_quadrat_cells(polygon, n: int) -> tuple[float, float]:
+    """Default quadrat cells: a grid fitted to the plot whose whole cells expect ≥ 5 points.
 
     Parameters
     ----------
+    polygon : shapely.Polygon or shapely.MultiPolygon
+        The plot, metres.
     n : int
-        Number of points in the plot (≥ 1).
-    area_m2 : float
-        Plot area in m².
+        Number of points in the plot.
 
     Returns
     -------
-    float
-        Side length in metres, √(2A/n); NaN when n = 0.
+    width_m, height_m : float
+        Cell width and height in metres.
 
     Notes
     -----
-    The "2A/n" quadrat size is a long-standing rule of thumb for quadrat counts (common
-    practice, quoted from memory). With about two points expected per cell the chi-square
-    approximation is rough; the result then carries a warning (see :data:`MIN_EXPECTED`).
+    Target cell area a = A / max(2, ⌊n / 5⌋), so that a whole cell expects at least
+    :data:`DEFAULT_EXPECTED` = 5 points when n ≥ 10 (Cochran's rule, common practice) and the
+    grid has at least two cells. The bounding box (width W, height H) is then divided into
+    equal cells: along the shorter side ``max(1, ⌊H/√a⌋)`` rows of height h = H / rows, along
+    the longer side ``max(1, ⌊W h / a⌋)`` columns (for W ≥ H; the other way round otherwise).
+    Each cell then has area ≥ a and is nearly square (sides within a ratio of 2 unless the
+    plot is narrower than √a), and no thin strip of cells is left along the far edges, as a
+    grid of fixed side laid from one corner would. In a rectangle all cells are equal; in
+    other shapes only the cells cut by the boundary are smaller.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> default_quadrat_cells(shapely.box(0, 0, 50, 50), 100)
+    (12.5, 12.5)
     """
-    if n <= 0:
-        return float("nan")
-    return float(np.sqrt(2.0 * area_m2 / n))
+    x0, y0, x1, y1 = polygon.bounds
+    width, height = x1 - x0, y1 - y0
+    target = float(polygon.area) / max(2, int(n // DEFAULT_EXPECTED))
+    side = np.sqrt(target)
+    # the shorter side first; the other side's cells are then long enough for area ≥ a
+    if width >= height:
+        nrows = max(1, int(np.floor(height / side + 1e-9)))
+        ncols = max(1, int(np.floor(width / (target / (height / nrows)) + 1e-9)))
+    else:
+        ncols = max(1, int(np.floor(width / side + 1e-9)))
+        nrows = max(1, int(np.floor(height / (target / (width / ncols)) + 1e-9)))
+    if ncols * nrows < 2:  # at least two cells: halve the longer side
+        ncols, nrows = (2, 1) if width >= height else (1, 2)
+    return float(width / ncols), float(height / nrows)
 
 
 def morisita_index(counts: np.ndarray, cell_share: np.ndarray | None = None) -> float:
@@ -155,7 +190,13 @@ def standardised_morisita(
     chi_hi = float(sps.chi2.ppf(0.975, df))
     mu = (chi_lo - qe + big_n) / (big_n - 1.0)
     mc = (chi_hi - qe + big_n) / (big_n - 1.0)
-    i = float(morisita)
+    return _standardise(float(morisita), mu, mc, qe)
+
+
+def _standardise(i: float, mu: float, mc: float, qe: float) -> float:
+    """Smith-Gill's piecewise scaling of I_δ between the limits M_u and M_c (to ±0.5)."""
+    if not (np.isfinite(i) and np.isfinite(mu) and np.isfinite(mc)):
+        return float("nan")
     if i >= mc > 1.0:
         ip = 0.5 + 0.5 * (i - mc) / (qe - mc) if qe > mc else 1.0
     elif mc > i >= 1.0:
@@ -184,7 +225,7 @@ class QuadratResult:
     df : int
         q − 1.
     cell_size_m : float
-        Side of the square cells, metres.
+        Width of the cells, metres (their side when square).
     n : int
         Number of points.
     counts : numpy.ndarray of int, shape (q,)
@@ -209,6 +250,8 @@ class QuadratResult:
         Standardised Morisita I_p (:func:`standardised_morisita`).
     n_low_expected : int
         Cells with an expected count below :data:`MIN_EXPECTED`.
+    cell_height_m : float
+        Height of the cells, metres (equal to ``cell_size_m`` for square cells).
     """
 
     statistic: float
@@ -230,6 +273,7 @@ class QuadratResult:
     morisita: float
     morisita_std: float
     n_low_expected: int
+    cell_height_m: float = float("nan")
 
     @property
     def q(self) -> int:
@@ -237,15 +281,15 @@ class QuadratResult:
         return int(self.counts.size)
 
 
-def _grid_cells(polygon, x0: float, y0: float, s: float, nrows: int, ncols: int):
+def _grid_cells(polygon, x0: float, y0: float, sx: float, sy: float, nrows: int, ncols: int):
     """Clipped cell areas and geometries for a full grid (flat index j * ncols + i)."""
     jj, ii = np.divmod(np.arange(nrows * ncols), ncols)
-    boxes = shapely.box(x0 + ii * s, y0 + jj * s, x0 + (ii + 1) * s, y0 + (jj + 1) * s)
+    boxes = shapely.box(x0 + ii * sx, y0 + jj * sy, x0 + (ii + 1) * sx, y0 + (jj + 1) * sy)
     shapely.prepare(polygon)
     inside = shapely.contains(polygon, boxes)
     cand = ~inside & shapely.intersects(polygon, boxes)
     area = np.zeros(boxes.size)
-    area[inside] = s * s
+    area[inside] = sx * sy
     cells = np.empty(boxes.size, dtype=object)
     cells[inside] = boxes[inside]
     if np.any(cand):
@@ -255,8 +299,14 @@ def _grid_cells(polygon, x0: float, y0: float, s: float, nrows: int, ncols: int)
     return area, cells
 
 
-def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> QuadratResult:
-    """Quadrat counts on a square grid clipped to the plot, with chi-square and indices.
+def quadrat_test(
+    xy: np.ndarray,
+    polygon,
+    cell_size_m: float | None = None,
+    *,
+    cell_height_m: float | None = None,
+) -> QuadratResult:
+    """Quadrat counts on a rectangular grid clipped to the plot, with chi-square and indices.
 
     Parameters
     ----------
@@ -265,7 +315,10 @@ def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> Q
     polygon : shapely.Polygon or shapely.MultiPolygon
         The plot, metres.
     cell_size_m : float, optional
-        Side of the square cells in metres; default :func:`default_quadrat_size`.
+        Width of the cells in metres (square cells unless ``cell_height_m`` is given).
+        Default: the grid of :func:`default_quadrat_cells`, fitted to the plot.
+    cell_height_m : float, optional
+        Height of the cells in metres (default: ``cell_size_m``).
 
     Returns
     -------
@@ -287,33 +340,42 @@ def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> Q
     ----------
     Pearson's X² with expected counts proportional to area; index of dispersion s² / x̄;
     Morisita (1959); Smith-Gill (1975) via Krebs (1999).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> xy = np.array([[1.0, 1.0], [3.0, 1.0], [1.0, 3.0], [3.5, 3.5]])
+    >>> quadrat_test(xy, shapely.box(0, 0, 4, 4), 2.0).counts.tolist()
+    [1, 1, 1, 1]
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     n = xy.shape[0]
-    area_total = float(polygon.area)
-    s = default_quadrat_size(max(n, 1), area_total) if cell_size_m is None else cell_size_m
-    s = float(s)
-    if not (np.isfinite(s) and s > 0):
+    if cell_size_m is None:
+        sx, sy = default_quadrat_cells(polygon, n)
+    else:
+        sx = float(cell_size_m)
+        sy = sx if cell_height_m is None else float(cell_height_m)
+    if not (np.isfinite(sx) and sx > 0 and np.isfinite(sy) and sy > 0):
         raise ValueError("quadrat size must be a positive number of metres")
     x0, y0, x1, y1 = polygon.bounds
-    ncols = max(1, int(np.ceil((x1 - x0) / s - 1e-9)))
-    nrows = max(1, int(np.ceil((y1 - y0) / s - 1e-9)))
+    ncols = max(1, int(np.ceil((x1 - x0) / sx - 1e-9)))
+    nrows = max(1, int(np.ceil((y1 - y0) / sy - 1e-9)))
     if nrows * ncols > MAX_CELLS:
         raise ValueError(
-            f"a {s:g} m quadrat grid over this plot has {nrows * ncols} cells; use larger quadrats"
+            f"a {sx:g} m quadrat grid over this plot has {nrows * ncols} cells; use larger quadrats"
         )
-    area, cells = _grid_cells(polygon, x0, y0, s, nrows, ncols)
-    tiny = area <= 1e-9 * s * s
+    area, cells = _grid_cells(polygon, x0, y0, sx, sy, nrows, ncols)
+    tiny = area <= 1e-9 * sx * sy
     area[tiny] = 0.0
 
-    ix = np.floor((xy[:, 0] - x0) / s).astype(np.int64)
-    iy = np.floor((xy[:, 1] - y0) / s).astype(np.int64)
-    tol = 1e-9 * max(s, 1.0)
+    ix = np.floor((xy[:, 0] - x0) / sx).astype(np.int64)
+    iy = np.floor((xy[:, 1] - y0) / sy).astype(np.int64)
+    tol = 1e-9 * max(sx, sy, 1.0)
     if n and (
         np.any(xy[:, 0] < x0 - tol)
-        or np.any(xy[:, 0] > x0 + ncols * s + tol)
+        or np.any(xy[:, 0] > x0 + ncols * sx + tol)
         or np.any(xy[:, 1] < y0 - tol)
-        or np.any(xy[:, 1] > y0 + nrows * s + tol)
+        or np.any(xy[:, 1] > y0 + nrows * sy + tol)
     ):
         raise ValueError("some points lie outside the plot; pass only the plot's points")
     ix = np.clip(ix, 0, ncols - 1)
@@ -327,8 +389,8 @@ def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> Q
             if b.size == 0:
                 break
             cx, cy = ix[b] + dx, iy[b] + dy
-            on_x = dx == 0 or np.isclose(xy[b, 0], x0 + ix[b] * s, rtol=0, atol=tol)
-            on_y = dy == 0 or np.isclose(xy[b, 1], y0 + iy[b] * s, rtol=0, atol=tol)
+            on_x = dx == 0 or np.isclose(xy[b, 0], x0 + ix[b] * sx, rtol=0, atol=tol)
+            on_y = dy == 0 or np.isclose(xy[b, 1], y0 + iy[b] * sy, rtol=0, atol=tol)
             ok = (cx >= 0) & (cy >= 0) & on_x & on_y
             cf = np.where(ok, cy * ncols + cx, 0)
             ok &= area[cf] > 0
@@ -365,7 +427,7 @@ def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> Q
         p_lower=p_lo,
         p_upper=p_up,
         df=int(df),
-        cell_size_m=s,
+        cell_size_m=sx,
         n=n,
         counts=counts.astype(np.int64),
         expected=expected,
@@ -379,6 +441,133 @@ def quadrat_test(xy: np.ndarray, polygon, cell_size_m: float | None = None) -> Q
         morisita=mor,
         morisita_std=mor_std,
         n_low_expected=int(np.sum(expected < MIN_EXPECTED)) if n > 0 else q,
+        cell_height_m=sy,
+    )
+
+
+@dataclass(frozen=True)
+class QuadratNull:
+    """The exact null distribution of the quadrat statistics, by multinomial simulation.
+
+    Attributes
+    ----------
+    pvalue : float
+        Two-sided Monte Carlo p-value of Pearson's X², min(1, 2 · min(p_lower, p_upper)).
+    p_lower, p_upper : float
+        (1 + #{X²_sim ≤ X²}) / (N + 1) (too even) and (1 + #{X²_sim ≥ X²}) / (N + 1) (too
+        clumped).
+    morisita_low, morisita_high : float
+        Exact uniform and clumped limits of Morisita's I_δ: an observed I_δ lies at or
+        beyond them exactly when its one-sided rank p-value, (1 + #{I_sim ≤ I_δ}) / (N + 1)
+        or (1 + #{I_sim ≥ I_δ}) / (N + 1), is at most 0.025. NaN when N is too small for
+        that (N < 39).
+    morisita_std : float
+        Standardised Morisita index with these limits in place of the chi-square ones, so
+        that |I_p| ≥ 0.5 exactly when the two-sided Monte Carlo test of I_δ rejects at 5 %.
+    simulations : int
+        N.
+    """
+
+    pvalue: float
+    p_lower: float
+    p_upper: float
+    morisita_low: float
+    morisita_high: float
+    morisita_std: float
+    simulations: int
+
+
+def _limit(sims: np.ndarray, tail: str, level: float = 0.025) -> float:
+    """Exact rank limit of a simulated statistic for a one-sided test at ``level``.
+
+    ``tail='high'``: a value v such that an observed value t ≥ v exactly when its rank
+    p-value (1 + #{sim ≥ t}) / (N + 1) ≤ level; ``'low'`` likewise with ≤. Ties are kept on
+    the conservative side (a value equal to a simulated one counts that one against it).
+    NaN when even the most extreme value cannot reach ``level`` (N + 1 < 1 / level).
+    """
+    big_n = sims.size
+    allowed = int(np.floor(level * (big_n + 1.0) - 1.0 + 1e-9))  # #{sim beyond v} allowed
+    if allowed < 0:
+        return float("nan")
+    srt = np.sort(sims)
+    if tail == "high":
+        v = srt[big_n - allowed - 1]  # t must lie strictly above this value
+        return float(v + 1e-9 * max(1.0, abs(v)))
+    v = srt[allowed]  # t must lie strictly below this value
+    return float(v - 1e-9 * max(1.0, abs(v)))
+
+
+def quadrat_null(
+    result: QuadratResult,
+    simulations: int = 999,
+    *,
+    rng: int | np.random.Generator | None = None,
+) -> QuadratNull:
+    """Exact p-value of X² and exact limits of the standardised Morisita index.
+
+    The n points are dropped into the clipped cells with probabilities aᵢ / A (a multinomial
+    draw: complete spatial randomness given n). For each simulated table X² and Morisita's
+    I_δ are computed; the observed X² is ranked among the simulated ones (so tiny expected
+    counts in edge cells do not distort the p-value as they do the chi-square
+    approximation), and the 2.5 % limits of I_δ replace the chi-square limits M_u and M_c of
+    Smith-Gill's standardisation, which assume equal cells.
+
+    Parameters
+    ----------
+    result : QuadratResult
+        Observed counts and cell areas from :func:`quadrat_test`.
+    simulations : int
+        Number of simulated tables N (≥ 1; at least 39 for the Morisita limits).
+    rng : int or numpy.random.Generator, optional
+        Seed or generator.
+
+    Returns
+    -------
+    QuadratNull
+        NaN fields when the chi-square statistic is undefined.
+
+    References
+    ----------
+    Besag & Diggle (1977), Applied Statistics 26: 327–333 (rank p-values); Smith-Gill (1975)
+    via Krebs (1999) for the standardisation between the limits.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> xy = np.random.default_rng(0).uniform(0, 40, (200, 2))
+    >>> res = quadrat_null(quadrat_test(xy, shapely.box(0, 0, 40, 40)), 199, rng=1)
+    >>> 0 < res.pvalue <= 1 and res.morisita_low < 1 < res.morisita_high
+    True
+    """
+    nan = float("nan")
+    if not np.isfinite(result.statistic) or simulations < 1:
+        return QuadratNull(nan, nan, nan, nan, nan, nan, int(max(simulations, 0)))
+    gen = as_rng(rng)
+    share = result.expected / result.expected.sum()
+    expected = result.expected
+    big_n = float(result.n)
+    norm = big_n * (big_n - 1.0) * float(np.sum(share * share))
+    per_batch = max(1, 2_000_000 // max(result.q, 1))
+    x2 = np.empty(simulations)
+    mor = np.empty(simulations)
+    done = 0
+    while done < simulations:
+        b = min(per_batch, simulations - done)
+        tab = gen.multinomial(result.n, share, size=b)
+        x2[done : done + b] = np.sum((tab - expected) ** 2 / expected, axis=1)
+        mor[done : done + b] = np.sum(tab * (tab - 1.0), axis=1) / norm
+        done += b
+    x_obs = result.statistic
+    tol = 1e-9 * max(1.0, abs(x_obs))
+    lo = (1.0 + np.sum(x2 <= x_obs + tol)) / (simulations + 1.0)
+    up = (1.0 + np.sum(x2 >= x_obs - tol)) / (simulations + 1.0)
+    m_lo, m_hi = _limit(mor, "low"), _limit(mor, "high")
+    q_eff = 1.0 / float(np.sum(share * share))
+    c = result.counts.astype(float)
+    m_obs = float(np.sum(c * (c - 1.0)) / norm) if result.n >= 2 else nan  # same rounding
+    std = _standardise(m_obs, m_lo, m_hi, q_eff)
+    return QuadratNull(
+        float(min(1.0, 2.0 * min(lo, up))), float(lo), float(up), m_lo, m_hi, std, simulations
     )
 
 
@@ -388,12 +577,7 @@ def quadrat_monte_carlo(
     *,
     rng: int | np.random.Generator | None = None,
 ) -> tuple[float, float, float]:
-    """Monte Carlo p-values of Pearson's X² for quadrat counts, exact for small expectations.
-
-    The n points are dropped into the clipped cells with probabilities aᵢ / A (a multinomial
-    draw: complete spatial randomness given n), X² is computed for each simulated table, and
-    the observed X² is ranked among them, so tiny expected counts in edge cells do not
-    distort the p-value as they do the chi-square approximation.
+    """Monte Carlo p-values of Pearson's X² (the p-value part of :func:`quadrat_null`).
 
     Parameters
     ----------
@@ -407,32 +591,7 @@ def quadrat_monte_carlo(
     Returns
     -------
     pvalue, p_lower, p_upper : float
-        Two-sided min(1, 2 · min(p_lower, p_upper)); p_lower = (1 + #{X²_sim ≤ X²}) / (N + 1)
-        (too even), p_upper = (1 + #{X²_sim ≥ X²}) / (N + 1) (too clumped). NaN when the
-        chi-square statistic is undefined.
-
-    References
-    ----------
-    Besag & Diggle (1977), Applied Statistics 26: 327–333 (rank p-values).
+        See :class:`QuadratNull`.
     """
-    nan = float("nan")
-    if not np.isfinite(result.statistic) or simulations < 1:
-        return nan, nan, nan
-    gen = as_rng(rng)
-    share = result.expected / result.expected.sum()
-    expected = result.expected
-    per_batch = max(1, 2_000_000 // max(result.q, 1))
-    below = above = 0
-    done = 0
-    x_obs = result.statistic
-    tol = 1e-9 * max(1.0, abs(x_obs))
-    while done < simulations:
-        b = min(per_batch, simulations - done)
-        tab = gen.multinomial(result.n, share, size=b)
-        x2 = np.sum((tab - expected) ** 2 / expected, axis=1)
-        below += int(np.sum(x2 <= x_obs + tol))
-        above += int(np.sum(x2 >= x_obs - tol))
-        done += b
-    lo = (1.0 + below) / (simulations + 1.0)
-    up = (1.0 + above) / (simulations + 1.0)
-    return float(min(1.0, 2.0 * min(lo, up))), float(lo), float(up)
+    res = quadrat_null(result, simulations, rng=rng)
+    return res.pvalue, res.p_lower, res.p_upper

@@ -26,6 +26,7 @@ reported at once, each with the line it comes from, before any work starts.
 from __future__ import annotations
 
 import dataclasses
+import datetime as _dt
 import difflib
 import re
 import tomllib
@@ -68,8 +69,11 @@ class RasterEntry:
         The raster file (absolute).
     name : str
         Unique short label (default: the file name without extension).
-    site, date : str
-        Site name and date or season label.
+    site : str
+        Site name.
+    date : str
+        Survey date, ISO 8601 (YYYY-MM-DD), or '' when not given; ISO text sorts in
+        time order.
     detect : dict
         Detector settings for :class:`ecoscan.detect.DetectionSettings`.
     line : int
@@ -176,6 +180,36 @@ def _unknown(
             near = difflib.get_close_matches(key, sorted(allowed), n=1)
             hint = f" (did you mean '{near[0]}'?)" if near else ""
             problems.add((*where, key), f"unknown key '{key}' in [{section}]{hint}")
+
+
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+
+
+def _as_date(problems: _Problems, where: tuple, value: Any) -> str:
+    """A survey date as ISO 8601 text (YYYY-MM-DD), so that dates sort in time order.
+
+    Forms such as 03/10/2026 are refused: day-first and month-first readings differ, and
+    text sorted as text would put 03/10 (October) before 20/04 (April).
+    """
+    if value is None or value == "":
+        return ""
+    if isinstance(value, _dt.datetime):
+        return value.date().isoformat()
+    if isinstance(value, _dt.date):
+        return value.isoformat()
+    text = str(value).strip()
+    if _ISO_DATE.fullmatch(text):
+        try:
+            return _dt.date.fromisoformat(text).isoformat()
+        except ValueError:
+            problems.add(where, f"date '{text}' is not a calendar date; check day and month")
+            return ""
+    problems.add(
+        where,
+        f"date '{text}' is ambiguous or not a date; write it as YYYY-MM-DD (ISO 8601), "
+        "e.g. 2026-04-20, so that surveys sort in time order",
+    )
+    return ""
 
 
 def _as_str(problems: _Problems, where: tuple, value: Any, what: str) -> str | None:
@@ -318,7 +352,7 @@ def load_survey(path: str | Path) -> SurveyConfig:
             problems.add((*where, "name"), f"two rasters are named '{name}'; give each a name")
         names.add(name)
         site = _as_str(problems, (*where, "site"), entry.get("site", "site"), "site") or "site"
-        date = _as_str(problems, (*where, "date"), entry.get("date", ""), "date") or ""
+        date = _as_date(problems, (*where, "date"), entry.get("date"))
         det = entry.get("detect", {})
         if not isinstance(det, dict):
             problems.add((*where, "detect"), "detect must be a table of detector settings")

@@ -168,6 +168,7 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     body = (
         f'<div class="card"><h3>Plot {_esc(plot.plot_id)} {pattern_tag(row.get("pattern"))}</h3>'
         f'<p class="facts">{_esc(facts)}</p>'
+        + (f"<p>In words: {_esc(row['summary'])}.</p>" if row.get("summary") else "")
         + (f'<p class="facts" style="color:#7a4b00">{_esc(warn)}</p>' if warn else "")
         + '<div class="figrow">'
         + "".join(figs)
@@ -336,15 +337,17 @@ def _comparison_section(run) -> ReportSection:
         "<p>Differences between groups of plots: density (exact test for two Poisson "
         "rates), Clark–Evans R (z test and a permutation test that moves whole plots "
         "between groups) and the distributions of nearest-neighbour distances "
-        "(Mann–Whitney U, Kolmogorov–Smirnov). With more than two groups the p-values "
-        "are adjusted for multiple comparisons (Holm 1979).</p>"
+        "(Kolmogorov–Smirnov distance, whole plots permuted). Dates of the same plots are "
+        "never pooled; compared by date they are paired plot by plot (sign-flip test). "
+        "With more than two groups the p-values are adjusted for multiple comparisons "
+        "(Holm 1979).</p>"
     ]
     for by, res in run.comparisons:
         groups = group_rows(res)
         pairs = comparison_rows(res)
         # the same short column sets as the terminal tables; every column is in the CSVs
         gcols = [*GROUP_SUMMARY_COLUMNS, "warnings"]
-        pcols = [*pair_summary_columns(len(pairs)), "warnings"]
+        pcols = [*pair_summary_columns(len(pairs), paired=res.paired), "warnings"]
         many = len(groups) > 2
         pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
         png = run.output / f"compare-by-{by}" / "comparison.png"
@@ -355,6 +358,9 @@ def _comparison_section(run) -> ReportSection:
             )
         adj = " (p-values Holm-adjusted; the full table is in comparison.csv)" if many else ""
         parts.append(f"<h3>By {_esc(by)}: pairs{adj}</h3>" + table_html(pairs, pcols))
+        if res.notes:
+            items = "".join(f"<li>{_esc(n)}</li>" for n in res.notes)
+            parts.append(f"<p>What limits these comparisons:</p><ul>{items}</ul>")
     return ReportSection("Comparison", "".join(parts), "comparison")
 
 

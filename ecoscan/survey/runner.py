@@ -35,7 +35,13 @@ import numpy as np
 from ecoscan import __version__
 from ecoscan.crs import crs_label
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs, assign_plots
+from ecoscan.inputs import (
+    SurveyInputs,
+    assign_plots,
+    one_row_per_plant,
+    points_by_plot,
+    unsurveyed_note,
+)
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
@@ -221,6 +227,9 @@ def run_survey(
     layer = read_plots(config.plots, id_field=config.plot_id_field, layer=config.plots_layer)
     survey_crs = layer.crs
     run = SurveyRun(config, out, crs_label(survey_crs), layer=layer, notes=list(layer.notes))
+    few = stat_settings.too_few_simulations()
+    if few:  # the same line is in every plot's warnings
+        run.notes.append(few)
     plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
@@ -237,6 +246,7 @@ def run_survey(
         import shapely
 
         touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
+        gone = [p.plot_id for p, t in zip(layer.plots, touches, strict=True) if not t]
         if not np.any(touches):
             raise InputError(
                 f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
@@ -248,12 +258,12 @@ def run_survey(
             entry, sub, out, plots_hash, workers or config.workers
         )
         pts = _to_survey_crs(pts, survey_crs)
-        idx = assign_plots(pts, sub)
-        keep = idx >= 0
-        pts = pts.subset(keep)
-        idx = idx[keep]
-        pts.attrs["plot_id"] = np.array([sub.plots[i].plot_id for i in idx], dtype=object)
-        inputs = SurveyInputs(pts, sub, idx, list(notes))
+        pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots
+        member = assign_plots(pts, sub)
+        if gone:
+            notes = [*notes, unsurveyed_note(gone, f"raster {entry.name}")]
+        inputs = SurveyInputs(pts, sub, member, list(notes), gone)
+        pts = points_by_plot(pts, sub, member)
         disp = analyse(inputs, stat_settings)
         scl = None
         if scales_settings is not None:
@@ -352,9 +362,10 @@ def _run_change(run: SurveyRun) -> None:
                     [p for p in a.inputs.plots if p.plot_id in set(b.inputs.layer.ids)],
                     a.inputs.layer.crs,
                 )
+                # each plant once (the points table repeats a plant for every plot holding it)
                 res = detect_change(
-                    a.points,
-                    b.points,
+                    a.inputs.points.subset(a.inputs.membership.in_any()),
+                    b.inputs.points.subset(b.inputs.membership.in_any()),
                     tol,
                     plots=plots if plots.plots else None,
                     estimate_shift=bool(cfg.get("estimate_shift", True)),

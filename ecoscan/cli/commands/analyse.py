@@ -70,7 +70,17 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--quadrat",
         type=float,
         metavar="METRES",
-        help="quadrat side in metres (default sqrt(2 * area / n), about 2 points per cell)",
+        help="quadrat side in metres (default: equal cells fitted to each plot, each "
+        "expecting at least 5 plants where the count allows)",
+    )
+    p.add_argument(
+        "--stop-after",
+        type=int,
+        default=20,
+        metavar="H",
+        help="stop simulating once H simulated patterns are as extreme as the observed one "
+        "in each tail (sequential Monte Carlo, Besag & Clifford 1991; exact p); 0 runs every "
+        "simulation (default 20)",
     )
 
 
@@ -83,21 +93,22 @@ def run(args: argparse.Namespace) -> int:
         alternative=args.alternative,
         guard_m=args.guard,
         quadrat_m=args.quadrat,
+        stop_after=args.stop_after,
     )
     outdir = check_outdir(args.output)
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
     notes = list(inputs.notes)
-    if settings.smallest_p > settings.alpha:
-        notes.append(
-            f"with {settings.simulations} simulations the smallest possible Monte Carlo p is "
-            f"{settings.smallest_p:.3g}, above alpha = {settings.alpha:g}: no plot can be "
-            "called clustered or regular; use more --simulations"
-        )
+    few = settings.too_few_simulations()
+    if few:
+        notes.append(few.replace("simulations (999", "--simulations (999"))
     results = analyse(inputs, settings)
     write_analysis(outdir, inputs, results, settings, notes=notes)
     rows = dispersion_rows(results)
     keys = [k for k, _ in TABLE_COLUMNS]
     print(format_table(rows, keys, headers=[h for _, h in TABLE_COLUMNS]))
+    print()
+    for r in rows:
+        print(f"plot {r['plot_id']}: {r['summary']}")
     flagged = [(r["plot_id"], r["warnings"]) for r in rows if r["warnings"]]
     for pid, w in flagged:
         print(f"plot {pid}: {w}")

@@ -41,7 +41,9 @@ GROUP_HEADERS = (
     "low 95%",
     "high 95%",
     "R Donnelly",
-    "pattern",
+    "low 95%",
+    "high 95%",
+    "pattern (Donnelly 95%)",
 )
 
 
@@ -70,6 +72,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "arrangements are used when there are fewer)",
     )
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument(
+        "--pool-dates",
+        action="store_true",
+        help="pool the dates of one site or plot into one group (off by default: the same "
+        "plants would count twice; groups are then compared date by date)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -78,26 +86,27 @@ def run(args: argparse.Namespace) -> int:
     labels = [t.label for t in tables]
     if len(set(labels)) < len(labels):  # same folder name in different places
         tables = [read_results(f, label=str(f).rstrip("/")) for f in args.results]
-    result = compare_groups(tables, args.by, permutations=args.permutations, seed=args.seed)
+    result = compare_groups(
+        tables,
+        args.by,
+        permutations=args.permutations,
+        seed=args.seed,
+        pool_dates=args.pool_dates,
+    )
     paths = write_comparison(args.out, result)
     print_notes(result.notes, args.quiet)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
     print(format_table(groups, GROUP_SUMMARY_COLUMNS, headers=GROUP_HEADERS))
     print()
     adj = len(result.pairs) > 1
-    cols = pair_summary_columns(len(result.pairs))
+    cols = pair_summary_columns(len(result.pairs), paired=result.paired)
     heads = (
-        "A",
-        "B",
-        "Δ plants/ha",
-        "p density",
-        "ΔR",
-        "ΔR edge-corr.",
-        "p ΔR (z)",
-        "p ΔR (perm.)",
-        "p MW",
-        "p KS",
-    )
+        ("A", "B", "plots on both", "mean Δ plants/ha", "p density (paired)", "mean ΔR",
+         "p ΔR (paired)")
+        if result.paired
+        else ("A", "B", "Δ plants/ha", "p density", "ΔR", "ΔR edge-corr.", "p ΔR (z)",
+              "p ΔR (perm.)", "p NN distances (perm.)")
+    )  # fmt: skip
     print(format_table(show_small_p(comparison_rows(result), cols), cols, headers=heads))
     if adj:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")

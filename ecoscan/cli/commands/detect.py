@@ -199,7 +199,12 @@ def run(args: argparse.Namespace) -> int:
     print(format_table(rows, ["item", "value"], digits=3))
     if plots is not None and res.n:
         ids = res.points.attrs["plot_id"]
-        per = [{"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())} for p in plots.plots]
+        gone = set(res.unsurveyed)
+        per = [
+            {"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())}
+            for p in plots.plots
+            if p.plot_id not in gone
+        ]
         print()
         print(format_table(per, ["plot_id", "plants"]))
     return 0

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
+from ecoscan.inputs import overlap_note, unsurveyed_note
 from ecoscan.outputs import write_csv
 from ecoscan.tables import format_table
 from ecoscan.validation import COLUMNS, align_points, validate_points
@@ -59,6 +60,14 @@ def run(args: argparse.Namespace) -> int:
         )
     _ref, notes = align_points(det, ref)
     rows = validate_points(det, ref, args.tolerance, plots=plots)
+    if plots is not None:
+        ov = overlap_note(plots)
+        if ov:
+            notes.append(ov)
+        scored = {r.plot_id for r in rows}
+        gone = [p.plot_id for p in plots.plots if p.plot_id not in scored]
+        if gone:
+            notes.append(unsurveyed_note(gone, "both point sets (no plant of either)"))
     records = [r.as_dict() for r in rows]
     if args.output:
         write_csv(args.output, records, COLUMNS)
