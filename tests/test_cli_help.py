@@ -12,6 +12,7 @@ COMMANDS = [
     "analyse",
     "scales",
     "validate",
+    "calibrate",
     "compare",
     "change",
     "plan",

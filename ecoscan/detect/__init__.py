@@ -777,18 +777,27 @@ def detect_raster(
         raise InputError(f"--workers must be at least 1 (got {workers})")
     info = open_raster(path, pixel_size_m=settings.pixel_size_m)
     notes = list(info.notes)
-    method, bands, index, more = choose_method(info, settings)
-    notes += more
-    if method == "chm":
-        check_height_model(info, settings)
-    params, overlap, align, thresholds, more = _global_params(info, settings, method, bands, index)
+    if settings.detector:  # calibrated detector (ecoscan calibrate): its file sets the layer
+        from ecoscan.detect.detector_file import calibrated_params, read_detector
+
+        det = read_detector(settings.detector)
+        method, index = "imagery", f"calibrated:{det.layer}"
+        params, overlap, align, thresholds, more = calibrated_params(det, info, str(path))
+    else:
+        method, bands, index, more = choose_method(info, settings)
+        notes += more
+        if method == "chm":
+            check_height_model(info, settings)
+        params, overlap, align, thresholds, more = _global_params(
+            info, settings, method, bands, index
+        )
+        if method == "imagery" and thresholds.get("layer"):
+            index = thresholds["layer"]
     warn = [
         n
         for n in more
         if "unreliable" in n or "no plants" in n or "no trees" in n or "weak separation" in n
     ]
-    if method == "imagery" and thresholds.get("layer"):
-        index = thresholds["layer"]
     notes += more
     ps = info.pixel_size_m
     # target metric CRS, chosen from the raster centre (not the detections)

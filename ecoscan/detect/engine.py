@@ -85,6 +85,9 @@ class DetectorParams:
     terms: tuple[tuple[str, float], ...] = ()
     split_ratio: float = 0.0
     min_response_by_scale: tuple[float, ...] = ()
+    #: calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
+    #: data into the plant layer, used instead of :func:`vegetation_layer` when set
+    layer_model: object = None
 
 
 @dataclass(frozen=True)
@@ -201,7 +204,9 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     c0, r0, _c1, _r1 = tile.window
     data, valid = read_window(job.info, p.bands, tile.window)
     if p.method == "imagery":
-        if p.terms:
+        if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
+            layer = p.layer_model(data)
+        elif p.terms:
             layer = compose_layer(data, p.roles, p.terms)
         else:
             layer = vegetation_layer(data, p.index)

@@ -122,6 +122,9 @@ class DetectionSettings:
         Tile core size in pixels (memory follows it, not the raster size).
     pixel_size_m : float or None
         Pixel size for rasters without georeferencing (then coordinates are local).
+    detector : str or None
+        A detector file written by ``ecoscan calibrate``: its layer, thresholds and diameter
+        range replace the imagery options above.
     """
 
     method: str = "auto"
@@ -141,6 +144,7 @@ class DetectionSettings:
     split_touching: bool = True
     tile_size_px: int = 1024
     pixel_size_m: float | None = None
+    detector: str | None = None
 
     def __post_init__(self) -> None:
         if self.method not in METHODS:

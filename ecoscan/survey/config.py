@@ -359,6 +359,16 @@ def load_survey(path: str | Path) -> SurveyConfig:
             det = {}
         if det_keys is not None:
             _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
+        if isinstance(det.get("detector"), str):  # ecoscan calibrate's file, beside the survey
+            d = _file((*where, "detect", "detector"), det["detector"], "detector")
+            det = {**det, "detector": str(d) if d is not None else det["detector"]}
+            if d is not None and d.exists():
+                from ecoscan.detect.detector_file import read_detector
+
+                try:  # refused before any work: parse, keys, model file and its hash
+                    read_detector(d, load_model=False)
+                except InputError as exc:
+                    problems.add((*where, "detect", "detector"), str(exc))
         if p is not None:
             rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
     if not problems.items:  # keys are right: now check the values, still before any work

@@ -160,7 +160,13 @@ def _detect(entry: RasterEntry, layer: PlotLayer, out: Path, plots_hash: str, wo
     pts_dir = out / "points"
     gpkg, csv = pts_dir / f"{slug(entry.name)}.gpkg", pts_dir / f"{slug(entry.name)}.csv"
     key_file = pts_dir / f"{slug(entry.name)}.key.json"
-    key = settings_key(raster=file_sha256(entry.path), plots=plots_hash, detect=settings.to_dict())
+    key = settings_key(
+        raster=file_sha256(entry.path),
+        plots=plots_hash,
+        detect=settings.to_dict(),
+        # a calibrated detector's file (its TOML records its model file's hash)
+        detector=file_sha256(settings.detector) if settings.detector else None,
+    )
     if is_fresh(key_file, key, [gpkg, csv]):
         import json
 

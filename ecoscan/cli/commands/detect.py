@@ -134,6 +134,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--workers", type=int, default=1, metavar="N", help="local processes (default 1)"
     )
+    p.add_argument(
+        "--detector",
+        metavar="DETECTOR.toml",
+        help="imagery: a detector file from `ecoscan calibrate` (its layer, thresholds and "
+        "diameter range replace --index, --threshold, --min-contrast and --diameter)",
+    )
     add_plots_args(p, required=False)
     p.add_argument(
         "--mask",
@@ -162,6 +168,7 @@ def settings_from_args(args: argparse.Namespace) -> DetectionSettings:
         split_touching=not args.no_split,
         tile_size_px=args.tile_size,
         pixel_size_m=args.pixel_size,
+        detector=args.detector,
     )
 
 

@@ -1,0 +1,118 @@
+"""Calibrated detection on the scene suite, and the speed of ``ecoscan calibrate``.
+
+For each suite style: make a scene, calibrate on its ``train`` plot (12% of the scene;
+reference positions only, no crown diameters), detect on the ``test`` plot (the rest) and
+score with the matching of ``ecoscan validate`` (tolerance: half the style's smallest crown
+diameter). Then time calibration on one large scene against the default detector run on
+the same raster in the same process (the baseline).
+
+CPU seconds are printed beside wall-clock seconds because a shared machine inflates the
+latter. Run under nice:  nice python benchmarks/calibrate_speed.py [--size 1000] [--large 4000]
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+import time
+from pathlib import Path
+
+from ecoscan.detect import DetectionSettings, detect_raster
+from ecoscan.detect.calibration import band_names_for, calibrate_detector
+from ecoscan.detect.detector_file import write_detector
+from ecoscan.detect.settings import parse_band_spec
+from ecoscan.errors import InputError
+from ecoscan.points import PointSet
+from ecoscan.raster import open_raster
+from ecoscan.synthetic import SCENE_STYLES, make_scene, write_scene
+from ecoscan.validation import validate_points
+from ecoscan.vector import PlotLayer, read_plots, read_points
+
+
+def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:
+    """Calibrate on ``train``, score on ``test``; returns a row of figures."""
+    sc = make_scene(style, size, seed)
+    paths = write_scene(sc, folder)
+    info = open_raster(paths.raster)
+    ref = read_points(paths.truth)
+    ref = PointSet(ref.x, ref.y, {}, ref.crs)  # positions only, as mapped in the field
+    plots = read_plots(paths.plots, target_crs=info.crs)
+    train = PlotLayer([p for p in plots.plots if p.plot_id == "train"], plots.crs)
+    test = PlotLayer([p for p in plots.plots if p.plot_id == "test"], plots.crs)
+    t0, c0 = time.perf_counter(), time.process_time()
+    res = calibrate_detector(
+        info, ref, train, band_names=band_names_for(info, parse_band_spec(sc.bands_option))
+    )
+    t1, c1 = time.perf_counter(), time.process_time()
+    toml = folder / f"{style}.toml"
+    write_detector(toml, res.detector)
+    det = detect_raster(paths.raster, DetectionSettings(detector=str(toml)), plots=test)
+    t2 = time.perf_counter()
+    row = validate_points(det.points, ref, 0.5 * sc.diameter_range_m[0], plots=test)[-1]
+    return {
+        "style": style,
+        "layer": res.detector.layer,
+        "cv_f1": res.chosen.f1,
+        "precision": row.precision,
+        "recall": row.recall,
+        "f1": row.f1,
+        "calibrate_s": t1 - t0,
+        "calibrate_cpu_s": c1 - c0,
+        "detect_s": t2 - t1,
+        "plants": res.detector.training["plants"],
+    }
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--size", type=int, default=1000, help="suite scene size (px)")
+    ap.add_argument("--large", type=int, default=4000, help="speed scene size (px); 0 skips")
+    ap.add_argument("--styles", default=",".join(SCENE_STYLES))
+    args = ap.parse_args()
+    folder = Path(tempfile.mkdtemp(prefix="ecoscan-calibrate-"))
+    print(
+        f"{'style':22s} {'layer':12s} {'plants':>6s} {'cv_f1':>6s} {'P':>6s} {'R':>6s} "
+        f"{'F1':>6s} {'calib_s':>8s} {'cpu_s':>6s} {'detect_s':>8s}"
+    )
+    for style in [s for s in args.styles.split(",") if s]:
+        try:
+            r = one_style(style, args.size, folder)
+        except InputError as exc:
+            print(f"{style:22s} not calibrated: {exc}")
+            continue
+        print(
+            f"{r['style']:22s} {r['layer']:12s} {r['plants']:6d} {r['cv_f1']:6.3f} "
+            f"{r['precision']:6.3f} {r['recall']:6.3f} {r['f1']:6.3f} "
+            f"{r['calibrate_s']:8.1f} {r['calibrate_cpu_s']:6.1f} {r['detect_s']:8.1f}",
+            flush=True,
+        )
+    if args.large:
+        style = "dry-shrubs"
+        sc = make_scene(style, args.large, 1)
+        paths = write_scene(sc, folder, name="large")
+        info = open_raster(paths.raster)
+        ref = read_points(paths.truth)
+        ref = PointSet(ref.x, ref.y, {}, ref.crs)
+        plots = read_plots(paths.plots, target_crs=info.crs)
+        train = PlotLayer([p for p in plots.plots if p.plot_id == "train"], plots.crs)
+        t0 = time.perf_counter()
+        detect_raster(
+            paths.raster,
+            DetectionSettings(
+                diameter_min_m=sc.diameter_range_m[0], diameter_max_m=sc.diameter_range_m[1]
+            ),
+        )
+        base = time.perf_counter() - t0
+        t0, c0 = time.perf_counter(), time.process_time()
+        res = calibrate_detector(info, ref, train, band_names=band_names_for(info))
+        cal = time.perf_counter() - t0
+        print(
+            f"\n{args.large}² {style}: calibrate {cal:.1f} s wall, "
+            f"{time.process_time() - c0:.1f} s CPU ({res.detector.layer}, "
+            f"{res.detector.training['plants']} plants) vs default detection of the whole "
+            f"raster {base:.1f} s (ratio {cal / base:.2f}); target ≤ 60 s"
+        )
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,922 @@
+"""Learn a detector from mapped plants: ``ecoscan calibrate``.
+
+The user maps every plant inside one or more training plots. For each candidate plant
+layer (the simple layers of :mod:`ecoscan.detect.pixel_model`, and, when no simple layer
+separates plants well, a random-forest plant probability), calibration
+
+1. estimates each mapped plant's crown diameter from the scale of the strongest blob at
+   its position (scale selection, Lindeberg 1998) and sets the diameter range searched;
+2. finds every blob candidate once, with a low floor, and scores a grid of the two blob
+   thresholds (response and centre value) by matching the candidates to the mapped plants
+   one-to-one within a tolerance (optimal assignment, :func:`ecoscan.stats.matching.
+   match_points`), fold by fold;
+3. cross-validates: for each fold, thresholds are chosen on the other folds and scored on
+   this one; folds are whole training plots, or spatial blocks of a single plot, never
+   random pixels (neighbouring pixels are strongly correlated, so a random-pixel split
+   would report optimistic accuracy: Roberts et al. 2017, Ecography 40: 913–929).
+
+The classifier is also cross-validated by fold: each fold's probabilities come from a
+forest trained without that fold's pixels. The layer with the best cross-validated F1 wins;
+the classifier must beat the best simple layer by :data:`CLASSIFIER_MARGIN` to be chosen.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import shapely
+from scipy.spatial import cKDTree
+
+from ecoscan.detect.blobs import BlobScales, blob_scales, detect_blobs, prune_blobs
+from ecoscan.detect.detector_file import CalibratedDetector
+from ecoscan.detect.pixel_model import (
+    FeatureSpec,
+    available_layers,
+    forest_threads,
+    pixel_features,
+    predict_probability,
+    simple_layer,
+)
+from ecoscan.errors import InputError
+from ecoscan.points import PointSet
+from ecoscan.raster import RasterInfo, read_window
+from ecoscan.stats.matching import match_points
+from ecoscan.vector import PlotLayer
+
+__all__ = [
+    "CLASSIFIER_MARGIN",
+    "MIN_PLANTS",
+    "CalibrationResult",
+    "LayerScore",
+    "band_names_for",
+    "calibrate_detector",
+    "fold_blocks",
+]
+
+#: Fewest mapped plants inside the training plots.
+MIN_PLANTS = 20
+#: The classifier is chosen only when its cross-validated F1 beats the best simple layer's
+#: by at least this much (a simple layer is faster and easier to explain).
+CLASSIFIER_MARGIN = 0.005
+#: With classifier="auto", no classifier is trained when a simple layer reaches this F1.
+GOOD_ENOUGH_F1 = 0.98
+#: Largest total of training-window pixels read (plausibility check before allocating).
+MAX_TRAINING_PIXELS = 40_000_000
+#: Pixels sampled for the classifier: inside crowns and on the ground.
+N_PLANT_SAMPLES = 6000
+N_GROUND_SAMPLES = 9000
+#: Classifier labels, in crown radii from the nearest mapped plant: plant inside
+#: PLANT_INNER, ground beyond GROUND_OUTER, unused between (crown rims). Measured on the
+#: suite's dry-shrubs and closed-canopy styles, GROUND_OUTER 0.9 (rims as ground) did worse.
+PLANT_INNER = 0.6
+GROUND_OUTER = 1.3
+
+
+@dataclass(frozen=True)
+class LayerScore:
+    """Cross-validated accuracy of one candidate layer.
+
+    Attributes
+    ----------
+    layer : str
+    tp, fp, fn : int
+        Pooled over the held-out folds.
+    precision, recall, f1 : float
+    fold_f1 : tuple of float
+        F1 of each held-out fold (NaN when a fold has no plants and no detections).
+    """
+
+    layer: str
+    tp: int
+    fp: int
+    fn: int
+    precision: float
+    recall: float
+    f1: float
+    fold_f1: tuple[float, ...]
+
+    def as_dict(self) -> dict:
+        """Plain mapping for tables and the detector file."""
+        return {
+            "layer": self.layer,
+            "tp": self.tp,
+            "fp": self.fp,
+            "fn": self.fn,
+            "precision": round(self.precision, 4),
+            "recall": round(self.recall, 4),
+            "f1": round(self.f1, 4),
+        }
+
+
+@dataclass
+class CalibrationResult:
+    """What :func:`calibrate_detector` learnt.
+
+    Attributes
+    ----------
+    detector : CalibratedDetector
+        Ready for :func:`ecoscan.detect.detector_file.write_detector`.
+    scores : list of LayerScore
+        Every candidate layer tried, best first.
+    chosen : LayerScore
+    folds : str
+        How folds were made (``plot`` or ``block``) and how many.
+    tolerance_m : float
+        Matching tolerance used for scoring.
+    notes : list of str
+    """
+
+    detector: CalibratedDetector
+    scores: list[LayerScore]
+    chosen: LayerScore
+    folds: str
+    tolerance_m: float
+    notes: list[str] = field(default_factory=list)
+
+
+@dataclass
+class _Window:
+    """A training plot's pixels (with a margin) and its mapped plants."""
+
+    plot: int
+    c0: int
+    r0: int
+    c1: int
+    r1: int
+    data: np.ndarray
+    valid: np.ndarray
+    poly_px: shapely.Geometry  # the plot in raster pixel coordinates
+    ref: np.ndarray  # (n, 2) col, row
+    ref_fold: np.ndarray
+    fold_map: np.ndarray  # fold of every pixel of the window
+    ref_index: np.ndarray  # position of each plant in the reference file
+
+
+@dataclass
+class _LayerRun:
+    name: str
+    score: LayerScore
+    dmin_px: float
+    dmax_px: float
+    min_response: float
+    min_value: float
+    background: float
+    ref_diam_px: np.ndarray
+
+
+def band_names_for(info: RasterInfo, spec: tuple[tuple[str, int], ...] = ()) -> tuple[str, ...]:
+    """Name every data band: from ``--bands``, band descriptions or colour interpretation.
+
+    Three or more unnamed bands are taken as red, green, blue, then ``bandN``.
+
+    Parameters
+    ----------
+    info : RasterInfo
+    spec : tuple of (name, band)
+        Parsed ``--bands`` (see :func:`ecoscan.detect.settings.parse_band_spec`).
+
+    Returns
+    -------
+    tuple of str
+        One name per data band, in band order.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> info = SimpleNamespace(data_bands=(1, 2, 3, 4), descriptions=("", "", "", ""),
+    ...                        colorinterp=("gray",) * 4)
+    >>> band_names_for(info, (("blue", 1), ("green", 2), ("red", 3), ("nir", 4)))
+    ('blue', 'green', 'red', 'nir')
+    """
+    names = {b: f"band{b}" for b in info.data_bands}
+    given = {b: n for n, b in spec}
+    known = ("red", "green", "blue", "nir")
+    if given:
+        for b, n in given.items():
+            if b not in names:
+                raise InputError(
+                    f"--bands names band {b}, but the raster has bands "
+                    f"{', '.join(map(str, info.data_bands))}"
+                )
+            names[b] = n
+    else:
+        for b, d, ci in zip(info.data_bands, info.descriptions, info.colorinterp, strict=True):
+            if d in known:
+                names[b] = d
+            elif "infrared" in d or d == "nir":
+                names[b] = "nir"
+            elif ci in ("red", "green", "blue"):
+                names[b] = ci
+        if len(info.data_bands) >= 3 and not {"red", "green", "blue"} & set(names.values()):
+            for b, n in zip(info.data_bands[:3], ("red", "green", "blue"), strict=True):
+                names[b] = n
+    out = tuple(names[b] for b in info.data_bands)
+    dup = {n for n in out if out.count(n) > 1}
+    if dup:
+        raise InputError(f"two bands are both named {sorted(dup)[0]}; name each once with --bands")
+    return out
+
+
+def fold_blocks(
+    bounds_px: tuple[float, float, float, float], col: np.ndarray, row: np.ndarray
+) -> np.ndarray:
+    """Spatial block (0–3) of pixel positions inside one training plot's bounding box.
+
+    A plot about as wide as long is cut into 2 × 2 blocks at its middle; a long plot (aspect
+    over 2) into four strips along its length. Positions beyond the box belong to the
+    nearest block.
+
+    Parameters
+    ----------
+    bounds_px : (col0, row0, col1, row1)
+    col, row : numpy.ndarray
+
+    Returns
+    -------
+    numpy.ndarray of int
+
+    Examples
+    --------
+    >>> fold_blocks((0, 0, 10, 10), np.array([1, 9, 1, 9]), np.array([1, 1, 9, 9])).tolist()
+    [0, 1, 2, 3]
+    """
+    c0, r0, c1, r1 = bounds_px
+    w, h = max(c1 - c0, 1e-9), max(r1 - r0, 1e-9)
+    col = np.asarray(col, float)
+    row = np.asarray(row, float)
+    if w > 2 * h:
+        return np.clip(np.floor((col - c0) / (w / 4)), 0, 3).astype(np.int64)
+    if h > 2 * w:
+        return np.clip(np.floor((row - r0) / (h / 4)), 0, 3).astype(np.int64)
+    return (2 * (row >= r0 + h / 2) + (col >= c0 + w / 2)).astype(np.int64)
+
+
+def _f1(tp: float, fp: float, fn: float) -> float:
+    d = 2 * tp + fp + fn
+    return 2 * tp / d if d > 0 else math.nan
+
+
+def _to_pixels(info: RasterInfo, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    inv = ~info.transform
+    c = inv.a * x + inv.b * y + inv.c - 0.5
+    r = inv.d * x + inv.e * y + inv.f - 0.5
+    return c, r
+
+
+def _poly_to_pixels(info: RasterInfo, geom: shapely.Geometry) -> shapely.Geometry:
+    inv = ~info.transform
+    return shapely.transform(
+        geom,
+        lambda xy: np.column_stack(
+            [
+                inv.a * xy[:, 0] + inv.b * xy[:, 1] + inv.c - 0.5,
+                inv.d * xy[:, 0] + inv.e * xy[:, 1] + inv.f - 0.5,
+            ]
+        ),
+    )
+
+
+# --- preparing the training windows --------------------------------------------------------
+
+
+def _prepare(
+    info: RasterInfo,
+    reference: PointSet,
+    plots: PlotLayer,
+    names: tuple[str, str, str],
+    margin_px: int,
+) -> tuple[list[_Window], str, int, list[str]]:
+    raster_name, ref_name, plots_name = names
+    notes: list[str] = []
+    ref_c, ref_r = _to_pixels(info, reference.x, reference.y)
+    frame = shapely.box(-0.5, -0.5, info.width - 0.5, info.height - 0.5)
+    polys = []
+    for p in plots.plots:
+        g = _poly_to_pixels(info, p.geometry)
+        if not shapely.intersects(g, frame):
+            raise InputError(
+                f"training plot {p.plot_id} in {plots_name} lies outside {raster_name}; "
+                "check that the plots and the raster cover the same ground and CRS"
+            )
+        inside = shapely.intersection(g, frame)
+        if inside.area < 0.999 * g.area:
+            notes.append(
+                f"training plot {p.plot_id} extends beyond {raster_name}; only its part "
+                "inside the raster is used"
+            )
+        polys.append(inside)
+    owner = np.full(ref_c.size, -1, dtype=np.int64)
+    for i, g in enumerate(polys):
+        hit = shapely.contains_xy(g, ref_c, ref_r) & (owner < 0)
+        owner[hit] = i
+    n_in = int((owner >= 0).sum())
+    if n_in == 0:
+        raise InputError(
+            f"no point of {ref_name} lies inside a training plot of {plots_name}; map the "
+            "plants inside the plots (and check both files use the same CRS)"
+        )
+    if n_in < MIN_PLANTS:
+        raise InputError(
+            f"only {n_in} plant(s) of {ref_name} lie inside the training plots of "
+            f"{plots_name}; map at least {MIN_PLANTS} plants (more plots or larger ones)"
+        )
+    used = [i for i in range(len(polys)) if (owner == i).any() or polys[i].area > 0]
+    fold_by = "plot" if len(used) >= 2 else "block"
+    n_folds = min(5, len(used)) if fold_by == "plot" else 4
+    total_px = 0
+    boxes = []
+    for i in used:
+        b0, b1, b2, b3 = polys[i].bounds
+        c0 = max(0, math.floor(b0) - margin_px)
+        r0 = max(0, math.floor(b1) - margin_px)
+        c1 = min(info.width, math.ceil(b2) + 1 + margin_px)
+        r1 = min(info.height, math.ceil(b3) + 1 + margin_px)
+        boxes.append((i, c0, r0, c1, r1))
+        total_px += (c1 - c0) * (r1 - r0)
+    if total_px > MAX_TRAINING_PIXELS:
+        raise InputError(
+            f"the training plots of {plots_name} span {total_px / 1e6:.0f} million pixels of "
+            f"{raster_name} (with margins); map smaller plots (at most "
+            f"{MAX_TRAINING_PIXELS / 1e6:.0f} million pixels)"
+        )
+    windows = []
+    for k, (i, c0, r0, c1, r1) in enumerate(boxes):
+        data, valid = read_window(info, tuple(info.data_bands), (c0, r0, c1, r1))
+        sel = owner == i
+        ref = np.column_stack([ref_c[sel], ref_r[sel]])
+        rr, cc = np.mgrid[r0:r1, c0:c1]
+        if fold_by == "plot":
+            f = k % n_folds
+            ref_fold = np.full(ref.shape[0], f, dtype=np.int64)
+            fold_map = np.full((r1 - r0, c1 - c0), f, dtype=np.int64)
+        else:
+            bb = polys[i].bounds
+            ref_fold = fold_blocks(bb, ref[:, 0], ref[:, 1])
+            fold_map = fold_blocks(bb, cc, rr)
+        windows.append(
+            _Window(
+                i,
+                c0,
+                r0,
+                c1,
+                r1,
+                data,
+                valid,
+                polys[i],
+                ref,
+                ref_fold,
+                fold_map,
+                np.flatnonzero(sel),
+            )
+        )
+    return windows, fold_by, n_folds, notes
+
+
+# --- scoring a layer -----------------------------------------------------------------------
+
+
+def _candidates(
+    maps: list[np.ndarray],
+    windows: list[_Window],
+    scales: BlobScales,
+    floor: float,
+    background: float,
+) -> list[dict[str, np.ndarray]]:
+    out = []
+    for lay, w in zip(maps, windows, strict=True):
+        found = detect_blobs(
+            lay, scales, floor, -np.inf, w.valid, origin=(w.c0, w.r0), background=background
+        )
+        found["fold"] = np.where(
+            shapely.contains_xy(w.poly_px, found["col"], found["row"]),
+            w.fold_map[
+                np.clip(np.round(found["row"]).astype(int) - w.r0, 0, w.fold_map.shape[0] - 1),
+                np.clip(np.round(found["col"]).astype(int) - w.c0, 0, w.fold_map.shape[1] - 1),
+            ],
+            -1,
+        )
+        out.append(found)
+    return out
+
+
+def _strongest_near(
+    cands: list[dict[str, np.ndarray]], windows: list[_Window], tol_px: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sigma, response and value of the strongest candidate within tol of each plant."""
+    sig, resp, val = [], [], []
+    for c, w in zip(cands, windows, strict=True):
+        n = w.ref.shape[0]
+        s = np.full(n, np.nan)
+        r = np.full(n, np.nan)
+        v = np.full(n, np.nan)
+        if c["col"].size:
+            tree = cKDTree(np.column_stack([c["col"], c["row"]]))
+            for j, idx in enumerate(tree.query_ball_point(w.ref, tol_px)):
+                if idx:
+                    best = idx[int(np.argmax(c["response"][idx]))]
+                    s[j], r[j], v[j] = c["sigma"][best], c["response"][best], c["value"][best]
+        sig.append(s)
+        resp.append(r)
+        val.append(v)
+    return np.concatenate(sig), np.concatenate(resp), np.concatenate(val)
+
+
+def _grid_counts(
+    cands: list[dict[str, np.ndarray]],
+    windows: list[_Window],
+    n_folds: int,
+    resp_grid: np.ndarray,
+    val_grid: np.ndarray,
+    tol_px: float,
+) -> np.ndarray:
+    """tp, fp, fn per (response threshold, value threshold, fold)."""
+    counts = np.zeros((resp_grid.size, val_grid.size, n_folds, 3), dtype=np.int64)
+    for c, w in zip(cands, windows, strict=True):
+        radius = math.sqrt(2.0) * c["sigma"]
+        for i, tr in enumerate(resp_grid):
+            for j, tv in enumerate(val_grid):
+                ok = (c["response"] >= tr) & (c["value"] >= tv)
+                idx = np.flatnonzero(ok)
+                keep = idx[
+                    prune_blobs(c["col"][idx], c["row"][idx], radius[idx], c["response"][idx])
+                ]
+                det_fold = c["fold"][keep]
+                det = np.column_stack([c["col"][keep], c["row"][keep]])
+                for f in range(n_folds):
+                    a = det[det_fold == f]
+                    b = w.ref[w.ref_fold == f]
+                    tp = match_points(a, b, tol_px).n_matched if a.size and b.size else 0
+                    counts[i, j, f] += (tp, a.shape[0] - tp, b.shape[0] - tp)
+    return counts
+
+
+def _cross_validate(counts: np.ndarray) -> tuple[np.ndarray, list[float], tuple[int, int]]:
+    """Held-out counts with thresholds chosen on the other folds, and the all-fold choice."""
+    n_folds = counts.shape[2]
+    total = counts.sum(axis=2)
+    pooled = np.zeros(3, dtype=np.int64)
+    fold_f1 = []
+    for f in range(n_folds):
+        rest = total - counts[:, :, f]
+        f1 = _f1_grid(rest)
+        i, j = np.unravel_index(int(np.nanargmax(f1)), f1.shape)
+        held = counts[i, j, f]
+        pooled += held
+        fold_f1.append(_f1(*held))
+    f1_all = _f1_grid(total)
+    best = np.unravel_index(int(np.nanargmax(f1_all)), f1_all.shape)
+    return pooled, fold_f1, (int(best[0]), int(best[1]))
+
+
+def _f1_grid(c: np.ndarray) -> np.ndarray:
+    tp, fp, fn = c[..., 0].astype(float), c[..., 1].astype(float), c[..., 2].astype(float)
+    d = 2 * tp + fp + fn
+    return np.where(d > 0, 2 * tp / np.where(d > 0, d, 1), 0.0)
+
+
+def _score_layer(
+    name: str,
+    maps: list[np.ndarray],
+    windows: list[_Window],
+    n_folds: int,
+    tol_px: float,
+    broad: tuple[float, float],
+    background: float,
+    diam_px: np.ndarray | None = None,
+) -> _LayerRun | None:
+    """Diameter range, threshold grid and cross-validated counts for one layer."""
+    vals = np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)])
+    if vals.size == 0:
+        return None
+    lo, hi = np.percentile(vals, [1, 99])
+    floor = 0.02 * float(hi - lo) * 2.0 / math.e
+    if not floor > 0:
+        return None
+    if diam_px is None:
+        sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
+        cands = _candidates(maps, windows, sc, floor, background)
+        sig, _r, _v = _strongest_near(cands, windows, tol_px)
+        diam_px = 2.0 * math.sqrt(2.0) * sig
+    found = diam_px[np.isfinite(diam_px)]
+    if found.size < 0.5 * diam_px.size:
+        return None
+    dmin = max(2.0, float(np.percentile(found, 2)) / 1.3)
+    dmax = max(dmin * 1.2, float(np.percentile(found, 98)) * 1.3)
+    scales = blob_scales(dmin / 2.0, dmax / 2.0, 3)
+    cands = _candidates(maps, windows, scales, floor, background)
+    _s, resp, value = _strongest_near(cands, windows, tol_px)
+    ok = np.isfinite(resp)
+    if ok.sum() < 0.5 * resp.size:
+        return None
+    rq = np.quantile(resp[ok], [0.0, 0.01, 0.03, 0.07, 0.15, 0.25])
+    resp_grid = np.unique(np.concatenate([rq * f for f in (0.4, 0.6, 0.8, 1.0)]))
+    resp_grid = resp_grid[resp_grid >= floor]
+    if resp_grid.size == 0:
+        resp_grid = np.array([floor])
+    vq = np.quantile(value[ok], [0.0, 0.01, 0.03, 0.07, 0.15])
+    val_grid = np.concatenate([[-np.inf], np.unique(vq)])
+    # keep at most 30 candidates per mapped plant above the lowest threshold (the rest are
+    # noise maxima that no threshold in the grid would keep)
+    cap = 30 * sum(w.ref.shape[0] for w in windows)
+    allr = np.concatenate([c["response"] for c in cands])
+    if allr.size > cap:
+        cut = float(np.partition(allr, allr.size - cap)[allr.size - cap])
+        resp_grid = np.unique(np.maximum(resp_grid, cut))
+    low = float(resp_grid[0])
+    cands = [{k: v[c["response"] >= low] for k, v in c.items()} for c in cands]
+    counts = _grid_counts(cands, windows, n_folds, resp_grid, val_grid, tol_px)
+    pooled, fold_f1, (i, j) = _cross_validate(counts)
+    tp, fp, fn = (int(v) for v in pooled)
+    score = LayerScore(
+        name,
+        tp,
+        fp,
+        fn,
+        tp / (tp + fp) if tp + fp else math.nan,
+        tp / (tp + fn) if tp + fn else math.nan,
+        _f1(tp, fp, fn),
+        tuple(fold_f1),
+    )
+    return _LayerRun(
+        name, score, dmin, dmax, float(resp_grid[i]), float(val_grid[j]), background, diam_px
+    )
+
+
+# --- the classifier ------------------------------------------------------------------------
+
+
+def _sample_pixels(
+    windows: list[_Window], r_hi: float, rng: np.random.Generator
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Candidate training pixels per window (rows, columns in window pixels).
+
+    Around every mapped plant (radius uniform in 0–1.3 ``r_hi``, so dense near the centre)
+    and uniform in the plot; labels are given later from the crown sizes (:func:`_labels`).
+    """
+    n_ref = sum(w.ref.shape[0] for w in windows)
+    area = sum(w.poly_px.area for w in windows)
+    out = []
+    for w in windows:
+        n = w.ref.shape[0]
+        h, wd = w.valid.shape
+        m = max(1, math.ceil(2 * N_PLANT_SAMPLES / max(n_ref, 1)))
+        k = np.repeat(np.arange(n), m)
+        rr = 1.3 * r_hi * rng.uniform(size=k.size)
+        th = rng.uniform(0, 2 * np.pi, size=k.size)
+        pc = w.ref[k, 0] + rr * np.cos(th)
+        pr = w.ref[k, 1] + rr * np.sin(th)
+        n_g = max(1, round(N_GROUND_SAMPLES * w.poly_px.area / max(area, 1e-9)))
+        b = w.poly_px.bounds
+        gc = rng.uniform(b[0], b[2], size=n_g)
+        gr = rng.uniform(b[1], b[3], size=n_g)
+        c = np.concatenate([pc, gc])
+        r = np.concatenate([pr, gr])
+        inside = shapely.contains_xy(w.poly_px, c, r)
+        c, r = c[inside], r[inside]
+        col = np.round(c).astype(int) - w.c0
+        row = np.round(r).astype(int) - w.r0
+        ok = (col >= 0) & (col < wd) & (row >= 0) & (row < h)
+        col, row = col[ok], row[ok]
+        ok = w.valid[row, col]
+        out.append((row[ok], col[ok]))
+    return out
+
+
+def _labels(w: _Window, row: np.ndarray, col: np.ndarray, rad: np.ndarray) -> np.ndarray:
+    """1 within PLANT_INNER radii of a mapped plant, 0 beyond GROUND_OUTER radii of all,
+    else -1 (unused)."""
+    if w.ref.shape[0] == 0:
+        return np.zeros(row.size, np.int8)
+    kk = min(8, w.ref.shape[0])
+    d, j = cKDTree(w.ref).query(np.column_stack([col + w.c0, row + w.r0]), k=kk)
+    d = d.reshape(row.size, kk)
+    j = j.reshape(row.size, kk)
+    ratio = np.min(d / np.maximum(rad[j], 0.5), axis=1)
+    lab = np.full(row.size, -1, np.int8)
+    lab[ratio < PLANT_INNER] = 1
+    lab[ratio > GROUND_OUTER] = 0
+    return lab
+
+
+def _features_at(
+    w: _Window, band_names: tuple[str, ...], spec: FeatureSpec, row: np.ndarray, col: np.ndarray
+) -> np.ndarray:
+    from ecoscan.detect.pixel_model import CHUNK_ROWS
+
+    h = w.valid.shape[0]
+    out = None
+    for r0 in range(0, h, CHUNK_ROWS):
+        sel = (row >= r0) & (row < r0 + CHUNK_ROWS)
+        if not sel.any():
+            continue
+        f = pixel_features(w.data, band_names, spec, slice(r0, min(h, r0 + CHUNK_ROWS)))
+        if out is None:
+            out = np.empty((row.size, f.shape[-1]), np.float32)
+        out[sel] = f[row[sel] - r0, col[sel]]
+    return out if out is not None else np.empty((0, 0), np.float32)
+
+
+def _forest(x: np.ndarray, y: np.ndarray, seed: int):
+    from sklearn.ensemble import RandomForestClassifier
+
+    model = RandomForestClassifier(
+        n_estimators=60,
+        max_depth=16,
+        min_samples_leaf=3,
+        max_features="sqrt",
+        n_jobs=forest_threads(),
+        random_state=seed,
+    )
+    model.fit(x, y)
+    return model
+
+
+def _classifier_run(
+    windows: list[_Window],
+    band_names: tuple[str, ...],
+    n_folds: int,
+    tol_px: float,
+    broad: tuple[float, float],
+    diam_given: np.ndarray | None,
+    best_simple: _LayerRun | None,
+    seed: int,
+):
+    """Train and cross-validate the pixel classifier; returns (forest, spec, run)."""
+    ref_all = np.concatenate([w.ref for w in windows])
+    nn = cKDTree(ref_all).query(ref_all, k=2)[0][:, 1] if ref_all.shape[0] > 1 else np.ones(1)
+    if diam_given is not None:
+        diam = diam_given.copy()
+    elif best_simple is not None and best_simple.score.f1 >= 0.8:
+        diam = best_simple.ref_diam_px.copy()
+    else:
+        diam = None
+    if diam is not None:
+        med = float(np.nanmedian(diam)) if np.isfinite(diam).any() else float(np.median(nn))
+        diam[~np.isfinite(diam)] = med
+    else:
+        med = float(min(broad[1], np.median(nn)))
+    means = np.concatenate([w.data.mean(axis=0)[w.valid] for w in windows])
+    spec = FeatureSpec(
+        sigma_min=1.0,
+        sigma_max=float(np.clip(0.25 * med, 2.0, 16.0)),
+        num_sigma=4,
+        brightness_scale=float(max(np.percentile(means, 99), 1e-6)),
+    )
+    rng = np.random.default_rng(seed)
+    pix = _sample_pixels(windows, 0.5 * broad[1], rng)
+    feats = [
+        _features_at(w, band_names, spec, r, c) for w, (r, c) in zip(windows, pix, strict=True)
+    ]
+    folds = np.concatenate([w.fold_map[r, c] for w, (r, c) in zip(windows, pix, strict=True)])
+    x_all = np.concatenate(feats)
+
+    def labels(rad: np.ndarray) -> np.ndarray:
+        out, start = [], 0
+        for w, (r, c) in zip(windows, pix, strict=True):
+            n = w.ref.shape[0]
+            out.append(_labels(w, r, c, rad[start : start + n]))
+            start += n
+        return np.concatenate(out)
+
+    if diam is None:
+        # no layer gives crown sizes: a first forest on conservative labels (plants within
+        # a third of the spacing to the nearest neighbour), then scale selection on its map
+        y = labels(np.minimum(0.35 * nn, 0.5 * broad[1]))
+        ok = y >= 0
+        if np.unique(y[ok]).size < 2:
+            return None, None, None
+        first = _forest(x_all[ok], y[ok], seed)
+        maps = [predict_probability(first, w.data, band_names, spec) for w in windows]
+        sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
+        floor = 0.02 * 2.0 / math.e
+        cands = _candidates(maps, windows, sc, floor, 0.0)
+        sig, _r, _v = _strongest_near(cands, windows, tol_px)
+        diam = 2.0 * math.sqrt(2.0) * sig
+        fill = float(np.nanmedian(diam)) if np.isfinite(diam).any() else med
+        diam[~np.isfinite(diam)] = fill
+    y = labels(0.5 * diam)
+    ok = y >= 0
+    x, y, fold = x_all[ok], y[ok], folds[ok]
+    if np.unique(y).size < 2:
+        return None, None, None
+    fold_models = []
+    for f in range(n_folds):
+        tr = fold != f
+        if np.unique(y[tr]).size < 2:
+            return None, None, None
+        fold_models.append(_forest(x[tr], y[tr], seed))
+    maps = [
+        predict_probability(
+            None, w.data, band_names, spec, fold_of_row=w.fold_map, forests=fold_models
+        )
+        for w in windows
+    ]
+    for m, w in zip(maps, windows, strict=True):
+        m[~w.valid] = 0.0
+    run = _score_layer("probability", maps, windows, n_folds, tol_px, broad, 0.0, diam)
+    if run is None:
+        return None, None, None
+    return _forest(x, y, seed), spec, run
+
+
+# --- the whole calibration -----------------------------------------------------------------
+
+
+def calibrate_detector(
+    info: RasterInfo,
+    reference: PointSet,
+    plots: PlotLayer,
+    *,
+    band_names: tuple[str, ...],
+    tolerance_m: float | None = None,
+    diameter_m: tuple[float, float] | None = None,
+    classifier: str = "auto",
+    seed: int = 1,
+    names: tuple[str, str, str] = ("raster", "reference", "plots"),
+) -> CalibrationResult:
+    """Learn a detector from plants mapped inside training plots.
+
+    Parameters
+    ----------
+    info : RasterInfo
+        The raster (:func:`ecoscan.raster.open_raster`).
+    reference : PointSet
+        Every plant mapped inside the training plots, in the raster's CRS (or local metres
+        for a raster without georeferencing). A ``diameter_m`` attribute, when present,
+        gives the crown sizes; otherwise they are estimated from the image.
+    plots : PlotLayer
+        Training plots, in the raster's CRS. Plants outside them are ignored, and no
+        ground outside them is assumed plant-free.
+    band_names : tuple of str
+        Name of each data band (:func:`band_names_for`).
+    tolerance_m : float, optional
+        Largest distance (metres) at which a detection counts as a mapped plant. Default:
+        half the median mapped crown diameter, or a quarter of the median spacing between
+        mapped plants when their diameters are not given.
+    diameter_m : (float, float), optional
+        Expected crown diameter range (metres) to search when estimating crown sizes;
+        default from the spacing of the mapped plants.
+    classifier : str
+        ``auto`` (train a pixel classifier when no simple layer reaches an F1 of
+        :data:`GOOD_ENOUGH_F1`), ``always`` or ``never``.
+    seed : int
+        Seed for pixel sampling and the forest; same seed, same detector.
+    names : (str, str, str)
+        The raster, reference and plots files as the user wrote them (for messages).
+
+    Returns
+    -------
+    CalibrationResult
+
+    Raises
+    ------
+    InputError
+        No mapped plant inside a training plot, fewer than :data:`MIN_PLANTS`, plots outside
+        the raster, training plots too large, or no layer that finds the mapped plants.
+
+    Examples
+    --------
+    See ``tests/test_calibrate.py``; in short::
+
+        info = open_raster("ortho.tif")
+        res = calibrate_detector(info, read_points("mapped.csv"), read_plots("train.gpkg"),
+                                 band_names=band_names_for(info))
+        write_detector("detector.toml", res.detector)
+    """
+    if classifier not in ("auto", "always", "never"):
+        raise InputError(f"--classifier must be auto, always or never (got {classifier!r})")
+    ps = info.pixel_size_m
+    notes: list[str] = []
+    # tolerance and the crown sizes searched, in pixels
+    xy = reference.xy
+    if xy.shape[0] >= 2:
+        nn = cKDTree(xy).query(xy, k=2)[0][:, 1]
+    else:
+        nn = np.array([1.0])
+    given_d = None
+    if "diameter_m" in reference.attrs:
+        dd = np.asarray(reference.attrs["diameter_m"], float)
+        if np.all(np.isfinite(dd)) and np.all(dd > 0):
+            given_d = dd / ps
+    if tolerance_m is None:
+        if given_d is not None:
+            tolerance_m = 0.5 * float(np.median(given_d)) * ps
+        else:
+            tolerance_m = 0.25 * float(np.median(nn))
+        notes.append(f"matching tolerance {tolerance_m:.3g} m (set it with --tolerance)")
+    if not (tolerance_m > 0 and math.isfinite(tolerance_m)):
+        raise InputError(f"--tolerance must be a positive number of metres (got {tolerance_m})")
+    tol_px = tolerance_m / ps
+    if diameter_m is not None:
+        broad = (max(2.0, diameter_m[0] / ps), diameter_m[1] / ps)
+    else:
+        broad = (2.0, float(np.clip(1.5 * np.percentile(nn, 90) / ps, 6.0, 300.0)))
+    if given_d is not None:
+        broad = (max(2.0, float(np.min(given_d)) / 1.3), float(np.max(given_d)) * 1.3)
+    sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
+    halo = math.ceil(4.0 * min(16.0, max(2.0, broad[1] / 4.0))) + 3
+    margin = sc.support_px + halo
+    windows, fold_by, n_folds, more = _prepare(info, reference, plots, names, margin)
+    notes += more
+    diam_given = (
+        None if given_d is None else given_d[np.concatenate([w.ref_index for w in windows])]
+    )
+    runs: list[_LayerRun] = []
+    for name in available_layers(band_names):
+        maps = [simple_layer(w.data, band_names, name) for w in windows]
+        bg = float(
+            np.median(np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)]))
+        )
+        for m, w in zip(maps, windows, strict=True):
+            m[~w.valid] = bg
+        run = _score_layer(name, maps, windows, n_folds, tol_px, broad, bg, diam_given)
+        if run is not None:
+            runs.append(run)
+    best_simple = max(runs, key=lambda r: r.score.f1) if runs else None
+    want_forest = classifier == "always" or (
+        classifier == "auto" and (best_simple is None or best_simple.score.f1 < GOOD_ENOUGH_F1)
+    )
+    forest = None
+    spec = None
+    if want_forest:
+        forest, spec, run = _classifier_run(
+            windows, band_names, n_folds, tol_px, broad, diam_given, best_simple, seed
+        )
+        if run is not None:
+            runs.append(run)
+            if best_simple is not None and run.score.f1 < best_simple.score.f1 + CLASSIFIER_MARGIN:
+                forest = None
+    if not runs:
+        raise InputError(
+            f"no layer of {names[0]} finds the plants mapped in {names[1]}; check that the "
+            "points mark crown centres and use the raster's CRS"
+        )
+    runs.sort(key=lambda r: -(r.score.f1 if math.isfinite(r.score.f1) else -1))
+    chosen = next(r for r in runs if r.name != "probability" or forest is not None)
+    if forest is None and runs[0].name == "probability":
+        notes.append(
+            "the classifier scored no better than the best simple layer by "
+            f"{CLASSIFIER_MARGIN}; the simple layer is used"
+        )
+    if chosen.score.f1 < 0.9:
+        notes.append(
+            f"cross-validated F1 is only {chosen.score.f1:.2f}: check the mapped plants and "
+            "map more training plots before relying on this detector"
+        )
+    import sklearn
+
+    from ecoscan import __version__
+
+    det = CalibratedDetector(
+        kind="classifier" if chosen.name == "probability" else "layer",
+        layer=chosen.name,
+        band_names=tuple(band_names),
+        dtype=str(info.dtype),
+        pixel_size_m=float(ps),
+        diameter_min_m=float(chosen.dmin_px * ps),
+        diameter_max_m=float(chosen.dmax_px * ps),
+        min_response=chosen.min_response,
+        min_value=chosen.min_value,
+        background=chosen.background,
+        features=spec if chosen.name == "probability" else None,
+        forest=forest if chosen.name == "probability" else None,
+        cross_validation={
+            "fold_by": fold_by,
+            "folds": n_folds,
+            "tolerance_m": float(tolerance_m),
+            **chosen.score.as_dict(),
+        },
+        candidates=[r.score.as_dict() for r in runs],
+        training={
+            "plants": int(sum(w.ref.shape[0] for w in windows)),
+            "plot_ids": [plots.plots[w.plot].plot_id for w in windows],
+        },
+        software={"ecoscan": __version__, "scikit_learn": sklearn.__version__},
+    )
+    return CalibrationResult(
+        detector=det,
+        scores=[r.score for r in runs],
+        chosen=chosen.score,
+        folds=f"{n_folds} folds by {fold_by}",
+        tolerance_m=float(tolerance_m),
+        notes=notes,
+    )
+
+
+def describe_training(det: CalibratedDetector, files: dict[str, str | Path]) -> None:
+    """Record the training files' names and SHA-256 in the detector (in place).
+
+    Parameters
+    ----------
+    det : CalibratedDetector
+    files : dict
+        ``raster``, ``reference`` and ``plots`` paths.
+    """
+    from ecoscan.detect.detector_file import sha256_file
+
+    for key, path in files.items():
+        det.training[key] = Path(path).name
+        det.training[f"{key}_sha256"] = sha256_file(path)

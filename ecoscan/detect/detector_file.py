@@ -1,0 +1,494 @@
+"""Detector files: every setting ``ecoscan calibrate`` learnt, as readable TOML.
+
+A detector file holds the plant layer, thresholds, crown diameter range, the pixel size and
+band layout it was learnt for, the cross-validated accuracy and the hashes of the files it
+was learnt from. A pixel classifier is stored beside it in a model file (joblib, which is
+pickle-based): **loading a model file can run code, so use detector files only from a
+trusted source.** The model file's SHA-256 is stored in the TOML and checked before the
+model is loaded, so a model file that was swapped or damaged is refused.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import os
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ecoscan.detect.pixel_model import SIMPLE_LAYERS, FeatureSpec, PlantLayer
+from ecoscan.errors import InputError
+from ecoscan.outputs import atomic_path
+
+__all__ = [
+    "FORMAT_VERSION",
+    "PIXEL_SIZE_TOLERANCE",
+    "CalibratedDetector",
+    "check_raster",
+    "read_detector",
+    "write_detector",
+]
+
+#: Version of the detector-file layout (raised when keys change meaning).
+FORMAT_VERSION = 1
+
+#: Largest relative difference between the raster's pixel size and the detector's.
+PIXEL_SIZE_TOLERANCE = 0.05
+
+
+def sha256_file(path: str | os.PathLike) -> str:
+    """SHA-256 of a file's bytes (hex)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(1 << 20):
+            h.update(block)
+    return h.hexdigest()
+
+
+@dataclass
+class CalibratedDetector:
+    """A detector learnt from mapped plants.
+
+    Attributes
+    ----------
+    kind : str
+        ``layer`` or ``classifier``.
+    layer : str
+        Simple layer name, or ``probability`` for the classifier.
+    band_names : tuple of str
+        Name of each raster band, in band order (``red``, ``green``, ``blue``, ``nir``,
+        ``bandN``).
+    dtype : str
+        Data type of the raster's bands (``uint8``, ``uint16``, ``float32``...).
+    pixel_size_m : float
+        Ground pixel size the detector was learnt at, metres.
+    diameter_min_m, diameter_max_m : float
+        Crown diameter range searched, metres.
+    min_response : float
+        Smallest scale-normalised blob response, layer units.
+    min_value : float
+        Smallest smoothed layer value at a blob centre, layer units.
+    background : float
+        Layer value of bare ground (used beyond the raster's edge and for nodata).
+    scales_per_octave : int
+        Scales per doubling of the diameter.
+    features : FeatureSpec or None
+        Classifier features.
+    model_file : str
+        Model file name, beside the TOML (classifier only).
+    model_sha256 : str
+        SHA-256 of the model file.
+    cross_validation : dict
+        Scores and fold description.
+    training : dict
+        Files learnt from, with hashes, and counts.
+    candidates : list of dict
+        Cross-validated scores of every layer tried.
+    software : dict
+        Versions of ecoscan and scikit-learn.
+    """
+
+    kind: str
+    layer: str
+    band_names: tuple[str, ...]
+    dtype: str
+    pixel_size_m: float
+    diameter_min_m: float
+    diameter_max_m: float
+    min_response: float
+    min_value: float
+    background: float
+    scales_per_octave: int = 3
+    features: FeatureSpec | None = None
+    model_file: str = ""
+    model_sha256: str = ""
+    cross_validation: dict = field(default_factory=dict)
+    training: dict = field(default_factory=dict)
+    candidates: list = field(default_factory=list)
+    software: dict = field(default_factory=dict)
+    forest: Any = None
+    source: str = ""
+
+    def plant_layer(self) -> PlantLayer:
+        """The picklable layer function used by the tile workers."""
+        return PlantLayer(self.kind, self.layer, self.band_names, self.features, self.forest)
+
+
+# --- writing -------------------------------------------------------------------------------
+
+
+def _toml_value(v: Any) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, float):
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        if math.isnan(v):
+            return "nan"
+        return repr(float(v))
+    if isinstance(v, str):
+        esc = v.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n")
+        return f'"{esc}"'
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    raise TypeError(f"cannot write {type(v).__name__} to TOML")
+
+
+def _toml_table(name: str, table: dict, comments: dict | None = None) -> list[str]:
+    lines = [f"[{name}]"]
+    for k, v in table.items():
+        if isinstance(v, dict):
+            continue
+        c = (comments or {}).get(k)
+        lines.append(f"{k} = {_toml_value(v)}" + (f"  # {c}" if c else ""))
+    lines.append("")
+    for k, v in table.items():
+        if isinstance(v, dict):
+            lines += _toml_table(f"{name}.{k}", v)
+    return lines
+
+
+def to_toml(det: CalibratedDetector) -> str:
+    """The detector as TOML text (see :func:`write_detector`)."""
+    head = [
+        "# ecoscan detector file, written by `ecoscan calibrate`.",
+        "# Use it with `ecoscan detect RASTER --detector FILE` or, in a survey file,",
+        '# detector = "FILE" in a [raster.detect] table.',
+    ]
+    if det.kind == "classifier":
+        head.append(
+            "# The model file beside it is pickle-based: load detector files only from a "
+            "trusted source."
+        )
+    lines = [*head, ""]
+    lines += _toml_table(
+        "detector",
+        {"format_version": FORMAT_VERSION, "kind": det.kind, "layer": det.layer},
+        {"kind": "layer: a simple per-pixel layer; classifier: random-forest probability"},
+    )
+    lines += _toml_table(
+        "raster",
+        {
+            "pixel_size_m": det.pixel_size_m,
+            "band_names": list(det.band_names),
+            "dtype": det.dtype,
+        },
+        {"pixel_size_m": f"rasters within {PIXEL_SIZE_TOLERANCE:.0%} of this are accepted"},
+    )
+    lines += _toml_table(
+        "blobs",
+        {
+            "diameter_min_m": det.diameter_min_m,
+            "diameter_max_m": det.diameter_max_m,
+            "scales_per_octave": det.scales_per_octave,
+            "min_response": det.min_response,
+            "min_value": det.min_value,
+            "background": det.background,
+        },
+        {
+            "min_response": "smallest scale-normalised blob response, layer units",
+            "min_value": "smallest smoothed layer value at a blob centre",
+            "background": "layer value of bare ground",
+        },
+    )
+    if det.kind == "classifier" and det.features is not None:
+        lines += _toml_table(
+            "classifier",
+            {
+                "model_file": det.model_file,
+                "model_sha256": det.model_sha256,
+                "sigma_min_px": det.features.sigma_min,
+                "sigma_max_px": det.features.sigma_max,
+                "num_sigma": det.features.num_sigma,
+                "brightness_scale": det.features.brightness_scale,
+            },
+        )
+    lines += _toml_table("cross_validation", dict(det.cross_validation))
+    for cand in det.candidates:
+        lines.append("[[cross_validation.candidates]]")
+        lines += [f"{k} = {_toml_value(v)}" for k, v in cand.items()]
+        lines.append("")
+    lines += _toml_table("training", dict(det.training))
+    lines += _toml_table("software", dict(det.software))
+    return "\n".join(lines).rstrip() + "\n"
+
+
+def write_detector(path: str | os.PathLike, det: CalibratedDetector) -> list[Path]:
+    """Write a detector file (and its model file) atomically.
+
+    The model file is written first, then its hash goes into the TOML, which is written
+    last: a failure leaves no TOML pointing at a missing or different model.
+
+    Parameters
+    ----------
+    path : path-like
+        Destination ``.toml``.
+    det : CalibratedDetector
+        With ``forest`` set for a classifier.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> d = CalibratedDetector("layer", "exg", ("red", "green", "blue"), "uint8", 0.05,
+    ...                        0.5, 2.0, 0.02, 0.05, 0.0)
+    >>> out = Path(tempfile.mkdtemp()) / "detector.toml"
+    >>> [p.name for p in write_detector(out, d)]
+    ['detector.toml']
+    >>> read_detector(out).layer
+    'exg'
+    """
+    dest = Path(path)
+    written: list[Path] = []
+    if det.kind == "classifier":
+        import joblib
+
+        model = dest.with_suffix(".model.joblib")
+        with atomic_path(model) as tmp:
+            joblib.dump(det.forest, tmp, compress=3)
+        det.model_file = model.name
+        det.model_sha256 = sha256_file(model)
+        written.append(model)
+    with atomic_path(dest) as tmp:
+        tmp.write_text(to_toml(det), encoding="utf-8", newline="\n")
+    return [dest, *written]
+
+
+# --- reading -------------------------------------------------------------------------------
+
+
+def _need(d: dict, table: str, key: str, kind, name: str):
+    t = d.get(table)
+    if not isinstance(t, dict) or key not in t:
+        raise InputError(
+            f"detector file {name} lacks [{table}] {key}; make it again with ecoscan calibrate"
+        )
+    v = t[key]
+    ok = isinstance(v, kind) and not (kind is not bool and isinstance(v, bool))
+    if not ok:
+        raise InputError(
+            f"detector file {name}: [{table}] {key} has the wrong type; make it again with "
+            "ecoscan calibrate"
+        )
+    return v
+
+
+def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> CalibratedDetector:
+    """Read and check a detector file (and load its model file after checking its hash).
+
+    Parameters
+    ----------
+    path : path-like
+        The ``.toml`` written by ``ecoscan calibrate``.
+    load_model : bool
+        Load the classifier (False only checks the TOML and the model's hash).
+
+    Returns
+    -------
+    CalibratedDetector
+
+    Raises
+    ------
+    InputError
+        A missing file, TOML that does not parse, missing or mistyped keys, an unknown
+        layer, a missing model file or one whose SHA-256 differs from the recorded one.
+    """
+    p = Path(path)
+    name = str(path)
+    if not p.is_file():
+        raise InputError(f"detector file {name} does not exist; make one with ecoscan calibrate")
+    try:
+        d = tomllib.loads(p.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        first = str(exc).splitlines()[0]
+        raise InputError(
+            f"detector file {name} is not valid TOML ({first}); make it again with "
+            "ecoscan calibrate"
+        ) from None
+    num = (int, float)
+    version = _need(d, "detector", "format_version", int, name)
+    if version > FORMAT_VERSION:
+        raise InputError(
+            f"detector file {name} has format version {version}, newer than this ecoscan "
+            f"reads ({FORMAT_VERSION}); update ecoscan"
+        )
+    kind = _need(d, "detector", "kind", str, name)
+    layer = _need(d, "detector", "layer", str, name)
+    if kind not in ("layer", "classifier") or (kind == "layer" and layer not in SIMPLE_LAYERS):
+        raise InputError(
+            f"detector file {name}: unknown detector kind/layer {kind}/{layer}; make it again "
+            "with ecoscan calibrate"
+        )
+    det = CalibratedDetector(
+        kind=kind,
+        layer=layer,
+        band_names=tuple(_need(d, "raster", "band_names", list, name)),
+        dtype=_need(d, "raster", "dtype", str, name),
+        pixel_size_m=float(_need(d, "raster", "pixel_size_m", num, name)),
+        diameter_min_m=float(_need(d, "blobs", "diameter_min_m", num, name)),
+        diameter_max_m=float(_need(d, "blobs", "diameter_max_m", num, name)),
+        min_response=float(_need(d, "blobs", "min_response", num, name)),
+        min_value=float(_need(d, "blobs", "min_value", num, name)),
+        background=float(_need(d, "blobs", "background", num, name)),
+        scales_per_octave=int(_need(d, "blobs", "scales_per_octave", int, name)),
+        cross_validation=d.get("cross_validation", {}),
+        training=d.get("training", {}),
+        software=d.get("software", {}),
+        source=str(p.resolve()),
+    )
+    det.candidates = list(det.cross_validation.pop("candidates", []))
+    bad = (
+        not (det.pixel_size_m > 0)
+        or not (0 < det.diameter_min_m <= det.diameter_max_m)
+        or not math.isfinite(det.min_response)
+        or not 1 <= det.scales_per_octave <= 12
+        or not det.band_names
+    )
+    if bad:
+        raise InputError(
+            f"detector file {name} holds impossible values (pixel size, diameters or "
+            "thresholds); make it again with ecoscan calibrate"
+        )
+    if kind == "classifier":
+        det.features = FeatureSpec(
+            sigma_min=float(_need(d, "classifier", "sigma_min_px", num, name)),
+            sigma_max=float(_need(d, "classifier", "sigma_max_px", num, name)),
+            num_sigma=int(_need(d, "classifier", "num_sigma", int, name)),
+            brightness_scale=float(_need(d, "classifier", "brightness_scale", num, name)),
+        )
+        det.model_file = _need(d, "classifier", "model_file", str, name)
+        det.model_sha256 = _need(d, "classifier", "model_sha256", str, name)
+        model = p.parent / det.model_file
+        if Path(det.model_file).name != det.model_file:
+            raise InputError(
+                f"detector file {name}: model_file must be a file name beside the TOML, "
+                f"not {det.model_file!r}"
+            )
+        if not model.is_file():
+            raise InputError(
+                f"the model file {det.model_file} named by {name} is missing; keep it beside "
+                "the detector file or run ecoscan calibrate again"
+            )
+        if sha256_file(model) != det.model_sha256:
+            raise InputError(
+                f"the model file {det.model_file} does not match the SHA-256 recorded in "
+                f"{name}; it was changed or damaged: run ecoscan calibrate again"
+            )
+        if load_model:
+            import joblib
+
+            try:
+                det.forest = joblib.load(model)
+            except Exception as exc:  # a file with the right hash but unreadable here
+                raise InputError(
+                    f"cannot load the model file {det.model_file} ({type(exc).__name__}); "
+                    "it may come from another scikit-learn version: run ecoscan calibrate "
+                    "again"
+                ) from None
+    return det
+
+
+def check_raster(det: CalibratedDetector, raster_name: str, info) -> list[str]:
+    """Refuse a raster whose pixel size or band layout differs from the detector's.
+
+    Parameters
+    ----------
+    det : CalibratedDetector
+    raster_name : str
+        As the user wrote it, for messages.
+    info : ecoscan.raster.RasterInfo
+
+    Returns
+    -------
+    list of str
+        Notes.
+
+    Raises
+    ------
+    InputError
+        Another pixel size (beyond :data:`PIXEL_SIZE_TOLERANCE`), band count or data type.
+    """
+    src = Path(det.source).name or "the detector file"
+    ps = info.pixel_size_m
+    if abs(ps - det.pixel_size_m) > PIXEL_SIZE_TOLERANCE * det.pixel_size_m:
+        raise InputError(
+            f"{raster_name} has {ps:.4g} m pixels but detector file {src} was made for "
+            f"{det.pixel_size_m:.4g} m; calibrate on imagery of this pixel size"
+        )
+    if len(info.data_bands) != len(det.band_names) or str(info.dtype) != det.dtype:
+        raise InputError(
+            f"{raster_name} has {len(info.data_bands)} band(s) of {info.dtype} but detector "
+            f"file {src} was made for {len(det.band_names)} band(s) of {det.dtype} "
+            f"({', '.join(det.band_names)}); calibrate on imagery from this camera"
+        )
+    return [
+        f"detector file {src}: {det.kind} {det.layer}, diameters "
+        f"{det.diameter_min_m:.3g}-{det.diameter_max_m:.3g} m, cross-validated F1 "
+        f"{det.cross_validation.get('f1', float('nan')):.3f}"
+    ]
+
+
+def calibrated_params(det: CalibratedDetector, info, raster_name: str):
+    """Detector parameters for a raster from a calibrated detector (the ``detect`` hook).
+
+    Parameters
+    ----------
+    det : CalibratedDetector
+        With its model loaded for a classifier.
+    info : ecoscan.raster.RasterInfo
+    raster_name : str
+        As the user wrote it, for messages.
+
+    Returns
+    -------
+    params : ecoscan.detect.engine.DetectorParams
+    overlap : int
+        Tile overlap in pixels (blob support plus the classifier's feature reach).
+    align : int
+        Tile alignment.
+    thresholds : dict
+        For the detection metadata.
+    notes : list of str
+
+    Raises
+    ------
+    InputError
+        From :func:`check_raster`.
+    """
+    from ecoscan.detect.blobs import blob_scales
+    from ecoscan.detect.engine import DetectorParams
+
+    notes = check_raster(det, raster_name, info)
+    ps = info.pixel_size_m
+    dmin_px, dmax_px = det.diameter_min_m / ps, det.diameter_max_m / ps
+    scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, det.scales_per_octave)
+    layer = det.plant_layer()
+    params = DetectorParams(
+        method="imagery",
+        bands=tuple(info.data_bands),
+        pixel_size_m=ps,
+        index=f"calibrated:{det.layer}",
+        scales=scales,
+        min_response=det.min_response,
+        min_value=det.min_value,
+        fill_value=det.background,
+        layer_model=layer,
+    )
+    overlap = max(scales.support_px, math.ceil(dmax_px)) + layer.halo_px
+    thresholds = {
+        "detector_file": Path(det.source).name,
+        "layer": det.layer,
+        "min_response": det.min_response,
+        "min_value": det.min_value,
+        "background": det.background,
+        "how": "calibrated from mapped plants",
+    }
+    return params, overlap, scales.align, thresholds, notes
