@@ -100,6 +100,13 @@ class Recipe:
         -------
         numpy.ndarray
             Shape (bands, r1 − r0, width) in :attr:`dtype`.
+
+        Examples
+        --------
+        >>> from ecoscan.synthetic import make_scene
+        >>> sc = make_scene("coarse", 64, 0)
+        >>> sc.recipe.render(10, 20).shape
+        (3, 10, 64)
         """
         halo = math.ceil(4 * self.blur_px) + 1 if self.blur_px > 0 else 0
         a0, a1 = max(0, r0 - halo), min(self.height, r1 + halo)

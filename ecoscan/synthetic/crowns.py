@@ -163,6 +163,14 @@ def place_separated(
         Centres of the kept objects, in the order of the returned ``keep`` indices.
     keep : numpy.ndarray of int
         Indices into ``radius`` of the kept objects.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c, r, keep = place_separated(200, 200, np.full(50, 8.0), np.random.default_rng(0))
+    >>> d = np.hypot(c[:, None] - c[None], r[:, None] - r[None]) + np.eye(c.size) * 99
+    >>> bool(d.min() >= 16.0)
+    True
     """
     order = np.argsort(-radius, kind="stable")
     n = radius.size
@@ -257,6 +265,17 @@ def cast_shadows(
         Stream number for the roughness of the shadow edge.
     soft_px : float
         Width of the penumbra in pixels.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> one = Stamps(np.array([20.0]), np.array([20.0]), np.array([5.0]), np.array([2]),
+    ...              np.zeros((1, 1)), np.zeros((1, 1)), np.ones((1, 3)), np.zeros(1),
+    ...              np.array([5.0]))
+    >>> shade = np.zeros((60, 60), np.float32)
+    >>> cast_shadows(shade, one, 0, Sun(90.0, 45.0), seed=1)  # sun in the east
+    >>> bool(shade[20, 14] > 0.5 and shade[20, 26] == 0)      # shadow to the west
+    True
     """
     h, w = shade.shape
     ux, uy = sun.shadow_dir
@@ -320,6 +339,17 @@ def draw_stamps(
         Darkening of objects inside cast shadows (0–1).
     cover : numpy.ndarray, optional
         Strip-sized float32 array receiving the maximum alpha of painted objects.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> one = Stamps(np.array([20.0]), np.array([20.0]), np.array([6.0]), np.array([2]),
+    ...              np.zeros((1, 1)), np.zeros((1, 1)), np.array([[50.0, 120.0, 40.0]]),
+    ...              np.zeros(1), np.zeros(1))
+    >>> img = np.full((3, 40, 40), 150.0, np.float32)
+    >>> draw_stamps(img, one, 0, Sun(), seed=2)
+    >>> bool(img[1, 20, 20] < 150 and img[0, 20, 20] < 70 and img[0, 2, 2] == 150)
+    True
     """
     _b, h, w = img.shape
     hit = _rows_hit(st, r0, r0 + h)

@@ -241,6 +241,12 @@ def training_plots(scene: Scene, fraction: float = 0.12):
     Returns
     -------
     ecoscan.vector.PlotLayer
+
+    Examples
+    --------
+    >>> layer = training_plots(make_scene("coarse", 100, 0))
+    >>> layer.ids, round(layer.plots[0].geometry.area / 625.0, 2)
+    (['train', 'test'], 0.12)
     """
     import shapely
     from pyproj import CRS
