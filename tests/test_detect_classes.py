@@ -77,6 +77,7 @@ def test_coins_image_count(tmp_path):
         path,
         DetectionSettings(
             method="imagery",
+            index="band",  # the classic path (Otsu); the image-chosen default finds 21
             pixel_size_m=1.0,
             diameter_min_m=30,
             diameter_max_m=80,

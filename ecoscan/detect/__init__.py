@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
-from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs
+from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
 from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
@@ -38,9 +38,32 @@ __all__ = [
     "DetectionResult",
     "DetectionSettings",
     "choose_method",
+    "describe_settings",
     "detect_raster",
+    "detection_metadata",
     "parse_band_spec",
 ]
+
+#: Split a blob into two or more smaller ones inside it reaching this share of its response
+#: (touching crowns). Tuned on benchmarks/tuning_scenes.py.
+SPLIT_RATIO = 0.6
+
+#: A blob whose centre is within this share of its radius of a stronger crown's edge (a lobe
+#: or branch) is pruned with it. Tuned on benchmarks/tuning_scenes.py.
+PRUNE_MARGIN = 0.5
+
+#: Fewer clear candidates than this on the best layer: fall back to the classic Otsu split.
+MIN_CANDIDATES = 10
+
+#: Readable names of the detection layers.
+LAYER_LABELS = {
+    "exg": "Excess Green",
+    "ndvi": "NDVI",
+    "darkness": "darkness",
+    "band": "the band values",
+    "exg+darkness": "Excess Green + darkness",
+    "ndvi+darkness": "NDVI + darkness",
+}
 
 #: Columns every detection table may carry, in output order after x, y.
 ATTRIBUTE_ORDER = (
@@ -108,11 +131,106 @@ class DetectionResult:
         return self.points.n
 
 
+def _plain(v):
+    """JSON-safe copy (numpy scalars and arrays to Python numbers and lists)."""
+    if isinstance(v, dict):
+        return {str(k): _plain(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_plain(x) for x in v]
+    if isinstance(v, np.generic):
+        return v.item()
+    if isinstance(v, np.ndarray):
+        return v.tolist()
+    return v
+
+
+def detection_metadata(result: DetectionResult, settings: DetectionSettings | None = None) -> dict:
+    """What a detection run chose and why, as a JSON-ready mapping.
+
+    Recorded beside the points (``ecoscan detect`` writes it to ``NAME.detection.json``)
+    and in a survey's ``run.json``: the detector, the layer and how it was chosen, every
+    threshold with its origin, and the warnings.
+
+    Examples
+    --------
+    >>> meta = detection_metadata(result)  # doctest: +SKIP
+    >>> meta["thresholds"]["layer"]  # doctest: +SKIP
+    'exg'
+    """
+    out = {
+        "method": result.method,
+        "layer": result.index,
+        "pixel_size_m": float(result.pixel_size_m),
+        "plants": int(result.n),
+        "thresholds": _plain(result.thresholds),
+        "warnings": list(result.warnings),
+        "tiles": {"total": result.tiles_total, "read": result.tiles_read},
+    }
+    if settings is not None:
+        out["settings"] = _plain(settings.to_dict())
+    if result.raster is not None:
+        out["raster"] = Path(result.raster.path).name
+    return out
+
+
+def describe_settings(meta: dict) -> str:
+    """One line on the detection settings of a run, for reports.
+
+    Examples
+    --------
+    >>> describe_settings({"method": "chm", "thresholds": {"min_height_m": 2.0}})
+    'chm detector; lowest tree top 2 m'
+    """
+    th = meta.get("thresholds") or {}
+    method = meta.get("method", "")
+    if method == "imagery" and th:
+        layer = LAYER_LABELS.get(th.get("layer", ""), th.get("layer", ""))
+        chosen = th.get("layer_chosen_by", "")
+        how = "chosen from the image" if chosen.startswith("largest") else "as given"
+        text = (
+            f"imagery detector; layer {layer} ({how}); crown contrast at least "
+            f"{th.get('min_contrast', float('nan')):.3g}, centre value at least "
+            f"{th.get('vegetation_threshold', float('nan')):.3g}"
+        )
+        if th.get("weak_separation"):
+            text += "; weak separation: check by eye or calibrate"
+        return text
+    if method == "chm":
+        return f"chm detector; lowest tree top {th.get('min_height_m', float('nan')):g} m"
+    if method == "classes":
+        return f"classes detector; smallest patch {th.get('min_area_m2', float('nan')):.3g} m²"
+    return f"{method} detector"
+
+
 def _band_error(info: RasterInfo, idx: int) -> InputError:
     return InputError(
         f"band {idx} is out of range: {Path(info.path).name} has data bands "
         f"{', '.join(map(str, info.data_bands))}; choose one of them with --bands"
     )
+
+
+def _band_lookup(info: RasterInfo, settings: DetectionSettings) -> dict[str, int]:
+    """Band of each role (red, green, blue, nir) from --bands, names or colour interpretation."""
+    spec = dict(settings.band_spec)
+    names_in_file = {d: i for d, i in zip(info.descriptions, info.data_bands, strict=True) if d}
+    lookup = dict(spec)
+    if not spec:
+        for key in ("red", "green", "blue", "nir"):
+            for name, i in names_in_file.items():
+                if name == key or (key == "nir" and ("nir" in name or "infrared" in name)):
+                    lookup.setdefault(key, i)
+        for key, i in zip(info.colorinterp, info.data_bands, strict=True):
+            if key in ("red", "green", "blue"):
+                lookup.setdefault(key, i)
+        if info.count >= 3:
+            for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
+                lookup.setdefault(key, i)
+    return lookup
+
+
+def _auto_layer(settings: DetectionSettings) -> bool:
+    """True when the imagery layer and thresholds are chosen from the image."""
+    return settings.index == "auto" and settings.threshold is None and settings.min_contrast is None
 
 
 def choose_method(
@@ -134,7 +252,6 @@ def choose_method(
     for idx in spec.values():
         if idx not in info.data_bands:
             raise _band_error(info, idx)
-    names_in_file = {d: i for d, i in zip(info.descriptions, info.data_bands, strict=True) if d}
     method = settings.method
     if method == "auto":
         if len(spec) >= 2 or (not spec and info.count >= 3):
@@ -152,19 +269,7 @@ def choose_method(
     if method in ("chm", "classes"):
         band = next(iter(spec.values()), info.data_bands[0])
         return method, (band,), None, notes
-    # imagery: find red/green/blue/nir
-    lookup = dict(spec)
-    if not spec:
-        for key in ("red", "green", "blue", "nir"):
-            for name, i in names_in_file.items():
-                if name == key or (key == "nir" and ("nir" in name or "infrared" in name)):
-                    lookup.setdefault(key, i)
-        for key, i in zip(info.colorinterp, info.data_bands, strict=True):
-            if key in ("red", "green", "blue"):
-                lookup.setdefault(key, i)
-        if info.count >= 3:
-            for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
-                lookup.setdefault(key, i)
+    lookup = _band_lookup(info, settings)
     index = settings.index
     if index == "auto":
         if "red" in lookup and "nir" in lookup:
@@ -179,6 +284,9 @@ def choose_method(
                 "NDVI needs the red and near-infrared bands; name them, e.g. --bands red=3,nir=4"
             )
         bands = (lookup["red"], lookup["nir"])
+    elif index == "darkness":
+        rgb = tuple(lookup[k] for k in ("red", "green", "blue") if k in lookup)
+        bands = rgb or (next(iter(spec.values()), info.data_bands[0]),)
     elif index == "exg":
         if not all(k in lookup for k in ("red", "green", "blue")):
             raise InputError(
@@ -187,8 +295,9 @@ def choose_method(
         bands = (lookup["red"], lookup["green"], lookup["blue"])
     else:
         bands = (next(iter(spec.values()), info.data_bands[0]),)
-    label = {"ndvi": "NDVI", "exg": "Excess Green", "band": "the band values"}[index]
-    notes.append(f"vegetation layer: {label} from band(s) {', '.join(map(str, bands))}")
+    label = LAYER_LABELS[index]
+    if not _auto_layer(settings):
+        notes.append(f"vegetation layer: {label} from band(s) {', '.join(map(str, bands))}")
     return method, bands, index, notes
 
 
@@ -217,12 +326,35 @@ def _global_params(
                 f"the smallest crowns are only {dmin_px:.1f} pixels across; detection of "
                 "crowns under about 3 pixels is unreliable"
             )
+        if dmax_px > MAX_REACH_PX:
+            raise InputError(
+                f"the largest diameter {settings.diameter_max_m:g} m is {dmax_px:.0f} pixels at "
+                f"{ps:.3g} m pixels (at most {MAX_REACH_PX}); check --diameter (metres) and the "
+                "pixel size"
+            )
         if dmax_px > 0.5 * min(info.width, info.height):
             notes.append(
                 f"the largest diameter ({dmax_px:.0f} pixels) is more than half the raster; "
                 "check --diameter"
             )
     if method == "imagery":
+        scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
+        overlap = max(scales.support_px, math.ceil(dmax_px))
+        _check_tile_memory(
+            name, settings, overlap, len(bands) + 1, 2 * (scales.sigmas.size + 2), "the blob filter"
+        )
+        fallback = ""
+        if _auto_layer(settings):
+            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
+            if auto is not None:
+                return auto
+            fallback = (
+                "weak separation: no layer showed at least "
+                f"{MIN_CANDIDATES} clear plant candidates in the sample windows; fell back to "
+                "Otsu's split of the whole raster; calibrate a detector on mapped plants "
+                "(ecoscan calibrate) or set --threshold, and check with ecoscan validate"
+            )
+            notes.append(fallback)
         from skimage.filters import threshold_otsu
 
         layer = vegetation_layer(data, index)[valid]
@@ -241,7 +373,6 @@ def _global_params(
             if settings.min_contrast is not None
             else 0.5 * max(hi - lo, 1e-6)
         )
-        scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
         params = DetectorParams(
             method="imagery",
             bands=bands,
@@ -251,16 +382,33 @@ def _global_params(
             min_response=DISC_RESPONSE * contrast,
             min_value=t,
             fill_value=lo,
+            split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         )
-        overlap = max(scales.support_px, math.ceil(dmax_px))
         how = "given" if settings.threshold is not None else "Otsu on the whole raster"
+        if fallback:
+            how += " (fallback: nothing stood out from the background)"
         notes.append(
             f"vegetation threshold {t:.4g} ({how}); smallest crown contrast {contrast:.4g}"
         )
-        th = {"vegetation_threshold": t, "min_contrast": contrast, "background": lo}
+        th = {
+            "layer": index,
+            "layer_chosen_by": (
+                "fallback to the classic index"
+                if fallback
+                else "given (--index, --threshold or --min-contrast)"
+            ),
+            "weak_separation": bool(fallback),
+            "vegetation_threshold": t,
+            "vegetation_threshold_from": how,
+            "min_contrast": contrast,
+            "min_contrast_from": (
+                "given" if settings.min_contrast is not None else "half the Otsu class gap"
+            ),
+            "background": lo,
+        }
         return params, overlap, scales.align, th, notes
     if method == "chm":
-        hmax = float(np.max(data[0][valid]))
+        hmax = _chm_height_check(name, data[0][valid])
         a, b, c = CROWN_RULES[settings.crown_rule]
         hcap = max(hmax * 1.2 + 1.0, settings.min_height_m)
         cap_px = math.ceil((a + b * hcap + c * hcap**2) / 2.0 / ps)
@@ -276,7 +424,14 @@ def _global_params(
             crown_floor_m=0.5 * settings.min_height_m,
             crowns=settings.crowns,
         )
+        if cap_px > MAX_REACH_PX // 2 or smooth_px > MAX_REACH_PX // 8:
+            raise InputError(
+                f"at {ps:g} m pixels the crown search window of a {hcap:.0f} m tree is "
+                f"{2 * cap_px} pixels across (smoothing {smooth_px:.0f} pixels): too large to "
+                "process; check the pixel size and that heights are in metres"
+            )
         overlap = 2 * cap_px + math.ceil(3 * smooth_px) + 2
+        _check_tile_memory(name, settings, overlap, 1, 4, "the crown search window")
         if hmax < settings.min_height_m:
             notes.append(
                 f"the highest pixel ({hmax:.3g}) is below --min-height {settings.min_height_m:g}: "
@@ -313,8 +468,221 @@ def _global_params(
         h_px=max(1.0, 0.2 * dmin_px / 2.0),
     )
     overlap = math.ceil(1.5 * dmax_px) + 2
+    _check_tile_memory(name, settings, overlap, 1, 6, "the patch search")
     th = {"min_area_m2": min_area}
     return params, overlap, 1, th, notes
+
+
+#: Pixels read at full resolution to choose the layer and thresholds (sample windows).
+SAMPLE_BUDGET_PX = 1_600_000
+
+
+def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: float):
+    """Full-resolution windows spread over the raster, for layer and threshold statistics.
+
+    The whole raster when it is small; otherwise up to 16 windows on a regular grid whose
+    cores total about :data:`SAMPLE_BUDGET_PX` pixels, each read with a margin of the
+    filters' reach so that its candidates are those of a whole-image run.
+    """
+    from ecoscan.detect.autotune import SampleWindow
+    from ecoscan.raster import read_window
+
+    margin = scales.support_px
+    w, h = info.width, info.height
+    if w * h <= SAMPLE_BUDGET_PX:
+        data, valid = read_window(info, bands, (0, 0, w, h))
+        return [SampleWindow(data, valid, (slice(0, h), slice(0, w)))]
+    side = int(min(max(384, 6 * dmax_px), w, h))
+    n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
+    per = math.ceil(math.sqrt(n))
+    out = []
+    for gy in range(per):
+        for gx in range(per):
+            cy = int((gy + 0.5) * h / per)
+            cx = int((gx + 0.5) * w / per)
+            c0 = int(np.clip(cx - side // 2, 0, w - side))
+            r0 = int(np.clip(cy - side // 2, 0, h - side))
+            win = (
+                max(0, c0 - margin),
+                max(0, r0 - margin),
+                min(w, c0 + side + margin),
+                min(h, r0 + side + margin),
+            )
+            data, valid = read_window(info, bands, win)
+            core = (slice(r0 - win[1], r0 - win[1] + side), slice(c0 - win[0], c0 - win[0] + side))
+            if valid[core].mean() > 0.2:
+                out.append(SampleWindow(data, valid, core))
+    if not out:  # mostly nodata: take the whole raster decimated would lose crowns; use any
+        data, valid = read_window(info, bands, (0, 0, min(w, 2 * side), min(h, 2 * side)))
+        out.append(SampleWindow(data, valid, (slice(0, data.shape[1]), slice(0, data.shape[2]))))
+    return out
+
+
+def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
+    """Layer and thresholds chosen from the image (robust background statistics)."""
+    from ecoscan.detect.autotune import (
+        REFERENCE_SIGMA_PX,
+        RESPONSE_MADS,
+        VALUE_MADS,
+        choose_layer,
+    )
+
+    lookup = _band_lookup(info, settings)
+    roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
+    abands = tuple(lookup[r] for r in roles)
+    if not roles:
+        roles, abands = ("band",), bands
+    windows = _sample_windows(info, abands, scales, dmax_px)
+    if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
+        return None, 0, 1, {}, [*notes, "the image is constant: no plants found"]
+    choice = choose_layer(windows, roles, scales)
+    del windows
+    if choice.candidates < MIN_CANDIDATES:
+        return None
+    params = DetectorParams(
+        method="imagery",
+        bands=abands,
+        pixel_size_m=info.pixel_size_m,
+        index=choice.name,
+        scales=scales,
+        min_response=DISC_RESPONSE * choice.min_contrast,
+        min_response_by_scale=choice.min_response,
+        min_value=choice.min_value,
+        fill_value=choice.background,
+        roles=roles,
+        terms=choice.terms,
+        split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+    )
+    tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
+    notes.append(
+        f"detection layer: {LAYER_LABELS.get(choice.name, choice.name)}, chosen from the image "
+        f"(separation score {tried})"
+    )
+    notes.append(
+        f"thresholds from the background (median {choice.background:.4g}, robust SD "
+        f"{choice.spread:.4g}): crown contrast at least {choice.min_contrast:.4g}, centre "
+        f"value at least {choice.min_value:.4g}"
+    )
+    if choice.weak:
+        notes.append(
+            f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit near "
+            "the threshold; counts may be unreliable: calibrate a detector on mapped plants "
+            "(ecoscan calibrate) or set --threshold and check with ecoscan validate"
+        )
+    th = {
+        "layer": choice.name,
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_terms": [[n, w] for n, w in choice.terms],
+        "layer_chosen_by": "largest separation score on sample windows",
+        "layer_scores": choice.scores,
+        "background": choice.background,
+        "background_spread": choice.spread,
+        "min_contrast": choice.min_contrast,
+        "min_contrast_from": (
+            f"{RESPONSE_MADS:g} (rising below sigma {REFERENCE_SIGMA_PX:g} px) x robust SD "
+            "(1.4826 MAD) of the blob response over background pixels, per scale (median "
+            "over scales shown as disc contrast)"
+        ),
+        "min_response_by_scale": list(choice.min_response),
+        "vegetation_threshold": choice.min_value,
+        "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
+        "near_threshold_share": choice.near_share,
+        "weak_separation": choice.weak,
+        "split_touching": params.split_ratio > 0,
+    }
+    return params, overlap, scales.align, th, notes
+
+
+#: Tallest plausible height in a canopy height model, metres. The tallest measured living
+#: trees are about 116 m (coast redwood; from memory); 150 m leaves a margin.
+MAX_TREE_HEIGHT_M = 150.0
+#: Coarsest pixel at which single crowns can be told apart, metres (common practice: tree
+#: detection needs several pixels per crown; 20 m pixels are already coarser than most crowns).
+MAX_CHM_PIXEL_M = 20.0
+#: Largest crown search window or blob, in pixels: beyond this the filters and windows
+#: would need gigabytes per tile (memory is checked before anything is allocated).
+MAX_REACH_PX = 2048
+#: Memory one tile may use (bytes), estimated before the work starts.
+MAX_TILE_BYTES = 1.5e9
+
+
+def check_height_model(info: RasterInfo, settings: DetectionSettings) -> None:
+    """Refuse, before any work, a raster that cannot be a canopy height model in metres.
+
+    Checks what the header tells: one band (or one chosen with ``--bands``), not 8-bit
+    integers (ordinary images), a pixel size fine enough to separate crowns. Height values
+    are checked after the decimated read (:func:`_chm_height_check`).
+
+    Raises
+    ------
+    InputError
+        With what is wrong and what to do.
+
+    Examples
+    --------
+    ``detect_raster("ortho.tif", DetectionSettings(method="chm"))`` on a 3-band RGB image
+    raises ``InputError("ortho.tif has 3 bands, but --method chm needs a canopy height
+    model ...")`` before any pixel is read.
+    """
+    name = Path(info.path).name
+    if info.count > 1 and not settings.band_spec:
+        raise InputError(
+            f"{name} has {info.count} bands, but --method chm needs a canopy height model "
+            "(one band of heights in metres); use --method imagery for an image, or choose "
+            "the height band with --bands N"
+        )
+    dt = np.dtype(info.dtype)
+    if dt.kind in "ui" and dt.itemsize == 1:
+        raise InputError(
+            f"{name} holds 8-bit integers ({info.dtype}), which are image brightness values, "
+            "not heights in metres; use --method imagery for an image, or give a canopy "
+            "height model in metres"
+        )
+    ps = info.pixel_size_m
+    if ps > MAX_CHM_PIXEL_M:
+        raise InputError(
+            f"{name} has {ps:g} m pixels, too coarse to separate tree crowns (at most "
+            f"{MAX_CHM_PIXEL_M:g} m); check the pixel size (--pixel-size) or the raster"
+        )
+
+
+def _chm_height_check(name: str, heights: np.ndarray) -> float:
+    """Highest height after the plausibility check; raise InputError when implausible."""
+    finite = np.isfinite(heights)
+    if not finite.all():
+        raise InputError(
+            f"{name} contains infinite or NaN heights that are not marked as nodata; set the "
+            "raster's nodata value (e.g. gdal_edit.py -a_nodata) and retry"
+        )
+    hmax = float(heights.max())
+    hmin = float(heights.min())
+    if hmax > MAX_TREE_HEIGHT_M:
+        raise InputError(
+            f"{name} has heights up to {hmax:.4g}, implausible for trees in metres (at most "
+            f"{MAX_TREE_HEIGHT_M:g} m); convert centimetres or feet to metres, subtract the "
+            "ground (a surface model is not a height model), or declare the nodata value"
+        )
+    if hmin < -MAX_TREE_HEIGHT_M:
+        raise InputError(
+            f"{name} has heights down to {hmin:.4g}, implausible for a canopy height model "
+            "in metres; declare the nodata value or check the units"
+        )
+    return hmax
+
+
+def _check_tile_memory(
+    name: str, settings: DetectionSettings, overlap: int, nbands: int, arrays: int, what: str
+) -> None:
+    """Refuse a plan whose tiles would need more than :data:`MAX_TILE_BYTES`."""
+    side = settings.tile_size_px + 2 * overlap
+    need = float(side) * side * 4 * (nbands + arrays)
+    if overlap > MAX_REACH_PX or need > MAX_TILE_BYTES:
+        raise InputError(
+            f"{what} reaches {overlap} pixels around each tile of {name}, so one tile would "
+            f"need about {need / 1e9:.1f} GB; check the pixel size and --diameter (in metres), "
+            "or lower --tile-size"
+        )
 
 
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
@@ -418,10 +786,18 @@ def detect_raster(
     else:
         method, bands, index, more = choose_method(info, settings)
         notes += more
+        if method == "chm":
+            check_height_model(info, settings)
         params, overlap, align, thresholds, more = _global_params(
             info, settings, method, bands, index
         )
-    warn = [n for n in more if "unreliable" in n or "no plants" in n or "no trees" in n]
+        if method == "imagery" and thresholds.get("layer"):
+            index = thresholds["layer"]
+    warn = [
+        n
+        for n in more
+        if "unreliable" in n or "no plants" in n or "no trees" in n or "weak separation" in n
+    ]
     notes += more
     ps = info.pixel_size_m
     # target metric CRS, chosen from the raster centre (not the detections)
@@ -460,7 +836,19 @@ def detect_raster(
     attrs: dict[str, np.ndarray] = {}
     if n and method == "imagery":
         radius = math.sqrt(2.0) * table["sigma_px"]
-        keep = prune_blobs(table["col"], table["row"], radius, table["score"])
+        if params.split_ratio > 0:
+            merged = split_merged(
+                table["col"], table["row"], radius, table["score"], params.split_ratio
+            )
+            table = {k: v[~merged] for k, v in table.items()}
+            radius = radius[~merged]
+        keep = prune_blobs(
+            table["col"],
+            table["row"],
+            radius,
+            table["score"],
+            margin=PRUNE_MARGIN if params.split_ratio > 0 else 0.0,
+        )
         table = {k: v[keep] for k, v in table.items()}
         attrs["diameter_m"] = 2.0 * math.sqrt(2.0) * table["sigma_px"] * ps
         attrs["score"] = table["score"]

@@ -24,7 +24,14 @@ import numpy as np
 from scipy import ndimage
 from scipy.spatial import cKDTree
 
-__all__ = ["BlobScales", "blob_scales", "detect_blobs", "prune_blobs"]
+__all__ = [
+    "BlobScales",
+    "blob_scales",
+    "detect_blobs",
+    "prune_blobs",
+    "response_spread",
+    "split_merged",
+]
 
 #: Scale-normalised Laplacian response of a flat disc of unit contrast at its best scale:
 #: −σ²∇²L at the centre equals 2x·e^(−x) with x = r² / (2σ²), largest (2/e) at σ = r/√2.
@@ -141,7 +148,7 @@ _NEIGHBOURS = [
 
 
 def _scale_space_maxima(
-    resp: np.ndarray, min_response: float, valid: np.ndarray
+    resp: np.ndarray, min_response: float | np.ndarray, valid: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Positions that reach ``min_response`` and are ≥ all 26 neighbours (inner scales).
 
@@ -164,50 +171,15 @@ def _scale_space_maxima(
     return zi, yi, xi
 
 
-def detect_blobs(
-    layer: np.ndarray,
-    scales: BlobScales,
-    min_response: float,
-    min_value: float,
-    valid: np.ndarray | None = None,
-    origin: tuple[int, int] = (0, 0),
-    background: float = 0.0,
-) -> dict[str, np.ndarray]:
-    """Find bright blobs as maxima of the normalised DoG over position and scale.
+def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
+    """Yield, per pyramid level, the normalised DoG stack of the scales computed there.
 
-    Parameters
-    ----------
-    layer : numpy.ndarray
-        2-D vegetation layer (index units), invalid pixels already filled with the
-        background level.
-    scales : BlobScales
-        Scales to search.
-    min_response : float
-        Smallest scale-normalised response (index units).
-    min_value : float
-        Smallest value of the layer smoothed at the blob's scale, at its centre.
-    valid : numpy.ndarray of bool, optional
-        Pixels that may hold a blob centre.
-    origin : (int, int)
-        Column and row of the array's first pixel in the raster (multiples of
-        ``scales.align``). Positions are returned in raster pixels, computed as an integer
-        pixel plus a sub-pixel offset so that tiled and whole-image runs agree to the bit.
-    background : float
-        Layer value assumed beyond the array's edges (bare ground), so that a crown cut by
-        the raster edge is not mirrored into a larger blob centred on the edge.
-
-    Returns
-    -------
-    dict of numpy.ndarray
-        ``row``, ``col`` (sub-pixel, full resolution, raster pixel frame),
-        ``sigma`` (full-resolution pixels), ``response`` and ``value``.
+    Yields (level, ext, resp, blurs, level_valid, level_shape): ``ext`` are the indices in
+    ``scales.sigmas`` of the stack's scales, ``resp`` the stack (scale, row, column) and
+    ``blurs`` the blurred images below each scale.
     """
-    img = np.asarray(layer, np.float32)
-    if valid is None:
-        valid = np.ones(img.shape, dtype=bool)
     k = scales.k
     norm = 1.0 / (math.sqrt(k) - 1.0 / math.sqrt(k))
-    out: dict[str, list[np.ndarray]] = {n: [] for n in ("row", "col", "sigma", "response", "value")}
     inner = np.arange(1, scales.sigmas.size - 1)
     level_img, level_valid = img, valid
     for lev in range(scales.max_level + 1):
@@ -235,7 +207,112 @@ def detect_blobs(
             )
         resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
         del blurs[-1]
-        zi, yi, xi = _scale_space_maxima(resp, min_response, level_valid)
+        yield lev, ext, resp, blurs, level_valid, level_img.shape
+
+
+def response_spread(
+    layer: np.ndarray,
+    scales: BlobScales,
+    mask: np.ndarray,
+    background: float = 0.0,
+) -> np.ndarray:
+    """Robust spread (1.4826 × MAD) of the normalised DoG response at each scale.
+
+    The spread is taken over the pixels of ``mask`` (e.g. the background between plants)
+    on the pyramid level where the detector computes that scale, so it measures the noise
+    and texture the detector actually sees at each scale (median absolute deviation scaled
+    to a normal standard deviation: Hampel 1974, JASA 69: 383-393).
+
+    Parameters
+    ----------
+    layer : numpy.ndarray
+        2-D layer (invalid pixels filled).
+    scales : BlobScales
+        Scales searched.
+    mask : numpy.ndarray of bool
+        Pixels to measure.
+    background : float
+        Value beyond the edges.
+
+    Returns
+    -------
+    numpy.ndarray
+        One spread per entry of ``scales.sigmas`` (the padding scales copy their
+        neighbour); NaN where the mask has no pixel on that level.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> noise = rng.normal(0, 1, (256, 256)).astype(np.float32)
+    >>> s = response_spread(noise, blob_scales(3, 6), np.ones((256, 256), bool))
+    >>> bool(s[1] > s[-2])  # white noise fades at larger scales
+    True
+    """
+    img = np.asarray(layer, np.float32)
+    out = np.full(scales.sigmas.size, np.nan)
+    for _lev, ext, resp, _blurs, level_valid, _shape in _pyramid(img, scales, mask, background):
+        for j, e in enumerate(ext):
+            if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == _lev:
+                v = resp[j][level_valid]
+                if v.size:
+                    med = np.median(v)
+                    out[e] = 1.4826 * float(np.median(np.abs(v - med)))
+    out[0], out[-1] = out[1], out[-2]
+    return out
+
+
+def detect_blobs(
+    layer: np.ndarray,
+    scales: BlobScales,
+    min_response: float | np.ndarray,
+    min_value: float,
+    valid: np.ndarray | None = None,
+    origin: tuple[int, int] = (0, 0),
+    background: float = 0.0,
+) -> dict[str, np.ndarray]:
+    """Find bright blobs as maxima of the normalised DoG over position and scale.
+
+    Parameters
+    ----------
+    layer : numpy.ndarray
+        2-D vegetation layer (index units), invalid pixels already filled with the
+        background level.
+    scales : BlobScales
+        Scales to search.
+    min_response : float or numpy.ndarray
+        Smallest scale-normalised response (index units): one value, or one per scale of
+        ``scales.sigmas`` (thresholds set from the noise of the response at each scale).
+    min_value : float
+        Smallest value of the layer smoothed at the blob's scale, at its centre.
+    valid : numpy.ndarray of bool, optional
+        Pixels that may hold a blob centre.
+    origin : (int, int)
+        Column and row of the array's first pixel in the raster (multiples of
+        ``scales.align``). Positions are returned in raster pixels, computed as an integer
+        pixel plus a sub-pixel offset so that tiled and whole-image runs agree to the bit.
+    background : float
+        Layer value assumed beyond the array's edges (bare ground), so that a crown cut by
+        the raster edge is not mirrored into a larger blob centred on the edge.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``row``, ``col`` (sub-pixel, full resolution, raster pixel frame),
+        ``sigma`` (full-resolution pixels), ``response`` and ``value``.
+    """
+    img = np.asarray(layer, np.float32)
+    if valid is None:
+        valid = np.ones(img.shape, dtype=bool)
+    k = scales.k
+    out: dict[str, list[np.ndarray]] = {n: [] for n in ("row", "col", "sigma", "response", "value")}
+    for lev, ext, resp, blurs, level_valid, level_shape in _pyramid(img, scales, valid, background):
+        f = 2**lev
+        if np.ndim(min_response):
+            thr = np.asarray(min_response, np.float32)[ext[1:-1]][:, None, None]
+        else:
+            thr = min_response
+        zi, yi, xi = _scale_space_maxima(resp, thr, level_valid)
         if zi.size == 0:
             continue
         # value: the layer smoothed at the lower blur of the chosen scale, at the centre
@@ -246,7 +323,7 @@ def detect_blobs(
         ok = value >= min_value
         zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
         r = resp[zi, yi, xi]
-        h, w = level_img.shape
+        h, w = level_shape
         dy = _vertex(resp, zi, yi, xi, axis=1, size=h)
         dx = _vertex(resp, zi, yi, xi, axis=2, size=w)
         dz = _vertex(resp, zi, yi, xi, axis=0, size=ext.size)
@@ -282,6 +359,84 @@ def _vertex(
     return off
 
 
+def split_merged(
+    x: np.ndarray,
+    y: np.ndarray,
+    radius: np.ndarray,
+    score: np.ndarray,
+    ratio: float,
+    *,
+    child_size: tuple[float, float] = (0.4, 0.8),
+) -> np.ndarray:
+    """Blobs that stand for two or more touching crowns (to be dropped before pruning).
+
+    Two touching crowns of similar size also give a blob at a larger scale centred between
+    them; when it is stronger, greedy pruning keeps it and loses both crowns. A blob is
+    marked here when it contains (centre within its radius) at least two smaller blobs,
+    each of ``child_size`` times its radius and at least ``ratio`` times its score, whose
+    centres are too far apart to be the same crown seen at two scales (spread of the
+    child centres at least the largest child radius).
+
+    Parameters
+    ----------
+    x, y, radius, score : numpy.ndarray
+        Candidate blobs (any consistent unit).
+    ratio : float
+        Smallest child score as a fraction of the parent's.
+    child_size : (float, float)
+        Range of child radius as a fraction of the parent's.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+        True for the blobs that are merged pairs or groups.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.array([0.0, -5.0, 5.0]); y = np.zeros(3)
+    >>> split_merged(x, y, np.array([10.0, 5.0, 5.0]), np.array([1.0, 0.9, 0.9]), 0.7)
+    array([ True, False, False])
+    """
+    n = x.size
+    merged = np.zeros(n, dtype=bool)
+    if n < 3 or ratio <= 0:
+        return merged
+    xy = np.column_stack([x, y])
+    pairs = cKDTree(xy).query_pairs(r=float(radius.max()), output_type="ndarray")
+    if pairs.size == 0:
+        return merged
+    i, j = pairs[:, 0], pairs[:, 1]
+    swap = radius[i] < radius[j]
+    par = np.where(swap, j, i)
+    chi = np.where(swap, i, j)
+    d = np.hypot(x[par] - x[chi], y[par] - y[chi])
+    rel = radius[chi] / radius[par]
+    ok = (
+        (d < radius[par])
+        & (rel >= child_size[0])
+        & (rel <= child_size[1])
+        & (score[chi] >= ratio * score[par])
+    )
+    par, chi = par[ok], chi[ok]
+    if par.size == 0:
+        return merged
+    cnt = np.bincount(par, minlength=n)
+    big = np.full(n, -np.inf)
+    lo_x, hi_x = np.full(n, np.inf), np.full(n, -np.inf)
+    lo_y, hi_y = np.full(n, np.inf), np.full(n, -np.inf)
+    np.minimum.at(lo_x, par, x[chi])
+    np.maximum.at(hi_x, par, x[chi])
+    np.minimum.at(lo_y, par, y[chi])
+    np.maximum.at(hi_y, par, y[chi])
+    np.maximum.at(big, par, radius[chi])
+    has = cnt >= 2
+    spread = np.zeros(n)
+    spread[has] = np.hypot(hi_x[has] - lo_x[has], hi_y[has] - lo_y[has])
+    merged[has] = spread[has] >= big[has]
+    return merged
+
+
 def prune_blobs(
     x: np.ndarray,
     y: np.ndarray,
@@ -289,6 +444,7 @@ def prune_blobs(
     score: np.ndarray,
     *,
     overlap: float = 1.0,
+    margin: float = 0.0,
 ) -> np.ndarray:
     """Keep the strongest of overlapping blobs (greedy non-maximum suppression, vectorised).
 
@@ -308,6 +464,10 @@ def prune_blobs(
         Larger is stronger.
     overlap : float
         Conflict distance as a fraction of the larger radius.
+    margin : float
+        Added to the conflict distance, as a fraction of the smaller radius (0.5: a blob
+        whose centre lies within half its own radius of another crown's edge, such as a
+        lobe or a branch of a large crown, conflicts with it).
 
     Returns
     -------
@@ -322,11 +482,14 @@ def prune_blobs(
     rank = np.empty(n, dtype=np.int64)
     rank[order] = np.arange(n)
     xy = np.column_stack([x, y])
-    pairs = cKDTree(xy).query_pairs(r=overlap * float(radius.max()), output_type="ndarray")
+    reach = (overlap + margin) * float(radius.max())
+    pairs = cKDTree(xy).query_pairs(r=reach, output_type="ndarray")
     if pairs.size:
         i, j = pairs[:, 0], pairs[:, 1]
         d = np.hypot(x[i] - x[j], y[i] - y[j])
-        conflict = d < overlap * np.maximum(radius[i], radius[j])
+        conflict = d < overlap * np.maximum(radius[i], radius[j]) + margin * np.minimum(
+            radius[i], radius[j]
+        )
         i, j = i[conflict], j[conflict]
         # orient each edge from the stronger (lower rank) to the weaker blob
         swap = rank[i] > rank[j]

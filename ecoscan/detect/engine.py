@@ -13,12 +13,19 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ecoscan.detect import blobs, chm, classes
-from ecoscan.detect.indices import excess_green, ndvi
+from ecoscan.detect.indices import darkness, excess_green, ndvi
 from ecoscan.detect.settings import CROWN_RULES
 from ecoscan.detect.tiling import Tile, in_core
 from ecoscan.raster import RasterInfo, read_window
 
-__all__ = ["DetectorParams", "TileJob", "run_tile", "vegetation_layer"]
+__all__ = [
+    "DetectorParams",
+    "TileJob",
+    "base_layer",
+    "compose_layer",
+    "run_tile",
+    "vegetation_layer",
+]
 
 
 @dataclass(frozen=True)
@@ -41,6 +48,17 @@ class DetectorParams:
         CHM options.
     class_values, min_area_px, split, h_px : ...
         Classes options.
+    roles : tuple of str
+        Imagery: what each band read is (``red``, ``green``, ``blue``, ``nir``, ``band``).
+    terms : tuple of (str, float)
+        Imagery: the detection layer as a weighted sum of base layers (see
+        :func:`compose_layer`); empty means ``vegetation_layer(data, index)``.
+    min_response_by_scale : tuple of float
+        Imagery: response threshold per scale of ``scales.sigmas`` (overrides
+        ``min_response`` when given).
+    split_ratio : float
+        Imagery: a blob is replaced by two or more smaller blobs inside it whose responses
+        reach this fraction of its own (touching crowns of similar size); 0 disables.
     pixel_size_m : float
         Ground pixel size.
     """
@@ -63,6 +81,10 @@ class DetectorParams:
     min_area_px: float = 1.0
     split: bool = True
     h_px: float = 1.0
+    roles: tuple[str, ...] = ()
+    terms: tuple[tuple[str, float], ...] = ()
+    split_ratio: float = 0.0
+    min_response_by_scale: tuple[float, ...] = ()
     #: calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
     #: data into the plant layer, used instead of :func:`vegetation_layer` when set
     layer_model: object = None
@@ -87,7 +109,77 @@ def vegetation_layer(data: np.ndarray, index: str) -> np.ndarray:
         return excess_green(data[0], data[1], data[2])
     if index == "ndvi":
         return ndvi(data[0], data[1])
+    if index == "darkness":
+        return darkness(*data)
     return np.asarray(data[0], np.float32)
+
+
+def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarray:
+    """One base layer from bands whose roles are known.
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        Bands, shape (bands, rows, columns).
+    roles : tuple of str
+        Role of each band: ``red``, ``green``, ``blue``, ``nir`` or anything else.
+    name : str
+        ``exg`` (Excess Green, Woebbecke et al. 1995), ``ndvi`` (Rouse et al. 1974),
+        ``darkness`` (minus the mean of the visible bands, or of all bands when none is
+        named) or ``band`` (the first band as it is).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 layer.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = np.array([[[10.0]], [[30.0]], [[10.0]]])
+    >>> float(base_layer(d, ("red", "green", "blue"), "exg")[0, 0])  # 2*0.6 - 0.2 - 0.2
+    0.8
+    """
+    pos = {r: i for i, r in enumerate(roles)}
+    if name == "exg":
+        return excess_green(data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+    if name == "ndvi":
+        return ndvi(data[pos["red"]], data[pos["nir"]])
+    if name == "darkness":
+        vis = [data[pos[r]] for r in ("red", "green", "blue") if r in pos] or list(data)
+        return darkness(*vis)
+    if name == "band":
+        return np.asarray(data[0], np.float32).copy()
+    raise ValueError(f"unknown layer {name!r}")
+
+
+def compose_layer(
+    data: np.ndarray, roles: tuple[str, ...], terms: tuple[tuple[str, float], ...]
+) -> np.ndarray:
+    """The detection layer: a weighted sum of base layers (see :func:`base_layer`).
+
+    The weights are fixed once per raster (:mod:`ecoscan.detect.autotune`), so every tile
+    computes the same layer. A calibrated detector can supply its own layer instead.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = np.array([[[10.0]], [[30.0]], [[10.0]]])
+    >>> float(compose_layer(d, ("red", "green", "blue"), (("darkness", 0.5),))[0, 0])
+    -8.333333015441895
+    """
+    out: np.ndarray | None = None
+    for name, w in terms:
+        layer = base_layer(data, roles, name)
+        if w != 1.0:
+            layer *= np.float32(w)
+        if out is None:
+            out = layer
+        else:
+            out += layer
+    if out is None:
+        raise ValueError("a detection layer needs at least one term")
+    return out
 
 
 def _crown_width_px(rule: str, pixel_size_m: float):
@@ -114,6 +206,8 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     if p.method == "imagery":
         if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = p.layer_model(data)
+        elif p.terms:
+            layer = compose_layer(data, p.roles, p.terms)
         else:
             layer = vegetation_layer(data, p.index)
         del data
@@ -121,7 +215,7 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         found = blobs.detect_blobs(
             layer,
             p.scales,
-            p.min_response,
+            np.asarray(p.min_response_by_scale) if p.min_response_by_scale else p.min_response,
             p.min_value,
             valid,
             origin=(c0, r0),

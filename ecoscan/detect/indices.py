@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["excess_green", "ndvi"]
+__all__ = ["darkness", "excess_green", "ndvi"]
 
 
 def excess_green(red: np.ndarray, green: np.ndarray, blue: np.ndarray) -> np.ndarray:
@@ -57,3 +57,33 @@ def ndvi(red: np.ndarray, nir: np.ndarray) -> np.ndarray:
         out = (n - r) / s
     out[~(s != 0)] = 0.0
     return out.astype(np.float32, copy=False)
+
+
+def darkness(*bands: np.ndarray) -> np.ndarray:
+    """Darkness: minus the mean of the given bands (plants darker than the ground score high).
+
+    Crowns are usually darker than bare soil, dry grass or litter because of self-shading
+    inside the canopy (common practice in crown delineation from panchromatic imagery). The
+    sign is flipped so that, like the vegetation indices, plants are the bright blobs.
+
+    Parameters
+    ----------
+    *bands : numpy.ndarray
+        Visible bands (any consistent radiometric unit).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, −mean of the bands.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> float(darkness(np.array([30.0]), np.array([60.0]), np.array([30.0]))[0])
+    -40.0
+    """
+    acc = np.asarray(bands[0], np.float32).copy()
+    for b in bands[1:]:
+        acc += np.asarray(b, np.float32)
+    acc *= np.float32(-1.0 / len(bands))
+    return acc

@@ -11,7 +11,7 @@ from ecoscan.errors import InputError
 __all__ = ["CROWN_RULES", "DetectionSettings", "parse_band_spec"]
 
 METHODS = ("auto", "imagery", "chm", "classes")
-INDICES = ("auto", "exg", "ndvi", "band")
+INDICES = ("auto", "exg", "ndvi", "darkness", "band")
 
 #: Crown width (m) from tree height H (m), quadratic fits of Popescu & Wynne (2004),
 #: Photogrammetric Engineering & Remote Sensing 70: 589–604. Constants as listed in the
@@ -81,19 +81,24 @@ class DetectionSettings:
         Default: bands 1–3 as red, green, blue for imagery (band descriptions or colour
         interpretation naming ``nir`` pick NDVI), band 1 otherwise.
     index : str
-        Vegetation layer for imagery: ``exg`` (Excess Green, Woebbecke et al. 1995),
-        ``ndvi`` (Rouse et al. 1974), ``band`` (the first selected band as it is) or
-        ``auto`` (NDVI when red and near-infrared are known, else ExG for three bands).
+        Detection layer for imagery: ``exg`` (Excess Green, Woebbecke et al. 1995),
+        ``ndvi`` (Rouse et al. 1974), ``darkness`` (minus the mean of the visible bands),
+        ``band`` (the first selected band as it is) or ``auto``: chosen from the image
+        (:mod:`ecoscan.detect.autotune`) when no threshold is given, else NDVI when red and
+        near-infrared are known, else ExG for three bands.
     diameter_min_m, diameter_max_m : float
         Expected crown diameter range in metres (``--diameter 0.5:3``).
     threshold : float or None
-        Vegetation threshold in index units (imagery) : a blob centre must be at least this
-        green. None: Otsu (1979) on the valid pixels of the whole raster.
+        Vegetation threshold in index units (imagery): a blob centre must be at least this
+        green. None: the background median plus one robust standard deviation (1.4826 ×
+        MAD) of the chosen layer; with an explicit ``index`` or ``min_contrast``, Otsu
+        (1979) on the valid pixels of the whole raster as before.
     min_contrast : float or None
         Weakest crown-to-ground contrast kept, in index units; a blob's scale-normalised
         response must reach 2/e of it (the response of a flat disc of that contrast,
-        Lindeberg 1998). None: half the difference between the means of the two Otsu
-        classes (a crown half as distinct as a typical one still passes).
+        Lindeberg 1998). None: 2.5 robust standard deviations of the blob response over
+        background pixels at each scale; with an explicit ``index`` or ``threshold``, half
+        the difference between the means of the two Otsu classes.
     scales_per_octave : int
         Scales tried per doubling of the crown diameter.
     min_height_m : float
@@ -111,7 +116,8 @@ class DetectionSettings:
         Classes: smallest patch kept, m². None: a quarter of the area of a crown of
         ``diameter_min_m``.
     split_touching : bool
-        Classes: split touching crowns by a distance-transform watershed.
+        Split touching crowns: classes by a distance-transform watershed; imagery by
+        replacing a blob that holds two or more similar smaller blobs by those blobs.
     tile_size_px : int
         Tile core size in pixels (memory follows it, not the raster size).
     pixel_size_m : float or None

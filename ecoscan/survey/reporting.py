@@ -5,6 +5,7 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
+from ecoscan.detect import describe_settings
 from ecoscan.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -430,6 +431,11 @@ def write_report(run, stat_settings) -> list[Path]:
             f"detector (pixel {_fmt(rr.pixel_size_m, 3)} m"
             + ("; reused from the previous run" if rr.cached else "")
             + ").</p>"
+            + (
+                f"<p>Detection settings: {_esc(describe_settings(rr.detection))}.</p>"
+                if rr.detection
+                else ""
+            )
         )
         plot_children.append(
             ReportSection(

@@ -81,6 +81,7 @@ class RasterRun:
     cached: bool
     pixel_size_m: float
     raster_crs: Any = None  # the raster's own CRS (the report's previews need it)
+    detection: dict = field(default_factory=dict)  # layer, thresholds and how chosen
 
 
 @dataclass
@@ -160,7 +161,7 @@ def _detect(
     workers: int,
     previous: Path | None = None,
 ):
-    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
 
     settings = DetectionSettings.from_mapping(entry.detect)
     pts_dir = out / "points"
@@ -196,9 +197,11 @@ def _detect(
             info.get("notes", []),
             True,
             float(info.get("pixel_size_m", float("nan"))),
+            info.get("detection", {}),
         )
     log.info("detecting plants in %s", entry.path.name)
     res = detect_raster(entry.path, settings, plots=layer, workers=workers)
+    detection = detection_metadata(res)
     write_points(res.points, gpkg)
     write_points(res.points, csv)
     mark_done(
@@ -209,11 +212,12 @@ def _detect(
         pixel_size_m=float(res.pixel_size_m),
         raster=entry.path.name,
         files={csv.name: file_sha256(csv), gpkg.name: file_sha256(gpkg)},
+        detection=detection,
     )
     # analyse what was written (coordinates to the millimetre), so that a rerun from the
     # cache gives byte-identical tables
     pts = read_points(csv)
-    return pts, res.method, list(res.notes), False, float(res.pixel_size_m)
+    return pts, res.method, list(res.notes), False, float(res.pixel_size_m), detection
 
 
 def run_survey(
@@ -302,7 +306,7 @@ def _run_survey(
                 "none of the plots; check its CRS and the plots file"
             )
         sub = _layer_subset(layer, touches)
-        pts, method, notes, cached, px = _detect(
+        pts, method, notes, cached, px, detection = _detect(
             entry, sub, out, plots_hash, workers or config.workers, previous
         )
         pts = _to_survey_crs(pts, survey_crs)
@@ -319,7 +323,7 @@ def _run_survey(
 
             scl = analyse_scales(inputs, scales_settings)
         run.rasters.append(
-            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs)
+            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs, detection)
         )
         for row in dispersion_rows(disp):
             run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
@@ -495,6 +499,7 @@ def _write_provenance(run, stat_settings, scales_settings, started, finished, se
                     "plants": r.points.n,
                     "from_cache": r.cached,
                     "pixel_size_m": r.pixel_size_m,
+                    "detection": r.detection,
                 }
                 for r in run.rasters
             ],

@@ -6,10 +6,11 @@ import argparse
 from pathlib import Path
 
 from ecoscan.cli._common import add_plots_args, print_notes
-from ecoscan.detect import DetectionSettings, detect_raster
+from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
 from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
 from ecoscan.errors import InputError
 from ecoscan.lifecycle import check_output_path
+from ecoscan.outputs import write_json
 from ecoscan.raster import plots_from_mask
 from ecoscan.safety import cap_workers
 from ecoscan.tables import format_table
@@ -19,8 +20,10 @@ NAME = "detect"
 HELP = "find one point per plant in an orthomosaic, canopy height model or class map"
 DESCRIPTION = (
     "Detect plants in a raster and write one point per plant (x, y in metres, then "
-    "diameter_m / height_m / area_m2 / score / tile). Detectors: imagery (Excess Green or "
-    "NDVI, then multi-scale blob detection), chm (tree tops in a height-dependent window), "
+    "diameter_m / height_m / area_m2 / score / tile), and NAME.detection.json with the "
+    "layer, thresholds and how they were chosen. Detectors: imagery (a layer chosen from the "
+    "image among Excess Green, NDVI and darkness, then multi-scale blob detection), chm "
+    "(tree tops in a height-dependent window), "
     "classes (patches of chosen class values). Automated counts need field checks."
 )
 EXAMPLE = "ecoscan detect ortho.tif -o plants.csv --diameter 0.5:3 --plots plots.gpkg --workers 2"
@@ -54,10 +57,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--index",
-        choices=("auto", "exg", "ndvi", "band"),
+        choices=("auto", "exg", "ndvi", "darkness", "band"),
         default="auto",
-        help="imagery vegetation layer (default: NDVI when red and nir are named, else "
-        "Excess Green)",
+        help="imagery detection layer (default: chosen from the image among NDVI, Excess "
+        "Green and darkness by how well plant candidates stand out from the background)",
     )
     p.add_argument(
         "--diameter",
@@ -69,7 +72,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--threshold",
         type=float,
         metavar="VALUE",
-        help="imagery: vegetation threshold in index units (default: Otsu on the whole raster)",
+        help="imagery: vegetation threshold in index units; giving it (or --index or "
+        "--min-contrast) uses the named index, NDVI when red and nir are named, else Excess "
+        "Green, with Otsu-based defaults for the rest (default: median + MAD of the "
+        "background on the layer chosen from the image)",
     )
     p.add_argument(
         "--min-contrast",
@@ -189,6 +195,8 @@ def run(args: argparse.Namespace) -> int:
         plots = plots_from_mask(args.mask, pixel_size_m=args.pixel_size)
     res = detect_raster(args.raster, settings, plots=plots, workers=workers)
     write_points(res.points, out)
+    meta_path = out.with_name(out.stem + ".detection.json")
+    write_json(meta_path, detection_metadata(res, settings))
     print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
     row = {
         "n": res.n,
@@ -199,6 +207,7 @@ def run(args: argparse.Namespace) -> int:
         "output": str(out),
     }
     print(format_table([row], list(row)))
+    print_notes([f"settings and thresholds in {meta_path}"], args.quiet)
     if plots is not None and res.n:
         ids = res.points.attrs["plot_id"]
         gone = set(res.unsurveyed)

@@ -1,0 +1,251 @@
+"""Tuning scenes for the detector's automatic layer and threshold choice.
+
+These scenes exist only to tune the detector's defaults (the constants in
+``ecoscan.detect.autotune``). They are drawn deliberately unlike both the bundled demo
+renderer (``ecoscan.synthetic``: round crowns of one colour on smooth soil) and the
+evaluation scene suite (``ecoscan.synthetic`` scene styles of the ``scenes`` work), so that
+accuracy measured on the suite is not flattered by tuning on the same look:
+
+* crowns are lobed stars (a radius modulated by 3-7 random harmonics), with clumpy inner
+  texture and a sunlit side to the upper left;
+* shadows fall to the upper right (the suite's and the demo's fall elsewhere);
+* soil is a reddish laterite with multi-scale mottling, pebbles and fine cracks;
+* colours are drawn from a palette of green, olive, straw and blue-grey crowns.
+
+Styles: ``mixed`` (all colours on soil), ``grass`` (pale green-grey grass patches between
+darker shrubs), ``pasture`` (dark crowns on green grass), ``clumps`` (touching pairs and
+triples of similar size), ``nir`` (four bands, uint16, blue-green-red-NIR), ``canopy``
+(crowns of several greens packed edge to edge over dark shaded ground), ``coarse``
+(``mixed`` averaged over 3 × 3 pixels: 0.15 m pixels, smallest crowns 4 pixels).
+
+Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
+
+Run ``python benchmarks/tuning_scenes.py`` to print the default detector's F1 per style on
+the tuning seeds (the figure the defaults were tuned against).
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+from scipy import ndimage
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+STYLES = ("mixed", "grass", "pasture", "clumps", "nir", "canopy", "coarse")
+TUNING_SEEDS = tuple(range(100, 104))
+PIXEL_M = 0.05
+DIAMETER_M = (0.6, 2.0)
+
+# palette (red, green, blue digital numbers), invented
+_GREEN = (52, 110, 40)
+_OLIVE = (104, 112, 62)
+_STRAW = (170, 158, 112)
+_GREYBLUE = (118, 126, 120)
+_LATERITE = (176, 120, 92)
+_GRASS = (126, 146, 96)
+_PASTURE = (92, 140, 60)
+_CONIFER = (28, 58, 34)
+
+
+def _noise(shape, gen, scale_px):
+    """Smooth noise, unit standard deviation, feature size about ``scale_px``."""
+    f = gen.standard_normal(shape).astype(np.float32)
+    f = ndimage.gaussian_filter(f, scale_px)
+    return f / (f.std() + 1e-9)
+
+
+def _place(shape, n, dpx, gen, clumps=False):
+    """Crown centres and diameters; touching pairs/triples when ``clumps``."""
+    h, w = shape
+    xy, d = [], []
+    tries = 0
+    while len(xy) < n and tries < 50 * n:
+        tries += 1
+        r = gen.uniform(dpx[0], dpx[1]) / 2
+        c = gen.uniform(r, w - r), gen.uniform(r, h - r)
+        group = [(c, r)]
+        if clumps and gen.random() < 0.7:
+            for _ in range(gen.integers(1, 3)):
+                r2 = r * gen.uniform(0.85, 1.15)
+                a = gen.uniform(0, 2 * np.pi)
+                dd = (r + r2) * gen.uniform(0.92, 1.02)
+                c2 = (group[-1][0][0] + dd * np.cos(a), group[-1][0][1] + dd * np.sin(a))
+                if r2 <= c2[0] < w - r2 and r2 <= c2[1] < h - r2:
+                    group.append((c2, r2))
+        ok = True
+        for (cx, cy), rr in group:
+            for (ox, oy), od in zip(xy, d, strict=True):
+                if np.hypot(cx - ox, cy - oy) < 0.9 * (rr + od / 2):
+                    ok = False
+                    break
+            if not ok:
+                break
+        if ok:
+            pts = [g[0] for g in group]
+            if len(group) > 1:
+                dists = [np.hypot(a[0] - b[0], a[1] - b[1]) for a in pts for b in pts if a != b]
+                if min(dists) < 0.9 * 2 * min(g[1] for g in group):
+                    continue
+            for (cx, cy), rr in group:
+                xy.append((cx, cy))
+                d.append(2 * rr)
+    return np.array(xy, float).reshape(-1, 2), np.array(d, float)
+
+
+def make_tuning_scene(style: str, seed: int, size_px: int = 640):
+    """Render one tuning scene.
+
+    Returns
+    -------
+    image : numpy.ndarray
+        (bands, rows, columns); uint8 RGB, or uint16 blue, green, red, NIR for ``nir``.
+    xy_px : numpy.ndarray
+        Crown centres (column, row).
+    diameters_px : numpy.ndarray
+    """
+    if style not in STYLES:
+        raise ValueError(style)
+    if style == "coarse":
+        img, xy, d = make_tuning_scene("mixed", seed, size_px)
+        h = size_px // 3 * 3
+        f = img[:, :h, :h].astype(np.float32).reshape(3, h // 3, 3, h // 3, 3).mean(axis=(2, 4))
+        f += np.random.default_rng(seed).normal(0, 3.0, f.shape).astype(np.float32)
+        keep = (xy[:, 0] < h) & (xy[:, 1] < h)
+        return np.clip(np.rint(f), 0, 255).astype(np.uint8), (xy[keep] - 1.0) / 3.0, d[keep] / 3
+    gen = np.random.default_rng(seed * 31 + STYLES.index(style))
+    shape = (size_px, size_px)
+    dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
+    n = int(size_px * size_px / {"clumps": 2600, "canopy": 700}.get(style, 3200))
+    xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
+    # background
+    mott = 0.10 * _noise(shape, gen, 18) + 0.06 * _noise(shape, gen, 4)
+    if style == "pasture":
+        bg = np.array(_PASTURE, np.float32)[:, None, None] * (1 + 1.3 * mott)[None]
+    elif style == "canopy":
+        bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.45 * (1 + mott)[None]
+    else:
+        bg = np.array(_LATERITE, np.float32)[:, None, None] * (1 + mott)[None]
+    img = bg.copy()
+    if style == "grass":
+        patch = _noise(shape, gen, 14) > 0.35
+        a = ndimage.gaussian_filter(patch.astype(np.float32), 2.0)
+        tuft = 1 + 0.15 * _noise(shape, gen, 1.5)
+        g = np.array(_GRASS, np.float32)[:, None, None] * tuft[None]
+        img = img * (1 - a[None]) + g * a[None]
+    # pebbles and cracks
+    peb = _noise(shape, gen, 1.2) > 2.6
+    img[:, peb] *= 0.55
+    crack = np.abs(_noise(shape, gen, 6)) < 0.03
+    img[:, crack] *= 0.8
+    yy, xx = np.mgrid[0:size_px, 0:size_px].astype(np.float32)
+    shade = np.ones(shape, np.float32)
+    cover = np.zeros(shape, np.float32)
+    plant = np.zeros((3, *shape), np.float32)
+    if style == "pasture":
+        palette = [_CONIFER]
+    elif style == "grass":
+        palette = [_GREEN, _OLIVE]
+    elif style == "canopy":
+        palette = [_GREEN, _OLIVE, (70, 120, 52), (88, 132, 70)]
+    else:
+        palette = [_GREEN, _GREEN, _OLIVE, _STRAW, _GREYBLUE]
+    order = np.argsort(d)[::-1]  # small crowns drawn over large ones
+    for i in order:
+        cx, cy = xy[i]
+        r = d[i] / 2
+        k = int(gen.integers(3, 8))
+        amp = gen.uniform(0.06, 0.16)
+        ph = gen.uniform(0, 2 * np.pi)
+        x0, x1 = int(max(0, cx - 1.6 * r)), int(min(size_px, cx + 1.6 * r + 2))
+        y0, y1 = int(max(0, cy - 1.6 * r)), int(min(size_px, cy + 1.6 * r + 2))
+        sx, sy = xx[y0:y1, x0:x1] - cx, yy[y0:y1, x0:x1] - cy
+        ang = np.arctan2(sy, sx)
+        rr = r * (1 + amp * np.cos(k * ang + ph)) / (1 + amp / 2)
+        dist = np.hypot(sx, sy)
+        alpha = np.clip(rr - dist + 0.7, 0, 1)
+        # shadow to the upper right, on the ground only
+        sdist = np.hypot(sx - 0.4 * r, sy + 0.4 * r)
+        sh = np.clip(rr - sdist + 1.0, 0, 1) * 0.45
+        shade[y0:y1, x0:x1] = np.minimum(shade[y0:y1, x0:x1], 1 - sh)
+        col = np.array(palette[int(gen.integers(len(palette)))], np.float32)
+        col = col * gen.uniform(0.85, 1.15)
+        lit = 1 + 0.18 * (-(sx + sy) / (np.sqrt(2) * r + 1e-6)).clip(-1, 1)
+        clump = 1 + 0.12 * gen.standard_normal(sx.shape).astype(np.float32)
+        clump = ndimage.gaussian_filter(clump, 1.0)
+        shaded = col[:, None, None] * (lit * clump)[None]
+        a = alpha[None]
+        plant[:, y0:y1, x0:x1] = plant[:, y0:y1, x0:x1] * (1 - a) + shaded * a
+        cover[y0:y1, x0:x1] = np.maximum(cover[y0:y1, x0:x1], alpha)
+    ground = img * shade[None]
+    out = ground * (1 - cover[None]) + plant * cover[None]
+    out += gen.normal(0, 3.0, out.shape).astype(np.float32)
+    if style == "nir":
+        # NIR: vegetation bright, soil medium; 12-bit-like range in uint16
+        veg = cover * (1 + 0.1 * _noise(shape, gen, 2))
+        nir = 900 + 300 * mott + 2200 * veg
+        rgb = np.clip(out, 0, 255) * 12
+        bands = np.stack([rgb[2], rgb[1], rgb[0], nir])
+        bands += gen.normal(0, 20, bands.shape)
+        return np.clip(bands, 0, 65535).astype(np.uint16), xy, d
+    return np.clip(np.rint(out), 0, 255).astype(np.uint8), xy, d
+
+
+def write_tuning_scene(folder: Path, style: str, seed: int, size_px: int = 640):
+    """Write a tuning scene as a GeoTIFF; returns (path, truth PointSet)."""
+    from pyproj import CRS
+    from rasterio.transform import from_origin
+
+    from ecoscan.points import PointSet
+    from ecoscan.synthetic import write_geotiff
+
+    img, xy, d = make_tuning_scene(style, seed, size_px)
+    ps = 3 * PIXEL_M if style == "coarse" else PIXEL_M
+    x0, y0 = 500000.0, 4100000.0
+    path = write_geotiff(
+        Path(folder) / f"tune_{style}_{seed}.tif",
+        img,
+        from_origin(x0, y0, ps, ps),
+        "EPSG:32631",
+    )
+    pts = PointSet(
+        x0 + (xy[:, 0] + 0.5) * ps,
+        y0 - (xy[:, 1] + 0.5) * ps,
+        {"diameter_m": d * ps},
+        CRS.from_user_input("EPSG:32631"),
+    )
+    return path, pts
+
+
+def main() -> None:
+    import tempfile
+
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.stats.matching import match_points
+
+    with tempfile.TemporaryDirectory() as tmp:
+        for style in STYLES:
+            f1s = []
+            for seed in TUNING_SEEDS:
+                path, truth = write_tuning_scene(Path(tmp), style, seed)
+                s = DetectionSettings(
+                    diameter_min_m=DIAMETER_M[0],
+                    diameter_max_m=DIAMETER_M[1],
+                    bands="blue=1,green=2,red=3,nir=4" if style == "nir" else "",
+                )
+                res = detect_raster(path, s)
+                m = match_points(res.points.xy, truth.xy, 0.3)
+                f1s.append(2 * m.n_matched / (res.n + truth.n))
+                layer = res.thresholds.get("layer", res.index)
+                print(
+                    f"{style:8} seed {seed}: F1 {f1s[-1]:.3f} (found {res.n}, truth {truth.n}, "
+                    f"layer {layer})"
+                )
+            print(f"{style:8} mean F1 {np.mean(f1s):.3f}")
+
+
+if __name__ == "__main__":
+    main()

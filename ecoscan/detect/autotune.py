@@ -1,0 +1,454 @@
+"""Choose the detection layer and its thresholds from the image itself.
+
+The imagery detector looks for bright blobs in one layer. Which layer shows the plants best
+depends on the imagery: Excess Green for green shrubs on soil, NDVI when a near-infrared
+band is present, darkness for dark conifers on green pasture or grey shrubs on pale
+soil. This module scores every candidate layer on a few sample windows of the raster and
+keeps the one whose blob candidates stand out most clearly from the background.
+
+Thresholds come from robust statistics of the background (median and median absolute
+deviation, MAD, scaled by 1.4826 to estimate a normal standard deviation: Hampel, F. R.
+1974, The influence curve and its role in robust estimation, JASA 69: 383-393), not from a
+split of all pixels into two classes. The background is the layer outside the discs of the
+candidates that already stand out, so a few pale crowns on much soil, closed canopy (little
+background) and plants among grass are all judged against what is actually between them.
+
+Pure computation on arrays: :func:`choose_layer` takes sample windows and returns a
+:class:`LayerChoice`. The constants ``RESPONSE_MADS`` and ``VALUE_MADS`` were tuned on the
+tuning scenes of ``benchmarks/tuning_scenes.py`` only (seeds 100-103), never on the
+evaluation suite.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ecoscan.detect.blobs import (
+    DISC_RESPONSE,
+    BlobScales,
+    detect_blobs,
+    prune_blobs,
+    response_spread,
+)
+from ecoscan.detect.engine import compose_layer
+
+__all__ = [
+    "LayerChoice",
+    "SampleWindow",
+    "candidate_layers",
+    "choose_layer",
+    "robust_centre_scale",
+]
+
+#: A blob's response must reach this many background standard deviations (MAD-based) of
+#: disc-equivalent contrast. Tuned on benchmarks/tuning_scenes.py.
+RESPONSE_MADS = 2.5
+#: The layer at a blob's centre (smoothed at its scale) must exceed the background median
+#: by this many background standard deviations. Tuned on benchmarks/tuning_scenes.py.
+VALUE_MADS = 1.0
+#: Background pixels are those farther than this many crown radii from a plant candidate.
+EXCLUDE = 2.0
+#: Smallest share of the sampled pixels that must remain as background at the widest
+#: exclusion before narrower ones are tried.
+MIN_BACKGROUND = 0.05
+#: Scale (pixels) from which the response threshold rises (see :func:`response_mads`).
+REFERENCE_SIGMA_PX = 4.0
+#: Closed canopy: response noise is this many times that of the pixel noise alone.
+TEXTURE = 3.0
+#: Rounds of background estimation (each excludes the candidates the last one found).
+ROUNDS = 4
+#: Candidates within this factor of the response threshold count as "near the threshold".
+NEAR = 1.3
+#: Warn about weak separation when more than this share of the kept candidates is near it.
+NEAR_SHARE = 0.2
+_MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
+
+
+@dataclass(frozen=True)
+class SampleWindow:
+    """A window of the raster read at full resolution for the statistics.
+
+    Attributes
+    ----------
+    data : numpy.ndarray
+        Bands, shape (bands, rows, columns), float32.
+    valid : numpy.ndarray of bool
+        Valid pixels.
+    core : (slice, slice)
+        The part of the window whose candidates count (away from the window's edges, where
+        the filters would see beyond the read).
+    """
+
+    data: np.ndarray
+    valid: np.ndarray
+    core: tuple[slice, slice]
+
+
+@dataclass(frozen=True)
+class LayerChoice:
+    """The layer and thresholds chosen for a raster.
+
+    Attributes
+    ----------
+    name : str
+        Layer label, e.g. ``exg``, ``ndvi``, ``darkness`` or ``exg+darkness``.
+    terms : tuple of (str, float)
+        The layer as a weighted sum of base layers (:func:`ecoscan.detect.engine.compose_layer`).
+    background : float
+        Median of the layer over background pixels (layer units).
+    spread : float
+        1.4826 × MAD of the layer over background pixels (layer units).
+    min_response : tuple of float
+        Response threshold per scale: ``RESPONSE_MADS`` × the robust spread of the
+        response over background pixels at that scale.
+    min_contrast : float
+        The median response threshold expressed as the contrast of a flat disc (layer
+        units), for reports.
+    min_value : float
+        Lowest smoothed layer value at a crown centre: ``background + VALUE_MADS × spread``.
+    separation : float
+        Score of the layer: median contrast of the kept candidates in background standard
+        deviations, times the share of candidates that are clearly kept or clearly
+        rejected.
+    near_share : float
+        Share of the kept candidates whose response is within a factor ``NEAR`` of the
+        threshold.
+    candidates : int
+        Candidates kept in the sample windows.
+    closed : bool
+        Little background between the candidates (closed canopy): the background came
+        from narrow gaps and the centre-value test is off (``min_value`` is −inf).
+    scores : dict
+        Separation of every layer tried.
+    """
+
+    name: str
+    terms: tuple[tuple[str, float], ...]
+    background: float
+    spread: float
+    min_response: tuple[float, ...]
+    min_contrast: float
+    min_value: float
+    separation: float
+    near_share: float
+    candidates: int
+    scores: dict = field(default_factory=dict)
+    closed: bool = False
+
+    @property
+    def weak(self) -> bool:
+        """True when many candidates sit near the threshold or nothing stands out."""
+        return self.near_share > NEAR_SHARE or self.separation < 2.0
+
+
+def robust_centre_scale(values: np.ndarray) -> tuple[float, float]:
+    """Median and 1.4826 × MAD (a robust standard deviation; Hampel 1974).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> robust_centre_scale(np.array([1.0, 2.0, 3.0, 4.0, 100.0]))
+    (3.0, 1.4826)
+    """
+    v = np.asarray(values, float)
+    if v.size == 0:
+        return 0.0, 0.0
+    med = float(np.median(v))
+    mad = float(np.median(np.abs(v - med)))
+    return med, _MAD_TO_SD * mad
+
+
+def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
+    """Base layers worth trying for bands with these roles.
+
+    Examples
+    --------
+    >>> candidate_layers(("red", "green", "blue"))
+    [('exg',), ('darkness',), ('exg', 'darkness')]
+    >>> candidate_layers(("red", "nir"))
+    [('ndvi',), ('darkness',)]
+    """
+    have = set(roles)
+    out: list[tuple[str, ...]] = []
+    if {"red", "nir"} <= have:
+        out.append(("ndvi",))
+    if {"red", "green", "blue"} <= have:
+        out.append(("exg",))
+    out.append(("darkness",))
+    if {"red", "green", "blue"} <= have and "nir" not in have:
+        out.append(("exg", "darkness"))
+    if not out[:-1] and "band" in have:
+        out.insert(0, ("band",))
+    return out
+
+
+def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
+    """Pixels inside any of the discs (vectorised per disc bounding box)."""
+    mask = np.zeros(shape, dtype=bool)
+    h, w = shape
+    for r0, c0, rad in zip(rows, cols, radii, strict=True):
+        rr = math.ceil(rad)
+        y0, y1 = max(0, int(r0) - rr), min(h, int(r0) + rr + 2)
+        x0, x1 = max(0, int(c0) - rr), min(w, int(c0) + rr + 2)
+        if y0 >= y1 or x0 >= x1:
+            continue
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        mask[y0:y1, x0:x1] |= (yy - r0) ** 2 + (xx - c0) ** 2 <= rad * rad
+    return mask
+
+
+def _candidates(layers, windows, scales, floor, fill):
+    """All blob candidates in the windows' cores (pruned per window)."""
+    out = {k: [] for k in ("w", "row", "col", "sigma", "response", "value")}
+    for wi, (layer, win) in enumerate(zip(layers, windows, strict=True)):
+        img = np.where(win.valid, layer, np.float32(fill)).astype(np.float32)
+        found = detect_blobs(img, scales, floor, -np.inf, win.valid, background=fill)
+        ys, xs = win.core
+        inside = (
+            (found["row"] >= ys.start - 0.5)
+            & (found["row"] < ys.stop - 0.5)
+            & (found["col"] >= xs.start - 0.5)
+            & (found["col"] < xs.stop - 0.5)
+        )
+        found = {k: v[inside] for k, v in found.items()}
+        if found["row"].size:
+            keep = prune_blobs(
+                found["col"], found["row"], math.sqrt(2) * found["sigma"], found["response"]
+            )
+            found = {k: v[keep] for k, v in found.items()}
+        for k in ("row", "col", "sigma", "response", "value"):
+            out[k].append(found[k])
+        out["w"].append(np.full(found["row"].size, wi))
+    return {k: np.concatenate(v) if v else np.empty(0) for k, v in out.items()}
+
+
+def _spreads(layers, windows, scales, masks, fill):
+    """Response spread per scale over the masked pixels of all windows (pooled median)."""
+    per = []
+    for lay, win, mask in zip(layers, windows, masks, strict=True):
+        img = np.where(win.valid, lay, np.float32(fill)).astype(np.float32)
+        core = np.zeros(mask.shape, dtype=bool)
+        core[win.core] = True
+        per.append(response_spread(img, scales, mask & core & win.valid, fill))
+    stack = np.vstack(per)
+    has = np.isfinite(stack).any(axis=0)
+    sp = np.full(stack.shape[1], np.nan)
+    if has.any():
+        sp[has] = np.nanmedian(stack[:, has], axis=0)
+    return np.where(
+        np.isfinite(sp) & (sp > 0), sp, np.nanmax(sp) if np.isfinite(sp).any() else 1e-6
+    )
+
+
+def pixel_noise(layer: np.ndarray, valid: np.ndarray) -> float:
+    """Standard deviation of pixel noise by Immerkær's Laplacian-difference estimator.
+
+    Immerkær, J. (1996). Fast noise variance estimation. Computer Vision and Image
+    Understanding 64: 300-302: σ = √(π/2) · mean |I ∗ N| / 6 with
+    N = [[1, −2, 1], [−2, 4, −2], [1, −2, 1]], which cancels smooth structure (crowns,
+    gradients), so the estimate holds where plants cover most of the image. The mean is
+    taken over valid interior pixels.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> img = rng.normal(0, 2.0, (400, 400)) + np.linspace(0, 50, 400)[None]
+    >>> round(pixel_noise(img, np.ones(img.shape, bool)), 1)
+    2.0
+    """
+    from scipy import ndimage
+
+    kern = np.array([[1, -2, 1], [-2, 4, -2], [1, -2, 1]], np.float32)
+    conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
+    inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
+    if not inner.any():
+        return 0.0
+    return float(math.sqrt(math.pi / 2.0) * conv[inner].mean() / 6.0)
+
+
+def _white_spread(scales: BlobScales, shape: tuple[int, int]) -> np.ndarray:
+    """Response spread per scale of unit white noise (fixed seed, so deterministic)."""
+    side = int(min(max(shape), 512))
+    noise = np.random.default_rng(12345).standard_normal((side, side)).astype(np.float32)
+    return response_spread(noise, scales, np.ones((side, side), bool), 0.0)
+
+
+def response_mads(scales: BlobScales) -> np.ndarray:
+    """Response threshold per scale, in background standard deviations.
+
+    Noise maxima get denser at small scales (about one per σ² pixels), so for the same
+    number of false candidates per area the threshold rises as σ falls. For a normal tail
+    P(X > k) ∝ exp(−k²/2), a density ratio ρ is offset by k² + 2 ln ρ: here
+    k(σ) = √(K² + 2 ln max(1, (σ_ref/σ)²)) with K = ``RESPONSE_MADS`` and σ_ref =
+    ``REFERENCE_SIGMA_PX`` (the smallest scale of the tuning scenes).
+
+    Examples
+    --------
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> k = response_mads(blob_scales(2, 20))
+    >>> bool(k[1] > k[-2] == RESPONSE_MADS)
+    True
+    """
+    ratio = np.maximum(1.0, (REFERENCE_SIGMA_PX / scales.sigmas) ** 2)
+    return np.sqrt(RESPONSE_MADS**2 + 2.0 * np.log(ratio))
+
+
+def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
+    i = np.rint(np.log(sigma / scales.sigmas[0]) / math.log(scales.k)).astype(int)
+    return np.clip(i, 0, scales.sigmas.size - 1)
+
+
+def _score_layer(layers, windows, scales):
+    vals = np.concatenate([lay[w.valid] for lay, w in zip(layers, windows, strict=True)])
+    m0, s0 = robust_centre_scale(vals)
+    if not s0 > 0:
+        s0 = float(np.std(vals)) or 1e-6
+    all_px = [w.valid for w in windows]
+    sr0 = _spreads(layers, windows, scales, all_px, m0)
+    cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
+    si = _scale_index(scales, cand["sigma"])
+    # background: pixels away from candidates that stand out (their discs and the ring the
+    # filters spread around them), found in two rounds as the noise estimate improves
+    m, s, sr = m0, s0, sr0
+    closed = False
+    for _round in range(ROUNDS):
+        strong = (cand["response"] >= RESPONSE_MADS * sr[si]) & (cand["value"] >= m)
+        # the widest exclusion that leaves enough background; closed canopy leaves little
+        for factor in (EXCLUDE, 1.0, 0.6):
+            bg_masks, bg_vals = [], []
+            for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+                sel = strong & (cand["w"] == wi)
+                covered = _disc_mask(
+                    lay.shape,
+                    cand["row"][sel],
+                    cand["col"][sel],
+                    factor * math.sqrt(2) * cand["sigma"][sel],
+                )
+                bg_masks.append(win.valid & ~covered)
+                bg_vals.append(lay[bg_masks[-1]])
+            bg = np.concatenate(bg_vals)
+            if bg.size >= MIN_BACKGROUND * vals.size:
+                break
+        closed = factor < EXCLUDE
+        if closed:
+            # crowns cover most of the image: background statistics are contaminated by
+            # them; the response noise comes from the pixel noise instead, with room for
+            # texture inside crowns
+            noise = np.median(
+                [pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)]
+            )
+            sr = TEXTURE * noise * _white_spread(scales, layers[0].shape)
+            m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
+            break
+        m1, s1 = robust_centre_scale(bg)
+        if not s1 > 0:
+            break
+        m, s = m1, s1
+        sr = _spreads(layers, windows, scales, bg_masks, m)
+    kk = response_mads(scales)
+    q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
+    z = (cand["value"] - m) / s
+    # with little background between crowns (closed canopy) the background median is
+    # not the level crowns must exceed: the centre-value test is dropped
+    zmin = -np.inf if closed else VALUE_MADS
+    kept = (q >= RESPONSE_MADS) & (z >= zmin)
+    near = kept & (q < RESPONSE_MADS * NEAR)
+    below = ~kept & (q >= RESPONSE_MADS / NEAR) & (z >= zmin)
+    n_kept = int(kept.sum())
+    near_share = float((near.sum() + below.sum()) / max(n_kept, 1))
+    med_q = float(np.median(q[kept])) if n_kept else 0.0
+    clear = 1.0 - min(1.0, near_share)
+    return {
+        "background": m,
+        "spread": s,
+        "response_spread": sr,
+        "separation": med_q * clear,
+        "near_share": near_share,
+        "candidates": n_kept,
+        "closed": closed,
+    }
+
+
+def choose_layer(
+    windows: list[SampleWindow],
+    roles: tuple[str, ...],
+    scales: BlobScales,
+    options: list[tuple[str, ...]] | None = None,
+) -> LayerChoice:
+    """Score candidate layers on sample windows and keep the best separated one.
+
+    Parameters
+    ----------
+    windows : list of SampleWindow
+        Full-resolution windows of the raster (bands in the order of ``roles``).
+    roles : tuple of str
+        Band roles (``red``, ``green``, ``blue``, ``nir``, ``band``).
+    scales : BlobScales
+        The scales the detector will search.
+    options : list of tuple of str, optional
+        Layers to try (default :func:`candidate_layers`); a layer of several base layers is
+        their sum, each scaled by its own background standard deviation.
+
+    Returns
+    -------
+    LayerChoice
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> rng = np.random.default_rng(0)
+    >>> img = np.stack([np.full((96, 96), 150.0), np.full((96, 96), 120.0),
+    ...                 np.full((96, 96), 90.0)]) + rng.normal(0, 2, (3, 96, 96))
+    >>> yy, xx = np.mgrid[:96, :96]
+    >>> disc = (yy - 48) ** 2 + (xx - 48) ** 2 < 64
+    >>> img[:, disc] = np.array([60.0, 120.0, 50.0])[:, None]
+    >>> win = SampleWindow(img.astype(np.float32), np.ones((96, 96), bool),
+    ...                    (slice(0, 96), slice(0, 96)))
+    >>> choice = choose_layer([win], ("red", "green", "blue"), blob_scales(6, 12))
+    >>> choice.candidates
+    1
+    """
+    options = options or candidate_layers(roles)
+    scores: dict[str, float] = {}
+    best: tuple | None = None
+    for opt in options:
+        if len(opt) == 1:
+            terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
+        else:
+            ws = []
+            for name in opt:
+                single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
+                vals = np.concatenate([s[w.valid] for s, w in zip(single, windows, strict=True)])
+                _m, sd = robust_centre_scale(vals)
+                ws.append((name, 1.0 / sd if sd > 0 else 1.0))
+            terms = tuple(ws)
+        layers = [compose_layer(w.data, roles, terms) for w in windows]
+        res = _score_layer(layers, windows, scales)
+        label = "+".join(opt)
+        scores[label] = round(res["separation"], 3)
+        if best is None or res["separation"] > best[2]["separation"]:
+            best = (label, terms, res)
+    assert best is not None
+    label, terms, res = best
+    m, s = res["background"], res["spread"]
+    return LayerChoice(
+        name=label,
+        terms=terms,
+        background=m,
+        spread=s,
+        min_response=tuple(float(v) for v in response_mads(scales) * res["response_spread"]),
+        min_contrast=float(
+            np.median(response_mads(scales) * res["response_spread"]) / DISC_RESPONSE
+        ),
+        min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
+        closed=res["closed"],
+        separation=res["separation"],
+        near_share=res["near_share"],
+        candidates=res["candidates"],
+        scores=scores,
+    )

@@ -1,0 +1,109 @@
+"""Layer choice, robust background statistics and the touching-crown split (invented scenes)."""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from ecoscan.detect.autotune import (
+    SampleWindow,
+    choose_layer,
+    pixel_noise,
+    response_mads,
+    robust_centre_scale,
+)
+from ecoscan.detect.blobs import blob_scales, detect_blobs, prune_blobs, split_merged
+
+
+def test_robust_spread_matches_scipy():
+    # 1.4826 x MAD is scipy's median_abs_deviation(scale="normal") (Hampel 1974)
+    rng = np.random.default_rng(3)
+    v = np.concatenate([rng.normal(5.0, 2.0, 5000), rng.normal(40.0, 1.0, 800)])
+    med, sd = robust_centre_scale(v)
+    assert med == pytest.approx(np.median(v))
+    assert sd == pytest.approx(stats.median_abs_deviation(v, scale="normal"), rel=1e-3)
+
+
+def test_immerkaer_noise_estimate_ignores_smooth_structure():
+    # Immerkaer (1996), CVIU 64: 300: the Laplacian difference cancels smooth structure;
+    # the noise standard deviation set here is 3.0
+    rng = np.random.default_rng(4)
+    yy, xx = np.mgrid[:300, :300]
+    smooth = 80 * np.exp(-((yy - 150.0) ** 2 + (xx - 150.0) ** 2) / (2 * 40.0**2))
+    img = smooth + rng.normal(0, 3.0, smooth.shape)
+    assert pixel_noise(img, np.ones(img.shape, bool)) == pytest.approx(3.0, rel=0.05)
+
+
+def test_threshold_rises_only_below_the_reference_scale():
+    # normal tail: offsetting a density ratio rho needs k^2 + 2 ln(rho) (common practice)
+    sc = blob_scales(1.0, 16.0)
+    k = response_mads(sc)
+    assert np.all(np.diff(k) <= 1e-12)
+    assert k[-2] == pytest.approx(2.5)
+    sig = sc.sigmas[1]
+    assert k[1] == pytest.approx(math.sqrt(2.5**2 + 2 * math.log((4.0 / sig) ** 2)))
+
+
+def _scene(ground, crown, n=12, size=320, seed=5):
+    rng = np.random.default_rng(seed)
+    img = np.empty((3, size, size), np.float32)
+    img[:] = np.asarray(ground, np.float32)[:, None, None]
+    img *= 1 + 0.05 * rng.standard_normal((size, size)).astype(np.float32)
+    yy, xx = np.mgrid[:size, :size]
+    centres = []
+    for i in range(n):
+        cy, cx = 40 + (i // 4) * 110, 40 + (i % 4) * 80
+        disc = (yy - cy) ** 2 + (xx - cx) ** 2 <= 14**2
+        img[:, disc] = np.asarray(crown, np.float32)[:, None]
+        centres.append((cx, cy))
+    img += rng.normal(0, 2.0, img.shape).astype(np.float32)
+    return img, np.array(centres, float)
+
+
+def test_dark_crowns_of_the_pastures_hue_are_found_by_darkness():
+    # Excess Green uses chromatic coordinates (Woebbecke et al. 1995), so a crown with the
+    # pasture's hue at half its brightness has the same ExG: only darkness separates it
+    img, centres = _scene(ground=(90, 140, 60), crown=(45, 70, 30))
+    win = SampleWindow(img, np.ones(img.shape[1:], bool), (slice(0, 320), slice(0, 320)))
+    choice = choose_layer([win], ("red", "green", "blue"), blob_scales(8, 20))
+    assert "darkness" in choice.name
+    assert choice.scores["exg"] < choice.scores[choice.name]
+    assert choice.candidates == len(centres)
+
+
+def test_touching_crowns_of_similar_size_give_one_point_each():
+    # two touching discs (radii 12 and 11 px, centres 23 px apart) are two plants; a single
+    # disc of radius 12 px stays one (invented ground truth)
+    yy, xx = np.mgrid[:160, :200]
+    layer = np.zeros((160, 200), np.float32)
+    layer[(yy - 80) ** 2 + (xx - 70) ** 2 <= 12**2] = 1.0
+    layer[(yy - 80) ** 2 + (xx - 93) ** 2 <= 11**2] = 1.0
+    layer[(yy - 80) ** 2 + (xx - 160) ** 2 <= 12**2] = 1.0
+    sc = blob_scales(6, 30)
+    f = detect_blobs(layer, sc, 0.05, 0.2)
+    r = math.sqrt(2) * f["sigma"]
+    plain = prune_blobs(f["col"], f["row"], r, f["response"])
+    merged = split_merged(f["col"], f["row"], r, f["response"], 0.6)
+    split = ~merged
+    keep = prune_blobs(f["col"][split], f["row"][split], r[split], f["response"][split])
+    found = np.sort(f["col"][split][keep])
+    assert found.size == 3
+    np.testing.assert_allclose(found, [70, 93, 160], atol=2.0)
+    assert np.sort(f["col"][plain]).size == 3  # flat discs: the split changes nothing here
+
+
+def test_split_rule_needs_two_distinct_similar_children():
+    # a blob of radius 20 holding two blobs of radius 10 whose centres are 20 apart (two
+    # touching crowns) is replaced; one child, or two children at one place (the same crown
+    # at two scales), or children much weaker than the parent, leave it alone
+    def marked(xs, rs, ss):
+        return split_merged(
+            np.array(xs, float), np.zeros(len(xs)), np.array(rs, float), np.array(ss, float), 0.6
+        )[0]
+
+    assert marked([0, -10, 10], [20, 10, 10], [1.0, 0.9, 0.8])
+    assert not marked([0, -10, 60], [20, 10, 10], [1.0, 0.9, 0.8])
+    assert not marked([0, -1, 1], [20, 10, 10], [1.0, 0.9, 0.8])
+    assert not marked([0, -10, 10], [20, 10, 10], [1.0, 0.5, 0.5])
+    assert not marked([0, -10, 10], [20, 5, 5], [1.0, 0.9, 0.8])  # lobes, not crowns
