@@ -341,7 +341,7 @@ _column_entry("Clark–Evans R, no edge correction", "p")
 _column_entry("Clark–Evans R, Donnelly correction", "p_donnelly")
 _column_entry("Clark–Evans R, guard zone 1/√ρ", "p_guard")
 _column_entry(
-    "Monte Carlo NN test (the `pattern` verdict)",
+    "Monte Carlo NN test (the `verdict`)",
     "p_mc",
     verdict=True,
     rule="lt",
