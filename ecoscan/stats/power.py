@@ -253,6 +253,7 @@ def detectable_range(
     patterns: int = 200,
     cluster_size: float = CLUSTER_SIZE,
     full_curves: bool = False,
+    simulate_up_to: int = SIMULATE_UP_TO,
     rng: int | np.random.Generator | None = None,
 ) -> DetectableRange:
     """The weakest clustering and regularity the Monte Carlo NN test would detect.
@@ -275,6 +276,9 @@ def detectable_range(
         Mean plants per cluster of the clustered alternatives.
     full_curves : bool
         Simulate every strength; by default the curves stop once the power reaches 0.99.
+    simulate_up_to : int
+        Above this many plants, use the normal approximation instead of simulating
+        alternatives.
     rng : int or numpy.random.Generator, optional
         Seed or generator.
 
@@ -316,7 +320,7 @@ def detectable_range(
         ]
     )
     null_mean, null_sd = float(null_r.mean()), float(null_r.std(ddof=1))
-    if n > SIMULATE_UP_TO:
+    if n > simulate_up_to:
         lo, hi = normal_detectable_r(null_mean, null_sd, alpha, power)
         empty = np.zeros(0)
         return DetectableRange(
