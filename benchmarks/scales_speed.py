@@ -37,7 +37,7 @@ from scipy.spatial import cKDTree
 
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.envelopes import envelope_test
-from ecoscan.stats.second_order import default_r_max, pcf_bandwidth, second_order
+from ecoscan.stats.second_order import default_max_distance, pcf_bandwidth, second_order
 
 SQUARE = shapely.box(0, 0, 100, 100)
 # an invented L-shaped 1-ha plot with a pond (hole), 12 edges
@@ -51,12 +51,12 @@ IRREGULAR = shapely.affinity.scale(IRREGULAR, *(2 * [np.sqrt(10_000 / IRREGULAR.
 def _bench(poly: shapely.Geometry, n: int, sims: int, seed: int = 1) -> dict:
     rng = np.random.default_rng(seed)
     pats = uniform_in_polygon(poly, n, size=sims + 1, rng=rng)
-    r_max = default_r_max(poly, n)
+    max_distance = default_max_distance(poly, n)
     h = pcf_bandwidth(n / poly.area)
     # baseline: pair enumeration + distances only, same patterns
     t0 = time.process_time()
     for p in pats:
-        pr = cKDTree(p).query_pairs(r_max + h, output_type="ndarray")
+        pr = cKDTree(p).query_pairs(max_distance + h, output_type="ndarray")
         z = p[:, 0] + 1j * p[:, 1]
         np.abs(z[pr[:, 0]] - z[pr[:, 1]])
     t_base = time.process_time() - t0
@@ -64,13 +64,13 @@ def _bench(poly: shapely.Geometry, n: int, sims: int, seed: int = 1) -> dict:
     curves = np.empty((sims + 1, 3, 100))
     n_pairs = 0
     for k, p in enumerate(pats):
-        res = second_order(p, poly, r_max, n_r=100, border=False)
+        res = second_order(p, poly, max_distance, steps=100, reduced_sample=False)
         curves[k] = res.K_iso_m2, res.L_iso_m, res.g_iso
         n_pairs += res.n_pairs
     env = [envelope_test(curves[0, f], curves[1:, f]) for f in range(3)]
     t_full = time.process_time() - t0
     return {
-        "r_max_m": r_max,
+        "max_distance_m": max_distance,
         "pairs_per_pattern": n_pairs / (sims + 1),
         "t_full_s": t_full,
         "t_base_s": t_base,
@@ -80,9 +80,9 @@ def _bench(poly: shapely.Geometry, n: int, sims: int, seed: int = 1) -> dict:
 
 def _peak_mb(poly: shapely.Geometry, n: int) -> tuple[float, int]:
     p = uniform_in_polygon(poly, n, rng=5)
-    second_order(p, poly, border=False)  # warm up
+    second_order(p, poly, reduced_sample=False)  # warm up
     tracemalloc.start()
-    res = second_order(p, poly, border=False)
+    res = second_order(p, poly, reduced_sample=False)
     _cur, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     return peak / 1e6, res.n_pairs
@@ -101,7 +101,8 @@ def main() -> None:
         b = _bench(poly, a.n, sims)
         per = b["t_full_s"] / (sims + 1)
         print(
-            f"  {name:26s} r_max {b['r_max_m']:.1f} m, {b['pairs_per_pattern'] / 1e6:.2f} M pairs/"
+            f"  {name:26s} max distance {b['max_distance_m']:.1f} m, "
+            f"{b['pairs_per_pattern'] / 1e6:.2f} M pairs/"
             f"pattern: {b['t_full_s']:.1f} s total ({per * 1000:.0f} ms/pattern); baseline pair "
             f"enumeration {b['t_base_s']:.1f} s ({b['t_base_s'] / (sims + 1) * 1000:.0f} ms/"
             f"pattern); ratio {b['t_full_s'] / b['t_base_s']:.2f}; global p(L) = {b['p_L']:.3f}"

@@ -73,14 +73,14 @@ from scipy import stats as sps
 from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.change import _pooled_r, _row
 from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
-from ecoscan.scales import ScalesSettings, cross_verdict
+from ecoscan.scales import ScalesSettings, kinds_verdict
 from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.envelopes import envelope_test
 from ecoscan.stats.montecarlo import mean_nn_batch
 from ecoscan.stats.quadrat import standardised_morisita
-from ecoscan.stats.second_order import default_r_max, second_order
+from ecoscan.stats.second_order import default_max_distance, second_order
 
 ALPHA = 0.05
 #: Band of sizes accepted for a test that gives a verdict (issue 10).
@@ -341,7 +341,7 @@ _column_entry("Clark–Evans R, no edge correction", "p")
 _column_entry("Clark–Evans R, Donnelly correction", "p_donnelly")
 _column_entry("Clark–Evans R, guard zone 1/√ρ", "p_guard")
 _column_entry(
-    "Monte Carlo NN test (the `pattern` verdict)",
+    "Monte Carlo NN test (the `verdict`)",
     "p_mc",
     verdict=True,
     rule="lt",
@@ -404,19 +404,19 @@ def p_morisita_std(xy, polygon, rng):
 class NullPool:
     """Statistics of many random patterns of one n in one polygon (see module notes)."""
 
-    r_max_m: float
-    K: np.ndarray  # (M, n_r) Ripley's K, m²
-    g: np.ndarray  # (M, n_r) pair correlation
+    max_distance_m: float
+    K: np.ndarray  # (M, steps) Ripley's K, m²
+    g: np.ndarray  # (M, steps) pair correlation
     mean_nn: np.ndarray  # (5 M,) mean nearest-neighbour distance, metres
 
 
 #: Pools by (shape wkb, n), filled by :func:`build_pools`; empty = simulate per replicate.
 POOLS: dict[tuple[bytes, int], NullPool] = {}
-_SCALES = ScalesSettings()  # the command's defaults: L, ERL, n_r = 100
+_SCALES = ScalesSettings()  # the command's defaults: L, ERL, steps = 100
 
 
-def _curves(xy, polygon, r_max):
-    so = second_order(xy, polygon, r_max, n_r=_SCALES.n_r, border=False)
+def _curves(xy, polygon, max_distance):
+    so = second_order(xy, polygon, max_distance, steps=_SCALES.steps, reduced_sample=False)
     return so.K_iso_m2, so.g_iso
 
 
@@ -425,11 +425,11 @@ def pool_curves(polygon, n: int, count: int, seed) -> tuple[np.ndarray, ...]:
     and the mean NN distance of 5 × ``count`` more, as ``analyse`` simulates them (for
     :class:`NullPool`)."""
     rng = np.random.default_rng(seed)
-    r_max = default_r_max(polygon, n)
-    ks = np.empty((count, _SCALES.n_r))
-    gs = np.empty((count, _SCALES.n_r))
+    max_distance = default_max_distance(polygon, n)
+    ks = np.empty((count, _SCALES.steps))
+    gs = np.empty((count, _SCALES.steps))
     for i in range(count):
-        ks[i], gs[i] = _curves(csr_pattern(polygon, n, rng), polygon, r_max)
+        ks[i], gs[i] = _curves(csr_pattern(polygon, n, rng), polygon, max_distance)
     means = mean_nn_batch(uniform_in_polygon(polygon, n, size=5 * count, rng=rng))
     return ks, gs, means
 
@@ -437,18 +437,18 @@ def pool_curves(polygon, n: int, count: int, seed) -> tuple[np.ndarray, ...]:
 def _envelopes(xy, polygon, rng):
     def compute():
         n = xy.shape[0]
-        r_max = default_r_max(polygon, n)
-        k_obs, g_obs = _curves(xy, polygon, r_max)
+        max_distance = default_max_distance(polygon, n)
+        k_obs, g_obs = _curves(xy, polygon, max_distance)
         pool = POOLS.get((polygon.wkb, n))
         if pool is not None and pool.K.shape[0] >= SIMULATIONS:
             pick = rng.choice(pool.K.shape[0], SIMULATIONS, replace=False)
             k_sim, g_sim = pool.K[pick], pool.g[pick]
         else:
             sims = uniform_in_polygon(polygon, n, size=SIMULATIONS, rng=rng)
-            pairs = [_curves(s, polygon, r_max) for s in sims]
+            pairs = [_curves(s, polygon, max_distance) for s in sims]
             k_sim = np.array([p[0] for p in pairs])
             g_sim = np.array([p[1] for p in pairs])
-        r = r_max * np.arange(1, _SCALES.n_r + 1) / _SCALES.n_r
+        r = max_distance * np.arange(1, _SCALES.steps + 1) / _SCALES.steps
         curves = {
             "K": (k_obs, k_sim, np.pi * r**2),
             "L": (np.sqrt(np.maximum(k_obs, 0) / np.pi), np.sqrt(np.maximum(k_sim, 0) / np.pi), r),
@@ -456,8 +456,8 @@ def _envelopes(xy, polygon, rng):
         }
         out = {}
         for fn, (obs, sim, theo) in curves.items():
-            for test in ("erl", "mad"):
-                env = envelope_test(obs, sim, theoretical=theo, alpha=ALPHA, test=test)
+            for test in ("rank-length", "max-deviation"):
+                env = envelope_test(obs, sim, csr_value=theo, alpha=ALPHA, test=test)
                 out[fn, test] = env.pvalue
         return out
 
@@ -465,19 +465,21 @@ def _envelopes(xy, polygon, rng):
 
 
 def _envelope_entry(fn: str, test: str, verdict: bool, note: str) -> None:
-    label = {"erl": "extreme rank length", "mad": "maximum absolute deviation"}[test]
+    label = {"rank-length": "extreme rank length", "max-deviation": "maximum absolute deviation"}[
+        test
+    ]
     name = f"global envelope, {fn}, {label}"
     register(name, "scales", "plot", verdict=verdict, note=note)(
         lambda xy, polygon, rng: _envelopes(xy, polygon, rng)[fn, test]
     )
 
 
-_envelope_entry("L", "erl", True, "the default verdict of `scales`")
-_envelope_entry("L", "mad", True, "verdict with the maximum-deviation global test")
-_envelope_entry("g", "erl", True, "verdict with the pair correlation")
-_envelope_entry("g", "mad", True, "verdict with g and the maximum-deviation test")
-_envelope_entry("K", "erl", False, "reported for K; same ranks as L")
-_envelope_entry("K", "mad", False, "reported for K")
+_envelope_entry("L", "rank-length", True, "the default verdict of `scales`")
+_envelope_entry("L", "max-deviation", True, "verdict with the maximum-deviation global test")
+_envelope_entry("g", "rank-length", True, "verdict with the pair correlation")
+_envelope_entry("g", "max-deviation", True, "verdict with g and the maximum-deviation test")
+_envelope_entry("K", "rank-length", False, "reported for K; same ranks as L")
+_envelope_entry("K", "max-deviation", False, "reported for K")
 
 
 def _cross(data: Labelled, polygon, rng):
@@ -486,14 +488,14 @@ def _cross(data: Labelled, polygon, rng):
             data.xy,
             data.is_b,
             polygon,
-            n_r=_SCALES.n_r,
+            steps=_SCALES.steps,
             simulations=FEW_SIMULATIONS,
             alpha=ALPHA,
             test=_SCALES.global_test,
             rng=rng,
             labels=("A", "B"),
         )
-        words = cross_verdict(res, ALPHA)
+        words = kinds_verdict(res, ALPHA)
         return res, words
 
     return SHARED.get("cross", data, compute)
@@ -501,7 +503,7 @@ def _cross(data: Labelled, polygon, rng):
 
 @register("cross-type: cross-L, random labelling", "scales", "labelled", verdict=True)
 def p_cross_l(data, polygon, rng):
-    return _cross(data, polygon, rng)[0].L_cross.pvalue
+    return _cross(data, polygon, rng)[0].L_between_kinds.pvalue
 
 
 @register("cross-type: K_BB − K_AA, random labelling", "scales", "labelled", verdict=True)
@@ -746,7 +748,7 @@ def build_pools(
     for (shape, n), chunks in parts.items():
         poly = SHAPES[shape]
         POOLS[poly.wkb, n] = NullPool(
-            default_r_max(poly, n),
+            default_max_distance(poly, n),
             *(np.concatenate([c[j] for c in chunks]) for j in range(3)),
         )
 

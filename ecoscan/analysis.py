@@ -30,8 +30,8 @@ from ecoscan.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.stats.csr import plot_rng
 from ecoscan.stats.montecarlo import (
-    ALTERNATIVES,
     DEFAULT_STOP_AFTER,
+    DIRECTIONS,
     MonteCarloResult,
     monte_carlo_nn,
 )
@@ -52,6 +52,7 @@ from ecoscan.stats.quadrat import (
     quadrat_test,
 )
 from ecoscan.vector import write_plots, write_points
+from ecoscan.vocabulary import RENAMED_VALUES
 
 __all__ = [
     "CAUTION",
@@ -84,7 +85,7 @@ DISPERSION_COLUMNS: tuple[str, ...] = (
     "z_donnelly",
     "p_donnelly",
     "p_mc",
-    "pattern",
+    "verdict",
     "quadrat_size_m",
     "quadrat_chi2",
     "quadrat_df",
@@ -144,7 +145,7 @@ class DispersionSettings:
         Random seed (≥ 0); every plot gets its own stream from it (see :func:`plot_rng`).
     alpha : float
         Significance level for the verdict (default 0.05).
-    alternative : {'two-sided', 'clustered', 'regular'}
+    direction : {'either', 'clustered', 'regular'}
         Alternative hypothesis of all tests.
     guard_m : float or None
         Guard-zone width in metres; None uses 1/√ρ per plot (twice the expected NN distance
@@ -164,7 +165,7 @@ class DispersionSettings:
     simulations: int = 999
     seed: int = 1
     alpha: float = 0.05
-    alternative: str = "two-sided"
+    direction: str = "either"
     guard_m: float | None = None
     quadrat_m: float | None = None
     min_points: int = MIN_POINTS_ADVISED
@@ -174,7 +175,7 @@ class DispersionSettings:
         "simulations": int,
         "seed": int,
         "alpha": (int, float),
-        "alternative": str,
+        "direction": str,
         "guard_m": (int, float),
         "quadrat_m": (int, float),
         "min_points": int,
@@ -191,9 +192,13 @@ class DispersionSettings:
             raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
         if not (0.0 < float(self.alpha) < 1.0):
             raise InputError(f"alpha must lie between 0 and 1 (got {self.alpha!r}); 0.05 is usual")
-        if self.alternative not in ALTERNATIVES:
+        if self.direction in RENAMED_VALUES and RENAMED_VALUES[self.direction] in DIRECTIONS:
             raise InputError(
-                f"alternative must be one of {', '.join(ALTERNATIVES)} (got {self.alternative!r})"
+                f"direction '{self.direction}' was renamed '{RENAMED_VALUES[self.direction]}'"
+            )
+        if self.direction not in DIRECTIONS:
+            raise InputError(
+                f"direction must be one of {', '.join(DIRECTIONS)} (got {self.direction!r})"
             )
         if self.guard_m is not None and not (
             np.isfinite(float(self.guard_m)) and float(self.guard_m) >= 0
@@ -253,7 +258,7 @@ class DispersionSettings:
     @property
     def smallest_p(self) -> float:
         """Smallest Monte Carlo p-value attainable with these settings."""
-        k = 2.0 if self.alternative == "two-sided" else 1.0
+        k = 2.0 if self.direction == "either" else 1.0
         return min(1.0, k / (self.simulations + 1.0))
 
     def too_few_simulations(self) -> str:
@@ -270,7 +275,7 @@ class DispersionSettings:
         """
         if self.smallest_p < self.alpha:
             return ""
-        need = int(np.ceil((2.0 if self.alternative == "two-sided" else 1.0) / self.alpha))
+        need = int(np.ceil((2.0 if self.direction == "either" else 1.0) / self.alpha))
         return (
             f"with {self.simulations} simulations the smallest possible Monte Carlo p is "
             f"{self.smallest_p:.3g}, not below alpha = {self.alpha:g}: no plot can be called "
@@ -323,7 +328,7 @@ class PlotDispersion:
     guard: EdgeCorrectedResult | None
     monte_carlo: MonteCarloResult | None
     quadrat: QuadratResult | None
-    pattern: str
+    verdict: str
     guard_m: float
     quadrat_m: float
     n_coincident: int
@@ -356,7 +361,7 @@ class PlotDispersion:
             "z_donnelly": dn.z if dn else nan,
             "p_donnelly": dn.pvalue if dn else nan,
             "p_mc": mc.pvalue if mc else nan,
-            "pattern": self.pattern,
+            "verdict": self.verdict,
             "quadrat_size_m": self.quadrat_m,
             "quadrat_chi2": qd.statistic if qd else nan,
             "quadrat_df": qd.df if qd else None,
@@ -438,9 +443,9 @@ def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
 def _verdict(mc: MonteCarloResult, alpha: float) -> str:
     if not mc.pvalue < alpha:
         return "random"
-    if mc.alternative == "two-sided":
-        return mc.direction
-    return mc.alternative
+    if mc.direction == "either":
+        return mc.side
+    return mc.direction
 
 
 def analyse_plot(
@@ -527,13 +532,13 @@ def analyse_plot(
             f"{n_zero} points share their position with another point (distance 0 m); "
             "check for duplicate detections"
         )
-    alt = s.alternative
-    ce = clark_evans(xy, area, alternative=alt, nn=d)
-    dn = donnelly(xy, polygon, alternative=alt, nn=d)
+    alt = s.direction
+    ce = clark_evans(xy, area, direction=alt, nn=d)
+    dn = donnelly(xy, polygon, direction=alt, nn=d)
     strip = donnelly_strip_warning(n, area, perim)
     if strip:
         warn.append(strip)
-    gz = guard_zone(xy, polygon, guard_m, alternative=alt, nn=d)
+    gz = guard_zone(xy, polygon, guard_m, direction=alt, nn=d)
     if gz.n_focal < 2:
         warn.append(
             f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
@@ -547,7 +552,7 @@ def analyse_plot(
         xy,
         polygon,
         simulations=s.simulations,
-        alternative=alt,
+        direction=alt,
         rng=rng,
         observed_mean_m=float(d.mean()),
         guard_region=(polygon.buffer(-guard_m) if guard_m > 0 else polygon)
@@ -645,9 +650,9 @@ def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 
         return f"too few plants to describe a pattern (n = {res.n})"
     r = res.clark_evans.statistic
     p_mc = res.monte_carlo.pvalue if res.monte_carlo else float("nan")
-    if res.pattern == "regular":
+    if res.verdict == "regular":
         nn_dir, nn = 1, f"evenly spaced between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
-    elif res.pattern == "clustered":
+    elif res.verdict == "clustered":
         nn_dir, nn = -1, f"clumped between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
     else:
         why = (

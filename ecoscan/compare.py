@@ -81,7 +81,7 @@ GROUP_SUMMARY_COLUMNS = (
     "R_donnelly",
     "R_donnelly_low95",
     "R_donnelly_high95",
-    "pattern",
+    "verdict",
 )
 
 
@@ -134,7 +134,7 @@ GROUP_COLUMNS = (
     "R_donnelly_se",
     "R_donnelly_low95",
     "R_donnelly_high95",
-    "pattern",
+    "verdict",
     "warnings",
 )
 
@@ -600,7 +600,7 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
     )  # fmt: skip
     da, db = a.nn_m, b.nn_m
     if da.size >= 1 and db.size >= 1:
-        mw = sps.mannwhitneyu(da, db, alternative="two-sided")
+        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
         ks = sps.ks_2samp(da, db)
         mw_u, p_mw, ks_d, p_ks = (
             float(mw.statistic),
@@ -910,7 +910,7 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
                 "R_donnelly_se": g.r.se_donnelly,
                 "R_donnelly_low95": dlo,
                 "R_donnelly_high95": dhi,
-                "pattern": _pattern(g.r),
+                "verdict": _pattern(g.r),
                 "warnings": "; ".join(warn),
             }
         )

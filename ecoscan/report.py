@@ -11,7 +11,8 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan import __version__
-from ecoscan.outputs import format_value, write_text
+from ecoscan.outputs import write_text
+from ecoscan.vocabulary import COLUMNS, format_cell, label
 
 __all__ = [
     "CAUTIONS_HTML",
@@ -27,39 +28,94 @@ _CSS = """
         --clustered:#7d6b15; --regular:#1f4e8c; --random:#6b6b6b; }
 * { box-sizing: border-box; }
 body { margin:0; font-family: system-ui, -apple-system, "Segoe UI", sans-serif; color:var(--ink);
-       background:var(--paper); line-height:1.45; }
-header.top { background:#22303f; color:#f4f1e8; padding:1.4rem 2rem 1.1rem; }
-header.top h1 { margin:0 0 .2rem; font-size:1.55rem; font-weight:600; }
+       background:var(--paper); line-height:1.45; font-size:16px; }
+header.top { background:#22303f; color:#f4f1e8; padding:1.1rem 2rem .9rem; }
+header.top h1 { margin:0 0 .2rem; font-size:1.5rem; font-weight:600; }
 header.top p { margin:0; color:#c9cfd8; font-size:.92rem; }
-nav.toc { padding:.6rem 2rem; border-bottom:1px solid var(--line); background:#fff;
+nav.toc { padding:.5rem 2rem; border-bottom:1px solid var(--line); background:#fff;
           font-size:.9rem; position:sticky; top:0; z-index:2; }
 nav.toc a { margin-right:1.1rem; color:var(--accent); text-decoration:none; }
-main { padding:0 2rem 3rem; max-width:1400px; }
-h2 { margin:2rem 0 .6rem; font-size:1.25rem; border-bottom:2px solid var(--ink);
+main { padding:0 2rem 3rem; max-width:1240px; }
+h2 { margin:1.8rem 0 .6rem; font-size:1.25rem; border-bottom:2px solid var(--ink);
      padding-bottom:.2rem; }
-h3 { margin:1.2rem 0 .4rem; font-size:1.05rem; }
-table.data { border-collapse:collapse; font-size:.84rem; background:#fff; margin:.4rem 0 1rem; }
-table.data th, table.data td { border-bottom:1px solid var(--line); padding:.28rem .55rem;
+h3 { margin:1.2rem 0 .4rem; font-size:1.08rem; }
+h4 { margin:0 0 .4rem; font-size:1rem; }
+p.lede { max-width:60rem; } .muted { color:var(--muted); font-size:.9rem; }
+#summary p { max-width:60rem; }
+table.data { border-collapse:collapse; font-size:.88rem; background:#fff; margin:.4rem 0 1rem; }
+table.data th, table.data td { border-bottom:1px solid var(--line); padding:.26rem .5rem;
      text-align:right; white-space:nowrap; }
-table.data th { background:#eef1f5; font-weight:600; }
+table.data th { background:#eef1f5; font-weight:600; white-space:normal; vertical-align:bottom;
+     min-width:3.2rem; }
 table.data td.text, table.data th.text { text-align:left; }
-table.data td.warn { text-align:left; white-space:normal; max-width:28rem; color:#7a4b00; }
-.scroll { overflow-x:auto; }
+table.data td.warn { text-align:left; white-space:normal; min-width:9rem; color:#7a4b00; }
+table.data a { color:var(--accent); }
+table.sortable th { cursor:pointer; }
+table.sortable th[aria-sort="ascending"]::after { content:" ▲"; font-size:.7em; }
+table.sortable th[aria-sort="descending"]::after { content:" ▼"; font-size:.7em; }
+table.kv th { background:none; font-weight:normal; text-align:left; }
+.scroll { overflow-x:auto; max-width:100%; }
 .tag { display:inline-block; padding:.05rem .45rem; border-radius:.7rem; color:#fff;
-       font-size:.78rem; }
+       font-size:.82rem; }
 .tag.clustered { background:var(--clustered); } .tag.regular { background:var(--regular); }
-.tag.random { background:var(--random); } .tag.none { background:#aaa; }
-.cards { display:grid; grid-template-columns:repeat(auto-fill, minmax(420px, 1fr)); gap:1rem; }
-.card { background:#fff; border:1px solid var(--line); border-radius:.4rem; padding:.8rem 1rem; }
-.card h3 { margin-top:0; }
-.card .facts { font-size:.85rem; color:var(--muted); margin:.1rem 0 .5rem; }
-figure { margin:.4rem 0; } figure img { max-width:100%; height:auto; display:block; }
-figcaption { font-size:.8rem; color:var(--muted); }
-.figrow { display:flex; flex-wrap:wrap; gap:.6rem; } .figrow figure { flex:1 1 300px; }
+.tag.random { background:var(--random); } .tag.none { background:#888; }
+article.plot { background:#fff; border:1px solid var(--line); border-radius:.4rem;
+               padding:.8rem 1rem; margin:0 0 1rem; }
+.plotmain { display:flex; flex-wrap:wrap; gap:1rem; align-items:flex-start; }
+.plottext { flex:1 1 20rem; max-width:40rem; }
+ul.warnings { color:#7a4b00; padding-left:1.2rem; margin:.3rem 0; }
+details { margin-top:.6rem; } summary { cursor:pointer; color:var(--accent); }
+.detail { display:flex; flex-wrap:wrap; gap:1rem; align-items:flex-start; margin-top:.5rem; }
+figure { margin:.2rem 0; } figure img { max-width:100%; height:auto; display:block; }
+figcaption { font-size:.85rem; color:var(--muted); max-width:36rem; }
 .caution { background:#fff7e6; border-left:4px solid #c98a00; padding:.7rem 1rem; }
 .method { background:#fff; border:1px solid var(--line); padding:.6rem 1rem; margin:.5rem 0; }
-code, .formula { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size:.85rem; }
-footer { color:var(--muted); font-size:.8rem; padding:1rem 2rem; border-top:1px solid var(--line); }
+code, .formula { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size:.88rem; }
+footer { color:var(--muted); font-size:.85rem; padding:1rem 2rem;
+         border-top:1px solid var(--line); }
+@page { size: A4; margin: 12mm; }
+@media print {
+  body { background:#fff; font-size:10pt; }
+  header.top { background:none; color:#000; padding:0 0 .3rem; }
+  header.top p { color:#333; }
+  nav.toc, summary::marker { display:none; }
+  main { padding:0; max-width:none; }
+  section.top + section.top { break-before:page; }
+  h2, h3, h4 { break-after:avoid; }
+  .scroll { overflow:visible; }
+  table.data { font-size:8pt; width:100%; }
+  table.data th, table.data td { padding:.12rem .3rem; }
+  table.data td { white-space:normal; }
+  table.data th, table.data td.warn { min-width:0; overflow-wrap:anywhere; }
+  tr, figure, .method { break-inside:avoid; }
+  article.plot { break-inside:avoid-page; border:none; padding:0; }
+  .tag { color:#000 !important; background:none !important; border:1px solid #000; }
+  a { color:inherit; text-decoration:none; }
+}
+"""
+
+_SORT_JS = """
+document.querySelectorAll('table.sortable').forEach(function (t) {
+  t.querySelectorAll('th').forEach(function (th, i) {
+    th.addEventListener('click', function () {
+      var asc = th.getAttribute('aria-sort') !== 'ascending';
+      t.querySelectorAll('th').forEach(function (h) { h.removeAttribute('aria-sort'); });
+      th.setAttribute('aria-sort', asc ? 'ascending' : 'descending');
+      var body = t.tBodies[0], rows = Array.prototype.slice.call(body.rows);
+      var key = function (r) {
+        var c = r.cells[i], v = c.getAttribute('data-v');
+        return v === null ? c.textContent.trim().toLowerCase() : parseFloat(v);
+      };
+      rows.sort(function (a, b) {
+        var x = key(a), y = key(b);
+        var d = (typeof x === 'number' && typeof y === 'number') ? x - y
+              : String(x).localeCompare(String(y), undefined, {numeric: true});
+        return asc ? d : -d;
+      });
+      rows.forEach(function (r) { body.appendChild(r); });
+    });
+  });
+});
 """
 
 CAUTIONS_HTML = """
@@ -94,12 +150,21 @@ def _esc(v: Any) -> str:
 
 def figure_html(png: str | os.PathLike, caption: str = "", alt: str = "") -> str:
     """A ``<figure>`` with the PNG or JPEG embedded as a data URI (no external file needed)."""
+    from PIL import Image
+
     path = Path(png)
     mime = "image/jpeg" if path.suffix.lower() in (".jpg", ".jpeg") else "image/png"
-    data = base64.b64encode(path.read_bytes()).decode("ascii")
+    raw = path.read_bytes()
+    with Image.open(path) as im:
+        w, h = im.size
+    data = base64.b64encode(raw).decode("ascii")
     cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
+    # shown at its natural size (figures are drawn at 96 dpi, the CSS pixel density), so the
+    # type is as large as it was drawn; asynchronous decoding keeps long reports quick to open
     return (
-        f'<figure><img src="data:{mime};base64,{data}" alt="{_esc(alt or caption)}">{cap}</figure>'
+        f'<figure style="max-width:{w}px"><img src="data:{mime};base64,{data}" width="{w}" '
+        f'height="{h}" decoding="async" alt="{_esc(alt or caption)}">{cap}'
+        "</figure>"
     )
 
 
@@ -114,35 +179,72 @@ def table_html(
     rows: Sequence[Mapping[str, Any]],
     columns: Sequence[str],
     *,
-    headers: Sequence[str] | None = None,
-    digits: int = 3,
+    sortable: bool = False,
+    css_class: str = "",
+    link: str = "",
 ) -> str:
-    """A data table; numbers right-aligned, verdicts tagged, warnings wrapped."""
-    headers = list(headers or columns)
-    out = ['<div class="scroll"><table class="data"><thead><tr>']
-    for c, h in zip(columns, headers, strict=True):
-        numeric = all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
-        out.append(f'<th class="{"" if numeric else "text"}">{_esc(h)}</th>')
+    """A data table with headings, units and number formats from :mod:`ecoscan.vocabulary`.
+
+    Numbers are right-aligned, verdicts tagged, warnings wrapped; each heading carries the
+    column's description as a tooltip.
+
+    Parameters
+    ----------
+    rows : sequence of mappings
+        Records to show.
+    columns : sequence of str
+        Column keys, in order.
+    sortable : bool
+        Let the reader sort by clicking a heading (a few lines of inline script).
+    css_class : str
+        Extra class for the ``<table>``.
+    link : str
+        A column whose cells link to each row's ``_href`` (e.g. the plot's section).
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> "plants/ha" in table_html([{"density_per_ha": 952.4}], ["density_per_ha"])
+    True
+    """
+    cls = " ".join(x for x in ("data", "sortable" if sortable else "", css_class) if x)
+    out = [f'<div class="scroll"><table class="{cls}"><thead><tr>']
+    numeric = {}
+    for c in columns:
+        col = COLUMNS.get(c)
+        numeric[c] = (
+            col.fmt not in ("text", "bool")
+            if col
+            else all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
+        )
+        tip = f' title="{_esc(col.description)}"' if col else ""
+        out.append(
+            f'<th class="{"num" if numeric[c] else "text"}" scope="col"{tip}>{_esc(label(c))}</th>'
+        )
     out.append("</tr></thead><tbody>")
     for r in rows:
         out.append("<tr>")
         for c in columns:
             v = r.get(c)
             if (
-                c in ("pattern", "verdict")
+                c == "verdict"
                 and isinstance(v, str)
                 and v in ("clustered", "regular", "random", "")
             ):
                 out.append(f'<td class="text">{pattern_tag(v)}</td>')
+            elif c == link and r.get("_href"):
+                text = _esc(format_cell(c, v) or "–")
+                out.append(f'<td class="text"><a href="{_esc(r["_href"])}">{text}</a></td>')
             elif c == "warnings":
-                out.append(f'<td class="warn">{_esc(format_value(v))}</td>')
-            elif isinstance(v, float):
-                s = format_value(round(v, digits) if abs(v) < 1e6 else v)
-                out.append(f"<td>{_esc(s or '–')}</td>")
-            elif isinstance(v, int):
-                out.append(f"<td>{v}</td>")
+                out.append(f'<td class="warn">{_esc(format_cell(c, v))}</td>')
+            elif numeric[c] and isinstance(v, (int, float)) and not isinstance(v, bool):
+                sort = f' data-v="{float(v):.6g}"' if sortable else ""
+                out.append(f"<td{sort}>{_esc(format_cell(c, v) or '–')}</td>")
             else:
-                out.append(f'<td class="text">{_esc(format_value(v) or "–")}</td>')
+                out.append(f'<td class="text">{_esc(format_cell(c, v) or "–")}</td>')
         out.append("</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)
@@ -293,10 +395,11 @@ def methods_html(extra: Sequence[str] = (), topics: Sequence[str] = ()) -> str:
 
 def _section_html(sec: ReportSection, level: int = 2) -> str:
     anchor = f' id="{_esc(sec.anchor)}"' if sec.anchor else ""
-    parts = [f"<h{level}{anchor}>{_esc(sec.title)}</h{level}>", sec.body]
+    parts = [f"<h{level}>{_esc(sec.title)}</h{level}>", sec.body]
     for child in sec.children:
         parts.append(_section_html(child, min(level + 1, 4)))
-    return "\n".join(parts)
+    cls = "top" if level == 2 else "sub"
+    return f'<section class="{cls}"{anchor}>' + "\n".join(parts) + "</section>"
 
 
 def build_report(
@@ -340,6 +443,7 @@ def build_report(
 {body}
 </main>
 <footer>Made by ecoscan {__version__}. {prov}</footer>
+<script>{_SORT_JS}</script>
 </body>
 </html>
 """

@@ -1,7 +1,7 @@
 """Spatial pattern across distances, per plot: second-order functions with envelopes.
 
 For every plot this computes K, L, L − r and g (isotropic edge correction), G, F and J
-(Kaplan–Meier), their border-corrected versions, and simulation envelopes under complete
+(Kaplan–Meier), their reduced-sample versions, and simulation envelopes under complete
 spatial randomness in the exact plot polygon with the same number of plants. A global
 envelope test on one function (L by default) says whether the plot departs from randomness at
 all; where the observed curve leaves the global envelope gives the distance ranges at which it
@@ -41,7 +41,8 @@ from ecoscan.stats.distance_functions import (
 )
 from ecoscan.stats.edge import boundary_distance
 from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, envelope_test
-from ecoscan.stats.second_order import default_r_max, r_grid, second_order, shorter_side_m
+from ecoscan.stats.second_order import default_max_distance, r_grid, second_order, shorter_side_m
+from ecoscan.vocabulary import RENAMED_VALUES
 
 __all__ = [
     "FUNCTIONS",
@@ -87,15 +88,15 @@ class ScalesSettings:
         Random seed; each plot gets its own stream from (seed, plot id).
     alpha : float
         Level of the envelopes and the global test.
-    r_max_m : float or None
+    max_distance_m : float or None
         Largest distance, metres; None for the default rule (per plot, see
-        :func:`ecoscan.stats.second_order.default_r_max`).
-    n_r : int
+        :func:`ecoscan.stats.second_order.default_max_distance`).
+    steps : int
         Number of distances.
     functions : tuple of str
         Which of K, L, g, G, F, J to report.
     global_test : str
-        ``"erl"`` (extreme rank length) or ``"mad"`` (maximum absolute deviation).
+        ``"rank-length"`` (extreme rank length) or ``"max-deviation"`` (maximum absolute deviation).
     test_function : str
         ``"L"`` or ``"g"``: the function whose global test gives the verdict.
     min_points : int
@@ -109,10 +110,10 @@ class ScalesSettings:
     simulations: int = 199
     seed: int = 1
     alpha: float = 0.05
-    r_max_m: float | None = None
-    n_r: int = 100
+    max_distance_m: float | None = None
+    steps: int = 100
     functions: tuple[str, ...] = ("K", "L", "g", "G", "F", "J")
-    global_test: str = "erl"
+    global_test: str = "rank-length"
     test_function: str = "L"
     min_points: int = 10
     kind_field: str | None = None
@@ -128,15 +129,21 @@ class ScalesSettings:
             f"use at least {need} (199 or more is usual)",
         )
         _check(
-            self.r_max_m is None or (np.isfinite(self.r_max_m) and self.r_max_m > 0),
-            f"the largest distance must be a positive number of metres, not {self.r_max_m}",
+            self.max_distance_m is None
+            or (np.isfinite(self.max_distance_m) and self.max_distance_m > 0),
+            f"the largest distance must be a positive number of metres, not {self.max_distance_m}",
         )
-        _check(10 <= self.n_r <= 2000, f"n_r must be between 10 and 2000, not {self.n_r}")
+        _check(10 <= self.steps <= 2000, f"steps must be between 10 and 2000, not {self.steps}")
         bad = [f for f in self.functions if f not in FUNCTIONS]
         _check(
             not bad and len(self.functions) > 0,
             f"unknown function(s) {', '.join(bad) or '(none given)'}; "
             f"choose from {', '.join(FUNCTIONS)}",
+        )
+        _check(
+            RENAMED_VALUES.get(self.global_test) not in GLOBAL_TESTS,
+            f"global test {self.global_test!r} was renamed "
+            f"{RENAMED_VALUES.get(self.global_test)!r}",
         )
         _check(
             self.global_test in GLOBAL_TESTS,
@@ -180,13 +187,13 @@ class ScalesSettings:
                 kw["kinds"] = tuple(
                     s.strip() for s in (k.split(",") if isinstance(k, str) else map(str, k))
                 )
-            for key in ("simulations", "seed", "n_r", "min_points"):
+            for key in ("simulations", "seed", "steps", "min_points"):
                 if key in kw and not isinstance(kw[key], bool):
                     v = kw[key]
                     if isinstance(v, float) and v != int(v):
                         raise InputError(f"{key} must be a whole number, not {v}")
                     kw[key] = int(v)
-            for key in ("alpha", "r_max_m"):
+            for key in ("alpha", "max_distance_m"):
                 if kw.get(key) is not None:
                     kw[key] = float(kw[key])
         except (TypeError, ValueError) as exc:
@@ -214,15 +221,15 @@ class FunctionCurve:
     ----------
     name : str
         ``K``, ``L``, ``L_minus_r``, ``g``, ``G``, ``F``, ``J``, a ``*_border`` version
-        (no envelope) or ``L_cross`` / ``D_cross`` (random labelling).
+        (no envelope) or ``L_between_kinds`` / ``K_difference`` (random labelling).
     unit : str
         Unit of the values (``m2``, ``m`` or ``1``).
     r_m : numpy.ndarray
         Distances, metres.
-    observed, theoretical : numpy.ndarray
+    value, csr_value : numpy.ndarray
         Observed curve and its value under the null hypothesis (NaN when not known in
-        closed form, e.g. L_cross under random labelling: the mean of the simulations is given
-        in ``centre``).
+        closed form, e.g. L_between_kinds under random labelling: the mean of the
+        simulations is given in ``centre``).
     envelope : Envelope or None
         Envelopes and global test, None for the border versions.
     """
@@ -230,8 +237,8 @@ class FunctionCurve:
     name: str
     unit: str
     r_m: np.ndarray
-    observed: np.ndarray
-    theoretical: np.ndarray
+    value: np.ndarray
+    csr_value: np.ndarray
     envelope: Envelope | None = None
 
 
@@ -245,14 +252,14 @@ class PlotScales:
     n : int
         Plants in the plot.
     area_m2 : float
-    r_max_m : float
+    max_distance_m : float
         Largest distance analysed.
     bandwidth_m : float
         Kernel bandwidth of g.
     curves : dict of str to FunctionCurve
     test_function : str
     global_test : str
-    global_p : float
+    p_global : float
     clustered_ranges_m, regular_ranges_m : list of (float, float)
     verdict : str
         Plain words.
@@ -261,7 +268,7 @@ class PlotScales:
         Simulated patterns (and relabellings) used.
     warnings : list of str
     cross : CrossResult or None
-    cross_verdict : str
+    kinds_verdict : str
     alpha : float
         Level of the envelopes and tests.
     """
@@ -269,19 +276,19 @@ class PlotScales:
     plot_id: str
     n: int
     area_m2: float
-    r_max_m: float
+    max_distance_m: float
     bandwidth_m: float
     curves: dict[str, FunctionCurve]
     test_function: str
     global_test: str
-    global_p: float
+    p_global: float
     clustered_ranges_m: list[tuple[float, float]]
     regular_ranges_m: list[tuple[float, float]]
     verdict: str
     simulations: int
     warnings: list[str] = field(default_factory=list)
     cross: CrossResult | None = None
-    cross_verdict: str = ""
+    kinds_verdict: str = ""
     alpha: float = 0.05
 
 
@@ -447,7 +454,7 @@ def interpret(
 
 
 def _curve(name, r, obs, theo, sims, settings, test) -> FunctionCurve:
-    env = envelope_test(obs, sims, theoretical=theo, alpha=settings.alpha, test=test)
+    env = envelope_test(obs, sims, csr_value=theo, alpha=settings.alpha, test=test)
     return FunctionCurve(name, _UNITS[name], r, obs, theo, env)
 
 
@@ -483,13 +490,13 @@ def supported_max_distance(
     n : int
         Plants in the plot.
     requested_m : float or None
-        The user's largest distance (``--rmax``), metres; None for the default.
+        The user's largest distance (``--max-distance``), metres; None for the default.
 
     Returns
     -------
     max_distance_m : float
         ``requested_m`` capped at a quarter of the shorter side of the plot's minimum
-        rotated rectangle, or the default (:func:`default_r_max`).
+        rotated rectangle, or the default (:func:`default_max_distance`).
     note : str
         A one-line note when the request was capped, else ''.
 
@@ -509,7 +516,7 @@ def supported_max_distance(
     """
     quarter = 0.25 * shorter_side_m(polygon)
     if requested_m is None:
-        return float(default_r_max(polygon, n)), ""
+        return float(default_max_distance(polygon, n)), ""
     if requested_m <= quarter * 1.0001:
         return float(requested_m), ""
     return float(quarter), (
@@ -563,23 +570,25 @@ def analyse_plot(
         )
     rng = plot_rng(settings.seed, plot_id)
     warnings: list[str] = []
-    r_max, note = supported_max_distance(polygon, n, settings.r_max_m)
+    max_distance, note = supported_max_distance(polygon, n, settings.max_distance_m)
     if note:
         warnings.append(note)
     if n < _FEW_PLANTS:
         warnings.append(f"only {n} plants: only strong patterns can be detected")
     lam = n / area
-    r = r_grid(r_max, settings.n_r)
-    r_nn = r_grid(min(r_max, 2.5 / np.sqrt(lam)), settings.n_r)
+    r = r_grid(max_distance, settings.steps)
+    r_nn = r_grid(min(max_distance, 2.5 / np.sqrt(lam)), settings.steps)
     # J only up to where F under randomness reaches 0.95: beyond, 1 − F is too small for a
     # stable ratio (common practice)
-    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), settings.n_r)
+    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), settings.steps)
     r_both = np.concatenate([r_nn, r_j])
-    nr = settings.n_r
+    nr = settings.steps
     want = set(settings.functions) | {settings.test_function}
     want_dist = bool(want & {"G", "F", "J"})
     b = boundary_distance(xy, polygon)
-    obs = second_order(xy, polygon, r_max, n_r=settings.n_r, border=True, boundary_m=b)
+    obs = second_order(
+        xy, polygon, max_distance, steps=settings.steps, reduced_sample=True, boundary_m=b
+    )
     grid = EmptySpaceGrid(polygon) if want_dist else None
     if want_dist:
         g_obs = nn_function(xy, polygon, r_both, boundary_m=b)
@@ -592,7 +601,9 @@ def analyse_plot(
     sims = uniform_in_polygon(polygon, n, size=s, rng=rng)
     for k in progress(range(s), desc=f"{plot_id} simulations", unit="sim"):
         bk = boundary_distance(sims[k], polygon)
-        so = second_order(sims[k], polygon, r_max, n_r=nr, border=False, boundary_m=bk)
+        so = second_order(
+            sims[k], polygon, max_distance, steps=nr, reduced_sample=False, boundary_m=bk
+        )
         sim_k[k] = so.K_iso_m2
         sim_g[k] = so.g_iso
         if want_dist:
@@ -611,7 +622,7 @@ def analyse_plot(
     if "g" in want:
         curves["g"] = _curve("g", r, obs.g_iso, np.ones_like(r), sim_g, settings, test)
     if want_dist:
-        theo = g_obs.theoretical[:nr]
+        theo = g_obs.csr_value[:nr]
         if "G" in want:
             curves["G"] = _curve("G", r_nn, g_obs.km[:nr], theo, sim_G[:, :nr], settings, test)
         if "F" in want:
@@ -626,18 +637,28 @@ def analyse_plot(
                 settings,
                 test,
             )
-    # border-corrected versions, observed only (a cross-check of the edge correction)
+    # reduced-sample versions, observed only (a cross-check of the edge correction)
     if "K" in want:
-        curves["K_border"] = FunctionCurve("K_border", "m2", r, obs.K_border_m2, np.pi * r**2)
+        curves["K_reduced_sample"] = FunctionCurve(
+            "K_reduced_sample", "m2", r, obs.K_reduced_sample_m2, np.pi * r**2
+        )
     if "L" in want:
-        curves["L_border"] = FunctionCurve("L_border", "m", r, obs.L_border_m, r.copy())
+        curves["L_reduced_sample"] = FunctionCurve(
+            "L_reduced_sample", "m", r, obs.L_reduced_sample_m, r.copy()
+        )
     if "g" in want:
-        curves["g_border"] = FunctionCurve("g_border", "1", r, obs.g_border, np.ones_like(r))
+        curves["g_reduced_sample"] = FunctionCurve(
+            "g_reduced_sample", "1", r, obs.g_reduced_sample, np.ones_like(r)
+        )
     if want_dist:
         if "G" in want:
-            curves["G_border"] = FunctionCurve("G_border", "1", r_nn, g_obs.border[:nr], theo)
+            curves["G_reduced_sample"] = FunctionCurve(
+                "G_reduced_sample", "1", r_nn, g_obs.reduced_sample[:nr], theo
+            )
         if "F" in want:
-            curves["F_border"] = FunctionCurve("F_border", "1", r_nn, f_obs.border[:nr], theo)
+            curves["F_reduced_sample"] = FunctionCurve(
+                "F_reduced_sample", "1", r_nn, f_obs.reduced_sample[:nr], theo
+            )
     main = curves[settings.test_function]
     env = main.envelope
     clu, reg, verdict = interpret(
@@ -647,18 +668,18 @@ def analyse_plot(
         env.pvalue,
         settings.alpha,
         n=n,
-        r_start=_first(r, env.hi > env.lo),
-        r_start_regular=_first(r, env.lo > 0),
+        r_start=_first(r, env.band_high > env.band_low),
+        r_start_regular=_first(r, env.band_low > 0),
     )
-    cross, cross_verdict = None, ""
+    cross, kinds_verdict = None, ""
     if kinds is not None and settings.kinds is not None:
-        cross, cross_verdict, w = _cross(xy, polygon, kinds, settings, r_max, rng)
+        cross, kinds_verdict, w = _cross(xy, polygon, kinds, settings, max_distance, rng)
         warnings += w
     return PlotScales(
         plot_id,
         n,
         area,
-        float(r_max),
+        float(max_distance),
         float(obs.bandwidth_m),
         {k: curves[k] for k in sorted(curves, key=_curve_order)},
         settings.test_function,
@@ -670,7 +691,7 @@ def analyse_plot(
         s,
         warnings,
         cross,
-        cross_verdict,
+        kinds_verdict,
         settings.alpha,
     )
 
@@ -684,11 +705,11 @@ _ORDER = ["K", "L", "L_minus_r", "g", "G", "F", "J"]
 
 
 def _curve_order(name: str) -> tuple[int, str]:
-    base = name.replace("_border", "")
+    base = name.replace("_reduced_sample", "")
     return (_ORDER.index(base) if base in _ORDER else len(_ORDER), name)
 
 
-def _cross(xy, polygon, kinds, settings, r_max, rng):
+def _cross(xy, polygon, kinds, settings, max_distance, rng):
     a, b = settings.kinds
     lab = _kind_labels(kinds)
     use = (lab == a) | (lab == b)
@@ -700,18 +721,18 @@ def _cross(xy, polygon, kinds, settings, r_max, rng):
         xy[use],
         lab[use] == b,
         polygon,
-        r_max_m=r_max,
-        n_r=settings.n_r,
+        max_distance_m=max_distance,
+        steps=settings.steps,
         simulations=settings.simulations,
         alpha=settings.alpha,
         test=settings.global_test,
         rng=rng,
         labels=(a, b),
     )
-    return res, cross_verdict(res, settings.alpha), []
+    return res, kinds_verdict(res, settings.alpha), []
 
 
-def cross_verdict(res: CrossResult, alpha: float) -> str:
+def kinds_verdict(res: CrossResult, alpha: float) -> str:
     """Plain words for a random-labelling test of kind B among kind A.
 
     Parameters
@@ -734,10 +755,10 @@ def cross_verdict(res: CrossResult, alpha: float) -> str:
             )
         if less:
             out.append(f"{b} plants are more evenly spread than {a} plants {_describe(less, r[0])}")
-    pl = res.L_cross.pvalue
+    pl = res.L_between_kinds.pvalue
     if np.isfinite(pl) and pl <= alpha:
-        near = _runs(res.L_cross.above, r)
-        far = _runs(res.L_cross.below, r)
+        near = _runs(res.L_between_kinds.above, r)
+        far = _runs(res.L_between_kinds.below, r)
         if near:
             out.append(
                 f"{b} plants lie closer to {a} plants than a random split gives "
@@ -823,12 +844,12 @@ SCALES_COLUMNS = [
     "plot_id",
     "n",
     "global_test",
-    "global_p",
+    "p_global",
     "clustered_ranges_m",
     "regular_ranges_m",
     "verdict",
     "test_function",
-    "r_max_m",
+    "max_distance_m",
     "bandwidth_m",
     "simulations",
     "warnings",
@@ -836,20 +857,22 @@ SCALES_COLUMNS = [
 FUNCTION_COLUMNS = [
     "plot_id",
     "function",
-    "r_m",
-    "observed",
-    "theoretical",
-    "lo",
-    "hi",
-    "lo_pointwise",
-    "hi_pointwise",
-    "envelope",
+    "distance_m",
+    "value",
+    "csr_value",
+    "band_low",
+    "band_high",
+    "pointwise_low",
+    "pointwise_high",
+    "band",
     "unit",
 ]
 
 
 def _test_label(test: str, fn: str) -> str:
-    name = {"erl": "extreme rank length", "mad": "maximum absolute deviation"}[test]
+    name = {"rank-length": "extreme rank length", "max-deviation": "maximum absolute deviation"}[
+        test
+    ]
     return f"{name} on {'L(r)' if fn == 'L' else 'g(r)'}"
 
 
@@ -861,17 +884,17 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
             "plot_id": res.plot_id,
             "n": res.n,
             "global_test": _test_label(res.global_test, res.test_function) if res.curves else "",
-            "global_p": res.global_p,
+            "p_global": res.p_global,
             "clustered_ranges_m": format_ranges(res.clustered_ranges_m),
             "regular_ranges_m": format_ranges(res.regular_ranges_m),
             "verdict": res.verdict,
             "test_function": res.test_function,
-            "r_max_m": res.r_max_m,
+            "max_distance_m": res.max_distance_m,
             "bandwidth_m": res.bandwidth_m,
             "simulations": res.simulations,
             "warnings": "; ".join(res.warnings),
         }
-        if res.cross is not None or res.cross_verdict:
+        if res.cross is not None or res.kinds_verdict:
             c = res.cross
             row.update(
                 {
@@ -879,9 +902,9 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
                     "kind_b": c.label_b if c else "",
                     "n_a": c.n_a if c else None,
                     "n_b": c.n_b if c else None,
-                    "cross_p": c.L_cross.pvalue if c else None,
-                    "difference_p": c.D.pvalue if c else None,
-                    "cross_verdict": res.cross_verdict,
+                    "p_kinds": c.L_between_kinds.pvalue if c else None,
+                    "p_kind_difference": c.D.pvalue if c else None,
+                    "kinds_verdict": res.kinds_verdict,
                 }
             )
         rows.append(row)
@@ -891,25 +914,25 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
 def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, Any]]:
     e = c.envelope
     nan = np.full(c.r_m.size, np.nan)
-    lo, hi = (e.lo, e.hi) if e is not None else (nan, nan)
-    lop, hip = (e.lo_pointwise, e.hi_pointwise) if e is not None else (nan, nan)
+    lo, hi = (e.band_low, e.band_high) if e is not None else (nan, nan)
+    lop, hip = (e.pointwise_low, e.pointwise_high) if e is not None else (nan, nan)
     if e is None:
         label = "none"
     else:
-        label = f"global {e.test} {100 * (1 - alpha):g}%"
-    theo = c.theoretical
+        label = f"{100 * (1 - alpha):g}% global band, {e.test} test"
+    theo = c.csr_value
     return [
         {
             "plot_id": plot_id,
             "function": c.name,
-            "r_m": c.r_m[k],
-            "observed": c.observed[k],
-            "theoretical": theo[k],
-            "lo": lo[k],
-            "hi": hi[k],
-            "lo_pointwise": lop[k],
-            "hi_pointwise": hip[k],
-            "envelope": label,
+            "distance_m": c.r_m[k],
+            "value": c.value[k],
+            "csr_value": theo[k],
+            "band_low": lo[k],
+            "band_high": hi[k],
+            "pointwise_low": lop[k],
+            "pointwise_high": hip[k],
+            "band": label,
             "unit": c.unit,
         }
         for k in range(c.r_m.size)
@@ -923,8 +946,8 @@ def function_rows(
 
     ``alpha`` only labels the envelopes; by default each result's own level.
 
-    The bivariate curves appear as ``L_cross`` (m) and ``D_cross`` = K_BB − K_AA (m²), with
-    the mean of the relabellings as ``theoretical`` for L_cross.
+    The bivariate curves appear as ``L_between_kinds`` (m) and ``K_difference`` = K_BB − K_AA
+    (m²), with the mean of the relabellings as ``csr_value`` for L_between_kinds.
     """
     rows: list[dict[str, Any]] = []
     for res in results:
@@ -936,13 +959,18 @@ def function_rows(
             rows += _curve_rows(
                 res.plot_id,
                 FunctionCurve(
-                    "L_cross", "m", x.r_m, x.L_cross.observed, x.L_cross.centre, x.L_cross
+                    "L_between_kinds",
+                    "m",
+                    x.r_m,
+                    x.L_between_kinds.value,
+                    x.L_between_kinds.centre,
+                    x.L_between_kinds,
                 ),
                 a,
             )
             rows += _curve_rows(
                 res.plot_id,
-                FunctionCurve("D_cross", "m2", x.r_m, x.D.observed, x.D.centre, x.D),
+                FunctionCurve("K_difference", "m2", x.r_m, x.D.value, x.D.centre, x.D),
                 a,
             )
     return rows

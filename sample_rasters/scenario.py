@@ -40,7 +40,7 @@ class PlotTruth:
 
     plot_id: str
     site: str
-    pattern: str
+    verdict: str
     polygon: shapely.Polygon
     xy: np.ndarray  # (n, 2) metres
     diameter_m: np.ndarray
@@ -161,7 +161,7 @@ def autumn_change(
             np.column_stack([rng.uniform(x0, x1, 50 * k), rng.uniform(y0, y1, 50 * k)]),
             0.6,
         )
-        if p.pattern == "clustered":  # seedlings come up close to surviving shrubs
+        if p.verdict == "clustered":  # seedlings come up close to surviving shrubs
             near = p.xy[alive][rng.choice(len(alive), 50 * k)] + rng.normal(0, 1.5, (50 * k, 2))
             cand = _inside(p.polygon, near, 0.6)
         # recruits keep 1.3 m from every spring shrub, dead or alive, so that a seedling is
@@ -170,7 +170,7 @@ def autumn_change(
         xy = np.vstack([p.xy[alive], new])
         d = np.r_[p.diameter_m[alive] * 1.05, rng.uniform(0.7, 0.8, len(new))]
         h = np.r_[p.height_m[alive] * 1.05, 0.4 + 0.8 * d[len(alive) :]]
-        out.append(PlotTruth(p.plot_id, p.site, p.pattern, p.polygon, xy, d, h))
+        out.append(PlotTruth(p.plot_id, p.site, p.verdict, p.polygon, xy, d, h))
         log[p.plot_id] = {"lost": lost, "recruits": new}
     return out, log
 

@@ -8,6 +8,7 @@ errors and uncaught exceptions, and takes a screenshot. Uses Debian's ``chromium
 from __future__ import annotations
 
 import base64
+import contextlib
 import json
 import shutil
 import subprocess
@@ -72,18 +73,44 @@ class _Session:
         raise TimeoutError(name)
 
 
-def inspect_page(html_file: Path, screenshot: Path, check_js: str) -> dict:
-    """Load a page headless; return the check's value, console errors and exceptions.
+class BrowserSession(_Session):
+    """A running headless Chromium page: open files, evaluate JavaScript, print to PDF."""
 
-    Parameters
-    ----------
-    html_file : Path
-        Local HTML file to open.
-    screenshot : Path
-        Where to save a full-page PNG screenshot.
-    check_js : str
-        A JavaScript expression evaluated after load; its JSON value is returned.
-    """
+    def open(self, html_file: Path) -> None:
+        """Navigate to a local file and wait for its load event."""
+        self.events = [e for e in self.events if e.get("method") != "Page.loadEventFired"]
+        self.call("Page.navigate", url=Path(html_file).resolve().as_uri())
+        self.wait_event("Page.loadEventFired", timeout=60)
+
+    def evaluate(self, expression: str):
+        """The JSON value of a JavaScript expression (promises are awaited)."""
+        res = self.call(
+            "Runtime.evaluate", expression=expression, returnByValue=True, awaitPromise=True
+        )
+        return res["result"].get("value")
+
+    def print_pdf(self) -> bytes:
+        """The page printed on A4 portrait with the browser's default margins."""
+        out = self.call("Page.printToPDF", paperWidth=8.27, paperHeight=11.69, printBackground=True)
+        return base64.b64decode(out["data"])
+
+    def errors(self) -> list[str]:
+        """Console errors and uncaught exceptions seen so far."""
+        errors = []
+        for e in self.events:
+            m, p = e.get("method"), e.get("params", {})
+            if m == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
+                errors.append(str(p.get("args")))
+            elif m == "Runtime.exceptionThrown":
+                errors.append(str(p.get("exceptionDetails", {}).get("text")))
+            elif m == "Log.entryAdded" and p.get("entry", {}).get("level") == "error":
+                errors.append(str(p["entry"].get("text")))
+        return errors
+
+
+@contextlib.contextmanager
+def browser_session():
+    """Start headless Chromium (1280 px wide window) and yield a :class:`BrowserSession`."""
     exe = find_chromium()
     if exe is None:
         raise FileNotFoundError("chromium")
@@ -103,28 +130,14 @@ def inspect_page(html_file: Path, screenshot: Path, check_js: str) -> dict:
         port = int(port_file.read_text().split()[0])
         with urllib.request.urlopen(f"http://127.0.0.1:{port}/json/list", timeout=10) as r:
             pages = [t for t in json.load(r) if t.get("type") == "page"]
-        s = _Session(pages[0]["webSocketDebuggerUrl"])
+        s = BrowserSession(pages[0]["webSocketDebuggerUrl"])
         s.call("Runtime.enable")
         s.call("Log.enable")
         s.call("Page.enable")
-        s.call("Page.navigate", url=html_file.resolve().as_uri())
-        s.wait_event("Page.loadEventFired")
-        value = s.call(
-            "Runtime.evaluate", expression=check_js, returnByValue=True, awaitPromise=True
-        )["result"].get("value")
-        shot = s.call("Page.captureScreenshot", format="png", captureBeyondViewport=True)
-        screenshot.write_bytes(base64.b64decode(shot["data"]))
-        errors = []
-        for e in s.events:
-            m, p = e.get("method"), e.get("params", {})
-            if m == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
-                errors.append(str(p.get("args")))
-            elif m == "Runtime.exceptionThrown":
-                errors.append(str(p.get("exceptionDetails", {}).get("text")))
-            elif m == "Log.entryAdded" and p.get("entry", {}).get("level") == "error":
-                errors.append(str(p["entry"].get("text")))
-        s.ws.close()
-        return {"value": value, "errors": errors}
+        try:
+            yield s
+        finally:
+            s.ws.close()
     finally:
         proc.terminate()
         try:
@@ -132,6 +145,26 @@ def inspect_page(html_file: Path, screenshot: Path, check_js: str) -> dict:
         except subprocess.TimeoutExpired:
             proc.kill()
         shutil.rmtree(profile, ignore_errors=True)
+
+
+def inspect_page(html_file: Path, screenshot: Path, check_js: str) -> dict:
+    """Load a page headless; return the check's value, console errors and exceptions.
+
+    Parameters
+    ----------
+    html_file : Path
+        Local HTML file to open.
+    screenshot : Path
+        Where to save a full-page PNG screenshot.
+    check_js : str
+        A JavaScript expression evaluated after load; its JSON value is returned.
+    """
+    with browser_session() as s:
+        s.open(html_file)
+        value = s.evaluate(check_js)
+        shot = s.call("Page.captureScreenshot", format="png", captureBeyondViewport=True)
+        screenshot.write_bytes(base64.b64decode(shot["data"]))
+        return {"value": value, "errors": s.errors()}
 
 
 IMAGES_OK_JS = """

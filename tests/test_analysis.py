@@ -58,7 +58,7 @@ def test_settings_from_mapping_and_back():
         ({"simulations": "many"}, "must be int"),
         ({"simulations": 0}, "at least 1"),
         ({"alpha": 1.5}, "between 0 and 1"),
-        ({"alternative": "less"}, "alternative"),
+        ({"direction": "less"}, "direction"),
         ({"quadrat_m": -1.0}, "positive"),
         ({"guard_m": True}, "must be"),
     ],
@@ -75,7 +75,7 @@ def test_empty_and_single_point_plots_have_no_statistics():
     for r, n in ((r0, 0), (r1, 1)):
         row = r.row()
         assert row["n"] == n and np.isnan(row["R"]) and np.isnan(row["p_mc"])
-        assert row["pattern"] == "" and row["warnings"]
+        assert row["verdict"] == "" and row["warnings"]
     assert "no points" in r0.row()["warnings"]
     assert "at least 2" in r1.row()["warnings"]
     assert r1.row()["density_per_ha"] == pytest.approx(1 / 100 * 1e4)
@@ -87,7 +87,7 @@ def test_small_plot_flagged_but_computed():
     r = analyse_plot(xy, poly, "small", FAST)
     assert "fewer than 30" in r.row()["warnings"]
     assert r.row()["R"] == pytest.approx(clark_evans(xy, poly.area).statistic)
-    assert r.pattern in ("clustered", "random", "regular")
+    assert r.verdict in ("clustered", "random", "regular")
 
 
 def test_duplicates_warned():
@@ -105,12 +105,12 @@ def test_verdicts_follow_monte_carlo_and_alternative():
     parents = uniform_in_polygon(poly, 4, rng=rng)
     clus = np.repeat(parents, 25, axis=0) + rng.normal(0, 1.0, (100, 2))
     clus = clus[shapely.contains_xy(poly, clus[:, 0], clus[:, 1])]
-    assert analyse_plot(clus, poly, "c", FAST).pattern == "clustered"
-    only_regular = DispersionSettings(simulations=99, alternative="regular")
-    assert analyse_plot(clus, poly, "c", only_regular).pattern == "random"
+    assert analyse_plot(clus, poly, "c", FAST).verdict == "clustered"
+    only_regular = DispersionSettings(simulations=99, direction="regular")
+    assert analyse_plot(clus, poly, "c", only_regular).verdict == "random"
     j, i = np.mgrid[0:10, 0:10]
     grid = np.column_stack([i.ravel() * 5 + 2.5, j.ravel() * 5 + 2.5]).astype(float)
-    assert analyse_plot(grid, poly, "g", FAST).pattern == "regular"
+    assert analyse_plot(grid, poly, "g", FAST).verdict == "regular"
 
 
 def test_same_seed_same_numbers_and_plot_order_independent():

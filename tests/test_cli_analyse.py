@@ -184,7 +184,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
     out = tmp_path / "res"
     argv = [
         "analyse", str(pts), "--plots", str(plots), "--crs", "EPSG:32633", "-o", str(out),
-        "--simulations", "49", "--seed", "5", "--alpha", "0.1", "--alternative", "clustered",
+        "--simulations", "49", "--seed", "5", "--alpha", "0.1", "--direction", "clustered",
         "--guard", "3", "--quadrat", "20", "--stop-after", "0",
     ]  # fmt: skip
     rc, _, stderr = _run(argv, capsys)
@@ -194,7 +194,7 @@ def test_options_reach_the_analysis(survey, tmp_path, capsys):
         "simulations": 49,
         "seed": 5,
         "alpha": 0.1,
-        "alternative": "clustered",
+        "direction": "clustered",
         "guard_m": 3.0,
         "quadrat_m": 20.0,
         "min_points": 30,

@@ -32,7 +32,7 @@ X0, Y0 = 500_000.0, 5_000_000.0
 
 DISPERSION_COLUMNS = [
     "plot_id", "n", "area_m2", "density_per_ha", "mean_nn_m", "expected_nn_m", "R", "z", "p",
-    "R_donnelly", "z_donnelly", "p_donnelly", "p_mc", "pattern", "quadrat_size_m",
+    "R_donnelly", "z_donnelly", "p_donnelly", "p_mc", "verdict", "quadrat_size_m",
     "quadrat_chi2", "quadrat_df", "quadrat_p", "vmr", "morisita", "morisita_std", "warnings",
 ]  # fmt: skip
 
@@ -112,9 +112,9 @@ def test_ranks_regularity_as_built(stands):
     assert rows["planted"]["rank_regularity"] == 1
     assert rows["natural"]["rank_regularity"] == 2
     assert rows["thicket"]["rank_regularity"] == 3
-    assert rows["planted"]["pattern"] == "regular"
-    assert rows["natural"]["pattern"] == "random"
-    assert rows["thicket"]["pattern"] == "clustered"
+    assert rows["planted"]["verdict"] == "regular"
+    assert rows["natural"]["verdict"] == "random"
+    assert rows["thicket"]["verdict"] == "clustered"
     # recomputed from the points, not the R = 9.99 written in dispersion.csv
     assert rows["planted"]["R"] < 2.2
 
@@ -352,4 +352,4 @@ def test_group_label_follows_the_interval_shown_beside_it():
         assert (lo + hi) / 2 == pytest.approx(r["R_donnelly"])
         assert (hi - lo) / 2 == pytest.approx(sps.norm.ppf(0.975) * r["R_donnelly_se"])
         want = "regular" if lo > 1 else "clustered" if hi < 1 else "random"
-        assert r["pattern"] == want
+        assert r["verdict"] == want

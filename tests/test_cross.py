@@ -19,7 +19,7 @@ def test_cross_k_of_independent_uniform_patterns_is_pi_r2():
     for _ in range(200):
         a = uniform_in_polygon(POLY, 40, rng=rng)
         b = uniform_in_polygon(POLY, 60, rng=rng)
-        r, k = cross_k(a, b, POLY, 7.0, n_r=35)
+        r, k = cross_k(a, b, POLY, 7.0, steps=35)
         ks.append(k)
     mid = r > 2
     np.testing.assert_allclose(np.mean(ks, axis=0)[mid] / (np.pi * r[mid] ** 2), 1, atol=0.05)
@@ -30,7 +30,7 @@ def test_cross_k_matches_brute_force():
     rng = np.random.default_rng(4)
     a = uniform_in_polygon(POLY, 15, rng=rng)
     b = uniform_in_polygon(POLY, 20, rng=rng)
-    r, k = cross_k(a, b, POLY, 8.0, n_r=8)
+    r, k = cross_k(a, b, POLY, 8.0, steps=8)
     d = np.hypot(*(a[:, None, :] - b[None, :, :]).transpose(2, 0, 1))
     ii, jj = np.nonzero(d <= 8.0)
     w = 1 / circle_fraction_inside(a[ii], d[ii, jj], POLY)
@@ -48,7 +48,7 @@ def test_random_labels_are_not_flagged():
         xy = uniform_in_polygon(POLY, 120, rng=rng)
         lab = rng.uniform(size=120) < 0.3
         res = random_labelling_test(xy, lab, POLY, simulations=39, rng=rng)
-        ps.append(min(res.D.pvalue, res.L_cross.pvalue))
+        ps.append(min(res.D.pvalue, res.L_between_kinds.pvalue))
     assert np.mean(np.array(ps) <= 0.05) <= 0.3
 
 
@@ -65,15 +65,15 @@ def test_dead_plants_in_patches_are_detected():
     res = random_labelling_test(xy, dead, POLY, simulations=99, rng=7, labels=("live", "dead"))
     assert res.D.pvalue <= 0.02
     assert res.D.above[(res.r_m > 1) & (res.r_m < 4)].any()
-    assert res.L_cross.below.any()
+    assert res.L_between_kinds.below.any()
     # same seed, same numbers
     again = random_labelling_test(xy, dead, POLY, simulations=99, rng=7, labels=("live", "dead"))
-    np.testing.assert_array_equal(res.D.lo, again.D.lo)
+    np.testing.assert_array_equal(res.D.band_low, again.D.band_low)
 
 
 def test_cross_verdict_reads_the_patches():
     # the same synthetic ground truth as above, in plain words
-    from ecoscan.scales import cross_verdict
+    from ecoscan.scales import kinds_verdict
 
     rng = np.random.default_rng(6)
     xy = uniform_in_polygon(POLY, 400, rng=rng)
@@ -82,6 +82,6 @@ def test_cross_verdict_reads_the_patches():
     )
     dead = in_patch | (rng.uniform(size=400) < 0.02)
     res = random_labelling_test(xy, dead, POLY, simulations=99, rng=7, labels=("live", "dead"))
-    text = cross_verdict(res, 0.05)
+    text = kinds_verdict(res, 0.05)
     assert text.startswith("dead plants are more clustered among themselves than live plants")
     assert "random labelling: p = 0.01 for dead-dead clustering" in text

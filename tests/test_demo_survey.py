@@ -6,6 +6,7 @@ patterns each plot was built with are the ground truth here.
 
 import dataclasses
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -44,7 +45,7 @@ def demo_run(tmp_path_factory):
 
 def test_verdicts_match_how_the_plots_were_built(demo_run):
     _cfg, run = demo_run
-    got = {(r["raster"], r["plot_id"]): r["pattern"] for r in run.rows}
+    got = {(r["raster"], r["plot_id"]): r["verdict"] for r in run.rows}
     assert len(got) == 12  # 4 Tansy plots x 2 dates + 2 Marrow plots x 2 rasters
     wrong = {k: v for k, v in got.items() if v != BUILT_AS[k[1]]}
     assert not wrong, wrong
@@ -209,3 +210,70 @@ def test_survey_report_in_headless_chromium(demo_run):
     for heading in ("Summary", "Plots", "Comparison", "Change between dates", "Cautions"):
         assert f">{heading}</h2>" in html
     assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+# What a land manager sees: the index on screen at 1280 px and on the first A4 page.
+# A4 is 210 x 297 mm (ISO 216); with the report's 12 mm @page margins the printable area is
+# 186 x 273 mm = 703 x 1032 CSS px at 96 px per inch (CSS 2.1: 1 in = 96 px).
+A4_PRINTABLE_PX = (703, 1032)
+
+LAYOUT_JS = """
+(() => {
+  document.querySelectorAll('details').forEach(d => d.open = true);
+  const cw = document.documentElement.clientWidth;
+  const t = document.querySelector('#summary table');
+  const heads = Array.from(t.querySelectorAll('th')).map(h => h.textContent.trim());
+  const verdict = t.querySelectorAll('th')[heads.indexOf('verdict')].getBoundingClientRect();
+  const tb = t.getBoundingClientRect();
+  return {
+    cw: cw, page_width: document.documentElement.scrollWidth, heads: heads,
+    verdict_right: verdict.right, table_right: tb.right, table_bottom: tb.bottom + scrollY,
+    downscaled: Array.from(document.images).filter(i => i.width < i.naturalWidth - 1).length,
+    wide_tables: Array.from(document.querySelectorAll('table')).filter(
+      x => x.getBoundingClientRect().right > cw + 1).length,
+    images: document.images.length,
+  };
+})()
+"""
+
+
+@pytest.mark.browser
+def test_report_index_fits_screen_and_first_a4_page(demo_run):
+    """The index (with the verdict) fits 1280 px and the first printed A4 page; figures are
+    shown at their natural size (so their type is at the drawn 9 pt or more); the PDF prints."""
+    import os
+
+    from browser import browser_session, find_chromium
+
+    if find_chromium() is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("CI must run the browser test: install Debian's chromium")
+        pytest.skip("chromium is not installed (apt-get install chromium)")
+    _cfg, run = demo_run
+    with browser_session() as s:
+        s.open(run.output / "report.html")
+        screen = s.evaluate(LAYOUT_JS)
+        s.call("Emulation.setEmulatedMedia", media="print")
+        w, h = A4_PRINTABLE_PX
+        s.call(
+            "Emulation.setDeviceMetricsOverride",
+            width=w,
+            height=h,
+            deviceScaleFactor=1,
+            mobile=False,
+        )
+        paper = s.evaluate(LAYOUT_JS)
+        s.call("Emulation.clearDeviceMetricsOverride")
+        pdf = s.print_pdf()
+        assert s.errors() == []
+    assert screen["heads"] == [
+        "site", "date", "plot", "n", "plants/ha", "verdict", "p Monte Carlo", "check"
+    ]  # fmt: skip
+    assert screen["page_width"] <= screen["cw"]  # no horizontal scrolling at 1280 px
+    assert screen["table_right"] <= screen["cw"]
+    assert screen["downscaled"] == 0 and screen["images"] >= 40
+    assert paper["verdict_right"] <= w and paper["table_right"] <= w  # not clipped on A4
+    assert paper["table_bottom"] <= h  # the whole index, verdicts included, is on page 1
+    assert paper["wide_tables"] == 0 and paper["page_width"] <= paper["cw"]  # nothing clipped
+    pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
+    assert pdf[:5] == b"%PDF-" and pages > 3

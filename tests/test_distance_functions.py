@@ -6,12 +6,12 @@ import shapely
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.distance_functions import (
     EmptySpaceGrid,
-    border_cdf,
     csr_distance_cdf,
     empty_space_function,
     j_function,
     kaplan_meier_cdf,
     nn_function,
+    reduced_sample_cdf,
 )
 from ecoscan.stats.edge import boundary_distance
 
@@ -45,7 +45,7 @@ def test_border_cdf_brute_force():
     d, c = rng.uniform(0, 3, 50), rng.uniform(0, 3, 50)
     r = np.linspace(0.05, 2.5, 20)
     ref = [np.sum((d <= x) & (c >= x)) / np.sum(c >= x) for x in r]
-    np.testing.assert_allclose(border_cdf(d, c, r), ref)
+    np.testing.assert_allclose(reduced_sample_cdf(d, c, r), ref)
 
 
 def test_csr_G_F_J_match_theory_on_average():
@@ -62,8 +62,8 @@ def test_csr_G_F_J_match_theory_on_average():
         f = empty_space_function(xy, POLY, r, grid=grid)
         G.append(g.km)
         F.append(f.km)
-        Gb.append(g.border)
-        Fb.append(f.border)
+        Gb.append(g.reduced_sample)
+        Fb.append(f.reduced_sample)
     theo = csr_distance_cdf(r, lam)
     np.testing.assert_allclose(np.mean(G, axis=0), theo, atol=0.02)
     np.testing.assert_allclose(np.mean(F, axis=0), theo, atol=0.02)

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from ecoscan.stats.envelopes import envelope_test, erl_measure, pointwise_envelope
+from ecoscan.stats.envelopes import envelope_test, pointwise_envelope, rank_length_measure
 
 
 def _curves(rng, s, m=40):
@@ -23,7 +23,7 @@ def test_pointwise_envelope_ranks():
     np.testing.assert_array_equal(hi, 194)
 
 
-@pytest.mark.parametrize("test", ["erl", "mad"])
+@pytest.mark.parametrize("test", ["rank-length", "max-deviation"])
 def test_global_test_controls_the_error_rate(test):
     # Myllymäki et al. (2017), JRSS B 79: 381 and Baddeley et al. (2014), Ecol. Monogr. 84: 477:
     # under the null the observed curve is exchangeable with the simulations, so the global
@@ -32,9 +32,7 @@ def test_global_test_controls_the_error_rate(test):
     ps = []
     for _ in range(400):
         c = _curves(rng, 40)
-        ps.append(
-            envelope_test(c[0], c[1:], theoretical=np.zeros(40), alpha=0.05, test=test).pvalue
-        )
+        ps.append(envelope_test(c[0], c[1:], csr_value=np.zeros(40), alpha=0.05, test=test).pvalue)
     ps = np.array(ps)
     assert np.mean(ps <= 0.05) < 0.05 + 3 * 0.011
     assert np.mean(ps <= 0.5) == pytest.approx(0.5, abs=0.1)
@@ -47,8 +45,8 @@ def test_extreme_curve_gets_the_smallest_p_and_leaves_the_global_envelope():
     sims = rng.normal(size=(199, 30))
     obs = np.zeros(30)
     obs[10:15] = 8.0
-    for test in ("erl", "mad"):
-        env = envelope_test(obs, sims, theoretical=np.zeros(30), test=test)
+    for test in ("rank-length", "max-deviation"):
+        env = envelope_test(obs, sims, csr_value=np.zeros(30), test=test)
         assert env.pvalue == pytest.approx(1 / 200)
         assert np.all(env.above[10:15]) and not env.above[:10].any() and not env.below.any()
 
@@ -64,8 +62,10 @@ def test_global_envelope_agrees_with_test():
         obs = c[0] + (k % 3) * np.linspace(0, 3, 25)
         env = envelope_test(obs, c[1:], alpha=0.05)
         allc = np.vstack([obs, c[1:]])
-        assert np.all(env.lo >= allc.min(axis=0)) and np.all(env.hi <= allc.max(axis=0))
-        assert np.all(env.lo < env.hi)
+        assert np.all(env.band_low >= allc.min(axis=0)) and np.all(
+            env.band_high <= allc.max(axis=0)
+        )
+        assert np.all(env.band_low < env.band_high)
         out = bool(env.above.any() or env.below.any())
         agree += out == (env.pvalue <= 0.05)
     assert agree >= 58
@@ -75,7 +75,7 @@ def test_erl_measure_orders_by_extremeness_and_handles_ties():
     # lexicographic order of sorted pointwise ranks (Myllymäki et al. 2017): the curve at the
     # top everywhere is most extreme; identical curves share a measure
     c = np.array([[5.0, 5.0], [0.0, 1.0], [1.0, 0.0], [0.5, 0.5], [0.5, 0.5]])
-    e = erl_measure(c)
+    e = rank_length_measure(c)
     assert e[0] == e.min()
     assert e[3] == e[4] == e.max()
 

@@ -9,7 +9,7 @@ from ecoscan.stats.csr import uniform_in_polygon
 
 
 def test_requested_distance_beyond_the_plot_is_capped_with_a_note():
-    # issue 10, case 10: --rmax far beyond the plot silently reversed a verdict. Common
+    # issue 10, case 10: --max-distance far beyond the plot silently reversed a verdict. Common
     # practice: at most a quarter of the shorter side (exact geometry: 40 m → 10 m)
     plot = shapely.box(0, 0, 100, 40)
     r, note = supported_max_distance(plot, 200, 60.0)
@@ -23,6 +23,6 @@ def test_requested_distance_beyond_the_plot_is_capped_with_a_note():
 def test_scales_analysis_uses_the_capped_distance():
     plot = shapely.box(0, 0, 60, 30)
     xy = uniform_in_polygon(plot, 80, rng=3)
-    res = analyse_plot(xy, plot, "A", ScalesSettings(simulations=19, r_max_m=40.0, n_r=20))
-    assert res.r_max_m == 7.5
+    res = analyse_plot(xy, plot, "A", ScalesSettings(simulations=19, max_distance_m=40.0, steps=20))
+    assert res.max_distance_m == 7.5
     assert any("capped at 7.5 m" in w for w in res.warnings)

@@ -79,11 +79,11 @@ def test_clustered_and_regular_patterns_are_detected():
     clus = np.repeat(parents, 20, axis=0) + rng.normal(0, 1.0, (100, 2))
     clus = clus[shapely.contains_xy(RECT, clus[:, 0], clus[:, 1])]
     res = monte_carlo_nn(clus, RECT, simulations=199, rng=1)
-    assert res.direction == "clustered" and res.pvalue == pytest.approx(2 / 200)
+    assert res.side == "clustered" and res.pvalue == pytest.approx(2 / 200)
     j, i = np.mgrid[0:10, 0:20]
     grid = np.column_stack([i.ravel() * 5 + 2.5, j.ravel() * 5 + 2.5]).astype(float)
     res = monte_carlo_nn(grid, RECT, simulations=199, rng=1)
-    assert res.direction == "regular" and res.p_upper == pytest.approx(1 / 200)
+    assert res.side == "regular" and res.p_upper == pytest.approx(1 / 200)
 
 
 def test_mc_expected_close_to_donnelly_in_rectangle():
@@ -100,7 +100,7 @@ def test_needs_two_points_and_valid_arguments():
     with pytest.raises(ValueError):
         monte_carlo_nn(np.ones((5, 2)), RECT, simulations=0)
     with pytest.raises(ValueError):
-        monte_carlo_nn(np.ones((5, 2)), RECT, alternative="less")
+        monte_carlo_nn(np.ones((5, 2)), RECT, direction="less")
 
 
 # Calibration under complete spatial randomness. 400 random patterns of n = 30, each tested
@@ -160,7 +160,7 @@ def test_sequential_verdicts_equal_fixed_n_on_seeded_patterns():
         fixed = monte_carlo_nn(xy, RECT, simulations=499, rng=1)
         seq = monte_carlo_nn(xy, RECT, simulations=499, rng=1, stop_after=20)
         for res in (fixed, seq):
-            assert (res.direction if res.pvalue < 0.05 else "random") == want
+            assert (res.side if res.pvalue < 0.05 else "random") == want
     assert seq.simulations < 150 and fixed.simulations == 499
 
 

@@ -200,7 +200,7 @@ def test_direction_follows_sign_of_z():
     # Clark & Evans (1954): R < 1 (z < 0) aggregation, R > 1 (z > 0) regular spacing
     j, i = np.mgrid[0:20, 0:20]
     grid = np.column_stack([i.ravel() * 2.0, j.ravel() * 2.0])
-    assert clark_evans(grid, 40.0 * 40.0).direction == "regular"
+    assert clark_evans(grid, 40.0 * 40.0).side == "regular"
     clumped = np.vstack([grid[:200] * 0.01, grid[:200] * 0.01 + 0.001])
-    assert clark_evans(clumped, 40.0 * 40.0).direction == "clustered"
-    assert clark_evans(grid[:1], 10.0).direction == ""
+    assert clark_evans(clumped, 40.0 * 40.0).side == "clustered"
+    assert clark_evans(grid[:1], 10.0).side == ""

@@ -128,7 +128,5 @@ def test_too_few_simulations_warned_per_plot():
     xy = uniform_in_polygon(SQUARE_50, 40, rng=1)
     res = analyse_plot(xy, SQUARE_50, "A", DispersionSettings(simulations=19))
     assert any("smallest possible Monte Carlo p is 0.1" in w for w in res.warnings)
-    ok = analyse_plot(
-        xy, SQUARE_50, "A", DispersionSettings(simulations=39, alternative="clustered")
-    )
+    ok = analyse_plot(xy, SQUARE_50, "A", DispersionSettings(simulations=39, direction="clustered"))
     assert not any("smallest possible" in w for w in ok.warnings)

@@ -33,7 +33,7 @@ def test_g_is_unbiased_below_the_kernel_half_width_under_csr():
     pats = uniform_in_polygon(SQUARE, 1000, size=40, rng=rng)
     vals = []
     for xy in pats:
-        so = second_order(xy, SQUARE, 10.0, n_r=100, border=False)
+        so = second_order(xy, SQUARE, 10.0, steps=100, reduced_sample=False)
         vals.append(so.g_iso[so.r_m < so.bandwidth_m])
     vals = np.concatenate(vals)
     assert vals.size >= 100

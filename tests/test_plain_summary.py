@@ -32,7 +32,7 @@ def test_random_pattern_says_not_significant_and_too_few_simulations_says_so():
     box = shapely.box(0, 0, 50, 50)
     xy = rng.uniform(0, 50, (120, 2))
     res = analyse_plot(xy, box, "r", DispersionSettings(simulations=99))
-    assert res.pattern == "random"  # this seed: p_mc above 0.05
+    assert res.verdict == "random"  # this seed: p_mc above 0.05
     assert "no clear departure from random spacing" in res.summary
     assert "not significant" in res.summary
     few = analyse_plot(xy, box, "r", DispersionSettings(simulations=19))

@@ -26,7 +26,8 @@ def test_plan_writes_tables_and_figure(tmp_path, capsys):
     )
     assert code == 0
     text = capsys.readouterr().out
-    assert "detectable_clustered_R" in text and "power_density_change" in text
+    # headings from the vocabulary, not raw column keys
+    assert "detectable R, clustered" in text and "power, density change" in text
     rows = list(csv.DictReader((out / "plan-pattern.csv").open()))
     assert any(r["plants"] == "6" for r in rows)  # 400/ha on 150 m² = 6 plants
     design = list(csv.DictReader((out / "plan-design.csv").open()))

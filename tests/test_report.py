@@ -16,17 +16,17 @@ def _small_report(tmp_path):
     nn = rng.rayleigh(1.0, 80)
     f1 = nn_histogram_figure(tmp_path / "nn.png", nn, 0.08, title="test plot")
     rows = [
-        {"plot_id": "a", "n": 80, "R": 1.02, "pattern": "random", "warnings": ""},
+        {"plot_id": "a", "n": 80, "R": 1.02, "verdict": "random", "warnings": ""},
         {
             "plot_id": "b",
             "n": 20,
             "R": 1.7,
-            "pattern": "regular",
+            "verdict": "regular",
             "warnings": "fewer than 30 points",
         },
     ]
     f2 = r_against_n_figure(tmp_path / "rn.png", rows)
-    body = table_html(rows, ["plot_id", "n", "R", "pattern", "warnings"])
+    body = table_html(rows, ["plot_id", "n", "R", "verdict", "warnings"])
     body += figure_html(f1, "spacing") + figure_html(f2, "R against n")
     return build_report(
         tmp_path / "report.html",
@@ -92,5 +92,21 @@ def test_short_warning_flags():
         "only 22 points (fewer than 30): the tests have little power; 16 of 16 quadrats "
         "expect fewer than 5 points"
     )
-    assert short_warnings(text) == "n < 30, few per quadrat"
+    assert short_warnings(text) == "few plants"
     assert short_warnings("") == ""
+
+
+def test_warnings_in_plain_words_once():
+    from ecoscan.survey.reporting import plain_warnings
+
+    got = plain_warnings(
+        "only 22 points (fewer than 30): the tests have little power; read the verdict with "
+        "caution; 16 of 16 quadrats expect fewer than 5 points: quadrat_p is approximate "
+        "(quadrat_p_mc is exact)",
+        "only 22 plants: only strong patterns can be detected",
+    )
+    text = " ".join(got)
+    assert "quadrat_p" not in text and "quadrat_p_mc" not in text  # no column keys
+    assert got[0].startswith("Only 22 plants (fewer than 30)")
+    # the few-plants warning of the scales analysis is the same warning: said once
+    assert len(got) == 2 and all(w.endswith(".") for w in got)

@@ -74,12 +74,12 @@ def test_interpretation_matches_how_each_plot_was_built(results):
     # synthetic ground truth: rows are regular at short range, regeneration is clustered,
     # the scatter is random (the test's error rate is 5%, this seed is not a false alarm)
     rows, regen, scatter = results["rows"], results["regen"], results["scatter"]
-    assert rows.global_p <= 0.05 and rows.regular_ranges_m
+    assert rows.p_global <= 0.05 and rows.regular_ranges_m
     assert rows.regular_ranges_m[0][0] < 1.0 and rows.verdict.startswith("regular")
-    assert regen.global_p <= 0.05 and regen.clustered_ranges_m
+    assert regen.p_global <= 0.05 and regen.clustered_ranges_m
     assert regen.verdict.startswith("clustered")
     assert regen.clustered_ranges_m[0][0] < 2.0 < regen.clustered_ranges_m[0][1]
-    assert scatter.global_p > 0.05 and not scatter.clustered_ranges_m
+    assert scatter.p_global > 0.05 and not scatter.clustered_ranges_m
     assert scatter.verdict.startswith("no significant departure")
     small = results["small"]
     assert small.n == 18 and "only 18 plants" in small.verdict
@@ -95,7 +95,7 @@ def test_each_plot_has_its_own_stream_and_results_repeat(survey, results):
     inputs.membership = assign_plots(inputs.points, inputs.layer)
     again = {r.plot_id: r for r in analyse_scales(inputs, ScalesSettings(simulations=39, seed=3))}
     np.testing.assert_array_equal(
-        again["regen"].curves["L"].envelope.lo, results["regen"].curves["L"].envelope.lo
+        again["regen"].curves["L"].envelope.band_low, results["regen"].curves["L"].envelope.band_low
     )
 
 
@@ -158,20 +158,28 @@ def test_cli_writes_the_files(survey, tmp_path, capsys):
         "plot_id",
         "n",
         "global_test",
-        "global_p",
+        "p_global",
         "clustered_ranges_m",
         "regular_ranges_m",
         "verdict",
     ]
-    assert "dead" in rows[1]["cross_verdict"]
+    assert "dead" in rows[1]["kinds_verdict"]
     with open(out / "functions.csv") as fh:
         f = list(csv.DictReader(fh))
-    assert list(f[0])[:7] == ["plot_id", "function", "r_m", "observed", "theoretical", "lo", "hi"]
+    assert list(f[0])[:7] == [
+        "plot_id",
+        "function",
+        "distance_m",
+        "value",
+        "csr_value",
+        "band_low",
+        "band_high",
+    ]
     names = {r["function"] for r in f}
-    assert {"K", "L", "L_minus_r", "g", "G", "F", "J", "L_cross", "D_cross"} <= names
+    assert {"K", "L", "L_minus_r", "g", "G", "F", "J", "L_between_kinds", "K_difference"} <= names
     # K theoretical is πr² (Ripley 1977)
     k = next(r for r in f if r["function"] == "K")
-    assert float(k["theoretical"]) == pytest.approx(np.pi * float(k["r_m"]) ** 2, rel=1e-5)
+    assert float(k["csr_value"]) == pytest.approx(np.pi * float(k["distance_m"]) ** 2, rel=1e-5)
     meta = json.loads((out / "scales.json").read_text())
     assert meta["settings"]["simulations"] == 19
     assert sorted(p.name for p in (out / "figures").iterdir()) == [
@@ -222,12 +230,14 @@ def test_too_few_plants_and_envelope_labels(results):
     assert res.verdict.startswith("too few plants (5)") and not res.curves
     assert function_rows([res]) == []
     rows = function_rows([results["scatter"]])
-    assert {r["envelope"] for r in rows if r["function"] == "L"} == {"global erl 95%"}
-    assert {r["envelope"] for r in rows if r["function"] == "K_border"} == {"none"}
+    assert {r["band"] for r in rows if r["function"] == "L"} == {
+        "95% global band, rank-length test"
+    }
+    assert {r["band"] for r in rows if r["function"] == "K_reduced_sample"} == {"none"}
     # L(r) − r is L(r) minus the distance, row by row
     L = [r for r in rows if r["function"] == "L"]
     Lm = [r for r in rows if r["function"] == "L_minus_r"]
-    np.testing.assert_allclose([a["observed"] - a["r_m"] for a in L], [b["observed"] for b in Lm])
+    np.testing.assert_allclose([a["value"] - a["distance_m"] for a in L], [b["value"] for b in Lm])
 
 
 def test_interpret_merges_broken_runs_and_names_the_main_range():

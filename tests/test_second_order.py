@@ -7,7 +7,7 @@ from scipy.integrate import quad
 
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.edge import boundary_distance, circle_fraction_inside
-from ecoscan.stats.second_order import default_r_max, pcf_bandwidth, second_order
+from ecoscan.stats.second_order import default_max_distance, pcf_bandwidth, second_order
 
 
 def ring_by_quadrature(r: float, h: float) -> float:
@@ -30,11 +30,11 @@ IRREG = shapely.Polygon(
 
 def _mean_ratio(poly, n, reps, seed):
     pats = uniform_in_polygon(poly, n, size=reps, rng=seed)
-    r_max = default_r_max(poly, n)
-    res = [second_order(p, poly, r_max, n_r=50) for p in pats]
+    max_distance = default_max_distance(poly, n)
+    res = [second_order(p, poly, max_distance, steps=50) for p in pats]
     r = res[0].r_m
     k = np.mean([x.K_iso_m2 for x in res], axis=0)
-    kb = np.nanmean([x.K_border_m2 for x in res], axis=0)
+    kb = np.nanmean([x.K_reduced_sample_m2 for x in res], axis=0)
     L = np.mean([x.L_iso_m for x in res], axis=0)
     g = np.mean([x.g_iso for x in res], axis=0)
     return r, k, kb, L, g, res[0].bandwidth_m
@@ -63,7 +63,7 @@ def test_estimates_match_brute_force_sums(h):
     # proportion from shapely's clipping of a fine polygonal circle (reference library)
     rng = np.random.default_rng(4)
     xy = uniform_in_polygon(IRREG, 40, rng=rng)
-    res = second_order(xy, IRREG, 8.0, n_r=16, bandwidth_m=h)
+    res = second_order(xy, IRREG, 8.0, steps=16, bandwidth_m=h)
     # the bandwidth is rounded to whole eighths of the 0.5 m step (documented rule)
     assert abs(res.bandwidth_m - h) <= 0.5 / 16 + 1e-12
     h = res.bandwidth_m
@@ -92,7 +92,7 @@ def test_estimates_match_brute_force_sums(h):
             kb = area / (n - 1) * np.sum((dd <= r) * centres[ii]) / centres.sum()
         assert res.K_iso_m2[k] == pytest.approx(K, rel=1e-4)
         assert res.g_iso[k] == pytest.approx(g, rel=1e-4, abs=1e-9)
-        assert res.K_border_m2[k] == pytest.approx(kb, rel=1e-9, nan_ok=True)
+        assert res.K_reduced_sample_m2[k] == pytest.approx(kb, rel=1e-9, nan_ok=True)
     # and the exact edge weights agree with the polygonised circle
     np.testing.assert_allclose(circle_fraction_inside(xy[ii], dd, IRREG), frac, atol=1e-5)
 
@@ -107,13 +107,13 @@ def test_hard_core_pattern_has_K_zero_below_the_hard_core_distance():
         -0.2 / np.sqrt(2), 0.2 / np.sqrt(2), (X.size, 2)
     )
     poly = shapely.box(0, 0, 40, 40)
-    res = second_order(xy, poly, 10.0, n_r=100)
+    res = second_order(xy, poly, 10.0, steps=100)
     below = res.r_m < 2 - 0.4 * np.sqrt(2) * 1.0001
     assert np.all(res.K_iso_m2[below] == 0)
     np.testing.assert_allclose(res.L_minus_r_m[below], -res.r_m[below])
     assert np.all(res.K_iso_m2[res.r_m >= 2.2] > 0)
     # without jitter every neighbour is at exactly 2 m: K(r) counts d ≤ r, so K jumps at r = 2
-    exact = second_order(np.column_stack([X.ravel(), Y.ravel()]), poly, 10.0, n_r=100)
+    exact = second_order(np.column_stack([X.ravel(), Y.ravel()]), poly, 10.0, steps=100)
     assert exact.K_iso_m2[19] > 0 and exact.K_iso_m2[18] == 0  # r = 2.0 m and 1.9 m
 
 
@@ -126,7 +126,7 @@ def test_thomas_process_is_clustered_at_its_cluster_scale():
     parents = uniform_in_polygon(poly.buffer(4), 25, rng=rng)
     kids = np.repeat(parents, 12, axis=0) + rng.normal(0, 1.0, (300, 2))
     kids = kids[shapely.contains_xy(poly, kids[:, 0], kids[:, 1])]
-    res = second_order(kids, poly, 10.0, n_r=50)
+    res = second_order(kids, poly, 10.0, steps=50)
     scale = (res.r_m >= 1) & (res.r_m <= 4)
     assert np.all(res.L_minus_r_m[scale] > 0.5)
     assert np.all(res.g_iso[(res.r_m >= 0.5) & (res.r_m <= 2)] > 2)
@@ -135,6 +135,6 @@ def test_thomas_process_is_clustered_at_its_cluster_scale():
 def test_default_r_max_and_bandwidth_rules():
     # documented rules: min(shorter side / 4, 10 / √λ); h = 0.15 / √λ (Stoyan & Stoyan 1994,
     # constant from memory)
-    assert default_r_max(RECT, 50) == pytest.approx(30 / 4)
-    assert default_r_max(RECT, 10_000) == pytest.approx(10 * np.sqrt(1800 / 10_000))
+    assert default_max_distance(RECT, 50) == pytest.approx(30 / 4)
+    assert default_max_distance(RECT, 10_000) == pytest.approx(10 * np.sqrt(1800 / 10_000))
     assert pcf_bandwidth(4.0) == pytest.approx(0.075)

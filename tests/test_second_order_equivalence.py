@@ -101,7 +101,7 @@ def test_K_and_g_equal_the_defining_sums(name, chunk, monkeypatch):
         monkeypatch.setattr(so, "_PAIR_CHUNK", chunk)
     poly = CASES[name]
     xy = uniform_in_polygon(poly, 600, rng=np.random.default_rng(3))
-    res = second_order(xy, poly, 6.0, n_r=60, bandwidth_m=0.35, border=False)
+    res = second_order(xy, poly, 6.0, steps=60, bandwidth_m=0.35, reduced_sample=False)
     K, g, *_ = _brute_force(xy, poly, res.r_m, res.bandwidth_m)
     np.testing.assert_allclose(res.K_iso_m2, K, rtol=1e-12)
     np.testing.assert_allclose(res.g_iso, g, rtol=1e-12, atol=1e-12 * np.max(np.abs(g)))

@@ -68,7 +68,7 @@ def test_empty_single_and_uncovered_plots(tmp_path):
     rows = {r["plot_id"]: r for r in run.rows}
     assert set(rows) == {"west", "lone", "bare"}  # "away" is not on the raster
     assert rows["bare"]["n"] == 0 and rows["bare"]["warnings"]
-    assert rows["lone"]["n"] == 1 and rows["lone"]["pattern"] == ""
+    assert rows["lone"]["n"] == 1 and rows["lone"]["verdict"] == ""
     assert abs(rows["west"]["n"] - n_west) <= 1
     html = (tmp_path / "out" / "report.html").read_text()
     assert "Plot bare" in html and "Plot lone" in html

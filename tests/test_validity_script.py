@@ -121,7 +121,7 @@ def test_entries_give_the_commands_numbers():
     p = {e.name: e.pvalue(xy, poly, rng) for e in v.REGISTRY if e.command == "analyse"}
     assert p["Clark–Evans R, no edge correction"] == row["p"]
     assert p["Clark–Evans R, Donnelly correction"] == row["p_donnelly"]
-    assert p["Monte Carlo NN test (the `pattern` verdict)"] == row["p_mc"]
+    assert p["Monte Carlo NN test (the `verdict`)"] == row["p_mc"]
     assert p["quadrat exact (quadrat_p_mc)"] == row["quadrat_p_mc"]
     reject = abs(row["morisita_std"]) >= 0.5
     assert p["standardised Morisita I_p beyond ±0.5"] == (0.0 if reject else 1.0)
@@ -132,8 +132,8 @@ def test_entries_give_the_commands_numbers():
     (erl,) = _entries("global envelope, L, extreme")
     mine = erl.pvalue(xy, poly, plot_rng(1, "a"))
     theirs = scales_plot(xy, poly, "a", ScalesSettings(simulations=99, functions=("L",)))
-    assert theirs.global_test == "erl" and theirs.test_function == "L"
-    assert mine == theirs.global_p
+    assert theirs.global_test == "rank-length" and theirs.test_function == "L"
+    assert mine == theirs.p_global
 
 
 def test_uncorrected_clark_evans_size_matches_donnellys_edge_bias():

@@ -76,7 +76,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"ecoscan {__version__}")
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--quiet", action="store_true", help="no progress bars or notes")
+    common.add_argument(
+        "--quiet", action="store_true", help="no progress bars or notes (warnings still show)"
+    )
     common.add_argument(
         "--verbose",
         action="store_true",

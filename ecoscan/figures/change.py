@@ -76,7 +76,7 @@ def change_map(
                 str(plot_ids[i]),
                 (rp.x - x0, rp.y - y0),
                 color="#222222",
-                fontsize=8,
+                fontsize=9,
                 ha="center",
                 zorder=4,
                 bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.7},
@@ -103,7 +103,6 @@ def change_map(
     ax.set_ylabel(f"Northing − {y0:.0f} (m)")
     ax.set_title(
         f"{title}\nshift removed: {shift_m[0]:+.2f} m east, {shift_m[1]:+.2f} m north",
-        fontsize=10,
     )
     ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, title="status")
     if span > 0:

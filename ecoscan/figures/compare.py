@@ -65,7 +65,8 @@ def r_by_group(
     high = np.asarray(high, float)
     order = np.argsort(-np.where(np.isfinite(r), r, -np.inf), kind="stable")
     k = len(order)
-    fig, ax = new_figure(max(4.5, 0.7 * k + 2.5), 4.2)
+    # at most 9.5 in (912 px at 96 dpi) so the report shows it at full size at 1280 px
+    fig, ax = new_figure(min(9.5, max(4.5, 0.7 * k + 2.5)), 4.2)
     pos = np.arange(k)
     seen: set[str] = set()
     for j, i in enumerate(order):
@@ -106,5 +107,5 @@ def r_by_group(
     ax.set_xlabel(f"{by} (most regular first)")
     ax.set_ylabel("Clark–Evans R (ratio, no unit), 95% CI")
     ax.set_title(title, fontsize=10)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     return fig

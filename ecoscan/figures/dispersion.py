@@ -50,7 +50,7 @@ def _plot_frame(ax, polygon: shapely.Geometry, pad: float, title: str) -> None:
     ax.set_aspect("equal")
     ax.set_xlabel("easting from plot corner (m)")
     ax.set_ylabel("northing from plot corner (m)")
-    ax.set_title(title, fontsize=10)
+    ax.set_title(title)
 
 
 def plot_map_figure(
@@ -62,6 +62,7 @@ def plot_map_figure(
     image_extent: tuple[float, float, float, float] | None = None,
     title: str = "",
     sizes_m: np.ndarray | None = None,
+    image_kind: str = "rgb",
 ) -> Path:
     """Map of the plants in a plot over an image thumbnail, with the plot outline.
 
@@ -81,22 +82,43 @@ def plot_map_figure(
         Figure title.
     sizes_m : numpy.ndarray, optional
         Crown diameters in metres, drawn to scale as circles.
+    image_kind : {'rgb', 'grey', 'height', 'classes'}
+        How to draw ``image``: colour photo, grey, canopy height in metres (viridis with a
+        colour bar) or class values (Okabe–Ito colours with a legend).
+
+    Returns
+    -------
+    pathlib.Path
+
+    Examples
+    --------
+    >>> import tempfile, shapely, numpy as np
+    >>> out = plot_map_figure(tempfile.mktemp(suffix=".png"), shapely.box(0, 0, 10, 10),
+    ...                       np.array([[2.0, 3.0], [7.0, 8.0]]))
+    >>> out.exists()
+    True
     """
     x0, y0, x1, y1 = polygon.bounds
     pad = 0.04 * max(x1 - x0, y1 - y0)
-    fig, ax = new_figure(5.2, 5.2 * max(0.5, min(1.6, (y1 - y0) / max(x1 - x0, 1e-9))))
+    fig, ax = new_figure(5.6, 5.0 * max(0.5, min(1.6, (y1 - y0) / max(x1 - x0, 1e-9))))
     ax.grid(False)
+    handles = []
     if image is not None and image_extent is not None:
         left, right, bottom, top = image_extent
-        cmap = "gray" if image.ndim == 2 else None
-        ax.imshow(
-            image,
-            extent=(left - x0, right - x0, bottom - y0, top - y0),
-            cmap=cmap,
-            interpolation="nearest",
-        )
-    add_polygon(ax, polygon, (x0, y0), edgecolor="#ffffff", linewidth=2.4)
-    add_polygon(ax, polygon, (x0, y0), edgecolor="#1f4e8c", linewidth=1.2)
+        ext = (left - x0, right - x0, bottom - y0, top - y0)
+        if image_kind == "height":
+            im = ax.imshow(
+                np.ma.masked_invalid(image), extent=ext, cmap="viridis", interpolation="nearest"
+            )
+            fig.colorbar(im, ax=ax, shrink=0.75, pad=0.02, label="canopy height (m)")
+        elif image_kind == "classes":
+            handles += _class_backdrop(ax, image, ext)
+        else:
+            ax.imshow(
+                image, extent=ext, cmap="gray" if image.ndim == 2 else None, interpolation="nearest"
+            )
+    add_polygon(ax, polygon, (x0, y0), edgecolor="#ffffff", linewidth=2.6)
+    add_polygon(ax, polygon, (x0, y0), edgecolor="#1f4e8c", linewidth=1.3)
     if len(xy):
         if sizes_m is not None and np.all(np.isfinite(sizes_m)):
             from matplotlib.collections import EllipseCollection
@@ -110,22 +132,63 @@ def plot_map_figure(
                     offsets=xy - (x0, y0),
                     offset_transform=ax.transData,
                     facecolors="none",
-                    edgecolors=PALETTE["new"],
+                    edgecolors="#ffffff",
                     linewidths=0.8,
                 )
             )
-        ax.plot(
+        (pts,) = ax.plot(
             xy[:, 0] - x0,
             xy[:, 1] - y0,
-            "+",
-            color="#e3b505",
-            ms=5,
-            mew=1.1,
+            "o",
+            mfc="#ffffff",
+            mec="#000000",
+            ms=3.6,
+            mew=0.8,
+            linestyle="none",
             label=f"{len(xy)} detected plants",
         )
-        ax.legend(loc="upper right", fontsize=8, framealpha=0.85)
+        handles.insert(0, pts)
+    if handles:
+        # below the map, outside the data
+        ax.legend(
+            handles=handles,
+            loc="upper left",
+            bbox_to_anchor=(0.0, -0.13),
+            ncol=min(3, len(handles)),
+            frameon=False,
+        )
     _plot_frame(ax, polygon, pad, title)
     return save_figure(fig, path)
+
+
+def _class_backdrop(ax, image: np.ndarray, extent) -> list:
+    """Draw a class raster in Okabe–Ito colours; legend handles for the classes shown."""
+    from matplotlib.colors import ListedColormap
+    from matplotlib.patches import Patch
+
+    from ecoscan.figures import CLASS_COLOURS
+
+    vals = image[np.isfinite(image)]
+    classes = [int(v) for v in np.unique(vals)][: len(CLASS_COLOURS)]
+    if not classes:
+        return []
+    idx = np.full(image.shape, np.nan)
+    for i, c in enumerate(classes):
+        idx[image == c] = i
+    cmap = ListedColormap(CLASS_COLOURS[: len(classes)])
+    ax.imshow(
+        np.ma.masked_invalid(idx),
+        extent=extent,
+        cmap=cmap,
+        vmin=-0.5,
+        vmax=len(classes) - 0.5,
+        interpolation="nearest",
+        alpha=0.75,
+    )
+    return [
+        Patch(facecolor=CLASS_COLOURS[i], alpha=0.75, label=f"class {c}")
+        for i, c in enumerate(classes)
+    ]
 
 
 def nn_histogram_figure(
@@ -152,7 +215,7 @@ def nn_histogram_figure(
             color="#8fa8c8",
             edgecolor="#1f4e8c",
             linewidth=0.6,
-            label=f"observed (n = {d.size})",
+            label=f"measured (n = {d.size})",
         )
         r = np.linspace(0, top, 300)
         lam = density_per_m2
@@ -169,7 +232,7 @@ def nn_histogram_figure(
             color="#1f4e8c",
             linestyle="--",
             linewidth=1,
-            label=f"observed mean {d.mean():.2f} m",
+            label=f"measured mean {d.mean():.2f} m",
         )
         ax.axvline(
             0.5 / np.sqrt(lam),
@@ -178,10 +241,10 @@ def nn_histogram_figure(
             linewidth=1.2,
             label=f"random mean {0.5 / np.sqrt(lam):.2f} m",
         )
-        ax.legend(fontsize=8)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     ax.set_xlabel("distance to nearest neighbour (m)")
     ax.set_ylabel("number of plants")
-    ax.set_title(title, fontsize=10)
+    ax.set_title(title)
     return save_figure(fig, path)
 
 
@@ -214,7 +277,7 @@ def quadrat_map_figure(
                 str(int(c)),
                 ha="center",
                 va="center",
-                fontsize=7,
+                fontsize=9,
                 color="white" if norm(c) < 0.55 else "black",
             )
     add_polygon(ax, polygon, (x0, y0), edgecolor="#222222", linewidth=1.2)
@@ -249,12 +312,12 @@ def r_against_n_figure(
     )
     ax.axhline(1, color="#7f7f7f", linewidth=0.8)
     ax.axhline(2.1491, color="#1f4e8c", linewidth=0.6, linestyle=":")
-    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=7, color="#1f4e8c")
+    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=9, color="#1f4e8c")
     ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
-    ax.text(30, 0.02, " 30 points", fontsize=7, color="#666666")
+    ax.text(30, 0.02, " 30 points", fontsize=9, color="#666666")
     labelled: set = set()
     for key in ("clustered", "random", "regular"):
-        sel = [r for r in rows if r.get("pattern") == key and r.get("R") not in (None, "")]
+        sel = [r for r in rows if r.get("verdict") == key and r.get("R") not in (None, "")]
         if sel:
             ax.scatter(
                 [float(r["n"]) for r in sel],
@@ -274,7 +337,7 @@ def r_against_n_figure(
                 ax.annotate(
                     str(r.get(label_key, "")),
                     (float(r["n"]), float(r["R"])),
-                    fontsize=7,
+                    fontsize=9,
                     xytext=(4, 3),
                     textcoords="offset points",
                 )
@@ -282,5 +345,5 @@ def r_against_n_figure(
     ax.set_ylim(0, 2.3)
     ax.set_xlabel("number of plants in the plot, n")
     ax.set_ylabel("Clark–Evans R (no edge correction)")
-    ax.legend(fontsize=8, loc="lower right")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     return save_figure(fig, path)

@@ -16,7 +16,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ecoscan.figures import MARKERS, PALETTE, save_figure
+from ecoscan.figures import FIGURE_DPI, MARKERS, PALETTE, save_figure
 
 __all__ = ["plot_scales_figure"]
 
@@ -35,7 +35,7 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
     ax.grid(True, color="#dddddd", linewidth=0.6)
     ax.set_axisbelow(True)
     if env is not None:
-        lo, hi = env.lo, env.hi
+        lo, hi = env.band_low, env.band_high
         if np.any(np.isfinite(lo)):
             ax.fill_between(
                 r,
@@ -44,17 +44,17 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
                 color="#cccccc",
                 alpha=0.8,
                 linewidth=0,
-                label=f"global envelope ({100 * (1 - env.alpha):g}%)",
+                label=f"global {100 * (1 - env.alpha):g}% band of random patterns",
             )
-        ax.plot(r, env.lo_pointwise, "--", color="#777777", linewidth=0.8, label="pointwise")
-        ax.plot(r, env.hi_pointwise, "--", color="#777777", linewidth=0.8)
+        ax.plot(r, env.pointwise_low, "--", color="#777777", linewidth=0.8, label="pointwise band")
+        ax.plot(r, env.pointwise_high, "--", color="#777777", linewidth=0.8)
     if theo is not None and np.any(np.isfinite(theo)):
-        ax.plot(r, theo, ":", color="#444444", linewidth=1.0, label="random (theory)")
-    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="observed")
+        ax.plot(r, theo, ":", color="#444444", linewidth=1.0, label="random pattern")
+    ax.plot(r, obs, "-", color="black", linewidth=1.4, label="measured")
     if env is not None and np.isfinite(env.pvalue):
         up = env.above if sign > 0 else env.below
         down = env.below if sign > 0 else env.above
-        ymin = np.nanmin(np.r_[obs, env.lo_pointwise]) if np.any(np.isfinite(obs)) else 0
+        ymin = np.nanmin(np.r_[obs, env.pointwise_low]) if np.any(np.isfinite(obs)) else 0
         for mask, key, lab in ((up, "clustered", names[0]), (down, "regular", names[1])):
             if np.any(mask):
                 ax.plot(
@@ -62,14 +62,15 @@ def _panel(ax, r, obs, theo, env, ylabel, title, sign=1, names=("clustered", "re
                     np.full(int(mask.sum()), ymin),
                     MARKERS[key],
                     color=PALETTE[key],
-                    markersize=3.5,
+                    markersize=4,
                     linestyle="none",
                     label=lab,
                 )
-        title = f"{title}  (global p = {env.pvalue:.3g})"
+        p = "<0.001" if env.pvalue < 0.001 else f"= {env.pvalue:.3f}"
+        title = f"{title}  (global p {p})"
     ax.set_xlabel("distance r (m)")
     ax.set_ylabel(ylabel)
-    ax.set_title(title, fontsize=9)
+    ax.set_title(title)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
 
@@ -95,7 +96,9 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
     npan = len(names) + extra
     ncol = 2
     nrow = int(np.ceil(npan / ncol))
-    fig, axes = plt.subplots(nrow, ncol, figsize=(10, 3.2 * nrow + 0.8), dpi=110, squeeze=False)
+    fig, axes = plt.subplots(
+        nrow, ncol, figsize=(10, 3.3 * nrow + 1.4), dpi=FIGURE_DPI, squeeze=False
+    )
     flat = axes.ravel()
     for ax, k in zip(flat, names, strict=False):
         c = result.curves[k]
@@ -104,35 +107,36 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
             _panel(
                 ax,
                 c.r_m,
-                _clip(c.observed),
-                c.theoretical,
+                _clip(c.value),
+                c.csr_value,
                 _clip_env(c.envelope),
                 ylabel,
                 title,
                 _SIGN[k],
             )
             ax.set_yscale("log")
-            ax.set_ylabel("J(r) (dimensionless, log scale)")
+            ax.set_ylim(*_j_limits(c))
+            ax.set_ylabel("J(r) (log scale)")
         else:
-            _panel(ax, c.r_m, c.observed, c.theoretical, c.envelope, ylabel, title, _SIGN[k])
+            _panel(ax, c.r_m, c.value, c.csr_value, c.envelope, ylabel, title, _SIGN[k])
     if result.cross is not None:
         x = result.cross
         a, b = x.label_a, x.label_b
         _panel(
             flat[len(names)],
             x.r_m,
-            x.L_cross.observed - x.r_m,
-            x.L_cross.centre - x.r_m,
-            _shift(x.L_cross, x.r_m),
-            "L_cross(r) − r (m)",
-            f"cross-L, {b} around {a} (random labelling)",
+            x.L_between_kinds.value - x.r_m,
+            x.L_between_kinds.centre - x.r_m,
+            _shift(x.L_between_kinds, x.r_m),
+            "L between kinds, L(r) − r (m)",
+            f"L between kinds: {b} around {a} (random labelling)",
             1,
             (f"{b} near {a}", "segregated"),
         )
         _panel(
             flat[len(names) + 1],
             x.r_m,
-            x.D.observed,
+            x.D.value,
             x.D.centre,
             x.D,
             "K_BB(r) − K_AA(r) (m²)",
@@ -142,11 +146,37 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
         )
     for ax in flat[npan:]:
         ax.set_visible(False)
-    flat[0].legend(fontsize=7, loc="best", frameon=False)
+    # one legend for all panels, above them (never over a curve)
+    seen: dict[str, object] = {}
+    for ax in flat[:npan]:
+        for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+            seen.setdefault(lab, h)
     head = f"plot {result.plot_id}: {result.n} plants, {result.area_m2:.0f} m²"
-    fig.suptitle(head + "\n" + textwrap.fill(result.verdict, 110), fontsize=9.5)
-    fig.tight_layout()
+    fig.suptitle(head + "\n" + textwrap.fill(result.verdict, 100))
+    fig.tight_layout(rect=(0, 0, 1, 1 - 1.05 / fig.get_figheight()))
+    fig.legend(
+        list(seen.values()),
+        list(seen),
+        loc="upper center",
+        bbox_to_anchor=(0.5, 1 - 0.62 / fig.get_figheight()),
+        ncol=min(4, len(seen)),
+        frameon=False,
+    )
     return save_figure(fig, path)
+
+
+def _j_limits(curve) -> tuple[float, float]:
+    """Log-axis limits for J from the measured curve and its band (not the clip values)."""
+    vals = [curve.value]
+    if curve.envelope is not None:
+        vals += [curve.envelope.band_low, curve.envelope.band_high]
+    v = np.concatenate([np.asarray(a, float) for a in vals])
+    v = v[np.isfinite(v) & (v > 0)]
+    if v.size == 0:
+        return 0.1, 10.0
+    lo, hi = float(v.min()), float(v.max())
+    lo, hi = max(0.01, lo / 1.3), min(100.0, hi * 1.3)
+    return (lo, hi) if hi > lo * 1.5 else (lo / 1.5, hi * 1.5)
 
 
 def _clip(v):
@@ -160,11 +190,11 @@ def _clip_env(env):
         return None
     return replace(
         env,
-        observed=_clip(env.observed),
-        lo=_clip(env.lo),
-        hi=_clip(env.hi),
-        lo_pointwise=_clip(env.lo_pointwise),
-        hi_pointwise=_clip(env.hi_pointwise),
+        value=_clip(env.value),
+        band_low=_clip(env.band_low),
+        band_high=_clip(env.band_high),
+        pointwise_low=_clip(env.pointwise_low),
+        pointwise_high=_clip(env.pointwise_high),
     )
 
 
@@ -174,10 +204,10 @@ def _shift(env, r):
 
     return replace(
         env,
-        observed=env.observed - r,
+        value=env.value - r,
         centre=env.centre - r,
-        lo=env.lo - r,
-        hi=env.hi - r,
-        lo_pointwise=env.lo_pointwise - r,
-        hi_pointwise=env.hi_pointwise - r,
+        band_low=env.band_low - r,
+        band_high=env.band_high - r,
+        pointwise_low=env.pointwise_low - r,
+        pointwise_high=env.pointwise_high - r,
     )

@@ -33,7 +33,7 @@ import shapely
 
 from ecoscan.stats.csr import as_rng
 from ecoscan.stats.envelopes import Envelope, envelope_test
-from ecoscan.stats.second_order import PairTable, default_r_max, r_grid
+from ecoscan.stats.second_order import PairTable, default_max_distance, r_grid
 
 __all__ = ["CrossResult", "cross_k", "random_labelling_test"]
 
@@ -50,7 +50,7 @@ class CrossResult:
         The two kinds.
     n_a, n_b : int
         Plants of each kind.
-    L_cross : Envelope
+    L_between_kinds : Envelope
         L_AB(r) in metres, with its envelope.
     D : Envelope
         K_BB(r) − K_AA(r) in m², with its envelope (centre 0).
@@ -61,16 +61,16 @@ class CrossResult:
     label_b: str
     n_a: int
     n_b: int
-    L_cross: Envelope
+    L_between_kinds: Envelope
     D: Envelope
 
 
-def _label_sums(pt: PairTable, is_b: np.ndarray, kc: np.ndarray, n_r: int) -> np.ndarray:
-    """Cumulative weighted pair sums per label combination, shape (4, n_r): AA, AB, BA, BB."""
+def _label_sums(pt: PairTable, is_b: np.ndarray, kc: np.ndarray, steps: int) -> np.ndarray:
+    """Cumulative weighted pair sums per label combination, shape (4, steps): AA, AB, BA, BB."""
     code = 2 * is_b[pt.i].astype(np.intp) + is_b[pt.j]
     wt = np.where(code == 1, pt.w_i, np.where(code == 2, pt.w_j, pt.w_i + pt.w_j))
-    c = np.bincount(code * (n_r + 2) + kc, weights=wt, minlength=4 * (n_r + 2))
-    return np.cumsum(c.reshape(4, n_r + 2), axis=1)[:, 1 : n_r + 1]
+    c = np.bincount(code * (steps + 2) + kc, weights=wt, minlength=4 * (steps + 2))
+    return np.cumsum(c.reshape(4, steps + 2), axis=1)[:, 1 : steps + 1]
 
 
 def _functions(sums: np.ndarray, area: float, n_a: int, n_b: int) -> tuple[np.ndarray, ...]:
@@ -80,17 +80,17 @@ def _functions(sums: np.ndarray, area: float, n_a: int, n_b: int) -> tuple[np.nd
     return np.sqrt(k_ab / np.pi), k_bb - k_aa
 
 
-def _bins(d: np.ndarray, dr: float, n_r: int) -> np.ndarray:
-    return np.minimum(np.ceil(d / dr - 1e-9), n_r + 1).astype(np.intp)
+def _bins(d: np.ndarray, dr: float, steps: int) -> np.ndarray:
+    return np.minimum(np.ceil(d / dr - 1e-9), steps + 1).astype(np.intp)
 
 
 def cross_k(
     xy_a: np.ndarray,
     xy_b: np.ndarray,
     polygon: shapely.Geometry,
-    r_max_m: float,
+    max_distance_m: float,
     *,
-    n_r: int = 100,
+    steps: int = 100,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Isotropic-corrected cross-K of kind B around kind A.
 
@@ -100,9 +100,9 @@ def cross_k(
         Points of each kind, metres.
     polygon : shapely.Polygon or shapely.MultiPolygon
         The window.
-    r_max_m : float
+    max_distance_m : float
         Largest distance, metres.
-    n_r : int
+    steps : int
         Number of distances.
 
     Returns
@@ -118,9 +118,9 @@ def cross_k(
     xy_b = np.asarray(xy_b, float).reshape(-1, 2)
     xy = np.vstack([xy_a, xy_b])
     is_b = np.r_[np.zeros(len(xy_a), bool), np.ones(len(xy_b), bool)]
-    r = r_grid(r_max_m, n_r)
-    pt = PairTable(xy, polygon, r_max_m)
-    sums = _label_sums(pt, is_b, _bins(pt.d, r_max_m / n_r, n_r), n_r)
+    r = r_grid(max_distance_m, steps)
+    pt = PairTable(xy, polygon, max_distance_m)
+    sums = _label_sums(pt, is_b, _bins(pt.d, max_distance_m / steps, steps), steps)
     k_ab = polygon.area / (len(xy_a) * len(xy_b)) * (sums[1] + sums[2])
     return r, k_ab
 
@@ -130,11 +130,11 @@ def random_labelling_test(
     is_b: np.ndarray,
     polygon: shapely.Geometry,
     *,
-    r_max_m: float | None = None,
-    n_r: int = 100,
+    max_distance_m: float | None = None,
+    steps: int = 100,
     simulations: int = 199,
     alpha: float = 0.05,
-    test: str = "erl",
+    test: str = "rank-length",
     rng: int | np.random.Generator | None = None,
     labels: tuple[str, str] = ("A", "B"),
 ) -> CrossResult:
@@ -148,15 +148,15 @@ def random_labelling_test(
         True for kind B, False for kind A.
     polygon : shapely.Polygon or shapely.MultiPolygon
         The window.
-    r_max_m : float, optional
-        Largest distance, metres (default :func:`ecoscan.stats.second_order.default_r_max`).
-    n_r : int
+    max_distance_m : float, optional
+        Largest distance, metres (default :func:`ecoscan.stats.second_order.default_max_distance`).
+    steps : int
         Number of distances.
     simulations : int
         Random relabellings.
     alpha : float
         Envelope level.
-    test : {'erl', 'mad'}
+    test : {'rank-length', 'max-deviation'}
         Global test.
     rng : int or numpy.random.Generator, optional
         Seed or generator.
@@ -179,18 +179,18 @@ def random_labelling_test(
     if n_a < 2 or n_b < 2:
         raise ValueError("each kind needs at least 2 plants")
     gen = as_rng(rng)
-    if r_max_m is None:
-        r_max_m = default_r_max(polygon, xy.shape[0])
-    r = r_grid(r_max_m, n_r)
+    if max_distance_m is None:
+        max_distance_m = default_max_distance(polygon, xy.shape[0])
+    r = r_grid(max_distance_m, steps)
     area = float(polygon.area)
-    pt = PairTable(xy, polygon, r_max_m)
-    kc = _bins(pt.d, r_max_m / n_r, n_r)
-    l_obs, d_obs = _functions(_label_sums(pt, is_b, kc, n_r), area, n_a, n_b)
-    l_sim = np.empty((simulations, n_r))
-    d_sim = np.empty((simulations, n_r))
+    pt = PairTable(xy, polygon, max_distance_m)
+    kc = _bins(pt.d, max_distance_m / steps, steps)
+    l_obs, d_obs = _functions(_label_sums(pt, is_b, kc, steps), area, n_a, n_b)
+    l_sim = np.empty((simulations, steps))
+    d_sim = np.empty((simulations, steps))
     for s in range(simulations):
         lab = gen.permutation(is_b)
-        l_sim[s], d_sim[s] = _functions(_label_sums(pt, lab, kc, n_r), area, n_a, n_b)
+        l_sim[s], d_sim[s] = _functions(_label_sums(pt, lab, kc, steps), area, n_a, n_b)
     env_l = envelope_test(l_obs, l_sim, alpha=alpha, test=test)
-    env_d = envelope_test(d_obs, d_sim, theoretical=np.zeros(n_r), alpha=alpha, test=test)
+    env_d = envelope_test(d_obs, d_sim, csr_value=np.zeros(steps), alpha=alpha, test=test)
     return CrossResult(r, str(labels[0]), str(labels[1]), n_a, n_b, env_l, env_d)

@@ -34,12 +34,12 @@ from ecoscan.stats.nearest import nn_distances
 __all__ = [
     "DistanceFunction",
     "EmptySpaceGrid",
-    "border_cdf",
     "csr_distance_cdf",
     "empty_space_function",
     "j_function",
     "kaplan_meier_cdf",
     "nn_function",
+    "reduced_sample_cdf",
 ]
 
 #: Default number of test locations for F.
@@ -64,8 +64,8 @@ class DistanceFunction:
 
     r_m: np.ndarray
     km: np.ndarray
-    border: np.ndarray
-    theoretical: np.ndarray
+    reduced_sample: np.ndarray
+    csr_value: np.ndarray
 
 
 def csr_distance_cdf(r_m: np.ndarray, intensity_per_m2: float) -> np.ndarray:
@@ -120,7 +120,7 @@ def kaplan_meier_cdf(distance_m: np.ndarray, censor_m: np.ndarray, r_m: np.ndarr
     return 1.0 - s
 
 
-def border_cdf(distance_m: np.ndarray, censor_m: np.ndarray, r_m: np.ndarray) -> np.ndarray:
+def reduced_sample_cdf(distance_m: np.ndarray, censor_m: np.ndarray, r_m: np.ndarray) -> np.ndarray:
     """Reduced-sample estimate #{d ≤ r ≤ c} / #{c ≥ r} (NaN where no location has c ≥ r)."""
     d = np.asarray(distance_m, float)
     c = np.asarray(censor_m, float)
@@ -170,7 +170,7 @@ def nn_function(
     d = nn_distances(xy)
     lam = xy.shape[0] / polygon.area
     return DistanceFunction(
-        r, kaplan_meier_cdf(d, b, r), border_cdf(d, b, r), csr_distance_cdf(r, lam)
+        r, kaplan_meier_cdf(d, b, r), reduced_sample_cdf(d, b, r), csr_distance_cdf(r, lam)
     )
 
 
@@ -242,7 +242,7 @@ def empty_space_function(
     e, _ = cKDTree(xy).query(grid.xy, k=1)
     b = grid.boundary_m
     return DistanceFunction(
-        r, kaplan_meier_cdf(e, b, r), border_cdf(e, b, r), csr_distance_cdf(r, lam)
+        r, kaplan_meier_cdf(e, b, r), reduced_sample_cdf(e, b, r), csr_distance_cdf(r, lam)
     )
 
 

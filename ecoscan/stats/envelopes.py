@@ -38,12 +38,12 @@ __all__ = [
     "GLOBAL_TESTS",
     "Envelope",
     "envelope_test",
-    "erl_measure",
     "pointwise_envelope",
+    "rank_length_measure",
 ]
 
 #: Global tests available: extreme rank length, maximum absolute deviation.
-GLOBAL_TESTS = ("erl", "mad")
+GLOBAL_TESTS = ("rank-length", "max-deviation")
 
 
 @dataclass(frozen=True)
@@ -58,24 +58,24 @@ class Envelope:
         Theoretical value when known, else the mean of the simulations.
     lo, hi : numpy.ndarray
         Global envelope (NaN where the global test could not be computed).
-    lo_pointwise, hi_pointwise : numpy.ndarray
+    pointwise_low, pointwise_high : numpy.ndarray
         Pointwise envelope.
     pvalue : float
         Global test p-value (NaN when not computed).
     test : str
-        ``"erl"``, ``"mad"`` or ``"pointwise"`` (no global test).
+        ``"rank-length"``, ``"max-deviation"`` or ``"pointwise"`` (no global test).
     alpha : float
         Significance level.
     n_simulations : int
         s.
     """
 
-    observed: np.ndarray
+    value: np.ndarray
     centre: np.ndarray
-    lo: np.ndarray
-    hi: np.ndarray
-    lo_pointwise: np.ndarray
-    hi_pointwise: np.ndarray
+    band_low: np.ndarray
+    band_high: np.ndarray
+    pointwise_low: np.ndarray
+    pointwise_high: np.ndarray
     pvalue: float
     test: str
     alpha: float
@@ -85,13 +85,13 @@ class Envelope:
     def above(self) -> np.ndarray:
         """Where the observed curve is above the global envelope."""
         with np.errstate(invalid="ignore"):
-            return self.observed > self.hi
+            return self.value > self.band_high
 
     @property
     def below(self) -> np.ndarray:
         """Where the observed curve is below the global envelope."""
         with np.errstate(invalid="ignore"):
-            return self.observed < self.lo
+            return self.value < self.band_low
 
 
 def pointwise_envelope(simulated: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
@@ -119,7 +119,7 @@ def pointwise_envelope(simulated: np.ndarray, alpha: float) -> tuple[np.ndarray,
     return lo, hi
 
 
-def erl_measure(curves: np.ndarray) -> np.ndarray:
+def rank_length_measure(curves: np.ndarray) -> np.ndarray:
     """Extreme-rank-length order of curves: 0 for the most extreme, ties share a value.
 
     Parameters
@@ -153,9 +153,9 @@ def envelope_test(
     observed: np.ndarray,
     simulated: np.ndarray,
     *,
-    theoretical: np.ndarray | None = None,
+    csr_value: np.ndarray | None = None,
     alpha: float = 0.05,
-    test: str = "erl",
+    test: str = "rank-length",
 ) -> Envelope:
     """Pointwise and global envelopes of an observed summary function.
 
@@ -165,12 +165,12 @@ def envelope_test(
         Observed curve on the r grid.
     simulated : numpy.ndarray, shape (s, m)
         Curves of s patterns simulated under the null hypothesis, same grid.
-    theoretical : numpy.ndarray, optional
+    csr_value : numpy.ndarray, optional
         Value under the null hypothesis (the centre of the MAD test); default the mean of the
         simulations.
     alpha : float
         Level of the envelopes and the global test (e.g. 0.05 for 95% envelopes).
-    test : {'erl', 'mad', 'pointwise'}
+    test : {'rank-length', 'max-deviation', 'pointwise'}
         Global test; ``'pointwise'`` computes only the pointwise envelope.
 
     Returns
@@ -196,19 +196,19 @@ def envelope_test(
     s = sims.shape[0]
     with np.errstate(invalid="ignore"):
         mean = np.nanmean(sims, axis=0) if s else np.full(obs.size, np.nan)
-    centre = mean if theoretical is None else np.asarray(theoretical, float)
+    centre = mean if csr_value is None else np.asarray(csr_value, float)
     lo_pw, hi_pw = pointwise_envelope(sims, alpha) if s else (mean, mean)
     lo = np.full(obs.size, np.nan)
     hi = np.full(obs.size, np.nan)
     p = float("nan")
     cols = np.isfinite(obs) & np.all(np.isfinite(sims), axis=0)
-    if theoretical is not None:
+    if csr_value is not None:
         cols &= np.isfinite(centre)
     if test != "pointwise" and s > 0 and cols.any():
         allc = np.vstack([obs[cols], sims[:, cols]])
         k_alpha = int(np.floor(alpha * (s + 1) + 1e-9))
-        if test == "erl":
-            e = erl_measure(allc)
+        if test == "rank-length":
+            e = rank_length_measure(allc)
             p = float(np.mean(e <= e[0]))
             # critical value: the largest measure with at most alpha (s+1) curves below it
             vals = np.unique(e)

@@ -34,9 +34,9 @@ from ecoscan.stats.csr import as_rng, uniform_in_polygon
 from ecoscan.stats.nearest import nn_distances
 
 __all__ = [
-    "ALTERNATIVES",
     "BATCH_POINTS",
     "DEFAULT_STOP_AFTER",
+    "DIRECTIONS",
     "PARALLEL_POINTS",
     "MonteCarloResult",
     "mean_nn_batch",
@@ -46,7 +46,7 @@ __all__ = [
 ]
 
 #: Accepted alternatives: 'clustered' = shorter NN distances than CSR, 'regular' = longer.
-ALTERNATIVES = ("two-sided", "clustered", "regular")
+DIRECTIONS = ("either", "clustered", "regular")
 
 #: Points simulated per block (at most :data:`MAX_BLOCK` patterns); depends only on n, so the
 #: same seed always gives the same numbers.
@@ -96,7 +96,7 @@ def mean_nn_batch(patterns: np.ndarray) -> np.ndarray:
 
 
 def rank_pvalues(
-    observed: np.ndarray | float, simulated: np.ndarray, alternative: str = "two-sided"
+    observed: np.ndarray | float, simulated: np.ndarray, direction: str = "either"
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Monte Carlo rank p-values, (1 + k) / (N + 1), vectorised over tests.
 
@@ -106,9 +106,9 @@ def rank_pvalues(
         Observed mean NN distance(s), metres.
     simulated : numpy.ndarray, shape (N,) or (t, N)
         Simulated values under the null hypothesis, metres.
-    alternative : {'two-sided', 'clustered', 'regular'}
+    direction : {'either', 'clustered', 'regular'}
         'clustered' uses the lower tail (short distances), 'regular' the upper tail,
-        'two-sided' min(1, 2 · min(p_lower, p_upper)).
+        'either' min(1, 2 · min(p_lower, p_upper)).
 
     Returns
     -------
@@ -120,16 +120,16 @@ def rank_pvalues(
     ----------
     Besag & Diggle (1977), Applied Statistics 26: 327–333.
     """
-    if alternative not in ALTERNATIVES:
-        raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
+    if direction not in DIRECTIONS:
+        raise ValueError("direction must be 'either', 'clustered' or 'regular'")
     obs = np.asarray(observed, float)
     sim = np.asarray(simulated, float)
     big_n = sim.shape[-1]
     lower = (1.0 + np.sum(sim <= obs[..., None], axis=-1)) / (big_n + 1.0)
     upper = (1.0 + np.sum(sim >= obs[..., None], axis=-1)) / (big_n + 1.0)
-    if alternative == "clustered":
+    if direction == "clustered":
         p = lower
-    elif alternative == "regular":
+    elif direction == "regular":
         p = upper
     else:
         p = np.minimum(1.0, 2.0 * np.minimum(lower, upper))
@@ -145,7 +145,7 @@ class MonteCarloResult:
     statistic : float
         Observed mean NN distance, metres.
     pvalue : float
-        Rank p-value for ``alternative`` (sequential when ``stop_after`` > 0).
+        Rank p-value for ``direction`` (sequential when ``stop_after`` > 0).
     p_lower : float
         Lower-tail p-value (small when the points are clustered): (1 + #{sim ≤ obs}) / (N + 1),
         or h / l when the h-th simulated value ≤ obs came at simulation l.
@@ -153,18 +153,18 @@ class MonteCarloResult:
         Upper-tail p-value (small when the points are regular), likewise with ≥.
     simulations : int
         Number of patterns actually simulated (at most the requested N).
-    alternative : str
+    direction : str
         The alternative hypothesis.
     expected_nn_m : float
         Mean of the simulated means: the expected mean NN distance under CSR in this exact
         polygon, metres.
     simulated_nn_m : numpy.ndarray, shape (simulations,)
         The simulated means, metres (for histograms).
-    direction : str
+    side : str
         ``'clustered'`` when the observed mean lies below the simulated median, else
         ``'regular'``.
     guard_pvalue : float
-        Two-sided (or one-sided, per ``alternative``) rank p-value of the guard-zone mean
+        Two-sided (or one-sided, per ``direction``) rank p-value of the guard-zone mean
         (the mean NN distance of the points inside the plot shrunk by the guard width) among
         the same simulated patterns; NaN without a guard region.
     guard_p_lower, guard_p_upper : float
@@ -178,10 +178,10 @@ class MonteCarloResult:
     p_lower: float
     p_upper: float
     simulations: int
-    alternative: str
+    direction: str
     expected_nn_m: float
     simulated_nn_m: np.ndarray
-    direction: str
+    side: str
     guard_pvalue: float = float("nan")
     guard_p_lower: float = float("nan")
     guard_p_upper: float = float("nan")
@@ -250,10 +250,10 @@ def sequential_pvalues(
     return out[0], out[1], needed
 
 
-def _tail_p(lower: np.ndarray, upper: np.ndarray, alternative: str) -> np.ndarray:
-    if alternative == "clustered":
+def _tail_p(lower: np.ndarray, upper: np.ndarray, direction: str) -> np.ndarray:
+    if direction == "clustered":
         return lower
-    if alternative == "regular":
+    if direction == "regular":
         return upper
     return np.minimum(1.0, 2.0 * np.minimum(lower, upper))
 
@@ -295,7 +295,7 @@ def monte_carlo_nn(
     polygon,
     *,
     simulations: int = 999,
-    alternative: str = "two-sided",
+    direction: str = "either",
     rng: int | np.random.Generator | None = None,
     observed_mean_m: float | None = None,
     guard_region=None,
@@ -313,7 +313,7 @@ def monte_carlo_nn(
     simulations : int
         Largest number of simulated CSR patterns N (≥ 1; 999 gives p-values in steps of
         0.001).
-    alternative : {'two-sided', 'clustered', 'regular'}
+    direction : {'either', 'clustered', 'regular'}
         Alternative hypothesis; see :func:`rank_pvalues`.
     rng : int or numpy.random.Generator, optional
         Seed or generator; the same seed gives the same p-value.
@@ -360,8 +360,8 @@ def monte_carlo_nn(
     >>> res.simulations, 0 < res.pvalue <= 1
     (99, True)
     """
-    if alternative not in ALTERNATIVES:
-        raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
+    if direction not in DIRECTIONS:
+        raise ValueError("direction must be 'either', 'clustered' or 'regular'")
     if int(simulations) < 1:
         raise ValueError("simulations must be at least 1")
     if int(stop_after) < 0:
@@ -428,8 +428,8 @@ def monte_carlo_nn(
             obs[:n_stats], sims_all[:, :n_stats], simulations, stop_after
         )
     sims = sims_all[:used]
-    p = _tail_p(lo, up, alternative)
-    direction = "clustered" if observed_mean_m < float(np.median(sims[:, 0])) else "regular"
+    p = _tail_p(lo, up, direction)
+    side = "clustered" if observed_mean_m < float(np.median(sims[:, 0])) else "regular"
     nan = float("nan")
     g = (float(p[1]), float(lo[1]), float(up[1])) if n_stats == 2 else (nan, nan, nan)
     return MonteCarloResult(
@@ -438,10 +438,10 @@ def monte_carlo_nn(
         float(lo[0]),
         float(up[0]),
         int(used),
-        alternative,
+        direction,
         float(sims[:, 0].mean()),
         sims[:, 0].copy(),
-        direction,
+        side,
         g[0],
         g[1],
         g[2],

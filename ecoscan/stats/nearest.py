@@ -105,7 +105,7 @@ class ClarkEvansResult:
     z : float
         (observed − expected) / standard error.
     pvalue : float
-        p-value for ``alternative`` from the normal approximation.
+        p-value for ``direction`` from the normal approximation.
     n : int
         Number of points.
     density_per_m2 : float
@@ -128,23 +128,23 @@ class ClarkEvansResult:
     se_m: float
 
     @property
-    def direction(self) -> str:
+    def side(self) -> str:
         """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
         if not np.isfinite(self.z) or self.z == 0:
             return ""
         return "clustered" if self.z < 0 else "regular"
 
 
-def _normal_p(z: float, alternative: str) -> float:
+def _normal_p(z: float, direction: str) -> float:
     if not np.isfinite(z):
         return float("nan")
-    if alternative == "two-sided":
+    if direction == "either":
         return float(min(1.0, 2.0 * sps.norm.sf(abs(z))))
-    if alternative == "clustered":  # smaller NN distances than CSR
+    if direction == "clustered":  # smaller NN distances than CSR
         return float(sps.norm.cdf(z))
-    if alternative == "regular":
+    if direction == "regular":
         return float(sps.norm.sf(z))
-    raise ValueError("alternative must be 'two-sided', 'clustered' or 'regular'")
+    raise ValueError("direction must be 'either', 'clustered' or 'regular'")
 
 
 def _clark_evans_z(mean_m: float, n: int, rho: float) -> tuple[float, float, float]:
@@ -159,7 +159,7 @@ def clark_evans(
     xy: np.ndarray,
     area_m2: float,
     *,
-    alternative: str = "two-sided",
+    direction: str = "either",
     nn: np.ndarray | None = None,
 ) -> ClarkEvansResult:
     """Clark–Evans nearest-neighbour index without edge correction.
@@ -170,8 +170,8 @@ def clark_evans(
         Point coordinates in metres.
     area_m2 : float
         Area of the study window in m².
-    alternative : {'two-sided', 'clustered', 'regular'}
-        Alternative hypothesis.
+    direction : {'either', 'clustered', 'regular'}
+        Which departure from randomness the test looks for.
     nn : numpy.ndarray, optional
         Precomputed :func:`nn_distances` of ``xy`` (metres), to avoid a second KD-tree.
 
@@ -194,7 +194,7 @@ def clark_evans(
     mean = float(d.mean())
     expected, se, z = _clark_evans_z(mean, n, rho)
     return ClarkEvansResult(
-        float(mean / expected), z, _normal_p(z, alternative), n, rho, mean, expected, se
+        float(mean / expected), z, _normal_p(z, direction), n, rho, mean, expected, se
     )
 
 
@@ -247,7 +247,7 @@ class EdgeCorrectedResult:
     z : float
         (observed − expected) / standard error.
     pvalue : float
-        Normal-approximation p-value for the chosen alternative.
+        Normal-approximation p-value for the chosen direction.
     n_focal : int
         Points whose NN distance enters the mean (all points for Donnelly; those inside the
         guard zone for the guard-zone estimate).
@@ -274,7 +274,7 @@ class EdgeCorrectedResult:
     guard_m: float = float("nan")
 
     @property
-    def direction(self) -> str:
+    def side(self) -> str:
         """``'clustered'`` when z < 0 (shorter distances than CSR), ``'regular'`` when z > 0."""
         if not np.isfinite(self.z) or self.z == 0:
             return ""
@@ -290,7 +290,7 @@ def donnelly(
     xy: np.ndarray,
     polygon,
     *,
-    alternative: str = "two-sided",
+    direction: str = "either",
     nn: np.ndarray | None = None,
 ) -> EdgeCorrectedResult:
     """Clark–Evans test with Donnelly's (1978) edge-corrected mean and variance.
@@ -301,8 +301,8 @@ def donnelly(
         Points inside the plot, metres.
     polygon : shapely.Polygon or shapely.MultiPolygon
         The plot; its area (m²) and perimeter (m, holes included) enter the formulas.
-    alternative : {'two-sided', 'clustered', 'regular'}
-        Alternative hypothesis.
+    direction : {'either', 'clustered', 'regular'}
+        Which departure from randomness the test looks for.
     nn : numpy.ndarray, optional
         Precomputed :func:`nn_distances` of ``xy`` (metres), to avoid a second KD-tree.
 
@@ -326,7 +326,7 @@ def donnelly(
     se = float(np.sqrt(var))
     z = (mean - expected) / se
     return EdgeCorrectedResult(
-        mean / expected, float(z), _normal_p(z, alternative), n, mean, expected, se, "donnelly"
+        mean / expected, float(z), _normal_p(z, direction), n, mean, expected, se, "donnelly"
     )
 
 
@@ -362,7 +362,7 @@ def guard_zone(
     polygon,
     guard_m: float,
     *,
-    alternative: str = "two-sided",
+    direction: str = "either",
     nn: np.ndarray | None = None,
 ) -> EdgeCorrectedResult:
     """Clark–Evans test with a guard zone (border method) against edge effects.
@@ -379,8 +379,8 @@ def guard_zone(
         The plot.
     guard_m : float
         Guard width in metres (≥ 0); see :func:`default_guard_m`.
-    alternative : {'two-sided', 'clustered', 'regular'}
-        Alternative hypothesis.
+    direction : {'either', 'clustered', 'regular'}
+        Which departure from randomness the test looks for.
     nn : numpy.ndarray, optional
         Precomputed :func:`nn_distances` of ``xy`` (metres). Because neighbours come from all
         points, the focal points' distances are a subset of these.
@@ -417,7 +417,7 @@ def guard_zone(
     return EdgeCorrectedResult(
         float(mean / expected),
         z,
-        _normal_p(z, alternative),
+        _normal_p(z, direction),
         k,
         mean,
         expected,

@@ -65,11 +65,12 @@ class PoissonRateTest:
     ratio_high: float
 
 
-def _alt(alternative: str) -> str:
-    table = {"two-sided": "two-sided", "greater": "greater", "less": "less"}
-    if alternative not in table:
-        raise ValueError("alternative must be 'two-sided', 'greater' or 'less'")
-    return table[alternative]
+def _alt(direction: str) -> str:
+    # our words -> scipy.stats.binomtest's keyword values
+    table = {"either": "two-sided", "higher": "greater", "lower": "less"}  # retired-name
+    if direction not in table:
+        raise ValueError("direction must be 'either', 'higher' or 'lower'")
+    return table[direction]
 
 
 def poisson_rate_test(
@@ -78,7 +79,7 @@ def poisson_rate_test(
     count2: int,
     exposure2: float,
     *,
-    alternative: str = "two-sided",
+    direction: str = "either",
     confidence: float = 0.95,
 ) -> PoissonRateTest:
     """Exact conditional test that two Poisson counts come from the same rate.
@@ -89,8 +90,8 @@ def poisson_rate_test(
         Observed counts (e.g. plants), ≥ 0.
     exposure1, exposure2 : float
         Exposures (e.g. surveyed areas in m²), > 0.
-    alternative : {'two-sided', 'greater', 'less'}
-        'greater': rate1 > rate2.
+    direction : {'either', 'higher', 'lower'}
+        'higher': rate1 > rate2 is the departure looked for.
     confidence : float
         Confidence level of the rate-ratio interval.
 
@@ -117,7 +118,7 @@ def poisson_rate_test(
     if k == 0:
         return PoissonRateTest(ratio, 1.0, c1, c2, e1, e2, r1, r2, 0.0, float("inf"))
     p0 = e1 / (e1 + e2)
-    res = sps.binomtest(c1, k, p0, alternative=_alt(alternative))
+    res = sps.binomtest(c1, k, p0, alternative=_alt(direction))  # scipy keyword
     ci = res.proportion_ci(confidence_level=confidence, method="exact")
 
     def to_ratio(p: float) -> float:

@@ -52,7 +52,7 @@ from ecoscan.stats.edge import EdgeTable, boundary_distance
 __all__ = [
     "BANDWIDTH_CONSTANT",
     "SecondOrderResult",
-    "default_r_max",
+    "default_max_distance",
     "pcf_bandwidth",
     "r_grid",
     "second_order",
@@ -63,7 +63,7 @@ __all__ = [
 #: c in the pair-correlation bandwidth rule h = c / √λ (Stoyan & Stoyan 1994; from memory).
 BANDWIDTH_CONSTANT = 0.15
 #: The default largest distance is at most this many typical spacings 1 / √λ (see
-#: :func:`default_r_max`).
+#: :func:`default_max_distance`).
 SPACINGS_CAP = 10.0
 
 #: Pairs per chunk in the per-pair passes: the temporaries of one chunk stay in the processor's
@@ -79,7 +79,7 @@ def shorter_side_m(polygon: shapely.Geometry) -> float:
     return float(sides.min())
 
 
-def default_r_max(polygon: shapely.Geometry, n: int) -> float:
+def default_max_distance(polygon: shapely.Geometry, n: int) -> float:
     """Default largest distance for the second-order functions, in metres.
 
     ``min(S / 4, 10 / √λ)`` where S is the shorter side of the plot's minimum rotated
@@ -108,11 +108,11 @@ def default_r_max(polygon: shapely.Geometry, n: int) -> float:
     return float(min(quarter, SPACINGS_CAP * spacing))
 
 
-def r_grid(r_max_m: float, n_r: int) -> np.ndarray:
-    """The distances r_k = k · r_max / n_r, k = 1..n_r, in metres."""
-    if not (r_max_m > 0) or n_r < 2:
-        raise ValueError("r_max must be positive and n_r at least 2")
-    return r_max_m * np.arange(1, n_r + 1) / n_r
+def r_grid(max_distance_m: float, steps: int) -> np.ndarray:
+    """The distances r_k = k · max_distance / steps, k = 1..steps, in metres."""
+    if not (max_distance_m > 0) or steps < 2:
+        raise ValueError("max_distance must be positive and steps at least 2")
+    return max_distance_m * np.arange(1, steps + 1) / steps
 
 
 def pcf_bandwidth(intensity_per_m2: float, c: float = BANDWIDTH_CONSTANT) -> float:
@@ -136,9 +136,9 @@ class SecondOrderResult:
     ----------
     r_m : numpy.ndarray
         Distances, metres.
-    K_iso_m2, K_border_m2 : numpy.ndarray
+    K_iso_m2, K_reduced_sample_m2 : numpy.ndarray
         Ripley's K with the isotropic and border corrections, m².
-    g_iso, g_border : numpy.ndarray
+    g_iso, g_reduced_sample : numpy.ndarray
         Pair correlation function (dimensionless; 1 under complete spatial randomness).
     n : int
         Number of points.
@@ -147,14 +147,14 @@ class SecondOrderResult:
     bandwidth_m : float
         Kernel bandwidth h used for g.
     n_pairs : int
-        Unordered pairs closer than r_max + h (what time and memory grow with).
+        Unordered pairs closer than max_distance + h (what time and memory grow with).
     """
 
     r_m: np.ndarray
     K_iso_m2: np.ndarray
-    K_border_m2: np.ndarray
+    K_reduced_sample_m2: np.ndarray
     g_iso: np.ndarray
-    g_border: np.ndarray
+    g_reduced_sample: np.ndarray
     n: int
     area_m2: float
     bandwidth_m: float
@@ -171,9 +171,9 @@ class SecondOrderResult:
         return np.sqrt(np.maximum(self.K_iso_m2, 0.0) / np.pi)
 
     @property
-    def L_border_m(self) -> np.ndarray:
-        """L from the border-corrected K, metres."""
-        return np.sqrt(np.maximum(self.K_border_m2, 0.0) / np.pi)
+    def L_reduced_sample_m(self) -> np.ndarray:
+        """L from the reduced-sample K, metres."""
+        return np.sqrt(np.maximum(self.K_reduced_sample_m2, 0.0) / np.pi)
 
     @property
     def L_minus_r_m(self) -> np.ndarray:
@@ -365,9 +365,9 @@ def snap_bandwidth(h: float, dr: float) -> float:
 
 
 def _k_and_kernel_sums(
-    d: np.ndarray, w: np.ndarray | PairTable, dr: float, n_r: int, h: float
+    d: np.ndarray, w: np.ndarray | PairTable, dr: float, steps: int, h: float
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Σ w · 1(d ≤ r_k) and Σ w · k_h(r_k − d) (Epanechnikov) for k = 1..n_r, exactly.
+    """Σ w · 1(d ≤ r_k) and Σ w · k_h(r_k − d) (Epanechnikov) for k = 1..steps, exactly.
 
     ``h`` must be a whole number H of sub-steps δ = dr / 8 (:func:`snap_bandwidth`). The pairs
     are binned once into right-closed cells ((c − 1)δ, cδ] (K(r_k) is a cumulative sum of the
@@ -382,7 +382,7 @@ def _k_and_kernel_sums(
     """
     m = SUBSTEPS
     big_h = round(h * m / dr)
-    n_cells = m * n_r + big_h + 4
+    n_cells = m * steps + big_h + 4
     m0, m1, m2 = np.zeros(n_cells), np.zeros(n_cells), np.zeros(n_cells)
     for s in range(0, d.size, _PAIR_CHUNK):  # cache-sized chunks of pairs
         q = d[s : s + _PAIR_CHUNK] * (m / dr)
@@ -398,10 +398,10 @@ def _k_and_kernel_sums(
         m1 += np.bincount(cell, weights=wc, minlength=n_cells)
         wc *= t
         m2 += np.bincount(cell, weights=wc, minlength=n_cells)
-    k = np.arange(1, n_r + 1)
+    k = np.arange(1, steps + 1)
     K = np.r_[0.0, np.cumsum(m0)][m * k]  # Σ over d <= r_k
     off = np.arange(-big_h, big_h)  # the window's cells, relative to r_k's cell edge
-    c = m * k[:, None] + off  # (n_r, 2H)
+    c = m * k[:, None] + off  # (steps, 2H)
     inside = c >= 0
     c = np.maximum(c, 0)
     a = -off - 1e-9  # r_k / δ − left end of cell c, with q's offset
@@ -412,19 +412,20 @@ def _k_and_kernel_sums(
 
 
 def _kernel_sums(
-    d: np.ndarray, weights: list[np.ndarray], dr: float, n_r: int, h: float, limits=None
+    d: np.ndarray, weights: list[np.ndarray], dr: float, steps: int, h: float, limits=None
 ) -> np.ndarray:
-    """Σ w · k_h(r_k − d) for k = 1..n_r (Epanechnikov kernel), exact, vectorised.
+    """Σ w · k_h(r_k − d) for k = 1..steps (Epanechnikov kernel), exact, vectorised.
 
     ``limits`` (a list like ``weights``) optionally holds, per weight array, each pair end's
-    boundary distance: the end only counts at r_k ≤ its boundary distance (border correction).
+    boundary distance: the end only counts at r_k ≤ its boundary distance (reduced-sample
+    correction).
     """
-    out = np.zeros(n_r + 1)
+    out = np.zeros(steps + 1)
     k0 = np.maximum(np.ceil((d - h) / dr), 1).astype(np.intp)
     for off in range(int(np.floor(2 * h / dr)) + 2):
         k = k0 + off
         t = k * dr - d
-        ok = (k <= n_r) & (np.abs(t) < h)
+        ok = (k <= steps) & (np.abs(t) < h)
         if not ok.any():
             continue
         kk = k[ok]
@@ -433,28 +434,28 @@ def _kernel_sums(
             ww = kern if np.ndim(w) == 0 else kern * w[ok]
             if limits is not None:
                 ww = ww * (limits[m][ok] >= kk * dr)
-            out += np.bincount(kk, weights=ww, minlength=n_r + 1)
+            out += np.bincount(kk, weights=ww, minlength=steps + 1)
     return out[1:]
 
 
-def _border_counts(d: np.ndarray, b_end: np.ndarray, dr: float, n_r: int) -> np.ndarray:
-    """Σ over pair ends of 1(d ≤ r_k ≤ b_end) for k = 1..n_r (difference array)."""
+def _reduced_sample_counts(d: np.ndarray, b_end: np.ndarray, dr: float, steps: int) -> np.ndarray:
+    """Σ over pair ends of 1(d ≤ r_k ≤ b_end) for k = 1..steps (difference array)."""
     lo = np.maximum(np.ceil(d / dr - 1e-9), 1).astype(np.intp)
-    hi = np.minimum(np.floor(b_end / dr + 1e-9), n_r).astype(np.intp)
+    hi = np.minimum(np.floor(b_end / dr + 1e-9), steps).astype(np.intp)
     ok = lo <= hi
-    diff = np.bincount(lo[ok], minlength=n_r + 2)[: n_r + 2].astype(float)
-    diff -= np.bincount(hi[ok] + 1, minlength=n_r + 2)[: n_r + 2]
-    return np.cumsum(diff)[1 : n_r + 1]
+    diff = np.bincount(lo[ok], minlength=steps + 2)[: steps + 2].astype(float)
+    diff -= np.bincount(hi[ok] + 1, minlength=steps + 2)[: steps + 2]
+    return np.cumsum(diff)[1 : steps + 1]
 
 
 def second_order(
     xy: np.ndarray,
     polygon: shapely.Geometry,
-    r_max_m: float | None = None,
+    max_distance_m: float | None = None,
     *,
-    n_r: int = 100,
+    steps: int = 100,
     bandwidth_m: float | None = None,
-    border: bool = True,
+    reduced_sample: bool = True,
     boundary_m: np.ndarray | None = None,
 ) -> SecondOrderResult:
     """Ripley's K, Besag's L and the pair correlation g with exact edge corrections.
@@ -465,16 +466,16 @@ def second_order(
         Points inside the window, metres.
     polygon : shapely.Polygon or shapely.MultiPolygon
         The window (plot), holes allowed, metres.
-    r_max_m : float, optional
-        Largest distance, metres (default :func:`default_r_max`).
-    n_r : int
-        Number of distances r_k = k · r_max / n_r.
+    max_distance_m : float, optional
+        Largest distance, metres (default :func:`default_max_distance`).
+    steps : int
+        Number of distances r_k = k · max_distance / steps.
     bandwidth_m : float, optional
         Kernel bandwidth for g, metres (default 0.15 / √λ, :func:`pcf_bandwidth`); rounded
         to a whole number of eighths of the distance step (:func:`snap_bandwidth`), and the
         value used is in the result.
-    border : bool
-        Also compute the border-corrected K and g (NaN otherwise).
+    reduced_sample : bool
+        Also compute the reduced-sample K and g (NaN otherwise).
     boundary_m : numpy.ndarray, optional
         Precomputed distances of the points to the boundary, metres.
 
@@ -491,30 +492,32 @@ def second_order(
     xy = np.asarray(xy, float).reshape(-1, 2)
     n = xy.shape[0]
     area = float(polygon.area)
-    if r_max_m is None:
-        r_max_m = default_r_max(polygon, n)
-    r = r_grid(r_max_m, n_r)
-    dr = r_max_m / n_r
-    nan = np.full(n_r, np.nan)
+    if max_distance_m is None:
+        max_distance_m = default_max_distance(polygon, n)
+    r = r_grid(max_distance_m, steps)
+    dr = max_distance_m / steps
+    nan = np.full(steps, np.nan)
     if n < 2:
         return SecondOrderResult(r, nan, nan, nan, nan, n, area, float("nan"), 0)
     h = pcf_bandwidth(n / area) if bandwidth_m is None else float(bandwidth_m)
     h = snap_bandwidth(h, dr)
-    pt = PairTable(xy, polygon, r_max_m + h, boundary_m)
+    pt = PairTable(xy, polygon, max_distance_m + h, boundary_m)
     b = pt.boundary_m
     scale = area / (n * (n - 1))
-    k_sum, kern_sum = _k_and_kernel_sums(pt.d, pt, dr, n_r, h)
+    k_sum, kern_sum = _k_and_kernel_sums(pt.d, pt, dr, steps, h)
     K = scale * k_sum
     ring = 2 * np.pi * smoothed_distance(r, h)  # 2πr for r ≥ h; unbiased below h too
     g = scale * kern_sum / ring
-    if border:
+    if reduced_sample:
         centres = (n - np.searchsorted(np.sort(b), r, side="left")).astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             bs = area / (n - 1) / centres
-            counts = _border_counts(pt.d, b[pt.i], dr, n_r) + _border_counts(pt.d, b[pt.j], dr, n_r)
+            counts = _reduced_sample_counts(pt.d, b[pt.i], dr, steps) + _reduced_sample_counts(
+                pt.d, b[pt.j], dr, steps
+            )
             Kb = bs * counts
             one = np.float64(1.0)
-            gb = bs * _kernel_sums(pt.d, [one, one], dr, n_r, h, limits=[b[pt.i], b[pt.j]]) / ring
+            gb = bs * _kernel_sums(pt.d, [one, one], dr, steps, h, limits=[b[pt.i], b[pt.j]]) / ring
         Kb = np.where(centres > 0, Kb, np.nan)
         gb = np.where(centres > 0, gb, np.nan)
     else:

@@ -27,7 +27,7 @@ import shapely
 from scipy.optimize import minimize
 
 from ecoscan.stats.csr import as_rng
-from ecoscan.stats.second_order import default_r_max, second_order
+from ecoscan.stats.second_order import default_max_distance, second_order
 
 __all__ = [
     "ThomasFit",
@@ -379,7 +379,7 @@ def _contrast_fit(r: np.ndarray, k_hat: np.ndarray, intensity: float) -> tuple[f
 
 
 def _k_hat(xy: np.ndarray, polygon: shapely.Geometry, rmax: float) -> tuple[np.ndarray, np.ndarray]:
-    res = second_order(xy, polygon, rmax, n_r=50, border=False)
+    res = second_order(xy, polygon, rmax, steps=50, reduced_sample=False)
     return res.r_m, res.K_iso_m2
 
 
@@ -437,7 +437,7 @@ def fit_thomas(
     gen = as_rng(rng)
     area = float(polygon.area)
     lam = n / area
-    rmax = default_r_max(polygon, n) if max_distance_m is None else float(max_distance_m)
+    rmax = default_max_distance(polygon, n) if max_distance_m is None else float(max_distance_m)
     r, k_hat = _k_hat(xy, polygon, rmax)
     kappa, sigma = _contrast_fit(r, k_hat, lam)
     nan = float("nan")

@@ -36,6 +36,7 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan.errors import InputError
+from ecoscan.vocabulary import RENAMED_SURVEY_KEYS
 
 __all__ = ["RasterEntry", "SurveyConfig", "load_survey", "locate_keys"]
 
@@ -182,7 +183,10 @@ def _unknown(
 ) -> None:
     allowed = set(allowed)
     for key in table:
-        if key not in allowed:
+        if key in RENAMED_SURVEY_KEYS and RENAMED_SURVEY_KEYS[key] in allowed:
+            new = RENAMED_SURVEY_KEYS[key]
+            problems.add((*where, key), f"'{key}' in [{section}] was renamed '{new}'; use '{new}'")
+        elif key not in allowed:
             near = difflib.get_close_matches(key, sorted(allowed), n=1)
             hint = f" (did you mean '{near[0]}'?)" if near else ""
             problems.add((*where, key), f"unknown key '{key}' in [{section}]{hint}")

@@ -22,68 +22,161 @@ from ecoscan.report import (
     table_html,
 )
 from ecoscan.survey.thumbnails import preview
+from ecoscan.vocabulary import format_cell, label
 
-__all__ = ["SUMMARY_COLUMNS", "write_report"]
+__all__ = ["DETAIL_COLUMNS", "SUMMARY_COLUMNS", "plain_warnings", "short_warnings", "write_report"]
 
+#: The index table at the top of the report: what a land manager reads first.
 SUMMARY_COLUMNS = [
     "site",
     "date",
-    "raster",
     "plot_id",
     "n",
     "density_per_ha",
-    "mean_nn_m",
-    "R",
-    "R_donnelly",
-    "p_donnelly",
-    "p_mc",
-    "pattern",
-    "quadrat_p",
-    "morisita_std",
-    "warnings",
-]
-SUMMARY_HEADERS = [
-    "site",
-    "date",
-    "raster",
-    "plot",
-    "n",
-    "plants / ha",
-    "mean NN (m)",
-    "R",
-    "R (edge-corr.)",
-    "p (edge-corr.)",
-    "p (Monte Carlo)",
     "verdict",
-    "quadrat p",
-    "std. Morisita",
-    "warnings",
+    "p_mc",
+    "flags",
 ]
 
+#: Every statistic of a plot, in the folded analyst detail.
+DETAIL_COLUMNS = [
+    "area_m2",
+    "density_per_ha",
+    "mean_nn_m",
+    "expected_nn_m",
+    "R",
+    "z",
+    "p",
+    "R_donnelly",
+    "z_donnelly",
+    "p_donnelly",
+    "R_guard",
+    "p_guard",
+    "guard_m",
+    "p_mc",
+    "p_mc_clustered",
+    "p_mc_regular",
+    "simulations",
+    "quadrat_size_m",
+    "quadrat_height_m",
+    "quadrat_cells",
+    "quadrat_chi2",
+    "quadrat_df",
+    "quadrat_p",
+    "quadrat_p_mc",
+    "vmr",
+    "morisita",
+    "morisita_std",
+]
 
 _SHORT = (
-    ("fewer than 30", "n < 30"),
+    ("fewer than 30", "few plants"),
     ("fewer than 2", "too few for a test"),
-    ("expect fewer than 5", "few per quadrat"),
-    ("coincid", "coincident points"),
+    ("coincid", "duplicates?"),
+    ("share their position", "duplicates?"),
     ("no points", "empty plot"),
     ("arrangements", "few permutations"),
 )
 
+#: Jargon in warnings, and the plain words the report uses instead.
+_PLAIN = (
+    (
+        r"only (\d+) points \(fewer than (\d+)\): the tests have little power; read the "
+        r"verdict with caution",
+        r"Only \1 plants (fewer than \2): only a strong pattern can show; read the verdict "
+        r"with caution.",
+    ),
+    (
+        r"(\d+) of (\d+) quadrats expect fewer than 5 points: quadrat_p is approximate "
+        r"\(quadrat_p_mc is exact\)",
+        r"\1 of \2 quadrats expect fewer than 5 plants, so the chi-square quadrat p is rough; "
+        r"the simulated quadrat p is the one to read.",
+    ),
+    (r"no points in this plot: no statistics", "No plants were found in this plot."),
+    (
+        r"only (\d+) plants: only strong patterns can be detected",
+        r"Only \1 plants: only a strong pattern can show.",
+    ),
+)
+
+_MEANING = {
+    "regular": "plants are spaced more evenly than chance would give, as in planted rows or "
+    "where neighbours compete for light and water",
+    "clustered": "plants grow in groups, as in natural regeneration near seed trees or on "
+    "patches of better ground",
+    "random": "the test found no departure from chance placement",
+}
+
 
 def short_warnings(text: str) -> str:
-    """Short flags for a plot's warnings, for the summary table (full text in the plot card)."""
-    if not text:
+    """Short flags for a plot's warnings, for the index table (full text in the plot section).
+
+    Notes on the quadrat test are for the analyst and are not flagged here.
+
+    Examples
+    --------
+    >>> short_warnings("only 22 points (fewer than 30): the tests have little power")
+    'few plants'
+    >>> short_warnings("3 of 8 quadrats expect fewer than 5 points: quadrat_p is approximate")
+    ''
+    """
+    parts = [t for t in (text or "").split("; ") if t and "quadrat" not in t]
+    if not parts:
         return ""
-    flags = [label for key, label in _SHORT if key in text]
-    return ", ".join(dict.fromkeys(flags)) if flags else text[:40]
+    joined = "; ".join(parts)
+    flags = [label for key, label in _SHORT if key in joined]
+    return ", ".join(dict.fromkeys(flags)) if flags else parts[0][:40]
+
+
+def plain_warnings(*texts: str) -> list[str]:
+    """A plot's warnings (dispersion, scales...) in plain words, each once.
+
+    Examples
+    --------
+    >>> plain_warnings("no points in this plot: no statistics", "")
+    ['No plants were found in this plot.']
+    """
+    import re
+
+    out: list[str] = []
+    for text in texts:
+        text = text or ""
+        for pattern, plain in _PLAIN:
+            text = re.sub(pattern, plain, text)
+        for part in text.split("; "):
+            part = part.strip()
+            if not part:
+                continue
+            if out and not part[0].isupper() and not out[-1].endswith("."):
+                out[-1] = f"{out[-1]}; {part}"  # a clause of the previous warning
+                continue
+            part = part[0].upper() + part[1:]
+            # the same warning from two analyses (e.g. few plants) is said once
+            if not any(_head(o) == _head(part) for o in out):
+                out.append(part)
+    return [w if w.endswith(".") else w + "." for w in out]
+
+
+def _head(sentence: str) -> list[str]:
+    return [w.strip(":;,.()") for w in sentence.split()[:3]]
 
 
 def _esc(s) -> str:
     return html.escape(str(s))
 
 
-def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, list[Path]]:
+def plot_anchor(raster: str, plot_id: str) -> str:
+    """The HTML id of a plot's section."""
+    from ecoscan.survey.runner import slug
+
+    return f"plot-{slug(raster)}-{slug(plot_id)}"
+
+
+def _backdrop_kind(method: str) -> str:
+    return {"imagery": "rgb", "chm": "height", "classes": "classes"}.get(method, "grey")
+
+
+def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, list[Path]]:
     from ecoscan.survey.runner import slug
 
     files: list[Path] = []
@@ -94,9 +187,10 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
     sizes = sizes[m] if sizes is not None else None
     bounds = plot.geometry.buffer(2.0).bounds
     pv = None
+    kind = _backdrop_kind(rr.method)
     same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
     if same_crs:
-        pv = preview(str(rr.entry.path), bounds, rgb=rr.method == "imagery")
+        pv = preview(str(rr.entry.path), bounds, rgb=kind == "rgb", stretch=kind == "grey")
     title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
     files.append(
         plot_map_figure(
@@ -107,27 +201,32 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
             image_extent=pv[1] if pv else None,
             title=f"{title}: detected plants",
             sizes_m=sizes,
+            image_kind=kind,
         )
     )
-    figs = [
-        figure_html(
-            files[-1],
-            "Detected plants (+) over the image, plot outline in blue; "
-            "circles show the estimated crown diameters to scale.",
-        )
-    ]
+    backdrop = {
+        "rgb": "the image",
+        "height": "the canopy height model",
+        "classes": "the class map",
+        "grey": "the raster",
+    }[kind]
+    map_fig = figure_html(
+        files[-1],
+        f"Detected plants (white dots) over {backdrop}, plot outline in blue"
+        + ("; circles show crown diameters to scale." if sizes is not None else "."),
+    )
+    detail_figs = []
     if res.n >= 2 and res.nn_m is not None and len(res.nn_m):
         files.append(
             nn_histogram_figure(
                 figdir / f"{name}_nn.png", res.nn_m, res.n / plot.area_m2, title=f"{title}: spacing"
             )
         )
-        figs.append(
+        detail_figs.append(
             figure_html(
                 files[-1],
-                "Nearest-neighbour distances against the "
-                "distribution expected for a random pattern of the same "
-                "density (no edge correction).",
+                "Nearest-neighbour distances against the distribution expected for a random "
+                "pattern of the same density (no edge correction).",
             )
         )
     if res.quadrat is not None:
@@ -141,40 +240,123 @@ def _plot_card(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, lis
                 title=f"{title}: {q.cell_size_m:.3g} m quadrats",
             )
         )
-        figs.append(
+        detail_figs.append(
             figure_html(files[-1], "Plants counted in square quadrats clipped to the plot.")
         )
+    scale_warn = ""
     if rr.scales:
         sres = next((s for s in rr.scales if s.plot_id == plot.plot_id), None)
-        if sres is not None and getattr(sres, "n", 0) >= 2:
+        if sres is not None:
+            scale_warn = "; ".join(sres.warnings)
+        if sres is not None and getattr(sres, "n", 0) >= 2 and sres.curves:
             from ecoscan.figures.scales import plot_scales_figure
 
             files.append(plot_scales_figure(sres, figdir / f"{name}_scales.png"))
-            figs.append(
+            detail_figs.append(
                 figure_html(
                     files[-1],
-                    "Second-order summary functions with the "
-                    "envelope of random patterns in the same plot shape.",
+                    "Summary functions across distances with the band of random patterns in "
+                    "the same plot shape; marks along the bottom show where the plants leave it.",
                 )
             )
     row = next(r for r in run.rows if r["raster"] == rr.entry.name and r["plot_id"] == plot.plot_id)
+    verdict = row.get("verdict") or ""
     facts = (
         f"{row.get('n')} plants in {plot.area_m2:,.0f} m² "
-        f"({_fmt(row.get('density_per_ha'), 0)} per ha); R = {_fmt(row.get('R'))}, "
-        f"edge-corrected R = {_fmt(row.get('R_donnelly'))}, Monte Carlo p = "
-        f"{_fmt(row.get('p_mc'))} at α = {alpha:g}."
+        f"({format_cell('density_per_ha', row.get('density_per_ha'))} plants/ha)."
     )
-    warn = row.get("warnings") or ""
+    if verdict in _MEANING:
+        facts += (
+            f" {verdict.capitalize()}: {_MEANING[verdict]} (Monte Carlo p "
+            f"{format_cell('p_mc', row.get('p_mc'))}, α = {alpha:g})."
+        )
+    warns = plain_warnings(row.get("warnings") or "", scale_warn)
+    # the quadrat note matters to the analyst only: it goes with the statistics
+    quad = [w for w in warns if "quadrat" in w]
+    warns = [w for w in warns if "quadrat" not in w]
+    warn_html = (
+        '<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warns) + "</ul>"
+        if warns
+        else ""
+    )
+    quad_html = "".join(f'<p class="muted">{_esc(w)}</p>' for w in quad)
+    detail_rows = [{"what": label(c), "value": format_cell(c, row.get(c))} for c in DETAIL_COLUMNS]
+    stats = (
+        '<table class="data kv"><tbody>'
+        + "".join(
+            f'<tr><th scope="row" class="text">{_esc(d["what"])}</th><td>{_esc(d["value"] or "–")}'
+            "</td></tr>"
+            for d in detail_rows
+        )
+        + "</tbody></table>"
+    )
     body = (
-        f'<div class="card"><h3>Plot {_esc(plot.plot_id)} {pattern_tag(row.get("pattern"))}</h3>'
-        f'<p class="facts">{_esc(facts)}</p>'
+        f'<article class="plot" id="{plot_anchor(rr.entry.name, plot.plot_id)}">'
+        f"<h4>Plot {_esc(plot.plot_id)} {pattern_tag(verdict)}</h4>"
+        f'<div class="plotmain">{map_fig}<div class="plottext"><p>{_esc(facts)}</p>'
         + (f"<p>In words: {_esc(row['summary'])}.</p>" if row.get("summary") else "")
-        + (f'<p class="facts" style="color:#7a4b00">{_esc(warn)}</p>' if warn else "")
-        + '<div class="figrow">'
-        + "".join(figs)
-        + "</div></div>"
+        + f"{warn_html}</div></div>"
+        "<details><summary>Analyst detail: every statistic, spacing, quadrats, scales"
+        f'</summary>{quad_html}<div class="detail">{stats}{"".join(detail_figs)}</div></details>'
+        "</article>"
     )
     return body, files
+
+
+def _site_meaning(run) -> str:
+    """One short paragraph per site: what the verdicts mean, in plain words."""
+    paras = []
+    sites = list(dict.fromkeys(r["site"] for r in run.rows))
+    for site in sites:
+        rows = [r for r in run.rows if r["site"] == site]
+        parts = []
+        for date in dict.fromkeys(r["date"] for r in rows):
+            on = [r for r in rows if r["date"] == date]
+            by: dict[str, list[str]] = {}
+            for r in on:
+                by.setdefault(r.get("verdict") or "not tested", []).append(str(r["plot_id"]))
+            said = "; ".join(f"{_join(ids)} {_verb(ids)} {v}" for v, ids in by.items())
+            parts.append(f"On {date}: {said}.")
+        verdicts = [
+            v
+            for v in ("regular", "clustered", "random")
+            if any(r.get("verdict") == v for r in rows)
+        ]
+        parts += [f"{v.capitalize()} means {_MEANING[v]}." for v in verdicts]
+        few = sorted({str(r["plot_id"]) for r in rows if (r.get("n") or 0) < 30})
+        if few:
+            parts.append(
+                f"{_join(few)} {'has' if len(few) == 1 else 'have'} fewer than 30 plants, so "
+                "only a strong pattern "
+                "would show there."
+            )
+        for ch in run.changes:
+            if ch.site != site:
+                continue
+            c = ch.result.counts
+            total = c["persisting"] + c["lost"]
+            surv = f" ({100 * c['persisting'] / total:.0f}% survival)" if total else ""
+            parts.append(
+                f"Between {ch.earlier} and {ch.later}, {c['persisting']} plants persisted, "
+                f"{c['lost']} were lost and {c['new']} were new{surv}."
+            )
+        paras.append(f"<p><strong>{_esc(site)}.</strong> {_esc(' '.join(parts))}</p>")
+    paras.append(
+        '<p class="muted">These are automated counts: check a sample of plots in the field '
+        "before acting on them, and follow local rules and licensed practice.</p>"
+    )
+    return "".join(paras)
+
+
+def _join(items: list[str]) -> str:
+    items = [f"plot {i}" if len(items) == 1 else i for i in items]
+    if len(items) == 1:
+        return items[0]
+    return "plots " + ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def _verb(items: list[str]) -> str:
+    return "is" if len(items) == 1 else "are"
 
 
 def _fmt(v, digits: int = 3) -> str:
@@ -191,6 +373,11 @@ def _fmt(v, digits: int = 3) -> str:
 
 def write_report(run, stat_settings) -> list[Path]:
     """Draw every figure of a survey run and write ``report.html``.
+
+    The first section is an index a land manager can read and print on one page (site, date,
+    plot, plants, plants/ha, verdict, Monte Carlo p), then a short paragraph per site on what
+    the verdicts mean; each plot follows with its map and plain-words warnings, and its
+    analyst detail folded away.
 
     Parameters
     ----------
@@ -211,29 +398,32 @@ def write_report(run, stat_settings) -> list[Path]:
     sections: list[ReportSection] = []
 
     n_plants = sum(rr.points.n for rr in run.rasters)
-    files.append(r_against_n_figure(figdir / "R_against_n.png", run.rows, alpha=alpha))
+    n_sites = len({r["site"] for r in run.rows})
     intro = (
-        f"<p>{len(run.rasters)} rasters, {len({r['plot_id'] for r in run.rows})} plots, "
-        f"{n_plants:,} plants analysed. Coordinates in {_esc(run.crs_text)}. The verdict comes "
-        f"from a Monte Carlo test with {stat_settings.simulations} random patterns in the exact "
-        f"shape of each plot, at α = {alpha:g}.</p>"
+        f'<p class="lede">{len({(r["raster"], r["plot_id"]) for r in run.rows})} plot surveys '
+        f"on {len(run.rasters)} rasters at {n_sites} site{'s' if n_sites != 1 else ''}; "
+        f"{n_plants:,} plants. The verdict comes from a Monte Carlo test with "
+        f"{stat_settings.simulations} random patterns in the exact shape of each plot, at "
+        f"α = {alpha:g}. Click a heading to sort; click a plot for its map and detail.</p>"
     )
-    short = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in run.rows]
-    summary = intro + table_html(short, SUMMARY_COLUMNS, headers=SUMMARY_HEADERS)
-    summary += figure_html(
-        files[-1],
-        "Clark–Evans R of every plot against its number of plants. Inside the grey band R is "
-        "not significantly different from 1 (random) by the normal approximation; plots in "
-        "small samples need a large departure to be significant. Marker shape and colour give "
-        "the Monte Carlo verdict.",
-    )
+    index = []
+    for r in run.rows:
+        index.append(
+            {
+                **r,
+                "flags": short_warnings(r.get("warnings", "")),
+                "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
+            }
+        )
+    summary = intro + table_html(index, SUMMARY_COLUMNS, sortable=True, link="plot_id")
+    summary += "<h3>What this means</h3>" + _site_meaning(run)
     sections.append(ReportSection("Summary", summary, "summary"))
 
     plot_children = []
     for rr in run.rasters:
         cards = []
         for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True):
-            card, fs = _plot_card(run, rr, res, plot, figdir, alpha)
+            card, fs = _plot_section(run, rr, res, plot, figdir, alpha)
             cards.append(card)
             files += fs
         head = (
@@ -250,11 +440,21 @@ def write_report(run, stat_settings) -> list[Path]:
         plot_children.append(
             ReportSection(
                 f"{rr.entry.site}, {rr.entry.date} ({rr.entry.name})",
-                head + '<div class="cards">' + "".join(cards) + "</div>",
+                head + "".join(cards),
                 f"r-{rr.entry.name}",
             )
         )
     sections.append(ReportSection("Plots", "", "plots", plot_children))
+
+    files.append(r_against_n_figure(figdir / "R_against_n.png", run.rows, alpha=alpha))
+    overview = figure_html(
+        files[-1],
+        "Clark–Evans R of every plot against its number of plants. Inside the grey band R is "
+        "not significantly different from 1 (random) by the normal approximation; small plots "
+        "need a large departure to be significant. Marker shape and colour give the Monte "
+        "Carlo verdict.",
+    )
+    sections.append(ReportSection("All plots: R and plant numbers", overview, "overview"))
 
     if any(rr.scales for rr in run.rasters):
         from ecoscan.scales import scales_rows
@@ -273,21 +473,21 @@ def write_report(run, stat_settings) -> list[Path]:
                 "date",
                 "plot_id",
                 "n",
-                "global_test",
-                "global_p",
+                "p_global",
                 "clustered_ranges_m",
                 "regular_ranges_m",
-                "verdict",
             )
             if rows and c in rows[0]
         ]
         sections.append(
             ReportSection(
-                "Pattern across scales",
-                "<p>Where along the distance axis the pattern leaves the envelope of random "
-                "patterns: competition shows as regularity at short range, patches of good ground "
-                "as clustering at longer range. The global test controls the error rate over all "
-                "distances at once.</p>" + table_html(rows, cols),
+                "Pattern across distances",
+                "<p>Where along the distance axis the plants leave the band of random "
+                "patterns: competition shows as regularity at short range, patches of good "
+                "ground as clustering at longer range. The global test (rank-length on L by "
+                "default) controls the error over all distances at once; each plot's verdict "
+                "in words is under its figure in the plot's analyst detail.</p>"
+                + table_html(rows, cols, sortable=True),
                 "scales",
             )
         )

@@ -187,6 +187,10 @@ def _detect(
                 shutil.copy2(old / name, pts_dir / name)
         info = json.loads(key_file.read_text(encoding="utf-8"))
         pts = read_points(csv)
+        log.info(
+            "reused detection for %s (raster, plots and detector settings unchanged)",
+            entry.path.name,
+        )
         return (
             pts,
             info.get("method", settings.method),
@@ -195,6 +199,7 @@ def _detect(
             float(info.get("pixel_size_m", float("nan"))),
             info.get("detection", {}),
         )
+    log.info("detecting plants in %s", entry.path.name)
     res = detect_raster(entry.path, settings, plots=layer, workers=workers)
     detection = detection_metadata(res)
     write_points(res.points, gpkg)
@@ -301,7 +306,6 @@ def _run_survey(
                 "none of the plots; check its CRS and the plots file"
             )
         sub = _layer_subset(layer, touches)
-        log.info("detecting plants in %s", entry.path.name)
         pts, method, notes, cached, px, detection = _detect(
             entry, sub, out, plots_hash, workers or config.workers, previous
         )

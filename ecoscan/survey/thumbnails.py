@@ -30,6 +30,7 @@ def preview(
     *,
     rgb: bool,
     max_side: int = 520,
+    stretch: bool = True,
 ) -> tuple[np.ndarray, tuple[float, float, float, float]] | None:
     """Read a reduced-resolution preview of a raster over map bounds.
 
@@ -43,6 +44,9 @@ def preview(
         Read the first three bands as colour; otherwise the first band in grey.
     max_side : int
         Longest side of the preview in pixels.
+    stretch : bool
+        Stretch a one-band preview to [0, 1] for grey display; False keeps the values
+        (heights in metres, class codes; nearest-neighbour sampling) with NaN where invalid.
 
     Returns
     -------
@@ -74,6 +78,8 @@ def preview(
         # one stretch for all three bands keeps the colours true (no hue shift)
         flat = _stretch(data.reshape(3 * data.shape[1], data.shape[2]), np.tile(valid, (3, 1)))
         img = np.moveaxis(flat.reshape(data.shape), 0, -1)
-    else:
+    elif stretch:
         img = _stretch(data[0], valid)
+    else:
+        img = np.where(valid, data[0], np.nan)
     return img, extent

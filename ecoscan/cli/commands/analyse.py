@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import sys
 
 from ecoscan.analysis import (
     CAUTION,
@@ -13,9 +12,18 @@ from ecoscan.analysis import (
     dispersion_rows,
     write_analysis,
 )
-from ecoscan.cli._common import add_crs_arg, add_plots_args, add_seed_args, print_notes
+from ecoscan.cli._common import (
+    add_crs_arg,
+    add_plots_args,
+    add_renamed,
+    add_seed_args,
+    choice,
+    print_notes,
+    print_warnings,
+)
 from ecoscan.inputs import load_points_and_plots
 from ecoscan.lifecycle import output_folder
+from ecoscan.stats.montecarlo import DIRECTIONS
 from ecoscan.tables import format_table
 
 NAME = "analyse"
@@ -28,19 +36,19 @@ Morisita's index). Writes OUTDIR/dispersion.csv, dispersion.json, points.csv and
 and prints a table. Automated counts need field checks before they drive decisions."""
 EXAMPLE = "ecoscan analyse plants.csv --plots plots.geojson --crs EPSG:32633 -o results"
 
-#: Columns of the terminal table, with their headings.
+#: Columns of the terminal table (headings and formats from ecoscan.vocabulary).
 TABLE_COLUMNS = (
-    ("plot_id", "plot"),
-    ("n", "n"),
-    ("density_per_ha", "per ha"),
-    ("mean_nn_m", "NN mean m"),
-    ("R", "R"),
-    ("R_donnelly", "R Donnelly"),
-    ("p_donnelly", "p Donnelly"),
-    ("p_mc", "p MC"),
-    ("pattern", "pattern"),
-    ("quadrat_p", "quadrat p"),
-    ("morisita_std", "Morisita std"),
+    "plot_id",
+    "n",
+    "density_per_ha",
+    "mean_nn_m",
+    "R",
+    "R_donnelly",
+    "p_donnelly",
+    "p_mc",
+    "verdict",
+    "quadrat_p",
+    "morisita_std",
 )
 
 
@@ -55,11 +63,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--alpha", type=float, default=0.05, help="significance level of the verdict (0.05)"
     )
     p.add_argument(
-        "--alternative",
-        choices=("two-sided", "clustered", "regular"),
-        default="two-sided",
-        help="alternative hypothesis of the tests (default two-sided)",
+        "--direction",
+        type=choice("--direction", DIRECTIONS),
+        default="either",
+        metavar="{" + ",".join(DIRECTIONS) + "}",
+        help="departure from randomness the tests look for: either way (default), only "
+        "clustering or only regularity",
     )
+    add_renamed(p, "--alternative")  # retired-name
     p.add_argument(
         "--guard",
         type=float,
@@ -91,7 +102,7 @@ def run(args: argparse.Namespace) -> int:
         simulations=args.simulations,
         seed=args.seed,
         alpha=args.alpha,
-        alternative=args.alternative,
+        direction=args.direction,
         guard_m=args.guard,
         quadrat_m=args.quadrat,
         stop_after=args.stop_after,
@@ -110,26 +121,30 @@ def _analyse(args: argparse.Namespace, settings: DispersionSettings):
     inputs = load_points_and_plots(args.points, args.plots, crs=args.crs, id_field=args.id_field)
     check_quadrat_cells(settings.quadrat_m, inputs.plots, option="--quadrat")
     notes = list(inputs.notes)
-    few = settings.too_few_simulations()
+    few = _few_simulations(settings)
     if few:
-        notes.append(few.replace("simulations (999", "--simulations (999"))
+        notes.append(few)  # kept in dispersion.json; printed as a warning after success
     return analyse(inputs, settings), inputs, notes
+
+
+def _few_simulations(settings: DispersionSettings) -> str:
+    few = settings.too_few_simulations()
+    return few.replace("simulations (999", "--simulations (999") if few else ""
 
 
 def _print(args, settings, results, notes, outdir) -> None:
     rows = dispersion_rows(results)
-    keys = [k for k, _ in TABLE_COLUMNS]
-    print(format_table(rows, keys, headers=[h for _, h in TABLE_COLUMNS]))
+    print(format_table(rows, TABLE_COLUMNS))
     print()
     for r in rows:
         print(f"plot {r['plot_id']}: {r['summary']}")
-    flagged = [(r["plot_id"], r["warnings"]) for r in rows if r["warnings"]]
-    for pid, w in flagged:
-        print(f"plot {pid}: {w}")
     print(
-        f"pattern: Monte Carlo test ({settings.simulations} simulations, {settings.alternative}, "
-        f"alpha {settings.alpha:g}); results in {outdir}"
+        f"verdict: Monte Carlo test ({settings.simulations} simulations, direction "
+        f"{settings.direction}, alpha {settings.alpha:g})"
     )
+    few = _few_simulations(settings)
+    warnings = [few] if few else []
+    warnings += [f"plot {r['plot_id']}: {r['warnings']}" for r in rows if r["warnings"]]
+    print_warnings(warnings)
+    notes = [n for n in notes if n != few] + [f"results in {outdir}", f"caution: {CAUTION}"]
     print_notes(notes, quiet=args.quiet)
-    if not args.quiet:
-        print(f"caution: {CAUTION}", file=sys.stderr)

@@ -132,20 +132,18 @@ def run(args: argparse.Namespace) -> int:
         f"cross-validated accuracy of each layer ({res.folds}, tolerance {res.tolerance_m:.3g} m):"
     )
     rows = [s.as_dict() for s in res.scores]
-    print(format_table(rows, ["layer", "tp", "fp", "fn", "precision", "recall", "f1"], digits=3))
+    print(format_table(rows, ["layer", "tp", "fp", "fn", "precision", "recall", "f1"]))
     det = res.detector
     print()
-    summary = [
-        {"item": "chosen", "value": f"{det.kind} ({det.layer})"},
-        {"item": "precision (cross-validated)", "value": res.chosen.precision},
-        {"item": "recall (cross-validated)", "value": res.chosen.recall},
-        {"item": "F1 (cross-validated)", "value": res.chosen.f1},
-        {
-            "item": "diameter range (m)",
-            "value": f"{det.diameter_min_m:.3g}:{det.diameter_max_m:.3g}",
-        },
-        {"item": "mapped plants", "value": det.training.get("plants", 0)},
-        {"item": "written", "value": ", ".join(str(p) for p in written)},
-    ]
-    print(format_table(summary, ["item", "value"], digits=3))
+    chosen = {
+        "method": f"{det.kind} ({det.layer})",
+        "precision": res.chosen.precision,
+        "recall": res.chosen.recall,
+        "f1": res.chosen.f1,
+        "diameter_range_m": f"{det.diameter_min_m:.3g}:{det.diameter_max_m:.3g}",
+        "mapped_plants": det.training.get("plants", 0),
+    }
+    print("chosen (precision, recall and F1 cross-validated):")
+    print(format_table([chosen], list(chosen)))
+    print_notes([f"wrote {', '.join(str(p) for p in written)}"], args.quiet)
     return 0

@@ -3,15 +3,20 @@
 from __future__ import annotations
 
 import argparse
-import sys
 from pathlib import Path
 
 from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows, detect_change, write_change
-from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
+from ecoscan.cli._common import (
+    add_crs_arg,
+    add_plots_args,
+    add_renamed,
+    print_notes,
+    print_warnings,
+)
 from ecoscan.errors import InputError
 from ecoscan.lifecycle import output_folder
 from ecoscan.safety import simulations_arg
-from ecoscan.tables import format_table, show_small_p
+from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, read_points
 
 NAME = "change"
@@ -26,22 +31,6 @@ DESCRIPTION = (
 EXAMPLE = (
     "ecoscan change spring/points.csv autumn/points.csv --tolerance 0.5 "
     "--plots plots.gpkg -o change_spring_autumn"
-)
-
-TABLE_HEADERS = (
-    "plot",
-    "n before",
-    "n after",
-    "persist",
-    "lost",
-    "new",
-    "survival",
-    "low 95%",
-    "high 95%",
-    "Δ density /ha",
-    "R before",
-    "R after",
-    "p (ΔR)",
 )
 
 
@@ -65,7 +54,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="largest distance between a plant's two positions after removing the shift, in "
         "metres; above the positional error, well below the plant spacing (e.g. 0.5)",
     )
-    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
+    add_renamed(p, "--out")  # retired-name
     add_plots_args(p, required=False)
     add_crs_arg(p)
     p.add_argument(
@@ -101,7 +91,7 @@ def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan change``."""
     earlier_path, later_path = _points_file(args.earlier), _points_file(args.later)
     with output_folder(
-        args.out, overwrite=args.overwrite, inputs=[args.earlier, args.later, args.plots]
+        args.output, overwrite=args.overwrite, inputs=[args.earlier, args.later, args.plots]
     ) as tmp:
         result, paths, plots, extra_notes = _change(args, earlier_path, later_path, tmp)
     _print(args, result, paths, plots, extra_notes)
@@ -142,17 +132,14 @@ def _change(args, earlier_path: Path, later_path: Path, tmp: Path):
 
 def _print(args, result, paths, plots, extra_notes) -> None:
     notes = extra_notes + list(result.notes) + ([] if plots is None else plots.notes)
-    print_notes(notes, args.quiet)
-    for w in result.warnings:
-        print(f"warning: {w}", file=sys.stderr)
     c = result.counts
     print(
         f"shift removed: {result.shift_x_m:+.3f} m east, {result.shift_y_m:+.3f} m north; "
         f"{c['persisting']} persisting, {c['lost']} lost, {c['new']} new "
         f"(tolerance {result.tolerance_m:g} m)"
     )
-    rows = show_small_p(change_rows(result), CHANGE_SUMMARY_COLUMNS)
-    print(format_table(rows, CHANGE_SUMMARY_COLUMNS, headers=TABLE_HEADERS))
-    print("automated counts: check lost and new plants in the field before acting on them")
-    if not args.quiet:
-        print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)
+    print(format_table(change_rows(result), CHANGE_SUMMARY_COLUMNS))
+    print_warnings(list(result.warnings))
+    notes.append(f"wrote {len(paths)} files to {args.output}")
+    notes.append("automated counts: check lost and new plants in the field before acting on them")
+    print_notes(notes, args.quiet)

@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import argparse
-import sys
 
-from ecoscan.cli._common import print_notes
+from ecoscan.cli._common import add_renamed, print_notes
 from ecoscan.compare import (
     BY_CHOICES,
     GROUP_SUMMARY_COLUMNS,
@@ -18,7 +17,7 @@ from ecoscan.compare import (
 )
 from ecoscan.lifecycle import output_folder
 from ecoscan.safety import simulations_arg
-from ecoscan.tables import format_table, show_small_p
+from ecoscan.tables import format_table
 
 NAME = "compare"
 HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"
@@ -32,22 +31,6 @@ DESCRIPTION = (
 )
 EXAMPLE = "ecoscan compare results_planted results_natural -o compare_out --by folder"
 
-GROUP_HEADERS = (
-    "rank",
-    "group",
-    "plots",
-    "n",
-    "plants/ha",
-    "mean NN m",
-    "R",
-    "low 95%",
-    "high 95%",
-    "R Donnelly",
-    "low 95%",
-    "high 95%",
-    "pattern (Donnelly 95%)",
-)
-
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan compare``."""
@@ -57,7 +40,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="RESULTS",
         help="results folders (each with dispersion.csv, points.csv and plots.gpkg)",
     )
-    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
+    add_renamed(p, "--out")  # retired-name
     p.add_argument(
         "--by",
         choices=BY_CHOICES,
@@ -84,7 +68,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan compare``."""
-    with output_folder(args.out, overwrite=args.overwrite, inputs=args.results) as tmp:
+    with output_folder(args.output, overwrite=args.overwrite, inputs=args.results) as tmp:
         tables = [read_results(f) for f in args.results]
         labels = [t.label for t in tables]
         if len(set(labels)) < len(labels):  # same folder name in different places
@@ -97,22 +81,12 @@ def run(args: argparse.Namespace) -> int:
             pool_dates=args.pool_dates,
         )
         paths = write_comparison(tmp, result)
-    print_notes(result.notes, args.quiet)
     groups = sorted(group_rows(result), key=lambda g: g["rank_regularity"])
-    print(format_table(groups, GROUP_SUMMARY_COLUMNS, headers=GROUP_HEADERS))
+    print(format_table(groups, GROUP_SUMMARY_COLUMNS))
     print()
-    adj = len(result.pairs) > 1
     cols = pair_summary_columns(len(result.pairs), paired=result.paired)
-    heads = (
-        ("A", "B", "plots on both", "mean Δ plants/ha", "p density (paired)", "mean ΔR",
-         "p ΔR (paired)")
-        if result.paired
-        else ("A", "B", "Δ plants/ha", "p density", "ΔR", "ΔR edge-corr.", "p ΔR (z)",
-              "p ΔR (perm.)", "p NN distances (perm.)")
-    )  # fmt: skip
-    print(format_table(show_small_p(comparison_rows(result), cols), cols, headers=heads))
-    if adj:
+    print(format_table(comparison_rows(result), cols))
+    if len(result.pairs) > 1:
         print(f"p-values adjusted for {len(result.pairs)} comparisons (Holm 1979)")
-    if not args.quiet:
-        print(f"wrote {len(paths)} files to {args.out}", file=sys.stderr)
+    print_notes([*result.notes, f"wrote {len(paths)} files to {args.output}"], args.quiet)
     return 0

@@ -56,6 +56,9 @@ def run(args: argparse.Namespace) -> int:
     workers = cap_workers(args.workers, quiet=args.quiet)
     res = run_survey(cfg, output=Path(args.output), workers=workers, overwrite=args.overwrite)
     print_notes(res.notes, args.quiet)
-    print_summary(res)
-    print(f"\nThe demo data is invented; the true plant positions are in {data / 'truth'}.")
+    print_summary(res, args.quiet)
+    print_notes(
+        [f"the demo data is invented; the true plant positions are in {data / 'truth'}"],
+        args.quiet,
+    )
     return 0

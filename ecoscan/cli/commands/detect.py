@@ -198,24 +198,24 @@ def run(args: argparse.Namespace) -> int:
     meta_path = out.with_name(out.stem + ".detection.json")
     write_json(meta_path, detection_metadata(res, settings))
     print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
-    rows = [
-        {"item": "plants", "value": res.n},
-        {"item": "method", "value": res.method + (f" ({res.index})" if res.index else "")},
-        {"item": "pixel size (m)", "value": res.pixel_size_m},
-        {"item": "tiles read", "value": f"{res.tiles_read} of {res.tiles_total}"},
-        {"item": "megapixels read", "value": res.megapixels_read},
-        {"item": "output", "value": str(out)},
-        {"item": "settings and thresholds", "value": str(meta_path)},
-    ]
-    print(format_table(rows, ["item", "value"], digits=3))
+    row = {
+        "n": res.n,
+        "method": res.method + (f" ({res.index})" if res.index else ""),
+        "pixel_size_m": res.pixel_size_m,
+        "tiles": f"{res.tiles_read} of {res.tiles_total}",
+        "megapixels_read": res.megapixels_read,
+        "output": str(out),
+    }
+    print(format_table([row], list(row)))
+    print_notes([f"settings and thresholds in {meta_path}"], args.quiet)
     if plots is not None and res.n:
         ids = res.points.attrs["plot_id"]
         gone = set(res.unsurveyed)
         per = [
-            {"plot_id": p.plot_id, "plants": int((ids == p.plot_id).sum())}
+            {"plot_id": p.plot_id, "n": int((ids == p.plot_id).sum())}
             for p in plots.plots
             if p.plot_id not in gone
         ]
         print()
-        print(format_table(per, ["plot_id", "plants"]))
+        print(format_table(per, ["plot_id", "n"]))
     return 0

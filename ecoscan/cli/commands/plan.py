@@ -139,9 +139,9 @@ def run(args: argparse.Namespace) -> int:
     if args.output:
         with output_folder(args.output, overwrite=args.overwrite) as tmp:
             write_plan(plan, tmp)
-    print(format_table(plan.pattern_rows, PATTERN_COLUMNS, digits=3))
+    print(format_table(plan.pattern_rows, PATTERN_COLUMNS))
     print()
-    print(format_table(plan.design_rows, DESIGN_COLUMNS, digits=3))
+    print(format_table(plan.design_rows, DESIGN_COLUMNS))
     print()
     for a in plan.answers:
         print(a)

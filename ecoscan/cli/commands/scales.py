@@ -4,11 +4,20 @@ from __future__ import annotations
 
 import argparse
 
-from ecoscan.cli._common import add_crs_arg, add_plots_args, add_seed_args, print_notes
+from ecoscan.cli._common import (
+    add_crs_arg,
+    add_plots_args,
+    add_renamed,
+    add_seed_args,
+    choice,
+    print_notes,
+    print_warnings,
+)
 from ecoscan.errors import InputError
 from ecoscan.inputs import load_points_and_plots
 from ecoscan.lifecycle import output_folder
 from ecoscan.scales import ScalesSettings, analyse_scales, scales_rows, write_scales
+from ecoscan.stats.envelopes import GLOBAL_TESTS
 from ecoscan.tables import format_table
 
 NAME = "scales"
@@ -38,8 +47,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--alpha", type=float, default=0.05, help="significance level of the tests (default 0.05)"
     )
     p.add_argument(
-        "--rmax",
+        "--max-distance",
         type=float,
+        dest="max_distance",
         metavar="METRES",
         help="largest distance in metres (default per plot: a quarter of its shorter side, "
         "at most 10 typical plant spacings)",
@@ -48,11 +58,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--steps", type=int, default=100, metavar="N", help="number of distances (default 100)"
     )
     p.add_argument(
-        "--test",
-        choices=("erl", "mad"),
-        default="erl",
-        help="global test: extreme rank length (default) or maximum absolute deviation",
+        "--global-test",
+        type=choice("--global-test", GLOBAL_TESTS),
+        default="rank-length",
+        metavar="{" + ",".join(GLOBAL_TESTS) + "}",
+        help="global test over all distances: rank-length (extreme rank length, the default) "
+        "or max-deviation (largest absolute deviation from the random-pattern value)",
     )
+    add_renamed(p, "--rmax", "--test")  # retired-name
     p.add_argument(
         "--test-function",
         choices=("L", "g"),
@@ -82,9 +95,9 @@ def run(args: argparse.Namespace) -> int:
             "simulations": args.simulations,
             "seed": args.seed,
             "alpha": args.alpha,
-            "r_max_m": args.rmax,
-            "n_r": args.steps,
-            "global_test": args.test,
+            "max_distance_m": args.max_distance,
+            "steps": args.steps,
+            "global_test": args.global_test,
             "test_function": args.test_function,
             "kind_field": args.kind_field,
             "kinds": args.kinds,
@@ -98,17 +111,13 @@ def run(args: argparse.Namespace) -> int:
         inputs = load_points_and_plots(
             args.points, args.plots, crs=args.crs, id_field=args.id_field
         )
-        print_notes(inputs.notes, args.quiet)
         results = analyse_scales(inputs, settings)
         paths = write_scales(tmp, results, settings)
     rows = scales_rows(results)
-    cols = ["plot_id", "n", "global_p", "verdict"]
-    if any("cross_verdict" in r for r in rows):
-        cols.append("cross_verdict")
+    cols = ["plot_id", "n", "p_global", "verdict"]
+    if any("kinds_verdict" in r for r in rows):
+        cols.append("kinds_verdict")
     print(format_table(rows, cols, max_width=90))
-    if not args.quiet:
-        print(f"wrote {len(paths)} files to {args.output}")
-        for r in results:
-            for w in r.warnings:
-                print(f"note: plot {r.plot_id}: {w}")
+    print_warnings([f"plot {r.plot_id}: {w}" for r in results for w in r.warnings])
+    print_notes([*inputs.notes, f"wrote {len(paths)} files to {args.output}"], args.quiet)
     return 0

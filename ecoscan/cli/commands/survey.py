@@ -32,25 +32,22 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-report", action="store_true", help="skip figures and report.html")
 
 
-def print_summary(run) -> None:
-    """Print the per-plot table and where the outputs are."""
+def print_summary(run, quiet: bool = False) -> None:
+    """Print the per-plot table (stdout) and where the outputs are (a note on stderr)."""
+    from ecoscan.cli._common import print_notes
     from ecoscan.tables import format_table
 
-    cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "pattern"]
-    print(
-        format_table(
-            run.rows,
-            cols,
-            headers=["site", "date", "plot", "n", "per ha", "R", "R edge", "p MC", "verdict"],
-        )
-    )
+    cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "verdict"]
+    print(format_table(run.rows, cols))
     for ch in run.changes:
         print(
             f"change {ch.site} {ch.earlier} -> {ch.later}: shift "
             f"{ch.result.shift_x_m:+.2f} m E, {ch.result.shift_y_m:+.2f} m N"
         )
     report = run.output / "report.html"
-    print(f"\nresults in {run.output}" + (f"\nreport: {report}" if report.exists() else ""))
+    print_notes(
+        [f"results in {run.output}"] + ([f"report: {report}"] if report.exists() else []), quiet
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -72,6 +69,6 @@ def run(args: argparse.Namespace) -> int:
         overwrite=args.overwrite,
     )
     print_notes(res.notes, args.quiet)
-    print_summary(res)
+    print_summary(res, args.quiet)
     sys.stdout.flush()
     return 0

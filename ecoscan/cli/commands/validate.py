@@ -79,5 +79,5 @@ def run(args: argparse.Namespace) -> int:
     if args.output:
         write_csv(args.output, records, COLUMNS)
     print_notes(det.notes + [n for n in ref.notes if n not in det.notes] + notes, args.quiet)
-    print(format_table(records, COLUMNS, digits=3))
+    print(format_table(records, COLUMNS))
     return 0
