@@ -23,6 +23,7 @@ import numpy as np
 
 from ecoscan import __version__
 from ecoscan.crs import crs_label
+from ecoscan.detectable import DETECTABLE_COLUMNS, Detectable, plot_detectable
 from ecoscan.errors import InputError
 from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import write_csv, write_json
@@ -51,6 +52,8 @@ from ecoscan.stats.quadrat import (
     quadrat_null,
     quadrat_test,
 )
+from ecoscan.stats.spacing import inhibition_distance
+from ecoscan.stats.thomas import fit_thomas
 from ecoscan.vector import write_plots, write_points
 from ecoscan.vocabulary import RENAMED_VALUES
 
@@ -115,6 +118,7 @@ EXTRA_COLUMNS: tuple[str, ...] = (
     "quadrat_low_expected",
     "n_coincident",
     "summary",
+    *DETECTABLE_COLUMNS,
 )
 
 #: Usual caution printed with every result.
@@ -336,6 +340,7 @@ class PlotDispersion:
     quadrat_p_mc: float = float("nan")
     quadrat_height_m: float = float("nan")
     summary: str = ""
+    detectable: Detectable | None = None
 
     def row(self) -> dict[str, Any]:
         """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
@@ -388,6 +393,8 @@ class PlotDispersion:
             "n_coincident": self.n_coincident,
             "summary": self.summary,
         }
+        det = self.detectable or Detectable(nan, nan, "")
+        r.update(det.row())
         return r
 
 
@@ -596,7 +603,28 @@ def analyse_plot(
         qnull.pvalue,
         quad_h,
     )
-    return dataclasses.replace(res, summary=plain_summary(res, s.alpha, s.smallest_p))
+    res = dataclasses.replace(
+        res, detectable=plot_detectable(polygon, n, alpha=s.alpha, seed=s.seed)
+    )
+    extra = _pattern_in_metres(xy, polygon, res.verdict, rng)
+    summary = plain_summary(res, s.alpha, s.smallest_p)
+    return dataclasses.replace(res, summary=f"{summary}; {extra}" if extra else summary)
+
+
+#: Plants needed before a clustered plot's clusters are described by a fitted Thomas process.
+MIN_POINTS_CLUSTER_FIT = 20
+
+
+def _pattern_in_metres(xy: np.ndarray, polygon, verdict: str, rng) -> str:
+    """Cluster size and spacing (clustered plots) or inhibition distance (regular plots)."""
+    xy = np.asarray(xy, float).reshape(-1, 2)
+    if verdict == "clustered" and xy.shape[0] >= MIN_POINTS_CLUSTER_FIT:
+        fit = fit_thomas(xy, polygon, replicates=0, rng=rng)
+        if np.isfinite(fit.sigma_m) and fit.mean_cluster_size > 1:
+            return fit.describe()
+    if verdict == "regular" and xy.shape[0] >= 2:
+        return inhibition_distance(xy, polygon).describe()
+    return ""
 
 
 def _p_words(p: float) -> str:
@@ -660,10 +688,14 @@ def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 
             if smallest_p > alpha
             else "not significant"
         )
-        nn_dir, nn = (
-            0,
-            f"no clear departure from random spacing between neighbours (R = {r:.2f}, {why})",
-        )
+        reading = res.detectable.reading if res.detectable else ""
+        if reading == "too few plants to tell":
+            text = f"too few plants to tell a pattern between neighbours (R = {r:.2f}, {why})"
+        elif reading:
+            text = f"no departure detected between neighbours (R = {r:.2f}, {why}; {reading})"
+        else:
+            text = f"no clear departure from random spacing between neighbours (R = {r:.2f}, {why})"
+        nn_dir, nn = 0, text
     qd = res.quadrat
     if qd is None or qd.q < 2 or not np.isfinite(qd.vmr):
         return nn

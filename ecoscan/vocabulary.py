@@ -156,6 +156,13 @@ _ALL = [
     _c("R_donnelly_high95", "R Donnelly high 95%", "", "index", "Upper 95% limit of R Donnelly."),
     _c("summary", "in words", "", "text", "The plot's result in one plain sentence."),
     _c(
+        "detectable_reading",
+        "could detect",
+        "",
+        "text",
+        "What this plot's Monte Carlo test could detect with 80% power, as Clark–Evans R.",
+    ),
+    _c(
         "R_donnelly_se",
         "R Donnelly std. error",
         "",

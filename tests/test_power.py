@@ -91,3 +91,22 @@ def test_survival_power_close_to_statsmodels(pa, pb, n):
 
     ref = NormalIndPower().power(proportion_effectsize(pa, pb), n, 0.05)
     assert survival_difference_power(pa, pb, n) == pytest.approx(ref, abs=0.012)
+
+
+def test_every_plot_row_carries_what_it_could_detect():
+    from ecoscan.analysis import DispersionSettings, analyse_plot
+    from ecoscan.stats.csr import uniform_in_polygon
+    from ecoscan.stats.thomas import thomas_pattern
+
+    plot = shapely.box(0, 0, 60, 60)
+    s = DispersionSettings(simulations=199)
+    rand = analyse_plot(uniform_in_polygon(plot, 80, rng=3), plot, "r", s)
+    row = rand.row()
+    assert row["detectable_clustered_R"] < 1 < row["detectable_regular_R"]
+    assert "could detect R below" in rand.summary and rand.verdict == "random"
+    few = analyse_plot(uniform_in_polygon(plot, 8, rng=3), plot, "f", s)
+    assert few.row()["detectable_reading"] == "too few plants to tell"
+    assert few.summary.startswith("too few plants to tell")
+    # a strongly clustered Thomas pattern (κ = 40/ha, μ = 6, σ = 1.5 m) is described in metres
+    clus = analyse_plot(thomas_pattern(plot, 0.004, 1.5, 6.0, rng=1), plot, "c", s)
+    assert clus.verdict == "clustered" and "plants, about" in clus.summary
