@@ -289,6 +289,44 @@ def read_window(
     return data, valid
 
 
+def window_has_data(
+    info: RasterInfo, bands: tuple[int, ...], window: tuple[int, int, int, int]
+) -> bool:
+    """Whether any pixel of a window is valid, reading only GDAL's masks.
+
+    Parameters
+    ----------
+    info : RasterInfo
+        The raster.
+    bands : tuple of int
+        1-based band indices.
+    window : (col0, row0, col1, row1)
+        Pixel window, end exclusive.
+
+    Returns
+    -------
+    bool
+        False when the nodata value, internal mask or alpha marks every pixel of the window
+        invalid in some band, so the tile can be skipped without reading its pixels.
+
+    Examples
+    --------
+    >>> callable(window_has_data)
+    True
+    """
+    c0, r0, c1, r1 = window
+    win = Window(c0, r0, c1 - c0, r1 - r0)
+    try:
+        with _env(), _open(info) as src:
+            masks = src.read_masks(list(bands), window=win)
+    except RasterioIOError as exc:
+        raise InputError(
+            f"cannot read the mask of pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
+            f"{str(exc).splitlines()[0]}; the file may be truncated"
+        ) from None
+    return bool(np.any(np.all(masks > 0, axis=0)))
+
+
 def read_decimated(
     info: RasterInfo, bands: tuple[int, ...], max_pixels: int = 4_000_000
 ) -> tuple[np.ndarray, np.ndarray]:

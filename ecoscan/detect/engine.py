@@ -16,7 +16,7 @@ from ecoscan.detect import blobs, chm, classes
 from ecoscan.detect.indices import darkness, excess_green, ndvi
 from ecoscan.detect.settings import CROWN_RULES
 from ecoscan.detect.tiling import Tile, in_core
-from ecoscan.raster import RasterInfo, read_window
+from ecoscan.raster import RasterInfo, read_window, window_has_data
 
 __all__ = [
     "DetectorParams",
@@ -191,6 +191,18 @@ def _crown_width_px(rule: str, pixel_size_m: float):
     return f
 
 
+def _empty_tile(p: DetectorParams) -> dict[str, np.ndarray]:
+    """The result of a tile without valid pixels: every column, no rows."""
+    keys = {
+        "imagery": ("col", "row", "sigma_px", "score", "index_value"),
+        "chm": ("col", "row", "height_m", *(("area_m2",) if p.crowns else ())),
+        "classes": ("col", "row", "area_m2", "class_value", "_edge"),
+    }[p.method]
+    res = {k: np.zeros(0, dtype=bool if k == "_edge" else float) for k in keys}
+    res["tile"] = np.zeros(0, dtype=np.int64)
+    return res
+
+
 def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     """Detect plants in one tile; keep those whose centre lies in the tile's core.
 
@@ -202,6 +214,8 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     """
     p, tile = job.params, job.tile
     c0, r0, _c1, _r1 = tile.window
+    if not window_has_data(job.info, p.bands, tile.window):
+        return _empty_tile(p)  # all nodata: only the mask was read
     data, valid = read_window(job.info, p.bands, tile.window)
     if p.method == "imagery":
         if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
