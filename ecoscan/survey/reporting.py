@@ -325,11 +325,11 @@ def _site_meaning(run) -> str:
         parts += [f"{v.capitalize()} means {_MEANING[v]}." for v in verdicts]
         few = sorted({str(r["plot_id"]) for r in rows if (r.get("n") or 0) < 30})
         if few:
-            parts.append(
+            text = (
                 f"{_join(few)} {'has' if len(few) == 1 else 'have'} fewer than 30 plants, so "
-                "only a strong pattern "
-                "would show there."
+                "only a strong pattern would show there."
             )
+            parts.append(text[:1].upper() + text[1:])
         for ch in run.changes:
             if ch.site != site:
                 continue
