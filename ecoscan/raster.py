@@ -253,8 +253,12 @@ def _env() -> rasterio.Env:
 
 
 def read_window(
-    info: RasterInfo, bands: tuple[int, ...], window: tuple[int, int, int, int]
-) -> tuple[np.ndarray, np.ndarray]:
+    info: RasterInfo,
+    bands: tuple[int, ...],
+    window: tuple[int, int, int, int],
+    *,
+    skip_empty: bool = False,
+) -> tuple[np.ndarray | None, np.ndarray]:
     """Read bands in a pixel window, with the validity mask.
 
     Parameters
@@ -265,11 +269,15 @@ def read_window(
         1-based band indices.
     window : (col0, row0, col1, row1)
         Pixel window, end exclusive, inside the raster.
+    skip_empty : bool
+        When every pixel is masked, return ``None`` for the data without reading the pixels
+        (only GDAL's masks are read).
 
     Returns
     -------
-    data : numpy.ndarray
-        float32, shape (len(bands), rows, columns).
+    data : numpy.ndarray or None
+        float32, shape (len(bands), rows, columns); None for an empty window with
+        ``skip_empty``.
     valid : numpy.ndarray
         bool, shape (rows, columns): False where GDAL's mask (nodata, internal mask or
         alpha) marks a pixel invalid in any of the bands, or the value is not finite.
@@ -278,53 +286,17 @@ def read_window(
     win = Window(c0, r0, c1 - c0, r1 - r0)
     try:
         with _env(), _open(info) as src:
+            valid = np.all(src.read_masks(list(bands), window=win) > 0, axis=0)
+            if skip_empty and not valid.any():
+                return None, valid
             data = src.read(list(bands), window=win, out_dtype="float32")
-            masks = src.read_masks(list(bands), window=win)
     except RasterioIOError as exc:
         raise InputError(
             f"cannot read pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
             f"{str(exc).splitlines()[0]}; the file may be truncated"
         ) from None
-    valid = np.all(masks > 0, axis=0) & np.all(np.isfinite(data), axis=0)
+    valid &= np.all(np.isfinite(data), axis=0)
     return data, valid
-
-
-def window_has_data(
-    info: RasterInfo, bands: tuple[int, ...], window: tuple[int, int, int, int]
-) -> bool:
-    """Whether any pixel of a window is valid, reading only GDAL's masks.
-
-    Parameters
-    ----------
-    info : RasterInfo
-        The raster.
-    bands : tuple of int
-        1-based band indices.
-    window : (col0, row0, col1, row1)
-        Pixel window, end exclusive.
-
-    Returns
-    -------
-    bool
-        False when the nodata value, internal mask or alpha marks every pixel of the window
-        invalid in some band, so the tile can be skipped without reading its pixels.
-
-    Examples
-    --------
-    >>> callable(window_has_data)
-    True
-    """
-    c0, r0, c1, r1 = window
-    win = Window(c0, r0, c1 - c0, r1 - r0)
-    try:
-        with _env(), _open(info) as src:
-            masks = src.read_masks(list(bands), window=win)
-    except RasterioIOError as exc:
-        raise InputError(
-            f"cannot read the mask of pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
-            f"{str(exc).splitlines()[0]}; the file may be truncated"
-        ) from None
-    return bool(np.any(np.all(masks > 0, axis=0)))
 
 
 def read_decimated(

@@ -22,9 +22,11 @@ def test_nodata_tiles_read_only_their_mask(tmp_path, monkeypatch):
     reads = []
     real = engine.read_window
 
-    def counting(info, bands, window):
-        reads.append(window)
-        return real(info, bands, window)
+    def counting(info, bands, window, **kw):
+        data, valid = real(info, bands, window, **kw)
+        if data is not None:  # pixels were read (read_window returns None before reading)
+            reads.append(window)
+        return data, valid
 
     monkeypatch.setattr(engine, "read_window", counting)
     settings = DetectionSettings(tile_size_px=256)

@@ -16,7 +16,7 @@ from ecoscan.detect import blobs, chm, classes
 from ecoscan.detect.indices import darkness, excess_green, ndvi
 from ecoscan.detect.settings import CROWN_RULES
 from ecoscan.detect.tiling import Tile, in_core
-from ecoscan.raster import RasterInfo, read_window, window_has_data
+from ecoscan.raster import RasterInfo, read_window
 
 __all__ = [
     "DetectorParams",
@@ -214,9 +214,9 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     """
     p, tile = job.params, job.tile
     c0, r0, _c1, _r1 = tile.window
-    if not window_has_data(job.info, p.bands, tile.window):
+    data, valid = read_window(job.info, p.bands, tile.window, skip_empty=True)
+    if data is None:
         return _empty_tile(p)  # all nodata: only the mask was read
-    data, valid = read_window(job.info, p.bands, tile.window)
     if p.method == "imagery":
         if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = p.layer_model(data)

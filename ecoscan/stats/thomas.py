@@ -27,6 +27,7 @@ import shapely
 from scipy.optimize import minimize
 
 from ecoscan.stats.csr import as_rng
+from ecoscan.stats.envelopes import envelope_test
 from ecoscan.stats.second_order import default_max_distance, second_order
 
 __all__ = [
@@ -464,9 +465,7 @@ def fit_thomas(
         l_obs = np.sqrt(np.maximum(k_hat, 0) / np.pi)
         ok = np.all(np.isfinite(l_sims), axis=1)
         if ok.sum() >= 10:
-            dev_obs = np.nanmax(np.abs(l_obs - l_model))
-            dev_sim = np.nanmax(np.abs(l_sims[ok] - l_model), axis=1)
-            fit_p = float((1 + np.sum(dev_sim >= dev_obs)) / (ok.sum() + 1))
+            fit_p = envelope_test(l_obs, l_sims[ok], csr_value=l_model, test="max-deviation").pvalue
     return ThomasFit(
         parent_intensity_per_m2=kappa,
         sigma_m=sigma,
