@@ -56,7 +56,8 @@ def plot_plan(result, path: str | os.PathLike) -> Path:
     ax1.set_xlabel("plants per plot (count)", fontsize=10)
     ax1.set_ylabel("detectable Clark–Evans R (dimensionless)", fontsize=10)
     ax1.set_title(f"pattern detected with {s.power:.0%} power", fontsize=11)
-    ax1.legend(fontsize=9, loc="upper right", framealpha=0.9)
+    # below the panel, so that it never covers the curves however many shapes there are
+    ax1.legend(fontsize=9, loc="upper left", bbox_to_anchor=(0.0, -0.22), ncol=2, frameon=False)
     rows = result.design_rows
     k = [r["plots"] for r in rows]
     ax2.plot(
@@ -77,7 +78,8 @@ def plot_plan(result, path: str | os.PathLike) -> Path:
     ax2.set_ylim(0, 1.02)
     ax2.set_xlabel("plots per site or date (count)", fontsize=10)
     ax2.set_ylabel("power (probability)", fontsize=10)
-    ax2.set_title(f"first shape, {rows[0]['density_per_ha']:.0f} plants/ha", fontsize=11)
+    first = next(iter(result.curves), "")
+    ax2.set_title(f"{first}, {rows[0]['density_per_ha']:.0f} plants/ha", fontsize=11)
     ax2.legend(fontsize=9, loc="lower right", framealpha=0.9)
     for ax in (ax1, ax2):
         ax.grid(True, color="#dddddd", linewidth=0.6)
