@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 import os
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, ClassVar
@@ -29,6 +29,7 @@ from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
+from ecoscan.settings import Settings
 from ecoscan.stats.csr import plot_rng
 from ecoscan.stats.montecarlo import (
     DEFAULT_STOP_AFTER,
@@ -131,14 +132,8 @@ CAUTION = (
 MIN_POINTS_ADVISED = 30
 
 
-def _type_name(t: type | tuple[type, ...]) -> str:
-    if isinstance(t, tuple):
-        return " or ".join(x.__name__ for x in t)
-    return t.__name__
-
-
 @dataclass(frozen=True)
-class DispersionSettings:
+class DispersionSettings(Settings):
     """Parameters of the dispersion analysis.
 
     Attributes
@@ -175,7 +170,9 @@ class DispersionSettings:
     min_points: int = MIN_POINTS_ADVISED
     stop_after: int = DEFAULT_STOP_AFTER
 
-    _TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
+    SECTION: ClassVar[str] = "dispersion"
+    OPTIONAL: ClassVar[tuple[str, ...]] = ("guard_m", "quadrat_m")
+    TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
         "simulations": int,
         "seed": int,
         "alpha": (int, float),
@@ -225,39 +222,6 @@ class DispersionSettings:
                 f"stop_after must be a whole number >= 0 (got {self.stop_after!r}); "
                 "0 runs every simulation"
             )
-
-    @classmethod
-    def from_mapping(cls, d: Mapping[str, Any]) -> DispersionSettings:
-        """Settings from a mapping (e.g. a TOML table); unknown keys are refused.
-
-        Parameters
-        ----------
-        d : mapping
-            Keys among the attribute names; missing keys take their defaults.
-
-        Raises
-        ------
-        InputError
-            Unknown key, wrong type or impossible value.
-        """
-        known = [f.name for f in dataclasses.fields(cls)]
-        unknown = [k for k in d if k not in known]
-        if unknown:
-            raise InputError(
-                f"unknown dispersion setting(s) {', '.join(map(repr, unknown))}; "
-                f"allowed: {', '.join(known)}"
-            )
-        for k, v in d.items():
-            t = cls._TYPES[k]
-            if v is None and k in ("guard_m", "quadrat_m"):
-                continue
-            if isinstance(v, bool) or not isinstance(v, t):
-                raise InputError(f"dispersion setting {k!r} must be {_type_name(t)} (got {v!r})")
-        return cls(**dict(d))
-
-    def to_dict(self) -> dict[str, Any]:
-        """The settings as a plain dict (JSON-ready)."""
-        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
 
     @property
     def smallest_p(self) -> float:

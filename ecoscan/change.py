@@ -15,7 +15,7 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 import shapely
@@ -27,6 +27,7 @@ from ecoscan.inputs import assign_plots, one_row_per_plant, overlap_note
 from ecoscan.outputs import write_csv, write_json, write_text
 from ecoscan.points import PointSet
 from ecoscan.progress import progress
+from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
     PooledR,
     RChangeTest,
@@ -36,6 +37,7 @@ from ecoscan.stats.compare_r import (
     r_change_test,
     r_difference,
 )
+from ecoscan.stats.csr import keyed_rng, run_seed
 from ecoscan.stats.matching import match_points
 from ecoscan.stats.nearest import nn_distances
 from ecoscan.stats.rates import paired_change_test, wilson_interval
@@ -48,6 +50,7 @@ __all__ = [
     "CHANGE_SUMMARY_COLUMNS",
     "PLANT_COLUMNS",
     "ChangeResult",
+    "ChangeSettings",
     "change_rows",
     "change_summary",
     "detect_change",
@@ -119,6 +122,57 @@ PLANT_COLUMNS = (
 STATUSES = ("persisting", "lost", "new")
 OVERALL_ID = "all"
 MIN_SHIFT_PAIRS = 10
+
+
+@dataclass(frozen=True)
+class ChangeSettings(Settings):
+    """Settings of :func:`detect_change` (also the ``change`` section of a survey file).
+
+    Attributes
+    ----------
+    tolerance_m : float
+        Largest distance, metres, between a plant's two positions for them to count as one
+        plant (default 1.0).
+    estimate_shift : bool
+        Estimate and remove an overall co-registration shift first (default True).
+    simulations : int
+        Monte Carlo simulations of the test of a change in R (default 199; 0 skips it).
+    seed : int
+        Run seed (>= 0); each plot's simulations use their own stream derived from it.
+
+    Examples
+    --------
+    >>> ChangeSettings.from_mapping({"tolerance_m": 0.5}).simulations
+    199
+    """
+
+    tolerance_m: float = 1.0
+    estimate_shift: bool = True
+    simulations: int = 199
+    seed: int = 1
+
+    SECTION: ClassVar[str] = "change"
+    TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
+        "tolerance_m": (int, float),
+        "estimate_shift": bool,
+        "simulations": int,
+        "seed": int,
+    }
+
+    def __post_init__(self) -> None:
+        tol = float(self.tolerance_m)
+        if not (math.isfinite(tol) and tol > 0):
+            raise InputError(
+                f"tolerance_m must be a positive distance in metres (got {self.tolerance_m!r}), "
+                "a little above the positional error between the two surveys (e.g. 0.5)"
+            )
+        if not whole_number(self.simulations) or self.simulations < 0:
+            raise InputError(
+                f"simulations must be a whole number >= 0 (got {self.simulations!r}); "
+                "0 skips the test, 199 is usual"
+            )
+        if not whole_number(self.seed) or self.seed < 0:
+            raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
 
 
 @dataclass
@@ -373,7 +427,7 @@ def detect_change(
     plots: PlotLayer | None = None,
     estimate_shift: bool = True,
     simulations: int = 199,
-    seed: int | np.random.Generator | None = 1,
+    rng: int | np.random.Generator | None = 1,
 ) -> ChangeResult:
     """Follow plants between two survey dates: which persist, which were lost, which are new.
 
@@ -397,8 +451,11 @@ def detect_change(
         Monte Carlo simulations for the test of a change in R beyond random losses and
         recruits (:func:`ecoscan.stats.compare_r.r_change_test`); 0 skips it. Cost: about
         1 µs per plant per simulation (50 000 plants, 199 simulations: about 20 s).
-    seed : int or numpy.random.Generator
-        Seed for the simulations and the shift vote; same seed, same numbers.
+    rng : int, numpy.random.Generator or None
+        Seed of the run (a generator gives one draw to seed it, None fresh entropy). Each
+        plot's simulations use their own stream ``SeedSequence([seed, crc32(plot_id)])``
+        (:func:`ecoscan.stats.csr.keyed_rng`), so a plot's p-value does not depend on the
+        other plots; same seed, same numbers.
 
     Returns
     -------
@@ -430,6 +487,7 @@ def detect_change(
     if earlier.n == 0 or later.n == 0:
         which = "earlier" if earlier.n == 0 else "later"
         raise InputError(f"the {which} survey has no plants; check the input file")
+    seed = run_seed(rng)
     earlier, later = one_row_per_plant(earlier), one_row_per_plant(later)
     notes = list(dict.fromkeys([*earlier.notes, *later.notes]))
     warnings: list[str] = []
@@ -545,14 +603,13 @@ def detect_change(
     a_ref = np.column_stack([xe, ye])
     has_e, has_l = np.isfinite(xe), np.isfinite(xl)
     survived = status == "persisting"
-    gen = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
     nsim = int(simulations)
 
-    def mc(sel: np.ndarray, geom: shapely.Geometry) -> RChangeTest | None:
+    def mc(sel: np.ndarray, geom: shapely.Geometry, unit: str) -> RChangeTest | None:
         if nsim == 0:
             return None
         data = [(a_ref[sel & has_e], survived[sel & has_e], b_ref[sel & has_l], geom)]
-        return r_change_test(data, simulations=nsim, rng=gen)
+        return r_change_test(data, simulations=nsim, rng=keyed_rng(seed, unit))
 
     rows: list[dict[str, Any]] = []
     if plot_list is not None:
@@ -568,7 +625,7 @@ def detect_change(
             sel = plot_sel[p.plot_id]
             e_xys.append(a_ref[sel & has_e])
             l_xys.append(b_ref[sel & has_l])
-            tests.append(mc(sel, p.geometry))
+            tests.append(mc(sel, p.geometry, p.plot_id))
             r1 = _pooled_r([e_xys[-1]], [p.geometry])
             r2 = _pooled_r([l_xys[-1]], [p.geometry])
             rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
@@ -597,7 +654,7 @@ def detect_change(
             status,
             _pooled_r([a_ref[has_e]], [window]),
             _pooled_r([b_ref[has_l]], [window]),
-            mc(everything, window),
+            mc(everything, window, OVERALL_ID),
         )
     missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]
     if missing:
@@ -615,7 +672,8 @@ def detect_change(
         "R_change_test": "z test, SE from Clark & Evans (1954), dates taken as independent; "
         "and Monte Carlo test against random losses and uniform recruits (Besag & Diggle 1977)",
         "simulations": nsim,
-        "seed": seed if isinstance(seed, (int, type(None))) else "generator",
+        "seed": seed,
+        "random_streams": "one per plot, SeedSequence([seed, crc32(plot_id)])",
         "typical_spacing_m": spacing,
         "crs": crs_label(crs),
     }
@@ -745,3 +803,9 @@ def write_change(outdir: str | os.PathLike, result: ChangeResult) -> list[Path]:
     )
     paths.append(save_figure(fig, out / "change_map.png"))
     return paths
+
+
+# `ecoscan.change(...)` is the public API function of that name (ecoscan/_callable.py)
+from ecoscan._callable import callable_module  # noqa: E402
+
+callable_module(__name__)

@@ -23,7 +23,7 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 import pyogrio
@@ -36,6 +36,7 @@ from ecoscan.errors import InputError
 from ecoscan.inputs import PlotMembership
 from ecoscan.outputs import write_csv, write_json
 from ecoscan.points import PointSet
+from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
     PlotNN,
     PooledR,
@@ -44,6 +45,7 @@ from ecoscan.stats.compare_r import (
     r_difference,
     r_permutation_test,
 )
+from ecoscan.stats.csr import keyed_rng, run_seed
 from ecoscan.stats.nn_distribution import nn_distribution_test
 from ecoscan.stats.paired import paired_sign_flip_test
 from ecoscan.stats.rates import holm_adjust, poisson_rate_test
@@ -54,6 +56,7 @@ __all__ = [
     "GROUP_COLUMNS",
     "GROUP_SUMMARY_COLUMNS",
     "PAIR_COLUMNS",
+    "CompareSettings",
     "ComparisonResult",
     "PlotUnit",
     "ResultsTable",
@@ -67,6 +70,52 @@ __all__ = [
 ]
 
 BY_CHOICES = ("auto", "site", "date", "plot", "folder")
+
+
+@dataclass(frozen=True)
+class CompareSettings(Settings):
+    """Settings of :func:`compare_groups` (also the ``compare`` section of a survey file).
+
+    Attributes
+    ----------
+    by : {'auto', 'site', 'date', 'plot', 'folder'}
+        What forms a group (default ``auto``).
+    permutations : int
+        Arrangements of the permutation tests (>= 99; default 999).
+    seed : int
+        Run seed (>= 0); each pair of groups uses its own stream derived from it.
+    pool_dates : bool
+        Pool the dates of one place into one group (default False).
+
+    Examples
+    --------
+    >>> CompareSettings.from_mapping({"by": "site"}).permutations
+    999
+    """
+
+    by: str = "auto"
+    permutations: int = 999
+    seed: int = 1
+    pool_dates: bool = False
+
+    SECTION: ClassVar[str] = "compare"
+    TYPES: ClassVar[dict[str, type | tuple[type, ...]]] = {
+        "by": str,
+        "permutations": int,
+        "seed": int,
+        "pool_dates": bool,
+    }
+
+    def __post_init__(self) -> None:
+        if self.by not in BY_CHOICES:
+            raise InputError(f"by must be one of {', '.join(BY_CHOICES)} (got {self.by!r})")
+        if not whole_number(self.permutations) or self.permutations < 99:
+            raise InputError(
+                f"permutations must be a whole number >= 99 (got {self.permutations!r}); "
+                "999 is usual"
+            )
+        if not whole_number(self.seed) or self.seed < 0:
+            raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
 
 #: The group columns worth reading first (terminal table and report).
 GROUP_SUMMARY_COLUMNS = (
@@ -706,7 +755,7 @@ def compare_groups(
     by: str = "auto",
     *,
     permutations: int = 999,
-    seed: int | np.random.Generator | None = 1,
+    rng: int | np.random.Generator | None = 1,
     pool_dates: bool = False,
 ) -> ComparisonResult:
     """Compare every pair of groups of plots for density and Clark–Evans R.
@@ -720,8 +769,11 @@ def compare_groups(
         ``site`` falls back to the folder name for folders without sites.
     permutations : int
         Monte Carlo arrangements for the permutation test (≥ 99).
-    seed : int or numpy.random.Generator
-        Seed; same seed, same p-values.
+    rng : int, numpy.random.Generator or None
+        Seed of the run (a generator gives one draw to seed it, None fresh entropy). Each
+        pair of groups uses its own stream ``SeedSequence([seed, crc32(a), crc32(b)])``
+        (:func:`ecoscan.stats.csr.keyed_rng`), so a pair's p-values do not depend on which
+        other groups are compared; same seed, same p-values.
     pool_dates : bool
         Pool the dates of one place into one group (by site, plot or folder). Off by
         default: the same plots surveyed on two dates hold largely the same plants, so
@@ -835,12 +887,13 @@ def compare_groups(
         "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and reject "
         "too often (about 9% and 15% of pairs of random plots at the 5% level): approximate"
     )
-    rng = np.random.default_rng(seed) if not isinstance(seed, np.random.Generator) else seed
+    seed = run_seed(rng)
     pairs = []
     for a, b in pairs_of:
-        row = _pair_row(a, b, int(permutations), rng)
+        pair_rng = keyed_rng(seed, a.name, b.name)
+        row = _pair_row(a, b, int(permutations), pair_rng)
         if paired:
-            row.update(_paired(a, b, int(permutations), rng))
+            row.update(_paired(a, b, int(permutations), pair_rng))
         pairs.append(row)
     notes += _limit_notes(pairs, paired)
     for p in pairs:
@@ -862,7 +915,8 @@ def compare_groups(
     params = {
         "by": by,
         "permutations": int(permutations),
-        "seed": seed if isinstance(seed, (int, type(None))) else "generator",
+        "seed": seed,
+        "random_streams": "one per pair of groups, SeedSequence([seed, crc32(a), crc32(b)])",
         "R": "pooled over plots, nearest neighbours within each plot, expectation from each "
         "plot's own density (Clark & Evans 1954)",
         "density_test": "exact conditional test of two Poisson rates (Przyborowski & "
@@ -986,3 +1040,9 @@ def write_comparison(outdir: str | os.PathLike, result: ComparisonResult) -> lis
         ),
         save_figure(fig, out / "comparison.png"),
     ]
+
+
+# `ecoscan.compare(...)` is the public API function of that name (ecoscan/_callable.py)
+from ecoscan._callable import callable_module  # noqa: E402
+
+callable_module(__name__)

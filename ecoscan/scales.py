@@ -19,10 +19,10 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Mapping, Sequence
-from dataclasses import asdict, dataclass, field, fields
+from collections.abc import Sequence
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 import numpy as np
 import shapely
@@ -31,6 +31,7 @@ from ecoscan.errors import InputError
 from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import format_value, write_csv, write_json
 from ecoscan.progress import progress
+from ecoscan.settings import Settings
 from ecoscan.stats.cross import CrossResult, random_labelling_test
 from ecoscan.stats.csr import plot_rng, uniform_in_polygon
 from ecoscan.stats.distance_functions import (
@@ -77,7 +78,7 @@ _FEW_PLANTS = 30
 
 
 @dataclass(frozen=True)
-class ScalesSettings:
+class ScalesSettings(Settings):
     """Settings of the analysis across scales (also the ``scales`` section of a survey file).
 
     Attributes
@@ -161,22 +162,11 @@ class ScalesSettings:
             )
             _check(self.kind_field is not None, "kinds were given without the kind field")
 
-    @classmethod
-    def from_mapping(cls, d: Mapping[str, Any]) -> ScalesSettings:
-        """Settings from a mapping (e.g. a survey file section); unknown keys are refused.
+    SECTION: ClassVar[str] = "scales"
 
-        Raises
-        ------
-        InputError
-            For unknown keys or impossible values.
-        """
-        names = {f.name for f in fields(cls)}
-        unknown = [k for k in d if k not in names]
-        if unknown:
-            raise InputError(
-                f"unknown scales setting(s) {', '.join(map(str, unknown))}; "
-                f"known: {', '.join(sorted(names))}"
-            )
+    @classmethod
+    def _normalise(cls, d: dict[str, Any]) -> dict[str, Any]:
+        """Functions and kinds as text (``"K,L"``) or lists; whole numbers as floats."""
         kw = dict(d)
         try:
             if "functions" in kw:
@@ -198,15 +188,7 @@ class ScalesSettings:
                     kw[key] = float(kw[key])
         except (TypeError, ValueError) as exc:
             raise InputError(f"bad scales setting: {exc}; check the values' types") from None
-        return cls(**kw)
-
-    def to_dict(self) -> dict[str, Any]:
-        """The settings as plain JSON-ready values."""
-        d = asdict(self)
-        d["functions"] = list(self.functions)
-        d["kinds"] = list(self.kinds) if self.kinds else None
-        return d
-
+        return kw
 
 def _check(ok: bool, message: str) -> None:
     if not ok:
@@ -1049,3 +1031,9 @@ def write_scales(
         used.add(name)
         paths.append(plot_scales_figure(res, out / "figures" / name))
     return paths
+
+
+# `ecoscan.scales(...)` is the public API function of that name (ecoscan/_callable.py)
+from ecoscan._callable import callable_module  # noqa: E402
+
+callable_module(__name__)

@@ -116,7 +116,7 @@ def test_no_true_change_tests_hold_their_level():
             plots=layer,
             estimate_shift=False,
             simulations=99,
-            seed=rng,
+            rng=rng,
         )
         pc.append(r.overall["p_count_change"])
         pr.append(r.overall["p_R_change_mc"])
@@ -195,8 +195,8 @@ def test_without_plots_uses_convex_hull_window():
 
 def test_same_seed_same_numbers():
     earlier, later, *_ = _scenario(seed=11)
-    r1 = detect_change(earlier, later, 0.5, plots=_layer(), simulations=29, seed=5)
-    r2 = detect_change(earlier, later, 0.5, plots=_layer(), simulations=29, seed=5)
+    r1 = detect_change(earlier, later, 0.5, plots=_layer(), simulations=29, rng=5)
+    r2 = detect_change(earlier, later, 0.5, plots=_layer(), simulations=29, rng=5)
     assert change_rows(r1) == change_rows(r2)
 
 

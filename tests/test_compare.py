@@ -246,8 +246,8 @@ def test_same_seed_same_numbers(tmp_path):
     a = make_folder(tmp_path / "a", ["random"] * 5, seed=9)
     b = make_folder(tmp_path / "b", ["random"] * 5, seed=10, offset=500)
     t = [read_results(a), read_results(b)]
-    r1 = compare_groups(t, "folder", permutations=199, seed=3)
-    r2 = compare_groups(t, "folder", permutations=199, seed=3)
+    r1 = compare_groups(t, "folder", permutations=199, rng=3)
+    r2 = compare_groups(t, "folder", permutations=199, rng=3)
     assert comparison_rows(r1) == comparison_rows(r2)
     assert not comparison_rows(r1)[0]["perm_exact"]  # C(10, 5) = 252 > 200: Monte Carlo
 

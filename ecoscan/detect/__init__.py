@@ -946,3 +946,9 @@ def detect_raster(
         raster=info,
         unsurveyed=unsurveyed,
     )
+
+
+# `ecoscan.detect(...)` is the public API function of that name (ecoscan/_callable.py)
+from ecoscan._callable import callable_module  # noqa: E402
+
+callable_module(__name__)

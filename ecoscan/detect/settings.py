@@ -3,10 +3,11 @@
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, fields
-from typing import Any
+from dataclasses import dataclass
+from typing import Any, ClassVar
 
 from ecoscan.errors import InputError
+from ecoscan.settings import Settings
 
 __all__ = ["CROWN_RULES", "DetectionSettings", "parse_band_spec"]
 
@@ -67,7 +68,7 @@ def parse_band_spec(spec: str) -> tuple[tuple[str, int], ...]:
 
 
 @dataclass(frozen=True)
-class DetectionSettings:
+class DetectionSettings(Settings):
     """Options of :func:`ecoscan.detect.detect_raster`.
 
     Attributes
@@ -189,37 +190,20 @@ class DetectionSettings:
         a, b, c = CROWN_RULES[self.crown_rule]
         return a + b * height_m + c * height_m**2
 
-    @classmethod
-    def from_mapping(cls, d: dict[str, Any]) -> DetectionSettings:
-        """Build settings from a mapping (e.g. a TOML table), rejecting unknown keys.
+    SECTION: ClassVar[str] = "detection"
 
-        ``diameter`` may be given as ``"0.5:3"`` or ``[0.5, 3]`` instead of the two keys.
-        """
+    @classmethod
+    def _normalise(cls, d: dict[str, Any]) -> dict[str, Any]:
+        """``diameter`` as ``"0.5:3"`` or ``[0.5, 3]``; ``classes`` as ``"1,4"`` or a list."""
         d = dict(d)
-        known = {f.name for f in fields(cls)}
         if "diameter" in d:
             v = d.pop("diameter")
             lo, hi = parse_diameter(v) if isinstance(v, str) else (float(v[0]), float(v[1]))
             d["diameter_min_m"], d["diameter_max_m"] = lo, hi
-        unknown = sorted(set(d) - known)
-        if unknown:
-            raise InputError(
-                f"unknown detection setting(s) {', '.join(unknown)}; "
-                f"known: {', '.join(sorted(known))}"
-            )
         if "classes" in d:
             c = d["classes"]
             d["classes"] = tuple(parse_classes(c) if isinstance(c, str) else c)
-        try:
-            return cls(**d)
-        except TypeError as exc:
-            raise InputError(f"detection settings: {exc}") from None
-
-    def to_dict(self) -> dict[str, Any]:
-        """Plain mapping of every setting (round-trips through :meth:`from_mapping`)."""
-        out = asdict(self)
-        out["classes"] = list(self.classes)
-        return out
+        return d
 
 
 def parse_diameter(text: str) -> tuple[float, float]:

@@ -396,7 +396,7 @@ class RChangeTest:
     simulations: int
     sum_nn_m: float = 0.0
     expected_sum_m: float = 0.0
-    simulated_sums_m: np.ndarray = field(default_factory=lambda: np.empty(0))
+    simulated_sums_m: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
 
 
 def _nn_sums_batched(patterns: np.ndarray, spacing: float) -> np.ndarray:

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import shapely
@@ -180,7 +180,7 @@ class MonteCarloResult:
     simulations: int
     direction: str
     expected_nn_m: float
-    simulated_nn_m: np.ndarray
+    simulated_nn_m: np.ndarray = field(repr=False)  # hundreds of values: not in repr
     side: str
     guard_pvalue: float = float("nan")
     guard_p_lower: float = float("nan")

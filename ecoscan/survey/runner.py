@@ -396,16 +396,22 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
         run.files.append(write_csv(out / "functions.csv", frows))
 
 
+def _section_settings(run: SurveyRun, cls, cfg: dict):
+    """A command's settings from its survey-file section; the run's seed unless it sets one."""
+    seed = int(run.config.statistics.get("seed", 1))
+    return cls.from_mapping({"seed": seed, **{k: v for k, v in cfg.items() if k != "enabled"}})
+
+
 def _run_change(run: SurveyRun) -> None:
     cfg = run.config.change
     if not cfg.get("enabled", True):
         return
-    from ecoscan.change import detect_change, write_change
+    from ecoscan.change import ChangeSettings, detect_change, write_change
 
+    settings = _section_settings(run, ChangeSettings, cfg)
     by_site: dict[str, list[RasterRun]] = {}
     for rr in run.rasters:
         by_site.setdefault(rr.entry.site, []).append(rr)
-    tol = float(cfg.get("tolerance_m", 1.0))
     for site, rrs in by_site.items():
         for method in dict.fromkeys(r.method for r in rrs):
             seq = sorted((r for r in rrs if r.method == method), key=lambda r: r.entry.date)
@@ -418,9 +424,11 @@ def _run_change(run: SurveyRun) -> None:
                 res = detect_change(
                     a.inputs.points.subset(a.inputs.membership.in_any()),
                     b.inputs.points.subset(b.inputs.membership.in_any()),
-                    tol,
+                    settings.tolerance_m,
                     plots=plots if plots.plots else None,
-                    estimate_shift=bool(cfg.get("estimate_shift", True)),
+                    estimate_shift=settings.estimate_shift,
+                    simulations=settings.simulations,
+                    rng=settings.seed,
                 )
                 folder = run.output / "change" / slug(f"{site}_{a.entry.date}_{b.entry.date}")
                 run.files += write_change(folder, res)
@@ -431,19 +439,19 @@ def _run_compare(run: SurveyRun) -> None:
     cfg = run.config.compare
     if not cfg.get("enabled", True) or not run.rasters:
         return
-    from ecoscan.compare import compare_groups, read_results, write_comparison
+    from ecoscan.compare import CompareSettings, compare_groups, read_results, write_comparison
 
-    by = cfg.get("by", "auto")
-    if by == "auto":
+    settings = _section_settings(run, CompareSettings, cfg)
+    if settings.by == "auto":
         many_sites = len({r.entry.site for r in run.rasters}) > 1
         groupings = ["site", "plot"] if many_sites else ["plot"]
     else:
-        groupings = [by]
+        groupings = [settings.by]
     table = read_results(run.output)
-    seed = int(run.config.statistics.get("seed", 1))
-    perms = int(cfg.get("permutations", 999))
     for g in groupings:
-        res = compare_groups([table], by=g, permutations=perms, seed=seed)
+        res = compare_groups(
+            [table], by=g, permutations=settings.permutations, rng=settings.seed
+        )
         run.files += write_comparison(run.output / f"compare-by-{g}", res)
         run.comparisons.append((g, res))
     run.compare_by = ",".join(groupings)

@@ -125,7 +125,7 @@ def _change(args, earlier_path: Path, later_path: Path, tmp: Path):
         plots=plots,
         estimate_shift=not args.no_shift,
         simulations=args.simulations,
-        seed=args.seed,
+        rng=args.seed,
     )
     return result, write_change(tmp, result), plots, extra_notes
 

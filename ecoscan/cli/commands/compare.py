@@ -77,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
             tables,
             args.by,
             permutations=args.permutations,
-            seed=args.seed,
+            rng=args.seed,
             pool_dates=args.pool_dates,
         )
         paths = write_comparison(tmp, result)
