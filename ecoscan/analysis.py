@@ -38,6 +38,7 @@ from ecoscan.stats.montecarlo import (
     monte_carlo_nn,
 )
 from ecoscan.stats.nearest import (
+    MIN_POINTS_ADVISED,
     ClarkEvansResult,
     EdgeCorrectedResult,
     clark_evans,
@@ -127,9 +128,6 @@ CAUTION = (
     "Automated point positions and counts need checking in the field before they drive "
     "management decisions or field work; follow local rules and licensed practice."
 )
-
-#: Fewer points than this are flagged (common practice for nearest-neighbour tests).
-MIN_POINTS_ADVISED = 30
 
 
 @dataclass(frozen=True)

@@ -117,6 +117,7 @@ class CompareSettings(Settings):
         if not whole_number(self.seed) or self.seed < 0:
             raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
 
+
 #: The group columns worth reading first (terminal table and report).
 GROUP_SUMMARY_COLUMNS = (
     "rank_regularity",

@@ -38,6 +38,7 @@ __all__ = [
     "plots_from_mask",
     "read_decimated",
     "read_window",
+    "window_polygons",
 ]
 
 
@@ -109,8 +110,7 @@ def _ground_pixel_size(transform: Affine, crs: CRS, width: int, height: int) -> 
     c, r = width / 2.0, height / 2.0
     cc = np.array([c, c + 1, c])
     rr = np.array([r, r, r + 1])
-    t = transform
-    xs = np.column_stack([t.a * cc + t.b * rr + t.c, t.d * cc + t.e * rr + t.f])
+    xs = np.column_stack(transform @ (cc, rr))
     _x, _y, frame = to_metric(xs[:, 0], xs[:, 1], crs)
     mx, my = transform_xy(xs[:, 0], xs[:, 1], crs, frame.crs)
     dx = math.hypot(mx[1] - mx[0], my[1] - my[0])
@@ -364,10 +364,51 @@ def pixel_to_map(info: RasterInfo, col: np.ndarray, row: np.ndarray) -> tuple[np
     x, y : numpy.ndarray
         Coordinates in the raster's CRS (or local metres).
     """
-    t = info.transform
-    cc = np.asarray(col, float) + 0.5
-    rr = np.asarray(row, float) + 0.5
-    return t.a * cc + t.b * rr + t.c, t.d * cc + t.e * rr + t.f
+    # the affine library's own product (x = a·col + b·row + c, y = d·col + e·row + f), not
+    # rasterio.transform.xy, whose matrix product can round the last bit differently
+    return info.transform @ (np.asarray(col, float) + 0.5, np.asarray(row, float) + 0.5)
+
+
+def window_polygons(
+    transform: Affine,
+    col_off: np.ndarray | float,
+    row_off: np.ndarray | float,
+    width: np.ndarray | float,
+    height: np.ndarray | float,
+) -> np.ndarray:
+    """Outlines of pixel windows in map coordinates, one polygon per window.
+
+    The four pixel corners go through the affine transform, so a rotated raster gives its
+    true quadrilateral (``rasterio.windows.bounds`` gives the bounding box instead).
+
+    Parameters
+    ----------
+    transform : affine.Affine
+        Pixel-to-map transform.
+    col_off, row_off, width, height : array-like or float
+        Windows in pixels (broadcast together).
+
+    Returns
+    -------
+    numpy.ndarray of shapely.Polygon
+
+    Examples
+    --------
+    >>> from rasterio.transform import from_origin
+    >>> t = from_origin(500000.0, 4100000.0, 0.5, 0.5)
+    >>> window_polygons(t, 0, 0, 100, 40)[0].bounds
+    (500000.0, 4099980.0, 500050.0, 4100000.0)
+    """
+    import shapely
+
+    c0, r0, w, h = np.broadcast_arrays(
+        *(np.atleast_1d(np.asarray(v, float)) for v in (col_off, row_off, width, height))
+    )
+    c1, r1 = c0 + w, r0 + h
+    cs = np.stack([c0, c1, c1, c0], axis=1)
+    rs = np.stack([r0, r0, r1, r1], axis=1)
+    xs, ys = transform @ (cs, rs)
+    return shapely.polygons(np.stack([xs, ys], axis=2))
 
 
 def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = None) -> PlotLayer:

@@ -190,6 +190,7 @@ class ScalesSettings(Settings):
             raise InputError(f"bad scales setting: {exc}; check the values' types") from None
         return kw
 
+
 def _check(ok: bool, message: str) -> None:
     if not ok:
         raise InputError(message)

@@ -8,6 +8,7 @@ automatically.
 from __future__ import annotations
 
 import csv
+import io
 import math
 import os
 from dataclasses import dataclass, field
@@ -299,15 +300,15 @@ def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "poi
             with atomic_path(sidecar_prj(p)) as tmp:
                 tmp.write_text(points.crs.to_wkt(), encoding="utf-8")
         names = list(points.attrs)
-        lines = [",".join(["x", "y", *names])]
         cols = [points.attrs[k] for k in names]
         xs = [f"{v:.3f}" for v in points.x]
         ys = [f"{v:.3f}" for v in points.y]
-        for i in range(points.n):
-            cells = [xs[i], ys[i]] + [_csv_cell(c[i]) for c in cols]
-            lines.append(",".join(cells))
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")  # quotes cells holding , " or a newline
+        w.writerow(["x", "y", *names])
+        w.writerows([xs[i], ys[i], *(format_value(c[i]) for c in cols)] for i in range(points.n))
         with atomic_path(p) as tmp:
-            tmp.write_text("\n".join(lines) + "\n", encoding="utf-8")
+            tmp.write_text(buf.getvalue(), encoding="utf-8")
         return p
     if suffix in (".gpkg", ".geojson", ".json"):
         x, y, crs = points.x, points.y, points.crs
@@ -331,13 +332,6 @@ def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "poi
             )
         return p
     raise InputError(f"unknown output format {p.suffix!r}; use .csv, .gpkg or .geojson")
-
-
-def _csv_cell(v) -> str:
-    s = format_value(v)
-    if any(ch in s for ch in ',"\n'):
-        s = '"' + s.replace('"', '""') + '"'
-    return s
 
 
 # ---------------------------------------------------------------------------------- plots

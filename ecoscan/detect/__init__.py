@@ -686,29 +686,18 @@ def _check_tile_memory(
 
 
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
-    import shapely
+    from ecoscan.raster import window_polygons
 
-    t = info.transform
-    c0 = np.array([tl.core[0] for tl in tiles], float)
-    r0 = np.array([tl.core[1] for tl in tiles], float)
-    c1 = np.array([tl.core[2] for tl in tiles], float)
-    r1 = np.array([tl.core[3] for tl in tiles], float)
-    cs = np.stack([c0, c1, c1, c0], axis=1)
-    rs = np.stack([r0, r0, r1, r1], axis=1)
-    xs = t.a * cs + t.b * rs + t.c
-    ys = t.d * cs + t.e * rs + t.f
-    rings = np.stack([xs, ys], axis=2)
-    return shapely.polygons(rings)
+    core = np.array([tl.core for tl in tiles], float).reshape(-1, 4)
+    c0, r0, c1, r1 = core.T
+    return window_polygons(info.transform, c0, r0, c1 - c0, r1 - r0)
 
 
 def _raster_polygon(info: RasterInfo):
     """The raster's outline (pixel corners) in its own CRS."""
-    import shapely
+    from ecoscan.raster import window_polygons
 
-    t = info.transform
-    cs = np.array([0, info.width, info.width, 0], float)
-    rs = np.array([0, 0, info.height, info.height], float)
-    return shapely.Polygon(np.column_stack([t.a * cs + t.b * rs + t.c, t.d * cs + t.e * rs + t.f]))
+    return window_polygons(info.transform, 0, 0, info.width, info.height)[0]
 
 
 def _plots_in(layer: PlotLayer, crs) -> np.ndarray:

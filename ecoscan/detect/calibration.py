@@ -260,23 +260,13 @@ def _f1(tp: float, fp: float, fn: float) -> float:
 
 
 def _to_pixels(info: RasterInfo, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    inv = ~info.transform
-    c = inv.a * x + inv.b * y + inv.c - 0.5
-    r = inv.d * x + inv.e * y + inv.f - 0.5
-    return c, r
+    c, r = ~info.transform @ (x, y)
+    return c - 0.5, r - 0.5
 
 
 def _poly_to_pixels(info: RasterInfo, geom: shapely.Geometry) -> shapely.Geometry:
     inv = ~info.transform
-    return shapely.transform(
-        geom,
-        lambda xy: np.column_stack(
-            [
-                inv.a * xy[:, 0] + inv.b * xy[:, 1] + inv.c - 0.5,
-                inv.d * xy[:, 0] + inv.e * xy[:, 1] + inv.f - 0.5,
-            ]
-        ),
-    )
+    return shapely.transform(geom, lambda xy: np.column_stack(inv @ (xy[:, 0], xy[:, 1])) - 0.5)
 
 
 # --- preparing the training windows --------------------------------------------------------

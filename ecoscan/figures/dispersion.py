@@ -14,7 +14,7 @@ from matplotlib.path import Path as MplPath
 from scipy import stats as sps
 
 from ecoscan.figures import PALETTE, new_figure, save_figure
-from ecoscan.stats.nearest import CE_SE_CONSTANT
+from ecoscan.stats.nearest import CE_SE_CONSTANT, MIN_POINTS_ADVISED, R_HEXAGONAL
 
 __all__ = [
     "add_polygon",
@@ -311,10 +311,13 @@ def r_against_n_figure(
         nn, 1 - half, 1 + half, color="#dddddd", label=f"not significant at α = {alpha:g}"
     )
     ax.axhline(1, color="#7f7f7f", linewidth=0.8)
-    ax.axhline(2.1491, color="#1f4e8c", linewidth=0.6, linestyle=":")
-    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=9, color="#1f4e8c")
-    ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
-    ax.text(30, 0.02, " 30 points", fontsize=9, color="#666666")
+    ax.axhline(R_HEXAGONAL, color="#1f4e8c", linewidth=0.6, linestyle=":")
+    ax.text(
+        big, R_HEXAGONAL, f" hexagonal {R_HEXAGONAL:.3f}", va="center", fontsize=9,
+        color="#1f4e8c",
+    )  # fmt: skip
+    ax.axvline(MIN_POINTS_ADVISED, color="#999999", linewidth=0.8, linestyle="--")
+    ax.text(MIN_POINTS_ADVISED, 0.02, f" {MIN_POINTS_ADVISED} points", fontsize=9, color="#666666")
     labelled: set = set()
     for key in ("clustered", "random", "regular"):
         sel = [r for r in rows if r.get("verdict") == key and r.get("R") not in (None, "")]

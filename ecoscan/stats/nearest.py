@@ -29,6 +29,8 @@ __all__ = [
     "DONNELLY_MEAN_N",
     "DONNELLY_VAR_AREA",
     "DONNELLY_VAR_PERIMETER",
+    "MIN_POINTS_ADVISED",
+    "R_HEXAGONAL",
     "ClarkEvansResult",
     "EdgeCorrectedResult",
     "clark_evans",
@@ -41,6 +43,14 @@ __all__ = [
 
 #: Standard-error constant of Clark & Evans (1954): sqrt((4 - pi) / (4 pi)) = 0.26136.
 CE_SE_CONSTANT = float(np.sqrt((4.0 - np.pi) / (4.0 * np.pi)))
+
+#: The largest Clark–Evans R, reached by a hexagonal (triangular) lattice: Clark & Evans
+#: (1954) give 2.1491 (= 2 √(2/√3) = 2.14914 to five places).
+R_HEXAGONAL = 2.1491
+
+#: Fewer points than this are flagged: nearest-neighbour tests then have little power
+#: (common practice).
+MIN_POINTS_ADVISED = 30
 
 # Donnelly (1978) constants, as quoted by secondary sources (the original chapter could not be
 # checked here; the values are from the project's reference list and from memory):

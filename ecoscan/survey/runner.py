@@ -121,16 +121,11 @@ def _layer_subset(layer: PlotLayer, keep: np.ndarray) -> PlotLayer:
 def _raster_footprint(path: Path, survey_crs, pixel_size_m: float | None = None):
     """The raster's footprint polygon in the survey CRS (``pixel_size_m`` for rasters
     without georeferencing, as in the detector settings)."""
-    import shapely
 
-    from ecoscan.raster import open_raster
+    from ecoscan.raster import open_raster, window_polygons
 
     info = open_raster(path, pixel_size_m=pixel_size_m)
-    t = info.transform
-    corners = np.array([[0, 0], [info.width, 0], [info.width, info.height], [0, info.height]])
-    xs = t.a * corners[:, 0] + t.b * corners[:, 1] + t.c
-    ys = t.d * corners[:, 0] + t.e * corners[:, 1] + t.f
-    poly = shapely.Polygon(np.column_stack([xs, ys]))
+    poly = window_polygons(info.transform, 0, 0, info.width, info.height)[0]
     if info.crs is not None and survey_crs is not None and info.crs != survey_crs:
         poly = reproject_geometries(
             np.array([poly.segmentize(max(poly.length / 400, 1e-9))]), info.crs, survey_crs
@@ -449,9 +444,7 @@ def _run_compare(run: SurveyRun) -> None:
         groupings = [settings.by]
     table = read_results(run.output)
     for g in groupings:
-        res = compare_groups(
-            [table], by=g, permutations=settings.permutations, rng=settings.seed
-        )
+        res = compare_groups([table], by=g, permutations=settings.permutations, rng=settings.seed)
         run.files += write_comparison(run.output / f"compare-by-{g}", res)
         run.comparisons.append((g, res))
     run.compare_by = ",".join(groupings)

@@ -7,6 +7,7 @@ import warnings
 import numpy as np
 import rasterio
 from rasterio.errors import NotGeoreferencedWarning
+from rasterio.transform import array_bounds
 from rasterio.windows import Window, from_bounds
 
 __all__ = ["preview"]
@@ -72,8 +73,8 @@ def preview(
             mask = src.read_masks(bands, window=win, out_shape=(len(bands), *shape))
             t = src.window_transform(win)
     valid = np.all(mask > 0, axis=0) & np.all(np.isfinite(data), axis=0)
-    w_px, h_px = win.width, win.height
-    extent = (t.c, t.c + t.a * w_px, t.f + t.e * h_px, t.f)
+    west, south, east, north = array_bounds(win.height, win.width, t)
+    extent = (west, east, south, north)
     if len(bands) == 3:
         # one stretch for all three bands keeps the colours true (no hue shift)
         flat = _stretch(data.reshape(3 * data.shape[1], data.shape[2]), np.tile(valid, (3, 1)))
