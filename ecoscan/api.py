@@ -147,13 +147,13 @@ def as_plot(plot: Any, name: str = "plot") -> shapely.Geometry:
             f"{name} must be a shapely Polygon or MultiPolygon, or (xmin, ymin, xmax, ymax); "
             f"got {type(plot).__name__}"
         )
-    if plot.is_empty or not plot.area > 0:
-        raise InputError(f"{name} has no area; give the plot's outline in metres")
-    if not plot.is_valid:
+    if not plot.is_empty and not plot.is_valid:
         why = shapely.is_valid_reason(plot)
         raise InputError(
             f"{name} is not a valid polygon ({why}); repair it with shapely.make_valid({name})"
         )
+    if plot.is_empty or not plot.area > 0:
+        raise InputError(f"{name} has no area; give the plot's outline in metres")
     return plot
 
 

@@ -91,6 +91,13 @@ def plot_nn(xy: np.ndarray, area_m2: float, perimeter_m: float = float("nan")) -
     Returns
     -------
     PlotNN
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> unit = plot_nn(np.array([[0.0, 0.0], [3.0, 4.0]]), 100.0, 40.0)
+    >>> unit.n, unit.nn_m
+    (2, array([5., 5.]))
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     d = nn_distances(xy) if xy.shape[0] >= 2 else np.empty(0)
@@ -176,6 +183,14 @@ def pooled_clark_evans(units: Sequence[PlotNN], *, expected: str = "per-plot") -
     References
     ----------
     Clark & Evans (1954), Ecology 35: 445–453; Donnelly (1978).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> grid = np.mgrid[1:20:2.0, 1:20:2.0].reshape(2, -1).T
+    >>> units = [plot_nn(grid, 400.0, 80.0), plot_nn(grid + 100, 400.0, 80.0)]
+    >>> round(pooled_clark_evans(units).statistic, 3)  # two square lattices: R = 2
+    2.0
     """
     s, n, a, e, v, ed, vd = _unit_arrays(units, expected)
     nan = float("nan")
@@ -243,6 +258,17 @@ def r_difference(a: PooledR, b: PooledR, *, edge_corrected: bool = False) -> RDi
     docs/methods-compare.md for measured rates). For two dates of the same plants the
     groups are not independent and either test is conservative (the shared plants make the
     two R values positively correlated).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> grid = np.mgrid[1:20:2.0, 1:20:2.0].reshape(2, -1).T
+    >>> rand = np.random.default_rng(2).uniform(0, 20, (100, 2))
+    >>> a = pooled_clark_evans([plot_nn(grid, 400.0, 80.0)])
+    >>> b = pooled_clark_evans([plot_nn(rand, 400.0, 80.0)])
+    >>> d = r_difference(a, b)
+    >>> d.statistic > 0.8, d.pvalue < 0.001
+    (True, True)
     """
     if edge_corrected:
         ra, rb, sa, sb = a.statistic_donnelly, b.statistic_donnelly, a.se_donnelly, b.se_donnelly
@@ -320,6 +346,17 @@ def r_permutation_test(
     ``permutations`` random ones are drawn and p = (1 + k) / (N + 1) (Besag & Diggle 1977),
     with k the count at least as extreme as observed. With one plot per group no
     re-labelling other than the swap exists and the p-value is NaN.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(3)
+    >>> grid = np.mgrid[1:20:2.0, 1:20:2.0].reshape(2, -1).T
+    >>> a = [plot_nn(grid + rng.normal(0, 0.1, grid.shape), 400.0) for _ in range(4)]
+    >>> b = [plot_nn(rng.uniform(0, 20, (100, 2)), 400.0) for _ in range(4)]
+    >>> res = r_permutation_test(a, b, permutations=99, rng=1)
+    >>> res.arrangements, res.exact, res.pvalue  # 8 plots, 4 + 4: all 70 splits enumerated
+    (70, True, 0.02857142857142857)
     """
     part_a = _unit_arrays(units_a, expected)
     part_b = _unit_arrays(units_b, expected)
@@ -444,6 +481,21 @@ def combine_r_change(tests: Sequence[RChangeTest]) -> RChangeTest:
     RChangeTest
         The test of the pooled R over the plots (simulation k of every plot forms pooled
         simulation k, as the plots are simulated independently).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> rng = np.random.default_rng(5)
+    >>> tests = []
+    >>> for k in range(2):
+    ...     box = shapely.box(0, 0, 30, 30)
+    ...     before = rng.uniform(0, 30, (100, 2))
+    ...     alive = rng.random(100) > 0.2
+    ...     after = np.vstack([before[alive], rng.uniform(0, 30, (15, 2))])
+    ...     tests.append(r_change_test([(before, alive, after, box)], simulations=49, rng=k))
+    >>> pooled = combine_r_change(tests)
+    >>> 0.0 < pooled.pvalue <= 1.0 and pooled.simulations == 49
+    True
     """
     nsims = {t.simulations for t in tests}
     if len(nsims) > 1:
@@ -487,6 +539,18 @@ def r_change_test(
     which a z test of two independent R values ignores. Density-dependent (non-random)
     mortality, e.g. self-thinning that spares evenly spaced plants, shows as R_later above
     its null expectation.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> rng = np.random.default_rng(4)
+    >>> box = shapely.box(0, 0, 30, 30)
+    >>> before = rng.uniform(0, 30, (150, 2))
+    >>> alive = rng.random(150) > 0.2                     # random deaths
+    >>> after = np.vstack([before[alive], rng.uniform(0, 30, (20, 2))])  # random recruits
+    >>> res = r_change_test([(before, alive, after, box)], simulations=99, rng=1)
+    >>> res.pvalue > 0.05  # nothing beyond random mortality and recruitment
+    True
     """
     from ecoscan.stats.csr import uniform_in_polygon
 

@@ -113,6 +113,17 @@ def cross_k(
     References
     ----------
     Ripley (1977), JRSS B 39: 172–212.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> rng = np.random.default_rng(6)
+    >>> a, b = rng.uniform(0, 50, (150, 2)), rng.uniform(0, 50, (150, 2))
+    >>> r, k = cross_k(a, b, shapely.box(0, 0, 50, 50), 5.0, steps=5)
+    >>> r
+    array([1., 2., 3., 4., 5.])
+    >>> bool(np.all(np.abs(k / (np.pi * r**2) - 1) < 0.3))  # independent: K_AB near pi r^2
+    True
     """
     xy_a = np.asarray(xy_a, float).reshape(-1, 2)
     xy_b = np.asarray(xy_b, float).reshape(-1, 2)
@@ -171,6 +182,17 @@ def random_labelling_test(
     ----------
     Diggle (2003), Statistical Analysis of Spatial Point Patterns (random labelling; from
     memory); Myllymäki et al. (2017), JRSS B 79: 381–404.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> rng = np.random.default_rng(7)
+    >>> xy = rng.uniform(0, 40, (120, 2))
+    >>> is_dead = rng.random(120) < 0.4  # deaths at random among the plants
+    >>> res = random_labelling_test(xy, is_dead, shapely.box(0, 0, 40, 40), max_distance_m=5.0,
+    ...                             steps=10, simulations=39, rng=1, labels=("live", "dead"))
+    >>> res.n_a + res.n_b, res.label_b
+    (120, 'dead')
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     is_b = np.asarray(is_b, bool)

@@ -51,6 +51,15 @@ def oriented_segments(polygon: shapely.Geometry) -> np.ndarray:
     numpy.ndarray, shape (E, 4)
         One row ``(ax, ay, bx, by)`` per edge, in metres; zero-length edges and collinear
         vertices are dropped (they change nothing).
+
+    Examples
+    --------
+    >>> import shapely
+    >>> oriented_segments(shapely.box(0, 0, 2, 1))  # anticlockwise exterior, one row per edge
+    array([[2., 0., 2., 1.],
+           [2., 1., 0., 1.],
+           [0., 1., 0., 0.],
+           [0., 0., 2., 0.]])
     """
     if polygon is None or polygon.is_empty or polygon.area <= 0:
         raise ValueError("the window has no area")
@@ -83,6 +92,12 @@ def boundary_distance(xy: np.ndarray, polygon: shapely.Geometry) -> np.ndarray:
     -------
     numpy.ndarray, shape (n,)
         Distances in metres (0 for points on the boundary).
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> boundary_distance(np.array([[5.0, 5.0], [1.0, 8.0]]), shapely.box(0, 0, 10, 10))
+    array([5., 1.])
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     if xy.shape[0] == 0:
@@ -258,6 +273,13 @@ def circle_fraction_inside(
     ----------
     Ripley (1976), J. Appl. Prob. 13: 255–266. Exact by the signed-triangle decomposition
     described in this module's docstring.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> square = shapely.box(0, 0, 10, 10)
+    >>> circle_fraction_inside(np.array([[5.0, 5.0], [0.0, 0.0]]), 1.0, square)  # corner: 1/4
+    array([1.  , 0.25])
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     r = np.broadcast_to(np.asarray(r, float), (xy.shape[0],))
@@ -290,6 +312,12 @@ def isotropic_weight(
     References
     ----------
     Ripley (1976), J. Appl. Prob. 13: 255–266; Ripley (1977), JRSS B 39: 172–212.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> isotropic_weight(np.array([[5.0, 5.0], [0.0, 0.0]]), 1.0, shapely.box(0, 0, 10, 10))
+    array([1., 4.])
     """
     frac = circle_fraction_inside(xy, r, polygon)
     with np.errstate(divide="ignore"):

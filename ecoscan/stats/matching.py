@@ -67,6 +67,15 @@ def match_points(a: np.ndarray, b: np.ndarray, tolerance_m: float) -> MatchResul
     The objective puts the number of pairs first and the total distance second: each allowed
     pair costs ``d / tolerance − (n + m + 1)``, so one more pair always outweighs any saving in
     distance. Groups of points linked by allowed pairs are solved independently.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = np.array([[0.0, 0.0], [5.0, 0.0]])
+    >>> b = np.array([[5.2, 0.0], [0.1, 0.0], [20.0, 0.0]])
+    >>> m = match_points(a, b, 0.5)
+    >>> m.index_a, m.index_b, m.unmatched_b
+    (array([0, 1]), array([1, 0]), array([2]))
     """
     if not tolerance_m > 0:
         raise ValueError("tolerance must be positive")

@@ -105,6 +105,12 @@ def poisson_rate_test(
     with k trials and p = exposure1 / (exposure1 + exposure2) (Przyborowski & Wilenski 1940).
     The p-value is :func:`scipy.stats.binomtest`'s exact p-value; with no plants at all
     (k = 0) it is 1.
+
+    Examples
+    --------
+    >>> res = poisson_rate_test(30, 1.0, 30, 1.0)  # same counts, same areas
+    >>> float(res.pvalue)
+    1.0
     """
     c1, c2 = int(count1), int(count2)
     e1, e2 = float(exposure1), float(exposure2)
@@ -151,6 +157,13 @@ def paired_change_test(lost: int, new: int) -> float:
     change: conditional on lost + new, ``lost`` is binomial(lost + new, ½) under no net change
     (McNemar 1947, exact form; the two-rate test of Przyborowski & Wilenski 1940 with equal
     exposures).
+
+    Examples
+    --------
+    >>> paired_change_test(10, 10)  # as many lost as new: no evidence of change
+    1.0
+    >>> round(paired_change_test(12, 2), 4)  # exact binomial, 14 changes split 12 : 2
+    0.0129
     """
     lost, new = int(lost), int(new)
     if lost + new == 0:
@@ -181,6 +194,12 @@ def wilson_interval(
     -----
     Wilson (1927): with p̂ = x / n and z the standard-normal quantile,
     centre = (p̂ + z²/2n) / (1 + z²/n), half-width = z √(p̂(1 − p̂)/n + z²/4n²) / (1 + z²/n).
+
+    Examples
+    --------
+    >>> low, high = wilson_interval(8, 10)  # Wilson (1927); statsmodels gives the same
+    >>> round(low, 4), round(high, 4)
+    (0.4902, 0.9433)
     """
     x = np.asarray(successes, float)
     n = np.asarray(trials, float)
@@ -213,6 +232,11 @@ def holm_adjust(pvalues: np.ndarray | list[float]) -> np.ndarray:
         Adjusted p-values (same order): with the m valid p-values sorted ascending,
         p̃₍ᵢ₎ = max_{j ≤ i} min(1, (m − j + 1) p₍ⱼ₎) (Holm 1979). Rejecting where p̃ ≤ α
         controls the family-wise error rate at α.
+
+    Examples
+    --------
+    >>> holm_adjust([0.01, 0.04, 0.03])  # Holm (1979): 3p, 2p and 1p, kept monotone
+    array([0.03, 0.06, 0.06])
     """
     p = np.asarray(pvalues, float).ravel()
     out = np.full(p.shape, np.nan)

@@ -85,6 +85,14 @@ def mutual_pairs(a: np.ndarray, b: np.ndarray, radius_m: float) -> tuple[np.ndar
     Returns
     -------
     ia, ib : numpy.ndarray of int
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = np.array([[0.0, 0.0], [10.0, 0.0]])
+    >>> b = np.array([[0.3, 0.0], [10.2, 0.0], [30.0, 0.0]])
+    >>> mutual_pairs(a, b, 1.0)
+    (array([0, 1]), array([0, 1]))
     """
     empty = np.empty(0, dtype=np.int64)
     if len(a) == 0 or len(b) == 0:
@@ -160,6 +168,15 @@ def estimate_shift(
     ShiftResult
         ``later ≈ earlier + (shift_x_m, shift_y_m)``. With no pairs at all the shift is 0 and
         ``n_pairs`` is 0.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> earlier = np.random.default_rng(8).uniform(0, 100, (300, 2))
+    >>> later = earlier + [0.4, -0.25]  # the later mosaic is offset by 0.4 m E, 0.25 m S
+    >>> res = estimate_shift(earlier, later, 1.0)
+    >>> round(res.shift_x_m, 3), round(res.shift_y_m, 3), res.n_pairs
+    (0.4, -0.25, 300)
     """
     if not tolerance_m > 0:
         raise ValueError("tolerance must be positive")
