@@ -40,9 +40,19 @@ def plain(value: Any) -> Any:
 
 
 def _short(value: Any, width: int = 40) -> str:
-    """A value for a one-line repr: 4 significant digits, text cut at ``width``."""
+    """A value for a one-line repr: 4 significant digits (0.1 beyond 10 000), text cut at
+    ``width``.
+
+    Examples
+    --------
+    >>> _short(1.23456), _short(400001.2081), _short("x" * 50, 10)
+    ('1.235', '400001.2', "'xxxxxxxxx…'")
+    """
     if isinstance(value, float):
-        return "nan" if math.isnan(value) else f"{value:.4g}"
+        if math.isnan(value):
+            return "nan"
+        # coordinates keep their decimetres: 400001.2, not 4e+05
+        return f"{value:.1f}" if abs(value) >= 1e4 else f"{value:.4g}"
     if isinstance(value, str):
         text = value if len(value) <= width else value[: width - 1] + "…"
         return repr(text)
