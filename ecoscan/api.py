@@ -186,14 +186,20 @@ def _inside(xy: np.ndarray, polygon: shapely.Geometry) -> np.ndarray:
     return shapely.intersects_xy(polygon, xy[:, 0], xy[:, 1])
 
 
-def _only_inside(xy: np.ndarray, polygon: shapely.Geometry, name: str) -> None:
+def _only_inside(xy: np.ndarray, polygon: shapely.Geometry, name: str, xy_name: str = "xy") -> None:
     out = int(np.sum(~_inside(xy, polygon)))
-    if out:
+    if not out:
+        return
+    if xy_name == "xy":
         raise InputError(
             f"{out} of {xy.shape[0]} points in xy lie outside {name}; pass only the plot's "
             f"points (xy[shapely.intersects_xy({name}, xy[:, 0], xy[:, 1])]) or give several "
             "plots as a mapping from plot id to plot"
         )
+    raise InputError(
+        f"{out} of {xy.shape[0]} points of {xy_name} lie outside its plot; pass only the "
+        "plot's points (shapely.intersects_xy(plot, x, y) selects them)"
+    )
 
 
 def _seed(rng: RngLike) -> int:
@@ -776,7 +782,7 @@ def _group_table(name: str, plots: Any):
             raise InputError(f"groups[{name!r}][{i}] must be an (xy, plot) pair")
         xy = as_xy(item[0], f"groups[{name!r}][{i}] xy")
         poly = as_plot(item[1], f"groups[{name!r}][{i}] plot")
-        xy = xy[_inside(xy, poly)]
+        _only_inside(xy, poly, "plot", f"groups[{name!r}][{i}]")
         units.append(PlotUnit(name, "", "", str(i + 1), plot_nn(xy, poly.area, poly.length)))
         parts.append(xy)
     xy = np.vstack(parts)

@@ -129,6 +129,10 @@ def test_rng_seed_or_generator():
         (lambda: ecoscan.change([[0, 0]], np.empty((0, 2)), 0.5), "later holds no plants"),
         (lambda: ecoscan.change([[0, 0]], [[0, 0]], "1 m"), "tolerance_m must be a number"),
         (lambda: ecoscan.compare([1, 2]), "list holding int"),
+        (
+            lambda: ecoscan.compare({"a": [(_random_xy(), (0, 0, 9, 9))], "b": []}),
+            r"of groups\['a'\]\[0\] lie outside its plot",
+        ),
         (lambda: ecoscan.detect("no-such.tif"), "does not exist"),
     ],
 )
