@@ -13,10 +13,12 @@ import os
 import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import ClassVar
 
 import numpy as np
 import shapely
 
+from ecoscan.settings import Settings
 from ecoscan.stats.planning import density_change_power, survival_difference_power
 from ecoscan.stats.power import DetectableRange, detectable_range
 
@@ -58,7 +60,7 @@ PLANT_STEPS = (10, 15, 20, 30, 45, 70, 100, 150, 220, 330)
 
 
 @dataclass(frozen=True)
-class PlanSettings:
+class PlanSettings(Settings):
     """What the user asked the planner.
 
     Attributes
@@ -93,6 +95,8 @@ class PlanSettings:
     regular_r: float = 1.2
     patterns: int = 120
     seed: int = 1
+
+    SECTION: ClassVar[str] = "plan"
 
 
 @dataclass

@@ -112,6 +112,12 @@ class Settings:
                 f"unknown {cls.SECTION} setting(s) {', '.join(map(repr, unknown))}; "
                 f"known: {', '.join(known)}"
             )
+        tuples = {
+            f.name
+            for f in dataclasses.fields(cls)  # type: ignore[arg-type]
+            if "tuple" in str(f.type)
+        }
+        kw = {k: tuple(v) if k in tuples and isinstance(v, list) else v for k, v in kw.items()}
         for k, v in kw.items():
             t = cls.TYPES.get(k)
             if t is None or (v is None and k in cls.OPTIONAL):
@@ -127,7 +133,8 @@ class Settings:
     def to_dict(self) -> dict[str, Any]:
         """The settings as plain JSON-ready values (tuples become lists).
 
-        Round-trips through :meth:`from_mapping`.
+        Round-trips through :meth:`from_mapping`, which turns lists back into tuples for
+        tuple-typed settings.
         """
         out: dict[str, Any] = {}
         for f in dataclasses.fields(self):  # type: ignore[arg-type]

@@ -260,9 +260,28 @@ def test_new_settings_refuse_bad_values(cls, d, match):
         cls.from_mapping(d)
 
 
-def test_settings_round_trip():
-    for s in (ChangeSettings(tolerance_m=0.4, seed=3), CompareSettings(by="site")):
-        assert type(s).from_mapping(s.to_dict()) == s
+def test_every_settings_class_shares_one_from_mapping_and_round_trips():
+    from ecoscan.detect import DetectionSettings
+    from ecoscan.planning import PlanSettings
+    from ecoscan.scales import ScalesSettings
+    from ecoscan.settings import Settings
+
+    examples = [
+        DispersionSettings(simulations=99, guard_m=2.0),
+        ScalesSettings(kinds=("live", "dead"), kind_field="status", functions=("L",)),
+        DetectionSettings(classes=(3, 4), diameter_max_m=4.0),
+        ChangeSettings(tolerance_m=0.4, seed=3),
+        CompareSettings(by="site"),
+        PlanSettings(densities_per_ha=(400.0, 900.0)),
+    ]
+    for s in examples:
+        cls = type(s)
+        assert (
+            isinstance(s, Settings) and cls.from_mapping.__func__ is Settings.from_mapping.__func__
+        )
+        assert cls.from_mapping(s.to_dict()) == s
+        with pytest.raises(InputError, match=f"unknown {cls.SECTION} setting"):
+            cls.from_mapping({"no_such_key": 1})
 
 
 def test_survey_seed_reaches_change_and_compare():
