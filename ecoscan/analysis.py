@@ -22,6 +22,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from ecoscan import __version__
+from ecoscan.arguments import as_xy
 from ecoscan.crs import crs_label
 from ecoscan.detectable import DETECTABLE_COLUMNS, Detectable, plot_detectable
 from ecoscan.errors import InputError
@@ -453,7 +454,7 @@ def analyse_plot(
     Smith-Gill (1975).
     """
     s = settings or DispersionSettings()
-    xy = np.asarray(xy, float).reshape(-1, 2)
+    xy = as_xy(xy)  # refuses a transposed (2, n) array
     n = xy.shape[0]
     area = float(polygon.area)
     perim = float(polygon.length)

@@ -27,6 +27,7 @@ from typing import Any, ClassVar
 import numpy as np
 import shapely
 
+from ecoscan.arguments import as_xy
 from ecoscan.errors import InputError
 from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import format_value, write_csv, write_json
@@ -539,7 +540,7 @@ def analyse_plot(
     -------
     PlotScales
     """
-    xy = np.asarray(xy, float).reshape(-1, 2)
+    xy = as_xy(xy)  # refuses a transposed (2, n) array
     n = xy.shape[0]
     area = float(polygon.area)
     if n < settings.min_points:

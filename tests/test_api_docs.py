@@ -23,6 +23,7 @@ STATS_MODULES = sorted(
 API_MODULES = [
     "ecoscan",
     "ecoscan.api",
+    "ecoscan.arguments",
     "ecoscan.records",
     "ecoscan.settings",
     "ecoscan._callable",
