@@ -30,6 +30,7 @@ import shapely
 from ecoscan.arguments import as_plot, as_xy, is_box
 from ecoscan.errors import InputError
 from ecoscan.records import Row, Table
+from ecoscan.settings import whole_number
 
 __all__ = [
     "Change",
@@ -92,17 +93,13 @@ def _only_inside(xy: np.ndarray, polygon: shapely.Geometry, name: str, xy_name: 
 def _seed(rng: RngLike) -> int:
     from ecoscan.stats.csr import run_seed
 
-    if not (rng is None or isinstance(rng, np.random.Generator) or _whole(rng)):
+    if not (rng is None or isinstance(rng, np.random.Generator) or whole_number(rng)):
         raise InputError(
             f"rng must be a whole-number seed, a numpy.random.Generator or None; got {rng!r}"
         )
-    if _whole(rng) and int(rng) < 0:
+    if whole_number(rng) and int(rng) < 0:
         raise InputError(f"rng as a seed must be >= 0; got {rng!r}")
     return run_seed(rng)
-
-
-def _whole(v: Any) -> bool:
-    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
 
 
 # ----------------------------------------------------------------------------- results
@@ -557,7 +554,7 @@ def detect(
         raise InputError(f"path must be a raster file path; got {type(path).__name__}")
     if not Path(path).exists():
         raise InputError(f"path {str(path)!r} does not exist; give a raster file (GeoTIFF)")
-    if not _whole(workers) or workers < 1:
+    if not whole_number(workers) or workers < 1:
         raise InputError(f"workers must be a whole number >= 1; got {workers!r}")
     settings = DetectionSettings.from_mapping(options)
     layer = _plot_layer(plots)
