@@ -567,7 +567,7 @@ def analyse_plot(
         quad_h,
     )
     res = dataclasses.replace(
-        res, detectable=plot_detectable(polygon, n, alpha=s.alpha, seed=s.seed)
+        res, detectable=plot_detectable(polygon, n, alpha=s.alpha, rng=s.seed)
     )
     extra = _pattern_in_metres(xy, polygon, res.verdict, rng)
     summary = plain_summary(res, s.alpha, s.smallest_p)

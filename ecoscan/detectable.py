@@ -15,6 +15,7 @@ from functools import lru_cache
 import numpy as np
 import shapely
 
+from ecoscan.stats.csr import run_seed
 from ecoscan.stats.power import detectable_range
 
 __all__ = ["DETECTABLE_COLUMNS", "Detectable", "plot_detectable", "verdict_with_range"]
@@ -72,7 +73,11 @@ def _cached(wkb: bytes, n: int, alpha: float, seed: int) -> Detectable:
 
 
 def plot_detectable(
-    polygon: shapely.Geometry, n: int, *, alpha: float = 0.05, seed: int = 1
+    polygon: shapely.Geometry,
+    n: int,
+    *,
+    alpha: float = 0.05,
+    rng: int | np.random.Generator | None = 1,
 ) -> Detectable:
     """The detectable Clark–Evans R of a plot with ``n`` plants (80% power).
 
@@ -84,8 +89,9 @@ def plot_detectable(
         Plants in the plot.
     alpha : float
         Level of the plot's test.
-    seed : int
-        Random seed; the stream also depends on the polygon and n, not on other plots.
+    rng : int, numpy.random.Generator or None
+        Seed (a generator gives one draw); the stream also depends on the polygon and n,
+        not on other plots.
 
     Returns
     -------
@@ -100,7 +106,7 @@ def plot_detectable(
     """
     if n < 3 or polygon is None or polygon.is_empty or not polygon.area > 0:
         return Detectable(float("nan"), float("nan"), "too few plants to tell")
-    return _cached(shapely.to_wkb(polygon), int(n), float(alpha), int(seed))
+    return _cached(shapely.to_wkb(polygon), int(n), float(alpha), run_seed(rng))
 
 
 def verdict_with_range(verdict: str, detectable: Detectable) -> str:
