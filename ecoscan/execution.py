@@ -21,6 +21,7 @@ Dask is optional: ``pip install "ecoscan[dask]"``.
 from __future__ import annotations
 
 import contextlib
+import functools
 import logging
 import threading
 from collections.abc import Callable, Iterator, Sequence
@@ -145,7 +146,7 @@ class DaskExecutor:
 
         if not jobs:
             return []
-        futures = self.client.map(func, list(jobs), pure=False)
+        futures = self.client.map(functools.partial(_run_job, func), list(jobs), pure=False)
         index = {f.key: i for i, f in enumerate(futures)}
         with self._lock:
             self._live.update(futures)
@@ -184,6 +185,17 @@ class DaskExecutor:
         if self.cluster is not None:
             with contextlib.suppress(Exception):
                 self.cluster.close()
+
+
+def _run_job(func: Callable[[J], R], job: J) -> R:
+    """Run one job on a worker; a bad-input error travels back as a plain InputError."""
+    try:
+        return func(job)
+    except InputError as exc:
+        # raised outside the handler, so no chained exception (a GDAL error, say, which
+        # cannot be rebuilt on the client) travels with it: the client gets this one line
+        err = InputError(str(exc))
+    raise err
 
 
 def _result(fut, desc: str):
@@ -342,8 +354,8 @@ def open_executor(
                 n_workers=n,
                 threads_per_worker=1,  # numpy-heavy jobs: one per process, as the local pool
                 processes=True,
-                dashboard_address=None,  # no dashboard page (and no port to collide on)
-                silence_logs=logging.ERROR,
+                dashboard_address=":0",  # any free port: never collides with another cluster
+                silence_logs=logging.CRITICAL,  # a failed task is reported here, once
             )
             client = distributed.Client(cluster, set_as_default=False)
         ex = DaskExecutor(client, cluster)
