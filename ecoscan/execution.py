@@ -265,7 +265,16 @@ def check_executor_options(
 
 def _connect(distributed, address: str):
     import dask
+    from distributed.comm import get_address_host_port
 
+    try:
+        get_address_host_port(address)
+    except (ValueError, TypeError) as exc:
+        first = (str(exc).splitlines() or ["not an address"])[0]
+        raise InputError(
+            f"--scheduler {address} is not a scheduler address ({first}); write it as "
+            "tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786"
+        ) from None
     timeout = dask.config.get("distributed.comm.timeouts.connect")
     try:
         return distributed.Client(address, timeout=timeout, set_as_default=False)

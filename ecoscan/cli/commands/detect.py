@@ -201,10 +201,11 @@ def run(args: argparse.Namespace) -> int:
         quiet=args.quiet,
     ) as executor:
         res = detect_raster(args.raster, settings, plots=plots, executor=executor)
+        ran = [f"tiles ran on {executor.describe()}"] if executor.distributed else []
     write_points(res.points, out)
     meta_path = out.with_name(out.stem + ".detection.json")
     write_json(meta_path, detection_metadata(res, settings))
-    print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
+    print_notes(([*plots.notes] if plots else []) + res.notes + ran, args.quiet)
     row = {
         "n": res.n,
         "method": res.method + (f" ({res.index})" if res.index else ""),

@@ -82,6 +82,8 @@ def run(args: argparse.Namespace) -> int:
             overwrite=args.overwrite,
             executor=executor,
         )
+        if executor.distributed:
+            res.notes.append(f"detection and per-plot tests ran on {executor.describe()}")
     print_notes(res.notes, args.quiet)
     print_summary(res, args.quiet)
     sys.stdout.flush()
