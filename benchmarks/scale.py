@@ -1,0 +1,244 @@
+"""Throughput and memory of detection on a local process pool and on a local Dask cluster,
+and a projection to a regional programme.
+
+The scene is an invented RGB orthomosaic (``ecoscan.synthetic``: discs of shrubs on
+textured soil, 5 cm pixels, one crown per 2,500 pixels on average), ``--size`` pixels
+square (16384 by default: 268 megapixels, 805 MB decoded), rendered strip by strip into a
+tiled GeoTIFF. Then, each in a fresh process so that peak memory is measured cleanly:
+
+* pool: :func:`ecoscan.detect.detect_raster` with ``workers=2`` (the local process pool);
+* dask: the same call with a 2-worker local Dask cluster
+  (:func:`ecoscan.execution.open_executor` with ``dask_workers=2``); the cluster's start-up
+  is timed apart.
+
+Printed for each: seconds, megapixels per second, CPU seconds (client and workers),
+megapixels per CPU-second (the per-core throughput), the client's peak resident memory and
+its peak Python/numpy heap while the tiles run, and the largest worker's peak; then the
+ratios dask / pool and whether both found the same points. A short second part times the
+per-plot statistics (:func:`ecoscan.analysis.analyse_plot`, 999 simulations, 80 to 150
+plants in 50 m squares, half of them clustered) in this process.
+
+Last, the projection used in docs/scaling.md: hours and core-hours for 100 mosaics of
+2 gigapixels and 10,000 plots on clusters of N single-core workers, from the measured
+per-core figures (assumptions printed with it).
+
+Run: ``nice python benchmarks/scale.py`` (``--size 8192`` for a quicker run on a shared
+machine). Not run by the test suite.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from detect_speed import DescendantPeaks, _peak_self_mb  # noqa: E402
+
+PIXEL_M = 0.05
+DIAMETER_M = (0.6, 2.0)
+#: Programme to project (issue 13): 100 mosaics of 2 gigapixels, 10,000 plots.
+MOSAICS, MOSAIC_GP, PLOTS = 100, 2.0, 10_000
+#: Assumed price of one cloud vCPU-hour, US dollars (an assumption: on-demand general-purpose
+#: instances cost roughly 0.03-0.05 per vCPU-hour; from memory, check current prices).
+VCPU_HOUR_USD = 0.04
+#: Assumed parallel efficiency on a real cluster (object-storage reads, stragglers, the
+#: client's per-raster threshold step); 1.0 would be perfect scaling.
+EFFICIENCY = 0.8
+
+
+def make_scene(path: Path, size: int, seed: int = 11) -> dict:
+    """Render the orthomosaic strip by strip; returns facts about it."""
+    from rasterio.transform import from_origin
+
+    from ecoscan.synthetic import place_crowns, write_orthomosaic_geotiff
+
+    rng = np.random.default_rng(seed)
+    dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
+    n = size * size // 2500
+    xy, d = place_crowns((size, size), n, dpx, rng, min_gap=0.95)
+    write_orthomosaic_geotiff(
+        path,
+        xy,
+        d,
+        (size, size),
+        rng,
+        from_origin(500_000.0, 4_600_000.0, PIXEL_M, PIXEL_M),
+        "EPSG:32631",
+    )
+    return {"crowns": int(xy.shape[0]), "megapixels": size * size / 1e6}
+
+
+class _TilePhase:
+    """Executor wrapper: the client's peak traced heap while the tiles run."""
+
+    def __init__(self, inner):
+        self.inner, self.distributed, self.peak_mb = inner, inner.distributed, 0.0
+
+    def map(self, func, jobs, **kw):
+        tracemalloc.start()
+        base = tracemalloc.get_traced_memory()[0]
+        try:
+            return self.inner.map(func, jobs, **kw)
+        finally:
+            self.peak_mb = (tracemalloc.get_traced_memory()[1] - base) / 1e6
+            tracemalloc.stop()
+
+
+def run_mode(tif: Path, mode: str, out_npy: Path) -> dict:
+    """One detection run (in its own process)."""
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.execution import open_executor
+
+    s = DetectionSettings(diameter_min_m=DIAMETER_M[0], diameter_max_m=DIAMETER_M[1])
+    with DescendantPeaks() as kids:
+        t0 = time.perf_counter()
+        with open_executor(
+            workers=2 if mode == "pool" else None, dask_workers=2 if mode == "dask" else None
+        ) as ex:
+            started = time.perf_counter() - t0
+            wrapped = _TilePhase(ex)
+            c0 = time.process_time()
+            t1 = time.perf_counter()
+            res = detect_raster(tif, s, executor=wrapped)
+            dt = time.perf_counter() - t1
+            cpu = time.process_time() - c0
+    np.save(out_npy, res.points.xy)
+    return {
+        "mode": mode,
+        "startup_s": started,
+        "seconds": dt,
+        "megapixels": res.raster.megapixels,
+        "tiles": res.tiles_read,
+        "n": res.n,
+        "cpu_s": cpu + kids.cpu_seconds,
+        "client_peak_rss_mb": _peak_self_mb(),
+        "client_tile_phase_heap_mb": wrapped.peak_mb,
+        "worker_peak_mb": kids.largest_mb,
+    }
+
+
+def time_plots(count: int = 8) -> float:
+    """CPU seconds per plot of the per-plot statistics: 999 simulations, 50 m squares (each
+    a different outline, so no cached result is reused) holding 80 to 150 plants, half at
+    random and half in clusters (clustered plots run all simulations)."""
+    import shapely
+
+    from ecoscan.analysis import DispersionSettings, analyse_plot
+    from ecoscan.stats.csr import uniform_in_polygon
+
+    s = DispersionSettings(simulations=999)
+    rng = np.random.default_rng(3)
+    jobs = []
+    for i in range(count + 1):
+        poly = shapely.box(0, 0, 50 + i * 0.37, 50)
+        n = int(rng.integers(80, 151))
+        if i % 2:
+            parents = uniform_in_polygon(poly, max(2, n // 10), rng=rng)
+            xy = parents[rng.integers(0, parents.shape[0], n)] + rng.normal(0, 1.5, (n, 2))
+            xy = xy[shapely.contains_xy(poly, xy[:, 0], xy[:, 1])]
+        else:
+            xy = uniform_in_polygon(poly, n, rng=rng)
+        jobs.append((xy, poly, f"p{i}"))
+    analyse_plot(*jobs[0], s)  # warm-up (imports)
+    t0 = time.process_time()
+    for job in jobs[1:]:
+        analyse_plot(*job, s)
+    return (time.process_time() - t0) / count
+
+
+def _child(args: list[str]) -> dict:
+    out = subprocess.run(
+        [sys.executable, __file__, *args], capture_output=True, text=True, check=True
+    )
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def projection(mp_per_cpu_s: float, s_per_plot: float, workers=(8, 32, 128, 512)) -> list[dict]:
+    """Hours and core-hours for the programme on N single-core workers."""
+    core_h_det = MOSAICS * MOSAIC_GP * 1e3 / mp_per_cpu_s / 3600
+    core_h_plots = PLOTS * s_per_plot / 3600
+    rows = []
+    for n in workers:
+        hours = (core_h_det + core_h_plots) / (n * EFFICIENCY)
+        rows.append(
+            {
+                "workers": n,
+                "hours": hours,
+                "core_hours": hours * n,
+                "usd": hours * n * VCPU_HOUR_USD,
+            }
+        )
+    return rows
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--size", type=int, default=16384, help="scene side in pixels")
+    ap.add_argument("--keep", metavar="DIR", help="write the scene here and keep it")
+    ap.add_argument("--child", nargs=3, metavar=("TIF", "MODE", "NPY"), help=argparse.SUPPRESS)
+    a = ap.parse_args()
+    if a.child:
+        print(json.dumps(run_mode(Path(a.child[0]), a.child[1], Path(a.child[2]))))
+        return
+    folder = Path(a.keep) if a.keep else Path(tempfile.mkdtemp(prefix="ecoscan-scale-"))
+    folder.mkdir(parents=True, exist_ok=True)
+    tif = folder / f"ortho_{a.size}.tif"
+    t0 = time.perf_counter()
+    facts = make_scene(tif, a.size) if not tif.exists() else {"megapixels": a.size**2 / 1e6}
+    print(
+        f"scene {a.size} x {a.size} ({facts['megapixels']:.0f} MP, "
+        f"{3 * facts['megapixels']:.0f} MB decoded) in {time.perf_counter() - t0:.0f} s; "
+        f"{os.cpu_count()} CPU cores"
+    )
+    runs = {}
+    for mode in ("pool", "dask"):
+        r = _child(["--child", str(tif), mode, str(folder / f"{mode}.npy")])
+        runs[mode] = r
+        print(
+            f"{mode:>4}: {r['seconds']:7.1f} s  {r['megapixels'] / r['seconds']:5.2f} MP/s  "
+            f"cpu {r['cpu_s']:7.1f} s  {r['megapixels'] / r['cpu_s']:5.2f} MP/cpu-s  "
+            f"client rss {r['client_peak_rss_mb']:5.0f} MB  client heap while tiles run "
+            f"{r['client_tile_phase_heap_mb']:6.2f} MB  worker peak {r['worker_peak_mb']:5.0f} MB"
+            f"  start-up {r['startup_s']:.1f} s  plants {r['n']}  tiles {r['tiles']}"
+        )
+    p, d = runs["pool"], runs["dask"]
+    same = np.array_equal(np.load(folder / "pool.npy"), np.load(folder / "dask.npy"))
+    print(
+        f"dask / pool: time {d['seconds'] / p['seconds']:.2f}, cpu {d['cpu_s'] / p['cpu_s']:.2f}, "
+        f"client rss {d['client_peak_rss_mb'] / p['client_peak_rss_mb']:.2f}, worker peak "
+        f"{d['worker_peak_mb'] / max(p['worker_peak_mb'], 1):.2f}; same points: "
+        f"{'yes' if same else 'NO'}"
+    )
+    spp = time_plots()
+    print(f"per-plot statistics: {spp:.2f} cpu-s per plot (999 simulations, 80-150 plants)")
+    rate = p["megapixels"] / p["cpu_s"]
+    print(
+        f"projection: {MOSAICS} mosaics x {MOSAIC_GP:g} GP + {PLOTS} plots at "
+        f"{rate:.2f} MP per core-second, {spp:.2f} s per plot, efficiency {EFFICIENCY:g}, "
+        f"${VCPU_HOUR_USD}/vCPU-hour (assumed)"
+    )
+    for row in projection(rate, spp):
+        print(
+            f"  {row['workers']:4d} workers: {row['hours']:7.1f} h  "
+            f"{row['core_hours']:7.0f} core-h  ~${row['usd']:.0f}"
+        )
+    if not a.keep:
+        for f in folder.iterdir():
+            f.unlink()
+        folder.rmdir()
+
+
+if __name__ == "__main__":
+    main()
