@@ -84,6 +84,21 @@ def test_detect_same_points_on_dask(cluster, scenes):
     _same_points(detect_raster(chm, s), detect_raster(chm, s, executor=ex))
 
 
+def test_gdal_virtual_path_read_by_the_workers(cluster, scenes, tmp_path):
+    # a raster reached through one of GDAL's virtual file systems (/vsizip/ here; /vsis3/
+    # and https:// go the same way) is opened by the workers at that path
+    import zipfile
+
+    _, _, chm = scenes
+    with zipfile.ZipFile(tmp_path / "flight.zip", "w") as z:
+        z.write(chm, "chm.tif")
+    s = DetectionSettings(method="chm", tile_size_px=256)
+    remote = detect_raster(
+        f"/vsizip/{tmp_path}/flight.zip/chm.tif", s, executor=DaskExecutor(cluster)
+    )
+    _same_points(detect_raster(chm, s), remote)
+
+
 def _worker_pids(client) -> dict[str, int]:
     return client.run(os.getpid)
 
@@ -274,4 +289,3 @@ def test_survey_byte_identical_with_dask_workers(scenes, tmp_path):
             break
         time.sleep(0.1)
     assert not left
-
