@@ -289,3 +289,19 @@ def test_survey_byte_identical_with_dask_workers(scenes, tmp_path):
             break
         time.sleep(0.1)
     assert not left
+
+
+def test_detect_command_on_a_running_scheduler(cluster, scenes, tmp_path, capsys):
+    from ecoscan.cli import main
+
+    _, _, chm = scenes
+    common = ["detect", str(chm), "--method", "chm", "--tile-size", "256"]
+    assert main([*common, "-o", str(tmp_path / "local.csv"), "--quiet"]) == 0
+    address = cluster.scheduler.address
+    capsys.readouterr()
+    assert main([*common, "-o", str(tmp_path / "dask.csv"), "--scheduler", address]) == 0
+    err = capsys.readouterr().err
+    assert f"tiles ran on the Dask scheduler at {address} with 2 worker(s)" in err
+    assert (tmp_path / "local.csv").read_bytes() == (tmp_path / "dask.csv").read_bytes()
+    # the command's client is gone; the cluster it used keeps running
+    assert len(cluster.scheduler_info()["workers"]) == 2
