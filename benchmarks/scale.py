@@ -6,7 +6,9 @@ textured soil, 5 cm pixels, one crown per 2,500 pixels on average), ``--size`` p
 square (16384 by default: 268 megapixels, 805 MB decoded), rendered strip by strip into a
 tiled GeoTIFF. Then, each in a fresh process so that peak memory is measured cleanly:
 
-* pool: :func:`ecoscan.detect.detect_raster` with ``workers=2`` (the local process pool);
+* single: :func:`ecoscan.detect.detect_raster` in one process (``workers=1``): its CPU
+  seconds give the per-core throughput used for the projection;
+* pool: the same call with ``workers=2`` (the local process pool);
 * dask: the same call with a 2-worker local Dask cluster
   (:func:`ecoscan.execution.open_executor` with ``dask_workers=2``); the cluster's start-up
   is timed apart.
@@ -105,7 +107,7 @@ def run_mode(tif: Path, mode: str, out_npy: Path) -> dict:
     with DescendantPeaks() as kids:
         t0 = time.perf_counter()
         with open_executor(
-            workers=2 if mode == "pool" else None, dask_workers=2 if mode == "dask" else None
+            workers={"single": 1, "pool": 2}.get(mode), dask_workers=2 if mode == "dask" else None
         ) as ex:
             started = time.perf_counter() - t0
             wrapped = _TilePhase(ex)
@@ -203,27 +205,30 @@ def main() -> None:
         f"{os.cpu_count()} CPU cores"
     )
     runs = {}
-    for mode in ("pool", "dask"):
+    for mode in ("single", "pool", "dask"):
         r = _child(["--child", str(tif), mode, str(folder / f"{mode}.npy")])
         runs[mode] = r
         print(
-            f"{mode:>4}: {r['seconds']:7.1f} s  {r['megapixels'] / r['seconds']:5.2f} MP/s  "
+            f"{mode:>6}: {r['seconds']:7.1f} s  {r['megapixels'] / r['seconds']:5.2f} MP/s  "
             f"cpu {r['cpu_s']:7.1f} s  {r['megapixels'] / r['cpu_s']:5.2f} MP/cpu-s  "
             f"client rss {r['client_peak_rss_mb']:5.0f} MB  client heap while tiles run "
             f"{r['client_tile_phase_heap_mb']:6.2f} MB  worker peak {r['worker_peak_mb']:5.0f} MB"
             f"  start-up {r['startup_s']:.1f} s  plants {r['n']}  tiles {r['tiles']}"
         )
-    p, d = runs["pool"], runs["dask"]
-    same = np.array_equal(np.load(folder / "pool.npy"), np.load(folder / "dask.npy"))
+    one, p, d = runs["single"], runs["pool"], runs["dask"]
+    same = all(
+        np.array_equal(np.load(folder / "single.npy"), np.load(folder / f"{m}.npy"))
+        for m in ("pool", "dask")
+    )
     print(
         f"dask / pool: time {d['seconds'] / p['seconds']:.2f}, cpu {d['cpu_s'] / p['cpu_s']:.2f}, "
         f"client rss {d['client_peak_rss_mb'] / p['client_peak_rss_mb']:.2f}, worker peak "
         f"{d['worker_peak_mb'] / max(p['worker_peak_mb'], 1):.2f}; same points: "
-        f"{'yes' if same else 'NO'}"
+        f"{'yes' if same else 'NO'} (all three runs)"
     )
     spp = time_plots()
     print(f"per-plot statistics: {spp:.2f} cpu-s per plot (999 simulations, 80-150 plants)")
-    rate = p["megapixels"] / p["cpu_s"]
+    rate = one["megapixels"] / one["cpu_s"]
     print(
         f"projection: {MOSAICS} mosaics x {MOSAIC_GP:g} GP + {PLOTS} plots at "
         f"{rate:.2f} MP per core-second, {spp:.2f} s per plot, efficiency {EFFICIENCY:g}, "

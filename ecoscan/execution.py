@@ -24,6 +24,7 @@ import contextlib
 import functools
 import logging
 import threading
+import uuid
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any, Protocol, TypeVar
 
@@ -118,10 +119,10 @@ class DaskExecutor:
 
     Notes
     -----
-    Tasks are submitted with ``pure=False`` (each run gets fresh task keys) and released as
-    soon as their results are gathered. A worker lost mid-run has its tasks rerun by the
-    scheduler; a task that kills workers repeatedly (Dask's ``allowed-failures``) fails the
-    run with a one-line error.
+    Every call submits tasks under fresh keys (``ecoscan-tile-...``, ``ecoscan-plot-...``)
+    and releases each as soon as its result is gathered. A worker lost mid-run has its tasks
+    rerun by the scheduler; a task that kills workers repeatedly (Dask's
+    ``allowed-failures``) fails the run with a one-line error.
 
     Examples
     --------
@@ -146,7 +147,10 @@ class DaskExecutor:
 
         if not jobs:
             return []
-        futures = self.client.map(functools.partial(_run_job, func), list(jobs), pure=False)
+        # named keys ("ecoscan-tile-...") group the tasks on Dask's dashboard; fresh per call
+        token = uuid.uuid4().hex[:12]
+        keys = [f"ecoscan-{unit}-{token}-{i}" for i in range(len(jobs))]
+        futures = self.client.map(functools.partial(_run_job, func), list(jobs), key=keys)
         index = {f.key: i for i, f in enumerate(futures)}
         with self._lock:
             self._live.update(futures)
@@ -173,7 +177,7 @@ class DaskExecutor:
 
     def describe(self) -> str:
         """One line for notes: where the scheduler is and how many workers it has."""
-        n = len(self.client.scheduler_info(n_workers=-1).get("workers", {}))
+        n = len(self.client.nthreads())
         where = "a local Dask cluster" if self.cluster is not None else "the Dask scheduler at"
         addr = "" if self.cluster is not None else f" {self.client.scheduler.address}"
         return f"{where}{addr} with {n} worker(s)"
