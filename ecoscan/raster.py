@@ -49,7 +49,7 @@ class RasterInfo:
     Attributes
     ----------
     path : str
-        The file.
+        The file (absolute), or the GDAL virtual path or URL as given.
     width, height : int
         Columns and rows.
     count : int
@@ -236,7 +236,9 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
         if abs(sx - sy) > 0.01 * max(sx, sy):
             notes.append(f"{p.name} has non-square pixels; the mean pixel size {ps:.3g} m is used")
     return RasterInfo(
-        path=text if remote else str(p),
+        # absolute, so that a tile job read elsewhere (another process or a Dask worker
+        # started in another folder) opens the same file
+        path=text if remote else str(p.absolute()),
         width=info["width"],
         height=info["height"],
         count=len(data_bands),
