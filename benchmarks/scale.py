@@ -18,12 +18,13 @@ megapixels per CPU-second (the per-core throughput), the client's peak resident 
 (with a Dask cluster it hosts the scheduler too) and how far it grew while the tiles ran,
 the client-side seconds (thresholds from sample windows, merging), and the largest
 worker's peak; then the ratios dask / pool and whether all runs found the same points. A
-short second part times the per-plot statistics (:func:`ecoscan.analysis.analyse_plot`, 999 simulations, 80 to 150
-plants in 50 m squares, half of them clustered) in this process.
+short second part times the per-plot statistics (:func:`ecoscan.analysis.analyse_plot`,
+999 simulations, 80 to 150 plants in 50 m squares, half of them clustered) in this process.
 
-Last, the projection used in docs/scaling.md: hours and core-hours for 100 mosaics of
-2 gigapixels and 10,000 plots on clusters of N single-core workers, from the measured
-per-core figures (assumptions printed with it).
+Last, the projection used in docs/scaling.md: hours, core-hours and cost for 100 mosaics
+of 2 gigapixels and 10,000 plots on clusters of N single-core workers, from the single
+process's CPU seconds split into the tiles (per megapixel) and the client's per-mosaic
+threshold step (assumptions printed with it).
 
 Run: ``nice python benchmarks/scale.py`` (``--size 8192`` for a quicker run on a shared
 machine). Not run by the test suite.
@@ -96,7 +97,7 @@ class _TilePhase:
 
     def __init__(self, inner):
         self.inner, self.distributed = inner, inner.distributed
-        self.growth_mb = self.seconds = 0.0
+        self.growth_mb = self.seconds = self.cpu_s = 0.0
 
     def map(self, func, jobs, **kw):
         import threading
@@ -111,11 +112,12 @@ class _TilePhase:
 
         th = threading.Thread(target=sample, daemon=True)
         th.start()
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         try:
             return self.inner.map(func, jobs, **kw)
         finally:
             self.seconds = time.perf_counter() - t0
+            self.cpu_s = time.process_time() - c0  # all the tiles' CPU when run in-process
             stop.set()
             th.join()
             self.growth_mb = max(peak, _rss_mb()) - base
@@ -151,6 +153,8 @@ def run_mode(tif: Path, mode: str, out_npy: Path) -> dict:
         "client_peak_rss_mb": _peak_self_mb(),
         "client_growth_mb": wrapped.growth_mb,
         "client_side_s": dt - wrapped.seconds,
+        "client_side_cpu_s": cpu - wrapped.cpu_s,
+        "tile_cpu_in_process_s": wrapped.cpu_s,
         "worker_peak_mb": kids.largest_mb,
     }
 
@@ -191,19 +195,32 @@ def _child(args: list[str]) -> dict:
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
-def projection(mp_per_cpu_s: float, s_per_plot: float, workers=(8, 32, 128, 512)) -> list[dict]:
-    """Hours and core-hours for the programme on N single-core workers."""
-    core_h_det = MOSAICS * MOSAIC_GP * 1e3 / mp_per_cpu_s / 3600
-    core_h_plots = PLOTS * s_per_plot / 3600
+def projection(
+    tile_mp_per_cpu_s: float,
+    client_cpu_per_mosaic_s: float,
+    s_per_plot: float,
+    workers=(8, 32, 128, 512),
+) -> list[dict]:
+    """Hours, core-hours and cost of the programme on N single-core workers.
+
+    The tiles and the plots spread over the workers (at :data:`EFFICIENCY`); each mosaic's
+    threshold step runs on the client, :data:`ecoscan.execution.RASTERS_AT_ONCE` at a time
+    (taken as one client core each), overlapping the workers' tiles, so it is a floor.
+    """
+    from ecoscan.execution import RASTERS_AT_ONCE
+
+    worker_core_s = MOSAICS * MOSAIC_GP * 1e3 / tile_mp_per_cpu_s + PLOTS * s_per_plot
+    client_floor_s = MOSAICS * client_cpu_per_mosaic_s / RASTERS_AT_ONCE
     rows = []
     for n in workers:
-        hours = (core_h_det + core_h_plots) / (n * EFFICIENCY)
+        hours = max(worker_core_s / (n * EFFICIENCY), client_floor_s) / 3600
         rows.append(
             {
                 "workers": n,
                 "hours": hours,
                 "core_hours": hours * n,
-                "usd": hours * n * VCPU_HOUR_USD,
+                "usd": hours * (n + RASTERS_AT_ONCE) * VCPU_HOUR_USD,
+                "client_bound": client_floor_s >= worker_core_s / (n * EFFICIENCY),
             }
         )
     return rows
@@ -213,6 +230,9 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", type=int, default=16384, help="scene side in pixels")
     ap.add_argument("--keep", metavar="DIR", help="write the scene here and keep it")
+    ap.add_argument(
+        "--modes", default="single,pool,dask", help="runs to make (default single,pool,dask)"
+    )
     ap.add_argument("--child", nargs=3, metavar=("TIF", "MODE", "NPY"), help=argparse.SUPPRESS)
     a = ap.parse_args()
     if a.child:
@@ -229,7 +249,7 @@ def main() -> None:
         f"{os.cpu_count()} CPU cores"
     )
     runs = {}
-    for mode in ("single", "pool", "dask"):
+    for mode in a.modes.split(","):
         r = _child(["--child", str(tif), mode, str(folder / f"{mode}.npy")])
         runs[mode] = r
         print(
@@ -240,29 +260,38 @@ def main() -> None:
             f"{r['startup_s']:.1f} s  client-side {r['client_side_s']:.1f} s  plants {r['n']}"
             f"  tiles {r['tiles']}"
         )
-    one, p, d = runs["single"], runs["pool"], runs["dask"]
-    same = all(
-        np.array_equal(np.load(folder / "single.npy"), np.load(folder / f"{m}.npy"))
-        for m in ("pool", "dask")
-    )
-    print(
-        f"dask / pool: time {d['seconds'] / p['seconds']:.2f}, cpu {d['cpu_s'] / p['cpu_s']:.2f}, "
-        f"client rss {d['client_peak_rss_mb'] / p['client_peak_rss_mb']:.2f}, worker peak "
-        f"{d['worker_peak_mb'] / max(p['worker_peak_mb'], 1):.2f}; same points: "
-        f"{'yes' if same else 'NO'} (all three runs)"
-    )
-    spp = time_plots()
-    print(f"per-plot statistics: {spp:.2f} cpu-s per plot (999 simulations, 80-150 plants)")
-    rate = one["megapixels"] / one["cpu_s"]
-    print(
-        f"projection: {MOSAICS} mosaics x {MOSAIC_GP:g} GP + {PLOTS} plots at "
-        f"{rate:.2f} MP per core-second, {spp:.2f} s per plot, efficiency {EFFICIENCY:g}, "
-        f"${VCPU_HOUR_USD}/vCPU-hour (assumed)"
-    )
-    for row in projection(rate, spp):
+    if {"pool", "dask"} <= set(runs):
+        p, d = runs["pool"], runs["dask"]
         print(
-            f"  {row['workers']:4d} workers: {row['hours']:7.1f} h  "
-            f"{row['core_hours']:7.0f} core-h  ~${row['usd']:.0f}"
+            f"dask / pool: time {d['seconds'] / p['seconds']:.2f}, cpu "
+            f"{d['cpu_s'] / p['cpu_s']:.2f}, client rss "
+            f"{d['client_peak_rss_mb'] / p['client_peak_rss_mb']:.2f}, worker peak "
+            f"{d['worker_peak_mb'] / max(p['worker_peak_mb'], 1):.2f}"
+        )
+    first = np.load(folder / f"{next(iter(runs))}.npy")
+    same = all(np.array_equal(first, np.load(folder / f"{m}.npy")) for m in runs)
+    print(f"same points in every run: {'yes' if same else 'NO'} ({first.shape[0]} plants)")
+    if "single" not in runs:
+        return
+    one = runs["single"]
+    tile_rate = one["megapixels"] / one["tile_cpu_in_process_s"]
+    client_cpu = one["client_side_cpu_s"]
+    spp = time_plots()
+    print(
+        f"single process: tiles {one['tile_cpu_in_process_s']:.1f} cpu-s "
+        f"({tile_rate:.2f} MP per cpu-s), client side (thresholds, merging) {client_cpu:.1f} "
+        "cpu-s per mosaic"
+    )
+    print(f"per-plot statistics: {spp:.2f} cpu-s per plot (999 simulations, 80-150 plants)")
+    print(
+        f"projection: {MOSAICS} mosaics x {MOSAIC_GP:g} GP + {PLOTS} plots; efficiency "
+        f"{EFFICIENCY:g}; ${VCPU_HOUR_USD}/vCPU-hour (assumed)"
+    )
+    for row in projection(tile_rate, client_cpu, spp):
+        print(
+            f"  {row['workers']:4d} workers: {row['hours']:7.2f} h  "
+            f"{row['core_hours']:7.1f} worker core-h  ~${row['usd']:.2f}"
+            + ("  (client-bound)" if row["client_bound"] else "")
         )
     if not a.keep:
         for f in folder.iterdir():
