@@ -305,3 +305,20 @@ def test_detect_command_on_a_running_scheduler(cluster, scenes, tmp_path, capsys
     assert (tmp_path / "local.csv").read_bytes() == (tmp_path / "dask.csv").read_bytes()
     # the command's client is gone; the cluster it used keeps running
     assert len(cluster.scheduler_info()["workers"]) == 2
+
+
+def test_survey_failing_raster_leaves_nothing(cluster, scenes, tmp_path):
+    # the rasters' detections run side by side on the cluster; when one fails, the others'
+    # tasks are cancelled and the run leaves no output folder (nor a temporary one)
+    from ecoscan.survey.config import load_survey
+    from ecoscan.survey.runner import run_survey
+
+    _, ortho, chm = scenes
+    toml = _survey(tmp_path, ortho, chm)
+    # the first raster fails on the client while the second one's detection is under way
+    text = toml.read_text().replace("diameter = [0.5, 2.0]", 'diameter = [0.5, 2.0]\nbands = "9"')
+    toml.write_text(text)
+    with pytest.raises(InputError, match="band 9 is out of range"):
+        run_survey(load_survey(toml), output=tmp_path / "out", executor=DaskExecutor(cluster))
+    assert not (tmp_path / "out").exists()
+    assert not [p for p in tmp_path.iterdir() if "tmp-ecoscan" in p.name]
