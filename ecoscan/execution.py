@@ -26,6 +26,7 @@ import logging
 import threading
 import uuid
 from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import CancelledError
 from typing import Any, Protocol, TypeVar
 
 from ecoscan.errors import InputError
@@ -138,6 +139,7 @@ class DaskExecutor:
         self.cluster = cluster
         self._live: set = set()
         self._lock = threading.Lock()
+        self._stopped = threading.Event()
 
     def map(
         self, func: Callable[[J], R], jobs: Sequence[J], *, desc: str = "tiles", unit: str = "tile"
@@ -145,6 +147,8 @@ class DaskExecutor:
         """Run ``func`` on every job as one Dask task each; results in job order."""
         from distributed import as_completed
 
+        if self._stopped.is_set():  # another part of the run failed: submit nothing more
+            raise CancelledError("the run was stopped")
         if not jobs:
             return []
         # named keys ("ecoscan-tile-...") group the tasks on Dask's dashboard; fresh per call
@@ -169,7 +173,8 @@ class DaskExecutor:
         return results
 
     def abort(self) -> None:
-        """Cancel every task this executor still waits for."""
+        """Cancel every task this executor waits for, and refuse new ones (the run failed)."""
+        self._stopped.set()
         with self._lock:
             live = list(self._live)
         if live:
