@@ -492,7 +492,7 @@ def flatten_size(dmax_px: float) -> int:
     >>> flatten_size(20.0)
     40
     """
-    return int(math.ceil(FLATTEN_DIAMETERS * dmax_px))
+    return math.ceil(FLATTEN_DIAMETERS * dmax_px) if FLATTEN_DIAMETERS > 0 else 0
 
 
 #: Pixels read at full resolution to choose the layer and thresholds (sample windows).

@@ -68,6 +68,12 @@ NEAR_SHARE = 0.2
 #: Response spread at scale σ is measured only on background pixels at least this many σ
 #: from the nearest plant candidate (the filter spreads a crown's response over a few σ).
 CLEARANCE = 2.0
+#: Exponent of the share of candidates kept in a layer's score (0: contrast alone).
+#: Tuned on benchmarks/tuning_scenes.py.
+COUNT_WEIGHT = 1.0
+#: The plain vegetation index (first option) wins unless another layer's score is higher
+#: by more than this factor.
+INDEX_PREFERENCE = 1.1
 #: Fewest background pixels that measure the response spread at one scale.
 MIN_SPREAD_PX = 200
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
@@ -351,6 +357,24 @@ def response_mads(scales: BlobScales) -> np.ndarray:
     return np.sqrt(RESPONSE_MADS**2 + 2.0 * np.log(ratio))
 
 
+def _fill_scales(measured: np.ndarray, fallback: np.ndarray) -> np.ndarray:
+    """Scales without a measurement take the nearest smaller measured scale's spread.
+
+    Texture is correlated, so its response falls more slowly with scale than white noise's;
+    keeping the last measured spread is the cautious choice. With nothing measured, the
+    ``fallback`` (pixel noise with room for texture) is used.
+    """
+    out = np.array(measured, float)
+    ok = np.isfinite(out)
+    if not ok.any():
+        return np.asarray(fallback, float).copy()
+    idx = np.where(ok, np.arange(out.size), -1)
+    idx = np.maximum.accumulate(idx)
+    first = int(np.flatnonzero(ok)[0])
+    idx[idx < 0] = first
+    return out[idx]
+
+
 def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     i = np.rint(np.log(sigma / scales.sigmas[0]) / math.log(scales.k)).astype(int)
     return np.clip(i, 0, scales.sigmas.size - 1)
@@ -417,7 +441,7 @@ def _score_layer(layers, windows, scales):
         sr = _spreads(layers, windows, scales, bg_masks, m, clears)
         # scales with too little clear background (dense plants): pixel noise with room
         # for texture, the same rule as for closed canopy
-        sr = np.where(np.isfinite(sr), sr, sr_noise if noise > 0 else sr0)
+        sr = _fill_scales(sr, sr_noise if noise > 0 else sr0)
     kk = response_mads(scales)
     q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s
@@ -489,7 +513,7 @@ def choose_layer(
     """
     options = options or candidate_layers(roles)
     scores: dict[str, float] = {}
-    best: tuple | None = None
+    results: list[tuple] = []
     for opt in options:
         if len(opt) == 1:
             terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
@@ -512,10 +536,18 @@ def choose_layer(
         res = _score_layer(layers, windows, scales)
         res["raw_background"] = raw
         label = "+".join(opt)
+        results.append((label, terms, res))
+    # a layer that shows few plants clearly is not better than one showing many a little
+    # less clearly: the separation is weighted by the share of the most candidates kept
+    most = max(r["candidates"] for _l, _t, r in results) or 1
+    rank = []
+    for i, (label, _terms, res) in enumerate(results):
+        res["separation"] *= (res["candidates"] / most) ** COUNT_WEIGHT
         scores[label] = round(res["separation"], 3)
-        if best is None or res["separation"] > best[2]["separation"]:
-            best = (label, terms, res)
-    assert best is not None
+        # the first option is the plain vegetation index: kept unless another layer
+        # separates clearly better
+        rank.append(res["separation"] * (INDEX_PREFERENCE if i == 0 else 1.0))
+    best = results[int(np.argmax(rank))]
     label, terms, res = best
     m, s = res["background"], res["spread"]
     return LayerChoice(

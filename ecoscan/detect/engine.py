@@ -200,7 +200,7 @@ def flatten_reach(size_px: int) -> int:
     """
     if size_px <= 0:
         return 0
-    return int(math.ceil(_PRE_BLUR * 4 + size_px + size_px / 2)) + 2
+    return math.ceil(_PRE_BLUR * 4 + size_px + size_px / 2) + 2
 
 
 _PRE_BLUR = 1.0  # pixels: light smoothing before the opening, so noise minima do not set it
