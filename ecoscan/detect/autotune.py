@@ -74,6 +74,11 @@ COUNT_WEIGHT = 1.0
 #: The plain vegetation index (first option) wins unless another layer's score is higher
 #: by more than this factor.
 INDEX_PREFERENCE = 1.1
+#: Dense stands: when candidates above the pixel-noise threshold leave less than this share
+#: of the pixels as background, the background rounds start from pixel noise (with room
+#: for texture) instead of from the spread of all pixels, which the many crowns inflate so
+#: much that the rounds never exclude them. Tuned on benchmarks/tuning_scenes.py.
+DENSE_BACKGROUND = 0.15
 #: Fewest background pixels that measure the response spread at one scale.
 MIN_SPREAD_PX = 200
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
@@ -380,6 +385,24 @@ def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     return np.clip(i, 0, scales.sigmas.size - 1)
 
 
+def _background_share(layers, windows, cand, spread) -> float:
+    """Share of valid pixels farther than ``EXCLUDE`` radii from every candidate whose
+    response reaches ``RESPONSE_MADS`` × ``spread`` (its own scale's)."""
+    strong = cand["response"] >= RESPONSE_MADS * spread
+    free = total = 0
+    for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+        sel = strong & (cand["w"] == wi)
+        covered = _disc_mask(
+            lay.shape,
+            cand["row"][sel],
+            cand["col"][sel],
+            EXCLUDE * math.sqrt(2) * cand["sigma"][sel],
+        )
+        free += int((win.valid & ~covered).sum())
+        total += int(win.valid.sum())
+    return free / max(total, 1)
+
+
 def _score_layer(layers, windows, scales):
     vals = np.concatenate([lay[w.valid] for lay, w in zip(layers, windows, strict=True)])
     m0, s0 = robust_centre_scale(vals)
@@ -393,10 +416,11 @@ def _score_layer(layers, windows, scales):
         np.median([pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)])
     )
     sr_noise = TEXTURE * noise * _white_spread(scales, layers[0].shape)
-    if noise > 0:
-        sr0 = np.minimum(sr0, sr_noise)
-    cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
+    low = np.minimum(sr0, sr_noise) if noise > 0 else sr0
+    cand = _candidates(layers, windows, scales, 0.5 * low, m0)
     si = _scale_index(scales, cand["sigma"])
+    if noise > 0 and _background_share(layers, windows, cand, low[si]) < DENSE_BACKGROUND:
+        sr0 = low  # a dense stand: start from pixel noise, see DENSE_BACKGROUND
     # background: pixels away from candidates that stand out (their discs and the ring the
     # filters spread around them), found in two rounds as the noise estimate improves
     m, s, sr = m0, s0, sr0
