@@ -24,13 +24,7 @@ import numpy as np
 
 from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
-from ecoscan.detect.engine import (
-    DetectorParams,
-    TileJob,
-    flatten_reach,
-    run_tile,
-    vegetation_layer,
-)
+from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
 from ecoscan.errors import InputError
@@ -479,29 +473,11 @@ def _global_params(
     return params, overlap, 1, th, notes
 
 
-#: Local background removal (imagery defaults): the square of the opening is this many
-#: times the largest crown diameter. Tuned on benchmarks/tuning_scenes.py.
-FLATTEN_DIAMETERS = 2.0
-
-
-def flatten_size(dmax_px: float) -> int:
-    """Side (pixels) of the square whose opening is the local background of the layer.
-
-    Examples
-    --------
-    >>> flatten_size(20.0)
-    40
-    """
-    return math.ceil(FLATTEN_DIAMETERS * dmax_px) if FLATTEN_DIAMETERS > 0 else 0
-
-
 #: Pixels read at full resolution to choose the layer and thresholds (sample windows).
 SAMPLE_BUDGET_PX = 1_600_000
 
 
-def _sample_windows(
-    info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: float, extra_margin: int = 0
-):
+def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: float):
     """Full-resolution windows spread over the raster, for layer and threshold statistics.
 
     The whole raster when it is small; otherwise up to 16 windows on a regular grid whose
@@ -511,7 +487,7 @@ def _sample_windows(
     from ecoscan.detect.autotune import SampleWindow
     from ecoscan.raster import read_window
 
-    margin = scales.support_px + extra_margin
+    margin = scales.support_px
     w, h = info.width, info.height
     if w * h <= SAMPLE_BUDGET_PX:
         data, valid = read_window(info, bands, (0, 0, w, h))
@@ -556,12 +532,10 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     abands = tuple(lookup[r] for r in roles)
     if not roles:
         roles, abands = ("band",), bands
-    flat = flatten_size(dmax_px)
-    overlap += flatten_reach(flat)
-    windows = _sample_windows(info, abands, scales, dmax_px, flatten_reach(flat))
+    windows = _sample_windows(info, abands, scales, dmax_px)
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
         return None, 0, 1, {}, [*notes, "the image is constant: no plants found"]
-    choice = choose_layer(windows, roles, scales, flatten_px=flat)
+    choice = choose_layer(windows, roles, scales)
     del windows
     if choice.candidates < MIN_CANDIDATES:
         return None
@@ -578,8 +552,6 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         roles=roles,
         terms=choice.terms,
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
-        flatten_px=choice.flatten_px,
-        raw_fill=choice.raw_background,
     )
     tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
     notes.append(

@@ -25,7 +25,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import ndimage
 
 from ecoscan.detect.blobs import (
     DISC_RESPONSE,
@@ -34,7 +33,7 @@ from ecoscan.detect.blobs import (
     prune_blobs,
     response_spread,
 )
-from ecoscan.detect.engine import compose_layer, flatten_layer
+from ecoscan.detect.engine import compose_layer
 
 __all__ = [
     "LayerChoice",
@@ -65,22 +64,6 @@ ROUNDS = 4
 NEAR = 1.3
 #: Warn about weak separation when more than this share of the kept candidates is near it.
 NEAR_SHARE = 0.2
-#: Response spread at scale σ is measured only on background pixels at least this many σ
-#: from the nearest plant candidate (the filter spreads a crown's response over a few σ).
-CLEARANCE = 2.0
-#: Exponent of the share of candidates kept in a layer's score (0: contrast alone).
-#: Tuned on benchmarks/tuning_scenes.py.
-COUNT_WEIGHT = 1.0
-#: The plain vegetation index (first option) wins unless another layer's score is higher
-#: by more than this factor.
-INDEX_PREFERENCE = 1.1
-#: Dense stands: when candidates above the pixel-noise threshold leave less than this share
-#: of the pixels as background, the background rounds start from pixel noise (with room
-#: for texture) instead of from the spread of all pixels, which the many crowns inflate so
-#: much that the rounds never exclude them. Tuned on benchmarks/tuning_scenes.py.
-DENSE_BACKGROUND = 0.15
-#: Fewest background pixels that measure the response spread at one scale.
-MIN_SPREAD_PX = 200
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -140,10 +123,6 @@ class LayerChoice:
         from narrow gaps and the centre-value test is off (``min_value`` is −inf).
     scores : dict
         Separation of every layer tried.
-    raw_background : float
-        Median of the layer before flattening (given to invalid pixels before it).
-    flatten_px : int
-        Square size of the local background removal (0: none).
     """
 
     name: str
@@ -158,8 +137,6 @@ class LayerChoice:
     candidates: int
     scores: dict = field(default_factory=dict)
     closed: bool = False
-    raw_background: float = 0.0
-    flatten_px: int = 0
 
     @property
     def weak(self) -> bool:
@@ -182,35 +159,6 @@ def robust_centre_scale(values: np.ndarray) -> tuple[float, float]:
     med = float(np.median(v))
     mad = float(np.median(np.abs(v - med)))
     return med, _MAD_TO_SD * mad
-
-
-def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
-    """Median and robust SD after dropping values beyond ``k`` robust SDs, repeated.
-
-    Sigma clipping (common practice in astronomy for sky backgrounds among stars): crown
-    pixels that remain among the background pull the median and the MAD up; dropping
-    values far from the centre and estimating again converges on the dominant mode.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> rng = np.random.default_rng(0)
-    >>> v = np.concatenate([rng.normal(0, 1, 6000), rng.normal(8, 1, 4000)])
-    >>> m, s = clipped_centre_scale(v)
-    >>> bool(abs(m) < 0.3 and 0.8 < s < 1.3)
-    True
-    """
-    v = np.asarray(values, float)
-    m, s = robust_centre_scale(v)
-    for _ in range(rounds):
-        if not s > 0:
-            break
-        keep = np.abs(v - m) <= k * s
-        if keep.all() or keep.sum() < 100:
-            break
-        v = v[keep]
-        m, s = robust_centre_scale(v)
-    return m, s
 
 
 def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
@@ -277,32 +225,19 @@ def _candidates(layers, windows, scales, floor, fill):
     return {k: np.concatenate(v) if v else np.empty(0) for k, v in out.items()}
 
 
-def _spreads(layers, windows, scales, masks, fill, clearances=None):
+def _spreads(layers, windows, scales, masks, fill):
     """Response spread per scale over the masked pixels of all windows (pooled median)."""
     per = []
-    clearances = clearances or [None] * len(layers)
-    for lay, win, mask, clear in zip(layers, windows, masks, clearances, strict=True):
+    for lay, win, mask in zip(layers, windows, masks, strict=True):
         img = np.where(win.valid, lay, np.float32(fill)).astype(np.float32)
         core = np.zeros(mask.shape, dtype=bool)
         core[win.core] = True
-        per.append(
-            response_spread(
-                img,
-                scales,
-                mask & core & win.valid,
-                fill,
-                clearance=clear,
-                clearance_sigmas=CLEARANCE,
-                min_pixels=MIN_SPREAD_PX if clear is not None else 1,
-            )
-        )
+        per.append(response_spread(img, scales, mask & core & win.valid, fill))
     stack = np.vstack(per)
     has = np.isfinite(stack).any(axis=0)
     sp = np.full(stack.shape[1], np.nan)
     if has.any():
         sp[has] = np.nanmedian(stack[:, has], axis=0)
-    if clearances is not None and clearances[0] is not None:
-        return np.where(np.isfinite(sp) & (sp > 0), sp, np.nan)
     return np.where(
         np.isfinite(sp) & (sp > 0), sp, np.nanmax(sp) if np.isfinite(sp).any() else 1e-6
     )
@@ -362,45 +297,9 @@ def response_mads(scales: BlobScales) -> np.ndarray:
     return np.sqrt(RESPONSE_MADS**2 + 2.0 * np.log(ratio))
 
 
-def _fill_scales(measured: np.ndarray, fallback: np.ndarray) -> np.ndarray:
-    """Scales without a measurement take the nearest smaller measured scale's spread.
-
-    Texture is correlated, so its response falls more slowly with scale than white noise's;
-    keeping the last measured spread is the cautious choice. With nothing measured, the
-    ``fallback`` (pixel noise with room for texture) is used.
-    """
-    out = np.array(measured, float)
-    ok = np.isfinite(out)
-    if not ok.any():
-        return np.asarray(fallback, float).copy()
-    idx = np.where(ok, np.arange(out.size), -1)
-    idx = np.maximum.accumulate(idx)
-    first = int(np.flatnonzero(ok)[0])
-    idx[idx < 0] = first
-    return out[idx]
-
-
 def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     i = np.rint(np.log(sigma / scales.sigmas[0]) / math.log(scales.k)).astype(int)
     return np.clip(i, 0, scales.sigmas.size - 1)
-
-
-def _background_share(layers, windows, cand, spread) -> float:
-    """Share of valid pixels farther than ``EXCLUDE`` radii from every candidate whose
-    response reaches ``RESPONSE_MADS`` × ``spread`` (its own scale's)."""
-    strong = cand["response"] >= RESPONSE_MADS * spread
-    free = total = 0
-    for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
-        sel = strong & (cand["w"] == wi)
-        covered = _disc_mask(
-            lay.shape,
-            cand["row"][sel],
-            cand["col"][sel],
-            EXCLUDE * math.sqrt(2) * cand["sigma"][sel],
-        )
-        free += int((win.valid & ~covered).sum())
-        total += int(win.valid.sum())
-    return free / max(total, 1)
 
 
 def _score_layer(layers, windows, scales):
@@ -410,26 +309,17 @@ def _score_layer(layers, windows, scales):
         s0 = float(np.std(vals)) or 1e-6
     all_px = [w.valid for w in windows]
     sr0 = _spreads(layers, windows, scales, all_px, m0)
-    # dense plants inflate the spread of all pixels: start no higher than what pixel noise
-    # with room for texture gives, so that crowns of a closed stand are excluded at once
-    noise = float(
-        np.median([pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)])
-    )
-    sr_noise = TEXTURE * noise * _white_spread(scales, layers[0].shape)
-    low = np.minimum(sr0, sr_noise) if noise > 0 else sr0
-    cand = _candidates(layers, windows, scales, 0.5 * low, m0)
+    cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
     si = _scale_index(scales, cand["sigma"])
-    if noise > 0 and _background_share(layers, windows, cand, low[si]) < DENSE_BACKGROUND:
-        sr0 = low  # a dense stand: start from pixel noise, see DENSE_BACKGROUND
     # background: pixels away from candidates that stand out (their discs and the ring the
     # filters spread around them), found in two rounds as the noise estimate improves
     m, s, sr = m0, s0, sr0
     closed = False
     for _round in range(ROUNDS):
-        strong = cand["response"] >= RESPONSE_MADS * sr[si]
+        strong = (cand["response"] >= RESPONSE_MADS * sr[si]) & (cand["value"] >= m)
         # the widest exclusion that leaves enough background; closed canopy leaves little
         for factor in (EXCLUDE, 1.0, 0.6):
-            bg_masks, bg_vals, clears = [], [], []
+            bg_masks, bg_vals = [], []
             for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
                 sel = strong & (cand["w"] == wi)
                 covered = _disc_mask(
@@ -438,10 +328,6 @@ def _score_layer(layers, windows, scales):
                     cand["col"][sel],
                     factor * math.sqrt(2) * cand["sigma"][sel],
                 )
-                if covered.any():
-                    clears.append(ndimage.distance_transform_edt(~covered).astype(np.float32))
-                else:
-                    clears.append(np.full(lay.shape, np.inf, np.float32))
                 bg_masks.append(win.valid & ~covered)
                 bg_vals.append(lay[bg_masks[-1]])
             bg = np.concatenate(bg_vals)
@@ -458,14 +344,11 @@ def _score_layer(layers, windows, scales):
             sr = TEXTURE * noise * _white_spread(scales, layers[0].shape)
             m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
             break
-        m1, s1 = clipped_centre_scale(bg)
+        m1, s1 = robust_centre_scale(bg)
         if not s1 > 0:
             break
         m, s = m1, s1
-        sr = _spreads(layers, windows, scales, bg_masks, m, clears)
-        # scales with too little clear background (dense plants): pixel noise with room
-        # for texture, the same rule as for closed canopy
-        sr = _fill_scales(sr, sr_noise if noise > 0 else sr0)
+        sr = _spreads(layers, windows, scales, bg_masks, m)
     kk = response_mads(scales)
     q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s
@@ -495,7 +378,6 @@ def choose_layer(
     roles: tuple[str, ...],
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
-    flatten_px: int = 0,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -510,10 +392,6 @@ def choose_layer(
     options : list of tuple of str, optional
         Layers to try (default :func:`candidate_layers`); a layer of several base layers is
         their sum, each scaled by its own background standard deviation.
-    flatten_px : int
-        When positive, each layer is flattened (:func:`ecoscan.detect.engine.flatten_layer`)
-        with a square of this many pixels before it is scored; the windows' margins must
-        include :func:`ecoscan.detect.engine.flatten_reach` of it.
 
     Returns
     -------
@@ -537,7 +415,7 @@ def choose_layer(
     """
     options = options or candidate_layers(roles)
     scores: dict[str, float] = {}
-    results: list[tuple] = []
+    best: tuple | None = None
     for opt in options:
         if len(opt) == 1:
             terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
@@ -550,28 +428,12 @@ def choose_layer(
                 ws.append((name, 1.0 / sd if sd > 0 else 1.0))
             terms = tuple(ws)
         layers = [compose_layer(w.data, roles, terms) for w in windows]
-        raw = float(
-            np.median(np.concatenate([la[w.valid] for la, w in zip(layers, windows, strict=True)]))
-        )
-        if flatten_px:
-            for la, w in zip(layers, windows, strict=True):
-                la[~w.valid] = raw
-            layers = [flatten_layer(la, flatten_px) for la in layers]
         res = _score_layer(layers, windows, scales)
-        res["raw_background"] = raw
         label = "+".join(opt)
-        results.append((label, terms, res))
-    # a layer that shows few plants clearly is not better than one showing many a little
-    # less clearly: the separation is weighted by the share of the most candidates kept
-    most = max(r["candidates"] for _l, _t, r in results) or 1
-    rank = []
-    for i, (label, _terms, res) in enumerate(results):
-        res["separation"] *= (res["candidates"] / most) ** COUNT_WEIGHT
         scores[label] = round(res["separation"], 3)
-        # the first option is the plain vegetation index: kept unless another layer
-        # separates clearly better
-        rank.append(res["separation"] * (INDEX_PREFERENCE if i == 0 else 1.0))
-    best = results[int(np.argmax(rank))]
+        if best is None or res["separation"] > best[2]["separation"]:
+            best = (label, terms, res)
+    assert best is not None
     label, terms, res = best
     m, s = res["background"], res["spread"]
     return LayerChoice(
@@ -589,6 +451,4 @@ def choose_layer(
         near_share=res["near_share"],
         candidates=res["candidates"],
         scores=scores,
-        raw_background=res["raw_background"],
-        flatten_px=int(flatten_px),
     )

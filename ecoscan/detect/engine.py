@@ -8,7 +8,6 @@ raster pixel coordinates. No global state, so jobs can run anywhere.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -24,8 +23,6 @@ __all__ = [
     "TileJob",
     "base_layer",
     "compose_layer",
-    "flatten_layer",
-    "flatten_reach",
     "run_tile",
     "vegetation_layer",
 ]
@@ -91,11 +88,6 @@ class DetectorParams:
     #: calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
     #: data into the plant layer, used instead of :func:`vegetation_layer` when set
     layer_model: object = None
-    #: imagery: subtract the local background (:func:`flatten_layer`) with this structuring
-    #: size in pixels; 0 leaves the layer as it is
-    flatten_px: int = 0
-    #: imagery with ``flatten_px``: the value given to invalid pixels before flattening
-    raw_fill: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -190,64 +182,6 @@ def compose_layer(
     return out
 
 
-def flatten_reach(size_px: int) -> int:
-    """How far (pixels) :func:`flatten_layer` looks: the extra overlap tiles need.
-
-    Examples
-    --------
-    >>> flatten_reach(40)
-    66
-    """
-    if size_px <= 0:
-        return 0
-    return math.ceil(_PRE_BLUR * 4 + size_px + size_px / 2) + 2
-
-
-_PRE_BLUR = 1.0  # pixels: light smoothing before the opening, so noise minima do not set it
-
-
-def flatten_layer(layer: np.ndarray, size_px: int) -> np.ndarray:
-    """The layer minus its local background: a white top-hat with a smoothed opening.
-
-    The local background is the grey-level opening (erosion then dilation with a square of
-    ``size_px`` pixels; Serra, J. 1982, Image Analysis and Mathematical Morphology) of the
-    layer lightly smoothed, then averaged over the same square: bright structures narrower
-    than the square (crowns) are removed from it, while slow changes (vignetting,
-    illumination gradients, grass or soil patches wider than the square) stay in it and
-    are therefore taken out of the layer. Every value depends only on pixels within
-    :func:`flatten_reach` of it, so tiles with that much more overlap give the same result
-    as a whole image.
-
-    Parameters
-    ----------
-    layer : numpy.ndarray
-        2-D layer (invalid pixels already filled).
-    size_px : int
-        Side of the square, larger than the largest crown.
-
-    Returns
-    -------
-    numpy.ndarray
-        float32, same shape.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> ramp = np.tile(np.linspace(0, 10, 200, dtype=np.float32), (200, 1))
-    >>> ramp[95:105, 95:105] += 5          # a small bright patch on a gradient
-    >>> flat = flatten_layer(ramp, 40)
-    >>> bool(abs(flat[20, 20]) < 0.5 and abs(flat[20, 180]) < 0.5 and flat[100, 100] > 4)
-    True
-    """
-    from scipy import ndimage
-
-    img = np.asarray(layer, np.float32)
-    sm = ndimage.gaussian_filter(img, _PRE_BLUR, mode="nearest", truncate=4.0)
-    bg = ndimage.grey_opening(sm, size=(size_px, size_px), mode="nearest")
-    bg = ndimage.uniform_filter(bg, size=size_px, mode="nearest")
-    return img - bg
-
-
 def _crown_width_px(rule: str, pixel_size_m: float):
     a, b, c = CROWN_RULES[rule]
 
@@ -291,9 +225,6 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         else:
             layer = vegetation_layer(data, p.index)
         del data
-        if p.flatten_px:
-            layer[~valid] = p.raw_fill
-            layer = flatten_layer(layer, p.flatten_px)
         layer[~valid] = p.fill_value
         found = blobs.detect_blobs(
             layer,
