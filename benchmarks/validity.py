@@ -73,6 +73,7 @@ from scipy import stats as sps
 from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.change import _pooled_r, _row
 from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
+from ecoscan.detectable import NO_DEPARTURE
 from ecoscan.scales import ScalesSettings, kinds_verdict
 from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
@@ -574,11 +575,12 @@ _pair_entry(
     "compare",
     "groups",
     verdict=True,
-    note="groups.csv label of group B: 'random' unless the pooled-R z test rejects",
+    note="groups.csv label of group B: 'no departure detected' unless the pooled-R z test "
+    "rejects",
 )
 def p_group_pattern(data, polygon, rng):
     label = _pair(data, polygon, rng)["pattern_b"]
-    return float("nan") if not label else (1.0 if label == "random" else 0.0)
+    return float("nan") if not label else (1.0 if label == NO_DEPARTURE else 0.0)
 
 
 # -- compare --by date: the same plots on two dates, paired sign-flip tests over plots

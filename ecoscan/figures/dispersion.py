@@ -13,6 +13,7 @@ from matplotlib.patches import PathPatch
 from matplotlib.path import Path as MplPath
 from scipy import stats as sps
 
+from ecoscan.detectable import NO_DEPARTURE, TOO_FEW
 from ecoscan.figures import PALETTE, new_figure, save_figure
 from ecoscan.stats.nearest import CE_SE_CONSTANT
 
@@ -316,14 +317,19 @@ def r_against_n_figure(
     ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
     ax.text(30, 0.02, " 30 points", fontsize=9, color="#666666")
     labelled: set = set()
-    for key in ("clustered", "random", "regular"):
+    for key, style, face in (
+        ("clustered", "clustered", None),
+        (NO_DEPARTURE, "random", None),
+        (TOO_FEW, "random", "white"),
+        ("regular", "regular", None),
+    ):
         sel = [r for r in rows if r.get("verdict") == key and r.get("R") not in (None, "")]
         if sel:
             ax.scatter(
                 [float(r["n"]) for r in sel],
                 [float(r["R"]) for r in sel],
-                color=PALETTE[key],
-                marker={"clustered": "s", "random": "o", "regular": "D"}[key],
+                color=face or PALETTE[style],
+                marker={"clustered": "s", "random": "o", "regular": "D"}[style],
                 s=36,
                 label=f"{key} (Monte Carlo)",
                 zorder=3,
