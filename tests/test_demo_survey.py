@@ -24,8 +24,8 @@ DEMO = ROOT / "sample_rasters"
 BUILT_AS = {
     "rows": "regular",
     "regen": "clustered",
-    "scatter": "random",
-    "corner": "random",
+    "scatter": "no departure detected",
+    "corner": "no departure detected",
     "thinned": "regular",
     "thicket": "clustered",
 }

@@ -285,11 +285,8 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
             f" {verdict[:1].upper() + verdict[1:]}: {_MEANING[verdict]} (Monte Carlo p "
             f"{format_cell('p_mc', row.get('p_mc'))}, α = {alpha:g})."
         )
-    words = str(row.get("verdict_in_words") or "")
     reach = detectable_range_short(row)
-    if verdict in (NO_DEPARTURE, TOO_FEW) and "(" in words:
-        facts += f" The verdict in full: {words}."
-    elif reach:
+    if reach and verdict not in (NO_DEPARTURE, TOO_FEW):  # those say it in their sentence
         facts += f" With 80% power this plot could detect {reach}."
     pattern = str(row.get("pattern_in_metres") or "")
     pattern_html = ""
