@@ -49,8 +49,7 @@ def test_plot_rows_carry_a_short_verdict_and_a_sentence_with_the_numbers():
     lo, hi = row["detectable_clustered_R"], row["detectable_regular_R"]
     assert lo < TELL_LIMITS[0] or hi > TELL_LIMITS[1]
     assert row["verdict_in_words"] == (
-        f"too few plants to tell (this plot could only detect R below {lo:.2f} or above "
-        f"{hi:.2f})"
+        f"too few plants to tell (this plot could only detect R below {lo:.2f} or above {hi:.2f})"
     )
     # a significant verdict is stated alone, and a regular plot says how far apart plants keep
     j, i = np.mgrid[0:10, 0:10]
