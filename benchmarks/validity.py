@@ -70,6 +70,7 @@ import numpy as np
 import shapely
 from scipy import stats as sps
 
+from ecoscan import analysis
 from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.change import _pooled_r, _row
 from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
@@ -318,6 +319,11 @@ SHARED = _Shared()
 
 # -- analyse: one call of ecoscan.analysis.analyse_plot per replicate (the command's own
 #    function and defaults, except fewer simulations), its dispersion.csv row read back
+
+
+# A clustered plot's cluster description (a Thomas fit with a parametric bootstrap) changes
+# no p-value; its bootstrap is skipped here to keep the run short.
+analysis.CLUSTER_BOOTSTRAP = 0
 
 
 def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:

@@ -637,7 +637,9 @@ def analyse_plot(
         )
     qnull = quadrat_null(qd, s.simulations, rng=rng)
     qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
-    detectable = plot_detectable(polygon, n, alpha=s.alpha, seed=s.seed)
+    # the detectable range belongs to the plot's shape and plant count, not to the run: one
+    # fixed stream (seed 1, then the polygon and n), so every run and seed reads the same
+    detectable = plot_detectable(polygon, n, alpha=s.alpha)
     verdict = settle_verdict(_significant(mc, s.alpha), detectable)
     few_p = s.smallest_p if s.smallest_p >= s.alpha else 0.0
     res = PlotDispersion(
