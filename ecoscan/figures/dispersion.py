@@ -313,7 +313,16 @@ def r_against_n_figure(
     )
     ax.axhline(1, color="#7f7f7f", linewidth=0.8)
     ax.axhline(2.1491, color="#1f4e8c", linewidth=0.6, linestyle=":")
-    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=9, color="#1f4e8c")
+    # inside the axes: the legend stands to the right of them
+    ax.text(
+        0.99 * big,
+        2.1491,
+        "hexagonal 2.149 ",
+        ha="right",
+        va="bottom",
+        fontsize=9,
+        color="#1f4e8c",
+    )
     ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
     ax.text(30, 0.02, " 30 points", fontsize=9, color="#666666")
     labelled: set = set()
