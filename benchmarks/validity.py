@@ -53,6 +53,7 @@ Myllymäki et al. (2017) JRSS B 79: 381–404 (global envelopes); Thomas (1949) 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import csv
 import datetime as _dt
 import math
@@ -321,9 +322,16 @@ SHARED = _Shared()
 #    function and defaults, except fewer simulations), its dispersion.csv row read back
 
 
-# A clustered plot's cluster description (a Thomas fit with a parametric bootstrap) changes
-# no p-value; its bootstrap is skipped here to keep the run short.
-analysis.CLUSTER_BOOTSTRAP = 0
+@contextlib.contextmanager
+def _no_cluster_bootstrap():
+    """A clustered plot's cluster description (a Thomas fit with a parametric bootstrap)
+    changes no p-value: skip its bootstrap during one call, then restore the setting."""
+    old = analysis.CLUSTER_BOOTSTRAP
+    analysis.CLUSTER_BOOTSTRAP = 0
+    try:
+        yield
+    finally:
+        analysis.CLUSTER_BOOTSTRAP = old
 
 
 def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
@@ -333,7 +341,8 @@ def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
         settings = DispersionSettings(
             simulations=ANALYSE_SIMULATIONS, seed=int(rng.integers(2**31))
         )
-        return analyse_plot(xy, polygon, "plot", settings).row()
+        with _no_cluster_bootstrap():
+            return analyse_plot(xy, polygon, "plot", settings).row()
 
     return SHARED.get("dispersion", xy, compute)
 
