@@ -37,6 +37,7 @@ def test_cells_sampler_is_uniform_and_marks_the_inner_region():
     assert shapely.contains_xy(L_HOLE, xy[:, 0], xy[:, 1]).all()
     # focal marks equal a point-in-polygon test (shapely)
     np.testing.assert_array_equal(focal, shapely.contains_xy(inner, xy[:, 0], xy[:, 1]))
+
     # x coordinates follow the exact CDF A(polygon ∩ {x ≤ t}) / A, from shapely clipping:
     # Kolmogorov–Smirnov test (scipy)
     def cdf(t):
