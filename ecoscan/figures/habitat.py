@@ -1,0 +1,132 @@
+"""Figure of one plot's "why": fitted density map, clustering beyond it, size and spacing.
+
+Panels (those that were computed): the fitted plant density over the plot (plants per
+hectare, with the plants), the inhomogeneous L(r) − r with its global envelope from the
+fitted process, and the mark correlation function k_mm(r) with its random-permutation
+envelope. Envelope drawing and the clustered / regular symbols are those of the scales
+figure.
+"""
+
+from __future__ import annotations
+
+import os
+import textwrap
+from pathlib import Path
+
+import matplotlib.pyplot as plt
+import numpy as np
+
+from ecoscan.figures import FIGURE_DPI, save_figure
+from ecoscan.figures.scales import _panel, _shift
+
+__all__ = ["plot_habitat_figure"]
+
+
+def plot_habitat_figure(result, path: str | os.PathLike, xy: np.ndarray | None = None) -> Path | None:
+    """Draw one plot's habitat and size-spacing panels and save them as PNG.
+
+    Parameters
+    ----------
+    result : ecoscan.scales.PlotScales
+        The plot's result, with ``habitat`` set.
+    path : path-like
+        Destination PNG.
+    xy : numpy.ndarray, optional
+        The plants, metres (drawn on the density map).
+
+    Returns
+    -------
+    pathlib.Path or None
+        None when the plot has nothing to draw.
+    """
+    h = result.habitat
+    if h is None:
+        return None
+    panels = []
+    if h.intensity_grid is not None:
+        panels.append("map")
+    if h.test is not None:
+        panels.append("L")
+    if h.marks is not None:
+        panels.append("marks")
+    if not panels:
+        return None
+    fig, axes = plt.subplots(
+        1, len(panels), figsize=(4.6 * len(panels), 4.4), dpi=FIGURE_DPI, squeeze=False
+    )
+    for ax, kind in zip(axes.ravel(), panels, strict=True):
+        if kind == "map":
+            gx, gy, lam = h.intensity_grid
+            sc = _density_map(ax, gx, gy, lam * 1e4)
+            xy = h.xy_m if xy is None else xy
+            if xy is not None and len(xy):
+                ax.plot(xy[:, 0], xy[:, 1], "o", mfc="none", mec="black", ms=3, mew=0.6,
+                        label="plants")
+            ax.set_aspect("equal")
+            ax.set_xlabel("easting (m)")
+            ax.set_ylabel("northing (m)")
+            ax.ticklabel_format(useOffset=False, style="plain")
+            ax.tick_params(axis="x", labelrotation=30)
+            ax.set_title(textwrap.fill(f"fitted density: {h.model}", 48))
+            cb = fig.colorbar(sc, ax=ax, shrink=0.7)
+            cb.set_label("plants per ha")
+        elif kind == "L":
+            t = h.test
+            env = t.L
+            _panel(
+                ax,
+                t.r_m,
+                env.value - t.r_m,
+                np.zeros_like(t.r_m),
+                _shift(env, t.r_m),
+                "inhomogeneous L(r) − r (m)",
+                "beyond the fitted density",
+                1,
+                ("clustered beyond", "more even"),
+            )
+        else:
+            mk = h.marks
+            _panel(
+                ax,
+                mk.r_m,
+                mk.k_mm.value,
+                np.ones_like(mk.r_m),
+                mk.k_mm,
+                f"k_mm(r) of {mk.mark}",
+                "size and spacing",
+                1,
+                ("neighbours larger", "neighbours smaller"),
+            )
+    lines = [f"plot {result.plot_id}: why the pattern"]
+    for v in (h.verdict, h.marks_verdict):
+        if v:
+            lines.append(textwrap.fill(v, 110))
+    fig.suptitle("\n".join(lines))
+    # one legend for all panels, below them (never over a curve)
+    seen: dict[str, object] = {}
+    for ax in axes.ravel():
+        for hd, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+            seen.setdefault(lab, hd)
+    fig.tight_layout(rect=(0, 0.75 / fig.get_figheight(), 1, 1))
+    fig.legend(
+        list(seen.values()),
+        list(seen),
+        loc="lower center",
+        ncol=min(4, len(seen)),
+        frameon=False,
+    )
+    return save_figure(fig, path)
+
+
+def _density_map(ax, x: np.ndarray, y: np.ndarray, v: np.ndarray):
+    """Colour the plot by v at the quadrature's dummy points (a triangulated surface;
+    triangles longer than the grid spacing, across a concave corner or a hole, are left out)."""
+    import matplotlib.tri as mtri
+
+    tri = mtri.Triangulation(x, y)
+    ux = np.unique(np.round(x, 6))
+    step = float(np.median(np.diff(ux))) if ux.size > 1 else 1.0
+    p = np.column_stack([x, y])[tri.triangles]
+    edges = np.linalg.norm(p - np.roll(p, 1, axis=1), axis=2).max(axis=1)
+    tri.set_mask(edges > 2.0 * step)
+    return ax.tripcolor(tri, v, shading="gouraud", cmap="cividis")
