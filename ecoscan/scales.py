@@ -842,7 +842,11 @@ def kinds_verdict(res: CrossResult, alpha: float) -> str:
 
 
 def analyse_scales(
-    inputs: SurveyInputs, settings: ScalesSettings, *, points_label: str = "the points"
+    inputs: SurveyInputs,
+    settings: ScalesSettings,
+    *,
+    points_label: str = "the points",
+    notes: list[str] | None = None,
 ) -> list[PlotScales]:
     """The analysis across scales of every plot, in layer order.
 
@@ -853,6 +857,9 @@ def analyse_scales(
     settings : ScalesSettings
     points_label : str
         How to name the points' file in messages (e.g. its path).
+    notes : list of str, optional
+        When given, points without the mark column skip the size test with a note appended
+        here (a survey whose detectors measure different sizes); otherwise that is an error.
 
     Returns
     -------
@@ -896,12 +903,18 @@ def analyse_scales(
     marks_all = None
     if settings.mark is not None:
         attrs = inputs.points.attrs
-        if settings.mark not in attrs:
+        if settings.mark not in attrs and notes is not None:
+            notes.append(
+                f"{points_label} carry no {settings.mark!r} (columns: "
+                f"{', '.join(attrs) or 'none'}); the size and spacing test is skipped there"
+            )
+        elif settings.mark not in attrs:
             raise InputError(
                 f"{points_label} has no column {settings.mark!r} for the mark (columns: "
                 f"{', '.join(attrs) or 'none'}); check --mark"
             )
-        marks_all = attrs[settings.mark]
+        else:
+            marks_all = attrs[settings.mark]
     out = []
     xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
