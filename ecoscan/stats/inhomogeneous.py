@@ -361,6 +361,8 @@ def habitat_verdict(
     parts = []
     if clu:
         parts.append(f"clustering beyond what {explained_by} explains, {_span(long(clu))}")
+    elif clustered_without:
+        parts.append(f"clustering explained by {explained_by}")
     if reg:
         parts.append(f"more even spacing than {explained_by} implies, {_span(long(reg))}")
     if not parts:
