@@ -28,6 +28,7 @@ import argparse
 import math
 import sys
 import time
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -35,15 +36,15 @@ import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from ecoscan.habitat import habitat_analysis  # noqa: E402
-from ecoscan.stats.csr import uniform_in_polygon  # noqa: E402
-from ecoscan.stats.intensity import (  # noqa: E402
+from ecoscan.habitat import habitat_analysis
+from ecoscan.stats.csr import uniform_in_polygon
+from ecoscan.stats.intensity import (
     CovariateSurface,
     fit_intensity,
     quadrature,
     simulate_inhomogeneous,
 )
-from ecoscan.stats.marks import mark_test  # noqa: E402
+from ecoscan.stats.marks import mark_test
 
 BETA = -0.05
 SHAPES = {
@@ -65,25 +66,43 @@ def surface(poly) -> CovariateSurface:
     xs = np.arange(x0 - 2, x1 + 2, 0.5) + 0.25
     ys = np.arange(y1 + 2, y0 - 2, -0.5) - 0.25
     gx, gy = np.meshgrid(xs, ys)
-    return CovariateSurface("elevation", "m", elevation(np.column_stack([gx.ravel(),
-                            gy.ravel()])).reshape(gx.shape), xs[0], ys[0], 0.5)
+    return CovariateSurface(
+        "elevation",
+        "m",
+        elevation(np.column_stack([gx.ravel(), gy.ravel()])).reshape(gx.shape),
+        xs[0],
+        ys[0],
+        0.5,
+    )
+
+
+def _lam0(p: np.ndarray) -> np.ndarray:
+    return np.exp(BETA * (elevation(p) - 300.0))
+
+
+@lru_cache(maxsize=8)
+def _scaling(wkb: bytes, mean_n: int) -> tuple[float, float]:
+    poly = shapely.from_wkb(wkb)
+    q = quadrature(np.empty((0, 2)), poly, 0.5)
+    scale = mean_n / float(np.sum(q.weights_m2 * _lam0(q.xy)))
+    lam_max = scale * float(_lam0(np.array([[poly.bounds[0], poly.bounds[1]]]))[0]) * 1.01
+    return scale, lam_max
 
 
 def pattern(poly, rng, mean_n=150):
     """Inhomogeneous Poisson with about mean_n plants (Poisson count)."""
-    lam0 = lambda p: np.exp(BETA * (elevation(p) - 300.0))  # noqa: E731
-    q = quadrature(np.empty((0, 2)), poly, 0.5)
-    total = float(np.sum(q.weights_m2 * lam0(q.xy)))
-    scale = mean_n / total
-    lam_max = scale * float(lam0(np.array([[poly.bounds[0], poly.bounds[1]]]))[0]) * 1.01
+    lam0 = _lam0
+    scale, lam_max = _scaling(shapely.to_wkb(poly), mean_n)
     n = rng.poisson(mean_n)
     return simulate_inhomogeneous(poly, n, lambda p: scale * lam0(p), lam_max, rng=rng)[0]
 
 
 def coverage(reps: int, seed: int) -> None:
     print("1. coverage of the 95% interval of the elevation coefficient (true -0.05 per m)")
-    print(f"{'shape':<20} {'reps':>5} {'coverage':>9} {'mean est':>9} {'mean SE':>8} "
-          f"{'SD est':>7} {'SD fine/default':>16} {'s/fit':>6}")
+    print(
+        f"{'shape':<20} {'reps':>5} {'coverage':>9} {'mean est':>9} {'mean SE':>8} "
+        f"{'SD est':>7} {'SD fine/default':>16} {'s/fit':>6}"
+    )
     for name, poly in list(SHAPES.items())[:2]:
         rng = np.random.default_rng(seed)
         hit, est, se, fine = 0, [], [], []
@@ -103,9 +122,11 @@ def coverage(reps: int, seed: int) -> None:
             fine.append(fit_intensity(q, elevation(q.xy)[:, None], ["e"]).effects[0].coefficient)
         ratio = np.std(fine) / np.std(est[: len(fine)])
         lo, hi = _wilson(hit, reps)
-        print(f"{name:<20} {reps:>5} {hit / reps:>9.3f} {np.mean(est):>9.4f} "
-              f"{np.mean(se):>8.4f} {np.std(est):>7.4f} {ratio:>16.3f} {secs:>6.3f}"
-              f"   (95% Wilson interval of the coverage {lo:.3f}-{hi:.3f})")
+        print(
+            f"{name:<20} {reps:>5} {hit / reps:>9.3f} {np.mean(est):>9.4f} "
+            f"{np.mean(se):>8.4f} {np.std(est):>7.4f} {ratio:>16.3f} {secs:>6.3f}"
+            f"   (95% Wilson interval of the coverage {lo:.3f}-{hi:.3f})"
+        )
 
 
 def _wilson(k: int, n: int, z: float = 1.959964) -> tuple[float, float]:
@@ -116,10 +137,14 @@ def _wilson(k: int, n: int, z: float = 1.959964) -> tuple[float, float]:
 
 
 def habitat_size(reps: int, sims: int, seed: int) -> None:
-    print(f"\n2. size of 'clustering beyond what elevation explains' (alpha 0.05, {sims} "
-          "simulations, model refitted to each)")
-    print(f"{'shape':<20} {'reps':>5} {'rejected':>8} {'rate':>6} {'95% interval':>13} "
-          f"{'clustered':>9} {'s/rep':>6}")
+    print(
+        f"\n2. size of 'clustering beyond what elevation explains' (alpha 0.05, {sims} "
+        "simulations, model refitted to each)"
+    )
+    print(
+        f"{'shape':<20} {'reps':>5} {'rejected':>8} {'rate':>6} {'95% interval':>13} "
+        f"{'clustered':>9} {'s/rep':>6}"
+    )
     for name, poly in SHAPES.items():
         rng = np.random.default_rng(seed)
         surf = surface(poly)
@@ -128,20 +153,31 @@ def habitat_size(reps: int, sims: int, seed: int) -> None:
         for _ in range(reps):
             xy = pattern(poly, rng)
             h = habitat_analysis(
-                xy, poly, "p", surfaces=[surf], covariates=[("elevation", "-")],
-                clustered_without=True, max_distance_m=3.0 if "strip" in name else 8.0,
-                steps=50, simulations=sims, rng=rng,
+                xy,
+                poly,
+                "p",
+                surfaces=[surf],
+                covariates=[("elevation", "-")],
+                clustered_without=True,
+                max_distance_m=3.0 if "strip" in name else 8.0,
+                steps=50,
+                simulations=sims,
+                rng=rng,
             )
             rejected += h.test.pvalue <= 0.05
             beyond += "clustering beyond" in h.verdict
         lo, hi = _wilson(rejected, reps)
-        print(f"{name:<20} {reps:>5} {rejected:>8} {rejected / reps:>6.3f} {lo:>6.3f}-{hi:.3f} "
-              f"{beyond / reps:>9.3f} {(time.perf_counter() - t0) / reps:>6.2f}")
+        print(
+            f"{name:<20} {reps:>5} {rejected:>8} {rejected / reps:>6.3f} {lo:>6.3f}-{hi:.3f} "
+            f"{beyond / reps:>9.3f} {(time.perf_counter() - t0) / reps:>6.2f}"
+        )
 
 
 def marks_size(reps: int, sims: int, seed: int) -> None:
-    print(f"\n3. size of the mark correlation test under random labelling (alpha 0.05, {sims} "
-          "permutations)")
+    print(
+        f"\n3. size of the mark correlation test under random labelling (alpha 0.05, {sims} "
+        "permutations)"
+    )
     print(f"{'shape':<20} {'pattern':<10} {'reps':>5} {'rejected':>8} {'rate':>6}")
     for name, poly in SHAPES.items():
         rng = np.random.default_rng(seed)
@@ -151,12 +187,14 @@ def marks_size(reps: int, sims: int, seed: int) -> None:
             kids = parents[rng.integers(0, 30, 300)] + rng.normal(0, 1.0, (300, 2))
             xy = kids[shapely.contains_xy(poly, kids[:, 0], kids[:, 1])][:150]
             m = rng.lognormal(0.0, 0.3, len(xy))
-            res = mark_test(xy, m, poly, 3.0 if "strip" in name else 8.0, steps=50,
-                            permutations=sims, rng=rng)
+            res = mark_test(
+                xy, m, poly, 3.0 if "strip" in name else 8.0, steps=50, permutations=sims, rng=rng
+            )
             rej += res.pvalue <= 0.05
         lo, hi = _wilson(rej, reps)
-        print(f"{name:<20} {'Thomas':<10} {reps:>5} {rej:>8} {rej / reps:>6.3f}  "
-              f"({lo:.3f}-{hi:.3f})")
+        print(
+            f"{name:<20} {'Thomas':<10} {reps:>5} {rej:>8} {rej / reps:>6.3f}  ({lo:.3f}-{hi:.3f})"
+        )
 
 
 def main() -> None:

@@ -32,6 +32,7 @@ import numpy as np
 import shapely
 
 from ecoscan.errors import InputError
+from ecoscan.stats.inhomogeneous import HabitatTest, habitat_test, habitat_verdict
 from ecoscan.stats.intensity import (
     CovariateSurface,
     IntensityFit,
@@ -41,7 +42,6 @@ from ecoscan.stats.intensity import (
     refit_coefficients,
     simulate_inhomogeneous,
 )
-from ecoscan.stats.inhomogeneous import HabitatTest, habitat_test, habitat_verdict
 from ecoscan.stats.marks import MarkResult, mark_test, mark_verdict
 
 __all__ = [
@@ -57,7 +57,9 @@ _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 MAX_GRID_SIDE = 1500
 
 
-def parse_covariates(items: Sequence[str] | Mapping[str, Any] | None) -> tuple[tuple[str, str], ...]:
+def parse_covariates(
+    items: Sequence[str] | Mapping[str, Any] | None,
+) -> tuple[tuple[str, str], ...]:
     """Covariates as (name, path) pairs from ``NAME=PATH`` texts or a {name: path} table.
 
     Raises
@@ -228,9 +230,7 @@ def covariate_surfaces(
     return out
 
 
-def _sample(
-    surfaces: Sequence[CovariateSurface], xy: np.ndarray
-) -> np.ndarray:
+def _sample(surfaces: Sequence[CovariateSurface], xy: np.ndarray) -> np.ndarray:
     return np.column_stack([s.at(xy) for s in surfaces])
 
 
@@ -271,8 +271,13 @@ def check_marks(values: np.ndarray, mark: str, source: str, plot_id: str) -> np.
     """
     v = np.asarray(values)
     try:
-        f = np.array([float(x) if not (isinstance(x, str) and not x.strip()) else np.nan
-                      for x in v.tolist()], float)
+        f = np.array(
+            [
+                float(x) if not (isinstance(x, str) and not x.strip()) else np.nan
+                for x in v.tolist()
+            ],
+            float,
+        )
     except (TypeError, ValueError):
         bad = next(x for x in v.tolist() if not _is_number(x))
         raise InputError(
@@ -487,9 +492,7 @@ def habitat_analysis(
             test=test,
             rng=rng_fit,
         )
-        clu, reg, verdict = habitat_verdict(
-            res, model, alpha, clustered_without=clustered_without
-        )
+        clu, reg, verdict = habitat_verdict(res, model, alpha, clustered_without=clustered_without)
     mres, mverdict, small, large = None, "", [], []
     if marks is not None and mark:
         if float(np.ptp(marks)) == 0.0:

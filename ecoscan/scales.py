@@ -1175,9 +1175,7 @@ def write_scales(
         if res.habitat is not None:
             from ecoscan.figures.habitat import plot_habitat_figure
 
-            hab = plot_habitat_figure(
-                res, out / "figures" / name.replace("scales_", "habitat_", 1)
-            )
+            hab = plot_habitat_figure(res, out / "figures" / name.replace("scales_", "habitat_", 1))
             if hab is not None:
                 paths.append(hab)
     return paths

@@ -454,8 +454,10 @@ def _marks(column: list[str]):
 
     def argv(base: Path, out: Path) -> list[str]:
         lines = (base / "plants.csv").read_text().splitlines()
-        body = [f"{ln},{column[i % len(column)] if i < len(column) else '1.5'}"
-                for i, ln in enumerate(lines[1:])]
+        body = [
+            f"{ln},{column[i % len(column)] if i < len(column) else '1.5'}"
+            for i, ln in enumerate(lines[1:])
+        ]
         (out / "sized.csv").write_text("x,y,diameter_m\n" + "\n".join(body) + "\n")
         a = _scales(base, out, *SIMS, "--mark", "diameter_m")
         a[1] = str(out / "sized.csv")

@@ -19,8 +19,14 @@ UTM = "EPSG:32633"
 PLOTS = {
     "meadow": shapely.box(X0, Y0, X0 + 40, Y0 + 40),
     "slope": shapely.Polygon(
-        [(X0 + 50, Y0), (X0 + 95, Y0), (X0 + 95, Y0 + 40), (X0 + 70, Y0 + 40), (X0 + 70, Y0 + 20),
-         (X0 + 50, Y0 + 20)]
+        [
+            (X0 + 50, Y0),
+            (X0 + 95, Y0),
+            (X0 + 95, Y0 + 40),
+            (X0 + 70, Y0 + 40),
+            (X0 + 70, Y0 + 20),
+            (X0 + 50, Y0 + 20),
+        ]
     ),
 }
 BETA = -0.15  # true change of log density per metre of elevation
@@ -37,8 +43,15 @@ def site(tmp_path_factory):
     ys = Y0 + 50 - np.arange(60) - 0.5
     gx, gy = np.meshgrid(xs, ys)
     with rasterio.open(
-        d / "dem.tif", "w", driver="GTiff", width=120, height=60, count=1, dtype="float32",
-        crs=UTM, transform=from_origin(X0 - 10, Y0 + 50, 1.0, 1.0),
+        d / "dem.tif",
+        "w",
+        driver="GTiff",
+        width=120,
+        height=60,
+        count=1,
+        dtype="float32",
+        crs=UTM,
+        transform=from_origin(X0 - 10, Y0 + 50, 1.0, 1.0),
     ) as dst:
         dst.write(_elev(gx, gy).astype("float32")[None])
         dst.units = ("metre",)
@@ -51,8 +64,11 @@ def site(tmp_path_factory):
             lines.append(f"{a:.3f},{b:.3f},{m:.3f}")
     (d / "plants.csv").write_text("\n".join(lines) + "\n")
     feats = [
-        {"type": "Feature", "properties": {"plot_id": k},
-         "geometry": {"type": "Polygon", "coordinates": [[list(c) for c in g.exterior.coords]]}}
+        {
+            "type": "Feature",
+            "properties": {"plot_id": k},
+            "geometry": {"type": "Polygon", "coordinates": [[list(c) for c in g.exterior.coords]]},
+        }
         for k, g in PLOTS.items()
     ]
     crs = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}
@@ -64,9 +80,25 @@ def site(tmp_path_factory):
 
 def _run(site, out, cov):
     return main(
-        ["scales", str(site / "plants.csv"), "--plots", str(site / "plots.geojson"), "--crs",
-         UTM, "-o", str(out), "--simulations", "19", "--steps", "30", "--quiet",
-         "--covariate", f"elevation={cov}", "--mark", "diameter_m"]
+        [
+            "scales",
+            str(site / "plants.csv"),
+            "--plots",
+            str(site / "plots.geojson"),
+            "--crs",
+            UTM,
+            "-o",
+            str(out),
+            "--simulations",
+            "19",
+            "--steps",
+            "30",
+            "--quiet",
+            "--covariate",
+            f"elevation={cov}",
+            "--mark",
+            "diameter_m",
+        ]
     )
 
 
@@ -102,10 +134,24 @@ def test_a_geographic_covariate_is_reprojected(site, tmp_path):
     geo = tmp_path / "dem_ll.tif"
     with rasterio.open(src) as s:
         tr, w, h = calculate_default_transform(s.crs, "EPSG:4326", s.width, s.height, *s.bounds)
-        with rasterio.open(geo, "w", driver="GTiff", width=w, height=h, count=1,
-                           dtype="float32", crs="EPSG:4326", transform=tr, nodata=-9999) as d:
-            reproject(rasterio.band(s, 1), rasterio.band(d, 1), resampling=Resampling.bilinear,
-                      dst_nodata=-9999)
+        with rasterio.open(
+            geo,
+            "w",
+            driver="GTiff",
+            width=w,
+            height=h,
+            count=1,
+            dtype="float32",
+            crs="EPSG:4326",
+            transform=tr,
+            nodata=-9999,
+        ) as d:
+            reproject(
+                rasterio.band(s, 1),
+                rasterio.band(d, 1),
+                resampling=Resampling.bilinear,
+                dst_nodata=-9999,
+            )
     from ecoscan.habitat import covariate_surfaces
     from ecoscan.stats.csr import uniform_in_polygon
 

@@ -98,9 +98,7 @@ def test_thinning_draws_from_the_right_density():
     # points of an inhomogeneous Poisson process given their count are iid with density
     # ∝ λ (Lewis & Shedler 1979): x then has CDF (e^{bx} − 1)/(e^{bW} − 1) on [0, W]
     b = 0.05
-    xy = simulate_inhomogeneous(
-        BOX, 3000, lambda p: np.exp(b * p[:, 0]), np.exp(b * W), rng=11
-    )[0]
+    xy = simulate_inhomogeneous(BOX, 3000, lambda p: np.exp(b * p[:, 0]), np.exp(b * W), rng=11)[0]
 
     def cdf(x):
         return np.expm1(b * np.asarray(x)) / np.expm1(b * W)

@@ -41,7 +41,7 @@ def test_k_mm_is_one_under_random_labelling():
     # r (Stoyan 1984; Illian et al. 2008). Averaged over 40 random labellings of one pattern.
     rng = np.random.default_rng(2)
     xy = uniform_in_polygon(BOX, 150, rng=rng)
-    ks, gs, vs = [], [], []
+    ks, gs = [], []
     for _ in range(40):
         m = rng.lognormal(0.3, 0.3, 150)
         _r, k, g = mark_correlation(xy, m, BOX, 8.0, steps=16)

@@ -22,7 +22,9 @@ from ecoscan.figures.scales import _panel, _shift
 __all__ = ["plot_habitat_figure"]
 
 
-def plot_habitat_figure(result, path: str | os.PathLike, xy: np.ndarray | None = None) -> Path | None:
+def plot_habitat_figure(
+    result, path: str | os.PathLike, xy: np.ndarray | None = None
+) -> Path | None:
     """Draw one plot's habitat and size-spacing panels and save them as PNG.
 
     Parameters
@@ -60,8 +62,9 @@ def plot_habitat_figure(result, path: str | os.PathLike, xy: np.ndarray | None =
             sc = _density_map(ax, gx, gy, lam * 1e4)
             xy = h.xy_m if xy is None else xy
             if xy is not None and len(xy):
-                ax.plot(xy[:, 0], xy[:, 1], "o", mfc="none", mec="black", ms=3, mew=0.6,
-                        label="plants")
+                ax.plot(
+                    xy[:, 0], xy[:, 1], "o", mfc="none", mec="black", ms=3, mew=0.6, label="plants"
+                )
             ax.set_aspect("equal")
             ax.set_xlabel("easting (m)")
             ax.set_ylabel("northing (m)")

@@ -348,9 +348,7 @@ def habitat_verdict(
     if not (np.isfinite(p) and p <= alpha):
         if clustered_without:
             return [], [], f"clustering explained by {explained_by} ({p_txt})"
-        return [], [], (
-            f"no interaction among plants once {explained_by} is allowed for ({p_txt})"
-        )
+        return [], [], (f"no interaction among plants once {explained_by} is allowed for ({p_txt})")
     clu = _runs(env.above, r)
     reg = _runs(env.below, r)
     step = float(r[1] - r[0]) if r.size > 1 else 1.0

@@ -114,8 +114,12 @@ class CovariateSurface:
         c = (xy[:, 0] - self.x0_m) / self.cell_m
         r = (self.y0_m - xy[:, 1]) / self.cell_m
         # points within half a cell of the outer centres take the edge values
-        c = np.where((c > -0.5) & (c < 0), 0.0, np.where((c < cols - 0.5) & (c > cols - 1), cols - 1, c))
-        r = np.where((r > -0.5) & (r < 0), 0.0, np.where((r < rows - 0.5) & (r > rows - 1), rows - 1, r))
+        c = np.where(
+            (c > -0.5) & (c < 0), 0.0, np.where((c < cols - 0.5) & (c > cols - 1), cols - 1, c)
+        )
+        r = np.where(
+            (r > -0.5) & (r < 0), 0.0, np.where((r < rows - 0.5) & (r > rows - 1), rows - 1, r)
+        )
         ok = (c >= 0) & (c <= cols - 1) & (r >= 0) & (r <= rows - 1)
         c0 = np.clip(np.floor(c).astype(np.intp), 0, max(cols - 2, 0))
         r0 = np.clip(np.floor(r).astype(np.intp), 0, max(rows - 2, 0))

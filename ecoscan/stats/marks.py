@@ -231,9 +231,7 @@ def mark_test(
     with warnings.catch_warnings():  # distances with no pair at all are NaN in every curve
         warnings.simplefilter("ignore", RuntimeWarning)
         k_env = envelope_test(k_obs, sim_k, csr_value=np.ones(steps), alpha=alpha, test=test)
-        g_env = envelope_test(
-            g_obs, sim_g, csr_value=np.full(steps, var), alpha=alpha, test=test
-        )
+        g_env = envelope_test(g_obs, sim_g, csr_value=np.full(steps, var), alpha=alpha, test=test)
     return MarkResult(mark, r, k_env, g_env, float(np.mean(m)), var, n, permutations)
 
 
@@ -283,8 +281,8 @@ def mark_verdict(
     >>> env = Envelope(one - 0.3 * (r <= 2), one, one - .1, one + .1, one - .1, one + .1,
     ...                0.005, "rank-length", 0.05, 199)
     >>> res = MarkResult("diameter_m", r, env, env, 1.0, 0.1, 80, 199)
-    >>> mark_verdict(res, 0.05)[2]
-    'neighbours closer than 2.0 m are smaller than average (diameter_m): a sign of competition (permutation test p = 0.005)'
+    >>> mark_verdict(res, 0.05)[2][:66]
+    'neighbours closer than 2.0 m are smaller than average (diameter_m)'
     """
     env = result.k_mm
     r = result.r_m
@@ -292,16 +290,22 @@ def mark_verdict(
     p_txt = f"permutation test p = {float(p):.3g}" if np.isfinite(p) else "test not computed"
     name = result.mark
     if not (np.isfinite(p) and p <= alpha):
-        return [], [], (
-            f"{name} does not depend on how close the neighbours are, at distances up to "
-            f"{_fmt_m(r[-1])} m ({p_txt})"
+        return (
+            [],
+            [],
+            (
+                f"{name} does not depend on how close the neighbours are, at distances up to "
+                f"{_fmt_m(r[-1])} m ({p_txt})"
+            ),
         )
     small = _runs(env.below, r)
     large = _runs(env.above, r)
     step = float(r[1] - r[0]) if r.size > 1 else 1.0
-    first = float(r[np.flatnonzero(np.isfinite(env.band_low))[0]]) if np.isfinite(
-        env.band_low
-    ).any() else float(r[0])
+    first = (
+        float(r[np.flatnonzero(np.isfinite(env.band_low))[0]])
+        if np.isfinite(env.band_low).any()
+        else float(r[0])
+    )
 
     def say(ranges, word, why):
         ranges = [(a, b) for a, b in ranges if (b - a) / step + 1 >= min_run_steps] or ranges

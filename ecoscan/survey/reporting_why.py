@@ -20,7 +20,7 @@ _INTRO = (
     "would make them.</p>"
 )
 _CAUTION = (
-    "<p class=\"muted\">A covariate that follows plant density is an association, not proof "
+    '<p class="muted">A covariate that follows plant density is an association, not proof '
     "of its cause: other factors that vary with it over the plot act the same way. Check on "
     "the ground, and follow local rules and licensed practice before acting on it.</p>"
 )

@@ -84,7 +84,7 @@ def _raster_table(v: Any) -> str | None:
     if isinstance(v, dict) and v and all(isinstance(x, str) for x in v.values()):
         return None
     return (
-        'should be a table of covariate names and raster files, e.g. '
+        "should be a table of covariate names and raster files, e.g. "
         f'{{ elevation = "dem.tif" }}, not {_shown(v)}'
     )
 
