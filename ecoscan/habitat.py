@@ -470,7 +470,7 @@ def habitat_analysis(
         tree = cKDTree(grid.dummy_xy)
 
         def fit_pattern(p: np.ndarray) -> np.ndarray:
-            return kernel_intensity(p, grid.with_points(p), bw).at_points
+            return kernel_intensity(p, grid.with_points(p), bw, points_only=True).at_points
 
         def lam_fn(p: np.ndarray) -> np.ndarray:
             return lam_dummy[tree.query(p)[1]]

@@ -113,3 +113,26 @@ def test_clusters_on_top_of_habitat_are_found_beyond_it():
     for h in res:
         assert h.verdict.startswith("clustering beyond what elevation explains")
         assert h.clustered_ranges_m and h.clustered_ranges_m[0][0] < 2.0
+
+
+def test_kernel_density_route_names_its_bandwidth():
+    # without covariates the density is a kernel estimate (Scott's rule bandwidth, Scott
+    # 1992, from memory); tight groups (σ = 0.5 m) far below that bandwidth stay "beyond"
+    rng = np.random.default_rng(12)
+    parents = uniform_in_polygon(BOX, 20, rng=rng)
+    kids = parents[rng.integers(0, 20, 160)] + rng.normal(0, 0.5, (160, 2))
+    xy = kids[shapely.contains_xy(BOX, kids[:, 0], kids[:, 1])]
+    h = habitat_analysis(
+        xy,
+        BOX,
+        "k",
+        kernel=True,
+        clustered_without=True,
+        max_distance_m=4.0,
+        steps=20,
+        simulations=19,
+        rng=rng,
+    )
+    assert h.model.startswith("the smoothed density (kernel bandwidth")
+    assert h.kernel_bandwidth_m > 3.0 and h.fit is None
+    assert h.verdict.startswith("clustering beyond what the smoothed density")

@@ -138,6 +138,7 @@ def test_kernel_intensity_recovers_a_known_gradient():
     assert h == pytest.approx(np.mean(np.std(xy, axis=0, ddof=1)) * len(xy) ** (-1 / 6))
     q = quadrature(xy, BOX, 1.0)
     ki = kernel_intensity(xy, q)
+    assert np.allclose(kernel_intensity(xy, q, h, points_only=True).at_points, ki.at_points)
     true = np.exp(np.log(0.05) + 0.04 * q.xy[len(xy) :, 0])
     # the smoothed density follows the true one (correlation) and is edge-corrected
     # (Diggle 1985): its mean over the plot is close to n / A

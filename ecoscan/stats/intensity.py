@@ -704,7 +704,11 @@ def _gauss_sum(src: np.ndarray, wts: np.ndarray, dst: np.ndarray, h: float) -> n
 
 
 def kernel_intensity(
-    xy: np.ndarray, quad: Quadrature, bandwidth_m: float | None = None
+    xy: np.ndarray,
+    quad: Quadrature,
+    bandwidth_m: float | None = None,
+    *,
+    points_only: bool = False,
 ) -> KernelIntensity:
     """Gaussian kernel intensity with Diggle's edge correction.
 
@@ -716,6 +720,9 @@ def kernel_intensity(
         Quadrature of the plot (its grid gives the edge correction ∫_W k_h(u − v) dv).
     bandwidth_m : float, optional
         Kernel standard deviation; default :func:`kernel_bandwidth`.
+    points_only : bool
+        Compute λ̂ only at the plants (``at_quadrature`` is then empty): the edge correction
+        is then needed only there, which is what refitting to many simulated patterns needs.
 
     Returns
     -------
@@ -740,8 +747,12 @@ def kernel_intensity(
         rule = "Scott's rule, h = mean coordinate standard deviation x n^(-1/6)"
     h = float(bandwidth_m)
     ones = np.ones(xy.shape[0])
+    self_k = 1.0 / (2 * np.pi * h**2)
+    if points_only:
+        edge_p = _gauss_sum(quad.xy, quad.weights_m2, xy, h)
+        at_p = (_gauss_sum(xy, ones, xy, h) - self_k) / np.maximum(edge_p, 1e-12)
+        return KernelIntensity(h, np.maximum(at_p, 1e-12), np.empty(0), rule)
     edge = _gauss_sum(quad.xy, quad.weights_m2, quad.xy, h)
     at_q = _gauss_sum(xy, ones, quad.xy, h) / np.maximum(edge, 1e-12)
-    self_k = 1.0 / (2 * np.pi * h**2)
     at_p = (_gauss_sum(xy, ones, xy, h) - self_k) / np.maximum(edge[: xy.shape[0]], 1e-12)
     return KernelIntensity(h, np.maximum(at_p, 1e-12), at_q, rule)

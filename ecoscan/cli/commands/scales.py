@@ -28,7 +28,10 @@ DESCRIPTION = (
     "them with simulations of complete spatial randomness in the same polygon, and say at\n"
     "which distances the plants are significantly clustered or regular. With --kind-field and\n"
     "--kinds, also test whether one kind of plant (e.g. dead) is placed like a random subset\n"
-    "of all plants. Automated counts need field checks before any management decision."
+    "of all plants. With --covariate NAME=RASTER, fit plant density to habitat rasters and\n"
+    "say whether the clustering is explained by them or goes beyond them; with --mark COLUMN,\n"
+    "whether close neighbours are smaller or larger than average (docs/methods-covariates.md).\n"
+    "Automated counts need field checks before any management decision."
 )
 EXAMPLE = (
     "ecoscan scales points.csv --plots plots.gpkg -o results/scales --simulations 199 "
