@@ -126,9 +126,11 @@ def _density_map(ax, x: np.ndarray, y: np.ndarray, v: np.ndarray):
     triangles longer than the grid spacing, across a concave corner or a hole, are left out)."""
     import matplotlib.tri as mtri
 
+    from scipy.spatial import cKDTree
+
     tri = mtri.Triangulation(x, y)
-    ux = np.unique(np.round(x, 6))
-    step = float(np.median(np.diff(ux))) if ux.size > 1 else 1.0
+    pts = np.column_stack([x, y])
+    step = float(np.median(cKDTree(pts).query(pts, k=2)[0][:, 1])) if len(pts) > 2 else 1.0
     p = np.column_stack([x, y])[tri.triangles]
     edges = np.linalg.norm(p - np.roll(p, 1, axis=1), axis=2).max(axis=1)
     tri.set_mask(edges > 2.0 * step)
