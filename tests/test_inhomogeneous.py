@@ -82,7 +82,8 @@ def test_known_effect_is_explained_and_rarely_called_beyond():
     # the fitted effect has the right sign and the verdict, at α = 0.05, only rarely says
     # "beyond". 16 patterns with 39 simulations: 4 or more rejections has probability 0.007
     # when the test holds its level (binomial), so this fails if the test is badly
-    # anti-conservative (e.g. when the intensity is not refitted to each simulation).
+    # anti-conservative. The 200-pattern size in three shapes is measured by
+    # benchmarks/covariate_coverage.py.
     _surf, lam = _elevation(L_PLOT)
     lam_max = float(lam(np.array([[0.0, 0.0]]))[0])
 
