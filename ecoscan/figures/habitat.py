@@ -53,10 +53,15 @@ def plot_habitat_figure(
         panels.append("marks")
     if not panels:
         return None
+    # at most 10 inches wide (960 px at 96 dpi): the report shows figures at natural size
+    ncol = min(2, len(panels))
+    nrow = int(np.ceil(len(panels) / ncol))
     fig, axes = plt.subplots(
-        1, len(panels), figsize=(4.6 * len(panels), 4.4), dpi=FIGURE_DPI, squeeze=False
+        nrow, ncol, figsize=(5.0 * ncol, 3.7 * nrow + 1.5), dpi=FIGURE_DPI, squeeze=False
     )
-    for ax, kind in zip(axes.ravel(), panels, strict=True):
+    for ax in axes.ravel()[len(panels) :]:
+        ax.set_visible(False)
+    for ax, kind in zip(axes.ravel(), panels, strict=False):
         if kind == "map":
             gx, gy, lam = h.intensity_grid
             sc = _density_map(ax, gx, gy, lam * 1e4)
@@ -103,21 +108,34 @@ def plot_habitat_figure(
     lines = [f"plot {result.plot_id}: why the pattern"]
     for v in (h.verdict, h.marks_verdict):
         if v:
-            lines.append(textwrap.fill(v, 110))
+            lines.append(textwrap.fill(v, 95))
     fig.suptitle("\n".join(lines))
     # one legend for all panels, below them (never over a curve)
     seen: dict[str, object] = {}
     for ax in axes.ravel():
         for hd, lab in zip(*ax.get_legend_handles_labels(), strict=True):
             seen.setdefault(lab, hd)
-    fig.tight_layout(rect=(0, 0.75 / fig.get_figheight(), 1, 1))
-    fig.legend(
-        list(seen.values()),
-        list(seen),
-        loc="lower center",
-        ncol=min(4, len(seen)),
-        frameon=False,
-    )
+    spare = axes.ravel()[len(panels) :]
+    if len(spare):  # the legend goes in the empty cell
+        fig.tight_layout()
+        box = spare[0].get_position()
+        fig.legend(
+            list(seen.values()),
+            list(seen),
+            loc="center",
+            bbox_to_anchor=(box.x0 + box.width / 2, box.y0 + box.height / 2),
+            ncol=1,
+            frameon=False,
+        )
+    else:
+        fig.tight_layout(rect=(0, 0.75 / fig.get_figheight(), 1, 1))
+        fig.legend(
+            list(seen.values()),
+            list(seen),
+            loc="lower center",
+            ncol=min(4, len(seen)),
+            frameon=False,
+        )
     return save_figure(fig, path)
 
 
