@@ -143,7 +143,6 @@ def _density_map(ax, x: np.ndarray, y: np.ndarray, v: np.ndarray):
     """Colour the plot by v at the quadrature's dummy points (a triangulated surface;
     triangles longer than the grid spacing, across a concave corner or a hole, are left out)."""
     import matplotlib.tri as mtri
-
     from scipy.spatial import cKDTree
 
     tri = mtri.Triangulation(x, y)
