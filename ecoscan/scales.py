@@ -294,6 +294,8 @@ class PlotScales:
     kinds_verdict : str
     alpha : float
         Level of the envelopes and tests.
+    habitat : ecoscan.habitat.PlotHabitat or None
+        The covariate model, the test beyond it and the size test, when asked for.
     """
 
     plot_id: str
