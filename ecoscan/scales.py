@@ -112,6 +112,9 @@ class ScalesSettings:
         Without covariates, test clustering beyond a kernel-smoothed density.
     mark : str or None
         Numeric point column (e.g. ``diameter_m``) for the mark correlation test.
+    habitat_simulations : int or None
+        Simulated patterns of the fitted density model, and permutations of the marks, per
+        plot; None for ``simulations``.
     """
 
     simulations: int = 199
@@ -128,6 +131,7 @@ class ScalesSettings:
     covariates: tuple[tuple[str, str], ...] = ()
     kernel_intensity: bool = False
     mark: str | None = None
+    habitat_simulations: int | None = None
 
     def __post_init__(self) -> None:
         _check(isinstance(self.simulations, int), "simulations must be a whole number")
@@ -171,6 +175,15 @@ class ScalesSettings:
             )
             _check(self.kind_field is not None, "kinds were given without the kind field")
         _check(
+            self.habitat_simulations is None
+            or (
+                isinstance(self.habitat_simulations, int)
+                and self.habitat_simulations >= need
+            ),
+            f"habitat_simulations = {self.habitat_simulations} is too few for alpha = "
+            f"{self.alpha}; use at least {need} (99 or more is usual)",
+        )
+        _check(
             isinstance(self.kernel_intensity, bool),
             "kernel_intensity must be true or false",
         )
@@ -209,8 +222,8 @@ class ScalesSettings:
                 kw["kinds"] = tuple(
                     s.strip() for s in (k.split(",") if isinstance(k, str) else map(str, k))
                 )
-            for key in ("simulations", "seed", "steps", "min_points"):
-                if key in kw and not isinstance(kw[key], bool):
+            for key in ("simulations", "seed", "steps", "min_points", "habitat_simulations"):
+                if kw.get(key) is not None and not isinstance(kw[key], bool):
                     v = kw[key]
                     if isinstance(v, float) and v != int(v):
                         raise InputError(f"{key} must be a whole number, not {v}")
@@ -723,7 +736,7 @@ def analyse_plot(
             clustered_without=bool(clu),
             max_distance_m=max_distance,
             steps=settings.steps,
-            simulations=settings.simulations,
+            simulations=settings.habitat_simulations or settings.simulations,
             alpha=settings.alpha,
             test=test,
             # its own streams, so that the results above do not change when it is asked for

@@ -46,6 +46,7 @@ seed = 2026
 enabled = true
 simulations = 199
 mark = "diameter_m"             # does a plant's size depend on how close its neighbours are?
+habitat_simulations = 99        # for the covariate and size tests (keeps the demo quick)
 [scales.covariates]             # habitat rasters: is the clustering explained by them?
 elevation = "elevation.tif"
 

@@ -140,15 +140,27 @@ def plot_habitat_figure(
 
 
 def _density_map(ax, x: np.ndarray, y: np.ndarray, v: np.ndarray):
-    """Colour the plot by v at the quadrature's dummy points (a triangulated surface;
-    triangles longer than the grid spacing, across a concave corner or a hole, are left out)."""
-    import matplotlib.tri as mtri
+    """Colour the plot by v at the quadrature's dummy points, one grid cell each (the dummy
+    points sit on a regular grid; the few moved onto the plot at its edge take the nearest
+    cell)."""
     from scipy.spatial import cKDTree
 
-    tri = mtri.Triangulation(x, y)
     pts = np.column_stack([x, y])
     step = float(np.median(cKDTree(pts).query(pts, k=2)[0][:, 1])) if len(pts) > 2 else 1.0
-    p = np.column_stack([x, y])[tri.triangles]
-    edges = np.linalg.norm(p - np.roll(p, 1, axis=1), axis=2).max(axis=1)
-    tri.set_mask(edges > 2.0 * step)
-    return ax.tripcolor(tri, v, shading="gouraud", cmap="cividis")
+    ix = np.round((x - x.min()) / step).astype(int)
+    iy = np.round((y.max() - y) / step).astype(int)
+    grid = np.full((iy.max() + 1, ix.max() + 1), np.nan)
+    grid[iy, ix] = v
+    h = step / 2
+    return ax.imshow(
+        grid,
+        extent=(
+            x.min() - h,
+            x.min() + step * ix.max() + h,
+            y.max() - step * iy.max() - h,
+            y.max() + h,
+        ),
+        origin="upper",
+        cmap="cividis",
+        interpolation="nearest",
+    )

@@ -154,6 +154,7 @@ RULES: dict[str, dict[str, Check]] = {
         "covariates": _raster_table,
         "kernel_intensity": _flag,
         "mark": _text,
+        "habitat_simulations": _SIMULATIONS,
     },
     "change": {"enabled": _flag, "tolerance_m": _positive, "estimate_shift": _flag},
     "compare": {"enabled": _flag, "by": _text, "permutations": _SIMULATIONS},

@@ -99,6 +99,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "(bandwidth by Scott's rule)",
     )
     p.add_argument(
+        "--habitat-simulations",
+        type=int,
+        metavar="N",
+        help="simulations of the fitted density model and permutations of the marks per plot "
+        "(default: --simulations)",
+    )
+    p.add_argument(
         "--mark",
         metavar="COLUMN",
         help="numeric point column such as diameter_m or height_m: does a plant's size depend "
@@ -126,6 +133,7 @@ def run(args: argparse.Namespace) -> int:
             "covariates": args.covariate or (),
             "kernel_intensity": bool(args.kernel_intensity),
             "mark": args.mark,
+            "habitat_simulations": args.habitat_simulations,
         }
     )
     if settings.kinds is not None and len(settings.kinds) != 2:
