@@ -176,10 +176,7 @@ class ScalesSettings:
             _check(self.kind_field is not None, "kinds were given without the kind field")
         _check(
             self.habitat_simulations is None
-            or (
-                isinstance(self.habitat_simulations, int)
-                and self.habitat_simulations >= need
-            ),
+            or (isinstance(self.habitat_simulations, int) and self.habitat_simulations >= need),
             f"habitat_simulations = {self.habitat_simulations} is too few for alpha = "
             f"{self.alpha}; use at least {need} (99 or more is usual)",
         )
