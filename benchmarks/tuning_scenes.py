@@ -16,7 +16,12 @@ Styles: ``mixed`` (all colours on soil), ``grass`` (pale green-grey grass patche
 darker shrubs), ``pasture`` (dark crowns on green grass), ``clumps`` (touching pairs and
 triples of similar size), ``nir`` (four bands, uint16, blue-green-red-NIR), ``canopy``
 (crowns of several greens packed edge to edge over dark shaded ground), ``coarse``
-(``mixed`` averaged over 3 × 3 pixels: 0.15 m pixels, smallest crowns 4 pixels).
+(``mixed`` averaged over 3 × 3 pixels: 0.15 m pixels, smallest crowns 4 pixels),
+``conifers`` (near-black crowns with coarse, high-contrast needle texture and long shadows
+on pasture with wide straw-coloured patches), ``stand`` (overlapping crowns of very
+different sizes covering most of dark ground: centres outside each other's crowns by
+half the smaller radius), ``jpeg`` (``mixed`` crowns on soil with wide grass patches,
+photographed in square frames with strong vignetting and saved as JPEG, quality 45).
 
 Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
 
@@ -35,7 +40,18 @@ from scipy import ndimage
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-STYLES = ("mixed", "grass", "pasture", "clumps", "nir", "canopy", "coarse")
+STYLES = (
+    "mixed",
+    "grass",
+    "pasture",
+    "clumps",
+    "nir",
+    "canopy",
+    "coarse",
+    "conifers",
+    "stand",
+    "jpeg",
+)
 TUNING_SEEDS = tuple(range(100, 104))
 PIXEL_M = 0.05
 DIAMETER_M = (0.6, 2.0)
@@ -56,6 +72,26 @@ def _noise(shape, gen, scale_px):
     f = gen.standard_normal(shape).astype(np.float32)
     f = ndimage.gaussian_filter(f, scale_px)
     return f / (f.std() + 1e-9)
+
+
+def _place_overlapping(shape, n, dpx, gen):
+    """Crowns that may overlap: centres at least the larger radius plus half the smaller
+    apart (every centre outside the other crowns), sizes spread log-uniformly."""
+    h, w = shape
+    xy, rad = np.empty((0, 2)), np.empty(0)
+    for _ in range(60 * n):
+        if rad.size >= n:
+            break
+        r = np.exp(gen.uniform(np.log(dpx[0]), np.log(dpx[1]))) / 2
+        c = np.array([gen.uniform(0, w), gen.uniform(0, h)])
+        if rad.size:
+            dd = np.hypot(*(xy - c).T)
+            need = np.maximum(rad, r) + 0.5 * np.minimum(rad, r)
+            if np.any(dd < need):
+                continue
+        xy = np.vstack([xy, c])
+        rad = np.append(rad, r)
+    return xy, 2 * rad
 
 
 def _place(shape, n, dpx, gen, clumps=False):
@@ -119,17 +155,29 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     gen = np.random.default_rng(seed * 31 + STYLES.index(style))
     shape = (size_px, size_px)
     dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
-    n = int(size_px * size_px / {"clumps": 2600, "canopy": 700}.get(style, 3200))
-    xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
+    n = int(size_px * size_px / {"clumps": 2600, "canopy": 700, "stand": 300}.get(style, 3200))
+    if style == "stand":
+        xy, d = _place_overlapping(shape, n, dpx, gen)
+    else:
+        xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
     # background
     mott = 0.10 * _noise(shape, gen, 18) + 0.06 * _noise(shape, gen, 4)
-    if style == "pasture":
+    if style in ("pasture", "conifers"):
         bg = np.array(_PASTURE, np.float32)[:, None, None] * (1 + 1.3 * mott)[None]
+    elif style == "stand":
+        bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.3 * (1 + mott)[None]
     elif style == "canopy":
         bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.45 * (1 + mott)[None]
     else:
         bg = np.array(_LATERITE, np.float32)[:, None, None] * (1 + mott)[None]
     img = bg.copy()
+    if style in ("conifers", "jpeg"):
+        # wide patches (straw on pasture; grass on soil), wider than any crown
+        patch = _noise(shape, gen, 45) > 0.2
+        a = ndimage.gaussian_filter(patch.astype(np.float32), 6.0)
+        tuft = 1 + 0.1 * _noise(shape, gen, 1.2)
+        g = np.array(_STRAW if style == "conifers" else _GRASS, np.float32)[:, None, None]
+        img = img * (1 - a[None]) + g * tuft[None] * a[None]
     if style == "grass":
         patch = _noise(shape, gen, 14) > 0.35
         a = ndimage.gaussian_filter(patch.astype(np.float32), 2.0)
@@ -145,8 +193,10 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     shade = np.ones(shape, np.float32)
     cover = np.zeros(shape, np.float32)
     plant = np.zeros((3, *shape), np.float32)
-    if style == "pasture":
+    if style in ("pasture", "conifers"):
         palette = [_CONIFER]
+    elif style == "stand":
+        palette = [_GREEN, _OLIVE, (70, 120, 52), (88, 132, 70), (120, 140, 60)]
     elif style == "grass":
         palette = [_GREEN, _OLIVE]
     elif style == "canopy":
@@ -167,15 +217,20 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         rr = r * (1 + amp * np.cos(k * ang + ph)) / (1 + amp / 2)
         dist = np.hypot(sx, sy)
         alpha = np.clip(rr - dist + 0.7, 0, 1)
-        # shadow to the upper right, on the ground only
-        sdist = np.hypot(sx - 0.4 * r, sy + 0.4 * r)
-        sh = np.clip(rr - sdist + 1.0, 0, 1) * 0.45
+        # shadow to the upper right, on the ground only (long and deep under conifers)
+        off, depth = (0.9, 0.6) if style == "conifers" else (0.4, 0.45)
+        sdist = np.hypot(sx - off * r, sy + off * r)
+        sh = np.clip(rr - sdist + 1.0, 0, 1) * depth
         shade[y0:y1, x0:x1] = np.minimum(shade[y0:y1, x0:x1], 1 - sh)
         col = np.array(palette[int(gen.integers(len(palette)))], np.float32)
         col = col * gen.uniform(0.85, 1.15)
         lit = 1 + 0.18 * (-(sx + sy) / (np.sqrt(2) * r + 1e-6)).clip(-1, 1)
-        clump = 1 + 0.12 * gen.standard_normal(sx.shape).astype(np.float32)
-        clump = ndimage.gaussian_filter(clump, 1.0)
+        if style == "conifers":  # coarse needle texture: strong, fine-grained
+            clump = 1 + 0.5 * gen.standard_normal(sx.shape).astype(np.float32)
+            clump = np.clip(ndimage.gaussian_filter(clump, 0.7), 0.2, 2.0)
+        else:
+            clump = 1 + 0.12 * gen.standard_normal(sx.shape).astype(np.float32)
+            clump = ndimage.gaussian_filter(clump, 1.0)
         shaded = col[:, None, None] * (lit * clump)[None]
         a = alpha[None]
         plant[:, y0:y1, x0:x1] = plant[:, y0:y1, x0:x1] * (1 - a) + shaded * a
@@ -183,6 +238,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     ground = img * shade[None]
     out = ground * (1 - cover[None]) + plant * cover[None]
     out += gen.normal(0, 3.0, out.shape).astype(np.float32)
+    if style == "jpeg":
+        return _camera(out, gen), xy, d
     if style == "nir":
         # NIR: vegetation bright, soil medium; 12-bit-like range in uint16
         veg = cover * (1 + 0.1 * _noise(shape, gen, 2))
@@ -192,6 +249,27 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         bands += gen.normal(0, 20, bands.shape)
         return np.clip(bands, 0, 65535).astype(np.uint16), xy, d
     return np.clip(np.rint(out), 0, 255).astype(np.uint8), xy, d
+
+
+def _camera(rgb: np.ndarray, gen) -> np.ndarray:
+    """Square frames of 280 px with vignetting (quadratic fall-off, 35 % at the corners,
+    a random exposure per frame) and a JPEG round trip at quality 45 (Pillow)."""
+    import io
+
+    from PIL import Image
+
+    _b, h, w = rgb.shape
+    frame = 280.0
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32) + gen.uniform(0, frame, 2)[:, None, None]
+    fy, fx = np.floor(yy / frame), np.floor(xx / frame)
+    dy, dx = yy / frame - fy - 0.5, xx / frame - fx - 0.5
+    expo = 1 + 0.15 * np.sin(12.9898 * fy + 78.233 * fx)
+    gain = (1 - 0.7 * (dy * dy + dx * dx)) * expo
+    img = np.clip(np.rint(rgb * gain[None]), 0, 255).astype(np.uint8)
+    buf = io.BytesIO()
+    Image.fromarray(img.transpose(1, 2, 0)).save(buf, format="JPEG", quality=45)
+    buf.seek(0)
+    return np.asarray(Image.open(buf)).transpose(2, 0, 1).copy()
 
 
 def write_tuning_scene(folder: Path, style: str, seed: int, size_px: int = 640):
@@ -220,16 +298,25 @@ def write_tuning_scene(folder: Path, style: str, seed: int, size_px: int = 640):
     return path, pts
 
 
-def main() -> None:
+def main(argv: list[str] | None = None) -> None:
+    import argparse
     import tempfile
 
     from ecoscan.detect import DetectionSettings, detect_raster
     from ecoscan.stats.matching import match_points
 
+    ap = argparse.ArgumentParser(description="default detector F1 on the tuning scenes")
+    ap.add_argument("--styles", default=",".join(STYLES), help="comma-separated styles")
+    ap.add_argument("--seeds", default=",".join(map(str, TUNING_SEEDS)))
+    args = ap.parse_args(argv)
+    seeds = [int(s) for s in args.seeds.split(",")]
+    if not all(100 <= s <= 199 for s in seeds):
+        ap.error("tuning seeds are 100-199")
+    summary = []
     with tempfile.TemporaryDirectory() as tmp:
-        for style in STYLES:
+        for style in args.styles.split(","):
             f1s = []
-            for seed in TUNING_SEEDS:
+            for seed in seeds:
                 path, truth = write_tuning_scene(Path(tmp), style, seed)
                 s = DetectionSettings(
                     diameter_min_m=DIAMETER_M[0],
@@ -242,9 +329,12 @@ def main() -> None:
                 layer = res.thresholds.get("layer", res.index)
                 print(
                     f"{style:8} seed {seed}: F1 {f1s[-1]:.3f} (found {res.n}, truth {truth.n}, "
-                    f"layer {layer})"
+                    f"layer {layer})",
+                    flush=True,
                 )
-            print(f"{style:8} mean F1 {np.mean(f1s):.3f}")
+            print(f"{style:8} mean F1 {np.mean(f1s):.3f}", flush=True)
+            summary.append(f"{style} {np.mean(f1s):.3f}")
+    print("summary: " + ", ".join(summary))
 
 
 if __name__ == "__main__":

@@ -33,6 +33,7 @@ if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out 
 
 __all__ = [
     "RasterInfo",
+    "is_gdal_virtual",
     "open_raster",
     "pixel_to_map",
     "plots_from_mask",
@@ -48,7 +49,7 @@ class RasterInfo:
     Attributes
     ----------
     path : str
-        The file.
+        The file (absolute), or the GDAL virtual path or URL as given.
     width, height : int
         Columns and rows.
     count : int
@@ -118,13 +119,26 @@ def _ground_pixel_size(transform: Affine, crs: CRS, width: int, height: int) -> 
     return math.sqrt(dx * dy)
 
 
+def is_gdal_virtual(path: str) -> bool:
+    """True for a path GDAL reads through a virtual file system or a URL rather than from
+    a local file: ``/vsis3/...``, ``/vsicurl/...``, ``/vsizip/...``, ``https://...``.
+
+    Examples
+    --------
+    >>> is_gdal_virtual("/vsis3/survey-bucket/ortho.tif"), is_gdal_virtual("ortho.tif")
+    (True, False)
+    """
+    return path.startswith("/vsi") or "://" in path
+
+
 def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -> RasterInfo:
     """Open a raster, check it, and describe it in metres.
 
     Parameters
     ----------
     path : path-like
-        GeoTIFF or any raster GDAL reads.
+        GeoTIFF or any raster GDAL reads: a local file, or a path GDAL reads remotely
+        (``/vsis3/bucket/ortho.tif``, ``https://.../ortho.tif``, ``/vsizip/...``).
     pixel_size_m : float, optional
         Pixel size in metres for a raster without georeferencing (required then); with a
         georeferenced raster it is ignored and a note says so.
@@ -139,8 +153,10 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
         Missing, unreadable or truncated file; no georeferencing and no pixel size; a
         non-positive pixel size.
     """
-    p = Path(path)
-    if not p.exists():
+    text = os.fspath(path)
+    remote = is_gdal_virtual(text)
+    p = Path(text)  # for its name in messages; a remote path is opened as given
+    if not remote and not p.exists():
         raise InputError(f"raster file {str(p)!r} does not exist; check the path")
     if p.is_dir():
         raise InputError(f"raster path {str(p)!r} is a folder; give the raster file itself")
@@ -148,7 +164,7 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            with rasterio.open(p) as src:
+            with rasterio.open(text if remote else p) as src:
                 if src.count < 1:
                     raise InputError(f"{p.name} has no bands")
                 # read one pixel at the far corner: catches many truncated files early
@@ -220,7 +236,9 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
         if abs(sx - sy) > 0.01 * max(sx, sy):
             notes.append(f"{p.name} has non-square pixels; the mean pixel size {ps:.3g} m is used")
     return RasterInfo(
-        path=str(p),
+        # absolute, so that a tile job read elsewhere (another process or a Dask worker
+        # started in another folder) opens the same file
+        path=text if remote else str(p.absolute()),
         width=info["width"],
         height=info["height"],
         count=len(data_bands),

@@ -137,6 +137,19 @@ def _no_scales_output(base: Path, out: Path) -> None:
     assert not [p for p in out.iterdir() if ".tmp-ecoscan" in p.name]
 
 
+def _nothing_written(out: Path) -> None:
+    assert not [p for p in out.iterdir() if p.suffix != ".toml"], list(out.iterdir())
+
+
+def _free_port() -> int:
+    """A local TCP port nobody listens on (bound, then released)."""
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
 def _no_output(base: Path, out: Path) -> None:
     assert not (out / "res").exists()
     assert not [p for p in out.iterdir() if ".tmp-ecoscan" in p.name]
@@ -1201,6 +1214,65 @@ CASES: list[Case] = [
         _survey_truncated_cache,
         code=0,
         check=_check_cache_recomputed,
+    ),
+    Case(
+        "dask-workers-zero",
+        "detect",
+        "`--dask-workers 0`",
+        "exit 2 before any cluster starts",
+        lambda b, o: _detect(b, o, "--dask-workers", "0"),
+        says=("--dask-workers", "at least 1"),
+        check=lambda b, o: _nothing_written(o),
+    ),
+    Case(
+        "dask-workers-negative",
+        "survey",
+        "`--dask-workers -2`",
+        "exit 2 before the survey file is read",
+        lambda b, o: [*_survey()(b, o), "--dask-workers", "-2"],
+        says=("--dask-workers", "at least 1"),
+    ),
+    Case(
+        "dask-workers-and-scheduler",
+        "detect",
+        "`--dask-workers 2 --scheduler tcp://10.0.0.5:8786`",
+        "exit 2: one or the other",
+        lambda b, o: _detect(b, o, "--dask-workers", "2", "--scheduler", "tcp://10.0.0.5:8786"),
+        says=("--dask-workers", "--scheduler", "not both"),
+    ),
+    Case(
+        "dask-workers-and-workers",
+        "survey",
+        "`--dask-workers 2 --workers 2`",
+        "exit 2: --workers is for local processes",
+        lambda b, o: [*_survey()(b, o), "--dask-workers", "2", "--workers", "2"],
+        says=("--workers", "--dask-workers", "drop --workers"),
+    ),
+    Case(
+        "dask-not-installed",
+        "detect",
+        "`--dask-workers 2` without the optional Dask support installed",
+        "exit 2, names the extra to install",
+        lambda b, o: _detect(b, o, "--dask-workers", "2"),
+        says=("--dask-workers", "ecoscan[dask]"),
+        check=lambda b, o: _nothing_written(o),
+    ),
+    Case(
+        "scheduler-malformed",
+        "survey",
+        "`--scheduler http://10.0.0.5:8786` (a web address, not a scheduler's)",
+        "exit 2 at once with the expected form",
+        lambda b, o: [*_survey()(b, o), "--scheduler", "http://10.0.0.5:8786"],
+        says=("--scheduler http://10.0.0.5:8786", "tcp://HOST:PORT"),
+    ),
+    Case(
+        "scheduler-unreachable",
+        "detect",
+        "`--scheduler` at an address where no scheduler listens",
+        "exit 2 after Dask's connect timeout (`distributed.comm.timeouts.connect`)",
+        lambda b, o: _detect(b, o, "--scheduler", f"tcp://127.0.0.1:{_free_port()}"),
+        says=("cannot reach the Dask scheduler", "--scheduler tcp://127.0.0.1:"),
+        check=lambda b, o: _nothing_written(o),
     ),
 ]
 

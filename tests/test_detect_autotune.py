@@ -107,3 +107,66 @@ def test_split_rule_needs_two_distinct_similar_children():
     assert not marked([0, -1, 1], [20, 10, 10], [1.0, 0.9, 0.8])
     assert not marked([0, -10, 10], [20, 10, 10], [1.0, 0.5, 0.5])
     assert not marked([0, -10, 10], [20, 5, 5], [1.0, 0.9, 0.8])  # lobes, not crowns
+
+
+def test_sigma_clipped_centre_finds_the_dominant_mode():
+    # median/MAD sigma clipping (common practice for sky backgrounds among stars) converges
+    # on the larger of two well separated modes, soil among crown pixels: it recovers the
+    # normal parameters the soil pixels were drawn with (invented data, truth known)
+    from ecoscan.detect.autotune import clipped_centre_scale
+
+    rng = np.random.default_rng(8)
+    v = np.concatenate([rng.normal(-0.05, 0.03, 7000), rng.normal(0.35, 0.08, 3000)])
+    med, sd = clipped_centre_scale(v)
+    assert med == pytest.approx(-0.05, abs=0.01) and sd == pytest.approx(0.03, rel=0.15)
+    # without clipping the crowns drag the median and inflate the spread
+    assert robust_centre_scale(v)[1] > 1.5 * sd
+
+
+def test_response_spread_ignores_pixels_near_plants():
+    # the DoG of a bright disc rings over a few sigma around it: pixels within that reach
+    # inflate the measured spread; with the clearance they are left out and the spread is
+    # that of the white noise alone (compared with the same noise without the disc)
+    from ecoscan.detect.blobs import response_spread
+
+    rng = np.random.default_rng(5)
+    noise = rng.normal(0, 1.0, (240, 240)).astype(np.float32)
+    yy, xx = np.mgrid[:240, :240]
+    dist = np.full(noise.shape, np.inf)
+    for cy in range(40, 240, 80):
+        for cx in range(40, 240, 80):
+            dist = np.minimum(dist, np.hypot(yy - cy, xx - cx))
+    disc = dist <= 10
+    img = noise + 6.0 * disc
+    sc = blob_scales(6.0, 12.0)
+    outside = ~disc
+    clear = (dist - 10).astype(np.float32)
+    plain = response_spread(img, sc, outside)
+    cleared = response_spread(img, sc, outside, clearance=clear, clearance_sigmas=3.0)
+    reference = response_spread(noise, sc, np.ones(disc.shape, bool))
+    assert np.all(plain[-3:-1] > 1.4 * reference[-3:-1])  # ringing at the large scales
+    np.testing.assert_allclose(cleared[1:-1], reference[1:-1], rtol=0.05)
+
+
+def test_dense_stand_of_touching_crowns_is_found():
+    # crowns packed on a jittered grid with 3-5 px gaps over dark ground, so little
+    # background: every crown must still be a candidate (invented scene, truth known;
+    # the previous rule found none here and fell back to Otsu's split)
+    rng = np.random.default_rng(12)
+    n, step = 300, 18
+    img = np.stack([np.full((n, n), 40.0), np.full((n, n), 34.0), np.full((n, n), 28.0)])
+    yy, xx = np.mgrid[:n, :n]
+    centres = []
+    for cy in range(step // 2, n - step // 2, step):
+        for cx in range(step // 2, n - step // 2, step):
+            r = rng.uniform(6.5, 7.5)
+            y, x = cy + rng.uniform(-1, 1), cx + rng.uniform(-1, 1)
+            g = rng.uniform(0.85, 1.15)
+            m = (yy - y) ** 2 + (xx - x) ** 2 <= r * r
+            img[:, m] = (np.array([70.0, 130.0, 50.0]) * g)[:, None]
+            centres.append((x, y))
+    img += rng.normal(0, 3.0, img.shape)
+    win = SampleWindow(img.astype(np.float32), np.ones((n, n), bool), (slice(0, n), slice(0, n)))
+    choice = choose_layer([win], ("red", "green", "blue"), blob_scales(5.0, 9.0))
+    assert choice.name == "exg"
+    assert 0.95 * len(centres) <= choice.candidates <= 1.05 * len(centres)

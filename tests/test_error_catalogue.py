@@ -36,6 +36,16 @@ def test_case(case, base, tmp_path, capsys, monkeypatch):
             raise OSError(errno.ENOSPC, "No space left on device", str(path))
 
         monkeypatch.setattr(ecoscan.outputs, "write_text", full)
+    if case.id == "dask-not-installed":
+        import sys
+
+        monkeypatch.setitem(sys.modules, "distributed", None)  # import fails as if absent
+    if case.id == "scheduler-unreachable":
+        pytest.importorskip("distributed")  # loads Dask's distributed settings
+        import dask
+
+        # Dask's own setting, as a user would set DASK_DISTRIBUTED__COMM__TIMEOUTS__CONNECT
+        monkeypatch.setitem(dask.config.config["distributed"]["comm"]["timeouts"], "connect", "1s")
     rc = main(argv)
     out, err = capsys.readouterr()
     assert rc == case.code, f"exit {rc}, expected {case.code}; stderr:\n{err}"

@@ -14,6 +14,7 @@ log = logging.getLogger("ecoscan")
 
 __all__ = [
     "add_crs_arg",
+    "add_dask_args",
     "add_plots_args",
     "add_renamed",
     "add_seed_args",
@@ -90,6 +91,22 @@ def add_plots_args(p: argparse.ArgumentParser, *, required: bool = True) -> None
         "--id-field",
         metavar="FIELD",
         help="field holding the plot id (default: plot_id, id or name, else feature number)",
+    )
+
+
+def add_dask_args(p: argparse.ArgumentParser) -> None:
+    """``--dask-workers`` and ``--scheduler``: run on a Dask cluster instead of ``--workers``."""
+    p.add_argument(
+        "--dask-workers",
+        type=int,
+        metavar="N",
+        help='start a local Dask cluster of N worker processes (needs "ecoscan[dask]")',
+    )
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="run on the Dask cluster of a running scheduler, e.g. tcp://10.0.0.5:8786; the "
+        "rasters must be reachable from its workers at the same path or URL",
     )
 
 

@@ -32,6 +32,7 @@ from ecoscan.points import PointSet
 from ecoscan.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
 
 if TYPE_CHECKING:  # worker processes import this package: keep its import light
+    from ecoscan.execution import Executor
     from ecoscan.vector import PlotLayer
 
 __all__ = [
@@ -726,6 +727,7 @@ def detect_raster(
     *,
     plots: PlotLayer | None = None,
     workers: int = 1,
+    executor: Executor | None = None,
 ) -> DetectionResult:
     """Detect plants in a raster: one point per plant, in a metric CRS.
 
@@ -744,6 +746,10 @@ def detect_raster(
         Local processes for the tiles (1 runs in this process). Workers are started fresh
         (fork server or spawn), so a script calling this with ``workers > 1`` must do so
         under ``if __name__ == "__main__":``.
+    executor : Executor, optional
+        Where the tiles run instead (:func:`ecoscan.execution.open_executor`, e.g. a Dask
+        cluster); ``workers`` is then not used. Each tile reads its own window from
+        ``path``, which must be reachable from the workers. The result is the same.
 
     Returns
     -------
@@ -827,7 +833,10 @@ def detect_raster(
                     f"the raster ({crs_label(info.crs)}) cover the same ground"
                 )
     jobs = [TileJob(info, t, params) for t in selected]
-    parts = run_plan(run_tile, jobs, workers=workers) if jobs else []
+    if executor is None:
+        parts = run_plan(run_tile, jobs, workers=workers) if jobs else []
+    else:
+        parts = executor.map(run_tile, jobs, desc="tiles", unit="tile")
     table: dict[str, np.ndarray] = {}
     if parts:
         for k in parts[0]:

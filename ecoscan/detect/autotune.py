@@ -25,6 +25,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy import ndimage
 
 from ecoscan.detect.blobs import (
     DISC_RESPONSE,
@@ -64,6 +65,16 @@ ROUNDS = 4
 NEAR = 1.3
 #: Warn about weak separation when more than this share of the kept candidates is near it.
 NEAR_SHARE = 0.2
+#: Response spread at scale σ is measured only on background pixels at least this many σ
+#: from the nearest plant candidate (the filter spreads a crown's response over a few σ).
+CLEARANCE = 2.0
+#: Dense stands: when candidates above the pixel-noise threshold leave less than this share
+#: of the pixels as background, the background rounds start from pixel noise (with room
+#: for texture) instead of from the spread of all pixels, which the many crowns inflate so
+#: much that the rounds never exclude them. Tuned on benchmarks/tuning_scenes.py.
+DENSE_BACKGROUND = 0.15
+#: Fewest background pixels that measure the response spread at one scale.
+MIN_SPREAD_PX = 200
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -161,6 +172,35 @@ def robust_centre_scale(values: np.ndarray) -> tuple[float, float]:
     return med, _MAD_TO_SD * mad
 
 
+def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
+    """Median and robust SD after dropping values beyond ``k`` robust SDs, repeated.
+
+    Sigma clipping (common practice in astronomy for sky backgrounds among stars): crown
+    pixels that remain among the background pull the median and the MAD up; dropping
+    values far from the centre and estimating again converges on the dominant mode.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> v = np.concatenate([rng.normal(0, 1, 6000), rng.normal(8, 1, 4000)])
+    >>> m, s = clipped_centre_scale(v)
+    >>> bool(abs(m) < 0.3 and 0.8 < s < 1.3)
+    True
+    """
+    v = np.asarray(values, float)
+    m, s = robust_centre_scale(v)
+    for _ in range(rounds):
+        if not s > 0:
+            break
+        keep = np.abs(v - m) <= k * s
+        if keep.all() or keep.sum() < 100:
+            break
+        v = v[keep]
+        m, s = robust_centre_scale(v)
+    return m, s
+
+
 def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
     """Base layers worth trying for bands with these roles.
 
@@ -225,19 +265,32 @@ def _candidates(layers, windows, scales, floor, fill):
     return {k: np.concatenate(v) if v else np.empty(0) for k, v in out.items()}
 
 
-def _spreads(layers, windows, scales, masks, fill):
+def _spreads(layers, windows, scales, masks, fill, clearances=None):
     """Response spread per scale over the masked pixels of all windows (pooled median)."""
     per = []
-    for lay, win, mask in zip(layers, windows, masks, strict=True):
+    clearances = clearances or [None] * len(layers)
+    for lay, win, mask, clear in zip(layers, windows, masks, clearances, strict=True):
         img = np.where(win.valid, lay, np.float32(fill)).astype(np.float32)
         core = np.zeros(mask.shape, dtype=bool)
         core[win.core] = True
-        per.append(response_spread(img, scales, mask & core & win.valid, fill))
+        per.append(
+            response_spread(
+                img,
+                scales,
+                mask & core & win.valid,
+                fill,
+                clearance=clear,
+                clearance_sigmas=CLEARANCE,
+                min_pixels=MIN_SPREAD_PX if clear is not None else 1,
+            )
+        )
     stack = np.vstack(per)
     has = np.isfinite(stack).any(axis=0)
     sp = np.full(stack.shape[1], np.nan)
     if has.any():
         sp[has] = np.nanmedian(stack[:, has], axis=0)
+    if clearances is not None and clearances[0] is not None:
+        return np.where(np.isfinite(sp) & (sp > 0), sp, np.nan)
     return np.where(
         np.isfinite(sp) & (sp > 0), sp, np.nanmax(sp) if np.isfinite(sp).any() else 1e-6
     )
@@ -297,9 +350,45 @@ def response_mads(scales: BlobScales) -> np.ndarray:
     return np.sqrt(RESPONSE_MADS**2 + 2.0 * np.log(ratio))
 
 
+def _fill_scales(measured: np.ndarray, fallback: np.ndarray) -> np.ndarray:
+    """Scales without a measurement take the nearest smaller measured scale's spread.
+
+    Texture is correlated, so its response falls more slowly with scale than white noise's;
+    keeping the last measured spread is the cautious choice. With nothing measured, the
+    ``fallback`` (pixel noise with room for texture) is used.
+    """
+    out = np.array(measured, float)
+    ok = np.isfinite(out)
+    if not ok.any():
+        return np.asarray(fallback, float).copy()
+    idx = np.where(ok, np.arange(out.size), -1)
+    idx = np.maximum.accumulate(idx)
+    first = int(np.flatnonzero(ok)[0])
+    idx[idx < 0] = first
+    return out[idx]
+
+
 def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     i = np.rint(np.log(sigma / scales.sigmas[0]) / math.log(scales.k)).astype(int)
     return np.clip(i, 0, scales.sigmas.size - 1)
+
+
+def _background_share(layers, windows, cand, spread) -> float:
+    """Share of valid pixels farther than ``EXCLUDE`` radii from every candidate whose
+    response reaches ``RESPONSE_MADS`` × ``spread`` (its own scale's)."""
+    strong = cand["response"] >= RESPONSE_MADS * spread
+    free = total = 0
+    for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+        sel = strong & (cand["w"] == wi)
+        covered = _disc_mask(
+            lay.shape,
+            cand["row"][sel],
+            cand["col"][sel],
+            EXCLUDE * math.sqrt(2) * cand["sigma"][sel],
+        )
+        free += int((win.valid & ~covered).sum())
+        total += int(win.valid.sum())
+    return free / max(total, 1)
 
 
 def _score_layer(layers, windows, scales):
@@ -309,17 +398,34 @@ def _score_layer(layers, windows, scales):
         s0 = float(np.std(vals)) or 1e-6
     all_px = [w.valid for w in windows]
     sr0 = _spreads(layers, windows, scales, all_px, m0)
-    cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
+    # a dense stand (see DENSE_BACKGROUND): the crowns inflate the spread of all pixels so
+    # much that the rounds below would never exclude them; start from pixel noise instead
+    noise = float(
+        np.median([pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)])
+    )
+    sr_noise = TEXTURE * noise * _white_spread(scales, layers[0].shape)
+    dense = False
+    if noise > 0 and np.any(sr_noise < sr0):
+        low = np.minimum(sr0, sr_noise)
+        cand = _candidates(layers, windows, scales, 0.5 * low, m0)
+        spread_low = low[_scale_index(scales, cand["sigma"])]
+        dense = _background_share(layers, windows, cand, spread_low) < DENSE_BACKGROUND
+    if dense:
+        sr0 = low
+    else:
+        cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
     si = _scale_index(scales, cand["sigma"])
     # background: pixels away from candidates that stand out (their discs and the ring the
     # filters spread around them), found in two rounds as the noise estimate improves
     m, s, sr = m0, s0, sr0
     closed = False
     for _round in range(ROUNDS):
-        strong = (cand["response"] >= RESPONSE_MADS * sr[si]) & (cand["value"] >= m)
+        strong = cand["response"] >= RESPONSE_MADS * sr[si]
+        if not dense:
+            strong &= cand["value"] >= m
         # the widest exclusion that leaves enough background; closed canopy leaves little
         for factor in (EXCLUDE, 1.0, 0.6):
-            bg_masks, bg_vals = [], []
+            bg_masks, bg_vals, clears = [], [], []
             for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
                 sel = strong & (cand["w"] == wi)
                 covered = _disc_mask(
@@ -328,6 +434,13 @@ def _score_layer(layers, windows, scales):
                     cand["col"][sel],
                     factor * math.sqrt(2) * cand["sigma"][sel],
                 )
+                if dense:
+                    # response spread only where the crowns' filter ringing has faded
+                    clears.append(
+                        ndimage.distance_transform_edt(~covered).astype(np.float32)
+                        if covered.any()
+                        else np.full(lay.shape, np.inf, np.float32)
+                    )
                 bg_masks.append(win.valid & ~covered)
                 bg_vals.append(lay[bg_masks[-1]])
             bg = np.concatenate(bg_vals)
@@ -344,11 +457,15 @@ def _score_layer(layers, windows, scales):
             sr = TEXTURE * noise * _white_spread(scales, layers[0].shape)
             m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
             break
-        m1, s1 = robust_centre_scale(bg)
+        m1, s1 = clipped_centre_scale(bg) if dense else robust_centre_scale(bg)
         if not s1 > 0:
             break
         m, s = m1, s1
-        sr = _spreads(layers, windows, scales, bg_masks, m)
+        if dense:
+            # scales without enough clear background keep the nearest smaller one's spread
+            sr = _fill_scales(_spreads(layers, windows, scales, bg_masks, m, clears), sr_noise)
+        else:
+            sr = _spreads(layers, windows, scales, bg_masks, m)
     kk = response_mads(scales)
     q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s

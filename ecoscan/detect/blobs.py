@@ -215,6 +215,9 @@ def response_spread(
     scales: BlobScales,
     mask: np.ndarray,
     background: float = 0.0,
+    clearance: np.ndarray | None = None,
+    clearance_sigmas: float = 2.0,
+    min_pixels: int = 1,
 ) -> np.ndarray:
     """Robust spread (1.4826 × MAD) of the normalised DoG response at each scale.
 
@@ -233,6 +236,14 @@ def response_spread(
         Pixels to measure.
     background : float
         Value beyond the edges.
+    clearance : numpy.ndarray, optional
+        Distance (full-resolution pixels) of each pixel from the nearest plant. At scale σ
+        only pixels at least ``clearance_sigmas`` × σ away count, so that the response of
+        nearby crowns, which the filter spreads over a few σ, does not inflate the spread.
+    clearance_sigmas : float
+        See ``clearance``.
+    min_pixels : int
+        Fewer counted pixels than this at a scale leave that scale NaN.
 
     Returns
     -------
@@ -252,9 +263,18 @@ def response_spread(
     img = np.asarray(layer, np.float32)
     out = np.full(scales.sigmas.size, np.nan)
     for _lev, ext, resp, _blurs, level_valid, _shape in _pyramid(img, scales, mask, background):
+        f = 2**_lev
         for j, e in enumerate(ext):
             if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == _lev:
-                v = resp[j][level_valid]
+                sel = level_valid
+                if clearance is not None:
+                    # away from plants by ``clearance_sigmas`` of this scale: the filter
+                    # does not see them
+                    far = clearance[::f, ::f][: sel.shape[0], : sel.shape[1]]
+                    sel = sel & (far >= clearance_sigmas * scales.sigmas[e])
+                v = resp[j][sel]
+                if v.size < min_pixels:
+                    continue
                 if v.size:
                     med = np.median(v)
                     out[e] = 1.4826 * float(np.median(np.abs(v - med)))

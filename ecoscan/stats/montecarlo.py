@@ -22,6 +22,7 @@ numbers do not depend on how many processes run the blocks or in which order the
 
 from __future__ import annotations
 
+import multiprocessing as mp
 import os
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
@@ -330,7 +331,8 @@ def monte_carlo_nn(
         simulations (the fixed-N test). :data:`DEFAULT_STOP_AFTER` is a good choice.
     workers : int, optional
         Processes for the simulations (default: all cores when n · N ≥
-        :data:`PARALLEL_POINTS`, else 1). The numbers do not depend on it.
+        :data:`PARALLEL_POINTS`, else 1; always 1 inside a daemonic process such as a Dask
+        worker, which may not start processes). The numbers do not depend on it.
 
     Returns
     -------
@@ -388,7 +390,9 @@ def monte_carlo_nn(
     per_block = int(min(MAX_BLOCK, max(1, BATCH_POINTS // n)))
     sizes = [min(per_block, simulations - s) for s in range(0, simulations, per_block)]
     if workers is None:
-        workers = (os.cpu_count() or 1) if n * simulations >= PARALLEL_POINTS else 1
+        big = n * simulations >= PARALLEL_POINTS
+        # a daemonic process (a Dask worker, say) may not start children: run in it
+        workers = (os.cpu_count() or 1) if big and not mp.current_process().daemon else 1
     workers = max(1, min(int(workers), len(sizes)))
     poly_wkb = shapely.to_wkb(polygon)
     args = [(poly_wkb, inner_wkb, n, b, entropy, k) for k, b in enumerate(sizes)]

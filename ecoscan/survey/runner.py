@@ -36,6 +36,7 @@ import numpy as np
 from ecoscan import __version__
 from ecoscan.crs import crs_label
 from ecoscan.errors import InputError
+from ecoscan.execution import Executor, LocalExecutor
 from ecoscan.inputs import (
     SurveyInputs,
     assign_plots,
@@ -159,7 +160,7 @@ def _detect(
     layer: PlotLayer,
     out: Path,
     plots_hash: str,
-    workers: int,
+    executor: Executor,
     previous: Path | None = None,
 ):
     from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
@@ -201,7 +202,7 @@ def _detect(
             info.get("detection", {}),
         )
     log.info("detecting plants in %s", entry.path.name)
-    res = detect_raster(entry.path, settings, plots=layer, workers=workers)
+    res = detect_raster(entry.path, settings, plots=layer, executor=executor)
     detection = detection_metadata(res)
     write_points(res.points, gpkg)
     write_points(res.points, csv)
@@ -228,6 +229,7 @@ def run_survey(
     workers: int | None = None,
     report: bool = True,
     overwrite: bool = False,
+    executor: Executor | None = None,
 ) -> SurveyRun:
     """Run every step of a survey and write its output folder.
 
@@ -239,6 +241,10 @@ def run_survey(
         Output folder; default the one named in the survey file.
     workers : int, optional
         Detection worker processes; default from the survey file.
+    executor : Executor, optional
+        Where detection and the per-plot tests run instead of local processes
+        (:func:`ecoscan.execution.open_executor`, e.g. a Dask cluster: the rasters' tiles
+        and the plots' Monte Carlo tests then run there together). The tables are the same.
     report : bool
         Write figures and ``report.html``.
     overwrite : bool
@@ -257,7 +263,7 @@ def run_survey(
     inputs = [config.path, config.plots, *(e.path for e in config.rasters)]
     with output_folder(dest, overwrite=overwrite, inputs=inputs) as tmp:
         previous = dest if (dest / "points").is_dir() else None
-        run = _run_survey(config, tmp, previous, workers, report)
+        run = _run_survey(config, tmp, previous, workers, report, executor)
     # the finished folder is in place: point the run's record at it
     run.files = [dest / Path(f).relative_to(tmp) for f in run.files]
     for ch in run.changes:
@@ -266,10 +272,86 @@ def run_survey(
     return run
 
 
+def _plan_raster(entry: RasterEntry, layer: PlotLayer, survey_crs, config: SurveyConfig):
+    """The raster's header and the plots it touches (refused when it touches none)."""
+    import shapely
+
+    footprint, info = _raster_footprint(entry.path, survey_crs, entry.detect.get("pixel_size_m"))
+    touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
+    gone = [p.plot_id for p, t in zip(layer.plots, touches, strict=True) if not t]
+    if not np.any(touches):
+        raise InputError(
+            f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
+            "none of the plots; check its CRS and the plots file"
+        )
+    return entry, info, _layer_subset(layer, touches), gone
+
+
+def _detect_all(planned: list, out: Path, plots_hash: str, previous: Path | None, ex) -> list:
+    """Detections of every raster, in survey order.
+
+    On a local executor the rasters run one after the other, each over the local pool. On a
+    distributed one up to :data:`ecoscan.execution.RASTERS_AT_ONCE` rasters choose their
+    thresholds here and submit their tiles together, so the cluster works on the tiles of
+    several rasters at once; the results are the same.
+    """
+    if not ex.distributed or len(planned) == 1:
+        return [_detect(e, sub, out, plots_hash, ex, previous) for e, _i, sub, _g in planned]
+    from concurrent.futures import ThreadPoolExecutor
+
+    from ecoscan.execution import RASTERS_AT_ONCE
+
+    with ThreadPoolExecutor(max_workers=min(RASTERS_AT_ONCE, len(planned))) as pool:
+        futures = [
+            pool.submit(_detect, e, sub, out, plots_hash, ex, previous)
+            for e, _i, sub, _g in planned
+        ]
+        try:
+            return [f.result() for f in futures]
+        except BaseException:
+            # stop the other rasters' tiles; the pool waits for their threads to end, so no
+            # file is written into the output folder after this run has failed
+            for f in futures:
+                f.cancel()
+            ex.abort()
+            raise
+
+
+def _analyse_plot_job(job) -> Any:
+    from ecoscan.analysis import analyse_plot
+
+    return analyse_plot(*job)
+
+
+def _analyse_all(inputs: list[SurveyInputs], stat_settings, ex) -> list[list]:
+    """Per-plot statistics of every raster, in survey and plot order.
+
+    A distributed executor gets one task per plot of every raster at once (each plot's
+    Monte Carlo stream is seeded from its id, so the numbers do not depend on the
+    schedule); locally the plots run in this process as in ``ecoscan analyse``.
+    """
+    from ecoscan.analysis import analyse
+
+    if not ex.distributed:
+        return [analyse(inp, stat_settings) for inp in inputs]
+    jobs = [
+        (inp.plot_points(i), plot.geometry, plot.plot_id, stat_settings)
+        for inp in inputs
+        for i, plot in enumerate(inp.plots)
+    ]
+    flat = iter(ex.map(_analyse_plot_job, jobs, desc="plots", unit="plot"))
+    return [[next(flat) for _ in inp.plots] for inp in inputs]
+
+
 def _run_survey(
-    config: SurveyConfig, out: Path, previous: Path | None, workers: int | None, report: bool
+    config: SurveyConfig,
+    out: Path,
+    previous: Path | None,
+    workers: int | None,
+    report: bool,
+    executor: Executor | None = None,
 ) -> SurveyRun:
-    from ecoscan.analysis import DispersionSettings, analyse, dispersion_rows
+    from ecoscan.analysis import DispersionSettings, dispersion_rows
     from ecoscan.safety import check_quadrat_cells
 
     started = datetime.now(UTC)
@@ -293,23 +375,16 @@ def _run_survey(
             {k: v for k, v in config.scales.items() if k != "enabled"}
         )
 
-    for entry in progress(config.rasters, desc="rasters", unit="raster"):
-        footprint, info = _raster_footprint(
-            entry.path, survey_crs, entry.detect.get("pixel_size_m")
-        )
-        import shapely
-
-        touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
-        gone = [p.plot_id for p, t in zip(layer.plots, touches, strict=True) if not t]
-        if not np.any(touches):
-            raise InputError(
-                f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
-                "none of the plots; check its CRS and the plots file"
-            )
-        sub = _layer_subset(layer, touches)
-        pts, method, notes, cached, px, detection = _detect(
-            entry, sub, out, plots_hash, workers or config.workers, previous
-        )
+    ex = executor or LocalExecutor(workers or config.workers)
+    planned = [
+        _plan_raster(entry, layer, survey_crs, config)
+        for entry in progress(config.rasters, desc="rasters", unit="raster")
+    ]
+    found = _detect_all(planned, out, plots_hash, previous, ex)
+    prepared = []
+    for (entry, info, sub, gone), (pts, method, notes, cached, px, detection) in zip(
+        planned, found, strict=True
+    ):
         pts = _to_survey_crs(pts, survey_crs)
         pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots
         member = assign_plots(pts, sub)
@@ -317,7 +392,11 @@ def _run_survey(
             notes = [*notes, unsurveyed_note(gone, f"raster {entry.name}")]
         inputs = SurveyInputs(pts, sub, member, list(notes), gone)
         pts = points_by_plot(pts, sub, member)
-        disp = analyse(inputs, stat_settings)
+        prepared.append((entry, info, inputs, pts, method, notes, cached, px, detection))
+    results = _analyse_all([p[2] for p in prepared], stat_settings, ex)
+    for (entry, info, inputs, pts, method, notes, cached, px, detection), disp in zip(
+        prepared, results, strict=True
+    ):
         scl = None
         if scales_settings is not None:
             from ecoscan.scales import analyse_scales

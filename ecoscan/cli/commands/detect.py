@@ -5,14 +5,14 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ecoscan.cli._common import add_plots_args, print_notes
+from ecoscan.cli._common import add_dask_args, add_plots_args, print_notes
 from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
 from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
 from ecoscan.errors import InputError
+from ecoscan.execution import check_executor_options, open_executor
 from ecoscan.lifecycle import check_output_path
 from ecoscan.outputs import write_json
 from ecoscan.raster import plots_from_mask
-from ecoscan.safety import cap_workers
 from ecoscan.tables import format_table
 from ecoscan.vector import read_plots, write_points
 
@@ -133,9 +133,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="PIXELS",
         help="tile size; memory use follows it (default 1024)",
     )
-    p.add_argument(
-        "--workers", type=int, default=1, metavar="N", help="local processes (default 1)"
-    )
+    p.add_argument("--workers", type=int, metavar="N", help="local processes (default 1)")
+    add_dask_args(p)
     p.add_argument(
         "--detector",
         metavar="DETECTOR.toml",
@@ -187,17 +186,26 @@ def run(args: argparse.Namespace) -> int:
     check_output_path(
         out, overwrite=args.overwrite, inputs=[args.raster, args.plots, args.mask], option="-o"
     )
-    workers = cap_workers(args.workers, quiet=args.quiet)
+    check_executor_options(args.workers, args.dask_workers, args.scheduler)
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers must be at least 1 (got {args.workers})")
     plots = None
     if args.plots:
         plots = read_plots(args.plots, id_field=args.id_field)
     elif args.mask:
         plots = plots_from_mask(args.mask, pixel_size_m=args.pixel_size)
-    res = detect_raster(args.raster, settings, plots=plots, workers=workers)
+    with open_executor(
+        workers=args.workers,
+        dask_workers=args.dask_workers,
+        scheduler=args.scheduler,
+        quiet=args.quiet,
+    ) as executor:
+        res = detect_raster(args.raster, settings, plots=plots, executor=executor)
+        ran = [f"tiles ran on {executor.describe()}"] if executor.distributed else []
     write_points(res.points, out)
     meta_path = out.with_name(out.stem + ".detection.json")
     write_json(meta_path, detection_metadata(res, settings))
-    print_notes(([*plots.notes] if plots else []) + res.notes, args.quiet)
+    print_notes(([*plots.notes] if plots else []) + res.notes + ran, args.quiet)
     row = {
         "n": res.n,
         "method": res.method + (f" ({res.index})" if res.index else ""),

@@ -29,6 +29,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="N",
         help="detection worker processes (default: [survey] workers, else 1)",
     )
+    from ecoscan.cli._common import add_dask_args
+
+    add_dask_args(p)
     p.add_argument("--no-report", action="store_true", help="skip figures and report.html")
 
 
@@ -53,21 +56,34 @@ def print_summary(run, quiet: bool = False) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``ecoscan survey``."""
     from ecoscan.cli._common import print_notes
+    from ecoscan.execution import check_executor_options, open_executor
     from ecoscan.safety import cap_workers
     from ecoscan.survey.config import load_survey
     from ecoscan.survey.runner import run_survey
 
+    check_executor_options(args.workers, args.dask_workers, args.scheduler)
+    dask = args.dask_workers is not None or args.scheduler is not None
     workers = cap_workers(args.workers, quiet=args.quiet)
     cfg = load_survey(args.survey)
-    if workers is None and cfg.workers > 1:
+    if dask and cfg.workers > 1:
+        print_notes(
+            [f"[survey] workers = {cfg.workers} is not used: the Dask workers do the work"],
+            args.quiet,
+        )
+    elif workers is None and cfg.workers > 1:
         workers = cap_workers(cfg.workers, quiet=args.quiet, option="[survey] workers")
-    res = run_survey(
-        cfg,
-        output=Path(args.output) if args.output else None,
-        workers=workers,
-        report=not args.no_report,
-        overwrite=args.overwrite,
-    )
+    with open_executor(
+        workers=workers, dask_workers=args.dask_workers, scheduler=args.scheduler, quiet=args.quiet
+    ) as executor:
+        res = run_survey(
+            cfg,
+            output=Path(args.output) if args.output else None,
+            report=not args.no_report,
+            overwrite=args.overwrite,
+            executor=executor,
+        )
+        if executor.distributed:
+            res.notes.append(f"detection and per-plot tests ran on {executor.describe()}")
     print_notes(res.notes, args.quiet)
     print_summary(res, args.quiet)
     sys.stdout.flush()
