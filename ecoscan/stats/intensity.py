@@ -236,6 +236,13 @@ def quadrature_grid(
     Returns
     -------
     QuadratureGrid
+
+    Examples
+    --------
+    >>> import shapely
+    >>> g = quadrature_grid(shapely.box(0, 0, 100, 100), spacing_m=10.0)
+    >>> g.dummy_xy.shape[0], float(g.cell_area_m2.sum())  # 10 x 10 cells cover the plot
+    (100, 10000.0)
     """
     area = float(polygon.area)
     if spacing_m is None:
@@ -558,6 +565,15 @@ def refit_coefficients(
     Returns
     -------
     numpy.ndarray, shape (p + 1,)
+
+    Examples
+    --------
+    >>> import numpy as np, shapely
+    >>> xy = np.random.default_rng(0).uniform(0, 100, (200, 2))
+    >>> q = quadrature(xy, shapely.box(0, 0, 100, 100), 10.0)
+    >>> b = refit_coefficients(q, np.zeros((q.weights_m2.size, 1)), np.zeros(1))
+    >>> round(float(np.exp(b[0])), 4)  # a flat covariate: the MLE is n / area, 200 / 1 ha
+    0.02
     """
     X = _design(np.asarray(z, float).reshape(quad.weights_m2.size, -1), centres)
     w = quad.weights_m2
