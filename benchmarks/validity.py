@@ -53,6 +53,7 @@ Myllymäki et al. (2017) JRSS B 79: 381–404 (global envelopes); Thomas (1949) 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import csv
 import datetime as _dt
 import math
@@ -70,9 +71,11 @@ import numpy as np
 import shapely
 from scipy import stats as sps
 
+from ecoscan import analysis
 from ecoscan.analysis import DispersionSettings, analyse_plot
 from ecoscan.change import _pooled_r, _row
 from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
+from ecoscan.detectable import NO_DEPARTURE
 from ecoscan.scales import ScalesSettings, kinds_verdict
 from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
@@ -319,6 +322,18 @@ SHARED = _Shared()
 #    function and defaults, except fewer simulations), its dispersion.csv row read back
 
 
+@contextlib.contextmanager
+def _no_cluster_bootstrap():
+    """A clustered plot's cluster description (a Thomas fit with a parametric bootstrap)
+    changes no p-value: skip its bootstrap during one call, then restore the setting."""
+    old = analysis.CLUSTER_BOOTSTRAP
+    analysis.CLUSTER_BOOTSTRAP = 0
+    try:
+        yield
+    finally:
+        analysis.CLUSTER_BOOTSTRAP = old
+
+
 def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
     def compute():
         # every column as analyse computes it, with its own Monte Carlo (guard-zone p,
@@ -326,7 +341,8 @@ def _dispersion_row(xy, polygon, rng) -> dict[str, Any]:
         settings = DispersionSettings(
             simulations=ANALYSE_SIMULATIONS, seed=int(rng.integers(2**31))
         )
-        return analyse_plot(xy, polygon, "plot", settings).row()
+        with _no_cluster_bootstrap():
+            return analyse_plot(xy, polygon, "plot", settings).row()
 
     return SHARED.get("dispersion", xy, compute)
 
@@ -574,11 +590,12 @@ _pair_entry(
     "compare",
     "groups",
     verdict=True,
-    note="groups.csv label of group B: 'random' unless the pooled-R z test rejects",
+    note="groups.csv label of group B: 'no departure detected' unless the pooled-R z test "
+    "rejects",
 )
 def p_group_pattern(data, polygon, rng):
     label = _pair(data, polygon, rng)["pattern_b"]
-    return float("nan") if not label else (1.0 if label == "random" else 0.0)
+    return float("nan") if not label else (1.0 if label == NO_DEPARTURE else 0.0)
 
 
 # -- compare --by date: the same plots on two dates, paired sign-flip tests over plots

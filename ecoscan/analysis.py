@@ -23,7 +23,14 @@ import numpy as np
 
 from ecoscan import __version__
 from ecoscan.crs import crs_label
-from ecoscan.detectable import DETECTABLE_COLUMNS, Detectable, plot_detectable
+from ecoscan.detectable import (
+    DETECTABLE_COLUMNS,
+    NO_DEPARTURE,
+    Detectable,
+    plot_detectable,
+    settle_verdict,
+    verdict_with_range,
+)
 from ecoscan.errors import InputError
 from ecoscan.inputs import SurveyInputs
 from ecoscan.outputs import write_csv, write_json
@@ -52,8 +59,8 @@ from ecoscan.stats.quadrat import (
     quadrat_null,
     quadrat_test,
 )
-from ecoscan.stats.spacing import inhibition_distance
-from ecoscan.stats.thomas import fit_thomas
+from ecoscan.stats.spacing import InhibitionDistance, inhibition_distance
+from ecoscan.stats.thomas import ThomasFit, fit_thomas
 from ecoscan.vector import write_plots, write_points
 from ecoscan.vocabulary import RENAMED_VALUES
 
@@ -119,6 +126,19 @@ EXTRA_COLUMNS: tuple[str, ...] = (
     "n_coincident",
     "summary",
     *DETECTABLE_COLUMNS,
+    "verdict_in_words",
+    "pattern_in_metres",
+    "cluster_plants",
+    "cluster_plants_low95",
+    "cluster_plants_high95",
+    "cluster_width_m",
+    "cluster_width_low95_m",
+    "cluster_width_high95_m",
+    "clusters_per_ha",
+    "clusters_per_ha_low95",
+    "clusters_per_ha_high95",
+    "cluster_fit_p",
+    "inhibition_m",
 )
 
 #: Usual caution printed with every result.
@@ -305,9 +325,11 @@ class PlotDispersion:
         Each point's nearest-neighbour distance, metres (for histograms).
     clark_evans, donnelly, guard, monte_carlo, quadrat
         The result records, or None when the plot has fewer than 2 points.
-    pattern : str
-        ``'clustered'``, ``'random'`` or ``'regular'`` from the Monte Carlo test at ``alpha``;
-        empty when not tested.
+    verdict : str
+        ``'clustered'`` or ``'regular'`` when the Monte Carlo test rejects at ``alpha``;
+        otherwise ``'no departure detected'``, or ``'too few plants to tell'`` when the
+        plot's detectable range reaches beyond R 0.6 or 1.5 (:data:`ecoscan.detectable.
+        TELL_LIMITS`); empty when not tested (fewer than 2 plants).
     guard_m, quadrat_m : float
         The guard width and quadrat side used, metres.
     n_coincident : int
@@ -341,6 +363,19 @@ class PlotDispersion:
     quadrat_height_m: float = float("nan")
     summary: str = ""
     detectable: Detectable | None = None
+    verdict_in_words: str = ""
+    cluster_fit: ThomasFit | None = None
+    inhibition: InhibitionDistance | None = None
+
+    @property
+    def pattern_in_metres(self) -> str:
+        """Cluster size and spacing (clustered plots) or the inhibition distance (regular
+        plots) in plain words; '' otherwise."""
+        if self.cluster_fit is not None:
+            return self.cluster_fit.describe()
+        if self.inhibition is not None:
+            return self.inhibition.describe()
+        return ""
 
     def row(self) -> dict[str, Any]:
         """One ``dispersion.csv`` row: :data:`DISPERSION_COLUMNS` then :data:`EXTRA_COLUMNS`."""
@@ -395,6 +430,24 @@ class PlotDispersion:
         }
         det = self.detectable or Detectable(nan, nan, "")
         r.update(det.row())
+        cf = self.cluster_fit
+        r["verdict_in_words"] = self.verdict_in_words
+        r["pattern_in_metres"] = self.pattern_in_metres
+        r.update(
+            {
+                "cluster_plants": cf.mean_cluster_size if cf else nan,
+                "cluster_plants_low95": cf.cluster_size_low if cf else nan,
+                "cluster_plants_high95": cf.cluster_size_high if cf else nan,
+                "cluster_width_m": cf.cluster_diameter_m if cf else nan,
+                "cluster_width_low95_m": 2 * cf.sigma_low_m if cf else nan,
+                "cluster_width_high95_m": 2 * cf.sigma_high_m if cf else nan,
+                "clusters_per_ha": cf.clusters_per_ha if cf else nan,
+                "clusters_per_ha_low95": cf.parent_intensity_low * 1e4 if cf else nan,
+                "clusters_per_ha_high95": cf.parent_intensity_high * 1e4 if cf else nan,
+                "cluster_fit_p": cf.fit_pvalue if cf else nan,
+                "inhibition_m": self.inhibition.distance_m if self.inhibition else nan,
+            }
+        )
         return r
 
 
@@ -447,9 +500,10 @@ def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
     )
 
 
-def _verdict(mc: MonteCarloResult, alpha: float) -> str:
+def _significant(mc: MonteCarloResult, alpha: float) -> str:
+    """The direction the Monte Carlo test found at ``alpha``, or '' when it did not reject."""
     if not mc.pvalue < alpha:
-        return "random"
+        return ""
     if mc.direction == "either":
         return mc.side
     return mc.direction
@@ -583,6 +637,11 @@ def analyse_plot(
         )
     qnull = quadrat_null(qd, s.simulations, rng=rng)
     qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
+    # the detectable range belongs to the plot's shape and plant count, not to the run: one
+    # fixed stream (seed 1, then the polygon and n), so every run and seed reads the same
+    detectable = plot_detectable(polygon, n, alpha=s.alpha)
+    verdict = settle_verdict(_significant(mc, s.alpha), detectable)
+    few_p = s.smallest_p if s.smallest_p >= s.alpha else 0.0
     res = PlotDispersion(
         plot_id,
         n,
@@ -595,36 +654,45 @@ def analyse_plot(
         gz,
         mc,
         qd,
-        _verdict(mc, s.alpha),
+        verdict,
         guard_m,
         quad_m,
         n_zero,
         tuple(warn),
         qnull.pvalue,
         quad_h,
+        detectable=detectable,
+        verdict_in_words=verdict_with_range(verdict, detectable, few_simulations_p=few_p),
     )
-    res = dataclasses.replace(
-        res, detectable=plot_detectable(polygon, n, alpha=s.alpha, seed=s.seed)
-    )
-    extra = _pattern_in_metres(xy, polygon, res.verdict, rng)
+    cluster_fit, inhibition = _pattern_in_metres(xy, polygon, res.verdict, rng)
+    res = dataclasses.replace(res, cluster_fit=cluster_fit, inhibition=inhibition)
     summary = plain_summary(res, s.alpha, s.smallest_p)
+    extra = res.pattern_in_metres
     return dataclasses.replace(res, summary=f"{summary}; {extra}" if extra else summary)
 
 
 #: Plants needed before a clustered plot's clusters are described by a fitted Thomas process.
 MIN_POINTS_CLUSTER_FIT = 20
+#: Parametric-bootstrap replicates for the 95% intervals of a clustered plot's fitted Thomas
+#: process (and its goodness-of-fit test); about 2 s for a plot of 100 plants.
+CLUSTER_BOOTSTRAP = 99
+#: Above this many plants the cluster fit has no bootstrap interval (each replicate refits K).
+CLUSTER_BOOTSTRAP_MAX_PLANTS = 2_000
 
 
-def _pattern_in_metres(xy: np.ndarray, polygon, verdict: str, rng) -> str:
-    """Cluster size and spacing (clustered plots) or inhibition distance (regular plots)."""
+def _pattern_in_metres(
+    xy: np.ndarray, polygon, verdict: str, rng
+) -> tuple[ThomasFit | None, InhibitionDistance | None]:
+    """Fitted clusters (clustered plots) or the inhibition distance (regular plots)."""
     xy = np.asarray(xy, float).reshape(-1, 2)
     if verdict == "clustered" and xy.shape[0] >= MIN_POINTS_CLUSTER_FIT:
-        fit = fit_thomas(xy, polygon, replicates=0, rng=rng)
+        reps = CLUSTER_BOOTSTRAP if xy.shape[0] <= CLUSTER_BOOTSTRAP_MAX_PLANTS else 0
+        fit = fit_thomas(xy, polygon, replicates=reps, rng=rng)
         if np.isfinite(fit.sigma_m) and fit.mean_cluster_size > 1:
-            return fit.describe()
+            return fit, None
     if verdict == "regular" and xy.shape[0] >= 2:
-        return inhibition_distance(xy, polygon).describe()
-    return ""
+        return None, inhibition_distance(xy, polygon)
+    return None, None
 
 
 def _p_words(p: float) -> str:
@@ -652,10 +720,10 @@ def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 
     Returns
     -------
     str
-        E.g. "no clear departure from random spacing between neighbours (R = 1.03, not
-        significant); evenly spread over 5.4 m quadrats (variance/mean 0.37, p < 0.001):
-        the tests look at different scales (neighbours about 1.6 m apart, quadrats
-        5.4 m), so both can hold".
+        E.g. "no departure detected (this plot could detect R below 0.87 or above 1.25):
+        R = 1.03 between neighbours, not significant; evenly spread over 5.4 m quadrats
+        (variance/mean 0.37, p < 0.001): the tests look at different scales (neighbours
+        about 1.6 m apart, quadrats 5.4 m), so both can hold".
 
     Notes
     -----
@@ -683,18 +751,16 @@ def plain_summary(res: PlotDispersion, alpha: float = 0.05, smallest_p: float = 
     elif res.verdict == "clustered":
         nn_dir, nn = -1, f"clumped between neighbours (R = {r:.2f}, {_p_words(p_mc)})"
     else:
-        why = (
-            f"too few simulations to reach p < {alpha:g}"
-            if smallest_p > alpha
-            else "not significant"
+        few = smallest_p >= alpha
+        words = res.verdict_in_words or verdict_with_range(
+            res.verdict or NO_DEPARTURE,
+            res.detectable,
+            few_simulations_p=smallest_p if few else 0.0,
         )
-        reading = res.detectable.reading if res.detectable else ""
-        if reading == "too few plants to tell":
-            text = f"too few plants to tell a pattern between neighbours (R = {r:.2f}, {why})"
-        elif reading:
-            text = f"no departure detected between neighbours (R = {r:.2f}, {why}; {reading})"
+        if few:
+            text = f"{words}: R = {r:.2f} between neighbours"
         else:
-            text = f"no clear departure from random spacing between neighbours (R = {r:.2f}, {why})"
+            text = f"{words}: R = {r:.2f} between neighbours, not significant"
         nn_dir, nn = 0, text
     qd = res.quadrat
     if qd is None or qd.q < 2 or not np.isfinite(qd.vmr):

@@ -32,6 +32,7 @@ from scipy import stats as sps
 
 from ecoscan.analysis import DONNELLY_MIN_HALF_WIDTH, donnelly_strip_warning
 from ecoscan.crs import crs_label, parse_crs
+from ecoscan.detectable import NO_DEPARTURE
 from ecoscan.errors import InputError
 from ecoscan.inputs import PlotMembership
 from ecoscan.outputs import write_csv, write_json
@@ -547,7 +548,7 @@ def _pattern(r: PooledR) -> str:
         return "regular"
     if hi < 1.0:
         return "clustered"
-    return "random"
+    return NO_DEPARTURE
 
 
 def _paired(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:

@@ -9,6 +9,7 @@ that go beside a verdict.
 from __future__ import annotations
 
 import zlib
+from collections.abc import Mapping
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -17,10 +18,35 @@ import shapely
 
 from ecoscan.stats.power import detectable_range
 
-__all__ = ["DETECTABLE_COLUMNS", "Detectable", "plot_detectable", "verdict_with_range"]
+__all__ = [
+    "DETECTABLE_COLUMNS",
+    "NO_DEPARTURE",
+    "TELL_LIMITS",
+    "TOO_FEW",
+    "VERDICTS",
+    "Detectable",
+    "detectable_range_short",
+    "plot_detectable",
+    "settle_verdict",
+    "verdict_with_range",
+]
 
 #: Columns added to a plot's row.
 DETECTABLE_COLUMNS = ("detectable_clustered_R", "detectable_regular_R", "detectable_reading")
+
+#: The verdict of a plot whose test did not reject and that could have detected a moderate
+#: pattern (its detectable range lies inside :data:`TELL_LIMITS`).
+NO_DEPARTURE = "no departure detected"
+#: The verdict of a plot whose test did not reject and that could only have detected a
+#: strong pattern (or none at all).
+TOO_FEW = "too few plants to tell"
+#: Every value of a plot's ``verdict`` column ('' when no test could run: fewer than 2 plants).
+VERDICTS = ("clustered", "regular", NO_DEPARTURE, TOO_FEW)
+#: A plot that cannot detect clustering down to R 0.6 and regularity up to R 1.5 (80% power)
+#: reads "too few plants to tell". R 0.6 is a pattern whose neighbours stand 40% closer than
+#: at random, R 1.5 one whose neighbours stand 50% further apart: strong patterns that a
+#: survey ought to see. The limits are ecoscan's choice, stated in docs/methods-power.md.
+TELL_LIMITS = (0.6, 1.5)
 
 #: Random patterns forming the reference set, and simulated patterns per alternative
 #: strength, for per-plot use (``ecoscan plan`` uses more).
@@ -68,7 +94,7 @@ def _cached(wkb: bytes, n: int, alpha: float, seed: int) -> Detectable:
         simulate_up_to=PER_PLOT_SIMULATE_UP_TO,
         rng=rng,
     )
-    return Detectable(d.clustered_r, d.regular_r, d.describe())
+    return Detectable(d.clustered_r, d.regular_r, d.describe(*TELL_LIMITS))
 
 
 def plot_detectable(
@@ -99,34 +125,116 @@ def plot_detectable(
     'too few plants to tell'
     """
     if n < 3 or polygon is None or polygon.is_empty or not polygon.area > 0:
-        return Detectable(float("nan"), float("nan"), "too few plants to tell")
+        return Detectable(float("nan"), float("nan"), TOO_FEW)
     return _cached(shapely.to_wkb(polygon), int(n), float(alpha), int(seed))
 
 
-def verdict_with_range(verdict: str, detectable: Detectable) -> str:
-    """A verdict in words, with what the plot could detect when nothing was detected.
+def settle_verdict(significant: str, detectable: Detectable | None) -> str:
+    """A plot's short, stable verdict from its test and its detectable range.
+
+    Parameters
+    ----------
+    significant : str
+        ``'clustered'`` or ``'regular'`` when the Monte Carlo test rejected, else ``''``.
+    detectable : Detectable or None
+        The plot's detectable range (None when unknown).
+
+    Returns
+    -------
+    str
+        One of :data:`VERDICTS`: the direction when the test rejected; otherwise
+        :data:`TOO_FEW` when the plot could not detect a pattern within
+        :data:`TELL_LIMITS`, else :data:`NO_DEPARTURE`.
+
+    Examples
+    --------
+    >>> settle_verdict("", Detectable(0.78, 1.25, "this plot could detect R below 0.78 or "
+    ...                "above 1.25"))
+    'no departure detected'
+    >>> settle_verdict("", Detectable(0.45, 1.70, TOO_FEW))
+    'too few plants to tell'
+    >>> settle_verdict("clustered", Detectable(0.45, 1.70, TOO_FEW))
+    'clustered'
+    """
+    if significant in ("clustered", "regular"):
+        return significant
+    if detectable is not None and detectable.reading == TOO_FEW:
+        return TOO_FEW
+    return NO_DEPARTURE
+
+
+def verdict_with_range(
+    verdict: str, detectable: Detectable | None, *, few_simulations_p: float = 0.0
+) -> str:
+    """A verdict as a sentence, with what the plot could detect when nothing was detected.
 
     Parameters
     ----------
     verdict : str
-        ``'clustered'``, ``'regular'`` or ``'random'``.
-    detectable : Detectable
+        The plot's verdict (one of :data:`VERDICTS`, or ``'random'`` meaning not significant).
+    detectable : Detectable or None
         The plot's detectable range.
+    few_simulations_p : float
+        The smallest p-value the simulations allow, when it is above the level of the test
+        (the test could not reject however strong the pattern); 0 otherwise.
 
     Returns
     -------
     str
         The verdict unchanged when significant; otherwise "no departure detected (this plot
-        could detect R below … or above …)" or "too few plants to tell".
+        could detect R below … or above …)", or "too few plants to tell (this plot could only
+        detect R below … or above …)".
 
     Examples
     --------
-    >>> verdict_with_range("random", Detectable(0.78, 1.25, "this plot could detect R below "
-    ...                    "0.78 or above 1.25"))
+    >>> verdict_with_range("no departure detected", Detectable(0.78, 1.25, "this plot could "
+    ...                    "detect R below 0.78 or above 1.25"))
     'no departure detected (this plot could detect R below 0.78 or above 1.25)'
+    >>> verdict_with_range("too few plants to tell", Detectable(0.41, 1.62, TOO_FEW))
+    'too few plants to tell (this plot could only detect R below 0.41 or above 1.62)'
     """
-    if verdict in ("clustered", "regular"):
+    if verdict in ("clustered", "regular", ""):
         return verdict
-    if detectable.reading == "too few plants to tell":
-        return "too few plants to tell"
-    return f"no departure detected ({detectable.reading})"
+    if few_simulations_p > 0:
+        word = TOO_FEW if verdict == TOO_FEW else NO_DEPARTURE
+        return (
+            f"{word} (too few simulations: p cannot go below {few_simulations_p:.2g}, "
+            "so no pattern could be detected)"
+        )
+    if detectable is None or not detectable.reading:
+        return NO_DEPARTURE if verdict != TOO_FEW else TOO_FEW
+    lo, hi = detectable.clustered_r, detectable.regular_r
+    if verdict == TOO_FEW or detectable.reading == TOO_FEW:
+        if np.isfinite(lo) and np.isfinite(hi):
+            return f"{TOO_FEW} (this plot could only detect R below {lo:.2f} or above {hi:.2f})"
+        return TOO_FEW
+    return f"{NO_DEPARTURE} ({detectable.reading})"
+
+
+def detectable_range_short(row: Mapping[str, object]) -> str:
+    """The detectable range of a plot row, compact: "R < 0.87 or > 1.25" ('' when unknown).
+
+    Parameters
+    ----------
+    row : mapping
+        A plot's row with ``detectable_clustered_R`` and ``detectable_regular_R``.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> detectable_range_short({"detectable_clustered_R": 0.871, "detectable_regular_R": 1.25})
+    'R < 0.87 or > 1.25'
+    >>> detectable_range_short({"detectable_clustered_R": float("nan")})
+    ''
+    """
+    try:
+        lo = float(row.get("detectable_clustered_R"))
+        hi = float(row.get("detectable_regular_R"))
+    except (TypeError, ValueError):
+        return ""
+    if not (lo == lo and hi == hi):
+        return ""
+    return f"R < {lo:.2f} or > {hi:.2f}"

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan import __version__
+from ecoscan.detectable import NO_DEPARTURE, VERDICTS
 from ecoscan.outputs import write_text
 from ecoscan.vocabulary import COLUMNS, format_cell, label
 
@@ -171,7 +172,9 @@ def figure_html(png: str | os.PathLike, caption: str = "", alt: str = "") -> str
 def pattern_tag(pattern: Any) -> str:
     """A small coloured label for a verdict (text is always shown, colour is secondary)."""
     p = str(pattern or "")
-    cls = p if p in ("clustered", "regular", "random") else "none"
+    cls = {"clustered": "clustered", "regular": "regular", "random": "random"}.get(p, "none")
+    if p == NO_DEPARTURE:
+        cls = "random"
     return f'<span class="tag {cls}">{_esc(p or "no test")}</span>'
 
 
@@ -232,7 +235,7 @@ def table_html(
             if (
                 c == "verdict"
                 and isinstance(v, str)
-                and v in ("clustered", "regular", "random", "")
+                and v in (*VERDICTS, "random", "")
             ):
                 out.append(f'<td class="text">{pattern_tag(v)}</td>')
             elif c == link and r.get("_href"):

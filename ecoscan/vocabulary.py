@@ -191,8 +191,68 @@ _ALL = [
         "verdict",
         "",
         "text",
-        "clustered, random or regular: per plot from the Monte Carlo test, per group from "
-        "the R interval.",
+        "clustered, regular, no departure detected, or too few plants to tell (no departure "
+        "detected by a plot that could only detect R below 0.6 or above 1.5): per plot from "
+        "the Monte Carlo test and the plot's detectable range, per group from the R interval.",
+    ),
+    _c(
+        "verdict_in_words",
+        "verdict in words",
+        "",
+        "text",
+        "The verdict as a sentence, with the R this plot could detect when it found no "
+        "departure.",
+    ),
+    _c(
+        "detectable_range",
+        "could detect",
+        "",
+        "text",
+        "Clark–Evans R this plot's test detects with 80% power: below the first value "
+        "(clustering) or above the second (regularity).",
+    ),
+    _c(
+        "pattern_in_metres",
+        "pattern in metres",
+        "",
+        "text",
+        "Fitted cluster size and spacing (clustered plots) or how far apart plants keep "
+        "(regular plots), with 95% intervals.",
+    ),
+    _c(
+        "cluster_plants",
+        "plants per cluster",
+        "",
+        "index",
+        "Mean plants per cluster of the fitted Thomas process (clustered plots).",
+    ),
+    _c("cluster_plants_low95", "plants per cluster low 95%", "", "index", "Lower 95% limit."),
+    _c("cluster_plants_high95", "plants per cluster high 95%", "", "index", "Upper 95% limit."),
+    _c(
+        "cluster_width_m",
+        "cluster width",
+        "m",
+        "m",
+        "Twice the fitted cluster spread σ: a typical cluster's width.",
+    ),
+    _c("cluster_width_low95_m", "cluster width low 95%", "m", "m", "Lower 95% limit."),
+    _c("cluster_width_high95_m", "cluster width high 95%", "m", "m", "Upper 95% limit."),
+    _c("clusters_per_ha", "clusters/ha", "", "density", "Fitted clusters per hectare."),
+    _c("clusters_per_ha_low95", "clusters/ha low 95%", "", "density", "Lower 95% limit."),
+    _c("clusters_per_ha_high95", "clusters/ha high 95%", "", "density", "Upper 95% limit."),
+    _c(
+        "cluster_fit_p",
+        "p cluster model",
+        "",
+        "p",
+        "Global envelope test of the fitted Thomas process; small means it fits poorly.",
+    ),
+    _c(
+        "inhibition_m",
+        "plants keep apart",
+        "m",
+        "m",
+        "Distance that 95% of plants keep from their nearest neighbour (regular plots).",
     ),
     _c("n_coincident", "coincident", "", "int", "Plants sharing a position with another plant."),
     # --- quadrats

@@ -113,7 +113,7 @@ def test_ranks_regularity_as_built(stands):
     assert rows["natural"]["rank_regularity"] == 2
     assert rows["thicket"]["rank_regularity"] == 3
     assert rows["planted"]["verdict"] == "regular"
-    assert rows["natural"]["verdict"] == "random"
+    assert rows["natural"]["verdict"] == "no departure detected"
     assert rows["thicket"]["verdict"] == "clustered"
     # recomputed from the points, not the R = 9.99 written in dispersion.csv
     assert rows["planted"]["R"] < 2.2
@@ -351,7 +351,7 @@ def test_group_label_follows_the_interval_shown_beside_it():
         # the interval is R_donnelly ± 1.96 SE (normal quantile from scipy)
         assert (lo + hi) / 2 == pytest.approx(r["R_donnelly"])
         assert (hi - lo) / 2 == pytest.approx(sps.norm.ppf(0.975) * r["R_donnelly_se"])
-        want = "regular" if lo > 1 else "clustered" if hi < 1 else "random"
+        want = "regular" if lo > 1 else "clustered" if hi < 1 else "no departure detected"
         assert r["verdict"] == want
 
 

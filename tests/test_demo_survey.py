@@ -24,8 +24,8 @@ DEMO = ROOT / "sample_rasters"
 BUILT_AS = {
     "rows": "regular",
     "regen": "clustered",
-    "scatter": "random",
-    "corner": "random",
+    "scatter": "no departure detected",
+    "corner": "no departure detected",
     "thinned": "regular",
     "thicket": "clustered",
 }
@@ -172,6 +172,31 @@ def test_change_finds_the_lost_and_new_plants(demo_run):
         assert m.n_matched / len(xy) >= 0.85, (status, m.n_matched, len(xy))
 
 
+def test_report_shows_detectable_range_and_pattern_in_metres(demo_run):
+    # issue 15: the detectable range beside each verdict, the cluster description with its
+    # bootstrap interval for clustered plots, the spacing for regular ones, read back from the
+    # report and checked against the numbers of dispersion.csv
+    _cfg, run = demo_run
+    html = (run.output / "report.html").read_text(encoding="utf-8")
+    for r in run.rows:
+        lo, hi = r["detectable_clustered_R"], r["detectable_regular_R"]
+        assert f"R &lt; {lo:.2f} or &gt; {hi:.2f}" in html  # index column "could detect"
+        if r["verdict"] == "no departure detected":
+            assert r["verdict_in_words"] == (
+                f"no departure detected (this plot could detect R below {lo:.2f} or above "
+                f"{hi:.2f})"
+            )
+            assert r["verdict_in_words"] in html
+        elif r["verdict"] == "clustered":
+            assert "(95% interval " in r["pattern_in_metres"]
+            assert r["cluster_plants_low95"] < r["cluster_plants_high95"]
+        elif r["verdict"] == "regular":
+            assert r["pattern_in_metres"].startswith("plants keep at least")
+        if r["pattern_in_metres"]:
+            assert r["pattern_in_metres"] in html
+    assert "<strong>Clusters:</strong>" in html and "<strong>Spacing:</strong>" in html
+
+
 def test_compare_ranks_regularity_as_built(demo_run):
     _cfg, run = demo_run
     from ecoscan.compare import group_rows
@@ -185,7 +210,8 @@ def test_compare_ranks_regularity_as_built(demo_run):
     def ranks(kind):
         return [rank[g] for g in rank if BUILT_AS[plot_of[g]] == kind]
 
-    regular, random_, clustered = ranks("regular"), ranks("random"), ranks("clustered")
+    regular, random_ = ranks("regular"), ranks("no departure detected")
+    clustered = ranks("clustered")
     assert max(regular) < min(random_) and max(random_) < min(clustered), rank
 
 
@@ -267,7 +293,8 @@ def test_report_index_fits_screen_and_first_a4_page(demo_run):
         pdf = s.print_pdf()
         assert s.errors() == []
     assert screen["heads"] == [
-        "site", "date", "plot", "n", "plants/ha", "verdict", "p Monte Carlo", "check"
+        "site", "date", "plot", "n", "plants/ha", "verdict", "could detect", "p Monte Carlo",
+        "check",
     ]  # fmt: skip
     assert screen["page_width"] <= screen["cw"]  # no horizontal scrolling at 1280 px
     assert screen["table_right"] <= screen["cw"]

@@ -173,14 +173,15 @@ def test_numbers_do_not_depend_on_the_number_of_processes():
 
 
 def test_large_pattern_path_matches_plain_kdtree():
-    # the unbalanced, leaf-order path for n >= 2000 gives the same means as a plain
-    # scipy cKDTree query (reference library) on the same seeded patterns
+    # the path for n >= 2000 (patterns in spatial order, close-pair NN distances) gives the
+    # same means as a plain scipy cKDTree query (reference library) on the same seeded patterns
     import shapely as shp
 
+    from ecoscan.stats.csr import uniform_in_cells
     from ecoscan.stats.montecarlo import _block_stats
 
     ent = [1, 2, 3, 4]
     got = _block_stats(shp.to_wkb(RECT), None, 2500, 2, ent, 5)[:, 0]
     gen = np.random.default_rng(np.random.SeedSequence(ent, spawn_key=(5,)))
-    pats = uniform_in_polygon(RECT, 2500, size=2, rng=gen)
+    pats = np.stack([uniform_in_cells(RECT, 2500, rng=gen)[0] for _ in range(2)])
     np.testing.assert_allclose(got, mean_nn_batch(pats), rtol=1e-12)

@@ -32,10 +32,10 @@ def test_random_pattern_says_not_significant_and_too_few_simulations_says_so():
     box = shapely.box(0, 0, 50, 50)
     xy = rng.uniform(0, 50, (120, 2))
     res = analyse_plot(xy, box, "r", DispersionSettings(simulations=99))
-    assert res.verdict == "random"  # this seed: p_mc above 0.05
-    assert "no departure detected between neighbours" in res.summary
-    assert "this plot could detect R below" in res.summary
-    assert "not significant" in res.summary
+    assert res.verdict == "no departure detected"  # this seed: p_mc above 0.05
+    assert res.summary.startswith("no departure detected (this plot could detect R below")
+    assert "between neighbours, not significant" in res.summary
     few = analyse_plot(xy, box, "r", DispersionSettings(simulations=19))
     # 19 simulations, two-sided: the smallest p is 2/20 = 0.1 > 0.05 (Besag & Diggle 1977)
-    assert "too few simulations to reach p < 0.05" in few.summary
+    assert "too few simulations: p cannot go below 0.1" in few.summary
+    assert few.verdict_in_words.startswith("no departure detected (too few simulations")

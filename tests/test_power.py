@@ -103,10 +103,22 @@ def test_every_plot_row_carries_what_it_could_detect():
     rand = analyse_plot(uniform_in_polygon(plot, 80, rng=3), plot, "r", s)
     row = rand.row()
     assert row["detectable_clustered_R"] < 1 < row["detectable_regular_R"]
-    assert "could detect R below" in rand.summary and rand.verdict == "random"
+    assert "could detect R below" in rand.summary and rand.verdict == "no departure detected"
+    lo, hi = row["detectable_clustered_R"], row["detectable_regular_R"]
+    assert row["verdict_in_words"] == (
+        f"no departure detected (this plot could detect R below {lo:.2f} or above {hi:.2f})"
+    )
     few = analyse_plot(uniform_in_polygon(plot, 8, rng=3), plot, "f", s)
     assert few.row()["detectable_reading"] == "too few plants to tell"
     assert few.summary.startswith("too few plants to tell")
+    assert few.verdict == "too few plants to tell"
     # a strongly clustered Thomas pattern (κ = 40/ha, μ = 6, σ = 1.5 m) is described in metres
     clus = analyse_plot(thomas_pattern(plot, 0.004, 1.5, 6.0, rng=1), plot, "c", s)
-    assert clus.verdict == "clustered" and "plants, about" in clus.summary
+    assert clus.verdict == "clustered" and "m across (2σ" in clus.summary
+    assert clus.row()["verdict_in_words"] == "clustered"
+    # the cluster description carries its parametric-bootstrap 95% interval, and the interval
+    # brackets the point estimate (a percentile interval of refits of the fitted process)
+    crow = clus.row()
+    assert "95% interval" in crow["pattern_in_metres"]
+    assert crow["cluster_plants_low95"] < crow["cluster_plants_high95"]
+    assert crow["cluster_width_low95_m"] < crow["cluster_width_m"] < crow["cluster_width_high95_m"]

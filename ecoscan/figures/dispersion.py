@@ -13,6 +13,7 @@ from matplotlib.patches import PathPatch
 from matplotlib.path import Path as MplPath
 from scipy import stats as sps
 
+from ecoscan.detectable import NO_DEPARTURE, TOO_FEW
 from ecoscan.figures import PALETTE, new_figure, save_figure
 from ecoscan.stats.nearest import CE_SE_CONSTANT
 
@@ -312,18 +313,32 @@ def r_against_n_figure(
     )
     ax.axhline(1, color="#7f7f7f", linewidth=0.8)
     ax.axhline(2.1491, color="#1f4e8c", linewidth=0.6, linestyle=":")
-    ax.text(big, 2.1491, " hexagonal 2.149", va="center", fontsize=9, color="#1f4e8c")
+    # inside the axes: the legend stands to the right of them
+    ax.text(
+        0.99 * big,
+        2.1491,
+        "hexagonal 2.149 ",
+        ha="right",
+        va="bottom",
+        fontsize=9,
+        color="#1f4e8c",
+    )
     ax.axvline(30, color="#999999", linewidth=0.8, linestyle="--")
     ax.text(30, 0.02, " 30 points", fontsize=9, color="#666666")
     labelled: set = set()
-    for key in ("clustered", "random", "regular"):
+    for key, style, face in (
+        ("clustered", "clustered", None),
+        (NO_DEPARTURE, "random", None),
+        (TOO_FEW, "random", "white"),
+        ("regular", "regular", None),
+    ):
         sel = [r for r in rows if r.get("verdict") == key and r.get("R") not in (None, "")]
         if sel:
             ax.scatter(
                 [float(r["n"]) for r in sel],
                 [float(r["R"]) for r in sel],
-                color=PALETTE[key],
-                marker={"clustered": "s", "random": "o", "regular": "D"}[key],
+                color=face or PALETTE[style],
+                marker={"clustered": "s", "random": "o", "regular": "D"}[style],
                 s=36,
                 label=f"{key} (Monte Carlo)",
                 zorder=3,

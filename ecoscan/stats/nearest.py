@@ -37,6 +37,7 @@ __all__ = [
     "donnelly_expected",
     "guard_zone",
     "nn_distances",
+    "nn_distances_close_pairs",
 ]
 
 #: Standard-error constant of Clark & Evans (1954): sqrt((4 - pi) / (4 pi)) = 0.26136.
@@ -92,6 +93,59 @@ def nn_distances(xy: np.ndarray, others: np.ndarray | None = None) -> np.ndarray
         return out
     d, _ = tree.query(xy, k=2)
     return d[:, 1]
+
+
+def nn_distances_close_pairs(xy: np.ndarray, radius_m: float) -> np.ndarray:
+    """Nearest-neighbour distances of many points, from the pairs closer than a radius.
+
+    Parameters
+    ----------
+    xy : numpy.ndarray, shape (n, 2)
+        Points, metres (n ≥ 2); faster when neighbours in space are near in memory (e.g.
+        from :func:`ecoscan.stats.csr.uniform_in_cells`).
+    radius_m : float
+        Search radius, metres. About √(3 / (πλ)) at density λ leaves 5% of random points
+        with no pair (exp(−λπr²), the nearest-neighbour distribution under randomness).
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        Each point's distance to its nearest other point, metres: the same numbers as
+        :func:`nn_distances`.
+
+    Notes
+    -----
+    One dual-tree search lists every pair closer than ``radius_m``
+    (:meth:`scipy.spatial.cKDTree.query_pairs`); a point's nearest neighbour is its closest
+    pair, exactly, when it has one (any nearer point would be a pair too). Points with no
+    pair are queried one by one, in the tree's leaf order. For 100,000 random points this
+    measured about 1.5 times faster than querying every point.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> xy = np.random.default_rng(1).uniform(0, 100, (2000, 2))
+    >>> bool(np.array_equal(nn_distances_close_pairs(xy, 2.0), nn_distances(xy)))
+    True
+    """
+    xy = np.asarray(xy, float).reshape(-1, 2)
+    n = xy.shape[0]
+    tree = cKDTree(xy, balanced_tree=False, compact_nodes=False)
+    ij = tree.query_pairs(float(radius_m), output_type="ndarray")
+    i, j = ij[:, 0], ij[:, 1]
+    dx = xy[i, 0] - xy[j, 0]
+    dy = xy[i, 1] - xy[j, 1]
+    d = np.sqrt(dx * dx + dy * dy)
+    best = np.full(n, np.inf)
+    np.minimum.at(best, i, d)
+    np.minimum.at(best, j, d)
+    far = np.flatnonzero(np.isinf(best))
+    if far.size:
+        rank = np.empty(n, np.int64)
+        rank[tree.indices] = np.arange(n)
+        far = far[np.argsort(rank[far])]  # leaf order: neighbouring queries share nodes
+        best[far] = tree.query(xy[far], k=2)[0][:, 1]
+    return best
 
 
 @dataclass(frozen=True)

@@ -343,12 +343,38 @@ class ThomasFit:
         return 2.0 * self.sigma_m
 
     def describe(self) -> str:
-        """The fit in plain words."""
-        return (
-            f"clusters of about {self.mean_cluster_size:.1f} plants, about "
-            f"{self.cluster_diameter_m:.2g} m across (2σ), about "
-            f"{self.clusters_per_ha:.3g} clusters per hectare"
-        )
+        """The fit in plain words, with the bootstrap 95% intervals when there are any.
+
+        Examples
+        --------
+        >>> nan = float("nan")
+        >>> fit = ThomasFit(0.003, 1.5, 6.0, 0.018, nan, nan, nan, nan, nan, nan, nan, 10.0, 0)
+        >>> fit.describe()
+        'clusters of about 6.0 plants, about 3 m across (2σ), about 30 clusters per hectare'
+        >>> fit = ThomasFit(0.003, 1.5, 6.0, 0.018, 0.002, 0.005, 1.1, 2.0, 3.5, 9.0, 0.3,
+        ...                 10.0, 99)
+        >>> fit.describe()  # doctest: +NORMALIZE_WHITESPACE
+        'clusters of about 6.0 plants (95% interval 3.5–9), about 3 m across (2σ; 2.2–4 m),
+        about 30 clusters per hectare (20–50)'
+        """
+        size = f"clusters of about {self.mean_cluster_size:.1f} plants"
+        width = f"about {self.cluster_diameter_m:.2g} m across (2σ"
+        count = f"about {self.clusters_per_ha:.3g} clusters per hectare"
+        if np.isfinite(self.cluster_size_low) and np.isfinite(self.cluster_size_high):
+            size += f" (95% interval {self.cluster_size_low:.2g}–{self.cluster_size_high:.2g})"
+        if np.isfinite(self.sigma_low_m) and np.isfinite(self.sigma_high_m):
+            width += f"; {2 * self.sigma_low_m:.2g}–{2 * self.sigma_high_m:.2g} m"
+        if np.isfinite(self.parent_intensity_low) and np.isfinite(self.parent_intensity_high):
+            count += (
+                f" ({self.parent_intensity_low * 1e4:.3g}–{self.parent_intensity_high * 1e4:.3g})"
+            )
+        text = f"{size}, {width}), {count}"
+        if np.isfinite(self.fit_pvalue) and self.fit_pvalue < 0.05:
+            text += (
+                f"; the Thomas model fits poorly (p = {self.fit_pvalue:.2g}), so take these as "
+                "rough"
+            )
+        return text
 
 
 def _contrast_fit(r: np.ndarray, k_hat: np.ndarray, intensity: float) -> tuple[float, float]:

@@ -6,6 +6,7 @@ import html
 from pathlib import Path
 
 from ecoscan.detect import describe_settings
+from ecoscan.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -34,6 +35,7 @@ SUMMARY_COLUMNS = [
     "n",
     "density_per_ha",
     "verdict",
+    "detectable_range",
     "p_mc",
     "flags",
 ]
@@ -104,8 +106,21 @@ _MEANING = {
     "where neighbours compete for light and water",
     "clustered": "plants grow in groups, as in natural regeneration near seed trees or on "
     "patches of better ground",
-    "random": "the test found no departure from chance placement",
+    NO_DEPARTURE: "the test found no departure from chance placement, in a plot large enough "
+    "to have detected a moderate pattern",
+    TOO_FEW: "the test found no departure, but the plot holds too few plants (or has too "
+    "odd a shape) for even a fairly strong pattern to show: it says nothing either way",
 }
+
+
+def _verdict_phrase(verdict: str, ids: list[str]) -> str:
+    """'plots a and b are clustered', 'no departure was detected in plot c'..."""
+    one = len(ids) == 1
+    if verdict == NO_DEPARTURE:
+        return f"no departure from chance placement was detected in {_join(ids)}"
+    if verdict == TOO_FEW:
+        return f"{_join(ids)} {'has' if one else 'have'} too few plants to tell"
+    return f"{_join(ids)} {_verb(ids)} {verdict}"
 
 
 def short_warnings(text: str) -> str:
@@ -267,9 +282,20 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
     )
     if verdict in _MEANING:
         facts += (
-            f" {verdict.capitalize()}: {_MEANING[verdict]} (Monte Carlo p "
+            f" {verdict[:1].upper() + verdict[1:]}: {_MEANING[verdict]} (Monte Carlo p "
             f"{format_cell('p_mc', row.get('p_mc'))}, α = {alpha:g})."
         )
+    reach = detectable_range_short(row)
+    if reach and verdict not in (NO_DEPARTURE, TOO_FEW):  # those say it in their sentence
+        facts += f" With 80% power this plot could detect {reach}."
+    pattern = str(row.get("pattern_in_metres") or "")
+    pattern_html = ""
+    if pattern:
+        what = "Clusters" if verdict == "clustered" else "Spacing"
+        pattern_html = f"<p><strong>{what}:</strong> {_esc(pattern)}.</p>"
+    in_words = str(row.get("summary") or "")
+    if pattern and in_words.endswith("; " + pattern):
+        in_words = in_words[: -len(pattern) - 2]  # said above, with its interval
     warns = plain_warnings(row.get("warnings") or "", scale_warn)
     # the quadrat note matters to the analyst only: it goes with the statistics
     quad = [w for w in warns if "quadrat" in w]
@@ -294,7 +320,8 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
         f'<article class="plot" id="{plot_anchor(rr.entry.name, plot.plot_id)}">'
         f"<h4>Plot {_esc(plot.plot_id)} {pattern_tag(verdict)}</h4>"
         f'<div class="plotmain">{map_fig}<div class="plottext"><p>{_esc(facts)}</p>'
-        + (f"<p>In words: {_esc(row['summary'])}.</p>" if row.get("summary") else "")
+        + pattern_html
+        + (f"<p>In words: {_esc(in_words)}.</p>" if in_words else "")
         + f"{warn_html}</div></div>"
         "<details><summary>Analyst detail: every statistic, spacing, quadrats, scales"
         f'</summary>{quad_html}<div class="detail">{stats}{"".join(detail_figs)}</div></details>'
@@ -315,14 +342,14 @@ def _site_meaning(run) -> str:
             by: dict[str, list[str]] = {}
             for r in on:
                 by.setdefault(r.get("verdict") or "not tested", []).append(str(r["plot_id"]))
-            said = "; ".join(f"{_join(ids)} {_verb(ids)} {v}" for v, ids in by.items())
+            said = "; ".join(_verdict_phrase(v, ids) for v, ids in by.items())
             parts.append(f"On {date}: {said}.")
         verdicts = [
             v
-            for v in ("regular", "clustered", "random")
+            for v in ("regular", "clustered", NO_DEPARTURE, TOO_FEW)
             if any(r.get("verdict") == v for r in rows)
         ]
-        parts += [f"{v.capitalize()} means {_MEANING[v]}." for v in verdicts]
+        parts += [f"{v[:1].upper() + v[1:]} means {_MEANING[v]}." for v in verdicts]
         few = sorted({str(r["plot_id"]) for r in rows if (r.get("n") or 0) < 30})
         if few:
             text = (
@@ -412,6 +439,7 @@ def write_report(run, stat_settings) -> list[Path]:
             {
                 **r,
                 "flags": short_warnings(r.get("warnings", "")),
+                "detectable_range": detectable_range_short(r),
                 "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
             }
         )

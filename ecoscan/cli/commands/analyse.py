@@ -21,6 +21,7 @@ from ecoscan.cli._common import (
     print_notes,
     print_warnings,
 )
+from ecoscan.detectable import detectable_range_short
 from ecoscan.inputs import load_points_and_plots
 from ecoscan.lifecycle import output_folder
 from ecoscan.stats.montecarlo import DIRECTIONS
@@ -47,6 +48,7 @@ TABLE_COLUMNS = (
     "p_donnelly",
     "p_mc",
     "verdict",
+    "detectable_range",
     "quadrat_p",
     "morisita_std",
 )
@@ -134,7 +136,8 @@ def _few_simulations(settings: DispersionSettings) -> str:
 
 def _print(args, settings, results, notes, outdir) -> None:
     rows = dispersion_rows(results)
-    print(format_table(rows, TABLE_COLUMNS))
+    shown = [{**r, "detectable_range": detectable_range_short(r)} for r in rows]
+    print(format_table(shown, TABLE_COLUMNS))
     print()
     for r in rows:
         print(f"plot {r['plot_id']}: {r['summary']}")

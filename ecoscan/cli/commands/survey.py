@@ -38,10 +38,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def print_summary(run, quiet: bool = False) -> None:
     """Print the per-plot table (stdout) and where the outputs are (a note on stderr)."""
     from ecoscan.cli._common import print_notes
+    from ecoscan.detectable import detectable_range_short
     from ecoscan.tables import format_table
 
     cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "verdict"]
-    print(format_table(run.rows, cols))
+    cols.append("detectable_range")
+    shown = [{**r, "detectable_range": detectable_range_short(r)} for r in run.rows]
+    print(format_table(shown, cols))
     for ch in run.changes:
         print(
             f"change {ch.site} {ch.earlier} -> {ch.later}: shift "
