@@ -294,6 +294,41 @@ _TOPIC_METHODS = {
             "Ecological Monographs 84: 477–489.",
         ),
     ],
+    "habitat": [
+        (
+            "Plant density from habitat covariates",
+            "Log-linear intensity λ(u) = exp(β₀ + Σ β<sub>k</sub> z<sub>k</sub>(u)) fitted by "
+            "maximum likelihood: the Poisson-process likelihood approximated on a quadrature "
+            "of the plants and a grid of dummy points (weights = cell areas shared within "
+            "each cell) is a weighted Poisson GLM (statsmodels); Wald 95% intervals; the "
+            "effect stated as the density ratio per round step of the covariate. Without "
+            "covariates: Gaussian kernel density with Diggle's edge correction, bandwidth by "
+            "Scott's rule σ̄ n<sup>−1/6</sup>.",
+            "Berman, M. &amp; Turner, T. R. (1992). Applied Statistics 41: 31–38; Baddeley, A. "
+            "&amp; Turner, R. (2000). Aust. N. Z. J. Statistics 42: 283–322; Diggle, P. J. "
+            "(1985). Applied Statistics 34: 138–147; Scott, D. W. (1992). Multivariate "
+            "Density Estimation. Wiley.",
+        ),
+        (
+            "Clustering beyond habitat",
+            "Inhomogeneous K: each pair weighted by the edge weight over λ(x<sub>i</sub>) "
+            "λ(x<sub>j</sub>), divided by the plot area; L = √(K/π); pair correlation "
+            "likewise. Envelopes from the fitted inhomogeneous Poisson process simulated in "
+            "the exact plot (thinning), with the model refitted to every simulated pattern.",
+            "Baddeley, A. J., Møller, J. &amp; Waagepetersen, R. (2000). Statistica "
+            "Neerlandica 54: 329–350; Lewis, P. A. W. &amp; Shedler, G. S. (1979). Naval "
+            "Research Logistics Quarterly 26: 403–413.",
+        ),
+        (
+            "Size and spacing",
+            "Mark correlation k<sub>mm</sub>(r) = mean of m<sub>i</sub>m<sub>j</sub> over "
+            "pairs r apart / μ² (kernel-weighted), 1 when size does not depend on position; "
+            "mark variogram γ(r) = half the mean of (m<sub>i</sub> − m<sub>j</sub>)²; "
+            "envelopes from random permutations of the marks.",
+            "Stoyan, D. (1984). Math. Nachrichten 116: 197–207; Illian, J. et al. (2008). "
+            "Statistical Analysis and Modelling of Spatial Point Patterns. Wiley.",
+        ),
+    ],
     "compare": [
         (
             "Comparing groups",

@@ -105,6 +105,16 @@ class ScalesSettings:
         Point attribute with the kind of plant, for the bivariate analysis.
     kinds : tuple of str or None
         The two kinds (A, B) to compare, e.g. ``("live", "dead")``.
+    covariates : tuple of (str, str)
+        Habitat covariates as (name, raster path): plant density is fitted as a log-linear
+        function of them and clustering beyond it is tested (:mod:`ecoscan.habitat`).
+    kernel_intensity : bool
+        Without covariates, test clustering beyond a kernel-smoothed density.
+    mark : str or None
+        Numeric point column (e.g. ``diameter_m``) for the mark correlation test.
+    habitat_simulations : int or None
+        Simulated patterns of the fitted density model, and permutations of the marks, per
+        plot; None for ``simulations``.
     """
 
     simulations: int = 199
@@ -118,6 +128,10 @@ class ScalesSettings:
     min_points: int = 10
     kind_field: str | None = None
     kinds: tuple[str, str] | None = None
+    covariates: tuple[tuple[str, str], ...] = ()
+    kernel_intensity: bool = False
+    mark: str | None = None
+    habitat_simulations: int | None = None
 
     def __post_init__(self) -> None:
         _check(isinstance(self.simulations, int), "simulations must be a whole number")
@@ -160,6 +174,20 @@ class ScalesSettings:
                 "kinds must be two different values, e.g. live,dead",
             )
             _check(self.kind_field is not None, "kinds were given without the kind field")
+        _check(
+            self.habitat_simulations is None
+            or (isinstance(self.habitat_simulations, int) and self.habitat_simulations >= need),
+            f"habitat_simulations = {self.habitat_simulations} is too few for alpha = "
+            f"{self.alpha}; use at least {need} (99 or more is usual)",
+        )
+        _check(
+            isinstance(self.kernel_intensity, bool),
+            "kernel_intensity must be true or false",
+        )
+        _check(
+            self.mark is None or (isinstance(self.mark, str) and bool(self.mark.strip())),
+            "mark must be the name of a numeric point column, e.g. diameter_m",
+        )
 
     @classmethod
     def from_mapping(cls, d: Mapping[str, Any]) -> ScalesSettings:
@@ -182,13 +210,17 @@ class ScalesSettings:
             if "functions" in kw:
                 f = kw["functions"]
                 kw["functions"] = tuple(f.replace(",", " ").split() if isinstance(f, str) else f)
+            if "covariates" in kw:
+                from ecoscan.habitat import parse_covariates
+
+                kw["covariates"] = parse_covariates(kw["covariates"])
             if kw.get("kinds") is not None:
                 k = kw["kinds"]
                 kw["kinds"] = tuple(
                     s.strip() for s in (k.split(",") if isinstance(k, str) else map(str, k))
                 )
-            for key in ("simulations", "seed", "steps", "min_points"):
-                if key in kw and not isinstance(kw[key], bool):
+            for key in ("simulations", "seed", "steps", "min_points", "habitat_simulations"):
+                if kw.get(key) is not None and not isinstance(kw[key], bool):
                     v = kw[key]
                     if isinstance(v, float) and v != int(v):
                         raise InputError(f"{key} must be a whole number, not {v}")
@@ -205,6 +237,7 @@ class ScalesSettings:
         d = asdict(self)
         d["functions"] = list(self.functions)
         d["kinds"] = list(self.kinds) if self.kinds else None
+        d["covariates"] = dict(self.covariates)
         return d
 
 
@@ -271,6 +304,8 @@ class PlotScales:
     kinds_verdict : str
     alpha : float
         Level of the envelopes and tests.
+    habitat : ecoscan.habitat.PlotHabitat or None
+        The covariate model, the test beyond it and the size test, when asked for.
     """
 
     plot_id: str
@@ -290,6 +325,7 @@ class PlotScales:
     cross: CrossResult | None = None
     kinds_verdict: str = ""
     alpha: float = 0.05
+    habitat: Any = None  # ecoscan.habitat.PlotHabitat when covariates or a mark were asked for
 
 
 def _fmt_m(v: float) -> str:
@@ -537,6 +573,8 @@ def analyse_plot(
     settings: ScalesSettings,
     *,
     kinds: np.ndarray | None = None,
+    surfaces: Sequence[Any] | None = None,
+    marks: np.ndarray | None = None,
 ) -> PlotScales:
     """The analysis across scales of one plot (see :func:`analyse_scales`).
 
@@ -551,6 +589,10 @@ def analyse_plot(
     settings : ScalesSettings
     kinds : numpy.ndarray of str, optional
         Kind of each plant, for the bivariate analysis.
+    surfaces : sequence of CovariateSurface, optional
+        The habitat covariates around the plot (``settings.covariates``).
+    marks : numpy.ndarray, optional
+        The numeric mark of each plant (``settings.mark``).
 
     Returns
     -------
@@ -675,6 +717,29 @@ def analyse_plot(
     if kinds is not None and settings.kinds is not None:
         cross, kinds_verdict, w = _cross(xy, polygon, kinds, settings, max_distance, rng)
         warnings += w
+    habitat = None
+    if surfaces or settings.kernel_intensity or marks is not None:
+        from ecoscan.habitat import habitat_analysis
+
+        habitat = habitat_analysis(
+            xy,
+            polygon,
+            plot_id,
+            surfaces=surfaces,
+            covariates=settings.covariates,
+            kernel=settings.kernel_intensity,
+            marks=marks,
+            mark=settings.mark,
+            clustered_without=bool(clu),
+            max_distance_m=max_distance,
+            steps=settings.steps,
+            simulations=settings.habitat_simulations or settings.simulations,
+            alpha=settings.alpha,
+            test=test,
+            # its own streams, so that the results above do not change when it is asked for
+            rng=plot_rng(settings.seed, plot_id),
+        )
+        warnings += habitat.warnings
     return PlotScales(
         plot_id,
         n,
@@ -693,6 +758,7 @@ def analyse_plot(
         cross,
         kinds_verdict,
         settings.alpha,
+        habitat,
     )
 
 
@@ -787,7 +853,13 @@ def kinds_verdict(res: CrossResult, alpha: float) -> str:
     return "; ".join(out) + f" ({ps})"
 
 
-def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotScales]:
+def analyse_scales(
+    inputs: SurveyInputs,
+    settings: ScalesSettings,
+    *,
+    points_label: str = "the points",
+    notes: list[str] | None = None,
+) -> list[PlotScales]:
     """The analysis across scales of every plot, in layer order.
 
     Parameters
@@ -795,6 +867,11 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
     inputs : SurveyInputs
         Points and plots in one metric CRS.
     settings : ScalesSettings
+    points_label : str
+        How to name the points' file in messages (e.g. its path).
+    notes : list of str, optional
+        When given, points without the mark column skip the size test with a note appended
+        here (a survey whose detectors measure different sizes); otherwise that is an error.
 
     Returns
     -------
@@ -803,7 +880,9 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
     Raises
     ------
     InputError
-        When ``settings.kind_field`` is not an attribute of the points.
+        When ``settings.kind_field`` or ``settings.mark`` is not an attribute of the points,
+        a mark is missing or not a number, or a covariate raster does not cover a plot, is
+        constant over it or is in degrees without a CRS.
 
     Notes
     -----
@@ -833,6 +912,21 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
                 )
         else:
             raise InputError("--kind-field needs --kinds A,B: the two kinds to compare")
+    marks_all = None
+    if settings.mark is not None:
+        attrs = inputs.points.attrs
+        if settings.mark not in attrs and notes is not None:
+            notes.append(
+                f"{points_label} carry no {settings.mark!r} (columns: "
+                f"{', '.join(attrs) or 'none'}); the size and spacing test is skipped there"
+            )
+        elif settings.mark not in attrs:
+            raise InputError(
+                f"{points_label} has no column {settings.mark!r} for the mark (columns: "
+                f"{', '.join(attrs) or 'none'}); check --mark"
+            )
+        else:
+            marks_all = attrs[settings.mark]
     out = []
     xy_all = inputs.points.xy
     for i, plot in enumerate(inputs.plots):
@@ -843,7 +937,33 @@ def analyse_scales(inputs: SurveyInputs, settings: ScalesSettings) -> list[PlotS
             # of the first survey), for the univariate functions too
             m &= np.isin(kinds_all, list(settings.kinds))
             kinds = kinds_all[m]
-        out.append(analyse_plot(xy_all[m], plot.geometry, plot.plot_id, settings, kinds=kinds))
+        surfaces, marks = None, None
+        n = int(m.sum())
+        if n >= settings.min_points:
+            from ecoscan.habitat import check_marks, covariate_surfaces
+
+            if settings.covariates:
+                spacing = np.sqrt(plot.geometry.area / min(max(4 * n, 2500), 40_000))
+                surfaces = covariate_surfaces(
+                    settings.covariates,
+                    plot.geometry,
+                    plot.plot_id,
+                    inputs.layer.crs,
+                    max(spacing / 2, 0.05),
+                )
+            if marks_all is not None:
+                marks = check_marks(marks_all[m], settings.mark, points_label, plot.plot_id)
+        out.append(
+            analyse_plot(
+                xy_all[m],
+                plot.geometry,
+                plot.plot_id,
+                settings,
+                kinds=kinds,
+                surfaces=surfaces,
+                marks=marks,
+            )
+        )
     return out
 
 
@@ -916,6 +1036,10 @@ def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
                     "kinds_verdict": res.kinds_verdict,
                 }
             )
+        if res.habitat is not None:
+            from ecoscan.habitat import habitat_row
+
+            row.update(habitat_row(res.habitat))
         rows.append(row)
     return rows
 
@@ -982,6 +1106,13 @@ def function_rows(
                 FunctionCurve("K_difference", "m2", x.r_m, x.D.value, x.D.centre, x.D),
                 a,
             )
+        if res.habitat is not None:
+            from ecoscan.habitat import habitat_curves
+
+            for name, unit, r, env in habitat_curves(res.habitat):
+                rows += _curve_rows(
+                    res.plot_id, FunctionCurve(name, unit, r, env.value, env.centre, env), a
+                )
     return rows
 
 
@@ -1023,6 +1154,7 @@ def write_scales(
     frows = function_rows(results, settings.alpha)
     cols = SCALES_COLUMNS + [k for r in rows for k in r if k not in SCALES_COLUMNS]
     cols = list(dict.fromkeys(cols))
+    erows = effect_rows_of(results)
     paths = [
         write_csv(out / "functions.csv", frows, FUNCTION_COLUMNS),
         write_csv(out / "scales.csv", rows, cols),
@@ -1039,6 +1171,10 @@ def write_scales(
             },
         ),
     ]
+    if erows:
+        from ecoscan.habitat import EFFECT_COLUMNS
+
+        paths.append(write_csv(out / "effects.csv", erows, EFFECT_COLUMNS))
     used: set[str] = set()
     for res in results:
         if not res.curves:
@@ -1048,4 +1184,17 @@ def write_scales(
             name = name.replace(".png", "_.png")
         used.add(name)
         paths.append(plot_scales_figure(res, out / "figures" / name))
+        if res.habitat is not None:
+            from ecoscan.figures.habitat import plot_habitat_figure
+
+            hab = plot_habitat_figure(res, out / "figures" / name.replace("scales_", "habitat_", 1))
+            if hab is not None:
+                paths.append(hab)
     return paths
+
+
+def effect_rows_of(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
+    """Rows of ``effects.csv``: each covariate's effect on density, per plot."""
+    from ecoscan.habitat import effect_rows
+
+    return [r for res in results for r in effect_rows(res.plot_id, res.habitat)]

@@ -45,6 +45,10 @@ seed = 2026
 [scales]
 enabled = true
 simulations = 199
+mark = "diameter_m"             # does a plant's size depend on how close its neighbours are?
+habitat_simulations = 99        # for the covariate and size tests (keeps the demo quick)
+[scales.covariates]             # habitat rasters: is the clustering explained by them?
+elevation = "elevation.tif"
 
 [change]
 tolerance_m = 0.8
@@ -149,6 +153,58 @@ def _truth_points(rows) -> PointSet:
     )
 
 
+#: The invented elevation model: 1 m pixels over both sites, metres above an invented datum.
+ELEVATION_PX = 1.0
+ELEVATION_BOUNDS = (430_990.0, 5_411_990.0, 431_510.0, 5_412_090.0)
+
+
+def write_elevation(out: Path = HERE) -> None:
+    """Write the invented elevation raster (``elevation.tif``) of both demo sites.
+
+    A gentle slope up to the north-east with shallow hollows under the two clustered plots'
+    plant groups (their true positions smoothed with a 4 m Gaussian kernel): the plants
+    gather in the hollows, so elevation explains the broad clustering but not the tight
+    groups around seed shrubs. It replays the scenario with the same seed (no other file
+    changes).
+    """
+    from scipy.ndimage import gaussian_filter
+
+    rng = np.random.default_rng(SEED)
+    tansy = sc.tansy_plots(rng)
+    sc.autumn_change(tansy, rng)
+    marrow = sc.marrow_plots(rng)
+    x0, y0, x1, y1 = ELEVATION_BOUNDS
+    px = ELEVATION_PX
+    w, h = round((x1 - x0) / px), round((y1 - y0) / px)
+    xy = np.vstack([p.xy for p in tansy + marrow if p.verdict == "clustered"])
+    col = ((xy[:, 0] - x0) / px).astype(int)
+    row = ((y1 - xy[:, 1]) / px).astype(int)
+    counts = np.zeros((h, w))
+    np.add.at(counts, (row, col), 1.0)
+    dens = gaussian_filter(counts, 4.0 / px, mode="constant")
+    dens /= dens.max()
+    gx, gy = np.meshgrid(x0 + px * (np.arange(w) + 0.5), y1 - px * (np.arange(h) + 0.5))
+    elev = 412.0 + 0.03 * (gx - x0) + 0.06 * (gy - y0) - 5.0 * dens
+    with atomic_path(out / "elevation.tif") as tmp:
+        with rasterio.open(
+            tmp,
+            "w",
+            driver="GTiff",
+            width=w,
+            height=h,
+            count=1,
+            dtype="float32",
+            transform=from_origin(x0, y1, px, px),
+            crs=CRS_UTM.to_wkt(),
+            nodata=-9999.0,
+            compress="deflate",
+            predictor=3,
+        ) as dst:
+            dst.write(elev.astype("float32")[None])
+            dst.units = ("metre",)
+            dst.set_band_description(1, "elevation (invented demo data)")
+
+
 def main(out: Path = HERE) -> None:
     """Write the demo survey into ``out``."""
     rng = np.random.default_rng(SEED)
@@ -226,6 +282,7 @@ def main(out: Path = HERE) -> None:
     _write_tif(out / "marrow_autumn_classes.tif", cls, tr, "uint8", nodata=0)
     write_points(_truth_points(_truth_rows(marrow)), out / "truth" / "marrow_trees.csv")
 
+    write_elevation(out)
     write_text(out / "survey.toml", SURVEY)
     legend = (
         "Classes in marrow_autumn_classes.tif (invented): 0 no data, 1 bare ground, "
@@ -244,4 +301,8 @@ def main(out: Path = HERE) -> None:
 
 
 if __name__ == "__main__":
-    main()
+    if sys.argv[1:] == ["--elevation-only"]:  # the covariate and survey file, nothing else
+        write_elevation()
+        write_text(HERE / "survey.toml", SURVEY)
+    else:
+        main()

@@ -132,6 +132,11 @@ def _points_with_prj(prj: bytes):
     return argv
 
 
+def _no_scales_output(base: Path, out: Path) -> None:
+    assert not (out / "sc").exists()
+    assert not [p for p in out.iterdir() if ".tmp-ecoscan" in p.name]
+
+
 def _nothing_written(out: Path) -> None:
     assert not [p for p in out.iterdir() if p.suffix != ".toml"], list(out.iterdir())
 
@@ -443,6 +448,37 @@ def _two_sites(base: Path, out: Path) -> list[str]:
     return _survey(extra)(base, out)
 
 
+def _covariate(*, constant=False, origin=(X0 - 5, Y0 + 45), pixel=1.0, crs=UTM, shape=(50, 100)):
+    """A case running ``scales --covariate elevation=<raster>`` with the raster described."""
+
+    def argv(base: Path, out: Path) -> list[str]:
+        rows, cols = shape
+        arr = np.full((rows, cols), 350.0, "float32")
+        if not constant:  # a slope, 0.1 units per pixel
+            arr += 0.1 * np.arange(cols, dtype="float32")[None, :]
+        write_geotiff(out / "dem.tif", arr, from_origin(origin[0], origin[1], pixel, pixel), crs)
+        return _scales(base, out, *SIMS, "--covariate", f"elevation={out / 'dem.tif'}")
+
+    return argv
+
+
+def _marks(column: list[str]):
+    """A case running ``scales --mark diameter_m`` on points whose diameters are given."""
+
+    def argv(base: Path, out: Path) -> list[str]:
+        lines = (base / "plants.csv").read_text().splitlines()
+        body = [
+            f"{ln},{column[i % len(column)] if i < len(column) else '1.5'}"
+            for i, ln in enumerate(lines[1:])
+        ]
+        (out / "sized.csv").write_text("x,y,diameter_m\n" + "\n".join(body) + "\n")
+        a = _scales(base, out, *SIMS, "--mark", "diameter_m")
+        a[1] = str(out / "sized.csv")
+        return a
+
+    return argv
+
+
 CASES: list[Case] = [
     # ---------------------------------------------------------------- options (all commands)
     Case(
@@ -586,6 +622,68 @@ CASES: list[Case] = [
             b, o, "--plots", str(b / "plots.geojson"), "--mask", str(b / "chm.tif")
         ),
         says=("--plots or --mask",),
+    ),
+    Case(
+        "covariate-not-covering",
+        "scales",
+        "`--covariate elevation=dem.tif` whose raster covers only one of the two plots",
+        "exit 2, names the covariate, its file and the plot it misses",
+        _covariate(shape=(50, 48)),
+        says=("covariate elevation", "dem.tif", "does not cover plot slope"),
+        check=_no_scales_output,
+    ),
+    Case(
+        "covariate-constant",
+        "scales",
+        "`--covariate` raster with the same value everywhere",
+        "exit 2: its effect cannot be estimated; names the file and the plot",
+        _covariate(constant=True),
+        says=("constant over plot meadow", "dem.tif"),
+        check=_no_scales_output,
+    ),
+    Case(
+        "covariate-degrees-without-crs",
+        "scales",
+        "`--covariate` raster without a CRS whose coordinates are degrees",
+        "exit 2: assign its CRS or reproject it",
+        _covariate(origin=(14.5, 47.1), pixel=1e-5, crs=None),
+        says=("no CRS", "degrees", "dem.tif"),
+        check=_no_scales_output,
+    ),
+    Case(
+        "covariate-no-name",
+        "scales",
+        "`--covariate dem.tif` (no NAME=)",
+        "exit 2: write NAME=PATH",
+        lambda b, o: _scales(b, o, "--covariate", "dem.tif"),
+        says=("NAME=PATH",),
+    ),
+    Case(
+        "mark-column-missing",
+        "scales",
+        "`--mark diameter_m` on points without that column",
+        "exit 2, names the points file and its columns",
+        lambda b, o: _scales(b, o, *SIMS, "--mark", "diameter_m"),
+        says=("plants.csv", "'diameter_m'", "--mark"),
+        check=_no_scales_output,
+    ),
+    Case(
+        "mark-not-numeric",
+        "scales",
+        "`--mark diameter_m` with a value `big`",
+        "exit 2, names the file, the value and the plot",
+        _marks(["1.2", "big"]),
+        says=("sized.csv", "'big'", "plot meadow"),
+        check=_no_scales_output,
+    ),
+    Case(
+        "mark-missing-value",
+        "scales",
+        "`--mark diameter_m` with an empty value",
+        "exit 2, names the file and the plot",
+        _marks(["1.2", ""]),
+        says=("sized.csv", "missing value", "plot meadow"),
+        check=_no_scales_output,
     ),
     Case(
         "kinds-without-field",

@@ -304,3 +304,28 @@ def test_report_index_fits_screen_and_first_a4_page(demo_run):
     assert paper["wide_tables"] == 0 and paper["page_width"] <= paper["cw"]  # nothing clipped
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
     assert pdf[:5] == b"%PDF-" and pages > 3
+
+
+def test_elevation_explains_the_groups_and_sizes_are_tested(demo_run):
+    # the invented elevation model has hollows under the groups of the two clustered plots
+    # (sample_rasters/make_demo.py, write_elevation) and only a gentle slope elsewhere: the
+    # fitted effect must be "denser on lower ground" there (ground truth of the demo)
+    import csv
+
+    _cfg, run = demo_run
+    with open(run.output / "effects.csv", newline="") as f:
+        eff = list(csv.DictReader(f))
+    for r in eff:
+        if r["plot_id"] in ("regen", "thicket"):
+            assert float(r["coefficient_high"]) < 0, r
+            assert "lower elevation" in r["effect"]
+    with open(run.output / "scales.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    for r in rows:
+        if r["plot_id"] in ("regen", "thicket"):
+            assert "elevation" in r["habitat_verdict"]
+        if r["raster"].startswith("tansy") and int(r["n"]) >= 10:
+            assert r["mark"] == "diameter_m" and r["marks_verdict"]
+    assert any("size and spacing test is skipped" in n for n in run.notes)  # the CHM raster
+    html = (run.output / "report.html").read_text(encoding="utf-8")
+    assert "Why the pattern" in html and "times denser per" in html

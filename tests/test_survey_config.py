@@ -77,11 +77,12 @@ def test_documented_example_parses(tmp_path):
 
     doc = (Path(__file__).resolve().parent.parent / "docs" / "survey-file.md").read_text()
     text = re.search(r"```toml\n(.*?)```", doc, re.S).group(1)
-    _touch(tmp_path, "plots.gpkg", "spring_rgb.tif")
+    _touch(tmp_path, "plots.gpkg", "spring_rgb.tif", "dem.tif", "twi.tif")
     f = tmp_path / "s.toml"
     f.write_text(text)
     cfg = load_survey(f)
     assert cfg.scales_enabled and cfg.rasters[0].detect["method"] == "imagery"
+    assert set(cfg.scales["covariates"]) == {"elevation", "wetness"}
     assert cfg.statistics["simulations"] == 999 and cfg.workers == 2
 
 

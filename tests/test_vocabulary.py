@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import shapely
 
-from ecoscan import analysis, change, compare, planning, scales, validation
+from ecoscan import analysis, change, compare, habitat, planning, scales, validation
 from ecoscan.cli import build_parser, main
 from ecoscan.report import table_html
 from ecoscan.stats.csr import uniform_in_polygon
@@ -31,6 +31,8 @@ TABLES = {
     "accuracy.csv": validation.COLUMNS,
     "scales.csv": scales.SCALES_COLUMNS,
     "functions.csv": scales.FUNCTION_COLUMNS,
+    "scales.csv with habitat and marks": [*scales.SCALES_COLUMNS, *habitat.HABITAT_COLUMNS],
+    "effects.csv": habitat.EFFECT_COLUMNS,
     "plan-pattern.csv": planning.PATTERN_COLUMNS,
     "plan-design.csv": planning.DESIGN_COLUMNS,
     "report index": reporting.SUMMARY_COLUMNS,

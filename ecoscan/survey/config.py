@@ -371,6 +371,14 @@ def load_survey(path: str | Path) -> SurveyConfig:
 
     statistics = _section("statistics", set(), "ecoscan.analysis", "DispersionSettings")
     scales = _section("scales", {"enabled"}, "ecoscan.scales", "ScalesSettings")
+    cov = scales.get("covariates")
+    if isinstance(cov, dict) and all(isinstance(v, str) for v in cov.values()):
+        # covariate rasters are relative to the survey file, like every other path
+        resolved = {}
+        for cname, value in cov.items():
+            cp = _file(("scales", "covariates", cname), value, f"covariate {cname}")
+            resolved[cname] = str(cp) if cp is not None else value
+        scales = {**scales, "covariates": resolved}
     change = _section("change", _SECTIONS["change"], None, None)
     compare = _section("compare", _SECTIONS["compare"], None, None)
     _values(problems, ("survey",), "survey", survey)

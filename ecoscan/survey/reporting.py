@@ -520,6 +520,13 @@ def write_report(run, stat_settings) -> list[Path]:
             )
         )
 
+    if any(s.habitat is not None for rr in run.rasters for s in rr.scales or []):
+        from ecoscan.survey.reporting_why import why_section
+
+        why, why_files = why_section(run, figdir)
+        sections.append(why)
+        files += why_files
+
     if run.comparisons:
         sections.append(_comparison_section(run))
     if run.changes:
@@ -528,6 +535,8 @@ def write_report(run, stat_settings) -> list[Path]:
     topics = ["detection"]
     if any(rr.scales for rr in run.rasters):
         topics.append("scales")
+    if any(s.habitat is not None for rr in run.rasters for s in rr.scales or []):
+        topics.append("habitat")
     if run.comparisons:
         topics.append("compare")
     if run.changes:

@@ -12,6 +12,7 @@ Output folder layout::
       points/NAME.gpkg    detected plants per raster (also NAME.csv); NAME.key.json marks a
                           finished detection for the rerun cache
       scales.csv, functions.csv   when [scales] is enabled
+      effects.csv         each habitat covariate's effect on density (with [scales] covariates)
       change/SITE_D1_D2/  change between consecutive dates of a site
       compare/            comparison between sites (or plots)
       figures/            PNG figures
@@ -400,7 +401,12 @@ def _run_survey(
         if scales_settings is not None:
             from ecoscan.scales import analyse_scales
 
-            scl = analyse_scales(inputs, scales_settings)
+            scl = analyse_scales(
+                inputs,
+                scales_settings,
+                points_label=f"the plants detected in {entry.path.name}",
+                notes=notes,
+            )
         run.rasters.append(
             RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs, detection)
         )
@@ -473,6 +479,16 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
             frows += [{**lab, **r} for r in function_rows(rr.scales)]
         run.files.append(write_csv(out / "scales.csv", srows))
         run.files.append(write_csv(out / "functions.csv", frows))
+        from ecoscan.habitat import EFFECT_COLUMNS
+        from ecoscan.scales import effect_rows_of
+
+        erows = []
+        for rr in run.rasters:
+            lab = {"site": rr.entry.site, "date": rr.entry.date, "raster": rr.entry.name}
+            erows += [{**lab, **r} for r in effect_rows_of(rr.scales or [])]
+        if erows:
+            cols = ["site", "date", "raster", *EFFECT_COLUMNS]
+            run.files.append(write_csv(out / "effects.csv", erows, cols))
 
 
 def _run_change(run: SurveyRun) -> None:
@@ -544,6 +560,18 @@ def _write_provenance(run, stat_settings, scales_settings, started, finished, se
             "sha256": file_sha256(cfg.plots),
         },
     ]
+    for cname, cpath in (cfg.scales.get("covariates") or {}).items():
+        cp = Path(cpath)
+        if cp.is_file():
+            inputs.append(
+                {
+                    "role": "covariate",
+                    "name": cname,
+                    "path": str(cp),
+                    "bytes": cp.stat().st_size,
+                    "sha256": file_sha256(cp),
+                }
+            )
     for e in cfg.rasters:
         inputs.append(
             {

@@ -80,6 +80,15 @@ def _text_or_list(v: Any) -> str | None:
     return f'should be text such as "a,b" or a list, not {_shown(v)}'
 
 
+def _raster_table(v: Any) -> str | None:
+    if isinstance(v, dict) and v and all(isinstance(x, str) for x in v.values()):
+        return None
+    return (
+        "should be a table of covariate names and raster files, e.g. "
+        f'{{ elevation = "dem.tif" }}, not {_shown(v)}'
+    )
+
+
 def _diameter(v: Any) -> str | None:
     if isinstance(v, str):
         parts = [p.strip() for p in v.split(":")]
@@ -142,6 +151,10 @@ RULES: dict[str, dict[str, Check]] = {
         "min_points": _whole(1),
         "kind_field": _text,
         "kinds": _text_or_list,
+        "covariates": _raster_table,
+        "kernel_intensity": _flag,
+        "mark": _text,
+        "habitat_simulations": _SIMULATIONS,
     },
     "change": {"enabled": _flag, "tolerance_m": _positive, "estimate_shift": _flag},
     "compare": {"enabled": _flag, "by": _text, "permutations": _SIMULATIONS},

@@ -28,7 +28,10 @@ DESCRIPTION = (
     "them with simulations of complete spatial randomness in the same polygon, and say at\n"
     "which distances the plants are significantly clustered or regular. With --kind-field and\n"
     "--kinds, also test whether one kind of plant (e.g. dead) is placed like a random subset\n"
-    "of all plants. Automated counts need field checks before any management decision."
+    "of all plants. With --covariate NAME=RASTER, fit plant density to habitat rasters and\n"
+    "say whether the clustering is explained by them or goes beyond them; with --mark COLUMN,\n"
+    "whether close neighbours are smaller or larger than average (docs/methods-covariates.md).\n"
+    "Automated counts need field checks before any management decision."
 )
 EXAMPLE = (
     "ecoscan scales points.csv --plots plots.gpkg -o results/scales --simulations 199 "
@@ -82,6 +85,32 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="A,B",
         help="the two kinds to compare, e.g. live,dead: is B placed like a random subset?",
     )
+    p.add_argument(
+        "--covariate",
+        action="append",
+        metavar="NAME=RASTER",
+        help="a habitat covariate raster, e.g. elevation=dem.tif (repeatable): fit plant "
+        "density to it and test for clustering beyond what it explains",
+    )
+    p.add_argument(
+        "--kernel-intensity",
+        action="store_true",
+        help="without --covariate: test for clustering beyond a kernel-smoothed density "
+        "(bandwidth by Scott's rule)",
+    )
+    p.add_argument(
+        "--habitat-simulations",
+        type=int,
+        metavar="N",
+        help="simulations of the fitted density model and permutations of the marks per plot "
+        "(default: --simulations)",
+    )
+    p.add_argument(
+        "--mark",
+        metavar="COLUMN",
+        help="numeric point column such as diameter_m or height_m: does a plant's size depend "
+        "on how close its neighbours are (mark correlation with permutation envelopes)?",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -101,22 +130,31 @@ def run(args: argparse.Namespace) -> int:
             "test_function": args.test_function,
             "kind_field": args.kind_field,
             "kinds": args.kinds,
+            "covariates": args.covariate or (),
+            "kernel_intensity": bool(args.kernel_intensity),
+            "mark": args.mark,
+            "habitat_simulations": args.habitat_simulations,
         }
     )
     if settings.kinds is not None and len(settings.kinds) != 2:
         raise InputError("--kinds needs exactly two values separated by a comma, e.g. live,dead")
     with output_folder(
-        args.output, overwrite=args.overwrite, inputs=[args.points, args.plots]
+        args.output,
+        overwrite=args.overwrite,
+        inputs=[args.points, args.plots, *(p for _n, p in settings.covariates)],
     ) as tmp:
         inputs = load_points_and_plots(
             args.points, args.plots, crs=args.crs, id_field=args.id_field
         )
-        results = analyse_scales(inputs, settings)
+        results = analyse_scales(inputs, settings, points_label=str(args.points))
         paths = write_scales(tmp, results, settings)
     rows = scales_rows(results)
     cols = ["plot_id", "n", "p_global", "verdict"]
     if any("kinds_verdict" in r for r in rows):
         cols.append("kinds_verdict")
+    for key in ("habitat_verdict", "marks_verdict"):
+        if any(r.get(key) for r in rows):
+            cols.append(key)
     print(format_table(rows, cols, max_width=90))
     print_warnings([f"plot {r.plot_id}: {w}" for r in results for w in r.warnings])
     print_notes([*inputs.notes, f"wrote {len(paths)} files to {args.output}"], args.quiet)
