@@ -105,7 +105,9 @@ def _read_prj(prj: Path) -> str:
         ) from None
 
 
-def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+def _read_points_csv(
+    path: Path, allow_empty: bool = False
+) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
     try:
         with open(path, newline="", encoding="utf-8-sig") as fh:
             sample = fh.read(4096)
@@ -136,6 +138,17 @@ def _read_points_csv(path: Path) -> tuple[np.ndarray, np.ndarray, dict[str, np.n
             "name the easting column x and the northing column y"
         )
     body = rows[1:]
+    if not body and allow_empty:
+        empty = np.empty(0)
+        return (
+            empty,
+            empty.copy(),
+            {
+                h: np.empty(0)
+                for h, lo in zip(header, lower, strict=True)
+                if h and lo not in ("x", "y")
+            },
+        )
     if not body:
         raise InputError(f"{path.name} has a header but no points")
     ncol = len(header)
@@ -180,6 +193,7 @@ def read_points(
     crs: str | CRS | None = None,
     *,
     layer: str | None = None,
+    allow_empty: bool = False,
 ) -> PointSet:
     """Read plant positions and bring them into a metric CRS.
 
@@ -193,6 +207,9 @@ def read_points(
         overrides a sidecar or embedded CRS.
     layer : str, optional
         Layer name for multi-layer files such as GeoPackage.
+    allow_empty : bool
+        Accept a CSV with a header and no rows (ecoscan's own table of a raster where
+        detection found nothing) and return an empty set; by default that is an error.
 
     Returns
     -------
@@ -212,7 +229,7 @@ def read_points(
     notes: list[str] = []
     suffix = p.suffix.lower()
     if suffix in (".csv", ".txt", ".tsv"):
-        x, y, attrs = _read_points_csv(p)
+        x, y, attrs = _read_points_csv(p, allow_empty)
         file_crs = None
         prj = sidecar_prj(p)
         if prj.exists():
@@ -243,7 +260,7 @@ def read_points(
         raise InputError(
             f"{p.name}: unknown points format {p.suffix!r}; use .csv, .gpkg, .geojson or .shp"
         )
-    if x.size == 0:
+    if x.size == 0 and not allow_empty:
         raise InputError(f"{p.name} contains no points")
     use_crs = user_crs or file_crs
     if user_crs is not None and file_crs is not None and user_crs != file_crs:

@@ -88,3 +88,35 @@ def test_survey_with_too_few_simulations_says_so(tmp_path):
     assert any("smallest possible Monte Carlo p is 0.1" in n for n in run.notes)
     west = next(r for r in run.rows if r["plot_id"] == "west")
     assert "use at least 40 simulations" in west["warnings"]
+
+
+def test_raster_without_any_plant_gives_zero_counts(tmp_path):
+    # A later height model over ground cleared of every tree (all heights 0.1 m, under the
+    # 2 m lowest tree top): detection finds nothing, and the plots it covers hold a real
+    # zero (they were surveyed). The survey used to stop with "<raster>.csv has a header but
+    # no points" when it read its own empty table back.
+    _scene(tmp_path)
+    with rasterio.open(
+        tmp_path / "cleared.tif",
+        "w",
+        driver="GTiff",
+        width=400,
+        height=200,
+        count=1,
+        dtype="float32",
+        transform=from_origin(X0, Y0 + 20, PX, PX),
+        crs=UTM.to_wkt(),
+    ) as dst:
+        dst.write(np.full((1, 200, 400), 0.1, dtype="float32"))
+    text = (tmp_path / "s.toml").read_text()
+    (tmp_path / "s.toml").write_text(
+        text + '[[raster]]\npath = "cleared.tif"\nsite = "test"\ndate = "2026-09-01"\n'
+        '[raster.detect]\nmethod = "chm"\n'
+    )
+    run = run_survey(load_survey(tmp_path / "s.toml"), output=tmp_path / "out")
+    later = {r["plot_id"]: r for r in run.rows if r["date"] == "2026-09-01"}
+    assert set(later) == {"west", "lone", "bare"}
+    assert all(r["n"] == 0 for r in later.values()), {k: r["n"] for k, r in later.items()}
+    # a rerun reuses the empty detection from the cache and gives the same table
+    again = run_survey(load_survey(tmp_path / "s.toml"), output=tmp_path / "out", overwrite=True)
+    assert [r["n"] for r in again.rows] == [r["n"] for r in run.rows]

@@ -183,7 +183,7 @@ def _detect(
             if (old / name).exists():
                 shutil.copy2(old / name, pts_dir / name)
         info = json.loads(key_file.read_text(encoding="utf-8"))
-        pts = read_points(csv)
+        pts = read_points(csv, allow_empty=True)
         log.info(
             "reused detection for %s (raster, plots and detector settings unchanged)",
             entry.path.name,
@@ -213,7 +213,7 @@ def _detect(
     )
     # analyse what was written (coordinates to the millimetre), so that a rerun from the
     # cache gives byte-identical tables
-    pts = read_points(csv)
+    pts = read_points(csv, allow_empty=True)
     return pts, res.method, list(res.notes), False, float(res.pixel_size_m), detection
 
 
