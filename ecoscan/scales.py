@@ -42,7 +42,7 @@ from ecoscan.stats.distance_functions import (
     nn_function,
 )
 from ecoscan.stats.edge import boundary_distance
-from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, envelope_test
+from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, distance_runs, envelope_test
 from ecoscan.stats.second_order import default_max_distance, r_grid, second_order, shorter_side_m
 from ecoscan.vocabulary import RENAMED_VALUES
 
@@ -334,7 +334,7 @@ _MIN_RUN_STEPS = 3
 _MERGE_GAP_STEPS = 2
 
 
-def _merged_index_runs(mask: np.ndarray, other: np.ndarray) -> list[tuple[int, int]]:
+def _merged_indexdistance_runs(mask: np.ndarray, other: np.ndarray) -> list[tuple[int, int]]:
     """Index runs of ``mask``, merging those split by a short gap free of ``other``."""
     m = np.asarray(mask, bool)
     o = np.asarray(other, bool)
@@ -351,16 +351,6 @@ def _merged_index_runs(mask: np.ndarray, other: np.ndarray) -> list[tuple[int, i
         else:
             out.append((int(a), int(b)))
     return out
-
-
-def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
-    m = np.asarray(mask, bool)
-    if not m.any():
-        return []
-    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
-    starts = np.flatnonzero(edges == 1)
-    ends = np.flatnonzero(edges == -1) - 1
-    return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]
 
 
 # ------------------------------------------------------------------------ interpretation
@@ -440,13 +430,13 @@ def interpret(
             f"no significant departure from a random pattern at distances up to "
             f"{_fmt_m(r[-1])} m ({p_txt}){small}",
         )
-    reg = _runs(regular, r)
-    clu = _runs(clustered, r)
+    reg = distance_runs(regular, r)
+    clu = distance_runs(clustered, r)
     # the verdict merges runs split by a gap of a step or two and names the main range;
     # the exact ranges stay in the *_ranges_m columns
     events = []
     for kind, mask, other in (("regular", regular, clustered), ("clustered", clustered, regular)):
-        merged = _merged_index_runs(mask, other)
+        merged = _merged_indexdistance_runs(mask, other)
         if not merged:
             continue
         long = [(a, b) for a, b in merged if b - a + 1 >= _MIN_RUN_STEPS]
@@ -810,8 +800,8 @@ def kinds_verdict(res: CrossResult, alpha: float) -> str:
     each = alpha / 2
     pd = res.D.pvalue
     if np.isfinite(pd) and pd <= each:
-        more = _runs(res.D.above, r)
-        less = _runs(res.D.below, r)
+        more = distance_runs(res.D.above, r)
+        less = distance_runs(res.D.below, r)
         if more:
             out.append(
                 f"{b} plants are more clustered among themselves than {a} plants "
@@ -821,8 +811,8 @@ def kinds_verdict(res: CrossResult, alpha: float) -> str:
             out.append(f"{b} plants are more evenly spread than {a} plants {_describe(less, r[0])}")
     pl = res.L_between_kinds.pvalue
     if np.isfinite(pl) and pl <= each:
-        near = _runs(res.L_between_kinds.above, r)
-        far = _runs(res.L_between_kinds.below, r)
+        near = distance_runs(res.L_between_kinds.above, r)
+        far = distance_runs(res.L_between_kinds.below, r)
         if near:
             out.append(
                 f"{b} plants lie closer to {a} plants than a random split gives "

@@ -37,6 +37,7 @@ from scipy.stats import rankdata
 __all__ = [
     "GLOBAL_TESTS",
     "Envelope",
+    "distance_runs",
     "envelope_test",
     "pointwise_envelope",
     "rank_length_measure",
@@ -250,3 +251,32 @@ def envelope_test(
             lo[cols] = centre[cols] - u
             hi[cols] = centre[cols] + u
     return Envelope(obs, centre, lo, hi, lo_pw, hi_pw, p, test, float(alpha), s)
+
+
+def distance_runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
+    """The distance ranges over which a boolean mask along ``r`` holds.
+
+    Parameters
+    ----------
+    mask : numpy.ndarray of bool, shape (m,)
+        True where the curve is outside its band (e.g. ``Envelope.above``).
+    r : numpy.ndarray, shape (m,)
+        Distances, metres.
+
+    Returns
+    -------
+    list of (float, float)
+        First and last distance of each run of consecutive True values, in order.
+
+    Examples
+    --------
+    >>> distance_runs(np.array([False, True, True, False, True]), np.arange(5.0))
+    [(1.0, 2.0), (4.0, 4.0)]
+    """
+    m = np.asarray(mask, bool)
+    if not m.any():
+        return []
+    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1
+    return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]

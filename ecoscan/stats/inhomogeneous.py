@@ -38,7 +38,7 @@ import shapely
 
 from ecoscan.stats.csr import as_rng
 from ecoscan.stats.edge import boundary_distance
-from ecoscan.stats.envelopes import Envelope, envelope_test
+from ecoscan.stats.envelopes import Envelope, distance_runs, envelope_test
 from ecoscan.stats.second_order import (
     PairTable,
     _k_and_kernel_sums,
@@ -272,16 +272,6 @@ def habitat_test(
     return HabitatTest(obs, L, g, K, simulations)
 
 
-def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
-    m = np.asarray(mask, bool)
-    if not m.any():
-        return []
-    edges = np.diff(np.r_[0, m.astype(np.int8), 0])
-    starts = np.flatnonzero(edges == 1)
-    ends = np.flatnonzero(edges == -1) - 1
-    return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]
-
-
 def _fmt_m(v: float) -> str:
     v = float(v)
     if v >= 10:
@@ -349,8 +339,8 @@ def habitat_verdict(
         if clustered_without:
             return [], [], f"clustering explained by {explained_by} ({p_txt})"
         return [], [], (f"no interaction among plants once {explained_by} is allowed for ({p_txt})")
-    clu = _runs(env.above, r)
-    reg = _runs(env.below, r)
+    clu = distance_runs(env.above, r)
+    reg = distance_runs(env.below, r)
     step = float(r[1] - r[0]) if r.size > 1 else 1.0
 
     def long(ranges):

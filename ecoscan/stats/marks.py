@@ -39,7 +39,7 @@ import numpy as np
 import shapely
 
 from ecoscan.stats.csr import as_rng
-from ecoscan.stats.envelopes import Envelope, envelope_test
+from ecoscan.stats.envelopes import Envelope, distance_runs, envelope_test
 from ecoscan.stats.second_order import (
     PairTable,
     _k_and_kernel_sums,
@@ -235,16 +235,6 @@ def mark_test(
     return MarkResult(mark, r, k_env, g_env, float(np.mean(m)), var, n, permutations)
 
 
-def _runs(mask: np.ndarray, r: np.ndarray) -> list[tuple[float, float]]:
-    mk = np.asarray(mask, bool)
-    if not mk.any():
-        return []
-    edges = np.diff(np.r_[0, mk.astype(np.int8), 0])
-    starts = np.flatnonzero(edges == 1)
-    ends = np.flatnonzero(edges == -1) - 1
-    return [(float(r[a]), float(r[b])) for a, b in zip(starts, ends, strict=True)]
-
-
 def _fmt_m(v: float) -> str:
     v = float(v)
     return f"{v:.0f}" if v >= 10 else (f"{v:.1f}" if v >= 1 else f"{v:.2g}")
@@ -298,8 +288,8 @@ def mark_verdict(
                 f"{_fmt_m(r[-1])} m ({p_txt})"
             ),
         )
-    small = _runs(env.below, r)
-    large = _runs(env.above, r)
+    small = distance_runs(env.below, r)
+    large = distance_runs(env.above, r)
     step = float(r[1] - r[0]) if r.size > 1 else 1.0
     first = (
         float(r[np.flatnonzero(np.isfinite(env.band_low))[0]])
