@@ -8,7 +8,7 @@ from rasterio.transform import from_origin
 
 from ecoscan.survey.config import load_survey
 from ecoscan.survey.runner import run_survey
-from ecoscan.synthetic import render_orthomosaic
+from ecoscan.synthetic import render_orthomosaic, write_geotiff
 from ecoscan.vector import Plot, PlotLayer, write_plots
 
 UTM = CRS.from_epsg(32631)
@@ -96,18 +96,8 @@ def test_raster_without_any_plant_gives_zero_counts(tmp_path):
     # zero (they were surveyed). The survey used to stop with "<raster>.csv has a header but
     # no points" when it read its own empty table back.
     _scene(tmp_path)
-    with rasterio.open(
-        tmp_path / "cleared.tif",
-        "w",
-        driver="GTiff",
-        width=400,
-        height=200,
-        count=1,
-        dtype="float32",
-        transform=from_origin(X0, Y0 + 20, PX, PX),
-        crs=UTM.to_wkt(),
-    ) as dst:
-        dst.write(np.full((1, 200, 400), 0.1, dtype="float32"))
+    flat = np.full((200, 400), 0.1, dtype="float32")
+    write_geotiff(tmp_path / "cleared.tif", flat, from_origin(X0, Y0 + 20, PX, PX), UTM.to_wkt())
     text = (tmp_path / "s.toml").read_text()
     (tmp_path / "s.toml").write_text(
         text + '[[raster]]\npath = "cleared.tif"\nsite = "test"\ndate = "2026-09-01"\n'
