@@ -29,7 +29,7 @@ from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
 
 if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out of them
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.plots import PlotLayer
 
 __all__ = [
     "RasterInfo",
@@ -471,7 +471,8 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
     import rasterio.features
     import shapely
 
-    from ecoscan.io.vector import PlotLayer, plots_from_geometries, reproject_geometries
+    from ecoscan.io.vector import plots_from_geometries, reproject_geometries
+    from ecoscan.model.plots import PlotLayer
 
     info = open_raster(path, pixel_size_m=pixel_size_m)
     if np.dtype(info.dtype).kind not in "iub":

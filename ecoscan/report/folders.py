@@ -60,7 +60,7 @@ __all__ = [
 
 
 def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    from ecoscan.io.inputs import points_by_plot
+    from ecoscan.model.membership import points_by_plot
 
     return points_by_plot(inputs.points, inputs.layer, inputs.membership)
 

@@ -21,8 +21,10 @@ from pyproj import CRS
 
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, transform_xy
-from ecoscan.io.inputs import assign_plots, one_row_per_plant, overlap_note
-from ecoscan.io.vector import Plot, PlotLayer, reproject_geometries
+from ecoscan.io.inputs import one_row_per_plant
+from ecoscan.io.vector import reproject_geometries
+from ecoscan.model.membership import assign_plots, overlap_note
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.settings import Settings, whole_number

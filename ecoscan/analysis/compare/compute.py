@@ -34,8 +34,9 @@ from scipy import stats as sps
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, parse_crs
-from ecoscan.io.inputs import PlotMembership
-from ecoscan.io.vector import PlotLayer, read_points, reproject_geometries
+from ecoscan.io.vector import read_points, reproject_geometries
+from ecoscan.model.membership import PlotMembership
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
@@ -344,7 +345,7 @@ def results_from_points(
     label : str
         Name of this set of results (the group name for ``by='folder'``).
     membership : PlotMembership, optional
-        Which plots hold which points (:func:`ecoscan.io.inputs.assign_plots`).
+        Which plots hold which points (:func:`ecoscan.model.membership.assign_plots`).
 
     Returns
     -------
