@@ -338,6 +338,7 @@ def write_plan(result: PlanResult, folder: str | os.PathLike) -> list[Path]:
     Examples
     --------
     >>> import shapely, tempfile
+    >>> from ecoscan.analysis.planning import PlanSettings, make_plan
     >>> plan = make_plan({"square": shapely.box(0, 0, 20, 20)},
     ...                  PlanSettings(densities_per_ha=(600.0,), patterns=20))
     >>> [p.name for p in write_plan(plan, tempfile.mkdtemp())]

@@ -373,7 +373,7 @@ def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
     Examples
     --------
     >>> donnelly_strip_warning(100, 400 * 5.0, 2 * 405.0)[:32]
-    'plot narrower than Donnelly's co'
+    "plot narrower than Donnelly's co"
     >>> donnelly_strip_warning(100, 100 * 100.0, 400.0)
     ''
     """
