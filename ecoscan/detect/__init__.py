@@ -193,6 +193,8 @@ def describe_settings(meta: dict) -> str:
             f"{th.get('min_contrast', float('nan')):.3g}, centre value at least "
             f"{th.get('vegetation_threshold', float('nan')):.3g}"
         )
+        if th.get("threshold_raise", 1.0) > 1.0:
+            text += f"; response threshold raised {th['threshold_raise']:.2f}x (rough ground)"
         if th.get("weak_separation"):
             text += "; weak separation: check by eye or calibrate"
         return text
