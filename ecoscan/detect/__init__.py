@@ -601,7 +601,8 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         "threshold_raise_from": (
             f"lowest factor (1 to {MAX_RAISE:g}) on the background-based response threshold "
             f"at which at most {GAP_SHARE:g} of the kept candidates sit within a factor "
-            f"{NEAR:g} of it (a gap in the candidates' responses)"
+            f"{NEAR:g} of it (a gap in the candidates' responses); the factor with the "
+            "smallest such share when none reaches it; chosen once on the sample windows"
         ),
         "vegetation_threshold": choice.min_value,
         "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",

@@ -13,10 +13,14 @@ split of all pixels into two classes. The background is the layer outside the di
 candidates that already stand out, so a few pale crowns on much soil, closed canopy (little
 background) and plants among grass are all judged against what is actually between them.
 
+Where rough ground (grass among soil, JPEG chroma blocks, noise at crowns of a few pixels)
+puts many candidates just above that threshold, it is raised into the gap between them and
+the plants (:func:`threshold_raise`), once per raster.
+
 Pure computation on arrays: :func:`choose_layer` takes sample windows and returns a
-:class:`LayerChoice`. The constants ``RESPONSE_MADS`` and ``VALUE_MADS`` were tuned on the
-tuning scenes of ``benchmarks/tuning_scenes.py`` only (seeds 100-103), never on the
-evaluation suite.
+:class:`LayerChoice`. The constants ``RESPONSE_MADS``, ``VALUE_MADS``, ``MAX_RAISE`` and
+``GAP_SHARE`` were tuned on the tuning scenes of ``benchmarks/tuning_scenes.py`` only
+(seeds 100-103), never on the evaluation suite.
 """
 
 from __future__ import annotations
