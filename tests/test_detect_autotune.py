@@ -225,3 +225,15 @@ def test_chosen_thresholds_carry_the_raise():
     ratio = np.asarray(choice.min_response) / response_mads(sc)
     assert np.all(ratio > 0)
     assert choice.weak == (choice.near_share > 0.2 or choice.separation < 2.0)
+
+
+def test_report_line_names_a_raised_threshold():
+    # the survey report's one line of detection settings says when the response threshold
+    # was raised, and stays silent at factor 1
+    from ecoscan.detect import describe_settings
+
+    th = {"layer": "exg", "min_contrast": 0.05, "vegetation_threshold": 0.01}
+    plain = describe_settings({"method": "imagery", "thresholds": {**th, "threshold_raise": 1.0}})
+    raised = describe_settings({"method": "imagery", "thresholds": {**th, "threshold_raise": 2.5}})
+    assert "raised" not in plain
+    assert "raised 2.50x" in raised
