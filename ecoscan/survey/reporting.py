@@ -5,6 +5,8 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
+import numpy as np
+
 from ecoscan.detect import describe_settings
 from ecoscan.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.figures.dispersion import (
@@ -22,7 +24,8 @@ from ecoscan.report import (
     pattern_tag,
     table_html,
 )
-from ecoscan.survey.thumbnails import preview
+from ecoscan.survey.model import slug
+from ecoscan.survey.thumbnails import open_for_previews, preview
 from ecoscan.vocabulary import format_cell, label
 
 __all__ = ["DETAIL_COLUMNS", "SUMMARY_COLUMNS", "plain_warnings", "short_warnings", "write_report"]
@@ -182,8 +185,6 @@ def _esc(s) -> str:
 
 def plot_anchor(raster: str, plot_id: str) -> str:
     """The HTML id of a plot's section."""
-    from ecoscan.survey.runner import slug
-
     return f"plot-{slug(raster)}-{slug(plot_id)}"
 
 
@@ -191,21 +192,26 @@ def _backdrop_kind(method: str) -> str:
     return {"imagery": "rgb", "chm": "height", "classes": "classes"}.get(method, "grey")
 
 
-def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, list[Path]]:
-    from ecoscan.survey.runner import slug
+def _plot_section(
+    run, rr, res, i: int, figdir: Path, alpha: float, source=None
+) -> tuple[str, list[Path]]:
+    """One plot's section: its map, facts and warnings, and the folded analyst detail.
 
+    ``i`` is the plot's index in the raster's plots; ``source`` the raster opened for the
+    previews (None: no backdrop).
+    """
     files: list[Path] = []
+    plot = rr.inputs.plots[i]
     name = f"{slug(rr.entry.name)}_{slug(plot.plot_id)}"
-    xy = rr.inputs.plot_points(rr.inputs.layer.ids.index(plot.plot_id))
-    m = rr.points.attrs["plot_id"] == plot.plot_id
-    sizes = rr.points.attrs.get("diameter_m")
-    sizes = sizes[m] if sizes is not None else None
+    idx = rr.inputs.membership.points_of(i)
+    xy = np.column_stack([rr.inputs.points.x[idx], rr.inputs.points.y[idx]])
+    sizes = rr.inputs.points.attrs.get("diameter_m")
+    sizes = np.asarray(sizes, float)[idx] if sizes is not None else None
     bounds = plot.geometry.buffer(2.0).bounds
     pv = None
     kind = _backdrop_kind(rr.method)
-    same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
-    if same_crs:
-        pv = preview(str(rr.entry.path), bounds, rgb=kind == "rgb", stretch=kind == "grey")
+    if source is not None:
+        pv = preview(source, bounds, rgb=kind == "rgb", stretch=kind == "grey")
     title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
     files.append(
         plot_map_figure(
@@ -274,7 +280,7 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
                     "the same plot shape; marks along the bottom show where the plants leave it.",
                 )
             )
-    row = next(r for r in run.rows if r["raster"] == rr.entry.name and r["plot_id"] == plot.plot_id)
+    row = run.row(rr.entry.name, plot.plot_id)
     verdict = row.get("verdict") or ""
     facts = (
         f"{row.get('n')} plants in {plot.area_m2:,.0f} m² "
@@ -450,10 +456,13 @@ def write_report(run, stat_settings) -> list[Path]:
     plot_children = []
     for rr in run.rasters:
         cards = []
-        for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True):
-            card, fs = _plot_section(run, rr, res, plot, figdir, alpha)
-            cards.append(card)
-            files += fs
+        # the raster is opened once for the previews of all its plots
+        same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
+        with open_for_previews(rr.entry.path if same_crs else None) as source:
+            for i, res in enumerate(rr.dispersion):
+                card, fs = _plot_section(run, rr, res, i, figdir, alpha, source)
+                cards.append(card)
+                files += fs
         head = (
             f"<p>{rr.points.n:,} plants detected with the <code>{_esc(rr.method)}</code> "
             f"detector (pixel {_fmt(rr.pixel_size_m, 3)} m"
@@ -579,7 +588,8 @@ def _comparison_section(run) -> ReportSection:
         "With more than two groups the p-values are adjusted for multiple comparisons "
         "(Holm 1979).</p>"
     ]
-    for by, res in run.comparisons:
+    for c in run.comparisons:
+        by, res = c.by, c.result
         groups = group_rows(res)
         pairs = comparison_rows(res)
         # the same short column sets as the terminal tables; every column is in the CSVs
@@ -587,11 +597,12 @@ def _comparison_section(run) -> ReportSection:
         pcols = [*pair_summary_columns(len(pairs), paired=res.paired), "warnings"]
         many = len(groups) > 2
         pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
-        png = run.output / f"compare-by-{by}" / "comparison.png"
         parts.append(f"<h3>By {_esc(by)}: groups</h3>" + table_html(groups, gcols))
-        if png.exists():
+        if c.figure is not None:
             parts.append(
-                figure_html(png, f"Clark–Evans R per {by} with 95% intervals, most regular first.")
+                figure_html(
+                    c.figure, f"Clark–Evans R per {by} with 95% intervals, most regular first."
+                )
             )
         adj = " (p-values Holm-adjusted; the full table is in comparison.csv)" if many else ""
         parts.append(f"<h3>By {_esc(by)}: pairs{adj}</h3>" + table_html(pairs, pcols))
@@ -621,7 +632,6 @@ def _change_section(run) -> ReportSection:
             f"<h3>{_esc(ch.site)}: {_esc(ch.earlier)} to {_esc(ch.later)}</h3>"
             f"<p>{_esc(shift)}</p>" + table_html(rows, cols)
         )
-        png = ch.folder / "change_map.png"
-        if png.exists():
-            parts.append(figure_html(png, "Persisting, lost and new plants."))
+        if ch.figure is not None:
+            parts.append(figure_html(ch.figure, "Persisting, lost and new plants."))
     return ReportSection("Change between dates", "".join(parts), "change")
