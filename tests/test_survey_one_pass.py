@@ -1,0 +1,158 @@
+"""The survey runs in one pass: each input opened and hashed once, no output read back.
+
+The openers are counted (tests/read_counter.py: ``rasterio.open`` by purpose, pyogrio's
+layer reader, Python's ``open``) while ``run_survey`` runs a small two-date survey.
+
+What stays, by design: each tile job opens its own window of the raster from the path
+(``read_window``; that is how tiles run on other processes or a Dask cluster), threshold
+selection reads a decimated copy of the raster, and the report reads a preview of each
+raster (opened once per raster for all its plots). The report embeds its figures from the
+PNG files just drawn; those are the only files of the output folder read in a first run.
+"""
+
+import shutil
+
+import numpy as np
+import pytest
+import rasterio
+import shapely
+from pyproj import CRS
+from rasterio.transform import from_origin
+from read_counter import count_reads
+
+from ecoscan.survey.config import load_survey
+from ecoscan.survey.runner import run_survey
+from ecoscan.synthetic import render_orthomosaic
+from ecoscan.vector import Plot, PlotLayer, write_plots
+
+UTM = CRS.from_epsg(32631)
+X0, Y0, PX = 500_000.0, 4_000_000.0, 0.1
+
+
+def _raster(path, seed):
+    rng = np.random.default_rng(seed)
+    xy = np.column_stack([rng.uniform(1, 39, 90), rng.uniform(1, 19, 90)])
+    keep = [0]
+    for i in range(1, len(xy)):
+        if np.min(np.hypot(*(xy[keep] - xy[i]).T)) > 1.6:
+            keep.append(i)
+    xy = xy[keep]
+    img = render_orthomosaic(
+        np.column_stack([xy[:, 0] / PX - 0.5, (20 - xy[:, 1]) / PX - 0.5]),
+        np.full(len(xy), 10.0),
+        (200, 400),
+        rng,
+    )
+    with rasterio.open(
+        path, "w", driver="GTiff", width=400, height=200, count=3, dtype="uint8",
+        transform=from_origin(X0, Y0 + 20, PX, PX), crs=UTM.to_wkt(),
+    ) as dst:  # fmt: skip
+        dst.write(img)
+
+
+@pytest.fixture(scope="module")
+def survey(tmp_path_factory):
+    d = tmp_path_factory.mktemp("onepass")
+    inputs = d / "inputs"
+    inputs.mkdir()
+    _raster(inputs / "may.tif", 3)
+    _raster(inputs / "sep.tif", 4)
+    plots = [
+        Plot("west", shapely.box(X0 + 1, Y0 + 1, X0 + 19, Y0 + 19)),
+        Plot("east", shapely.box(X0 + 21, Y0 + 1, X0 + 39, Y0 + 19)),
+        Plot("away", shapely.box(X0 + 500, Y0, X0 + 510, Y0 + 10)),  # on neither raster
+    ]
+    write_plots(PlotLayer(plots, UTM), inputs / "plots.gpkg")
+    dates = {"may.tif": "2026-05-01", "sep.tif": "2026-09-01"}
+    (inputs / "s.toml").write_text(
+        '[survey]\nplots = "plots.gpkg"\n[statistics]\nsimulations = 39\n'
+        "[compare]\npermutations = 99\n"
+        + "".join(
+            f'[[raster]]\npath = "{n}"\nsite = "hill"\ndate = "{t}"\n'
+            "[raster.detect]\ndiameter = [0.6, 1.5]\n"
+            for n, t in dates.items()
+        )
+    )
+    return load_survey(inputs / "s.toml"), d
+
+
+def _table_reads(reads, folder):
+    """Reads of files in ``folder`` other than figures (tables, layers, JSON)."""
+    return {p: n for p, n in reads.under(folder).items() if not p.endswith((".png", ".jpg"))}
+
+
+def test_first_run_opens_each_input_once_and_reads_no_output(survey):
+    cfg, d = survey
+    outs = d / "first"
+    outs.mkdir()
+    with count_reads() as reads:
+        run = run_survey(cfg, output=outs / "results")
+    for e in cfg.rasters:
+        # the header once (footprint, detection and provenance share it) ...
+        assert reads.raster_opens(e.path, "header") == 1, reads.rasters
+        # ... the bytes once (one SHA-256 for the cache key and run.json) ...
+        assert reads.files[str(e.path.resolve())] == 1
+        # ... and one preview dataset for all the plots of the report
+        assert reads.raster_opens(e.path, "report preview") == 1
+        assert reads.raster_opens(e.path, "other") == 0
+        assert reads.raster_opens(e.path, "tile window") >= 1  # each tile job, from the path
+    assert reads.vectors[str(cfg.plots.resolve())] == 1  # the plots, read once
+    assert reads.files[str(cfg.plots.resolve())] == 1  # and hashed once
+    assert _table_reads(reads, outs) == {}  # no table, layer or JSON of its own read back
+    assert len(run.comparisons) == 1 and run.comparisons[0].figure.name == "comparison.png"
+    assert run.changes and run.changes[0].figure.is_file()
+    assert all(f.is_relative_to(outs / "results") for f in run.figures())
+
+
+def test_comparison_from_memory_equals_reading_the_folder(survey):
+    from ecoscan.compare import compare_groups, group_rows, read_results
+
+    cfg, d = survey
+    run = run_survey(cfg, output=d / "cmp", report=False)
+    mem = run.comparisons[0]
+    # the survey's seed is 1 when [statistics] sets none, as here
+    disk = compare_groups([read_results(d / "cmp")], by=mem.by, permutations=99, rng=1)
+    assert len(disk.groups) == 4  # two plots on two dates
+    # repr: NaN columns compare equal too
+    assert repr(group_rows(disk)) == repr(group_rows(mem.result))
+    assert repr(disk.pairs) == repr(mem.result.pairs)
+    assert disk.notes == mem.result.notes
+
+
+def test_rerun_reads_only_the_cached_detections(survey):
+    cfg, d = survey
+    outs = d / "again"
+    outs.mkdir()
+    first = run_survey(cfg, output=outs / "results", report=False)
+    table = (outs / "results" / "dispersion.csv").read_bytes()
+    points = (outs / "results" / "points.csv").read_bytes()
+    with count_reads() as reads:
+        again = run_survey(cfg, output=outs / "results", report=False, overwrite=True)
+    assert all(r.cached for r in again.rasters) and not any(r.cached for r in first.rasters)
+    for e in cfg.rasters:
+        assert reads.raster_opens(e.path, "header") == 1
+        assert reads.raster_opens(e.path, "tile window") == 0  # nothing detected again
+    read = _table_reads(reads, outs)
+    # the cache's deliberate reads: the key file, the detection table it reuses (its hash,
+    # then its rows) and the copies of the files it carries over; nothing else of the
+    # previous run, and nothing of this one
+    assert read and all("/points/" in p for p in read), read
+    assert all(p.endswith((".key.json", ".csv", ".prj", ".gpkg")) for p in read), read
+    assert not any(p.endswith("/points.csv") for p in read)
+    assert (outs / "results" / "dispersion.csv").read_bytes() == table
+    assert (outs / "results" / "points.csv").read_bytes() == points
+
+
+def test_damaged_cached_table_is_detected_again(survey):
+    cfg, d = survey
+    out = d / "damaged" / "results"
+    run_survey(cfg, output=out, report=False)
+    csv = out / "points" / "may.csv"
+    lines = csv.read_text().splitlines()
+    csv.write_text("\n".join(lines[: len(lines) // 2]) + "\n")
+    gpkg = out / "points" / "sep.gpkg"
+    shutil.copyfile(gpkg, gpkg.with_suffix(".bak"))
+    with open(gpkg, "ab") as fh:  # an edited GeoPackage: its size changes
+        fh.write(b"\0")
+    again = run_survey(cfg, output=out, report=False, overwrite=True)
+    assert [r.cached for r in again.rasters] == [False, False]
