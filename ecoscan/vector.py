@@ -315,7 +315,7 @@ def points_csv_text(points: PointSet) -> str:
     >>> import numpy as np
     >>> pts = PointSet(np.array([1.23456]), np.array([2.0]), {"plot_id": np.array(["A"])})
     >>> points_csv_text(pts)
-    'x,y,plot_id\n1.235,2.000,A\n'
+    'x,y,plot_id\\n1.235,2.000,A\\n'
     """
     xs, ys, cols = _csv_cells(points)
     buf = io.StringIO()

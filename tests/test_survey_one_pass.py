@@ -102,6 +102,11 @@ def test_first_run_opens_each_input_once_and_reads_no_output(survey):
     assert len(run.comparisons) == 1 and run.comparisons[0].figure.name == "comparison.png"
     assert run.changes and run.changes[0].figure.is_file()
     assert all(f.is_relative_to(outs / "results") for f in run.figures())
+    # the field-check caution of each raster's detection is said once for the run, by code
+    from ecoscan.notes import FIELD_CHECK, code_of
+
+    said = [n for n in run.notes if "field check" in n]
+    assert len(said) == 1 and code_of(said[0]) == FIELD_CHECK
 
 
 def test_comparison_from_memory_equals_reading_the_folder(survey):
@@ -156,3 +161,57 @@ def test_damaged_cached_table_is_detected_again(survey):
         fh.write(b"\0")
     again = run_survey(cfg, output=out, report=False, overwrite=True)
     assert [r.cached for r in again.rasters] == [False, False]
+
+
+@pytest.mark.parametrize(
+    "name",
+    ["ecoscan.notes", "ecoscan.survey.model", "ecoscan.survey.cache", "ecoscan.survey.thumbnails"],
+)
+def test_docstring_examples_run(name):
+    import doctest
+    import importlib
+
+    res = doctest.testmod(importlib.import_module(name), optionflags=doctest.ELLIPSIS)
+    assert res.attempted and res.failed == 0
+
+
+def test_points_kept_as_stored_equal_the_table_read_back(tmp_path):
+    from ecoscan.points import PointSet
+    from ecoscan.vector import as_stored, points_csv_text, read_points, write_points
+
+    rng = np.random.default_rng(1)
+    pts = PointSet(
+        rng.uniform(5e5, 5e5 + 100, 50),
+        rng.uniform(4e6, 4e6 + 100, 50),
+        {
+            "diameter_m": rng.uniform(0.5, 2, 50),
+            "tile": np.arange(50),
+            "plot_id": np.array(["1", "a, b"] * 25, dtype=object),  # text, and a quoted cell
+        },
+        UTM,
+    )
+    back = read_points(write_points(pts, tmp_path / "p.csv"))
+    mem = as_stored(pts)
+    assert np.array_equal(back.x, mem.x) and np.array_equal(back.y, mem.y)
+    assert back.attrs.keys() == mem.attrs.keys()
+    for k in back.attrs:
+        assert back.attrs[k].dtype == mem.attrs[k].dtype and np.array_equal(
+            back.attrs[k], mem.attrs[k]
+        ), k
+    assert (tmp_path / "p.csv").read_text() == points_csv_text(pts)
+
+
+def test_notes_keep_code_and_severity_through_pickle_and_json():
+    import json
+    import pickle
+
+    from ecoscan.notes import CAUTION, FIELD_CHECK, Note, is_warning
+
+    n = Note("automated counts need field checks", FIELD_CHECK, CAUTION)
+    again = pickle.loads(pickle.dumps(n))  # process pools and Dask pickle results
+    assert (again.code, again.severity, str(again)) == (FIELD_CHECK, CAUTION, str(n))
+    assert json.loads(json.dumps([n])) == ["automated counts need field checks"]
+    assert Note.from_value(json.loads(json.dumps(n.to_dict()))).code == FIELD_CHECK
+    assert not is_warning(n) and "; ".join([n, "x"]).endswith("; x")
+    with pytest.raises(ValueError):
+        Note("x", "y", "severe")

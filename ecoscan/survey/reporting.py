@@ -339,12 +339,13 @@ def _plot_section(
 def _site_meaning(run) -> str:
     """One short paragraph per site: what the verdicts mean, in plain words."""
     paras = []
-    sites = list(dict.fromkeys(r["site"] for r in run.rows))
-    for site in sites:
-        rows = [r for r in run.rows if r["site"] == site]
+    by_site: dict[str, dict[str, list[dict]]] = {}  # site -> date -> rows, in table order
+    for r in run.rows:
+        by_site.setdefault(r["site"], {}).setdefault(r["date"], []).append(r)
+    for site, dates in by_site.items():
+        rows = [r for on in dates.values() for r in on]
         parts = []
-        for date in dict.fromkeys(r["date"] for r in rows):
-            on = [r for r in rows if r["date"] == date]
+        for date, on in dates.items():
             by: dict[str, list[str]] = {}
             for r in on:
                 by.setdefault(r.get("verdict") or "not tested", []).append(str(r["plot_id"]))
