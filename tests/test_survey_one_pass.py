@@ -20,10 +20,10 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 from read_counter import count_reads
 
+from ecoscan.io.vector import Plot, PlotLayer, write_plots
 from ecoscan.survey.config import load_survey
 from ecoscan.survey.runner import run_survey
 from ecoscan.synthetic import render_orthomosaic
-from ecoscan.vector import Plot, PlotLayer, write_plots
 
 UTM = CRS.from_epsg(32631)
 X0, Y0, PX = 500_000.0, 4_000_000.0, 0.1
@@ -103,14 +103,15 @@ def test_first_run_opens_each_input_once_and_reads_no_output(survey):
     assert run.changes and run.changes[0].figure.is_file()
     assert all(f.is_relative_to(outs / "results") for f in run.figures())
     # the field-check caution of each raster's detection is said once for the run, by code
-    from ecoscan.notes import FIELD_CHECK, code_of
+    from ecoscan.model.notes import FIELD_CHECK, code_of
 
     said = [n for n in run.notes if "field check" in n]
     assert len(said) == 1 and code_of(said[0]) == FIELD_CHECK
 
 
 def test_comparison_from_memory_equals_reading_the_folder(survey):
-    from ecoscan.compare import compare_groups, group_rows, read_results
+    from ecoscan.analysis.compare.columns import group_rows
+    from ecoscan.analysis.compare.compute import compare_groups, read_results
 
     cfg, d = survey
     run = run_survey(cfg, output=d / "cmp", report=False)
@@ -165,7 +166,12 @@ def test_damaged_cached_table_is_detected_again(survey):
 
 @pytest.mark.parametrize(
     "name",
-    ["ecoscan.notes", "ecoscan.survey.model", "ecoscan.survey.cache", "ecoscan.survey.thumbnails"],
+    [
+        "ecoscan.model.notes",
+        "ecoscan.survey.model",
+        "ecoscan.survey.cache",
+        "ecoscan.survey.thumbnails",
+    ],
 )
 def test_docstring_examples_run(name):
     import doctest
@@ -176,8 +182,8 @@ def test_docstring_examples_run(name):
 
 
 def test_points_kept_as_stored_equal_the_table_read_back(tmp_path):
-    from ecoscan.points import PointSet
-    from ecoscan.vector import as_stored, points_csv_text, read_points, write_points
+    from ecoscan.io.vector import as_stored, points_csv_text, read_points, write_points
+    from ecoscan.model.points import PointSet
 
     rng = np.random.default_rng(1)
     pts = PointSet(
@@ -205,7 +211,7 @@ def test_notes_keep_code_and_severity_through_pickle_and_json():
     import json
     import pickle
 
-    from ecoscan.notes import CAUTION, FIELD_CHECK, Note, is_warning
+    from ecoscan.model.notes import CAUTION, FIELD_CHECK, Note, is_warning
 
     n = Note("automated counts need field checks", FIELD_CHECK, CAUTION)
     again = pickle.loads(pickle.dumps(n))  # process pools and Dask pickle results

@@ -18,13 +18,13 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ecoscan.execution import Executor
-from ecoscan.notes import Note
-from ecoscan.outputs import write_text
-from ecoscan.points import PointSet
+from ecoscan.io.outputs import write_text
+from ecoscan.io.vector import as_stored, points_csv_text, read_points, sidecar_prj, write_points
+from ecoscan.model.notes import Note
+from ecoscan.model.points import PointSet
 from ecoscan.survey.cache import is_fresh, load_done, mark_done, settings_key, stat_stamp
 from ecoscan.survey.manifest import RasterInput
 from ecoscan.survey.model import slug
-from ecoscan.vector import as_stored, points_csv_text, read_points, sidecar_prj, write_points
 
 log = logging.getLogger("ecoscan")
 

@@ -16,10 +16,10 @@ import numpy as np
 import shapely
 
 from ecoscan.errors import InputError
-from ecoscan.raster import RasterInfo, open_raster, window_polygons
+from ecoscan.io.raster import RasterInfo, open_raster, window_polygons
+from ecoscan.io.vector import PlotLayer, reproject_geometries
 from ecoscan.survey.cache import file_sha256
 from ecoscan.survey.config import RasterEntry, SurveyConfig
-from ecoscan.vector import PlotLayer, reproject_geometries
 
 __all__ = ["InputFile", "RasterInput", "SurveyManifest", "build_manifest"]
 

@@ -12,10 +12,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ecoscan.inputs import SurveyInputs
-from ecoscan.points import PointSet
+from ecoscan.io.inputs import SurveyInputs
+from ecoscan.io.vector import PlotLayer
+from ecoscan.model.points import PointSet
 from ecoscan.survey.config import RasterEntry, SurveyConfig
-from ecoscan.vector import PlotLayer
 
 __all__ = ["ChangeRun", "ComparisonRun", "RasterRun", "SurveyRun", "slug"]
 

@@ -5,7 +5,7 @@ Output folder layout::
 
     OUTDIR/
       dispersion.csv      one row per raster and plot (site, date, raster, then the
-                          dispersion columns of ecoscan.analysis)
+                          dispersion columns of ecoscan.analysis.dispersion.compute)
       dispersion.json     the same numbers with all parameters
       points.csv/.prj     every analysed plant (x, y, plot_id, site, date, raster, attributes)
       plots.gpkg          the plot outlines in the survey CRS
@@ -31,23 +31,23 @@ from typing import Any
 import numpy as np
 
 from ecoscan import __version__
-from ecoscan.crs import crs_label
 from ecoscan.execution import Executor, LocalExecutor
-from ecoscan.inputs import (
+from ecoscan.io.crs import crs_label
+from ecoscan.io.inputs import (
     SurveyInputs,
     assign_plots,
     one_row_per_plant,
     points_by_plot,
     unsurveyed_note,
 )
-from ecoscan.notes import FIELD_CHECK, code_of
-from ecoscan.outputs import write_csv, write_json
-from ecoscan.points import PointSet
+from ecoscan.io.outputs import write_csv, write_json
+from ecoscan.io.vector import PlotLayer, as_stored, read_plots, write_plots, write_points
+from ecoscan.model.notes import FIELD_CHECK, code_of
+from ecoscan.model.points import PointSet
 from ecoscan.survey.config import SurveyConfig
 from ecoscan.survey.detections import detect_all
 from ecoscan.survey.manifest import build_manifest
 from ecoscan.survey.model import ChangeRun, ComparisonRun, RasterRun, SurveyRun, slug
-from ecoscan.vector import PlotLayer, as_stored, read_plots, write_plots, write_points
 
 __all__ = ["ChangeRun", "ComparisonRun", "RasterRun", "SurveyRun", "run_survey", "slug"]
 
@@ -55,7 +55,7 @@ __all__ = ["ChangeRun", "ComparisonRun", "RasterRun", "SurveyRun", "run_survey",
 def _to_survey_crs(points: PointSet, crs) -> PointSet:
     if crs is None or points.crs is None or points.crs == crs:
         return points
-    from ecoscan.crs import transform_xy
+    from ecoscan.io.crs import transform_xy
 
     x, y = transform_xy(points.x, points.y, points.crs, crs)
     return PointSet(
@@ -115,7 +115,7 @@ def run_survey(
 
 
 def _analyse_plot_job(job) -> Any:
-    from ecoscan.analysis import analyse_plot
+    from ecoscan.analysis.dispersion.compute import analyse_plot
 
     return analyse_plot(*job)
 
@@ -127,7 +127,7 @@ def _analyse_all(inputs: list[SurveyInputs], stat_settings, ex) -> list[list]:
     Monte Carlo stream is seeded from its id, so the numbers do not depend on the
     schedule); locally the plots run in this process as in ``ecoscan analyse``.
     """
-    from ecoscan.analysis import analyse
+    from ecoscan.analysis.dispersion.compute import analyse
 
     if not ex.distributed:
         return [analyse(inp, stat_settings) for inp in inputs]
@@ -168,7 +168,8 @@ def _run_survey(
     *,
     label: str = "",
 ) -> SurveyRun:
-    from ecoscan.analysis import DispersionSettings, dispersion_rows
+    from ecoscan.analysis.dispersion.columns import dispersion_rows
+    from ecoscan.analysis.dispersion.compute import DispersionSettings
     from ecoscan.safety import check_quadrat_cells
 
     started = datetime.now(UTC)
@@ -185,7 +186,7 @@ def _run_survey(
         run.notes.append(few)
     scales_settings = None
     if config.scales_enabled:
-        from ecoscan.scales import ScalesSettings
+        from ecoscan.analysis.scales.compute import ScalesSettings
 
         scales_settings = ScalesSettings.from_mapping(
             {k: v for k, v in config.scales.items() if k != "enabled"}
@@ -200,7 +201,7 @@ def _run_survey(
         entry = item.entry
         scl = None
         if scales_settings is not None:
-            from ecoscan.scales import analyse_scales
+            from ecoscan.analysis.scales.compute import analyse_scales
 
             scl = analyse_scales(
                 inputs,
@@ -237,7 +238,7 @@ def _run_survey(
 
 
 def _write_tables(run: SurveyRun, stat_settings) -> None:
-    from ecoscan.analysis import DISPERSION_COLUMNS
+    from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS
 
     out = run.output
     cols = ["site", "date", "raster", *DISPERSION_COLUMNS]
@@ -273,7 +274,7 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
     run.files.append(write_points(allpts, out / "points.csv"))
     run.files.append(write_plots(run.layer, out / "plots.gpkg"))
     if any(rr.scales for rr in run.rasters):
-        from ecoscan.scales import function_rows, scales_rows
+        from ecoscan.analysis.scales.columns import function_rows, scales_rows
 
         srows, frows = [], []
         for rr in run.rasters:
@@ -284,8 +285,8 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
             frows += [{**lab, **r} for r in function_rows(rr.scales)]
         run.files.append(write_csv(out / "scales.csv", srows))
         run.files.append(write_csv(out / "functions.csv", frows))
-        from ecoscan.habitat import EFFECT_COLUMNS
-        from ecoscan.scales import effect_rows_of
+        from ecoscan.analysis.habitat import EFFECT_COLUMNS
+        from ecoscan.analysis.scales.columns import effect_rows_of
 
         erows = []
         for rr in run.rasters:
@@ -306,7 +307,8 @@ def _run_change(run: SurveyRun) -> None:
     cfg = run.config.change
     if not cfg.get("enabled", True):
         return
-    from ecoscan.change import ChangeSettings, detect_change, write_change
+    from ecoscan.analysis.change.compute import ChangeSettings, detect_change
+    from ecoscan.report.folders import write_change
 
     settings = _section_settings(run, ChangeSettings, cfg)
     by_site: dict[str, list[RasterRun]] = {}
@@ -350,7 +352,7 @@ def _comparison_table(run: SurveyRun, label: str):
     order of ``dispersion.csv``, holding the plants of that plot at the coordinates the
     points table stores, with the plot's own outline for its area and perimeter.
     """
-    from ecoscan.compare import PlotUnit, ResultsTable
+    from ecoscan.analysis.compare.compute import PlotUnit, ResultsTable
     from ecoscan.stats.compare_r import plot_nn
 
     xy_of: dict[tuple[str, str, str], list[np.ndarray]] = {}
@@ -378,7 +380,8 @@ def _run_compare(run: SurveyRun, label: str) -> None:
     cfg = run.config.compare
     if not cfg.get("enabled", True) or not run.rasters:
         return
-    from ecoscan.compare import CompareSettings, compare_groups, write_comparison
+    from ecoscan.analysis.compare.compute import CompareSettings, compare_groups
+    from ecoscan.report.folders import write_comparison
 
     settings = _section_settings(run, CompareSettings, cfg)
     if settings.by == "auto":
