@@ -171,6 +171,7 @@ def test_damaged_cached_table_is_detected_again(survey):
         "ecoscan.survey.model",
         "ecoscan.survey.cache",
         "ecoscan.survey.thumbnails",
+        "ecoscan.survey.reporting",
     ],
 )
 def test_docstring_examples_run(name):
@@ -221,3 +222,22 @@ def test_notes_keep_code_and_severity_through_pickle_and_json():
     assert not is_warning(n) and "; ".join([n, "x"]).endswith("; x")
     with pytest.raises(ValueError):
         Note("x", "y", "severe")
+
+
+def test_plot_warnings_are_records_the_report_reads_by_code():
+    from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
+    from ecoscan.model.notes import code_of
+    from ecoscan.survey.reporting import plot_flags
+
+    settings = DispersionSettings.from_mapping({"simulations": 19})
+    sq = shapely.box(0, 0, 20, 20)
+    xy = np.array([[2.0, 3.0], [2.0, 3.0], [11.0, 14.0], [17.0, 5.0], [6.0, 16.0]])
+    res = analyse_plot(xy, sq, "p", settings)
+    codes = [code_of(w) for w in res.warnings]
+    # 5 plants (< 30), two at one position, 19 simulations (p cannot reach 0.05)
+    assert {"few-points", "duplicates", "few-simulations"} <= set(codes), codes
+    assert plot_flags(res.warnings) == "few plants, duplicates?"
+    one = analyse_plot(xy[:1], sq, "p", settings)
+    # its text names quadrats, but it is not a quadrat note: flagged, not hidden
+    assert [code_of(w) for w in one.warnings] == ["one-point"]
+    assert plot_flags(one.warnings) == "too few for a test"

@@ -9,6 +9,7 @@ import numpy as np
 
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.detect import describe_settings
+from ecoscan.model.notes import code_of
 from ecoscan.report.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -28,7 +29,14 @@ from ecoscan.survey.model import slug
 from ecoscan.survey.thumbnails import open_for_previews, preview
 from ecoscan.vocabulary import format_cell, label
 
-__all__ = ["DETAIL_COLUMNS", "SUMMARY_COLUMNS", "plain_warnings", "short_warnings", "write_report"]
+__all__ = [
+    "DETAIL_COLUMNS",
+    "SUMMARY_COLUMNS",
+    "plain_warnings",
+    "plot_flags",
+    "short_warnings",
+    "write_report",
+]
 
 #: The index table at the top of the report: what a land manager reads first.
 SUMMARY_COLUMNS = [
@@ -126,10 +134,44 @@ def _verdict_phrase(verdict: str, ids: list[str]) -> str:
     return f"{_join(ids)} {_verb(ids)} {verdict}"
 
 
-def short_warnings(text: str) -> str:
-    """Short flags for a plot's warnings, for the index table (full text in the plot section).
+#: The index's short flag for a plot's warning, by the warning's code
+#: (ecoscan.analysis.dispersion.compute); the full text is in the plot's section.
+_FLAGS = {
+    "few-points": "few plants",
+    "one-point": "too few for a test",
+    "empty-plot": "empty plot",
+    "duplicates": "duplicates?",
+}
 
-    Notes on the quadrat test are for the analyst and are not flagged here.
+
+def _analyst_only(note) -> bool:
+    """Warnings on the quadrat test concern the analyst: they go with the statistics."""
+    return code_of(note).startswith("quadrat-")
+
+
+def plot_flags(warnings) -> str:
+    """Short flags for a plot's warnings (records with codes), for the index table.
+
+    Examples
+    --------
+    >>> from ecoscan.model.notes import Note
+    >>> plot_flags([Note("only 22 points (fewer than 30): ...", "few-points", "warning"),
+    ...             Note("3 of 8 quadrats expect fewer than 5 points", "quadrat-approximate",
+    ...                  "warning")])
+    'few plants'
+    """
+    shown = [w for w in warnings if not _analyst_only(w)]
+    if not shown:
+        return ""
+    flags = [_FLAGS[code_of(w)] for w in shown if code_of(w) in _FLAGS]
+    return ", ".join(dict.fromkeys(flags)) if flags else str(shown[0])[:40]
+
+
+def short_warnings(text: str) -> str:
+    """Short flags for warnings given as text (the comparison and change tables' cells).
+
+    A plot's own warnings are flagged from their codes (:func:`plot_flags`). Notes on the
+    quadrat test are for the analyst and are not flagged here.
 
     Examples
     --------
@@ -302,10 +344,10 @@ def _plot_section(
     in_words = str(row.get("summary") or "")
     if pattern and in_words.endswith("; " + pattern):
         in_words = in_words[: -len(pattern) - 2]  # said above, with its interval
-    warns = plain_warnings(row.get("warnings") or "", scale_warn)
-    # the quadrat note matters to the analyst only: it goes with the statistics
-    quad = [w for w in warns if "quadrat" in w]
-    warns = [w for w in warns if "quadrat" not in w]
+    # the quadrat notes matter to the analyst only: they go with the statistics
+    mine = [w for w in res.warnings if not _analyst_only(w)]
+    quad = plain_warnings("; ".join(w for w in res.warnings if _analyst_only(w)))
+    warns = plain_warnings("; ".join(mine), scale_warn)
     warn_html = (
         '<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warns) + "</ul>"
         if warns
@@ -440,12 +482,17 @@ def write_report(run, stat_settings) -> list[Path]:
         f"{stat_settings.simulations} random patterns in the exact shape of each plot, at "
         f"α = {alpha:g}. Click a heading to sort; click a plot for its map and detail.</p>"
     )
+    warnings_of = {
+        (rr.entry.name, plot.plot_id): res.warnings
+        for rr in run.rasters
+        for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True)
+    }
     index = []
     for r in run.rows:
         index.append(
             {
                 **r,
-                "flags": short_warnings(r.get("warnings", "")),
+                "flags": plot_flags(warnings_of[(r["raster"], r["plot_id"])]),
                 "detectable_range": detectable_range_short(r),
                 "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
             }
