@@ -47,6 +47,9 @@ summary = {
     },
     "raster_bytes_read": {Path(r).name: reads.files.get(r, 0) for r in rasters},
     "plots_reads": reads.vectors.get(str(Path(cfg.plots).resolve()), 0),
+    "covariate_opens": {
+        Path(p).name: n for (p, why), n in reads.rasters.items() if why == "covariate"
+    },
     "output_reads": {
         str(Path(p).relative_to(out.parent.resolve())): n
         for p, n in reads.under(out.parent).items()
@@ -151,6 +154,8 @@ def main(argv: list[str] | None = None) -> int:
                     + f"; file read for hashing {r['raster_bytes_read'][name]}x"
                 )
             print(f"  plots file read {r['plots_reads']}x")
+            for name, n in r["covariate_opens"].items():
+                print(f"  covariate {name}: opened {n} times (habitat, per plot)")
             reads = r["output_reads"]
             tables = {k: v for k, v in reads.items() if not k.endswith((".png", ".jpg"))}
             figs = sum(v for k, v in reads.items() if k.endswith((".png", ".jpg")))
