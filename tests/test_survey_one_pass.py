@@ -241,3 +241,40 @@ def test_plot_warnings_are_records_the_report_reads_by_code():
     # its text names quadrats, but it is not a quadrat note: flagged, not hidden
     assert [code_of(w) for w in one.warnings] == ["one-point"]
     assert plot_flags(one.warnings) == "too few for a test"
+
+
+def test_plots_in_another_crs_compare_from_memory_as_from_the_folder(tmp_path):
+    # the plots file in Lambert-93 (EPSG:2154), the raster in UTM 31N: the manifest
+    # reprojects the plots into the raster's CRS once, the plants come back to the survey's
+    # CRS, and the comparison uses them at the millimetres points.csv stores
+    from pyproj import Transformer
+
+    from ecoscan.analysis.compare.columns import group_rows
+    from ecoscan.analysis.compare.compute import compare_groups, read_results
+
+    _raster(tmp_path / "may.tif", 3)
+    t = Transformer.from_crs(32631, 2154, always_xy=True)
+
+    def lambert(g):
+        return shapely.transform(
+            g.segmentize(1.0), lambda c: np.column_stack(t.transform(c[:, 0], c[:, 1]))
+        )
+
+    boxes = {"west": (1, 19), "east": (21, 39)}
+    plots = [
+        Plot(k, lambert(shapely.box(X0 + a, Y0 + 1, X0 + b, Y0 + 19)))
+        for k, (a, b) in boxes.items()
+    ]
+    write_plots(PlotLayer(plots, CRS.from_epsg(2154)), tmp_path / "plots.gpkg")
+    (tmp_path / "s.toml").write_text(
+        '[survey]\nplots = "plots.gpkg"\n[statistics]\nsimulations = 19\n[compare]\n'
+        'permutations = 99\n[[raster]]\npath = "may.tif"\n[raster.detect]\ndiameter = [0.6, 1.5]\n'
+    )
+    with count_reads() as reads:
+        run = run_survey(load_survey(tmp_path / "s.toml"), output=tmp_path / "out", report=False)
+    assert reads.raster_opens(tmp_path / "may.tif", "header") == 1
+    assert run.rasters[0].reprojected and run.rasters[0].points.crs.to_epsg() == 2154
+    mem = run.comparisons[0]
+    disk = compare_groups([read_results(tmp_path / "out")], by=mem.by, permutations=99, rng=1)
+    assert repr(group_rows(disk)) == repr(group_rows(mem.result))
+    assert repr(disk.pairs) == repr(mem.result.pairs)
