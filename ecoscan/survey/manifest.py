@@ -17,7 +17,8 @@ import shapely
 
 from ecoscan.errors import InputError
 from ecoscan.io.raster import RasterInfo, open_raster, window_polygons
-from ecoscan.io.vector import PlotLayer, reproject_geometries
+from ecoscan.io.vector import reproject_geometries
+from ecoscan.model.plots import PlotLayer
 from ecoscan.survey.cache import file_sha256
 from ecoscan.survey.config import RasterEntry, SurveyConfig
 

@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan.io.inputs import SurveyInputs
-from ecoscan.io.vector import PlotLayer
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.survey.config import RasterEntry, SurveyConfig
 

@@ -33,16 +33,12 @@ import numpy as np
 from ecoscan import __version__
 from ecoscan.execution import Executor, LocalExecutor
 from ecoscan.io.crs import crs_label
-from ecoscan.io.inputs import (
-    SurveyInputs,
-    assign_plots,
-    one_row_per_plant,
-    points_by_plot,
-    unsurveyed_note,
-)
+from ecoscan.io.inputs import SurveyInputs, one_row_per_plant
 from ecoscan.io.outputs import write_csv, write_json
-from ecoscan.io.vector import PlotLayer, as_stored, read_plots, write_plots, write_points
+from ecoscan.io.vector import as_stored, read_plots, write_plots, write_points
+from ecoscan.model.membership import assign_plots, points_by_plot, unsurveyed_note
 from ecoscan.model.notes import FIELD_CHECK, code_of
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.survey.config import SurveyConfig
 from ecoscan.survey.detections import detect_all
