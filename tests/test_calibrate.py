@@ -202,24 +202,21 @@ def test_survey_takes_detector_relative_to_survey_file(conifer, tmp_path):
         load_survey(survey)
 
 
-def test_survey_cache_key_follows_detector_file(conifer, tmp_path, monkeypatch):
-    from ecoscan.survey import runner
+def test_survey_cache_key_follows_detector_file(conifer, tmp_path):
+    import dataclasses
+
+    from ecoscan.survey.cache import file_sha256
+    from ecoscan.survey.config import RasterEntry
+    from ecoscan.survey.detections import cache_key
+    from ecoscan.survey.manifest import InputFile, RasterInput
 
     f, out = conifer
     dst, _det = _copy_detector(out, tmp_path)
+    entry = RasterEntry(f["raster"], "r", "site", "", {"detector": str(dst)}, 0)
+    item = RasterInput(entry, None, InputFile("raster", f["raster"], 1, "a" * 64), None, None, [])
     keys = []
-    monkeypatch.setattr(runner, "is_fresh", lambda kf, key, outs: keys.append(key) or False)
-
-    class Stop(Exception):
-        pass
-
-    def stop(*a, **k):
-        raise Stop
-
-    monkeypatch.setattr("ecoscan.detect.detect_raster", stop)
-    entry = runner.RasterEntry(f["raster"], "r", "site", "", {"detector": str(dst)}, 0)
     for _ in range(2):
-        with pytest.raises(Stop):
-            runner._detect(entry, None, tmp_path, "plots-hash", 1, previous=tmp_path)
+        # the manifest hashes the detector file once per run; the key follows that hash
+        keys.append(cache_key(dataclasses.replace(item, detector_sha256=file_sha256(dst)), "p"))
         dst.write_text(dst.read_text() + "\n# edited\n")
     assert keys[0] != keys[1]

@@ -201,7 +201,7 @@ def test_compare_ranks_regularity_as_built(demo_run):
     _cfg, run = demo_run
     from ecoscan.analysis.compare.columns import group_rows
 
-    res = dict(run.comparisons)["plot"]
+    res = {c.by: c.result for c in run.comparisons}["plot"]
     # groups are "site/plot date": the dates of one plot are never pooled
     rank = {r["group"].split("/")[-1]: r["rank_regularity"] for r in group_rows(res)}
     plot_of = {g: g.split(" ")[0] for g in rank}

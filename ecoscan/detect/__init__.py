@@ -29,6 +29,7 @@ from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
 from ecoscan.io.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
+from ecoscan.model.notes import CAUTION, FIELD_CHECK, WARNING, Note, is_warning
 from ecoscan.model.points import PointSet
 
 if TYPE_CHECKING:  # worker processes import this package: keep its import light
@@ -205,6 +206,11 @@ def describe_settings(meta: dict) -> str:
     return f"{method} detector"
 
 
+def _no_plants(text: str) -> Note:
+    """A warning that the raster cannot hold any plant (constant layer, too low heights)."""
+    return Note(text, "no-plants", WARNING)
+
+
 def _band_error(info: RasterInfo, idx: int) -> InputError:
     return InputError(
         f"band {idx} is out of range: {Path(info.path).name} has data bands "
@@ -326,8 +332,12 @@ def _global_params(
             )
         if dmin_px < 3.0:
             notes.append(
-                f"the smallest crowns are only {dmin_px:.1f} pixels across; detection of "
-                "crowns under about 3 pixels is unreliable"
+                Note(
+                    f"the smallest crowns are only {dmin_px:.1f} pixels across; detection of "
+                    "crowns under about 3 pixels is unreliable",
+                    "small-crowns",
+                    WARNING,
+                )
             )
         if dmax_px > MAX_REACH_PX:
             raise InputError(
@@ -351,18 +361,21 @@ def _global_params(
             auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
             if auto is not None:
                 return auto
-            fallback = (
+            fallback = Note(
                 "weak separation: no layer showed at least "
                 f"{MIN_CANDIDATES} clear plant candidates in the sample windows; fell back to "
                 "Otsu's split of the whole raster; calibrate a detector on mapped plants "
-                "(ecoscan calibrate) or set --threshold, and check with ecoscan validate"
+                "(ecoscan calibrate) or set --threshold, and check with ecoscan validate",
+                "weak-separation",
+                WARNING,
             )
             notes.append(fallback)
         from skimage.filters import threshold_otsu
 
         layer = vegetation_layer(data, index)[valid]
         if float(np.ptp(layer)) == 0.0:
-            return None, 0, 1, {}, [*notes, "the vegetation layer is constant: no plants found"]
+            flat = _no_plants("the vegetation layer is constant: no plants found")
+            return None, 0, 1, {}, [*notes, flat]
         t = (
             float(settings.threshold)
             if settings.threshold is not None
@@ -437,8 +450,10 @@ def _global_params(
         _check_tile_memory(name, settings, overlap, 1, 4, "the crown search window")
         if hmax < settings.min_height_m:
             notes.append(
-                f"the highest pixel ({hmax:.3g}) is below --min-height {settings.min_height_m:g}: "
-                "no trees can be found"
+                _no_plants(
+                    f"the highest pixel ({hmax:.3g}) is below --min-height "
+                    f"{settings.min_height_m:g}: no trees can be found"
+                )
             )
         th = {"min_height_m": settings.min_height_m, "max_height_m": hmax}
         return params, overlap, 1, th, notes
@@ -540,7 +555,7 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         roles, abands = ("band",), bands
     windows = _sample_windows(info, abands, scales, dmax_px)
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
-        return None, 0, 1, {}, [*notes, "the image is constant: no plants found"]
+        return None, 0, 1, {}, [*notes, _no_plants("the image is constant: no plants found")]
     choice = choose_layer(windows, roles, scales)
     del windows
     if choice.candidates < MIN_CANDIDATES:
@@ -577,9 +592,13 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         )
     if choice.weak:
         notes.append(
-            f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit near "
-            "the threshold; counts may be unreliable: calibrate a detector on mapped plants "
-            "(ecoscan calibrate) or set --threshold and check with ecoscan validate"
+            Note(
+                f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit "
+                "near the threshold; counts may be unreliable: calibrate a detector on mapped "
+                "plants (ecoscan calibrate) or set --threshold and check with ecoscan validate",
+                "weak-separation",
+                WARNING,
+            )
         )
     th = {
         "layer": choice.name,
@@ -735,6 +754,7 @@ def detect_raster(
     plots: PlotLayer | None = None,
     workers: int = 1,
     executor: Executor | None = None,
+    info: RasterInfo | None = None,
 ) -> DetectionResult:
     """Detect plants in a raster: one point per plant, in a metric CRS.
 
@@ -757,6 +777,10 @@ def detect_raster(
         Where the tiles run instead (:func:`ecoscan.execution.open_executor`, e.g. a Dask
         cluster); ``workers`` is then not used. Each tile reads its own window from
         ``path``, which must be reachable from the workers. The result is the same.
+    info : RasterInfo, optional
+        The raster's header when the caller has opened it already
+        (:func:`ecoscan.raster.open_raster` of ``path`` with ``settings.pixel_size_m``), so
+        that it is not opened again.
 
     Returns
     -------
@@ -783,7 +807,8 @@ def detect_raster(
     settings = settings or DetectionSettings()
     if workers < 1:
         raise InputError(f"--workers must be at least 1 (got {workers})")
-    info = open_raster(path, pixel_size_m=settings.pixel_size_m)
+    if info is None:
+        info = open_raster(path, pixel_size_m=settings.pixel_size_m)
     notes = list(info.notes)
     if settings.detector:  # calibrated detector (ecoscan calibrate): its file sets the layer
         from ecoscan.detect.detector_file import calibrated_params, read_detector
@@ -801,11 +826,7 @@ def detect_raster(
         )
         if method == "imagery" and thresholds.get("layer"):
             index = thresholds["layer"]
-    warn = [
-        n
-        for n in more
-        if "unreliable" in n or "no plants" in n or "no trees" in n or "weak separation" in n
-    ]
+    warn = [n for n in more if is_warning(n)]
     notes += more
     ps = info.pixel_size_m
     # target metric CRS, chosen from the raster centre (not the detections)
@@ -938,8 +959,12 @@ def detect_raster(
         notes.append(msg)
         warn.append(msg)
     notes.append(
-        "automated counts need field checks on a sample of plots before they inform "
-        "management decisions"
+        Note(
+            "automated counts need field checks on a sample of plots before they inform "
+            "management decisions",
+            FIELD_CHECK,
+            CAUTION,
+        )
     )
     pts.notes = list(notes)
     mp_read = sum(t.pixels for t in selected) / 1e6

@@ -26,7 +26,9 @@ from ecoscan.model.points import PointSet
 from ecoscan.safety import check_coordinates
 
 __all__ = [
+    "as_stored",
     "plots_from_geometries",
+    "points_csv_text",
     "read_plots",
     "read_points",
     "reproject_geometries",
@@ -291,6 +293,62 @@ def _fields_for_write(points: PointSet) -> tuple[list[str], list[np.ndarray]]:
     return names, data
 
 
+def _csv_cells(points: PointSet) -> tuple[list[str], list[str], dict[str, list[str]]]:
+    """The cells of a points table as written: x, y to the millimetre, attributes formatted
+    by :func:`ecoscan.outputs.format_value`."""
+    xs = [f"{v:.3f}" for v in points.x]
+    ys = [f"{v:.3f}" for v in points.y]
+    cols = {k: [format_value(v) for v in points.attrs[k]] for k in points.attrs}
+    return xs, ys, cols
+
+
+def points_csv_text(points: PointSet) -> str:
+    """The text of a CSV points table (``x``, ``y`` to the millimetre, then the attributes).
+
+    :func:`write_points` writes exactly this; a caller that needs the file's bytes (e.g. to
+    record their hash) takes them from here instead of reading the file back.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = PointSet(np.array([1.23456]), np.array([2.0]), {"plot_id": np.array(["A"])})
+    >>> points_csv_text(pts)
+    'x,y,plot_id\\n1.235,2.000,A\\n'
+    """
+    xs, ys, cols = _csv_cells(points)
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")  # quotes cells holding , " or a newline
+    w.writerow(["x", "y", *cols])
+    w.writerows([xs[i], ys[i], *(c[i] for c in cols.values())] for i in range(points.n))
+    return buf.getvalue()
+
+
+def as_stored(points: PointSet) -> PointSet:
+    """The points as a CSV points table stores them: what :func:`read_points` gives back.
+
+    Coordinates are rounded to the millimetre and attributes pass through their text form
+    (numbers to 6 significant digits, labels as text), exactly as writing the table and
+    reading it again would give, without the file. Analysing these values makes a run and
+    a rerun from stored tables agree to the last digit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = PointSet(np.array([1.23456]), np.array([2.0]), {"score": np.array([0.1234567])})
+    >>> s = as_stored(pts)
+    >>> float(s.x[0]), float(s.attrs["score"][0])
+    (1.235, 0.123457)
+    """
+    xs, ys, cols = _csv_cells(points)
+    if not points.n:  # as read_points gives an empty table: every column empty floats
+        attrs = {k: np.empty(0) for k in cols}
+    else:
+        attrs = {k: _attribute_column(v, k) for k, v in cols.items()}
+    x = np.array([float(v) for v in xs], dtype=float)
+    y = np.array([float(v) for v in ys], dtype=float)
+    return PointSet(x, y, attrs, points.crs, list(points.notes))
+
+
 def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "points") -> Path:
     """Write points atomically; the extension picks the format.
 
@@ -314,16 +372,9 @@ def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "poi
         if points.crs is not None:
             with atomic_path(sidecar_prj(p)) as tmp:
                 tmp.write_text(points.crs.to_wkt(), encoding="utf-8")
-        names = list(points.attrs)
-        cols = [points.attrs[k] for k in names]
-        xs = [f"{v:.3f}" for v in points.x]
-        ys = [f"{v:.3f}" for v in points.y]
-        buf = io.StringIO()
-        w = csv.writer(buf, lineterminator="\n")  # quotes cells holding , " or a newline
-        w.writerow(["x", "y", *names])
-        w.writerows([xs[i], ys[i], *(format_value(c[i]) for c in cols)] for i in range(points.n))
+        text = points_csv_text(points)
         with atomic_path(p) as tmp:
-            tmp.write_text(buf.getvalue(), encoding="utf-8")
+            tmp.write_text(text, encoding="utf-8")
         return p
     if suffix in (".gpkg", ".geojson", ".json"):
         x, y, crs = points.x, points.y, points.crs

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import base64
 import html
+import io
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -156,7 +157,7 @@ def figure_html(png: str | os.PathLike, caption: str = "", alt: str = "") -> str
     path = Path(png)
     mime = "image/jpeg" if path.suffix.lower() in (".jpg", ".jpeg") else "image/png"
     raw = path.read_bytes()
-    with Image.open(path) as im:
+    with Image.open(io.BytesIO(raw)) as im:  # the bytes already read, not the file again
         w, h = im.size
     data = base64.b64encode(raw).decode("ascii")
     cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""

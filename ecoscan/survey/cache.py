@@ -11,7 +11,7 @@ from typing import Any
 from ecoscan import __version__
 from ecoscan.io.outputs import write_json
 
-__all__ = ["file_sha256", "is_fresh", "mark_done", "settings_key"]
+__all__ = ["file_sha256", "is_fresh", "load_done", "mark_done", "settings_key", "stat_stamp"]
 
 
 def file_sha256(path: str | os.PathLike, chunk: int = 1 << 20) -> str:
@@ -29,12 +29,41 @@ def settings_key(**parts: Any) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def stat_stamp(path: str | os.PathLike) -> dict[str, int]:
+    """A file's size and modification time (ns): a stamp that needs no read of its bytes.
+
+    For outputs written by a library (a GeoPackage by SQLite) whose bytes are not in memory:
+    a truncated or edited file changes its size or time. Copies keep the time
+    (``shutil.copy2``); where a file system rounds it, the stamp differs and the cache is
+    merely not used.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "a.txt"
+    >>> _ = f.write_text("abc")
+    >>> stat_stamp(f)["bytes"]
+    3
+    """
+    st = os.stat(path)
+    return {"bytes": int(st.st_size), "mtime_ns": int(st.st_mtime_ns)}
+
+
+def _matches(path: Path, want: Any) -> bool:
+    if isinstance(want, str):
+        return file_sha256(path) == want
+    if isinstance(want, dict):
+        return stat_stamp(path) == want
+    return False
+
+
 def is_fresh(key_file: Path, key: str, outputs: list[Path]) -> bool:
     """True when ``key_file`` holds ``key``, every output exists and is as it was written.
 
-    ``key_file`` records the SHA-256 of each output (``files``); an output whose bytes have
-    changed since (truncated, edited, half-copied) makes the cache stale, so a rerun never
-    trusts a damaged file.
+    ``key_file`` records each output (``files``) by the SHA-256 of its bytes or, for files
+    whose bytes the writer never held, by :func:`stat_stamp`; an output that has changed
+    since (truncated, edited, half-copied) makes the cache stale, so a rerun never trusts a
+    damaged file.
     """
     if not key_file.exists() or not all(p.exists() for p in outputs):
         return False
@@ -47,11 +76,16 @@ def is_fresh(key_file: Path, key: str, outputs: list[Path]) -> bool:
     hashes = info.get("files")
     if not isinstance(hashes, dict):
         return False  # written before files were hashed: recompute
-    for p in outputs:
-        want = hashes.get(p.name)
-        if not isinstance(want, str) or file_sha256(p) != want:
-            return False
-    return True
+    return all(_matches(p, hashes.get(p.name)) for p in outputs)
+
+
+def load_done(key_file: Path) -> dict[str, Any]:
+    """What :func:`mark_done` recorded (an empty mapping when unreadable)."""
+    try:
+        info = json.loads(Path(key_file).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {}
+    return info if isinstance(info, dict) else {}
 
 
 def mark_done(key_file: Path, key: str, **info: Any) -> None:

@@ -270,7 +270,7 @@ def _values(problems: _Problems, where: tuple, section: str, table: Mapping) -> 
 
 def _same_file_names(problems: _Problems, rasters: list[RasterEntry], entries: list) -> None:
     """Refuse two sites (or raster names) that would write the same file or folder."""
-    from ecoscan.survey.runner import slug
+    from ecoscan.survey.model import slug
 
     for attr, what in (("site", "sites"), ("name", "raster names")):
         seen: dict[str, str] = {}

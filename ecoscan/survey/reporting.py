@@ -5,8 +5,11 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
+import numpy as np
+
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.detect import describe_settings
+from ecoscan.model.notes import code_of
 from ecoscan.report.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -22,10 +25,18 @@ from ecoscan.report.html import (
     pattern_tag,
     table_html,
 )
-from ecoscan.survey.thumbnails import preview
+from ecoscan.survey.model import slug
+from ecoscan.survey.thumbnails import open_for_previews, preview
 from ecoscan.vocabulary import format_cell, label
 
-__all__ = ["DETAIL_COLUMNS", "SUMMARY_COLUMNS", "plain_warnings", "short_warnings", "write_report"]
+__all__ = [
+    "DETAIL_COLUMNS",
+    "SUMMARY_COLUMNS",
+    "plain_warnings",
+    "plot_flags",
+    "short_warnings",
+    "write_report",
+]
 
 #: The index table at the top of the report: what a land manager reads first.
 SUMMARY_COLUMNS = [
@@ -123,10 +134,44 @@ def _verdict_phrase(verdict: str, ids: list[str]) -> str:
     return f"{_join(ids)} {_verb(ids)} {verdict}"
 
 
-def short_warnings(text: str) -> str:
-    """Short flags for a plot's warnings, for the index table (full text in the plot section).
+#: The index's short flag for a plot's warning, by the warning's code
+#: (ecoscan.analysis.dispersion.compute); the full text is in the plot's section.
+_FLAGS = {
+    "few-points": "few plants",
+    "one-point": "too few for a test",
+    "empty-plot": "empty plot",
+    "duplicates": "duplicates?",
+}
 
-    Notes on the quadrat test are for the analyst and are not flagged here.
+
+def _analyst_only(note) -> bool:
+    """Warnings on the quadrat test concern the analyst: they go with the statistics."""
+    return code_of(note).startswith("quadrat-")
+
+
+def plot_flags(warnings) -> str:
+    """Short flags for a plot's warnings (records with codes), for the index table.
+
+    Examples
+    --------
+    >>> from ecoscan.model.notes import Note
+    >>> plot_flags([Note("only 22 points (fewer than 30): ...", "few-points", "warning"),
+    ...             Note("3 of 8 quadrats expect fewer than 5 points", "quadrat-approximate",
+    ...                  "warning")])
+    'few plants'
+    """
+    shown = [w for w in warnings if not _analyst_only(w)]
+    if not shown:
+        return ""
+    flags = [_FLAGS[code_of(w)] for w in shown if code_of(w) in _FLAGS]
+    return ", ".join(dict.fromkeys(flags)) if flags else str(shown[0])[:40]
+
+
+def short_warnings(text: str) -> str:
+    """Short flags for warnings given as text (the comparison and change tables' cells).
+
+    A plot's own warnings are flagged from their codes (:func:`plot_flags`). Notes on the
+    quadrat test are for the analyst and are not flagged here.
 
     Examples
     --------
@@ -182,8 +227,6 @@ def _esc(s) -> str:
 
 def plot_anchor(raster: str, plot_id: str) -> str:
     """The HTML id of a plot's section."""
-    from ecoscan.survey.runner import slug
-
     return f"plot-{slug(raster)}-{slug(plot_id)}"
 
 
@@ -191,21 +234,26 @@ def _backdrop_kind(method: str) -> str:
     return {"imagery": "rgb", "chm": "height", "classes": "classes"}.get(method, "grey")
 
 
-def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, list[Path]]:
-    from ecoscan.survey.runner import slug
+def _plot_section(
+    run, rr, res, i: int, figdir: Path, alpha: float, source=None
+) -> tuple[str, list[Path]]:
+    """One plot's section: its map, facts and warnings, and the folded analyst detail.
 
+    ``i`` is the plot's index in the raster's plots; ``source`` the raster opened for the
+    previews (None: no backdrop).
+    """
     files: list[Path] = []
+    plot = rr.inputs.plots[i]
     name = f"{slug(rr.entry.name)}_{slug(plot.plot_id)}"
-    xy = rr.inputs.plot_points(rr.inputs.layer.ids.index(plot.plot_id))
-    m = rr.points.attrs["plot_id"] == plot.plot_id
-    sizes = rr.points.attrs.get("diameter_m")
-    sizes = sizes[m] if sizes is not None else None
+    idx = rr.inputs.membership.points_of(i)
+    xy = np.column_stack([rr.inputs.points.x[idx], rr.inputs.points.y[idx]])
+    sizes = rr.inputs.points.attrs.get("diameter_m")
+    sizes = np.asarray(sizes, float)[idx] if sizes is not None else None
     bounds = plot.geometry.buffer(2.0).bounds
     pv = None
     kind = _backdrop_kind(rr.method)
-    same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
-    if same_crs:
-        pv = preview(str(rr.entry.path), bounds, rgb=kind == "rgb", stretch=kind == "grey")
+    if source is not None:
+        pv = preview(source, bounds, rgb=kind == "rgb", stretch=kind == "grey")
     title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
     files.append(
         plot_map_figure(
@@ -274,7 +322,7 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
                     "the same plot shape; marks along the bottom show where the plants leave it.",
                 )
             )
-    row = next(r for r in run.rows if r["raster"] == rr.entry.name and r["plot_id"] == plot.plot_id)
+    row = run.row(rr.entry.name, plot.plot_id)
     verdict = row.get("verdict") or ""
     facts = (
         f"{row.get('n')} plants in {plot.area_m2:,.0f} m² "
@@ -296,10 +344,10 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
     in_words = str(row.get("summary") or "")
     if pattern and in_words.endswith("; " + pattern):
         in_words = in_words[: -len(pattern) - 2]  # said above, with its interval
-    warns = plain_warnings(row.get("warnings") or "", scale_warn)
-    # the quadrat note matters to the analyst only: it goes with the statistics
-    quad = [w for w in warns if "quadrat" in w]
-    warns = [w for w in warns if "quadrat" not in w]
+    # the quadrat notes matter to the analyst only: they go with the statistics
+    mine = [w for w in res.warnings if not _analyst_only(w)]
+    quad = plain_warnings("; ".join(w for w in res.warnings if _analyst_only(w)))
+    warns = plain_warnings("; ".join(mine), scale_warn)
     warn_html = (
         '<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warns) + "</ul>"
         if warns
@@ -333,12 +381,13 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
 def _site_meaning(run) -> str:
     """One short paragraph per site: what the verdicts mean, in plain words."""
     paras = []
-    sites = list(dict.fromkeys(r["site"] for r in run.rows))
-    for site in sites:
-        rows = [r for r in run.rows if r["site"] == site]
+    by_site: dict[str, dict[str, list[dict]]] = {}  # site -> date -> rows, in table order
+    for r in run.rows:
+        by_site.setdefault(r["site"], {}).setdefault(r["date"], []).append(r)
+    for site, dates in by_site.items():
+        rows = [r for on in dates.values() for r in on]
         parts = []
-        for date in dict.fromkeys(r["date"] for r in rows):
-            on = [r for r in rows if r["date"] == date]
+        for date, on in dates.items():
             by: dict[str, list[str]] = {}
             for r in on:
                 by.setdefault(r.get("verdict") or "not tested", []).append(str(r["plot_id"]))
@@ -433,12 +482,17 @@ def write_report(run, stat_settings) -> list[Path]:
         f"{stat_settings.simulations} random patterns in the exact shape of each plot, at "
         f"α = {alpha:g}. Click a heading to sort; click a plot for its map and detail.</p>"
     )
+    warnings_of = {
+        (rr.entry.name, plot.plot_id): res.warnings
+        for rr in run.rasters
+        for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True)
+    }
     index = []
     for r in run.rows:
         index.append(
             {
                 **r,
-                "flags": short_warnings(r.get("warnings", "")),
+                "flags": plot_flags(warnings_of[(r["raster"], r["plot_id"])]),
                 "detectable_range": detectable_range_short(r),
                 "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
             }
@@ -450,10 +504,13 @@ def write_report(run, stat_settings) -> list[Path]:
     plot_children = []
     for rr in run.rasters:
         cards = []
-        for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True):
-            card, fs = _plot_section(run, rr, res, plot, figdir, alpha)
-            cards.append(card)
-            files += fs
+        # the raster is opened once for the previews of all its plots
+        same_crs = rr.inputs.layer.crs is None or rr.raster_crs == rr.inputs.layer.crs
+        with open_for_previews(rr.entry.path if same_crs else None) as source:
+            for i, res in enumerate(rr.dispersion):
+                card, fs = _plot_section(run, rr, res, i, figdir, alpha, source)
+                cards.append(card)
+                files += fs
         head = (
             f"<p>{rr.points.n:,} plants detected with the <code>{_esc(rr.method)}</code> "
             f"detector (pixel {_fmt(rr.pixel_size_m, 3)} m"
@@ -579,7 +636,8 @@ def _comparison_section(run) -> ReportSection:
         "With more than two groups the p-values are adjusted for multiple comparisons "
         "(Holm 1979).</p>"
     ]
-    for by, res in run.comparisons:
+    for c in run.comparisons:
+        by, res = c.by, c.result
         groups = group_rows(res)
         pairs = comparison_rows(res)
         # the same short column sets as the terminal tables; every column is in the CSVs
@@ -587,11 +645,12 @@ def _comparison_section(run) -> ReportSection:
         pcols = [*pair_summary_columns(len(pairs), paired=res.paired), "warnings"]
         many = len(groups) > 2
         pairs = [{**r, "warnings": short_warnings(r.get("warnings", ""))} for r in pairs]
-        png = run.output / f"compare-by-{by}" / "comparison.png"
         parts.append(f"<h3>By {_esc(by)}: groups</h3>" + table_html(groups, gcols))
-        if png.exists():
+        if c.figure is not None:
             parts.append(
-                figure_html(png, f"Clark–Evans R per {by} with 95% intervals, most regular first.")
+                figure_html(
+                    c.figure, f"Clark–Evans R per {by} with 95% intervals, most regular first."
+                )
             )
         adj = " (p-values Holm-adjusted; the full table is in comparison.csv)" if many else ""
         parts.append(f"<h3>By {_esc(by)}: pairs{adj}</h3>" + table_html(pairs, pcols))
@@ -621,7 +680,6 @@ def _change_section(run) -> ReportSection:
             f"<h3>{_esc(ch.site)}: {_esc(ch.earlier)} to {_esc(ch.later)}</h3>"
             f"<p>{_esc(shift)}</p>" + table_html(rows, cols)
         )
-        png = ch.folder / "change_map.png"
-        if png.exists():
-            parts.append(figure_html(png, "Persisting, lost and new plants."))
+        if ch.figure is not None:
+            parts.append(figure_html(ch.figure, "Persisting, lost and new plants."))
     return ReportSection("Change between dates", "".join(parts), "change")

@@ -46,7 +46,7 @@ def why_section(run, figdir: Path) -> tuple[ReportSection, list[Path]]:
     """
     from ecoscan.analysis.habitat import effect_rows, habitat_row
     from ecoscan.report.figures.habitat import plot_habitat_figure
-    from ecoscan.survey.runner import slug
+    from ecoscan.survey.model import slug
 
     rows, effects, figs, files = [], [], [], []
     for rr in run.rasters:

@@ -23,10 +23,7 @@ Output folder layout::
 from __future__ import annotations
 
 import itertools
-import logging
-import re
 import time
-from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -34,100 +31,21 @@ from typing import Any
 import numpy as np
 
 from ecoscan import __version__
-from ecoscan.errors import InputError
 from ecoscan.execution import Executor, LocalExecutor
 from ecoscan.io.crs import crs_label
 from ecoscan.io.inputs import SurveyInputs, one_row_per_plant
 from ecoscan.io.outputs import write_csv, write_json
-from ecoscan.io.vector import (
-    read_plots,
-    read_points,
-    reproject_geometries,
-    write_plots,
-    write_points,
-)
+from ecoscan.io.vector import as_stored, read_plots, write_plots, write_points
 from ecoscan.model.membership import assign_plots, points_by_plot, unsurveyed_note
+from ecoscan.model.notes import FIELD_CHECK, code_of
 from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
-from ecoscan.progress import progress
-from ecoscan.survey.cache import file_sha256, is_fresh, mark_done, settings_key
-from ecoscan.survey.config import RasterEntry, SurveyConfig
+from ecoscan.survey.config import SurveyConfig
+from ecoscan.survey.detections import detect_all
+from ecoscan.survey.manifest import build_manifest
+from ecoscan.survey.model import ChangeRun, ComparisonRun, RasterRun, SurveyRun, slug
 
-log = logging.getLogger("ecoscan")
-
-__all__ = ["RasterRun", "SurveyRun", "run_survey", "slug"]
-
-
-def slug(text: str) -> str:
-    """A file-name-safe version of a label."""
-    s = re.sub(r"[^A-Za-z0-9._-]+", "-", str(text)).strip("-")
-    return s or "x"
-
-
-@dataclass
-class RasterRun:
-    """What the survey found in one raster."""
-
-    entry: RasterEntry
-    method: str
-    points: PointSet  # survey CRS, analysed points only, with a plot_id attribute
-    inputs: SurveyInputs
-    dispersion: list
-    scales: list | None
-    notes: list[str]
-    cached: bool
-    pixel_size_m: float
-    raster_crs: Any = None  # the raster's own CRS (the report's previews need it)
-    detection: dict = field(default_factory=dict)  # layer, thresholds and how chosen
-
-
-@dataclass
-class ChangeRun:
-    """Change between two consecutive dates of one site."""
-
-    site: str
-    earlier: str
-    later: str
-    result: Any
-    folder: Path
-
-
-@dataclass
-class SurveyRun:
-    """Everything a survey run produced."""
-
-    config: SurveyConfig
-    output: Path
-    crs_text: str
-    layer: PlotLayer | None = None  # all plots, in the survey CRS
-    rasters: list[RasterRun] = field(default_factory=list)
-    rows: list[dict] = field(default_factory=list)
-    changes: list[ChangeRun] = field(default_factory=list)
-    comparisons: list = field(default_factory=list)
-    compare_by: str = ""
-    notes: list[str] = field(default_factory=list)
-    files: list[Path] = field(default_factory=list)
-
-
-def _layer_subset(layer: PlotLayer, keep: np.ndarray) -> PlotLayer:
-    return PlotLayer(
-        [p for p, k in zip(layer.plots, keep, strict=True) if k], layer.crs, list(layer.notes)
-    )
-
-
-def _raster_footprint(path: Path, survey_crs, pixel_size_m: float | None = None):
-    """The raster's footprint polygon in the survey CRS (``pixel_size_m`` for rasters
-    without georeferencing, as in the detector settings)."""
-
-    from ecoscan.io.raster import open_raster, window_polygons
-
-    info = open_raster(path, pixel_size_m=pixel_size_m)
-    poly = window_polygons(info.transform, 0, 0, info.width, info.height)[0]
-    if info.crs is not None and survey_crs is not None and info.crs != survey_crs:
-        poly = reproject_geometries(
-            np.array([poly.segmentize(max(poly.length / 400, 1e-9))]), info.crs, survey_crs
-        )[0]
-    return poly, info
+__all__ = ["ChangeRun", "ComparisonRun", "RasterRun", "SurveyRun", "run_survey", "slug"]
 
 
 def _to_survey_crs(points: PointSet, crs) -> PointSet:
@@ -143,73 +61,6 @@ def _to_survey_crs(points: PointSet, crs) -> PointSet:
         crs,
         [*points.notes, f"points reprojected to the survey CRS {crs_label(crs)}"],
     )
-
-
-def _detect(
-    entry: RasterEntry,
-    layer: PlotLayer,
-    out: Path,
-    plots_hash: str,
-    executor: Executor,
-    previous: Path | None = None,
-):
-    from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
-
-    settings = DetectionSettings.from_mapping(entry.detect)
-    pts_dir = out / "points"
-    stem = slug(entry.name)
-    gpkg, csv = pts_dir / f"{stem}.gpkg", pts_dir / f"{stem}.csv"
-    key_file = pts_dir / f"{stem}.key.json"
-    key = settings_key(
-        raster=file_sha256(entry.path),
-        plots=plots_hash,
-        detect=settings.to_dict(),
-        # a calibrated detector's file (its TOML records its model file's hash)
-        detector=file_sha256(settings.detector) if settings.detector else None,
-    )
-    old = (previous / "points") if previous is not None else None
-    if old is not None and is_fresh(old / key_file.name, key, [old / gpkg.name, old / csv.name]):
-        import json
-        import shutil
-
-        # the previous run's detections are unchanged and intact: carry them over
-        pts_dir.mkdir(parents=True, exist_ok=True)
-        for name in (gpkg.name, csv.name, f"{stem}.prj", key_file.name):
-            if (old / name).exists():
-                shutil.copy2(old / name, pts_dir / name)
-        info = json.loads(key_file.read_text(encoding="utf-8"))
-        pts = read_points(csv, allow_empty=True)
-        log.info(
-            "reused detection for %s (raster, plots and detector settings unchanged)",
-            entry.path.name,
-        )
-        return (
-            pts,
-            info.get("method", settings.method),
-            info.get("notes", []),
-            True,
-            float(info.get("pixel_size_m", float("nan"))),
-            info.get("detection", {}),
-        )
-    log.info("detecting plants in %s", entry.path.name)
-    res = detect_raster(entry.path, settings, plots=layer, executor=executor)
-    detection = detection_metadata(res)
-    write_points(res.points, gpkg)
-    write_points(res.points, csv)
-    mark_done(
-        key_file,
-        key,
-        method=res.method,
-        notes=list(res.notes),
-        pixel_size_m=float(res.pixel_size_m),
-        raster=entry.path.name,
-        files={csv.name: file_sha256(csv), gpkg.name: file_sha256(gpkg)},
-        detection=detection,
-    )
-    # analyse what was written (coordinates to the millimetre), so that a rerun from the
-    # cache gives byte-identical tables
-    pts = read_points(csv, allow_empty=True)
-    return pts, res.method, list(res.notes), False, float(res.pixel_size_m), detection
 
 
 def run_survey(
@@ -253,58 +104,10 @@ def run_survey(
     inputs = [config.path, config.plots, *(e.path for e in config.rasters)]
     with output_folder(dest, overwrite=overwrite, inputs=inputs) as tmp:
         previous = dest if (dest / "points").is_dir() else None
-        run = _run_survey(config, tmp, previous, workers, report, executor)
+        run = _run_survey(config, tmp, previous, workers, report, executor, label=dest.name)
     # the finished folder is in place: point the run's record at it
-    run.files = [dest / Path(f).relative_to(tmp) for f in run.files]
-    for ch in run.changes:
-        ch.folder = dest / Path(ch.folder).relative_to(tmp)
-    run.output = dest
+    run.relocate(tmp, dest)
     return run
-
-
-def _plan_raster(entry: RasterEntry, layer: PlotLayer, survey_crs, config: SurveyConfig):
-    """The raster's header and the plots it touches (refused when it touches none)."""
-    import shapely
-
-    footprint, info = _raster_footprint(entry.path, survey_crs, entry.detect.get("pixel_size_m"))
-    touches = shapely.intersects(np.array([p.geometry for p in layer.plots]), footprint)
-    gone = [p.plot_id for p, t in zip(layer.plots, touches, strict=True) if not t]
-    if not np.any(touches):
-        raise InputError(
-            f"raster {entry.path.name} (line {entry.line} of {config.path.name}) covers "
-            "none of the plots; check its CRS and the plots file"
-        )
-    return entry, info, _layer_subset(layer, touches), gone
-
-
-def _detect_all(planned: list, out: Path, plots_hash: str, previous: Path | None, ex) -> list:
-    """Detections of every raster, in survey order.
-
-    On a local executor the rasters run one after the other, each over the local pool. On a
-    distributed one up to :data:`ecoscan.execution.RASTERS_AT_ONCE` rasters choose their
-    thresholds here and submit their tiles together, so the cluster works on the tiles of
-    several rasters at once; the results are the same.
-    """
-    if not ex.distributed or len(planned) == 1:
-        return [_detect(e, sub, out, plots_hash, ex, previous) for e, _i, sub, _g in planned]
-    from concurrent.futures import ThreadPoolExecutor
-
-    from ecoscan.execution import RASTERS_AT_ONCE
-
-    with ThreadPoolExecutor(max_workers=min(RASTERS_AT_ONCE, len(planned))) as pool:
-        futures = [
-            pool.submit(_detect, e, sub, out, plots_hash, ex, previous)
-            for e, _i, sub, _g in planned
-        ]
-        try:
-            return [f.result() for f in futures]
-        except BaseException:
-            # stop the other rasters' tiles; the pool waits for their threads to end, so no
-            # file is written into the output folder after this run has failed
-            for f in futures:
-                f.cancel()
-            ex.abort()
-            raise
 
 
 def _analyse_plot_job(job) -> Any:
@@ -333,6 +136,24 @@ def _analyse_all(inputs: list[SurveyInputs], stat_settings, ex) -> list[list]:
     return [[next(flat) for _ in inp.plots] for inp in inputs]
 
 
+def _raster_runs(manifest, found, survey_crs) -> list[tuple]:
+    """Each raster's detections in the survey CRS, one row per plant, with the plots holding
+    each plant (assigned once, in the survey CRS, on the coordinates as stored)."""
+    prepared = []
+    for item, det in zip(manifest.rasters, found, strict=True):
+        pts = _to_survey_crs(det.points, survey_crs)
+        reprojected = pts is not det.points
+        pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots
+        sub = item.plots
+        member = assign_plots(pts, sub)
+        notes = list(det.notes)
+        if item.unsurveyed:
+            notes.append(unsurveyed_note(item.unsurveyed, f"raster {item.entry.name}"))
+        inputs = SurveyInputs(pts, sub, member, list(notes), list(item.unsurveyed))
+        prepared.append((item, det, inputs, points_by_plot(pts, sub, member), notes, reprojected))
+    return prepared
+
+
 def _run_survey(
     config: SurveyConfig,
     out: Path,
@@ -340,6 +161,8 @@ def _run_survey(
     workers: int | None,
     report: bool,
     executor: Executor | None = None,
+    *,
+    label: str = "",
 ) -> SurveyRun:
     from ecoscan.analysis.dispersion.columns import dispersion_rows
     from ecoscan.analysis.dispersion.compute import DispersionSettings
@@ -357,7 +180,6 @@ def _run_survey(
     few = stat_settings.too_few_simulations()
     if few:  # the same line is in every plot's warnings
         run.notes.append(few)
-    plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
         from ecoscan.analysis.scales.compute import ScalesSettings
@@ -367,27 +189,12 @@ def _run_survey(
         )
 
     ex = executor or LocalExecutor(workers or config.workers)
-    planned = [
-        _plan_raster(entry, layer, survey_crs, config)
-        for entry in progress(config.rasters, desc="rasters", unit="raster")
-    ]
-    found = _detect_all(planned, out, plots_hash, previous, ex)
-    prepared = []
-    for (entry, info, sub, gone), (pts, method, notes, cached, px, detection) in zip(
-        planned, found, strict=True
-    ):
-        pts = _to_survey_crs(pts, survey_crs)
-        pts = one_row_per_plant(pts)  # the detection table repeats plants of overlapping plots
-        member = assign_plots(pts, sub)
-        if gone:
-            notes = [*notes, unsurveyed_note(gone, f"raster {entry.name}")]
-        inputs = SurveyInputs(pts, sub, member, list(notes), gone)
-        pts = points_by_plot(pts, sub, member)
-        prepared.append((entry, info, inputs, pts, method, notes, cached, px, detection))
+    run.manifest = manifest = build_manifest(config, layer)
+    found = detect_all(manifest.rasters, out, manifest.plots.sha256, previous, ex)
+    prepared = _raster_runs(manifest, found, survey_crs)
     results = _analyse_all([p[2] for p in prepared], stat_settings, ex)
-    for (entry, info, inputs, pts, method, notes, cached, px, detection), disp in zip(
-        prepared, results, strict=True
-    ):
+    for (item, det, inputs, pts, notes, moved), disp in zip(prepared, results, strict=True):
+        entry = item.entry
         scl = None
         if scales_settings is not None:
             from ecoscan.analysis.scales.compute import analyse_scales
@@ -399,18 +206,22 @@ def _run_survey(
                 notes=notes,
             )
         run.rasters.append(
-            RasterRun(entry, method, pts, inputs, disp, scl, notes, cached, px, info.crs, detection)
-        )
+            RasterRun(
+                entry, det.method, pts, inputs, disp, scl, notes, det.cached,
+                det.pixel_size_m, item.info.crs, det.detection, moved,
+            )
+        )  # fmt: skip
         for row in dispersion_rows(disp):
-            run.rows.append({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
+            run.add_row({"site": entry.site, "date": entry.date, "raster": entry.name, **row})
         for n in notes:
-            text = n if "field check" in n else f"{entry.name}: {n}"
+            # the field-check caution is said once for the run, not once per raster
+            text = n if code_of(n) == FIELD_CHECK else f"{entry.name}: {n}"
             if text not in run.notes:
                 run.notes.append(text)
 
     _write_tables(run, stat_settings)
     _run_change(run)
-    _run_compare(run)
+    _run_compare(run, label or out.name)
     if report:
         from ecoscan.survey.reporting import write_report
 
@@ -503,9 +314,9 @@ def _run_change(run: SurveyRun) -> None:
         for method in dict.fromkeys(r.method for r in rrs):
             seq = sorted((r for r in rrs if r.method == method), key=lambda r: r.entry.date)
             for a, b in itertools.pairwise(seq):
+                later = set(b.inputs.layer.ids)
                 plots = PlotLayer(
-                    [p for p in a.inputs.plots if p.plot_id in set(b.inputs.layer.ids)],
-                    a.inputs.layer.crs,
+                    [p for p in a.inputs.plots if p.plot_id in later], a.inputs.layer.crs
                 )
                 # each plant once (the points table repeats a plant for every plot holding it)
                 res = detect_change(
@@ -518,15 +329,54 @@ def _run_change(run: SurveyRun) -> None:
                     rng=settings.seed,
                 )
                 folder = run.output / "change" / slug(f"{site}_{a.entry.date}_{b.entry.date}")
-                run.files += write_change(folder, res)
-                run.changes.append(ChangeRun(site, a.entry.date, b.entry.date, res, folder))
+                files = write_change(folder, res)
+                run.files += files
+                figure = next((f for f in files if Path(f).suffix == ".png"), None)
+                run.changes.append(ChangeRun(site, a.entry.date, b.entry.date, res, folder, figure))
 
 
-def _run_compare(run: SurveyRun) -> None:
+def _label(v) -> str:
+    """A label as the tables give it back (text, surrounding blanks dropped)."""
+    return "" if v is None else str(v).strip()
+
+
+def _comparison_table(run: SurveyRun, label: str):
+    """The survey's plots as units of comparison, from memory.
+
+    The same units, in the same order and with the same numbers, as reading the finished
+    folder back (:func:`ecoscan.compare.read_results`): one per site, date and plot, in the
+    order of ``dispersion.csv``, holding the plants of that plot at the coordinates the
+    points table stores, with the plot's own outline for its area and perimeter.
+    """
+    from ecoscan.analysis.compare.compute import PlotUnit, ResultsTable
+    from ecoscan.stats.compare_r import plot_nn
+
+    xy_of: dict[tuple[str, str, str], list[np.ndarray]] = {}
+    geom_of: dict[tuple[str, str, str], object] = {}
+    for rr in run.rasters:
+        inp = rr.inputs
+        # reprojected coordinates are analysed as computed but compared as stored (mm)
+        pts = as_stored(inp.points) if rr.reprojected else inp.points
+        for i, plot in enumerate(inp.plots):
+            key = (_label(rr.entry.site), _label(rr.entry.date), _label(plot.plot_id))
+            idx = inp.membership.points_of(i)
+            xy_of.setdefault(key, []).append(np.column_stack([pts.x[idx], pts.y[idx]]))
+            geom_of.setdefault(key, plot.geometry)
+    units = []
+    for key, parts in xy_of.items():
+        g = geom_of[key]
+        xy = np.concatenate(parts) if len(parts) > 1 else parts[0]
+        units.append(PlotUnit(label, *key, plot_nn(xy, float(g.area), float(g.length))))
+    crs = run.layer.crs if run.layer is not None else None
+    points = PointSet(np.empty(0), np.empty(0), {}, crs)
+    return ResultsTable(run.output, label, run.rows, points, units, True, True, [])
+
+
+def _run_compare(run: SurveyRun, label: str) -> None:
     cfg = run.config.compare
     if not cfg.get("enabled", True) or not run.rasters:
         return
-    from ecoscan.analysis.compare.compute import CompareSettings, compare_groups, read_results
+    from ecoscan.analysis.compare.compute import CompareSettings, compare_groups
     from ecoscan.report.folders import write_comparison
 
     settings = _section_settings(run, CompareSettings, cfg)
@@ -535,55 +385,19 @@ def _run_compare(run: SurveyRun) -> None:
         groupings = ["site", "plot"] if many_sites else ["plot"]
     else:
         groupings = [settings.by]
-    table = read_results(run.output)
+    table = _comparison_table(run, label)
     for g in groupings:
         res = compare_groups([table], by=g, permutations=settings.permutations, rng=settings.seed)
-        run.files += write_comparison(run.output / f"compare-by-{g}", res)
-        run.comparisons.append((g, res))
+        folder = run.output / f"compare-by-{g}"
+        files = write_comparison(folder, res)
+        run.files += files
+        figure = next((f for f in files if Path(f).suffix == ".png"), None)
+        run.comparisons.append(ComparisonRun(g, res, folder, figure))
     run.compare_by = ",".join(groupings)
 
 
 def _write_provenance(run, stat_settings, scales_settings, started, finished, seconds) -> None:
     cfg = run.config
-    inputs = [
-        {
-            "role": "survey",
-            "path": str(cfg.path),
-            "bytes": cfg.path.stat().st_size,
-            "sha256": file_sha256(cfg.path),
-        },
-        {
-            "role": "plots",
-            "path": str(cfg.plots),
-            "bytes": cfg.plots.stat().st_size,
-            "sha256": file_sha256(cfg.plots),
-        },
-    ]
-    for cname, cpath in (cfg.scales.get("covariates") or {}).items():
-        cp = Path(cpath)
-        if cp.is_file():
-            inputs.append(
-                {
-                    "role": "covariate",
-                    "name": cname,
-                    "path": str(cp),
-                    "bytes": cp.stat().st_size,
-                    "sha256": file_sha256(cp),
-                }
-            )
-    for e in cfg.rasters:
-        inputs.append(
-            {
-                "role": "raster",
-                "name": e.name,
-                "site": e.site,
-                "date": e.date,
-                "path": str(e.path),
-                "bytes": e.path.stat().st_size,
-                "sha256": file_sha256(e.path),
-                "detect": e.detect,
-            }
-        )
     write_json(
         run.output / "run.json",
         {
@@ -597,7 +411,7 @@ def _write_provenance(run, stat_settings, scales_settings, started, finished, se
             "scales": scales_settings.to_dict() if scales_settings else None,
             "change": cfg.change,
             "compare": {**cfg.compare, "by_used": run.compare_by},
-            "inputs": inputs,
+            "inputs": run.manifest.provenance(),
             "rasters": [
                 {
                     "name": r.entry.name,

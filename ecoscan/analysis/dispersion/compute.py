@@ -28,6 +28,7 @@ from ecoscan.analysis.dispersion.detectable import (
 from ecoscan.arguments import as_xy
 from ecoscan.errors import InputError
 from ecoscan.io.inputs import SurveyInputs
+from ecoscan.model.notes import WARNING, Note
 from ecoscan.progress import progress
 from ecoscan.settings import Settings
 from ecoscan.stats.csr import plot_rng
@@ -346,6 +347,12 @@ class PlotDispersion:
 DONNELLY_MIN_HALF_WIDTH = 1.5
 
 
+def _warning(text: str, code: str) -> Note:
+    """A plot's warning as a record (:class:`ecoscan.model.notes.Note`); codes starting with
+    ``quadrat-`` concern the quadrat test only."""
+    return Note(text, code, WARNING)
+
+
 def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
     """A one-line warning when a plot is too narrow for Donnelly's edge correction, else ''.
 
@@ -450,13 +457,16 @@ def analyse_plot(
         return _too_few_points(plot_id, n, area, perim, dens, guard_m, quad_m, quad_h)
     if n < s.min_points:
         warn.append(
-            f"only {n} points (fewer than {s.min_points}): the tests have little power; "
-            "read the verdict with caution"
+            _warning(
+                f"only {n} points (fewer than {s.min_points}): the tests have little power; "
+                "read the verdict with caution",
+                "few-points",
+            )
         )
     d, n_zero, ce, dn, gz = _nearest_neighbour_statistics(xy, polygon, s, guard_m, warn)
     few = s.too_few_simulations()
     if few:
-        warn.append(few)
+        warn.append(_warning(few, "few-simulations"))
     rng = plot_rng(s.seed, plot_id)
     mc = monte_carlo_nn(
         xy,
@@ -517,9 +527,11 @@ def _too_few_points(
 ) -> PlotDispersion:
     """The record of a plot with 0 or 1 plant: no statistics, one warning."""
     warn = (
-        "no points in this plot: no statistics"
+        _warning("no points in this plot: no statistics", "empty-plot")
         if n == 0
-        else "only 1 point: nearest-neighbour and quadrat statistics need at least 2"
+        else _warning(
+            "only 1 point: nearest-neighbour and quadrat statistics need at least 2", "one-point"
+        )
     )
     return PlotDispersion(
         plot_id,
@@ -555,19 +567,25 @@ def _nearest_neighbour_statistics(
     n_zero = int(np.sum(d == 0.0))
     if n_zero:
         warn.append(
-            f"{n_zero} points share their position with another point (distance 0 m); "
-            "check for duplicate detections"
+            _warning(
+                f"{n_zero} points share their position with another point (distance 0 m); "
+                "check for duplicate detections",
+                "duplicates",
+            )
         )
     ce = clark_evans(xy, area, direction=s.direction, nn=d)
     dn = donnelly(xy, polygon, direction=s.direction, nn=d)
     strip = donnelly_strip_warning(n, area, perim)
     if strip:
-        warn.append(strip)
+        warn.append(_warning(strip, "narrow-plot"))
     gz = guard_zone(xy, polygon, guard_m, direction=s.direction, nn=d)
     if gz.n_focal < 2:
         warn.append(
-            f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
-            "no guard-zone estimate (use a smaller --guard)"
+            _warning(
+                f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
+                "no guard-zone estimate (use a smaller --guard)",
+                "guard-zone-empty",
+            )
         )
     return d, n_zero, ce, dn, gz
 
@@ -589,13 +607,19 @@ def _quadrats(
         raise InputError(f"plot {plot_id}: {exc} (--quadrat sets the side in metres)") from None
     if qd.q < 2:
         warn.append(
-            f"the {quad_m:.3g} m quadrat grid gives only {qd.q} cell: no quadrat test "
-            "(use a smaller --quadrat)"
+            _warning(
+                f"the {quad_m:.3g} m quadrat grid gives only {qd.q} cell: no quadrat test "
+                "(use a smaller --quadrat)",
+                "quadrat-one-cell",
+            )
         )
     elif qd.n_low_expected:
         warn.append(
-            f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
-            "quadrat_p is approximate (quadrat_p_mc is exact)"
+            _warning(
+                f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} "
+                "points: quadrat_p is approximate (quadrat_p_mc is exact)",
+                "quadrat-approximate",
+            )
         )
     qnull = quadrat_null(qd, simulations, rng=rng)
     qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²

@@ -50,10 +50,8 @@ def print_summary(run, quiet: bool = False) -> None:
             f"change {ch.site} {ch.earlier} -> {ch.later}: shift "
             f"{ch.result.shift_x_m:+.2f} m E, {ch.result.shift_y_m:+.2f} m N"
         )
-    report = run.output / "report.html"
-    print_notes(
-        [f"results in {run.output}"] + ([f"report: {report}"] if report.exists() else []), quiet
-    )
+    report = [f for f in run.files if Path(f).name == "report.html"]
+    print_notes([f"results in {run.output}"] + [f"report: {f}" for f in report], quiet)
 
 
 def run(args: argparse.Namespace) -> int:
