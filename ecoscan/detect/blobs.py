@@ -200,13 +200,17 @@ def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
     norm = 1.0 / (math.sqrt(k) - 1.0 / math.sqrt(k))
     inner = np.arange(1, scales.sigmas.size - 1)
     level_img, level_valid = img, valid
+    every = bool(valid.all())  # every pixel valid: so is every coarse pixel
     for lev in range(scales.max_level + 1):
         if lev > 0:
             level_img = _halve(level_img)
-            level_valid = _halve_mask(level_valid)
+            if not every:
+                level_valid = _halve_mask(level_valid)
         mine = inner[scales.levels[inner] == lev]
         if mine.size == 0:
             continue
+        if every:
+            level_valid = np.ones(level_img.shape, dtype=bool)
         f = 2**lev
         # scales computed on this level: its own, one below, and two above, so that the
         # next level's first scale is also tested here at the finer (more accurate)
@@ -223,7 +227,10 @@ def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
                     level_img, local, truncate=_TRUNCATE, mode="constant", cval=background
                 )
             )
-        resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
+        resp = np.empty((ext.size, *level_img.shape), dtype=np.float32)
+        for j in range(ext.size):
+            np.subtract(blurs[j], blurs[j + 1], out=resp[j])
+            resp[j] *= norm
         del blurs[-1]
         yield lev, ext, resp, blurs, level_valid, level_img.shape
 
