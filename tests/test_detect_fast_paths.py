@@ -213,3 +213,17 @@ def test_scale_space_maxima_equal_a_3x3x3_maximum_filter():
         order = np.lexsort(got[::-1])
         for a, b in zip(got, ref, strict=True):
             np.testing.assert_array_equal(a[order], b)
+
+
+def test_pyramid_gaussian_equals_scipys_gaussian_filter_to_the_bit():
+    # reference: scipy.ndimage.gaussian_filter (truncate 4, constant edges), which the
+    # pyramid used to call for every blur; the kernel is now computed once per sigma
+    from scipy import ndimage
+
+    from ecoscan.detect.blobs import _gaussian
+
+    rng = np.random.default_rng(6)
+    for sigma in (0.2, 0.9, 1.37, 3.1):
+        img = rng.standard_normal((45, 61)).astype(np.float32)
+        ref = ndimage.gaussian_filter(img, sigma, truncate=4.0, mode="constant", cval=0.37)
+        np.testing.assert_array_equal(_gaussian(img, sigma, 0.37), ref)
