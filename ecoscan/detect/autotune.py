@@ -254,19 +254,56 @@ def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
 
 
 def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
-    """Pixels inside any of the discs (vectorised per disc bounding box)."""
-    mask = np.zeros(shape, dtype=bool)
+    """Pixels inside any of the discs: (y − row)² + (x − col)² ≤ radius².
+
+    Each disc row is one run of pixels; the runs of all discs are found at once (the
+    square root gives each run's ends, then the exact test above moves them by a pixel
+    where rounding put them off) and drawn by a cumulative sum along the rows. The same
+    pixels as testing every pixel of each disc's box.
+    """
     h, w = shape
-    for r0, c0, rad in zip(rows, cols, radii, strict=True):
-        rr = math.ceil(rad)
-        y0, y1 = max(0, int(r0) - rr), min(h, int(r0) + rr + 2)
-        x0, x1 = max(0, int(c0) - rr), min(w, int(c0) + rr + 2)
-        if y0 >= y1 or x0 >= x1:
-            continue
-        dy2 = (np.arange(y0, y1) - r0) ** 2
-        dx2 = (np.arange(x0, x1) - c0) ** 2
-        mask[y0:y1, x0:x1] |= dy2[:, None] + dx2[None, :] <= rad * rad
-    return mask
+    rows = np.asarray(rows, float)
+    cols = np.asarray(cols, float)
+    radii = np.asarray(radii, float)
+    if rows.size == 0:
+        return np.zeros(shape, dtype=bool)
+    rr = np.ceil(radii).astype(np.int64)
+    iy, ix = rows.astype(np.int64), cols.astype(np.int64)  # int(): towards zero
+    y0, y1 = np.maximum(0, iy - rr), np.minimum(h, iy + rr + 2)
+    x0, x1 = np.maximum(0, ix - rr), np.minimum(w, ix + rr + 2)
+    n_rows = np.where((y0 < y1) & (x0 < x1), y1 - y0, 0)
+    d = np.repeat(np.arange(rows.size), n_rows)  # disc of each run
+    first = np.cumsum(n_rows) - n_rows
+    y = y0[d] + (np.arange(d.size) - first[d])
+    dy2 = (y - rows[d]) ** 2
+    r2 = radii[d] * radii[d]
+    c = cols[d]
+
+    def inside(x):
+        return dy2 + (x - c) ** 2 <= r2
+
+    half = np.sqrt(np.maximum(r2 - dy2, 0.0))
+    lo = np.ceil(c - half).astype(np.int64)
+    hi = np.floor(c + half).astype(np.int64)
+    for _ in range(8):  # rounding moves an end by at most a pixel; settle it exactly
+        moved = False
+        for step in (-1, 1):
+            grow = inside(lo - 1) & (lo - 1 <= hi) if step < 0 else inside(hi + 1) & (hi >= lo - 1)
+            shrink = ~inside(lo) & (lo <= hi) if step < 0 else ~inside(hi) & (hi >= lo)
+            end = lo if step < 0 else hi
+            end[grow] += step
+            end[shrink & ~grow] -= step
+            moved = moved or bool(grow.any() or shrink.any())
+        if not moved:
+            break
+    lo = np.maximum(lo, x0[d])
+    hi = np.minimum(hi, x1[d] - 1)
+    run = lo <= hi
+    flat = (w + 1) * y[run]
+    edges = np.bincount(flat + lo[run], minlength=h * (w + 1)) - np.bincount(
+        flat + hi[run] + 1, minlength=h * (w + 1)
+    )
+    return np.cumsum(edges.reshape(h, w + 1), axis=1)[:, :w] > 0
 
 
 class _WindowCache:
