@@ -127,9 +127,15 @@ def make_scene(folder: Path, size: int, seed: int) -> tuple[Path, Path, dict]:
     from ecoscan.synthetic import make_scene as suite_scene
     from ecoscan.synthetic import write_scene
 
+    facts_path = folder / f"facts_{size}.json"
+    truth = folder / f"truth_{size}.npy"
+    tif = folder / f"{STYLE}_{size}_s{seed}.tif"
+    if facts_path.exists() and truth.exists() and tif.exists():  # kept from a former run
+        facts = json.loads(facts_path.read_text())
+        if facts.get("seed") == seed:
+            return tif, truth, facts
     sc = suite_scene(STYLE, size, seed)
     paths = write_scene(sc, folder)
-    truth = folder / f"truth_{size}.npy"
     np.save(truth, np.column_stack([sc.x_m, sc.y_m]))
     t = sc.transform
     facts = {
@@ -139,8 +145,9 @@ def make_scene(folder: Path, size: int, seed: int) -> tuple[Path, Path, dict]:
         "y0": t.f,
         "n": sc.n,
         "bands": sc.bands_option,
+        "seed": seed,
     }
-    (folder / f"facts_{size}.json").write_text(json.dumps(facts))
+    facts_path.write_text(json.dumps(facts))
     return paths.raster, truth, facts
 
 
@@ -331,7 +338,11 @@ def main() -> None:
     ap.add_argument("--tile", type=int, default=1024)
     ap.add_argument("--seed", type=int, default=5)
     ap.add_argument("--crop", type=int, default=2048, help="side of the plain tuning crop")
-    ap.add_argument("--folder", help="keep the rasters here (default: a temporary folder)")
+    ap.add_argument(
+        "--folder",
+        help="keep the rasters here, and reuse those a former run left (default: a temporary "
+        "folder)",
+    )
     ap.add_argument("--skip-plain", action="store_true")
     ap.add_argument("--_run", help=argparse.SUPPRESS)
     ap.add_argument("--_tif", help=argparse.SUPPRESS)
@@ -363,7 +374,7 @@ def main() -> None:
     t0 = time.perf_counter()
     big = make_scene(folder, a.size, a.seed)
     sml = make_scene(folder, small, a.seed + 1)
-    print(f"rasters written in {time.perf_counter() - t0:.1f} s; {big[2]['n']} plants")
+    print(f"rasters ready in {time.perf_counter() - t0:.1f} s; {big[2]['n']} plants")
 
     def args_for(run, scene):
         tif, truth, _f = scene

@@ -113,27 +113,55 @@ def in_core(tile: Tile, col: np.ndarray, row: np.ndarray) -> np.ndarray:
 PRELOAD = ["ecoscan.detect.engine", "ecoscan.lifecycle"]
 
 
-def _context():
+def _context(preload: bool = False):
     # GDAL state does not survive fork well; start workers fresh (from a fork server that
-    # has only imported the modules, or spawned).
+    # has only imported the modules, or spawned). Preloading applies only if this call
+    # starts the fork server.
     methods = mp.get_all_start_methods()
     if "forkserver" in methods:
         ctx = mp.get_context("forkserver")
-        ctx.set_forkserver_preload(PRELOAD)
+        if preload:
+            ctx.set_forkserver_preload(PRELOAD)
         return ctx
     return mp.get_context("spawn")
+
+
+def _same_package_in_fresh_python() -> bool:
+    """Whether a fresh interpreter imports this very ``ecoscan`` package.
+
+    The fork server imports its preloaded modules before it learns the caller's
+    ``sys.path`` (Python 3.11), so a caller that put another copy of ecoscan first on its
+    path would get workers running the installed one; preloading is safe only when both
+    are the same files. Costs one interpreter start (in the background thread).
+    """
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    import ecoscan
+
+    code = "import importlib.util as u; print(u.find_spec('ecoscan').origin)"
+    try:
+        out = subprocess.run(
+            [sys.executable, "-c", code], capture_output=True, text=True, timeout=30
+        )
+    except (OSError, subprocess.SubprocessError):
+        return False
+    found = out.stdout.strip()
+    return bool(found) and Path(found).resolve() == Path(ecoscan.__file__).resolve()
 
 
 def _ready() -> None:
     """A job that does nothing: makes the pool start a worker."""
 
 
-def start_pool(workers: int) -> ProcessPoolExecutor:
+def start_pool(workers: int, preload: bool = False) -> ProcessPoolExecutor:
     """Start ``workers`` local worker processes now, for :func:`run_plan` later.
 
     Starting them early lets the workers come up while the caller does other work (the
     global layer choice); :func:`run_plan` given the pool uses it and shuts it down. Stop
-    it with :func:`ecoscan.lifecycle.stop_pool` if it is never used.
+    it with :func:`ecoscan.lifecycle.stop_pool` if it is never used. ``preload``: the fork
+    server (if this starts it) imports the detector once for all workers (:data:`PRELOAD`).
 
     Examples
     --------
@@ -145,7 +173,7 @@ def start_pool(workers: int) -> ProcessPoolExecutor:
 
     ex = ProcessPoolExecutor(
         max_workers=workers,
-        mp_context=_context(),
+        mp_context=_context(preload),
         initializer=worker_init,
         initargs=(os.getpid(),),
     )
@@ -180,7 +208,7 @@ class EarlyPool:
 
     def _start(self, workers: int) -> None:
         with contextlib.suppress(Exception):
-            self._pool = start_pool(workers)
+            self._pool = start_pool(workers, preload=_same_package_in_fresh_python())
 
     def get(self) -> ProcessPoolExecutor | None:
         """The started pool (handed over: :meth:`stop` no longer ends it)."""
