@@ -127,9 +127,15 @@ def make_scene(folder: Path, size: int, seed: int) -> tuple[Path, Path, dict]:
     from ecoscan.synthetic import make_scene as suite_scene
     from ecoscan.synthetic import write_scene
 
+    facts_path = folder / f"facts_{size}.json"
+    truth = folder / f"truth_{size}.npy"
+    tif = folder / f"{STYLE}_{size}_s{seed}.tif"
+    if facts_path.exists() and truth.exists() and tif.exists():  # kept from a former run
+        facts = json.loads(facts_path.read_text())
+        if facts.get("seed") == seed:
+            return tif, truth, facts
     sc = suite_scene(STYLE, size, seed)
     paths = write_scene(sc, folder)
-    truth = folder / f"truth_{size}.npy"
     np.save(truth, np.column_stack([sc.x_m, sc.y_m]))
     t = sc.transform
     facts = {
@@ -139,8 +145,9 @@ def make_scene(folder: Path, size: int, seed: int) -> tuple[Path, Path, dict]:
         "y0": t.f,
         "n": sc.n,
         "bands": sc.bands_option,
+        "seed": seed,
     }
-    (folder / f"facts_{size}.json").write_text(json.dumps(facts))
+    facts_path.write_text(json.dumps(facts))
     return paths.raster, truth, facts
 
 
@@ -151,15 +158,59 @@ def _f1(det_xy_m: np.ndarray, truth_m: np.ndarray, tol_m: float) -> float:
     return 2 * m.n_matched / (det_xy_m.shape[0] + truth_m.shape[0])
 
 
+class PhaseClock:
+    """Wall and CPU seconds (this process) spent inside some functions, by label.
+
+    Wraps module attributes for the duration of a ``with`` block; used to split
+    ecoscan's run into its phases (reading the sample windows, choosing the layer).
+    """
+
+    def __init__(self, targets: dict[str, tuple[object, str]]) -> None:
+        self.targets = targets
+        self.wall: dict[str, float] = dict.fromkeys(targets, 0.0)
+        self.cpu: dict[str, float] = dict.fromkeys(targets, 0.0)
+        self._saved: list[tuple[object, str, object]] = []
+
+    def __enter__(self) -> PhaseClock:
+        for label, (module, name) in self.targets.items():
+            func = getattr(module, name)
+
+            def timed(*args, __f=func, __label=label, **kwargs):
+                t, c = time.perf_counter(), time.process_time()
+                try:
+                    return __f(*args, **kwargs)
+                finally:
+                    self.wall[__label] += time.perf_counter() - t
+                    self.cpu[__label] += time.process_time() - c
+
+            self._saved.append((module, name, func))
+            setattr(module, name, timed)
+        return self
+
+    def __exit__(self, *exc) -> None:
+        for module, name, func in self._saved:
+            setattr(module, name, func)
+
+
 def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) -> dict:
     """ecoscan detect on the raster; returns figures (run in its own process)."""
+    import ecoscan.detect as det
+    import ecoscan.detect.autotune as auto
     from ecoscan.detect import DetectionSettings, detect_raster
 
     lo, hi = facts["diameter"]
     s = DetectionSettings(
         diameter_min_m=lo, diameter_max_m=hi, tile_size_px=tile, bands=facts["bands"]
     )
-    with DescendantPeaks() as kids:
+    phases = PhaseClock(
+        {
+            "sample windows read": (det, "_sample_windows"),
+            "layer choice": (auto, "choose_layer"),
+            "global parameters (all)": (det, "_global_params"),
+            "tiles (run_plan)": (det, "run_plan"),
+        }
+    )
+    with DescendantPeaks() as kids, phases:
         t0 = time.perf_counter()
         c0 = time.process_time()
         res = detect_raster(tif, s, workers=workers)
@@ -167,6 +218,9 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
         cpu = time.process_time() - c0
     tr = np.load(truth)
     return {
+        "phases": {k: [phases.wall[k], phases.cpu[k]] for k in phases.targets},
+        "cpu_main": cpu,
+        "cpu_workers": kids.cpu_seconds,
         "seconds": dt,
         "megapixels": res.raster.megapixels,
         "n": res.n,
@@ -284,7 +338,11 @@ def main() -> None:
     ap.add_argument("--tile", type=int, default=1024)
     ap.add_argument("--seed", type=int, default=5)
     ap.add_argument("--crop", type=int, default=2048, help="side of the plain tuning crop")
-    ap.add_argument("--folder", help="keep the rasters here (default: a temporary folder)")
+    ap.add_argument(
+        "--folder",
+        help="keep the rasters here, and reuse those a former run left (default: a temporary "
+        "folder)",
+    )
     ap.add_argument("--skip-plain", action="store_true")
     ap.add_argument("--_run", help=argparse.SUPPRESS)
     ap.add_argument("--_tif", help=argparse.SUPPRESS)
@@ -316,7 +374,7 @@ def main() -> None:
     t0 = time.perf_counter()
     big = make_scene(folder, a.size, a.seed)
     sml = make_scene(folder, small, a.seed + 1)
-    print(f"rasters written in {time.perf_counter() - t0:.1f} s; {big[2]['n']} plants")
+    print(f"rasters ready in {time.perf_counter() - t0:.1f} s; {big[2]['n']} plants")
 
     def args_for(run, scene):
         tif, truth, _f = scene
@@ -382,6 +440,15 @@ def main() -> None:
             f"F1 ecoscan {ref['f1']:.3f} vs plain {plain['f1']:.3f} (goal: not lower); "
             f"peak memory plain {plain['peak_main_mb']:.0f} MB"
         )
+    print()
+    print(f"where ecoscan's time goes at {a.size}^2 (main process; workers run the tiles):")
+    print(f"{'phase':28} {'wall s':>8} {'CPU s (main)':>13}")
+    for name, (wall, cpu) in eco["phases"].items():
+        print(f"{name:28} {wall:8.2f} {cpu:13.2f}")
+    print(
+        f"{'whole run':28} {eco['seconds']:8.2f} {eco['cpu_main']:13.2f}   "
+        f"+ {eco['cpu_workers']:.2f} CPU s in the fork server and workers"
+    )
     print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     if tmp is not None:
         tmp.cleanup()

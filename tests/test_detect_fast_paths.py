@@ -213,3 +213,36 @@ def test_scale_space_maxima_equal_a_3x3x3_maximum_filter():
         order = np.lexsort(got[::-1])
         for a, b in zip(got, ref, strict=True):
             np.testing.assert_array_equal(a[order], b)
+
+
+def test_pyramid_gaussian_equals_scipys_gaussian_filter_to_the_bit():
+    # reference: scipy.ndimage.gaussian_filter (truncate 4, constant edges), which the
+    # pyramid used to call for every blur; the kernel is now computed once per sigma
+    from scipy import ndimage
+
+    from ecoscan.detect.blobs import _gaussian
+
+    rng = np.random.default_rng(6)
+    for sigma in (0.2, 0.9, 1.37, 3.1):
+        img = rng.standard_normal((45, 61)).astype(np.float32)
+        ref = ndimage.gaussian_filter(img, sigma, truncate=4.0, mode="constant", cval=0.37)
+        np.testing.assert_array_equal(_gaussian(img, sigma, 0.37), ref)
+
+
+def test_disc_mask_equals_testing_every_pixel():
+    # reference: the definition, (y - row)^2 + (x - col)^2 <= radius^2 tested on every
+    # pixel, for centres on and off the grid, radii whose square is an integer (pixels
+    # exactly on the circle) and discs cut by the array's edges
+    rng = np.random.default_rng(9)
+    yy, xx = np.mgrid[:70, :90]
+    for t in range(40):
+        n = int(rng.integers(1, 30))
+        rows, cols = rng.uniform(-6, 76, n), rng.uniform(-6, 96, n)
+        radii = rng.uniform(0.0, 20.0, n)
+        if t % 2:
+            rows, cols = np.round(rows), np.round(cols)
+            radii = np.sqrt(rng.integers(0, 400, n).astype(float))
+        ref = np.zeros((70, 90), bool)
+        for r0, c0, rad in zip(rows, cols, radii, strict=True):
+            ref |= (yy - r0) ** 2 + (xx - c0) ** 2 <= rad * rad
+        np.testing.assert_array_equal(autotune._disc_mask((70, 90), rows, cols, radii), ref)

@@ -25,10 +25,16 @@ import numpy as np
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
 from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
-from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
+from ecoscan.detect.tiling import EarlyPool, Tile, plan_tiles, run_plan
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
-from ecoscan.io.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
+from ecoscan.io.raster import (
+    RasterInfo,
+    all_pixels_valid,
+    open_raster,
+    pixel_to_map,
+    read_decimated,
+)
 from ecoscan.model.notes import CAUTION, FIELD_CHECK, WARNING, Note, is_warning
 from ecoscan.model.points import PointSet
 
@@ -310,18 +316,29 @@ def choose_method(
     return method, bands, index, notes
 
 
-def _global_params(
-    info: RasterInfo, settings: DetectionSettings, method: str, bands, index
-) -> tuple[DetectorParams | None, int, int, dict, list[str]]:
-    """Thresholds and scales from the whole raster (decimated), never per tile."""
-    ps = info.pixel_size_m
-    name = Path(info.path).name
+def _decimated(info: RasterInfo, bands, name: str):
+    """The whole raster decimated (:func:`read_decimated`); refuses an all-nodata raster."""
     data, valid = read_decimated(info, bands)
     if not valid.any():
         raise InputError(
             f"{name} is entirely nodata (every pixel is masked); check the file and its "
             "nodata value"
         )
+    return data, valid
+
+
+def _global_params(
+    info: RasterInfo, settings: DetectionSettings, method: str, bands, index
+) -> tuple[DetectorParams | None, int, int, dict, list[str]]:
+    """Thresholds and scales from the whole raster (decimated), never per tile."""
+    ps = info.pixel_size_m
+    name = Path(info.path).name
+    if method == "imagery" and _auto_layer(settings) and all_pixels_valid(info, info.data_bands):
+        # the automatic layer choice reads its own windows: the decimated whole raster is
+        # read only if it falls back to Otsu (no pixel can be nodata here)
+        data = valid = None
+    else:
+        data, valid = _decimated(info, bands, name)
     notes: list[str] = []
     dmin_px, dmax_px = settings.diameter_min_m / ps, settings.diameter_max_m / ps
     if method in ("imagery", "classes"):
@@ -372,6 +389,8 @@ def _global_params(
             notes.append(fallback)
         from skimage.filters import threshold_otsu
 
+        if data is None:
+            data, valid = _decimated(info, bands, name)
         layer = vegetation_layer(data, index)[valid]
         if float(np.ptp(layer)) == 0.0:
             flat = _no_plants("the vegetation layer is constant: no plants found")
@@ -799,16 +818,35 @@ def detect_raster(
     (Lowe 2004), Otsu (1979) thresholds, variable-window tree tops (Popescu & Wynne 2004),
     marker-controlled watershed (Meyer & Beucher 1990). See docs/detection.md.
     """
-    import shapely
-
-    from ecoscan.model.membership import assign_plots, overlap_note, points_by_plot, unsurveyed_note
-    from ecoscan.model.plots import PlotLayer
-
     settings = settings or DetectionSettings()
     if workers < 1:
         raise InputError(f"--workers must be at least 1 (got {workers})")
     if info is None:
         info = open_raster(path, pixel_size_m=settings.pixel_size_m)
+    early = None
+    if executor is None and workers > 1 and info.width * info.height > settings.tile_size_px**2:
+        # workers start (and import the detector) while this process chooses the layer
+        early = EarlyPool(workers)
+    try:
+        return _detect(path, info, settings, plots, workers, executor, early)
+    finally:
+        if early is not None:
+            early.stop()  # on an error before the tiles ran; a no-op after
+
+
+def _detect(path, info, settings, plots, workers, executor, early) -> DetectionResult:
+    """The body of :func:`detect_raster` (``early``: an :class:`EarlyPool` or None)."""
+    if plots is not None:  # (the vector stack is slow to import: only when needed)
+        import shapely
+
+        from ecoscan.model.membership import (
+            assign_plots,
+            overlap_note,
+            points_by_plot,
+            unsurveyed_note,
+        )
+        from ecoscan.model.plots import PlotLayer
+
     notes = list(info.notes)
     if settings.detector:  # calibrated detector (ecoscan calibrate): its file sets the layer
         from ecoscan.detect.detector_file import calibrated_params, read_detector
@@ -857,7 +895,8 @@ def detect_raster(
                 )
     jobs = [TileJob(info, t, params) for t in selected]
     if executor is None:
-        parts = run_plan(run_tile, jobs, workers=workers) if jobs else []
+        pool = early.get() if early is not None and jobs else None
+        parts = run_plan(run_tile, jobs, workers=workers, pool=pool) if jobs else []
     else:
         parts = executor.map(run_tile, jobs, desc="tiles", unit="tile")
     table: dict[str, np.ndarray] = {}

@@ -92,6 +92,12 @@ RAISE_STEPS = 25
 GAP_SHARE = 0.08
 #: Fewest background pixels that measure the response spread at one scale.
 MIN_SPREAD_PX = 200
+#: Sample windows holding more pixels than this give the layer's median and spread
+#: (background and all pixels) from every second row and column only: a regular sample
+#: with the same distribution and a quarter of the sorting. Measured on a 2048² dry-shrubs
+#: scene (5.6 million window pixels): the same layer and candidates, thresholds within
+#: 0.2 %. Smaller windows (the tuning scenes) use every pixel.
+VALUE_SAMPLE_PX = 2_000_000
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -266,18 +272,56 @@ def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
 
 
 def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
-    """Pixels inside any of the discs (vectorised per disc bounding box)."""
-    mask = np.zeros(shape, dtype=bool)
+    """Pixels inside any of the discs: (y − row)² + (x − col)² ≤ radius².
+
+    Each disc row is one run of pixels; the runs of all discs are found at once (the
+    square root gives each run's ends, then the exact test above moves them by a pixel
+    where rounding put them off) and drawn by a cumulative sum along the rows. The same
+    pixels as testing every pixel of each disc's box.
+    """
     h, w = shape
-    for r0, c0, rad in zip(rows, cols, radii, strict=True):
-        rr = math.ceil(rad)
-        y0, y1 = max(0, int(r0) - rr), min(h, int(r0) + rr + 2)
-        x0, x1 = max(0, int(c0) - rr), min(w, int(c0) + rr + 2)
-        if y0 >= y1 or x0 >= x1:
-            continue
-        yy, xx = np.ogrid[y0:y1, x0:x1]
-        mask[y0:y1, x0:x1] |= (yy - r0) ** 2 + (xx - c0) ** 2 <= rad * rad
-    return mask
+    rows = np.asarray(rows, float)
+    cols = np.asarray(cols, float)
+    radii = np.asarray(radii, float)
+    if rows.size == 0:
+        return np.zeros(shape, dtype=bool)
+    rr = np.ceil(radii).astype(np.int64)
+    iy, ix = rows.astype(np.int64), cols.astype(np.int64)  # int(): towards zero
+    y0, y1 = np.maximum(0, iy - rr), np.minimum(h, iy + rr + 2)
+    x0, x1 = np.maximum(0, ix - rr), np.minimum(w, ix + rr + 2)
+    n_rows = np.where((y0 < y1) & (x0 < x1), y1 - y0, 0)
+    d = np.repeat(np.arange(rows.size), n_rows)  # disc of each run
+    first = np.cumsum(n_rows) - n_rows
+    y = y0[d] + (np.arange(d.size) - first[d])
+    dy2 = (y - rows[d]) ** 2
+    r2 = radii[d] * radii[d]
+    c = cols[d]
+
+    def inside(x):
+        return dy2 + (x - c) ** 2 <= r2
+
+    half = np.sqrt(np.maximum(r2 - dy2, 0.0))
+    lo = np.ceil(c - half).astype(np.int64)
+    hi = np.floor(c + half).astype(np.int64)
+    for _ in range(8):  # rounding moves an end by at most a pixel; settle it exactly
+        moved = False
+        for step in (-1, 1):
+            grow = inside(lo - 1) & (lo - 1 <= hi) if step < 0 else inside(hi + 1) & (hi >= lo - 1)
+            shrink = ~inside(lo) & (lo <= hi) if step < 0 else ~inside(hi) & (hi >= lo)
+            end = lo if step < 0 else hi
+            end[grow] += step
+            end[shrink & ~grow] -= step
+            moved = moved or bool(grow.any() or shrink.any())
+        if not moved:
+            break
+    lo = np.maximum(lo, x0[d])
+    hi = np.minimum(hi, x1[d] - 1)
+    run = lo <= hi
+    flat = (w + 1) * y[run]
+    edges = np.bincount(flat + lo[run], minlength=h * (w + 1)) - np.bincount(
+        flat + hi[run] + 1, minlength=h * (w + 1)
+    )
+    return np.cumsum(edges.reshape(h, w + 1), axis=1)[:, :w] > 0
 
 
 class _WindowCache:
@@ -289,10 +333,12 @@ class _WindowCache:
         Valid pixels of each window halved to every pyramid level.
     core_valid : list of numpy.ndarray
         Valid pixels in each window's core.
-    edges : list of list
+    edges : list of list or None
         Per window, the DoG pyramid of the invalid-pixel indicator with 1 beyond the
         window's edges: the filters are linear, so raising the fill value (invalid pixels
         and beyond the edges) by ``d`` raises every response by ``d`` times this one.
+        None where it is zero over the core (every pixel valid, core farther than the
+        filters reach from the window's edges).
     inner : list of numpy.ndarray
         Valid pixels whose 3 × 3 neighbourhood is valid (for :func:`pixel_noise`).
     """
@@ -300,6 +346,8 @@ class _WindowCache:
     def __init__(self, windows: list[SampleWindow], scales: BlobScales) -> None:
         self.windows = windows
         self.scales = scales
+        #: rows and columns between the pixels whose values give medians (VALUE_SAMPLE_PX)
+        self.stride = 2 if sum(w.valid.size for w in windows) > VALUE_SAMPLE_PX else 1
         self.valid_levels = [level_masks(w.valid, scales) for w in windows]
         self.core_valid = []
         self.edges = []
@@ -308,8 +356,26 @@ class _WindowCache:
             core = np.zeros(w.valid.shape, dtype=bool)
             core[w.core] = True
             self.core_valid.append(core & w.valid)
-            self.edges.append(blob_pyramid((~w.valid).astype(np.float32), scales, 1.0))
-            self.inner.append(ndimage.binary_erosion(w.valid, iterations=1, border_value=0))
+            # the fill value reaches the core only through invalid pixels or a core closer
+            # to the window's edge than the filters reach; otherwise its response is zero
+            ys, xs = w.core
+            h, wd = w.valid.shape
+            reach = scales.support_px
+            sealed = (
+                ys.start >= reach
+                and xs.start >= reach
+                and h - ys.stop >= reach
+                and wd - xs.stop >= reach
+                and bool(w.valid.all())
+            )
+            self.edges.append(
+                None if sealed else blob_pyramid((~w.valid).astype(np.float32), scales, 1.0)
+            )
+            self.inner.append(
+                ndimage.binary_erosion(w.valid, iterations=1, border_value=0)
+                if self.stride == 1
+                else None
+            )
         self._white: dict[int, np.ndarray] = {}
 
     def white_spread(self, shape: tuple[int, int]) -> np.ndarray:
@@ -347,7 +413,7 @@ class _LayerPyramids:
             self._noise = float(
                 np.median(
                     [
-                        pixel_noise(lay, w.valid, inner)
+                        pixel_noise(lay, w.valid, inner, self.cache.stride)
                         for lay, w, inner in zip(
                             self.layers, self.cache.windows, self.cache.inner, strict=True
                         )
@@ -400,7 +466,9 @@ def _spreads(lp: _LayerPyramids, masks, fill, clearances=None):
                 clearance=clear,
                 clearance_sigmas=CLEARANCE,
                 min_pixels=MIN_SPREAD_PX if clear is not None else 1,
-                shift=(shift, cache.edges[wi]) if shift != 0.0 else None,
+                shift=(shift, cache.edges[wi])
+                if shift != 0.0 and cache.edges[wi] is not None
+                else None,
             )
         )
     stack = np.vstack(per)
@@ -415,7 +483,9 @@ def _spreads(lp: _LayerPyramids, masks, fill, clearances=None):
     )
 
 
-def pixel_noise(layer: np.ndarray, valid: np.ndarray, inner: np.ndarray | None = None) -> float:
+def pixel_noise(
+    layer: np.ndarray, valid: np.ndarray, inner: np.ndarray | None = None, stride: int = 1
+) -> float:
     """Standard deviation of pixel noise by Immerkær's Laplacian-difference estimator.
 
     Immerkær, J. (1996). Fast noise variance estimation. Computer Vision and Image
@@ -423,7 +493,8 @@ def pixel_noise(layer: np.ndarray, valid: np.ndarray, inner: np.ndarray | None =
     N = [[1, −2, 1], [−2, 4, −2], [1, −2, 1]], which cancels smooth structure (crowns,
     gradients), so the estimate holds where plants cover most of the image. The mean is
     taken over valid interior pixels (``inner``, the valid pixels eroded by one pixel,
-    computed when not given).
+    computed when not given), or with ``stride`` > 1 over those of every ``stride``-th row
+    and column only (a regular sample, for large windows).
 
     Examples
     --------
@@ -432,9 +503,27 @@ def pixel_noise(layer: np.ndarray, valid: np.ndarray, inner: np.ndarray | None =
     >>> img = rng.normal(0, 2.0, (400, 400)) + np.linspace(0, 50, 400)[None]
     >>> round(pixel_noise(img, np.ones(img.shape, bool)), 1)
     2.0
+    >>> round(pixel_noise(img, np.ones(img.shape, bool), stride=2), 1)
+    2.0
     """
-
     kern = np.array([[1, -2, 1], [-2, 4, -2], [1, -2, 1]], np.float32)
+    if stride > 1:
+        # the operator at interior pixels of the sampled rows and columns only (an interior
+        # valid pixel's neighbourhood never reaches beyond the array)
+        lay = np.asarray(layer, np.float32)
+        h, w = lay.shape
+        if h < 3 or w < 3:
+            return 0.0
+        acc = np.zeros(((h - 2 + stride - 1) // stride, (w - 2 + stride - 1) // stride))
+        ok = np.ones(acc.shape, bool)
+        for dy in (-1, 0, 1):
+            for dx in (-1, 0, 1):
+                win = (slice(1 + dy, h - 1 + dy, stride), slice(1 + dx, w - 1 + dx, stride))
+                acc += float(kern[dy + 1, dx + 1]) * lay[win]
+                ok &= valid[win]
+        if not ok.any():
+            return 0.0
+        return float(math.sqrt(math.pi / 2.0) * np.abs(acc[ok]).mean() / 6.0)
     conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
     if inner is None:  # valid pixels whose 3 x 3 neighbourhood is valid
         inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
@@ -511,6 +600,13 @@ def _background_share(windows, cand, spread) -> float:
     return free / max(total, 1)
 
 
+def _values(layer: np.ndarray, mask: np.ndarray, stride: int) -> np.ndarray:
+    """The layer at the masked pixels of every ``stride``-th row and column."""
+    if stride == 1:
+        return layer[mask]
+    return layer[::stride, ::stride][mask[::stride, ::stride]]
+
+
 def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     """Background statistics, thresholds and separation score of one layer.
 
@@ -519,7 +615,9 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     """
     windows, scales = cache.windows, cache.scales
     if vals is None:
-        vals = np.concatenate([lay[w.valid] for lay, w in zip(layers, windows, strict=True)])
+        vals = np.concatenate(
+            [_values(lay, w.valid, cache.stride) for lay, w in zip(layers, windows, strict=True)]
+        )
     m0, s0 = centre if centre is not None else robust_centre_scale(vals)
     if not s0 > 0:
         s0 = float(np.std(vals)) or 1e-6
@@ -573,7 +671,7 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
                         else np.full(lay.shape, np.inf, np.float32)
                     )
                 bg_masks.append(win.valid & ~covered)
-                bg_vals.append(lay[bg_masks[-1]])
+                bg_vals.append(_values(lay, bg_masks[-1], cache.stride))
             bg = np.concatenate(bg_vals)
             if bg.size >= MIN_BACKGROUND * vals.size:
                 break
@@ -752,7 +850,9 @@ def choose_layer(
     def base_of(name: str):
         if name not in base:
             single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
-            vals = np.concatenate([s[w.valid] for s, w in zip(single, windows, strict=True)])
+            vals = np.concatenate(
+                [_values(s, w.valid, cache.stride) for s, w in zip(single, windows, strict=True)]
+            )
             base[name] = (single, vals, robust_centre_scale(vals))
         return base[name]
 

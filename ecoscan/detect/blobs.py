@@ -17,6 +17,7 @@ tiles at once, by :func:`prune_blobs`.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -116,6 +117,29 @@ def blob_scales(
     return BlobScales(sig, lev, k)
 
 
+@functools.lru_cache(maxsize=512)
+def _gaussian_weights(sigma: float) -> np.ndarray:
+    """The sampled Gaussian of ``scipy.ndimage.gaussian_filter`` (cut at 4 σ, sum 1)."""
+    radius = int(_TRUNCATE * sigma + 0.5)
+    x = np.arange(-radius, radius + 1)
+    phi = np.exp(-0.5 / (sigma * sigma) * x**2)
+    phi = phi / phi.sum()
+    return phi[::-1]  # correlation weights
+
+
+def _gaussian(img: np.ndarray, sigma: float, cval: float) -> np.ndarray:
+    """``ndimage.gaussian_filter(img, sigma, truncate=4, mode="constant", cval=cval)``.
+
+    The same two separable passes, with the kernel computed once per σ (the pyramid asks
+    for the same few σ in every tile and window).
+    """
+    w = _gaussian_weights(float(sigma))
+    out = np.empty_like(img)
+    ndimage.correlate1d(img, w, 0, out, "constant", cval, 0)
+    ndimage.correlate1d(out, w, 1, out, "constant", cval, 0)
+    return out
+
+
 def _halve(img: np.ndarray) -> np.ndarray:
     """Mean of 2×2 blocks; a partial block at the far edge averages the pixels it has."""
     h, w = img.shape
@@ -200,13 +224,17 @@ def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
     norm = 1.0 / (math.sqrt(k) - 1.0 / math.sqrt(k))
     inner = np.arange(1, scales.sigmas.size - 1)
     level_img, level_valid = img, valid
+    every = bool(valid.all())  # every pixel valid: so is every coarse pixel
     for lev in range(scales.max_level + 1):
         if lev > 0:
             level_img = _halve(level_img)
-            level_valid = _halve_mask(level_valid)
+            if not every:
+                level_valid = _halve_mask(level_valid)
         mine = inner[scales.levels[inner] == lev]
         if mine.size == 0:
             continue
+        if every:
+            level_valid = np.ones(level_img.shape, dtype=bool)
         f = 2**lev
         # scales computed on this level: its own, one below, and two above, so that the
         # next level's first scale is also tested here at the finer (more accurate)
@@ -218,12 +246,11 @@ def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
         blurs = []
         for b in blur_s:
             local = math.sqrt(max(b * b - box_var, 0.04)) / f
-            blurs.append(
-                ndimage.gaussian_filter(
-                    level_img, local, truncate=_TRUNCATE, mode="constant", cval=background
-                )
-            )
-        resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
+            blurs.append(_gaussian(level_img, local, background))
+        resp = np.empty((ext.size, *level_img.shape), dtype=np.float32)
+        for j in range(ext.size):
+            np.subtract(blurs[j], blurs[j + 1], out=resp[j])
+            resp[j] *= norm
         del blurs[-1]
         yield lev, ext, resp, blurs, level_valid, level_img.shape
 

@@ -225,7 +225,8 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         else:
             layer = vegetation_layer(data, p.index)
         del data
-        layer[~valid] = p.fill_value
+        if not valid.all():
+            layer[~valid] = p.fill_value
         found = blobs.detect_blobs(
             layer,
             p.scales,

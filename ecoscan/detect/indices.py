@@ -27,9 +27,13 @@ def excess_green(red: np.ndarray, green: np.ndarray, blue: np.ndarray) -> np.nda
     r = np.asarray(red, np.float32)
     g = np.asarray(green, np.float32)
     b = np.asarray(blue, np.float32)
-    s = r + g + b
+    s = r + g
+    s += b
+    out = 2.0 * g  # (2g - r - b) / s, in place: the same float32 operations, fewer copies
+    out -= r
+    out -= b
     with np.errstate(invalid="ignore", divide="ignore"):
-        out = (2.0 * g - r - b) / s
+        np.divide(out, s, out=out)
     out[~(s > 0)] = 0.0
     return out.astype(np.float32, copy=False)
 

@@ -12,9 +12,11 @@ or on local processes; a distributed engine can run the same jobs.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import multiprocessing as mp
 import os
+import threading
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
@@ -24,7 +26,7 @@ import numpy as np
 
 from ecoscan.progress import progress
 
-__all__ = ["Tile", "in_core", "plan_tiles", "run_plan"]
+__all__ = ["EarlyPool", "Tile", "in_core", "plan_tiles", "run_plan", "start_pool"]
 
 J = TypeVar("J")
 R = TypeVar("R")
@@ -106,10 +108,122 @@ def in_core(tile: Tile, col: np.ndarray, row: np.ndarray) -> np.ndarray:
     return (col >= c0 - 0.5) & (col < c1 - 0.5) & (row >= r0 - 0.5) & (row < r1 - 0.5)
 
 
-def _context():
-    # GDAL state does not survive fork well; start workers fresh.
+#: Modules the fork server imports once, so that every worker forked from it starts with
+#: them loaded (no dataset is open in the server, so no GDAL state is copied).
+PRELOAD = ["ecoscan.detect.engine", "ecoscan.lifecycle"]
+
+
+def _context(preload: bool = False):
+    # GDAL state does not survive fork well; start workers fresh (from a fork server that
+    # has only imported the modules, or spawned). Preloading applies only if this call
+    # starts the fork server.
     methods = mp.get_all_start_methods()
-    return mp.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if "forkserver" in methods:
+        ctx = mp.get_context("forkserver")
+        if preload:
+            ctx.set_forkserver_preload(PRELOAD)
+        return ctx
+    return mp.get_context("spawn")
+
+
+def _same_package_in_fresh_python() -> bool:
+    """Whether a fresh interpreter imports this very ``ecoscan`` package.
+
+    The fork server imports its preloaded modules before it learns the caller's
+    ``sys.path`` (Python 3.11), so a caller that put another copy of ecoscan first on its
+    path would get workers running the installed one; preloading is safe only when both
+    are the same files. Costs one interpreter start (in the background thread).
+    """
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    import ecoscan
+
+    code = "import importlib.util as u; print(u.find_spec('ecoscan').origin)"
+    try:
+        out = subprocess.run(
+            [sys.executable, "-c", code], capture_output=True, text=True, timeout=30
+        )
+    except (OSError, subprocess.SubprocessError):
+        return False
+    found = out.stdout.strip()
+    return bool(found) and Path(found).resolve() == Path(ecoscan.__file__).resolve()
+
+
+def _ready() -> None:
+    """A job that does nothing: makes the pool start a worker."""
+
+
+def start_pool(workers: int, preload: bool = False) -> ProcessPoolExecutor:
+    """Start ``workers`` local worker processes now, for :func:`run_plan` later.
+
+    Starting them early lets the workers come up while the caller does other work (the
+    global layer choice); :func:`run_plan` given the pool uses it and shuts it down. Stop
+    it with :func:`ecoscan.lifecycle.stop_pool` if it is never used. ``preload``: the fork
+    server (if this starts it) imports the detector once for all workers (:data:`PRELOAD`).
+
+    Examples
+    --------
+    >>> from ecoscan.lifecycle import stop_pool
+    >>> pool = start_pool(1)
+    >>> stop_pool(pool)
+    """
+    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+
+    ex = ProcessPoolExecutor(
+        max_workers=workers,
+        mp_context=_context(preload),
+        initializer=worker_init,
+        initargs=(os.getpid(),),
+    )
+    try:
+        with deferred_signals():  # workers start on submit; never leave one half-started
+            for _ in range(workers):
+                ex.submit(_ready)
+    except BaseException:
+        stop_pool(ex)
+        raise
+    return ex
+
+
+class EarlyPool:
+    """Workers started in a background thread (:func:`start_pool`) while the caller works.
+
+    Starting a fork server that imports the detector takes about a second; the thread
+    waits for it, so the caller does not. :meth:`get` waits for the pool (None if it
+    could not start: :func:`run_plan` then starts its own); :meth:`stop` ends it if it
+    was never handed to :func:`run_plan`.
+
+    Examples
+    --------
+    >>> early = EarlyPool(1)
+    >>> early.stop()
+    """
+
+    def __init__(self, workers: int) -> None:
+        self._pool: ProcessPoolExecutor | None = None
+        self._thread = threading.Thread(target=self._start, args=(workers,), daemon=True)
+        self._thread.start()
+
+    def _start(self, workers: int) -> None:
+        with contextlib.suppress(Exception):
+            self._pool = start_pool(workers, preload=_same_package_in_fresh_python())
+
+    def get(self) -> ProcessPoolExecutor | None:
+        """The started pool (handed over: :meth:`stop` no longer ends it)."""
+        self._thread.join()
+        pool, self._pool = self._pool, None
+        return pool
+
+    def stop(self) -> None:
+        """End the workers unless the pool was handed over."""
+        self._thread.join()
+        if self._pool is not None:
+            from ecoscan.lifecycle import stop_pool
+
+            stop_pool(self._pool)
+            self._pool = None
 
 
 def run_plan(
@@ -118,6 +232,7 @@ def run_plan(
     *,
     workers: int = 1,
     desc: str = "tiles",
+    pool: ProcessPoolExecutor | None = None,
 ) -> list[R]:
     """Run ``func`` on every job, in-process or on local worker processes.
 
@@ -131,6 +246,9 @@ def run_plan(
         1 runs in this process; more uses a process pool of that size.
     desc : str
         Progress bar label.
+    pool : ProcessPoolExecutor, optional
+        Workers already started (:func:`start_pool`), used instead of new ones and shut
+        down at the end.
 
     Returns
     -------
@@ -139,16 +257,18 @@ def run_plan(
     """
     if workers < 1:
         raise ValueError("workers must be at least 1")
+    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+
     if workers == 1 or len(jobs) <= 1:
+        if pool is not None:
+            stop_pool(pool)
         return [func(j) for j in progress(jobs, total=len(jobs), desc=desc, unit="tile")]
     results: list[Any] = [None] * len(jobs)
     from concurrent.futures import as_completed
 
-    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
-
     # workers ignore Ctrl-C and die with their parent; on any error or signal the pool is
     # stopped at once, so no worker outlives the run or holds the caller's pipes open
-    ex = ProcessPoolExecutor(
+    ex = pool or ProcessPoolExecutor(
         max_workers=min(workers, len(jobs)),
         mp_context=_context(),
         initializer=worker_init,

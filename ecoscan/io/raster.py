@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import rasterio
 from pyproj import CRS
+from rasterio.enums import MaskFlags
 from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
 from rasterio.transform import Affine
 from rasterio.windows import Window
@@ -286,6 +287,35 @@ def _env() -> rasterio.Env:
     return rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB * 1024 * 1024)
 
 
+def _mask_facts(src, bands) -> tuple[bool, bool]:
+    """(no GDAL mask on any of the bands, any of them a floating-point type)."""
+    unmasked = all(src.mask_flag_enums[b - 1] == [MaskFlags.all_valid] for b in bands)
+    floating = any(np.issubdtype(np.dtype(src.dtypes[b - 1]), np.floating) for b in bands)
+    return unmasked, floating
+
+
+def all_pixels_valid(info: RasterInfo, bands: tuple[int, ...]) -> bool:
+    """True when no pixel of these bands can be invalid, known without reading pixels.
+
+    That is when GDAL reports no nodata value, internal mask or alpha band for them and
+    their type is an integer (always finite): :func:`read_window` then marks every pixel
+    valid.
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np
+    >>> from rasterio.transform import from_origin
+    >>> from ecoscan.synthetic import write_geotiff
+    >>> p = write_geotiff(tempfile.mkdtemp() + "/a.tif", np.zeros((1, 8, 8), np.uint8),
+    ...                   from_origin(0, 8, 1, 1), "EPSG:32631")
+    >>> all_pixels_valid(open_raster(p), (1,))
+    True
+    """
+    with _env(), _open(info) as src:
+        unmasked, floating = _mask_facts(src, bands)
+    return unmasked and not floating
+
+
 def read_window(
     info: RasterInfo,
     bands: tuple[int, ...],
@@ -320,7 +350,11 @@ def read_window(
     win = Window(c0, r0, c1 - c0, r1 - r0)
     try:
         with _env(), _open(info) as src:
-            valid = np.all(src.read_masks(list(bands), window=win) > 0, axis=0)
+            unmasked, floating = _mask_facts(src, bands)
+            if unmasked:  # no nodata value, internal mask or alpha: GDAL's mask is all valid
+                valid = np.ones((win.height, win.width), dtype=bool)
+            else:
+                valid = np.all(src.read_masks(list(bands), window=win) > 0, axis=0)
             if skip_empty and not valid.any():
                 return None, valid
             data = src.read(list(bands), window=win, out_dtype="float32")
@@ -329,7 +363,8 @@ def read_window(
             f"cannot read pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
             f"{str(exc).splitlines()[0]}; the file may be truncated"
         ) from None
-    valid &= np.all(np.isfinite(data), axis=0)
+    if floating:  # integer bands are always finite
+        valid &= np.all(np.isfinite(data), axis=0)
     return data, valid
 
 
