@@ -71,6 +71,9 @@ class RasterInfo:
         GDAL colour interpretation per data band (``red``, ``green``, ``undefined``...).
     data_bands : tuple of int
         1-based indices of the data bands (alpha bands are left out).
+    always_valid : tuple of int
+        1-based bands with no nodata value, internal mask or alpha band and an integer
+        type, so that no pixel of them can be invalid (:func:`all_pixels_valid`).
     notes : list of str
         What was assumed or converted, for the user.
     """
@@ -86,6 +89,7 @@ class RasterInfo:
     descriptions: tuple[str, ...]
     colorinterp: tuple[str, ...]
     data_bands: tuple[int, ...]
+    always_valid: tuple[int, ...] = ()
     local: bool = False
     notes: list[str] = field(default_factory=list)
 
@@ -178,6 +182,7 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
         descriptions=desc,
         colorinterp=info["colorinterp"],
         data_bands=data_bands,
+        always_valid=info["always_valid"],
         local=local,
         notes=notes,
     )
@@ -207,6 +212,9 @@ def _read_header(
                     crs=CRS.from_user_input(src.crs.to_wkt()) if src.crs else None,
                     dtype=src.dtypes[data_bands[0] - 1],
                     colorinterp=tuple(ci[i - 1] for i in data_bands),
+                    always_valid=tuple(
+                        b for b in range(1, src.count + 1) if all(_mask_facts(src, (b,)))
+                    ),
                 )
     except InputError:
         raise
@@ -288,10 +296,10 @@ def _env() -> rasterio.Env:
 
 
 def _mask_facts(src, bands) -> tuple[bool, bool]:
-    """(no GDAL mask on any of the bands, any of them a floating-point type)."""
+    """(no GDAL mask on any of the bands, none of them a floating-point type)."""
     unmasked = all(src.mask_flag_enums[b - 1] == [MaskFlags.all_valid] for b in bands)
     floating = any(np.issubdtype(np.dtype(src.dtypes[b - 1]), np.floating) for b in bands)
-    return unmasked, floating
+    return unmasked, not floating
 
 
 def all_pixels_valid(info: RasterInfo, bands: tuple[int, ...]) -> bool:
@@ -311,9 +319,7 @@ def all_pixels_valid(info: RasterInfo, bands: tuple[int, ...]) -> bool:
     >>> all_pixels_valid(open_raster(p), (1,))
     True
     """
-    with _env(), _open(info) as src:
-        unmasked, floating = _mask_facts(src, bands)
-    return unmasked and not floating
+    return all(b in info.always_valid for b in bands)
 
 
 def read_window(
@@ -350,7 +356,7 @@ def read_window(
     win = Window(c0, r0, c1 - c0, r1 - r0)
     try:
         with _env(), _open(info) as src:
-            unmasked, floating = _mask_facts(src, bands)
+            unmasked, integer = _mask_facts(src, bands)
             if unmasked:  # no nodata value, internal mask or alpha: GDAL's mask is all valid
                 valid = np.ones((win.height, win.width), dtype=bool)
             else:
@@ -363,7 +369,7 @@ def read_window(
             f"cannot read pixels {c0}-{c1}, {r0}-{r1} of {Path(info.path).name}: "
             f"{str(exc).splitlines()[0]}; the file may be truncated"
         ) from None
-    if floating:  # integer bands are always finite
+    if not integer:  # integer bands are always finite
         valid &= np.all(np.isfinite(data), axis=0)
     return data, valid
 
