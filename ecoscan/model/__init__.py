@@ -3,5 +3,6 @@
 ``points`` (:class:`~ecoscan.model.points.PointSet`: plant positions in metres with their
 attributes and CRS), ``plots`` (:class:`~ecoscan.model.plots.Plot`,
 :class:`~ecoscan.model.plots.PlotLayer`) and ``membership``
-(:class:`~ecoscan.model.membership.PlotMembership`: which plants lie in which plots).
+(:class:`~ecoscan.model.membership.PlotMembership`: which plants lie in which plots) and
+``notes`` (:class:`~ecoscan.model.notes.Note`: a note or warning with a code and a severity).
 """
