@@ -8,7 +8,7 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from ecoscan.detect import DetectionSettings, detect_raster
-from ecoscan.io.vector import Plot, PlotLayer
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import place_crowns, render_orthomosaic, write_geotiff
 

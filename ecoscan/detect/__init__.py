@@ -33,7 +33,7 @@ from ecoscan.model.points import PointSet
 
 if TYPE_CHECKING:  # worker processes import this package: keep its import light
     from ecoscan.execution import Executor
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.plots import PlotLayer
 
 __all__ = [
     "DetectionResult",
@@ -777,13 +777,8 @@ def detect_raster(
     """
     import shapely
 
-    from ecoscan.io.inputs import (
-        assign_plots,
-        overlap_note,
-        points_by_plot,
-        unsurveyed_note,
-    )
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.membership import assign_plots, overlap_note, points_by_plot, unsurveyed_note
+    from ecoscan.model.plots import PlotLayer
 
     settings = settings or DetectionSettings()
     if workers < 1:

@@ -624,6 +624,19 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     }
 
 
+def _weighted_sum(parts: list[np.ndarray], terms) -> np.ndarray:
+    """``compose_layer`` from base layers already computed (the same float32 operations)."""
+    out: np.ndarray | None = None
+    for part, (_name, w) in zip(parts, terms, strict=True):
+        layer = part * np.float32(w) if w != 1.0 else part.copy()
+        if out is None:
+            out = layer
+        else:
+            out += layer
+    assert out is not None
+    return out
+
+
 def near_shares(ratio: np.ndarray, eligible: np.ndarray, factors: np.ndarray) -> np.ndarray:
     """Share of candidates near the threshold, for each threshold factor.
 
@@ -686,19 +699,6 @@ def threshold_raise(ratio: np.ndarray, eligible: np.ndarray) -> tuple[float, flo
     ok = np.flatnonzero(shares <= GAP_SHARE)
     i = int(ok[0]) if ok.size else int(np.argmin(shares))
     return float(grid[i]), float(shares[i])
-
-
-def _weighted_sum(parts: list[np.ndarray], terms) -> np.ndarray:
-    """``compose_layer`` from base layers already computed (the same float32 operations)."""
-    out: np.ndarray | None = None
-    for part, (_name, w) in zip(parts, terms, strict=True):
-        layer = part * np.float32(w) if w != 1.0 else part.copy()
-        if out is None:
-            out = layer
-        else:
-            out += layer
-    assert out is not None
-    return out
 
 
 def choose_layer(
