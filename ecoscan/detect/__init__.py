@@ -554,9 +554,10 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
         "layer_bands": list(abands),
         "layer_roles": list(roles),
         "layer_chosen_by": (
-            "closed-canopy rule on sample windows: green share >= "
-            f"{canopy.MIN_GREEN_SHARE:g} (chromatic Excess Green > {canopy.GREEN_EXG:g}) and "
-            f"brightness-greenness correlation > {canopy.MIN_BRIGHT_GREEN_CORR:g}"
+            "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
+            f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
+            f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}"
         ),
         "canopy_green_share": evidence["green_share"],
         "canopy_bright_green_corr": evidence["bright_green_corr"],

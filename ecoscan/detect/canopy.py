@@ -30,10 +30,11 @@ brightness peak: a dome lit from one side has its brightest point well towards t
 valleys on every side, is centred on the crown.
 
 When the imagery default switches to this path is decided once per raster on the sample
-windows (:func:`canopy_evidence`, :func:`is_closed_canopy`): most pixels are green
-vegetation and the brighter places are the greener ones, i.e. the bright phase of the image
-is canopy and the dark phase the gaps (on open ground the soil is the bright phase; dark
-crowns on green pasture make brightness and greenness run opposite).
+windows (:func:`canopy_evidence`, :func:`is_closed_canopy`): nearly all pixels are green
+vegetation and brightness does not run against greenness, or the brighter places are
+clearly the greener ones (the bright phase of the image is canopy, the dark phase the
+gaps). On open ground most pixels are soil, not green; dark crowns on green pasture make
+brightness and greenness run opposite.
 
 Everything here is a pure function of arrays; thresholds come from the whole raster
 beforehand, so tiled runs with an overlap of two largest crown diameters give the whole
@@ -64,15 +65,25 @@ SMOOTH_SHARE = 0.35
 #: Marker dynamic ``h`` as a share of the robust standard deviation of the smoothed layer
 #: over the raster's sample windows. Tuned as above.
 H_SHARE = 0.1
+#: A region's crown part lies above this share of the way from its valley floor to its
+#: peak; its centre is computed there. Tuned as above.
+CORE_SHARE = 0.5
 #: Regions smaller than this share of the smallest crown's disc are gaps or slivers.
 MIN_AREA_SHARE = 0.25
 #: Chromatic Excess Green above which a pixel counts as green vegetation in the switch
 #: rule (about the level of dry grass and olive crowns in the tuning scenes).
 GREEN_EXG = 0.1
-#: The switch fires when at least this share of the sampled pixels is green vegetation ...
-MIN_GREEN_SHARE = 0.5
-#: ... and brightness and greenness are positively correlated (above this value).
-MIN_BRIGHT_GREEN_CORR = 0.0
+#: The switch fires when nearly all sampled pixels are green vegetation and brightness does
+#: not run against greenness (dark trees on a green field give a clearly negative
+#: correlation: -0.27 to -0.54 on the tuning scenes ``pasture`` and ``conifers``) ...
+CLOSED_GREEN_SHARE = 0.75
+CLOSED_MIN_CORR = -0.15
+#: ... or when brightness follows greenness closely (crowns packed over dark ground) on a
+#: scene that is at least partly green. Open tuning scenes: green share <= 0.50 and
+#: correlation <= 0.11; packed ones (``canopy``, ``stand``, ``domes``): 0.49-1.00 and
+#: 0.01-0.80 (seeds 100-103).
+PACKED_MIN_CORR = 0.4
+PACKED_GREEN_SHARE = 0.3
 
 
 @dataclass(frozen=True)
@@ -92,6 +103,8 @@ class CanopySplit:
     layer : str
         ``brightness`` (log of the green band, or of the first band) or ``given`` (the
         caller's layer, e.g. a calibrated plant probability).
+    min_peak : float
+        Regions whose smoothed peak is lower are ground, not crowns (``-inf``: keep all).
     """
 
     r_min_px: float
@@ -100,6 +113,7 @@ class CanopySplit:
     h: float
     min_area_px: float
     layer: str = "brightness"
+    min_peak: float = -math.inf
 
     @property
     def overlap_px(self) -> int:
@@ -146,6 +160,7 @@ def split_crowns(
     min_area_px: float | None = None,
     valid: np.ndarray | None = None,
     origin: tuple[int, int] = (0, 0),
+    min_peak: float = -math.inf,
 ) -> dict[str, np.ndarray]:
     """One point per crown: watershed of the smoothed layer from its h-maxima.
 
@@ -167,6 +182,8 @@ def split_crowns(
         Pixels that carry data; the others belong to no crown.
     origin : (int, int)
         Column and row of ``layer[0, 0]`` in the raster.
+    min_peak : float
+        Regions whose smoothed peak is below this are dropped (ground in a probability map).
 
     Returns
     -------
@@ -212,17 +229,23 @@ def split_crowns(
     area = ndimage.sum_labels(ok, regions, idx)
     # centroid weighted by the squared distance to the region's edge: the crown's middle
     # counts, lobes and slivers squeezed between neighbours hardly do
-    inner = (regions > 0) & ~find_boundaries(regions, mode="inner")
-    dist = ndimage.distance_transform_edt(inner).astype(np.float64)
+    peak = np.asarray(ndimage.maximum(smooth, regions, idx), float)
+    low = np.asarray(ndimage.minimum(smooth, regions, idx), float)
+    # the crown part of each region: above the level CORE_SHARE of the way from the
+    # region's lowest value (its valley floor) to its peak; flat ground and gap floors
+    # attached to a region by the flooding do not pull its centre
+    level = np.r_[np.inf, low + CORE_SHARE * (peak - low)]
+    core = ok & (smooth >= level[regions])
+    inner = core & ~find_boundaries(np.where(core, regions, 0), mode="inner")
+    # the raster's edge bounds a region too (padding); a tile's edge lies in its overlap
+    dist = ndimage.distance_transform_edt(np.pad(inner, 1))[1:-1, 1:-1].astype(np.float64)
     weight = dist * dist
     wsum = ndimage.sum_labels(weight, regions, idx)
     rows, cols = np.indices(lay.shape, dtype=np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         row = ndimage.sum_labels(weight * rows, regions, idx) / wsum
         col = ndimage.sum_labels(weight * cols, regions, idx) / wsum
-    peak = ndimage.maximum(smooth, regions, idx)
-    low = ndimage.minimum(smooth, regions, idx)
-    keep = (area >= amin) & (wsum > 0)
+    keep = (area >= amin) & (wsum > 0) & (peak >= min_peak)
     return {
         "col": col[keep] + origin[0],
         "row": row[keep] + origin[1],
@@ -350,16 +373,24 @@ def canopy_evidence(
 
 
 def is_closed_canopy(evidence: dict[str, float]) -> bool:
-    """The switch rule: most pixels are green vegetation and brighter means greener.
+    """The switch rule: the image is canopy with gaps, not plants on open ground.
+
+    Fires when nearly all pixels are green (``CLOSED_GREEN_SHARE``) and brightness does not
+    run against greenness (``CLOSED_MIN_CORR``), or when brightness follows greenness
+    closely (``PACKED_MIN_CORR``) on a partly green scene (``PACKED_GREEN_SHARE``).
 
     Examples
     --------
-    >>> is_closed_canopy({"green_share": 0.9, "bright_green_corr": 0.3})
+    >>> is_closed_canopy({"green_share": 0.97, "bright_green_corr": 0.2})
     True
-    >>> is_closed_canopy({"green_share": 0.9, "bright_green_corr": -0.3})  # dark trees on grass
+    >>> is_closed_canopy({"green_share": 0.95, "bright_green_corr": -0.3})  # trees on grass
     False
-    >>> is_closed_canopy({"green_share": 0.2, "bright_green_corr": 0.6})  # open shrubland
+    >>> is_closed_canopy({"green_share": 0.5, "bright_green_corr": 0.8})  # over dark ground
+    True
+    >>> is_closed_canopy({"green_share": 0.45, "bright_green_corr": 0.1})  # shrubs, grass
     False
     """
     g, c = evidence.get("green_share", math.nan), evidence.get("bright_green_corr", math.nan)
-    return bool(g >= MIN_GREEN_SHARE and c > MIN_BRIGHT_GREEN_CORR)
+    closed = g >= CLOSED_GREEN_SHARE and c > CLOSED_MIN_CORR
+    packed = g >= PACKED_GREEN_SHARE and c >= PACKED_MIN_CORR
+    return bool(closed or packed)

@@ -217,6 +217,7 @@ def _canopy_tile(job: TileJob, layer: np.ndarray, valid: np.ndarray) -> dict[str
         min_area_px=cs.min_area_px,
         valid=valid,
         origin=tile.window[:2],
+        min_peak=cs.min_peak,
     )
     out = {
         "col": found["col"],
