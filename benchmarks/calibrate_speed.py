@@ -17,16 +17,16 @@ import tempfile
 import time
 from pathlib import Path
 
+from ecoscan.analysis.validation.compute import validate_points
 from ecoscan.detect import DetectionSettings, detect_raster
 from ecoscan.detect.calibration import band_names_for, calibrate_detector
 from ecoscan.detect.detector_file import write_detector
 from ecoscan.detect.settings import parse_band_spec
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.raster import open_raster
+from ecoscan.io.raster import open_raster
+from ecoscan.io.vector import PlotLayer, read_plots, read_points
+from ecoscan.model.points import PointSet
 from ecoscan.synthetic import SCENE_STYLES, make_scene, write_scene
-from ecoscan.validation import validate_points
-from ecoscan.vector import PlotLayer, read_plots, read_points
 
 
 def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:

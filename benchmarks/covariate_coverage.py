@@ -14,7 +14,7 @@ Run: ``nice python benchmarks/covariate_coverage.py [--replicates 200] [--simula
    shows what the default quadrature costs.
 2. **Size of "clustering beyond habitat".** The same process (no interaction): how often the
    verdict says "beyond what elevation explains" at α = 5%, with the envelopes of
-   :func:`ecoscan.habitat.habitat_analysis` (model refitted to each simulated pattern), in
+   :func:`ecoscan.analysis.habitat.habitat_analysis` (model refitted to each simulated pattern), in
    three plot shapes (square, L with hole, narrow 100 × 12 m strip).
 3. **Size of the mark test.** Random labelling of independent marks on clustered (Thomas)
    patterns: how often k_mm's permutation test rejects at α = 5%.
@@ -36,7 +36,7 @@ import shapely
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from ecoscan.habitat import habitat_analysis
+from ecoscan.analysis.habitat import habitat_analysis
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.intensity import (
     CovariateSurface,

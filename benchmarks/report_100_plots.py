@@ -25,9 +25,9 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from browser import browser_session  # noqa: E402
 
+from ecoscan.io.vector import PlotLayer, plots_from_geometries, write_plots  # noqa: E402
 from ecoscan.survey.config import load_survey  # noqa: E402
 from ecoscan.survey.runner import run_survey  # noqa: E402
-from ecoscan.vector import PlotLayer, plots_from_geometries, write_plots  # noqa: E402
 
 DEMO = ROOT / "sample_rasters"
 MEASURE_JS = """({height: document.documentElement.scrollHeight,

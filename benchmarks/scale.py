@@ -18,8 +18,9 @@ megapixels per CPU-second (the per-core throughput), the client's peak resident 
 (with a Dask cluster it hosts the scheduler too) and how far it grew while the tiles ran,
 the client-side seconds (thresholds from sample windows, merging), and the largest
 worker's peak; then the ratios dask / pool and whether all runs found the same points. A
-short second part times the per-plot statistics (:func:`ecoscan.analysis.analyse_plot`,
-999 simulations, 80 to 150 plants in 50 m squares, half of them clustered) in this process.
+short second part times the per-plot statistics
+(:func:`ecoscan.analysis.dispersion.compute.analyse_plot`, 999 simulations, 80 to 150 plants
+in 50 m squares, half of them clustered) in this process.
 
 Last, the projection used in docs/scaling.md: hours, core-hours and cost for 100 mosaics
 of 2 gigapixels and 10,000 plots on clusters of N single-core workers, from the single
@@ -165,7 +166,7 @@ def time_plots(count: int = 8) -> float:
     random and half in clusters (clustered plots run all simulations)."""
     import shapely
 
-    from ecoscan.analysis import DispersionSettings, analyse_plot
+    from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
     from ecoscan.stats.csr import uniform_in_polygon
 
     s = DispersionSettings(simulations=999)

@@ -298,7 +298,7 @@ def write_tuning_scene(folder: Path, style: str, seed: int, size_px: int = 640):
     from pyproj import CRS
     from rasterio.transform import from_origin
 
-    from ecoscan.points import PointSet
+    from ecoscan.model.points import PointSet
     from ecoscan.synthetic import write_geotiff
 
     img, xy, d = make_tuning_scene(style, seed, size_px)

@@ -71,12 +71,12 @@ import numpy as np
 import shapely
 from scipy import stats as sps
 
-from ecoscan import analysis
-from ecoscan.analysis import DispersionSettings, analyse_plot
-from ecoscan.change import _pooled_r, _row
-from ecoscan.compare import GroupSummary, PlotUnit, _pair_row, _pattern
-from ecoscan.detectable import NO_DEPARTURE
-from ecoscan.scales import ScalesSettings, kinds_verdict
+from ecoscan.analysis.change.compute import _pooled_r, _row
+from ecoscan.analysis.compare.compute import GroupSummary, PlotUnit, _pair_row, _pattern
+from ecoscan.analysis.dispersion import compute as analysis
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
+from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE
+from ecoscan.analysis.scales.compute import ScalesSettings, kinds_verdict
 from ecoscan.stats.compare_r import plot_nn, pooled_clark_evans, r_change_test
 from ecoscan.stats.cross import random_labelling_test
 from ecoscan.stats.csr import uniform_in_polygon
@@ -318,8 +318,9 @@ class _Shared:
 SHARED = _Shared()
 
 
-# -- analyse: one call of ecoscan.analysis.analyse_plot per replicate (the command's own
-#    function and defaults, except fewer simulations), its dispersion.csv row read back
+# -- analyse: one call of ecoscan.analysis.dispersion.compute.analyse_plot per replicate
+#    (the command's own function and defaults, except fewer simulations), its dispersion.csv
+#    row read back
 
 
 @contextlib.contextmanager
@@ -413,7 +414,8 @@ def p_morisita_std(xy, polygon, rng):
 
 
 # -- scales: global envelope tests (the verdict uses L by default, or g), as in
-#    ecoscan.scales.analyse_plot: observed curve, 99 random patterns in the same polygon
+#    ecoscan.analysis.scales.compute.analyse_plot: observed curve, 99 random patterns in the
+#    same polygon
 
 
 @dataclass
@@ -539,7 +541,7 @@ def p_cross_either(data, polygon, rng):
     return 1.0 if "placed like a random subset" in words else 0.0
 
 
-# -- compare: one pair of groups, as ecoscan.compare._pair_row computes it
+# -- compare: one pair of groups, as ecoscan.analysis.compare.compute._pair_row computes it
 
 
 def _group(name: str, patterns: Sequence[np.ndarray], polygon) -> GroupSummary:
@@ -599,14 +601,14 @@ def p_group_pattern(data, polygon, rng):
 
 
 # -- compare --by date: the same plots on two dates, paired sign-flip tests over plots
-#    (registered only where ecoscan.compare has them)
+#    (registered only where ecoscan.analysis.compare.compute has them)
 
 PAIRED_PLOTS = 8
 
 
 def _paired(data: list, polygon, rng):
     def compute():
-        from ecoscan.compare import _paired as paired_tests
+        from ecoscan.analysis.compare.compute import _paired as paired_tests
 
         def units(patterns):
             return tuple(
@@ -626,7 +628,7 @@ def _paired(data: list, polygon, rng):
     return SHARED.get("paired", data, compute)
 
 
-if hasattr(__import__("ecoscan.compare", fromlist=["_paired"]), "_paired"):
+if hasattr(__import__("ecoscan.analysis.compare.compute", fromlist=["_paired"]), "_paired"):
     for _name, _col in (
         ("paired density change over plots (sign flips)", "p_density_paired"),
         ("paired R change over plots (sign flips)", "p_R_paired"),
@@ -644,7 +646,8 @@ if hasattr(__import__("ecoscan.compare", fromlist=["_paired"]), "_paired"):
         )
 
 
-# -- change: one plot on two dates, as ecoscan.change.detect_change computes its row
+# -- change: one plot on two dates, as ecoscan.analysis.change.compute.detect_change computes
+#    its row
 
 
 def _change(data: Dates, polygon, rng):

@@ -28,19 +28,21 @@ Examples
 
 from __future__ import annotations
 
+import inspect
+import sys
+import types
 from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
 
 #: Public names and the module that defines each (imported on first use, PEP 562).
-#: ``scales``, ``detect``, ``compare`` and ``change`` are also modules; the module is returned,
-#: and calling it runs the function of the same name in ecoscan.api (ecoscan/_callable.py).
+#: ``detect`` is also the name of the detection package: see :func:`_callable_package`.
 _LAZY = {
     "dispersion": "ecoscan.api",
-    "scales": "ecoscan.scales",
+    "scales": "ecoscan.api",
     "detect": "ecoscan.detect",
-    "compare": "ecoscan.compare",
-    "change": "ecoscan.change",
+    "compare": "ecoscan.api",
+    "change": "ecoscan.api",
     "Dispersion": "ecoscan.api",
     "Scales": "ecoscan.api",
     "Detection": "ecoscan.api",
@@ -95,6 +97,34 @@ def __getattr__(name: str) -> Any:
     value = loaded if module == f"ecoscan.{name}" else getattr(loaded, name)
     globals()[name] = value
     return value
+
+
+class _CallablePackage(types.ModuleType):
+    """A package that, called, runs the API function of its short name in :mod:`ecoscan.api`."""
+
+    def __call__(self, *args: Any, **kwargs: Any) -> Any:
+        from ecoscan import api
+
+        return getattr(api, self.__name__.rsplit(".", 1)[1])(*args, **kwargs)
+
+    @property
+    def __signature__(self) -> inspect.Signature:
+        from ecoscan import api
+
+        return inspect.signature(getattr(api, self.__name__.rsplit(".", 1)[1]))
+
+
+def _callable_package(name: str) -> None:
+    """Make the package ``name`` (``"ecoscan.detect"``) also the API function of that name.
+
+    Python binds a sub-package to its parent's attribute when it is imported, so
+    ``ecoscan.detect`` is the package :mod:`ecoscan.detect` whichever way it was reached
+    (``import ecoscan.detect``, ``from ecoscan.detect import ...`` or ``ecoscan.detect``).
+    The package stays a normal package, and calling it runs :func:`ecoscan.api.detect` with
+    that function's signature, so ``ecoscan.detect(path)`` and ``import ecoscan.detect as d;
+    d.detect_raster(...)`` both work. ``detect`` is the one API name that is also a package.
+    """
+    sys.modules[name].__class__ = _CallablePackage
 
 
 def __dir__() -> list[str]:

@@ -2,10 +2,10 @@
 
 ``ecoscan.dispersion``, ``ecoscan.scales``, ``ecoscan.detect``, ``ecoscan.compare`` and
 ``ecoscan.change`` are thin functions over the engines the commands use
-(:mod:`ecoscan.analysis`, :mod:`ecoscan.scales`, :mod:`ecoscan.detect`,
-:mod:`ecoscan.compare`, :mod:`ecoscan.change`), so they give the numbers the command line
-writes for the same inputs and seed. They check their arguments first and say which argument
-is wrong and how to fix it; results are :class:`~ecoscan.records.Row` and
+(:mod:`ecoscan.analysis.dispersion`, :mod:`ecoscan.analysis.scales`, :mod:`ecoscan.detect`,
+:mod:`ecoscan.analysis.compare`, :mod:`ecoscan.analysis.change`), so they give the numbers the
+command line writes for the same inputs and seed. They check their arguments first and say
+which argument is wrong and how to fix it; results are :class:`~ecoscan.records.Row` and
 :class:`~ecoscan.records.Table` objects whose attribute names are the CSV column names
 (``docs/columns.md``).
 
@@ -108,8 +108,8 @@ def _seed(rng: RngLike) -> int:
 class Dispersion(Row):
     """One plot's dispersion statistics: the columns of ``dispersion.csv``.
 
-    ``detail`` holds the :class:`ecoscan.analysis.PlotDispersion` record (nearest-neighbour
-    distances, the Monte Carlo and quadrat records).
+    ``detail`` holds the :class:`ecoscan.analysis.dispersion.compute.PlotDispersion` record
+    (nearest-neighbour distances, the Monte Carlo and quadrat records).
     """
 
     __slots__ = ()
@@ -122,7 +122,7 @@ class Scales(Row):
     """One plot's analysis across distances: the columns of ``scales.csv``.
 
     :meth:`functions` gives the curves and their envelopes (``functions.csv``); ``detail``
-    holds the :class:`ecoscan.scales.PlotScales` record.
+    holds the :class:`ecoscan.analysis.scales.compute.PlotScales` record.
     """
 
     __slots__ = ()
@@ -139,7 +139,7 @@ class Scales(Row):
             Columns of ``functions.csv``: plot_id, function, distance_m, value, csr_value,
             band_low, band_high, pointwise_low, pointwise_high, band, unit.
         """
-        from ecoscan.scales import FUNCTION_COLUMNS, function_rows
+        from ecoscan.analysis.scales.columns import FUNCTION_COLUMNS, function_rows
 
         rows = function_rows([self.detail]) if self.detail is not None else []
         return Table([Row(r) for r in rows], FUNCTION_COLUMNS, name="functions")
@@ -216,11 +216,16 @@ class Comparison:
     by : str
         What the groups are.
     notes : list of str
-    detail : ecoscan.compare.ComparisonResult
+    detail : ecoscan.analysis.compare.compute.ComparisonResult
     """
 
     def __init__(self, result: Any) -> None:
-        from ecoscan.compare import GROUP_COLUMNS, PAIR_COLUMNS, comparison_rows, group_rows
+        from ecoscan.analysis.compare.columns import (
+            GROUP_COLUMNS,
+            PAIR_COLUMNS,
+            comparison_rows,
+            group_rows,
+        )
 
         self.groups = Table([Row(r) for r in group_rows(result)], GROUP_COLUMNS, name="groups")
         self.pairs = Table([Row(r) for r in comparison_rows(result)], PAIR_COLUMNS, name="pairs")
@@ -250,11 +255,11 @@ class Change:
     shift_x_m, shift_y_m : float
         The co-registration shift removed before matching (later ≈ earlier + shift).
     notes, warnings : list of str
-    detail : ecoscan.change.ChangeResult
+    detail : ecoscan.analysis.change.compute.ChangeResult
     """
 
     def __init__(self, result: Any) -> None:
-        from ecoscan.change import CHANGE_COLUMNS, PLANT_COLUMNS
+        from ecoscan.analysis.change.columns import CHANGE_COLUMNS, PLANT_COLUMNS
 
         geom = {}
         if result.layer is not None:
@@ -366,7 +371,7 @@ def dispersion(
     >>> res.verdict, round(res.R, 2)
     ('regular', 2.0)
     """
-    from ecoscan.analysis import DispersionSettings, analyse_plot
+    from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
 
     xy = as_xy(xy)
     settings = DispersionSettings(
@@ -459,7 +464,8 @@ def scales(
     >>> res.n, res.test_function, len(res.functions()) > 0
     (60, 'L', True)
     """
-    from ecoscan.scales import SCALES_COLUMNS, ScalesSettings, analyse_plot, scales_rows
+    from ecoscan.analysis.scales.columns import SCALES_COLUMNS, scales_rows
+    from ecoscan.analysis.scales.compute import ScalesSettings, analyse_plot
 
     xy = as_xy(xy)
     lab = None
@@ -563,7 +569,7 @@ def detect(
 
 def _plot_layer(plots: Any):
     """A PlotLayer from a file, a layer, or polygons (crs None: in the points' own CRS)."""
-    from ecoscan.vector import Plot, PlotLayer, read_plots
+    from ecoscan.io.vector import Plot, PlotLayer, read_plots
 
     if plots is None or isinstance(plots, PlotLayer):
         return plots
@@ -618,7 +624,7 @@ def compare(
     >>> res.pairs[0].group_a, res.pairs[0].group_b, res.pairs[0].R_diff > 0.5
     ('planted', 'natural', True)
     """
-    from ecoscan.compare import CompareSettings, compare_groups, read_results
+    from ecoscan.analysis.compare.compute import CompareSettings, compare_groups, read_results
 
     settings = CompareSettings(
         by=by if not isinstance(groups, Mapping) else "folder",
@@ -652,8 +658,8 @@ def compare(
 
 
 def _group_table(name: str, plots: Any):
-    from ecoscan.compare import PlotUnit, ResultsTable
-    from ecoscan.points import PointSet
+    from ecoscan.analysis.compare.compute import PlotUnit, ResultsTable
+    from ecoscan.model.points import PointSet
     from ecoscan.stats.compare_r import plot_nn
 
     if isinstance(plots, tuple) and len(plots) == 2 and not is_box(plots):
@@ -716,8 +722,8 @@ def change(
     >>> res.overall.persisting, res.overall.lost, res.overall.new
     (90, 10, 1)
     """
-    from ecoscan.change import ChangeSettings, detect_change
-    from ecoscan.points import PointSet
+    from ecoscan.analysis.change.compute import ChangeSettings, detect_change
+    from ecoscan.model.points import PointSet
 
     a = as_xy(earlier, "earlier")
     b = as_xy(later, "later")

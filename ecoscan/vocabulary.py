@@ -2,8 +2,8 @@
 
 Each column key (the name in CSV files, JSON records and Python result rows) has exactly one
 heading, one unit, one description and one number format here. The terminal tables
-(:mod:`ecoscan.tables`), the HTML report (:mod:`ecoscan.report`) and the column reference in
-``docs/columns.md`` all read this table, so one quantity never has two names.
+(:mod:`ecoscan.report.tables`), the HTML report (:mod:`ecoscan.report.html`) and the column
+reference in ``docs/columns.md`` all read this table, so one quantity never has two names.
 
 Number formats
 --------------
@@ -512,7 +512,7 @@ _ALL = [
     _c("pointwise_low", "pointwise low", "", "float", "Lower edge of the pointwise band."),
     _c("pointwise_high", "pointwise high", "", "float", "Upper edge of the pointwise band."),
     _c("band", "band", "", "text", "What the band is (level and global test)."),
-    # --- why the pattern: habitat covariates and marks (ecoscan.habitat)
+    # --- why the pattern: habitat covariates and marks (ecoscan.analysis.habitat)
     _c(
         "intensity_model",
         "density model",

@@ -21,10 +21,10 @@ sys.path.insert(0, str(HERE.parent))
 
 import scenario as sc  # noqa: E402
 
-from ecoscan.outputs import atomic_path, write_csv, write_text  # noqa: E402
-from ecoscan.points import PointSet  # noqa: E402
+from ecoscan.io.outputs import atomic_path, write_csv, write_text  # noqa: E402
+from ecoscan.model.points import PointSet  # noqa: E402
 from ecoscan.synthetic import render_chm, render_classes, render_orthomosaic  # noqa: E402
-from ecoscan.vector import Plot, PlotLayer, write_plots, write_points  # noqa: E402
+from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points  # noqa: E402
 
 SEED = 2026
 TANSY_PX = 0.10  # metres

@@ -15,9 +15,9 @@ import shapely
 from rasterio.transform import from_origin
 from scipy import ndimage
 
-from ecoscan.points import PointSet
+from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.model.points import PointSet
 from ecoscan.synthetic import place_crowns, write_geotiff
-from ecoscan.vector import Plot, PlotLayer, write_plots, write_points
 
 UTM = "EPSG:32633"
 X0, Y0 = 400000.0, 5600000.0

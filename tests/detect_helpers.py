@@ -11,7 +11,7 @@ import numpy as np
 from pyproj import CRS
 from rasterio.transform import from_origin
 
-from ecoscan.points import PointSet
+from ecoscan.model.points import PointSet
 from ecoscan.synthetic import (
     place_crowns,
     render_chm,

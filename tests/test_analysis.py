@@ -9,20 +9,15 @@ import shapely
 from pyproj import CRS
 
 from ecoscan import __version__
-from ecoscan.analysis import (
-    DISPERSION_COLUMNS,
-    DispersionSettings,
-    analyse,
-    analyse_plot,
-    dispersion_rows,
-    write_analysis,
-)
+from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS, dispersion_rows
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse, analyse_plot
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs, assign_plots
-from ecoscan.points import PointSet
+from ecoscan.io.inputs import SurveyInputs, assign_plots
+from ecoscan.io.vector import Plot, PlotLayer
+from ecoscan.model.points import PointSet
+from ecoscan.report.folders import write_analysis
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.nearest import clark_evans
-from ecoscan.vector import Plot, PlotLayer
 
 UTM33 = CRS.from_epsg(32633)
 X0, Y0 = 500_000.0, 5_000_000.0

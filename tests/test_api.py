@@ -13,11 +13,12 @@ import pytest
 import shapely
 
 import ecoscan
-from ecoscan.analysis import DISPERSION_COLUMNS, EXTRA_COLUMNS, DispersionSettings, analyse_plot
-from ecoscan.change import ChangeSettings
-from ecoscan.compare import CompareSettings
+from ecoscan.analysis.change.compute import ChangeSettings
+from ecoscan.analysis.compare.compute import CompareSettings
+from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS, EXTRA_COLUMNS
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
+from ecoscan.analysis.scales.columns import FUNCTION_COLUMNS, SCALES_COLUMNS
 from ecoscan.errors import InputError
-from ecoscan.scales import FUNCTION_COLUMNS, SCALES_COLUMNS
 from ecoscan.stats.csr import keyed_rng, plot_rng, run_seed
 
 BOX = (0.0, 0.0, 50.0, 50.0)
@@ -261,9 +262,9 @@ def test_new_settings_refuse_bad_values(cls, d, match):
 
 
 def test_every_settings_class_shares_one_from_mapping_and_round_trips():
+    from ecoscan.analysis.planning import PlanSettings
+    from ecoscan.analysis.scales.compute import ScalesSettings
     from ecoscan.detect import DetectionSettings
-    from ecoscan.planning import PlanSettings
-    from ecoscan.scales import ScalesSettings
     from ecoscan.settings import Settings
 
     examples = [
@@ -307,11 +308,19 @@ def test_import_ecoscan_loads_no_engine():
     assert out.stdout.strip() == "[]"
 
 
-def test_module_names_are_also_the_functions():
-    import ecoscan.change as change_module
+def test_api_names_are_the_functions_and_detect_is_also_the_package():
+    import ecoscan.analysis.change.columns as change_columns
+    import ecoscan.detect as detect_package
+    from ecoscan import api
 
-    assert ecoscan.change is change_module and callable(ecoscan.change)
+    assert ecoscan.change is api.change and ecoscan.scales is api.scales
+    assert ecoscan.compare is api.compare
     assert "tolerance_m" in str(__import__("inspect").signature(ecoscan.change))
-    assert change_module.CHANGE_COLUMNS[0] == "plot_id"
+    assert change_columns.CHANGE_COLUMNS[0] == "plot_id"
+    # ecoscan.detect: the package (import ecoscan.detect as d; d.detect_raster) and, called,
+    # the API function with its signature
+    assert ecoscan.detect is detect_package and callable(ecoscan.detect)
+    assert hasattr(detect_package, "detect_raster")
+    assert "path" in str(__import__("inspect").signature(ecoscan.detect))
     for name in ecoscan.__all__:
         assert getattr(ecoscan, name) is not None

@@ -16,15 +16,15 @@ import shapely
 from calibrate_helpers import UTM, X0, Y0, scene_files
 from pyproj import CRS
 
+from ecoscan.analysis.validation.compute import validate_points
 from ecoscan.cli import main
 from ecoscan.detect import DetectionSettings, detect_raster
 from ecoscan.detect.calibration import fold_blocks
 from ecoscan.detect.detector_file import read_detector
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
+from ecoscan.io.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
+from ecoscan.model.points import PointSet
 from ecoscan.survey.config import load_survey
-from ecoscan.validation import validate_points
-from ecoscan.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
 
 
 @pytest.fixture(scope="module")

@@ -9,13 +9,15 @@ import shapely
 from pyproj import CRS
 from statsmodels.stats.proportion import proportion_confint
 
-from ecoscan.change import CHANGE_COLUMNS, PLANT_COLUMNS, change_rows, detect_change, write_change
+from ecoscan.analysis.change.columns import CHANGE_COLUMNS, PLANT_COLUMNS, change_rows
+from ecoscan.analysis.change.compute import detect_change
 from ecoscan.cli import main
-from ecoscan.crs import transform_xy
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
+from ecoscan.io.crs import transform_xy
+from ecoscan.io.vector import Plot, PlotLayer, read_points, write_plots, write_points
+from ecoscan.model.points import PointSet
+from ecoscan.report.folders import write_change
 from ecoscan.stats.csr import uniform_in_polygon
-from ecoscan.vector import Plot, PlotLayer, read_points, write_plots, write_points
 
 UTM33 = CRS.from_epsg(32633)
 X0, Y0 = 500_000.0, 5_000_000.0

@@ -7,9 +7,9 @@ import pytest
 import shapely
 from pyproj import CRS
 
-from ecoscan.analysis import DISPERSION_COLUMNS
+from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS
 from ecoscan.cli import main
-from ecoscan.crs import transform_xy
+from ecoscan.io.crs import transform_xy
 from ecoscan.stats.csr import uniform_in_polygon
 
 X0, Y0 = 512_000.0, 5_210_000.0

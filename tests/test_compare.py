@@ -11,21 +11,20 @@ from scipy import stats as sps
 from scipy.spatial.distance import cdist
 from statsmodels.stats.multitest import multipletests
 
-from ecoscan.cli import main
-from ecoscan.compare import (
+from ecoscan.analysis.compare.columns import (
     GROUP_COLUMNS,
     PAIR_COLUMNS,
-    compare_groups,
     comparison_rows,
     group_rows,
-    read_results,
-    write_comparison,
 )
+from ecoscan.analysis.compare.compute import compare_groups, read_results
+from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.outputs import write_csv
-from ecoscan.points import PointSet
+from ecoscan.io.outputs import write_csv
+from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.model.points import PointSet
+from ecoscan.report.folders import write_comparison
 from ecoscan.stats.csr import uniform_in_polygon
-from ecoscan.vector import Plot, PlotLayer, write_plots, write_points
 
 UTM33 = CRS.from_epsg(32633)
 X0, Y0 = 500_000.0, 5_000_000.0
@@ -271,8 +270,8 @@ def test_cli_compare_bad_folder_exits_2_and_writes_nothing(tmp_path, stands, cap
 
 
 def test_results_from_points_in_memory_matches_folder(tmp_path):
-    from ecoscan.compare import results_from_points
-    from ecoscan.inputs import load_points_and_plots
+    from ecoscan.analysis.compare.compute import results_from_points
+    from ecoscan.io.inputs import load_points_and_plots
 
     f = make_folder(tmp_path / "r", ["planted", "random"], seed=11)
     g = make_folder(tmp_path / "s", ["random", "random"], seed=12, offset=500)
@@ -289,7 +288,7 @@ def test_results_from_points_in_memory_matches_folder(tmp_path):
 
 
 def test_results_from_points_keeps_sites_apart():
-    from ecoscan.compare import results_from_points
+    from ecoscan.analysis.compare.compute import results_from_points
 
     rng = np.random.default_rng(13)
     p1, p2 = shapely.box(0, 0, 30, 30), shapely.box(100, 0, 130, 30)
@@ -309,7 +308,7 @@ def test_results_from_points_keeps_sites_apart():
 
 
 def test_folders_in_different_crs_are_compared_in_their_own_metres(tmp_path):
-    from ecoscan.crs import transform_xy
+    from ecoscan.io.crs import transform_xy
 
     a = make_folder(tmp_path / "a", ["random"] * 2, seed=14)
     b = make_folder(tmp_path / "b", ["random"] * 2, seed=14)
@@ -329,7 +328,7 @@ def test_group_label_follows_the_interval_shown_beside_it():
     # Random plants in small square plots: the plain Clark-Evans R is biased upward by the
     # edge (Donnelly 1978), so its 95% interval can exclude 1 while the edge-corrected
     # one does not. The label must agree with an interval that groups.csv shows.
-    from ecoscan.compare import results_from_points
+    from ecoscan.analysis.compare.compute import results_from_points
 
     # 15 plants per plot: the edge raises the plain R by about 13% (Donnelly's expectation),
     # about three standard errors of a group of 10 plots, so the plain interval excludes 1
@@ -359,7 +358,7 @@ def test_group_label_in_narrow_strips_is_marked_approximate():
     # In a 400 x 5 m strip with 30 plants the plot is narrower than 1.5 plant spacings
     # (2A/P ≈ 5 m against a spacing √(A/n) ≈ 8.2 m): Donnelly's correction fails there
     # (measured size 98% in docs/validity.md), so the label must say it is approximate.
-    from ecoscan.compare import results_from_points
+    from ecoscan.analysis.compare.compute import results_from_points
 
     rng = np.random.default_rng(4)
     tabs = []

@@ -73,7 +73,7 @@ def test_dead_plants_in_patches_are_detected():
 
 def test_cross_verdict_reads_the_patches():
     # the same synthetic ground truth as above, in plain words
-    from ecoscan.scales import kinds_verdict
+    from ecoscan.analysis.scales.compute import kinds_verdict
 
     rng = np.random.default_rng(6)
     xy = uniform_in_polygon(POLY, 400, rng=rng)

@@ -190,7 +190,7 @@ class _TilePhasePeak:
 
 
 def test_client_memory_stays_small(cluster, tmp_path):
-    from ecoscan.raster import GDAL_CACHE_MB
+    from ecoscan.io.raster import GDAL_CACHE_MB
 
     path = _big_chm(tmp_path / "wide.tif")
     decoded = 4500 * 4500 * 4
@@ -211,7 +211,7 @@ def test_unreadable_raster_named_in_one_line(cluster, scenes, tmp_path):
     # disk still being copied would be: the worker's read fails, the run names the file
     from ecoscan.detect.engine import DetectorParams, TileJob, run_tile
     from ecoscan.detect.tiling import plan_tiles
-    from ecoscan.raster import open_raster
+    from ecoscan.io.raster import open_raster
 
     _, _, chm = scenes
     cut = tmp_path / "half-copied.tif"
@@ -228,7 +228,7 @@ def test_unreadable_raster_named_in_one_line(cluster, scenes, tmp_path):
 
 
 def _survey(folder: Path, ortho: Path, chm: Path) -> Path:
-    from ecoscan.vector import Plot, PlotLayer, write_plots
+    from ecoscan.io.vector import Plot, PlotLayer, write_plots
 
     # the orthomosaic spans 28 m x 30 m at 0.05 m, the height model 170 m x 175 m at
     # 0.25 m, both from (X0, Y0) (detect_helpers): two plots on both, two more on the latter

@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 
 from ecoscan.cli import main
+from ecoscan.io.vector import read_points
 from ecoscan.stats.matching import match_points
 from ecoscan.survey.config import load_survey
 from ecoscan.survey.runner import run_survey
-from ecoscan.vector import read_points
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "sample_rasters"
@@ -92,7 +92,7 @@ def test_change_recovers_shift_losses_and_recruits(demo_run):
 
 
 def _change_rows(result):
-    from ecoscan.change import change_rows
+    from ecoscan.analysis.change.columns import change_rows
 
     return change_rows(result)
 
@@ -199,7 +199,7 @@ def test_report_shows_detectable_range_and_pattern_in_metres(demo_run):
 
 def test_compare_ranks_regularity_as_built(demo_run):
     _cfg, run = demo_run
-    from ecoscan.compare import group_rows
+    from ecoscan.analysis.compare.columns import group_rows
 
     res = dict(run.comparisons)["plot"]
     # groups are "site/plot date": the dates of one plot are never pooled

@@ -10,8 +10,8 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from ecoscan.cli import build_parser, main
+from ecoscan.io.vector import Plot, PlotLayer, read_points, write_plots, write_points
 from ecoscan.synthetic import write_geotiff
-from ecoscan.vector import Plot, PlotLayer, read_points, write_plots, write_points
 
 
 def _f1_via_cli(tmp_path, raster, truth, extra, tol):

@@ -8,9 +8,9 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from ecoscan.detect import DetectionSettings, detect_raster
+from ecoscan.io.vector import Plot, PlotLayer
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import place_crowns, render_orthomosaic, write_geotiff
-from ecoscan.vector import Plot, PlotLayer
 
 SET = DetectionSettings(diameter_min_m=0.5, diameter_max_m=2.2, tile_size_px=1024)
 

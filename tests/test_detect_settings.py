@@ -10,9 +10,9 @@ from ecoscan.cli import main
 from ecoscan.detect import DetectionSettings, choose_method, detect_raster
 from ecoscan.detect.settings import parse_band_spec
 from ecoscan.errors import InputError
-from ecoscan.raster import open_raster
+from ecoscan.io.raster import open_raster
+from ecoscan.io.vector import read_points
 from ecoscan.synthetic import place_crowns, render_classes, render_orthomosaic, write_geotiff
-from ecoscan.vector import read_points
 
 
 def test_mapping_round_trip_and_unknown_keys():

@@ -30,12 +30,12 @@ def test_case(case, base, tmp_path, capsys, monkeypatch):
     argv = case.argv(base, tmp_path)
     capsys.readouterr()
     if case.id == "full-disk":
-        import ecoscan.outputs
+        import ecoscan.io.outputs
 
         def full(path, text):
             raise OSError(errno.ENOSPC, "No space left on device", str(path))
 
-        monkeypatch.setattr(ecoscan.outputs, "write_text", full)
+        monkeypatch.setattr(ecoscan.io.outputs, "write_text", full)
     if case.id == "dask-not-installed":
         import sys
 

@@ -152,7 +152,7 @@ def test_a_geographic_covariate_is_reprojected(site, tmp_path):
                 resampling=Resampling.bilinear,
                 dst_nodata=-9999,
             )
-    from ecoscan.habitat import covariate_surfaces
+    from ecoscan.analysis.habitat import covariate_surfaces
     from ecoscan.stats.csr import uniform_in_polygon
 
     poly = PLOTS["slope"]

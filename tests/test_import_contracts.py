@@ -1,9 +1,8 @@
 """The import contracts of pyproject.toml hold, and they can fail.
 
-Layers import downward only; ``stats`` imports nothing else of ecoscan but ``errors``;
-detectors, statistics and the I/O edge never draw, report or orchestrate
-(docs/architecture.md, "Import contracts"). import-linter (a general-purpose tool) builds the
-import graph and checks each contract.
+Layers import downward only; ``stats`` imports nothing else of ecoscan but ``errors``; only
+``ecoscan.report`` imports matplotlib (docs/architecture.md, "Import contracts").
+import-linter (a general-purpose tool) builds the import graph and checks each contract.
 """
 
 from __future__ import annotations
@@ -34,6 +33,11 @@ def test_stats_contract_lists_every_other_top_level_module():
     top = {f"ecoscan.{m.name}" for m in pkgutil.iter_modules(ecoscan.__path__)}
     allowed = {"ecoscan.stats", "ecoscan.errors"}
     assert set(_contracts()["stats-pure"]["forbidden_modules"]) == top - allowed
+
+
+def test_draw_contract_lists_every_top_level_module_but_report():
+    top = {f"ecoscan.{m.name}" for m in pkgutil.iter_modules(ecoscan.__path__)}
+    assert set(_contracts()["only-report-draws"]["source_modules"]) == top - {"ecoscan.report"}
 
 
 def test_a_broken_contract_is_reported(tmp_path, monkeypatch):

@@ -3,7 +3,7 @@
 import numpy as np
 import shapely
 
-from ecoscan.habitat import habitat_analysis
+from ecoscan.analysis.habitat import habitat_analysis
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.inhomogeneous import inhomogeneous_second_order
 from ecoscan.stats.intensity import CovariateSurface, simulate_inhomogeneous

@@ -6,9 +6,9 @@ import shapely
 from pyproj import CRS
 
 from ecoscan.errors import InputError
-from ecoscan.inputs import load_points_and_plots
-from ecoscan.points import PointSet
-from ecoscan.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
+from ecoscan.io.inputs import load_points_and_plots
+from ecoscan.io.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
+from ecoscan.model.points import PointSet
 
 UTM33 = CRS.from_epsg(32633)
 

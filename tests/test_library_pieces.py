@@ -18,12 +18,12 @@ from rasterio.transform import xy as rasterio_xy
 from rasterio.windows import Window
 from rasterio.windows import bounds as window_bounds
 
-from ecoscan.crs import utm_crs_for
-from ecoscan.inputs import points_in_plot
-from ecoscan.points import PointSet
-from ecoscan.raster import RasterInfo, pixel_to_map, window_polygons
+from ecoscan.io.crs import utm_crs_for
+from ecoscan.io.inputs import points_in_plot
+from ecoscan.io.raster import RasterInfo, pixel_to_map, window_polygons
+from ecoscan.io.vector import read_points, write_points
+from ecoscan.model.points import PointSet
 from ecoscan.stats.nearest import R_HEXAGONAL, clark_evans
-from ecoscan.vector import read_points, write_points
 
 NORTH_UP = from_origin(500_000.0, 4_100_000.0, 0.25, 0.25)
 ROTATED = Affine.rotation(20.0) @ Affine.scale(0.5, -0.5)

@@ -52,7 +52,14 @@ def _start(args: list[str], cwd: Path) -> subprocess.Popen:
         stderr=subprocess.PIPE,
         text=True,
         start_new_session=True,
+        # a shell starts background jobs with SIGINT ignored and children inherit that;
+        # Python then installs no KeyboardInterrupt handler, so give the run the default
+        preexec_fn=_default_sigint,
     )
+
+
+def _default_sigint() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
 
 
 def _wait_for(cond, timeout: float = 60.0) -> None:

@@ -4,7 +4,7 @@ import numpy as np
 import shapely
 from shapely import affinity
 
-from ecoscan.scales import ScalesSettings, analyse_plot, supported_max_distance
+from ecoscan.analysis.scales.compute import ScalesSettings, analyse_plot, supported_max_distance
 from ecoscan.stats.csr import uniform_in_polygon
 
 

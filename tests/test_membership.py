@@ -10,11 +10,12 @@ import numpy as np
 import shapely
 from pyproj import CRS
 
-from ecoscan.change import change_rows, detect_change
+from ecoscan.analysis.change.columns import change_rows
+from ecoscan.analysis.change.compute import detect_change
+from ecoscan.analysis.validation.compute import validate_points
 from ecoscan.cli import main
-from ecoscan.points import PointSet
-from ecoscan.validation import validate_points
-from ecoscan.vector import Plot, PlotLayer, write_plots
+from ecoscan.io.vector import Plot, PlotLayer, write_plots
+from ecoscan.model.points import PointSet
 
 UTM = CRS.from_epsg(32633)
 X0, Y0 = 400_000.0, 5_000_000.0

@@ -13,7 +13,11 @@ import numpy as np
 import pytest
 import shapely
 
-from ecoscan.analysis import DispersionSettings, analyse_plot, donnelly_strip_warning
+from ecoscan.analysis.dispersion.compute import (
+    DispersionSettings,
+    analyse_plot,
+    donnelly_strip_warning,
+)
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.montecarlo import monte_carlo_nn
 from ecoscan.stats.nearest import default_guard_m, guard_zone

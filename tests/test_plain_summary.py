@@ -3,7 +3,7 @@
 import numpy as np
 import shapely
 
-from ecoscan.analysis import DispersionSettings, analyse_plot
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
 
 
 def test_pairs_on_a_grid_read_clumped_between_neighbours_and_even_over_quadrats():

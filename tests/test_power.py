@@ -94,7 +94,7 @@ def test_survival_power_close_to_statsmodels(pa, pb, n):
 
 
 def test_every_plot_row_carries_what_it_could_detect():
-    from ecoscan.analysis import DispersionSettings, analyse_plot
+    from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
     from ecoscan.stats.csr import uniform_in_polygon
     from ecoscan.stats.thomas import thomas_pattern
 

@@ -14,15 +14,15 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from shapely import affinity
 
-from ecoscan.analysis import DispersionSettings, analyse
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs, assign_plots
-from ecoscan.points import PointSet
+from ecoscan.io.inputs import SurveyInputs, assign_plots
+from ecoscan.io.vector import PlotLayer, plots_from_geometries, read_points
+from ecoscan.model.points import PointSet
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.montecarlo import monte_carlo_nn
 from ecoscan.stats.nearest import clark_evans, donnelly
 from ecoscan.stats.quadrat import quadrat_test
-from ecoscan.vector import PlotLayer, plots_from_geometries, read_points
 
 FEW = settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

@@ -8,7 +8,13 @@ import rasterio
 from rasterio.transform import from_origin
 
 from ecoscan.errors import InputError
-from ecoscan.raster import open_raster, pixel_to_map, plots_from_mask, read_decimated, read_window
+from ecoscan.io.raster import (
+    open_raster,
+    pixel_to_map,
+    plots_from_mask,
+    read_decimated,
+    read_window,
+)
 from ecoscan.synthetic import write_geotiff
 
 

@@ -7,8 +7,8 @@ import pytest
 import shapely
 from browser import IMAGES_OK_JS, find_chromium, inspect_page
 
-from ecoscan.figures.dispersion import nn_histogram_figure, r_against_n_figure
-from ecoscan.report import ReportSection, build_report, figure_html, table_html
+from ecoscan.report.figures.dispersion import nn_histogram_figure, r_against_n_figure
+from ecoscan.report.html import ReportSection, build_report, figure_html, table_html
 
 
 def _small_report(tmp_path):
@@ -66,7 +66,7 @@ def test_report_in_headless_chromium(tmp_path):
 
 
 def test_polygon_drawing_handles_holes(tmp_path):
-    from ecoscan.figures.dispersion import quadrat_map_figure
+    from ecoscan.report.figures.dispersion import quadrat_map_figure
 
     poly = shapely.box(0, 0, 10, 10).difference(shapely.box(4, 4, 6, 6))
     cells = [poly.intersection(shapely.box(x, y, x + 5, y + 5)) for x in (0, 5) for y in (0, 5)]
@@ -75,7 +75,7 @@ def test_polygon_drawing_handles_holes(tmp_path):
 
 
 def test_methods_section_names_the_sources():
-    from ecoscan.report import methods_html
+    from ecoscan.report.html import methods_html
 
     base = methods_html()
     assert "Clark, P. J." in base and "Donnelly" in base and "Besag" in base

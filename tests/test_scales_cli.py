@@ -8,13 +8,13 @@ import pytest
 import shapely
 from pyproj import CRS
 
+from ecoscan.analysis.scales.compute import ScalesSettings, analyse_scales, interpret, plot_rng
 from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.inputs import assign_plots, load_points_and_plots
-from ecoscan.points import PointSet
-from ecoscan.scales import ScalesSettings, analyse_scales, interpret, plot_rng
+from ecoscan.io.inputs import assign_plots, load_points_and_plots
+from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.model.points import PointSet
 from ecoscan.stats.csr import uniform_in_polygon
-from ecoscan.vector import Plot, PlotLayer, write_plots, write_points
 
 UTM = CRS.from_epsg(32633)
 X0, Y0 = 500_000.0, 5_000_000.0
@@ -218,7 +218,8 @@ def test_cli_bad_input_leaves_no_files(survey, tmp_path, capsys):
 
 
 def test_too_few_plants_and_envelope_labels(results):
-    from ecoscan.scales import analyse_plot, function_rows
+    from ecoscan.analysis.scales.columns import function_rows
+    from ecoscan.analysis.scales.compute import analyse_plot
 
     poly = shapely.box(0, 0, 10, 10)
     res = analyse_plot(

@@ -287,7 +287,7 @@ def test_bad_style_or_size_is_a_clear_error():
 
 
 def test_written_scene_reads_back_as_raster_truth_and_plots(tmp_path):
-    from ecoscan.vector import read_plots, read_points
+    from ecoscan.io.vector import read_plots, read_points
 
     sc = make_scene("multispectral", 200, 4)
     paths = write_scene(sc, tmp_path)

@@ -6,10 +6,10 @@ import shapely
 from pyproj import CRS
 from rasterio.transform import from_origin
 
+from ecoscan.io.vector import Plot, PlotLayer, write_plots
 from ecoscan.survey.config import load_survey
 from ecoscan.survey.runner import run_survey
 from ecoscan.synthetic import render_orthomosaic, write_geotiff
-from ecoscan.vector import Plot, PlotLayer, write_plots
 
 UTM = CRS.from_epsg(32631)
 X0, Y0, PX = 500_000.0, 4_000_000.0, 0.1

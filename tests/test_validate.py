@@ -8,11 +8,11 @@ import pytest
 import shapely
 from pyproj import CRS
 
+from ecoscan.analysis.validation.compute import COLUMNS, validate_points
 from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.validation import COLUMNS, validate_points
-from ecoscan.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.model.points import PointSet
 
 UTM = CRS.from_epsg(32633)
 

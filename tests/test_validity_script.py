@@ -10,9 +10,9 @@ import pytest
 from scipy import stats as sps
 
 from benchmarks import validity as v
-from ecoscan.analysis import DispersionSettings, analyse_plot
-from ecoscan.scales import ScalesSettings
-from ecoscan.scales import analyse_plot as scales_plot
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
+from ecoscan.analysis.scales.compute import ScalesSettings
+from ecoscan.analysis.scales.compute import analyse_plot as scales_plot
 from ecoscan.stats.csr import plot_rng, uniform_in_polygon
 from ecoscan.stats.nearest import clark_evans, donnelly
 

@@ -5,8 +5,8 @@ import pytest
 import shapely
 from scipy import stats as sps
 
-from ecoscan.analysis import DispersionSettings, analyse_plot
-from ecoscan.detectable import (
+from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse_plot
+from ecoscan.analysis.dispersion.detectable import (
     NO_DEPARTURE,
     TELL_LIMITS,
     TOO_FEW,

@@ -6,12 +6,17 @@ import numpy as np
 import pytest
 import shapely
 
-from ecoscan import analysis, change, compare, habitat, planning, scales, validation
+from ecoscan.analysis import habitat, planning
+from ecoscan.analysis.change import columns as change
+from ecoscan.analysis.compare import columns as compare
+from ecoscan.analysis.dispersion import columns as dispersion
+from ecoscan.analysis.scales import columns as scales
+from ecoscan.analysis.validation import columns as validation
 from ecoscan.cli import build_parser, main
-from ecoscan.report import table_html
+from ecoscan.report.html import table_html
+from ecoscan.report.tables import format_table
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.survey import reporting
-from ecoscan.tables import format_table
 from ecoscan.vocabulary import (
     COLUMNS,
     FORMATS,
@@ -23,7 +28,7 @@ from ecoscan.vocabulary import (
 
 #: Every table ecoscan writes or shows, by name.
 TABLES = {
-    "dispersion.csv": [*analysis.DISPERSION_COLUMNS, *analysis.EXTRA_COLUMNS],
+    "dispersion.csv": [*dispersion.DISPERSION_COLUMNS, *dispersion.EXTRA_COLUMNS],
     "groups.csv": compare.GROUP_COLUMNS,
     "comparison.csv": compare.PAIR_COLUMNS,
     "change.csv": change.CHANGE_COLUMNS,
@@ -165,7 +170,7 @@ def test_results_to_stdout_notes_to_stderr_quiet_silences_notes_only(tmp_path, c
     pts.write_text("x,y\n" + "".join(f"{a:.3f},{b:.3f}\n" for a, b in xy))
     from pyproj import CRS
 
-    from ecoscan.vector import PlotLayer, plots_from_geometries, write_plots
+    from ecoscan.io.vector import PlotLayer, plots_from_geometries, write_plots
 
     recs, _ = plots_from_geometries(list(plots.values()), list(plots))
     plots_file = write_plots(PlotLayer(recs, CRS.from_epsg(32633)), tmp_path / "plots.gpkg")

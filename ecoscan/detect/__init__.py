@@ -22,18 +22,18 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
 from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import Tile, plan_tiles, run_plan
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
+from ecoscan.io.crs import crs_label, to_metric, transform_xy
+from ecoscan.io.raster import RasterInfo, open_raster, pixel_to_map, read_decimated
+from ecoscan.model.points import PointSet
 
 if TYPE_CHECKING:  # worker processes import this package: keep its import light
     from ecoscan.execution import Executor
-    from ecoscan.vector import PlotLayer
+    from ecoscan.io.vector import PlotLayer
 
 __all__ = [
     "DetectionResult",
@@ -486,7 +486,7 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     filters' reach so that its candidates are those of a whole-image run.
     """
     from ecoscan.detect.autotune import SampleWindow
-    from ecoscan.raster import read_window
+    from ecoscan.io.raster import read_window
 
     margin = scales.support_px
     w, h = info.width, info.height
@@ -746,7 +746,7 @@ def _check_tile_memory(
 
 
 def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
-    from ecoscan.raster import window_polygons
+    from ecoscan.io.raster import window_polygons
 
     core = np.array([tl.core for tl in tiles], float).reshape(-1, 4)
     c0, r0, c1, r1 = core.T
@@ -755,13 +755,13 @@ def _tile_polygons(info: RasterInfo, tiles: list[Tile]) -> np.ndarray:
 
 def _raster_polygon(info: RasterInfo):
     """The raster's outline (pixel corners) in its own CRS."""
-    from ecoscan.raster import window_polygons
+    from ecoscan.io.raster import window_polygons
 
     return window_polygons(info.transform, 0, 0, info.width, info.height)[0]
 
 
 def _plots_in(layer: PlotLayer, crs) -> np.ndarray:
-    from ecoscan.vector import reproject_geometries
+    from ecoscan.io.vector import reproject_geometries
 
     geoms = np.array([p.geometry for p in layer.plots], dtype=object)
     if crs is not None and layer.crs is not None and crs != layer.crs:
@@ -818,13 +818,13 @@ def detect_raster(
     """
     import shapely
 
-    from ecoscan.inputs import (
+    from ecoscan.io.inputs import (
         assign_plots,
         overlap_note,
         points_by_plot,
         unsurveyed_note,
     )
-    from ecoscan.vector import PlotLayer
+    from ecoscan.io.vector import PlotLayer
 
     settings = settings or DetectionSettings()
     if workers < 1:
@@ -1006,7 +1006,8 @@ def detect_raster(
     )
 
 
-# `ecoscan.detect(...)` is the public API function of that name (ecoscan/_callable.py)
-from ecoscan._callable import callable_module  # noqa: E402
+# `ecoscan.detect(path)` is the public API function of that name: calling this package runs it
+# (ecoscan/__init__.py, docs/architecture.md "The Python API")
+from ecoscan import _callable_package  # noqa: E402
 
-callable_module(__name__)
+_callable_package(__name__)

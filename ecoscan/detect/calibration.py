@@ -48,10 +48,10 @@ from ecoscan.detect.pixel_model import (
     simple_layer,
 )
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.raster import RasterInfo, read_window
+from ecoscan.io.raster import RasterInfo, read_window
+from ecoscan.io.vector import PlotLayer
+from ecoscan.model.points import PointSet
 from ecoscan.stats.matching import match_points
-from ecoscan.vector import PlotLayer
 
 __all__ = [
     "CLASSIFIER_MARGIN",
@@ -834,7 +834,7 @@ def calibrate_detector(
     Parameters
     ----------
     info : RasterInfo
-        The raster (:func:`ecoscan.raster.open_raster`).
+        The raster (:func:`ecoscan.io.raster.open_raster`).
     reference : PointSet
         Every plant mapped inside the training plots, in the raster's CRS (or local metres
         for a raster without georeferencing). A ``diameter_m`` attribute, when present,

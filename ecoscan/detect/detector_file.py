@@ -20,7 +20,7 @@ from typing import Any
 
 from ecoscan.detect.pixel_model import SIMPLE_LAYERS, FeatureSpec, PlantLayer
 from ecoscan.errors import InputError
-from ecoscan.outputs import atomic_path
+from ecoscan.io.outputs import atomic_path
 
 __all__ = [
     "FORMAT_VERSION",
@@ -432,7 +432,7 @@ def check_raster(det: CalibratedDetector, raster_name: str, info) -> list[str]:
     det : CalibratedDetector
     raster_name : str
         As the user wrote it, for messages.
-    info : ecoscan.raster.RasterInfo
+    info : ecoscan.io.raster.RasterInfo
 
     Returns
     -------
@@ -471,7 +471,7 @@ def calibrated_params(det: CalibratedDetector, info, raster_name: str):
     ----------
     det : CalibratedDetector
         With its model loaded for a classifier.
-    info : ecoscan.raster.RasterInfo
+    info : ecoscan.io.raster.RasterInfo
     raster_name : str
         As the user wrote it, for messages.
 

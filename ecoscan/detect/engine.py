@@ -16,7 +16,7 @@ from ecoscan.detect import blobs, canopy, chm, classes
 from ecoscan.detect.indices import darkness, excess_green, ndvi
 from ecoscan.detect.settings import CROWN_RULES
 from ecoscan.detect.tiling import Tile, in_core
-from ecoscan.raster import RasterInfo, read_window
+from ecoscan.io.raster import RasterInfo, read_window
 
 __all__ = [
     "DetectorParams",

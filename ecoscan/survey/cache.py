@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan import __version__
-from ecoscan.outputs import write_json
+from ecoscan.io.outputs import write_json
 
 __all__ = ["file_sha256", "is_fresh", "mark_done", "settings_key"]
 

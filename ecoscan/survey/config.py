@@ -7,7 +7,7 @@ Example::
     plots = "plots.gpkg"          # paths are relative to this file
     output = "results"
 
-    [statistics]                  # dispersion settings (see ecoscan.analysis)
+    [statistics]                  # dispersion settings (see ecoscan.analysis.dispersion.compute)
     simulations = 999
     seed = 7
 
@@ -42,8 +42,8 @@ __all__ = ["RasterEntry", "SurveyConfig", "load_survey", "locate_keys"]
 
 _SECTIONS = {
     "survey": {"name", "plots", "output", "plot_id_field", "plots_layer", "workers"},
-    "statistics": None,  # keys of ecoscan.analysis.DispersionSettings
-    "scales": None,  # "enabled" plus keys of ecoscan.scales.ScalesSettings
+    "statistics": None,  # keys of ecoscan.analysis.dispersion.compute.DispersionSettings
+    "scales": None,  # "enabled" plus keys of ecoscan.analysis.scales.compute.ScalesSettings
     "change": {"enabled", "tolerance_m", "estimate_shift"},
     "compare": {"enabled", "by", "permutations"},
     "raster": {"path", "name", "site", "date", "detect"},
@@ -235,11 +235,12 @@ def _as_str(problems: _Problems, where: tuple, value: Any, what: str) -> str | N
 
 def _check_values(problems: _Problems, statistics: dict, scales: dict, rasters) -> None:
     """Build every settings object once so that bad values are reported with their line."""
-    checks = [(("statistics",), "ecoscan.analysis", "DispersionSettings", statistics)]
+    dispersion = "ecoscan.analysis.dispersion.compute"
+    checks = [(("statistics",), dispersion, "DispersionSettings", statistics)]
     checks.append(
         (
             ("scales",),
-            "ecoscan.scales",
+            "ecoscan.analysis.scales.compute",
             "ScalesSettings",
             {k: v for k, v in scales.items() if k != "enabled"},
         )
@@ -369,8 +370,10 @@ def load_survey(path: str | Path) -> SurveyConfig:
         _unknown(problems, (name,), table, allowed, name)
         return dict(table)
 
-    statistics = _section("statistics", set(), "ecoscan.analysis", "DispersionSettings")
-    scales = _section("scales", {"enabled"}, "ecoscan.scales", "ScalesSettings")
+    statistics = _section(
+        "statistics", set(), "ecoscan.analysis.dispersion.compute", "DispersionSettings"
+    )
+    scales = _section("scales", {"enabled"}, "ecoscan.analysis.scales.compute", "ScalesSettings")
     cov = scales.get("covariates")
     if isinstance(cov, dict) and all(isinstance(v, str) for v in cov.values()):
         # covariate rasters are relative to the survey file, like every other path

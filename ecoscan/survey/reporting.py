@@ -5,15 +5,15 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
+from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.detect import describe_settings
-from ecoscan.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
-from ecoscan.figures.dispersion import (
+from ecoscan.report.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
     quadrat_map_figure,
     r_against_n_figure,
 )
-from ecoscan.report import (
+from ecoscan.report.html import (
     CAUTIONS_HTML,
     ReportSection,
     build_report,
@@ -264,7 +264,7 @@ def _plot_section(run, rr, res, plot, figdir: Path, alpha: float) -> tuple[str, 
         if sres is not None:
             scale_warn = "; ".join(sres.warnings)
         if sres is not None and getattr(sres, "n", 0) >= 2 and sres.curves:
-            from ecoscan.figures.scales import plot_scales_figure
+            from ecoscan.report.figures.scales import plot_scales_figure
 
             files.append(plot_scales_figure(sres, figdir / f"{name}_scales.png"))
             detail_figs.append(
@@ -410,7 +410,7 @@ def write_report(run, stat_settings) -> list[Path]:
     ----------
     run : ecoscan.survey.runner.SurveyRun
         A finished run.
-    stat_settings : ecoscan.analysis.DispersionSettings
+    stat_settings : ecoscan.analysis.dispersion.compute.DispersionSettings
         The statistics settings used (for alpha and the methods text).
 
     Returns
@@ -485,7 +485,7 @@ def write_report(run, stat_settings) -> list[Path]:
     sections.append(ReportSection("All plots: R and plant numbers", overview, "overview"))
 
     if any(rr.scales for rr in run.rasters):
-        from ecoscan.scales import scales_rows
+        from ecoscan.analysis.scales.columns import scales_rows
 
         rows = []
         for rr in run.rasters:
@@ -563,7 +563,7 @@ def write_report(run, stat_settings) -> list[Path]:
 
 
 def _comparison_section(run) -> ReportSection:
-    from ecoscan.compare import (
+    from ecoscan.analysis.compare.columns import (
         GROUP_SUMMARY_COLUMNS,
         comparison_rows,
         group_rows,
@@ -602,7 +602,7 @@ def _comparison_section(run) -> ReportSection:
 
 
 def _change_section(run) -> ReportSection:
-    from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows
+    from ecoscan.analysis.change.columns import CHANGE_SUMMARY_COLUMNS, change_rows
 
     parts = [
         "<p>Plants matched one-to-one between consecutive dates after removing the "

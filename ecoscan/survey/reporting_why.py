@@ -7,7 +7,7 @@ from __future__ import annotations
 import html
 from pathlib import Path
 
-from ecoscan.report import ReportSection, figure_html, table_html
+from ecoscan.report.html import ReportSection, figure_html, table_html
 
 __all__ = ["why_section"]
 
@@ -44,8 +44,8 @@ def why_section(run, figdir: Path) -> tuple[ReportSection, list[Path]]:
     -------
     (ReportSection, list of pathlib.Path)
     """
-    from ecoscan.figures.habitat import plot_habitat_figure
-    from ecoscan.habitat import effect_rows, habitat_row
+    from ecoscan.analysis.habitat import effect_rows, habitat_row
+    from ecoscan.report.figures.habitat import plot_habitat_figure
     from ecoscan.survey.runner import slug
 
     rows, effects, figs, files = [], [], [], []

@@ -5,7 +5,7 @@ Output folder layout::
 
     OUTDIR/
       dispersion.csv      one row per raster and plot (site, date, raster, then the
-                          dispersion columns of ecoscan.analysis)
+                          dispersion columns of ecoscan.analysis.dispersion.compute)
       dispersion.json     the same numbers with all parameters
       points.csv/.prj     every analysed plant (x, y, plot_id, site, date, raster, attributes)
       plots.gpkg          the plot outlines in the survey CRS
@@ -34,22 +34,18 @@ from typing import Any
 import numpy as np
 
 from ecoscan import __version__
-from ecoscan.crs import crs_label
 from ecoscan.errors import InputError
 from ecoscan.execution import Executor, LocalExecutor
-from ecoscan.inputs import (
+from ecoscan.io.crs import crs_label
+from ecoscan.io.inputs import (
     SurveyInputs,
     assign_plots,
     one_row_per_plant,
     points_by_plot,
     unsurveyed_note,
 )
-from ecoscan.outputs import write_csv, write_json
-from ecoscan.points import PointSet
-from ecoscan.progress import progress
-from ecoscan.survey.cache import file_sha256, is_fresh, mark_done, settings_key
-from ecoscan.survey.config import RasterEntry, SurveyConfig
-from ecoscan.vector import (
+from ecoscan.io.outputs import write_csv, write_json
+from ecoscan.io.vector import (
     PlotLayer,
     read_plots,
     read_points,
@@ -57,6 +53,10 @@ from ecoscan.vector import (
     write_plots,
     write_points,
 )
+from ecoscan.model.points import PointSet
+from ecoscan.progress import progress
+from ecoscan.survey.cache import file_sha256, is_fresh, mark_done, settings_key
+from ecoscan.survey.config import RasterEntry, SurveyConfig
 
 log = logging.getLogger("ecoscan")
 
@@ -124,7 +124,7 @@ def _raster_footprint(path: Path, survey_crs, pixel_size_m: float | None = None)
     """The raster's footprint polygon in the survey CRS (``pixel_size_m`` for rasters
     without georeferencing, as in the detector settings)."""
 
-    from ecoscan.raster import open_raster, window_polygons
+    from ecoscan.io.raster import open_raster, window_polygons
 
     info = open_raster(path, pixel_size_m=pixel_size_m)
     poly = window_polygons(info.transform, 0, 0, info.width, info.height)[0]
@@ -138,7 +138,7 @@ def _raster_footprint(path: Path, survey_crs, pixel_size_m: float | None = None)
 def _to_survey_crs(points: PointSet, crs) -> PointSet:
     if crs is None or points.crs is None or points.crs == crs:
         return points
-    from ecoscan.crs import transform_xy
+    from ecoscan.io.crs import transform_xy
 
     x, y = transform_xy(points.x, points.y, points.crs, crs)
     return PointSet(
@@ -313,7 +313,7 @@ def _detect_all(planned: list, out: Path, plots_hash: str, previous: Path | None
 
 
 def _analyse_plot_job(job) -> Any:
-    from ecoscan.analysis import analyse_plot
+    from ecoscan.analysis.dispersion.compute import analyse_plot
 
     return analyse_plot(*job)
 
@@ -325,7 +325,7 @@ def _analyse_all(inputs: list[SurveyInputs], stat_settings, ex) -> list[list]:
     Monte Carlo stream is seeded from its id, so the numbers do not depend on the
     schedule); locally the plots run in this process as in ``ecoscan analyse``.
     """
-    from ecoscan.analysis import analyse
+    from ecoscan.analysis.dispersion.compute import analyse
 
     if not ex.distributed:
         return [analyse(inp, stat_settings) for inp in inputs]
@@ -346,7 +346,8 @@ def _run_survey(
     report: bool,
     executor: Executor | None = None,
 ) -> SurveyRun:
-    from ecoscan.analysis import DispersionSettings, dispersion_rows
+    from ecoscan.analysis.dispersion.columns import dispersion_rows
+    from ecoscan.analysis.dispersion.compute import DispersionSettings
     from ecoscan.safety import check_quadrat_cells
 
     started = datetime.now(UTC)
@@ -364,7 +365,7 @@ def _run_survey(
     plots_hash = file_sha256(config.plots)
     scales_settings = None
     if config.scales_enabled:
-        from ecoscan.scales import ScalesSettings
+        from ecoscan.analysis.scales.compute import ScalesSettings
 
         scales_settings = ScalesSettings.from_mapping(
             {k: v for k, v in config.scales.items() if k != "enabled"}
@@ -394,7 +395,7 @@ def _run_survey(
     ):
         scl = None
         if scales_settings is not None:
-            from ecoscan.scales import analyse_scales
+            from ecoscan.analysis.scales.compute import analyse_scales
 
             scl = analyse_scales(
                 inputs,
@@ -427,7 +428,7 @@ def _run_survey(
 
 
 def _write_tables(run: SurveyRun, stat_settings) -> None:
-    from ecoscan.analysis import DISPERSION_COLUMNS
+    from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS
 
     out = run.output
     cols = ["site", "date", "raster", *DISPERSION_COLUMNS]
@@ -463,7 +464,7 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
     run.files.append(write_points(allpts, out / "points.csv"))
     run.files.append(write_plots(run.layer, out / "plots.gpkg"))
     if any(rr.scales for rr in run.rasters):
-        from ecoscan.scales import function_rows, scales_rows
+        from ecoscan.analysis.scales.columns import function_rows, scales_rows
 
         srows, frows = [], []
         for rr in run.rasters:
@@ -474,8 +475,8 @@ def _write_tables(run: SurveyRun, stat_settings) -> None:
             frows += [{**lab, **r} for r in function_rows(rr.scales)]
         run.files.append(write_csv(out / "scales.csv", srows))
         run.files.append(write_csv(out / "functions.csv", frows))
-        from ecoscan.habitat import EFFECT_COLUMNS
-        from ecoscan.scales import effect_rows_of
+        from ecoscan.analysis.habitat import EFFECT_COLUMNS
+        from ecoscan.analysis.scales.columns import effect_rows_of
 
         erows = []
         for rr in run.rasters:
@@ -496,7 +497,8 @@ def _run_change(run: SurveyRun) -> None:
     cfg = run.config.change
     if not cfg.get("enabled", True):
         return
-    from ecoscan.change import ChangeSettings, detect_change, write_change
+    from ecoscan.analysis.change.compute import ChangeSettings, detect_change
+    from ecoscan.report.folders import write_change
 
     settings = _section_settings(run, ChangeSettings, cfg)
     by_site: dict[str, list[RasterRun]] = {}
@@ -529,7 +531,8 @@ def _run_compare(run: SurveyRun) -> None:
     cfg = run.config.compare
     if not cfg.get("enabled", True) or not run.rasters:
         return
-    from ecoscan.compare import CompareSettings, compare_groups, read_results, write_comparison
+    from ecoscan.analysis.compare.compute import CompareSettings, compare_groups, read_results
+    from ecoscan.report.folders import write_comparison
 
     settings = _section_settings(run, CompareSettings, cfg)
     if settings.by == "auto":

@@ -23,7 +23,7 @@ from rasterio.transform import Affine
 from scipy import ndimage
 from scipy.spatial import cKDTree
 
-from ecoscan.outputs import atomic_path
+from ecoscan.io.outputs import atomic_path
 from ecoscan.stats.csr import as_rng
 
 __all__ = [

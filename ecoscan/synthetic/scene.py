@@ -240,7 +240,7 @@ def training_plots(scene: Scene, fraction: float = 0.12):
 
     Returns
     -------
-    ecoscan.vector.PlotLayer
+    ecoscan.io.vector.PlotLayer
 
     Examples
     --------
@@ -251,7 +251,7 @@ def training_plots(scene: Scene, fraction: float = 0.12):
     import shapely
     from pyproj import CRS
 
-    from ecoscan.vector import Plot, PlotLayer
+    from ecoscan.io.vector import Plot, PlotLayer
 
     x0, y0 = SCENE_ORIGIN
     side = scene.size_px * scene.pixel_size_m
@@ -296,9 +296,9 @@ def write_scene(scene: Scene, folder: str | os.PathLike, *, name: str | None = N
     import rasterio
     from pyproj import CRS
 
-    from ecoscan.outputs import atomic_path
-    from ecoscan.points import PointSet
-    from ecoscan.vector import write_plots, write_points
+    from ecoscan.io.outputs import atomic_path
+    from ecoscan.io.vector import write_plots, write_points
+    from ecoscan.model.points import PointSet
 
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)

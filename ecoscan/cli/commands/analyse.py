@@ -4,14 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ecoscan.analysis import (
-    CAUTION,
-    DispersionSettings,
-    analyse,
-    check_outdir,
-    dispersion_rows,
-    write_analysis,
-)
+from ecoscan.analysis.dispersion.columns import dispersion_rows
+from ecoscan.analysis.dispersion.compute import CAUTION, DispersionSettings, analyse
+from ecoscan.analysis.dispersion.detectable import detectable_range_short
 from ecoscan.cli._common import (
     add_crs_arg,
     add_plots_args,
@@ -21,11 +16,11 @@ from ecoscan.cli._common import (
     print_notes,
     print_warnings,
 )
-from ecoscan.detectable import detectable_range_short
-from ecoscan.inputs import load_points_and_plots
+from ecoscan.io.inputs import load_points_and_plots
 from ecoscan.lifecycle import output_folder
+from ecoscan.report.folders import check_outdir, write_analysis
+from ecoscan.report.tables import format_table
 from ecoscan.stats.montecarlo import DIRECTIONS
-from ecoscan.tables import format_table
 
 NAME = "analyse"
 HELP = "test per plot whether plants are clustered, random or regular"

@@ -6,10 +6,10 @@ import argparse
 from pathlib import Path
 
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
-from ecoscan.crs import transform_xy
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.tables import format_table
+from ecoscan.io.crs import transform_xy
+from ecoscan.model.points import PointSet
+from ecoscan.report.tables import format_table
 
 NAME = "calibrate"
 HELP = "learn a detector (layer, thresholds, crown sizes) from plants mapped in training plots"
@@ -85,8 +85,8 @@ def run(args: argparse.Namespace) -> int:
     from ecoscan.detect.calibration import band_names_for, calibrate_detector, describe_training
     from ecoscan.detect.detector_file import write_detector
     from ecoscan.detect.settings import parse_band_spec, parse_diameter
-    from ecoscan.raster import open_raster
-    from ecoscan.vector import read_plots, read_points
+    from ecoscan.io.raster import open_raster
+    from ecoscan.io.vector import read_plots, read_points
 
     out = Path(args.output)
     if out.suffix.lower() != ".toml":

@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ecoscan.change import CHANGE_SUMMARY_COLUMNS, change_rows, detect_change, write_change
+from ecoscan.analysis.change.columns import CHANGE_SUMMARY_COLUMNS, change_rows
+from ecoscan.analysis.change.compute import detect_change
 from ecoscan.cli._common import (
     add_crs_arg,
     add_plots_args,
@@ -14,10 +15,11 @@ from ecoscan.cli._common import (
     print_warnings,
 )
 from ecoscan.errors import InputError
+from ecoscan.io.vector import read_plots, read_points
 from ecoscan.lifecycle import output_folder
+from ecoscan.report.folders import write_change
+from ecoscan.report.tables import format_table
 from ecoscan.safety import simulations_arg
-from ecoscan.tables import format_table
-from ecoscan.vector import read_plots, read_points
 
 NAME = "change"
 HELP = "follow plants between two dates: persisting, lost and new plants, survival per plot"

@@ -4,20 +4,18 @@ from __future__ import annotations
 
 import argparse
 
-from ecoscan.cli._common import add_renamed, print_notes
-from ecoscan.compare import (
-    BY_CHOICES,
+from ecoscan.analysis.compare.columns import (
     GROUP_SUMMARY_COLUMNS,
-    compare_groups,
     comparison_rows,
     group_rows,
     pair_summary_columns,
-    read_results,
-    write_comparison,
 )
+from ecoscan.analysis.compare.compute import BY_CHOICES, compare_groups, read_results
+from ecoscan.cli._common import add_renamed, print_notes
 from ecoscan.lifecycle import output_folder
+from ecoscan.report.folders import write_comparison
+from ecoscan.report.tables import format_table
 from ecoscan.safety import simulations_arg
-from ecoscan.tables import format_table
 
 NAME = "compare"
 HELP = "compare sites, dates or plots: density, Clark-Evans R and spacing, pair by pair"

@@ -10,11 +10,11 @@ from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
 from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
 from ecoscan.errors import InputError
 from ecoscan.execution import check_executor_options, open_executor
+from ecoscan.io.outputs import write_json
+from ecoscan.io.raster import plots_from_mask
+from ecoscan.io.vector import read_plots, write_points
 from ecoscan.lifecycle import check_output_path
-from ecoscan.outputs import write_json
-from ecoscan.raster import plots_from_mask
-from ecoscan.tables import format_table
-from ecoscan.vector import read_plots, write_points
+from ecoscan.report.tables import format_table
 
 NAME = "detect"
 HELP = "find one point per plant in an orthomosaic, canopy height model or class map"

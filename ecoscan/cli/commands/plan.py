@@ -7,10 +7,11 @@ import re
 
 import shapely
 
+from ecoscan.analysis.planning import DESIGN_COLUMNS, PATTERN_COLUMNS, PlanSettings, make_plan
 from ecoscan.cli._common import print_notes
 from ecoscan.errors import InputError
-from ecoscan.planning import DESIGN_COLUMNS, PATTERN_COLUMNS, PlanSettings, make_plan, write_plan
-from ecoscan.tables import format_table
+from ecoscan.report.folders import write_plan
+from ecoscan.report.tables import format_table
 
 NAME = "plan"
 HELP = "power of a monitoring design: plants per plot, plot size and number of plots"
@@ -90,7 +91,7 @@ def _shapes(args: argparse.Namespace) -> dict[str, shapely.Geometry]:
             )
         w, h = float(m[1]), float(m[2])
         return {f"{w:g}x{h:g} m": shapely.box(0, 0, w, h)}
-    from ecoscan.vector import read_plots
+    from ecoscan.io.vector import read_plots
 
     layer = read_plots(args.plots)
     shapes = {f"plot {pl.plot_id}": pl.geometry for pl in layer.plots}

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ecoscan.analysis.scales.columns import scales_rows
+from ecoscan.analysis.scales.compute import ScalesSettings, analyse_scales
 from ecoscan.cli._common import (
     add_crs_arg,
     add_plots_args,
@@ -14,11 +16,11 @@ from ecoscan.cli._common import (
     print_warnings,
 )
 from ecoscan.errors import InputError
-from ecoscan.inputs import load_points_and_plots
+from ecoscan.io.inputs import load_points_and_plots
 from ecoscan.lifecycle import output_folder
-from ecoscan.scales import ScalesSettings, analyse_scales, scales_rows, write_scales
+from ecoscan.report.folders import write_scales
+from ecoscan.report.tables import format_table
 from ecoscan.stats.envelopes import GLOBAL_TESTS
-from ecoscan.tables import format_table
 
 NAME = "scales"
 HELP = "at which distances plants are clustered or regular (K, L, g, G, F, J with envelopes)"

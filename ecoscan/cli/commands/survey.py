@@ -37,9 +37,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def print_summary(run, quiet: bool = False) -> None:
     """Print the per-plot table (stdout) and where the outputs are (a note on stderr)."""
+    from ecoscan.analysis.dispersion.detectable import detectable_range_short
     from ecoscan.cli._common import print_notes
-    from ecoscan.detectable import detectable_range_short
-    from ecoscan.tables import format_table
+    from ecoscan.report.tables import format_table
 
     cols = ["site", "date", "plot_id", "n", "density_per_ha", "R", "R_donnelly", "p_mc", "verdict"]
     cols.append("detectable_range")

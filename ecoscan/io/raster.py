@@ -25,11 +25,11 @@ from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
 from rasterio.transform import Affine
 from rasterio.windows import Window
 
-from ecoscan.crs import crs_label, to_metric, transform_xy
 from ecoscan.errors import InputError
+from ecoscan.io.crs import crs_label, to_metric, transform_xy
 
 if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out of them
-    from ecoscan.vector import PlotLayer
+    from ecoscan.io.vector import PlotLayer
 
 __all__ = [
     "RasterInfo",
@@ -455,7 +455,7 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
     import rasterio.features
     import shapely
 
-    from ecoscan.vector import PlotLayer, plots_from_geometries, reproject_geometries
+    from ecoscan.io.vector import PlotLayer, plots_from_geometries, reproject_geometries
 
     info = open_raster(path, pixel_size_m=pixel_size_m)
     if np.dtype(info.dtype).kind not in "iub":

@@ -9,10 +9,8 @@ difference between sites (:mod:`ecoscan.stats.planning`) against the number of p
 
 from __future__ import annotations
 
-import os
 import zlib
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import ClassVar
 
 import numpy as np
@@ -28,7 +26,6 @@ __all__ = [
     "PlanResult",
     "PlanSettings",
     "make_plan",
-    "write_plan",
 ]
 
 #: Columns of the table of detectable pattern per plot shape and plants per plot.
@@ -265,37 +262,3 @@ def _design_answers(rows: list[dict], s: PlanSettings, shape: str) -> list[str]:
     return answers
 
 
-def write_plan(result: PlanResult, folder: str | os.PathLike) -> list[Path]:
-    """Write the plan's tables (CSV) and figure (PNG) into a folder.
-
-    Parameters
-    ----------
-    result : PlanResult
-        A plan from :func:`make_plan`.
-    folder : path-like
-        Output folder (created).
-
-    Returns
-    -------
-    list of pathlib.Path
-        Files written.
-
-    Examples
-    --------
-    >>> import shapely, tempfile
-    >>> plan = make_plan({"square": shapely.box(0, 0, 20, 20)},
-    ...                  PlanSettings(densities_per_ha=(600.0,), patterns=20))
-    >>> [p.name for p in write_plan(plan, tempfile.mkdtemp())]
-    ['plan-pattern.csv', 'plan-design.csv', 'plan.png']
-    """
-    from ecoscan.figures.planning import plot_plan
-    from ecoscan.outputs import write_csv
-
-    out = Path(folder)
-    out.mkdir(parents=True, exist_ok=True)
-    written = [
-        write_csv(out / "plan-pattern.csv", result.pattern_rows, PATTERN_COLUMNS),
-        write_csv(out / "plan-design.csv", result.design_rows, DESIGN_COLUMNS),
-        plot_plan(result, out / "plan.png"),
-    ]
-    return [Path(p) for p in written]

@@ -16,7 +16,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ecoscan.figures import FIGURE_DPI, MARKERS, PALETTE, save_figure
+from ecoscan.report.figures import FIGURE_DPI, MARKERS, PALETTE, save_figure
 
 __all__ = ["plot_scales_figure"]
 
@@ -80,7 +80,7 @@ def plot_scales_figure(result, path: str | os.PathLike) -> Path:
 
     Parameters
     ----------
-    result : ecoscan.scales.PlotScales
+    result : ecoscan.analysis.scales.compute.PlotScales
         The plot's result.
     path : path-like
         Destination PNG (written atomically).

@@ -9,7 +9,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ecoscan.figures import FIGURE_DPI, PALETTE, save_figure
+from ecoscan.report.figures import FIGURE_DPI, PALETTE, save_figure
 
 __all__ = ["plot_plan"]
 
@@ -21,7 +21,7 @@ def plot_plan(result, path: str | os.PathLike) -> Path:
 
     Parameters
     ----------
-    result : ecoscan.planning.PlanResult
+    result : ecoscan.analysis.planning.PlanResult
         The plan.
     path : path-like
         PNG file to write.
@@ -33,7 +33,7 @@ def plot_plan(result, path: str | os.PathLike) -> Path:
     Examples
     --------
     >>> import shapely, tempfile, os
-    >>> from ecoscan.planning import PlanSettings, make_plan
+    >>> from ecoscan.analysis.planning import PlanSettings, make_plan
     >>> plan = make_plan({"square": shapely.box(0, 0, 20, 20)},
     ...                  PlanSettings(densities_per_ha=(600.0,), patterns=20))
     >>> plot_plan(plan, os.path.join(tempfile.mkdtemp(), "p.png")).suffix

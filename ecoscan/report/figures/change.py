@@ -8,7 +8,7 @@ import numpy as np
 import shapely
 from matplotlib.figure import Figure
 
-from ecoscan.figures import MARKERS, PALETTE, new_figure
+from ecoscan.report.figures import MARKERS, PALETTE, new_figure
 
 __all__ = ["change_map"]
 
@@ -48,8 +48,8 @@ def change_map(
 
     Notes
     -----
-    Colours and marker shapes come from :data:`ecoscan.figures.PALETTE` and
-    :data:`~ecoscan.figures.MARKERS`, so the three classes differ in shape as well as colour
+    Colours and marker shapes come from :data:`ecoscan.report.figures.PALETTE` and
+    :data:`~ecoscan.report.figures.MARKERS`, so the three classes differ in shape as well as colour
     (readable in grey and with colour-vision deficiency).
     """
     x = np.asarray(x_m, float)

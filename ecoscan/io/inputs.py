@@ -9,10 +9,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import shapely
 
-from ecoscan.crs import crs_label
 from ecoscan.errors import InputError
-from ecoscan.points import PointSet
-from ecoscan.vector import Plot, PlotLayer, read_plots, read_points
+from ecoscan.io.crs import crs_label
+from ecoscan.io.vector import Plot, PlotLayer, read_plots, read_points
+from ecoscan.model.points import PointSet
 
 __all__ = [
     "PlotMembership",
@@ -167,7 +167,7 @@ def overlapping_plots(layer: PlotLayer) -> list[tuple[str, str, float]]:
     Examples
     --------
     >>> import shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> overlapping_plots(lay)
@@ -194,7 +194,7 @@ def overlap_note(layer: PlotLayer) -> str | None:
     Examples
     --------
     >>> import shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> overlap_note(lay).split(":")[0]
@@ -219,7 +219,7 @@ def assign_plots(points: PointSet, layer: PlotLayer) -> PlotMembership:
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
     >>> lay = PlotLayer([a, b], None)
     >>> assign_plots(PointSet(np.array([0.5]), np.array([0.5])), lay).counts().tolist()
@@ -239,7 +239,7 @@ def points_by_plot(points: PointSet, layer: PlotLayer, membership: PlotMembershi
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
     >>> lay = PlotLayer([a, b], None)
     >>> pts = PointSet(np.array([0.5, 1.5]), np.array([0.5, 1.5]))
@@ -284,7 +284,7 @@ def unsurveyed_plots(
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(9, 9, 10, 10))
     >>> lay = PlotLayer([a, b], None)
     >>> m = plot_membership(np.array([1.0]), np.array([1.0]), [p.geometry for p in lay.plots])
@@ -324,7 +324,7 @@ def drop_plots(
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.vector import Plot, PlotLayer
+    >>> from ecoscan.io.vector import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 1, 1)), Plot("B", shapely.box(0, 0, 2, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> m = plot_membership(np.array([1.5]), np.array([1.5]), [p.geometry for p in lay.plots])
@@ -442,7 +442,7 @@ def load_points_and_plots(
     crs : str, optional
         CRS of the points when their file does not carry one.
     id_field : str, optional
-        Plot id field (see :func:`ecoscan.vector.read_plots`).
+        Plot id field (see :func:`ecoscan.io.vector.read_plots`).
     points_layer, plots_layer : str, optional
         Layer names in multi-layer files.
 

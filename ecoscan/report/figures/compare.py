@@ -7,7 +7,7 @@ from collections.abc import Sequence
 import numpy as np
 from matplotlib.figure import Figure
 
-from ecoscan.figures import MARKERS, PALETTE, new_figure
+from ecoscan.report.figures import MARKERS, PALETTE, new_figure
 
 __all__ = ["r_by_group"]
 
@@ -57,8 +57,8 @@ def r_by_group(
     Notes
     -----
     R = 1 (dashed) is complete spatial randomness; above it plants are more evenly spaced,
-    below it clustered. Colours and markers: :data:`ecoscan.figures.PALETTE` and
-    :data:`~ecoscan.figures.MARKERS` by whether the interval lies above, below or across 1.
+    below it clustered. Colours and markers: :data:`ecoscan.report.figures.PALETTE` and
+    :data:`~ecoscan.report.figures.MARKERS` by whether the interval lies above, below or across 1.
     """
     r = np.asarray(r, float)
     low = np.asarray(low, float)

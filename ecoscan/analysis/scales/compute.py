@@ -17,11 +17,8 @@ licensed practice for management decisions.
 
 from __future__ import annotations
 
-import os
-import re
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
@@ -29,8 +26,8 @@ import shapely
 
 from ecoscan.arguments import as_xy
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs
-from ecoscan.outputs import format_value, write_csv, write_json
+from ecoscan.io.inputs import SurveyInputs
+from ecoscan.io.outputs import format_value
 from ecoscan.progress import progress
 from ecoscan.settings import Settings
 from ecoscan.stats.cross import CrossResult, random_labelling_test
@@ -53,12 +50,9 @@ __all__ = [
     "ScalesSettings",
     "analyse_scales",
     "format_ranges",
-    "function_rows",
     "interpret",
     "plot_rng",
-    "scales_rows",
     "supported_max_distance",
-    "write_scales",
 ]
 
 #: Functions that can be requested, and what they are.
@@ -109,7 +103,7 @@ class ScalesSettings(Settings):
         The two kinds (A, B) to compare, e.g. ``("live", "dead")``.
     covariates : tuple of (str, str)
         Habitat covariates as (name, raster path): plant density is fitted as a log-linear
-        function of them and clustering beyond it is tested (:mod:`ecoscan.habitat`).
+        function of them and clustering beyond it is tested (:mod:`ecoscan.analysis.habitat`).
     kernel_intensity : bool
         Without covariates, test clustering beyond a kernel-smoothed density.
     mark : str or None
@@ -202,7 +196,7 @@ class ScalesSettings(Settings):
                 f = kw["functions"]
                 kw["functions"] = tuple(f.replace(",", " ").split() if isinstance(f, str) else f)
             if "covariates" in kw:
-                from ecoscan.habitat import parse_covariates
+                from ecoscan.analysis.habitat import parse_covariates
 
                 kw["covariates"] = parse_covariates(kw["covariates"])
             if kw.get("kinds") is not None:
@@ -293,7 +287,7 @@ class PlotScales:
     kinds_verdict : str
     alpha : float
         Level of the envelopes and tests.
-    habitat : ecoscan.habitat.PlotHabitat or None
+    habitat : ecoscan.analysis.habitat.PlotHabitat or None
         The covariate model, the test beyond it and the size test, when asked for.
     """
 
@@ -314,7 +308,8 @@ class PlotScales:
     cross: CrossResult | None = None
     kinds_verdict: str = ""
     alpha: float = 0.05
-    habitat: Any = None  # ecoscan.habitat.PlotHabitat when covariates or a mark were asked for
+    # ecoscan.analysis.habitat.PlotHabitat when covariates or a mark were asked for
+    habitat: Any = None
 
 
 def _fmt_m(v: float) -> str:
@@ -698,7 +693,7 @@ def analyse_plot(
         warnings += w
     habitat = None
     if surfaces or settings.kernel_intensity or marks is not None:
-        from ecoscan.habitat import habitat_analysis
+        from ecoscan.analysis.habitat import habitat_analysis
 
         habitat = habitat_analysis(
             xy,
@@ -919,7 +914,7 @@ def analyse_scales(
         surfaces, marks = None, None
         n = int(m.sum())
         if n >= settings.min_points:
-            from ecoscan.habitat import check_marks, covariate_surfaces
+            from ecoscan.analysis.habitat import check_marks, covariate_surfaces
 
             if settings.covariates:
                 spacing = np.sqrt(plot.geometry.area / min(max(4 * n, 2500), 40_000))
@@ -948,238 +943,4 @@ def analyse_scales(
 
 # ------------------------------------------------------------------------------- output
 
-SCALES_COLUMNS = [
-    "plot_id",
-    "n",
-    "global_test",
-    "p_global",
-    "clustered_ranges_m",
-    "regular_ranges_m",
-    "verdict",
-    "test_function",
-    "max_distance_m",
-    "bandwidth_m",
-    "simulations",
-    "warnings",
-]
-FUNCTION_COLUMNS = [
-    "plot_id",
-    "function",
-    "distance_m",
-    "value",
-    "csr_value",
-    "band_low",
-    "band_high",
-    "pointwise_low",
-    "pointwise_high",
-    "band",
-    "unit",
-]
 
-
-def _test_label(test: str, fn: str) -> str:
-    name = {"rank-length": "extreme rank length", "max-deviation": "maximum absolute deviation"}[
-        test
-    ]
-    return f"{name} on {'L(r)' if fn == 'L' else 'g(r)'}"
-
-
-def scales_rows(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
-    """One row per plot for ``scales.csv`` (columns :data:`SCALES_COLUMNS`, then cross)."""
-    rows = []
-    for res in results:
-        row = {
-            "plot_id": res.plot_id,
-            "n": res.n,
-            "global_test": _test_label(res.global_test, res.test_function) if res.curves else "",
-            "p_global": res.p_global,
-            "clustered_ranges_m": format_ranges(res.clustered_ranges_m),
-            "regular_ranges_m": format_ranges(res.regular_ranges_m),
-            "verdict": res.verdict,
-            "test_function": res.test_function,
-            "max_distance_m": res.max_distance_m,
-            "bandwidth_m": res.bandwidth_m,
-            "simulations": res.simulations,
-            "warnings": "; ".join(res.warnings),
-        }
-        if res.cross is not None or res.kinds_verdict:
-            c = res.cross
-            row.update(
-                {
-                    "kind_a": c.label_a if c else "",
-                    "kind_b": c.label_b if c else "",
-                    "n_a": c.n_a if c else None,
-                    "n_b": c.n_b if c else None,
-                    "p_kinds": c.L_between_kinds.pvalue if c else None,
-                    "p_kind_difference": c.D.pvalue if c else None,
-                    "kinds_verdict": res.kinds_verdict,
-                }
-            )
-        if res.habitat is not None:
-            from ecoscan.habitat import habitat_row
-
-            row.update(habitat_row(res.habitat))
-        rows.append(row)
-    return rows
-
-
-def _curve_rows(plot_id: str, c: FunctionCurve, alpha: float) -> list[dict[str, Any]]:
-    e = c.envelope
-    nan = np.full(c.r_m.size, np.nan)
-    lo, hi = (e.band_low, e.band_high) if e is not None else (nan, nan)
-    lop, hip = (e.pointwise_low, e.pointwise_high) if e is not None else (nan, nan)
-    if e is None:
-        label = "none"
-    else:
-        label = f"{100 * (1 - alpha):g}% global band, {e.test} test"
-    theo = c.csr_value
-    return [
-        {
-            "plot_id": plot_id,
-            "function": c.name,
-            "distance_m": c.r_m[k],
-            "value": c.value[k],
-            "csr_value": theo[k],
-            "band_low": lo[k],
-            "band_high": hi[k],
-            "pointwise_low": lop[k],
-            "pointwise_high": hip[k],
-            "band": label,
-            "unit": c.unit,
-        }
-        for k in range(c.r_m.size)
-    ]
-
-
-def function_rows(
-    results: Sequence[PlotScales], alpha: float | None = None
-) -> list[dict[str, Any]]:
-    """Long-form rows for ``functions.csv`` (columns :data:`FUNCTION_COLUMNS`).
-
-    ``alpha`` only labels the envelopes; by default each result's own level.
-
-    The bivariate curves appear as ``L_between_kinds`` (m) and ``K_difference`` = K_BB − K_AA
-    (m²), with the mean of the relabellings as ``csr_value`` for L_between_kinds.
-    """
-    rows: list[dict[str, Any]] = []
-    for res in results:
-        a = res.alpha if alpha is None else alpha
-        for c in res.curves.values():
-            rows += _curve_rows(res.plot_id, c, a)
-        if res.cross is not None:
-            x = res.cross
-            rows += _curve_rows(
-                res.plot_id,
-                FunctionCurve(
-                    "L_between_kinds",
-                    "m",
-                    x.r_m,
-                    x.L_between_kinds.value,
-                    x.L_between_kinds.centre,
-                    x.L_between_kinds,
-                ),
-                a,
-            )
-            rows += _curve_rows(
-                res.plot_id,
-                FunctionCurve("K_difference", "m2", x.r_m, x.D.value, x.D.centre, x.D),
-                a,
-            )
-        if res.habitat is not None:
-            from ecoscan.habitat import habitat_curves
-
-            for name, unit, r, env in habitat_curves(res.habitat):
-                rows += _curve_rows(
-                    res.plot_id, FunctionCurve(name, unit, r, env.value, env.centre, env), a
-                )
-    return rows
-
-
-def figure_name(plot_id: str) -> str:
-    """File name of a plot's figure: ``scales_<plot id>.png`` with unsafe characters
-    replaced."""
-    safe = re.sub(r"[^A-Za-z0-9._-]+", "_", plot_id).strip("._") or "plot"
-    return f"scales_{safe}.png"
-
-
-def write_scales(
-    outdir: str | os.PathLike, results: Sequence[PlotScales], settings: ScalesSettings
-) -> list[Path]:
-    """Write ``functions.csv``, ``scales.csv``, ``scales.json`` and one figure per plot.
-
-    Parameters
-    ----------
-    outdir : path-like
-        Output folder (created if needed).
-    results : sequence of PlotScales
-    settings : ScalesSettings
-
-    Returns
-    -------
-    list of pathlib.Path
-        The files written.
-
-    Raises
-    ------
-    InputError
-        When ``outdir`` exists and is not a folder.
-    """
-    from ecoscan.figures.scales import plot_scales_figure
-
-    out = Path(outdir)
-    if out.exists() and not out.is_dir():
-        raise InputError(f"output path {str(out)!r} is a file; give a folder for -o")
-    rows = scales_rows(results)
-    frows = function_rows(results, settings.alpha)
-    cols = SCALES_COLUMNS + [k for r in rows for k in r if k not in SCALES_COLUMNS]
-    cols = list(dict.fromkeys(cols))
-    erows = effect_rows_of(results)
-    paths = [
-        write_csv(out / "functions.csv", frows, FUNCTION_COLUMNS),
-        write_csv(out / "scales.csv", rows, cols),
-        write_json(
-            out / "scales.json",
-            {
-                "settings": settings.to_dict(),
-                "plots": rows,
-                "caution": (
-                    "Automated plant counts need field checks; a significant pattern describes "
-                    "the plot and does not show its cause. Follow local rules and licensed "
-                    "practice before management decisions."
-                ),
-            },
-        ),
-    ]
-    if erows:
-        from ecoscan.habitat import EFFECT_COLUMNS
-
-        paths.append(write_csv(out / "effects.csv", erows, EFFECT_COLUMNS))
-    used: set[str] = set()
-    for res in results:
-        if not res.curves:
-            continue
-        name = figure_name(res.plot_id)
-        while name in used:
-            name = name.replace(".png", "_.png")
-        used.add(name)
-        paths.append(plot_scales_figure(res, out / "figures" / name))
-        if res.habitat is not None:
-            from ecoscan.figures.habitat import plot_habitat_figure
-
-            hab = plot_habitat_figure(res, out / "figures" / name.replace("scales_", "habitat_", 1))
-            if hab is not None:
-                paths.append(hab)
-    return paths
-
-
-def effect_rows_of(results: Sequence[PlotScales]) -> list[dict[str, Any]]:
-    """Rows of ``effects.csv``: each covariate's effect on density, per plot."""
-    from ecoscan.habitat import effect_rows
-
-    return [r for res in results for r in effect_rows(res.plot_id, res.habitat)]
-
-
-# `ecoscan.scales(...)` is the public API function of that name (ecoscan/_callable.py)
-from ecoscan._callable import callable_module  # noqa: E402
-
-callable_module(__name__)

@@ -12,20 +12,18 @@ may be one the detector missed, a "new" one a weed or a double detection.
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
 import shapely
 from pyproj import CRS
 
-from ecoscan.crs import crs_label, transform_xy
 from ecoscan.errors import InputError
-from ecoscan.inputs import assign_plots, one_row_per_plant, overlap_note
-from ecoscan.outputs import write_csv, write_json, write_text
-from ecoscan.points import PointSet
+from ecoscan.io.crs import crs_label, transform_xy
+from ecoscan.io.inputs import assign_plots, one_row_per_plant, overlap_note
+from ecoscan.io.vector import Plot, PlotLayer, reproject_geometries
+from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
@@ -43,81 +41,13 @@ from ecoscan.stats.nearest import nn_distances
 from ecoscan.stats.rates import paired_change_test, wilson_interval
 from ecoscan.stats.shift import ShiftResult
 from ecoscan.stats.shift import estimate_shift as _estimate_shift
-from ecoscan.vector import Plot, PlotLayer, reproject_geometries, write_plots, write_points
 
 __all__ = [
-    "CHANGE_COLUMNS",
-    "CHANGE_SUMMARY_COLUMNS",
-    "PLANT_COLUMNS",
     "ChangeResult",
     "ChangeSettings",
-    "change_rows",
-    "change_summary",
     "detect_change",
-    "write_change",
 ]
 
-#: Columns of ``change.csv`` in order.
-CHANGE_COLUMNS = (
-    "plot_id",
-    "area_m2",
-    "n_earlier",
-    "n_later",
-    "persisting",
-    "lost",
-    "new",
-    "survival",
-    "survival_low95",
-    "survival_high95",
-    "mortality",
-    "recruitment",
-    "density_earlier_per_ha",
-    "density_later_per_ha",
-    "density_change_per_ha",
-    "p_count_change",
-    "R_earlier",
-    "R_later",
-    "R_change",
-    "R_change_se",
-    "z_R_change",
-    "p_R_change",
-    "R_later_null",
-    "p_R_change_mc",
-    "warnings",
-)
-
-#: The columns of ``change.csv`` worth reading first (terminal table and report).
-CHANGE_SUMMARY_COLUMNS = (
-    "plot_id",
-    "n_earlier",
-    "n_later",
-    "persisting",
-    "lost",
-    "new",
-    "survival",
-    "survival_low95",
-    "survival_high95",
-    "density_change_per_ha",
-    "R_earlier",
-    "R_later",
-    "p_R_change_mc",
-)
-
-#: Columns of ``plants.csv`` in order.
-PLANT_COLUMNS = (
-    "plant_id",
-    "status",
-    "plot_id",
-    "x",
-    "y",
-    "x_earlier_m",
-    "y_earlier_m",
-    "x_later_m",
-    "y_later_m",
-    "offset_m",
-    "earlier_row",
-    "later_row",
-)
 
 STATUSES = ("persisting", "lost", "new")
 OVERALL_ID = "all"
@@ -703,109 +633,3 @@ def detect_change(
     )
 
 
-def change_rows(result: ChangeResult, *, overall: bool = True) -> list[dict[str, Any]]:
-    """Per-plot rows of a change result, then the overall row.
-
-    Parameters
-    ----------
-    result : ChangeResult
-        From :func:`detect_change`.
-    overall : bool
-        Append the overall row (``plot_id`` = ``all``).
-
-    Returns
-    -------
-    list of dict
-        Columns :data:`CHANGE_COLUMNS`.
-    """
-    rows = [dict(r) for r in result.plots]
-    if overall:
-        rows.append(dict(result.overall))
-    return rows
-
-
-def change_summary(result: ChangeResult) -> dict[str, Any]:
-    """Everything of a change result that goes into ``change.json``."""
-    sh = result.shift
-    return {
-        "shift_x_m": result.shift_x_m,
-        "shift_y_m": result.shift_y_m,
-        "shift": None
-        if sh is None
-        else {
-            "estimated_x_m": sh.shift_x_m,
-            "estimated_y_m": sh.shift_y_m,
-            "se_x_m": sh.se_x_m,
-            "se_y_m": sh.se_y_m,
-            "pairs": sh.n_pairs,
-            "median_residual_m": sh.residual_m,
-            "iterations": sh.iterations,
-            "converged": sh.converged,
-            "applied": bool(result.shift_x_m != 0.0 or result.shift_y_m != 0.0),
-            "method": "mode of displacement vectors, then iterated median of mutual "
-            "nearest-neighbour residuals",
-        },
-        "counts": result.counts,
-        "parameters": result.parameters,
-        "plots": change_rows(result, overall=False),
-        "overall": result.overall,
-        "notes": result.notes,
-        "warnings": result.warnings,
-        "caution": (
-            "automated counts need field checks before they drive management decisions: a "
-            "lost plant may be a missed detection and a new one a weed or a double detection; "
-            "defer to local rules and licensed practice"
-        ),
-    }
-
-
-def write_change(outdir: str | os.PathLike, result: ChangeResult) -> list[Path]:
-    """Write ``plants.csv``, ``plants.gpkg``, ``change.csv``, ``change.json`` and the map.
-
-    Parameters
-    ----------
-    outdir : path-like
-        Output folder (created if needed).
-    result : ChangeResult
-        From :func:`detect_change`.
-
-    Returns
-    -------
-    list of pathlib.Path
-        The files written (each written atomically).
-    """
-    from ecoscan.figures import save_figure
-    from ecoscan.figures.change import change_map
-
-    out = Path(outdir)
-    coords = ("x", "y", "x_earlier_m", "y_earlier_m", "x_later_m", "y_later_m")
-    rows = result.plant_rows()
-    for r in rows:  # map coordinates to the millimetre, as ecoscan.vector.write_points does
-        for c in coords:
-            r[c] = f"{r[c]:.3f}" if np.isfinite(r[c]) else ""
-    paths = [
-        write_csv(out / "plants.csv", rows, PLANT_COLUMNS),
-        write_points(result.plants_pointset(), out / "plants.gpkg", layer="plants"),
-        write_csv(out / "change.csv", change_rows(result), CHANGE_COLUMNS),
-        write_json(out / "change.json", change_summary(result)),
-    ]
-    if result.crs is not None:
-        paths.append(write_text(out / "plants.prj", result.crs.to_wkt()))
-    if result.layer is not None:
-        paths.append(write_plots(result.layer, out / "plots.gpkg"))
-    fig = change_map(
-        result.x_m,
-        result.y_m,
-        result.status,
-        plots=None if result.layer is None else [p.geometry for p in result.layer.plots],
-        plot_ids=None if result.layer is None else result.layer.ids,
-        shift_m=(result.shift_x_m, result.shift_y_m),
-    )
-    paths.append(save_figure(fig, out / "change_map.png"))
-    return paths
-
-
-# `ecoscan.change(...)` is the public API function of that name (ecoscan/_callable.py)
-from ecoscan._callable import callable_module  # noqa: E402
-
-callable_module(__name__)

@@ -17,7 +17,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 from matplotlib.figure import Figure
 
-from ecoscan.outputs import atomic_path
+from ecoscan.io.outputs import atomic_path
 
 __all__ = [
     "CLASS_COLOURS",

@@ -19,10 +19,10 @@ import pyogrio
 import shapely
 from pyproj import CRS
 
-from ecoscan.crs import crs_label, looks_like_degrees, parse_crs, to_metric, transform_xy
 from ecoscan.errors import InputError
-from ecoscan.outputs import atomic_path, format_value
-from ecoscan.points import PointSet
+from ecoscan.io.crs import crs_label, looks_like_degrees, parse_crs, to_metric, transform_xy
+from ecoscan.io.outputs import atomic_path, format_value
+from ecoscan.model.points import PointSet
 from ecoscan.safety import check_coordinates
 
 __all__ = [

@@ -13,29 +13,21 @@ The method reference, with formulas, constants and sources, is ``docs/methods-di
 from __future__ import annotations
 
 import dataclasses
-import os
-from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
 
-from ecoscan import __version__
-from ecoscan.arguments import as_xy
-from ecoscan.crs import crs_label
-from ecoscan.detectable import (
-    DETECTABLE_COLUMNS,
+from ecoscan.analysis.dispersion.detectable import (
     NO_DEPARTURE,
     Detectable,
     plot_detectable,
     settle_verdict,
     verdict_with_range,
 )
+from ecoscan.arguments import as_xy
 from ecoscan.errors import InputError
-from ecoscan.inputs import SurveyInputs
-from ecoscan.outputs import write_csv, write_json
-from ecoscan.points import PointSet
+from ecoscan.io.inputs import SurveyInputs
 from ecoscan.progress import progress
 from ecoscan.settings import Settings
 from ecoscan.stats.csr import plot_rng
@@ -64,85 +56,19 @@ from ecoscan.stats.quadrat import (
 )
 from ecoscan.stats.spacing import InhibitionDistance, inhibition_distance
 from ecoscan.stats.thomas import ThomasFit, fit_thomas
-from ecoscan.vector import write_plots, write_points
 from ecoscan.vocabulary import RENAMED_VALUES
 
 __all__ = [
     "CAUTION",
-    "DISPERSION_COLUMNS",
-    "EXTRA_COLUMNS",
     "DispersionSettings",
     "PlotDispersion",
     "analyse",
     "analyse_plot",
-    "check_outdir",
-    "dispersion_rows",
     "donnelly_strip_warning",
     "plain_summary",
     "plot_rng",
-    "write_analysis",
 ]
 
-#: Required columns of ``dispersion.csv``, in order (results-folder convention).
-DISPERSION_COLUMNS: tuple[str, ...] = (
-    "plot_id",
-    "n",
-    "area_m2",
-    "density_per_ha",
-    "mean_nn_m",
-    "expected_nn_m",
-    "R",
-    "z",
-    "p",
-    "R_donnelly",
-    "z_donnelly",
-    "p_donnelly",
-    "p_mc",
-    "verdict",
-    "quadrat_size_m",
-    "quadrat_chi2",
-    "quadrat_df",
-    "quadrat_p",
-    "vmr",
-    "morisita",
-    "morisita_std",
-    "warnings",
-)
-
-#: Further columns that follow the required ones.
-EXTRA_COLUMNS: tuple[str, ...] = (
-    "perimeter_m",
-    "expected_nn_donnelly_m",
-    "expected_nn_mc_m",
-    "p_mc_clustered",
-    "p_mc_regular",
-    "simulations",
-    "guard_m",
-    "n_guard_focal",
-    "R_guard",
-    "z_guard",
-    "p_guard",
-    "quadrat_p_mc",
-    "quadrat_height_m",
-    "quadrat_cells",
-    "quadrat_low_expected",
-    "n_coincident",
-    "summary",
-    *DETECTABLE_COLUMNS,
-    "verdict_in_words",
-    "pattern_in_metres",
-    "cluster_plants",
-    "cluster_plants_low95",
-    "cluster_plants_high95",
-    "cluster_width_m",
-    "cluster_width_low95_m",
-    "cluster_width_high95_m",
-    "clusters_per_ha",
-    "clusters_per_ha_low95",
-    "clusters_per_ha_high95",
-    "cluster_fit_p",
-    "inhibition_m",
-)
 
 #: Usual caution printed with every result.
 CAUTION = (
@@ -291,8 +217,9 @@ class PlotDispersion:
     verdict : str
         ``'clustered'`` or ``'regular'`` when the Monte Carlo test rejects at ``alpha``;
         otherwise ``'no departure detected'``, or ``'too few plants to tell'`` when the
-        plot's detectable range reaches beyond R 0.6 or 1.5 (:data:`ecoscan.detectable.
-        TELL_LIMITS`); empty when not tested (fewer than 2 plants).
+        plot's detectable range reaches beyond R 0.6 or 1.5
+        (:data:`ecoscan.analysis.dispersion.detectable.TELL_LIMITS`); empty when not tested
+        (fewer than 2 plants).
     guard_m, quadrat_m : float
         The guard width and quadrat side used, metres.
     n_coincident : int
@@ -756,7 +683,7 @@ def analyse(
     Parameters
     ----------
     inputs : SurveyInputs
-        Points and plots in one metric CRS (:func:`ecoscan.inputs.load_points_and_plots`).
+        Points and plots in one metric CRS (:func:`ecoscan.io.inputs.load_points_and_plots`).
     settings : DispersionSettings, optional
         Parameters (default: :class:`DispersionSettings()`).
 
@@ -775,93 +702,3 @@ def analyse(
     return out
 
 
-def dispersion_rows(results: Iterable[PlotDispersion]) -> list[dict[str, Any]]:
-    """Table rows, one per plot: :data:`DISPERSION_COLUMNS` in order, then the extras."""
-    return [r.row() for r in results]
-
-
-def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    from ecoscan.inputs import points_by_plot
-
-    return points_by_plot(inputs.points, inputs.layer, inputs.membership)
-
-
-def check_outdir(outdir: str | os.PathLike) -> Path:
-    """Refuse an output path that exists and is not a folder (before anything is written)."""
-    p = Path(outdir)
-    if p.exists() and not p.is_dir():
-        raise InputError(f"output path {str(p)!r} is a file; give a folder for the results")
-    return p
-
-
-def write_analysis(
-    outdir: str | os.PathLike,
-    inputs: SurveyInputs,
-    results: Sequence[PlotDispersion],
-    settings: DispersionSettings,
-    *,
-    notes: Sequence[str] = (),
-) -> list[Path]:
-    """Write the results folder of an analysis.
-
-    Parameters
-    ----------
-    outdir : path-like
-        Folder to write into (created if needed).
-    inputs : SurveyInputs
-        The analysed points and plots.
-    results : sequence of PlotDispersion
-        From :func:`analyse`.
-    settings : DispersionSettings
-        The parameters used (recorded in ``dispersion.json``).
-    notes : sequence of str
-        Notes for the reader (reprojection, points left out...).
-
-    Returns
-    -------
-    list of pathlib.Path
-        ``dispersion.csv``, ``dispersion.json``, ``points.csv``, ``points.prj`` (when the CRS
-        is known) and ``plots.gpkg``, each written atomically.
-    """
-    out = check_outdir(outdir)
-    rows = dispersion_rows(results)
-    columns = list(DISPERSION_COLUMNS) + list(EXTRA_COLUMNS)
-    json_rows = []
-    for res, r in zip(results, rows, strict=True):
-        jr = dict(r)
-        jr["warnings"] = list(res.warnings)
-        json_rows.append(jr)
-    doc = {
-        "ecoscan_version": __version__,
-        "command": "analyse",
-        "parameters": settings.to_dict(),
-        "crs": crs_label(inputs.points.crs),
-        "crs_wkt": inputs.points.crs.to_wkt() if inputs.points.crs is not None else None,
-        "methods": {
-            "verdict": "Monte Carlo rank test of the mean nearest-neighbour distance in the "
-            "exact plot polygon (Besag & Diggle 1977), with sequential stopping after "
-            "stop_after simulations as extreme in each tail (Besag & Clifford 1991)",
-            "R": "Clark & Evans (1954), no edge correction",
-            "R_donnelly": "Donnelly (1978): E = 0.5 sqrt(A/n) + (0.0514 + 0.041/sqrt(n)) P/n, "
-            "Var = 0.0703 A/n^2 + 0.037 P sqrt(A/n^5)",
-            "R_guard": "guard zone: focal points at least guard_m inside the edge; p_guard "
-            "ranks the focal mean among the same simulated patterns as p_mc",
-            "quadrat": "Pearson X^2 on a grid of equal cells fitted to the plot and clipped "
-            "to it, two-sided p; quadrat_p_mc and the morisita_std limits from a multinomial "
-            "simulation",
-        },
-        "notes": list(notes),
-        "caution": CAUTION,
-        "columns": columns,
-        "plots": json_rows,
-    }
-    pts = _analysed_points(inputs)
-    written = [
-        write_csv(out / "dispersion.csv", rows, columns),
-        write_json(out / "dispersion.json", doc),
-        write_points(pts, out / "points.csv"),
-    ]
-    if pts.crs is not None:
-        written.append(out / "points.prj")
-    written.append(write_plots(inputs.layer, out / "plots.gpkg"))
-    return written

@@ -16,8 +16,8 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ecoscan.figures import FIGURE_DPI, save_figure
-from ecoscan.figures.scales import _panel, _shift
+from ecoscan.report.figures import FIGURE_DPI, save_figure
+from ecoscan.report.figures.scales import _panel, _shift
 
 __all__ = ["plot_habitat_figure"]
 
@@ -29,7 +29,7 @@ def plot_habitat_figure(
 
     Parameters
     ----------
-    result : ecoscan.scales.PlotScales
+    result : ecoscan.analysis.scales.compute.PlotScales
         The plot's result, with ``habitat`` set.
     path : path-like
         Destination PNG.

@@ -17,27 +17,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ecoscan.crs import crs_label, transform_xy
+from ecoscan.analysis.validation.columns import COLUMNS
 from ecoscan.errors import InputError
-from ecoscan.inputs import assign_plots
-from ecoscan.points import PointSet
+from ecoscan.io.crs import crs_label, transform_xy
+from ecoscan.io.inputs import assign_plots
+from ecoscan.io.vector import PlotLayer, reproject_geometries
+from ecoscan.model.points import PointSet
 from ecoscan.stats.matching import match_points
-from ecoscan.vector import PlotLayer, reproject_geometries
 
 __all__ = ["COLUMNS", "AccuracyRow", "accuracy", "align_points", "validate_points"]
-
-#: Output columns, in order.
-COLUMNS = (
-    "plot_id",
-    "tp",
-    "fp",
-    "fn",
-    "precision",
-    "recall",
-    "f1",
-    "count_error",
-    "mean_offset_m",
-)
 
 
 @dataclass(frozen=True)

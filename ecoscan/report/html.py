@@ -11,8 +11,8 @@ from pathlib import Path
 from typing import Any
 
 from ecoscan import __version__
-from ecoscan.detectable import NO_DEPARTURE, VERDICTS
-from ecoscan.outputs import write_text
+from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, VERDICTS
+from ecoscan.io.outputs import write_text
 from ecoscan.vocabulary import COLUMNS, format_cell, label
 
 __all__ = [

@@ -30,13 +30,12 @@ import pyogrio
 import shapely
 from scipy import stats as sps
 
-from ecoscan.analysis import DONNELLY_MIN_HALF_WIDTH, donnelly_strip_warning
-from ecoscan.crs import crs_label, parse_crs
-from ecoscan.detectable import NO_DEPARTURE
+from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE
 from ecoscan.errors import InputError
-from ecoscan.inputs import PlotMembership
-from ecoscan.outputs import write_csv, write_json
-from ecoscan.points import PointSet
+from ecoscan.io.crs import crs_label, parse_crs
+from ecoscan.io.inputs import PlotMembership
+from ecoscan.io.vector import PlotLayer, read_points, reproject_geometries
+from ecoscan.model.points import PointSet
 from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
     PlotNN,
@@ -50,24 +49,16 @@ from ecoscan.stats.csr import keyed_rng, run_seed
 from ecoscan.stats.nn_distribution import nn_distribution_test
 from ecoscan.stats.paired import paired_sign_flip_test
 from ecoscan.stats.rates import holm_adjust, poisson_rate_test
-from ecoscan.vector import PlotLayer, read_points, reproject_geometries
 
 __all__ = [
     "BY_CHOICES",
-    "GROUP_COLUMNS",
-    "GROUP_SUMMARY_COLUMNS",
-    "PAIR_COLUMNS",
     "CompareSettings",
     "ComparisonResult",
     "PlotUnit",
     "ResultsTable",
     "compare_groups",
-    "comparison_rows",
-    "group_rows",
-    "pair_summary_columns",
     "read_results",
     "results_from_points",
-    "write_comparison",
 ]
 
 BY_CHOICES = ("auto", "site", "date", "plot", "folder")
@@ -118,132 +109,6 @@ class CompareSettings(Settings):
         if not whole_number(self.seed) or self.seed < 0:
             raise InputError(f"seed must be a whole number >= 0 (got {self.seed!r})")
 
-
-#: The group columns worth reading first (terminal table and report).
-GROUP_SUMMARY_COLUMNS = (
-    "rank_regularity",
-    "group",
-    "n_plots",
-    "n",
-    "density_per_ha",
-    "mean_nn_m",
-    "R",
-    "R_low95",
-    "R_high95",
-    "R_donnelly",
-    "R_donnelly_low95",
-    "R_donnelly_high95",
-    "verdict",
-)
-
-
-def pair_summary_columns(n_pairs: int, *, paired: bool = False) -> tuple[str, ...]:
-    """The pair columns worth reading first; Holm-adjusted p-values when there are several.
-
-    ``paired``: the groups are dates of the same plots; the paired tests come first.
-    """
-    sfx = "_holm" if n_pairs > 1 else ""
-    if paired:
-        return (
-            "group_a",
-            "group_b",
-            "paired_plots",
-            "density_diff_paired_per_ha",
-            f"p_density_paired{sfx}",
-            "R_diff_paired",
-            f"p_R_paired{sfx}",
-        )
-    return (
-        "group_a",
-        "group_b",
-        "density_diff_per_ha",
-        f"p_density{sfx}",
-        "R_diff",
-        "R_donnelly_diff",
-        f"p_R_donnelly_diff{sfx}",
-        f"p_R_perm{sfx}",
-        f"p_nn_distribution{sfx}",
-    )
-
-
-#: Columns of ``groups.csv`` (one row per group) in order.
-GROUP_COLUMNS = (
-    "group",
-    "rank_regularity",
-    "n_plots",
-    "n",
-    "area_m2",
-    "density_per_ha",
-    "mean_nn_m",
-    "expected_nn_m",
-    "R",
-    "R_se",
-    "R_low95",
-    "R_high95",
-    "z",
-    "p",
-    "R_donnelly",
-    "R_donnelly_se",
-    "R_donnelly_low95",
-    "R_donnelly_high95",
-    "verdict",
-    "warnings",
-)
-
-#: Columns of ``comparison.csv`` (one row per pair of groups) in order.
-PAIR_COLUMNS = (
-    "group_a",
-    "group_b",
-    "n_a",
-    "n_b",
-    "area_a_m2",
-    "area_b_m2",
-    "density_a_per_ha",
-    "density_b_per_ha",
-    "density_diff_per_ha",
-    "density_ratio",
-    "density_ratio_low95",
-    "density_ratio_high95",
-    "p_density",
-    "R_a",
-    "R_b",
-    "R_diff",
-    "R_diff_se",
-    "z_R_diff",
-    "p_R_diff",
-    "R_donnelly_a",
-    "R_donnelly_b",
-    "R_donnelly_diff",
-    "R_donnelly_diff_se",
-    "z_R_donnelly_diff",
-    "p_R_donnelly_diff",
-    "p_R_perm",
-    "perm_arrangements",
-    "perm_exact",
-    "mw_u",
-    "p_mw",
-    "ks_d",
-    "p_ks",
-    "nn_distribution_gap",
-    "p_nn_distribution",
-    "nn_distribution_arrangements",
-    "paired_plots",
-    "density_diff_paired_per_ha",
-    "p_density_paired",
-    "R_diff_paired",
-    "p_R_paired",
-    "paired_arrangements",
-    "p_density_holm",
-    "p_R_diff_holm",
-    "p_R_donnelly_diff_holm",
-    "p_R_perm_holm",
-    "p_mw_holm",
-    "p_ks_holm",
-    "p_nn_distribution_holm",
-    "p_density_paired_holm",
-    "p_R_paired_holm",
-    "warnings",
-)
 
 _P_COLUMNS = (
     "p_density",
@@ -343,7 +208,7 @@ def _read_dispersion(path: Path) -> list[dict[str, str]]:
 def _read_plot_geoms(path: Path, points_crs) -> dict[tuple[str, str], shapely.Geometry]:
     """Plot outlines keyed by (site, plot_id); site '' when the layer has no site field.
 
-    Not :func:`ecoscan.vector.read_plots`, which rightly refuses repeated plot ids in user
+    Not :func:`ecoscan.io.vector.read_plots`, which rightly refuses repeated plot ids in user
     input: a survey's ``plots.gpkg`` may hold plot ``P1`` of several sites, told apart by a
     ``site`` field. The outlines were validated when the analysis wrote them.
     """
@@ -478,7 +343,7 @@ def results_from_points(
     label : str
         Name of this set of results (the group name for ``by='folder'``).
     membership : PlotMembership, optional
-        Which plots hold which points (:func:`ecoscan.inputs.assign_plots`).
+        Which plots hold which points (:func:`ecoscan.io.inputs.assign_plots`).
 
     Returns
     -------
@@ -933,118 +798,3 @@ def compare_groups(
     return ComparisonResult(by, groups, pairs, notes, params, paired)
 
 
-def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
-    """One row per group (columns :data:`GROUP_COLUMNS`), ranked from most regular (1)."""
-    rs = [g.r.statistic for g in result.groups]
-    order = sorted(range(len(rs)), key=lambda i: -(rs[i] if math.isfinite(rs[i]) else -math.inf))
-    rank = {i: k + 1 for k, i in enumerate(order)}
-    rows = []
-    for i, g in enumerate(result.groups):
-        lo, hi = g.r.ci()
-        dlo, dhi = _label_interval(g.r)
-        if not (math.isfinite(g.r.statistic_donnelly) and g.r.se_donnelly > 0):
-            dlo = dhi = float("nan")
-        warn = []
-        if g.n < 30:
-            warn.append("fewer than 30 plants")
-        narrow = [
-            u.plot_id
-            for u in g.units
-            if math.isfinite(u.nn.perimeter_m)
-            and donnelly_strip_warning(u.nn.n, u.nn.area_m2, u.nn.perimeter_m)
-        ]
-        if narrow:
-            # measured: the label rejects 98% of random patterns in a 400 x 5 m strip at
-            # n = 30 (docs/validity.md); Donnelly's correction does not hold there
-            warn.append(
-                f"verdict approximate: plot(s) {', '.join(narrow[:5])} narrower than "
-                f"{DONNELLY_MIN_HALF_WIDTH:g} plant spacings, where Donnelly's edge "
-                "correction fails; use each plot's Monte Carlo test"
-            )
-        rows.append(
-            {
-                "group": g.name,
-                "rank_regularity": rank[i],
-                "n_plots": len(g.units),
-                "n": g.n,
-                "area_m2": g.area_m2,
-                "density_per_ha": g.density_per_ha,
-                "mean_nn_m": g.r.mean_nn_m,
-                "expected_nn_m": g.r.expected_nn_m,
-                "R": g.r.statistic,
-                "R_se": g.r.se,
-                "R_low95": lo,
-                "R_high95": hi,
-                "z": g.r.z,
-                "p": g.r.pvalue,
-                "R_donnelly": g.r.statistic_donnelly,
-                "R_donnelly_se": g.r.se_donnelly,
-                "R_donnelly_low95": dlo,
-                "R_donnelly_high95": dhi,
-                "verdict": _pattern(g.r),
-                "warnings": "; ".join(warn),
-            }
-        )
-    return rows
-
-
-def comparison_rows(result: ComparisonResult) -> list[dict[str, Any]]:
-    """One row per pair of groups (columns :data:`PAIR_COLUMNS`)."""
-    return [{k: p.get(k, "") for k in PAIR_COLUMNS} for p in result.pairs]
-
-
-def write_comparison(outdir: str | os.PathLike, result: ComparisonResult) -> list[Path]:
-    """Write ``comparison.csv``, ``groups.csv``, ``comparison.json`` and ``comparison.png``.
-
-    Parameters
-    ----------
-    outdir : path-like
-        Output folder (created if needed).
-    result : ComparisonResult
-        From :func:`compare_groups`.
-
-    Returns
-    -------
-    list of pathlib.Path
-        The files written (each atomically).
-    """
-    from ecoscan.figures import save_figure
-    from ecoscan.figures.compare import r_by_group
-
-    out = Path(outdir)
-    groups = group_rows(result)
-    pairs = comparison_rows(result)
-    fig = r_by_group(
-        [g["group"] for g in groups],
-        np.array([g["R"] for g in groups], float),
-        np.array([g["R_low95"] for g in groups], float),
-        np.array([g["R_high95"] for g in groups], float),
-        r_donnelly=np.array([g["R_donnelly"] for g in groups], float),
-        by=result.by,
-    )
-    return [
-        write_csv(out / "comparison.csv", pairs, PAIR_COLUMNS),
-        write_csv(out / "groups.csv", groups, GROUP_COLUMNS),
-        write_json(
-            out / "comparison.json",
-            {
-                "by": result.by,
-                "groups": groups,
-                "pairs": pairs,
-                "notes": result.notes,
-                "parameters": result.parameters,
-                "caution": (
-                    "automated detections need field checks before differences between sites "
-                    "or dates drive management decisions; defer to local rules and licensed "
-                    "practice"
-                ),
-            },
-        ),
-        save_figure(fig, out / "comparison.png"),
-    ]
-
-
-# `ecoscan.compare(...)` is the public API function of that name (ecoscan/_callable.py)
-from ecoscan._callable import callable_module  # noqa: E402
-
-callable_module(__name__)

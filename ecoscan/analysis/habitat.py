@@ -149,7 +149,7 @@ def covariate_surfaces(
     from rasterio.warp import Resampling, reproject, transform_bounds
     from rasterio.windows import Window, from_bounds
 
-    from ecoscan.crs import looks_like_degrees
+    from ecoscan.io.crs import looks_like_degrees
 
     x0, y0, x1, y1 = polygon.bounds
     cell = float(cell_m)
@@ -565,7 +565,7 @@ EFFECT_COLUMNS = [
 
 
 def _ranges(ranges: Sequence[tuple[float, float]]) -> str:
-    from ecoscan.scales import format_ranges
+    from ecoscan.analysis.scales.compute import format_ranges
 
     return format_ranges(ranges)
 

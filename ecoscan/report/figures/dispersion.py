@@ -13,8 +13,8 @@ from matplotlib.patches import PathPatch
 from matplotlib.path import Path as MplPath
 from scipy import stats as sps
 
-from ecoscan.detectable import NO_DEPARTURE, TOO_FEW
-from ecoscan.figures import PALETTE, new_figure, save_figure
+from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW
+from ecoscan.report.figures import PALETTE, new_figure, save_figure
 from ecoscan.stats.nearest import CE_SE_CONSTANT, MIN_POINTS_ADVISED, R_HEXAGONAL
 
 __all__ = [
@@ -167,7 +167,7 @@ def _class_backdrop(ax, image: np.ndarray, extent) -> list:
     from matplotlib.colors import ListedColormap
     from matplotlib.patches import Patch
 
-    from ecoscan.figures import CLASS_COLOURS
+    from ecoscan.report.figures import CLASS_COLOURS
 
     vals = image[np.isfinite(image)]
     classes = [int(v) for v in np.unique(vals)][: len(CLASS_COLOURS)]

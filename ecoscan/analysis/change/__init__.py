@@ -1,0 +1,1 @@
+"""Change between two surveys: persisting, lost and new plants per plot."""

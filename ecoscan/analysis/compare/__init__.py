@@ -1,0 +1,1 @@
+"""Comparison of groups of plots (sites, dates, plots): density and spacing, every pair."""

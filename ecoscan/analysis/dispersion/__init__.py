@@ -1,0 +1,1 @@
+"""Per-plot dispersion: Clark–Evans R with edge corrections, the Monte Carlo test, quadrats."""

@@ -1,0 +1,1 @@
+"""Validation of detections against reference points: matches, precision, recall."""
