@@ -241,10 +241,9 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
             ce, se = np.cos(np.radians(40)) / np.sqrt(2), np.sin(np.radians(40))
             lit = 0.3 + 1.1 * np.clip(-ce * nx - ce * ny + se * nz, 0, None)
         if style == "domes":  # leaf clumps and gaps at two scales
-            clump = 1 + 0.3 * gen.standard_normal(sx.shape).astype(np.float32)
-            clump = ndimage.gaussian_filter(clump, 1.2) * (
-                1 + 0.25 * np.clip(ndimage.gaussian_filter(
-                    gen.standard_normal(sx.shape).astype(np.float32), 3.5) * 6, -1.5, 1.5))
+            fine = 1 + 0.3 * gen.standard_normal(sx.shape).astype(np.float32)
+            coarse = ndimage.gaussian_filter(gen.standard_normal(sx.shape).astype(np.float32), 3.5)
+            clump = ndimage.gaussian_filter(fine, 1.2) * (1 + 0.25 * np.clip(6 * coarse, -1.5, 1.5))
             clump = np.clip(clump, 0.3, 1.8)
         elif style == "conifers":  # coarse needle texture: strong, fine-grained
             clump = 1 + 0.5 * gen.standard_normal(sx.shape).astype(np.float32)
