@@ -163,3 +163,89 @@ def test_closed_canopy_detection_tiled_equals_whole_and_is_recorded(tmp_path):
     # the split finds most crowns here (the blob path found about a quarter)
     m = match_points(whole.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
     assert m.n_matched / sc.n > 0.6
+
+
+# --- calibrated detectors: the [crown_split] table --------------------------------------
+
+
+def _two_dome_raster(tmp_path):
+    from rasterio.transform import from_origin
+
+    from ecoscan.synthetic import write_geotiff
+
+    # a row of touching domes 28 px across (1.4 m at 0.05 m pixels), grey values in 8 bits
+    centres = [(30.0 + 28.0 * i, 40.0) for i in range(4)]
+    img = _domes((80, 150), centres, 14.0)
+    grey = np.clip(60 + 150 * img, 0, 255).astype(np.uint8)
+    rgb = np.stack([grey, grey, grey])
+    path = write_geotiff(
+        tmp_path / "domes.tif", rgb, from_origin(500000.0, 4100000.0, 0.05, 0.05), "EPSG:32633"
+    )
+    return path, centres
+
+
+def _detector(split):
+    from ecoscan.detect.detector_file import CalibratedDetector
+
+    return CalibratedDetector(
+        "layer", "brightness", ("red", "green", "blue"), "uint8", 0.05, 1.2, 1.6,
+        1.0, -1e9, 60.0, split=split,
+    )  # fmt: skip
+
+
+def test_crown_split_round_trips_through_the_detector_file_and_detects(tmp_path):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect.detector_file import read_detector, to_toml, write_detector
+
+    split = {"h": 2.0, "min_peak": 100.0, "smooth_share": 0.35, "min_area_share": 0.25}
+    toml = tmp_path / "det.toml"
+    write_detector(toml, _detector(split))
+    assert "[crown_split]" in to_toml(_detector(split))
+    assert "format_version = 2" in toml.read_text()
+    back = read_detector(toml)
+    assert back.split == split
+    # a detector without the split still writes version 1 (older readers accept it)
+    assert "format_version = 1" in to_toml(_detector({}))
+    raster, centres = _two_dome_raster(tmp_path)
+    res = detect_raster(raster, DetectionSettings(detector=str(toml)))
+    assert res.thresholds["crown_split"] == split
+    cols = np.sort((res.points.x - 500000.0) / 0.05 - 0.5)
+    # one point per dome, each within a pixel of its centre (pixel 0 is centred at 0.5)
+    assert cols.size == 4
+    assert np.abs(cols - np.array([c for c, _ in centres])).max() < 1.0
+
+
+def test_impossible_crown_split_table_is_refused(tmp_path):
+    from ecoscan.detect.detector_file import read_detector, write_detector
+    from ecoscan.errors import InputError
+
+    toml = tmp_path / "det.toml"
+    write_detector(toml, _detector({"h": 2.0, "min_peak": 100.0, "smooth_share": 0.35,
+                                    "min_area_share": 0.25}))  # fmt: skip
+    toml.write_text(toml.read_text().replace("h = 2.0", "h = -1.0"))
+    with pytest.raises(InputError, match=r"crown_split"):
+        read_detector(toml)
+
+
+def test_split_scoring_counts_crowns_by_fold():
+    import shapely
+
+    from ecoscan.detect.calibration import _score_split, _Window
+
+    # a probability map of touching crowns that blobs would merge: two folds (left, right)
+    centres = [(30.0 + 28.0 * i, 40.0) for i in range(4)]
+    prob = _domes((80, 150), centres, 14.0).clip(0, None)
+    fold_map = np.zeros(prob.shape, int)
+    fold_map[:, 75:] = 1
+    ref = np.array(centres)
+    w = _Window(
+        plot=0, c0=0, r0=0, c1=150, r1=80, data=np.zeros((1, 80, 150)),
+        valid=np.ones(prob.shape, bool), poly_px=shapely.box(0, 0, 150, 80), ref=ref,
+        ref_fold=np.array([0, 0, 1, 1]), fold_map=fold_map, ref_index=np.arange(4),
+    )  # fmt: skip
+    got = _score_split([prob], [w], 2, 5.0, 24.0, 32.0)
+    assert got is not None
+    score, split = got
+    # every crown found in its own fold, nothing else
+    assert (score.tp, score.fp, score.fn) == (4, 0, 0)
+    assert split["h"] > 0 and set(split) == {"h", "min_peak", "smooth_share", "min_area_share"}
