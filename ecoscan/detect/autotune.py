@@ -30,8 +30,11 @@ from scipy import ndimage
 from ecoscan.detect.blobs import (
     DISC_RESPONSE,
     BlobScales,
-    detect_blobs,
+    blob_pyramid,
+    level_masks,
     prune_blobs,
+    pyramid_blobs,
+    pyramid_spread,
     response_spread,
 )
 from ecoscan.detect.engine import compose_layer
@@ -164,12 +167,31 @@ def robust_centre_scale(values: np.ndarray) -> tuple[float, float]:
     >>> robust_centre_scale(np.array([1.0, 2.0, 3.0, 4.0, 100.0]))
     (3.0, 1.4826)
     """
-    v = np.asarray(values, float)
+    v = np.asarray(values)
+    if v.dtype not in (np.float32, np.float64):
+        v = v.astype(float)
     if v.size == 0:
         return 0.0, 0.0
-    med = float(np.median(v))
-    mad = float(np.median(np.abs(v - med)))
+    med = _median(v)
+    # float32 values stay float32 (half the memory traffic of a float64 copy); the
+    # deviations then differ from float64 ones by at most a float32 rounding (~1e-7)
+    mad = _median(np.abs(v - med))
     return med, _MAD_TO_SD * mad
+
+
+def _median(v: np.ndarray) -> float:
+    """The median as ``numpy.median`` of the values in float64 gives it, to the bit.
+
+    Selecting the middle order statistics (``numpy.partition``) in the values' own dtype
+    gives the same elements as in float64 (the conversion is exact and keeps the order);
+    the two middle ones are averaged in float64 as ``numpy.median`` does.
+    """
+    n = v.size
+    k = n // 2
+    if n % 2:
+        return float(np.partition(v, k)[k])
+    part = np.partition(v, (k - 1, k))
+    return (float(part[k - 1]) + float(part[k])) / 2.0
 
 
 def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
@@ -240,12 +262,90 @@ def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
     return mask
 
 
-def _candidates(layers, windows, scales, floor, fill):
-    """All blob candidates in the windows' cores (pruned per window)."""
+class _WindowCache:
+    """What the layer choice computes once per sample window and reuses for every layer.
+
+    Attributes
+    ----------
+    valid_levels : list of dict
+        Valid pixels of each window halved to every pyramid level.
+    core_valid : list of numpy.ndarray
+        Valid pixels in each window's core.
+    edges : list of list
+        Per window, the DoG pyramid of the invalid-pixel indicator with 1 beyond the
+        window's edges: the filters are linear, so raising the fill value (invalid pixels
+        and beyond the edges) by ``d`` raises every response by ``d`` times this one.
+    inner : list of numpy.ndarray
+        Valid pixels whose 3 × 3 neighbourhood is valid (for :func:`pixel_noise`).
+    """
+
+    def __init__(self, windows: list[SampleWindow], scales: BlobScales) -> None:
+        self.windows = windows
+        self.scales = scales
+        self.valid_levels = [level_masks(w.valid, scales) for w in windows]
+        self.core_valid = []
+        self.edges = []
+        self.inner = []
+        for w in windows:
+            core = np.zeros(w.valid.shape, dtype=bool)
+            core[w.core] = True
+            self.core_valid.append(core & w.valid)
+            self.edges.append(blob_pyramid((~w.valid).astype(np.float32), scales, 1.0))
+            self.inner.append(ndimage.binary_erosion(w.valid, iterations=1, border_value=0))
+        self._white: dict[int, np.ndarray] = {}
+
+    def white_spread(self, shape: tuple[int, int]) -> np.ndarray:
+        """:func:`_white_spread` for this many pixels, computed once."""
+        side = int(min(max(shape), 512))
+        if side not in self._white:
+            self._white[side] = _white_spread(self.scales, shape)
+        return self._white[side]
+
+
+class _LayerPyramids:
+    """One candidate layer in every sample window, with its DoG pyramids kept.
+
+    The pyramids are computed once, with invalid pixels (and the area beyond each window)
+    filled with ``fill``; responses for another fill value come from the window's edge
+    pyramid (:class:`_WindowCache`), so the rounds of background estimation filter nothing
+    again.
+    """
+
+    def __init__(self, layers: list[np.ndarray], cache: _WindowCache, fill: float) -> None:
+        self.layers = layers
+        self.cache = cache
+        self.fill = fill
+        self.pyramids = [
+            blob_pyramid(
+                np.where(w.valid, lay, np.float32(fill)).astype(np.float32), cache.scales, fill
+            )
+            for lay, w in zip(layers, cache.windows, strict=True)
+        ]
+        self._noise: float | None = None
+
+    def noise(self) -> float:
+        """Median over the windows of the pixel noise (:func:`pixel_noise`), computed once."""
+        if self._noise is None:
+            self._noise = float(
+                np.median(
+                    [
+                        pixel_noise(lay, w.valid, inner)
+                        for lay, w, inner in zip(
+                            self.layers, self.cache.windows, self.cache.inner, strict=True
+                        )
+                    ]
+                )
+            )
+        return self._noise
+
+
+def _candidates(lp: _LayerPyramids, floor):
+    """All blob candidates in the windows' cores (pruned per window), at the fill value
+    the pyramids were made with."""
     out = {k: [] for k in ("w", "row", "col", "sigma", "response", "value")}
-    for wi, (layer, win) in enumerate(zip(layers, windows, strict=True)):
-        img = np.where(win.valid, layer, np.float32(fill)).astype(np.float32)
-        found = detect_blobs(img, scales, floor, -np.inf, win.valid, background=fill)
+    scales = lp.cache.scales
+    for wi, win in enumerate(lp.cache.windows):
+        found = pyramid_blobs(lp.pyramids[wi], scales, floor, -np.inf, lp.cache.valid_levels[wi])
         ys, xs = win.core
         inside = (
             (found["row"] >= ys.start - 0.5)
@@ -265,23 +365,24 @@ def _candidates(layers, windows, scales, floor, fill):
     return {k: np.concatenate(v) if v else np.empty(0) for k, v in out.items()}
 
 
-def _spreads(layers, windows, scales, masks, fill, clearances=None):
-    """Response spread per scale over the masked pixels of all windows (pooled median)."""
+def _spreads(lp: _LayerPyramids, masks, fill, clearances=None):
+    """Response spread per scale over the masked pixels of all windows (pooled median),
+    with invalid pixels and the area beyond the windows filled with ``fill``."""
     per = []
-    clearances = clearances or [None] * len(layers)
-    for lay, win, mask, clear in zip(layers, windows, masks, clearances, strict=True):
-        img = np.where(win.valid, lay, np.float32(fill)).astype(np.float32)
-        core = np.zeros(mask.shape, dtype=bool)
-        core[win.core] = True
+    cache = lp.cache
+    clearances = clearances or [None] * len(lp.layers)
+    shift = float(fill) - float(lp.fill)
+    for wi, (mask, clear) in enumerate(zip(masks, clearances, strict=True)):
+        sel = mask & cache.core_valid[wi]
         per.append(
-            response_spread(
-                img,
-                scales,
-                mask & core & win.valid,
-                fill,
+            pyramid_spread(
+                lp.pyramids[wi],
+                cache.scales,
+                level_masks(sel, cache.scales),
                 clearance=clear,
                 clearance_sigmas=CLEARANCE,
                 min_pixels=MIN_SPREAD_PX if clear is not None else 1,
+                shift=(shift, cache.edges[wi]) if shift != 0.0 else None,
             )
         )
     stack = np.vstack(per)
@@ -296,14 +397,15 @@ def _spreads(layers, windows, scales, masks, fill, clearances=None):
     )
 
 
-def pixel_noise(layer: np.ndarray, valid: np.ndarray) -> float:
+def pixel_noise(layer: np.ndarray, valid: np.ndarray, inner: np.ndarray | None = None) -> float:
     """Standard deviation of pixel noise by Immerkær's Laplacian-difference estimator.
 
     Immerkær, J. (1996). Fast noise variance estimation. Computer Vision and Image
     Understanding 64: 300-302: σ = √(π/2) · mean |I ∗ N| / 6 with
     N = [[1, −2, 1], [−2, 4, −2], [1, −2, 1]], which cancels smooth structure (crowns,
     gradients), so the estimate holds where plants cover most of the image. The mean is
-    taken over valid interior pixels.
+    taken over valid interior pixels (``inner``, the valid pixels eroded by one pixel,
+    computed when not given).
 
     Examples
     --------
@@ -313,11 +415,11 @@ def pixel_noise(layer: np.ndarray, valid: np.ndarray) -> float:
     >>> round(pixel_noise(img, np.ones(img.shape, bool)), 1)
     2.0
     """
-    from scipy import ndimage
 
     kern = np.array([[1, -2, 1], [-2, 4, -2], [1, -2, 1]], np.float32)
     conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
-    inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
+    if inner is None:  # valid pixels whose 3 x 3 neighbourhood is valid
+        inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
     if not inner.any():
         return 0.0
     return float(math.sqrt(math.pi / 2.0) * conv[inner].mean() / 6.0)
@@ -373,15 +475,15 @@ def _scale_index(scales: BlobScales, sigma: np.ndarray) -> np.ndarray:
     return np.clip(i, 0, scales.sigmas.size - 1)
 
 
-def _background_share(layers, windows, cand, spread) -> float:
+def _background_share(windows, cand, spread) -> float:
     """Share of valid pixels farther than ``EXCLUDE`` radii from every candidate whose
     response reaches ``RESPONSE_MADS`` × ``spread`` (its own scale's)."""
     strong = cand["response"] >= RESPONSE_MADS * spread
     free = total = 0
-    for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+    for wi, win in enumerate(windows):
         sel = strong & (cand["w"] == wi)
         covered = _disc_mask(
-            lay.shape,
+            win.valid.shape,
             cand["row"][sel],
             cand["col"][sel],
             EXCLUDE * math.sqrt(2) * cand["sigma"][sel],
@@ -391,38 +493,49 @@ def _background_share(layers, windows, cand, spread) -> float:
     return free / max(total, 1)
 
 
-def _score_layer(layers, windows, scales):
-    vals = np.concatenate([lay[w.valid] for lay, w in zip(layers, windows, strict=True)])
-    m0, s0 = robust_centre_scale(vals)
+def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
+    """Background statistics, thresholds and separation score of one layer.
+
+    ``vals`` (the layer's valid pixels, all windows) and ``centre`` (their
+    :func:`robust_centre_scale`) may be passed when already computed.
+    """
+    windows, scales = cache.windows, cache.scales
+    if vals is None:
+        vals = np.concatenate([lay[w.valid] for lay, w in zip(layers, windows, strict=True)])
+    m0, s0 = centre if centre is not None else robust_centre_scale(vals)
     if not s0 > 0:
         s0 = float(np.std(vals)) or 1e-6
+    # every DoG pyramid of this layer, filtered once (see _LayerPyramids)
+    lp = _LayerPyramids(layers, cache, m0)
     all_px = [w.valid for w in windows]
-    sr0 = _spreads(layers, windows, scales, all_px, m0)
+    sr0 = _spreads(lp, all_px, m0)
     # a dense stand (see DENSE_BACKGROUND): the crowns inflate the spread of all pixels so
     # much that the rounds below would never exclude them; start from pixel noise instead
-    noise = float(
-        np.median([pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)])
-    )
-    sr_noise = TEXTURE * noise * _white_spread(scales, layers[0].shape)
+    noise = lp.noise()
+    sr_noise = TEXTURE * noise * cache.white_spread(layers[0].shape)
     dense = False
     if noise > 0 and np.any(sr_noise < sr0):
         low = np.minimum(sr0, sr_noise)
-        cand = _candidates(layers, windows, scales, 0.5 * low, m0)
+        cand = _candidates(lp, 0.5 * low)
         spread_low = low[_scale_index(scales, cand["sigma"])]
-        dense = _background_share(layers, windows, cand, spread_low) < DENSE_BACKGROUND
+        dense = _background_share(windows, cand, spread_low) < DENSE_BACKGROUND
     if dense:
         sr0 = low
     else:
-        cand = _candidates(layers, windows, scales, 0.5 * sr0, m0)
+        cand = _candidates(lp, 0.5 * sr0)
     si = _scale_index(scales, cand["sigma"])
     # background: pixels away from candidates that stand out (their discs and the ring the
     # filters spread around them), found in two rounds as the noise estimate improves
     m, s, sr = m0, s0, sr0
     closed = False
+    last = None
     for _round in range(ROUNDS):
         strong = cand["response"] >= RESPONSE_MADS * sr[si]
         if not dense:
             strong &= cand["value"] >= m
+        if last is not None and np.array_equal(strong, last):
+            break  # the same background as the last round: its statistics would repeat
+        last = strong
         # the widest exclusion that leaves enough background; closed canopy leaves little
         for factor in (EXCLUDE, 1.0, 0.6):
             bg_masks, bg_vals, clears = [], [], []
@@ -451,10 +564,7 @@ def _score_layer(layers, windows, scales):
             # crowns cover most of the image: background statistics are contaminated by
             # them; the response noise comes from the pixel noise instead, with room for
             # texture inside crowns
-            noise = np.median(
-                [pixel_noise(lay, w.valid) for lay, w in zip(layers, windows, strict=True)]
-            )
-            sr = TEXTURE * noise * _white_spread(scales, layers[0].shape)
+            sr = TEXTURE * lp.noise() * cache.white_spread(layers[0].shape)
             m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
             break
         m1, s1 = clipped_centre_scale(bg) if dense else robust_centre_scale(bg)
@@ -463,9 +573,9 @@ def _score_layer(layers, windows, scales):
         m, s = m1, s1
         if dense:
             # scales without enough clear background keep the nearest smaller one's spread
-            sr = _fill_scales(_spreads(layers, windows, scales, bg_masks, m, clears), sr_noise)
+            sr = _fill_scales(_spreads(lp, bg_masks, m, clears), sr_noise)
         else:
-            sr = _spreads(layers, windows, scales, bg_masks, m)
+            sr = _spreads(lp, bg_masks, m)
     kk = response_mads(scales)
     q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s
@@ -488,6 +598,19 @@ def _score_layer(layers, windows, scales):
         "candidates": n_kept,
         "closed": closed,
     }
+
+
+def _weighted_sum(parts: list[np.ndarray], terms) -> np.ndarray:
+    """``compose_layer`` from base layers already computed (the same float32 operations)."""
+    out: np.ndarray | None = None
+    for part, (_name, w) in zip(parts, terms, strict=True):
+        layer = part * np.float32(w) if w != 1.0 else part.copy()
+        if out is None:
+            out = layer
+        else:
+            out += layer
+    assert out is not None
+    return out
 
 
 def choose_layer(
@@ -533,19 +656,34 @@ def choose_layer(
     options = options or candidate_layers(roles)
     scores: dict[str, float] = {}
     best: tuple | None = None
+    cache = _WindowCache(windows, scales)
+    # base layers, their valid pixels and robust centre and scale: computed once, shared
+    # by the single-layer options and the weights of the combined ones
+    base: dict[str, tuple[list[np.ndarray], np.ndarray, tuple[float, float]]] = {}
+
+    def base_of(name: str):
+        if name not in base:
+            single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
+            vals = np.concatenate([s[w.valid] for s, w in zip(single, windows, strict=True)])
+            base[name] = (single, vals, robust_centre_scale(vals))
+        return base[name]
+
     for opt in options:
         if len(opt) == 1:
             terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
+            layers, vals, centre = base_of(opt[0])
+            res = _score_layer(layers, cache, vals, centre)
         else:
             ws = []
             for name in opt:
-                single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
-                vals = np.concatenate([s[w.valid] for s, w in zip(single, windows, strict=True)])
-                _m, sd = robust_centre_scale(vals)
+                _m, sd = base_of(name)[2]
                 ws.append((name, 1.0 / sd if sd > 0 else 1.0))
             terms = tuple(ws)
-        layers = [compose_layer(w.data, roles, terms) for w in windows]
-        res = _score_layer(layers, windows, scales)
+            layers = [
+                _weighted_sum([base_of(n)[0][i] for n, _w in terms], terms)
+                for i in range(len(windows))
+            ]
+            res = _score_layer(layers, cache)
         label = "+".join(opt)
         scores[label] = round(res["separation"], 3)
         if best is None or res["separation"] > best[2]["separation"]:

@@ -26,9 +26,13 @@ from scipy.spatial import cKDTree
 
 __all__ = [
     "BlobScales",
+    "blob_pyramid",
     "blob_scales",
     "detect_blobs",
+    "level_masks",
     "prune_blobs",
+    "pyramid_blobs",
+    "pyramid_spread",
     "response_spread",
     "split_merged",
 ]
@@ -157,18 +161,32 @@ def _scale_space_maxima(
     over the whole stack.
     """
     _m, h, w = resp.shape
-    cand = resp[1:-1] >= min_response
+    mid = resp[1:-1]
+    cand = mid >= min_response
     cand &= valid[None]
+    # the four edge neighbours in the same scale, compared over whole rows and columns
+    # (cheap, and most non-maxima fail one of them); at the array's edge the repeated
+    # neighbour is the pixel itself, which never fails the test
+    cand[:, :, :-1] &= mid[:, :, :-1] >= mid[:, :, 1:]
+    cand[:, :, 1:] &= mid[:, :, 1:] >= mid[:, :, :-1]
+    cand[:, :-1] &= mid[:, :-1] >= mid[:, 1:]
+    cand[:, 1:] &= mid[:, 1:] >= mid[:, :-1]
     zi, yi, xi = np.nonzero(cand)
     zi = zi + 1
     v = resp[zi, yi, xi]
+    # the other neighbours gathered for the few pixels left (rows and columns clamped once)
+    rows = {0: yi, -1: np.maximum(yi - 1, 0), 1: np.minimum(yi + 1, h - 1)}
+    cols = {0: xi, -1: np.maximum(xi - 1, 0), 1: np.minimum(xi + 1, w - 1)}
+    flat = resp.reshape(-1)
+    keep = np.arange(zi.size)
     for dz, dy, dx in _NEIGHBOURS:
-        if zi.size == 0:
+        if keep.size == 0:
             break
-        nb = resp[zi + dz, np.clip(yi + dy, 0, h - 1), np.clip(xi + dx, 0, w - 1)]
-        ok = v >= nb
-        zi, yi, xi, v = zi[ok], yi[ok], xi[ok], v[ok]
-    return zi, yi, xi
+        if dz == 0 and (dy == 0 or dx == 0):
+            continue  # compared above
+        nb = flat[((zi[keep] + dz) * h + rows[dy][keep]) * w + cols[dx][keep]]
+        keep = keep[v[keep] >= nb]
+    return zi[keep], yi[keep], xi[keep]
 
 
 def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
@@ -208,6 +226,104 @@ def _pyramid(img, scales: BlobScales, valid: np.ndarray, background: float):
         resp = np.stack([(blurs[j] - blurs[j + 1]) * norm for j in range(ext.size)])
         del blurs[-1]
         yield lev, ext, resp, blurs, level_valid, level_img.shape
+
+
+def level_masks(mask: np.ndarray, scales: BlobScales) -> dict[int, np.ndarray]:
+    """A full-resolution mask halved to every pyramid level that computes a scale.
+
+    A coarse pixel is in the mask when every full-resolution pixel it covers is (the same
+    halving the detector applies to its valid pixels).
+    """
+    out: dict[int, np.ndarray] = {}
+    inner = scales.levels[1:-1]
+    m = np.asarray(mask, bool)
+    for lev in range(scales.max_level + 1):
+        if lev > 0:
+            m = _halve_mask(m)
+        if np.any(inner == lev):
+            out[lev] = m
+    return out
+
+
+def blob_pyramid(layer: np.ndarray, scales: BlobScales, background: float = 0.0) -> list[tuple]:
+    """The whole DoG pyramid of a layer, kept in memory for repeated measurements.
+
+    Each entry is ``(level, ext, resp, blurs)`` as computed by :func:`detect_blobs` (which
+    streams the levels instead). Used where one layer is measured many times with
+    different masks (:mod:`ecoscan.detect.autotune`); the stacks of the coarse levels are
+    small, so keeping them costs little.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pyr = blob_pyramid(np.zeros((64, 64), np.float32), blob_scales(3, 6))
+    >>> [lev for lev, *_ in pyr]
+    [1, 2]
+    """
+    img = np.asarray(layer, np.float32)
+    ones = np.ones(img.shape, bool)
+    return [
+        (lev, ext, resp, blurs)
+        for lev, ext, resp, blurs, _v, _s in _pyramid(img, scales, ones, background)
+    ]
+
+
+def _level_spread(
+    out: np.ndarray,
+    lev: int,
+    ext: np.ndarray,
+    resp: np.ndarray,
+    sel_level: np.ndarray,
+    scales: BlobScales,
+    clearance: np.ndarray | None,
+    clearance_sigmas: float,
+    min_pixels: int,
+    shift: tuple[float, np.ndarray] | None = None,
+) -> None:
+    """Fill ``out`` with the response spread of the scales computed on this level."""
+    f = 2**lev
+    for j, e in enumerate(ext):
+        if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == lev:
+            sel = sel_level
+            if clearance is not None:
+                # away from plants by ``clearance_sigmas`` of this scale: the filter
+                # does not see them
+                far = clearance[::f, ::f][: sel.shape[0], : sel.shape[1]]
+                sel = sel & (far >= clearance_sigmas * scales.sigmas[e])
+            v = resp[j][sel]
+            if shift is not None and shift[0] != 0.0:
+                v = v + np.float32(shift[0]) * shift[1][j][sel]
+            if v.size < min_pixels:
+                continue
+            if v.size:
+                med = np.median(v)
+                out[e] = 1.4826 * float(np.median(np.abs(v - med)))
+
+
+def pyramid_spread(
+    pyramid: list[tuple],
+    scales: BlobScales,
+    masks: dict[int, np.ndarray],
+    clearance: np.ndarray | None = None,
+    clearance_sigmas: float = 2.0,
+    min_pixels: int = 1,
+    shift: tuple[float, list[tuple]] | None = None,
+) -> np.ndarray:
+    """:func:`response_spread` measured on a kept pyramid (:func:`blob_pyramid`).
+
+    ``masks`` are the measured pixels per level (:func:`level_masks`). ``shift``
+    ``(d, edge_pyramid)`` adds ``d`` times the stacks of ``edge_pyramid``: the response of
+    the same layer with its fill value (invalid pixels and beyond the edges) raised by
+    ``d``, since the filters are linear (see ``ecoscan.detect.autotune``).
+    """
+    out = np.full(scales.sigmas.size, np.nan)
+    for i, (lev, ext, resp, _blurs) in enumerate(pyramid):
+        sh = None if shift is None else (shift[0], shift[1][i][2])
+        _level_spread(
+            out, lev, ext, resp, masks[lev], scales, clearance, clearance_sigmas, min_pixels, sh
+        )
+    out[0], out[-1] = out[1], out[-2]
+    return out
 
 
 def response_spread(
@@ -262,22 +378,10 @@ def response_spread(
     """
     img = np.asarray(layer, np.float32)
     out = np.full(scales.sigmas.size, np.nan)
-    for _lev, ext, resp, _blurs, level_valid, _shape in _pyramid(img, scales, mask, background):
-        f = 2**_lev
-        for j, e in enumerate(ext):
-            if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == _lev:
-                sel = level_valid
-                if clearance is not None:
-                    # away from plants by ``clearance_sigmas`` of this scale: the filter
-                    # does not see them
-                    far = clearance[::f, ::f][: sel.shape[0], : sel.shape[1]]
-                    sel = sel & (far >= clearance_sigmas * scales.sigmas[e])
-                v = resp[j][sel]
-                if v.size < min_pixels:
-                    continue
-                if v.size:
-                    med = np.median(v)
-                    out[e] = 1.4826 * float(np.median(np.abs(v - med)))
+    for lev, ext, resp, _blurs, level_valid, _shape in _pyramid(img, scales, mask, background):
+        _level_spread(
+            out, lev, ext, resp, level_valid, scales, clearance, clearance_sigmas, min_pixels
+        )
     out[0], out[-1] = out[1], out[-2]
     return out
 
@@ -324,36 +428,66 @@ def detect_blobs(
     img = np.asarray(layer, np.float32)
     if valid is None:
         valid = np.ones(img.shape, dtype=bool)
-    k = scales.k
-    out: dict[str, list[np.ndarray]] = {n: [] for n in ("row", "col", "sigma", "response", "value")}
-    for lev, ext, resp, blurs, level_valid, level_shape in _pyramid(img, scales, valid, background):
-        f = 2**lev
-        if np.ndim(min_response):
-            thr = np.asarray(min_response, np.float32)[ext[1:-1]][:, None, None]
-        else:
-            thr = min_response
-        zi, yi, xi = _scale_space_maxima(resp, thr, level_valid)
-        if zi.size == 0:
-            continue
-        # value: the layer smoothed at the lower blur of the chosen scale, at the centre
-        value = np.empty(zi.size, dtype=np.float32)
-        for z in np.unique(zi):
-            sel = zi == z
-            value[sel] = blurs[z][yi[sel], xi[sel]]
-        ok = value >= min_value
-        zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
-        r = resp[zi, yi, xi]
-        h, w = level_shape
-        dy = _vertex(resp, zi, yi, xi, axis=1, size=h)
-        dx = _vertex(resp, zi, yi, xi, axis=2, size=w)
-        dz = _vertex(resp, zi, yi, xi, axis=0, size=ext.size)
-        sig = scales.sigmas[ext[zi]] * k**dz
-        out["row"].append((yi * f + origin[1]) + ((dy + 0.5) * f - 0.5))
-        out["col"].append((xi * f + origin[0]) + ((dx + 0.5) * f - 0.5))
-        out["sigma"].append(sig)
-        out["response"].append(r)
-        out["value"].append(value)
+    out: dict[str, list[np.ndarray]] = {n: [] for n in _BLOB_FIELDS}
+    for lev, ext, resp, blurs, level_valid, _shape in _pyramid(img, scales, valid, background):
+        _level_maxima(
+            out, lev, ext, resp, blurs, level_valid, scales, min_response, min_value, origin
+        )
     return {n: (np.concatenate(v).astype(float) if v else np.empty(0)) for n, v in out.items()}
+
+
+_BLOB_FIELDS = ("row", "col", "sigma", "response", "value")
+
+
+def pyramid_blobs(
+    pyramid: list[tuple],
+    scales: BlobScales,
+    min_response: float | np.ndarray,
+    min_value: float,
+    masks: dict[int, np.ndarray],
+    origin: tuple[int, int] = (0, 0),
+) -> dict[str, np.ndarray]:
+    """:func:`detect_blobs` on a kept pyramid (:func:`blob_pyramid`).
+
+    ``masks`` are the valid pixels per level (:func:`level_masks`). The result is the same,
+    to the bit, as :func:`detect_blobs` on the layer the pyramid was made from.
+    """
+    out: dict[str, list[np.ndarray]] = {n: [] for n in _BLOB_FIELDS}
+    for lev, ext, resp, blurs in pyramid:
+        _level_maxima(
+            out, lev, ext, resp, blurs, masks[lev], scales, min_response, min_value, origin
+        )
+    return {n: (np.concatenate(v).astype(float) if v else np.empty(0)) for n, v in out.items()}
+
+
+def _level_maxima(out, lev, ext, resp, blurs, level_valid, scales, min_response, min_value, origin):
+    """Append the blobs of one pyramid level to ``out`` (see :func:`detect_blobs`)."""
+    f = 2**lev
+    if np.ndim(min_response):
+        thr = np.asarray(min_response, np.float32)[ext[1:-1]][:, None, None]
+    else:
+        thr = min_response
+    zi, yi, xi = _scale_space_maxima(resp, thr, level_valid)
+    if zi.size == 0:
+        return
+    # value: the layer smoothed at the lower blur of the chosen scale, at the centre
+    value = np.empty(zi.size, dtype=np.float32)
+    for z in np.unique(zi):
+        sel = zi == z
+        value[sel] = blurs[z][yi[sel], xi[sel]]
+    ok = value >= min_value
+    zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
+    r = resp[zi, yi, xi]
+    h, w = resp.shape[1:]
+    dy = _vertex(resp, zi, yi, xi, axis=1, size=h)
+    dx = _vertex(resp, zi, yi, xi, axis=2, size=w)
+    dz = _vertex(resp, zi, yi, xi, axis=0, size=ext.size)
+    sig = scales.sigmas[ext[zi]] * scales.k**dz
+    out["row"].append((yi * f + origin[1]) + ((dy + 0.5) * f - 0.5))
+    out["col"].append((xi * f + origin[0]) + ((dx + 0.5) * f - 0.5))
+    out["sigma"].append(sig)
+    out["response"].append(r)
+    out["value"].append(value)
 
 
 def _vertex(
