@@ -24,7 +24,8 @@ from ecoscan.detect.detector_file import write_detector
 from ecoscan.detect.settings import parse_band_spec
 from ecoscan.errors import InputError
 from ecoscan.io.raster import open_raster
-from ecoscan.io.vector import PlotLayer, read_plots, read_points
+from ecoscan.io.vector import read_plots, read_points
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.synthetic import SCENE_STYLES, make_scene, write_scene
 

@@ -25,7 +25,8 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from browser import browser_session  # noqa: E402
 
-from ecoscan.io.vector import PlotLayer, plots_from_geometries, write_plots  # noqa: E402
+from ecoscan.io.vector import plots_from_geometries, write_plots  # noqa: E402
+from ecoscan.model.plots import PlotLayer  # noqa: E402
 from ecoscan.survey.config import load_survey  # noqa: E402
 from ecoscan.survey.runner import run_survey  # noqa: E402
 

@@ -349,7 +349,7 @@ def main(argv: list[str] | None = None) -> None:
                 layer = res.thresholds.get("layer", res.index)
                 print(
                     f"{style:8} seed {seed}: F1 {f1s[-1]:.3f} (found {res.n}, truth {truth.n}, "
-                    f"layer {layer})",
+                    f"layer {layer}, raise {res.thresholds.get('threshold_raise', 1.0):.2f})",
                     flush=True,
                 )
             print(f"{style:8} mean F1 {np.mean(f1s):.3f}", flush=True)

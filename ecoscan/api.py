@@ -569,7 +569,8 @@ def detect(
 
 def _plot_layer(plots: Any):
     """A PlotLayer from a file, a layer, or polygons (crs None: in the points' own CRS)."""
-    from ecoscan.io.vector import Plot, PlotLayer, read_plots
+    from ecoscan.io.vector import read_plots
+    from ecoscan.model.plots import Plot, PlotLayer
 
     if plots is None or isinstance(plots, PlotLayer):
         return plots

@@ -24,7 +24,8 @@ import scenario as sc  # noqa: E402
 from ecoscan.io.outputs import atomic_path, write_csv, write_text  # noqa: E402
 from ecoscan.model.points import PointSet  # noqa: E402
 from ecoscan.synthetic import render_chm, render_classes, render_orthomosaic  # noqa: E402
-from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points  # noqa: E402
+from ecoscan.model.plots import Plot, PlotLayer
+from ecoscan.io.vector import write_plots, write_points
 
 SEED = 2026
 TANSY_PX = 0.10  # metres

@@ -15,7 +15,8 @@ import shapely
 from rasterio.transform import from_origin
 from scipy import ndimage
 
-from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.io.vector import write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.synthetic import place_crowns, write_geotiff
 

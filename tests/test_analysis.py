@@ -12,8 +12,9 @@ from ecoscan import __version__
 from ecoscan.analysis.dispersion.columns import DISPERSION_COLUMNS, dispersion_rows
 from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse, analyse_plot
 from ecoscan.errors import InputError
-from ecoscan.io.inputs import SurveyInputs, assign_plots
-from ecoscan.io.vector import Plot, PlotLayer
+from ecoscan.io.inputs import SurveyInputs
+from ecoscan.model.membership import assign_plots
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.report.folders import write_analysis
 from ecoscan.stats.csr import uniform_in_polygon

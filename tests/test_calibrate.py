@@ -22,7 +22,8 @@ from ecoscan.detect import DetectionSettings, detect_raster
 from ecoscan.detect.calibration import fold_blocks
 from ecoscan.detect.detector_file import read_detector
 from ecoscan.errors import InputError
-from ecoscan.io.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
+from ecoscan.io.vector import read_plots, read_points, write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.survey.config import load_survey
 

@@ -14,7 +14,8 @@ from ecoscan.analysis.change.compute import detect_change
 from ecoscan.cli import main
 from ecoscan.errors import InputError
 from ecoscan.io.crs import transform_xy
-from ecoscan.io.vector import Plot, PlotLayer, read_points, write_plots, write_points
+from ecoscan.io.vector import read_points, write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.report.folders import write_change
 from ecoscan.stats.csr import uniform_in_polygon

@@ -21,7 +21,8 @@ from ecoscan.analysis.compare.compute import compare_groups, read_results
 from ecoscan.cli import main
 from ecoscan.errors import InputError
 from ecoscan.io.outputs import write_csv
-from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.io.vector import write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.report.folders import write_comparison
 from ecoscan.stats.csr import uniform_in_polygon

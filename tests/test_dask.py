@@ -228,7 +228,8 @@ def test_unreadable_raster_named_in_one_line(cluster, scenes, tmp_path):
 
 
 def _survey(folder: Path, ortho: Path, chm: Path) -> Path:
-    from ecoscan.io.vector import Plot, PlotLayer, write_plots
+    from ecoscan.io.vector import write_plots
+    from ecoscan.model.plots import Plot, PlotLayer
 
     # the orthomosaic spans 28 m x 30 m at 0.05 m, the height model 170 m x 175 m at
     # 0.25 m, both from (X0, Y0) (detect_helpers): two plots on both, two more on the latter

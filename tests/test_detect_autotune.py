@@ -170,3 +170,70 @@ def test_dense_stand_of_touching_crowns_is_found():
     choice = choose_layer([win], ("red", "green", "blue"), blob_scales(5.0, 9.0))
     assert choice.name == "exg"
     assert 0.95 * len(centres) <= choice.candidates <= 1.05 * len(centres)
+
+
+def test_near_shares_count_as_defined():
+    # direct count of the definition (kept: ratio >= t; near: kept and below t*NEAR, or
+    # rejected and at least t/NEAR), one factor at a time, against the vectorised version
+    from ecoscan.detect.autotune import NEAR, near_shares
+
+    rng = np.random.default_rng(21)
+    ratio = np.exp(rng.normal(0.8, 0.7, 400))
+    ok = rng.random(400) > 0.2
+    factors = np.array([1.0, 1.3, 2.0, 3.5])
+    got = near_shares(ratio, ok, factors)
+    for t, g in zip(factors, got, strict=True):
+        r = ratio[ok]
+        kept = int(sum(v >= t for v in r))
+        near = sum((v >= t and v < t * NEAR) or (v < t and v >= t / NEAR) for v in r)
+        assert g == pytest.approx(near / kept)
+
+
+def test_threshold_rises_into_the_gap_between_noise_and_crowns():
+    # invented candidate responses (ratio to the base threshold): rough-ground maxima just
+    # above the threshold (log-normal, median 1.4) and crowns far above (5-12). The factor
+    # must leave the near band [t/NEAR, t*NEAR] nearly empty: above most noise, below every
+    # crown; with only crowns it stays at 1; with a continuum (no gap) the share stays high,
+    # which makes the layer's separation weak
+    from ecoscan.detect.autotune import GAP_SHARE, MAX_RAISE, NEAR, threshold_raise
+
+    rng = np.random.default_rng(17)
+    noise = np.exp(rng.normal(np.log(1.4), 0.2, 150))
+    crowns = rng.uniform(5.0, 12.0, 100)
+    ok = np.ones(250, bool)
+    t, share = threshold_raise(np.r_[noise, crowns], ok)
+    assert share <= GAP_SHARE
+    assert np.quantile(noise, 0.95) < t < 5.0 / NEAR
+    assert threshold_raise(crowns, np.ones(100, bool)) == (1.0, 0.0)
+    continuum = np.exp(rng.uniform(np.log(0.4), np.log(20), 400))
+    t2, share2 = threshold_raise(continuum, np.ones(400, bool))
+    assert 1.0 <= t2 <= MAX_RAISE and share2 > GAP_SHARE
+    # candidates failing the centre-value test never count
+    assert threshold_raise(np.r_[noise, crowns], np.r_[np.zeros(150, bool), np.ones(100, bool)])[
+        0
+    ] == pytest.approx(1.0)
+
+
+def test_chosen_thresholds_carry_the_raise():
+    # the per-scale response thresholds are raise x k(sigma) x background response spread,
+    # and the weak flag follows the share near the raised threshold
+    img, _centres = _scene(ground=(150, 120, 90), crown=(60, 120, 50))
+    win = SampleWindow(img, np.ones(img.shape[1:], bool), (slice(0, 320), slice(0, 320)))
+    sc = blob_scales(8, 20)
+    choice = choose_layer([win], ("red", "green", "blue"), sc)
+    assert choice.threshold_raise >= 1.0
+    ratio = np.asarray(choice.min_response) / response_mads(sc)
+    assert np.all(ratio > 0)
+    assert choice.weak == (choice.near_share > 0.2 or choice.separation < 2.0)
+
+
+def test_report_line_names_a_raised_threshold():
+    # the survey report's one line of detection settings says when the response threshold
+    # was raised, and stays silent at factor 1
+    from ecoscan.detect import describe_settings
+
+    th = {"layer": "exg", "min_contrast": 0.05, "vegetation_threshold": 0.01}
+    plain = describe_settings({"method": "imagery", "thresholds": {**th, "threshold_raise": 1.0}})
+    raised = describe_settings({"method": "imagery", "thresholds": {**th, "threshold_raise": 2.5}})
+    assert "raised" not in plain
+    assert "raised 2.50x" in raised

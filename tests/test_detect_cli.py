@@ -10,7 +10,8 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from ecoscan.cli import build_parser, main
-from ecoscan.io.vector import Plot, PlotLayer, read_points, write_plots, write_points
+from ecoscan.io.vector import read_points, write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.synthetic import write_geotiff
 
 

@@ -8,7 +8,7 @@ from pyproj import CRS
 from rasterio.transform import from_origin
 
 from ecoscan.detect import DetectionSettings, detect_raster
-from ecoscan.io.vector import Plot, PlotLayer
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import place_crowns, render_orthomosaic, write_geotiff
 
@@ -33,6 +33,8 @@ def test_finds_known_crowns_with_high_f1(scene, whole):
     # built from Excess Green and/or darkness (both separate them on this scene)
     assert whole.method == "imagery" and whole.index in ("exg", "darkness", "exg+darkness")
     assert whole.thresholds["layer"] == whole.index
+    # the factor on the noise-based response threshold is recorded (1: it was in a gap)
+    assert whole.thresholds["threshold_raise"] >= 1.0
     assert f1_against(whole.points, truth, 0.25) >= 0.95
 
 

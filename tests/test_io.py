@@ -7,7 +7,8 @@ from pyproj import CRS
 
 from ecoscan.errors import InputError
 from ecoscan.io.inputs import load_points_and_plots
-from ecoscan.io.vector import Plot, PlotLayer, read_plots, read_points, write_plots, write_points
+from ecoscan.io.vector import read_plots, read_points, write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 
 UTM33 = CRS.from_epsg(32633)

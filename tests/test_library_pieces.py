@@ -19,9 +19,9 @@ from rasterio.windows import Window
 from rasterio.windows import bounds as window_bounds
 
 from ecoscan.io.crs import utm_crs_for
-from ecoscan.io.inputs import points_in_plot
 from ecoscan.io.raster import RasterInfo, pixel_to_map, window_polygons
 from ecoscan.io.vector import read_points, write_points
+from ecoscan.model.membership import points_in_plot
 from ecoscan.model.points import PointSet
 from ecoscan.stats.nearest import R_HEXAGONAL, clark_evans
 

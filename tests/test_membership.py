@@ -14,7 +14,8 @@ from ecoscan.analysis.change.columns import change_rows
 from ecoscan.analysis.change.compute import detect_change
 from ecoscan.analysis.validation.compute import validate_points
 from ecoscan.cli import main
-from ecoscan.io.vector import Plot, PlotLayer, write_plots
+from ecoscan.io.vector import write_plots
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 
 UTM = CRS.from_epsg(32633)

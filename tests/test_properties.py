@@ -16,8 +16,10 @@ from shapely import affinity
 
 from ecoscan.analysis.dispersion.compute import DispersionSettings, analyse
 from ecoscan.errors import InputError
-from ecoscan.io.inputs import SurveyInputs, assign_plots
-from ecoscan.io.vector import PlotLayer, plots_from_geometries, read_points
+from ecoscan.io.inputs import SurveyInputs
+from ecoscan.io.vector import plots_from_geometries, read_points
+from ecoscan.model.membership import assign_plots
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.stats.csr import uniform_in_polygon
 from ecoscan.stats.montecarlo import monte_carlo_nn

@@ -11,8 +11,10 @@ from pyproj import CRS
 from ecoscan.analysis.scales.compute import ScalesSettings, analyse_scales, interpret, plot_rng
 from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.io.inputs import assign_plots, load_points_and_plots
-from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.io.inputs import load_points_and_plots
+from ecoscan.io.vector import write_plots, write_points
+from ecoscan.model.membership import assign_plots
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.stats.csr import uniform_in_polygon
 

@@ -6,7 +6,8 @@ import shapely
 from pyproj import CRS
 from rasterio.transform import from_origin
 
-from ecoscan.io.vector import Plot, PlotLayer, write_plots
+from ecoscan.io.vector import write_plots
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.survey.config import load_survey
 from ecoscan.survey.runner import run_survey
 from ecoscan.synthetic import render_orthomosaic, write_geotiff

@@ -11,7 +11,8 @@ from pyproj import CRS
 from ecoscan.analysis.validation.compute import COLUMNS, validate_points
 from ecoscan.cli import main
 from ecoscan.errors import InputError
-from ecoscan.io.vector import Plot, PlotLayer, write_plots, write_points
+from ecoscan.io.vector import write_plots, write_points
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 
 UTM = CRS.from_epsg(32633)

@@ -170,7 +170,8 @@ def test_results_to_stdout_notes_to_stderr_quiet_silences_notes_only(tmp_path, c
     pts.write_text("x,y\n" + "".join(f"{a:.3f},{b:.3f}\n" for a, b in xy))
     from pyproj import CRS
 
-    from ecoscan.io.vector import PlotLayer, plots_from_geometries, write_plots
+    from ecoscan.io.vector import plots_from_geometries, write_plots
+    from ecoscan.model.plots import PlotLayer
 
     recs, _ = plots_from_geometries(list(plots.values()), list(plots))
     plots_file = write_plots(PlotLayer(recs, CRS.from_epsg(32633)), tmp_path / "plots.gpkg")

@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 import re
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -143,13 +143,8 @@ def covariate_surfaces(
         A raster that cannot be read, has no CRS but coordinates in degrees, does not cover
         the plot, or is constant over it.
     """
-    import rasterio
-    from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
     from rasterio.transform import from_origin
-    from rasterio.warp import Resampling, reproject, transform_bounds
-    from rasterio.windows import Window, from_bounds
-
-    from ecoscan.io.crs import looks_like_degrees
+    from rasterio.warp import Resampling, reproject
 
     x0, y0, x1, y1 = polygon.bounds
     cell = float(cell_m)
@@ -164,51 +159,9 @@ def covariate_surfaces(
         label = f"covariate {name} ({path})"
         if not p.is_file():
             raise InputError(f"{label}: the file does not exist; check the path")
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", NotGeoreferencedWarning)
-                with rasterio.open(p) as src:
-                    src_crs = src.crs
-                    b = src.bounds
-                    if src_crs is None:
-                        if src.transform.is_identity:
-                            raise InputError(
-                                f"{label} has no georeferencing; give a GeoTIFF with a CRS "
-                                "and a transform in the plots' coordinates"
-                            )
-                        if looks_like_degrees(
-                            np.array([b.left, b.right]), np.array([b.bottom, b.top])
-                        ):
-                            raise InputError(
-                                f"{label} has no CRS and its coordinates look like degrees; "
-                                "assign its CRS (e.g. gdal_edit.py -a_srs EPSG:4326) or "
-                                "reproject it to the plots' metric CRS"
-                            )
-                    work_crs = src_crs if src_crs is not None else survey_crs
-                    if survey_crs is None or work_crs is None:
-                        pb = (x0, y0, x1, y1)
-                    else:
-                        pb = transform_bounds(survey_crs, work_crs, x0, y0, x1, y1, densify_pts=21)
-                    win = from_bounds(*pb, transform=src.transform)
-                    c0 = max(0, math.floor(win.col_off) - 2)
-                    r0 = max(0, math.floor(win.row_off) - 2)
-                    c1 = min(src.width, math.ceil(win.col_off + win.width) + 2)
-                    r1 = min(src.height, math.ceil(win.row_off + win.height) + 2)
-                    if c1 <= c0 or r1 <= r0:
-                        raise InputError(
-                            f"{label} does not cover plot {plot_id}; give a raster that "
-                            "covers every plot (check its CRS and extent)"
-                        )
-                    w = Window(c0, r0, c1 - c0, r1 - r0)
-                    data = src.read(1, window=w, out_dtype="float64", masked=True)
-                    arr = np.where(np.ma.getmaskarray(data), np.nan, np.ma.getdata(data))
-                    src_tr = src.window_transform(w)
-                    units = _raster_units(src)
-        except InputError:
-            raise
-        except (RasterioIOError, rasterio.errors.RasterioError) as exc:
-            msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-            raise InputError(f"cannot read {label}: {msg}; give a GeoTIFF") from None
+        arr, src_tr, units, work_crs = _covariate_window(
+            p, label, plot_id, survey_crs, (x0, y0, x1, y1)
+        )
         dst = np.full((rows, cols), np.nan)
         same = survey_crs if survey_crs is not None else work_crs
         crs_a = work_crs if work_crs is not None else "EPSG:3857"  # local: same frame both ends
@@ -228,6 +181,71 @@ def covariate_surfaces(
             CovariateSurface(name, units, dst, x0 + cell / 2, y0 + rows * cell - cell / 2, cell)
         )
     return out
+
+
+def _covariate_window(
+    p: Path,
+    label: str,
+    plot_id: str,
+    survey_crs: Any,
+    bounds: tuple[float, float, float, float],
+) -> tuple[np.ndarray, Any, str, Any]:
+    """Read the part of a covariate raster around ``bounds`` (survey CRS), a margin included.
+
+    Returns the values (NaN where masked), their affine transform, the raster's unit and
+    the CRS the values are in.
+    """
+    import rasterio
+    from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
+    from rasterio.warp import transform_bounds
+    from rasterio.windows import Window, from_bounds
+
+    from ecoscan.io.crs import looks_like_degrees
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            with rasterio.open(p) as src:
+                src_crs = src.crs
+                b = src.bounds
+                if src_crs is None:
+                    if src.transform.is_identity:
+                        raise InputError(
+                            f"{label} has no georeferencing; give a GeoTIFF with a CRS "
+                            "and a transform in the plots' coordinates"
+                        )
+                    if looks_like_degrees(np.array([b.left, b.right]), np.array([b.bottom, b.top])):
+                        raise InputError(
+                            f"{label} has no CRS and its coordinates look like degrees; "
+                            "assign its CRS (e.g. gdal_edit.py -a_srs EPSG:4326) or "
+                            "reproject it to the plots' metric CRS"
+                        )
+                work_crs = src_crs if src_crs is not None else survey_crs
+                if survey_crs is None or work_crs is None:
+                    pb = bounds
+                else:
+                    pb = transform_bounds(survey_crs, work_crs, *bounds, densify_pts=21)
+                win = from_bounds(*pb, transform=src.transform)
+                c0 = max(0, math.floor(win.col_off) - 2)
+                r0 = max(0, math.floor(win.row_off) - 2)
+                c1 = min(src.width, math.ceil(win.col_off + win.width) + 2)
+                r1 = min(src.height, math.ceil(win.row_off + win.height) + 2)
+                if c1 <= c0 or r1 <= r0:
+                    raise InputError(
+                        f"{label} does not cover plot {plot_id}; give a raster that "
+                        "covers every plot (check its CRS and extent)"
+                    )
+                w = Window(c0, r0, c1 - c0, r1 - r0)
+                data = src.read(1, window=w, out_dtype="float64", masked=True)
+                arr = np.where(np.ma.getmaskarray(data), np.nan, np.ma.getdata(data))
+                src_tr = src.window_transform(w)
+                units = _raster_units(src)
+    except InputError:
+        raise
+    except (RasterioIOError, rasterio.errors.RasterioError) as exc:
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"cannot read {label}: {msg}; give a GeoTIFF") from None
+    return arr, src_tr, units, work_crs
 
 
 def _sample(surfaces: Sequence[CovariateSurface], xy: np.ndarray) -> np.ndarray:
@@ -410,72 +428,15 @@ def habitat_analysis(
     xy = np.asarray(xy, float).reshape(-1, 2)
     n = xy.shape[0]
     warn: list[str] = []
-    fit = None
-    bw = float("nan")
     res = None
-    grid_out = None
     verdict, clu, reg = "", [], []
-    model = ""
+    model = _IntensityModel()
     if surfaces:
-        grid = quadrature_grid(polygon, None, n)
-        z_dummy = _sample(surfaces, grid.dummy_xy)
-        z_plants = _sample(surfaces, xy)
-        _check_covered(surfaces, covariates, z_dummy, z_plants, plot_id)
-        quad = grid.with_points(xy)
-        fit = fit_intensity(
-            quad,
-            np.vstack([z_plants, z_dummy]),
-            [s.name for s in surfaces],
-            [s.unit for s in surfaces],
-            level=1 - alpha,
-        )
-        model = _join([s.name for s in surfaces])
-        # the linear predictor is bilinear in each cell of the common grid: its largest value
-        # over the plot is at a grid node
-        nodes = np.column_stack([s.values.ravel() for s in surfaces])
-        nodes = nodes[np.all(np.isfinite(nodes), axis=1)]
-        lam_max = float(np.max(fit.intensity(nodes))) * 1.0001
-        lam_dummy = fit.intensity(z_dummy)
-        grid_out = (grid.dummy_xy[:, 0], grid.dummy_xy[:, 1], lam_dummy)
-        ratio = lam_max / (n / polygon.area)
-        if ratio > 200:
-            warn.append(
-                f"the fitted density varies {ratio:.0f}-fold over the plot; the simulations "
-                "behind the test beyond habitat are slow and rest on few plants in places"
-            )
-        beta0 = np.r_[fit.intercept, fit.coefficients]
-        centres = fit.centres
-
-        def fit_pattern(p: np.ndarray) -> np.ndarray:
-            zp = _sample(surfaces, p)
-            q = grid.with_points(p)
-            beta = refit_coefficients(q, np.vstack([zp, z_dummy]), centres, start=beta0)
-            return np.exp(beta[0] + (zp - centres) @ beta[1:])
-
-        def lam_fn(p: np.ndarray) -> np.ndarray:
-            zp = _sample(surfaces, p)
-            return np.where(np.all(np.isfinite(zp), axis=1), fit.intensity(np.nan_to_num(zp)), 0.0)
-
+        model = _covariate_model(xy, polygon, plot_id, surfaces, covariates, alpha, warn)
     elif kernel:
-        from scipy.spatial import cKDTree
-
-        grid = quadrature_grid(polygon, None, n)
-        quad = grid.with_points(xy)
-        ki = kernel_intensity(xy, quad)
-        bw = ki.bandwidth_m
-        model = f"the smoothed density (kernel bandwidth {bw:.1f} m)"
-        lam_dummy = ki.at_quadrature[n:]
-        grid_out = (grid.dummy_xy[:, 0], grid.dummy_xy[:, 1], lam_dummy)
-        lam_max = float(lam_dummy.max()) * 1.0001
-        tree = cKDTree(grid.dummy_xy)
-
-        def fit_pattern(p: np.ndarray) -> np.ndarray:
-            return kernel_intensity(p, grid.with_points(p), bw, points_only=True).at_points
-
-        def lam_fn(p: np.ndarray) -> np.ndarray:
-            return lam_dummy[tree.query(p)[1]]
-
+        model = _kernel_model(xy, polygon)
     if surfaces or kernel:
+        lam_fn, lam_max = model.intensity, model.intensity_max
 
         def simulate(size: int, gen: np.random.Generator) -> np.ndarray:
             return simulate_inhomogeneous(polygon, n, lam_fn, lam_max, size=size, rng=gen)
@@ -483,7 +444,7 @@ def habitat_analysis(
         res = habitat_test(
             xy,
             polygon,
-            fit_pattern,
+            model.fit_pattern,
             simulate,
             max_distance_m,
             steps=steps,
@@ -492,7 +453,9 @@ def habitat_analysis(
             test=test,
             rng=rng_fit,
         )
-        clu, reg, verdict = habitat_verdict(res, model, alpha, clustered_without=clustered_without)
+        clu, reg, verdict = habitat_verdict(
+            res, model.words, alpha, clustered_without=clustered_without
+        )
     mres, mverdict, small, large = None, "", [], []
     if marks is not None and mark:
         if float(np.ptp(marks)) == 0.0:
@@ -514,20 +477,119 @@ def habitat_analysis(
             small, large, mverdict = mark_verdict(mres, alpha)
     return PlotHabitat(
         plot_id,
-        model,
-        fit,
-        bw,
+        model.words,
+        model.fit,
+        model.bandwidth_m,
         res,
         verdict,
         clu,
         reg,
-        grid_out,
+        model.grid,
         mres,
         mverdict,
         small,
         large,
         warn,
         xy,
+    )
+
+
+@dataclass
+class _IntensityModel:
+    """A plot's fitted density: how to refit it to a pattern, evaluate and bound it."""
+
+    words: str = ""  # the model in words ("the smoothed density ...", covariate names)
+    fit: IntensityFit | None = None
+    bandwidth_m: float = float("nan")
+    grid: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None  # x, y, density per m²
+    intensity_max: float = float("nan")
+    fit_pattern: Callable[[np.ndarray], np.ndarray] | None = None
+    intensity: Callable[[np.ndarray], np.ndarray] | None = None
+
+
+def _covariate_model(
+    xy: np.ndarray,
+    polygon: shapely.Geometry,
+    plot_id: str,
+    surfaces: Sequence[CovariateSurface],
+    covariates: Sequence[tuple[str, str]],
+    alpha: float,
+    warn: list[str],
+) -> _IntensityModel:
+    """Density as a log-linear function of the habitat covariates (Berman–Turner fit)."""
+    n = xy.shape[0]
+    grid = quadrature_grid(polygon, None, n)
+    z_dummy = _sample(surfaces, grid.dummy_xy)
+    z_plants = _sample(surfaces, xy)
+    _check_covered(surfaces, covariates, z_dummy, z_plants, plot_id)
+    quad = grid.with_points(xy)
+    fit = fit_intensity(
+        quad,
+        np.vstack([z_plants, z_dummy]),
+        [s.name for s in surfaces],
+        [s.unit for s in surfaces],
+        level=1 - alpha,
+    )
+    # the linear predictor is bilinear in each cell of the common grid: its largest value
+    # over the plot is at a grid node
+    nodes = np.column_stack([s.values.ravel() for s in surfaces])
+    nodes = nodes[np.all(np.isfinite(nodes), axis=1)]
+    lam_max = float(np.max(fit.intensity(nodes))) * 1.0001
+    lam_dummy = fit.intensity(z_dummy)
+    ratio = lam_max / (n / polygon.area)
+    if ratio > 200:
+        warn.append(
+            f"the fitted density varies {ratio:.0f}-fold over the plot; the simulations "
+            "behind the test beyond habitat are slow and rest on few plants in places"
+        )
+    beta0 = np.r_[fit.intercept, fit.coefficients]
+    centres = fit.centres
+
+    def fit_pattern(p: np.ndarray) -> np.ndarray:
+        zp = _sample(surfaces, p)
+        q = grid.with_points(p)
+        beta = refit_coefficients(q, np.vstack([zp, z_dummy]), centres, start=beta0)
+        return np.exp(beta[0] + (zp - centres) @ beta[1:])
+
+    def lam_fn(p: np.ndarray) -> np.ndarray:
+        zp = _sample(surfaces, p)
+        return np.where(np.all(np.isfinite(zp), axis=1), fit.intensity(np.nan_to_num(zp)), 0.0)
+
+    return _IntensityModel(
+        words=_join([s.name for s in surfaces]),
+        fit=fit,
+        grid=(grid.dummy_xy[:, 0], grid.dummy_xy[:, 1], lam_dummy),
+        intensity_max=lam_max,
+        fit_pattern=fit_pattern,
+        intensity=lam_fn,
+    )
+
+
+def _kernel_model(xy: np.ndarray, polygon: shapely.Geometry) -> _IntensityModel:
+    """Density smoothed from the plants themselves (kernel estimate)."""
+    from scipy.spatial import cKDTree
+
+    n = xy.shape[0]
+    grid = quadrature_grid(polygon, None, n)
+    quad = grid.with_points(xy)
+    ki = kernel_intensity(xy, quad)
+    bw = ki.bandwidth_m
+    lam_dummy = ki.at_quadrature[n:]
+    tree = cKDTree(grid.dummy_xy)
+
+    def fit_pattern(p: np.ndarray) -> np.ndarray:
+        return kernel_intensity(p, grid.with_points(p), bw, points_only=True).at_points
+
+    def lam_fn(p: np.ndarray) -> np.ndarray:
+        return lam_dummy[tree.query(p)[1]]
+
+    return _IntensityModel(
+        words=f"the smoothed density (kernel bandwidth {bw:.1f} m)",
+        bandwidth_m=bw,
+        grid=(grid.dummy_xy[:, 0], grid.dummy_xy[:, 1], lam_dummy),
+        intensity_max=float(lam_dummy.max()) * 1.0001,
+        fit_pattern=fit_pattern,
+        intensity=lam_fn,
     )
 
 

@@ -260,5 +260,3 @@ def _design_answers(rows: list[dict], s: PlanSettings, shape: str) -> list[str]:
                 f"{what}: even {rows[-1]['plots']} plots fall short of {s.power:.0%} power"
             )
     return answers
-
-

@@ -33,7 +33,7 @@ from ecoscan.model.points import PointSet
 
 if TYPE_CHECKING:  # worker processes import this package: keep its import light
     from ecoscan.execution import Executor
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.plots import PlotLayer
 
 __all__ = [
     "DetectionResult",
@@ -193,6 +193,8 @@ def describe_settings(meta: dict) -> str:
             f"{th.get('min_contrast', float('nan')):.3g}, centre value at least "
             f"{th.get('vegetation_threshold', float('nan')):.3g}"
         )
+        if th.get("threshold_raise", 1.0) > 1.0:
+            text += f"; response threshold raised {th['threshold_raise']:.2f}x (rough ground)"
         if th.get("weak_separation"):
             text += "; weak separation: check by eye or calibrate"
         return text
@@ -577,6 +579,9 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
 def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
     from ecoscan.detect.autotune import (
+        GAP_SHARE,
+        MAX_RAISE,
+        NEAR,
         REFERENCE_SIGMA_PX,
         RESPONSE_MADS,
         VALUE_MADS,
@@ -623,6 +628,12 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         f"{choice.spread:.4g}): crown contrast at least {choice.min_contrast:.4g}, centre "
         f"value at least {choice.min_value:.4g}"
     )
+    if choice.threshold_raise > 1.0:
+        notes.append(
+            f"response threshold raised {choice.threshold_raise:.2f}x above the background "
+            "noise level: many weak candidates (rough ground, compression blocks or noise) "
+            "sat just above it"
+        )
     if choice.weak:
         notes.append(
             f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit near "
@@ -645,6 +656,13 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
             "over scales shown as disc contrast)"
         ),
         "min_response_by_scale": list(choice.min_response),
+        "threshold_raise": choice.threshold_raise,
+        "threshold_raise_from": (
+            f"lowest factor (1 to {MAX_RAISE:g}) on the background-based response threshold "
+            f"at which at most {GAP_SHARE:g} of the kept candidates sit within a factor "
+            f"{NEAR:g} of it (a gap in the candidates' responses); the factor with the "
+            "smallest such share when none reaches it; chosen once on the sample windows"
+        ),
         "vegetation_threshold": choice.min_value,
         "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
         "near_threshold_share": choice.near_share,
@@ -818,13 +836,8 @@ def detect_raster(
     """
     import shapely
 
-    from ecoscan.io.inputs import (
-        assign_plots,
-        overlap_note,
-        points_by_plot,
-        unsurveyed_note,
-    )
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.membership import assign_plots, overlap_note, points_by_plot, unsurveyed_note
+    from ecoscan.model.plots import PlotLayer
 
     settings = settings or DetectionSettings()
     if workers < 1:

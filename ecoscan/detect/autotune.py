@@ -13,10 +13,14 @@ split of all pixels into two classes. The background is the layer outside the di
 candidates that already stand out, so a few pale crowns on much soil, closed canopy (little
 background) and plants among grass are all judged against what is actually between them.
 
+Where rough ground (grass among soil, JPEG chroma blocks, noise at crowns of a few pixels)
+puts many candidates just above that threshold, it is raised into the gap between them and
+the plants (:func:`threshold_raise`), once per raster.
+
 Pure computation on arrays: :func:`choose_layer` takes sample windows and returns a
-:class:`LayerChoice`. The constants ``RESPONSE_MADS`` and ``VALUE_MADS`` were tuned on the
-tuning scenes of ``benchmarks/tuning_scenes.py`` only (seeds 100-103), never on the
-evaluation suite.
+:class:`LayerChoice`. The constants ``RESPONSE_MADS``, ``VALUE_MADS``, ``MAX_RAISE`` and
+``GAP_SHARE`` were tuned on the tuning scenes of ``benchmarks/tuning_scenes.py`` only
+(seeds 100-103), never on the evaluation suite.
 """
 
 from __future__ import annotations
@@ -44,7 +48,9 @@ __all__ = [
     "SampleWindow",
     "candidate_layers",
     "choose_layer",
+    "near_shares",
     "robust_centre_scale",
+    "threshold_raise",
 ]
 
 #: A blob's response must reach this many background standard deviations (MAD-based) of
@@ -76,6 +82,14 @@ CLEARANCE = 2.0
 #: for texture) instead of from the spread of all pixels, which the many crowns inflate so
 #: much that the rounds never exclude them. Tuned on benchmarks/tuning_scenes.py.
 DENSE_BACKGROUND = 0.15
+#: Largest factor by which the response threshold is raised to sit in a gap of the
+#: candidates' responses (:func:`threshold_raise`). Tuned on benchmarks/tuning_scenes.py.
+MAX_RAISE = 6.0
+#: Grid of factors tried between 1 and ``MAX_RAISE`` (geometric).
+RAISE_STEPS = 25
+#: A threshold sits in a gap when at most this share of the kept candidates is near it.
+#: Tuned on benchmarks/tuning_scenes.py.
+GAP_SHARE = 0.08
 #: Fewest background pixels that measure the response spread at one scale.
 MIN_SPREAD_PX = 200
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
@@ -116,8 +130,8 @@ class LayerChoice:
     spread : float
         1.4826 × MAD of the layer over background pixels (layer units).
     min_response : tuple of float
-        Response threshold per scale: ``RESPONSE_MADS`` × the robust spread of the
-        response over background pixels at that scale.
+        Response threshold per scale: ``threshold_raise`` × k(σ) × the robust spread of
+        the response over background pixels at that scale (:func:`response_mads`).
     min_contrast : float
         The median response threshold expressed as the contrast of a flat disc (layer
         units), for reports.
@@ -125,11 +139,11 @@ class LayerChoice:
         Lowest smoothed layer value at a crown centre: ``background + VALUE_MADS × spread``.
     separation : float
         Score of the layer: median contrast of the kept candidates in background standard
-        deviations, times the share of candidates that are clearly kept or clearly
-        rejected.
+        deviations divided by ``threshold_raise``, times the share of candidates that are
+        clearly kept or clearly rejected.
     near_share : float
         Share of the kept candidates whose response is within a factor ``NEAR`` of the
-        threshold.
+        (raised) threshold.
     candidates : int
         Candidates kept in the sample windows.
     closed : bool
@@ -137,6 +151,9 @@ class LayerChoice:
         from narrow gaps and the centre-value test is off (``min_value`` is −inf).
     scores : dict
         Separation of every layer tried.
+    threshold_raise : float
+        Factor (≥ 1) by which the background-based response threshold was raised to sit in
+        a gap of the candidates' responses (:func:`threshold_raise`).
     """
 
     name: str
@@ -151,6 +168,7 @@ class LayerChoice:
     candidates: int
     scores: dict = field(default_factory=dict)
     closed: bool = False
+    threshold_raise: float = 1.0
 
     @property
     def weak(self) -> bool:
@@ -582,12 +600,14 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     # with little background between crowns (closed canopy) the background median is
     # not the level crowns must exceed: the centre-value test is dropped
     zmin = -np.inf if closed else VALUE_MADS
-    kept = (q >= RESPONSE_MADS) & (z >= zmin)
-    near = kept & (q < RESPONSE_MADS * NEAR)
-    below = ~kept & (q >= RESPONSE_MADS / NEAR) & (z >= zmin)
+    zok = z >= zmin
+    raise_by, near_share = threshold_raise(q / RESPONSE_MADS, zok)
+    t = RESPONSE_MADS * raise_by
+    kept = (q >= t) & zok
     n_kept = int(kept.sum())
-    near_share = float((near.sum() + below.sum()) / max(n_kept, 1))
-    med_q = float(np.median(q[kept])) if n_kept else 0.0
+    # contrast in units of the raised threshold's noise: a layer that needed a raise has a
+    # rougher background than its spread said
+    med_q = float(np.median(q[kept])) / raise_by if n_kept else 0.0
     clear = 1.0 - min(1.0, near_share)
     return {
         "background": m,
@@ -597,6 +617,10 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
         "near_share": near_share,
         "candidates": n_kept,
         "closed": closed,
+        "raise": raise_by,
+        "q": q,
+        "z": z,
+        "zmin": zmin,
     }
 
 
@@ -611,6 +635,70 @@ def _weighted_sum(parts: list[np.ndarray], terms) -> np.ndarray:
             out += layer
     assert out is not None
     return out
+
+
+def near_shares(ratio: np.ndarray, eligible: np.ndarray, factors: np.ndarray) -> np.ndarray:
+    """Share of candidates near the threshold, for each threshold factor.
+
+    A candidate with response ``ratio`` times the base threshold is kept at factor ``t``
+    when ``ratio >= t``. It is *near* the threshold when it is kept and ``ratio < t × NEAR``
+    or rejected and ``ratio >= t / NEAR``. The share is the count near divided by the
+    count kept (candidates that fail other tests, ``eligible`` False, never count).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> r = np.array([1.1, 1.2, 5.0, 6.0, 7.0])
+    >>> near_shares(r, np.ones(5, bool), np.array([1.0, 2.0])).round(3).tolist()
+    [0.4, 0.0]
+    """
+    r = np.asarray(ratio, float)[eligible]
+    t = np.asarray(factors, float)[:, None]
+    kept = r[None] >= t
+    near = (kept & (r[None] < t * NEAR)) | (~kept & (r[None] >= t / NEAR))
+    return near.sum(axis=1) / np.maximum(kept.sum(axis=1), 1)
+
+
+def threshold_raise(ratio: np.ndarray, eligible: np.ndarray) -> tuple[float, float]:
+    """Factor on the noise-based response threshold that puts it in a gap of the candidates.
+
+    The base threshold (``RESPONSE_MADS`` background standard deviations) assumes the
+    background between plants is as smooth everywhere as where it was measured. Rough
+    patches (grass among soil, JPEG chroma blocks, noise maxima at crowns of a few pixels)
+    give many candidates just above it, which shows as a high share of candidates near the
+    threshold. The threshold is then raised, on a geometric grid up to ``MAX_RAISE``, to
+    the lowest factor at which at most ``GAP_SHARE`` of the kept candidates sit near it
+    (a gap in the candidates' responses); when no factor reaches that, the one with the
+    smallest share. Once per raster, from the candidates of the sample windows.
+
+    Parameters
+    ----------
+    ratio : numpy.ndarray
+        Each candidate's response divided by its scale's base threshold.
+    eligible : numpy.ndarray of bool
+        Candidates that pass the other tests (centre value).
+
+    Returns
+    -------
+    (float, float)
+        The factor (1 when the base threshold already sits in a gap) and the share of
+        kept candidates near the raised threshold.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> noise = rng.uniform(1.0, 2.0, 60)       # rough background just above the threshold
+    >>> crowns = rng.uniform(4.0, 9.0, 80)      # plants well above
+    >>> t, share = threshold_raise(np.r_[noise, crowns], np.ones(140, bool))
+    >>> bool(2.0 < t < 4.0 / NEAR and share <= GAP_SHARE)
+    True
+    """
+    grid = np.exp(np.linspace(0.0, math.log(MAX_RAISE), RAISE_STEPS))
+    shares = near_shares(ratio, eligible, grid)
+    ok = np.flatnonzero(shares <= GAP_SHARE)
+    i = int(ok[0]) if ok.size else int(np.argmin(shares))
+    return float(grid[i]), float(shares[i])
 
 
 def choose_layer(
@@ -696,10 +784,13 @@ def choose_layer(
         terms=terms,
         background=m,
         spread=s,
-        min_response=tuple(float(v) for v in response_mads(scales) * res["response_spread"]),
-        min_contrast=float(
-            np.median(response_mads(scales) * res["response_spread"]) / DISC_RESPONSE
+        min_response=tuple(
+            float(v) for v in res["raise"] * response_mads(scales) * res["response_spread"]
         ),
+        min_contrast=float(
+            np.median(res["raise"] * response_mads(scales) * res["response_spread"]) / DISC_RESPONSE
+        ),
+        threshold_raise=res["raise"],
         min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
         closed=res["closed"],
         separation=res["separation"],

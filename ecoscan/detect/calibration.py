@@ -49,7 +49,7 @@ from ecoscan.detect.pixel_model import (
 )
 from ecoscan.errors import InputError
 from ecoscan.io.raster import RasterInfo, read_window
-from ecoscan.io.vector import PlotLayer
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.stats.matching import match_points
 

@@ -16,7 +16,7 @@ import os
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import rasterio
@@ -29,7 +29,7 @@ from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
 
 if TYPE_CHECKING:  # tile workers import this module: keep the vector stack out of them
-    from ecoscan.io.vector import PlotLayer
+    from ecoscan.model.plots import PlotLayer
 
 __all__ = [
     "RasterInfo",
@@ -161,18 +161,43 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     if p.is_dir():
         raise InputError(f"raster path {str(p)!r} is a folder; give the raster file itself")
     notes: list[str] = []
+    info, data_bands, desc = _read_header(text if remote else p, p.name)
+    transform, ps, local = _ground_frame(p.name, info, pixel_size_m, notes)
+    return RasterInfo(
+        # absolute, so that a tile job read elsewhere (another process or a Dask worker
+        # started in another folder) opens the same file
+        path=text if remote else str(p.absolute()),
+        width=info["width"],
+        height=info["height"],
+        count=len(data_bands),
+        dtype=info["dtype"],
+        transform=transform,
+        crs=None if local else info["crs"],
+        pixel_size_m=ps,
+        descriptions=desc,
+        colorinterp=info["colorinterp"],
+        data_bands=data_bands,
+        local=local,
+        notes=notes,
+    )
+
+
+def _read_header(
+    source: str | Path, name: str
+) -> tuple[dict[str, Any], tuple[int, ...], tuple[str, ...]]:
+    """The raster's size, transform, CRS and data bands, checked by reading one pixel."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            with rasterio.open(text if remote else p) as src:
+            with rasterio.open(source) as src:
                 if src.count < 1:
-                    raise InputError(f"{p.name} has no bands")
+                    raise InputError(f"{name} has no bands")
                 # read one pixel at the far corner: catches many truncated files early
                 src.read(1, window=Window(src.width - 1, src.height - 1, 1, 1))
                 ci = tuple(c.name for c in src.colorinterp)
                 data_bands = tuple(i + 1 for i, c in enumerate(ci) if c != "alpha")
                 if not data_bands:
-                    raise InputError(f"{p.name} holds only an alpha band; it has no data")
+                    raise InputError(f"{name} holds only an alpha band; it has no data")
                 desc = tuple((src.descriptions[i - 1] or "").strip().lower() for i in data_bands)
                 info = dict(
                     width=src.width,
@@ -187,9 +212,16 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     except (RasterioIOError, rasterio.errors.RasterioError) as exc:
         msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise InputError(
-            f"cannot read raster {p.name}: {msg}; give a GeoTIFF or another raster GDAL reads "
+            f"cannot read raster {name}: {msg}; give a GeoTIFF or another raster GDAL reads "
             "(the file may be truncated or not a raster)"
         ) from None
+    return info, data_bands, desc
+
+
+def _ground_frame(
+    name: str, info: dict[str, Any], pixel_size_m: float | None, notes: list[str]
+) -> tuple[Affine, float, bool]:
+    """The transform to use, the ground pixel size in metres, and whether it is local."""
     transform: Affine = info["transform"]
     crs: CRS | None = info["crs"]
     georef = not transform.is_identity or crs is not None
@@ -197,7 +229,7 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
     if not georef:
         if pixel_size_m is None:
             raise InputError(
-                f"{p.name} has no georeferencing (no CRS and no pixel size); give "
+                f"{name} has no georeferencing (no CRS and no pixel size); give "
                 "--pixel-size METRES to work in local pixel-based coordinates"
             )
         if not pixel_size_m > 0:
@@ -206,21 +238,21 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
         transform = Affine(ps, 0, 0, 0, -ps, info["height"] * ps)
         local = True
         notes.append(
-            f"{p.name} has no georeferencing; points are in local pixel-based coordinates "
+            f"{name} has no georeferencing; points are in local pixel-based coordinates "
             f"(metres from the lower-left corner, {ps:g} m per pixel)"
         )
     else:
         if pixel_size_m is not None:
-            notes.append(f"--pixel-size is ignored: {p.name} carries its own georeferencing")
+            notes.append(f"--pixel-size is ignored: {name} carries its own georeferencing")
         sx = math.hypot(transform.a, transform.d)
         sy = math.hypot(transform.b, transform.e)
         if crs is None:
             ps = math.sqrt(sx * sy)
-            notes.append(f"{p.name} has no CRS; its map units are taken as metres")
+            notes.append(f"{name} has no CRS; its map units are taken as metres")
         elif crs.is_geographic:
             ps = _ground_pixel_size(transform, crs, info["width"], info["height"])
             notes.append(
-                f"{p.name} is in {crs_label(crs)} (degrees); pixel size taken as {ps:.3g} m at "
+                f"{name} is in {crs_label(crs)} (degrees); pixel size taken as {ps:.3g} m at "
                 "the raster centre and points are reprojected to the local UTM zone"
             )
         else:
@@ -228,30 +260,14 @@ def open_raster(path: str | os.PathLike, *, pixel_size_m: float | None = None) -
             ps = math.sqrt(sx * sy) * f
             if abs(f - 1.0) > 1e-9:
                 notes.append(
-                    f"{p.name} is in {crs_label(crs)} with units of {f:.6g} m; pixel size "
+                    f"{name} is in {crs_label(crs)} with units of {f:.6g} m; pixel size "
                     f"converted to {ps:.3g} m"
                 )
         if not (ps > 0 and math.isfinite(ps)):
-            raise InputError(f"{p.name} has a zero or invalid pixel size; fix its georeferencing")
+            raise InputError(f"{name} has a zero or invalid pixel size; fix its georeferencing")
         if abs(sx - sy) > 0.01 * max(sx, sy):
-            notes.append(f"{p.name} has non-square pixels; the mean pixel size {ps:.3g} m is used")
-    return RasterInfo(
-        # absolute, so that a tile job read elsewhere (another process or a Dask worker
-        # started in another folder) opens the same file
-        path=text if remote else str(p.absolute()),
-        width=info["width"],
-        height=info["height"],
-        count=len(data_bands),
-        dtype=info["dtype"],
-        transform=transform,
-        crs=None if local else crs,
-        pixel_size_m=ps,
-        descriptions=desc,
-        colorinterp=info["colorinterp"],
-        data_bands=data_bands,
-        local=local,
-        notes=notes,
-    )
+            notes.append(f"{name} has non-square pixels; the mean pixel size {ps:.3g} m is used")
+    return transform, ps, local
 
 
 #: GDAL's block cache (default 5 % of RAM) would otherwise grow with the raster while a
@@ -455,7 +471,8 @@ def plots_from_mask(path: str | os.PathLike, *, pixel_size_m: float | None = Non
     import rasterio.features
     import shapely
 
-    from ecoscan.io.vector import PlotLayer, plots_from_geometries, reproject_geometries
+    from ecoscan.io.vector import plots_from_geometries, reproject_geometries
+    from ecoscan.model.plots import PlotLayer
 
     info = open_raster(path, pixel_size_m=pixel_size_m)
     if np.dtype(info.dtype).kind not in "iub":

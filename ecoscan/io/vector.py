@@ -11,7 +11,6 @@ import csv
 import io
 import math
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -22,12 +21,11 @@ from pyproj import CRS
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, looks_like_degrees, parse_crs, to_metric, transform_xy
 from ecoscan.io.outputs import atomic_path, format_value
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.safety import check_coordinates
 
 __all__ = [
-    "Plot",
-    "PlotLayer",
     "plots_from_geometries",
     "read_plots",
     "read_points",
@@ -352,44 +350,6 @@ def write_points(points: PointSet, path: str | os.PathLike, *, layer: str = "poi
 
 
 # ---------------------------------------------------------------------------------- plots
-
-
-@dataclass
-class Plot:
-    """One survey plot.
-
-    Attributes
-    ----------
-    plot_id : str
-        The plot's identifier.
-    geometry : shapely.Polygon or shapely.MultiPolygon
-        The plot outline in the layer's metric CRS (holes allowed).
-    attrs : dict
-        Other fields of the feature.
-    """
-
-    plot_id: str
-    geometry: shapely.Geometry
-    attrs: dict = field(default_factory=dict)
-
-    @property
-    def area_m2(self) -> float:
-        """Plot area in square metres."""
-        return float(self.geometry.area)
-
-
-@dataclass
-class PlotLayer:
-    """Plot polygons in a metric CRS, with notes on how they were read."""
-
-    plots: list[Plot]
-    crs: CRS | None
-    notes: list[str] = field(default_factory=list)
-
-    @property
-    def ids(self) -> list[str]:
-        """Plot ids in layer order."""
-        return [p.plot_id for p in self.plots]
 
 
 def reproject_geometries(geoms, src: CRS, dst: CRS):

@@ -60,7 +60,7 @@ __all__ = [
 
 
 def _analysed_points(inputs: SurveyInputs) -> PointSet:
-    from ecoscan.io.inputs import points_by_plot
+    from ecoscan.model.membership import points_by_plot
 
     return points_by_plot(inputs.points, inputs.layer, inputs.membership)
 
@@ -338,6 +338,7 @@ def write_plan(result: PlanResult, folder: str | os.PathLike) -> list[Path]:
     Examples
     --------
     >>> import shapely, tempfile
+    >>> from ecoscan.analysis.planning import PlanSettings, make_plan
     >>> plan = make_plan({"square": shapely.box(0, 0, 20, 20)},
     ...                  PlanSettings(densities_per_ha=(600.0,), patterns=20))
     >>> [p.name for p in write_plan(plan, tempfile.mkdtemp())]

@@ -37,22 +37,17 @@ from ecoscan import __version__
 from ecoscan.errors import InputError
 from ecoscan.execution import Executor, LocalExecutor
 from ecoscan.io.crs import crs_label
-from ecoscan.io.inputs import (
-    SurveyInputs,
-    assign_plots,
-    one_row_per_plant,
-    points_by_plot,
-    unsurveyed_note,
-)
+from ecoscan.io.inputs import SurveyInputs, one_row_per_plant
 from ecoscan.io.outputs import write_csv, write_json
 from ecoscan.io.vector import (
-    PlotLayer,
     read_plots,
     read_points,
     reproject_geometries,
     write_plots,
     write_points,
 )
+from ecoscan.model.membership import assign_plots, points_by_plot, unsurveyed_note
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.survey.cache import file_sha256, is_fresh, mark_done, settings_key

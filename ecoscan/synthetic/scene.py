@@ -240,7 +240,7 @@ def training_plots(scene: Scene, fraction: float = 0.12):
 
     Returns
     -------
-    ecoscan.io.vector.PlotLayer
+    ecoscan.model.plots.PlotLayer
 
     Examples
     --------
@@ -251,7 +251,7 @@ def training_plots(scene: Scene, fraction: float = 0.12):
     import shapely
     from pyproj import CRS
 
-    from ecoscan.io.vector import Plot, PlotLayer
+    from ecoscan.model.plots import Plot, PlotLayer
 
     x0, y0 = SCENE_ORIGIN
     side = scene.size_px * scene.pixel_size_m

@@ -21,8 +21,10 @@ from pyproj import CRS
 
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, transform_xy
-from ecoscan.io.inputs import assign_plots, one_row_per_plant, overlap_note
-from ecoscan.io.vector import Plot, PlotLayer, reproject_geometries
+from ecoscan.io.inputs import one_row_per_plant
+from ecoscan.io.vector import reproject_geometries
+from ecoscan.model.membership import assign_plots, overlap_note
+from ecoscan.model.plots import Plot, PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.settings import Settings, whole_number
@@ -406,17 +408,7 @@ def detect_change(
     (conservative when most plants persist) and with a Monte Carlo test against random
     mortality and random recruitment that holds the earlier pattern fixed.
     """
-    tol = float(tolerance_m) if tolerance_m is not None else float("nan")
-    if not (math.isfinite(tol) and tol > 0):
-        raise InputError(
-            f"tolerance {tolerance_m} m is not a positive distance; give --tolerance in metres, "
-            "a little above the positional error between the two surveys (e.g. 0.5)"
-        )
-    if int(simulations) < 0:
-        raise InputError(f"--simulations {simulations} is negative; use 0 (skip) or e.g. 199")
-    if earlier.n == 0 or later.n == 0:
-        which = "earlier" if earlier.n == 0 else "later"
-        raise InputError(f"the {which} survey has no plants; check the input file")
+    tol = _checked_tolerance(tolerance_m, simulations, earlier, later)
     seed = run_seed(rng)
     earlier, later = one_row_per_plant(earlier), one_row_per_plant(later)
     notes = list(dict.fromkeys([*earlier.notes, *later.notes]))
@@ -432,160 +424,11 @@ def detect_change(
             f"({spacing:.2f} m, median nearest-neighbour distance): a plant can be within reach "
             "of several others, so matches become ambiguous; use a smaller --tolerance"
         )
-    shift_res = None
-    sx = sy = 0.0
-    if estimate_shift:
-        shift_res = _estimate_shift(a, b, tol, rng=seed)
-        if shift_res.n_pairs < MIN_SHIFT_PAIRS:
-            warnings.append(
-                f"only {shift_res.n_pairs} plants pair up unambiguously, too few to estimate a "
-                "shift between the surveys; no shift was removed"
-            )
-        else:
-            sx, sy = shift_res.shift_x_m, shift_res.shift_y_m
-            notes.append(
-                f"shift between the surveys: {sx:+.3f} m east, {sy:+.3f} m north "
-                f"(from {shift_res.n_pairs} plant pairs); removed before matching"
-            )
-            if shift_res.length_m > tol:
-                warnings.append(
-                    f"the shift between the surveys ({shift_res.length_m:.2f} m) is larger than "
-                    "the tolerance; check the co-registration of the two mosaics"
-                )
-    shift = np.array([sx, sy])
-    m = match_points(a + shift, b, tol)
-    n_p, n_l, n_n = m.n_matched, m.unmatched_a.size, m.unmatched_b.size
-    total = n_p + n_l + n_n
-    status = np.array(["persisting"] * n_p + ["lost"] * n_l + ["new"] * n_n, dtype=object)
-    ea_idx = np.r_[m.index_a, m.unmatched_a].astype(np.int64)
-    nan_p = np.full(n_n, np.nan)
-    nan_l = np.full(n_l, np.nan)
-    xe = np.r_[a[ea_idx, 0], nan_p]
-    ye = np.r_[a[ea_idx, 1], nan_p]
-    xl = np.r_[b[m.index_b, 0], nan_l, b[m.unmatched_b, 0]]
-    yl = np.r_[b[m.index_b, 1], nan_l, b[m.unmatched_b, 1]]
-    xr = np.where(np.isfinite(xe), xe, xl - sx)
-    yr = np.where(np.isfinite(ye), ye, yl - sy)
-    offset = np.r_[m.distance_m, nan_l, nan_p]
-    erow = np.r_[ea_idx + 1.0, nan_p]
-    lrow = np.r_[m.index_b + 1.0, nan_l, m.unmatched_b + 1.0]
-
-    # plot membership in the reference (earlier) frame
-    layer = None
-    plot_list: list[Plot] | None = None
-    window = None
-    if plots is not None:
-        layer = _align_plots(plots, crs, notes)
-        plot_list = layer.plots
-        member = assign_plots(PointSet(xr, yr), layer)
-        ids = np.array([p.plot_id for p in plot_list], dtype=object)
-        first = member.first_plot()
-        # the plants table lists each plant once: all the plots holding it, joined by ';'
-        plot_id = np.r_[ids, [""]].astype(object)[first]
-        for k in np.flatnonzero(member.plots_per_point() > 1):
-            plot_id[k] = ";".join(ids[member.plot[member.point == k]])
-        plot_sel = {}
-        for i, p in enumerate(plot_list):
-            plot_sel[p.plot_id] = np.zeros(total, bool)
-            plot_sel[p.plot_id][member.points_of(i)] = True
-        ov = overlap_note(layer)
-        if ov:
-            warnings.append(ov)
-        outside = int(np.sum(first < 0))
-        if outside == total:
-            raise InputError(
-                "no plant of either survey lies inside any plot; check that --plots covers "
-                "the surveys and shares their CRS"
-            )
-        if outside:
-            notes.append(
-                f"{outside} of {total} plants lie outside every plot: they are listed in the "
-                "plants table with an empty plot_id and left out of the per-plot rows"
-            )
-    elif "plot_id" in earlier.attrs and "plot_id" in later.attrs:
-        pe = np.array([_id_text(v) for v in earlier.attrs["plot_id"]], dtype=object)
-        pl = np.array([_id_text(v) for v in later.attrs["plot_id"]], dtype=object)
-        plot_id = np.r_[pe[ea_idx], pl[m.unmatched_b]].astype(object)
-        only_e = sorted(set(pe) - set(pl) - {""})
-        only_l = sorted(set(pl) - set(pe) - {""})
-        for ids_, when, other in ((only_e, "earlier", "later"), (only_l, "later", "earlier")):
-            if ids_:
-                warnings.append(
-                    f"plot(s) {', '.join(ids_[:8])} appear only in the {when} survey: their "
-                    f"plants count as {'lost' if when == 'earlier' else 'new'}; check that the "
-                    f"{other} survey covered them"
-                )
-        notes.append(
-            "plot membership taken from the plot_id column of the point files; give --plots "
-            "for plot areas, densities and R"
-        )
-    else:
-        plot_id = np.full(total, "", dtype=object)
-        window = shapely.convex_hull(shapely.multipoints(np.column_stack([xr, yr])))
-        if window.area <= 0:
-            raise InputError("the plants lie on a line; give --plots so areas can be measured")
-        notes.append(
-            "no plots given: densities and R use the convex hull of all plants as the window "
-            f"({window.area:.0f} m²); R is biased upward near the hull's edge, give --plots"
-        )
-
-    b_ref = np.column_stack([xl, yl])
-    a_ref = np.column_stack([xe, ye])
-    has_e, has_l = np.isfinite(xe), np.isfinite(xl)
-    survived = status == "persisting"
-    nsim = int(simulations)
-
-    def mc(sel: np.ndarray, geom: shapely.Geometry, unit: str) -> RChangeTest | None:
-        if nsim == 0:
-            return None
-        data = [(a_ref[sel & has_e], survived[sel & has_e], b_ref[sel & has_l], geom)]
-        return r_change_test(data, simulations=nsim, rng=keyed_rng(seed, unit))
-
-    rows: list[dict[str, Any]] = []
-    if plot_list is not None:
-        e_xys, l_xys, tests = [], [], []
-        empty = [p.plot_id for p in plot_list if not np.any(plot_sel[p.plot_id])]
-        if empty:
-            notes.append(
-                f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, or "
-                "outside both surveys) and are left out of the rows and of the overall area"
-            )
-        plot_list = [p for p in plot_list if p.plot_id not in set(empty)]
-        for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
-            sel = plot_sel[p.plot_id]
-            e_xys.append(a_ref[sel & has_e])
-            l_xys.append(b_ref[sel & has_l])
-            tests.append(mc(sel, p.geometry, p.plot_id))
-            r1 = _pooled_r([e_xys[-1]], [p.geometry])
-            r2 = _pooled_r([l_xys[-1]], [p.geometry])
-            rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
-        inside = plot_id != ""
-        geoms = [p.geometry for p in plot_list]
-        overall = _row(
-            OVERALL_ID,
-            float(sum(p.area_m2 for p in plot_list)),
-            status[inside],
-            _pooled_r(e_xys, geoms),
-            _pooled_r(l_xys, geoms),
-            None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
-        )
-    elif window is None:  # plot ids from attributes, no areas
-        nanr = pooled_clark_evans([])
-        parts = [set(str(v).split(";")) - {""} for v in plot_id]
-        for pid in sorted(set().union(*parts)):
-            sel = np.array([pid in q for q in parts], dtype=bool)
-            rows.append(_row(pid, float("nan"), status[sel], nanr, nanr))
-        overall = _row(OVERALL_ID, float("nan"), status, nanr, nanr)
-    else:
-        everything = np.ones(total, bool)
-        overall = _row(
-            OVERALL_ID,
-            float(window.area),
-            status,
-            _pooled_r([a_ref[has_e]], [window]),
-            _pooled_r([b_ref[has_l]], [window]),
-            mc(everything, window, OVERALL_ID),
-        )
+    shift_res = _estimate_shift(a, b, tol, rng=seed) if estimate_shift else None
+    sx, sy = _shift_to_remove(shift_res, tol, notes, warnings)
+    pairs = _pair_plants(a, b, tol, sx, sy)
+    where = _plot_membership(plots, crs, earlier, later, pairs, notes, warnings)
+    rows, overall = _change_table(pairs, where, int(simulations), seed, notes)
     missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]
     if missing:
         warnings.append(
@@ -601,7 +444,7 @@ def detect_change(
         "count_change_test": "exact conditional test of lost vs new (McNemar 1947)",
         "R_change_test": "z test, SE from Clark & Evans (1954), dates taken as independent; "
         "and Monte Carlo test against random losses and uniform recruits (Besag & Diggle 1977)",
-        "simulations": nsim,
+        "simulations": int(simulations),
         "seed": seed,
         "random_streams": "one per plot, SeedSequence([seed, crc32(plot_id)])",
         "typical_spacing_m": spacing,
@@ -612,24 +455,262 @@ def detect_change(
         sy,
         shift_res,
         tol,
-        status.astype(str),
-        xr,
-        yr,
-        xe,
-        ye,
-        xl,
-        yl,
-        offset,
-        erow,
-        lrow,
-        plot_id.astype(str),
+        pairs.status.astype(str),
+        pairs.xr,
+        pairs.yr,
+        pairs.xe,
+        pairs.ye,
+        pairs.xl,
+        pairs.yl,
+        pairs.offset,
+        pairs.erow,
+        pairs.lrow,
+        where.plot_id.astype(str),
         rows,
         overall,
         crs,
-        layer,
+        where.layer,
         notes,
         warnings,
         params,
     )
 
 
+def _checked_tolerance(
+    tolerance_m: float, simulations: int, earlier: PointSet, later: PointSet
+) -> float:
+    """The tolerance as a float, after checking the arguments of :func:`detect_change`."""
+    tol = float(tolerance_m) if tolerance_m is not None else float("nan")
+    if not (math.isfinite(tol) and tol > 0):
+        raise InputError(
+            f"tolerance {tolerance_m} m is not a positive distance; give --tolerance in metres, "
+            "a little above the positional error between the two surveys (e.g. 0.5)"
+        )
+    if int(simulations) < 0:
+        raise InputError(f"--simulations {simulations} is negative; use 0 (skip) or e.g. 199")
+    if earlier.n == 0 or later.n == 0:
+        which = "earlier" if earlier.n == 0 else "later"
+        raise InputError(f"the {which} survey has no plants; check the input file")
+    return tol
+
+
+def _shift_to_remove(
+    shift_res: ShiftResult | None, tol: float, notes: list[str], warnings: list[str]
+) -> tuple[float, float]:
+    """The east and north shift to remove before matching (0, 0 when none is trusted)."""
+    if shift_res is None:
+        return 0.0, 0.0
+    if shift_res.n_pairs < MIN_SHIFT_PAIRS:
+        warnings.append(
+            f"only {shift_res.n_pairs} plants pair up unambiguously, too few to estimate a "
+            "shift between the surveys; no shift was removed"
+        )
+        return 0.0, 0.0
+    sx, sy = shift_res.shift_x_m, shift_res.shift_y_m
+    notes.append(
+        f"shift between the surveys: {sx:+.3f} m east, {sy:+.3f} m north "
+        f"(from {shift_res.n_pairs} plant pairs); removed before matching"
+    )
+    if shift_res.length_m > tol:
+        warnings.append(
+            f"the shift between the surveys ({shift_res.length_m:.2f} m) is larger than "
+            "the tolerance; check the co-registration of the two mosaics"
+        )
+    return sx, sy
+
+
+@dataclass(frozen=True)
+class _Pairs:
+    """Every plant of either date once: persisting, then lost, then new (one array each)."""
+
+    status: np.ndarray  # "persisting" | "lost" | "new"
+    ea_idx: np.ndarray  # earlier row of the persisting and lost plants
+    unmatched_b: np.ndarray  # later row of the new plants
+    xe: np.ndarray  # earlier position (NaN for new plants)
+    ye: np.ndarray
+    xl: np.ndarray  # later position (NaN for lost plants)
+    yl: np.ndarray
+    xr: np.ndarray  # reference position: earlier, else later minus the shift
+    yr: np.ndarray
+    offset: np.ndarray  # distance between the two positions, metres
+    erow: np.ndarray  # 1-based row in the earlier file (NaN for new)
+    lrow: np.ndarray  # 1-based row in the later file (NaN for lost)
+
+
+def _pair_plants(a: np.ndarray, b: np.ndarray, tol: float, sx: float, sy: float) -> _Pairs:
+    """Match the earlier plants ``a`` (shifted by ``sx, sy``) to the later ``b``."""
+    m = match_points(a + np.array([sx, sy]), b, tol)
+    n_p, n_l, n_n = m.n_matched, m.unmatched_a.size, m.unmatched_b.size
+    status = np.array(["persisting"] * n_p + ["lost"] * n_l + ["new"] * n_n, dtype=object)
+    ea_idx = np.r_[m.index_a, m.unmatched_a].astype(np.int64)
+    nan_p = np.full(n_n, np.nan)
+    nan_l = np.full(n_l, np.nan)
+    xe = np.r_[a[ea_idx, 0], nan_p]
+    ye = np.r_[a[ea_idx, 1], nan_p]
+    xl = np.r_[b[m.index_b, 0], nan_l, b[m.unmatched_b, 0]]
+    yl = np.r_[b[m.index_b, 1], nan_l, b[m.unmatched_b, 1]]
+    return _Pairs(
+        status=status,
+        ea_idx=ea_idx,
+        unmatched_b=m.unmatched_b,
+        xe=xe,
+        ye=ye,
+        xl=xl,
+        yl=yl,
+        xr=np.where(np.isfinite(xe), xe, xl - sx),
+        yr=np.where(np.isfinite(ye), ye, yl - sy),
+        offset=np.r_[m.distance_m, nan_l, nan_p],
+        erow=np.r_[ea_idx + 1.0, nan_p],
+        lrow=np.r_[m.index_b + 1.0, nan_l, m.unmatched_b + 1.0],
+    )
+
+
+@dataclass
+class _Membership:
+    """Which plot each plant is in, in the reference (earlier) frame."""
+
+    plot_id: np.ndarray  # per plant: its plot, the plots joined by ';', or ""
+    layer: PlotLayer | None = None
+    plot_list: list[Plot] | None = None
+    plot_sel: dict[str, np.ndarray] = field(default_factory=dict)
+    window: shapely.Geometry | None = None  # convex hull of all plants, without plots
+
+
+def _plot_membership(
+    plots: PlotLayer | None,
+    crs: CRS | None,
+    earlier: PointSet,
+    later: PointSet,
+    pairs: _Pairs,
+    notes: list[str],
+    warnings: list[str],
+) -> _Membership:
+    """Plot membership from the plot polygons, else the ``plot_id`` columns, else the hull."""
+    if plots is not None:
+        return _membership_from_plots(plots, crs, pairs, notes, warnings)
+    if "plot_id" in earlier.attrs and "plot_id" in later.attrs:
+        pe = np.array([_id_text(v) for v in earlier.attrs["plot_id"]], dtype=object)
+        pl = np.array([_id_text(v) for v in later.attrs["plot_id"]], dtype=object)
+        plot_id = np.r_[pe[pairs.ea_idx], pl[pairs.unmatched_b]].astype(object)
+        only_e = sorted(set(pe) - set(pl) - {""})
+        only_l = sorted(set(pl) - set(pe) - {""})
+        for ids_, when, other in ((only_e, "earlier", "later"), (only_l, "later", "earlier")):
+            if ids_:
+                warnings.append(
+                    f"plot(s) {', '.join(ids_[:8])} appear only in the {when} survey: their "
+                    f"plants count as {'lost' if when == 'earlier' else 'new'}; check that the "
+                    f"{other} survey covered them"
+                )
+        notes.append(
+            "plot membership taken from the plot_id column of the point files; give --plots "
+            "for plot areas, densities and R"
+        )
+        return _Membership(plot_id)
+    plot_id = np.full(pairs.status.size, "", dtype=object)
+    window = shapely.convex_hull(shapely.multipoints(np.column_stack([pairs.xr, pairs.yr])))
+    if window.area <= 0:
+        raise InputError("the plants lie on a line; give --plots so areas can be measured")
+    notes.append(
+        "no plots given: densities and R use the convex hull of all plants as the window "
+        f"({window.area:.0f} m²); R is biased upward near the hull's edge, give --plots"
+    )
+    return _Membership(plot_id, window=window)
+
+
+def _membership_from_plots(
+    plots: PlotLayer, crs: CRS | None, pairs: _Pairs, notes: list[str], warnings: list[str]
+) -> _Membership:
+    total = pairs.status.size
+    layer = _align_plots(plots, crs, notes)
+    plot_list = layer.plots
+    member = assign_plots(PointSet(pairs.xr, pairs.yr), layer)
+    ids = np.array([p.plot_id for p in plot_list], dtype=object)
+    first = member.first_plot()
+    # the plants table lists each plant once: all the plots holding it, joined by ';'
+    plot_id = np.r_[ids, [""]].astype(object)[first]
+    for k in np.flatnonzero(member.plots_per_point() > 1):
+        plot_id[k] = ";".join(ids[member.plot[member.point == k]])
+    plot_sel = {}
+    for i, p in enumerate(plot_list):
+        plot_sel[p.plot_id] = np.zeros(total, bool)
+        plot_sel[p.plot_id][member.points_of(i)] = True
+    ov = overlap_note(layer)
+    if ov:
+        warnings.append(ov)
+    outside = int(np.sum(first < 0))
+    if outside == total:
+        raise InputError(
+            "no plant of either survey lies inside any plot; check that --plots covers "
+            "the surveys and shares their CRS"
+        )
+    if outside:
+        notes.append(
+            f"{outside} of {total} plants lie outside every plot: they are listed in the "
+            "plants table with an empty plot_id and left out of the per-plot rows"
+        )
+    return _Membership(plot_id, layer, plot_list, plot_sel)
+
+
+def _change_table(
+    pairs: _Pairs, where: _Membership, nsim: int, seed: int, notes: list[str]
+) -> tuple[list[dict[str, Any]], dict[str, Any]]:
+    """The per-plot rows of ``change.csv`` and the overall row."""
+    status = pairs.status
+    b_ref = np.column_stack([pairs.xl, pairs.yl])
+    a_ref = np.column_stack([pairs.xe, pairs.ye])
+    has_e, has_l = np.isfinite(pairs.xe), np.isfinite(pairs.xl)
+    survived = status == "persisting"
+
+    def mc(sel: np.ndarray, geom: shapely.Geometry, unit: str) -> RChangeTest | None:
+        if nsim == 0:
+            return None
+        data = [(a_ref[sel & has_e], survived[sel & has_e], b_ref[sel & has_l], geom)]
+        return r_change_test(data, simulations=nsim, rng=keyed_rng(seed, unit))
+
+    rows: list[dict[str, Any]] = []
+    if where.plot_list is not None:
+        plot_sel = where.plot_sel
+        e_xys, l_xys, tests = [], [], []
+        empty = [p.plot_id for p in where.plot_list if not np.any(plot_sel[p.plot_id])]
+        if empty:
+            notes.append(
+                f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, or "
+                "outside both surveys) and are left out of the rows and of the overall area"
+            )
+        plot_list = [p for p in where.plot_list if p.plot_id not in set(empty)]
+        for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):
+            sel = plot_sel[p.plot_id]
+            e_xys.append(a_ref[sel & has_e])
+            l_xys.append(b_ref[sel & has_l])
+            tests.append(mc(sel, p.geometry, p.plot_id))
+            r1 = _pooled_r([e_xys[-1]], [p.geometry])
+            r2 = _pooled_r([l_xys[-1]], [p.geometry])
+            rows.append(_row(p.plot_id, p.area_m2, status[sel], r1, r2, tests[-1]))
+        inside = where.plot_id != ""
+        geoms = [p.geometry for p in plot_list]
+        overall = _row(
+            OVERALL_ID,
+            float(sum(p.area_m2 for p in plot_list)),
+            status[inside],
+            _pooled_r(e_xys, geoms),
+            _pooled_r(l_xys, geoms),
+            None if nsim == 0 else combine_r_change([t for t in tests if t is not None]),
+        )
+    elif where.window is None:  # plot ids from attributes, no areas
+        nanr = pooled_clark_evans([])
+        parts = [set(str(v).split(";")) - {""} for v in where.plot_id]
+        for pid in sorted(set().union(*parts)):
+            sel = np.array([pid in q for q in parts], dtype=bool)
+            rows.append(_row(pid, float("nan"), status[sel], nanr, nanr))
+        overall = _row(OVERALL_ID, float("nan"), status, nanr, nanr)
+    else:
+        everything = np.ones(status.size, bool)
+        overall = _row(
+            OVERALL_ID,
+            float(where.window.area),
+            status,
+            _pooled_r([a_ref[has_e]], [where.window]),
+            _pooled_r([b_ref[has_l]], [where.window]),
+            mc(everything, where.window, OVERALL_ID),
+        )
+    return rows, overall

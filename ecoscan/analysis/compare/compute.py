@@ -21,6 +21,7 @@ import csv
 import itertools
 import math
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, ClassVar
@@ -33,8 +34,9 @@ from scipy import stats as sps
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, parse_crs
-from ecoscan.io.inputs import PlotMembership
-from ecoscan.io.vector import PlotLayer, read_points, reproject_geometries
+from ecoscan.io.vector import read_points, reproject_geometries
+from ecoscan.model.membership import PlotMembership
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
@@ -343,7 +345,7 @@ def results_from_points(
     label : str
         Name of this set of results (the group name for ``by='folder'``).
     membership : PlotMembership, optional
-        Which plots hold which points (:func:`ecoscan.io.inputs.assign_plots`).
+        Which plots hold which points (:func:`ecoscan.model.membership.assign_plots`).
 
     Returns
     -------
@@ -679,6 +681,60 @@ def compare_groups(
             f"the folders use {len(crss)} different CRSs ({'; '.join(sorted(crss))}); each is "
             "measured in its own metric CRS, which is all that distances and areas need"
         )
+    by = _chosen_by(by, results, notes)
+    grouped, date_of = _grouped_units(results, by, pool_dates, notes)
+    groups = []
+    for name, us in grouped.items():
+        n = sum(u.nn.n for u in us)
+        area = sum(u.nn.area_m2 for u in us)
+        groups.append(
+            GroupSummary(name, tuple(us), n, area, pooled_clark_evans([u.nn for u in us]))
+        )
+    pairs_of = [
+        (a, b)
+        for a, b in itertools.combinations(groups, 2)
+        if date_of is None or date_of[a.name] == date_of[b.name]
+    ]
+    if not pairs_of:
+        raise InputError(
+            f"no two {by}s share a survey date, so nothing can be compared date by date; "
+            "add --pool-dates to pool each one's dates (the same plants then count twice)"
+        )
+    paired = by == "date"
+    if paired:
+        notes.append(
+            "dates of the same plots are compared pair-wise: the *_paired columns test the "
+            "per-plot differences by flipping their signs (plots are the units); the other "
+            "tests treat the dates as independent groups and are only approximate here"
+        )
+    notes.append(
+        "the distance distributions are compared by permuting whole plots "
+        "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and reject "
+        "too often (about 9% and 15% of pairs of random plots at the 5% level): approximate"
+    )
+    seed = run_seed(rng)
+    pairs = _pair_rows(pairs_of, int(permutations), seed, paired, notes)
+    params = {
+        "by": by,
+        "permutations": int(permutations),
+        "seed": seed,
+        "random_streams": "one per pair of groups, SeedSequence([seed, crc32(a), crc32(b)])",
+        "R": "pooled over plots, nearest neighbours within each plot, expectation from each "
+        "plot's own density (Clark & Evans 1954)",
+        "density_test": "exact conditional test of two Poisson rates (Przyborowski & "
+        "Wilenski 1940)",
+        "permutation_test": "whole plots permuted between the two groups",
+        "distance_distribution_test": "two-sample Kolmogorov-Smirnov distance between the "
+        "groups' nearest-neighbour distances, whole plots permuted",
+        "paired_test": "sign-flip test of per-plot differences (dates of the same plots)",
+        "pool_dates": bool(pool_dates),
+        "adjustment": "Holm (1979)" if len(pairs) > 1 else "none (one comparison)",
+    }
+    return ComparisonResult(by, groups, pairs, notes, params, paired)
+
+
+def _chosen_by(by: str, results: Sequence[ResultsTable], notes: list[str]) -> str:
+    """``by`` with ``"auto"`` resolved, after checking the tables carry what it needs."""
     if by == "auto":
         by = "site" if all(r.has_site for r in results) else "folder"
         if by == "folder" and len(results) == 1:
@@ -692,6 +748,13 @@ def compare_groups(
         )
     if by == "site" and not all(r.has_site for r in results):
         notes.append("folders without site labels are grouped under their folder name")
+    return by
+
+
+def _grouped_units(
+    results: Sequence[ResultsTable], by: str, pool_dates: bool, notes: list[str]
+) -> tuple[dict[str, list[PlotUnit]], dict[str, str] | None]:
+    """The plots of each group, and each group's date when dates are compared one by one."""
     units = [u for r in results for u in r.units]
     multi_site = len({u.site for u in units if u.site}) > 1
     # dates of one site hold the same plants: never pooled unless asked
@@ -725,42 +788,23 @@ def compare_groups(
             f"only one {by} ({next(iter(grouped), '?')}) in the results; give more folders or "
             "choose another --by"
         )
-    groups = []
-    for name, us in grouped.items():
-        n = sum(u.nn.n for u in us)
-        area = sum(u.nn.area_m2 for u in us)
-        groups.append(
-            GroupSummary(name, tuple(us), n, area, pooled_clark_evans([u.nn for u in us]))
-        )
-    pairs_of = [
-        (a, b)
-        for a, b in itertools.combinations(groups, 2)
-        if not split_dates or date_of[a.name] == date_of[b.name]
-    ]
-    if not pairs_of:
-        raise InputError(
-            f"no two {by}s share a survey date, so nothing can be compared date by date; "
-            "add --pool-dates to pool each one's dates (the same plants then count twice)"
-        )
-    paired = by == "date"
-    if paired:
-        notes.append(
-            "dates of the same plots are compared pair-wise: the *_paired columns test the "
-            "per-plot differences by flipping their signs (plots are the units); the other "
-            "tests treat the dates as independent groups and are only approximate here"
-        )
-    notes.append(
-        "the distance distributions are compared by permuting whole plots "
-        "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and reject "
-        "too often (about 9% and 15% of pairs of random plots at the 5% level): approximate"
-    )
-    seed = run_seed(rng)
+    return grouped, (date_of if split_dates else None)
+
+
+def _pair_rows(
+    pairs_of: list[tuple[GroupSummary, GroupSummary]],
+    permutations: int,
+    seed: int,
+    paired: bool,
+    notes: list[str],
+) -> list[dict[str, Any]]:
+    """Every pair's tests, each from its own random stream, with Holm-adjusted p-values."""
     pairs = []
     for a, b in pairs_of:
         pair_rng = keyed_rng(seed, a.name, b.name)
-        row = _pair_row(a, b, int(permutations), pair_rng)
+        row = _pair_row(a, b, permutations, pair_rng)
         if paired:
-            row.update(_paired(a, b, int(permutations), pair_rng))
+            row.update(_paired(a, b, permutations, pair_rng))
         pairs.append(row)
     notes += _limit_notes(pairs, paired)
     for p in pairs:
@@ -779,22 +823,4 @@ def compare_groups(
             "hold p-values adjusted with Holm's (1979) step-down method within each test; "
             "read those, not the raw p-values"
         )
-    params = {
-        "by": by,
-        "permutations": int(permutations),
-        "seed": seed,
-        "random_streams": "one per pair of groups, SeedSequence([seed, crc32(a), crc32(b)])",
-        "R": "pooled over plots, nearest neighbours within each plot, expectation from each "
-        "plot's own density (Clark & Evans 1954)",
-        "density_test": "exact conditional test of two Poisson rates (Przyborowski & "
-        "Wilenski 1940)",
-        "permutation_test": "whole plots permuted between the two groups",
-        "distance_distribution_test": "two-sample Kolmogorov-Smirnov distance between the "
-        "groups' nearest-neighbour distances, whole plots permuted",
-        "paired_test": "sign-flip test of per-plot differences (dates of the same plots)",
-        "pool_dates": bool(pool_dates),
-        "adjustment": "Holm (1979)" if len(pairs) > 1 else "none (one comparison)",
-    }
-    return ComparisonResult(by, groups, pairs, notes, params, paired)
-
-
+    return pairs

@@ -373,7 +373,7 @@ def donnelly_strip_warning(n: int, area_m2: float, perimeter_m: float) -> str:
     Examples
     --------
     >>> donnelly_strip_warning(100, 400 * 5.0, 2 * 405.0)[:32]
-    'plot narrower than Donnelly's co'
+    "plot narrower than Donnelly's co"
     >>> donnelly_strip_warning(100, 100 * 100.0, 400.0)
     ''
     """
@@ -447,54 +447,13 @@ def analyse_plot(
     else:
         quad_m, quad_h = default_quadrat_cells(polygon, n)
     if n < 2:
-        warn.append(
-            "no points in this plot: no statistics"
-            if n == 0
-            else "only 1 point: nearest-neighbour and quadrat statistics need at least 2"
-        )
-        return PlotDispersion(
-            plot_id,
-            n,
-            area,
-            perim,
-            dens,
-            np.full(n, np.inf),
-            None,
-            None,
-            None,
-            None,
-            None,
-            "",
-            guard_m,
-            quad_m,
-            0,
-            tuple(warn),
-            quadrat_height_m=quad_h,
-        )
+        return _too_few_points(plot_id, n, area, perim, dens, guard_m, quad_m, quad_h)
     if n < s.min_points:
         warn.append(
             f"only {n} points (fewer than {s.min_points}): the tests have little power; "
             "read the verdict with caution"
         )
-    d = nn_distances(xy)
-    n_zero = int(np.sum(d == 0.0))
-    if n_zero:
-        warn.append(
-            f"{n_zero} points share their position with another point (distance 0 m); "
-            "check for duplicate detections"
-        )
-    alt = s.direction
-    ce = clark_evans(xy, area, direction=alt, nn=d)
-    dn = donnelly(xy, polygon, direction=alt, nn=d)
-    strip = donnelly_strip_warning(n, area, perim)
-    if strip:
-        warn.append(strip)
-    gz = guard_zone(xy, polygon, guard_m, direction=alt, nn=d)
-    if gz.n_focal < 2:
-        warn.append(
-            f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
-            "no guard-zone estimate (use a smaller --guard)"
-        )
+    d, n_zero, ce, dn, gz = _nearest_neighbour_statistics(xy, polygon, s, guard_m, warn)
     few = s.too_few_simulations()
     if few:
         warn.append(few)
@@ -503,7 +462,7 @@ def analyse_plot(
         xy,
         polygon,
         simulations=s.simulations,
-        direction=alt,
+        direction=s.direction,
         rng=rng,
         observed_mean_m=float(d.mean()),
         guard_region=(polygon.buffer(-guard_m) if guard_m > 0 else polygon)
@@ -511,22 +470,7 @@ def analyse_plot(
         else None,
         stop_after=s.stop_after,
     )
-    try:
-        qd = quadrat_test(xy, polygon, quad_m, cell_height_m=quad_h)
-    except ValueError as exc:
-        raise InputError(f"plot {plot_id}: {exc} (--quadrat sets the side in metres)") from None
-    if qd.q < 2:
-        warn.append(
-            f"the {quad_m:.3g} m quadrat grid gives only {qd.q} cell: no quadrat test "
-            "(use a smaller --quadrat)"
-        )
-    elif qd.n_low_expected:
-        warn.append(
-            f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
-            "quadrat_p is approximate (quadrat_p_mc is exact)"
-        )
-    qnull = quadrat_null(qd, s.simulations, rng=rng)
-    qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
+    qd, qnull = _quadrats(xy, polygon, plot_id, quad_m, quad_h, s.simulations, rng, warn)
     # the detectable range belongs to the plot's shape and plant count, not to the run: one
     # fixed stream (seed 1, then the polygon and n), so every run and seed reads the same
     detectable = plot_detectable(polygon, n, alpha=s.alpha)
@@ -559,6 +503,103 @@ def analyse_plot(
     summary = plain_summary(res, s.alpha, s.smallest_p)
     extra = res.pattern_in_metres
     return dataclasses.replace(res, summary=f"{summary}; {extra}" if extra else summary)
+
+
+def _too_few_points(
+    plot_id: str,
+    n: int,
+    area: float,
+    perim: float,
+    dens: float,
+    guard_m: float,
+    quad_m: float,
+    quad_h: float,
+) -> PlotDispersion:
+    """The record of a plot with 0 or 1 plant: no statistics, one warning."""
+    warn = (
+        "no points in this plot: no statistics"
+        if n == 0
+        else "only 1 point: nearest-neighbour and quadrat statistics need at least 2"
+    )
+    return PlotDispersion(
+        plot_id,
+        n,
+        area,
+        perim,
+        dens,
+        np.full(n, np.inf),
+        None,
+        None,
+        None,
+        None,
+        None,
+        "",
+        guard_m,
+        quad_m,
+        0,
+        (warn,),
+        quadrat_height_m=quad_h,
+    )
+
+
+def _nearest_neighbour_statistics(
+    xy: np.ndarray,
+    polygon: Any,
+    s: DispersionSettings,
+    guard_m: float,
+    warn: list[str],
+) -> tuple[np.ndarray, int, ClarkEvansResult, EdgeCorrectedResult, EdgeCorrectedResult]:
+    """Nearest-neighbour distances, Clark–Evans R, Donnelly's correction and the guard zone."""
+    n, area, perim = xy.shape[0], float(polygon.area), float(polygon.length)
+    d = nn_distances(xy)
+    n_zero = int(np.sum(d == 0.0))
+    if n_zero:
+        warn.append(
+            f"{n_zero} points share their position with another point (distance 0 m); "
+            "check for duplicate detections"
+        )
+    ce = clark_evans(xy, area, direction=s.direction, nn=d)
+    dn = donnelly(xy, polygon, direction=s.direction, nn=d)
+    strip = donnelly_strip_warning(n, area, perim)
+    if strip:
+        warn.append(strip)
+    gz = guard_zone(xy, polygon, guard_m, direction=s.direction, nn=d)
+    if gz.n_focal < 2:
+        warn.append(
+            f"the {guard_m:.3g} m guard zone leaves {gz.n_focal} focal points: "
+            "no guard-zone estimate (use a smaller --guard)"
+        )
+    return d, n_zero, ce, dn, gz
+
+
+def _quadrats(
+    xy: np.ndarray,
+    polygon: Any,
+    plot_id: str,
+    quad_m: float,
+    quad_h: float,
+    simulations: int,
+    rng: np.random.Generator,
+    warn: list[str],
+) -> tuple[QuadratResult, Any]:
+    """The quadrat test on cells clipped to the plot, with its simulated null."""
+    try:
+        qd = quadrat_test(xy, polygon, quad_m, cell_height_m=quad_h)
+    except ValueError as exc:
+        raise InputError(f"plot {plot_id}: {exc} (--quadrat sets the side in metres)") from None
+    if qd.q < 2:
+        warn.append(
+            f"the {quad_m:.3g} m quadrat grid gives only {qd.q} cell: no quadrat test "
+            "(use a smaller --quadrat)"
+        )
+    elif qd.n_low_expected:
+        warn.append(
+            f"{qd.n_low_expected} of {qd.q} quadrats expect fewer than {MIN_EXPECTED:g} points: "
+            "quadrat_p is approximate (quadrat_p_mc is exact)"
+        )
+    qnull = quadrat_null(qd, simulations, rng=rng)
+    qd = dataclasses.replace(qd, morisita_std=qnull.morisita_std)  # exact limits, not ±χ²
+    return qd, qnull
 
 
 #: Plants needed before a clustered plot's clusters are described by a fitted Thomas process.
@@ -700,5 +741,3 @@ def analyse(
         plot = plots[i]
         out.append(analyse_plot(inputs.plot_points(i), plot.geometry, plot.plot_id, s))
     return out
-
-

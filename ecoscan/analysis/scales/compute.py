@@ -591,20 +591,87 @@ def analyse_plot(
         warnings.append(note)
     if n < _FEW_PLANTS:
         warnings.append(f"only {n} plants: only strong patterns can be detected")
-    lam = n / area
-    r = r_grid(max_distance, settings.steps)
-    r_nn = r_grid(min(max_distance, 2.5 / np.sqrt(lam)), settings.steps)
+    grids = _distance_grids(max_distance, n / area, settings.steps)
+    obs, curves = _function_curves(xy, polygon, plot_id, settings, max_distance, grids, rng)
+    r = grids.r
+    env = curves[settings.test_function].envelope
+    clu, reg, verdict = interpret(
+        r,
+        env.above,
+        env.below,
+        env.pvalue,
+        settings.alpha,
+        n=n,
+        r_start=_first(r, env.band_high > env.band_low),
+        r_start_regular=_first(r, env.band_low > 0),
+    )
+    cross, kinds_verdict = None, ""
+    if kinds is not None and settings.kinds is not None:
+        cross, kinds_verdict, w = _cross(xy, polygon, kinds, settings, max_distance, rng)
+        warnings += w
+    habitat = None
+    if surfaces or settings.kernel_intensity or marks is not None:
+        habitat = _habitat(xy, polygon, plot_id, settings, surfaces, marks, bool(clu), max_distance)
+        warnings += habitat.warnings
+    return PlotScales(
+        plot_id,
+        n,
+        area,
+        float(max_distance),
+        float(obs.bandwidth_m),
+        {k: curves[k] for k in sorted(curves, key=_curve_order)},
+        settings.test_function,
+        settings.global_test,
+        float(env.pvalue),
+        clu,
+        reg,
+        verdict,
+        settings.simulations,
+        warnings,
+        cross,
+        kinds_verdict,
+        settings.alpha,
+        habitat,
+    )
+
+
+@dataclass(frozen=True)
+class _Grids:
+    """The distances of one plot's functions, metres."""
+
+    r: np.ndarray  # K, L, g: up to the maximum distance
+    r_nn: np.ndarray  # G, F: up to 2.5 mean spacings
+    r_j: np.ndarray  # J: up to where F under randomness reaches 0.95
+
+    @property
+    def both(self) -> np.ndarray:
+        return np.concatenate([self.r_nn, self.r_j])
+
+
+def _distance_grids(max_distance: float, lam: float, steps: int) -> _Grids:
+    r_nn = r_grid(min(max_distance, 2.5 / np.sqrt(lam)), steps)
     # J only up to where F under randomness reaches 0.95: beyond, 1 − F is too small for a
     # stable ratio (common practice)
-    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), settings.steps)
-    r_both = np.concatenate([r_nn, r_j])
-    nr = settings.steps
+    r_j = r_grid(min(r_nn[-1], np.sqrt(-np.log(0.05) / (lam * np.pi))), steps)
+    return _Grids(r_grid(max_distance, steps), r_nn, r_j)
+
+
+def _function_curves(
+    xy: np.ndarray,
+    polygon: shapely.Geometry,
+    plot_id: str,
+    settings: ScalesSettings,
+    max_distance: float,
+    grids: _Grids,
+    rng: np.random.Generator,
+) -> tuple[Any, dict[str, FunctionCurve]]:
+    """The observed second-order record and every curve asked for, with its envelope."""
+    n, nr = xy.shape[0], settings.steps
+    r, r_nn, r_j, r_both = grids.r, grids.r_nn, grids.r_j, grids.both
     want = set(settings.functions) | {settings.test_function}
     want_dist = bool(want & {"G", "F", "J"})
     b = boundary_distance(xy, polygon)
-    obs = second_order(
-        xy, polygon, max_distance, steps=settings.steps, reduced_sample=True, boundary_m=b
-    )
+    obs = second_order(xy, polygon, max_distance, steps=nr, reduced_sample=True, boundary_m=b)
     grid = EmptySpaceGrid(polygon) if want_dist else None
     if want_dist:
         g_obs = nn_function(xy, polygon, r_both, boundary_m=b)
@@ -653,7 +720,18 @@ def analyse_plot(
                 settings,
                 test,
             )
-    # reduced-sample versions, observed only (a cross-check of the edge correction)
+    curves.update(
+        _reduced_sample_curves(
+            want, grids, nr, obs, g_obs if want_dist else None, f_obs if want_dist else None
+        )
+    )
+    return obs, curves
+
+
+def _reduced_sample_curves(want, grids: _Grids, nr: int, obs, g_obs, f_obs):
+    """Reduced-sample versions, observed only (a cross-check of the edge correction)."""
+    r, r_nn = grids.r, grids.r_nn
+    curves: dict[str, FunctionCurve] = {}
     if "K" in want:
         curves["K_reduced_sample"] = FunctionCurve(
             "K_reduced_sample", "m2", r, obs.K_reduced_sample_m2, np.pi * r**2
@@ -666,7 +744,8 @@ def analyse_plot(
         curves["g_reduced_sample"] = FunctionCurve(
             "g_reduced_sample", "1", r, obs.g_reduced_sample, np.ones_like(r)
         )
-    if want_dist:
+    if g_obs is not None:
+        theo = g_obs.csr_value[:nr]
         if "G" in want:
             curves["G_reduced_sample"] = FunctionCurve(
                 "G_reduced_sample", "1", r_nn, g_obs.reduced_sample[:nr], theo
@@ -675,64 +754,30 @@ def analyse_plot(
             curves["F_reduced_sample"] = FunctionCurve(
                 "F_reduced_sample", "1", r_nn, f_obs.reduced_sample[:nr], theo
             )
-    main = curves[settings.test_function]
-    env = main.envelope
-    clu, reg, verdict = interpret(
-        r,
-        env.above,
-        env.below,
-        env.pvalue,
-        settings.alpha,
-        n=n,
-        r_start=_first(r, env.band_high > env.band_low),
-        r_start_regular=_first(r, env.band_low > 0),
-    )
-    cross, kinds_verdict = None, ""
-    if kinds is not None and settings.kinds is not None:
-        cross, kinds_verdict, w = _cross(xy, polygon, kinds, settings, max_distance, rng)
-        warnings += w
-    habitat = None
-    if surfaces or settings.kernel_intensity or marks is not None:
-        from ecoscan.analysis.habitat import habitat_analysis
+    return curves
 
-        habitat = habitat_analysis(
-            xy,
-            polygon,
-            plot_id,
-            surfaces=surfaces,
-            covariates=settings.covariates,
-            kernel=settings.kernel_intensity,
-            marks=marks,
-            mark=settings.mark,
-            clustered_without=bool(clu),
-            max_distance_m=max_distance,
-            steps=settings.steps,
-            simulations=settings.habitat_simulations or settings.simulations,
-            alpha=settings.alpha,
-            test=test,
-            # its own streams, so that the results above do not change when it is asked for
-            rng=plot_rng(settings.seed, plot_id),
-        )
-        warnings += habitat.warnings
-    return PlotScales(
+
+def _habitat(xy, polygon, plot_id, settings, surfaces, marks, clustered, max_distance):
+    """The "why" analysis of one plot (:func:`ecoscan.analysis.habitat.habitat_analysis`)."""
+    from ecoscan.analysis.habitat import habitat_analysis
+
+    return habitat_analysis(
+        xy,
+        polygon,
         plot_id,
-        n,
-        area,
-        float(max_distance),
-        float(obs.bandwidth_m),
-        {k: curves[k] for k in sorted(curves, key=_curve_order)},
-        settings.test_function,
-        test,
-        float(env.pvalue),
-        clu,
-        reg,
-        verdict,
-        s,
-        warnings,
-        cross,
-        kinds_verdict,
-        settings.alpha,
-        habitat,
+        surfaces=surfaces,
+        covariates=settings.covariates,
+        kernel=settings.kernel_intensity,
+        marks=marks,
+        mark=settings.mark,
+        clustered_without=clustered,
+        max_distance_m=max_distance,
+        steps=settings.steps,
+        simulations=settings.habitat_simulations or settings.simulations,
+        alpha=settings.alpha,
+        test=settings.global_test,
+        # its own streams, so that the results above do not change when it is asked for
+        rng=plot_rng(settings.seed, plot_id),
     )
 
 
@@ -939,8 +984,3 @@ def analyse_scales(
             )
         )
     return out
-
-
-# ------------------------------------------------------------------------------- output
-
-

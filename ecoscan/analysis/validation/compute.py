@@ -20,8 +20,9 @@ import numpy as np
 from ecoscan.analysis.validation.columns import COLUMNS
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, transform_xy
-from ecoscan.io.inputs import assign_plots
-from ecoscan.io.vector import PlotLayer, reproject_geometries
+from ecoscan.io.vector import reproject_geometries
+from ecoscan.model.membership import assign_plots
+from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.stats.matching import match_points
 

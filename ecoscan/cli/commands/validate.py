@@ -8,10 +8,10 @@ from pathlib import Path
 from ecoscan.analysis.validation.compute import COLUMNS, align_points, validate_points
 from ecoscan.cli._common import add_crs_arg, add_plots_args, print_notes
 from ecoscan.errors import InputError
-from ecoscan.io.inputs import overlap_note, unsurveyed_note
 from ecoscan.io.outputs import write_csv
 from ecoscan.io.vector import read_plots, read_points
 from ecoscan.lifecycle import check_output_path
+from ecoscan.model.membership import overlap_note, unsurveyed_note
 from ecoscan.report.tables import format_table
 
 NAME = "validate"

@@ -62,60 +62,68 @@ def plot_habitat_figure(
     for ax in axes.ravel()[len(panels) :]:
         ax.set_visible(False)
     for ax, kind in zip(axes.ravel(), panels, strict=False):
-        if kind == "map":
-            gx, gy, lam = h.intensity_grid
-            sc = _density_map(ax, gx, gy, lam * 1e4)
-            xy = h.xy_m if xy is None else xy
-            if xy is not None and len(xy):
-                ax.plot(
-                    xy[:, 0], xy[:, 1], "o", mfc="none", mec="black", ms=3, mew=0.6, label="plants"
-                )
-            ax.set_aspect("equal")
-            ax.set_xlabel("easting (m)")
-            ax.set_ylabel("northing (m)")
-            ax.ticklabel_format(useOffset=False, style="plain")
-            ax.tick_params(axis="x", labelrotation=30)
-            ax.set_title(textwrap.fill(f"fitted density: {h.model}", 48))
-            cb = fig.colorbar(sc, ax=ax, shrink=0.7)
-            cb.set_label("plants per ha")
-        elif kind == "L":
-            t = h.test
-            env = t.L
-            _panel(
-                ax,
-                t.r_m,
-                env.value - t.r_m,
-                np.zeros_like(t.r_m),
-                _shift(env, t.r_m),
-                "inhomogeneous L(r) − r (m)",
-                "beyond the fitted density",
-                1,
-                ("clustered beyond", "more even"),
-            )
-        else:
-            mk = h.marks
-            _panel(
-                ax,
-                mk.r_m,
-                mk.k_mm.value,
-                np.ones_like(mk.r_m),
-                mk.k_mm,
-                f"k_mm(r) of {mk.mark}",
-                "size and spacing",
-                1,
-                ("neighbours larger", "neighbours smaller"),
-            )
+        _draw_panel(fig, ax, kind, h, xy)
     lines = [f"plot {result.plot_id}: why the pattern"]
     for v in (h.verdict, h.marks_verdict):
         if v:
             lines.append(textwrap.fill(v, 95))
     fig.suptitle("\n".join(lines))
-    # one legend for all panels, below them (never over a curve)
+    _shared_legend(fig, axes, len(panels))
+    return save_figure(fig, path)
+
+
+def _draw_panel(fig, ax, kind: str, h, xy: np.ndarray | None) -> None:
+    """One panel: the fitted density map, inhomogeneous L, or the mark correlation."""
+    if kind == "map":
+        gx, gy, lam = h.intensity_grid
+        sc = _density_map(ax, gx, gy, lam * 1e4)
+        xy = h.xy_m if xy is None else xy
+        if xy is not None and len(xy):
+            ax.plot(xy[:, 0], xy[:, 1], "o", mfc="none", mec="black", ms=3, mew=0.6, label="plants")
+        ax.set_aspect("equal")
+        ax.set_xlabel("easting (m)")
+        ax.set_ylabel("northing (m)")
+        ax.ticklabel_format(useOffset=False, style="plain")
+        ax.tick_params(axis="x", labelrotation=30)
+        ax.set_title(textwrap.fill(f"fitted density: {h.model}", 48))
+        cb = fig.colorbar(sc, ax=ax, shrink=0.7)
+        cb.set_label("plants per ha")
+    elif kind == "L":
+        t = h.test
+        env = t.L
+        _panel(
+            ax,
+            t.r_m,
+            env.value - t.r_m,
+            np.zeros_like(t.r_m),
+            _shift(env, t.r_m),
+            "inhomogeneous L(r) − r (m)",
+            "beyond the fitted density",
+            1,
+            ("clustered beyond", "more even"),
+        )
+    else:
+        mk = h.marks
+        _panel(
+            ax,
+            mk.r_m,
+            mk.k_mm.value,
+            np.ones_like(mk.r_m),
+            mk.k_mm,
+            f"k_mm(r) of {mk.mark}",
+            "size and spacing",
+            1,
+            ("neighbours larger", "neighbours smaller"),
+        )
+
+
+def _shared_legend(fig, axes, n_panels: int) -> None:
+    """One legend for all panels, below them or in the empty cell (never over a curve)."""
     seen: dict[str, object] = {}
     for ax in axes.ravel():
         for hd, lab in zip(*ax.get_legend_handles_labels(), strict=True):
             seen.setdefault(lab, hd)
-    spare = axes.ravel()[len(panels) :]
+    spare = axes.ravel()[n_panels:]
     if len(spare):  # the legend goes in the empty cell
         fig.tight_layout()
         box = spare[0].get_position()
@@ -136,7 +144,6 @@ def plot_habitat_figure(
             ncol=min(4, len(seen)),
             frameon=False,
         )
-    return save_figure(fig, path)
 
 
 def _density_map(ax, x: np.ndarray, y: np.ndarray, v: np.ndarray):
