@@ -158,6 +158,8 @@ def test_closed_canopy_detection_tiled_equals_whole_and_is_recorded(tmp_path):
     a = np.sort(np.round(whole.points.xy, 6), axis=0)
     b = np.sort(np.round(tiled.points.xy, 6), axis=0)
     assert a.shape == b.shape and np.array_equal(a, b)
+    # the user is told that closed-canopy counts need checking
+    assert any("closed-canopy counts are unreliable" in w for w in whole.warnings)
     meta = detection_metadata(whole)
     assert meta["thresholds"]["canopy_green_share"] >= 0.75
     # the split finds most crowns here (the blob path found about a quarter)

@@ -551,6 +551,11 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
         f"brightness and greenness correlated {evidence['bright_green_corr']:+.2f}): crowns "
         "split along the dark valleys between them (watershed of smoothed brightness)"
     )
+    notes.append(
+        "closed-canopy counts are unreliable (about two thirds of the crowns found on the scene "
+        "suite, big crowns sometimes counted twice): calibrate a detector on mapped crowns "
+        "(ecoscan calibrate) and check with ecoscan validate"
+    )
     th = {
         "layer": "canopy",
         "layer_bands": list(abands),
