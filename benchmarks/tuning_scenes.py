@@ -21,7 +21,11 @@ triples of similar size), ``nir`` (four bands, uint16, blue-green-red-NIR), ``ca
 on pasture with wide straw-coloured patches), ``stand`` (overlapping crowns of very
 different sizes covering most of dark ground: centres outside each other's crowns by
 half the smaller radius), ``jpeg`` (``mixed`` crowns on soil with wide grass patches,
-photographed in square frames with strong vignetting and saved as JPEG, quality 45).
+photographed in square frames with strong vignetting and saved as JPEG, quality 45),
+``domes`` (the ``stand`` placement over near-black understorey, each crown shaded as a
+hemisphere lit from the upper left at 40 degrees elevation with a dark far side, and
+rough leaf-clump texture at two scales: touching crowns of one colour meet in a shaded
+valley, not a colour edge).
 
 Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
 
@@ -51,6 +55,7 @@ STYLES = (
     "conifers",
     "stand",
     "jpeg",
+    "domes",
 )
 TUNING_SEEDS = tuple(range(100, 104))
 PIXEL_M = 0.05
@@ -155,8 +160,9 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     gen = np.random.default_rng(seed * 31 + STYLES.index(style))
     shape = (size_px, size_px)
     dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
-    n = int(size_px * size_px / {"clumps": 2600, "canopy": 700, "stand": 300}.get(style, 3200))
-    if style == "stand":
+    per_crown = {"clumps": 2600, "canopy": 700, "stand": 300, "domes": 300}.get(style, 3200)
+    n = int(size_px * size_px / per_crown)
+    if style in ("stand", "domes"):
         xy, d = _place_overlapping(shape, n, dpx, gen)
     else:
         xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
@@ -166,6 +172,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         bg = np.array(_PASTURE, np.float32)[:, None, None] * (1 + 1.3 * mott)[None]
     elif style == "stand":
         bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.3 * (1 + mott)[None]
+    elif style == "domes":
+        bg = np.array(_CONIFER, np.float32)[:, None, None] * 0.8 * (1 + mott)[None]
     elif style == "canopy":
         bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.45 * (1 + mott)[None]
     else:
@@ -201,6 +209,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         palette = [_GREEN, _OLIVE]
     elif style == "canopy":
         palette = [_GREEN, _OLIVE, (70, 120, 52), (88, 132, 70)]
+    elif style == "domes":
+        palette = [_GREEN, (70, 120, 52), (96, 150, 66)]
     else:
         palette = [_GREEN, _GREEN, _OLIVE, _STRAW, _GREYBLUE]
     order = np.argsort(d)[::-1]  # small crowns drawn over large ones
@@ -225,7 +235,17 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         col = np.array(palette[int(gen.integers(len(palette)))], np.float32)
         col = col * gen.uniform(0.85, 1.15)
         lit = 1 + 0.18 * (-(sx + sy) / (np.sqrt(2) * r + 1e-6)).clip(-1, 1)
-        if style == "conifers":  # coarse needle texture: strong, fine-grained
+        if style == "domes":  # hemisphere, sun to the upper left at 40 degrees elevation
+            nx, ny = (sx / (r + 1e-6)).clip(-1, 1), (sy / (r + 1e-6)).clip(-1, 1)
+            nz = np.sqrt(np.clip(1 - nx * nx - ny * ny, 0, 1))
+            ce, se = np.cos(np.radians(40)) / np.sqrt(2), np.sin(np.radians(40))
+            lit = 0.3 + 1.1 * np.clip(-ce * nx - ce * ny + se * nz, 0, None)
+        if style == "domes":  # leaf clumps and gaps at two scales
+            fine = 1 + 0.3 * gen.standard_normal(sx.shape).astype(np.float32)
+            coarse = ndimage.gaussian_filter(gen.standard_normal(sx.shape).astype(np.float32), 3.5)
+            clump = ndimage.gaussian_filter(fine, 1.2) * (1 + 0.25 * np.clip(6 * coarse, -1.5, 1.5))
+            clump = np.clip(clump, 0.3, 1.8)
+        elif style == "conifers":  # coarse needle texture: strong, fine-grained
             clump = 1 + 0.5 * gen.standard_normal(sx.shape).astype(np.float32)
             clump = np.clip(ndimage.gaussian_filter(clump, 0.7), 0.2, 2.0)
         else:

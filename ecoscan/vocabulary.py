@@ -200,8 +200,7 @@ _ALL = [
         "verdict in words",
         "",
         "text",
-        "The verdict as a sentence, with the R this plot could detect when it found no "
-        "departure.",
+        "The verdict as a sentence, with the R this plot could detect when it found no departure.",
     ),
     _c(
         "detectable_range",

@@ -555,6 +555,70 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     return out
 
 
+def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes):
+    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires."""
+    from ecoscan.detect import canopy
+
+    ps = info.pixel_size_m
+    r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
+    datas = [w.data[:, w.core[0], w.core[1]] for w in windows]
+    valids = [w.valid[w.core] for w in windows]
+    evidence = canopy.canopy_evidence(datas, valids, roles, r_min)
+    if not canopy.is_closed_canopy(evidence):
+        return None
+    layers = [canopy.canopy_layer(w.data, roles) for w in windows]
+    split = canopy.canopy_split(
+        [lay[w.core] for lay, w in zip(layers, windows, strict=True)], valids, r_min, r_max
+    )
+    params = DetectorParams(
+        method="imagery",
+        bands=abands,
+        pixel_size_m=ps,
+        index="canopy",
+        scales=scales,
+        fill_value=0.0,
+        roles=roles,
+        canopy=split,
+    )
+    notes.append(
+        f"closed canopy ({100 * evidence['green_share']:.0f}% of the sampled pixels green, "
+        f"brightness and greenness correlated {evidence['bright_green_corr']:+.2f}): crowns "
+        "split along the dark valleys between them (watershed of smoothed brightness)"
+    )
+    notes.append(
+        Note(
+            "closed-canopy counts are unreliable (about two thirds of the crowns found on the "
+            "scene suite, big crowns sometimes counted twice): calibrate a detector on mapped "
+            "crowns (ecoscan calibrate) and check with ecoscan validate",
+            "closed-canopy-unreliable",
+            WARNING,
+        )
+    )
+    th = {
+        "layer": "canopy",
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_chosen_by": (
+            "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
+            f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
+            f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}"
+        ),
+        "canopy_green_share": evidence["green_share"],
+        "canopy_bright_green_corr": evidence["bright_green_corr"],
+        "canopy_layer": "log(1 + green band), Gaussian smoothed",
+        "canopy_smooth_px": split.smooth_px,
+        "canopy_marker_h": split.h,
+        "canopy_marker_h_from": (
+            f"{canopy.H_SHARE:g} x robust SD (1.4826 MAD) of the smoothed layer on sample windows"
+        ),
+        "canopy_min_area_px": split.min_area_px,
+        "weak_separation": False,
+        "split_touching": True,
+    }
+    return params, max(overlap, split.overlap_px), scales.align, th, notes
+
+
 def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
     from ecoscan.detect.autotune import (
@@ -575,6 +639,10 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     windows = _sample_windows(info, abands, scales, dmax_px)
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
         return None, 0, 1, {}, [*notes, _no_plants("the image is constant: no plants found")]
+    if settings.split_touching:
+        closed = _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes)
+        if closed is not None:
+            return closed
     choice = choose_layer(windows, roles, scales)
     del windows
     if choice.candidates < MIN_CANDIDATES:
@@ -907,20 +975,21 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
     attrs: dict[str, np.ndarray] = {}
     if n and method == "imagery":
         radius = math.sqrt(2.0) * table["sigma_px"]
-        if params.split_ratio > 0:
+        if params.split_ratio > 0 and params.canopy is None:
             merged = split_merged(
                 table["col"], table["row"], radius, table["score"], params.split_ratio
             )
             table = {k: v[~merged] for k, v in table.items()}
             radius = radius[~merged]
-        keep = prune_blobs(
-            table["col"],
-            table["row"],
-            radius,
-            table["score"],
-            margin=PRUNE_MARGIN if params.split_ratio > 0 else 0.0,
-        )
-        table = {k: v[keep] for k, v in table.items()}
+        if params.canopy is None:  # watershed regions are disjoint: nothing to prune
+            keep = prune_blobs(
+                table["col"],
+                table["row"],
+                radius,
+                table["score"],
+                margin=PRUNE_MARGIN if params.split_ratio > 0 else 0.0,
+            )
+            table = {k: v[keep] for k, v in table.items()}
         attrs["diameter_m"] = 2.0 * math.sqrt(2.0) * table["sigma_px"] * ps
         attrs["score"] = table["score"]
         attrs["index_value"] = table["index_value"]

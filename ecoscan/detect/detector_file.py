@@ -32,7 +32,7 @@ __all__ = [
 ]
 
 #: Version of the detector-file layout (raised when keys change meaning).
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 
 #: Largest relative difference between the raster's pixel size and the detector's.
 PIXEL_SIZE_TOLERANCE = 0.05
@@ -88,6 +88,11 @@ class CalibratedDetector:
         Cross-validated scores of every layer tried.
     software : dict
         Versions of ecoscan and scikit-learn.
+    split : dict
+        Closed canopy: crowns are regions of a watershed of the smoothed layer instead of
+        blobs (:mod:`ecoscan.detect.canopy`): marker height ``h`` and least region peak
+        ``min_peak`` (layer units), smoothing and least area as shares of the smallest
+        crown radius and disc (``smooth_share``, ``min_area_share``). Empty: blobs.
     """
 
     kind: str
@@ -110,6 +115,7 @@ class CalibratedDetector:
     software: dict = field(default_factory=dict)
     forest: Any = None
     source: str = ""
+    split: dict = field(default_factory=dict)
 
     def plant_layer(self) -> PlantLayer:
         """The picklable layer function used by the tile workers."""
@@ -167,7 +173,8 @@ def to_toml(det: CalibratedDetector) -> str:
     lines = [*head, ""]
     lines += _toml_table(
         "detector",
-        {"format_version": FORMAT_VERSION, "kind": det.kind, "layer": det.layer},
+        # version 2 adds [crown_split]; a file without it stays readable by version-1 readers
+        {"format_version": 2 if det.split else 1, "kind": det.kind, "layer": det.layer},
         {"kind": "layer: a simple per-pixel layer; classifier: random-forest probability"},
     )
     lines += _toml_table(
@@ -205,6 +212,17 @@ def to_toml(det: CalibratedDetector) -> str:
                 "sigma_max_px": det.features.sigma_max,
                 "num_sigma": det.features.num_sigma,
                 "brightness_scale": det.features.brightness_scale,
+            },
+        )
+    if det.split:
+        lines += _toml_table(
+            "crown_split",
+            dict(det.split),
+            {
+                "h": "marker height (h-maxima) of the smoothed layer, layer units",
+                "min_peak": "regions whose smoothed peak is lower are ground",
+                "smooth_share": "Gaussian smoothing, share of the smallest crown radius",
+                "min_area_share": "smallest region, share of the smallest crown's disc",
             },
         )
     lines += _toml_table("cross_validation", dict(det.cross_validation))
@@ -345,6 +363,16 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
         source=str(p.resolve()),
     )
     det.candidates = list(det.cross_validation.pop("candidates", []))
+    if "crown_split" in d:
+        det.split = {
+            k: float(_need(d, "crown_split", k, num, name))
+            for k in ("h", "min_peak", "smooth_share", "min_area_share")
+        }
+        if not all(math.isfinite(v) for v in det.split.values()) or det.split["h"] <= 0:
+            raise InputError(
+                f"detector file {name} holds an impossible [crown_split] table; make it "
+                "again with ecoscan calibrate"
+            )
     bad = (
         not (det.pixel_size_m > 0)
         or not (0 < det.diameter_min_m <= det.diameter_max_m)
@@ -491,4 +519,22 @@ def calibrated_params(det: CalibratedDetector, info, raster_name: str):
         "background": det.background,
         "how": "calibrated from mapped plants",
     }
+    if det.split:  # closed canopy: watershed crown split of the calibrated layer
+        from dataclasses import replace
+
+        from ecoscan.detect.canopy import CanopySplit
+
+        r_min, r_max = dmin_px / 2.0, dmax_px / 2.0
+        split = CanopySplit(
+            r_min_px=r_min,
+            r_max_px=r_max,
+            smooth_px=det.split["smooth_share"] * r_min,
+            h=det.split["h"],
+            min_area_px=det.split["min_area_share"] * math.pi * r_min**2,
+            layer="given",
+            min_peak=det.split["min_peak"],
+        )
+        params = replace(params, canopy=split)
+        overlap = max(overlap, split.overlap_px + layer.halo_px)
+        thresholds["crown_split"] = dict(det.split)
     return params, overlap, scales.align, thresholds, notes

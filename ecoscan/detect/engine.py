@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ecoscan.detect import blobs, chm, classes
+from ecoscan.detect import blobs, canopy, chm, classes
 from ecoscan.detect.indices import darkness, excess_green, ndvi
 from ecoscan.detect.settings import CROWN_RULES
 from ecoscan.detect.tiling import Tile, in_core
@@ -88,6 +88,9 @@ class DetectorParams:
     #: calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
     #: data into the plant layer, used instead of :func:`vegetation_layer` when set
     layer_model: object = None
+    #: closed canopy (:mod:`ecoscan.detect.canopy`): a :class:`CanopySplit`; crowns are
+    #: then regions of a valley-following watershed instead of blobs
+    canopy: object = None
 
 
 @dataclass(frozen=True)
@@ -203,6 +206,33 @@ def _empty_tile(p: DetectorParams) -> dict[str, np.ndarray]:
     return res
 
 
+def _canopy_tile(job: TileJob, layer: np.ndarray, valid: np.ndarray) -> dict[str, np.ndarray]:
+    """Closed canopy: crowns as watershed regions (:func:`ecoscan.detect.canopy.split_crowns`)."""
+    cs, tile = job.params.canopy, job.tile
+    found = canopy.split_crowns(
+        layer,
+        cs.r_min_px,
+        cs.h,
+        smooth_px=cs.smooth_px,
+        min_area_px=cs.min_area_px,
+        valid=valid,
+        origin=tile.window[:2],
+        min_peak=cs.min_peak,
+    )
+    out = {
+        "col": found["col"],
+        "row": found["row"],
+        # the radius of the region's equal-area disc, as a blob scale (r = sqrt(2) sigma)
+        "sigma_px": np.sqrt(found["area_px"] / np.pi) / np.sqrt(2.0),
+        "score": found["prominence"],
+        "index_value": found["peak"],
+    }
+    keep = in_core(tile, out["col"], out["row"])
+    res = {k: np.asarray(v, float)[keep] for k, v in out.items()}
+    res["tile"] = np.full(int(keep.sum()), tile.index, dtype=np.int64)
+    return res
+
+
 def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     """Detect plants in one tile; keep those whose centre lies in the tile's core.
 
@@ -218,7 +248,9 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     if data is None:
         return _empty_tile(p)  # all nodata: only the mask was read
     if p.method == "imagery":
-        if p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
+        if p.canopy is not None and p.canopy.layer == "brightness":
+            layer = canopy.canopy_layer(data, p.roles)
+        elif p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = p.layer_model(data)
         elif p.terms:
             layer = compose_layer(data, p.roles, p.terms)
@@ -227,6 +259,8 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         del data
         if not valid.all():
             layer[~valid] = p.fill_value
+        if p.canopy is not None:
+            return _canopy_tile(job, layer, valid)
         found = blobs.detect_blobs(
             layer,
             p.scales,

@@ -233,11 +233,7 @@ def table_html(
         out.append("<tr>")
         for c in columns:
             v = r.get(c)
-            if (
-                c == "verdict"
-                and isinstance(v, str)
-                and v in (*VERDICTS, "random", "")
-            ):
+            if c == "verdict" and isinstance(v, str) and v in (*VERDICTS, "random", ""):
                 out.append(f'<td class="text">{pattern_tag(v)}</td>')
             elif c == link and r.get("_href"):
                 text = _esc(format_cell(c, v) or "–")

@@ -1,0 +1,396 @@
+"""Closed canopy: one point per crown by valley-following watershed of smoothed brightness.
+
+Where crowns touch and overlap, there is almost no ground to contrast them with and
+neighbours of one species form one plateau in any colour index; blob detection then finds
+only a fraction of the crowns. What still separates them is light: each crown is a lit
+dome, and between crowns lie darker *valleys* (shaded rims, narrow gaps onto the
+understorey). Following those valleys is the classic way to delineate individual crowns
+in optical imagery:
+
+* Gougeon, F. A. (1995). A crown-following approach to the automatic delineation of
+  individual tree crowns in high spatial resolution aerial images. *Canadian Journal of
+  Remote Sensing* 21: 274–284 (valley-following: the dark inter-crown valleys are the
+  crown boundaries);
+* Culvenor, D. S. (2002). TIDA: an algorithm for the delineation of tree crowns in high
+  spatial resolution remotely sensed imagery. *Computers & Geosciences* 28: 33–44 (crowns
+  grown from local brightness maxima down to the valleys);
+* the valleys are followed by a marker-controlled watershed (Meyer, F. & Beucher, S. 1990,
+  Morphological segmentation, *J. Visual Communication and Image Representation* 1: 21–46)
+  whose markers are the regional maxima of dynamic at least ``h`` (h-maxima; Soille, P.
+  2003, *Morphological Image Analysis*, 2nd ed., Springer, section 6.3.4).
+
+What this module does (:func:`split_crowns`): smooth a brightness layer at a fraction of
+the smallest crown radius; take the h-maxima as markers (one per lit dome; a dome's leaf
+texture makes maxima shallower than ``h``, which merge); flood the inverted layer from them
+so that each region ends on the valleys around its crown; drop regions smaller than a share
+of the smallest crown's area (bits of gap, slivers between overlaps). Each crown's position
+is its region's centroid weighted by the squared distance to the region's edge, not its
+brightness peak: a dome lit from one side has its brightest point well towards the sun
+(about 0.7 of the radius in the scene suite's closed canopy) while its region, bounded by
+valleys on every side, is centred on the crown.
+
+When the imagery default switches to this path is decided once per raster on the sample
+windows (:func:`canopy_evidence`, :func:`is_closed_canopy`): nearly all pixels are green
+vegetation and brightness does not run against greenness, or the brighter places are
+clearly the greener ones (the bright phase of the image is canopy, the dark phase the
+gaps). On open ground most pixels are soil, not green; dark crowns on green pasture make
+brightness and greenness run opposite.
+
+Everything here is a pure function of arrays; thresholds come from the whole raster
+beforehand, so tiled runs with an overlap of two largest crown diameters give the whole
+image's result.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+
+__all__ = [
+    "CanopySplit",
+    "canopy_evidence",
+    "canopy_layer",
+    "canopy_split",
+    "is_closed_canopy",
+    "split_crowns",
+]
+
+#: Smoothing of the brightness layer, as a share of the smallest crown radius: leaf
+#: texture merges, the valleys between crowns stay. Tuned on benchmarks/tuning_scenes.py
+#: (``canopy``, ``stand``, seeds 100-102).
+SMOOTH_SHARE = 0.35
+#: Marker dynamic ``h`` as a share of the robust standard deviation of the smoothed layer
+#: over the raster's sample windows. Tuned as above.
+H_SHARE = 0.1
+#: A region's crown part lies above this share of the way from its valley floor to its
+#: peak; its centre is computed there. Tuned as above.
+CORE_SHARE = 0.5
+#: Regions smaller than this share of the smallest crown's disc are gaps or slivers.
+MIN_AREA_SHARE = 0.25
+#: Chromatic Excess Green above which a pixel counts as green vegetation in the switch
+#: rule (about the level of dry grass and olive crowns in the tuning scenes).
+GREEN_EXG = 0.1
+#: The switch fires when nearly all sampled pixels are green vegetation and brightness does
+#: not run against greenness (dark trees on a green field give a clearly negative
+#: correlation: -0.27 to -0.54 on the tuning scenes ``pasture`` and ``conifers``) ...
+CLOSED_GREEN_SHARE = 0.75
+CLOSED_MIN_CORR = -0.15
+#: ... or when brightness follows greenness closely (crowns packed over dark ground) on a
+#: scene that is at least partly green. Open tuning scenes: green share <= 0.50 and
+#: correlation <= 0.11; packed ones (``canopy``, ``stand``, ``domes``): 0.49-1.00 and
+#: 0.01-0.80 (seeds 100-103).
+PACKED_MIN_CORR = 0.4
+PACKED_GREEN_SHARE = 0.3
+
+
+@dataclass(frozen=True)
+class CanopySplit:
+    """Settings of the watershed crown split, fixed once per raster.
+
+    Attributes
+    ----------
+    r_min_px, r_max_px : float
+        Smallest and largest crown radius, pixels.
+    smooth_px : float
+        Gaussian smoothing of the layer, pixels.
+    h : float
+        Marker dynamic, layer units.
+    min_area_px : float
+        Smallest region kept, pixels.
+    layer : str
+        ``brightness`` (log of the green band, or of the first band) or ``given`` (the
+        caller's layer, e.g. a calibrated plant probability).
+    min_peak : float
+        Regions whose smoothed peak is lower are ground, not crowns (``-inf``: keep all).
+    """
+
+    r_min_px: float
+    r_max_px: float
+    smooth_px: float
+    h: float
+    min_area_px: float
+    layer: str = "brightness"
+    min_peak: float = -math.inf
+
+    @property
+    def overlap_px(self) -> int:
+        """Tile overlap that keeps tiled results equal to whole-image ones."""
+        return math.ceil(4.0 * self.r_max_px + 4.0 * self.smooth_px) + 2
+
+
+def canopy_layer(data: np.ndarray, roles: tuple[str, ...]) -> np.ndarray:
+    """Brightness layer for valley following: log(1 + green band).
+
+    The green band is the brightest visible band of foliage; the logarithm makes shading
+    (a factor on reflectance) an additive offset, so a valley's depth does not depend on
+    how bright the species is. Without a green band the first band is used.
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        Bands, shape (bands, rows, columns).
+    roles : tuple of str
+        Role of each band (``red``, ``green``, ``blue``, ``nir``, ...).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 layer.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = np.array([[[10.0]], [[np.e - 1]], [[5.0]]])
+    >>> round(float(canopy_layer(d, ("red", "green", "blue"))[0, 0]), 6)
+    1.0
+    """
+    i = roles.index("green") if "green" in roles else 0
+    return np.log1p(np.maximum(np.asarray(data[i], np.float32), 0.0)).astype(np.float32)
+
+
+def split_crowns(
+    layer: np.ndarray,
+    r_min_px: float,
+    h: float,
+    *,
+    smooth_px: float | None = None,
+    min_area_px: float | None = None,
+    valid: np.ndarray | None = None,
+    origin: tuple[int, int] = (0, 0),
+    min_peak: float = -math.inf,
+) -> dict[str, np.ndarray]:
+    """One point per crown: watershed of the smoothed layer from its h-maxima.
+
+    Parameters
+    ----------
+    layer : numpy.ndarray
+        2-D layer in which crowns are bright domes and the gaps between them dark valleys
+        (brightness, or a plant probability).
+    r_min_px : float
+        Smallest crown radius, pixels.
+    h : float
+        Marker dynamic (layer units): a maximum must rise at least ``h`` above the saddle
+        to a higher one to start a crown of its own.
+    smooth_px : float, optional
+        Gaussian smoothing, pixels (default ``SMOOTH_SHARE * r_min_px``).
+    min_area_px : float, optional
+        Smallest region kept, pixels (default ``MIN_AREA_SHARE`` × π ``r_min_px``²).
+    valid : numpy.ndarray of bool, optional
+        Pixels that carry data; the others belong to no crown.
+    origin : (int, int)
+        Column and row of ``layer[0, 0]`` in the raster.
+    min_peak : float
+        Regions whose smoothed peak is below this are dropped (ground in a probability map).
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``col``, ``row`` (weighted region centroids, raster pixel coordinates),
+        ``area_px`` (region area), ``peak`` (highest smoothed value in the region) and
+        ``prominence`` (peak minus the region's lowest value).
+
+    Examples
+    --------
+    Two touching discs of radius 12 whose centres lie 22 pixels apart give two points,
+    each on its disc's centre:
+
+    >>> import numpy as np
+    >>> yy, xx = np.mgrid[:48, :70].astype(float)
+    >>> dome = lambda cx: np.sqrt(np.clip(144 - (xx - cx) ** 2 - (yy - 24) ** 2, 0, None))
+    >>> img = np.maximum(dome(24.0), dome(46.0))
+    >>> got = split_crowns(img, 10.0, 0.5)
+    >>> np.round(got["col"]).tolist(), np.round(got["row"]).tolist()
+    ([24.0, 46.0], [24.0, 24.0])
+    """
+    from skimage.morphology import h_maxima
+    from skimage.segmentation import find_boundaries, watershed
+
+    lay = np.asarray(layer, np.float32)
+    ok = np.ones(lay.shape, bool) if valid is None else np.asarray(valid, bool)
+    empty = {k: np.zeros(0) for k in ("col", "row", "area_px", "peak", "prominence")}
+    if not ok.any():
+        return empty
+    s = SMOOTH_SHARE * r_min_px if smooth_px is None else float(smooth_px)
+    amin = MIN_AREA_SHARE * math.pi * r_min_px**2 if min_area_px is None else min_area_px
+    lo = float(lay[ok].min())
+    work = np.where(ok, lay, lo)
+    smooth = ndimage.gaussian_filter(work, s) if s > 0 else work
+    smooth[~ok] = lo
+    # h_maxima needs h > 0 and works on the value grid; float64 avoids rounding at h
+    peaks = h_maxima(smooth.astype(np.float64), max(float(h), 1e-12)) & ok
+    markers, n = ndimage.label(peaks, structure=np.ones((3, 3), bool))
+    if n == 0:
+        return empty
+    regions = watershed(-smooth, markers, mask=ok)
+    idx = np.arange(1, n + 1)
+    area = ndimage.sum_labels(ok, regions, idx)
+    # centroid weighted by the squared distance to the region's edge: the crown's middle
+    # counts, lobes and slivers squeezed between neighbours hardly do
+    peak = np.asarray(ndimage.maximum(smooth, regions, idx), float)
+    low = np.asarray(ndimage.minimum(smooth, regions, idx), float)
+    # the crown part of each region: above the level CORE_SHARE of the way from the
+    # region's lowest value (its valley floor) to its peak; flat ground and gap floors
+    # attached to a region by the flooding do not pull its centre
+    level = np.r_[np.inf, low + CORE_SHARE * (peak - low)]
+    core = ok & (smooth >= level[regions])
+    inner = core & ~find_boundaries(np.where(core, regions, 0), mode="inner")
+    # the raster's edge bounds a region too (padding); a tile's edge lies in its overlap
+    dist = ndimage.distance_transform_edt(np.pad(inner, 1))[1:-1, 1:-1].astype(np.float64)
+    weight = dist * dist
+    wsum = ndimage.sum_labels(weight, regions, idx)
+    rows, cols = np.indices(lay.shape, dtype=np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        row = ndimage.sum_labels(weight * rows, regions, idx) / wsum
+        col = ndimage.sum_labels(weight * cols, regions, idx) / wsum
+    keep = (area >= amin) & (wsum > 0) & (peak >= min_peak)
+    return {
+        "col": col[keep] + origin[0],
+        "row": row[keep] + origin[1],
+        "area_px": area[keep].astype(float),
+        "peak": np.asarray(peak, float)[keep],
+        "prominence": np.asarray(peak - low, float)[keep],
+    }
+
+
+def canopy_split(
+    layers: list[np.ndarray],
+    valids: list[np.ndarray],
+    r_min_px: float,
+    r_max_px: float,
+    *,
+    layer: str = "brightness",
+    h_share: float = H_SHARE,
+) -> CanopySplit:
+    """Settings of the crown split for a raster, from its sample windows.
+
+    ``h`` is ``h_share`` × the robust standard deviation (1.4826 × MAD; Hampel 1974,
+    *JASA* 69: 383–393) of the smoothed layer over all sampled pixels, so it follows the
+    image's contrast and is the same for every tile.
+
+    Parameters
+    ----------
+    layers : list of numpy.ndarray
+        The layer (:func:`canopy_layer` or a calibrated one) on each sample window.
+    valids : list of numpy.ndarray of bool
+        Valid pixels of each window.
+    r_min_px, r_max_px : float
+        Crown radius range, pixels.
+    layer : str
+        What the layer is (recorded).
+    h_share : float
+        Marker dynamic in robust standard deviations.
+
+    Returns
+    -------
+    CanopySplit
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lay = np.random.default_rng(0).normal(0, 1, (64, 64)).astype(np.float32)
+    >>> cs = canopy_split([lay], [np.ones((64, 64), bool)], 10, 20)
+    >>> cs.smooth_px, cs.h > 0
+    (3.5, True)
+    """
+    s = SMOOTH_SHARE * r_min_px
+    vals = []
+    for lay, ok in zip(layers, valids, strict=True):
+        sm = ndimage.gaussian_filter(np.asarray(lay, np.float32), s)
+        vals.append(sm[ok])
+    v = np.concatenate(vals) if vals else np.zeros(1)
+    med = float(np.median(v))
+    sd = 1.4826 * float(np.median(np.abs(v - med)))
+    if not sd > 0:
+        sd = float(np.std(v)) or 1e-6
+    return CanopySplit(
+        r_min_px=float(r_min_px),
+        r_max_px=float(r_max_px),
+        smooth_px=s,
+        h=h_share * sd,
+        min_area_px=MIN_AREA_SHARE * math.pi * r_min_px**2,
+        layer=layer,
+    )
+
+
+def canopy_evidence(
+    datas: list[np.ndarray], valids: list[np.ndarray], roles: tuple[str, ...], r_min_px: float
+) -> dict[str, float]:
+    """How canopy-like a raster is, measured on its sample windows.
+
+    Parameters
+    ----------
+    datas : list of numpy.ndarray
+        Bands of each window, shape (bands, rows, columns).
+    valids : list of numpy.ndarray of bool
+        Valid pixels of each window.
+    roles : tuple of str
+        Band roles; red, green and blue are needed (otherwise nothing is measured).
+    r_min_px : float
+        Smallest crown radius, pixels (the smoothing scale).
+
+    Returns
+    -------
+    dict
+        ``green_share``: share of valid pixels whose chromatic Excess Green (Woebbecke et
+        al. 1995) exceeds ``GREEN_EXG``; ``bright_green_corr``: Pearson correlation of
+        log green-band brightness and Excess Green, both smoothed at ``SMOOTH_SHARE`` ×
+        ``r_min_px``. Both NaN without red, green and blue bands.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> lit = rng.uniform(0.5, 1.5, (1, 40, 40))
+    >>> canopy = np.concatenate([40 * lit, 100 * lit ** 1.3, 30 * lit])
+    >>> ev = canopy_evidence([canopy], [np.ones((40, 40), bool)], ("red", "green", "blue"), 4)
+    >>> ev["green_share"], ev["bright_green_corr"] > 0.5
+    (1.0, True)
+    """
+    from ecoscan.detect.indices import excess_green
+
+    if not all(r in roles for r in ("red", "green", "blue")):
+        return {"green_share": math.nan, "bright_green_corr": math.nan}
+    ir, ig, ib = (roles.index(r) for r in ("red", "green", "blue"))
+    s = SMOOTH_SHARE * r_min_px
+    green = total = 0
+    br_all, ex_all = [], []
+    for data, ok in zip(datas, valids, strict=True):
+        ex = excess_green(data[ir], data[ig], data[ib])
+        green += int((ex[ok] > GREEN_EXG).sum())
+        total += int(ok.sum())
+        br = ndimage.gaussian_filter(canopy_layer(data, roles), s)
+        exs = ndimage.gaussian_filter(ex, s)
+        step = max(1, int(s))  # neighbouring smoothed pixels add nothing new
+        sel = ok[::step, ::step]
+        br_all.append(br[::step, ::step][sel])
+        ex_all.append(exs[::step, ::step][sel])
+    b, e = np.concatenate(br_all), np.concatenate(ex_all)
+    corr = float(np.corrcoef(b, e)[0, 1]) if b.size > 2 and b.std() > 0 and e.std() > 0 else 0.0
+    return {"green_share": green / max(total, 1), "bright_green_corr": corr}
+
+
+def is_closed_canopy(evidence: dict[str, float]) -> bool:
+    """The switch rule: the image is canopy with gaps, not plants on open ground.
+
+    Fires when nearly all pixels are green (``CLOSED_GREEN_SHARE``) and brightness does not
+    run against greenness (``CLOSED_MIN_CORR``), or when brightness follows greenness
+    closely (``PACKED_MIN_CORR``) on a partly green scene (``PACKED_GREEN_SHARE``).
+
+    Examples
+    --------
+    >>> is_closed_canopy({"green_share": 0.97, "bright_green_corr": 0.2})
+    True
+    >>> is_closed_canopy({"green_share": 0.95, "bright_green_corr": -0.3})  # trees on grass
+    False
+    >>> is_closed_canopy({"green_share": 0.5, "bright_green_corr": 0.8})  # over dark ground
+    True
+    >>> is_closed_canopy({"green_share": 0.45, "bright_green_corr": 0.1})  # shrubs, grass
+    False
+    """
+    g, c = evidence.get("green_share", math.nan), evidence.get("bright_green_corr", math.nan)
+    closed = g >= CLOSED_GREEN_SHARE and c > CLOSED_MIN_CORR
+    packed = g >= PACKED_GREEN_SHARE and c >= PACKED_MIN_CORR
+    return bool(closed or packed)

@@ -1,0 +1,253 @@
+"""Closed-canopy crown split (ecoscan.detect.canopy): valley-following watershed.
+
+External facts checked: the geometry of discs (two touching discs have their centres one
+sum of radii apart; a disc's centroid is its centre), Lambert shading of a hemisphere (the
+brightest point of a dome lit at elevation e lies r·cos(e) from its centre towards the
+sun: Lambert's cosine law, common practice in shading models), and the robust standard
+deviation 1.4826 × MAD (Hampel 1974, JASA 69: 383).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from ecoscan.detect.canopy import (
+    canopy_evidence,
+    canopy_split,
+    is_closed_canopy,
+    split_crowns,
+)
+
+
+def _domes(shape, centres, radius, sun_elevation_deg=None):
+    """Hemispherical crowns, each of unit height whatever its radius (brightness does not
+    grow with crown size) when no sun, else Lambert brightness with the sun towards -x
+    (left) at the given elevation and an ambient term of 0.2."""
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    out = np.zeros(shape)
+    for cx, cy in centres:
+        rho2 = (xx - cx) ** 2 + (yy - cy) ** 2
+        inside = rho2 < radius**2
+        if sun_elevation_deg is None:
+            val = np.sqrt(np.clip(1 - rho2 / radius**2, 0, None))
+        else:
+            e = math.radians(sun_elevation_deg)
+            nx = (xx - cx) / radius
+            nz = np.sqrt(np.clip(1 - rho2 / radius**2, 0, None))
+            val = 0.2 + np.clip(-math.cos(e) * nx + math.sin(e) * nz, 0, None)
+        out = np.where(inside, np.maximum(out, val), out)
+    # the ground between crowns is a valley: darker with distance from the nearest crown
+    from scipy import ndimage
+
+    ground = ndimage.distance_transform_edt(out <= 0)
+    return np.where(out > 0, out, -0.01 * ground)
+
+
+def test_two_touching_discs_give_two_points_within_a_pixel():
+    # two discs of radius 14 whose centres lie exactly 2 r apart (they touch)
+    centres = [(30.3, 40.0), (58.3, 40.0)]
+    img = _domes((80, 89), centres, 14.0)
+    got = split_crowns(img, 12.0, 0.05)
+    assert got["col"].size == 2
+    order = np.argsort(got["col"])
+    for k, (cx, cy) in zip(order, centres, strict=True):
+        assert math.hypot(got["col"][k] - cx, got["row"][k] - cy) < 1.0
+    # equal-area regions: each is about one disc (pi r^2 = 616 px) plus its share of ground
+    assert got["area_px"].min() > math.pi * 14.0**2 * 0.9
+
+
+def test_overlapping_crowns_of_different_size_each_found():
+    # radii 16 and 10, centres 20 apart: overlap (distance < 26) but each centre lies
+    # outside the other crown (20 > 16), as in the scene suite's closed canopy
+    img = np.maximum(_domes((70, 90), [(30, 35)], 16.0), _domes((70, 90), [(50, 35)], 10.0))
+    got = split_crowns(img, 8.0, 0.05)
+    assert got["col"].size == 2
+    cols = np.sort(got["col"])
+    # the smaller crown is seen only in part: its visible centre lies off its nominal one,
+    # well within the matching tolerance of half the smallest diameter
+    assert abs(cols[0] - 30) < 4.0 and abs(cols[1] - 50) < 5.0
+
+
+def test_position_is_the_region_centre_not_the_brightness_peak():
+    # one row of touching domes lit from the left at 45 degrees: the brightest point of
+    # each lies r cos(45) = 0.71 r towards the sun (Lambert); the region, bounded by the
+    # shaded valleys on both sides, is centred within 0.35 r of the crown (measured 0.3 r
+    # sunwards: the valley floor is the flat shaded side, split at random)
+    r = 15.0
+    centres = [(20.0 + 2 * r * i, 30.0) for i in range(4)]
+    img = _domes((60, 140), centres, r, sun_elevation_deg=45.0)
+    got = split_crowns(img, 12.0, 0.05)
+    assert got["col"].size == 4
+    truth = np.array(centres)
+    for c, rr in zip(got["col"], got["row"], strict=True):
+        d_region = np.hypot(truth[:, 0] - c, truth[:, 1] - rr).min()
+        assert d_region < 0.35 * r
+    # and the brightness peak is where Lambert's law puts it: 0.71 r sunwards
+    sm_peak = np.argmax(img[30, 5:35]) + 5
+    assert sm_peak == pytest.approx(20.0 - r * math.cos(math.radians(45)), abs=1.0)
+
+
+def test_small_regions_and_invalid_pixels_are_dropped():
+    img = _domes((60, 60), [(30, 30)], 12.0)
+    img[2:5, 2:5] += 0.3  # a 3 x 3 bright speck: far below a quarter of the smallest crown
+    valid = np.ones(img.shape, bool)
+    got = split_crowns(img, 10.0, 0.05, valid=valid, origin=(100, 200))
+    assert got["col"].size == 1
+    assert got["col"][0] == pytest.approx(130.0, abs=0.5)
+    assert got["row"][0] == pytest.approx(230.0, abs=0.5)
+    nothing = split_crowns(img, 10.0, 0.05, valid=np.zeros(img.shape, bool))
+    assert nothing["col"].size == 0
+
+
+def test_marker_height_follows_the_robust_spread():
+    rng = np.random.default_rng(5)
+    lay = rng.normal(0.0, 2.0, (200, 200)).astype(np.float32)
+    cs = canopy_split([lay], [np.ones(lay.shape, bool)], 4.0, 12.0, h_share=1.0)
+    from scipy import ndimage, stats
+
+    sm = ndimage.gaussian_filter(lay, cs.smooth_px)
+    # scipy's median_abs_deviation with scale="normal" is 1.4826 x MAD (Hampel 1974)
+    assert cs.h == pytest.approx(stats.median_abs_deviation(sm.ravel(), scale="normal"), rel=1e-4)
+    assert cs.min_area_px == pytest.approx(0.25 * math.pi * 16.0)
+
+
+def _scene_arrays(style):
+    from ecoscan.synthetic import make_scene
+
+    sc = make_scene(style, 256, 3)
+    img = sc.image.astype(np.float32)
+    return img, sc
+
+
+@pytest.mark.parametrize(
+    ("style", "fires"),
+    [("closed-canopy", True), ("dry-shrubs", False), ("conifer-pasture", False)],
+)
+def test_switch_rule_fires_on_a_packed_canopy_only(style, fires):
+    img, sc = _scene_arrays(style)
+    r_min = sc.diameter_range_m[0] / 2 / sc.pixel_size_m
+    ev = canopy_evidence([img], [np.ones(img.shape[1:], bool)], ("red", "green", "blue"), r_min)
+    assert is_closed_canopy(ev) is fires, ev
+
+
+def test_switch_needs_colour_bands():
+    img = np.ones((1, 32, 32), np.float32)
+    ev = canopy_evidence([img], [np.ones((32, 32), bool)], ("band",), 4.0)
+    assert not is_closed_canopy(ev)
+
+
+def test_closed_canopy_detection_tiled_equals_whole_and_is_recorded(tmp_path):
+    from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
+    from ecoscan.stats.matching import match_points
+    from ecoscan.synthetic import make_scene, write_scene
+
+    sc = make_scene("closed-canopy", 420, 3)
+    paths = write_scene(sc, tmp_path)
+    lo, hi = sc.diameter_range_m
+    whole = detect_raster(
+        paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=1024)
+    )
+    tiled = detect_raster(
+        paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=128)
+    )
+    assert whole.thresholds["layer"] == "canopy"
+    assert tiled.tiles_total > 1
+    a = np.sort(np.round(whole.points.xy, 6), axis=0)
+    b = np.sort(np.round(tiled.points.xy, 6), axis=0)
+    assert a.shape == b.shape and np.array_equal(a, b)
+    # the user is told that closed-canopy counts need checking
+    assert any("closed-canopy counts are unreliable" in w for w in whole.warnings)
+    meta = detection_metadata(whole)
+    assert meta["thresholds"]["canopy_green_share"] >= 0.75
+    # the split finds most crowns here (the blob path found about a quarter)
+    m = match_points(whole.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
+    assert m.n_matched / sc.n > 0.6
+
+
+# --- calibrated detectors: the [crown_split] table --------------------------------------
+
+
+def _two_dome_raster(tmp_path):
+    from rasterio.transform import from_origin
+
+    from ecoscan.synthetic import write_geotiff
+
+    # a row of touching domes 28 px across (1.4 m at 0.05 m pixels), grey values in 8 bits
+    centres = [(30.0 + 28.0 * i, 40.0) for i in range(4)]
+    img = _domes((80, 150), centres, 14.0)
+    grey = np.clip(60 + 150 * img, 0, 255).astype(np.uint8)
+    rgb = np.stack([grey, grey, grey])
+    path = write_geotiff(
+        tmp_path / "domes.tif", rgb, from_origin(500000.0, 4100000.0, 0.05, 0.05), "EPSG:32633"
+    )
+    return path, centres
+
+
+def _detector(split):
+    from ecoscan.detect.detector_file import CalibratedDetector
+
+    return CalibratedDetector(
+        "layer", "brightness", ("red", "green", "blue"), "uint8", 0.05, 1.2, 1.6,
+        1.0, -1e9, 60.0, split=split,
+    )  # fmt: skip
+
+
+def test_crown_split_round_trips_through_the_detector_file_and_detects(tmp_path):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect.detector_file import read_detector, to_toml, write_detector
+
+    split = {"h": 2.0, "min_peak": 100.0, "smooth_share": 0.35, "min_area_share": 0.25}
+    toml = tmp_path / "det.toml"
+    write_detector(toml, _detector(split))
+    assert "[crown_split]" in to_toml(_detector(split))
+    assert "format_version = 2" in toml.read_text()
+    back = read_detector(toml)
+    assert back.split == split
+    # a detector without the split still writes version 1 (older readers accept it)
+    assert "format_version = 1" in to_toml(_detector({}))
+    raster, centres = _two_dome_raster(tmp_path)
+    res = detect_raster(raster, DetectionSettings(detector=str(toml)))
+    assert res.thresholds["crown_split"] == split
+    cols = np.sort((res.points.x - 500000.0) / 0.05 - 0.5)
+    # one point per dome, each within a pixel of its centre (pixel 0 is centred at 0.5)
+    assert cols.size == 4
+    assert np.abs(cols - np.array([c for c, _ in centres])).max() < 1.0
+
+
+def test_impossible_crown_split_table_is_refused(tmp_path):
+    from ecoscan.detect.detector_file import read_detector, write_detector
+    from ecoscan.errors import InputError
+
+    toml = tmp_path / "det.toml"
+    write_detector(toml, _detector({"h": 2.0, "min_peak": 100.0, "smooth_share": 0.35,
+                                    "min_area_share": 0.25}))  # fmt: skip
+    toml.write_text(toml.read_text().replace("h = 2.0", "h = -1.0"))
+    with pytest.raises(InputError, match=r"crown_split"):
+        read_detector(toml)
+
+
+def test_split_scoring_counts_crowns_by_fold():
+    import shapely
+
+    from ecoscan.detect.calibration import _score_split, _Window
+
+    # a probability map of touching crowns that blobs would merge: two folds (left, right)
+    centres = [(30.0 + 28.0 * i, 40.0) for i in range(4)]
+    prob = _domes((80, 150), centres, 14.0).clip(0, None)
+    fold_map = np.zeros(prob.shape, int)
+    fold_map[:, 75:] = 1
+    ref = np.array(centres)
+    w = _Window(
+        plot=0, c0=0, r0=0, c1=150, r1=80, data=np.zeros((1, 80, 150)),
+        valid=np.ones(prob.shape, bool), poly_px=shapely.box(0, 0, 150, 80), ref=ref,
+        ref_fold=np.array([0, 0, 1, 1]), fold_map=fold_map, ref_index=np.arange(4),
+    )  # fmt: skip
+    got = _score_split([prob], [w], 2, 5.0, 24.0, 32.0)
+    assert got is not None
+    score, split = got
+    # every crown found in its own fold, nothing else
+    assert (score.tp, score.fp, score.fn) == (4, 0, 0)
+    assert split["h"] > 0 and set(split) == {"h", "min_peak", "smooth_share", "min_area_share"}
