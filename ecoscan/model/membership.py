@@ -166,7 +166,7 @@ def overlapping_plots(layer: PlotLayer) -> list[tuple[str, str, float]]:
     Examples
     --------
     >>> import shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> overlapping_plots(lay)
@@ -193,7 +193,7 @@ def overlap_note(layer: PlotLayer) -> str | None:
     Examples
     --------
     >>> import shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(1, 0, 3, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> overlap_note(lay).split(":")[0]
@@ -218,7 +218,7 @@ def assign_plots(points: PointSet, layer: PlotLayer) -> PlotMembership:
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
     >>> lay = PlotLayer([a, b], None)
     >>> assign_plots(PointSet(np.array([0.5]), np.array([0.5])), lay).counts().tolist()
@@ -238,7 +238,7 @@ def points_by_plot(points: PointSet, layer: PlotLayer, membership: PlotMembershi
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(0, 0, 1, 1))
     >>> lay = PlotLayer([a, b], None)
     >>> pts = PointSet(np.array([0.5, 1.5]), np.array([0.5, 1.5]))
@@ -283,7 +283,7 @@ def unsurveyed_plots(
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 2, 2)), Plot("B", shapely.box(9, 9, 10, 10))
     >>> lay = PlotLayer([a, b], None)
     >>> m = plot_membership(np.array([1.0]), np.array([1.0]), [p.geometry for p in lay.plots])
@@ -323,7 +323,7 @@ def drop_plots(
     Examples
     --------
     >>> import numpy as np, shapely
-    >>> from ecoscan.io.vector import Plot, PlotLayer
+    >>> from ecoscan.model.plots import Plot, PlotLayer
     >>> a, b = Plot("A", shapely.box(0, 0, 1, 1)), Plot("B", shapely.box(0, 0, 2, 2))
     >>> lay = PlotLayer([a, b], None)
     >>> m = plot_membership(np.array([1.5]), np.array([1.5]), [p.geometry for p in lay.plots])

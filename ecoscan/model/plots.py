@@ -2,12 +2,45 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
+from typing import Any
 
+import numpy as np
 import shapely
 from pyproj import CRS
 
-__all__ = ["Plot", "PlotLayer"]
+__all__ = ["Plot", "PlotLayer", "id_text"]
+
+
+def id_text(value: Any) -> str:
+    """A plot, site or date value read from a table, as the text that identifies it.
+
+    Whole numbers lose their decimal point (a plot id ``7`` read as ``7.0`` is ``"7"``),
+    missing values (None, NaN) become ``""``, and surrounding spaces are removed.
+
+    Parameters
+    ----------
+    value : Any
+        The value as a table reader gave it.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> id_text(7.0), id_text(float("nan")), id_text(" P1 "), id_text(None)
+    ('7', '', 'P1', '')
+    """
+    if value is None:
+        return ""
+    if isinstance(value, (float, np.floating)):
+        if math.isnan(float(value)):
+            return ""
+        if float(value).is_integer():
+            return str(int(value))
+    return str(value).strip()
 
 
 @dataclass

@@ -24,7 +24,7 @@ from ecoscan.io.crs import crs_label, transform_xy
 from ecoscan.io.inputs import one_row_per_plant
 from ecoscan.io.vector import reproject_geometries
 from ecoscan.model.membership import assign_plots, overlap_note
-from ecoscan.model.plots import Plot, PlotLayer
+from ecoscan.model.plots import Plot, PlotLayer, id_text
 from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
 from ecoscan.settings import Settings, whole_number
@@ -218,17 +218,6 @@ class ChangeResult:
 
 
 # ----------------------------------------------------------------------------- helpers
-
-
-def _id_text(v: Any) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, (float, np.floating)):
-        if math.isnan(float(v)):
-            return ""
-        if float(v).is_integer():
-            return str(int(v))
-    return str(v).strip()
 
 
 def _align_crs(earlier: PointSet, later: PointSet, notes: list[str]):
@@ -589,8 +578,8 @@ def _plot_membership(
     if plots is not None:
         return _membership_from_plots(plots, crs, pairs, notes, warnings)
     if "plot_id" in earlier.attrs and "plot_id" in later.attrs:
-        pe = np.array([_id_text(v) for v in earlier.attrs["plot_id"]], dtype=object)
-        pl = np.array([_id_text(v) for v in later.attrs["plot_id"]], dtype=object)
+        pe = np.array([id_text(v) for v in earlier.attrs["plot_id"]], dtype=object)
+        pl = np.array([id_text(v) for v in later.attrs["plot_id"]], dtype=object)
         plot_id = np.r_[pe[pairs.ea_idx], pl[pairs.unmatched_b]].astype(object)
         only_e = sorted(set(pe) - set(pl) - {""})
         only_l = sorted(set(pl) - set(pe) - {""})

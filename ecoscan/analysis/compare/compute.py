@@ -36,7 +36,7 @@ from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, parse_crs
 from ecoscan.io.vector import read_points, reproject_geometries
 from ecoscan.model.membership import PlotMembership
-from ecoscan.model.plots import PlotLayer
+from ecoscan.model.plots import PlotLayer, id_text
 from ecoscan.model.points import PointSet
 from ecoscan.settings import Settings, whole_number
 from ecoscan.stats.compare_r import (
@@ -126,17 +126,6 @@ _P_COLUMNS = (
 
 
 # ------------------------------------------------------------------------------ reading
-
-
-def _text(v: Any) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, (float, np.floating)):
-        if math.isnan(float(v)):
-            return ""
-        if float(v).is_integer():
-            return str(int(v))
-    return str(v).strip()
 
 
 @dataclass(frozen=True)
@@ -232,15 +221,15 @@ def _read_plot_geoms(path: Path, points_crs) -> dict[tuple[str, str], shapely.Ge
         geoms = reproject_geometries(geoms, src, points_crs)
     elif src is not None and points_crs is None and not src.is_projected:
         raise InputError(f"{path} is in {crs_label(src)} (degrees); rerun the analysis")
-    ids = [_text(v) for v in data[lower["plot_id"]]]
-    sites = [_text(v) for v in data[lower["site"]]] if "site" in lower else [""] * len(ids)
+    ids = [id_text(v) for v in data[lower["plot_id"]]]
+    sites = [id_text(v) for v in data[lower["site"]]] if "site" in lower else [""] * len(ids)
     return {(s, i): g for s, i, g in zip(sites, ids, geoms, strict=True) if g is not None}
 
 
 def _attr_text(points: PointSet, name: str) -> np.ndarray | None:
     for k, v in points.attrs.items():
         if k.lower() == name:
-            return np.array([_text(x) for x in v], dtype=object)
+            return np.array([id_text(x) for x in v], dtype=object)
     return None
 
 
@@ -374,7 +363,7 @@ def results_from_points(
         of_site = site == s
         for plot in layer.plots:
             own = plot.attrs.get("site") if isinstance(plot.attrs, dict) else None
-            if own is not None and _text(own) != s:
+            if own is not None and id_text(own) != s:
                 continue
             if own is None and has_site and not np.any(of_site & (pid == plot.plot_id)):
                 continue
