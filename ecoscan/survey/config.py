@@ -302,143 +302,44 @@ def load_survey(path: str | Path) -> SurveyConfig:
     ------
     InputError
         With every problem found, each on its own line with its line number.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (d / "s.toml").write_text('[survey]\\nplots = "p.gpkg"\\n')
+    >>> load_survey(d / "s.toml")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    ecoscan.errors.InputError: ...
     """
     src = Path(path)
-    if not src.is_file():
-        raise InputError(f"survey file {str(src)!r} does not exist; check the path")
-    try:
-        text = src.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise InputError(
-            f"{src.name} is not UTF-8 text (byte {exc.start}); save it as UTF-8 and run again"
-        ) from None
-    except OSError as exc:
-        raise InputError(
-            f"cannot read survey file {src}: {exc.strerror or exc}; check its permissions"
-        ) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{src.name} is not valid TOML: {exc}") from None
+    text, data = _read_toml(src)
     lines = locate_keys(text)
     problems = _Problems(src, lines)
-    base = src.resolve().parent
-
+    files = _Files(problems, src.resolve().parent)
     for key in data:
         if key not in _SECTIONS:
             near = difflib.get_close_matches(key, sorted(_SECTIONS), n=1)
             hint = f" (did you mean [{near[0]}]?)" if near else ""
             problems.add((key,), f"unknown section [{key}]{hint}")
-
     survey = data.get("survey", {})
     if not isinstance(survey, dict):
         problems.add(("survey",), "[survey] must be a table")
         survey = {}
     _unknown(problems, ("survey",), survey, _SECTIONS["survey"], "survey")
-
-    def _file(where: tuple, value: Any, what: str, must_exist: bool = True) -> Path | None:
-        s = _as_str(problems, where, value, what)
-        if s is None:
-            return None
-        p = (base / s).resolve()
-        if must_exist and not p.exists():
-            problems.add(where, f"{what} file '{s}' does not exist (looked in {p.parent})")
-        return p
-
     plots = None
     if "plots" not in survey:
         problems.add(("survey",), "[survey] needs 'plots = \"FILE\"' (the plot polygons)")
     else:
-        plots = _file(("survey", "plots"), survey["plots"], "plots")
-    output = _file(("survey", "output"), survey.get("output", "results"), "output", False)
+        plots = files.path(("survey", "plots"), survey["plots"], "plots")
+    output = files.path(("survey", "output"), survey.get("output", "results"), "output", False)
     workers = survey.get("workers", 1)
     if not isinstance(workers, int) or isinstance(workers, bool) or workers < 1:
         problems.add(("survey", "workers"), "workers must be a whole number of at least 1")
         workers = 1
-
-    def _section(name: str, extra: set[str], module: str | None, cls: str | None) -> dict:
-        table = data.get(name, {})
-        if not isinstance(table, dict):
-            problems.add((name,), f"[{name}] must be a table")
-            return {}
-        allowed = set(extra)
-        if module:
-            keys = _settings_keys(module, cls)
-            if keys is None:
-                return dict(table)
-            allowed |= keys
-        _unknown(problems, (name,), table, allowed, name)
-        return dict(table)
-
-    statistics = _section(
-        "statistics", set(), "ecoscan.analysis.dispersion.compute", "DispersionSettings"
-    )
-    scales = _section("scales", {"enabled"}, "ecoscan.analysis.scales.compute", "ScalesSettings")
-    cov = scales.get("covariates")
-    if isinstance(cov, dict) and all(isinstance(v, str) for v in cov.values()):
-        # covariate rasters are relative to the survey file, like every other path
-        resolved = {}
-        for cname, value in cov.items():
-            cp = _file(("scales", "covariates", cname), value, f"covariate {cname}")
-            resolved[cname] = str(cp) if cp is not None else value
-        scales = {**scales, "covariates": resolved}
-    change = _section("change", _SECTIONS["change"], None, None)
-    compare = _section("compare", _SECTIONS["compare"], None, None)
-    _values(problems, ("survey",), "survey", survey)
-    for name, table in (
-        ("statistics", statistics),
-        ("scales", scales),
-        ("change", change),
-        ("compare", compare),
-    ):
-        _values(problems, (name,), name, table)
-    if compare.get("by", "auto") not in ("auto", "site", "date", "plot"):
-        problems.add(("compare", "by"), "by must be 'auto', 'site', 'date' or 'plot'")
-
-    det_keys = _settings_keys("ecoscan.detect", "DetectionSettings")
-    if det_keys is not None:
-        det_keys |= {"diameter"}  # accepted as "MIN:MAX" or [MIN, MAX]
-    rasters: list[RasterEntry] = []
-    entries = data.get("raster", [])
-    if not isinstance(entries, list) or not entries:
-        problems.add(("raster",), "the survey needs at least one [[raster]] table")
-        entries = []
-    names: set[str] = set()
-    for i, entry in enumerate(entries):
-        where = ("raster", i)
-        _unknown(problems, where, entry, _SECTIONS["raster"], "raster")
-        if "path" not in entry:
-            problems.add(where, "[[raster]] needs 'path = \"FILE\"'")
-            continue
-        p = _file((*where, "path"), entry["path"], "raster")
-        name = _as_str(problems, (*where, "name"), entry.get("name"), "name") or (
-            Path(str(entry["path"])).stem
-        )
-        if name in names:
-            problems.add((*where, "name"), f"two rasters are named '{name}'; give each a name")
-        names.add(name)
-        site = _as_str(problems, (*where, "site"), entry.get("site", "site"), "site") or "site"
-        date = _as_date(problems, (*where, "date"), entry.get("date"))
-        det = entry.get("detect", {})
-        if not isinstance(det, dict):
-            problems.add((*where, "detect"), "detect must be a table of detector settings")
-            det = {}
-        if det_keys is not None:
-            _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
-        _values(problems, (*where, "detect"), "raster.detect", det)
-        if isinstance(det.get("detector"), str):  # ecoscan calibrate's file, beside the survey
-            d = _file((*where, "detect", "detector"), det["detector"], "detector")
-            det = {**det, "detector": str(d) if d is not None else det["detector"]}
-            if d is not None and d.exists():
-                from ecoscan.detect.detector_file import read_detector
-
-                try:  # refused before any work: parse, keys, model file and its hash
-                    read_detector(d, load_model=False)
-                except InputError as exc:
-                    problems.add((*where, "detect", "detector"), str(exc))
-        if p is not None:
-            rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
-    _same_file_names(problems, rasters, entries)
+    statistics, scales, change, compare = _job_sections(problems, files, data, survey)
+    rasters = _raster_entries(problems, files, data, lines)
     # the settings classes check what the key checks cannot (choices, combinations)
     _check_values(problems, statistics, scales, rasters)
     problems.raise_if_any()
@@ -456,3 +357,160 @@ def load_survey(path: str | Path) -> SurveyConfig:
         change=change,
         compare=compare,
     )
+
+
+def _read_toml(src: Path) -> tuple[str, dict]:
+    """The survey file's text and its parsed tables, or one line saying why not."""
+    if not src.is_file():
+        raise InputError(f"survey file {str(src)!r} does not exist; check the path")
+    try:
+        text = src.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(
+            f"{src.name} is not UTF-8 text (byte {exc.start}); save it as UTF-8 and run again"
+        ) from None
+    except OSError as exc:
+        raise InputError(
+            f"cannot read survey file {src}: {exc.strerror or exc}; check its permissions"
+        ) from None
+    try:
+        return text, tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{src.name} is not valid TOML: {exc}") from None
+
+
+class _Files:
+    """Paths in the survey file, relative to its folder, with missing files noted."""
+
+    def __init__(self, problems: _Problems, base: Path) -> None:
+        self.problems = problems
+        self.base = base
+
+    def path(self, where: tuple, value: Any, what: str, must_exist: bool = True) -> Path | None:
+        s = _as_str(self.problems, where, value, what)
+        if s is None:
+            return None
+        p = (self.base / s).resolve()
+        if must_exist and not p.exists():
+            self.problems.add(where, f"{what} file '{s}' does not exist (looked in {p.parent})")
+        return p
+
+
+def _section(
+    problems: _Problems, data: dict, name: str, extra: set[str], module: str | None, cls
+) -> dict:
+    """One job's table, its keys checked against its settings class."""
+    table = data.get(name, {})
+    if not isinstance(table, dict):
+        problems.add((name,), f"[{name}] must be a table")
+        return {}
+    allowed = set(extra)
+    if module:
+        keys = _settings_keys(module, cls)
+        if keys is None:
+            return dict(table)
+        allowed |= keys
+    _unknown(problems, (name,), table, allowed, name)
+    return dict(table)
+
+
+def _job_sections(
+    problems: _Problems, files: _Files, data: dict, survey: dict
+) -> tuple[dict, dict, dict, dict]:
+    """The [statistics], [scales], [change] and [compare] tables, checked."""
+    statistics = _section(
+        problems,
+        data,
+        "statistics",
+        set(),
+        "ecoscan.analysis.dispersion.compute",
+        "DispersionSettings",
+    )
+    scales = _section(
+        problems,
+        data,
+        "scales",
+        {"enabled"},
+        "ecoscan.analysis.scales.compute",
+        "ScalesSettings",
+    )
+    cov = scales.get("covariates")
+    if isinstance(cov, dict) and all(isinstance(v, str) for v in cov.values()):
+        # covariate rasters are relative to the survey file, like every other path
+        resolved = {}
+        for cname, value in cov.items():
+            cp = files.path(("scales", "covariates", cname), value, f"covariate {cname}")
+            resolved[cname] = str(cp) if cp is not None else value
+        scales = {**scales, "covariates": resolved}
+    change = _section(problems, data, "change", _SECTIONS["change"], None, None)
+    compare = _section(problems, data, "compare", _SECTIONS["compare"], None, None)
+    _values(problems, ("survey",), "survey", survey)
+    for name, table in (
+        ("statistics", statistics),
+        ("scales", scales),
+        ("change", change),
+        ("compare", compare),
+    ):
+        _values(problems, (name,), name, table)
+    if compare.get("by", "auto") not in ("auto", "site", "date", "plot"):
+        problems.add(("compare", "by"), "by must be 'auto', 'site', 'date' or 'plot'")
+    return statistics, scales, change, compare
+
+
+def _raster_entries(
+    problems: _Problems, files: _Files, data: dict, lines: dict
+) -> list[RasterEntry]:
+    """The [[raster]] tables, each checked, with their detector settings."""
+    det_keys = _settings_keys("ecoscan.detect", "DetectionSettings")
+    if det_keys is not None:
+        det_keys |= {"diameter"}  # accepted as "MIN:MAX" or [MIN, MAX]
+    rasters: list[RasterEntry] = []
+    entries = data.get("raster", [])
+    if not isinstance(entries, list) or not entries:
+        problems.add(("raster",), "the survey needs at least one [[raster]] table")
+        entries = []
+    names: set[str] = set()
+    for i, entry in enumerate(entries):
+        where = ("raster", i)
+        _unknown(problems, where, entry, _SECTIONS["raster"], "raster")
+        if "path" not in entry:
+            problems.add(where, "[[raster]] needs 'path = \"FILE\"'")
+            continue
+        p = files.path((*where, "path"), entry["path"], "raster")
+        name = _as_str(problems, (*where, "name"), entry.get("name"), "name") or (
+            Path(str(entry["path"])).stem
+        )
+        if name in names:
+            problems.add((*where, "name"), f"two rasters are named '{name}'; give each a name")
+        names.add(name)
+        site = _as_str(problems, (*where, "site"), entry.get("site", "site"), "site") or "site"
+        date = _as_date(problems, (*where, "date"), entry.get("date"))
+        det = _raster_detect(problems, files, where, entry, det_keys)
+        if p is not None:
+            rasters.append(RasterEntry(p, name, site, date, dict(det), lines.get(where, 0)))
+    _same_file_names(problems, rasters, entries)
+    return rasters
+
+
+def _raster_detect(
+    problems: _Problems, files: _Files, where: tuple, entry: dict, det_keys: set[str] | None
+) -> dict:
+    """A raster's [raster.detect] table, checked; a calibrated detector file parsed."""
+    det = entry.get("detect", {})
+    if not isinstance(det, dict):
+        problems.add((*where, "detect"), "detect must be a table of detector settings")
+        det = {}
+    if det_keys is not None:
+        _unknown(problems, (*where, "detect"), det, det_keys, "raster.detect")
+    _values(problems, (*where, "detect"), "raster.detect", det)
+    if isinstance(det.get("detector"), str):  # ecoscan calibrate's file, beside the survey
+        d = files.path((*where, "detect", "detector"), det["detector"], "detector")
+        det = {**det, "detector": str(d) if d is not None else det["detector"]}
+        if d is not None and d.exists():
+            from ecoscan.detect.detector_file import read_detector
+
+            try:  # refused before any work: parse, keys, model file and its hash
+                read_detector(d, load_model=False)
+            except InputError as exc:
+                problems.add((*where, "detect", "detector"), str(exc))
+    return det
