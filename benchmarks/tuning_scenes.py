@@ -25,7 +25,9 @@ photographed in square frames with strong vignetting and saved as JPEG, quality 
 ``domes`` (the ``stand`` placement over near-black understorey, each crown shaded as a
 hemisphere lit from the upper left at 40 degrees elevation with a dark far side, and
 rough leaf-clump texture at two scales: touching crowns of one colour meet in a shaded
-valley, not a colour edge).
+valley, not a colour edge), ``oaks`` (the ``domes`` placement with broad leaf clumps whose
+size grows with the crown, a quarter of its radius, deep enough to cut a big crown's
+brightness into several bumps; hemispheres lit from the lower left at 50 degrees).
 
 Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
 
@@ -56,6 +58,7 @@ STYLES = (
     "stand",
     "jpeg",
     "domes",
+    "oaks",
 )
 TUNING_SEEDS = tuple(range(100, 104))
 PIXEL_M = 0.05
@@ -160,9 +163,10 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     gen = np.random.default_rng(seed * 31 + STYLES.index(style))
     shape = (size_px, size_px)
     dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
-    per_crown = {"clumps": 2600, "canopy": 700, "stand": 300, "domes": 300}.get(style, 3200)
+    per_crown = {"clumps": 2600, "canopy": 700, "stand": 300, "domes": 300, "oaks": 300}
+    per_crown = per_crown.get(style, 3200)
     n = int(size_px * size_px / per_crown)
-    if style in ("stand", "domes"):
+    if style in ("stand", "domes", "oaks"):
         xy, d = _place_overlapping(shape, n, dpx, gen)
     else:
         xy, d = _place(shape, n, dpx, gen, clumps=style in ("clumps", "canopy"))
@@ -172,7 +176,7 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         bg = np.array(_PASTURE, np.float32)[:, None, None] * (1 + 1.3 * mott)[None]
     elif style == "stand":
         bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.3 * (1 + mott)[None]
-    elif style == "domes":
+    elif style in ("domes", "oaks"):
         bg = np.array(_CONIFER, np.float32)[:, None, None] * 0.8 * (1 + mott)[None]
     elif style == "canopy":
         bg = np.array(_LATERITE, np.float32)[:, None, None] * 0.45 * (1 + mott)[None]
@@ -211,6 +215,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
         palette = [_GREEN, _OLIVE, (70, 120, 52), (88, 132, 70)]
     elif style == "domes":
         palette = [_GREEN, (70, 120, 52), (96, 150, 66)]
+    elif style == "oaks":
+        palette = [_GREEN, (78, 124, 50), (60, 98, 44), (104, 146, 70)]
     else:
         palette = [_GREEN, _GREEN, _OLIVE, _STRAW, _GREYBLUE]
     order = np.argsort(d)[::-1]  # small crowns drawn over large ones
@@ -240,11 +246,25 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
             nz = np.sqrt(np.clip(1 - nx * nx - ny * ny, 0, 1))
             ce, se = np.cos(np.radians(40)) / np.sqrt(2), np.sin(np.radians(40))
             lit = 0.3 + 1.1 * np.clip(-ce * nx - ce * ny + se * nz, 0, None)
+        if style == "oaks":  # hemisphere, sun to the lower left at 50 degrees elevation
+            nx, ny = (sx / (r + 1e-6)).clip(-1, 1), (sy / (r + 1e-6)).clip(-1, 1)
+            nz = np.sqrt(np.clip(1 - nx * nx - ny * ny, 0, 1))
+            ce, se = np.cos(np.radians(50)) / np.sqrt(2), np.sin(np.radians(50))
+            lit = 0.25 + 1.1 * np.clip(-ce * nx + ce * ny + se * nz, 0, None)
         if style == "domes":  # leaf clumps and gaps at two scales
             fine = 1 + 0.3 * gen.standard_normal(sx.shape).astype(np.float32)
             coarse = ndimage.gaussian_filter(gen.standard_normal(sx.shape).astype(np.float32), 3.5)
             clump = ndimage.gaussian_filter(fine, 1.2) * (1 + 0.25 * np.clip(6 * coarse, -1.5, 1.5))
             clump = np.clip(clump, 0.3, 1.8)
+        elif style == "oaks":  # leaf clumps a quarter of the crown radius across
+            fine = ndimage.gaussian_filter(
+                1 + 0.25 * gen.standard_normal(sx.shape).astype(np.float32), 1.0
+            )
+            broad = ndimage.gaussian_filter(
+                gen.standard_normal(sx.shape).astype(np.float32), max(2.0, r / 4)
+            )
+            broad /= broad.std() + 1e-9
+            clump = np.clip(fine * (1 + 0.4 * np.clip(broad, -2, 2)), 0.3, 1.8)
         elif style == "conifers":  # coarse needle texture: strong, fine-grained
             clump = 1 + 0.5 * gen.standard_normal(sx.shape).astype(np.float32)
             clump = np.clip(ndimage.gaussian_filter(clump, 0.7), 0.2, 2.0)

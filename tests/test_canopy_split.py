@@ -251,3 +251,127 @@ def test_split_scoring_counts_crowns_by_fold():
     # every crown found in its own fold, nothing else
     assert (score.tp, score.fp, score.fn) == (4, 0, 0)
     assert split["h"] > 0 and set(split) == {"h", "min_peak", "smooth_share", "min_area_share"}
+
+
+# --- joining fragments of one crown; the raster's lean towards the sun ---------------------
+
+
+def test_roundness_agrees_with_scikit_image_moments():
+    # area / (2 pi trace of the covariance) from raw moments against scikit-image's
+    # regionprops (central moments; a disc of radius R has variance R^2/4 per axis and area
+    # pi R^2, so roundness 1: geometry of the disc)
+    from skimage.measure import regionprops
+
+    from ecoscan.detect.canopy import _moments, _roundness
+
+    yy, xx = np.mgrid[:90, :120]
+    lab = np.zeros((90, 120), int)
+    lab[(xx - 30) ** 2 + (yy - 30) ** 2 < 20**2] = 1
+    lab[(yy > 60) & (yy < 70) & (xx > 10) & (xx < 100)] = 2  # a bar: far from round
+    lab[((xx - 90) ** 2 + (yy - 30) ** 2 < 18**2) & (xx < 90)] = 3  # half a disc
+    got = _roundness(_moments(lab, 3))
+    for p, g in zip(regionprops(lab), got, strict=True):
+        assert g == pytest.approx(p.area / (2 * math.pi * np.trace(p.inertia_tensor)), rel=1e-9)
+    assert got[0] == pytest.approx(1.0, abs=0.02)
+    # half a disc: area pi R^2/2, trace R^2/4 + R^2 (1/4 - 16/(9 pi^2)) -> 0.78 (geometry)
+    assert got[2] == pytest.approx(0.5 / (2 * (0.5 - 16 / (9 * math.pi**2))), abs=0.03)
+    assert got[1] < 0.4
+
+
+def _textured_disc(radius, seed, shape=(100, 100)):
+    """One crown: a dome with broad leaf clumps (a quarter of its radius across) deep enough
+    to give its smoothed brightness several maxima."""
+    from scipy import ndimage
+
+    rng = np.random.default_rng(seed)
+    cy, cx = shape[0] / 2, shape[1] / 2
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    rho2 = ((xx - cx) ** 2 + (yy - cy) ** 2) / radius**2
+    clumps = ndimage.gaussian_filter(rng.standard_normal(shape), radius / 4)
+    clumps /= clumps.std()
+    dome = np.sqrt(np.clip(1 - rho2, 0, None)) * (1 + 0.4 * np.clip(clumps, -2, 2))
+    return np.where(rho2 < 1, 0.3 + dome, 0.0), (cx, cy)
+
+
+def test_one_big_textured_crown_gives_one_point_when_fragments_are_joined():
+    # ten crowns of radius 32 px, each bounded by neighbours at 1.15 r (valid mask); the
+    # leaf clumps cut most of them without joining, joining leaves one point on most (the
+    # deepest clump valleys stay: measured 8 of 10), each near the crown's centre
+    split_plain = single = 0
+    for seed in range(10):
+        img, (cx, cy) = _textured_disc(32.0, seed)
+        yy, xx = np.mgrid[: img.shape[0], : img.shape[1]]
+        ok = (xx - cx) ** 2 + (yy - cy) ** 2 < (1.15 * 32.0) ** 2
+        kw = dict(smooth_px=3.5, valid=ok)
+        plain = split_crowns(img, 10.0, 0.02, **kw)
+        joined = split_crowns(
+            img, 10.0, 0.02, max_area_px=1.2 * math.pi * 35**2, tint=np.full(img.shape, 0.5), **kw
+        )
+        split_plain += plain["col"].size > 1
+        if joined["col"].size == 1:
+            single += 1
+            assert math.hypot(joined["col"][0] - cx, joined["row"][0] - cy) < 0.25 * 32
+        assert joined["col"].size <= plain["col"].size
+    assert split_plain >= 6
+    assert single >= 8
+
+
+def test_touching_crowns_of_different_sizes_stay_two_when_joining():
+    # radii 20 and 11, touching (centres 31 apart), same tint: the union is a peanut, less
+    # round than the two discs, so they are not joined; each point on its disc's centre
+    centres = [(35.0, 40.0), (66.0, 40.0)]
+    img = np.maximum(_domes((80, 100), centres[:1], 20.0), _domes((80, 100), centres[1:], 11.0))
+    got = split_crowns(
+        img, 8.0, 0.05, max_area_px=1.2 * math.pi * 22**2, tint=np.full(img.shape, 0.5)
+    )
+    assert got["col"].size == 2
+    order = np.argsort(got["col"])
+    for k, (cx, cy) in zip(order, centres, strict=True):
+        assert math.hypot(got["col"][k] - cx, got["row"][k] - cy) < 1.5
+
+
+def test_halves_of_different_tint_are_not_joined():
+    from ecoscan.detect.canopy import merge_fragments
+
+    yy, xx = np.mgrid[:60, :60]
+    disc = (xx - 30) ** 2 + (yy - 30) ** 2 < 20**2
+    halves = np.where(disc, np.where(xx < 30, 1, 2), 0)
+    same = np.full(halves.shape, 0.45)
+    other = np.where(xx < 30, 0.40, 0.50)
+    assert merge_fragments(halves, 2, 5000.0, tint=same).tolist() == [0, 1, 1]
+    assert merge_fragments(halves, 2, 5000.0, tint=other).tolist() == [0, 1, 2]
+    # too big a union for the largest crown: not joined
+    assert merge_fragments(halves, 2, 1000.0, tint=same).tolist() == [0, 1, 2]
+
+
+def test_lean_towards_the_sun_is_measured_and_removed():
+    # a grid of Lambert domes lit from -x at 45 degrees (Lambert's cosine law, common
+    # practice) with narrow dark gaps between them: the bright upper half of each lies
+    # towards the sun, the region (bounded by the gaps) does not; the raster's lean,
+    # measured once over all crowns, brings every centre back onto its crown
+    r, step = 14.0, 32.0
+    centres = [(18.0 + step * i, 18.0 + step * j) for i in range(5) for j in range(4)]
+    img = _domes((4 * 32 + 4, 5 * 32 + 4), centres, r, sun_elevation_deg=45.0)
+    ok = np.ones(img.shape, bool)
+    tint = np.full(img.shape, 0.5)
+    cs = canopy_split([img], [ok], 10.0, 16.0, h_share=0.05, tints=[tint])
+    assert cs.merge and cs.lean_col < -0.05 and abs(cs.lean_row) < 0.05  # sun towards -x
+    kw = dict(smooth_px=cs.smooth_px, max_area_px=cs.max_area_px, tint=tint)
+    before = split_crowns(img, 10.0, cs.h, **kw)
+    after = split_crowns(img, 10.0, cs.h, lean=(cs.lean_col, cs.lean_row), **kw)
+    truth = np.array(centres)
+
+    def miss(got):
+        return np.array(
+            [
+                np.hypot(*(truth - (c, rr)).T).min()
+                for c, rr in zip(got["col"], got["row"], strict=True)
+            ]
+        )
+
+    assert before["col"].size == after["col"].size == len(centres)
+    # measured: 0.27 r before, 0.18 r after (the region itself leans part of the way, as
+    # the shaded side's valley floor is flat), every centre moved down-sun (+x)
+    assert np.median(miss(after)) < 0.75 * np.median(miss(before))
+    assert np.median(miss(after)) < 0.2 * r
+    assert np.all(after["col"] > before["col"])

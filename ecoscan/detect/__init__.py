@@ -567,8 +567,13 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     if not canopy.is_closed_canopy(evidence):
         return None
     layers = [canopy.canopy_layer(w.data, roles) for w in windows]
+    tints = [canopy.canopy_tint(w.data, roles) for w in windows]
     split = canopy.canopy_split(
-        [lay[w.core] for lay, w in zip(layers, windows, strict=True)], valids, r_min, r_max
+        [lay[w.core] for lay, w in zip(layers, windows, strict=True)],
+        valids,
+        r_min,
+        r_max,
+        tints=[t[w.core] for t, w in zip(tints, windows, strict=True)],
     )
     params = DetectorParams(
         method="imagery",
@@ -613,6 +618,8 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
             f"{canopy.H_SHARE:g} x robust SD (1.4826 MAD) of the smoothed layer on sample windows"
         ),
         "canopy_min_area_px": split.min_area_px,
+        "canopy_join_fragments": split.merge,
+        "canopy_lean_radii": [split.lean_col, split.lean_row],
         "weak_separation": False,
         "split_touching": True,
     }

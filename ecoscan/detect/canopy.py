@@ -44,7 +44,7 @@ image's result.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage
@@ -54,7 +54,9 @@ __all__ = [
     "canopy_evidence",
     "canopy_layer",
     "canopy_split",
+    "canopy_tint",
     "is_closed_canopy",
+    "merge_fragments",
     "split_crowns",
 ]
 
@@ -70,6 +72,23 @@ H_SHARE = 0.1
 CORE_SHARE = 0.5
 #: Regions smaller than this share of the smallest crown's disc are gaps or slivers.
 MIN_AREA_SHARE = 0.25
+#: Neighbouring regions are joined when one crown fits their union better than two by
+#: this much roundness (:func:`merge_fragments`). Tuned on benchmarks/tuning_scenes.py.
+MERGE_GAIN = 0.1
+#: ... and the union is no larger than this share of the largest crown's disc.
+MERGE_MAX_AREA_SHARE = 1.2
+#: ... and they meet at least this share of the way from the lower valley floor to the
+#: lower peak (the valley between them is shallow). Tuned as above.
+MERGE_PASS = 0.7
+#: ... and their mean tint (green share g / (r + g + b)) differs by at most this much: the
+#: fragments of one crown have its colour, neighbours of another species do not. Tuned as
+#: above.
+MERGE_TINT_STEP = 0.01
+#: Share of the raster's median lean (brightness centre minus shape centre, in region
+#: radii) by which every centre is moved back down-sun. Tuned as above.
+LEAN_SHARE = 1.0
+#: The lean is measured only over at least this many regions (else no shift).
+MIN_LEAN_REGIONS = 10
 #: Chromatic Excess Green above which a pixel counts as green vegetation in the switch
 #: rule (about the level of dry grass and olive crowns in the tuning scenes).
 GREEN_EXG = 0.1
@@ -105,6 +124,11 @@ class CanopySplit:
         caller's layer, e.g. a calibrated plant probability).
     min_peak : float
         Regions whose smoothed peak is lower are ground, not crowns (``-inf``: keep all).
+    merge : bool
+        Join fragments of one crown (:func:`merge_fragments`); needs the tint layer.
+    lean_col, lean_row : float
+        The raster's lean (brightness centre minus shape centre, region radii) by which
+        every centre is moved back (``LEAN_SHARE`` of the median measured).
     """
 
     r_min_px: float
@@ -114,6 +138,14 @@ class CanopySplit:
     min_area_px: float
     layer: str = "brightness"
     min_peak: float = -math.inf
+    merge: bool = False
+    lean_col: float = 0.0
+    lean_row: float = 0.0
+
+    @property
+    def max_area_px(self) -> float | None:
+        """Largest union :func:`merge_fragments` may make (``None``: no joining)."""
+        return MERGE_MAX_AREA_SHARE * math.pi * self.r_max_px**2 if self.merge else None
 
     @property
     def overlap_px(self) -> int:
@@ -151,6 +183,183 @@ def canopy_layer(data: np.ndarray, roles: tuple[str, ...]) -> np.ndarray:
     return np.log1p(np.maximum(np.asarray(data[i], np.float32), 0.0)).astype(np.float32)
 
 
+def canopy_tint(data: np.ndarray, roles: tuple[str, ...]) -> np.ndarray | None:
+    """Green share g / (r + g + b) of each pixel (chromatic coordinate), or ``None``
+    without red, green and blue bands.
+
+    A crown's fragments share its tint; neighbouring crowns of other species differ.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = np.array([[[20.0]], [[60.0]], [[20.0]]])
+    >>> round(float(canopy_tint(d, ("red", "green", "blue"))[0, 0]), 6)
+    0.6
+    """
+    if not all(r in roles for r in ("red", "green", "blue")):
+        return None
+    r, g, b = (np.asarray(data[roles.index(k)], np.float32) for k in ("red", "green", "blue"))
+    return (g / np.maximum(r + g + b, 1e-6)).astype(np.float32)
+
+
+def _moments(regions: np.ndarray, n: int) -> np.ndarray:
+    """Area and first and second raw moments of labels 1..n: shape (n, 6)."""
+    rows, cols = np.indices(regions.shape, dtype=np.float64)
+    lab = regions.ravel()
+    out = np.empty((n, 6))
+    for k, w in enumerate((None, rows, cols, rows * rows, cols * cols, rows * cols)):
+        out[:, k] = np.bincount(lab, None if w is None else w.ravel(), minlength=n + 1)[1:]
+    return out
+
+
+def _roundness(mom: np.ndarray) -> np.ndarray:
+    """How well one disc fits each region: area / (2 π trace of its covariance), 1 for a
+    disc (a disc of radius R has area π R² and second central moment R²/2 per axis)."""
+    a = np.maximum(mom[:, 0], 1e-12)
+    vr = mom[:, 3] / a - (mom[:, 1] / a) ** 2
+    vc = mom[:, 4] / a - (mom[:, 2] / a) ** 2
+    return a / (2.0 * math.pi * np.maximum(vr + vc, 1e-12))
+
+
+def _neighbour_pairs(
+    regions: np.ndarray, layer: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Labels that touch (4-connected) and the pass between them.
+
+    Returns
+    -------
+    pairs : numpy.ndarray, shape (k, 2)
+        Label pairs (i, j), i < j.
+    passes : numpy.ndarray, shape (k,)
+        The highest value of ``layer`` at which the two meet (the larger of the two sides'
+        smaller value over their shared border); zeros without a layer.
+    """
+    a = np.concatenate([regions[:, :-1].ravel(), regions[:-1, :].ravel()])
+    b = np.concatenate([regions[:, 1:].ravel(), regions[1:, :].ravel()])
+    sel = (a != b) & (a > 0) & (b > 0)
+    if layer is None:
+        v = np.zeros(int(sel.sum()))
+    else:
+        va = np.concatenate([layer[:, :-1].ravel(), layer[:-1, :].ravel()])
+        vb = np.concatenate([layer[:, 1:].ravel(), layer[1:, :].ravel()])
+        v = np.minimum(va[sel], vb[sel]).astype(np.float64)
+    p = np.sort(np.column_stack([a[sel], b[sel]]), axis=1)
+    return _pair_max(p, v)
+
+
+def _pair_max(p: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Unique rows of ``p`` with the largest ``v`` of each."""
+    if p.size == 0:
+        return np.zeros((0, 2), np.int64), np.zeros(0)
+    order = np.lexsort((-v, p[:, 1], p[:, 0]))
+    p, v = p[order], v[order]
+    first = np.r_[True, np.any(p[1:] != p[:-1], axis=1)]
+    return p[first], v[first]
+
+
+def merge_fragments(
+    regions: np.ndarray,
+    n: int,
+    max_area_px: float,
+    gain: float = MERGE_GAIN,
+    layer: np.ndarray | None = None,
+    min_pass: float = 0.0,
+    tint: np.ndarray | None = None,
+    max_tint_step: float = MERGE_TINT_STEP,
+) -> np.ndarray:
+    """Join neighbouring regions that one crown fits better than two.
+
+    A big crown with broad leaf clumps can carry two or three brightness maxima, and the
+    watershed cuts it into fragments; each fragment is a half or third of a disc, while
+    their union is round. Two touching crowns are each round and their union is a peanut.
+    So two neighbours are joined when the union's roundness (area over 2π × the trace of
+    its second-moment matrix: 1 for a disc) exceeds the area-weighted roundness of the two
+    by ``gain`` and the union is no larger than ``max_area_px`` (the largest crown's disc).
+    Joins are made best first, each region at most once per round, until none is left.
+
+    Parameters
+    ----------
+    regions : numpy.ndarray of int
+        Labels 0 (none) and 1..n.
+    n : int
+        Number of labels.
+    max_area_px : float
+        Largest plausible crown area, pixels.
+    gain : float
+        Least gain in roundness for a join.
+    layer : numpy.ndarray, optional
+        The smoothed layer the regions were grown on.
+    min_pass : float
+        With ``layer``: the two must meet at least this share of the way from the lower of
+        their valley floors up to the lower of their peaks (a shallow valley).
+
+    Returns
+    -------
+    numpy.ndarray of int
+        For each label 0..n, the label it now belongs to (``lut[regions]`` relabels).
+
+    Examples
+    --------
+    Two halves of one disc are joined; two touching discs are not:
+
+    >>> import numpy as np
+    >>> yy, xx = np.mgrid[:40, :80]
+    >>> disc = (xx - 20) ** 2 + (yy - 20) ** 2 < 15**2
+    >>> halves = np.where(disc, np.where(xx < 20, 1, 2), 0)
+    >>> merge_fragments(halves, 2, 2000.0).tolist()
+    [0, 1, 1]
+    >>> two = np.where(disc, 1, np.where((xx - 50) ** 2 + (yy - 20) ** 2 < 15**2, 2, 0))
+    >>> merge_fragments(two, 2, 2000.0).tolist()
+    [0, 1, 2]
+    """
+    lut = np.arange(n + 1)
+    mom = np.vstack([np.zeros((1, 6)), _moments(regions, n)])
+    pairs, passes = _neighbour_pairs(regions, layer)
+    idx = np.arange(1, n + 1)
+    tsum = np.zeros(n + 1)
+    if tint is not None:
+        tsum[1:] = np.bincount(regions.ravel(), np.asarray(tint, float).ravel(), n + 1)[1:]
+    if layer is not None:
+        peak = np.r_[-np.inf, np.asarray(ndimage.maximum(layer, regions, idx), float)]
+        low = np.r_[np.inf, np.asarray(ndimage.minimum(layer, regions, idx), float)]
+    for _round in range(8):
+        if pairs.size == 0:
+            break
+        i, j = pairs[:, 0], pairs[:, 1]
+        mi, mj = mom[i], mom[j]
+        mu = mi + mj
+        ri, rj, ru = _roundness(mi), _roundness(mj), _roundness(mu)
+        parts = (ri * mi[:, 0] + rj * mj[:, 0]) / np.maximum(mu[:, 0], 1e-12)
+        score = ru - parts
+        ok = (score > gain) & (mu[:, 0] <= max_area_px)
+        if tint is not None:
+            step = np.abs(tsum[i] / np.maximum(mi[:, 0], 1) - tsum[j] / np.maximum(mj[:, 0], 1))
+            ok &= step <= max_tint_step
+        if layer is not None:
+            floor = np.minimum(low[i], low[j])
+            ok &= passes >= floor + min_pass * (np.minimum(peak[i], peak[j]) - floor)
+        if not ok.any():
+            break
+        order = np.flatnonzero(ok)[np.argsort(-score[ok], kind="stable")]
+        used = np.zeros(n + 1, bool)
+        for k in order:
+            a, b = i[k], j[k]
+            if used[a] or used[b]:
+                continue
+            used[a] = used[b] = True
+            mom[a] += mom[b]
+            mom[b] = 0.0
+            tsum[a] += tsum[b]
+            lut[lut == b] = a
+            if layer is not None:
+                peak[a], low[a] = max(peak[a], peak[b]), min(low[a], low[b])
+        # relabel the pairs to the surviving labels, drop self-pairs, keep the highest pass
+        pairs = np.sort(lut[pairs], axis=1)
+        keep = pairs[:, 0] != pairs[:, 1]
+        pairs, passes = _pair_max(pairs[keep], passes[keep])
+    return lut
+
+
 def split_crowns(
     layer: np.ndarray,
     r_min_px: float,
@@ -161,6 +370,12 @@ def split_crowns(
     valid: np.ndarray | None = None,
     origin: tuple[int, int] = (0, 0),
     min_peak: float = -math.inf,
+    max_area_px: float | None = None,
+    lean: tuple[float, float] = (0.0, 0.0),
+    merge_gain: float = MERGE_GAIN,
+    merge_pass: float = MERGE_PASS,
+    tint: np.ndarray | None = None,
+    max_tint_step: float = MERGE_TINT_STEP,
 ) -> dict[str, np.ndarray]:
     """One point per crown: watershed of the smoothed layer from its h-maxima.
 
@@ -184,33 +399,47 @@ def split_crowns(
         Column and row of ``layer[0, 0]`` in the raster.
     min_peak : float
         Regions whose smoothed peak is below this are dropped (ground in a probability map).
+    max_area_px : float, optional
+        When given, fragments of one crown are joined (:func:`merge_fragments`) into
+        unions no larger than this.
+    lean : (float, float)
+        Column and row shift, in region radii, subtracted from every centre (the raster's
+        lean towards the sun; :func:`canopy_split` measures it).
+    merge_gain, merge_pass, tint, max_tint_step
+        Passed to :func:`merge_fragments`.
 
     Returns
     -------
     dict of numpy.ndarray
         ``col``, ``row`` (weighted region centroids, raster pixel coordinates),
-        ``area_px`` (region area), ``peak`` (highest smoothed value in the region) and
-        ``prominence`` (peak minus the region's lowest value).
+        ``lean_col``, ``lean_row`` (the centroid of the region's upper half minus that of
+        the whole region, both weighted by the squared distance to their edge, in region
+        radii, before the ``lean`` shift), ``area_px`` (region area), ``peak`` (highest
+        smoothed value in the region) and ``prominence`` (peak minus the region's lowest
+        value).
 
     Examples
     --------
     Two touching discs of radius 12 whose centres lie 22 pixels apart give two points,
-    each on its disc's centre:
+    each within a pixel of its disc's centre:
 
     >>> import numpy as np
     >>> yy, xx = np.mgrid[:48, :70].astype(float)
     >>> dome = lambda cx: np.sqrt(np.clip(144 - (xx - cx) ** 2 - (yy - 24) ** 2, 0, None))
     >>> img = np.maximum(dome(24.0), dome(46.0))
     >>> got = split_crowns(img, 10.0, 0.5)
-    >>> np.round(got["col"]).tolist(), np.round(got["row"]).tolist()
-    ([24.0, 46.0], [24.0, 24.0])
+    >>> bool(np.all(np.abs(got["col"] - [24.0, 46.0]) < 1)), np.round(got["row"]).tolist()
+    (True, [24.0, 24.0])
     """
     from skimage.morphology import h_maxima
     from skimage.segmentation import find_boundaries, watershed
 
     lay = np.asarray(layer, np.float32)
     ok = np.ones(lay.shape, bool) if valid is None else np.asarray(valid, bool)
-    empty = {k: np.zeros(0) for k in ("col", "row", "area_px", "peak", "prominence")}
+    empty = {
+        k: np.zeros(0)
+        for k in ("col", "row", "lean_col", "lean_row", "area_px", "peak", "prominence")
+    }
     if not ok.any():
         return empty
     s = SMOOTH_SHARE * r_min_px if smooth_px is None else float(smooth_px)
@@ -225,7 +454,14 @@ def split_crowns(
     if n == 0:
         return empty
     regions = watershed(-smooth, markers, mask=ok)
-    idx = np.arange(1, n + 1)
+    if max_area_px is not None:
+        lut = merge_fragments(
+            regions, n, max_area_px, merge_gain, smooth, merge_pass, tint, max_tint_step
+        )
+        regions = lut[regions]
+        idx = np.unique(regions[regions > 0])
+    else:
+        idx = np.arange(1, n + 1)
     area = ndimage.sum_labels(ok, regions, idx)
     # centroid weighted by the squared distance to the region's edge: the crown's middle
     # counts, lobes and slivers squeezed between neighbours hardly do
@@ -234,7 +470,8 @@ def split_crowns(
     # the crown part of each region: above the level CORE_SHARE of the way from the
     # region's lowest value (its valley floor) to its peak; flat ground and gap floors
     # attached to a region by the flooding do not pull its centre
-    level = np.r_[np.inf, low + CORE_SHARE * (peak - low)]
+    level = np.full(int(regions.max()) + 1, np.inf)
+    level[idx] = low + CORE_SHARE * (peak - low)
     core = ok & (smooth >= level[regions])
     inner = core & ~find_boundaries(np.where(core, regions, 0), mode="inner")
     # the raster's edge bounds a region too (padding); a tile's edge lies in its overlap
@@ -245,10 +482,24 @@ def split_crowns(
     with np.errstate(invalid="ignore", divide="ignore"):
         row = ndimage.sum_labels(weight * rows, regions, idx) / wsum
         col = ndimage.sum_labels(weight * cols, regions, idx) / wsum
+    # the region's shape centre (whole region, same weighting): bounded by valleys on every
+    # side, it does not follow the lit side; the lean (brightness centre minus shape centre,
+    # in region radii) is the same for every crown of a raster lit from one side
+    whole = ok & (regions > 0) & ~find_boundaries(regions, mode="inner")
+    dist2 = ndimage.distance_transform_edt(np.pad(whole, 1))[1:-1, 1:-1].astype(np.float64) ** 2
+    w2 = ndimage.sum_labels(dist2, regions, idx)
+    radius = np.sqrt(area / math.pi)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lean_row = (row - ndimage.sum_labels(dist2 * rows, regions, idx) / w2) / radius
+        lean_col = (col - ndimage.sum_labels(dist2 * cols, regions, idx) / w2) / radius
+    col = col - lean[0] * radius
+    row = row - lean[1] * radius
     keep = (area >= amin) & (wsum > 0) & (peak >= min_peak)
     return {
         "col": col[keep] + origin[0],
         "row": row[keep] + origin[1],
+        "lean_col": lean_col[keep],
+        "lean_row": lean_row[keep],
         "area_px": area[keep].astype(float),
         "peak": np.asarray(peak, float)[keep],
         "prominence": np.asarray(peak - low, float)[keep],
@@ -263,12 +514,21 @@ def canopy_split(
     *,
     layer: str = "brightness",
     h_share: float = H_SHARE,
+    tints: list[np.ndarray] | None = None,
 ) -> CanopySplit:
     """Settings of the crown split for a raster, from its sample windows.
 
     ``h`` is ``h_share`` × the robust standard deviation (1.4826 × MAD; Hampel 1974,
     *JASA* 69: 383–393) of the smoothed layer over all sampled pixels, so it follows the
     image's contrast and is the same for every tile.
+
+    With ``tints`` (colour imagery), fragments of one crown are joined
+    (:func:`merge_fragments`) and the raster's *lean* is measured: crowns lit from one side
+    have the centre of their bright upper half displaced towards the sun, by the same
+    share of the radius on every crown; the median over the windows' regions of that
+    displacement against the region's shape centre (:func:`split_crowns`), times
+    ``LEAN_SHARE``, is removed from every centre. The sun's direction is thereby estimated
+    once per raster, from the crowns themselves.
 
     Parameters
     ----------
@@ -282,6 +542,8 @@ def canopy_split(
         What the layer is (recorded).
     h_share : float
         Marker dynamic in robust standard deviations.
+    tints : list of numpy.ndarray, optional
+        :func:`canopy_tint` of each window (joins fragments and measures the lean).
 
     Returns
     -------
@@ -305,13 +567,39 @@ def canopy_split(
     sd = 1.4826 * float(np.median(np.abs(v - med)))
     if not sd > 0:
         sd = float(np.std(v)) or 1e-6
-    return CanopySplit(
+    split = CanopySplit(
         r_min_px=float(r_min_px),
         r_max_px=float(r_max_px),
         smooth_px=s,
         h=h_share * sd,
         min_area_px=MIN_AREA_SHARE * math.pi * r_min_px**2,
         layer=layer,
+        merge=tints is not None,
+    )
+    if tints is None:
+        return split
+    lean_c, lean_r = [], []
+    for lay, ok, tint in zip(layers, valids, tints, strict=True):
+        got = split_crowns(
+            lay,
+            split.r_min_px,
+            split.h,
+            smooth_px=split.smooth_px,
+            min_area_px=split.min_area_px,
+            valid=ok,
+            max_area_px=split.max_area_px,
+            tint=tint,
+        )
+        lean_c.append(got["lean_col"])
+        lean_r.append(got["lean_row"])
+    lc, lr = np.concatenate(lean_c), np.concatenate(lean_r)
+    fine = np.isfinite(lc) & np.isfinite(lr)
+    if fine.sum() < MIN_LEAN_REGIONS:
+        return split
+    return replace(
+        split,
+        lean_col=LEAN_SHARE * float(np.median(lc[fine])),
+        lean_row=LEAN_SHARE * float(np.median(lr[fine])),
     )
 
 

@@ -206,7 +206,9 @@ def _empty_tile(p: DetectorParams) -> dict[str, np.ndarray]:
     return res
 
 
-def _canopy_tile(job: TileJob, layer: np.ndarray, valid: np.ndarray) -> dict[str, np.ndarray]:
+def _canopy_tile(
+    job: TileJob, layer: np.ndarray, valid: np.ndarray, tint: np.ndarray | None = None
+) -> dict[str, np.ndarray]:
     """Closed canopy: crowns as watershed regions (:func:`ecoscan.detect.canopy.split_crowns`)."""
     cs, tile = job.params.canopy, job.tile
     found = canopy.split_crowns(
@@ -218,6 +220,9 @@ def _canopy_tile(job: TileJob, layer: np.ndarray, valid: np.ndarray) -> dict[str
         valid=valid,
         origin=tile.window[:2],
         min_peak=cs.min_peak,
+        max_area_px=cs.max_area_px,
+        lean=(cs.lean_col, cs.lean_row),
+        tint=tint,
     )
     out = {
         "col": found["col"],
@@ -248,8 +253,10 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     if data is None:
         return _empty_tile(p)  # all nodata: only the mask was read
     if p.method == "imagery":
+        tint = None
         if p.canopy is not None and p.canopy.layer == "brightness":
             layer = canopy.canopy_layer(data, p.roles)
+            tint = canopy.canopy_tint(data, p.roles) if p.canopy.merge else None
         elif p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = p.layer_model(data)
         elif p.terms:
@@ -260,7 +267,7 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
         if not valid.all():
             layer[~valid] = p.fill_value
         if p.canopy is not None:
-            return _canopy_tile(job, layer, valid)
+            return _canopy_tile(job, layer, valid, tint)
         found = blobs.detect_blobs(
             layer,
             p.scales,
