@@ -355,7 +355,7 @@ def test_lean_towards_the_sun_is_measured_and_removed():
     ok = np.ones(img.shape, bool)
     tint = np.full(img.shape, 0.5)
     cs = canopy_split([img], [ok], 10.0, 16.0, h_share=0.05, tints=[tint])
-    assert cs.merge and cs.lean_col < -0.05 and abs(cs.lean_row) < 0.05  # sun towards -x
+    assert cs.merge and cs.lean_col < -0.02 and abs(cs.lean_row) < 0.01  # sun towards -x
     kw = dict(smooth_px=cs.smooth_px, max_area_px=cs.max_area_px, tint=tint)
     before = split_crowns(img, 10.0, cs.h, **kw)
     after = split_crowns(img, 10.0, cs.h, lean=(cs.lean_col, cs.lean_row), **kw)
@@ -370,8 +370,14 @@ def test_lean_towards_the_sun_is_measured_and_removed():
         )
 
     assert before["col"].size == after["col"].size == len(centres)
-    # measured: 0.27 r before, 0.18 r after (the region itself leans part of the way, as
-    # the shaded side's valley floor is flat), every centre moved down-sun (+x)
-    assert np.median(miss(after)) < 0.75 * np.median(miss(before))
-    assert np.median(miss(after)) < 0.2 * r
+    # measured: 0.27 r before, 0.21 r after: LEAN_SHARE (tuned on the tuning scenes, whose
+    # crowns are textured and overlap) removes only part of this smooth dome's lean; every
+    # centre is moved down-sun (+x), none past its crown's centre
+    assert np.median(miss(after)) < 0.85 * np.median(miss(before))
+    assert np.median(miss(after)) < 0.25 * r
     assert np.all(after["col"] > before["col"])
+    nearest = [
+        np.argmin(np.hypot(*(truth - (c, rr)).T))
+        for c, rr in zip(after["col"], after["row"], strict=True)
+    ]
+    assert np.all(after["col"] <= truth[nearest, 0] + 0.5)
