@@ -205,12 +205,13 @@ def test_crown_split_round_trips_through_the_detector_file_and_detects(tmp_path)
     assert "[crown_split]" in to_toml(_detector(split))
     assert "format_version = 2" in toml.read_text()
     back = read_detector(toml)
-    assert back.split == split
+    # a file without join_fragments (written before it existed) reads as not joining
+    assert back.split == {**split, "join_fragments": False}
     # a detector without the split still writes version 1 (older readers accept it)
     assert "format_version = 1" in to_toml(_detector({}))
     raster, centres = _two_dome_raster(tmp_path)
     res = detect_raster(raster, DetectionSettings(detector=str(toml)))
-    assert res.thresholds["crown_split"] == split
+    assert res.thresholds["crown_split"] == {**split, "join_fragments": False}
     cols = np.sort((res.points.x - 500000.0) / 0.05 - 0.5)
     # one point per dome, each within a pixel of its centre (pixel 0 is centred at 0.5)
     assert cols.size == 4
@@ -250,7 +251,43 @@ def test_split_scoring_counts_crowns_by_fold():
     score, split = got
     # every crown found in its own fold, nothing else
     assert (score.tp, score.fp, score.fn) == (4, 0, 0)
-    assert split["h"] > 0 and set(split) == {"h", "min_peak", "smooth_share", "min_area_share"}
+    assert split["h"] > 0 and set(split) == {
+        "h",
+        "min_peak",
+        "smooth_share",
+        "min_area_share",
+        "join_fragments",
+    }
+    # one band: no tint, so fragments are never joined; smoothing from the grid
+    from ecoscan.detect.calibration import SPLIT_SMOOTH_GRID
+
+    assert split["join_fragments"] is False and split["smooth_share"] in SPLIT_SMOOTH_GRID
+
+
+def test_joining_fragments_round_trips_through_the_detector_file(tmp_path):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect.detector_file import read_detector, write_detector
+    from ecoscan.errors import InputError
+
+    split = {
+        "h": 2.0,
+        "min_peak": 100.0,
+        "smooth_share": 0.35,
+        "min_area_share": 0.25,
+        "join_fragments": True,
+    }
+    toml = tmp_path / "det.toml"
+    write_detector(toml, _detector(split))
+    assert "join_fragments = true" in toml.read_text()
+    assert read_detector(toml).split == split
+    raster, centres = _two_dome_raster(tmp_path)
+    res = detect_raster(raster, DetectionSettings(detector=str(toml)))
+    assert res.thresholds["crown_split"]["join_fragments"] is True
+    # the domes are round and touch: joining keeps one point per dome
+    assert res.n == len(centres)
+    toml.write_text(toml.read_text().replace("join_fragments = true", 'join_fragments = "yes"'))
+    with pytest.raises(InputError, match=r"join_fragments"):
+        read_detector(toml)
 
 
 # --- joining fragments of one crown; the raster's lean towards the sun ---------------------

@@ -93,6 +93,11 @@ SPLIT_TRY_BELOW = 0.95
 #: Marker heights (h-maxima) and least region peaks tried for the split, probability units.
 SPLIT_H_GRID = (0.02, 0.05, 0.1, 0.2)
 SPLIT_PEAK_GRID = (0.2, 0.35, 0.5, 0.65)
+#: Smoothing of the probability map (share of the smallest crown radius) and joining of a
+#: crown's fragments (colour imagery only; :func:`ecoscan.detect.canopy.merge_fragments`),
+#: chosen with h and the least peak by the same cross-validation.
+SPLIT_SMOOTH_GRID = (0.35, 0.6)
+SPLIT_JOIN_GRID = (False, True)
 
 
 @dataclass(frozen=True)
@@ -575,28 +580,46 @@ def _score_split(
     tol_px: float,
     dmin_px: float,
     dmax_px: float,
+    band_names: tuple[str, ...] = (),
 ) -> tuple[LayerScore, dict] | None:
-    """Cross-validated score of the watershed crown split over a grid of (h, least peak).
+    """Cross-validated score of the watershed crown split over a grid of (smoothing,
+    joining fragments, h) × least peak.
 
     Regions come from :func:`ecoscan.detect.canopy.split_crowns` on each window's held-out
     probability map; each is counted in the fold of its centre (inside the plot only), and
     the grid cell is chosen on the other folds exactly as for the blob thresholds.
     """
-    from ecoscan.detect.canopy import MIN_AREA_SHARE, SMOOTH_SHARE, split_crowns
+    from ecoscan.detect.canopy import (
+        MERGE_MAX_AREA_SHARE,
+        MIN_AREA_SHARE,
+        canopy_tint,
+        split_crowns,
+    )
 
     r_min = dmin_px / 2.0
-    h_grid, p_grid = np.asarray(SPLIT_H_GRID), np.asarray(SPLIT_PEAK_GRID)
-    counts = np.zeros((h_grid.size, p_grid.size, n_folds, 3), dtype=np.int64)
+    colour = all(b in band_names for b in ("red", "green", "blue"))
+    variants = [
+        (sm, join, float(h))
+        for sm in SPLIT_SMOOTH_GRID
+        for join in (SPLIT_JOIN_GRID if colour else (False,))
+        for h in SPLIT_H_GRID
+    ]
+    p_grid = np.asarray(SPLIT_PEAK_GRID)
+    counts = np.zeros((len(variants), p_grid.size, n_folds, 3), dtype=np.int64)
+    max_area = MERGE_MAX_AREA_SHARE * math.pi * (dmax_px / 2.0) ** 2
     for m, w in zip(maps, windows, strict=True):
-        for i, h in enumerate(h_grid):
+        tint = canopy_tint(w.data, band_names) if colour else None
+        for i, (sm, join, h) in enumerate(variants):
             found = split_crowns(
                 m,
                 r_min,
-                float(h),
-                smooth_px=SMOOTH_SHARE * r_min,
+                h,
+                smooth_px=sm * r_min,
                 min_area_px=MIN_AREA_SHARE * math.pi * r_min**2,
                 valid=w.valid,
                 origin=(w.c0, w.r0),
+                max_area_px=max_area if join else None,
+                tint=tint,
             )
             inside = shapely.contains_xy(w.poly_px, found["col"], found["row"])
             rr = np.clip(np.round(found["row"]).astype(int) - w.r0, 0, w.fold_map.shape[0] - 1)
@@ -624,11 +647,13 @@ def _score_split(
         _f1(tp, fp, fn),
         tuple(fold_f1),
     )
+    sm, join, h = variants[i]
     split = {
-        "h": float(h_grid[i]),
+        "h": h,
         "min_peak": float(p_grid[j]),
-        "smooth_share": float(SMOOTH_SHARE),
+        "smooth_share": float(sm),
         "min_area_share": float(MIN_AREA_SHARE),
+        "join_fragments": bool(join),
     }
     return score, split
 
@@ -809,7 +834,7 @@ def _classifier_run(
         return None, None, None
     if run.score.f1 < SPLIT_TRY_BELOW:
         # closed canopy: try splitting merged crowns along the probability map's valleys
-        got = _score_split(maps, windows, n_folds, tol_px, run.dmin_px, run.dmax_px)
+        got = _score_split(maps, windows, n_folds, tol_px, run.dmin_px, run.dmax_px, band_names)
         if got is not None and got[0].f1 > run.score.f1 + CLASSIFIER_MARGIN:
             run.score, run.split = got
     return _forest(x, y, seed), spec, run

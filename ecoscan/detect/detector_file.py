@@ -368,6 +368,13 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
             k: float(_need(d, "crown_split", k, num, name))
             for k in ("h", "min_peak", "smooth_share", "min_area_share")
         }
+        join = d["crown_split"].get("join_fragments", False)  # absent in older files
+        if not isinstance(join, bool):
+            raise InputError(
+                f"detector file {name}: [crown_split] join_fragments must be true or false; "
+                "make it again with ecoscan calibrate"
+            )
+        det.split["join_fragments"] = join
         if not all(math.isfinite(v) for v in det.split.values()) or det.split["h"] <= 0:
             raise InputError(
                 f"detector file {name} holds an impossible [crown_split] table; make it "
@@ -533,8 +540,9 @@ def calibrated_params(det: CalibratedDetector, info, raster_name: str):
             min_area_px=det.split["min_area_share"] * math.pi * r_min**2,
             layer="given",
             min_peak=det.split["min_peak"],
+            merge=bool(det.split.get("join_fragments", False)),
         )
-        params = replace(params, canopy=split)
+        params = replace(params, canopy=split, roles=tuple(det.band_names))
         overlap = max(overlap, split.overlap_px + layer.halo_px)
         thresholds["crown_split"] = dict(det.split)
     return params, overlap, scales.align, thresholds, notes

@@ -253,10 +253,11 @@ def run_tile(job: TileJob) -> dict[str, np.ndarray]:
     if data is None:
         return _empty_tile(p)  # all nodata: only the mask was read
     if p.method == "imagery":
-        tint = None
+        tint = (
+            canopy.canopy_tint(data, p.roles) if p.canopy is not None and p.canopy.merge else None
+        )
         if p.canopy is not None and p.canopy.layer == "brightness":
             layer = canopy.canopy_layer(data, p.roles)
-            tint = canopy.canopy_tint(data, p.roles) if p.canopy.merge else None
         elif p.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = p.layer_model(data)
         elif p.terms:
