@@ -1,8 +1,8 @@
 """No function body is longer than 80 lines, docstrings aside (issue 14, "Done when").
 
 The count is the span from a function's first statement after its docstring to its last line,
-read with the standard library's ``ast``. ``detect/`` and ``survey/`` are left out while they
-are being reworked; the few known exceptions elsewhere are listed with the reason they stay,
+read with the standard library's ``ast``. ``survey/`` is left out while it is being
+reworked; the few known exceptions elsewhere are listed with the reason they stay,
 and the list may only shrink: an entry that is no longer too long fails too.
 """
 
@@ -14,7 +14,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 LIMIT = 80
 #: Folders of ecoscan not counted yet (reworked by other branches at the moment).
-SKIP = ("detect", "survey")
+SKIP = ("survey",)
 #: Functions allowed above the limit for now, and why.
 KNOWN = {
     # stats/ and synthetic/ internals are owned by their own work (issue 14 leaves them)
@@ -24,6 +24,11 @@ KNOWN = {
     "ecoscan/synthetic/styles/cropland.py:row_crop": "one scene recipe, step by step",
     # the detect command's options change with the detector work in progress
     "ecoscan/cli/commands/detect.py:add_arguments": "one argparse option after another",
+    "ecoscan/detect/autotune.py:_score_layer": "split on branch speed9c",
+    # split in registry14b's second landing (after the detector registry)
+    "ecoscan/detect/calibration.py:_prepare": "split next, in its own landing",
+    "ecoscan/detect/calibration.py:calibrate_detector": "split next, in its own landing",
+    "ecoscan/detect/detector_file.py:read_detector": "split next, in its own landing",
 }
 
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from ecoscan.cli._common import add_dask_args, add_plots_args, print_notes
 from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
-from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
+from ecoscan.detect.settings import CROWN_RULES, method_choices, parse_classes, parse_diameter
 from ecoscan.errors import InputError
 from ecoscan.execution import check_executor_options, open_executor
 from ecoscan.io.outputs import write_json
@@ -43,7 +43,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--method",
-        choices=("auto", "imagery", "chm", "classes"),
+        choices=method_choices(),
         default="auto",
         help="detector (default auto: 3+ bands imagery, 1 float band chm, 1 integer band "
         "classes when --classes is given)",
