@@ -22,13 +22,7 @@ KNOWN = {
     "ecoscan/stats/quadrat.py:quadrat_test": "grid fitting and the statistics in one pass",
     "ecoscan/stats/montecarlo.py:monte_carlo_nn": "the sequential Monte Carlo loop",
     "ecoscan/synthetic/styles/cropland.py:row_crop": "one scene recipe, step by step",
-    # the detect command's options change with the detector work in progress
-    "ecoscan/cli/commands/detect.py:add_arguments": "one argparse option after another",
     "ecoscan/detect/autotune.py:_score_layer": "split on branch speed9c",
-    # split in registry14b's second landing (after the detector registry)
-    "ecoscan/detect/calibration.py:_prepare": "split next, in its own landing",
-    "ecoscan/detect/calibration.py:calibrate_detector": "split next, in its own landing",
-    "ecoscan/detect/detector_file.py:read_detector": "split next, in its own landing",
 }
 
 
