@@ -7,9 +7,11 @@ from pathlib import Path
 
 import numpy as np
 
+from ecoscan.analysis.change import compute as change
+from ecoscan.analysis.compare import compute as compare
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.detect import describe_settings
-from ecoscan.model.notes import code_of
+from ecoscan.model.notes import code_of, notes_in
 from ecoscan.report.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -82,15 +84,6 @@ DETAIL_COLUMNS = [
     "morisita_std",
 ]
 
-_SHORT = (
-    ("fewer than 30", "few plants"),
-    ("fewer than 2", "too few for a test"),
-    ("coincid", "duplicates?"),
-    ("share their position", "duplicates?"),
-    ("no points", "empty plot"),
-    ("arrangements", "few permutations"),
-)
-
 #: Jargon in warnings, and the plain words the report uses instead.
 _PLAIN = (
     (
@@ -134,13 +127,18 @@ def _verdict_phrase(verdict: str, ids: list[str]) -> str:
     return f"{_join(ids)} {_verb(ids)} {verdict}"
 
 
-#: The index's short flag for a plot's warning, by the warning's code
-#: (ecoscan.analysis.dispersion.compute); the full text is in the plot's section.
+#: The short flag for a warning, by the warning's code (a plot's warnings:
+#: ecoscan.analysis.dispersion.compute; a change row's: ecoscan.analysis.change.compute;
+#: a pair of groups': ecoscan.analysis.compare.compute); the full text is in the CSV and,
+#: for a plot, in its section. A table cell's flags are given in this order.
 _FLAGS = {
     "few-points": "few plants",
+    change.FEW_PLANTS: "few plants",
+    compare.FEW_PLANTS: "few plants",
     "one-point": "too few for a test",
-    "empty-plot": "empty plot",
     "duplicates": "duplicates?",
+    "empty-plot": "empty plot",
+    compare.FEW_ARRANGEMENTS: "few permutations",
 }
 
 
@@ -167,25 +165,32 @@ def plot_flags(warnings) -> str:
     return ", ".join(dict.fromkeys(flags)) if flags else str(shown[0])[:40]
 
 
-def short_warnings(text: str) -> str:
-    """Short flags for warnings given as text (the comparison and change tables' cells).
+def short_warnings(cell) -> str:
+    """Short flags for a table cell of warnings (the comparison and change tables' cells,
+    :class:`ecoscan.model.notes.JoinedNotes`), found by the warnings' codes.
 
-    A plot's own warnings are flagged from their codes (:func:`plot_flags`). Notes on the
-    quadrat test are for the analyst and are not flagged here.
+    The flags come in a fixed order; a cell whose warnings have no flag shows the start of
+    its first warning. Notes on the quadrat test are for the analyst and are not flagged.
 
     Examples
     --------
-    >>> short_warnings("only 22 points (fewer than 30): the tests have little power")
-    'few plants'
-    >>> short_warnings("3 of 8 quadrats expect fewer than 5 points: quadrat_p is approximate")
+    >>> from ecoscan.model.notes import JoinedNotes, Note
+    >>> short_warnings(JoinedNotes([
+    ...     Note("3 and 2 plots give 10 arrangements: ...", "few-arrangements", "warning"),
+    ...     Note("fewer than 30 plants in a group: ...", "few-plants", "warning")]))
+    'few plants, few permutations'
+    >>> short_warnings(JoinedNotes([Note("a group has no nearest-neighbour distances",
+    ...                                  "no-distances", "warning")]))
+    'a group has no nearest-neighbour distanc'
+    >>> short_warnings("")
     ''
     """
-    parts = [t for t in (text or "").split("; ") if t and "quadrat" not in t]
-    if not parts:
+    notes = [n for n in notes_in(cell) if not _analyst_only(n)]
+    if not notes:
         return ""
-    joined = "; ".join(parts)
-    flags = [label for key, label in _SHORT if key in joined]
-    return ", ".join(dict.fromkeys(flags)) if flags else parts[0][:40]
+    codes = {n.code for n in notes}
+    flags = [flag for code, flag in _FLAGS.items() if code in codes]
+    return ", ".join(dict.fromkeys(flags)) if flags else notes[0].text[:40]
 
 
 def plain_warnings(*texts: str) -> list[str]:
