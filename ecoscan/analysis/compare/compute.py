@@ -499,49 +499,54 @@ def _paired(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[st
     }
 
 
-def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
-    nan = float("nan")
-    warn: list[Note] = []
-    rate = poisson_rate_test(a.n, a.area_m2, b.n, b.area_m2)
-    diff = r_difference(a.r, b.r)
-    diff_d = r_difference(a.r, b.r, edge_corrected=True)
-    perm = r_permutation_test(
-        [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
-    )
+def _permutation_limits(a: GroupSummary, b: GroupSummary, perm) -> list[Note]:
+    """A pair's warning when whole plots cannot be permuted, or too few ways for a small p."""
     if not math.isfinite(perm.pvalue):
-        warn.append(
+        return [
             Note(
                 f"{len(a.units)} and {len(b.units)} plot(s): no rearrangement of whole plots "
                 "exists, so the permutation tests cannot run",
                 NO_REARRANGEMENT,
                 WARNING,
             )
-        )
-    elif perm.min_pvalue > 0.05:
-        warn.append(
+        ]
+    if perm.min_pvalue > 0.05:
+        return [
             Note(
                 f"{len(a.units)} and {len(b.units)} plots give {perm.arrangements} "
                 f"arrangements: the permutation p-values cannot go below {perm.min_pvalue:.2g}",
                 FEW_ARRANGEMENTS,
                 WARNING,
             )
-        )
+        ]
+    return []
+
+
+def _pooled_distance_tests(da: np.ndarray, db: np.ndarray) -> tuple[float, float, float, float]:
+    """Mann–Whitney U and its p, Kolmogorov–Smirnov D and its p on the pooled distances
+    (NaN when a group has none)."""
+    if da.size >= 1 and db.size >= 1:
+        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
+        ks = sps.ks_2samp(da, db)
+        return float(mw.statistic), float(mw.pvalue), float(ks.statistic), float(ks.pvalue)
+    nan = float("nan")
+    return nan, nan, nan, nan
+
+
+def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
+    rate = poisson_rate_test(a.n, a.area_m2, b.n, b.area_m2)
+    diff = r_difference(a.r, b.r)
+    diff_d = r_difference(a.r, b.r, edge_corrected=True)
+    perm = r_permutation_test(
+        [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
+    )
+    warn = _permutation_limits(a, b, perm)
     dist = nn_distribution_test(
         [u.nn.nn_m for u in a.units], [u.nn.nn_m for u in b.units],
         permutations=permutations, rng=rng,
     )  # fmt: skip
-    da, db = a.nn_m, b.nn_m
-    if da.size >= 1 and db.size >= 1:
-        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
-        ks = sps.ks_2samp(da, db)
-        mw_u, p_mw, ks_d, p_ks = (
-            float(mw.statistic),
-            float(mw.pvalue),
-            float(ks.statistic),
-            float(ks.pvalue),
-        )
-    else:
-        mw_u = p_mw = ks_d = p_ks = nan
+    mw_u, p_mw, ks_d, p_ks = _pooled_distance_tests(a.nn_m, b.nn_m)
+    if not (a.nn_m.size >= 1 and b.nn_m.size >= 1):
         warn.append(Note("a group has no nearest-neighbour distances", NO_DISTANCES, WARNING))
     if min(a.n, b.n) < 30:
         warn.append(
