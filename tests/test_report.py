@@ -85,6 +85,15 @@ def test_methods_section_names_the_sources():
         assert source in full
 
 
+def test_long_text_cells_wrap_between_words_only():
+    html = table_html(
+        [{"group": "Tansy Hollow/rows 2026-04-20", "site": "Tansy Hollow"}], ["group", "site"]
+    )
+    # a long label may wrap, but not inside its date; a short one stays on one line
+    assert '<td class="text long">Tansy Hollow/rows <span class="nw">2026-04-20</span></td>' in html
+    assert '<td class="text">Tansy Hollow</td>' in html
+
+
 def test_short_warning_flags_come_from_codes_not_wording():
     from ecoscan.analysis.change.compute import detect_change
     from ecoscan.model.notes import WARNING, JoinedNotes, Note
