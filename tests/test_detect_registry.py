@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import pickle
+from dataclasses import dataclass
 
 import numpy as np
 import pytest
 from detect_helpers import chm_scene
+from scipy.ndimage import maximum_filter
 
 from ecoscan.detect import DetectionSettings, choose_method, detect_raster
 from ecoscan.detect.chm import crown_areas, tree_tops
-from ecoscan.detect.detectors.base import Detector, TilePoints
+from ecoscan.detect.detectors.base import Detector, Prepared, TilePoints
 from ecoscan.detect.detectors.registry import (
     automatic,
     detectors,
@@ -107,3 +109,52 @@ def test_tree_tops_record_indices_feed_the_crown_areas():
     area = crown_areas(h, h, valid, tops.array_row, tops.array_col, 1.0)
     # cone radius above 1 m: (10-1)/0.8 = 11.25 px and (6-1)/0.8 = 6.25 px; area ~ pi r^2
     np.testing.assert_allclose(area[order], np.pi * np.array([11.25, 6.25]) ** 2, rtol=0.1)
+
+
+@dataclass(frozen=True)
+class _PeakPlan:
+    bands: tuple[int, ...]
+    floor: float
+    reach_px: int
+
+
+class _PeakDetector(Detector):
+    """A detector written only here: local maxima above a floor, with a column of its own."""
+
+    name = "peaks"
+    method = "peaks"
+
+    def prepare(self, info, settings, bands, index, source):
+        plan = _PeakPlan(bands, floor=2.0, reach_px=6)
+        return Prepared(plan, overlap=8, align=1, thresholds={"floor": 2.0}, notes=[])
+
+    def run(self, window, plan):
+        img = window.pop_data()[0]
+        peak = (img == maximum_filter(img, size=2 * plan.reach_px + 1)) & (img > plan.floor)
+        rows, cols = np.nonzero(peak & window.valid)
+        c0, r0 = window.origin
+        return TilePoints(cols + float(c0), rows + float(r0), {"peak_m": img[rows, cols]})
+
+    def empty_tile(self, plan):
+        return TilePoints.empty(("peak_m",))
+
+    def finish(self, points, plan):
+        return points, {"peak_m": points.columns["peak_m"], "score": points.columns["peak_m"]}, []
+
+
+def test_a_detector_added_in_one_place_runs_and_writes_its_own_column(tmp_path, monkeypatch):
+    # issue 14: "adding a detector touches one file": register one object, nothing else
+    path, truth = chm_scene(tmp_path, shape=(120, 120), n=12)
+    monkeypatch.setitem(detectors(), "peaks", _PeakDetector())
+    assert "peaks" in method_choices()
+    res = detect_raster(
+        path, DetectionSettings(method="peaks", diameter_min_m=3.0, diameter_max_m=8.5)
+    )
+    assert res.method == "peaks"
+    # the usual columns first, then the detector's own, then the tile (detect.output_order)
+    assert list(res.points.attrs) == ["score", "peak_m", "tile"]
+    # every true tree top is a local maximum of the height model above 2 m: one point each
+    # (exact construction of the synthetic height model, tops well apart)
+    d = np.hypot(res.points.x[:, None] - truth.x[None], res.points.y[:, None] - truth.y[None])
+    assert np.sum(d.min(axis=0) < 0.5) >= 0.9 * truth.n
+    assert np.allclose(res.points.attrs["peak_m"], res.points.attrs["score"])

@@ -47,7 +47,8 @@ __all__ = [
     "parse_band_spec",
 ]
 
-#: Columns every detection table may carry, in output order after x, y.
+#: The detectors' usual columns, in output order after x, y. A detector's other columns
+#: follow them in the detector's own order, then the columns every table ends with.
 ATTRIBUTE_ORDER = (
     "diameter_m",
     "height_m",
@@ -55,10 +56,24 @@ ATTRIBUTE_ORDER = (
     "score",
     "index_value",
     "class_value",
-    "plot_id",
-    "plot_count",
-    "tile",
 )
+#: Columns added after detection (plot membership, tile), last in every table.
+TRAILING_COLUMNS = ("plot_id", "plot_count", "tile")
+
+
+def output_order(names) -> list[str]:
+    """Column names in output order: the usual detector columns, then the detector's other
+    columns as given, then plot membership and tile.
+
+    Examples
+    --------
+    >>> output_order(["tile", "score", "crown_depth_m", "diameter_m"])
+    ['diameter_m', 'score', 'crown_depth_m', 'tile']
+    """
+    names = list(names)
+    usual = [k for k in ATTRIBUTE_ORDER if k in names]
+    own = [k for k in names if k not in ATTRIBUTE_ORDER and k not in TRAILING_COLUMNS]
+    return usual + own + [k for k in TRAILING_COLUMNS if k in names]
 
 
 @dataclass
@@ -346,7 +361,7 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
     unsurveyed: list[str] = []
     if plots is not None:
         pts, unsurveyed = _clip_to_plots(pts, plots, info, frame, notes, warn)
-    ordered = {k: pts.attrs[k] for k in ATTRIBUTE_ORDER if k in pts.attrs}
+    ordered = {k: pts.attrs[k] for k in output_order(pts.attrs)}
     pts = PointSet(pts.x, pts.y, ordered, pts.crs, [])
     if pts.n == 0:
         msg = "no plants were found; check --diameter, thresholds and bands"
