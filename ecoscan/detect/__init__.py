@@ -328,9 +328,12 @@ def _decimated(info: RasterInfo, bands, name: str):
 
 
 def _global_params(
-    info: RasterInfo, settings: DetectionSettings, method: str, bands, index
+    info: RasterInfo, settings: DetectionSettings, method: str, bands, index, pool=None
 ) -> tuple[DetectorParams | None, int, int, dict, list[str]]:
-    """Thresholds and scales from the whole raster (decimated), never per tile."""
+    """Thresholds and scales from the whole raster (decimated), never per tile.
+
+    ``pool``: workers started early (:class:`EarlyPool`) that may help choose the layer.
+    """
     ps = info.pixel_size_m
     name = Path(info.path).name
     if method == "imagery" and _auto_layer(settings) and all_pixels_valid(info, info.data_bands):
@@ -375,7 +378,7 @@ def _global_params(
         )
         fallback = ""
         if _auto_layer(settings):
-            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
+            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes, pool)
             if auto is not None:
                 return auto
             fallback = Note(
@@ -619,7 +622,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     return params, max(overlap, split.overlap_px), scales.align, th, notes
 
 
-def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
+def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes, pool=None):
     """Layer and thresholds chosen from the image (robust background statistics)."""
     from ecoscan.detect.autotune import (
         GAP_SHARE,
@@ -643,7 +646,7 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         closed = _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes)
         if closed is not None:
             return closed
-    choice = choose_layer(windows, roles, scales)
+    choice = choose_layer(windows, roles, scales, pool=pool)
     del windows
     if choice.candidates < MIN_CANDIDATES:
         return None
@@ -928,7 +931,7 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
         if method == "chm":
             check_height_model(info, settings)
         params, overlap, align, thresholds, more = _global_params(
-            info, settings, method, bands, index
+            info, settings, method, bands, index, early
         )
         if method == "imagery" and thresholds.get("layer"):
             index = thresholds["layer"]
