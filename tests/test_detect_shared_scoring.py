@@ -148,34 +148,3 @@ def test_layer_scoring_functions_are_short():
     # issue 14's limit (tests/test_function_length.py) for the modules of this work
     for rel in ("ecoscan/detect/autotune.py", "ecoscan/detect/tiling.py"):
         assert long_functions((ROOT / rel).read_text(encoding="utf-8")) == {}, rel
-
-
-@pytest.mark.parametrize("side_px", [1400, 3000])
-def test_sample_window_cores_stay_within_the_budget_and_spread_over_the_raster(tmp_path, side_px):
-    import rasterio
-    from rasterio.transform import from_origin
-
-    import ecoscan.detect as det
-    from ecoscan.io.raster import open_raster
-
-    path = tmp_path / "grid.tif"
-    profile = dict(driver="GTiff", width=side_px, height=side_px, count=3, dtype="uint8")
-    # the UTM zone 33N code (EPSG registry); only the metres matter here
-    with rasterio.open(
-        path, "w", **profile, crs="EPSG:32633", transform=from_origin(500000, 6000000, 0.05, 0.05)
-    ) as dst:
-        dst.write(np.full((3, side_px, side_px), 90, np.uint8))
-    info = open_raster(path)
-    scales = blob_scales(6.0, 20.0)
-    wins = det._sample_windows(info, (1, 2, 3), scales, 40.0)
-    cores = [(w.core[0].stop - w.core[0].start) * (w.core[1].stop - w.core[1].start) for w in wins]
-    assert sum(cores) <= det.SAMPLE_BUDGET_PX
-    assert 2 <= len(wins) <= 16
-    # each window holds its core, with the filters' margin where the raster allows it
-    margin = scales.support_px
-    for w in wins:
-        (r, c), (h, wd) = w.core, w.valid.shape
-        assert r.stop - r.start == c.stop - c.start == 384  # max(384, 6 x 40 px)
-        assert 0 <= r.start <= margin and r.stop <= h <= r.stop + margin
-        assert 0 <= c.start <= margin and c.stop <= wd <= c.stop + margin
-        assert w.data.shape[1:] == w.valid.shape

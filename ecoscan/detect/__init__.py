@@ -521,7 +521,7 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     """Full-resolution windows spread over the raster, for layer and threshold statistics.
 
     The whole raster when it is small; otherwise up to 16 windows on a regular grid whose
-    cores total at most :data:`SAMPLE_BUDGET_PX` pixels, each read with a margin of the
+    cores total about :data:`SAMPLE_BUDGET_PX` pixels, each read with a margin of the
     filters' reach so that its candidates are those of a whole-image run.
     """
     from ecoscan.detect.autotune import SampleWindow
@@ -534,14 +534,12 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
         return [SampleWindow(data, valid, (slice(0, h), slice(0, w)))]
     side = int(min(max(384, 6 * dmax_px), w, h))
     n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
-    # a grid of at most n windows (rows x columns), so the cores stay within the budget
-    rows = math.isqrt(n)
-    cols = n // rows
+    per = math.ceil(math.sqrt(n))
     out = []
-    for gy in range(rows):
-        for gx in range(cols):
-            cy = int((gy + 0.5) * h / rows)
-            cx = int((gx + 0.5) * w / cols)
+    for gy in range(per):
+        for gx in range(per):
+            cy = int((gy + 0.5) * h / per)
+            cx = int((gx + 0.5) * w / per)
             c0 = int(np.clip(cx - side // 2, 0, w - side))
             r0 = int(np.clip(cy - side // 2, 0, h - side))
             win = (
