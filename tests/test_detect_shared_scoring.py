@@ -148,3 +148,26 @@ def test_layer_scoring_functions_are_short():
     # issue 14's limit (tests/test_function_length.py) for the modules of this work
     for rel in ("ecoscan/detect/autotune.py", "ecoscan/detect/tiling.py"):
         assert long_functions((ROOT / rel).read_text(encoding="utf-8")) == {}, rel
+
+
+def test_detection_lends_its_workers_to_the_layer_choice(tmp_path, monkeypatch):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.synthetic import write_scene
+
+    sc = make_scene("dry-shrubs", 512, 0)
+    raster = write_scene(sc, tmp_path).raster
+    lo, hi = sc.diameter_range_m
+    settings = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=256)
+    lent = []
+    real = autotune.share_work
+
+    def spy(func, jobs, *, pool=None, local=None):
+        lent.append(pool)
+        return real(func, jobs, pool=pool, local=local)
+
+    monkeypatch.setattr(autotune, "share_work", spy)
+    two = detect_raster(raster, settings, workers=2)
+    one = detect_raster(raster, settings, workers=1)
+    assert isinstance(lent[0], EarlyPool) and lent[1] is None
+    assert two.thresholds == one.thresholds
+    np.testing.assert_array_equal(two.points.xy, one.points.xy)

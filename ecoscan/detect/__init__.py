@@ -25,7 +25,7 @@ import numpy as np
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, prune_blobs, split_merged
 from ecoscan.detect.engine import DetectorParams, TileJob, run_tile, vegetation_layer
 from ecoscan.detect.settings import CROWN_RULES, DetectionSettings, parse_band_spec
-from ecoscan.detect.tiling import EarlyPool, Tile, plan_tiles, run_plan
+from ecoscan.detect.tiling import EarlyPool, Tile, lend_pool, plan_tiles, run_plan
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
 from ecoscan.io.raster import (
@@ -328,12 +328,9 @@ def _decimated(info: RasterInfo, bands, name: str):
 
 
 def _global_params(
-    info: RasterInfo, settings: DetectionSettings, method: str, bands, index, pool=None
+    info: RasterInfo, settings: DetectionSettings, method: str, bands, index
 ) -> tuple[DetectorParams | None, int, int, dict, list[str]]:
-    """Thresholds and scales from the whole raster (decimated), never per tile.
-
-    ``pool``: workers started early (:class:`EarlyPool`) that may help choose the layer.
-    """
+    """Thresholds and scales from the whole raster (decimated), never per tile."""
     ps = info.pixel_size_m
     name = Path(info.path).name
     if method == "imagery" and _auto_layer(settings) and all_pixels_valid(info, info.data_bands):
@@ -378,7 +375,7 @@ def _global_params(
         )
         fallback = ""
         if _auto_layer(settings):
-            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes, pool)
+            auto = _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
             if auto is not None:
                 return auto
             fallback = Note(
@@ -622,7 +619,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     return params, max(overlap, split.overlap_px), scales.align, th, notes
 
 
-def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes, pool=None):
+def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
     from ecoscan.detect.autotune import (
         GAP_SHARE,
@@ -646,7 +643,7 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes, pool=N
         closed = _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes)
         if closed is not None:
             return closed
-    choice = choose_layer(windows, roles, scales, pool=pool)
+    choice = choose_layer(windows, roles, scales)
     del windows
     if choice.candidates < MIN_CANDIDATES:
         return None
@@ -930,9 +927,10 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
         notes += more
         if method == "chm":
             check_height_model(info, settings)
-        params, overlap, align, thresholds, more = _global_params(
-            info, settings, method, bands, index, early
-        )
+        with lend_pool(early):  # the workers may score candidate layers meanwhile
+            params, overlap, align, thresholds, more = _global_params(
+                info, settings, method, bands, index
+            )
         if method == "imagery" and thresholds.get("layer"):
             index = thresholds["layer"]
     warn = [n for n in more if is_warning(n)]

@@ -42,7 +42,7 @@ from ecoscan.detect.blobs import (
     response_spread,
 )
 from ecoscan.detect.engine import compose_layer
-from ecoscan.detect.tiling import EarlyPool, share_work
+from ecoscan.detect.tiling import EarlyPool, lent_pool, share_work
 
 __all__ = [
     "LayerChoice",
@@ -914,6 +914,8 @@ def choose_layer(
         Worker processes started for the tiles (:class:`ecoscan.detect.tiling.EarlyPool`):
         while this process scores some layers, the workers score others
         (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
+        Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
+        lends the workers it started), else none.
 
     Returns
     -------
@@ -936,6 +938,7 @@ def choose_layer(
     1
     """
     options = options or candidate_layers(roles)
+    pool = pool if pool is not None else lent_pool()
     cache = _WindowCache(windows, scales)
     jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
     results = share_work(

@@ -13,11 +13,12 @@ or on local processes; a distributed engine can run the same jobs.
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import math
 import multiprocessing as mp
 import os
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
@@ -31,6 +32,8 @@ __all__ = [
     "EarlyPool",
     "Tile",
     "in_core",
+    "lend_pool",
+    "lent_pool",
     "plan_tiles",
     "run_plan",
     "share_work",
@@ -394,3 +397,34 @@ def share_work(
         except (BrokenProcessPool, CancelledError):
             results[i] = run_here(jobs[i])
     return results
+
+
+_LENT: contextvars.ContextVar[EarlyPool | None] = contextvars.ContextVar(
+    "ecoscan_lent_pool", default=None
+)
+
+
+@contextlib.contextmanager
+def lend_pool(pool: EarlyPool | None) -> Iterator[None]:
+    """Lend ``pool``'s workers to the work done inside this block, before the tiles.
+
+    :func:`ecoscan.detect.autotune.choose_layer` (called by the detector's preparation)
+    then scores some candidate layers on them (:func:`share_work`). The pool stays the
+    caller's: it is not stopped or handed over here.
+
+    Examples
+    --------
+    >>> with lend_pool(None):
+    ...     lent_pool() is None
+    True
+    """
+    token = _LENT.set(pool)
+    try:
+        yield
+    finally:
+        _LENT.reset(token)
+
+
+def lent_pool() -> EarlyPool | None:
+    """The pool lent by the innermost :func:`lend_pool` block, or None."""
+    return _LENT.get()
