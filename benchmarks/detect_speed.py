@@ -208,6 +208,7 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
         {
             "sample windows read": (blob_auto, "_sample_windows"),
             "layer choice": (auto, "choose_layer"),
+            "  layers scored in main": (auto, "_score_layer"),
             "global parameters (all)": (blob, "_imagery_plan"),
             "tiles (run_plan)": (det, "run_plan"),
         }
@@ -443,7 +444,10 @@ def main() -> None:
             f"peak memory plain {plain['peak_main_mb']:.0f} MB"
         )
     print()
-    print(f"where ecoscan's time goes at {a.size}^2 (main process; workers run the tiles):")
+    print(
+        f"where ecoscan's time goes at {a.size}^2 (main process; the workers score the "
+        "candidate layers the main process does not take, then run the tiles):"
+    )
     print(f"{'phase':28} {'wall s':>8} {'CPU s (main)':>13}")
     for name, (wall, cpu) in eco["phases"].items():
         print(f"{name:28} {wall:8.2f} {cpu:13.2f}")

@@ -26,7 +26,7 @@ from ecoscan.detect.detectors.blob import LAYER_LABELS
 from ecoscan.detect.detectors.registry import automatic, get_detector, overriding
 from ecoscan.detect.engine import TileJob, run_tile
 from ecoscan.detect.settings import DetectionSettings, parse_band_spec
-from ecoscan.detect.tiling import EarlyPool, Tile, plan_tiles, run_plan
+from ecoscan.detect.tiling import EarlyPool, Tile, lend_pool, plan_tiles, run_plan
 from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, to_metric, transform_xy
 from ecoscan.io.raster import RasterInfo, open_raster, pixel_to_map
@@ -338,7 +338,8 @@ def detect_raster(
 def _detect(path, info, settings, plots, workers, executor, early) -> DetectionResult:
     """The body of :func:`detect_raster` (``early``: an :class:`EarlyPool` or None)."""
     notes = list(info.notes)
-    detector, prepared = _prepare(path, info, settings, notes)
+    with lend_pool(early):  # the workers may score candidate layers meanwhile
+        detector, prepared = _prepare(path, info, settings, notes)
     warn = [n for n in prepared.notes if is_warning(n)]
     notes += prepared.notes
     # target metric CRS, chosen from the raster centre (not the detections)

@@ -42,6 +42,7 @@ from ecoscan.detect.blobs import (
     response_spread,
 )
 from ecoscan.detect.engine import compose_layer
+from ecoscan.detect.tiling import EarlyPool, lent_pool, share_work
 
 __all__ = [
     "LayerChoice",
@@ -613,7 +614,7 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     ``vals`` (the layer's valid pixels, all windows) and ``centre`` (their
     :func:`robust_centre_scale`) may be passed when already computed.
     """
-    windows, scales = cache.windows, cache.scales
+    windows = cache.windows
     if vals is None:
         vals = np.concatenate(
             [_values(lay, w.valid, cache.stride) for lay, w in zip(layers, windows, strict=True)]
@@ -623,26 +624,41 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
         s0 = float(np.std(vals)) or 1e-6
     # every DoG pyramid of this layer, filtered once (see _LayerPyramids)
     lp = _LayerPyramids(layers, cache, m0)
-    all_px = [w.valid for w in windows]
-    sr0 = _spreads(lp, all_px, m0)
-    # a dense stand (see DENSE_BACKGROUND): the crowns inflate the spread of all pixels so
-    # much that the rounds below would never exclude them; start from pixel noise instead
+    cand, sr0, dense = _first_candidates(lp, m0)
+    bg = _background_rounds(lp, cand, dense, (m0, s0, sr0), vals.size)
+    return _separation(cache.scales, cand, bg)
+
+
+def _first_candidates(lp: _LayerPyramids, m0: float):
+    """Blob candidates against the response spread of all pixels, that spread, and
+    whether the stand is dense (see ``DENSE_BACKGROUND``): then the crowns inflate the
+    spread of all pixels so much that the background rounds would never exclude them, and
+    both start from pixel noise (with room for texture) instead."""
+    cache = lp.cache
+    sr0 = _spreads(lp, [w.valid for w in cache.windows], m0)
     noise = lp.noise()
-    sr_noise = TEXTURE * noise * cache.white_spread(layers[0].shape)
-    dense = False
+    sr_noise = TEXTURE * noise * cache.white_spread(lp.layers[0].shape)
     if noise > 0 and np.any(sr_noise < sr0):
         low = np.minimum(sr0, sr_noise)
         cand = _candidates(lp, 0.5 * low)
-        spread_low = low[_scale_index(scales, cand["sigma"])]
-        dense = _background_share(windows, cand, spread_low) < DENSE_BACKGROUND
-    if dense:
-        sr0 = low
-    else:
-        cand = _candidates(lp, 0.5 * sr0)
-    si = _scale_index(scales, cand["sigma"])
-    # background: pixels away from candidates that stand out (their discs and the ring the
-    # filters spread around them), found in two rounds as the noise estimate improves
-    m, s, sr = m0, s0, sr0
+        spread_low = low[_scale_index(cache.scales, cand["sigma"])]
+        if _background_share(cache.windows, cand, spread_low) < DENSE_BACKGROUND:
+            return cand, low, True
+    return _candidates(lp, 0.5 * sr0), sr0, False
+
+
+def _background_rounds(lp: _LayerPyramids, cand, dense: bool, start, n_values: int) -> dict:
+    """Background median, spread and response spread per scale, in rounds.
+
+    The background is the pixels away from candidates that stand out (their discs and the
+    ring the filters spread around them), found again as the noise estimate improves, up
+    to ``ROUNDS`` times. ``start`` is ``(median, spread, response spread)`` of all pixels;
+    ``n_values`` the number of valid pixels sampled (``MIN_BACKGROUND``).
+    """
+    cache = lp.cache
+    si = _scale_index(cache.scales, cand["sigma"])
+    m0, s0, _sr0 = start
+    m, s, sr = start
     closed = False
     last = None
     for _round in range(ROUNDS):
@@ -654,33 +670,15 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
         last = strong
         # the widest exclusion that leaves enough background; closed canopy leaves little
         for factor in (EXCLUDE, 1.0, 0.6):
-            bg_masks, bg_vals, clears = [], [], []
-            for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
-                sel = strong & (cand["w"] == wi)
-                covered = _disc_mask(
-                    lay.shape,
-                    cand["row"][sel],
-                    cand["col"][sel],
-                    factor * math.sqrt(2) * cand["sigma"][sel],
-                )
-                if dense:
-                    # response spread only where the crowns' filter ringing has faded
-                    clears.append(
-                        ndimage.distance_transform_edt(~covered).astype(np.float32)
-                        if covered.any()
-                        else np.full(lay.shape, np.inf, np.float32)
-                    )
-                bg_masks.append(win.valid & ~covered)
-                bg_vals.append(_values(lay, bg_masks[-1], cache.stride))
-            bg = np.concatenate(bg_vals)
-            if bg.size >= MIN_BACKGROUND * vals.size:
+            bg_masks, bg, clears = _background_pixels(lp, cand, strong, factor, dense)
+            if bg.size >= MIN_BACKGROUND * n_values:
                 break
         closed = factor < EXCLUDE
         if closed:
             # crowns cover most of the image: background statistics are contaminated by
             # them; the response noise comes from the pixel noise instead, with room for
             # texture inside crowns
-            sr = TEXTURE * lp.noise() * cache.white_spread(layers[0].shape)
+            sr = TEXTURE * lp.noise() * cache.white_spread(lp.layers[0].shape)
             m, s = robust_centre_scale(bg) if bg.size else (m0, s0)
             break
         m1, s1 = clipped_centre_scale(bg) if dense else robust_centre_scale(bg)
@@ -689,9 +687,44 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
         m, s = m1, s1
         if dense:
             # scales without enough clear background keep the nearest smaller one's spread
+            sr_noise = TEXTURE * lp.noise() * cache.white_spread(lp.layers[0].shape)
             sr = _fill_scales(_spreads(lp, bg_masks, m, clears), sr_noise)
         else:
             sr = _spreads(lp, bg_masks, m)
+    return {"background": m, "spread": s, "response_spread": sr, "closed": closed}
+
+
+def _background_pixels(lp: _LayerPyramids, cand, strong, factor: float, dense: bool):
+    """Background masks per window (valid pixels farther than ``factor`` crown radii from
+    every ``strong`` candidate), their layer values (all windows) and, for a dense stand,
+    each pixel's distance from the excluded discs (None otherwise)."""
+    cache = lp.cache
+    bg_masks, bg_vals, clears = [], [], []
+    for wi, (lay, win) in enumerate(zip(lp.layers, cache.windows, strict=True)):
+        sel = strong & (cand["w"] == wi)
+        covered = _disc_mask(
+            lay.shape,
+            cand["row"][sel],
+            cand["col"][sel],
+            factor * math.sqrt(2) * cand["sigma"][sel],
+        )
+        if dense:
+            # response spread only where the crowns' filter ringing has faded
+            clears.append(
+                ndimage.distance_transform_edt(~covered).astype(np.float32)
+                if covered.any()
+                else np.full(lay.shape, np.inf, np.float32)
+            )
+        bg_masks.append(win.valid & ~covered)
+        bg_vals.append(_values(lay, bg_masks[-1], cache.stride))
+    return bg_masks, np.concatenate(bg_vals), (clears if dense else None)
+
+
+def _separation(scales: BlobScales, cand, bg: dict) -> dict:
+    """The threshold raise and separation score of a layer from its candidates and
+    background (:func:`_background_rounds`); the result of :func:`_score_layer`."""
+    m, s, sr, closed = bg["background"], bg["spread"], bg["response_spread"], bg["closed"]
+    si = _scale_index(scales, cand["sigma"])
     kk = response_mads(scales)
     q = cand["response"] / sr[si] * (RESPONSE_MADS / kk[si])
     z = (cand["value"] - m) / s
@@ -708,13 +741,10 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     med_q = float(np.median(q[kept])) / raise_by if n_kept else 0.0
     clear = 1.0 - min(1.0, near_share)
     return {
-        "background": m,
-        "spread": s,
-        "response_spread": sr,
+        **bg,
         "separation": med_q * clear,
         "near_share": near_share,
         "candidates": n_kept,
-        "closed": closed,
         "raise": raise_by,
         "q": q,
         "z": z,
@@ -799,11 +829,73 @@ def threshold_raise(ratio: np.ndarray, eligible: np.ndarray) -> tuple[float, flo
     return float(grid[i]), float(shares[i])
 
 
+@dataclass(frozen=True)
+class _LayerJob:
+    """One candidate layer to score, self-contained so that a worker process can score it.
+
+    ``layers`` are the layer in every sample window, ``valid`` and ``core`` the windows'
+    valid pixels and cores, ``centre`` the robust centre and scale of the layer's sampled
+    values when already known (single base layers).
+    """
+
+    label: str
+    terms: tuple[tuple[str, float], ...]
+    layers: list[np.ndarray]
+    valid: list[np.ndarray]
+    core: list[tuple[slice, slice]]
+    scales: BlobScales
+    centre: tuple[float, float] | None
+
+
+def _score_job(job: _LayerJob) -> dict:
+    """:func:`_score_layer` of a job (in a worker: the window statistics built here)."""
+    windows = [
+        SampleWindow(lay[None], valid, core)
+        for lay, valid, core in zip(job.layers, job.valid, job.core, strict=True)
+    ]
+    return _score_layer(job.layers, _WindowCache(windows, job.scales), centre=job.centre)
+
+
+def _layer_jobs(windows, roles, scales, options, stride: int) -> list[_LayerJob]:
+    """A job per option. Base layers, their sampled values and robust centre and scale are
+    computed once, shared by the single-layer options and the weights of the combined
+    ones (each base layer divided by its robust standard deviation)."""
+    base: dict[str, tuple[list[np.ndarray], tuple[float, float]]] = {}
+
+    def base_of(name: str):
+        if name not in base:
+            single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
+            vals = np.concatenate(
+                [_values(s, w.valid, stride) for s, w in zip(single, windows, strict=True)]
+            )
+            base[name] = (single, robust_centre_scale(vals))
+        return base[name]
+
+    valid = [w.valid for w in windows]
+    core = [w.core for w in windows]
+    jobs = []
+    for opt in options:
+        if len(opt) == 1:
+            layers, centre = base_of(opt[0])
+            terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
+        else:
+            sds = [base_of(name)[1][1] for name in opt]
+            terms = tuple((n, 1.0 / sd if sd > 0 else 1.0) for n, sd in zip(opt, sds, strict=True))
+            layers = [
+                _weighted_sum([base_of(n)[0][i] for n, _w in terms], terms)
+                for i in range(len(windows))
+            ]
+            centre = None
+        jobs.append(_LayerJob("+".join(opt), terms, layers, valid, core, scales, centre))
+    return jobs
+
+
 def choose_layer(
     windows: list[SampleWindow],
     roles: tuple[str, ...],
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
+    pool: EarlyPool | None = None,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -818,6 +910,12 @@ def choose_layer(
     options : list of tuple of str, optional
         Layers to try (default :func:`candidate_layers`); a layer of several base layers is
         their sum, each scaled by its own background standard deviation.
+    pool : EarlyPool, optional
+        Worker processes started for the tiles (:class:`ecoscan.detect.tiling.EarlyPool`):
+        while this process scores some layers, the workers score others
+        (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
+        Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
+        lends the workers it started), else none.
 
     Returns
     -------
@@ -840,56 +938,32 @@ def choose_layer(
     1
     """
     options = options or candidate_layers(roles)
+    pool = pool if pool is not None else lent_pool()
+    cache = _WindowCache(windows, scales)
+    jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
+    results = share_work(
+        _score_job,
+        jobs,
+        pool=pool,
+        local=lambda job: _score_layer(job.layers, cache, centre=job.centre),
+    )
     scores: dict[str, float] = {}
     best: tuple | None = None
-    cache = _WindowCache(windows, scales)
-    # base layers, their valid pixels and robust centre and scale: computed once, shared
-    # by the single-layer options and the weights of the combined ones
-    base: dict[str, tuple[list[np.ndarray], np.ndarray, tuple[float, float]]] = {}
-
-    def base_of(name: str):
-        if name not in base:
-            single = [compose_layer(w.data, roles, ((name, 1.0),)) for w in windows]
-            vals = np.concatenate(
-                [_values(s, w.valid, cache.stride) for s, w in zip(single, windows, strict=True)]
-            )
-            base[name] = (single, vals, robust_centre_scale(vals))
-        return base[name]
-
-    for opt in options:
-        if len(opt) == 1:
-            terms: tuple[tuple[str, float], ...] = ((opt[0], 1.0),)
-            layers, vals, centre = base_of(opt[0])
-            res = _score_layer(layers, cache, vals, centre)
-        else:
-            ws = []
-            for name in opt:
-                _m, sd = base_of(name)[2]
-                ws.append((name, 1.0 / sd if sd > 0 else 1.0))
-            terms = tuple(ws)
-            layers = [
-                _weighted_sum([base_of(n)[0][i] for n, _w in terms], terms)
-                for i in range(len(windows))
-            ]
-            res = _score_layer(layers, cache)
-        label = "+".join(opt)
-        scores[label] = round(res["separation"], 3)
+    for job, res in zip(jobs, results, strict=True):
+        scores[job.label] = round(res["separation"], 3)
         if best is None or res["separation"] > best[2]["separation"]:
-            best = (label, terms, res)
+            best = (job.label, job.terms, res)
     assert best is not None
     label, terms, res = best
     m, s = res["background"], res["spread"]
+    thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
         terms=terms,
         background=m,
         spread=s,
-        min_response=tuple(
-            float(v) for v in res["raise"] * response_mads(scales) * res["response_spread"]
-        ),
-        min_contrast=float(
-            np.median(res["raise"] * response_mads(scales) * res["response_spread"]) / DISC_RESPONSE
-        ),
+        min_response=tuple(float(v) for v in thresholds),
+        min_contrast=float(np.median(thresholds) / DISC_RESPONSE),
         threshold_raise=res["raise"],
         min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
         closed=res["closed"],

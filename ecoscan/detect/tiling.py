@@ -13,12 +13,14 @@ or on local processes; a distributed engine can run the same jobs.
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import math
 import multiprocessing as mp
 import os
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
@@ -26,7 +28,17 @@ import numpy as np
 
 from ecoscan.progress import progress
 
-__all__ = ["EarlyPool", "Tile", "in_core", "plan_tiles", "run_plan", "start_pool"]
+__all__ = [
+    "EarlyPool",
+    "Tile",
+    "in_core",
+    "lend_pool",
+    "lent_pool",
+    "plan_tiles",
+    "run_plan",
+    "share_work",
+    "start_pool",
+]
 
 J = TypeVar("J")
 R = TypeVar("R")
@@ -109,8 +121,9 @@ def in_core(tile: Tile, col: np.ndarray, row: np.ndarray) -> np.ndarray:
 
 
 #: Modules the fork server imports once, so that every worker forked from it starts with
-#: them loaded (no dataset is open in the server, so no GDAL state is copied).
-PRELOAD = ["ecoscan.detect.engine", "ecoscan.lifecycle"]
+#: them loaded (no dataset is open in the server, so no GDAL state is copied): the tile
+#: detector and the layer scoring (:func:`ecoscan.detect.autotune.choose_layer`).
+PRELOAD = ["ecoscan.detect.engine", "ecoscan.detect.autotune", "ecoscan.lifecycle"]
 
 
 def _context(preload: bool = False):
@@ -202,6 +215,7 @@ class EarlyPool:
     """
 
     def __init__(self, workers: int) -> None:
+        self.workers = workers
         self._pool: ProcessPoolExecutor | None = None
         self._thread = threading.Thread(target=self._start, args=(workers,), daemon=True)
         self._thread.start()
@@ -209,6 +223,11 @@ class EarlyPool:
     def _start(self, workers: int) -> None:
         with contextlib.suppress(Exception):
             self._pool = start_pool(workers, preload=_same_package_in_fresh_python())
+
+    def wait(self) -> ProcessPoolExecutor | None:
+        """The started pool, lent (not handed over: :meth:`get` or :meth:`stop` follow)."""
+        self._thread.join()
+        return self._pool
 
     def get(self) -> ProcessPoolExecutor | None:
         """The started pool (handed over: :meth:`stop` no longer ends it)."""
@@ -284,3 +303,128 @@ def run_plan(
         raise
     ex.shutdown(wait=True)
     return results
+
+
+def share_work(
+    func: Callable[[J], R],
+    jobs: Sequence[J],
+    *,
+    pool: EarlyPool | None = None,
+    local: Callable[[J], R] | None = None,
+) -> list[R]:
+    """Run ``func`` on every job, here and on the workers of a pool that may still be starting.
+
+    This process takes jobs from the end of the list (with ``local`` when given: the same
+    computation without pickling, e.g. reusing what this process already holds) while a
+    background thread waits for ``pool`` and hands jobs from the front to its workers, one
+    per idle worker. A job a worker could not run (the pool broke or was stopped) is run
+    here. The results, in job order, are those of ``[func(j) for j in jobs]``: each job is
+    computed once, whole, by the same code.
+
+    Parameters
+    ----------
+    func : callable
+        A module-level (picklable) function of one picklable job.
+    jobs : sequence
+        The jobs.
+    pool : EarlyPool, optional
+        Workers started early (:class:`EarlyPool`), lent for these jobs and left running.
+        None runs every job here.
+    local : callable, optional
+        Used instead of ``func`` for the jobs run here; must give the same result.
+
+    Returns
+    -------
+    list
+        One result per job, in job order.
+
+    Examples
+    --------
+    >>> share_work(abs, [-1, 2, -3])
+    [1, 2, 3]
+    """
+    from concurrent.futures import CancelledError, Future
+
+    run_here = local or func
+    n = len(jobs)
+    results: list[Any] = [None] * n
+    lock = threading.Lock()
+    span = [0, n]  # jobs [span[0], span[1]) are not taken yet
+    futures: dict[int, Future] = {}
+
+    def take(front: bool) -> int | None:
+        with lock:
+            if span[0] >= span[1]:
+                return None
+            if front:
+                span[0] += 1
+                return span[0] - 1
+            span[1] -= 1
+            return span[1]
+
+    def dispatch() -> None:
+        ex = pool.wait() if pool is not None else None
+        if ex is None:
+            return
+        free = threading.Semaphore(max(1, pool.workers))
+        while True:
+            free.acquire()
+            i = take(front=True)
+            if i is None:
+                return
+            try:
+                fut = ex.submit(func, jobs[i])
+            except Exception:  # the pool was shut down or broke: run it here instead
+                with lock:
+                    futures[i] = None  # type: ignore[assignment]
+                return
+            fut.add_done_callback(lambda _f: free.release())
+            with lock:
+                futures[i] = fut
+
+    helper = threading.Thread(target=dispatch, daemon=True) if pool is not None else None
+    if helper is not None:
+        helper.start()
+    while (i := take(front=False)) is not None:
+        results[i] = run_here(jobs[i])
+    if helper is not None:
+        helper.join()
+        while (i := take(front=False)) is not None:  # left by a pool that failed
+            results[i] = run_here(jobs[i])
+    for i, fut in sorted(futures.items()):
+        try:
+            results[i] = fut.result() if fut is not None else run_here(jobs[i])
+        except (BrokenProcessPool, CancelledError):
+            results[i] = run_here(jobs[i])
+    return results
+
+
+_LENT: contextvars.ContextVar[EarlyPool | None] = contextvars.ContextVar(
+    "ecoscan_lent_pool", default=None
+)
+
+
+@contextlib.contextmanager
+def lend_pool(pool: EarlyPool | None) -> Iterator[None]:
+    """Lend ``pool``'s workers to the work done inside this block, before the tiles.
+
+    :func:`ecoscan.detect.autotune.choose_layer` (called by the detector's preparation)
+    then scores some candidate layers on them (:func:`share_work`). The pool stays the
+    caller's: it is not stopped or handed over here.
+
+    Examples
+    --------
+    >>> with lend_pool(None):
+    ...     lent_pool() is None
+    True
+    """
+    token = _LENT.set(pool)
+    try:
+        yield
+    finally:
+        _LENT.reset(token)
+
+
+def lent_pool() -> EarlyPool | None:
+    """The pool lent by the innermost :func:`lend_pool` block, or None."""
+    return _LENT.get()

@@ -1,0 +1,173 @@
+"""The layer choice shares its candidate layers with the tile workers: the same choice.
+
+The reference is the serial computation in this process (every layer scored here, one
+after the other); a layer scored by a worker process must give the same numbers to the
+bit, since the job carries everything the score depends on. Invented scenes only.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
+from pathlib import Path
+
+import numpy as np
+import pytest
+from test_function_length import long_functions
+
+from ecoscan.detect import autotune
+from ecoscan.detect.autotune import SampleWindow, choose_layer
+from ecoscan.detect.blobs import blob_scales
+from ecoscan.detect.tiling import EarlyPool, share_work
+from ecoscan.synthetic import make_scene
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _windows(size: int = 320):
+    """Four windows of a dry-shrub suite scene (seed 0, a development seed), each read with
+    a margin around its core; the outer ones touch the scene's edges (the edge pyramids of
+    the window statistics are then in use), and one has a nodata corner."""
+    sc = make_scene("dry-shrubs", size, 0)
+    img = np.asarray(sc.image, np.float32)[:3]
+    half, m = size // 2, 40
+    wins = []
+    for r0 in (0, half):
+        for c0 in (0, half):
+            rs, cs = (
+                slice(max(0, r0 - m), min(size, r0 + half + m)),
+                slice(max(0, c0 - m), min(size, c0 + half + m)),
+            )
+            data = img[:, rs, cs].copy()
+            valid = np.ones(data.shape[1:], bool)
+            core = (
+                slice(r0 - rs.start, r0 - rs.start + half),
+                slice(c0 - cs.start, c0 - cs.start + half),
+            )
+            wins.append(SampleWindow(data, valid, core))
+    corner = wins[3]
+    corner.valid[-30:, -30:] = False
+    corner.data[:, -30:, -30:] = 0.0
+    lo, hi = sc.diameter_range_m
+    ps = sc.pixel_size_m
+    return wins, blob_scales(lo / ps / 2, hi / ps / 2)
+
+
+@pytest.fixture(scope="module")
+def pool():
+    early = EarlyPool(2)
+    yield early
+    early.stop()
+
+
+def test_layer_choice_on_workers_is_the_serial_one(pool, monkeypatch):
+    wins, scales = _windows()
+    roles = ("red", "green", "blue")
+    serial = choose_layer(wins, roles, scales)
+    assert pool.wait() is not None  # workers up: the helper hands them jobs at once
+    here = []
+    score = autotune._score_layer
+
+    def counted(*args, **kwargs):
+        here.append(1)
+        return score(*args, **kwargs)
+
+    # counts the layers scored in this process only (workers import the module anew)
+    monkeypatch.setattr(autotune, "_score_layer", counted)
+    shared = choose_layer(wins, roles, scales, pool=pool)
+    n_options = len(autotune.candidate_layers(roles))
+    assert n_options == 3
+    assert len(here) < n_options  # at least one layer was scored by a worker
+    assert serial.candidates > 10
+    # every field, to the bit (floats, thresholds per scale, weights of the combined layer)
+    assert dataclasses.asdict(shared) == dataclasses.asdict(serial)
+
+
+def test_a_job_scored_from_its_own_contents_equals_the_shared_window_statistics():
+    # what a worker computes (window statistics rebuilt from the job) against this
+    # process's cache, on windows at the scene's edges and with nodata
+    wins, scales = _windows()
+    roles = ("red", "green", "blue")
+    cache = autotune._WindowCache(wins, scales)
+    assert any(e is not None for e in cache.edges)  # the edge pyramids are exercised
+    jobs = autotune._layer_jobs(wins, roles, scales, autotune.candidate_layers(roles), 1)
+    for job in jobs:
+        a = autotune._score_job(job)
+        b = autotune._score_layer(job.layers, cache, centre=job.centre)
+        assert a.keys() == b.keys()
+        for k in a:
+            np.testing.assert_array_equal(a[k], b[k], err_msg=f"{job.label}: {k}")
+
+
+def test_share_work_keeps_job_order_across_this_process_and_workers(pool):
+    jobs = list(range(-7, 5))
+    assert share_work(abs, jobs, pool=pool) == [abs(j) for j in jobs]
+    assert share_work(abs, jobs) == [abs(j) for j in jobs]  # no pool: all here
+    assert share_work(abs, []) == []
+
+
+class _Lent:
+    """A stand-in for EarlyPool lending ``executor`` (or None: the pool never started)."""
+
+    def __init__(self, executor, workers: int = 2) -> None:
+        self.executor, self.workers = executor, workers
+
+    def wait(self):
+        return self.executor
+
+
+class _Broken:
+    """An executor whose workers die: every future fails with BrokenProcessPool."""
+
+    def submit(self, func, *args):
+        fut: Future = Future()
+        fut.set_exception(BrokenProcessPool("a worker died"))
+        return fut
+
+
+def test_share_work_runs_here_what_the_pool_cannot():
+    jobs = list(range(-6, 6))
+    want = [abs(j) for j in jobs]
+    closed = ThreadPoolExecutor(1)
+    closed.shutdown()  # submit raises: the jobs not taken yet are run here
+    for lent in (_Lent(None), _Lent(closed), _Lent(_Broken())):
+        assert share_work(abs, jobs, pool=lent) == want
+
+
+def test_share_work_passes_a_workers_error_on():
+    with ThreadPoolExecutor(2) as ex, pytest.raises(ZeroDivisionError):
+        share_work(_inverse, [1, 0, 2, 4, 5, 8], pool=_Lent(ex))
+
+
+def _inverse(x):
+    return 1 / x
+
+
+def test_layer_scoring_functions_are_short():
+    # issue 14's limit (tests/test_function_length.py) for the modules of this work
+    for rel in ("ecoscan/detect/autotune.py", "ecoscan/detect/tiling.py"):
+        assert long_functions((ROOT / rel).read_text(encoding="utf-8")) == {}, rel
+
+
+def test_detection_lends_its_workers_to_the_layer_choice(tmp_path, monkeypatch):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.synthetic import write_scene
+
+    sc = make_scene("dry-shrubs", 512, 0)
+    raster = write_scene(sc, tmp_path).raster
+    lo, hi = sc.diameter_range_m
+    settings = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=256)
+    lent = []
+    real = autotune.share_work
+
+    def spy(func, jobs, *, pool=None, local=None):
+        lent.append(pool)
+        return real(func, jobs, pool=pool, local=local)
+
+    monkeypatch.setattr(autotune, "share_work", spy)
+    two = detect_raster(raster, settings, workers=2)
+    one = detect_raster(raster, settings, workers=1)
+    assert isinstance(lent[0], EarlyPool) and lent[1] is None
+    assert two.thresholds == one.thresholds
+    np.testing.assert_array_equal(two.points.xy, one.points.xy)
