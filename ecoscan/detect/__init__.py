@@ -563,7 +563,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
     datas = [w.data[:, w.core[0], w.core[1]] for w in windows]
     valids = [w.valid[w.core] for w in windows]
-    evidence = canopy.canopy_evidence(datas, valids, roles, r_min)
+    evidence = canopy.canopy_evidence(datas, valids, roles, r_min, r_max)
     if not canopy.is_closed_canopy(evidence):
         return None
     layers = [canopy.canopy_layer(w.data, roles) for w in windows]
@@ -602,10 +602,13 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
             "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
             f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
             f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
-            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}"
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}; "
+            f"either only with open ground (bright, > {canopy.OPEN_REACH:g} largest crown "
+            f"radii from dark) below {canopy.MAX_OPEN_SHARE:g}"
         ),
         "canopy_green_share": evidence["green_share"],
         "canopy_bright_green_corr": evidence["bright_green_corr"],
+        "canopy_open_share": evidence["open_share"],
         "canopy_layer": "log(1 + green band), Gaussian smoothed",
         "canopy_smooth_px": split.smooth_px,
         "canopy_marker_h": split.h,
