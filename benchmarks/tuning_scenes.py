@@ -142,6 +142,12 @@ def _place(shape, n, dpx, gen, clumps=False):
     return np.array(xy, float).reshape(-1, 2), np.array(d, float)
 
 
+def pines_shadow_azimuth_deg(seed: int) -> float:
+    """Direction in which the ``pines`` scene of ``seed`` casts its shadows: degrees
+    clockwise from the image's up direction (the sun stands opposite)."""
+    return float(np.random.default_rng([seed, 17]).uniform(0.0, 360.0))
+
+
 def _pines(seed: int, size_px: int):
     """The ``pines`` style (see the module docstring): long shadows that merge with the
     crowns. Drawn with this module's own outline, texture and palette."""
@@ -172,9 +178,9 @@ def _pines(seed: int, size_px: int):
     far = gap > dpx[1]  # young trees clear of the planted crowns
     cx, cy = np.r_[cx, yx[far]], np.r_[cy, yy_[far]]
     d = np.r_[d, gen.uniform(dpx[0], 0.5 * dpx[1], int(far.sum()))]
-    # sun: shadows fall towards ``sun_az`` (image angle), length h * r
-    sun_az = gen.uniform(0, 2 * np.pi)
-    ux, uy = np.cos(sun_az), np.sin(sun_az)
+    # sun: shadows fall towards the azimuth of pines_shadow_azimuth_deg, length h * r
+    az = np.radians(pines_shadow_azimuth_deg(seed))
+    ux, uy = np.sin(az), -np.cos(az)  # columns grow to the right, rows downwards
     grain = gen.uniform(0.7, 2.5)
     yy, xx = np.mgrid[0:size_px, 0:size_px].astype(np.float32)
     shade = np.ones(shape, np.float32)
