@@ -81,3 +81,19 @@ def test_open_ground_keeps_dark_trees_on_pasture_off_the_canopy_path():
     assert is_closed_canopy(shares["closed-canopy"])
     near_limit = {**shares["conifer-pasture"], "green_share": 0.95, "bright_green_corr": -0.1}
     assert not is_closed_canopy(near_limit)
+
+
+def test_detection_records_the_rule_figures_when_the_switch_stays_off(tmp_path):
+    """Dark conifers on pasture: the blob path is taken and the metadata say why (the
+    open-ground share is above the rule's limit)."""
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.synthetic import write_scene
+
+    sc = make_scene("conifer-pasture", 256, 5)
+    paths = write_scene(sc, tmp_path)
+    lo, hi = sc.diameter_range_m
+    res = detect_raster(paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi))
+    th = res.thresholds
+    assert th["layer"] != "canopy"
+    assert th["canopy_open_share"] > MAX_OPEN_SHARE
+    assert 0.0 <= th["canopy_green_share"] <= 1.0 and -1.0 <= th["canopy_bright_green_corr"] <= 1.0

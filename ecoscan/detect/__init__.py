@@ -555,8 +555,11 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     return out
 
 
-def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes):
-    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires."""
+def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
+    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires.
+
+    ``seen`` (a dict), when given, receives the rule's figures whether it fires or not.
+    """
     from ecoscan.detect import canopy
 
     ps = info.pixel_size_m
@@ -564,6 +567,9 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     datas = [w.data[:, w.core[0], w.core[1]] for w in windows]
     valids = [w.valid[w.core] for w in windows]
     evidence = canopy.canopy_evidence(datas, valids, roles, r_min, r_max)
+    if seen is not None:
+        # NaN without colour bands: nothing measured, nothing recorded
+        seen.update({f"canopy_{k}": v for k, v in evidence.items() if math.isfinite(v)})
     if not canopy.is_closed_canopy(evidence):
         return None
     layers = [canopy.canopy_layer(w.data, roles) for w in windows]
@@ -642,8 +648,11 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     windows = _sample_windows(info, abands, scales, dmax_px)
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
         return None, 0, 1, {}, [*notes, _no_plants("the image is constant: no plants found")]
+    rule: dict[str, float] = {}  # the closed-canopy rule's figures, recorded when it stays off
     if settings.split_touching:
-        closed = _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes)
+        closed = _closed_canopy(
+            info, settings, windows, roles, abands, scales, overlap, notes, rule
+        )
         if closed is not None:
             return closed
     choice = choose_layer(windows, roles, scales)
@@ -718,6 +727,7 @@ def _auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         "near_threshold_share": choice.near_share,
         "weak_separation": choice.weak,
         "split_touching": params.split_ratio > 0,
+        **rule,
     }
     return params, overlap, scales.align, th, notes
 
