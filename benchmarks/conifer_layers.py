@@ -113,8 +113,8 @@ def shadow_offset(lb: np.ndarray, r_min: float, d_max: float) -> tuple[float, fl
 
 
 def _blobs(layer, dmin, dmax, t):
-    from ecoscan.detect import PRUNE_MARGIN, SPLIT_RATIO
     from ecoscan.detect.blobs import blob_scales, detect_blobs, prune_blobs, split_merged
+    from ecoscan.detect.detectors.blob import PRUNE_MARGIN, SPLIT_RATIO
 
     scales = blob_scales(dmin / 2, dmax / 2, 3)
     b = detect_blobs(

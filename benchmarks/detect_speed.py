@@ -196,6 +196,8 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
     """ecoscan detect on the raster; returns figures (run in its own process)."""
     import ecoscan.detect as det
     import ecoscan.detect.autotune as auto
+    import ecoscan.detect.detectors.blob as blob
+    import ecoscan.detect.detectors.blob_auto as blob_auto
     from ecoscan.detect import DetectionSettings, detect_raster
 
     lo, hi = facts["diameter"]
@@ -204,9 +206,9 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
     )
     phases = PhaseClock(
         {
-            "sample windows read": (det, "_sample_windows"),
+            "sample windows read": (blob_auto, "_sample_windows"),
             "layer choice": (auto, "choose_layer"),
-            "global parameters (all)": (det, "_global_params"),
+            "global parameters (all)": (blob, "_imagery_plan"),
             "tiles (run_plan)": (det, "run_plan"),
         }
     )

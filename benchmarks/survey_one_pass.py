@@ -155,7 +155,7 @@ def main(argv: list[str] | None = None) -> int:
                 )
             print(f"  plots file read {r['plots_reads']}x")
             for name, n in r["covariate_opens"].items():
-                print(f"  covariate {name}: opened {n} times (habitat, per plot)")
+                print(f"  covariate {name}: opened {n} times (habitat covariate)")
             reads = r["output_reads"]
             tables = {k: v for k, v in reads.items() if not k.endswith((".png", ".jpg"))}
             figs = sum(v for k, v in reads.items() if k.endswith((".png", ".jpg")))

@@ -155,6 +155,8 @@ def test_tolerance_above_spacing_warns_ambiguous():
     earlier, later, *_ = _scenario(seed=6)
     r = detect_change(earlier, later, 2.5, plots=_layer(), simulations=0)
     assert any("ambiguous" in w for w in r.warnings)
+    assert [w.code for w in r.warnings if w.code == "tolerance-above-spacing"]
+    assert all(w.severity == "warning" for w in r.warnings)
 
 
 def test_plot_missing_from_later_date_warns_and_keeps_every_plant():
@@ -164,6 +166,9 @@ def test_plot_missing_from_later_date_warns_and_keeps_every_plant():
     assert any("B" in w and "one date only" in w for w in r.warnings)
     row_b = next(row for row in r.plots if row["plot_id"] == "B")
     assert row_b["n_later"] == 0 and "later date" in row_b["warnings"]
+    # the row's cell is text in the table and records for code (issue 14: found by code)
+    assert row_b["warnings"].codes == ("no-plants-later",)
+    assert "one-date-only" in {w.code for w in r.warnings}
     assert r.status.size == earlier.n + int(keep.sum()) - r.counts["persisting"]
 
 

@@ -150,6 +150,7 @@ def test_pairwise_tests_match_references(stands):
     assert pair["perm_exact"] and pair["perm_arrangements"] == 20
     assert pair["p_R_perm"] == pytest.approx(0.1)
     assert "cannot go below" in pair["warnings"]
+    assert "few-arrangements" in pair["warnings"].codes
 
 
 def test_holm_over_three_pairs(stands):
@@ -376,3 +377,5 @@ def test_group_label_in_narrow_strips_is_marked_approximate():
     rows = {r["group"]: r for r in group_rows(compare_groups(tabs, "folder", permutations=99))}
     assert "verdict approximate" in rows["strip"]["warnings"]
     assert "verdict approximate" not in rows["square"]["warnings"]
+    assert rows["strip"]["warnings"].codes == ("narrow-plot",)
+    assert rows["square"]["warnings"].codes == ()

@@ -209,7 +209,8 @@ def test_client_memory_stays_small(cluster, tmp_path):
 def test_unreadable_raster_named_in_one_line(cluster, scenes, tmp_path):
     # the client read the header; the file is then cut short, as a raster on a shared
     # disk still being copied would be: the worker's read fails, the run names the file
-    from ecoscan.detect.engine import DetectorParams, TileJob, run_tile
+    from ecoscan.detect.detectors.chm import ChmPlan
+    from ecoscan.detect.engine import TileJob, run_tile
     from ecoscan.detect.tiling import plan_tiles
     from ecoscan.io.raster import open_raster
 
@@ -217,8 +218,8 @@ def test_unreadable_raster_named_in_one_line(cluster, scenes, tmp_path):
     cut = tmp_path / "half-copied.tif"
     cut.write_bytes(chm.read_bytes())
     info = open_raster(cut)
-    params = DetectorParams(method="chm", bands=(1,), pixel_size_m=info.pixel_size_m)
-    jobs = [TileJob(info, t, params) for t in plan_tiles(info.width, info.height, 256, 16)]
+    plan = ChmPlan(bands=(1,), pixel_size_m=info.pixel_size_m)
+    jobs = [TileJob(info, t, plan, "chm") for t in plan_tiles(info.width, info.height, 256, 16)]
     data = cut.read_bytes()
     cut.write_bytes(data[: len(data) // 3])
     with pytest.raises(InputError) as err:

@@ -257,6 +257,8 @@ LAYOUT_JS = """
     downscaled: Array.from(document.images).filter(i => i.width < i.naturalWidth - 1).length,
     wide_tables: Array.from(document.querySelectorAll('table')).filter(
       x => x.getBoundingClientRect().right > cw + 1).length,
+    scrolling_tables: Array.from(document.querySelectorAll('div.scroll')).filter(
+      d => d.scrollWidth > d.clientWidth + 1).map(d => d.scrollWidth - d.clientWidth),
     images: document.images.length,
   };
 })()
@@ -298,6 +300,9 @@ def test_report_index_fits_screen_and_first_a4_page(demo_run):
     ]  # fmt: skip
     assert screen["page_width"] <= screen["cw"]  # no horizontal scrolling at 1280 px
     assert screen["table_right"] <= screen["cw"]
+    # every table fits 1280 px without scrolling in its own box (the comparison tables were
+    # 76-122 px too wide, the habitat verdicts ~3000 px): long labels and sentences wrap
+    assert screen["scrolling_tables"] == []
     assert screen["downscaled"] == 0 and screen["images"] >= 40
     assert paper["verdict_right"] <= w and paper["table_right"] <= w  # not clipped on A4
     assert paper["table_bottom"] <= h  # the whole index, verdicts included, is on page 1

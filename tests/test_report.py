@@ -85,15 +85,38 @@ def test_methods_section_names_the_sources():
         assert source in full
 
 
-def test_short_warning_flags():
+def test_long_text_cells_wrap_between_words_only():
+    html = table_html(
+        [{"group": "Tansy Hollow/rows 2026-04-20", "site": "Tansy Hollow"}], ["group", "site"]
+    )
+    # a long label may wrap, but not inside its date; a short one stays on one line
+    assert '<td class="text long">Tansy Hollow/rows <span class="nw">2026-04-20</span></td>' in html
+    assert '<td class="text">Tansy Hollow</td>' in html
+
+
+def test_short_warning_flags_come_from_codes_not_wording():
+    from ecoscan.analysis.change.compute import detect_change
+    from ecoscan.model.notes import WARNING, JoinedNotes, Note
+    from ecoscan.model.points import PointSet
     from ecoscan.survey.reporting import short_warnings
 
-    text = (
-        "only 22 points (fewer than 30): the tests have little power; 16 of 16 quadrats "
-        "expect fewer than 5 points"
+    cell = JoinedNotes(
+        [
+            Note("16 of 16 quadrats expect fewer than 5 points", "quadrat-approximate", WARNING),
+            Note("any wording at all", "few-plants", WARNING),
+        ]
     )
-    assert short_warnings(text) == "few plants"
+    assert str(cell) == "16 of 16 quadrats expect fewer than 5 points; any wording at all"
+    assert short_warnings(cell) == "few plants"
+    # the wording alone flags nothing: a plain text shows its start
+    assert short_warnings("fewer than 30 plants") == "fewer than 30 plants"
     assert short_warnings("") == ""
+    # a change row's cell: 3 plants on each date (fewer than 30) gives the few-plants code
+    xy = np.array([[0.0, 0.0], [5.0, 0.0], [0.0, 5.0]])
+    pts = PointSet(xy[:, 0], xy[:, 1])
+    row = detect_change(pts, pts, 0.5, simulations=0, estimate_shift=False).overall
+    assert row["warnings"].codes == ("few-plants",)
+    assert short_warnings(row["warnings"]) == "few plants"
 
 
 def test_warnings_in_plain_words_once():

@@ -110,6 +110,62 @@ def test_first_run_opens_each_input_once_and_reads_no_output(survey):
     assert len(said) == 1 and code_of(said[0]) == FIELD_CHECK
 
 
+def _elevation(path):
+    """A 1 m covariate raster over both plots of the test rasters: a slope to the east."""
+    values = np.tile(np.linspace(100.0, 104.0, 60, dtype="float32"), (40, 1))
+    with rasterio.open(
+        path, "w", driver="GTiff", width=60, height=40, count=1, dtype="float32",
+        transform=from_origin(X0 - 10, Y0 + 30, 1.0, 1.0), crs=UTM.to_wkt(),
+    ) as dst:  # fmt: skip
+        dst.write(values[None])
+
+
+def test_each_covariate_opened_once_and_plots_assigned_once_per_raster(survey, monkeypatch):
+    # issue 14: a covariate raster was opened once per plot (here 4 plot surveys); the
+    # survey now opens it once and every plot reads its window from that dataset
+    import ecoscan.model.membership as membership
+    import ecoscan.survey.runner as runner
+
+    cfg, d = survey
+    folder = d / "covariates"
+    folder.mkdir()
+    _elevation(folder / "dem.tif")
+    text = cfg.path.read_text().replace('"plots.gpkg"', f'"{cfg.plots.as_posix()}"')
+    for e in cfg.rasters:
+        text = text.replace(f'"{e.path.name}"', f'"{e.path.as_posix()}"')
+    (folder / "s.toml").write_text(
+        text.replace(
+            "[compare]",
+            "[scales]\nenabled = true\nsimulations = 19\nhabitat_simulations = 19\n"
+            '[scales.covariates]\nelevation = "dem.tif"\n[compare]',
+        )
+    )
+    assigned = []
+    real = membership.plot_membership
+
+    def counted(*a, **k):
+        assigned.append(a[0].size)
+        return real(*a, **k)
+
+    monkeypatch.setattr(membership, "plot_membership", counted)
+    survey_assigns = []
+    real_assign = runner.assign_plots
+    monkeypatch.setattr(
+        runner, "assign_plots", lambda p, lay: survey_assigns.append(p.n) or real_assign(p, lay)
+    )
+    with count_reads() as reads:
+        run = run_survey(load_survey(folder / "s.toml"), output=folder / "out", report=False)
+    assert reads.raster_opens(folder / "dem.tif", "covariate") == 1, reads.rasters
+    assert reads.raster_opens(folder / "dem.tif") == 1
+    surveyed = [s for rr in run.rasters for s in rr.scales]
+    assert len(surveyed) == 4 and all(s.habitat is not None for s in surveyed)
+    # each raster's plants are assigned to the plots once by the survey (in the survey CRS,
+    # on the coordinates as stored); detect_raster assigns them once more for its own table
+    # (ecoscan/detect/), and the change between the two dates once: nothing else
+    assert len(survey_assigns) == len(cfg.rasters)
+    assert len(assigned) == 2 * len(cfg.rasters) + len(run.changes), assigned
+
+
 def test_comparison_from_memory_equals_reading_the_folder(survey):
     from ecoscan.analysis.compare.columns import group_rows
     from ecoscan.analysis.compare.compute import compare_groups, read_results

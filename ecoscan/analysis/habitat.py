@@ -24,6 +24,7 @@ import math
 import re
 import warnings
 from collections.abc import Callable, Mapping, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -45,6 +46,7 @@ from ecoscan.stats.intensity import (
 from ecoscan.stats.marks import MarkResult, mark_test, mark_verdict
 
 __all__ = [
+    "CovariateRasters",
     "PlotHabitat",
     "check_marks",
     "covariate_surfaces",
@@ -109,12 +111,116 @@ def _raster_units(src) -> str:
     return {"metre": "m", "meter": "m", "metres": "m", "meters": "m"}.get(u.lower(), u)
 
 
+class CovariateRasters:
+    """The covariate rasters of a run, each opened once; every plot reads its own window.
+
+    A survey (or one ``ecoscan scales`` command) keeps one of these for all its plots and
+    rasters, so a covariate file is opened and checked once however many plots it serves.
+    Files open on first use, keyed by their resolved path; :meth:`close` (or leaving the
+    ``with`` block) closes them.
+
+    Examples
+    --------
+    >>> import numpy as np, shapely, rasterio, tempfile, os
+    >>> from rasterio.transform import from_origin
+    >>> path = os.path.join(tempfile.mkdtemp(), "dem.tif")
+    >>> with rasterio.open(path, "w", driver="GTiff", width=20, height=20, count=1,
+    ...                    dtype="float32", crs="EPSG:32633",
+    ...                    transform=from_origin(500000, 4000020, 1, 1)) as dst:
+    ...     dst.write(np.tile(np.arange(20, dtype="float32"), (20, 1))[None])
+    >>> with CovariateRasters() as rasters:
+    ...     for x0 in (500002, 500010):
+    ...         s = covariate_surfaces([("dem", path)], shapely.box(x0, 4000002, x0 + 6,
+    ...                                4000008), "p", "EPSG:32633", 1.0, rasters=rasters)
+    ...     rasters.opened
+    1
+    """
+
+    def __init__(self) -> None:
+        self._datasets: dict[str, Any] = {}
+
+    @property
+    def opened(self) -> int:
+        """How many files are open."""
+        return len(self._datasets)
+
+    def dataset(self, path: Path, label: str):
+        """The open dataset of ``path``, opened and its georeferencing checked on first use.
+
+        Raises
+        ------
+        InputError
+            A file that cannot be read, or with no georeferencing, or no CRS and
+            coordinates that look like degrees.
+        """
+        key = str(path.resolve())
+        if key not in self._datasets:
+            self._datasets[key] = _open_covariate(path, label)
+        return self._datasets[key]
+
+    def close(self) -> None:
+        """Close every file opened."""
+        for src in self._datasets.values():
+            src.close()
+        self._datasets.clear()
+
+    def __enter__(self) -> CovariateRasters:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def _open_covariate(p: Path, label: str):
+    """Open a covariate raster and check that its georeferencing can be trusted."""
+    import rasterio
+
+    from ecoscan.io.crs import looks_like_degrees
+
+    with _reading(label):
+        src = rasterio.open(p)
+    b = src.bounds
+    if src.crs is None:
+        if src.transform.is_identity:
+            src.close()
+            raise InputError(
+                f"{label} has no georeferencing; give a GeoTIFF with a CRS "
+                "and a transform in the plots' coordinates"
+            )
+        if looks_like_degrees(np.array([b.left, b.right]), np.array([b.bottom, b.top])):
+            src.close()
+            raise InputError(
+                f"{label} has no CRS and its coordinates look like degrees; "
+                "assign its CRS (e.g. gdal_edit.py -a_srs EPSG:4326) or "
+                "reproject it to the plots' metric CRS"
+            )
+    return src
+
+
+@contextmanager
+def _reading(label: str):
+    """Rasterio's read errors as one-line input errors; no warning for rasters without a
+    CRS (their coordinates are taken to be the plots')."""
+    import rasterio
+    from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            yield
+    except (RasterioIOError, rasterio.errors.RasterioError) as exc:
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"cannot read {label}: {msg}; give a GeoTIFF") from None
+
+
 def covariate_surfaces(
     covariates: Sequence[tuple[str, str]],
     polygon: shapely.Geometry,
     plot_id: str,
     survey_crs,
     cell_m: float,
+    *,
+    rasters: CovariateRasters | None = None,
 ) -> list[CovariateSurface]:
     """Read each covariate raster around one plot onto a common grid in the survey CRS.
 
@@ -130,6 +236,9 @@ def covariate_surfaces(
         The CRS of the plot; None for local coordinates in metres.
     cell_m : float
         Cell size of the common grid, metres.
+    rasters : CovariateRasters, optional
+        The run's open covariate files (each opened once for all plots); by default the
+        files are opened for this plot only.
 
     Returns
     -------
@@ -142,7 +251,14 @@ def covariate_surfaces(
     InputError
         A raster that cannot be read, has no CRS but coordinates in degrees, does not cover
         the plot, or is constant over it.
+
+    Examples
+    --------
+    See :class:`CovariateRasters`.
     """
+    if rasters is None:
+        with CovariateRasters() as own:
+            return covariate_surfaces(covariates, polygon, plot_id, survey_crs, cell_m, rasters=own)
     from rasterio.transform import from_origin
     from rasterio.warp import Resampling, reproject
 
@@ -159,8 +275,9 @@ def covariate_surfaces(
         label = f"covariate {name} ({path})"
         if not p.is_file():
             raise InputError(f"{label}: the file does not exist; check the path")
+        src = rasters.dataset(p, label)
         arr, src_tr, units, work_crs = _covariate_window(
-            p, label, plot_id, survey_crs, (x0, y0, x1, y1)
+            src, label, plot_id, survey_crs, (x0, y0, x1, y1)
         )
         dst = np.full((rows, cols), np.nan)
         same = survey_crs if survey_crs is not None else work_crs
@@ -184,68 +301,41 @@ def covariate_surfaces(
 
 
 def _covariate_window(
-    p: Path,
+    src,
     label: str,
     plot_id: str,
     survey_crs: Any,
     bounds: tuple[float, float, float, float],
 ) -> tuple[np.ndarray, Any, str, Any]:
-    """Read the part of a covariate raster around ``bounds`` (survey CRS), a margin included.
+    """Read the part of an open covariate raster around ``bounds`` (survey CRS), a margin
+    included.
 
     Returns the values (NaN where masked), their affine transform, the raster's unit and
     the CRS the values are in.
     """
-    import rasterio
-    from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
     from rasterio.warp import transform_bounds
     from rasterio.windows import Window, from_bounds
 
-    from ecoscan.io.crs import looks_like_degrees
-
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            with rasterio.open(p) as src:
-                src_crs = src.crs
-                b = src.bounds
-                if src_crs is None:
-                    if src.transform.is_identity:
-                        raise InputError(
-                            f"{label} has no georeferencing; give a GeoTIFF with a CRS "
-                            "and a transform in the plots' coordinates"
-                        )
-                    if looks_like_degrees(np.array([b.left, b.right]), np.array([b.bottom, b.top])):
-                        raise InputError(
-                            f"{label} has no CRS and its coordinates look like degrees; "
-                            "assign its CRS (e.g. gdal_edit.py -a_srs EPSG:4326) or "
-                            "reproject it to the plots' metric CRS"
-                        )
-                work_crs = src_crs if src_crs is not None else survey_crs
-                if survey_crs is None or work_crs is None:
-                    pb = bounds
-                else:
-                    pb = transform_bounds(survey_crs, work_crs, *bounds, densify_pts=21)
-                win = from_bounds(*pb, transform=src.transform)
-                c0 = max(0, math.floor(win.col_off) - 2)
-                r0 = max(0, math.floor(win.row_off) - 2)
-                c1 = min(src.width, math.ceil(win.col_off + win.width) + 2)
-                r1 = min(src.height, math.ceil(win.row_off + win.height) + 2)
-                if c1 <= c0 or r1 <= r0:
-                    raise InputError(
-                        f"{label} does not cover plot {plot_id}; give a raster that "
-                        "covers every plot (check its CRS and extent)"
-                    )
-                w = Window(c0, r0, c1 - c0, r1 - r0)
-                data = src.read(1, window=w, out_dtype="float64", masked=True)
-                arr = np.where(np.ma.getmaskarray(data), np.nan, np.ma.getdata(data))
-                src_tr = src.window_transform(w)
-                units = _raster_units(src)
-    except InputError:
-        raise
-    except (RasterioIOError, rasterio.errors.RasterioError) as exc:
-        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"cannot read {label}: {msg}; give a GeoTIFF") from None
-    return arr, src_tr, units, work_crs
+    with _reading(label):
+        work_crs = src.crs if src.crs is not None else survey_crs
+        if survey_crs is None or work_crs is None:
+            pb = bounds
+        else:
+            pb = transform_bounds(survey_crs, work_crs, *bounds, densify_pts=21)
+        win = from_bounds(*pb, transform=src.transform)
+        c0 = max(0, math.floor(win.col_off) - 2)
+        r0 = max(0, math.floor(win.row_off) - 2)
+        c1 = min(src.width, math.ceil(win.col_off + win.width) + 2)
+        r1 = min(src.height, math.ceil(win.row_off + win.height) + 2)
+        if c1 <= c0 or r1 <= r0:
+            raise InputError(
+                f"{label} does not cover plot {plot_id}; give a raster that "
+                "covers every plot (check its CRS and extent)"
+            )
+        w = Window(c0, r0, c1 - c0, r1 - r0)
+        data = src.read(1, window=w, out_dtype="float64", masked=True)
+        arr = np.where(np.ma.getmaskarray(data), np.nan, np.ma.getdata(data))
+        return arr, src.window_transform(w), _raster_units(src), work_crs
 
 
 def _sample(surfaces: Sequence[CovariateSurface], xy: np.ndarray) -> np.ndarray:

@@ -300,59 +300,17 @@ def _prepare(
     names: tuple[str, str, str],
     margin_px: int,
 ) -> tuple[list[_Window], str, int, list[str]]:
+    """The training windows (each plot's pixels with a margin, its plants and their folds),
+    how folds are drawn (``plot`` or ``block``), the number of folds, and notes."""
     raster_name, ref_name, plots_name = names
     notes: list[str] = []
     ref_c, ref_r = _to_pixels(info, reference.x, reference.y)
-    frame = shapely.box(-0.5, -0.5, info.width - 0.5, info.height - 0.5)
-    polys = []
-    for p in plots.plots:
-        g = _poly_to_pixels(info, p.geometry)
-        if not shapely.intersects(g, frame):
-            raise InputError(
-                f"training plot {p.plot_id} in {plots_name} lies outside {raster_name}; "
-                "check that the plots and the raster cover the same ground and CRS"
-            )
-        inside = shapely.intersection(g, frame)
-        if inside.area < 0.999 * g.area:
-            notes.append(
-                f"training plot {p.plot_id} extends beyond {raster_name}; only its part "
-                "inside the raster is used"
-            )
-        polys.append(inside)
-    owner = np.full(ref_c.size, -1, dtype=np.int64)
-    for i, g in enumerate(polys):
-        hit = shapely.contains_xy(g, ref_c, ref_r) & (owner < 0)
-        owner[hit] = i
-    n_in = int((owner >= 0).sum())
-    if n_in == 0:
-        raise InputError(
-            f"no point of {ref_name} lies inside a training plot of {plots_name}; map the "
-            "plants inside the plots (and check both files use the same CRS)"
-        )
-    if n_in < MIN_PLANTS:
-        raise InputError(
-            f"only {n_in} plant(s) of {ref_name} lie inside the training plots of "
-            f"{plots_name}; map at least {MIN_PLANTS} plants (more plots or larger ones)"
-        )
+    polys = _plot_polygons(info, plots, raster_name, plots_name, notes)
+    owner = _plants_by_plot(polys, ref_c, ref_r, ref_name, plots_name)
     used = [i for i in range(len(polys)) if (owner == i).any() or polys[i].area > 0]
     fold_by = "plot" if len(used) >= 2 else "block"
     n_folds = min(5, len(used)) if fold_by == "plot" else 4
-    total_px = 0
-    boxes = []
-    for i in used:
-        b0, b1, b2, b3 = polys[i].bounds
-        c0 = max(0, math.floor(b0) - margin_px)
-        r0 = max(0, math.floor(b1) - margin_px)
-        c1 = min(info.width, math.ceil(b2) + 1 + margin_px)
-        r1 = min(info.height, math.ceil(b3) + 1 + margin_px)
-        boxes.append((i, c0, r0, c1, r1))
-        total_px += (c1 - c0) * (r1 - r0)
-    if total_px > MAX_TRAINING_PIXELS:
-        raise InputError(
-            f"the training plots of {plots_name} span {total_px / 1e6:.0f} million pixels of "
-            f"{raster_name} (with margins); map smaller plots (at most "
-            f"{MAX_TRAINING_PIXELS / 1e6:.0f} million pixels)"
-        )
+    boxes = _window_boxes(info, polys, used, margin_px, raster_name, plots_name)
     windows = []
     for k, (i, c0, r0, c1, r1) in enumerate(boxes):
         data, valid = read_window(info, tuple(info.data_bands), (c0, r0, c1, r1))
@@ -384,6 +342,83 @@ def _prepare(
             )
         )
     return windows, fold_by, n_folds, notes
+
+
+def _plot_polygons(
+    info: RasterInfo, plots: PlotLayer, raster_name: str, plots_name: str, notes: list[str]
+) -> list[shapely.Geometry]:
+    """Each training plot in raster pixel coordinates, cut to the raster."""
+    frame = shapely.box(-0.5, -0.5, info.width - 0.5, info.height - 0.5)
+    polys = []
+    for p in plots.plots:
+        g = _poly_to_pixels(info, p.geometry)
+        if not shapely.intersects(g, frame):
+            raise InputError(
+                f"training plot {p.plot_id} in {plots_name} lies outside {raster_name}; "
+                "check that the plots and the raster cover the same ground and CRS"
+            )
+        inside = shapely.intersection(g, frame)
+        if inside.area < 0.999 * g.area:
+            notes.append(
+                f"training plot {p.plot_id} extends beyond {raster_name}; only its part "
+                "inside the raster is used"
+            )
+        polys.append(inside)
+    return polys
+
+
+def _plants_by_plot(
+    polys: list[shapely.Geometry],
+    ref_c: np.ndarray,
+    ref_r: np.ndarray,
+    ref_name: str,
+    plots_name: str,
+) -> np.ndarray:
+    """The plot holding each mapped plant (-1: none); refuses too few plants inside."""
+    owner = np.full(ref_c.size, -1, dtype=np.int64)
+    for i, g in enumerate(polys):
+        hit = shapely.contains_xy(g, ref_c, ref_r) & (owner < 0)
+        owner[hit] = i
+    n_in = int((owner >= 0).sum())
+    if n_in == 0:
+        raise InputError(
+            f"no point of {ref_name} lies inside a training plot of {plots_name}; map the "
+            "plants inside the plots (and check both files use the same CRS)"
+        )
+    if n_in < MIN_PLANTS:
+        raise InputError(
+            f"only {n_in} plant(s) of {ref_name} lie inside the training plots of "
+            f"{plots_name}; map at least {MIN_PLANTS} plants (more plots or larger ones)"
+        )
+    return owner
+
+
+def _window_boxes(
+    info: RasterInfo,
+    polys: list[shapely.Geometry],
+    used: list[int],
+    margin_px: int,
+    raster_name: str,
+    plots_name: str,
+) -> list[tuple[int, int, int, int, int]]:
+    """(plot, c0, r0, c1, r1) of each training window; refuses too many pixels in all."""
+    total_px = 0
+    boxes = []
+    for i in used:
+        b0, b1, b2, b3 = polys[i].bounds
+        c0 = max(0, math.floor(b0) - margin_px)
+        r0 = max(0, math.floor(b1) - margin_px)
+        c1 = min(info.width, math.ceil(b2) + 1 + margin_px)
+        r1 = min(info.height, math.ceil(b3) + 1 + margin_px)
+        boxes.append((i, c0, r0, c1, r1))
+        total_px += (c1 - c0) * (r1 - r0)
+    if total_px > MAX_TRAINING_PIXELS:
+        raise InputError(
+            f"the training plots of {plots_name} span {total_px / 1e6:.0f} million pixels of "
+            f"{raster_name} (with margins); map smaller plots (at most "
+            f"{MAX_TRAINING_PIXELS / 1e6:.0f} million pixels)"
+        )
+    return boxes
 
 
 # --- scoring a layer -----------------------------------------------------------------------
@@ -883,32 +918,8 @@ def calibrate_detector(
         raise InputError(f"--classifier must be auto, always or never (got {classifier!r})")
     ps = info.pixel_size_m
     notes: list[str] = []
-    # tolerance and the crown sizes searched, in pixels
-    xy = reference.xy
-    if xy.shape[0] >= 2:
-        nn = cKDTree(xy).query(xy, k=2)[0][:, 1]
-    else:
-        nn = np.array([1.0])
-    given_d = None
-    if "diameter_m" in reference.attrs:
-        dd = np.asarray(reference.attrs["diameter_m"], float)
-        if np.all(np.isfinite(dd)) and np.all(dd > 0):
-            given_d = dd / ps
-    if tolerance_m is None:
-        if given_d is not None:
-            tolerance_m = 0.5 * float(np.median(given_d)) * ps
-        else:
-            tolerance_m = 0.25 * float(np.median(nn))
-        notes.append(f"matching tolerance {tolerance_m:.3g} m (set it with --tolerance)")
-    if not (tolerance_m > 0 and math.isfinite(tolerance_m)):
-        raise InputError(f"--tolerance must be a positive number of metres (got {tolerance_m})")
+    tolerance_m, broad, given_d = _search_range(reference, ps, tolerance_m, diameter_m, notes)
     tol_px = tolerance_m / ps
-    if diameter_m is not None:
-        broad = (max(2.0, diameter_m[0] / ps), diameter_m[1] / ps)
-    else:
-        broad = (2.0, float(np.clip(1.5 * np.percentile(nn, 90) / ps, 6.0, 300.0)))
-    if given_d is not None:
-        broad = (max(2.0, float(np.min(given_d)) / 1.3), float(np.max(given_d)) * 1.3)
     sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
     halo = math.ceil(4.0 * min(16.0, max(2.0, broad[1] / 4.0))) + 3
     margin = sc.support_px + halo
@@ -917,17 +928,7 @@ def calibrate_detector(
     diam_given = (
         None if given_d is None else given_d[np.concatenate([w.ref_index for w in windows])]
     )
-    runs: list[_LayerRun] = []
-    for name in available_layers(band_names):
-        maps = [simple_layer(w.data, band_names, name) for w in windows]
-        bg = float(
-            np.median(np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)]))
-        )
-        for m, w in zip(maps, windows, strict=True):
-            m[~w.valid] = bg
-        run = _score_layer(name, maps, windows, n_folds, tol_px, broad, bg, diam_given)
-        if run is not None:
-            runs.append(run)
+    runs = _simple_runs(windows, band_names, n_folds, tol_px, broad, diam_given)
     best_simple = max(runs, key=lambda r: r.score.f1) if runs else None
     want_forest = classifier == "always" or (
         classifier == "auto" and (best_simple is None or best_simple.score.f1 < GOOD_ENOUGH_F1)
@@ -948,6 +949,85 @@ def calibrate_detector(
             "points mark crown centres and use the raster's CRS"
         )
     runs.sort(key=lambda r: -(r.score.f1 if math.isfinite(r.score.f1) else -1))
+    chosen = _choose(runs, forest, notes)
+    det = _detector_record(
+        info,
+        chosen,
+        spec,
+        forest,
+        band_names,
+        {"fold_by": fold_by, "folds": n_folds, "tolerance_m": float(tolerance_m)},
+        runs,
+        {
+            "plants": int(sum(w.ref.shape[0] for w in windows)),
+            "plot_ids": [plots.plots[w.plot].plot_id for w in windows],
+        },
+    )
+    return CalibrationResult(
+        detector=det,
+        scores=[r.score for r in runs],
+        chosen=chosen.score,
+        folds=f"{n_folds} folds by {fold_by}",
+        tolerance_m=float(tolerance_m),
+        notes=notes,
+    )
+
+
+def _search_range(
+    reference: PointSet,
+    ps: float,
+    tolerance_m: float | None,
+    diameter_m: tuple[float, float] | None,
+    notes: list[str],
+) -> tuple[float, tuple[float, float], np.ndarray | None]:
+    """The matching tolerance (metres), the crown diameters searched (pixels) and the
+    mapped diameters (pixels, when every plant has a valid one)."""
+    xy = reference.xy
+    if xy.shape[0] >= 2:
+        nn = cKDTree(xy).query(xy, k=2)[0][:, 1]
+    else:
+        nn = np.array([1.0])
+    given_d = None
+    if "diameter_m" in reference.attrs:
+        dd = np.asarray(reference.attrs["diameter_m"], float)
+        if np.all(np.isfinite(dd)) and np.all(dd > 0):
+            given_d = dd / ps
+    if tolerance_m is None:
+        if given_d is not None:
+            tolerance_m = 0.5 * float(np.median(given_d)) * ps
+        else:
+            tolerance_m = 0.25 * float(np.median(nn))
+        notes.append(f"matching tolerance {tolerance_m:.3g} m (set it with --tolerance)")
+    if not (tolerance_m > 0 and math.isfinite(tolerance_m)):
+        raise InputError(f"--tolerance must be a positive number of metres (got {tolerance_m})")
+    if diameter_m is not None:
+        broad = (max(2.0, diameter_m[0] / ps), diameter_m[1] / ps)
+    else:
+        broad = (2.0, float(np.clip(1.5 * np.percentile(nn, 90) / ps, 6.0, 300.0)))
+    if given_d is not None:
+        broad = (max(2.0, float(np.min(given_d)) / 1.3), float(np.max(given_d)) * 1.3)
+    return tolerance_m, broad, given_d
+
+
+def _simple_runs(windows, band_names, n_folds, tol_px, broad, diam_given) -> list[_LayerRun]:
+    """Every simple layer the bands allow, scored by cross-validation (those that find
+    anything)."""
+    runs: list[_LayerRun] = []
+    for name in available_layers(band_names):
+        maps = [simple_layer(w.data, band_names, name) for w in windows]
+        bg = float(
+            np.median(np.concatenate([m[w.valid] for m, w in zip(maps, windows, strict=True)]))
+        )
+        for m, w in zip(maps, windows, strict=True):
+            m[~w.valid] = bg
+        run = _score_layer(name, maps, windows, n_folds, tol_px, broad, bg, diam_given)
+        if run is not None:
+            runs.append(run)
+    return runs
+
+
+def _choose(runs: list[_LayerRun], forest, notes: list[str]) -> _LayerRun:
+    """The best run (sorted best first) that can be used, with notes on the choice."""
     chosen = next(r for r in runs if r.name != "probability" or forest is not None)
     if forest is None and runs[0].name == "probability":
         notes.append(
@@ -965,12 +1045,28 @@ def calibrate_detector(
             f"cross-validated F1 is only {chosen.score.f1:.2f}: check the mapped plants and "
             "map more training plots before relying on this detector"
         )
+    return chosen
+
+
+def _detector_record(
+    info: RasterInfo,
+    chosen: _LayerRun,
+    spec,
+    forest,
+    band_names: tuple[str, ...],
+    folds: dict,
+    runs: list[_LayerRun],
+    training: dict,
+) -> CalibratedDetector:
+    """The detector file's content for the chosen run."""
     import sklearn
 
     from ecoscan import __version__
 
-    det = CalibratedDetector(
-        kind="classifier" if chosen.name == "probability" else "layer",
+    ps = info.pixel_size_m
+    probability = chosen.name == "probability"
+    return CalibratedDetector(
+        kind="classifier" if probability else "layer",
         layer=chosen.name,
         band_names=tuple(band_names),
         dtype=str(info.dtype),
@@ -980,29 +1076,13 @@ def calibrate_detector(
         min_response=chosen.min_response,
         min_value=chosen.min_value,
         background=chosen.background,
-        features=spec if chosen.name == "probability" else None,
-        forest=forest if chosen.name == "probability" else None,
+        features=spec if probability else None,
+        forest=forest if probability else None,
         split=dict(chosen.split),
-        cross_validation={
-            "fold_by": fold_by,
-            "folds": n_folds,
-            "tolerance_m": float(tolerance_m),
-            **chosen.score.as_dict(),
-        },
+        cross_validation={**folds, **chosen.score.as_dict()},
         candidates=[r.score.as_dict() for r in runs],
-        training={
-            "plants": int(sum(w.ref.shape[0] for w in windows)),
-            "plot_ids": [plots.plots[w.plot].plot_id for w in windows],
-        },
+        training=training,
         software={"ecoscan": __version__, "scikit_learn": sklearn.__version__},
-    )
-    return CalibrationResult(
-        detector=det,
-        scores=[r.score for r in runs],
-        chosen=chosen.score,
-        folds=f"{n_folds} folds by {fold_by}",
-        tolerance_m=float(tolerance_m),
-        notes=notes,
     )
 
 

@@ -13,10 +13,32 @@ Representation 1: 21–46) with the tops as markers.
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["crown_areas", "smooth_chm", "tree_tops"]
+__all__ = ["TreeTops", "crown_areas", "smooth_chm", "tree_tops"]
+
+
+class TreeTops(NamedTuple):
+    """Tree tops found by :func:`tree_tops`, one value per top.
+
+    Attributes
+    ----------
+    col, row : numpy.ndarray
+        Position in the raster's pixel frame (plateau centre), float.
+    height : numpy.ndarray
+        Height of the top, metres.
+    array_row, array_col : numpy.ndarray of int
+        The top pixel's indices in the array searched (for :func:`crown_areas`).
+    """
+
+    col: np.ndarray
+    row: np.ndarray
+    height: np.ndarray
+    array_row: np.ndarray
+    array_col: np.ndarray
 
 
 def smooth_chm(chm: np.ndarray, sigma_px: float) -> np.ndarray:
@@ -39,7 +61,7 @@ def tree_tops(
     crown_width_px,
     radius_cap_px: int,
     origin: tuple[int, int] = (0, 0),
-) -> dict[str, np.ndarray]:
+) -> TreeTops:
     """Tree tops by the variable-window local-maximum rule.
 
     Parameters
@@ -59,9 +81,9 @@ def tree_tops(
 
     Returns
     -------
-    dict of numpy.ndarray
-        ``row``, ``col`` (raster pixel frame; plateau centre), ``height``, and the
-        array indices ``_irow``, ``_icol`` of each top.
+    TreeTops
+        ``col``, ``row`` (raster pixel frame; plateau centre), ``height``, and the
+        array indices ``array_row``, ``array_col`` of each top.
     """
     h = np.asarray(heights, np.float32)
     local = ndimage.maximum_filter(h, size=3, mode="constant", cval=-np.inf) == h
@@ -101,13 +123,13 @@ def tree_tops(
         n_o = np.bincount(o, minlength=cy.size)
         off_r = np.bincount(o, weights=pr - cy[o], minlength=cy.size) / np.maximum(n_o, 1)
         off_c = np.bincount(o, weights=pc - cx[o], minlength=cy.size) / np.maximum(n_o, 1)
-    return {
-        "row": ((cy + origin[1]) + off_r)[is_top].astype(float),
-        "col": ((cx + origin[0]) + off_c)[is_top].astype(float),
-        "height": hv[is_top].astype(float),
-        "_irow": cy[is_top],
-        "_icol": cx[is_top],
-    }
+    return TreeTops(
+        col=((cx + origin[0]) + off_c)[is_top].astype(float),
+        row=((cy + origin[1]) + off_r)[is_top].astype(float),
+        height=hv[is_top].astype(float),
+        array_row=cy[is_top],
+        array_col=cx[is_top],
+    )
 
 
 def crown_areas(

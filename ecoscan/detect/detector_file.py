@@ -321,16 +321,7 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
     """
     p = Path(path)
     name = str(path)
-    if not p.is_file():
-        raise InputError(f"detector file {name} does not exist; make one with ecoscan calibrate")
-    try:
-        d = tomllib.loads(p.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        first = str(exc).splitlines()[0]
-        raise InputError(
-            f"detector file {name} is not valid TOML ({first}); make it again with "
-            "ecoscan calibrate"
-        ) from None
+    d = _load_toml(p, name)
     num = (int, float)
     version = _need(d, "detector", "format_version", int, name)
     if version > FORMAT_VERSION:
@@ -364,15 +355,43 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
     )
     det.candidates = list(det.cross_validation.pop("candidates", []))
     if "crown_split" in d:
-        det.split = {
-            k: float(_need(d, "crown_split", k, num, name))
-            for k in ("h", "min_peak", "smooth_share", "min_area_share")
-        }
-        if not all(math.isfinite(v) for v in det.split.values()) or det.split["h"] <= 0:
-            raise InputError(
-                f"detector file {name} holds an impossible [crown_split] table; make it "
-                "again with ecoscan calibrate"
-            )
+        det.split = _crown_split(d, name)
+    _check_values(det, name)
+    if kind == "classifier":
+        _read_classifier(det, d, p, name, load_model)
+    return det
+
+
+def _load_toml(p: Path, name: str) -> dict:
+    """The parsed TOML of a detector file; refuses a missing or unparsable file."""
+    if not p.is_file():
+        raise InputError(f"detector file {name} does not exist; make one with ecoscan calibrate")
+    try:
+        return tomllib.loads(p.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        first = str(exc).splitlines()[0]
+        raise InputError(
+            f"detector file {name} is not valid TOML ({first}); make it again with "
+            "ecoscan calibrate"
+        ) from None
+
+
+def _crown_split(d: dict, name: str) -> dict[str, float]:
+    """The ``[crown_split]`` table, checked."""
+    split = {
+        k: float(_need(d, "crown_split", k, (int, float), name))
+        for k in ("h", "min_peak", "smooth_share", "min_area_share")
+    }
+    if not all(math.isfinite(v) for v in split.values()) or split["h"] <= 0:
+        raise InputError(
+            f"detector file {name} holds an impossible [crown_split] table; make it "
+            "again with ecoscan calibrate"
+        )
+    return split
+
+
+def _check_values(det: CalibratedDetector, name: str) -> None:
+    """Refuse impossible pixel sizes, diameters or thresholds."""
     bad = (
         not (det.pixel_size_m > 0)
         or not (0 < det.diameter_min_m <= det.diameter_max_m)
@@ -385,43 +404,49 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
             f"detector file {name} holds impossible values (pixel size, diameters or "
             "thresholds); make it again with ecoscan calibrate"
         )
-    if kind == "classifier":
-        det.features = FeatureSpec(
-            sigma_min=float(_need(d, "classifier", "sigma_min_px", num, name)),
-            sigma_max=float(_need(d, "classifier", "sigma_max_px", num, name)),
-            num_sigma=int(_need(d, "classifier", "num_sigma", int, name)),
-            brightness_scale=float(_need(d, "classifier", "brightness_scale", num, name)),
-        )
-        det.model_file = _need(d, "classifier", "model_file", str, name)
-        det.model_sha256 = _need(d, "classifier", "model_sha256", str, name)
-        model = p.parent / det.model_file
-        if Path(det.model_file).name != det.model_file:
-            raise InputError(
-                f"detector file {name}: model_file must be a file name beside the TOML, "
-                f"not {det.model_file!r}"
-            )
-        if not model.is_file():
-            raise InputError(
-                f"the model file {det.model_file} named by {name} is missing; keep it beside "
-                "the detector file or run ecoscan calibrate again"
-            )
-        if sha256_file(model) != det.model_sha256:
-            raise InputError(
-                f"the model file {det.model_file} does not match the SHA-256 recorded in "
-                f"{name}; it was changed or damaged: run ecoscan calibrate again"
-            )
-        if load_model:
-            import joblib
 
-            try:
-                det.forest = joblib.load(model)
-            except Exception as exc:  # a file with the right hash but unreadable here
-                raise InputError(
-                    f"cannot load the model file {det.model_file} ({type(exc).__name__}); "
-                    "it may come from another scikit-learn version: run ecoscan calibrate "
-                    "again"
-                ) from None
-    return det
+
+def _read_classifier(
+    det: CalibratedDetector, d: dict, p: Path, name: str, load_model: bool
+) -> None:
+    """The classifier's features and model file (hash checked before loading), in place."""
+    num = (int, float)
+    det.features = FeatureSpec(
+        sigma_min=float(_need(d, "classifier", "sigma_min_px", num, name)),
+        sigma_max=float(_need(d, "classifier", "sigma_max_px", num, name)),
+        num_sigma=int(_need(d, "classifier", "num_sigma", int, name)),
+        brightness_scale=float(_need(d, "classifier", "brightness_scale", num, name)),
+    )
+    det.model_file = _need(d, "classifier", "model_file", str, name)
+    det.model_sha256 = _need(d, "classifier", "model_sha256", str, name)
+    model = p.parent / det.model_file
+    if Path(det.model_file).name != det.model_file:
+        raise InputError(
+            f"detector file {name}: model_file must be a file name beside the TOML, "
+            f"not {det.model_file!r}"
+        )
+    if not model.is_file():
+        raise InputError(
+            f"the model file {det.model_file} named by {name} is missing; keep it beside "
+            "the detector file or run ecoscan calibrate again"
+        )
+    if sha256_file(model) != det.model_sha256:
+        raise InputError(
+            f"the model file {det.model_file} does not match the SHA-256 recorded in "
+            f"{name}; it was changed or damaged: run ecoscan calibrate again"
+        )
+    if not load_model:
+        return
+    import joblib
+
+    try:
+        det.forest = joblib.load(model)
+    except Exception as exc:  # a file with the right hash but unreadable here
+        raise InputError(
+            f"cannot load the model file {det.model_file} ({type(exc).__name__}); "
+            "it may come from another scikit-learn version: run ecoscan calibrate "
+            "again"
+        ) from None
 
 
 def check_raster(det: CalibratedDetector, raster_name: str, info) -> list[str]:
@@ -462,79 +487,3 @@ def check_raster(det: CalibratedDetector, raster_name: str, info) -> list[str]:
         f"{det.diameter_min_m:.3g}-{det.diameter_max_m:.3g} m, cross-validated F1 "
         f"{det.cross_validation.get('f1', float('nan')):.3f}"
     ]
-
-
-def calibrated_params(det: CalibratedDetector, info, raster_name: str):
-    """Detector parameters for a raster from a calibrated detector (the ``detect`` hook).
-
-    Parameters
-    ----------
-    det : CalibratedDetector
-        With its model loaded for a classifier.
-    info : ecoscan.io.raster.RasterInfo
-    raster_name : str
-        As the user wrote it, for messages.
-
-    Returns
-    -------
-    params : ecoscan.detect.engine.DetectorParams
-    overlap : int
-        Tile overlap in pixels (blob support plus the classifier's feature reach).
-    align : int
-        Tile alignment.
-    thresholds : dict
-        For the detection metadata.
-    notes : list of str
-
-    Raises
-    ------
-    InputError
-        From :func:`check_raster`.
-    """
-    from ecoscan.detect.blobs import blob_scales
-    from ecoscan.detect.engine import DetectorParams
-
-    notes = check_raster(det, raster_name, info)
-    ps = info.pixel_size_m
-    dmin_px, dmax_px = det.diameter_min_m / ps, det.diameter_max_m / ps
-    scales = blob_scales(dmin_px / 2.0, dmax_px / 2.0, det.scales_per_octave)
-    layer = det.plant_layer()
-    params = DetectorParams(
-        method="imagery",
-        bands=tuple(info.data_bands),
-        pixel_size_m=ps,
-        index=f"calibrated:{det.layer}",
-        scales=scales,
-        min_response=det.min_response,
-        min_value=det.min_value,
-        fill_value=det.background,
-        layer_model=layer,
-    )
-    overlap = max(scales.support_px, math.ceil(dmax_px)) + layer.halo_px
-    thresholds = {
-        "detector_file": Path(det.source).name,
-        "layer": det.layer,
-        "min_response": det.min_response,
-        "min_value": det.min_value,
-        "background": det.background,
-        "how": "calibrated from mapped plants",
-    }
-    if det.split:  # closed canopy: watershed crown split of the calibrated layer
-        from dataclasses import replace
-
-        from ecoscan.detect.canopy import CanopySplit
-
-        r_min, r_max = dmin_px / 2.0, dmax_px / 2.0
-        split = CanopySplit(
-            r_min_px=r_min,
-            r_max_px=r_max,
-            smooth_px=det.split["smooth_share"] * r_min,
-            h=det.split["h"],
-            min_area_px=det.split["min_area_share"] * math.pi * r_min**2,
-            layer="given",
-            min_peak=det.split["min_peak"],
-        )
-        params = replace(params, canopy=split)
-        overlap = max(overlap, split.overlap_px + layer.halo_px)
-        thresholds["crown_split"] = dict(det.split)
-    return params, overlap, scales.align, thresholds, notes

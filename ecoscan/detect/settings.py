@@ -11,7 +11,6 @@ from ecoscan.settings import Settings
 
 __all__ = ["CROWN_RULES", "DetectionSettings", "parse_band_spec"]
 
-METHODS = ("auto", "imagery", "chm", "classes")
 INDICES = ("auto", "exg", "ndvi", "darkness", "band")
 
 #: Crown width (m) from tree height H (m), quadratic fits of Popescu & Wynne (2004),
@@ -23,6 +22,20 @@ CROWN_RULES: dict[str, tuple[float, float, float]] = {
     "pines": (3.75105, -0.17919, 0.01241),
     "combined": (2.51503, 0.0, 0.00901),
 }
+
+
+def method_choices() -> tuple[str, ...]:
+    """The ``method`` values: ``auto`` and every detector offered by name (the registry,
+    :func:`ecoscan.detect.detectors.registry.method_names`).
+
+    Examples
+    --------
+    >>> method_choices()
+    ('auto', 'imagery', 'chm', 'classes')
+    """
+    from ecoscan.detect.detectors.registry import method_names
+
+    return ("auto", *method_names())
 
 
 def parse_band_spec(spec: str) -> tuple[tuple[str, int], ...]:
@@ -148,8 +161,9 @@ class DetectionSettings(Settings):
     detector: str | None = None
 
     def __post_init__(self) -> None:
-        if self.method not in METHODS:
-            raise InputError(f"method {self.method!r} is unknown; use one of {', '.join(METHODS)}")
+        methods = method_choices()
+        if self.method not in methods:
+            raise InputError(f"method {self.method!r} is unknown; use one of {', '.join(methods)}")
         if self.index not in INDICES:
             raise InputError(f"index {self.index!r} is unknown; use one of {', '.join(INDICES)}")
         if self.crown_rule not in CROWN_RULES:

@@ -19,9 +19,12 @@ __all__ = [
     "INFO",
     "SEVERITIES",
     "WARNING",
+    "JoinedNotes",
     "Note",
     "code_of",
+    "codes_in",
     "is_warning",
+    "notes_in",
     "severity_of",
 ]
 
@@ -102,6 +105,80 @@ class Note(str):
     def many(cls, values: Iterable[Any]) -> list[Note]:
         """:meth:`from_value` of each."""
         return [cls.from_value(v) for v in values]
+
+
+class JoinedNotes(str):
+    """Notes joined into one table cell: the text is the notes' texts joined by ``"; "``,
+    and :attr:`notes` keeps the records.
+
+    Tables (CSV, JSON, the report) show the cell as the text it always was; code that decides
+    something from a cell reads its codes (:func:`codes_in`).
+
+    Parameters
+    ----------
+    notes : iterable of Note or str
+        The notes, in the order they are said.
+
+    Examples
+    --------
+    >>> cell = JoinedNotes([Note("few plants", "few-plants", WARNING), "a plain remark"])
+    >>> str(cell), cell.codes
+    ('few plants; a plain remark', ('few-plants', ''))
+    >>> JoinedNotes([]) == ""
+    True
+    """
+
+    notes: tuple[Note, ...]
+
+    def __new__(cls, notes: Iterable[Any] = ()) -> JoinedNotes:
+        records = tuple(Note.from_value(n) for n in notes)
+        self = super().__new__(cls, "; ".join(n.text for n in records))
+        self.notes = records
+        return self
+
+    @property
+    def codes(self) -> tuple[str, ...]:
+        """The notes' codes, in order."""
+        return tuple(n.code for n in self.notes)
+
+    def __reduce__(self):  # pickles (process pools, Dask) keep the records
+        return (JoinedNotes, (self.notes,))
+
+    def __repr__(self) -> str:
+        return f"JoinedNotes({list(self.notes)!r})"
+
+
+def notes_in(value: Any) -> list[Note]:
+    """The notes in a table cell or list: a :class:`JoinedNotes` cell's records, a list's
+    notes, or the parts of a plain ``"; "``-joined text (without codes).
+
+    Examples
+    --------
+    >>> [n.code for n in notes_in(JoinedNotes([Note("x", "few-plants", WARNING)]))]
+    ['few-plants']
+    >>> notes_in("first; second")
+    [Note('first', code='', severity='info'), Note('second', code='', severity='info')]
+    >>> notes_in(None), notes_in("")
+    ([], [])
+    """
+    if isinstance(value, JoinedNotes):
+        return list(value.notes)
+    if value is None:
+        return []
+    if isinstance(value, str):
+        return [Note(t) for t in value.split("; ") if t]
+    return Note.many(value)
+
+
+def codes_in(value: Any) -> set[str]:
+    """The codes of the notes in a table cell or list (see :func:`notes_in`).
+
+    Examples
+    --------
+    >>> sorted(codes_in([Note("x", "a"), Note("y", "b"), "plain"]))
+    ['', 'a', 'b']
+    """
+    return {n.code for n in notes_in(value)}
 
 
 def code_of(note: Any) -> str:

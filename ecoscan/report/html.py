@@ -25,6 +25,9 @@ __all__ = [
     "table_html",
 ]
 
+#: Text cells longer than this many characters may wrap between words (class ``long``).
+LONG_TEXT = 20
+
 _CSS = """
 :root { --ink:#1d2430; --muted:#5b6575; --line:#d9dee6; --accent:#1f4e8c; --paper:#fbfbf8;
         --clustered:#7d6b15; --regular:#1f4e8c; --random:#6b6b6b; }
@@ -50,7 +53,8 @@ table.data th, table.data td { border-bottom:1px solid var(--line); padding:.26r
 table.data th { background:#eef1f5; font-weight:600; white-space:normal; vertical-align:bottom;
      min-width:3.2rem; }
 table.data td.text, table.data th.text { text-align:left; }
-table.data td.warn { text-align:left; white-space:normal; min-width:9rem; color:#7a4b00; }
+table.data td.long { white-space:normal; min-width:9.5rem; } .nw { white-space:nowrap; }
+table.data td.warn { text-align:left; white-space:normal; min-width:7rem; color:#7a4b00; }
 table.data a { color:var(--accent); }
 table.sortable th { cursor:pointer; }
 table.sortable th[aria-sort="ascending"]::after { content:" ▲"; font-size:.7em; }
@@ -88,7 +92,7 @@ footer { color:var(--muted); font-size:.85rem; padding:1rem 2rem;
   table.data { font-size:8pt; width:100%; }
   table.data th, table.data td { padding:.12rem .3rem; }
   table.data td { white-space:normal; }
-  table.data th, table.data td.warn { min-width:0; overflow-wrap:anywhere; }
+  table.data th, table.data td.warn, table.data td.long { min-width:0; overflow-wrap:anywhere; }
   tr, figure, .method { break-inside:avoid; }
   article.plot { break-inside:avoid-page; border:none; padding:0; }
   .tag { color:#000 !important; background:none !important; border:1px solid #000; }
@@ -179,6 +183,15 @@ def pattern_tag(pattern: Any) -> str:
     return f'<span class="tag {cls}">{_esc(p or "no test")}</span>'
 
 
+def _text_cell(text: str) -> str:
+    """A text cell; a long one (a label or a sentence) may wrap between words so that a
+    wide table fits the page, never inside a word with a hyphen (a date, a range)."""
+    if len(text) <= LONG_TEXT:
+        return f'<td class="text">{_esc(text)}</td>'
+    words = (f'<span class="nw">{_esc(w)}</span>' if "-" in w else _esc(w) for w in text.split(" "))
+    return f'<td class="text long">{" ".join(words)}</td>'
+
+
 def table_html(
     rows: Sequence[Mapping[str, Any]],
     columns: Sequence[str],
@@ -244,7 +257,7 @@ def table_html(
                 sort = f' data-v="{float(v):.6g}"' if sortable else ""
                 out.append(f"<td{sort}>{_esc(format_cell(c, v) or '–')}</td>")
             else:
-                out.append(f'<td class="text">{_esc(format_cell(c, v) or "–")}</td>')
+                out.append(_text_cell(format_cell(c, v) or "–"))
         out.append("</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)

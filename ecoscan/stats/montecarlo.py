@@ -418,17 +418,8 @@ def monte_carlo_nn(
     if n < 2:
         raise ValueError("the Monte Carlo NN test needs at least 2 points")
     gen = as_rng(rng)
-    d_obs = nn_distances(xy)
-    if observed_mean_m is None:
-        observed_mean_m = float(d_obs.mean())
-    obs = np.array([observed_mean_m, np.nan])
-    inner_wkb = None
-    if guard_region is not None and not guard_region.is_empty:
-        shapely.prepare(guard_region)
-        focal = shapely.contains_xy(guard_region, xy[:, 0], xy[:, 1])
-        if focal.sum() >= 2:
-            obs[1] = float(d_obs[focal].mean())
-            inner_wkb = shapely.to_wkb(guard_region)
+    obs, inner_wkb = _observed_means(xy, observed_mean_m, guard_region)
+    observed_mean_m = float(obs[0])
     n_stats = 1 if inner_wkb is None else 2
     entropy = [int(v) for v in gen.integers(0, 2**63, size=4)]
     per_block = int(min(MAX_BLOCK, max(1, BATCH_POINTS // n)))
@@ -440,34 +431,16 @@ def monte_carlo_nn(
     workers = max(1, min(int(workers), len(sizes)))
     poly_wkb = shapely.to_wkb(polygon)
     args = [(poly_wkb, inner_wkb, n, b, entropy, k) for k, b in enumerate(sizes)]
-    results: list[np.ndarray] = []
 
-    def done() -> bool:
+    def done(results: list[np.ndarray]) -> bool:
+        # the sequential stop rule: all blocks, or enough extreme ones in both tails
         if stop_after == 0:
             return len(results) == len(sizes)
         sims = np.concatenate(results)[:, :n_stats]
         _, _, needed = sequential_pvalues(obs[:n_stats], sims, simulations, stop_after)
         return needed <= sims.shape[0]
 
-    if workers == 1:
-        for a in args:
-            results.append(_block_stats(*a))
-            if done():
-                break
-    else:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            pending = {}
-            nxt = 0
-            while True:
-                while nxt < len(args) and len(pending) < 2 * workers:
-                    pending[nxt] = pool.submit(_block_stats, *args[nxt])
-                    nxt += 1
-                results.append(pending.pop(len(results)).result())  # in block order
-                if done():
-                    for f in pending.values():
-                        f.cancel()
-                    break
-    sims_all = np.concatenate(results)
+    sims_all = np.concatenate(_simulate_blocks(args, done, workers))
     if stop_after == 0:
         used = simulations
         lo, up, _ = sequential_pvalues(obs[:n_stats], sims_all[:, :n_stats], simulations, 0)
@@ -495,3 +468,51 @@ def monte_carlo_nn(
         g[2],
         simulations,
     )
+
+
+def _observed_means(
+    xy: np.ndarray, observed_mean_m: float | None, guard_region
+) -> tuple[np.ndarray, bytes | None]:
+    """The observed statistics: the mean NN distance and the guard-zone mean (NaN without a
+    guard zone holding at least 2 points), and the guard zone as WKB for the simulations
+    (None when it is not tested)."""
+    d_obs = nn_distances(xy)
+    if observed_mean_m is None:
+        observed_mean_m = float(d_obs.mean())
+    obs = np.array([observed_mean_m, np.nan])
+    inner_wkb = None
+    if guard_region is not None and not guard_region.is_empty:
+        shapely.prepare(guard_region)
+        focal = shapely.contains_xy(guard_region, xy[:, 0], xy[:, 1])
+        if focal.sum() >= 2:
+            obs[1] = float(d_obs[focal].mean())
+            inner_wkb = shapely.to_wkb(guard_region)
+    return obs, inner_wkb
+
+
+def _simulate_blocks(args: list[tuple], done, workers: int) -> list[np.ndarray]:
+    """The blocks' simulated statistics in block order, until ``done(results)`` says stop.
+
+    With several workers the blocks run in a process pool, at most two per worker ahead of
+    the one awaited; those not needed are cancelled.
+    """
+    results: list[np.ndarray] = []
+    if workers == 1:
+        for a in args:
+            results.append(_block_stats(*a))
+            if done(results):
+                break
+        return results
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        pending = {}
+        nxt = 0
+        while True:
+            while nxt < len(args) and len(pending) < 2 * workers:
+                pending[nxt] = pool.submit(_block_stats, *args[nxt])
+                nxt += 1
+            results.append(pending.pop(len(results)).result())  # in block order
+            if done(results):
+                for f in pending.values():
+                    f.cancel()
+                break
+    return results

@@ -309,16 +309,7 @@ def detectable_range(
     area = float(polygon.area)
     lam = n / area
     spacing = 1.0 / np.sqrt(lam)
-    null_batch = max(1, min(simulations, int(2_000_000 // n)))
-    null_r = np.concatenate(
-        [
-            _r_values(
-                uniform_in_polygon(polygon, n, size=min(null_batch, simulations - s), rng=gen),
-                area,
-            )
-            for s in range(0, simulations, null_batch)
-        ]
-    )
+    null_r = _reference_r(polygon, n, simulations, gen)
     null_mean, null_sd = float(null_r.mean()), float(null_r.std(ddof=1))
     if n > simulate_up_to:
         lo, hi = normal_detectable_r(null_mean, null_sd, alpha, power)
@@ -340,45 +331,14 @@ def detectable_range(
             0,
         )
     seeds = gen.integers(0, 2**63 - 1, size=2)
-
-    def evaluate(make, strength: float, seed: int) -> tuple[float, float]:
-        pats = make(strength, np.random.default_rng(seed))
-        r = _r_values(pats, area)
-        p, _, _ = rank_pvalues(r, null_r)
-        return float(r.mean()), float(np.mean(p <= alpha))
-
-    def curve(make, steps: np.ndarray, seed: int) -> tuple[np.ndarray, np.ndarray]:
-        done: list[tuple[float, float, float]] = []  # (position on the grid, R, power)
-        for i, s in enumerate(steps):
-            try:
-                done.append((float(i), *evaluate(make, s, seed)))
-            except ValueError:
-                break
-            if done[-1][2] >= max(power, 0.99) and not full_curves:
-                break
-        # refine the bracket where the power crosses the target (bisection on the grid)
-        pw = [d[2] for d in done]
-        hit = next((k for k, v in enumerate(pw) if v >= power), None)
-        if hit is not None and hit > 0:
-            a, b = done[hit - 1], done[hit]
-            for _ in range(REFINE_STEPS):
-                mid = (a[0] + b[0]) / 2
-                lo_i = int(np.floor(mid))
-                t = mid - lo_i
-                strength = steps[lo_i] * (1 - t) + steps[min(lo_i + 1, steps.size - 1)] * t
-                m = (mid, *evaluate(make, strength, seed))
-                done.append(m)
-                a, b = (m, b) if m[2] < power else (a, m)
-        done.sort()
-        return np.array([d[1] for d in done]), np.array([d[2] for d in done])
-
+    test = _PowerTest(null_r, area, alpha, power, full_curves)
     kappa = lam / cluster_size
-    c_r, c_p = curve(
+    c_r, c_p = test.curve(
         lambda f, g: thomas_patterns_given_n(polygon, n, kappa, f * spacing, size=patterns, rng=g),
         SIGMA_STEPS,
         int(seeds[0]),
     )
-    r_r, r_p = curve(
+    r_r, r_p = test.curve(
         lambda f, g: hard_core_patterns(polygon, n, f * spacing, size=patterns, rng=g),
         INHIBITION_STEPS,
         int(seeds[1]),
@@ -399,3 +359,72 @@ def detectable_range(
         "simulation",
         int(patterns),
     )
+
+
+def _reference_r(
+    polygon: shapely.Geometry, n: int, simulations: int, gen: np.random.Generator
+) -> np.ndarray:
+    """Clark–Evans R of ``simulations`` random patterns of ``n`` plants in the plot: the
+    Monte Carlo test's reference set, drawn in batches of at most 2 million points."""
+    area = float(polygon.area)
+    batch = max(1, min(simulations, int(2_000_000 // n)))
+    return np.concatenate(
+        [
+            _r_values(
+                uniform_in_polygon(polygon, n, size=min(batch, simulations - s), rng=gen), area
+            )
+            for s in range(0, simulations, batch)
+        ]
+    )
+
+
+@dataclass(frozen=True)
+class _PowerTest:
+    """The Monte Carlo test against one reference set, and its power along a scale of
+    alternative strengths."""
+
+    null_r: np.ndarray
+    area: float
+    alpha: float
+    power: float
+    full_curves: bool
+
+    def evaluate(self, make, strength: float, seed: int) -> tuple[float, float]:
+        """Mean R and rejection rate of the patterns ``make(strength, generator)``."""
+        pats = make(strength, np.random.default_rng(seed))
+        r = _r_values(pats, self.area)
+        p, _, _ = rank_pvalues(r, self.null_r)
+        return float(r.mean()), float(np.mean(p <= self.alpha))
+
+    def curve(self, make, steps: np.ndarray, seed: int) -> tuple[np.ndarray, np.ndarray]:
+        """Mean R and power along ``steps``, stopped once the power is certain (unless
+        ``full_curves``), then refined where it crosses the target."""
+        done: list[tuple[float, float, float]] = []  # (position on the grid, R, power)
+        for i, s in enumerate(steps):
+            try:
+                done.append((float(i), *self.evaluate(make, s, seed)))
+            except ValueError:
+                break
+            if done[-1][2] >= max(self.power, 0.99) and not self.full_curves:
+                break
+        done += self._refine(make, steps, seed, done)
+        done.sort()
+        return np.array([d[1] for d in done]), np.array([d[2] for d in done])
+
+    def _refine(self, make, steps: np.ndarray, seed: int, done: list) -> list:
+        """Bisection on the grid of strengths where the power crosses the target."""
+        pw = [d[2] for d in done]
+        hit = next((k for k, v in enumerate(pw) if v >= self.power), None)
+        if hit is None or hit == 0:
+            return []
+        added = []
+        a, b = done[hit - 1], done[hit]
+        for _ in range(REFINE_STEPS):
+            mid = (a[0] + b[0]) / 2
+            lo_i = int(np.floor(mid))
+            t = mid - lo_i
+            strength = steps[lo_i] * (1 - t) + steps[min(lo_i + 1, steps.size - 1)] * t
+            m = (mid, *self.evaluate(make, strength, seed))
+            added.append(m)
+            a, b = (m, b) if m[2] < self.power else (a, m)
+        return added

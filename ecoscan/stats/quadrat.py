@@ -363,13 +363,7 @@ def quadrat_test(
     """
     xy = np.asarray(xy, float).reshape(-1, 2)
     n = xy.shape[0]
-    if cell_size_m is None:
-        sx, sy = default_quadrat_cells(polygon, n)
-    else:
-        sx = float(cell_size_m)
-        sy = sx if cell_height_m is None else float(cell_height_m)
-    if not (np.isfinite(sx) and sx > 0 and np.isfinite(sy) and sy > 0):
-        raise ValueError("quadrat size must be a positive number of metres")
+    sx, sy = _cell_size(polygon, n, cell_size_m, cell_height_m)
     x0, y0, x1, y1 = polygon.bounds
     ncols = max(1, int(np.ceil((x1 - x0) / sx - 1e-9)))
     nrows = max(1, int(np.ceil((y1 - y0) / sy - 1e-9)))
@@ -380,7 +374,73 @@ def quadrat_test(
     area, cells = _grid_cells(polygon, x0, y0, sx, sy, nrows, ncols)
     tiny = area <= 1e-9 * sx * sy
     area[tiny] = 0.0
+    flat = _cell_of_points(xy, area, (x0, y0), (sx, sy), (nrows, ncols))
 
+    keep = area > 0
+    counts_full = np.bincount(flat, minlength=nrows * ncols)
+    counts = counts_full[keep]
+    a = area[keep]
+    share = a / a.sum()
+    expected = n * share
+    q = int(counts.size)
+    rows, cols = np.divmod(np.flatnonzero(keep), ncols)
+    x2, df, p, p_lo, p_up, vmr = _pearson_test(counts, expected, n)
+    mor = morisita_index(counts, share)
+    q_eff = 1.0 / float(np.sum(share * share))
+    mor_std = standardised_morisita(mor, n, q, q_eff)
+    return QuadratResult(
+        statistic=x2,
+        pvalue=p,
+        p_lower=p_lo,
+        p_upper=p_up,
+        df=int(df),
+        cell_size_m=sx,
+        n=n,
+        counts=counts.astype(np.int64),
+        expected=expected,
+        cell_area_m2=a,
+        cells=cells[keep],
+        row=rows.astype(np.int64),
+        col=cols.astype(np.int64),
+        origin_m=(float(x0), float(y0)),
+        grid_shape=(nrows, ncols),
+        vmr=float(vmr),
+        morisita=mor,
+        morisita_std=mor_std,
+        n_low_expected=int(np.sum(expected < MIN_EXPECTED)) if n > 0 else q,
+        cell_height_m=sy,
+    )
+
+
+def _cell_size(
+    polygon, n: int, cell_size_m: float | None, cell_height_m: float | None
+) -> tuple[float, float]:
+    """Width and height of the quadrats in metres: as given, or fitted to the plot."""
+    if cell_size_m is None:
+        sx, sy = default_quadrat_cells(polygon, n)
+    else:
+        sx = float(cell_size_m)
+        sy = sx if cell_height_m is None else float(cell_height_m)
+    if not (np.isfinite(sx) and sx > 0 and np.isfinite(sy) and sy > 0):
+        raise ValueError("quadrat size must be a positive number of metres")
+    return sx, sy
+
+
+def _cell_of_points(
+    xy: np.ndarray,
+    area: np.ndarray,
+    origin: tuple[float, float],
+    size: tuple[float, float],
+    shape: tuple[int, int],
+) -> np.ndarray:
+    """The flat grid index of each point's cell, by integer binning.
+
+    A point on a grid line beside a cell with no plot area goes to the cell across the line
+    (the module docstring's boundary rule); a point off the grid or in no cell with plot
+    area is an error.
+    """
+    (x0, y0), (sx, sy), (nrows, ncols) = origin, size, shape
+    n = xy.shape[0]
     ix = np.floor((xy[:, 0] - x0) / sx).astype(np.int64)
     iy = np.floor((xy[:, 1] - y0) / sy).astype(np.int64)
     tol = 1e-9 * max(sx, sy, 1.0)
@@ -411,15 +471,13 @@ def quadrat_test(
             b = b[~ok]
         if b.size:
             raise ValueError("some points lie outside the plot; pass only the plot's points")
+    return flat
 
-    keep = area > 0
-    counts_full = np.bincount(flat, minlength=nrows * ncols)
-    counts = counts_full[keep]
-    a = area[keep]
-    share = a / a.sum()
-    expected = n * share
+
+def _pearson_test(counts: np.ndarray, expected: np.ndarray, n: int) -> tuple:
+    """Pearson's X², its degrees of freedom, two-sided, lower and upper chi-square p and the
+    variance-to-mean ratio X² / df (NaN tests with fewer than 2 cells or no points)."""
     q = int(counts.size)
-    rows, cols = np.divmod(np.flatnonzero(keep), ncols)
     nan = float("nan")
     if q >= 2 and n > 0:
         x2 = float(np.sum((counts - expected) ** 2 / expected))
@@ -427,35 +485,8 @@ def quadrat_test(
         p_up = float(sps.chi2.sf(x2, df))
         p_lo = float(sps.chi2.cdf(x2, df))
         p = float(min(1.0, 2.0 * min(p_up, p_lo)))
-        vmr = x2 / df
-    else:
-        x2, p, p_lo, p_up, vmr = nan, nan, nan, nan, nan
-        df = max(q - 1, 0)
-    mor = morisita_index(counts, share)
-    q_eff = 1.0 / float(np.sum(share * share))
-    mor_std = standardised_morisita(mor, n, q, q_eff)
-    return QuadratResult(
-        statistic=x2,
-        pvalue=p,
-        p_lower=p_lo,
-        p_upper=p_up,
-        df=int(df),
-        cell_size_m=sx,
-        n=n,
-        counts=counts.astype(np.int64),
-        expected=expected,
-        cell_area_m2=a,
-        cells=cells[keep],
-        row=rows.astype(np.int64),
-        col=cols.astype(np.int64),
-        origin_m=(float(x0), float(y0)),
-        grid_shape=(nrows, ncols),
-        vmr=float(vmr),
-        morisita=mor,
-        morisita_std=mor_std,
-        n_low_expected=int(np.sum(expected < MIN_EXPECTED)) if n > 0 else q,
-        cell_height_m=sy,
-    )
+        return x2, df, p, p_lo, p_up, x2 / df
+    return nan, max(q - 1, 0), nan, nan, nan, nan
 
 
 @dataclass(frozen=True)

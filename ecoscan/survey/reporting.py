@@ -7,9 +7,11 @@ from pathlib import Path
 
 import numpy as np
 
+from ecoscan.analysis.change import compute as change
+from ecoscan.analysis.compare import compute as compare
 from ecoscan.analysis.dispersion.detectable import NO_DEPARTURE, TOO_FEW, detectable_range_short
 from ecoscan.detect import describe_settings
-from ecoscan.model.notes import code_of
+from ecoscan.model.notes import code_of, notes_in
 from ecoscan.report.figures.dispersion import (
     nn_histogram_figure,
     plot_map_figure,
@@ -82,15 +84,6 @@ DETAIL_COLUMNS = [
     "morisita_std",
 ]
 
-_SHORT = (
-    ("fewer than 30", "few plants"),
-    ("fewer than 2", "too few for a test"),
-    ("coincid", "duplicates?"),
-    ("share their position", "duplicates?"),
-    ("no points", "empty plot"),
-    ("arrangements", "few permutations"),
-)
-
 #: Jargon in warnings, and the plain words the report uses instead.
 _PLAIN = (
     (
@@ -134,13 +127,18 @@ def _verdict_phrase(verdict: str, ids: list[str]) -> str:
     return f"{_join(ids)} {_verb(ids)} {verdict}"
 
 
-#: The index's short flag for a plot's warning, by the warning's code
-#: (ecoscan.analysis.dispersion.compute); the full text is in the plot's section.
+#: The short flag for a warning, by the warning's code (a plot's warnings:
+#: ecoscan.analysis.dispersion.compute; a change row's: ecoscan.analysis.change.compute;
+#: a pair of groups': ecoscan.analysis.compare.compute); the full text is in the CSV and,
+#: for a plot, in its section. A table cell's flags are given in this order.
 _FLAGS = {
     "few-points": "few plants",
+    change.FEW_PLANTS: "few plants",
+    compare.FEW_PLANTS: "few plants",
     "one-point": "too few for a test",
-    "empty-plot": "empty plot",
     "duplicates": "duplicates?",
+    "empty-plot": "empty plot",
+    compare.FEW_ARRANGEMENTS: "few permutations",
 }
 
 
@@ -167,25 +165,32 @@ def plot_flags(warnings) -> str:
     return ", ".join(dict.fromkeys(flags)) if flags else str(shown[0])[:40]
 
 
-def short_warnings(text: str) -> str:
-    """Short flags for warnings given as text (the comparison and change tables' cells).
+def short_warnings(cell) -> str:
+    """Short flags for a table cell of warnings (the comparison and change tables' cells,
+    :class:`ecoscan.model.notes.JoinedNotes`), found by the warnings' codes.
 
-    A plot's own warnings are flagged from their codes (:func:`plot_flags`). Notes on the
-    quadrat test are for the analyst and are not flagged here.
+    The flags come in a fixed order; a cell whose warnings have no flag shows the start of
+    its first warning. Notes on the quadrat test are for the analyst and are not flagged.
 
     Examples
     --------
-    >>> short_warnings("only 22 points (fewer than 30): the tests have little power")
-    'few plants'
-    >>> short_warnings("3 of 8 quadrats expect fewer than 5 points: quadrat_p is approximate")
+    >>> from ecoscan.model.notes import JoinedNotes, Note
+    >>> short_warnings(JoinedNotes([
+    ...     Note("3 and 2 plots give 10 arrangements: ...", "few-arrangements", "warning"),
+    ...     Note("fewer than 30 plants in a group: ...", "few-plants", "warning")]))
+    'few plants, few permutations'
+    >>> short_warnings(JoinedNotes([Note("a group has no nearest-neighbour distances",
+    ...                                  "no-distances", "warning")]))
+    'a group has no nearest-neighbour distanc'
+    >>> short_warnings("")
     ''
     """
-    parts = [t for t in (text or "").split("; ") if t and "quadrat" not in t]
-    if not parts:
+    notes = [n for n in notes_in(cell) if not _analyst_only(n)]
+    if not notes:
         return ""
-    joined = "; ".join(parts)
-    flags = [label for key, label in _SHORT if key in joined]
-    return ", ".join(dict.fromkeys(flags)) if flags else parts[0][:40]
+    codes = {n.code for n in notes}
+    flags = [flag for code, flag in _FLAGS.items() if code in codes]
+    return ", ".join(dict.fromkeys(flags)) if flags else notes[0].text[:40]
 
 
 def plain_warnings(*texts: str) -> list[str]:
@@ -242,9 +247,32 @@ def _plot_section(
     ``i`` is the plot's index in the raster's plots; ``source`` the raster opened for the
     previews (None: no backdrop).
     """
-    files: list[Path] = []
     plot = rr.inputs.plots[i]
     name = f"{slug(rr.entry.name)}_{slug(plot.plot_id)}"
+    title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
+    map_file, map_fig = _plot_map(rr, i, figdir / f"{name}_map.jpg", title, source)
+    sres = _scales_of(rr, plot.plot_id)
+    detail_files, detail_figs = _detail_figures(res, sres, plot, figdir, name, title)
+    row = run.row(rr.entry.name, plot.plot_id)
+    verdict = row.get("verdict") or ""
+    scale_warn = "; ".join(sres.warnings) if sres is not None else ""
+    quad_html, stats = _analyst_statistics(row, res)
+    body = (
+        f'<article class="plot" id="{plot_anchor(rr.entry.name, plot.plot_id)}">'
+        f"<h4>Plot {_esc(plot.plot_id)} {pattern_tag(verdict)}</h4>"
+        f'<div class="plotmain">{map_fig}<div class="plottext">'
+        + _plot_findings(row, plot.area_m2, alpha)
+        + f"{_warnings_list(res, scale_warn)}</div></div>"
+        "<details><summary>Analyst detail: every statistic, spacing, quadrats, scales"
+        f'</summary>{quad_html}<div class="detail">{stats}{"".join(detail_figs)}</div></details>'
+        "</article>"
+    )
+    return body, [map_file, *detail_files]
+
+
+def _plot_map(rr, i: int, path: Path, title: str, source) -> tuple[Path, str]:
+    """The plot card's map: detected plants over the raster's preview, and its caption."""
+    plot = rr.inputs.plots[i]
     idx = rr.inputs.membership.points_of(i)
     xy = np.column_stack([rr.inputs.points.x[idx], rr.inputs.points.y[idx]])
     sizes = rr.inputs.points.attrs.get("diameter_m")
@@ -254,18 +282,15 @@ def _plot_section(
     kind = _backdrop_kind(rr.method)
     if source is not None:
         pv = preview(source, bounds, rgb=kind == "rgb", stretch=kind == "grey")
-    title = f"{rr.entry.site} · {rr.entry.date} · plot {plot.plot_id}"
-    files.append(
-        plot_map_figure(
-            figdir / f"{name}_map.jpg",
-            plot.geometry,
-            xy,
-            image=pv[0] if pv else None,
-            image_extent=pv[1] if pv else None,
-            title=f"{title}: detected plants",
-            sizes_m=sizes,
-            image_kind=kind,
-        )
+    path = plot_map_figure(
+        path,
+        plot.geometry,
+        xy,
+        image=pv[0] if pv else None,
+        image_extent=pv[1] if pv else None,
+        title=f"{title}: detected plants",
+        sizes_m=sizes,
+        image_kind=kind,
     )
     backdrop = {
         "rgb": "the image",
@@ -273,19 +298,33 @@ def _plot_section(
         "classes": "the class map",
         "grey": "the raster",
     }[kind]
-    map_fig = figure_html(
-        files[-1],
-        f"Detected plants (white dots) over {backdrop}, plot outline in blue"
-        + ("; circles show crown diameters to scale." if sizes is not None else "."),
+    caption = f"Detected plants (white dots) over {backdrop}, plot outline in blue" + (
+        "; circles show crown diameters to scale." if sizes is not None else "."
     )
-    detail_figs = []
+    return path, figure_html(path, caption)
+
+
+def _scales_of(rr, plot_id: str):
+    """The plot's result across distances (None without the scales job)."""
+    if not rr.scales:
+        return None
+    return next((s for s in rr.scales if s.plot_id == plot_id), None)
+
+
+def _detail_figures(res, sres, plot, figdir: Path, name: str, title: str):
+    """The analyst detail's figures: spacing, quadrats and functions across distances.
+
+    Returns the files drawn and their HTML, in the order they are shown.
+    """
+    files: list[Path] = []
+    figs: list[str] = []
     if res.n >= 2 and res.nn_m is not None and len(res.nn_m):
         files.append(
             nn_histogram_figure(
                 figdir / f"{name}_nn.png", res.nn_m, res.n / plot.area_m2, title=f"{title}: spacing"
             )
         )
-        detail_figs.append(
+        figs.append(
             figure_html(
                 files[-1],
                 "Nearest-neighbour distances against the distribution expected for a random "
@@ -303,29 +342,29 @@ def _plot_section(
                 title=f"{title}: {q.cell_size_m:.3g} m quadrats",
             )
         )
-        detail_figs.append(
+        figs.append(
             figure_html(files[-1], "Plants counted in square quadrats clipped to the plot.")
         )
-    scale_warn = ""
-    if rr.scales:
-        sres = next((s for s in rr.scales if s.plot_id == plot.plot_id), None)
-        if sres is not None:
-            scale_warn = "; ".join(sres.warnings)
-        if sres is not None and getattr(sres, "n", 0) >= 2 and sres.curves:
-            from ecoscan.report.figures.scales import plot_scales_figure
+    if sres is not None and getattr(sres, "n", 0) >= 2 and sres.curves:
+        from ecoscan.report.figures.scales import plot_scales_figure
 
-            files.append(plot_scales_figure(sres, figdir / f"{name}_scales.png"))
-            detail_figs.append(
-                figure_html(
-                    files[-1],
-                    "Summary functions across distances with the band of random patterns in "
-                    "the same plot shape; marks along the bottom show where the plants leave it.",
-                )
+        files.append(plot_scales_figure(sres, figdir / f"{name}_scales.png"))
+        figs.append(
+            figure_html(
+                files[-1],
+                "Summary functions across distances with the band of random patterns in "
+                "the same plot shape; marks along the bottom show where the plants leave it.",
             )
-    row = run.row(rr.entry.name, plot.plot_id)
+        )
+    return files, figs
+
+
+def _plot_findings(row: dict, area_m2: float, alpha: float) -> str:
+    """The plot card's findings: plants and density, the verdict in words, what the plot
+    could detect, the pattern's size in metres and the summary in words (HTML)."""
     verdict = row.get("verdict") or ""
     facts = (
-        f"{row.get('n')} plants in {plot.area_m2:,.0f} m² "
+        f"{row.get('n')} plants in {area_m2:,.0f} m² "
         f"({format_cell('density_per_ha', row.get('density_per_ha'))} plants/ha)."
     )
     if verdict in _MEANING:
@@ -344,15 +383,28 @@ def _plot_section(
     in_words = str(row.get("summary") or "")
     if pattern and in_words.endswith("; " + pattern):
         in_words = in_words[: -len(pattern) - 2]  # said above, with its interval
-    # the quadrat notes matter to the analyst only: they go with the statistics
-    mine = [w for w in res.warnings if not _analyst_only(w)]
-    quad = plain_warnings("; ".join(w for w in res.warnings if _analyst_only(w)))
-    warns = plain_warnings("; ".join(mine), scale_warn)
-    warn_html = (
-        '<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warns) + "</ul>"
-        if warns
-        else ""
+    return (
+        f"<p>{_esc(facts)}</p>"
+        + pattern_html
+        + (f"<p>In words: {_esc(in_words)}.</p>" if in_words else "")
     )
+
+
+def _warnings_list(res, scale_warn: str) -> str:
+    """The plot card's warnings in plain words (HTML list; empty without warnings).
+
+    The quadrat notes matter to the analyst only: they go with the statistics.
+    """
+    mine = [w for w in res.warnings if not _analyst_only(w)]
+    warns = plain_warnings("; ".join(mine), scale_warn)
+    if not warns:
+        return ""
+    return '<ul class="warnings">' + "".join(f"<li>{_esc(w)}</li>" for w in warns) + "</ul>"
+
+
+def _analyst_statistics(row: dict, res) -> tuple[str, str]:
+    """The analyst detail's quadrat notes and its table of every statistic (HTML)."""
+    quad = plain_warnings("; ".join(w for w in res.warnings if _analyst_only(w)))
     quad_html = "".join(f'<p class="muted">{_esc(w)}</p>' for w in quad)
     detail_rows = [{"what": label(c), "value": format_cell(c, row.get(c))} for c in DETAIL_COLUMNS]
     stats = (
@@ -364,18 +416,7 @@ def _plot_section(
         )
         + "</tbody></table>"
     )
-    body = (
-        f'<article class="plot" id="{plot_anchor(rr.entry.name, plot.plot_id)}">'
-        f"<h4>Plot {_esc(plot.plot_id)} {pattern_tag(verdict)}</h4>"
-        f'<div class="plotmain">{map_fig}<div class="plottext"><p>{_esc(facts)}</p>'
-        + pattern_html
-        + (f"<p>In words: {_esc(in_words)}.</p>" if in_words else "")
-        + f"{warn_html}</div></div>"
-        "<details><summary>Analyst detail: every statistic, spacing, quadrats, scales"
-        f'</summary>{quad_html}<div class="detail">{stats}{"".join(detail_figs)}</div></details>'
-        "</article>"
-    )
-    return body, files
+    return quad_html, stats
 
 
 def _site_meaning(run) -> str:
@@ -469,10 +510,48 @@ def write_report(run, stat_settings) -> list[Path]:
     """
     out = run.output
     figdir = out / "figures"
-    files: list[Path] = []
     alpha = float(stat_settings.alpha)
-    sections: list[ReportSection] = []
+    plots, files = _plots_section(run, figdir, alpha)
+    overview, overview_file = _overview_section(run, figdir, alpha)
+    files.append(overview_file)
+    sections = [_summary_section(run, stat_settings), plots, overview]
+    has_scales = any(rr.scales for rr in run.rasters)
+    has_habitat = any(s.habitat is not None for rr in run.rasters for s in rr.scales or [])
+    if has_scales:
+        sections.append(_scales_section(run))
+    if has_habitat:
+        from ecoscan.survey.reporting_why import why_section
 
+        why, why_files = why_section(run, figdir)
+        sections.append(why)
+        files += why_files
+    if run.comparisons:
+        sections.append(_comparison_section(run))
+    if run.changes:
+        sections.append(_change_section(run))
+    topics = ["detection"]
+    topics += ["scales"] if has_scales else []
+    topics += ["habitat"] if has_habitat else []
+    topics += ["compare"] if run.comparisons else []
+    topics += ["change"] if run.changes else []
+    sections.append(ReportSection("Methods and sources", methods_html(topics=topics), "methods"))
+    sections.append(ReportSection("Cautions", CAUTIONS_HTML, "cautions"))
+    sections.append(_run_notes_section(run))
+    files.append(
+        build_report(
+            out / "report.html",
+            title=run.config.name,
+            subtitle=f"ecoscan survey report · {len(run.rasters)} rasters · {run.crs_text}",
+            sections=sections,
+        )
+    )
+    return files
+
+
+def _summary_section(run, stat_settings) -> ReportSection:
+    """The report's first section: what was surveyed, the sortable index of plots and a
+    paragraph per site on what the verdicts mean."""
+    alpha = float(stat_settings.alpha)
     n_plants = sum(rr.points.n for rr in run.rasters)
     n_sites = len({r["site"] for r in run.rows})
     intro = (
@@ -487,21 +566,27 @@ def write_report(run, stat_settings) -> list[Path]:
         for rr in run.rasters
         for res, plot in zip(rr.dispersion, rr.inputs.plots, strict=True)
     }
-    index = []
-    for r in run.rows:
-        index.append(
-            {
-                **r,
-                "flags": plot_flags(warnings_of[(r["raster"], r["plot_id"])]),
-                "detectable_range": detectable_range_short(r),
-                "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
-            }
-        )
+    index = [
+        {
+            **r,
+            "flags": plot_flags(warnings_of[(r["raster"], r["plot_id"])]),
+            "detectable_range": detectable_range_short(r),
+            "_href": "#" + plot_anchor(r["raster"], r["plot_id"]),
+        }
+        for r in run.rows
+    ]
     summary = intro + table_html(index, SUMMARY_COLUMNS, sortable=True, link="plot_id")
     summary += "<h3>What this means</h3>" + _site_meaning(run)
-    sections.append(ReportSection("Summary", summary, "summary"))
+    return ReportSection("Summary", summary, "summary")
 
-    plot_children = []
+
+def _plots_section(run, figdir: Path, alpha: float) -> tuple[ReportSection, list[Path]]:
+    """The plots, one sub-section per raster: how it was detected, then each plot's card.
+
+    Returns the section and the figures drawn for it.
+    """
+    files: list[Path] = []
+    children = []
     for rr in run.rasters:
         cards = []
         # the raster is opened once for the previews of all its plots
@@ -511,112 +596,76 @@ def write_report(run, stat_settings) -> list[Path]:
                 card, fs = _plot_section(run, rr, res, i, figdir, alpha, source)
                 cards.append(card)
                 files += fs
-        head = (
-            f"<p>{rr.points.n:,} plants detected with the <code>{_esc(rr.method)}</code> "
-            f"detector (pixel {_fmt(rr.pixel_size_m, 3)} m"
-            + ("; reused from the previous run" if rr.cached else "")
-            + ").</p>"
-            + (
-                f"<p>Detection settings: {_esc(describe_settings(rr.detection))}.</p>"
-                if rr.detection
-                else ""
-            )
-        )
-        plot_children.append(
+        children.append(
             ReportSection(
                 f"{rr.entry.site}, {rr.entry.date} ({rr.entry.name})",
-                head + "".join(cards),
+                _raster_header(rr) + "".join(cards),
                 f"r-{rr.entry.name}",
             )
         )
-    sections.append(ReportSection("Plots", "", "plots", plot_children))
+    return ReportSection("Plots", "", "plots", children), files
 
-    files.append(r_against_n_figure(figdir / "R_against_n.png", run.rows, alpha=alpha))
+
+def _raster_header(rr) -> str:
+    """A raster's header in the plots section: plants found, detector, pixel and settings."""
+    return (
+        f"<p>{rr.points.n:,} plants detected with the <code>{_esc(rr.method)}</code> "
+        f"detector (pixel {_fmt(rr.pixel_size_m, 3)} m"
+        + ("; reused from the previous run" if rr.cached else "")
+        + ").</p>"
+        + (
+            f"<p>Detection settings: {_esc(describe_settings(rr.detection))}.</p>"
+            if rr.detection
+            else ""
+        )
+    )
+
+
+def _overview_section(run, figdir: Path, alpha: float) -> tuple[ReportSection, Path]:
+    """Every plot's Clark–Evans R against its number of plants, with the figure drawn."""
+    path = r_against_n_figure(figdir / "R_against_n.png", run.rows, alpha=alpha)
     overview = figure_html(
-        files[-1],
+        path,
         "Clark–Evans R of every plot against its number of plants. Inside the grey band R is "
         "not significantly different from 1 (random) by the normal approximation; small plots "
         "need a large departure to be significant. Marker shape and colour give the Monte "
         "Carlo verdict.",
     )
-    sections.append(ReportSection("All plots: R and plant numbers", overview, "overview"))
+    return ReportSection("All plots: R and plant numbers", overview, "overview"), path
 
-    if any(rr.scales for rr in run.rasters):
-        from ecoscan.analysis.scales.columns import scales_rows
 
-        rows = []
-        for rr in run.rasters:
-            if rr.scales:
-                rows += [
-                    {"site": rr.entry.site, "date": rr.entry.date, **r}
-                    for r in scales_rows(rr.scales)
-                ]
-        cols = [
-            c
-            for c in (
-                "site",
-                "date",
-                "plot_id",
-                "n",
-                "p_global",
-                "clustered_ranges_m",
-                "regular_ranges_m",
-            )
-            if rows and c in rows[0]
-        ]
-        sections.append(
-            ReportSection(
-                "Pattern across distances",
-                "<p>Where along the distance axis the plants leave the band of random "
-                "patterns: competition shows as regularity at short range, patches of good "
-                "ground as clustering at longer range. The global test (rank-length on L by "
-                "default) controls the error over all distances at once; each plot's verdict "
-                "in words is under its figure in the plot's analyst detail.</p>"
-                + table_html(rows, cols, sortable=True),
-                "scales",
-            )
-        )
+def _scales_section(run) -> ReportSection:
+    """The pattern across distances: each plot's global test and where it leaves the band."""
+    from ecoscan.analysis.scales.columns import scales_rows
 
-    if any(s.habitat is not None for rr in run.rasters for s in rr.scales or []):
-        from ecoscan.survey.reporting_why import why_section
+    rows = []
+    for rr in run.rasters:
+        if rr.scales:
+            rows += [
+                {"site": rr.entry.site, "date": rr.entry.date, **r} for r in scales_rows(rr.scales)
+            ]
+    wanted = ("site", "date", "plot_id", "n", "p_global", "clustered_ranges_m", "regular_ranges_m")
+    cols = [c for c in wanted if rows and c in rows[0]]
+    return ReportSection(
+        "Pattern across distances",
+        "<p>Where along the distance axis the plants leave the band of random "
+        "patterns: competition shows as regularity at short range, patches of good "
+        "ground as clustering at longer range. The global test (rank-length on L by "
+        "default) controls the error over all distances at once; each plot's verdict "
+        "in words is under its figure in the plot's analyst detail.</p>"
+        + table_html(rows, cols, sortable=True),
+        "scales",
+    )
 
-        why, why_files = why_section(run, figdir)
-        sections.append(why)
-        files += why_files
 
-    if run.comparisons:
-        sections.append(_comparison_section(run))
-    if run.changes:
-        sections.append(_change_section(run))
-
-    topics = ["detection"]
-    if any(rr.scales for rr in run.rasters):
-        topics.append("scales")
-    if any(s.habitat is not None for rr in run.rasters for s in rr.scales or []):
-        topics.append("habitat")
-    if run.comparisons:
-        topics.append("compare")
-    if run.changes:
-        topics.append("change")
-    sections.append(ReportSection("Methods and sources", methods_html(topics=topics), "methods"))
-    sections.append(ReportSection("Cautions", CAUTIONS_HTML, "cautions"))
+def _run_notes_section(run) -> ReportSection:
+    """The run's notes (or 'none') and where the full provenance is."""
     notes = "".join(f"<li>{_esc(n)}</li>" for n in run.notes) or "<li>none</li>"
-    sections.append(
-        ReportSection(
-            "Notes from this run",
-            f"<ul>{notes}</ul><p>Full provenance is in <code>run.json</code>.</p>",
-            "notes",
-        )
+    return ReportSection(
+        "Notes from this run",
+        f"<ul>{notes}</ul><p>Full provenance is in <code>run.json</code>.</p>",
+        "notes",
     )
-    files.append(
-        build_report(
-            out / "report.html",
-            title=run.config.name,
-            subtitle=f"ecoscan survey report · {len(run.rasters)} rasters · {run.crs_text}",
-            sections=sections,
-        )
-    )
-    return files
 
 
 def _comparison_section(run) -> ReportSection:

@@ -154,6 +154,27 @@ def _raster_runs(manifest, found, survey_crs) -> list[tuple]:
     return prepared
 
 
+def _scales_all(prepared: list[tuple], settings) -> list:
+    """The analysis across scales of every raster's plots (None each without ``[scales]``),
+    with each covariate raster opened once for the whole survey."""
+    if settings is None:
+        return [None] * len(prepared)
+    from ecoscan.analysis.habitat import CovariateRasters
+    from ecoscan.analysis.scales.compute import analyse_scales
+
+    with CovariateRasters() as covariates:
+        return [
+            analyse_scales(
+                inputs,
+                settings,
+                points_label=f"the plants detected in {item.entry.path.name}",
+                notes=notes,
+                covariate_rasters=covariates,
+            )
+            for item, _det, inputs, _pts, notes, _moved in prepared
+        ]
+
+
 def _run_survey(
     config: SurveyConfig,
     out: Path,
@@ -193,18 +214,11 @@ def _run_survey(
     found = detect_all(manifest.rasters, out, manifest.plots.sha256, previous, ex)
     prepared = _raster_runs(manifest, found, survey_crs)
     results = _analyse_all([p[2] for p in prepared], stat_settings, ex)
-    for (item, det, inputs, pts, notes, moved), disp in zip(prepared, results, strict=True):
+    scales = _scales_all(prepared, scales_settings)
+    for (item, det, inputs, pts, notes, moved), disp, scl in zip(
+        prepared, results, scales, strict=True
+    ):
         entry = item.entry
-        scl = None
-        if scales_settings is not None:
-            from ecoscan.analysis.scales.compute import analyse_scales
-
-            scl = analyse_scales(
-                inputs,
-                scales_settings,
-                points_label=f"the plants detected in {entry.path.name}",
-                notes=notes,
-            )
         run.rasters.append(
             RasterRun(
                 entry, det.method, pts, inputs, disp, scl, notes, det.cached,

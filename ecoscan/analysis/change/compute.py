@@ -24,6 +24,7 @@ from ecoscan.io.crs import crs_label, transform_xy
 from ecoscan.io.inputs import one_row_per_plant
 from ecoscan.io.vector import reproject_geometries
 from ecoscan.model.membership import assign_plots, overlap_note
+from ecoscan.model.notes import WARNING, JoinedNotes, Note, codes_in
 from ecoscan.model.plots import Plot, PlotLayer, id_text
 from ecoscan.model.points import PointSet
 from ecoscan.progress import progress
@@ -54,6 +55,11 @@ __all__ = [
 STATUSES = ("persisting", "lost", "new")
 OVERALL_ID = "all"
 MIN_SHIFT_PAIRS = 10
+#: Codes of the warnings in a plot's row (:class:`ecoscan.model.notes.Note`): no plants on
+#: one of the dates, and too few plants for the R test's normal approximation.
+NONE_EARLIER, NONE_LATER, FEW_PLANTS = "no-plants-earlier", "no-plants-later", "few-plants"
+#: Code of the warning that the two surveys cover different extents.
+PARTIAL_OVERLAP = "partial-overlap"
 
 
 @dataclass(frozen=True)
@@ -226,14 +232,21 @@ def _align_crs(earlier: PointSet, later: PointSet, notes: list[str]):
     if earlier.crs is not None and later.crs is not None and earlier.crs != later.crs:
         lx, ly = transform_xy(later.x, later.y, later.crs, earlier.crs)
         notes.append(
-            f"the later survey in {crs_label(later.crs)} was reprojected to the earlier "
-            f"survey's {crs_label(earlier.crs)}"
+            Note(
+                f"the later survey in {crs_label(later.crs)} was reprojected to the earlier "
+                f"survey's {crs_label(earlier.crs)}",
+                "later-reprojected",
+            )
         )
     elif earlier.crs is None and later.crs is not None:
         crs = later.crs
-        notes.append(f"the earlier survey has no CRS; taken to be {crs_label(later.crs)}")
+        notes.append(
+            Note(f"the earlier survey has no CRS; taken to be {crs_label(later.crs)}", "no-crs")
+        )
     elif later.crs is None and earlier.crs is not None:
-        notes.append(f"the later survey has no CRS; taken to be {crs_label(earlier.crs)}")
+        notes.append(
+            Note(f"the later survey has no CRS; taken to be {crs_label(earlier.crs)}", "no-crs")
+        )
     return np.asarray(lx, float), np.asarray(ly, float), crs
 
 
@@ -243,7 +256,12 @@ def _align_plots(plots: PlotLayer, crs: CRS | None, notes: list[str]) -> PlotLay
     geoms = reproject_geometries(
         np.array([p.geometry for p in plots.plots], dtype=object), plots.crs, crs
     )
-    notes.append(f"plots in {crs_label(plots.crs)} were reprojected to {crs_label(crs)}")
+    notes.append(
+        Note(
+            f"plots in {crs_label(plots.crs)} were reprojected to {crs_label(crs)}",
+            "plots-reprojected",
+        )
+    )
     new = [Plot(p.plot_id, g, p.attrs) for p, g in zip(plots.plots, geoms, strict=True)]
     return PlotLayer(new, crs, list(plots.notes))
 
@@ -266,9 +284,14 @@ def _check_overlap(a: np.ndarray, b: np.ndarray, tol: float, warnings: list[str]
     share = ix * iy / min(ea, eb)
     if share < 0.5:
         warnings.append(
-            f"the two surveys' extents overlap by only {100 * share:.0f}% of the smaller one; "
-            "plants outside the overlap show as lost or new although they were simply not "
-            "surveyed twice: clip both surveys to the common area or give --plots inside it"
+            Note(
+                f"the two surveys' extents overlap by only {100 * share:.0f}% of the smaller "
+                "one; plants outside the overlap show as lost or new although they were simply "
+                "not surveyed twice: clip both surveys to the common area or give --plots "
+                "inside it",
+                PARTIAL_OVERLAP,
+                WARNING,
+            )
         )
 
 
@@ -301,13 +324,21 @@ def _row(
     d1 = n1 / area * 1e4 if area > 0 else float("nan")
     d2 = n2 / area * 1e4 if area > 0 else float("nan")
     diff = r_difference(r_later, r_earlier)
-    warn: list[str] = []
+    warn: list[Note] = []
     if n1 == 0 and n2 > 0:
-        warn.append("no plants on the earlier date: was this plot surveyed then?")
+        warn.append(
+            Note(
+                "no plants on the earlier date: was this plot surveyed then?", NONE_EARLIER, WARNING
+            )
+        )
     if n2 == 0 and n1 > 0:
-        warn.append("no plants on the later date: was this plot surveyed then?")
+        warn.append(
+            Note("no plants on the later date: was this plot surveyed then?", NONE_LATER, WARNING)
+        )
     if 0 < min(n1, n2) < 30:
-        warn.append("fewer than 30 plants on a date: the R test is approximate")
+        warn.append(
+            Note("fewer than 30 plants on a date: the R test is approximate", FEW_PLANTS, WARNING)
+        )
     return {
         "plot_id": plot_id,
         "area_m2": area,
@@ -333,7 +364,7 @@ def _row(
         "p_R_change": diff.pvalue,
         "R_later_null": float("nan") if mc is None else mc.expected,
         "p_R_change_mc": float("nan") if mc is None else mc.pvalue,
-        "warnings": "; ".join(warn),
+        "warnings": JoinedNotes(warn),
     }
 
 
@@ -401,7 +432,7 @@ def detect_change(
     seed = run_seed(rng)
     earlier, later = one_row_per_plant(earlier), one_row_per_plant(later)
     notes = list(dict.fromkeys([*earlier.notes, *later.notes]))
-    warnings: list[str] = []
+    warnings: list[Note] = []
     lx, ly, crs = _align_crs(earlier, later, notes)
     a = earlier.xy
     b = np.column_stack([lx, ly])
@@ -409,20 +440,28 @@ def detect_change(
     spacing = min(_typical_spacing(a), _typical_spacing(b))
     if math.isfinite(spacing) and tol > spacing:
         warnings.append(
-            f"the tolerance {tol:g} m is larger than the typical spacing between plants "
-            f"({spacing:.2f} m, median nearest-neighbour distance): a plant can be within reach "
-            "of several others, so matches become ambiguous; use a smaller --tolerance"
+            Note(
+                f"the tolerance {tol:g} m is larger than the typical spacing between plants "
+                f"({spacing:.2f} m, median nearest-neighbour distance): a plant can be within "
+                "reach of several others, so matches become ambiguous; use a smaller --tolerance",
+                "tolerance-above-spacing",
+                WARNING,
+            )
         )
     shift_res = _estimate_shift(a, b, tol, rng=seed) if estimate_shift else None
     sx, sy = _shift_to_remove(shift_res, tol, notes, warnings)
     pairs = _pair_plants(a, b, tol, sx, sy)
     where = _plot_membership(plots, crs, earlier, later, pairs, notes, warnings)
     rows, overall = _change_table(pairs, where, int(simulations), seed, notes)
-    missing = [r["plot_id"] for r in rows if "was this plot surveyed" in r["warnings"]]
+    missing = [r["plot_id"] for r in rows if codes_in(r["warnings"]) & {NONE_EARLIER, NONE_LATER}]
     if missing:
         warnings.append(
-            f"plot(s) {', '.join(missing[:8])} have plants on one date only: check that both "
-            "surveys covered them before reading their losses or recruits"
+            Note(
+                f"plot(s) {', '.join(missing[:8])} have plants on one date only: check that both "
+                "surveys covered them before reading their losses or recruits",
+                "one-date-only",
+                WARNING,
+            )
         )
     params = {
         "tolerance_m": tol,
@@ -491,19 +530,30 @@ def _shift_to_remove(
         return 0.0, 0.0
     if shift_res.n_pairs < MIN_SHIFT_PAIRS:
         warnings.append(
-            f"only {shift_res.n_pairs} plants pair up unambiguously, too few to estimate a "
-            "shift between the surveys; no shift was removed"
+            Note(
+                f"only {shift_res.n_pairs} plants pair up unambiguously, too few to estimate a "
+                "shift between the surveys; no shift was removed",
+                "few-shift-pairs",
+                WARNING,
+            )
         )
         return 0.0, 0.0
     sx, sy = shift_res.shift_x_m, shift_res.shift_y_m
     notes.append(
-        f"shift between the surveys: {sx:+.3f} m east, {sy:+.3f} m north "
-        f"(from {shift_res.n_pairs} plant pairs); removed before matching"
+        Note(
+            f"shift between the surveys: {sx:+.3f} m east, {sy:+.3f} m north "
+            f"(from {shift_res.n_pairs} plant pairs); removed before matching",
+            "shift-removed",
+        )
     )
     if shift_res.length_m > tol:
         warnings.append(
-            f"the shift between the surveys ({shift_res.length_m:.2f} m) is larger than "
-            "the tolerance; check the co-registration of the two mosaics"
+            Note(
+                f"the shift between the surveys ({shift_res.length_m:.2f} m) is larger than "
+                "the tolerance; check the co-registration of the two mosaics",
+                "shift-above-tolerance",
+                WARNING,
+            )
         )
     return sx, sy
 
@@ -586,13 +636,20 @@ def _plot_membership(
         for ids_, when, other in ((only_e, "earlier", "later"), (only_l, "later", "earlier")):
             if ids_:
                 warnings.append(
-                    f"plot(s) {', '.join(ids_[:8])} appear only in the {when} survey: their "
-                    f"plants count as {'lost' if when == 'earlier' else 'new'}; check that the "
-                    f"{other} survey covered them"
+                    Note(
+                        f"plot(s) {', '.join(ids_[:8])} appear only in the {when} survey: their "
+                        f"plants count as {'lost' if when == 'earlier' else 'new'}; check that "
+                        f"the {other} survey covered them",
+                        "plot-in-one-survey",
+                        WARNING,
+                    )
                 )
         notes.append(
-            "plot membership taken from the plot_id column of the point files; give --plots "
-            "for plot areas, densities and R"
+            Note(
+                "plot membership taken from the plot_id column of the point files; give "
+                "--plots for plot areas, densities and R",
+                "plots-from-column",
+            )
         )
         return _Membership(plot_id)
     plot_id = np.full(pairs.status.size, "", dtype=object)
@@ -600,8 +657,11 @@ def _plot_membership(
     if window.area <= 0:
         raise InputError("the plants lie on a line; give --plots so areas can be measured")
     notes.append(
-        "no plots given: densities and R use the convex hull of all plants as the window "
-        f"({window.area:.0f} m²); R is biased upward near the hull's edge, give --plots"
+        Note(
+            "no plots given: densities and R use the convex hull of all plants as the window "
+            f"({window.area:.0f} m²); R is biased upward near the hull's edge, give --plots",
+            "hull-window",
+        )
     )
     return _Membership(plot_id, window=window)
 
@@ -625,7 +685,7 @@ def _membership_from_plots(
         plot_sel[p.plot_id][member.points_of(i)] = True
     ov = overlap_note(layer)
     if ov:
-        warnings.append(ov)
+        warnings.append(Note(ov, "overlapping-plots", WARNING))
     outside = int(np.sum(first < 0))
     if outside == total:
         raise InputError(
@@ -634,8 +694,11 @@ def _membership_from_plots(
         )
     if outside:
         notes.append(
-            f"{outside} of {total} plants lie outside every plot: they are listed in the "
-            "plants table with an empty plot_id and left out of the per-plot rows"
+            Note(
+                f"{outside} of {total} plants lie outside every plot: they are listed in the "
+                "plants table with an empty plot_id and left out of the per-plot rows",
+                "plants-outside-plots",
+            )
         )
     return _Membership(plot_id, layer, plot_list, plot_sel)
 
@@ -663,8 +726,12 @@ def _change_table(
         empty = [p.plot_id for p in where.plot_list if not np.any(plot_sel[p.plot_id])]
         if empty:
             notes.append(
-                f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, or "
-                "outside both surveys) and are left out of the rows and of the overall area"
+                Note(
+                    f"plot(s) {', '.join(empty[:8])} hold no plant on either date (another site, "
+                    "or outside both surveys) and are left out of the rows and of the overall "
+                    "area",
+                    "empty-plots",
+                )
             )
         plot_list = [p for p in where.plot_list if p.plot_id not in set(empty)]
         for p in progress(plot_list, total=len(plot_list), desc="plots", unit="plot"):

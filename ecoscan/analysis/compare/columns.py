@@ -10,8 +10,14 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from ecoscan.analysis.compare.compute import ComparisonResult, _label_interval, _pattern
+from ecoscan.analysis.compare.compute import (
+    FEW_PLANTS,
+    ComparisonResult,
+    _label_interval,
+    _pattern,
+)
 from ecoscan.analysis.dispersion.compute import DONNELLY_MIN_HALF_WIDTH, donnelly_strip_warning
+from ecoscan.model.notes import WARNING, JoinedNotes, Note
 
 __all__ = [
     "GROUP_COLUMNS",
@@ -163,7 +169,7 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
             dlo = dhi = float("nan")
         warn = []
         if g.n < 30:
-            warn.append("fewer than 30 plants")
+            warn.append(Note("fewer than 30 plants", FEW_PLANTS, WARNING))
         narrow = [
             u.plot_id
             for u in g.units
@@ -174,9 +180,13 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
             # measured: the label rejects 98% of random patterns in a 400 x 5 m strip at
             # n = 30 (docs/validity.md); Donnelly's correction does not hold there
             warn.append(
-                f"verdict approximate: plot(s) {', '.join(narrow[:5])} narrower than "
-                f"{DONNELLY_MIN_HALF_WIDTH:g} plant spacings, where Donnelly's edge "
-                "correction fails; use each plot's Monte Carlo test"
+                Note(
+                    f"verdict approximate: plot(s) {', '.join(narrow[:5])} narrower than "
+                    f"{DONNELLY_MIN_HALF_WIDTH:g} plant spacings, where Donnelly's edge "
+                    "correction fails; use each plot's Monte Carlo test",
+                    "narrow-plot",
+                    WARNING,
+                )
             )
         rows.append(
             {
@@ -199,7 +209,7 @@ def group_rows(result: ComparisonResult) -> list[dict[str, Any]]:
                 "R_donnelly_low95": dlo,
                 "R_donnelly_high95": dhi,
                 "verdict": _pattern(g.r),
-                "warnings": "; ".join(warn),
+                "warnings": JoinedNotes(warn),
             }
         )
     return rows

@@ -36,6 +36,7 @@ from ecoscan.errors import InputError
 from ecoscan.io.crs import crs_label, parse_crs
 from ecoscan.io.vector import read_points, reproject_geometries
 from ecoscan.model.membership import PlotMembership
+from ecoscan.model.notes import WARNING, JoinedNotes, Note, code_of, severity_of
 from ecoscan.model.plots import PlotLayer, id_text
 from ecoscan.model.points import PointSet
 from ecoscan.settings import Settings, whole_number
@@ -64,6 +65,13 @@ __all__ = [
 ]
 
 BY_CHOICES = ("auto", "site", "date", "plot", "folder")
+#: Codes of a pair's warnings and of the notes on what limits the comparisons
+#: (:class:`ecoscan.model.notes.Note`): one plot in a group (no permutation test), too few
+#: arrangements of whole plots for a small p-value, an empty group, too few plants for the R
+#: test's normal approximation, no plot on both dates, too few sign patterns.
+NO_REARRANGEMENT, FEW_ARRANGEMENTS = "no-rearrangement", "few-arrangements"
+NO_DISTANCES, FEW_PLANTS = "no-distances", "few-plants"
+NO_PAIRED_PLOTS, FEW_SIGN_PATTERNS = "no-paired-plots", "few-sign-patterns"
 
 
 @dataclass(frozen=True)
@@ -262,10 +270,10 @@ def read_results(folder: str | os.PathLike, *, label: str | None = None) -> Resu
             f"{d} lacks {', '.join(missing)}; give a folder written by 'ecoscan analyse' or "
             "'ecoscan survey' (rerun it if the files were moved)"
         )
-    notes: list[str] = []
+    notes: list[Note] = []
     disp = _read_dispersion(d / "dispersion.csv")
     pts = read_points(d / "points.csv")
-    notes += [f"{d.name}: {n}" for n in pts.notes]
+    notes += [Note(f"{d.name}: {n}", code_of(n), severity_of(n)) for n in pts.notes]
     pid = _attr_text(pts, "plot_id")
     if pid is None:
         raise InputError(f"{d / 'points.csv'} has no plot_id column; rerun the analysis")
@@ -284,8 +292,11 @@ def read_results(folder: str | os.PathLike, *, label: str | None = None) -> Resu
     extra = sorted(k for k in point_keys if k not in area_of and k[2] != "")
     if extra:
         notes.append(
-            f"{d.name}: {len(extra)} plot(s) have points but no row in dispersion.csv "
-            f"({', '.join(k[2] for k in extra[:5])}); included"
+            Note(
+                f"{d.name}: {len(extra)} plot(s) have points but no row in dispersion.csv "
+                f"({', '.join(k[2] for k in extra[:5])}); included",
+                "plots-without-row",
+            )
         )
     units: list[PlotUnit] = []
     xy = pts.xy
@@ -304,7 +315,12 @@ def read_results(folder: str | os.PathLike, *, label: str | None = None) -> Resu
                     f"{d.name}: plot {p!r} is in neither plots.gpkg nor has an area in "
                     "dispersion.csv; rerun the analysis"
                 ) from None
-            notes.append(f"{d.name}: plot {p} not in plots.gpkg; its area from dispersion.csv")
+            notes.append(
+                Note(
+                    f"{d.name}: plot {p} not in plots.gpkg; its area from dispersion.csv",
+                    "area-from-table",
+                )
+            )
         if not area > 0:
             raise InputError(f"{d.name}: plot {p!r} has no area; rerun the analysis")
         sel = (pid == p) & (site == s) & (date == t)
@@ -483,44 +499,59 @@ def _paired(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[st
     }
 
 
-def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
+def _permutation_limits(a: GroupSummary, b: GroupSummary, perm) -> list[Note]:
+    """A pair's warning when whole plots cannot be permuted, or too few ways for a small p."""
+    if not math.isfinite(perm.pvalue):
+        return [
+            Note(
+                f"{len(a.units)} and {len(b.units)} plot(s): no rearrangement of whole plots "
+                "exists, so the permutation tests cannot run",
+                NO_REARRANGEMENT,
+                WARNING,
+            )
+        ]
+    if perm.min_pvalue > 0.05:
+        return [
+            Note(
+                f"{len(a.units)} and {len(b.units)} plots give {perm.arrangements} "
+                f"arrangements: the permutation p-values cannot go below {perm.min_pvalue:.2g}",
+                FEW_ARRANGEMENTS,
+                WARNING,
+            )
+        ]
+    return []
+
+
+def _pooled_distance_tests(da: np.ndarray, db: np.ndarray) -> tuple[float, float, float, float]:
+    """Mann–Whitney U and its p, Kolmogorov–Smirnov D and its p on the pooled distances
+    (NaN when a group has none)."""
+    if da.size >= 1 and db.size >= 1:
+        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
+        ks = sps.ks_2samp(da, db)
+        return float(mw.statistic), float(mw.pvalue), float(ks.statistic), float(ks.pvalue)
     nan = float("nan")
-    warn: list[str] = []
+    return nan, nan, nan, nan
+
+
+def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[str, Any]:
     rate = poisson_rate_test(a.n, a.area_m2, b.n, b.area_m2)
     diff = r_difference(a.r, b.r)
     diff_d = r_difference(a.r, b.r, edge_corrected=True)
     perm = r_permutation_test(
         [u.nn for u in a.units], [u.nn for u in b.units], permutations=permutations, rng=rng
     )
-    if not math.isfinite(perm.pvalue):
-        warn.append(
-            f"{len(a.units)} and {len(b.units)} plot(s): no rearrangement of whole plots "
-            "exists, so the permutation tests cannot run"
-        )
-    elif perm.min_pvalue > 0.05:
-        warn.append(
-            f"{len(a.units)} and {len(b.units)} plots give {perm.arrangements} arrangements: "
-            f"the permutation p-values cannot go below {perm.min_pvalue:.2g}"
-        )
+    warn = _permutation_limits(a, b, perm)
     dist = nn_distribution_test(
         [u.nn.nn_m for u in a.units], [u.nn.nn_m for u in b.units],
         permutations=permutations, rng=rng,
     )  # fmt: skip
-    da, db = a.nn_m, b.nn_m
-    if da.size >= 1 and db.size >= 1:
-        mw = sps.mannwhitneyu(da, db, alternative="two-sided")  # scipy keyword
-        ks = sps.ks_2samp(da, db)
-        mw_u, p_mw, ks_d, p_ks = (
-            float(mw.statistic),
-            float(mw.pvalue),
-            float(ks.statistic),
-            float(ks.pvalue),
-        )
-    else:
-        mw_u = p_mw = ks_d = p_ks = nan
-        warn.append("a group has no nearest-neighbour distances")
+    mw_u, p_mw, ks_d, p_ks = _pooled_distance_tests(a.nn_m, b.nn_m)
+    if not (a.nn_m.size >= 1 and b.nn_m.size >= 1):
+        warn.append(Note("a group has no nearest-neighbour distances", NO_DISTANCES, WARNING))
     if min(a.n, b.n) < 30:
-        warn.append("fewer than 30 plants in a group: the R test is approximate")
+        warn.append(
+            Note("fewer than 30 plants in a group: the R test is approximate", FEW_PLANTS, WARNING)
+        )
     da_ha, db_ha = a.density_per_ha, b.density_per_ha
     return {
         "group_a": a.name,
@@ -560,7 +591,7 @@ def _pair_row(a: GroupSummary, b: GroupSummary, permutations: int, rng) -> dict[
         "nn_distribution_arrangements": dist.arrangements,
         "_perm_min_p": perm.min_pvalue,
         "_dist_min_p": dist.min_pvalue,
-        "warnings": "; ".join(warn),
+        "warnings": JoinedNotes(warn),
     }
 
 
@@ -572,39 +603,50 @@ def _by_place(units: list[PlotUnit]) -> dict[tuple[str, str], list[PlotUnit]]:
     return out
 
 
-def _limit_notes(pairs: list[dict[str, Any]], paired: bool) -> list[str]:
+def _limit_notes(pairs: list[dict[str, Any]], paired: bool) -> list[Note]:
     """One note per distinct design limit (how low each test's p-value can go), naming
     the pair when only one pair has it and counting the pairs otherwise."""
-    found: dict[str, list[str]] = {}
+    found: dict[tuple[str, str], list[str]] = {}  # (text, code) -> pairs
     for p in pairs:
         name = f"{p['group_a']} vs {p['group_b']}"
         mp = p.get("_perm_min_p", float("nan"))
         if not math.isfinite(mp):
             found.setdefault(
-                "one plot in a group: no rearrangement of whole plots exists, so the "
-                "permutation tests cannot run; the z tests treat plants as independent, which "
-                "neighbours are not quite",
+                (
+                    "one plot in a group: no rearrangement of whole plots exists, so the "
+                    "permutation tests cannot run; the z tests treat plants as independent, "
+                    "which neighbours are not quite",
+                    NO_REARRANGEMENT,
+                ),
                 [],
             ).append(name)
         elif mp > 0.05:
             found.setdefault(
-                f"{p['perm_arrangements']} possible arrangements of whole plots, so the "
-                f"permutation p-values cannot go below {mp:.2g}",
+                (
+                    f"{p['perm_arrangements']} possible arrangements of whole plots, so the "
+                    f"permutation p-values cannot go below {mp:.2g}",
+                    FEW_ARRANGEMENTS,
+                ),
                 [],
             ).append(name)
         pm = p.get("_paired_min_p", float("nan"))
         if paired and p.get("paired_plots", 0) == 0:
-            found.setdefault("no plot was surveyed on both dates: no paired test", []).append(name)
+            found.setdefault(
+                ("no plot was surveyed on both dates: no paired test", NO_PAIRED_PLOTS), []
+            ).append(name)
         elif paired and math.isfinite(pm) and pm > 0.05:
             found.setdefault(
-                f"{p['paired_plots']} plots on both dates give {p['paired_arrangements']} sign "
-                f"patterns, so the paired p-values cannot go below {pm:.2g}",
+                (
+                    f"{p['paired_plots']} plots on both dates give {p['paired_arrangements']} "
+                    f"sign patterns, so the paired p-values cannot go below {pm:.2g}",
+                    FEW_SIGN_PATTERNS,
+                ),
                 [],
             ).append(name)
     out = []
-    for text, names in found.items():
+    for (text, code), names in found.items():
         who = names[0] if len(names) == 1 else f"{len(names)} of {len(pairs)} pairs"
-        out.append(f"{who}: {text}")
+        out.append(Note(f"{who}: {text}", code, WARNING))
     return out
 
 
@@ -661,14 +703,17 @@ def compare_groups(
         raise InputError("no results folders given; give at least one analyse output folder")
     if int(permutations) < 99:
         raise InputError(f"--permutations {permutations} is too few; use at least 99 (e.g. 999)")
-    notes: list[str] = []
+    notes: list[Note] = []
     for r in results:
-        notes += [n for n in r.notes if n not in notes]
+        notes += [Note.from_value(n) for n in r.notes if n not in notes]
     crss = {crs_label(r.points.crs) for r in results}
     if len(crss) > 1:
         notes.append(
-            f"the folders use {len(crss)} different CRSs ({'; '.join(sorted(crss))}); each is "
-            "measured in its own metric CRS, which is all that distances and areas need"
+            Note(
+                f"the folders use {len(crss)} different CRSs ({'; '.join(sorted(crss))}); each "
+                "is measured in its own metric CRS, which is all that distances and areas need",
+                "several-crs",
+            )
         )
     by = _chosen_by(by, results, notes)
     grouped, date_of = _grouped_units(results, by, pool_dates, notes)
@@ -692,14 +737,21 @@ def compare_groups(
     paired = by == "date"
     if paired:
         notes.append(
-            "dates of the same plots are compared pair-wise: the *_paired columns test the "
-            "per-plot differences by flipping their signs (plots are the units); the other "
-            "tests treat the dates as independent groups and are only approximate here"
+            Note(
+                "dates of the same plots are compared pair-wise: the *_paired columns test the "
+                "per-plot differences by flipping their signs (plots are the units); the other "
+                "tests treat the dates as independent groups and are only approximate here",
+                "paired-dates",
+            )
         )
     notes.append(
-        "the distance distributions are compared by permuting whole plots "
-        "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and reject "
-        "too often (about 9% and 15% of pairs of random plots at the 5% level): approximate"
+        Note(
+            "the distance distributions are compared by permuting whole plots "
+            "(p_nn_distribution); p_mw and p_ks pool the distances as if independent and "
+            "reject too often (about 9% and 15% of pairs of random plots at the 5% level): "
+            "approximate",
+            "pooled-distance-tests",
+        )
     )
     seed = run_seed(rng)
     pairs = _pair_rows(pairs_of, int(permutations), seed, paired, notes)
@@ -728,7 +780,7 @@ def _chosen_by(by: str, results: Sequence[ResultsTable], notes: list[str]) -> st
         by = "site" if all(r.has_site for r in results) else "folder"
         if by == "folder" and len(results) == 1:
             by = "plot"
-        notes.append(f"groups are {by}s (choose with --by)")
+        notes.append(Note(f"groups are {by}s (choose with --by)", "groups-chosen"))
     if by == "date" and not all(r.has_date for r in results):
         lacking = [r.label for r in results if not r.has_date]
         raise InputError(
@@ -736,7 +788,12 @@ def _chosen_by(by: str, results: Sequence[ResultsTable], notes: list[str]) -> st
             "compare survey folders, or use --by folder"
         )
     if by == "site" and not all(r.has_site for r in results):
-        notes.append("folders without site labels are grouped under their folder name")
+        notes.append(
+            Note(
+                "folders without site labels are grouped under their folder name",
+                "folder-as-site",
+            )
+        )
     return by
 
 
@@ -764,13 +821,21 @@ def _grouped_units(
         grouped = dict(sorted(grouped.items()))
     if split_dates:
         notes.append(
-            "the same plots were surveyed on several dates: groups are compared date by date "
-            "(pooling dates would count the same plants twice); --pool-dates pools them"
+            Note(
+                "the same plots were surveyed on several dates: groups are compared date by "
+                "date (pooling dates would count the same plants twice); --pool-dates pools "
+                "them",
+                "dates-apart",
+            )
         )
     elif pool_dates and any(len({u.date for u in us}) > 1 for us in _by_place(units).values()):
         notes.append(
-            "dates pooled on request (--pool-dates): a plant surveyed on two dates counts "
-            "twice, so n and the tests overstate the evidence"
+            Note(
+                "dates pooled on request (--pool-dates): a plant surveyed on two dates counts "
+                "twice, so n and the tests overstate the evidence",
+                "dates-pooled",
+                WARNING,
+            )
         )
     if len(grouped) < 2:
         raise InputError(
@@ -808,8 +873,11 @@ def _pair_rows(
             p[f"{col}_holm"] = float(v)
     if len(pairs) > 1:
         notes.append(
-            f"{len(pairs)} pairwise comparisons: the *_holm columns "
-            "hold p-values adjusted with Holm's (1979) step-down method within each test; "
-            "read those, not the raw p-values"
+            Note(
+                f"{len(pairs)} pairwise comparisons: the *_holm columns "
+                "hold p-values adjusted with Holm's (1979) step-down method within each test; "
+                "read those, not the raw p-values",
+                "holm-adjusted",
+            )
         )
     return pairs

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 import shapely
@@ -42,6 +42,9 @@ from ecoscan.stats.edge import boundary_distance
 from ecoscan.stats.envelopes import GLOBAL_TESTS, Envelope, distance_runs, envelope_test
 from ecoscan.stats.second_order import default_max_distance, r_grid, second_order, shorter_side_m
 from ecoscan.vocabulary import RENAMED_VALUES
+
+if TYPE_CHECKING:
+    from ecoscan.analysis.habitat import CovariateRasters
 
 __all__ = [
     "FUNCTIONS",
@@ -878,6 +881,7 @@ def analyse_scales(
     *,
     points_label: str = "the points",
     notes: list[str] | None = None,
+    covariate_rasters: CovariateRasters | None = None,
 ) -> list[PlotScales]:
     """The analysis across scales of every plot, in layer order.
 
@@ -891,6 +895,9 @@ def analyse_scales(
     notes : list of str, optional
         When given, points without the mark column skip the size test with a note appended
         here (a survey whose detectors measure different sizes); otherwise that is an error.
+    covariate_rasters : ecoscan.analysis.habitat.CovariateRasters, optional
+        Open covariate files shared with other calls (a survey opens each once for all its
+        rasters); by default each covariate file is opened once for this call.
 
     Returns
     -------
@@ -912,6 +919,13 @@ def analyse_scales(
     Each plot's simulations come from ``np.random.SeedSequence([seed, zlib.crc32(plot_id)])``,
     so a plot's result does not depend on the other plots in the file.
     """
+    if covariate_rasters is None and settings.covariates:
+        from ecoscan.analysis.habitat import CovariateRasters
+
+        with CovariateRasters() as own:
+            return analyse_scales(
+                inputs, settings, points_label=points_label, notes=notes, covariate_rasters=own
+            )
     kinds_all = None
     if settings.kind_field is not None:
         attrs = inputs.points.attrs
@@ -969,6 +983,7 @@ def analyse_scales(
                     plot.plot_id,
                     inputs.layer.crs,
                     max(spacing / 2, 0.05),
+                    rasters=covariate_rasters,
                 )
             if marks_all is not None:
                 marks = check_marks(marks_all[m], settings.mark, points_label, plot.plot_id)

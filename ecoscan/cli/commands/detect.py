@@ -7,7 +7,7 @@ from pathlib import Path
 
 from ecoscan.cli._common import add_dask_args, add_plots_args, print_notes
 from ecoscan.detect import DetectionSettings, detect_raster, detection_metadata
-from ecoscan.detect.settings import CROWN_RULES, parse_classes, parse_diameter
+from ecoscan.detect.settings import CROWN_RULES, method_choices, parse_classes, parse_diameter
 from ecoscan.errors import InputError
 from ecoscan.execution import check_executor_options, open_executor
 from ecoscan.io.outputs import write_json
@@ -33,6 +33,15 @@ OUTPUT_SUFFIXES = (".csv", ".gpkg", ".geojson", ".json")
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``ecoscan detect``."""
+    _add_input_options(p)
+    _add_imagery_options(p)
+    _add_chm_options(p)
+    _add_classes_options(p)
+    _add_run_options(p)
+
+
+def _add_input_options(p: argparse.ArgumentParser) -> None:
+    """The raster, the output, the detector and its bands, the crown sizes."""
     p.add_argument("raster", help="GeoTIFF or any GDAL raster")
     p.add_argument(
         "-o",
@@ -43,7 +52,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--method",
-        choices=("auto", "imagery", "chm", "classes"),
+        choices=method_choices(),
         default="auto",
         help="detector (default auto: 3+ bands imagery, 1 float band chm, 1 integer band "
         "classes when --classes is given)",
@@ -68,6 +77,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="MIN:MAX",
         help="expected crown diameter range in metres (default 0.5:3)",
     )
+
+
+def _add_imagery_options(p: argparse.ArgumentParser) -> None:
+    """Thresholds of the imagery detector."""
     p.add_argument(
         "--threshold",
         type=float,
@@ -84,6 +97,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="imagery: weakest crown-to-ground contrast in index units "
         "(default: half the Otsu class contrast)",
     )
+
+
+def _add_chm_options(p: argparse.ArgumentParser) -> None:
+    """Options of the tree-top detector."""
     p.add_argument(
         "--min-height",
         type=float,
@@ -108,6 +125,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="chm: delineate crowns by watershed and report area_m2",
     )
+
+
+def _add_classes_options(p: argparse.ArgumentParser) -> None:
+    """Options of the class-patch detector."""
     p.add_argument("--classes", metavar="LIST", help="classes: plant class values, e.g. 3,4")
     p.add_argument(
         "--min-area",
@@ -120,6 +141,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="classes: do not split touching crowns",
     )
+
+
+def _add_run_options(p: argparse.ArgumentParser) -> None:
+    """Pixel size, tiles, workers, a calibrated detector and the plots."""
     p.add_argument(
         "--pixel-size",
         type=float,

@@ -12,6 +12,34 @@ from ecoscan.report.figures import MARKERS, PALETTE, new_figure
 __all__ = ["r_by_group"]
 
 
+#: Width of one character of the 9 pt tick labels, inches (DejaVu Sans averages about
+#: 0.55 em; 9 pt = 0.125 in; from memory, rounded up).
+_CHAR_IN = 0.075
+
+
+def _tick_labels(names: list[str], fig_width_in: float) -> tuple[list[str], bool]:
+    """Group names as tick labels that do not overlap: on one line when they fit the space
+    of one group, else broken at their last space (site and date on two lines), else turned
+    by 30 degrees.
+
+    Examples
+    --------
+    >>> _tick_labels(["Marrow Wood 2026-04-20", "Tansy Hollow 2026-04-20"], 5.3)
+    (['Marrow Wood\\n2026-04-20', 'Tansy Hollow\\n2026-04-20'], False)
+    """
+    span = 0.6 * fig_width_in / max(len(names), 1)  # the axes take ~60%; the legend is beside
+
+    def fits(labels: list[str]) -> bool:
+        return max(len(line) for s in labels for line in s.split("\n")) * _CHAR_IN <= span
+
+    if not names or fits(names):
+        return names, False
+    two = [s[: s.rindex(" ")] + "\n" + s[s.rindex(" ") + 1 :] if " " in s else s for s in names]
+    if fits(two):
+        return two, False
+    return names, True
+
+
 def _category(r: float, lo: float, hi: float) -> str:
     if not np.isfinite(r) or not (np.isfinite(lo) and np.isfinite(hi)):
         return "random"
@@ -99,11 +127,8 @@ def r_by_group(
             )
     ax.axhline(1.0, color="#555555", linestyle="--", linewidth=1.0, label="random (R = 1)")
     ax.set_xticks(pos)
-    ax.set_xticklabels(
-        [str(names[i]) for i in order],
-        rotation=30 if k > 4 else 0,
-        ha="right" if k > 4 else "center",
-    )
+    labels, turn = _tick_labels([str(names[i]) for i in order], fig.get_figwidth())
+    ax.set_xticklabels(labels, rotation=30 if turn else 0, ha="right" if turn else "center")
     ax.set_xlabel(f"{by} (most regular first)")
     ax.set_ylabel("Clark–Evans R (ratio, no unit), 95% CI")
     ax.set_title(title, fontsize=10)

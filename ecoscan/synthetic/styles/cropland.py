@@ -37,14 +37,54 @@ def row_crop(size: int, seed: int) -> ScenePlan:
         gap=0.08,
         margin=dmin / 2 / ps,
     )
-    # the grid's rows pass through (size/2 + v·(−sin a, cos a)); recover their offset
+    phase = _row_phase(c, r, size, angle, row_px)
+    d = gen.uniform(dmin, dmax, c.size) / ps
+    kind = np.full(c.size, "crop")
+    crowns = _crop_rosettes(gen, c, r, d)
+    weeds = _weeds(gen, size, ps)
+    recipe = Recipe(
+        width=size,
+        height=size,
+        ground=_soil_and_mulch(size, ps, angle, row_px, phase, tex),
+        ground_objects=(weeds,),
+        crowns=(crowns,),
+        casters=(crowns,),
+        sun=Sun(200.0, 50.0),
+        shadow_strength=(0.5, 0.46, 0.38),
+        shadow_soft_px=1.5,
+        texture_px=(1.5, 4.0),
+        blur_px=0.5,
+        noise_dn=(3.0, 3.0, 3.0),
+        seed=tex,
+    )
+    return ScenePlan(
+        recipe,
+        ps,
+        RGB,
+        c,
+        r,
+        d,
+        kind,
+        (dmin, dmax),
+        extras={"row_spacing_m": 0.75, "row_angle_deg": angle},
+    )
+
+
+def _row_phase(c: np.ndarray, r: np.ndarray, size: int, angle: float, row_px: float) -> float:
+    """The rows' offset in pixels across the rows, recovered from the planted positions.
+
+    The grid's rows pass through (size/2 + v·(−sin a, cos a)); the offset is the circular
+    mean of v modulo the row spacing.
+    """
     a = math.radians(angle)
     vv = -(c - size / 2) * math.sin(a) + (r - size / 2) * math.cos(a)
     ang = np.angle(np.mean(np.exp(2j * np.pi * vv / row_px))) if vv.size else 0.0
-    phase = float(np.mod(ang, 2 * np.pi) * row_px / (2 * np.pi))  # circular mean
-    d = gen.uniform(dmin, dmax, c.size) / ps
-    kind = np.full(c.size, "crop")
-    crowns = crowns_from(
+    return float(np.mod(ang, 2 * np.pi) * row_px / (2 * np.pi))
+
+
+def _crop_rosettes(gen: np.random.Generator, c: np.ndarray, r: np.ndarray, d: np.ndarray):
+    """The crop plants: green lobed rosettes at the planted positions."""
+    return crowns_from(
         gen,
         c,
         r,
@@ -57,8 +97,12 @@ def row_crop(size: int, seed: int) -> ScenePlan:
         ambient=0.45,
         dome=0.8,
     )
+
+
+def _weeds(gen: np.random.Generator, size: int, ps: float):
+    """Small flat weeds scattered anywhere, about 8 per m² (not in the truth)."""
     nw = round(8.0 * (size * ps) ** 2)
-    weeds = crowns_from(
+    return crowns_from(
         gen,
         gen.uniform(0, size - 1, nw),
         gen.uniform(0, size - 1, nw),
@@ -70,6 +114,11 @@ def row_crop(size: int, seed: int) -> ScenePlan:
         height=(0.0, 0.0),
         edge_px=0.8,
     )
+
+
+def _soil_and_mulch(size: int, ps: float, angle: float, row_px: float, phase: float, tex: int):
+    """The ground of rows ``r0:r1``: bare soil bands along the rows, straw mulch between."""
+    a = math.radians(angle)
 
     def ground(r0: int, r1: int) -> np.ndarray:
         rows = np.arange(r0, r1, dtype=np.float64)[:, None] - size / 2
@@ -94,29 +143,4 @@ def row_crop(size: int, seed: int) -> ScenePlan:
         straw *= (1.0 + 0.12 * fibres)[None]
         return soil * (1 - mulch_w[None]) + straw * mulch_w[None]
 
-    recipe = Recipe(
-        width=size,
-        height=size,
-        ground=ground,
-        ground_objects=(weeds,),
-        crowns=(crowns,),
-        casters=(crowns,),
-        sun=Sun(200.0, 50.0),
-        shadow_strength=(0.5, 0.46, 0.38),
-        shadow_soft_px=1.5,
-        texture_px=(1.5, 4.0),
-        blur_px=0.5,
-        noise_dn=(3.0, 3.0, 3.0),
-        seed=tex,
-    )
-    return ScenePlan(
-        recipe,
-        ps,
-        RGB,
-        c,
-        r,
-        d,
-        kind,
-        (dmin, dmax),
-        extras={"row_spacing_m": 0.75, "row_angle_deg": angle},
-    )
+    return ground

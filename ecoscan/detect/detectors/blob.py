@@ -1,0 +1,388 @@
+"""The ``imagery`` detector: crowns as blobs of a vegetation layer of an orthomosaic.
+
+The layer and thresholds are chosen from the image (:mod:`.blob_auto`, which also switches
+to the closed-canopy watershed split), or come from ``--index``, ``--threshold`` and
+``--min-contrast`` with Otsu-based defaults (here). Each tile runs a scale-normalised blob
+detector (Lindeberg 1998) on the layer; blobs of touching crowns are split and lobes of one
+crown pruned once all tiles are in (:meth:`ImageryDetector.finish`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ecoscan.detect import blobs, canopy
+from ecoscan.detect.detectors.base import (
+    Detector,
+    Prepared,
+    TilePoints,
+    TileWindow,
+    check_diameters,
+    check_tile_memory,
+    decimated,
+    no_plants,
+    raster_name,
+)
+from ecoscan.detect.engine import compose_layer, vegetation_layer
+from ecoscan.errors import InputError
+from ecoscan.model.notes import WARNING, Note
+
+if TYPE_CHECKING:
+    from ecoscan.detect.settings import DetectionSettings
+    from ecoscan.io.raster import RasterInfo
+
+__all__ = [
+    "LAYER_LABELS",
+    "MIN_CANDIDATES",
+    "PRUNE_MARGIN",
+    "SPLIT_RATIO",
+    "BlobPlan",
+    "ImageryDetector",
+    "auto_layer",
+    "band_lookup",
+]
+
+#: Split a blob into two or more smaller ones inside it reaching this share of its response
+#: (touching crowns). Tuned on benchmarks/tuning_scenes.py.
+SPLIT_RATIO = 0.6
+
+#: A blob whose centre is within this share of its radius of a stronger crown's edge (a lobe
+#: or branch) is pruned with it. Tuned on benchmarks/tuning_scenes.py.
+PRUNE_MARGIN = 0.5
+
+#: Fewer clear candidates than this on the best layer: fall back to the classic Otsu split.
+MIN_CANDIDATES = 10
+
+#: Readable names of the detection layers.
+LAYER_LABELS = {
+    "exg": "Excess Green",
+    "ndvi": "NDVI",
+    "darkness": "darkness",
+    "band": "the band values",
+    "exg+darkness": "Excess Green + darkness",
+    "ndvi+darkness": "NDVI + darkness",
+}
+
+#: Columns of the tile tables.
+TILE_COLUMNS = ("sigma_px", "score", "index_value")
+
+
+@dataclass(frozen=True)
+class BlobPlan:
+    """Parameters of a blob run, fixed once for the whole raster (never per tile).
+
+    Attributes
+    ----------
+    bands : tuple of int
+        1-based bands read.
+    pixel_size_m : float
+        Ground pixel size.
+    index : str
+        ``exg``, ``ndvi``, ``darkness`` or ``band`` (when ``terms`` is empty).
+    scales : BlobScales or None
+        Scales searched.
+    min_response, min_value, fill_value : float
+        Response and vegetation thresholds, and the value given to invalid pixels.
+    roles : tuple of str
+        What each band read is (``red``, ``green``, ``blue``, ``nir``, ``band``).
+    terms : tuple of (str, float)
+        The detection layer as a weighted sum of base layers
+        (:func:`ecoscan.detect.engine.compose_layer`); empty means
+        ``vegetation_layer(data, index)``.
+    split_ratio : float
+        A blob is replaced by two or more smaller blobs inside it whose responses reach this
+        fraction of its own (touching crowns of similar size); 0 disables.
+    min_response_by_scale : tuple of float
+        Response threshold per scale of ``scales.sigmas`` (overrides ``min_response`` when
+        given).
+    layer_model : callable or None
+        Calibrated detectors (``ecoscan calibrate``): a picklable callable turning the band
+        data into the plant layer, used instead of the layers above when set.
+    canopy : CanopySplit or None
+        Closed canopy (:mod:`ecoscan.detect.canopy`): crowns are then regions of a
+        valley-following watershed instead of blobs.
+    """
+
+    bands: tuple[int, ...]
+    pixel_size_m: float
+    index: str = "exg"
+    scales: blobs.BlobScales | None = None
+    min_response: float = 0.0
+    min_value: float = -np.inf
+    fill_value: float = 0.0
+    roles: tuple[str, ...] = ()
+    terms: tuple[tuple[str, float], ...] = ()
+    split_ratio: float = 0.0
+    min_response_by_scale: tuple[float, ...] = ()
+    layer_model: object = None
+    canopy: object = None
+
+
+def auto_layer(settings: DetectionSettings) -> bool:
+    """True when the imagery layer and thresholds are chosen from the image."""
+    return settings.index == "auto" and settings.threshold is None and settings.min_contrast is None
+
+
+def band_lookup(info: RasterInfo, settings: DetectionSettings) -> dict[str, int]:
+    """Band of each role (red, green, blue, nir) from --bands, names or colour interpretation."""
+    spec = dict(settings.band_spec)
+    names_in_file = {d: i for d, i in zip(info.descriptions, info.data_bands, strict=True) if d}
+    lookup = dict(spec)
+    if not spec:
+        for key in ("red", "green", "blue", "nir"):
+            for name, i in names_in_file.items():
+                if name == key or (key == "nir" and ("nir" in name or "infrared" in name)):
+                    lookup.setdefault(key, i)
+        for key, i in zip(info.colorinterp, info.data_bands, strict=True):
+            if key in ("red", "green", "blue"):
+                lookup.setdefault(key, i)
+        if info.count >= 3:
+            for key, i in zip(("red", "green", "blue"), info.data_bands[:3], strict=True):
+                lookup.setdefault(key, i)
+    return lookup
+
+
+def _index_bands(index: str, lookup: dict[str, int], spec: dict, info: RasterInfo):
+    """The bands a named vegetation layer needs."""
+    if index == "ndvi":
+        if not ("red" in lookup and "nir" in lookup):
+            raise InputError(
+                "NDVI needs the red and near-infrared bands; name them, e.g. --bands red=3,nir=4"
+            )
+        return (lookup["red"], lookup["nir"])
+    if index == "darkness":
+        rgb = tuple(lookup[k] for k in ("red", "green", "blue") if k in lookup)
+        return rgb or (next(iter(spec.values()), info.data_bands[0]),)
+    if index == "exg":
+        if not all(k in lookup for k in ("red", "green", "blue")):
+            raise InputError(
+                "Excess Green needs red, green and blue bands; give them with --bands 1,2,3"
+            )
+        return (lookup["red"], lookup["green"], lookup["blue"])
+    return (next(iter(spec.values()), info.data_bands[0]),)
+
+
+def _otsu_plan(info, settings, bands, index, scales, overlap, data, valid, fallback, notes):
+    """The classic path: Otsu's split of the decimated layer, or the thresholds given."""
+    from skimage.filters import threshold_otsu
+
+    layer = vegetation_layer(data, index)[valid]
+    if float(np.ptp(layer)) == 0.0:
+        flat = no_plants("the vegetation layer is constant: no plants found")
+        return None, 0, 1, {}, [*notes, flat]
+    t = (
+        float(settings.threshold)
+        if settings.threshold is not None
+        else float(threshold_otsu(layer))
+    )
+    lo_vals, hi_vals = layer[layer < t], layer[layer >= t]
+    lo = float(lo_vals.mean()) if lo_vals.size else float(layer.min())
+    hi = float(hi_vals.mean()) if hi_vals.size else float(layer.max())
+    contrast = (
+        float(settings.min_contrast)
+        if settings.min_contrast is not None
+        else 0.5 * max(hi - lo, 1e-6)
+    )
+    plan = BlobPlan(
+        bands=bands,
+        pixel_size_m=info.pixel_size_m,
+        index=index,
+        scales=scales,
+        min_response=blobs.DISC_RESPONSE * contrast,
+        min_value=t,
+        fill_value=lo,
+        split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+    )
+    how = "given" if settings.threshold is not None else "Otsu on the whole raster"
+    if fallback:
+        how += " (fallback: nothing stood out from the background)"
+    notes.append(f"vegetation threshold {t:.4g} ({how}); smallest crown contrast {contrast:.4g}")
+    th = {
+        "layer": index,
+        "layer_chosen_by": (
+            "fallback to the classic index"
+            if fallback
+            else "given (--index, --threshold or --min-contrast)"
+        ),
+        "weak_separation": bool(fallback),
+        "vegetation_threshold": t,
+        "vegetation_threshold_from": how,
+        "min_contrast": contrast,
+        "min_contrast_from": (
+            "given" if settings.min_contrast is not None else "half the Otsu class gap"
+        ),
+        "background": lo,
+    }
+    return plan, overlap, scales.align, th, notes
+
+
+def _weak_separation_fallback() -> Note:
+    return Note(
+        "weak separation: no layer showed at least "
+        f"{MIN_CANDIDATES} clear plant candidates in the sample windows; fell back to "
+        "Otsu's split of the whole raster; calibrate a detector on mapped plants "
+        "(ecoscan calibrate) or set --threshold, and check with ecoscan validate",
+        "weak-separation",
+        WARNING,
+    )
+
+
+def _imagery_plan(info: RasterInfo, settings: DetectionSettings, bands, index):
+    """(plan, overlap, align, thresholds, notes) of the imagery detector."""
+    from ecoscan.io.raster import all_pixels_valid
+
+    name = raster_name(info)
+    if auto_layer(settings) and all_pixels_valid(info, info.data_bands):
+        # the automatic layer choice reads its own windows: the decimated whole raster is
+        # read only if it falls back to Otsu (no pixel can be nodata here)
+        data = valid = None
+    else:
+        data, valid = decimated(info, bands, name)
+    notes: list = []
+    dmin_px, dmax_px = check_diameters(info, settings, notes)
+    scales = blobs.blob_scales(dmin_px / 2.0, dmax_px / 2.0, settings.scales_per_octave)
+    overlap = max(scales.support_px, math.ceil(dmax_px))
+    check_tile_memory(
+        name, settings, overlap, len(bands) + 1, 2 * (scales.sigmas.size + 2), "the blob filter"
+    )
+    fallback = None
+    if auto_layer(settings):
+        from ecoscan.detect.detectors.blob_auto import auto_imagery
+
+        auto = auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
+        if auto is not None:
+            return auto
+        fallback = _weak_separation_fallback()
+        notes.append(fallback)
+    if data is None:
+        data, valid = decimated(info, bands, name)
+    return _otsu_plan(info, settings, bands, index, scales, overlap, data, valid, fallback, notes)
+
+
+def _canopy_points(window: TileWindow, layer: np.ndarray, cs) -> TilePoints:
+    """Closed canopy: crowns as watershed regions (:func:`ecoscan.detect.canopy.split_crowns`)."""
+    found = canopy.split_crowns(
+        layer,
+        cs.r_min_px,
+        cs.h,
+        smooth_px=cs.smooth_px,
+        min_area_px=cs.min_area_px,
+        valid=window.valid,
+        origin=window.origin,
+        min_peak=cs.min_peak,
+    )
+    return TilePoints(
+        np.asarray(found["col"], float),
+        np.asarray(found["row"], float),
+        {
+            # the radius of the region's equal-area disc, as a blob scale (r = sqrt(2) sigma)
+            "sigma_px": np.asarray(np.sqrt(found["area_px"] / np.pi) / np.sqrt(2.0), float),
+            "score": np.asarray(found["prominence"], float),
+            "index_value": np.asarray(found["peak"], float),
+        },
+    )
+
+
+class ImageryDetector(Detector):
+    """Blobs of a vegetation layer (``--method imagery``), with the closed-canopy variant."""
+
+    name = "imagery"
+    method = "imagery"
+    auto_order = 0
+    empty_columns = ("diameter_m", "score")
+
+    def fits(self, info: RasterInfo, settings: DetectionSettings) -> bool:
+        """Three or more bands, or two or more named with ``--bands``."""
+        spec = dict(settings.band_spec)
+        return len(spec) >= 2 or (not spec and info.count >= 3)
+
+    def choose_bands(self, info, settings):
+        """Bands and vegetation layer from ``--index`` and the band roles."""
+        notes: list[str] = []
+        lookup = band_lookup(info, settings)
+        index = settings.index
+        if index == "auto":
+            if "red" in lookup and "nir" in lookup:
+                index = "ndvi"
+            elif all(k in lookup for k in ("red", "green", "blue")):
+                index = "exg"
+            else:
+                index = "band"
+        bands = _index_bands(index, lookup, dict(settings.band_spec), info)
+        if not auto_layer(settings):
+            label = LAYER_LABELS[index]
+            notes.append(f"vegetation layer: {label} from band(s) {', '.join(map(str, bands))}")
+        return bands, index, notes
+
+    def prepare(self, info, settings, bands, index, source):
+        """Layer, thresholds and scales from the image or the settings."""
+        plan, overlap, align, th, notes = _imagery_plan(info, settings, bands, index)
+        return Prepared(plan, overlap, align, th, notes, th.get("layer") or index)
+
+    def run(self, window: TileWindow, plan: BlobPlan) -> TilePoints:
+        """Blobs (or closed-canopy crowns) of the plan's layer in one window."""
+        data = window.pop_data()
+        if plan.canopy is not None and plan.canopy.layer == "brightness":
+            layer = canopy.canopy_layer(data, plan.roles)
+        elif plan.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
+            layer = plan.layer_model(data)
+        elif plan.terms:
+            layer = compose_layer(data, plan.roles, plan.terms)
+        else:
+            layer = vegetation_layer(data, plan.index)
+        del data
+        valid = window.valid
+        if not valid.all():
+            layer[~valid] = plan.fill_value
+        if plan.canopy is not None:
+            return _canopy_points(window, layer, plan.canopy)
+        found = blobs.detect_blobs(
+            layer,
+            plan.scales,
+            np.asarray(plan.min_response_by_scale)
+            if plan.min_response_by_scale
+            else plan.min_response,
+            plan.min_value,
+            valid,
+            origin=window.origin,
+            background=plan.fill_value,
+        )
+        columns = {"sigma_px": found["sigma"], "score": found["response"]}
+        columns["index_value"] = found["value"]
+        return TilePoints(found["col"], found["row"], columns)
+
+    def empty_tile(self, plan: BlobPlan) -> TilePoints:
+        """No blobs."""
+        return TilePoints.empty(TILE_COLUMNS)
+
+    def finish(self, points: TilePoints, plan: BlobPlan):
+        """Split blobs of touching crowns, prune lobes, then diameters in metres."""
+        c = points.columns
+        radius = math.sqrt(2.0) * c["sigma_px"]
+        if plan.split_ratio > 0 and plan.canopy is None:
+            merged = blobs.split_merged(
+                points.col, points.row, radius, c["score"], plan.split_ratio
+            )
+            points = points.take(~merged)
+            radius = radius[~merged]
+        if plan.canopy is None:  # watershed regions are disjoint: nothing to prune
+            keep = blobs.prune_blobs(
+                points.col,
+                points.row,
+                radius,
+                points.columns["score"],
+                margin=PRUNE_MARGIN if plan.split_ratio > 0 else 0.0,
+            )
+            points = points.take(keep)
+        c = points.columns
+        attrs = {"diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m}
+        attrs["score"] = c["score"]
+        attrs["index_value"] = c["index_value"]
+        return points, attrs, []
+
+
+DETECTOR = ImageryDetector()

@@ -1,0 +1,257 @@
+"""The imagery detector's automatic choices, made once on sample windows of the image.
+
+Which layer separates plants from the background best and the thresholds that follow from
+the background's robust statistics (:mod:`ecoscan.detect.autotune`), and the switch to the
+closed-canopy watershed split when the sampled pixels look like a packed canopy
+(:mod:`ecoscan.detect.canopy`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ecoscan.detect.blobs import DISC_RESPONSE
+from ecoscan.detect.detectors.base import no_plants
+from ecoscan.detect.detectors.blob import (
+    LAYER_LABELS,
+    MIN_CANDIDATES,
+    SPLIT_RATIO,
+    BlobPlan,
+    band_lookup,
+)
+from ecoscan.io.raster import RasterInfo
+from ecoscan.model.notes import WARNING, Note
+
+__all__ = ["SAMPLE_BUDGET_PX", "auto_imagery"]
+
+#: Pixels read at full resolution to choose the layer and thresholds (sample windows).
+SAMPLE_BUDGET_PX = 1_600_000
+
+
+def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: float):
+    """Full-resolution windows spread over the raster, for layer and threshold statistics.
+
+    The whole raster when it is small; otherwise up to 16 windows on a regular grid whose
+    cores total about :data:`SAMPLE_BUDGET_PX` pixels, each read with a margin of the
+    filters' reach so that its candidates are those of a whole-image run.
+    """
+    from ecoscan.detect.autotune import SampleWindow
+    from ecoscan.io.raster import read_window
+
+    margin = scales.support_px
+    w, h = info.width, info.height
+    if w * h <= SAMPLE_BUDGET_PX:
+        data, valid = read_window(info, bands, (0, 0, w, h))
+        return [SampleWindow(data, valid, (slice(0, h), slice(0, w)))]
+    side = int(min(max(384, 6 * dmax_px), w, h))
+    n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
+    per = math.ceil(math.sqrt(n))
+    out = []
+    for gy in range(per):
+        for gx in range(per):
+            cy = int((gy + 0.5) * h / per)
+            cx = int((gx + 0.5) * w / per)
+            c0 = int(np.clip(cx - side // 2, 0, w - side))
+            r0 = int(np.clip(cy - side // 2, 0, h - side))
+            win = (
+                max(0, c0 - margin),
+                max(0, r0 - margin),
+                min(w, c0 + side + margin),
+                min(h, r0 + side + margin),
+            )
+            data, valid = read_window(info, bands, win)
+            core = (slice(r0 - win[1], r0 - win[1] + side), slice(c0 - win[0], c0 - win[0] + side))
+            if valid[core].mean() > 0.2:
+                out.append(SampleWindow(data, valid, core))
+    if not out:  # mostly nodata: take the whole raster decimated would lose crowns; use any
+        data, valid = read_window(info, bands, (0, 0, min(w, 2 * side), min(h, 2 * side)))
+        out.append(SampleWindow(data, valid, (slice(0, data.shape[1]), slice(0, data.shape[2]))))
+    return out
+
+
+def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
+    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires.
+
+    ``seen`` (a dict), when given, receives the rule's figures whether it fires or not.
+    """
+    from ecoscan.detect import canopy
+
+    ps = info.pixel_size_m
+    r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
+    datas = [w.data[:, w.core[0], w.core[1]] for w in windows]
+    valids = [w.valid[w.core] for w in windows]
+    evidence = canopy.canopy_evidence(datas, valids, roles, r_min, r_max)
+    if seen is not None:
+        # NaN without colour bands: nothing measured, nothing recorded
+        seen.update({f"canopy_{k}": v for k, v in evidence.items() if math.isfinite(v)})
+    if not canopy.is_closed_canopy(evidence):
+        return None
+    layers = [canopy.canopy_layer(w.data, roles) for w in windows]
+    split = canopy.canopy_split(
+        [lay[w.core] for lay, w in zip(layers, windows, strict=True)], valids, r_min, r_max
+    )
+    params = BlobPlan(
+        bands=abands,
+        pixel_size_m=ps,
+        index="canopy",
+        scales=scales,
+        fill_value=0.0,
+        roles=roles,
+        canopy=split,
+    )
+    notes.append(
+        f"closed canopy ({100 * evidence['green_share']:.0f}% of the sampled pixels green, "
+        f"brightness and greenness correlated {evidence['bright_green_corr']:+.2f}): crowns "
+        "split along the dark valleys between them (watershed of smoothed brightness)"
+    )
+    notes.append(
+        Note(
+            "closed-canopy counts are unreliable (about two thirds of the crowns found on the "
+            "scene suite, big crowns sometimes counted twice): calibrate a detector on mapped "
+            "crowns (ecoscan calibrate) and check with ecoscan validate",
+            "closed-canopy-unreliable",
+            WARNING,
+        )
+    )
+    th = {
+        "layer": "canopy",
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_chosen_by": (
+            "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
+            f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
+            f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}; "
+            f"either only with open ground (bright, > {canopy.OPEN_REACH:g} largest crown "
+            f"radii from dark) below {canopy.MAX_OPEN_SHARE:g}"
+        ),
+        "canopy_green_share": evidence["green_share"],
+        "canopy_bright_green_corr": evidence["bright_green_corr"],
+        "canopy_open_share": evidence["open_share"],
+        "canopy_layer": "log(1 + green band), Gaussian smoothed",
+        "canopy_smooth_px": split.smooth_px,
+        "canopy_marker_h": split.h,
+        "canopy_marker_h_from": (
+            f"{canopy.H_SHARE:g} x robust SD (1.4826 MAD) of the smoothed layer on sample windows"
+        ),
+        "canopy_min_area_px": split.min_area_px,
+        "weak_separation": False,
+        "split_touching": True,
+    }
+    return params, max(overlap, split.overlap_px), scales.align, th, notes
+
+
+def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
+    """Layer and thresholds chosen from the image (robust background statistics)."""
+    from ecoscan.detect.autotune import choose_layer
+
+    lookup = band_lookup(info, settings)
+    roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
+    abands = tuple(lookup[r] for r in roles)
+    if not roles:
+        roles, abands = ("band",), bands
+    windows = _sample_windows(info, abands, scales, dmax_px)
+    if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
+        return None, 0, 1, {}, [*notes, no_plants("the image is constant: no plants found")]
+    rule: dict[str, float] = {}  # the closed-canopy rule's figures, recorded when it stays off
+    if settings.split_touching:
+        closed = _closed_canopy(
+            info, settings, windows, roles, abands, scales, overlap, notes, rule
+        )
+        if closed is not None:
+            return closed
+    choice = choose_layer(windows, roles, scales)
+    del windows
+    if choice.candidates < MIN_CANDIDATES:
+        return None
+    params = BlobPlan(
+        bands=abands,
+        pixel_size_m=info.pixel_size_m,
+        index=choice.name,
+        scales=scales,
+        min_response=DISC_RESPONSE * choice.min_contrast,
+        min_response_by_scale=choice.min_response,
+        min_value=choice.min_value,
+        fill_value=choice.background,
+        roles=roles,
+        terms=choice.terms,
+        split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+    )
+    _describe_choice(choice, notes)
+    th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
+    return params, overlap, scales.align, th, notes
+
+
+def _describe_choice(choice, notes: list) -> None:
+    """Notes on the layer and thresholds chosen from the image."""
+    tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
+    notes.append(
+        f"detection layer: {LAYER_LABELS.get(choice.name, choice.name)}, chosen from the image "
+        f"(separation score {tried})"
+    )
+    notes.append(
+        f"thresholds from the background (median {choice.background:.4g}, robust SD "
+        f"{choice.spread:.4g}): crown contrast at least {choice.min_contrast:.4g}, centre "
+        f"value at least {choice.min_value:.4g}"
+    )
+    if choice.threshold_raise > 1.0:
+        notes.append(
+            f"response threshold raised {choice.threshold_raise:.2f}x above the background "
+            "noise level: many weak candidates (rough ground, compression blocks or noise) "
+            "sat just above it"
+        )
+    if choice.weak:
+        notes.append(
+            Note(
+                f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit "
+                "near the threshold; counts may be unreliable: calibrate a detector on mapped "
+                "plants (ecoscan calibrate) or set --threshold and check with ecoscan validate",
+                "weak-separation",
+                WARNING,
+            )
+        )
+
+
+def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
+    """The detection metadata of a layer chosen from the image."""
+    from ecoscan.detect.autotune import (
+        GAP_SHARE,
+        MAX_RAISE,
+        NEAR,
+        REFERENCE_SIGMA_PX,
+        RESPONSE_MADS,
+        VALUE_MADS,
+    )
+
+    th = {
+        "layer": choice.name,
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_terms": [[n, w] for n, w in choice.terms],
+        "layer_chosen_by": "largest separation score on sample windows",
+        "layer_scores": choice.scores,
+        "background": choice.background,
+        "background_spread": choice.spread,
+        "min_contrast": choice.min_contrast,
+        "min_contrast_from": (
+            f"{RESPONSE_MADS:g} (rising below sigma {REFERENCE_SIGMA_PX:g} px) x robust SD "
+            "(1.4826 MAD) of the blob response over background pixels, per scale (median "
+            "over scales shown as disc contrast)"
+        ),
+        "min_response_by_scale": list(choice.min_response),
+        "threshold_raise": choice.threshold_raise,
+        "threshold_raise_from": (
+            f"lowest factor (1 to {MAX_RAISE:g}) on the background-based response threshold "
+            f"at which at most {GAP_SHARE:g} of the kept candidates sit within a factor "
+            f"{NEAR:g} of it (a gap in the candidates' responses); the factor with the "
+            "smallest such share when none reaches it; chosen once on the sample windows"
+        ),
+        "vegetation_threshold": choice.min_value,
+        "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
+        "near_threshold_share": choice.near_share,
+        "weak_separation": choice.weak,
+        "split_touching": split,
+    }
+    return th
