@@ -27,7 +27,12 @@ hemisphere lit from the upper left at 40 degrees elevation with a dark far side,
 rough leaf-clump texture at two scales: touching crowns of one colour meet in a shaded
 valley, not a colour edge), ``oaks`` (the ``domes`` placement with broad leaf clumps whose
 size grows with the crown, a quarter of its radius, deep enough to cut a big crown's
-brightness into several bumps; hemispheres lit from the lower left at 50 degrees).
+brightness into several bumps; hemispheres lit from the lower left at 50 degrees),
+``pines`` (near-black lobed crowns in jittered rows on
+pasture, each casting a shadow 1.2-2.4 crown radii long in a sun direction drawn per
+seed; shaded pasture is almost the crowns' colour, so on a darkness layer crown and
+shadow are one blob; crowns carry a lit rim on the sun side and speckled needle texture
+whose grain is drawn per seed between 0.7 and 2.5 pixels).
 
 Seeds 100-199 are the tuning seeds; nothing else uses this module. Invented data only.
 
@@ -59,6 +64,7 @@ STYLES = (
     "jpeg",
     "domes",
     "oaks",
+    "pines",
 )
 TUNING_SEEDS = tuple(range(100, 104))
 PIXEL_M = 0.05
@@ -140,6 +146,85 @@ def _place(shape, n, dpx, gen, clumps=False):
     return np.array(xy, float).reshape(-1, 2), np.array(d, float)
 
 
+def pines_shadow_azimuth_deg(seed: int) -> float:
+    """Direction in which the ``pines`` scene of ``seed`` casts its shadows: degrees
+    clockwise from the image's up direction (the sun stands opposite)."""
+    return float(np.random.default_rng([seed, 17]).uniform(0.0, 360.0))
+
+
+def _pines(seed: int, size_px: int):
+    """The ``pines`` style (see the module docstring): long shadows that merge with the
+    crowns. Drawn with this module's own outline, texture and palette."""
+    gen = np.random.default_rng(seed * 31 + STYLES.index("pines"))
+    shape = (size_px, size_px)
+    dpx = (DIAMETER_M[0] / PIXEL_M, DIAMETER_M[1] / PIXEL_M)
+    # pasture: two greens and a dry tint at large scale, fine tufts
+    mott = 0.10 * _noise(shape, gen, 22) + 0.05 * _noise(shape, gen, 3)
+    dry = np.clip(0.5 + 0.8 * _noise(shape, gen, 60), 0, 1)
+    base = np.array(_PASTURE, np.float32)[:, None, None] * (1 - 0.35 * dry[None])
+    base = base + np.array(_STRAW, np.float32)[:, None, None] * 0.35 * dry[None]
+    img = base * (1 + mott)[None]
+    # trees on rows at a random angle, 15 % missing, plus scattered young trees
+    ang = gen.uniform(0, np.pi)
+    step, row = gen.uniform(1.6, 2.0) * dpx[1], gen.uniform(1.9, 2.4) * dpx[1]
+    u = np.arange(-size_px, size_px, step)
+    v = np.arange(-size_px, size_px, row)
+    uu, vv = np.meshgrid(u, v)
+    cx = size_px / 2 + uu * np.cos(ang) - vv * np.sin(ang) + gen.normal(0, 3, uu.shape)
+    cy = size_px / 2 + uu * np.sin(ang) + vv * np.cos(ang) + gen.normal(0, 3, uu.shape)
+    keep = (gen.uniform(size=cx.shape) > 0.15) & (cx > 4) & (cx < size_px - 4)
+    keep &= (cy > 4) & (cy < size_px - 4)
+    cx, cy = cx[keep], cy[keep]
+    d = gen.uniform(0.55, 1.0, cx.size) * dpx[1]
+    n_young = int(size_px * size_px / 12000)
+    yx, yy_ = gen.uniform(4, size_px - 4, n_young), gen.uniform(4, size_px - 4, n_young)
+    gap = np.hypot(cx[None, :] - yx[:, None], cy[None, :] - yy_[:, None]).min(axis=1)
+    far = gap > dpx[1]  # young trees clear of the planted crowns
+    cx, cy = np.r_[cx, yx[far]], np.r_[cy, yy_[far]]
+    d = np.r_[d, gen.uniform(dpx[0], 0.5 * dpx[1], int(far.sum()))]
+    # sun: shadows fall towards the azimuth of pines_shadow_azimuth_deg, length h * r
+    az = np.radians(pines_shadow_azimuth_deg(seed))
+    ux, uy = np.sin(az), -np.cos(az)  # columns grow to the right, rows downwards
+    grain = gen.uniform(0.7, 2.5)
+    yy, xx = np.mgrid[0:size_px, 0:size_px].astype(np.float32)
+    shade = np.ones(shape, np.float32)
+    cover = np.zeros(shape, np.float32)
+    plant = np.zeros((3, *shape), np.float32)
+    for i in np.argsort(d)[::-1]:
+        r = d[i] / 2
+        length = gen.uniform(1.2, 2.4) * r
+        reach = r + length + 2
+        x0, x1 = int(max(0, cx[i] - reach)), int(min(size_px, cx[i] + reach + 2))
+        y0, y1 = int(max(0, cy[i] - reach)), int(min(size_px, cy[i] + reach + 2))
+        if x1 <= x0 or y1 <= y0:
+            continue
+        sx, sy = xx[y0:y1, x0:x1] - cx[i], yy[y0:y1, x0:x1] - cy[i]
+        k, amp, ph = int(gen.integers(6, 10)), gen.uniform(0.08, 0.18), gen.uniform(0, 2 * np.pi)
+        ang_p = np.arctan2(sy, sx)
+        rr = r * (1 + amp * np.cos(k * ang_p + ph)) / (1 + amp / 2)
+        alpha = np.clip(rr - np.hypot(sx, sy) + 0.7, 0, 1)
+        # shadow: the outline swept from the crown to the shadow's end (a stadium)
+        t = np.clip(sx * ux + sy * uy, 0, length)
+        px, py = sx - t * ux, sy - t * uy
+        sh = np.clip(0.95 * r - np.hypot(px, py) + 1.0, 0, 1) * gen.uniform(0.55, 0.65)
+        shade[y0:y1, x0:x1] = np.minimum(shade[y0:y1, x0:x1], 1 - sh)
+        # crown: dark, lit rim towards the sun, speckled needles
+        col = np.array(_CONIFER, np.float32) * gen.uniform(0.85, 1.2)
+        toward = -(sx * ux + sy * uy) / (r + 1e-6)
+        rim = np.clip(np.hypot(sx, sy) / (r + 1e-6), 0, 1) ** 2
+        lit = 1 + 0.5 * np.clip(toward, 0, 1) * rim
+        speck = ndimage.gaussian_filter(gen.standard_normal(sx.shape).astype(np.float32), grain)
+        speck /= speck.std() + 1e-6
+        needles = np.clip(1 + 0.35 * speck, 0.3, 2.0)
+        shaded = col[:, None, None] * (lit * needles)[None]
+        a = alpha[None]
+        plant[:, y0:y1, x0:x1] = plant[:, y0:y1, x0:x1] * (1 - a) + shaded * a
+        cover[y0:y1, x0:x1] = np.maximum(cover[y0:y1, x0:x1], alpha)
+    out = img * shade[None] * (1 - cover[None]) + plant * cover[None]
+    out += gen.normal(0, 3.0, out.shape).astype(np.float32)
+    return np.clip(np.rint(out), 0, 255).astype(np.uint8), np.column_stack([cx, cy]), d
+
+
 def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     """Render one tuning scene.
 
@@ -153,6 +238,8 @@ def make_tuning_scene(style: str, seed: int, size_px: int = 640):
     """
     if style not in STYLES:
         raise ValueError(style)
+    if style == "pines":
+        return _pines(seed, size_px)
     if style == "coarse":
         img, xy, d = make_tuning_scene("mixed", seed, size_px)
         h = size_px // 3 * 3

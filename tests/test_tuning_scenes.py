@@ -63,3 +63,21 @@ def test_jpeg_scene_is_block_coded():
 def test_only_tuning_seeds_are_accepted():
     with pytest.raises(SystemExit):
         ts.main(["--styles", "mixed", "--seeds", "31"])
+
+
+def test_pines_shadows_are_nearly_as_dark_as_crowns_but_smooth():
+    """``pines``: long cast shadows of almost the crowns' brightness, told apart only by
+    texture (the phenomenon of dark conifers on pasture)."""
+    img, xy, d = ts.make_tuning_scene("pines", 100, 320)
+    a, xa, _ = ts.make_tuning_scene("pines", 100, 320)
+    assert a.tobytes() == img.tobytes() and np.array_equal(xa, xy)
+    bright = img.astype(float).mean(axis=0)
+    inner = _near_crowns(xy, d, bright.shape, 0.6)
+    ring = _near_crowns(xy, d, bright.shape, 3.5) & ~_near_crowns(xy, d, bright.shape, 1.2)
+    ground = ~_near_crowns(xy, d, bright.shape, 5.0)
+    shadow = ring & (bright < 0.6 * np.median(bright[ground]))  # the dark part near a tree
+    assert shadow.sum() > 0.5 * inner.sum()  # shadows are long: as large as crown cores
+    assert np.median(bright[shadow]) < 1.5 * np.median(bright[inner])
+    lg = np.log(bright + 1.0)
+    step = np.abs(np.diff(lg, axis=1))
+    assert np.median(step[inner[:, 1:]]) > 1.5 * np.median(step[shadow[:, 1:]])

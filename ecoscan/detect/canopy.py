@@ -106,6 +106,16 @@ CLOSED_MIN_CORR = -0.15
 #: 0.01-0.80 (seeds 100-103).
 PACKED_MIN_CORR = 0.4
 PACKED_GREEN_SHARE = 0.3
+#: ... but never when there is open ground: bright areas wider than any crown. The share of
+#: sampled pixels on the bright side of Otsu's split of the smoothed brightness that lie
+#: more than ``OPEN_REACH`` largest crown radii from the dark side. Packed tuning scenes
+#: (``canopy``, ``stand``, ``domes``, seeds 100-102): at most 0.004; open ones (``grass``,
+#: ``pasture``, ``conifers``): at least 0.085. The rule stays closed below ``MAX_OPEN_SHARE``
+#: (about the geometric mean of the two). Dark conifers with long shadows on green pasture
+#: can look like canopy to the two figures above (correlation -0.12 on one scene), never
+#: to this one.
+OPEN_REACH = 0.75
+MAX_OPEN_SHARE = 0.02
 
 
 @dataclass(frozen=True)
@@ -605,7 +615,11 @@ def canopy_split(
 
 
 def canopy_evidence(
-    datas: list[np.ndarray], valids: list[np.ndarray], roles: tuple[str, ...], r_min_px: float
+    datas: list[np.ndarray],
+    valids: list[np.ndarray],
+    roles: tuple[str, ...],
+    r_min_px: float,
+    r_max_px: float | None = None,
 ) -> dict[str, float]:
     """How canopy-like a raster is, measured on its sample windows.
 
@@ -619,6 +633,8 @@ def canopy_evidence(
         Band roles; red, green and blue are needed (otherwise nothing is measured).
     r_min_px : float
         Smallest crown radius, pixels (the smoothing scale).
+    r_max_px : float, optional
+        Largest crown radius, pixels; when given, ``open_share`` is measured too.
 
     Returns
     -------
@@ -626,7 +642,10 @@ def canopy_evidence(
         ``green_share``: share of valid pixels whose chromatic Excess Green (Woebbecke et
         al. 1995) exceeds ``GREEN_EXG``; ``bright_green_corr``: Pearson correlation of
         log green-band brightness and Excess Green, both smoothed at ``SMOOTH_SHARE`` ×
-        ``r_min_px``. Both NaN without red, green and blue bands.
+        ``r_min_px``. Both NaN without red, green and blue bands. ``open_share`` (with
+        ``r_max_px``): share of valid pixels on the bright side of Otsu's split (Otsu 1979)
+        of the smoothed brightness and farther than ``OPEN_REACH`` × ``r_max_px`` from the
+        dark side or the invalid pixels: open ground wider than any crown.
 
     Examples
     --------
@@ -641,11 +660,12 @@ def canopy_evidence(
     from ecoscan.detect.indices import excess_green
 
     if not all(r in roles for r in ("red", "green", "blue")):
-        return {"green_share": math.nan, "bright_green_corr": math.nan}
+        out = {"green_share": math.nan, "bright_green_corr": math.nan}
+        return out if r_max_px is None else {**out, "open_share": math.nan}
     ir, ig, ib = (roles.index(r) for r in ("red", "green", "blue"))
     s = SMOOTH_SHARE * r_min_px
     green = total = 0
-    br_all, ex_all = [], []
+    br_all, ex_all, smoothed = [], [], []
     for data, ok in zip(datas, valids, strict=True):
         ex = excess_green(data[ir], data[ig], data[ib])
         green += int((ex[ok] > GREEN_EXG).sum())
@@ -656,9 +676,33 @@ def canopy_evidence(
         sel = ok[::step, ::step]
         br_all.append(br[::step, ::step][sel])
         ex_all.append(exs[::step, ::step][sel])
+        if r_max_px is not None:
+            smoothed.append(br)
     b, e = np.concatenate(br_all), np.concatenate(ex_all)
     corr = float(np.corrcoef(b, e)[0, 1]) if b.size > 2 and b.std() > 0 and e.std() > 0 else 0.0
-    return {"green_share": green / max(total, 1), "bright_green_corr": corr}
+    out = {"green_share": green / max(total, 1), "bright_green_corr": corr}
+    if r_max_px is not None:
+        out["open_share"] = _open_share(smoothed, valids, b, OPEN_REACH * r_max_px)
+    return out
+
+
+def _open_share(
+    smoothed: list[np.ndarray], valids: list[np.ndarray], values: np.ndarray, reach_px: float
+) -> float:
+    """Share of valid pixels that are bright (above Otsu's threshold of ``values``) and
+    farther than ``reach_px`` from every dark or invalid pixel of their window."""
+    from skimage.filters import threshold_otsu
+
+    if values.size < 2 or not values.std() > 0:
+        return 0.0
+    t = float(threshold_otsu(values))
+    far = total = 0
+    for br, ok in zip(smoothed, valids, strict=True):
+        bright = (br > t) & ok
+        total += int(ok.sum())
+        if bright.any():
+            far += int((ndimage.distance_transform_edt(bright) > reach_px).sum())
+    return far / max(total, 1)
 
 
 def is_closed_canopy(evidence: dict[str, float]) -> bool:
@@ -666,7 +710,9 @@ def is_closed_canopy(evidence: dict[str, float]) -> bool:
 
     Fires when nearly all pixels are green (``CLOSED_GREEN_SHARE``) and brightness does not
     run against greenness (``CLOSED_MIN_CORR``), or when brightness follows greenness
-    closely (``PACKED_MIN_CORR``) on a partly green scene (``PACKED_GREEN_SHARE``).
+    closely (``PACKED_MIN_CORR``) on a partly green scene (``PACKED_GREEN_SHARE``); in
+    both cases only while open ground wider than any crown stays below
+    ``MAX_OPEN_SHARE`` (when ``open_share`` was measured).
 
     Examples
     --------
@@ -678,8 +724,11 @@ def is_closed_canopy(evidence: dict[str, float]) -> bool:
     True
     >>> is_closed_canopy({"green_share": 0.45, "bright_green_corr": 0.1})  # shrubs, grass
     False
+    >>> is_closed_canopy({"green_share": 0.96, "bright_green_corr": -0.1, "open_share": 0.07})
+    False
     """
     g, c = evidence.get("green_share", math.nan), evidence.get("bright_green_corr", math.nan)
     closed = g >= CLOSED_GREEN_SHARE and c > CLOSED_MIN_CORR
     packed = g >= PACKED_GREEN_SHARE and c >= PACKED_MIN_CORR
-    return bool(closed or packed)
+    open_ground = evidence.get("open_share", 0.0) >= MAX_OPEN_SHARE
+    return bool((closed or packed) and not open_ground)

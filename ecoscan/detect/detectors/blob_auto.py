@@ -71,15 +71,21 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     return out
 
 
-def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes):
-    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires."""
+def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
+    """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires.
+
+    ``seen`` (a dict), when given, receives the rule's figures whether it fires or not.
+    """
     from ecoscan.detect import canopy
 
     ps = info.pixel_size_m
     r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
     datas = [w.data[:, w.core[0], w.core[1]] for w in windows]
     valids = [w.valid[w.core] for w in windows]
-    evidence = canopy.canopy_evidence(datas, valids, roles, r_min)
+    evidence = canopy.canopy_evidence(datas, valids, roles, r_min, r_max)
+    if seen is not None:
+        # NaN without colour bands: nothing measured, nothing recorded
+        seen.update({f"canopy_{k}": v for k, v in evidence.items() if math.isfinite(v)})
     if not canopy.is_closed_canopy(evidence):
         return None
     layers = [canopy.canopy_layer(w.data, roles) for w in windows]
@@ -122,10 +128,13 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
             "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
             f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
             f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
-            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}"
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}; "
+            f"either only with open ground (bright, > {canopy.OPEN_REACH:g} largest crown "
+            f"radii from dark) below {canopy.MAX_OPEN_SHARE:g}"
         ),
         "canopy_green_share": evidence["green_share"],
         "canopy_bright_green_corr": evidence["bright_green_corr"],
+        "canopy_open_share": evidence["open_share"],
         "canopy_layer": "log(1 + green band), Gaussian smoothed",
         "canopy_smooth_px": split.smooth_px,
         "canopy_marker_h": split.h,
@@ -153,8 +162,11 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     windows = _sample_windows(info, abands, scales, dmax_px)
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
         return None, 0, 1, {}, [*notes, no_plants("the image is constant: no plants found")]
+    rule: dict[str, float] = {}  # the closed-canopy rule's figures, recorded when it stays off
     if settings.split_touching:
-        closed = _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes)
+        closed = _closed_canopy(
+            info, settings, windows, roles, abands, scales, overlap, notes, rule
+        )
         if closed is not None:
             return closed
     choice = choose_layer(windows, roles, scales)
@@ -175,7 +187,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
     )
     _describe_choice(choice, notes)
-    th = _auto_thresholds(choice, abands, roles, params.split_ratio > 0)
+    th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
     return params, overlap, scales.align, th, notes
 
 
