@@ -117,6 +117,22 @@ def test_short_warning_flags_come_from_codes_not_wording():
     row = detect_change(pts, pts, 0.5, simulations=0, estimate_shift=False).overall
     assert row["warnings"].codes == ("few-plants",)
     assert short_warnings(row["warnings"]) == "few plants"
+    # a pair of one-plot groups: its own flag, never a sentence cut inside a word
+    one = JoinedNotes(
+        [
+            Note(
+                "1 and 1 plot(s): no rearrangement of whole plots exists, so "
+                "the permutation tests cannot run",
+                "no-rearrangement",
+                WARNING,
+            )
+        ]
+    )
+    assert short_warnings(one) == "no permutation test"
+    long = "the comparison of these two groups rests on assumptions worth reading"
+    shown = short_warnings(long)
+    assert shown.endswith("…") and long.startswith(shown[:-1]) and len(shown) <= 41
+    assert long[len(shown) - 1] == " "  # cut between words
 
 
 def test_warnings_in_plain_words_once():

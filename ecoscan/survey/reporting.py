@@ -139,7 +139,24 @@ _FLAGS = {
     "duplicates": "duplicates?",
     "empty-plot": "empty plot",
     compare.FEW_ARRANGEMENTS: "few permutations",
+    compare.NO_REARRANGEMENT: "no permutation test",
 }
+
+
+def _opening(text: str, limit: int = 40) -> str:
+    """The start of a warning for a narrow cell: whole words, with an ellipsis when cut.
+
+    Examples
+    --------
+    >>> _opening("a group has no nearest-neighbour distances")
+    'a group has no nearest-neighbour…'
+    >>> _opening("empty")
+    'empty'
+    """
+    if len(text) <= limit:
+        return text
+    cut = text[: limit + 1].rsplit(" ", 1)[0] if " " in text[:limit] else text[:limit]
+    return cut.rstrip(" ,;:") + "…"
 
 
 def _analyst_only(note) -> bool:
@@ -162,7 +179,7 @@ def plot_flags(warnings) -> str:
     if not shown:
         return ""
     flags = [_FLAGS[code_of(w)] for w in shown if code_of(w) in _FLAGS]
-    return ", ".join(dict.fromkeys(flags)) if flags else str(shown[0])[:40]
+    return ", ".join(dict.fromkeys(flags)) if flags else _opening(str(shown[0]))
 
 
 def short_warnings(cell) -> str:
@@ -181,7 +198,7 @@ def short_warnings(cell) -> str:
     'few plants, few permutations'
     >>> short_warnings(JoinedNotes([Note("a group has no nearest-neighbour distances",
     ...                                  "no-distances", "warning")]))
-    'a group has no nearest-neighbour distanc'
+    'a group has no nearest-neighbour…'
     >>> short_warnings("")
     ''
     """
@@ -190,7 +207,7 @@ def short_warnings(cell) -> str:
         return ""
     codes = {n.code for n in notes}
     flags = [flag for code, flag in _FLAGS.items() if code in codes]
-    return ", ".join(dict.fromkeys(flags)) if flags else notes[0].text[:40]
+    return ", ".join(dict.fromkeys(flags)) if flags else _opening(notes[0].text)
 
 
 def plain_warnings(*texts: str) -> list[str]:
