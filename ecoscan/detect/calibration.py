@@ -123,6 +123,28 @@ class LayerScore:
     f1: float
     fold_f1: tuple[float, ...]
 
+    @classmethod
+    def from_counts(cls, layer: str, pooled, fold_f1) -> LayerScore:
+        """The score from pooled (true positive, false positive, false negative) counts.
+
+        Examples
+        --------
+        >>> s = LayerScore.from_counts("exg", (8, 2, 0), [0.9])
+        >>> (s.precision, s.recall, round(s.f1, 3))
+        (0.8, 1.0, 0.889)
+        """
+        tp, fp, fn = (int(v) for v in pooled)
+        return cls(
+            layer,
+            tp,
+            fp,
+            fn,
+            tp / (tp + fp) if tp + fp else math.nan,
+            tp / (tp + fn) if tp + fn else math.nan,
+            _f1(tp, fp, fn),
+            tuple(fold_f1),
+        )
+
     def as_dict(self) -> dict:
         """Plain mapping for tables and the detector file."""
         return {
@@ -589,17 +611,7 @@ def _score_layer(
     cands = [{k: v[c["response"] >= low] for k, v in c.items()} for c in cands]
     counts = _grid_counts(cands, windows, n_folds, resp_grid, val_grid, tol_px)
     pooled, fold_f1, (i, j) = _cross_validate(counts)
-    tp, fp, fn = (int(v) for v in pooled)
-    score = LayerScore(
-        name,
-        tp,
-        fp,
-        fn,
-        tp / (tp + fp) if tp + fp else math.nan,
-        tp / (tp + fn) if tp + fn else math.nan,
-        _f1(tp, fp, fn),
-        tuple(fold_f1),
-    )
+    score = LayerScore.from_counts(name, pooled, fold_f1)
     return _LayerRun(
         name, score, dmin, dmax, float(resp_grid[i]), float(val_grid[j]), background, diam_px
     )
@@ -669,19 +681,9 @@ def _score_split(
                     tp = match_points(a, b, tol_px).n_matched if a.size and b.size else 0
                     counts[i, j, f] += (tp, a.shape[0] - tp, b.shape[0] - tp)
     pooled, fold_f1, (i, j) = _cross_validate(counts)
-    tp, fp, fn = (int(v) for v in pooled)
-    if tp == 0:
+    score = LayerScore.from_counts("probability", pooled, fold_f1)
+    if score.tp == 0:
         return None
-    score = LayerScore(
-        "probability",
-        tp,
-        fp,
-        fn,
-        tp / (tp + fp) if tp + fp else math.nan,
-        tp / (tp + fn) if tp + fn else math.nan,
-        _f1(tp, fp, fn),
-        tuple(fold_f1),
-    )
     sm, join, h = variants[i]
     split = {
         "h": h,
