@@ -92,6 +92,9 @@ def test_long_text_cells_wrap_between_words_only():
     # a long label may wrap, but not inside its date; a short one stays on one line
     assert '<td class="text long">Tansy Hollow/rows <span class="nw">2026-04-20</span></td>' in html
     assert '<td class="text">Tansy Hollow</td>' in html
+    # a short cell with a date: the date stays whole when print lets short cells wrap
+    html = table_html([{"date": "2026-04-20"}], ["date"])
+    assert '<td class="text"><span class="nw">2026-04-20</span></td>' in html
 
 
 def test_short_warning_flags_come_from_codes_not_wording():

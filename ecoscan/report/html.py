@@ -185,11 +185,11 @@ def pattern_tag(pattern: Any) -> str:
 
 def _text_cell(text: str) -> str:
     """A text cell; a long one (a label or a sentence) may wrap between words so that a
-    wide table fits the page, never inside a word with a hyphen (a date, a range)."""
-    if len(text) <= LONG_TEXT:
-        return f'<td class="text">{_esc(text)}</td>'
+    wide table fits the page. No cell wraps inside a word with a hyphen (a date, a range),
+    also in print, where short cells may wrap too."""
     words = (f'<span class="nw">{_esc(w)}</span>' if "-" in w else _esc(w) for w in text.split(" "))
-    return f'<td class="text long">{" ".join(words)}</td>'
+    cls = "text long" if len(text) > LONG_TEXT else "text"
+    return f'<td class="{cls}">{" ".join(words)}</td>'
 
 
 def table_html(
