@@ -566,6 +566,37 @@ def ring_contrast(
     patches, compression blocks, mottling at the blob's own scale) gives a wide ring and a
     low figure; a crown on ground stands high above its ring. Ring pixels beyond the array
     or invalid do not count; a blob with no ring pixel gets +inf (nothing to compare).
+
+    Parameters
+    ----------
+    blurs : list of numpy.ndarray
+        The smoothed layer below each scale of one pyramid level's stack.
+    zi, yi, xi : numpy.ndarray of int
+        Each blob's stack scale, row and column on that level.
+    level_valid : numpy.ndarray of bool
+        Valid pixels of the level.
+    scales : BlobScales
+        The scales searched.
+    ext : numpy.ndarray of int
+        Index in ``scales.sigmas`` of each scale of the stack.
+    f : int
+        Full-resolution pixels per level pixel (``2 ** level``).
+
+    Returns
+    -------
+    numpy.ndarray
+        Centre minus ring median, in ring robust SDs, per blob.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> ground = rng.normal(0.0, 0.01, (40, 40))
+    >>> ground[18:23, 18:23] += 0.5                       # a crown on quiet ground
+    >>> z = ring_contrast([ground], np.array([0]), np.array([20]), np.array([20]),
+    ...                   np.ones((40, 40), bool), blob_scales(2, 3), np.array([1]), 1)
+    >>> bool(z[0] > 20)
+    True
     """
     out = np.full(zi.size, np.inf)
     for z in np.unique(zi):
