@@ -915,7 +915,6 @@ def choose_layer(
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
-    ground_colour: bool = True,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -936,9 +935,6 @@ def choose_layer(
         (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
         Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
         lends the workers it started), else none.
-    ground_colour : bool, optional
-        Also try the colour distance from the ground (:mod:`ecoscan.detect.ground_colour`)
-        on red, green and blue bands without near infrared (default True).
 
     Returns
     -------
@@ -964,8 +960,6 @@ def choose_layer(
     pool = pool if pool is not None else lent_pool()
     cache = _WindowCache(windows, scales)
     jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
-    if ground_colour and {"red", "green", "blue"} <= set(roles) and "nir" not in roles:
-        jobs.append(_ground_colour_job(windows, roles, scales, cache.stride))
     results = share_work(
         _score_job,
         jobs,
@@ -996,22 +990,4 @@ def choose_layer(
         near_share=res["near_share"],
         candidates=res["candidates"],
         scores=scores,
-    )
-
-
-def _ground_colour_job(windows, roles, scales, stride: int) -> _LayerJob:
-    """The colour distance from the ground (:mod:`ecoscan.detect.ground_colour`), the
-    ground's chromaticity estimated on the sample windows, as a job scored like the others."""
-    from ecoscan.detect.ground_colour import estimate_ground_colour, layer_name
-
-    pos = {r: i for i, r in enumerate(roles)}
-    rgb = [
-        np.concatenate([_values(w.data[pos[b]], w.valid, stride) for w in windows])
-        for b in ("red", "green", "blue")
-    ]
-    terms = ((layer_name(estimate_ground_colour(*rgb)), 1.0),)
-    layers = [compose_layer(w.data, roles, terms) for w in windows]
-    return _LayerJob(
-        "ground", terms, layers, [w.valid for w in windows], [w.core for w in windows],
-        scales, None,
     )
