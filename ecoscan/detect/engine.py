@@ -79,7 +79,8 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
     name : str
         ``exg`` (Excess Green, Woebbecke et al. 1995), ``ndvi`` (Rouse et al. 1974),
         ``darkness`` (minus the mean of the visible bands, or of all bands when none is
-        named) or ``band`` (the first band as it is).
+        named), ``band`` (the first band as it is) or ``ground_colour@...`` (colour
+        distance from the ground, :mod:`ecoscan.detect.ground_colour`).
 
     Returns
     -------
@@ -103,6 +104,12 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         return darkness(*vis)
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
+    if name.startswith("ground_colour@"):
+        # colour distance from the ground (ecoscan.detect.ground_colour)
+        from ecoscan.detect.ground_colour import ground_distance, parse_layer_name
+
+        rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+        return ground_distance(*rgb, parse_layer_name(name))
     raise ValueError(f"unknown layer {name!r}")
 
 
