@@ -80,12 +80,13 @@ def test_layer_name_round_trip_and_base_layer():
         parse_layer_name("ground_colour@0,0,0,0.1,0,0,0,0")
 
 
-def test_dry_shrubs_use_the_ground_colour_and_tiles_stay_exact(tmp_path):
-    # suite development seed 0: shrubs on soil (not green ground), so Excess Green gets
-    # the colour distance added; its band smoothing widens the tiles' overlap
-    from ecoscan.detect import DetectionSettings, detect_raster
+def test_dry_shrubs_use_the_ground_colour_and_tiles_stay_exact(tmp_path, monkeypatch):
+    # suite development seed 0: shrubs on soil (not green ground), so with the switch on
+    # Excess Green gets the colour distance added; its band smoothing widens the overlap
+    from ecoscan.detect import DetectionSettings, autotune, detect_raster
     from ecoscan.synthetic import make_scene, write_scene
 
+    monkeypatch.setattr(autotune, "GROUND_COLOUR", True)
     sc = make_scene("dry-shrubs", 320, 0)
     paths = write_scene(sc, tmp_path)
     lo, hi = sc.diameter_range_m
@@ -98,3 +99,16 @@ def test_dry_shrubs_use_the_ground_colour_and_tiles_stay_exact(tmp_path):
     a = whole.points.xy[np.lexsort(whole.points.xy.T[::-1])]
     b = tiled.points.xy[np.lexsort(tiled.points.xy.T[::-1])]
     np.testing.assert_array_equal(a, b)
+    monkeypatch.setattr(autotune, "GROUND_COLOUR", False)  # the default: Excess Green alone
+    off = detect_raster(paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi))
+    assert off.thresholds["layer"] == "exg"
+
+
+def test_green_ground_keeps_plain_excess_green():
+    # pasture: the ground's own Excess Green is high, so the colour term is not added
+    from ecoscan.detect.ground_colour import ground_excess_green
+
+    rgb, _s, _g = _scene()
+    soil = estimate_ground_colour(*rgb)
+    grass = estimate_ground_colour(*(rgb[[2, 0, 1]] * np.array([[0.6], [1.2], [0.5]])))
+    assert ground_excess_green(soil) < 0.2 <= ground_excess_green(grass)

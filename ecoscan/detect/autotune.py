@@ -106,6 +106,12 @@ VALUE_SAMPLE_PX = 2_000_000
 #: where one spread for the whole raster is too low for grass patches and compression
 #: blocks. The same 1 as ``VALUE_MADS``, applied locally.
 RING_MADS = 1.0
+#: Whether Excess Green gets the colour distance from the ground added by default
+#: (:func:`_with_ground_colour`). Off: measured on 5 December 2026 it lifted the tuning
+#: scenes (mixed 0.948 -> 0.985) and dry shrubs at 1024-2048 px, but not dry shrubs at
+#: 512 px, lowered two rocky-shrubland development seeds a little and cost about +40 %
+#: CPU (docs/detection.md, "Colour distance from the ground").
+GROUND_COLOUR = False
 #: Weight of the colour distance from the ground added to Excess Green (both in robust
 #: SDs; :func:`_with_ground_colour`). Measured on the dry-shrub development seeds.
 GROUND_WEIGHT = 0.3
@@ -926,7 +932,7 @@ def choose_layer(
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
-    ground_colour: bool = True,
+    ground_colour: bool | None = None,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -950,7 +956,7 @@ def choose_layer(
     ground_colour : bool, optional
         On red, green and blue bands without near infrared, Excess Green gets the colour
         distance from the ground added (:mod:`ecoscan.detect.ground_colour`;
-        :data:`GROUND_WEIGHT`; default True).
+        :data:`GROUND_WEIGHT`). Default :data:`GROUND_COLOUR`.
 
     Returns
     -------
@@ -976,6 +982,8 @@ def choose_layer(
     pool = pool if pool is not None else lent_pool()
     cache = _WindowCache(windows, scales)
     jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
+    if ground_colour is None:
+        ground_colour = GROUND_COLOUR
     if ground_colour and {"red", "green", "blue"} <= set(roles) and "nir" not in roles:
         jobs = [
             _with_ground_colour(job, windows, roles, scales, cache.stride)
