@@ -191,6 +191,8 @@ def describe_settings(meta: dict) -> str:
         )
         if th.get("threshold_raise", 1.0) > 1.0:
             text += f"; response threshold raised {th['threshold_raise']:.2f}x (rough ground)"
+        if th.get("ring_mads") is not None:
+            text += "; each plant tested against its own ring of ground"
         if th.get("weak_separation"):
             text += "; weak separation: check by eye or calibrate"
         return text

@@ -50,6 +50,7 @@ __all__ = [
     "candidate_layers",
     "choose_layer",
     "near_shares",
+    "ring_test",
     "robust_centre_scale",
     "threshold_raise",
 ]
@@ -99,6 +100,12 @@ MIN_SPREAD_PX = 200
 #: scene (5.6 million window pixels): the same layer and candidates, thresholds within
 #: 0.2 %. Smaller windows (the tuning scenes) use every pixel.
 VALUE_SAMPLE_PX = 2_000_000
+#: On rough ground (the response threshold had to be raised into a gap), each blob must
+#: also stand out from its own ring of background by this many robust SDs of the ring
+#: (:func:`ecoscan.detect.blobs.ring_contrast`): the local roughness at the blob's scale,
+#: where one spread for the whole raster is too low for grass patches and compression
+#: blocks. The same 1 as ``VALUE_MADS``, applied locally.
+RING_MADS = 1.0
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -246,6 +253,18 @@ def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
         v = v[keep]
         m, s = robust_centre_scale(v)
     return m, s
+
+
+def ring_test(choice: LayerChoice) -> float | None:
+    """``RING_MADS`` when the layer's threshold was raised (rough ground), else None.
+
+    Examples
+    --------
+    >>> c = LayerChoice("exg", (("exg", 1.0),), 0.0, 1.0, (1.0,), 1.0, 1.0, 5.0, 0.0, 20)
+    >>> ring_test(c) is None
+    True
+    """
+    return RING_MADS if choice.threshold_raise > 1.0 else None
 
 
 def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:

@@ -152,7 +152,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
 
 def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
-    from ecoscan.detect.autotune import choose_layer
+    from ecoscan.detect.autotune import choose_layer, ring_test
 
     lookup = band_lookup(info, settings)
     roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
@@ -185,9 +185,14 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         roles=roles,
         terms=choice.terms,
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+        ring_mads=ring_test(choice),
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
+    if params.ring_mads is not None:  # each ring pixel must be exact in every tile's core
+        from ecoscan.detect.blobs import ring_reach_px
+
+        overlap = max(overlap, ring_reach_px(scales))
     return params, overlap, scales.align, th, notes
 
 
@@ -207,7 +212,7 @@ def _describe_choice(choice, notes: list) -> None:
         notes.append(
             f"response threshold raised {choice.threshold_raise:.2f}x above the background "
             "noise level: many weak candidates (rough ground, compression blocks or noise) "
-            "sat just above it"
+            "sat just above it; each plant must also stand out from its own ring of ground"
         )
     if choice.weak:
         notes.append(
@@ -230,7 +235,9 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         REFERENCE_SIGMA_PX,
         RESPONSE_MADS,
         VALUE_MADS,
+        ring_test,
     )
+    from ecoscan.detect.blobs import RING
 
     th = {
         "layer": choice.name,
@@ -257,6 +264,13 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         ),
         "vegetation_threshold": choice.min_value,
         "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
+        "ring_mads": ring_test(choice),
+        "ring_mads_from": (
+            "on rough ground (threshold raised): the layer smoothed at the blob's scale must "
+            f"exceed the median of the same over a ring {RING[0]:g}-{RING[1]:g} blob radii "
+            "out by this many robust SDs (1.4826 MAD) of the ring; none (null) on smooth "
+            "ground"
+        ),
         "near_threshold_share": choice.near_share,
         "weak_separation": choice.weak,
         "split_touching": split,
