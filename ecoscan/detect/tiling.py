@@ -33,6 +33,7 @@ __all__ = [
     "Tile",
     "fork_is_safe",
     "in_core",
+    "in_pool_worker",
     "lend_pool",
     "lent_pool",
     "plan_tiles",
@@ -164,15 +165,35 @@ def fork_is_safe() -> bool:
     )
 
 
-def _forked_worker_init(parent_pid: int) -> None:
-    """:func:`ecoscan.lifecycle.worker_init` for a forked worker, which also inherited its
-    parent's signal handlers: SIGTERM ends it as a fresh process would."""
+#: True in a worker process of the pools started here (they end with the run).
+_POOL_WORKER = False
+
+
+def in_pool_worker() -> bool:
+    """Whether this process is a worker of a pool started here, which ends with the run
+    (:func:`ecoscan.detect.engine.run_tile` then keeps the raster open between tiles).
+
+    Examples
+    --------
+    >>> in_pool_worker()
+    False
+    """
+    return _POOL_WORKER
+
+
+def _pool_worker_init(parent_pid: int, forked: bool = False) -> None:
+    """Set up a worker of these pools: :func:`ecoscan.lifecycle.worker_init` (ignore Ctrl-C,
+    die with the parent), mark it (:func:`in_pool_worker`), and let a forked worker, which
+    inherited its parent's signal handlers, end on SIGTERM as a fresh process would."""
     import signal
 
     from ecoscan.lifecycle import worker_init
 
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    global _POOL_WORKER
+    if forked:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
     worker_init(parent_pid)
+    _POOL_WORKER = True
 
 
 def _same_package_in_fresh_python() -> bool:
@@ -219,13 +240,13 @@ def start_pool(workers: int, preload: bool = False, fork: bool = False) -> Proce
     >>> pool = start_pool(1)
     >>> stop_pool(pool)
     """
-    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+    from ecoscan.lifecycle import deferred_signals, stop_pool
 
     ex = ProcessPoolExecutor(
         max_workers=workers,
         mp_context=mp.get_context("fork") if fork else _context(preload),
-        initializer=_forked_worker_init if fork else worker_init,
-        initargs=(os.getpid(),),
+        initializer=_pool_worker_init,
+        initargs=(os.getpid(), fork),
     )
     try:
         with deferred_signals():  # workers start on submit; never leave one half-started
@@ -327,7 +348,7 @@ def run_plan(
     """
     if workers < 1:
         raise ValueError("workers must be at least 1")
-    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+    from ecoscan.lifecycle import deferred_signals, stop_pool
 
     if workers == 1 or len(jobs) <= 1:
         if pool is not None:
@@ -341,7 +362,7 @@ def run_plan(
     ex = pool or ProcessPoolExecutor(
         max_workers=min(workers, len(jobs)),
         mp_context=_context(),
-        initializer=worker_init,
+        initializer=_pool_worker_init,
         initargs=(os.getpid(),),
     )
     try:
