@@ -262,7 +262,13 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
     import ecoscan.detect.detectors.blob as blob
     import ecoscan.detect.detectors.blob_auto as blob_auto
     from ecoscan.detect import DetectionSettings, detect_raster
-    from ecoscan.detect.tiling import fork_is_safe
+
+    try:
+        from ecoscan.detect.tiling import fork_is_safe
+    except ImportError:  # a version before the workers were forked (a before/after run)
+
+        def fork_is_safe() -> bool:
+            return False
 
     lo, hi = facts["diameter"]
     s = DetectionSettings(
