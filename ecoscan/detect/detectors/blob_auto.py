@@ -48,7 +48,7 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     side = int(min(max(384, 6 * dmax_px), w, h))
     n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
     per = math.ceil(math.sqrt(n))
-    out = []
+    spots = []
     for gy in range(per):
         for gx in range(per):
             cy = int((gy + 0.5) * h / per)
@@ -61,14 +61,33 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
                 min(w, c0 + side + margin),
                 min(h, r0 + side + margin),
             )
-            data, valid = read_window(info, bands, win)
             core = (slice(r0 - win[1], r0 - win[1] + side), slice(c0 - win[0], c0 - win[0] + side))
-            if valid[core].mean() > 0.2:
-                out.append(SampleWindow(data, valid, core))
+            spots.append((win, core))
+    out = []
+    for (data, valid), (_win, core) in zip(_read_all(info, bands, spots), spots, strict=True):
+        if valid[core].mean() > 0.2:
+            out.append(SampleWindow(data, valid, core))
     if not out:  # mostly nodata: take the whole raster decimated would lose crowns; use any
         data, valid = read_window(info, bands, (0, 0, min(w, 2 * side), min(h, 2 * side)))
         out.append(SampleWindow(data, valid, (slice(0, data.shape[1]), slice(0, data.shape[2]))))
     return out
+
+
+#: Threads that read the sample windows (GDAL decodes without holding Python's lock; the
+#: tile workers are still idle then).
+READ_THREADS = 2
+
+
+def _read_all(info: RasterInfo, bands: tuple[int, ...], spots) -> list:
+    """``read_window`` of every ``(window, core)`` spot, in order, on a few threads."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from ecoscan.io.raster import read_window
+
+    if len(spots) < 2:
+        return [read_window(info, bands, win) for win, _core in spots]
+    with ThreadPoolExecutor(min(READ_THREADS, len(spots))) as ex:
+        return list(ex.map(lambda spot: read_window(info, bands, spot[0]), spots))
 
 
 def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
