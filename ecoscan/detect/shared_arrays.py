@@ -136,10 +136,13 @@ class Segments:
         """Unlink one segment (its job is done); a name already released is ignored."""
         if name is None:
             return
+        # unlinked under the lock, so that :meth:`close` returning means every segment is
+        # gone: a job's done-callback may still be releasing its segment after the caller
+        # already has the job's result (seen under load as a segment left for a moment)
         with self._lock:
             shm = self._live.pop(name, None)
-        if shm is not None:
-            _unlink(shm)
+            if shm is not None:
+                _unlink(shm)
 
     def close(self) -> None:
         """Release every segment left; make no more."""
