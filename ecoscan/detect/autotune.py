@@ -161,6 +161,10 @@ class LayerChoice:
     threshold_raise : float
         Factor (≥ 1) by which the background-based response threshold was raised to sit in
         a gap of the candidates' responses (:func:`threshold_raise`).
+    elongation : dict
+        How the kept candidates are stretched along one common direction
+        (:func:`ecoscan.detect.elongation.common_elongation`): blobs of crowns joined to
+        their cast shadows all share the sun's axis.
     """
 
     name: str
@@ -176,11 +180,26 @@ class LayerChoice:
     scores: dict = field(default_factory=dict)
     closed: bool = False
     threshold_raise: float = 1.0
+    elongation: dict = field(default_factory=dict)
+
+    @property
+    def crowded_threshold(self) -> bool:
+        """True when many candidates sit near the threshold or nothing stands out."""
+        return self.near_share > NEAR_SHARE or self.separation < 2.0
+
+    @property
+    def aligned(self) -> bool:
+        """True when the kept blobs share one long axis: crowns joined to their cast
+        shadows (:func:`ecoscan.detect.elongation.is_aligned`)."""
+        from ecoscan.detect.elongation import is_aligned
+
+        return is_aligned(self.elongation)
 
     @property
     def weak(self) -> bool:
-        """True when many candidates sit near the threshold or nothing stands out."""
-        return self.near_share > NEAR_SHARE or self.separation < 2.0
+        """True when many candidates sit near the threshold, nothing stands out, or the
+        kept blobs are stretched along one direction (joined to their shadows)."""
+        return self.crowded_threshold or self.aligned
 
 
 def robust_centre_scale(values: np.ndarray) -> tuple[float, float]:
@@ -626,7 +645,17 @@ def _score_layer(layers, cache: _WindowCache, vals=None, centre=None):
     lp = _LayerPyramids(layers, cache, m0)
     cand, sr0, dense = _first_candidates(lp, m0)
     bg = _background_rounds(lp, cand, dense, (m0, s0, sr0), vals.size)
-    return _separation(cache.scales, cand, bg)
+    res = _separation(cache.scales, cand, bg)
+    kept = res.pop("kept")
+    # the kept candidates, for the chosen layer's elongation check (_kept_elongation):
+    # rows window, row, column, sigma, response
+    res["kept_blobs"] = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float).reshape(
+        len(_KEPT_FIELDS), -1
+    )
+    return res
+
+
+_KEPT_FIELDS = ("w", "row", "col", "sigma", "response")
 
 
 def _first_candidates(lp: _LayerPyramids, m0: float):
@@ -749,6 +778,7 @@ def _separation(scales: BlobScales, cand, bg: dict) -> dict:
         "q": q,
         "z": z,
         "zmin": zmin,
+        "kept": kept,
     }
 
 
@@ -956,6 +986,8 @@ def choose_layer(
     assert best is not None
     label, terms, res = best
     m, s = res["background"], res["spread"]
+    layers = next(job.layers for job in jobs if job.label == label)
+    elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -971,4 +1003,31 @@ def choose_layer(
         near_share=res["near_share"],
         candidates=res["candidates"],
         scores=scores,
+        elongation=elong,
     )
+
+
+def _kept_elongation(layers, windows, kept, level: float) -> dict:
+    """:func:`ecoscan.detect.elongation.common_elongation` of the kept candidates (the
+    strongest ``MAX_BLOBS``) on the chosen layer in the sample windows."""
+    from ecoscan.detect.elongation import MAX_BLOBS, blob_elongations, common_elongation
+
+    if kept is None or kept.shape[1] == 0:
+        return common_elongation(np.empty((0, 2)))
+    kept = dict(zip(_KEPT_FIELDS, kept, strict=True))
+    order = np.argsort(-kept["response"], kind="stable")[:MAX_BLOBS]
+    parts = []
+    for wi, (lay, win) in enumerate(zip(layers, windows, strict=True)):
+        sel = order[kept["w"][order] == wi]
+        if sel.size:
+            parts.append(
+                blob_elongations(
+                    lay,
+                    win.valid,
+                    kept["row"][sel],
+                    kept["col"][sel],
+                    math.sqrt(2) * kept["sigma"][sel],
+                    level,
+                )
+            )
+    return common_elongation(np.vstack(parts) if parts else np.empty((0, 2)))
