@@ -102,7 +102,11 @@ def _crowns(shadows: bool, bearing_deg: float, size=480, seed=2):
 
 @pytest.mark.parametrize("bearing", [135.0, 60.0])
 def test_crowns_joined_to_shadows_are_flagged_along_the_shadow_axis(bearing):
-    choice = choose_layer([_crowns(True, bearing)], ("red", "green", "blue"), blob_scales(5, 13))
+    # the classic layers only: the log-chromaticity layer (tested in
+    # test_detect_chromaticity.py) separates these crowns from their shadows
+    choice = choose_layer(
+        [_crowns(True, bearing)], ("red", "green", "blue"), blob_scales(5, 13), chroma=False
+    )
     assert choice.aligned and choice.weak
     assert choice.elongation["axis_deg"] == pytest.approx(bearing, abs=5.0)
     th = _auto_thresholds(choice, (1, 2, 3), ("red", "green", "blue"), True)
@@ -117,7 +121,9 @@ def test_crowns_joined_to_shadows_are_flagged_along_the_shadow_axis(bearing):
 
 
 def test_the_same_crowns_without_shadows_are_not_flagged():
-    choice = choose_layer([_crowns(False, 135.0)], ("red", "green", "blue"), blob_scales(5, 13))
+    choice = choose_layer(
+        [_crowns(False, 135.0)], ("red", "green", "blue"), blob_scales(5, 13), chroma=False
+    )
     assert choice.candidates >= 50
     assert not choice.aligned
     assert choice.elongation["alignment"] < 0.5 * ALIGNED_MIN

@@ -99,11 +99,11 @@ MIN_SPREAD_PX = 200
 #: scene (5.6 million window pixels): the same layer and candidates, thresholds within
 #: 0.2 %. Smaller windows (the tuning scenes) use every pixel.
 VALUE_SAMPLE_PX = 2_000_000
-#: Label of the shadow-free colour layer (:mod:`ecoscan.detect.chromaticity`).
-INVARIANT = "shadow-free"
-#: The shadow-free layers.
+#: Label of the colour layer that ignores brightness (:mod:`ecoscan.detect.chromaticity`).
+INVARIANT = "chroma"
+#: The log-chromaticity layers.
 SHADOW_FREE = (INVARIANT,)
-#: A shadow-free layer is chosen only when its separation score is at least this many
+#: A log-chromaticity layer is chosen only when its separation score is at least this many
 #: times the best classic layer's. Measured on the tuning scenes and the suite's
 #: development seeds: where it won by less than 1.8 times it could lower F1 (dry shrubs
 #: 0.939 -> 0.919 at 1.77, JPEG 0.952 -> 0.927 at 1.02), where it won by 6.6-8.3 times
@@ -936,7 +936,7 @@ def choose_layer(
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
-    shadow_free: bool = True,
+    chroma: bool = True,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -957,8 +957,8 @@ def choose_layer(
         (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
         Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
         lends the workers it started), else none.
-    shadow_free : bool, optional
-        Also try the shadow-free colour layer (:mod:`ecoscan.detect.chromaticity`) on
+    chroma : bool, optional
+        Also try the log-chromaticity layer (:mod:`ecoscan.detect.chromaticity`) on
         red, green and blue bands without near infrared (default True).
 
     Returns
@@ -985,7 +985,7 @@ def choose_layer(
     pool = pool if pool is not None else lent_pool()
     cache = _WindowCache(windows, scales)
     jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
-    if shadow_free and _has_colour(roles):
+    if chroma and _has_colour(roles):
         jobs.extend(_invariant_jobs(windows, roles, scales))
     results = share_work(
         _score_job,
@@ -1002,7 +1002,7 @@ def choose_layer(
     for job, res in zip(jobs, results, strict=True):
         scores[job.label] = round(res["separation"], 3)
         if job.label in SHADOW_FREE and res["separation"] < SHADOW_FREE_MARGIN * classic:
-            continue  # the shadow-free layers must clearly beat the classic ones
+            continue  # the log-chromaticity layers must clearly beat the classic ones
         if best is None or res["separation"] > best[2]["separation"]:
             best = (job.label, job.terms, res)
     assert best is not None
@@ -1035,7 +1035,7 @@ def _has_colour(roles: tuple[str, ...]) -> bool:
 
 
 def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
-    """The shadow-free colour layer (:func:`ecoscan.detect.chromaticity.invariant_terms`,
+    """The log-chromaticity layer (:func:`ecoscan.detect.chromaticity.invariant_terms`,
     its projection chosen on the sample windows) as a job to score like the others.
 
     Tried and not kept: the same plus darkness (each scaled by its robust standard

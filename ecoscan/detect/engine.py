@@ -106,7 +106,7 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
     if name in ("logchroma_r", "logchroma_b"):
-        # log-chromaticities for the shadow-free layer (ecoscan.detect.chromaticity)
+        # log-chromaticities for the log-chromaticity layer (ecoscan.detect.chromaticity)
         from ecoscan.detect.chromaticity import log_chromaticity
 
         rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])

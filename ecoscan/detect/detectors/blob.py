@@ -65,7 +65,7 @@ LAYER_LABELS = {
     "band": "the band values",
     "exg+darkness": "Excess Green + darkness",
     "ndvi+darkness": "NDVI + darkness",
-    "shadow-free": "shadow-free colour (log-chromaticity at least entropy)",
+    "chroma": "log-chromaticity (most structured axis)",
 }
 
 #: Columns of the tile tables.
