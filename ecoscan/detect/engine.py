@@ -111,7 +111,9 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
     name : str
         ``exg`` (Excess Green, Woebbecke et al. 1995), ``ndvi`` (Rouse et al. 1974),
         ``darkness`` (minus the mean of the visible bands, or of all bands when none is
-        named) or ``band`` (the first band as it is).
+        named), ``band`` (the first band as it is), or ``logchroma_r`` / ``logchroma_b``
+        (log of red / blue over the geometric mean of red, green and blue:
+        :func:`ecoscan.detect.chromaticity.log_chromaticity`).
 
     Returns
     -------
@@ -135,6 +137,12 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         return darkness(*vis)
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
+    if name in ("logchroma_r", "logchroma_b"):
+        # log-chromaticities for the log-chromaticity layer (ecoscan.detect.chromaticity)
+        from ecoscan.detect.chromaticity import log_chromaticity
+
+        rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+        return log_chromaticity(*rgb)[0 if name == "logchroma_r" else 1]
     raise ValueError(f"unknown layer {name!r}")
 
 

@@ -233,7 +233,7 @@ def _describe_choice(choice, notes: list) -> None:
             "noise level: many weak candidates (rough ground, compression blocks or noise) "
             "sat just above it; each plant must also stand out from its own ring of ground"
         )
-    if choice.weak:
+    if choice.crowded_threshold:
         notes.append(
             Note(
                 f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit "
@@ -243,6 +243,26 @@ def _describe_choice(choice, notes: list) -> None:
                 WARNING,
             )
         )
+    if choice.aligned:
+        notes.append(_aligned_note(choice))
+
+
+def _aligned_note(choice) -> Note:
+    """The warning for blobs stretched along one axis (crowns joined to their shadows)."""
+    from ecoscan.detect.elongation import ALIGNED_MIN
+
+    e = choice.elongation
+    label = LAYER_LABELS.get(choice.name, choice.name)
+    return Note(
+        f"detections look joined to cast shadows: the {label} blobs are stretched along one "
+        f"axis (bearing {e['axis_deg']:.0f} deg, alignment {e['alignment']:.2f} >= "
+        f"{ALIGNED_MIN:g} over {e['blobs']} blobs), so crowns and shadows are counted "
+        "together or apart and positions sit between them: calibrate a detector on mapped "
+        "plants (ecoscan calibrate), or set --index and --threshold and check with "
+        "ecoscan validate",
+        "shadow-joined",
+        WARNING,
+    )
 
 
 def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
@@ -257,6 +277,7 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         ring_test,
     )
     from ecoscan.detect.blobs import RING
+    from ecoscan.detect.elongation import ALIGNED_MIN, ALIGNED_MIN_Z, MAX_BLOBS
 
     th = {
         "layer": choice.name,
@@ -291,6 +312,15 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
             "ground"
         ),
         "near_threshold_share": choice.near_share,
+        "blob_alignment": choice.elongation.get("alignment", 0.0),
+        "blob_alignment_z": choice.elongation.get("z", 0.0),
+        "blob_alignment_axis_deg": choice.elongation.get("axis_deg", 0.0),
+        "blob_alignment_from": (
+            f"length of the mean elongation vector (second moments of the excess over the "
+            f"background) of the kept candidates on sample windows (up to {MAX_BLOBS}); "
+            f"flagged at >= {ALIGNED_MIN:g} with n x coherence^2 >= {ALIGNED_MIN_Z:g}"
+        ),
+        "shadow_joined": choice.aligned,
         "weak_separation": choice.weak,
         "split_touching": split,
     }
