@@ -123,9 +123,9 @@ def _report(name, res, diam, bright, lo, hi, extra=""):
             print(f"   {k:7} {idx.size}")
             continue
         sizes = Counter(size[idx])
-        b = np.nanmedian(bright[idx]) if idx.size else np.nan
+        b = f"{np.nanmedian(bright[idx]):+.2f}" if idx.size else "  - "
         print(f"   {k:7} {idx.size:3}  small {sizes['small']:2} mid {sizes['mid']:2} "
-              f"large {sizes['large']:2}  median brightness {b:+.2f} SD "
+              f"large {sizes['large']:2}  median brightness {b} SD "
               f"(all crowns {np.nanmedian(bright):+.2f})")
     return {k: len(res[k]) for k in CLASSES} | {"f1": f1}
 
