@@ -251,8 +251,16 @@ def layer_name(ground: GroundColour) -> str:
     >>> layer_name(GroundColour(0.18, -0.31, 0.03, 0.04))
     'ground_colour@0.18,-0.31,0.03,0.04,0.0,0.0,0.0,0.0'
     """
-    figs = (ground.red, ground.blue, ground.red_spread, ground.blue_spread,
-            ground.brightness, ground.shade_red, ground.shade_blue, ground.smooth_px)
+    figs = (
+        ground.red,
+        ground.blue,
+        ground.red_spread,
+        ground.blue_spread,
+        ground.brightness,
+        ground.shade_red,
+        ground.shade_blue,
+        ground.smooth_px,
+    )
     return PREFIX + ",".join(repr(float(v)) for v in figs)
 
 

@@ -65,6 +65,7 @@ LAYER_LABELS = {
     "band": "the band values",
     "exg+darkness": "Excess Green + darkness",
     "ndvi+darkness": "NDVI + darkness",
+    "chroma": "log-chromaticity (most structured axis)",
 }
 
 #: Columns of the tile tables.
