@@ -646,7 +646,7 @@ def canopy_split(
     median over the windows' regions of each axis is removed from every centre (times its
     radius): the sun's direction and elevation are estimated once per raster, from the
     crowns themselves. One crown's own estimate is too rough to use alone (leaf texture,
-    neighbours cutting its level sets): on the tuning style ``canopy`` (seeds 100-102)
+    neighbours cutting its level sets): on the tuning style ``canopy`` (seeds 100-103)
     shifting each crown by its own estimate gave F1 0.87-0.88 against 0.93 with the
     median.
 

@@ -145,6 +145,11 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
         "canopy_min_area_px": split.min_area_px,
         "canopy_join_fragments": split.merge,
         "canopy_lean_radii": [split.lean_col, split.lean_row],
+        "canopy_lean_from": (
+            f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
+            f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
+            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
+        ),
         "weak_separation": False,
         "split_touching": True,
     }
