@@ -113,9 +113,9 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     )
     notes.append(
         Note(
-            "closed-canopy counts are unreliable (F1 about 0.8 on the scene suite; centres "
-            "of big crowns shifted towards the sun, some big crowns counted twice, some "
-            "small shaded ones missed): calibrate a detector on mapped crowns (ecoscan "
+            "closed-canopy counts are unreliable (F1 about 0.84 on the scene suite; some "
+            "big crowns counted twice or their points off centre, some small shaded ones "
+            "missed): calibrate a detector on mapped crowns (ecoscan "
             "calibrate) and check with ecoscan validate",
             "closed-canopy-unreliable",
             WARNING,
