@@ -132,9 +132,9 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     )
     notes.append(
         Note(
-            "closed-canopy counts are unreliable (F1 about 0.8 on the scene suite; centres "
-            "of big crowns shifted towards the sun, some big crowns counted twice, some "
-            "small shaded ones missed): calibrate a detector on mapped crowns (ecoscan "
+            "closed-canopy counts are unreliable (F1 about 0.84 on the scene suite; some "
+            "big crowns counted twice or their points off centre, some small shaded ones "
+            "missed): calibrate a detector on mapped crowns (ecoscan "
             "calibrate) and check with ecoscan validate",
             "closed-canopy-unreliable",
             WARNING,
@@ -164,6 +164,11 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
         "canopy_min_area_px": split.min_area_px,
         "canopy_join_fragments": split.merge,
         "canopy_lean_radii": [split.lean_col, split.lean_row],
+        "canopy_lean_from": (
+            f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
+            f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
+            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
+        ),
         "weak_separation": False,
         "split_touching": True,
     }
