@@ -244,8 +244,9 @@ def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
     c2 = time.process_time()
     row = validate_points(det.points, ref, 0.5 * sc.diameter_range_m[0], plots=test)[-1]
     d = res.detector
-    route = d.layer + (" split" if getattr(d, "split", None) else "")
-    route += " centres" if getattr(d, "centres", None) else ""
+    split = getattr(d, "split", None) or {}
+    route = d.layer + (" split" if split else "")
+    route += f" +centre {split['centre_weight']:g}" if split.get("centre_weight") else ""
     return {
         "style": style,
         "seed": seed,
@@ -278,7 +279,7 @@ def calibrated_suite(styles: list[str], seeds: list[int], size: int) -> list[dic
                     continue
                 rows.append(r)
                 print(
-                    f"{style:16s} seed {seed} ({r['size']} px): {r['route']:18s} "
+                    f"{style:16s} seed {seed} ({r['size']} px): {r['route']:28s} "
                     f"plants {r['plants']:4d} cv F1 {r['cv_f1']:.3f} | test P "
                     f"{r['precision']:.3f} R {r['recall']:.3f} F1 {r['f1']:.3f} | cpu "
                     f"{r['calibrate_cpu_s']:.1f} + {r['detect_cpu_s']:.1f} s",

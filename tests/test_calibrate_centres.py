@@ -218,3 +218,55 @@ def test_older_detector_files_still_load(centre_detector, tmp_path):
     assert det.kind == "layer" and det.centres == {} and det.split == {}
     with pytest.raises(InputError, match="does not exist"):
         read_detector(tmp_path / "missing.toml")
+
+
+def test_calibrated_on_a_packed_canopy_scores_on_unseen_ground(tmp_path, monkeypatch):
+    """``calibrate`` end to end on a small closed canopy (training plot 15 % of the scene),
+    scored on the rest against the known centres. Smaller forests and samples than the
+    defaults keep the test cheap; the split and the centre map are always tried here."""
+    import shapely
+
+    from ecoscan.detect import calibration as cal
+    from ecoscan.io.raster import open_raster
+    from ecoscan.model.plots import Plot, PlotLayer
+
+    for name, value in {
+        "N_TREES": 15,
+        "N_TREES_FIRST": 15,
+        "N_PLANT_SAMPLES": 1500,
+        "N_GROUND_SAMPLES": 2500,
+        "N_CENTRE_NEAR": 3000,
+        "N_CENTRE_UNIFORM": 1500,
+        "CENTRE_ITERATIONS": 40,
+        "SPLIT_TRY_BELOW": 1.01,  # always try the crown split and the centre map
+    }.items():
+        monkeypatch.setattr(cal, name, value)
+    size = 300
+    img, xy, d = _canopy(3, size)
+    raster = write_geotiff(tmp_path / "c.tif", img, from_origin(X0, Y0, PS, PS), UTM)
+    crs = CRS.from_user_input(UTM)
+    pts = PointSet(X0 + (xy[:, 0] + 0.5) * PS, Y0 - (xy[:, 1] + 0.5) * PS, {}, crs)
+    side = np.sqrt(0.15) * size * PS  # 15 % of the scene
+    train = shapely.box(X0, Y0 - side, X0 + side, Y0)
+    rest = PlotLayer(
+        [Plot("rest", shapely.box(X0, Y0 - size * PS, X0 + size * PS, Y0) - train)], crs
+    )
+    info = open_raster(raster)
+    res = cal.calibrate_detector(
+        info, pts, PlotLayer([Plot("train", train)], crs), band_names=cal.band_names_for(info)
+    )
+    names = {s.layer for s in res.scores}
+    assert {"probability", "centre_map"} <= names  # both learnt routes were cross-validated
+    toml = tmp_path / "d.toml"
+    write_detector(toml, res.detector)
+    back = read_detector(toml)
+    assert (back.kind, back.layer, back.split, back.centres) == (
+        res.detector.kind,
+        res.detector.layer,
+        res.detector.split,
+        res.detector.centres,
+    )
+    found = detect_raster(raster, DetectionSettings(detector=str(toml)), plots=rest)
+    # tolerance: half the smallest crown diameter (common practice: within the crown)
+    row = validate_points(found.points, pts, 0.5 * float(d.min()) * PS, plots=rest)[-1]
+    assert row.f1 >= 0.95, row
