@@ -922,20 +922,26 @@ def _classifier_run(
         return None, None, None, None
     centre = None
     if run.score.f1 < SPLIT_TRY_BELOW:
-        # touching crowns: learn where crown centres are, not only where plants are, and
-        # split merged crowns along the valleys of the probability (plus the centre map)
-        centre = _centre_maps(windows, band_names, n_folds, tol_px, spec, diam, run, seed)
-        sets = [(0.0, maps)]
-        if centre is not None:
-            sets += [
-                (a, [m + np.float32(a) * c for m, c in zip(maps, centre[2], strict=True)])
-                for a in CENTRE_WEIGHT_GRID
-                if a > 0
-            ]
-        got = _score_split(sets, windows, n_folds, tol_px, run.dmin_px, run.dmax_px, band_names)
-        if got is not None and got[0].f1 > run.score.f1 + CLASSIFIER_MARGIN:
-            run.score, run.split = got
+        centre = _touching_crowns(windows, band_names, n_folds, tol_px, spec, diam, run, maps, seed)
     return _forest(x, y, seed), spec, run, centre
+
+
+def _touching_crowns(windows, band_names, n_folds, tol_px, spec, diam, run, maps, seed):
+    """Closed canopy: learn where crown centres are, not only where plants are, and split
+    merged crowns along the valleys of the probability (plus the centre map); ``run`` takes
+    the split when it scores higher. Returns :func:`_centre_maps`'s result."""
+    centre = _centre_maps(windows, band_names, n_folds, tol_px, spec, diam, run, seed)
+    sets = [(0.0, maps)]
+    if centre is not None:
+        sets += [
+            (a, [m + np.float32(a) * c for m, c in zip(maps, centre[2], strict=True)])
+            for a in CENTRE_WEIGHT_GRID
+            if a > 0
+        ]
+    got = _score_split(sets, windows, n_folds, tol_px, run.dmin_px, run.dmax_px, band_names)
+    if got is not None and got[0].f1 > run.score.f1 + CLASSIFIER_MARGIN:
+        run.score, run.split = got
+    return centre
 
 
 # --- crown-centre map ----------------------------------------------------------------------

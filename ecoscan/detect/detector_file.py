@@ -192,54 +192,9 @@ def _toml_table(name: str, table: dict, comments: dict | None = None) -> list[st
     return lines
 
 
-def to_toml(det: CalibratedDetector) -> str:
-    """The detector as TOML text (see :func:`write_detector`)."""
-    head = [
-        "# ecoscan detector file, written by `ecoscan calibrate`.",
-        "# Use it with `ecoscan detect RASTER --detector FILE` or, in a survey file,",
-        '# detector = "FILE" in a [raster.detect] table.',
-    ]
-    if det.learnt:
-        head.append(
-            "# The model file beside it is pickle-based: load detector files only from a "
-            "trusted source."
-        )
-    lines = [*head, ""]
-    lines += _toml_table(
-        "detector",
-        # version 2 adds [crown_split], 3 the centre map; other files stay readable by older
-        # readers
-        {"format_version": _version(det), "kind": det.kind, "layer": det.layer},
-        {
-            "kind": "layer: a simple per-pixel layer; classifier: random-forest probability; "
-            "centres: peaks of a learnt crown-centre map"
-        },
-    )
-    lines += _toml_table(
-        "raster",
-        {
-            "pixel_size_m": det.pixel_size_m,
-            "band_names": list(det.band_names),
-            "dtype": det.dtype,
-        },
-        {"pixel_size_m": f"rasters within {PIXEL_SIZE_TOLERANCE:.0%} of this are accepted"},
-    )
-    lines += _toml_table(
-        "blobs",
-        {
-            "diameter_min_m": det.diameter_min_m,
-            "diameter_max_m": det.diameter_max_m,
-            "scales_per_octave": det.scales_per_octave,
-            "min_response": det.min_response,
-            "min_value": det.min_value,
-            "background": det.background,
-        },
-        {
-            "min_response": "smallest scale-normalised blob response, layer units",
-            "min_value": "smallest smoothed layer value at a blob centre",
-            "background": "layer value of bare ground",
-        },
-    )
+def _model_tables(det: CalibratedDetector) -> list[str]:
+    """TOML lines of the model file, the centre map, the crown split and the centre peaks."""
+    lines: list[str] = []
     if det.learnt:
         table = {"model_file": det.model_file, "model_sha256": det.model_sha256}
         if det.features is not None:
@@ -289,6 +244,58 @@ def to_toml(det: CalibratedDetector) -> str:
                 "crown_diameter_m": "median calibrated crown diameter (written per plant)",
             },
         )
+    return lines
+
+
+def to_toml(det: CalibratedDetector) -> str:
+    """The detector as TOML text (see :func:`write_detector`)."""
+    head = [
+        "# ecoscan detector file, written by `ecoscan calibrate`.",
+        "# Use it with `ecoscan detect RASTER --detector FILE` or, in a survey file,",
+        '# detector = "FILE" in a [raster.detect] table.',
+    ]
+    if det.learnt:
+        head.append(
+            "# The model file beside it is pickle-based: load detector files only from a "
+            "trusted source."
+        )
+    lines = [*head, ""]
+    lines += _toml_table(
+        "detector",
+        # version 2 adds [crown_split], 3 the centre map; other files stay readable by older
+        # readers
+        {"format_version": _version(det), "kind": det.kind, "layer": det.layer},
+        {
+            "kind": "layer: a simple per-pixel layer; classifier: random-forest probability; "
+            "centres: peaks of a learnt crown-centre map"
+        },
+    )
+    lines += _toml_table(
+        "raster",
+        {
+            "pixel_size_m": det.pixel_size_m,
+            "band_names": list(det.band_names),
+            "dtype": det.dtype,
+        },
+        {"pixel_size_m": f"rasters within {PIXEL_SIZE_TOLERANCE:.0%} of this are accepted"},
+    )
+    lines += _toml_table(
+        "blobs",
+        {
+            "diameter_min_m": det.diameter_min_m,
+            "diameter_max_m": det.diameter_max_m,
+            "scales_per_octave": det.scales_per_octave,
+            "min_response": det.min_response,
+            "min_value": det.min_value,
+            "background": det.background,
+        },
+        {
+            "min_response": "smallest scale-normalised blob response, layer units",
+            "min_value": "smallest smoothed layer value at a blob centre",
+            "background": "layer value of bare ground",
+        },
+    )
+    lines += _model_tables(det)
     lines += _toml_table("cross_validation", dict(det.cross_validation))
     for cand in det.candidates:
         lines.append("[[cross_validation.candidates]]")
