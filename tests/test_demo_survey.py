@@ -245,6 +245,22 @@ A4_PRINTABLE_PX = (703, 1032)
 
 LAYOUT_JS = """
 (() => {
+  // words of table cells laid out on more than one line (a break inside the word)
+  const brokenWords = () => {
+    const out = [];
+    document.querySelectorAll('table.data th, table.data td').forEach(cell => {
+      const walk = document.createTreeWalker(cell, NodeFilter.SHOW_TEXT);
+      for (let n = walk.nextNode(); n; n = walk.nextNode()) {
+        for (const m of n.textContent.matchAll(/\\S+/g)) {
+          const r = document.createRange();
+          r.setStart(n, m.index); r.setEnd(n, m.index + m[0].length);
+          const tops = new Set(Array.from(r.getClientRects()).map(x => Math.round(x.top)));
+          if (tops.size > 1) out.push(m[0]);
+        }
+      }
+    });
+    return out;
+  };
   document.querySelectorAll('details').forEach(d => d.open = true);
   const cw = document.documentElement.clientWidth;
   const t = document.querySelector('#summary table');
@@ -260,6 +276,7 @@ LAYOUT_JS = """
     scrolling_tables: Array.from(document.querySelectorAll('div.scroll')).filter(
       d => d.scrollWidth > d.clientWidth + 1).map(d => d.scrollWidth - d.clientWidth),
     images: document.images.length,
+    broken_words: brokenWords(),
   };
 })()
 """
@@ -307,6 +324,8 @@ def test_report_index_fits_screen_and_first_a4_page(demo_run):
     assert paper["verdict_right"] <= w and paper["table_right"] <= w  # not clipped on A4
     assert paper["table_bottom"] <= h  # the whole index, verdicts included, is on page 1
     assert paper["wide_tables"] == 0 and paper["page_width"] <= paper["cw"]  # nothing clipped
+    # no heading or cell breaks inside a word on A4 ("warni/ngs", "Donne/lly" were seen)
+    assert screen["broken_words"] == [] and paper["broken_words"] == []
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
     assert pdf[:5] == b"%PDF-" and pages > 3
 

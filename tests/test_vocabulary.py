@@ -65,9 +65,10 @@ def test_one_heading_per_column_in_terminal_and_report():
     rows = [{"plot_id": "a", "R_donnelly": 1.234, "p_mc": 0.0004, "density_per_ha": 952.381}]
     cols = ["plot_id", "R_donnelly", "p_mc", "density_per_ha"]
     term = format_table(rows, cols).splitlines()[0]
-    html = table_html(rows, cols)
+    # the report may mark where a heading can wrap (after a slash) but shows the same words
+    html = table_html(rows, cols).replace("&amp;", "&").replace("<wbr>", "")
     for c in cols:
-        assert label(c) in term and f">{label(c)}</th>" in html.replace("&amp;", "&")
+        assert label(c) in term and f">{label(c)}</th>" in html
 
 
 def test_every_column_has_a_format_and_description():

@@ -191,6 +191,8 @@ def describe_settings(meta: dict) -> str:
         )
         if th.get("threshold_raise", 1.0) > 1.0:
             text += f"; response threshold raised {th['threshold_raise']:.2f}x (rough ground)"
+        if th.get("ring_mads") is not None:
+            text += "; each plant tested against its own ring of ground"
         if th.get("weak_separation"):
             text += "; weak separation: check by eye or calibrate"
         return text
@@ -324,6 +326,10 @@ def detect_raster(
         raise InputError(f"--workers must be at least 1 (got {workers})")
     if info is None:
         info = open_raster(path, pixel_size_m=settings.pixel_size_m)
+    if executor is not None and not executor.distributed and hasattr(executor, "workers"):
+        # a local executor runs the tiles as run_plan does with its workers: take that path,
+        # whose workers start early and share the layer choice (the same results)
+        workers, executor = int(executor.workers), None
     early = None
     if executor is None and workers > 1 and info.width * info.height > settings.tile_size_px**2:
         # workers start (and import the detector) while this process chooses the layer

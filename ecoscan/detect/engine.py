@@ -9,6 +9,7 @@ state, so jobs can run anywhere.
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 from typing import Any
 
@@ -17,8 +18,8 @@ import numpy as np
 from ecoscan.detect.detectors.base import TilePoints, TileWindow
 from ecoscan.detect.detectors.registry import get_detector
 from ecoscan.detect.indices import darkness, excess_green, ndvi
-from ecoscan.detect.tiling import Tile
-from ecoscan.io.raster import RasterInfo, read_window
+from ecoscan.detect.tiling import Tile, in_pool_worker
+from ecoscan.io.raster import RasterInfo, opened, read_window
 
 __all__ = [
     "TileJob",
@@ -27,6 +28,37 @@ __all__ = [
     "run_tile",
     "vegetation_layer",
 ]
+
+#: In a worker process of ecoscan's own pools, the raster its tiles come from, kept open
+#: between tiles: ``{"path": str, "stack": ExitStack, "src": dataset}``.
+_KEPT: dict[str, Any] = {}
+
+
+def _kept_open(info: RasterInfo):
+    """The raster open for reading, kept open between the tiles of a pool worker; None
+    elsewhere (the tile opens it for its own read).
+
+    A tile's read window overlaps its neighbours'; with the raster open, GDAL's block
+    cache (at most ``ecoscan.io.raster.GDAL_CACHE_MB``) decodes the blocks they share
+    once: about a third less decoding when every second tile comes to this worker. Only
+    in workers that end with the run (:func:`ecoscan.detect.tiling.in_pool_worker`): a
+    process that lives on (the caller's, a Dask worker) opens the raster for each tile,
+    so it never reads a file changed since, and never forks with a dataset open.
+    """
+    if not in_pool_worker():
+        return None
+    if _KEPT.get("path") != info.path:
+        if "stack" in _KEPT:
+            _KEPT.pop("stack").close()
+            _KEPT.pop("path", None)
+        stack = contextlib.ExitStack()
+        try:
+            _KEPT["src"] = stack.enter_context(opened(info))
+        except Exception:  # read_window opens it itself and reports what is wrong
+            stack.close()
+            return None
+        _KEPT.update(stack=stack, path=info.path)
+    return _KEPT["src"]
 
 
 @dataclass(frozen=True)
@@ -79,7 +111,9 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
     name : str
         ``exg`` (Excess Green, Woebbecke et al. 1995), ``ndvi`` (Rouse et al. 1974),
         ``darkness`` (minus the mean of the visible bands, or of all bands when none is
-        named) or ``band`` (the first band as it is).
+        named), ``band`` (the first band as it is), or ``logchroma_r`` / ``logchroma_b``
+        (log of red / blue over the geometric mean of red, green and blue:
+        :func:`ecoscan.detect.chromaticity.log_chromaticity`).
 
     Returns
     -------
@@ -103,6 +137,12 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         return darkness(*vis)
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
+    if name in ("logchroma_r", "logchroma_b"):
+        # log-chromaticities for the log-chromaticity layer (ecoscan.detect.chromaticity)
+        from ecoscan.detect.chromaticity import log_chromaticity
+
+        rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+        return log_chromaticity(*rgb)[0 if name == "logchroma_r" else 1]
     raise ValueError(f"unknown layer {name!r}")
 
 
@@ -145,7 +185,9 @@ def run_tile(job: TileJob) -> TilePoints:
         detector's columns, and ``tile``.
     """
     detector = get_detector(job.detector)
-    data, valid = read_window(job.info, job.plan.bands, job.tile.window, skip_empty=True)
+    data, valid = read_window(
+        job.info, job.plan.bands, job.tile.window, skip_empty=True, src=_kept_open(job.info)
+    )
     if data is None:
         return detector.empty_tile(job.plan)  # all nodata: only the mask was read
     window = TileWindow(job.info, job.tile, data, valid)

@@ -31,7 +31,9 @@ from ecoscan.progress import progress
 __all__ = [
     "EarlyPool",
     "Tile",
+    "fork_is_safe",
     "in_core",
+    "in_pool_worker",
     "lend_pool",
     "lent_pool",
     "plan_tiles",
@@ -129,7 +131,8 @@ PRELOAD = ["ecoscan.detect.engine", "ecoscan.detect.autotune", "ecoscan.lifecycl
 def _context(preload: bool = False):
     # GDAL state does not survive fork well; start workers fresh (from a fork server that
     # has only imported the modules, or spawned). Preloading applies only if this call
-    # starts the fork server.
+    # starts the fork server. (:class:`EarlyPool` forks when that is safe: see
+    # :func:`fork_is_safe`.)
     methods = mp.get_all_start_methods()
     if "forkserver" in methods:
         ctx = mp.get_context("forkserver")
@@ -137,6 +140,60 @@ def _context(preload: bool = False):
             ctx.set_forkserver_preload(PRELOAD)
         return ctx
     return mp.get_context("spawn")
+
+
+def fork_is_safe() -> bool:
+    """Whether worker processes may be forked from this process now.
+
+    A forked worker starts at once with every module of its parent loaded (a fork server
+    first imports the detector, about a second of CPU), but it inherits the parent's
+    locks as they were: a lock held by another thread at that moment (inside GDAL, say)
+    would never be released in the child. So fork only where it exists and this thread is
+    the only one, and GDAL was not asked for threads of its own (``GDAL_NUM_THREADS``).
+    No dataset is open in ecoscan's process between reads (each read opens and closes
+    its own), so none is shared with the workers.
+
+    Examples
+    --------
+    >>> isinstance(fork_is_safe(), bool)
+    True
+    """
+    return (
+        "fork" in mp.get_all_start_methods()
+        and threading.active_count() == 1
+        and not os.environ.get("GDAL_NUM_THREADS")
+    )
+
+
+#: True in a worker process of the pools started here (they end with the run).
+_POOL_WORKER = False
+
+
+def in_pool_worker() -> bool:
+    """Whether this process is a worker of a pool started here, which ends with the run
+    (:func:`ecoscan.detect.engine.run_tile` then keeps the raster open between tiles).
+
+    Examples
+    --------
+    >>> in_pool_worker()
+    False
+    """
+    return _POOL_WORKER
+
+
+def _pool_worker_init(parent_pid: int, forked: bool = False) -> None:
+    """Set up a worker of these pools: :func:`ecoscan.lifecycle.worker_init` (ignore Ctrl-C,
+    die with the parent), mark it (:func:`in_pool_worker`), and let a forked worker, which
+    inherited its parent's signal handlers, end on SIGTERM as a fresh process would."""
+    import signal
+
+    from ecoscan.lifecycle import worker_init
+
+    global _POOL_WORKER
+    if forked:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    worker_init(parent_pid)
+    _POOL_WORKER = True
 
 
 def _same_package_in_fresh_python() -> bool:
@@ -168,13 +225,14 @@ def _ready() -> None:
     """A job that does nothing: makes the pool start a worker."""
 
 
-def start_pool(workers: int, preload: bool = False) -> ProcessPoolExecutor:
+def start_pool(workers: int, preload: bool = False, fork: bool = False) -> ProcessPoolExecutor:
     """Start ``workers`` local worker processes now, for :func:`run_plan` later.
 
     Starting them early lets the workers come up while the caller does other work (the
     global layer choice); :func:`run_plan` given the pool uses it and shuts it down. Stop
     it with :func:`ecoscan.lifecycle.stop_pool` if it is never used. ``preload``: the fork
     server (if this starts it) imports the detector once for all workers (:data:`PRELOAD`).
+    ``fork``: fork the workers from this process instead (only when :func:`fork_is_safe`).
 
     Examples
     --------
@@ -182,13 +240,13 @@ def start_pool(workers: int, preload: bool = False) -> ProcessPoolExecutor:
     >>> pool = start_pool(1)
     >>> stop_pool(pool)
     """
-    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+    from ecoscan.lifecycle import deferred_signals, stop_pool
 
     ex = ProcessPoolExecutor(
         max_workers=workers,
-        mp_context=_context(preload),
-        initializer=worker_init,
-        initargs=(os.getpid(),),
+        mp_context=mp.get_context("fork") if fork else _context(preload),
+        initializer=_pool_worker_init,
+        initargs=(os.getpid(), fork),
     )
     try:
         with deferred_signals():  # workers start on submit; never leave one half-started
@@ -201,12 +259,14 @@ def start_pool(workers: int, preload: bool = False) -> ProcessPoolExecutor:
 
 
 class EarlyPool:
-    """Workers started in a background thread (:func:`start_pool`) while the caller works.
+    """Workers started while the caller works, for the layer choice and the tiles.
 
-    Starting a fork server that imports the detector takes about a second; the thread
-    waits for it, so the caller does not. :meth:`get` waits for the pool (None if it
-    could not start: :func:`run_plan` then starts its own); :meth:`stop` ends it if it
-    was never handed to :func:`run_plan`.
+    Forked from this process when :func:`fork_is_safe` (a few milliseconds: the workers
+    are ready at once, with the detector already imported); otherwise started from a fork
+    server that imports the detector (about a second) in a background thread, so that the
+    caller does not wait. :meth:`get` waits for the pool (None if it could not start:
+    :func:`run_plan` then starts its own); :meth:`stop` ends it if it was never handed to
+    :func:`run_plan`.
 
     Examples
     --------
@@ -217,6 +277,14 @@ class EarlyPool:
     def __init__(self, workers: int) -> None:
         self.workers = workers
         self._pool: ProcessPoolExecutor | None = None
+        self._thread: threading.Thread | None = None
+        if fork_is_safe():
+            with contextlib.suppress(Exception):
+                self._pool = start_pool(workers, fork=True)
+            self.forked = self._pool is not None
+            if self.forked:
+                return
+        self.forked = False
         self._thread = threading.Thread(target=self._start, args=(workers,), daemon=True)
         self._thread.start()
 
@@ -224,20 +292,24 @@ class EarlyPool:
         with contextlib.suppress(Exception):
             self._pool = start_pool(workers, preload=_same_package_in_fresh_python())
 
+    def _join(self) -> None:
+        if self._thread is not None:
+            self._thread.join()
+
     def wait(self) -> ProcessPoolExecutor | None:
         """The started pool, lent (not handed over: :meth:`get` or :meth:`stop` follow)."""
-        self._thread.join()
+        self._join()
         return self._pool
 
     def get(self) -> ProcessPoolExecutor | None:
         """The started pool (handed over: :meth:`stop` no longer ends it)."""
-        self._thread.join()
+        self._join()
         pool, self._pool = self._pool, None
         return pool
 
     def stop(self) -> None:
         """End the workers unless the pool was handed over."""
-        self._thread.join()
+        self._join()
         if self._pool is not None:
             from ecoscan.lifecycle import stop_pool
 
@@ -276,7 +348,7 @@ def run_plan(
     """
     if workers < 1:
         raise ValueError("workers must be at least 1")
-    from ecoscan.lifecycle import deferred_signals, stop_pool, worker_init
+    from ecoscan.lifecycle import deferred_signals, stop_pool
 
     if workers == 1 or len(jobs) <= 1:
         if pool is not None:
@@ -290,7 +362,7 @@ def run_plan(
     ex = pool or ProcessPoolExecutor(
         max_workers=min(workers, len(jobs)),
         mp_context=_context(),
-        initializer=worker_init,
+        initializer=_pool_worker_init,
         initargs=(os.getpid(),),
     )
     try:
@@ -343,60 +415,99 @@ def share_work(
     >>> share_work(abs, [-1, 2, -3])
     [1, 2, 3]
     """
-    from concurrent.futures import CancelledError, Future
+    from concurrent.futures import CancelledError
+
+    from ecoscan.detect.shared_arrays import Segments
 
     run_here = local or func
-    n = len(jobs)
-    results: list[Any] = [None] * n
-    lock = threading.Lock()
-    span = [0, n]  # jobs [span[0], span[1]) are not taken yet
-    futures: dict[int, Future] = {}
+    results: list[Any] = [None] * len(jobs)
+    with Segments() as segments:
+        state = _Dispatch(func, jobs, pool, segments)
+        try:
+            while (i := state.take(front=False)) is not None:
+                results[i] = run_here(jobs[i])
+            state.join()
+            while (i := state.take(front=False)) is not None:  # left by a pool that failed
+                results[i] = run_here(jobs[i])
+            for i, fut in sorted(state.futures.items()):
+                try:
+                    results[i] = fut.result() if fut is not None else run_here(jobs[i])
+                except (BrokenProcessPool, CancelledError):
+                    results[i] = run_here(jobs[i])
+        finally:
+            state.drain()  # on an error or Ctrl-C: no job is handed out any more
+    return results
 
-    def take(front: bool) -> int | None:
-        with lock:
-            if span[0] >= span[1]:
+
+class _Dispatch:
+    """The jobs of :func:`share_work` not taken yet, and a thread that hands jobs from the
+    front to the workers of a pool (one per idle worker) once it has started.
+
+    A job's large arrays go through a shared-memory segment
+    (:mod:`ecoscan.detect.shared_arrays`), released when the job is done.
+    """
+
+    def __init__(self, func, jobs, pool: EarlyPool | None, segments) -> None:
+        self.func, self.jobs, self.pool, self.segments = func, jobs, pool, segments
+        self.lock = threading.Lock()
+        self.span = [0, len(jobs)]  # jobs [span[0], span[1]) are not taken yet
+        self.futures: dict[int, Any] = {}  # job -> future (None: submitting it failed)
+        self.helper = None
+        if pool is not None:
+            self.helper = threading.Thread(target=self._dispatch, daemon=True)
+            self.helper.start()
+
+    def take(self, front: bool) -> int | None:
+        """The next job from the front (for a worker) or the end (for this process)."""
+        with self.lock:
+            if self.span[0] >= self.span[1]:
                 return None
             if front:
-                span[0] += 1
-                return span[0] - 1
-            span[1] -= 1
-            return span[1]
+                self.span[0] += 1
+                return self.span[0] - 1
+            self.span[1] -= 1
+            return self.span[1]
 
-    def dispatch() -> None:
-        ex = pool.wait() if pool is not None else None
+    def drain(self) -> None:
+        """Hand out no more jobs; wait for the helper thread."""
+        with self.lock:
+            self.span[0] = self.span[1]
+        self.join()
+
+    def join(self) -> None:
+        if self.helper is not None:
+            self.helper.join()
+
+    def _dispatch(self) -> None:
+        from ecoscan.detect.shared_arrays import pack, run_packed
+
+        assert self.pool is not None
+        ex = self.pool.wait()
         if ex is None:
             return
-        free = threading.Semaphore(max(1, pool.workers))
+        free = threading.Semaphore(max(1, self.pool.workers))
         while True:
             free.acquire()
-            i = take(front=True)
+            i = self.take(front=True)
             if i is None:
                 return
+            segment = None
             try:
-                fut = ex.submit(func, jobs[i])
+                job, segment = pack(self.jobs[i], self.segments)
+                fut = ex.submit(run_packed, self.func, job)
             except Exception:  # the pool was shut down or broke: run it here instead
-                with lock:
-                    futures[i] = None  # type: ignore[assignment]
+                self.segments.release(segment)
+                with self.lock:
+                    self.futures[i] = None
                 return
-            fut.add_done_callback(lambda _f: free.release())
-            with lock:
-                futures[i] = fut
 
-    helper = threading.Thread(target=dispatch, daemon=True) if pool is not None else None
-    if helper is not None:
-        helper.start()
-    while (i := take(front=False)) is not None:
-        results[i] = run_here(jobs[i])
-    if helper is not None:
-        helper.join()
-        while (i := take(front=False)) is not None:  # left by a pool that failed
-            results[i] = run_here(jobs[i])
-    for i, fut in sorted(futures.items()):
-        try:
-            results[i] = fut.result() if fut is not None else run_here(jobs[i])
-        except (BrokenProcessPool, CancelledError):
-            results[i] = run_here(jobs[i])
-    return results
+            def done(_f, segment=segment) -> None:
+                self.segments.release(segment)
+                free.release()
+
+            fut.add_done_callback(done)
+            with self.lock:
+                self.futures[i] = fut
 
 
 _LENT: contextvars.ContextVar[EarlyPool | None] = contextvars.ContextVar(

@@ -27,6 +27,9 @@ __all__ = [
 
 #: Text cells longer than this many characters may wrap between words (class ``long``).
 LONG_TEXT = 20
+#: Tables with more columns than this may, in print, wrap inside a word as a last resort
+#: (so that they still fit A4); narrower tables wrap only between words and after a slash.
+MANY_COLUMNS = 16
 
 _CSS = """
 :root { --ink:#1d2430; --muted:#5b6575; --line:#d9dee6; --accent:#1f4e8c; --paper:#fbfbf8;
@@ -89,10 +92,11 @@ footer { color:var(--muted); font-size:.85rem; padding:1rem 2rem;
   section.top + section.top { break-before:page; }
   h2, h3, h4 { break-after:avoid; }
   .scroll { overflow:visible; }
-  table.data { font-size:8pt; width:100%; }
-  table.data th, table.data td { padding:.12rem .3rem; }
+  table.data { font-size:7.5pt; width:100%; }
+  table.data th, table.data td { padding:.1rem .22rem; }
   table.data td { white-space:normal; }
-  table.data th, table.data td.warn, table.data td.long { min-width:0; overflow-wrap:anywhere; }
+  table.data th, table.data td.warn, table.data td.long { min-width:0; }
+  table.data.many th, table.data.many td { overflow-wrap:anywhere; }
   tr, figure, .method { break-inside:avoid; }
   article.plot { break-inside:avoid-page; border:none; padding:0; }
   .tag { color:#000 !important; background:none !important; border:1px solid #000; }
@@ -183,6 +187,11 @@ def pattern_tag(pattern: Any) -> str:
     return f'<span class="tag {cls}">{_esc(p or "no test")}</span>'
 
 
+def _heading(text: str) -> str:
+    """A column heading that may wrap after a slash ("plants/ha") but never inside a word."""
+    return _esc(text).replace("/", "/<wbr>")
+
+
 def _text_cell(text: str) -> str:
     """A text cell; a long one (a label or a sentence) may wrap between words so that a
     wide table fits the page. No cell wraps inside a word with a hyphen (a date, a range),
@@ -227,7 +236,8 @@ def table_html(
     >>> "plants/ha" in table_html([{"density_per_ha": 952.4}], ["density_per_ha"])
     True
     """
-    cls = " ".join(x for x in ("data", "sortable" if sortable else "", css_class) if x)
+    many = "many" if len(columns) > MANY_COLUMNS else ""
+    cls = " ".join(x for x in ("data", "sortable" if sortable else "", many, css_class) if x)
     out = [f'<div class="scroll"><table class="{cls}"><thead><tr>']
     numeric = {}
     for c in columns:
@@ -238,9 +248,8 @@ def table_html(
             else all(isinstance(r.get(c), (int, float)) or r.get(c) in (None, "") for r in rows)
         )
         tip = f' title="{_esc(col.description)}"' if col else ""
-        out.append(
-            f'<th class="{"num" if numeric[c] else "text"}" scope="col"{tip}>{_esc(label(c))}</th>'
-        )
+        kind = "num" if numeric[c] else "text"
+        out.append(f'<th class="{kind}" scope="col"{tip}>{_heading(label(c))}</th>')
     out.append("</tr></thead><tbody>")
     for r in rows:
         out.append("<tr>")

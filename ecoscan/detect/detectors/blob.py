@@ -65,6 +65,7 @@ LAYER_LABELS = {
     "band": "the band values",
     "exg+darkness": "Excess Green + darkness",
     "ndvi+darkness": "NDVI + darkness",
+    "chroma": "log-chromaticity (most structured axis)",
 }
 
 #: Columns of the tile tables.
@@ -105,6 +106,10 @@ class BlobPlan:
     canopy : CanopySplit or None
         Closed canopy (:mod:`ecoscan.detect.canopy`): crowns are then regions of a
         valley-following watershed instead of blobs.
+    ring_mads : float or None
+        Each blob must also stand out from its own ring of background by this many robust
+        SDs of the ring (:func:`ecoscan.detect.blobs.ring_contrast`); None skips the test.
+        Set by the image-chosen defaults on rough ground (threshold raised).
     """
 
     bands: tuple[int, ...]
@@ -120,6 +125,7 @@ class BlobPlan:
     min_response_by_scale: tuple[float, ...] = ()
     layer_model: object = None
     canopy: object = None
+    ring_mads: float | None = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -357,6 +363,7 @@ class ImageryDetector(Detector):
             valid,
             origin=window.origin,
             background=plan.fill_value,
+            ring_mads=plan.ring_mads,
         )
         columns = {"sigma_px": found["sigma"], "score": found["response"]}
         columns["index_value"] = found["value"]

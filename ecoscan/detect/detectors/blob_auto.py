@@ -48,7 +48,7 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
     side = int(min(max(384, 6 * dmax_px), w, h))
     n = int(np.clip(SAMPLE_BUDGET_PX // (side * side), 1, 16))
     per = math.ceil(math.sqrt(n))
-    out = []
+    spots = []
     for gy in range(per):
         for gx in range(per):
             cy = int((gy + 0.5) * h / per)
@@ -61,14 +61,33 @@ def _sample_windows(info: RasterInfo, bands: tuple[int, ...], scales, dmax_px: f
                 min(w, c0 + side + margin),
                 min(h, r0 + side + margin),
             )
-            data, valid = read_window(info, bands, win)
             core = (slice(r0 - win[1], r0 - win[1] + side), slice(c0 - win[0], c0 - win[0] + side))
-            if valid[core].mean() > 0.2:
-                out.append(SampleWindow(data, valid, core))
+            spots.append((win, core))
+    out = []
+    for (data, valid), (_win, core) in zip(_read_all(info, bands, spots), spots, strict=True):
+        if valid[core].mean() > 0.2:
+            out.append(SampleWindow(data, valid, core))
     if not out:  # mostly nodata: take the whole raster decimated would lose crowns; use any
         data, valid = read_window(info, bands, (0, 0, min(w, 2 * side), min(h, 2 * side)))
         out.append(SampleWindow(data, valid, (slice(0, data.shape[1]), slice(0, data.shape[2]))))
     return out
+
+
+#: Threads that read the sample windows (GDAL decodes without holding Python's lock; the
+#: tile workers are still idle then).
+READ_THREADS = 2
+
+
+def _read_all(info: RasterInfo, bands: tuple[int, ...], spots) -> list:
+    """``read_window`` of every ``(window, core)`` spot, in order, on a few threads."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from ecoscan.io.raster import read_window
+
+    if len(spots) < 2:
+        return [read_window(info, bands, win) for win, _core in spots]
+    with ThreadPoolExecutor(min(READ_THREADS, len(spots))) as ex:
+        return list(ex.map(lambda spot: read_window(info, bands, spot[0]), spots))
 
 
 def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
@@ -113,9 +132,10 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     )
     notes.append(
         Note(
-            "closed-canopy counts are unreliable (F1 about 0.8 on the scene suite; some big "
-            "crowns counted twice, some small ones missed): calibrate a detector on mapped "
-            "crowns (ecoscan calibrate) and check with ecoscan validate",
+            "closed-canopy counts are unreliable (F1 about 0.8 on the scene suite; centres "
+            "of big crowns shifted towards the sun, some big crowns counted twice, some "
+            "small shaded ones missed): calibrate a detector on mapped crowns (ecoscan "
+            "calibrate) and check with ecoscan validate",
             "closed-canopy-unreliable",
             WARNING,
         )
@@ -152,7 +172,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
 
 def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
-    from ecoscan.detect.autotune import choose_layer
+    from ecoscan.detect.autotune import choose_layer, ring_test
 
     lookup = band_lookup(info, settings)
     roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
@@ -185,9 +205,14 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         roles=roles,
         terms=choice.terms,
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
+        ring_mads=ring_test(choice),
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
+    if params.ring_mads is not None:  # each ring pixel must be exact in every tile's core
+        from ecoscan.detect.blobs import ring_reach_px
+
+        overlap = max(overlap, ring_reach_px(scales))
     return params, overlap, scales.align, th, notes
 
 
@@ -207,9 +232,9 @@ def _describe_choice(choice, notes: list) -> None:
         notes.append(
             f"response threshold raised {choice.threshold_raise:.2f}x above the background "
             "noise level: many weak candidates (rough ground, compression blocks or noise) "
-            "sat just above it"
+            "sat just above it; each plant must also stand out from its own ring of ground"
         )
-    if choice.weak:
+    if choice.crowded_threshold:
         notes.append(
             Note(
                 f"weak separation: {100 * choice.near_share:.0f}% of the plant candidates sit "
@@ -219,6 +244,26 @@ def _describe_choice(choice, notes: list) -> None:
                 WARNING,
             )
         )
+    if choice.aligned:
+        notes.append(_aligned_note(choice))
+
+
+def _aligned_note(choice) -> Note:
+    """The warning for blobs stretched along one axis (crowns joined to their shadows)."""
+    from ecoscan.detect.elongation import ALIGNED_MIN
+
+    e = choice.elongation
+    label = LAYER_LABELS.get(choice.name, choice.name)
+    return Note(
+        f"detections look joined to cast shadows: the {label} blobs are stretched along one "
+        f"axis (bearing {e['axis_deg']:.0f} deg, alignment {e['alignment']:.2f} >= "
+        f"{ALIGNED_MIN:g} over {e['blobs']} blobs), so crowns and shadows are counted "
+        "together or apart and positions sit between them: calibrate a detector on mapped "
+        "plants (ecoscan calibrate), or set --index and --threshold and check with "
+        "ecoscan validate",
+        "shadow-joined",
+        WARNING,
+    )
 
 
 def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
@@ -230,7 +275,10 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         REFERENCE_SIGMA_PX,
         RESPONSE_MADS,
         VALUE_MADS,
+        ring_test,
     )
+    from ecoscan.detect.blobs import RING
+    from ecoscan.detect.elongation import ALIGNED_MIN, ALIGNED_MIN_Z, MAX_BLOBS
 
     th = {
         "layer": choice.name,
@@ -257,7 +305,23 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         ),
         "vegetation_threshold": choice.min_value,
         "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
+        "ring_mads": ring_test(choice),
+        "ring_mads_from": (
+            "on rough ground (threshold raised): the layer smoothed at the blob's scale must "
+            f"exceed the median of the same over a ring {RING[0]:g}-{RING[1]:g} blob radii "
+            "out by this many robust SDs (1.4826 MAD) of the ring; none (null) on smooth "
+            "ground"
+        ),
         "near_threshold_share": choice.near_share,
+        "blob_alignment": choice.elongation.get("alignment", 0.0),
+        "blob_alignment_z": choice.elongation.get("z", 0.0),
+        "blob_alignment_axis_deg": choice.elongation.get("axis_deg", 0.0),
+        "blob_alignment_from": (
+            f"length of the mean elongation vector (second moments of the excess over the "
+            f"background) of the kept candidates on sample windows (up to {MAX_BLOBS}); "
+            f"flagged at >= {ALIGNED_MIN:g} with n x coherence^2 >= {ALIGNED_MIN_Z:g}"
+        ),
+        "shadow_joined": choice.aligned,
         "weak_separation": choice.weak,
         "split_touching": split,
     }

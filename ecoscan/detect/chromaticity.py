@@ -1,0 +1,239 @@
+"""A colour layer that ignores brightness: log-chromaticity on its most structured axis.
+
+Shade, cloud, vignetting and exposure change how bright a surface looks far more than its
+colour. Log-chromaticities (the log of red and of blue over the geometric mean of red,
+green and blue) do not change at all when all bands are scaled alike, so a cast shadow on
+pasture, which mostly darkens it, nearly vanishes from them, while a crown whose colour
+differs from the ground's keeps its own value (Finlayson, G. D., Drew, M. S. & Lu, C.
+2009, *Entropy minimization for shadow removal*, IJCV 85: 35-57, §2, for the
+log-chromaticity plane and why illumination moves colours along lines in it).
+
+The plane is two-dimensional; plants and ground are told apart along one direction of
+it. That direction is chosen as the projection whose histogram, binned at Scott's width
+of the projected values, has the least entropy. With the bin width proportional to the
+spread this is the entropy of the standardised projection: it is smallest for the most
+structured, least normal projection, where the values fall into separate groups
+(projection pursuit with an entropy index: Jones, M. C. & Sibson, R. 1987, *What is
+projection pursuit?*, JRSS A 150: 1-36). Finlayson et al. fix the bin width instead,
+which seeks the direction along which shading moves colours; measured on the scene
+suite's development seeds that lost the layer's gain (docs/detection.md).
+
+For dark crowns on green pasture this is the layer that tells a crown from its own cast
+shadow, which on a darkness layer look alike and join into one blob.
+
+Pure computation on arrays. :func:`log_chromaticity` gives the two base layers
+(``logchroma_r``, ``logchroma_b``) that :func:`ecoscan.detect.engine.base_layer` serves;
+:func:`invariant_terms` chooses, once per raster on the sample windows, the weights that
+project them onto that direction.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = [
+    "LOG_OFFSET",
+    "entropy_angle",
+    "invariant_terms",
+    "log_chromaticity",
+    "projection_entropy",
+]
+
+#: Added to every band (digital numbers) before the logarithm, so that black pixels of
+#: 8- and 16-bit imagery stay finite.
+LOG_OFFSET = 1.0
+#: Pixels used to choose the projection (a regular sample of the sample windows).
+ANGLE_SAMPLE = 60_000
+#: Coarse angle step (degrees) of the entropy search; refined to ``FINE_STEP`` around the
+#: coarse minimum.
+COARSE_STEP = 3.0
+FINE_STEP = 0.5
+#: Share of the projected values dropped at each end before the histogram (outliers such
+#: as specular highlights and black pixels would widen every histogram alike; Finlayson
+#: et al. 2009 keep the middle 90 %).
+TAIL = 0.05
+#: Share of the projected values at each end whose brightness decides the layer's sign.
+TAIL_SIDE = 0.02
+
+
+def log_chromaticity(
+    red: np.ndarray, green: np.ndarray, blue: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Log-chromaticities of red and blue over the geometric mean of the three bands.
+
+    ``log((R + c) / m)`` and ``log((B + c) / m)`` with ``m = ((R + c)(G + c)(B + c))^(1/3)``
+    and ``c = LOG_OFFSET`` (negative values taken as 0); the green one is minus their sum,
+    so two carry all the colour.
+    A uniform change of brightness (R, G, B all times k) leaves them unchanged.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> r, b = log_chromaticity(np.array([29.0]), np.array([59.0]), np.array([29.0]))
+    >>> round(float(r[0]), 4), round(float(b[0]), 4)     # log(30 / (30*60*30)^(1/3))
+    (-0.231, -0.231)
+    >>> r2, _ = log_chromaticity(np.array([59.0]), np.array([119.0]), np.array([59.0]))
+    >>> round(float(r2[0]), 4)                            # twice as bright: the same
+    -0.231
+    """
+    c = np.float32(LOG_OFFSET)
+    # negative values (offsets, noise in calibrated data) count as black
+    lr = np.log(np.maximum(np.asarray(red, np.float32), np.float32(0.0)) + c)
+    lg = np.log(np.maximum(np.asarray(green, np.float32), np.float32(0.0)) + c)
+    lb = np.log(np.maximum(np.asarray(blue, np.float32), np.float32(0.0)) + c)
+    mean = (lr + lg + lb) / np.float32(3.0)
+    return (lr - mean).astype(np.float32), (lb - mean).astype(np.float32)
+
+
+def projection_entropy(values: np.ndarray, width: float | None = None) -> float:
+    """Shannon entropy (bits) of a histogram of the middle 90 % of the values.
+
+    ``width`` is the bin width; by default Scott's 3.49 σ n^(−1/3) of these values (Scott,
+    D. W. 1979, *On optimal and data-based histograms*, Biometrika 66: 605-610). To compare
+    projections, give them all the same width (:func:`entropy_angle` does): with a fixed
+    width the entropy is the differential entropy minus log2(width), smallest where the
+    values gather most tightly.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> one = rng.normal(0, 1, 20000)
+    >>> two = np.r_[rng.normal(-3, 1, 10000), rng.normal(3, 1, 10000)]
+    >>> bool(projection_entropy(one, 0.1) < projection_entropy(two, 0.1))
+    True
+    """
+    v = np.asarray(values, float)
+    lo, hi = np.quantile(v, [TAIL, 1.0 - TAIL])
+    v = v[(v >= lo) & (v <= hi)]
+    if v.size < 2:
+        return 0.0
+    if width is None:
+        width = 3.49 * float(v.std()) * v.size ** (-1.0 / 3.0)
+    if not width > 0:
+        return 0.0
+    bins = max(1, math.ceil((hi - lo) / width))
+    counts, _ = np.histogram(v, bins=bins, range=(lo, lo + bins * width))
+    p = counts[counts > 0] / counts.sum()
+    return float(-(p * np.log2(p)).sum())
+
+
+def entropy_angle(chi_r: np.ndarray, chi_b: np.ndarray) -> float:
+    """The projection angle (degrees, 0-180) of least entropy of ``cos θ · chi_r +
+    sin θ · chi_b``, each projection binned at Scott's width of its own values: the most
+    structured projection (Jones & Sibson 1987), where the values split into groups. A
+    coarse search refined around its minimum.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> # ground and a minority of crowns whose colour differs along (1, -1) / sqrt(2)
+    >>> chi = rng.normal(0, 0.05, (8000, 2))
+    >>> chi[:800] += np.array([0.3, -0.3])
+    >>> a = entropy_angle(chi[:, 0], chi[:, 1])
+    >>> bool(abs(a - 135.0) < 5.0)      # the axis that separates them (-45 deg = 135)
+    True
+    """
+    r = np.asarray(chi_r, float).ravel()
+    b = np.asarray(chi_b, float).ravel()
+    coarse = np.arange(0.0, 180.0, COARSE_STEP)
+    a0 = float(coarse[int(np.argmin(_entropies(r, b, coarse)))])
+    fine = a0 + np.arange(-COARSE_STEP, COARSE_STEP + FINE_STEP / 2, FINE_STEP)
+    return float(fine[int(np.argmin(_entropies(r, b, fine)))] % 180.0)
+
+
+def _entropies(r: np.ndarray, b: np.ndarray, angles: np.ndarray) -> np.ndarray:
+    """:func:`projection_entropy` (Scott's width per projection) of every projection at
+    once: the same values as calling it per angle, without the Python loop."""
+    t = np.radians(angles)
+    proj = np.cos(t)[:, None] * r[None] + np.sin(t)[:, None] * b[None]
+    lo, hi = np.quantile(proj, [TAIL, 1.0 - TAIL], axis=1)
+    inside = (proj >= lo[:, None]) & (proj <= hi[:, None])
+    count = inside.sum(axis=1)
+    mean = np.where(inside, proj, 0.0).sum(axis=1) / np.maximum(count, 1)
+    var = np.where(inside, (proj - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(count, 1)
+    width = 3.49 * np.sqrt(var) * np.maximum(count, 1) ** (-1.0 / 3.0)
+    out = np.zeros(angles.size)
+    ok = (count >= 2) & (width > 0)
+    for i in np.flatnonzero(ok):
+        bins = max(1, math.ceil((hi[i] - lo[i]) / width[i]))
+        idx = np.minimum(((proj[i, inside[i]] - lo[i]) / width[i]).astype(np.int64), bins - 1)
+        c = np.bincount(idx, minlength=bins)
+        p = c[c > 0] / c.sum()
+        out[i] = float(-(p * np.log2(p)).sum())
+    return out
+
+
+def invariant_terms(
+    datas: list[np.ndarray], valids: list[np.ndarray], roles: tuple[str, ...]
+) -> tuple[tuple[tuple[str, float], ...], float, float]:
+    """The colour layer's terms, chosen once per raster from sample windows.
+
+    The angle of least entropy (:func:`entropy_angle`) gives the projection; its sign is
+    chosen so that the end of the projected values whose pixels are darker (plants shade
+    themselves and are darker than the ground around them; a paler minority such as straw
+    or dry grass lies at the other end) is positive, as every detection layer has plants
+    bright.
+
+    Parameters
+    ----------
+    datas : list of numpy.ndarray
+        Sample windows' bands, each (bands, rows, columns), in the order of ``roles``.
+    valids : list of numpy.ndarray of bool
+        Their valid pixels.
+    roles : tuple of str
+        Band roles; ``red``, ``green`` and ``blue`` are needed.
+
+    Returns
+    -------
+    (terms, angle_deg, darkness_gap)
+        ``terms`` for :func:`ecoscan.detect.engine.compose_layer`
+        (``(("logchroma_r", w_r), ("logchroma_b", w_b))``), the angle of least entropy and
+        how much darker (band units) the pixels at the positive end are than those at the
+        negative end (≥ 0).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(2)
+    >>> img = np.empty((3, 120, 120), np.float32)
+    >>> img[:] = np.array([90.0, 130.0, 60.0])[:, None, None]
+    >>> img[:, :, 60:] *= 0.6                                   # half the ground in shade
+    >>> img[:, 20:40, 20:40] = np.array([36.0, 60.0, 40.0])[:, None, None]   # a crown
+    >>> img += rng.normal(0, 1.0, img.shape).astype(np.float32)
+    >>> terms, angle, tail = invariant_terms([img], [np.ones((120, 120), bool)],
+    ...                                      ("red", "green", "blue"))
+    >>> [name for name, _w in terms]
+    ['logchroma_r', 'logchroma_b']
+    """
+    pos = {r: i for i, r in enumerate(roles)}
+    rs, bs, ds = [], [], []
+    total = sum(int(v.sum()) for v in valids)
+    step = max(1, int(math.sqrt(total / ANGLE_SAMPLE)))
+    for data, valid in zip(datas, valids, strict=True):
+        sub = (slice(None, None, step), slice(None, None, step))
+        keep = valid[sub]
+        rgb = [data[pos[c]][sub][keep] for c in ("red", "green", "blue")]
+        cr, cb = log_chromaticity(*rgb)
+        rs.append(cr)
+        bs.append(cb)
+        ds.append(-(rgb[0].astype(float) + rgb[1] + rgb[2]) / 3.0)
+    r = np.concatenate(rs) if rs else np.zeros(0, np.float32)
+    b = np.concatenate(bs) if bs else np.zeros(0, np.float32)
+    if r.size < 100:
+        return (("logchroma_r", 1.0), ("logchroma_b", 0.0)), 0.0, 0.0
+    dark = np.concatenate(ds)
+    angle = entropy_angle(r, b)
+    t = math.radians(angle)
+    wr, wb = math.cos(t), math.sin(t)
+    proj = wr * r.astype(float) + wb * b.astype(float)
+    lo, hi = np.quantile(proj, [TAIL_SIDE, 1.0 - TAIL_SIDE])
+    # plants are darker than the ground around them (self-shading of the canopy; the
+    # premise of the darkness layer): the darker tail is made positive
+    gap = float(np.mean(dark[proj >= hi]) - np.mean(dark[proj <= lo]))
+    if gap < 0:
+        wr, wb = -wr, -wb
+    return (("logchroma_r", wr), ("logchroma_b", wb)), angle, abs(gap)
