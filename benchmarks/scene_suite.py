@@ -19,7 +19,18 @@ A detection matches a plant one-to-one (optimal assignment, :mod:`ecoscan.stats.
 within half the smallest stated diameter. Printed: plants, precision, recall and F1 of
 each method, the tuned threshold, and seconds. ``--markdown FILE`` writes the table.
 ``--write DIR`` only writes the scenes (GeoTIFF, truth CSV, plots, settings JSON) for use
-with ``ecoscan detect`` and ``ecoscan validate``. ``--memory-size N`` also writes N×N
+with ``ecoscan detect`` and ``ecoscan validate``.
+
+``--calibrated`` measures ``ecoscan calibrate`` instead: for each style and each seed of
+``--seeds``, a scene is calibrated on its ``train`` plot (the top-left 12 % of the scene,
+mapped positions only, no crown diameters), the detector is run on the ``test`` plot (the
+rest) and scored with ``ecoscan validate``'s matching within half the style's smallest
+diameter. Styles whose training plot would hold fewer than 20 plants at ``--size`` are
+drawn at :data:`CALIBRATED_MIN_SIZE` instead (JPEG and coarse: 1000 px). Printed per
+scene: the route chosen, cross-validated F1, test precision, recall, F1 and CPU seconds;
+per style the mean and lowest test F1. To measure an earlier version of the code, run the
+same command with ``PYTHONPATH`` pointing to an export of it (``git archive REV``): the
+script then imports ``ecoscan`` from there. ``--memory-size N`` also writes N×N
 scenes in fresh processes and reports their peak resident memory (the renderer works in
 512-row strips).
 
@@ -41,7 +52,11 @@ from pathlib import Path
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))
+if str(ROOT) not in sys.path:
+    sys.path.append(str(ROOT))  # after PYTHONPATH, so an exported older version can be measured
+
+#: Least scene side (pixels) for the calibrated mode, so the training plot holds 20 plants.
+CALIBRATED_MIN_SIZE = {"jpeg-vignette": 1000, "coarse": 1000}
 
 
 def scores(found_xy: np.ndarray, truth_xy: np.ndarray, tol: float) -> tuple[float, float, float]:
@@ -196,6 +211,88 @@ def ecoscan_default(scene, raster: Path, tol: float, workers: int) -> dict:
     }
 
 
+def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
+    """Calibrate on the scene's ``train`` plot and score on its ``test`` plot."""
+    from ecoscan.analysis.validation.compute import validate_points
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.detect.calibration import band_names_for, calibrate_detector
+    from ecoscan.detect.detector_file import write_detector
+    from ecoscan.detect.settings import parse_band_spec
+    from ecoscan.io.raster import open_raster
+    from ecoscan.io.vector import read_plots, read_points
+    from ecoscan.model.plots import PlotLayer
+    from ecoscan.model.points import PointSet
+    from ecoscan.synthetic import make_scene, write_scene
+
+    size = max(size, CALIBRATED_MIN_SIZE.get(style, 0))
+    sc = make_scene(style, size, seed)
+    paths = write_scene(sc, folder)
+    info = open_raster(paths.raster)
+    ref = read_points(paths.truth)
+    ref = PointSet(ref.x, ref.y, {}, ref.crs)  # positions only, as mapped in the field
+    plots = read_plots(paths.plots, target_crs=info.crs)
+    train = PlotLayer([p for p in plots.plots if p.plot_id == "train"], plots.crs)
+    test = PlotLayer([p for p in plots.plots if p.plot_id == "test"], plots.crs)
+    c0 = time.process_time()
+    res = calibrate_detector(
+        info, ref, train, band_names=band_names_for(info, parse_band_spec(sc.bands_option))
+    )
+    c1 = time.process_time()
+    toml = folder / f"{style}_{seed}.toml"
+    write_detector(toml, res.detector)
+    det = detect_raster(paths.raster, DetectionSettings(detector=str(toml)), plots=test)
+    c2 = time.process_time()
+    row = validate_points(det.points, ref, 0.5 * sc.diameter_range_m[0], plots=test)[-1]
+    d = res.detector
+    split = getattr(d, "split", None) or {}
+    route = d.layer + (" split" if split else "")
+    route += f" +centre {split['centre_weight']:g}" if split.get("centre_weight") else ""
+    return {
+        "style": style,
+        "seed": seed,
+        "size": size,
+        "route": route,
+        "plants": d.training["plants"],
+        "cv_f1": res.chosen.f1,
+        "precision": row.precision,
+        "recall": row.recall,
+        "f1": row.f1,
+        "calibrate_cpu_s": c1 - c0,
+        "detect_cpu_s": c2 - c1,
+    }
+
+
+def calibrated_suite(styles: list[str], seeds: list[int], size: int) -> list[dict]:
+    """:func:`calibrated` for every style and seed, printed as it goes."""
+    import ecoscan
+    from ecoscan.errors import InputError
+
+    print(f"calibrated, ecoscan from {Path(ecoscan.__file__).parent}; seeds {seeds}", flush=True)
+    rows = []
+    with tempfile.TemporaryDirectory() as tmp:
+        for style in styles:
+            for seed in seeds:
+                try:
+                    r = calibrated(style, size, seed, Path(tmp))
+                except InputError as exc:
+                    print(f"{style:16s} seed {seed}: not calibrated: {exc}", flush=True)
+                    continue
+                rows.append(r)
+                print(
+                    f"{style:16s} seed {seed} ({r['size']} px): {r['route']:28s} "
+                    f"plants {r['plants']:4d} cv F1 {r['cv_f1']:.3f} | test P "
+                    f"{r['precision']:.3f} R {r['recall']:.3f} F1 {r['f1']:.3f} | cpu "
+                    f"{r['calibrate_cpu_s']:.1f} + {r['detect_cpu_s']:.1f} s",
+                    flush=True,
+                )
+    print("\n| style | calibrated test F1, mean (lowest) |\n|---|---|")
+    for style in styles:
+        f1 = [r["f1"] for r in rows if r["style"] == style]
+        if f1:
+            print(f"| {style} | {np.mean(f1):.3f} ({np.min(f1):.3f}) |")
+    return rows
+
+
 def peak_memory(style: str, size: int, seed: int) -> dict:
     """Render and write an N×N scene in a fresh process; its peak resident memory."""
     code = (
@@ -224,6 +321,12 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", type=int, default=1500, help="scene size in pixels per side")
     ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument(
+        "--calibrated",
+        action="store_true",
+        help="measure ecoscan calibrate (train plot) scored on the test plot, per seed",
+    )
+    ap.add_argument("--seeds", help="comma-separated seeds for --calibrated (default --seed)")
     ap.add_argument("--styles", default=",".join(SCENE_STYLES), help="comma-separated styles")
     ap.add_argument("--workers", type=int, default=1, help="ecoscan detection processes")
     ap.add_argument("--markdown", metavar="FILE", help="also write the table as Markdown")
@@ -253,6 +356,10 @@ def main(argv: list[str] | None = None) -> int:
             )
         return 0
 
+    if args.calibrated:
+        seeds = [int(v) for v in (args.seeds or str(args.seed)).split(",")]
+        calibrated_suite(args.styles.split(","), seeds, args.size)
+        return 0
     rows = []
     if not args.skip_accuracy:
         head = (

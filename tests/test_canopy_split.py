@@ -246,7 +246,7 @@ def test_split_scoring_counts_crowns_by_fold():
         valid=np.ones(prob.shape, bool), poly_px=shapely.box(0, 0, 150, 80), ref=ref,
         ref_fold=np.array([0, 0, 1, 1]), fold_map=fold_map, ref_index=np.arange(4),
     )  # fmt: skip
-    got = _score_split([prob], [w], 2, 5.0, 24.0, 32.0)
+    got = _score_split([(0.0, [prob])], [w], 2, 5.0, 24.0, 32.0)  # centre-map weight 0
     assert got is not None
     score, split = got
     # every crown found in its own fold, nothing else

@@ -38,6 +38,7 @@ import shapely
 from scipy.spatial import cKDTree
 
 from ecoscan.detect.blobs import BlobScales, blob_scales, detect_blobs, prune_blobs
+from ecoscan.detect.centres import WIDTH_SHARE
 from ecoscan.detect.detector_file import CalibratedDetector
 from ecoscan.detect.pixel_model import (
     FeatureSpec,
@@ -98,6 +99,34 @@ SPLIT_PEAK_GRID = (0.2, 0.35, 0.5, 0.65)
 #: chosen with h and the least peak by the same cross-validation.
 SPLIT_SMOOTH_GRID = (0.35, 0.6)
 SPLIT_JOIN_GRID = (False, True)
+#: Runs that need a model file: the plant probability and the crown-centre map.
+LEARNT_ROUTES = ("probability", "centre_map")
+#: Crown-centre map (:mod:`ecoscan.detect.centres`), learnt when the classifier's blobs
+#: score below SPLIT_TRY_BELOW: each plant's target radius is at least this share of the
+#: distance to its nearest mapped neighbour; features reach this share of the median
+#: spacing, with this many scales. Chosen on the suite's development seed 0 (closed canopy;
+#: 0.4 / 0.4 / 6 scales: cross-validated peaks F1 0.69, the values here 0.70) and checked on
+#: development seeds 7 and 11.
+CENTRE_SPACING_SHARE = 0.5
+CENTRE_SIGMA_SHARE = 0.5
+CENTRE_NUM_SIGMA = 6
+#: Weights of the centre map added to the plant probability before the crown split (0: the
+#: probability alone); chosen with the split's other settings by cross-validation.
+CENTRE_WEIGHT_GRID = (0.0, 0.5, 1.0)
+#: Pixels sampled for the centre map: around each mapped plant (radius uniform in
+#: 0 to CENTRE_SAMPLE_REACH crown radii, so every distance band gets the same number) and
+#: uniform in the plots.
+N_CENTRE_NEAR = 12000
+N_CENTRE_UNIFORM = 6000
+CENTRE_SAMPLE_REACH = 1.6
+#: Boosting iterations and leaves of the centre-map regressor.
+CENTRE_ITERATIONS = 150
+CENTRE_LEAVES = 31
+#: Peak search grid: smoothing and least distance between crowns (shares of the smallest
+#: calibrated crown radius), least peak (centre-map units, 1 = a mapped centre).
+CENTRE_SMOOTH_GRID = (0.0, 0.25)
+CENTRE_DISTANCE_GRID = (0.5, 0.8, 1.2)
+CENTRE_PEAK_GRID = (0.05, 0.1, 0.15, 0.2, 0.3, 0.4, 0.5)
 
 
 @dataclass(frozen=True)
@@ -213,6 +242,7 @@ class _LayerRun:
     background: float
     ref_diam_px: np.ndarray
     split: dict = field(default_factory=dict)
+    centres: dict = field(default_factory=dict)
 
 
 def band_names_for(info: RasterInfo, spec: tuple[tuple[str, int], ...] = ()) -> tuple[str, ...]:
@@ -617,11 +647,32 @@ def _score_layer(
     )
 
 
+def _peak_counts(
+    found: dict[str, np.ndarray], w: _Window, p_grid: np.ndarray, n_folds: int, tol_px: float
+) -> np.ndarray:
+    """tp, fp, fn per (least peak, fold) of points with a ``peak`` value: each point counts
+    in the fold of its position (inside the plot only)."""
+    counts = np.zeros((p_grid.size, n_folds, 3), dtype=np.int64)
+    inside = shapely.contains_xy(w.poly_px, found["col"], found["row"])
+    rr = np.clip(np.round(found["row"]).astype(int) - w.r0, 0, w.fold_map.shape[0] - 1)
+    cc = np.clip(np.round(found["col"]).astype(int) - w.c0, 0, w.fold_map.shape[1] - 1)
+    fold = np.where(inside, w.fold_map[rr, cc], -1)
+    for j, pk in enumerate(p_grid):
+        keep = found["peak"] >= pk
+        for f in range(n_folds):
+            sel = keep & (fold == f)
+            a = np.column_stack([found["col"][sel], found["row"][sel]])
+            b = w.ref[w.ref_fold == f]
+            tp = match_points(a, b, tol_px).n_matched if a.size and b.size else 0
+            counts[j, f] += (tp, a.shape[0] - tp, b.shape[0] - tp)
+    return counts
+
+
 # --- crown split of a probability map (closed canopy) -------------------------------------
 
 
 def _score_split(
-    maps: list[np.ndarray],
+    map_sets: list[tuple[float, list[np.ndarray]]],
     windows: list[_Window],
     n_folds: int,
     tol_px: float,
@@ -629,11 +680,13 @@ def _score_split(
     dmax_px: float,
     band_names: tuple[str, ...] = (),
 ) -> tuple[LayerScore, dict] | None:
-    """Cross-validated score of the watershed crown split over a grid of (smoothing,
-    joining fragments, h) × least peak.
+    """Cross-validated score of the watershed crown split over a grid of (centre-map
+    weight, smoothing, joining fragments, h) × least peak.
 
-    Regions come from :func:`ecoscan.detect.canopy.split_crowns` on each window's held-out
-    probability map; each is counted in the fold of its centre (inside the plot only), and
+    ``map_sets`` holds, per centre-map weight, each window's held-out layer (the plant
+    probability plus that weight times the centre map). Regions come from
+    :func:`ecoscan.detect.canopy.split_crowns` on each window's held-out layer; each is
+    counted in the fold of its centre (inside the plot only), and
     the grid cell is chosen on the other folds exactly as for the blob thresholds.
     """
     from ecoscan.detect.canopy import (
@@ -646,7 +699,8 @@ def _score_split(
     r_min = dmin_px / 2.0
     colour = all(b in band_names for b in ("red", "green", "blue"))
     variants = [
-        (sm, join, float(h))
+        (k, sm, join, float(h))
+        for k in range(len(map_sets))
         for sm in SPLIT_SMOOTH_GRID
         for join in (SPLIT_JOIN_GRID if colour else (False,))
         for h in SPLIT_H_GRID
@@ -654,11 +708,11 @@ def _score_split(
     p_grid = np.asarray(SPLIT_PEAK_GRID)
     counts = np.zeros((len(variants), p_grid.size, n_folds, 3), dtype=np.int64)
     max_area = MERGE_MAX_AREA_SHARE * math.pi * (dmax_px / 2.0) ** 2
-    for m, w in zip(maps, windows, strict=True):
+    for wi, w in enumerate(windows):
         tint = canopy_tint(w.data, band_names) if colour else None
-        for i, (sm, join, h) in enumerate(variants):
+        for i, (k, sm, join, h) in enumerate(variants):
             found = split_crowns(
-                m,
+                map_sets[k][1][wi],
                 r_min,
                 h,
                 smooth_px=sm * r_min,
@@ -668,23 +722,12 @@ def _score_split(
                 max_area_px=max_area if join else None,
                 tint=tint,
             )
-            inside = shapely.contains_xy(w.poly_px, found["col"], found["row"])
-            rr = np.clip(np.round(found["row"]).astype(int) - w.r0, 0, w.fold_map.shape[0] - 1)
-            cc = np.clip(np.round(found["col"]).astype(int) - w.c0, 0, w.fold_map.shape[1] - 1)
-            fold = np.where(inside, w.fold_map[rr, cc], -1)
-            for j, pk in enumerate(p_grid):
-                keep = found["peak"] >= pk
-                for f in range(n_folds):
-                    sel = keep & (fold == f)
-                    a = np.column_stack([found["col"][sel], found["row"][sel]])
-                    b = w.ref[w.ref_fold == f]
-                    tp = match_points(a, b, tol_px).n_matched if a.size and b.size else 0
-                    counts[i, j, f] += (tp, a.shape[0] - tp, b.shape[0] - tp)
+            counts[i] += _peak_counts(found, w, p_grid, n_folds, tol_px)
     pooled, fold_f1, (i, j) = _cross_validate(counts)
     score = LayerScore.from_counts("probability", pooled, fold_f1)
     if score.tp == 0:
         return None
-    sm, join, h = variants[i]
+    k, sm, join, h = variants[i]
     split = {
         "h": h,
         "min_peak": float(p_grid[j]),
@@ -692,6 +735,8 @@ def _score_split(
         "min_area_share": float(MIN_AREA_SHARE),
         "join_fragments": bool(join),
     }
+    if map_sets[k][0] > 0:
+        split["centre_weight"] = float(map_sets[k][0])
     return score, split
 
 
@@ -699,26 +744,31 @@ def _score_split(
 
 
 def _sample_pixels(
-    windows: list[_Window], r_hi: float, rng: np.random.Generator
+    windows: list[_Window],
+    reach: list[np.ndarray] | float,
+    rng: np.random.Generator,
+    n_near: int = 2 * N_PLANT_SAMPLES,
+    n_uniform: int = N_GROUND_SAMPLES,
 ) -> list[tuple[np.ndarray, np.ndarray]]:
     """Candidate training pixels per window (rows, columns in window pixels).
 
-    Around every mapped plant (radius uniform in 0–1.3 ``r_hi``, so dense near the centre)
-    and uniform in the plot; labels are given later from the crown sizes (:func:`_labels`).
+    Around every mapped plant (distance uniform in 0–``reach``, so dense near the centre and
+    the same number in every distance band; ``reach`` is one number for all plants or one
+    array per window) and uniform in the plot; labels are given later.
     """
     n_ref = sum(w.ref.shape[0] for w in windows)
     area = sum(w.poly_px.area for w in windows)
     out = []
-    for w in windows:
+    for i, w in enumerate(windows):
         n = w.ref.shape[0]
         h, wd = w.valid.shape
-        m = max(1, math.ceil(2 * N_PLANT_SAMPLES / max(n_ref, 1)))
+        m = max(1, math.ceil(n_near / max(n_ref, 1)))
         k = np.repeat(np.arange(n), m)
-        rr = 1.3 * r_hi * rng.uniform(size=k.size)
+        rr = (reach[i][k] if isinstance(reach, list) else reach) * rng.uniform(size=k.size)
         th = rng.uniform(0, 2 * np.pi, size=k.size)
         pc = w.ref[k, 0] + rr * np.cos(th)
         pr = w.ref[k, 1] + rr * np.sin(th)
-        n_g = max(1, round(N_GROUND_SAMPLES * w.poly_px.area / max(area, 1e-9)))
+        n_g = max(1, round(n_uniform * w.poly_px.area / max(area, 1e-9)))
         b = w.poly_px.bounds
         gc = rng.uniform(b[0], b[2], size=n_g)
         gr = rng.uniform(b[1], b[3], size=n_g)
@@ -794,7 +844,8 @@ def _classifier_run(
     best_simple: _LayerRun | None,
     seed: int,
 ):
-    """Train and cross-validate the pixel classifier; returns (forest, spec, run)."""
+    """Train and cross-validate the pixel classifier; returns (forest, spec, run, centre),
+    ``centre`` being :func:`_centre_maps`'s result when the centre map was tried."""
     ref_all = np.concatenate([w.ref for w in windows])
     nn = cKDTree(ref_all).query(ref_all, k=2)[0][:, 1] if ref_all.shape[0] > 1 else np.ones(1)
     if diam_given is not None:
@@ -816,7 +867,7 @@ def _classifier_run(
         brightness_scale=float(max(np.percentile(means, 99), 1e-6)),
     )
     rng = np.random.default_rng(seed)
-    pix = _sample_pixels(windows, 0.5 * broad[1], rng)
+    pix = _sample_pixels(windows, 1.3 * (0.5 * broad[1]), rng)
     feats = [
         _features_at(w, band_names, spec, r, c) for w, (r, c) in zip(windows, pix, strict=True)
     ]
@@ -837,7 +888,7 @@ def _classifier_run(
         y = labels(np.minimum(0.35 * nn, 0.5 * broad[1]))
         ok = y >= 0
         if np.unique(y[ok]).size < 2:
-            return None, None, None
+            return None, None, None, None
         first = _forest(x_all[ok], y[ok], seed, trees=N_TREES_FIRST)
         maps = [predict_probability(first, w.data, band_names, spec) for w in windows]
         sc = blob_scales(broad[0] / 2.0, broad[1] / 2.0, 3)
@@ -851,12 +902,12 @@ def _classifier_run(
     ok = y >= 0
     x, y, fold = x_all[ok], y[ok], folds[ok]
     if np.unique(y).size < 2:
-        return None, None, None
+        return None, None, None, None
     fold_models = []
     for f in range(n_folds):
         tr = fold != f
         if np.unique(y[tr]).size < 2:
-            return None, None, None
+            return None, None, None, None
         fold_models.append(_forest(x[tr], y[tr], seed))
     maps = [
         predict_probability(
@@ -868,13 +919,151 @@ def _classifier_run(
         m[~w.valid] = 0.0
     run = _score_layer("probability", maps, windows, n_folds, tol_px, broad, 0.0, diam)
     if run is None:
-        return None, None, None
+        return None, None, None, None
+    centre = None
     if run.score.f1 < SPLIT_TRY_BELOW:
-        # closed canopy: try splitting merged crowns along the probability map's valleys
-        got = _score_split(maps, windows, n_folds, tol_px, run.dmin_px, run.dmax_px, band_names)
-        if got is not None and got[0].f1 > run.score.f1 + CLASSIFIER_MARGIN:
-            run.score, run.split = got
-    return _forest(x, y, seed), spec, run
+        centre = _touching_crowns(windows, band_names, n_folds, tol_px, spec, diam, run, maps, seed)
+    return _forest(x, y, seed), spec, run, centre
+
+
+def _touching_crowns(windows, band_names, n_folds, tol_px, spec, diam, run, maps, seed):
+    """Closed canopy: learn where crown centres are, not only where plants are, and split
+    merged crowns along the valleys of the probability (plus the centre map); ``run`` takes
+    the split when it scores higher. Returns :func:`_centre_maps`'s result."""
+    centre = _centre_maps(windows, band_names, n_folds, tol_px, spec, diam, run, seed)
+    sets = [(0.0, maps)]
+    if centre is not None:
+        sets += [
+            (a, [m + np.float32(a) * c for m, c in zip(maps, centre[2], strict=True)])
+            for a in CENTRE_WEIGHT_GRID
+            if a > 0
+        ]
+    got = _score_split(sets, windows, n_folds, tol_px, run.dmin_px, run.dmax_px, band_names)
+    if got is not None and got[0].f1 > run.score.f1 + CLASSIFIER_MARGIN:
+        run.score, run.split = got
+    return centre
+
+
+# --- crown-centre map ----------------------------------------------------------------------
+
+
+def _regressor(x: np.ndarray, y: np.ndarray, seed: int):
+    """The centre-map regressor (gradient boosting on histograms; CPU, deterministic)."""
+    from sklearn.ensemble import HistGradientBoostingRegressor
+
+    model = HistGradientBoostingRegressor(
+        max_iter=CENTRE_ITERATIONS,
+        max_leaf_nodes=CENTRE_LEAVES,
+        learning_rate=0.1,
+        min_samples_leaf=20,
+        early_stopping=False,
+        random_state=seed,
+    )
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):  # OpenMP threads spin on a shared machine
+        model.fit(x, y)
+    return model
+
+
+def _centre_maps(
+    windows: list[_Window],
+    band_names: tuple[str, ...],
+    n_folds: int,
+    tol_px: float,
+    spec: FeatureSpec,
+    diam: np.ndarray,
+    prob_run: _LayerRun,
+    seed: int,
+):
+    """Train and cross-validate the crown-centre map.
+
+    The target is :func:`ecoscan.detect.centres.centre_target` of the mapped plants, each
+    plant's radius being its calibrated crown radius or :data:`CENTRE_SPACING_SHARE` of the
+    distance to its nearest mapped neighbour, whichever is larger (in packed stands the
+    spacing says more about crown size than scale selection); pixels are sampled around
+    every plant (uniform in distance up to :data:`CENTRE_SAMPLE_REACH` radii, so every
+    distance band counts the same) and uniform in the plots. The features reach
+    :data:`CENTRE_SIGMA_SHARE` of the median spacing, the scale of whole crowns. Each fold's
+    map comes from a regressor trained without that fold's pixels.
+
+    Returns
+    -------
+    (regressor, features, held-out maps, peaks run) or None
+        The peaks run is the cross-validated peak search of the held-out maps
+        (:func:`ecoscan.detect.centres.find_centres`; smoothing, least distance and least
+        peak chosen on the other folds), or None when it finds nothing.
+    """
+    from ecoscan.detect.centres import centre_target, find_centres
+
+    rng = np.random.default_rng(seed + 7)
+    ref_all = np.concatenate([w.ref for w in windows])
+    nn = cKDTree(ref_all).query(ref_all, k=2)[0][:, 1]
+    rad = np.maximum(0.5 * np.asarray(diam, float), CENTRE_SPACING_SHARE * nn)
+    cspec = FeatureSpec(
+        sigma_min=1.0,
+        sigma_max=float(np.clip(CENTRE_SIGMA_SHARE * np.median(nn), 2.0, 32.0)),
+        num_sigma=CENTRE_NUM_SIGMA,
+        brightness_scale=spec.brightness_scale,
+    )
+    rads, start = [], 0
+    for w in windows:
+        rads.append(rad[start : start + w.ref.shape[0]])
+        start += w.ref.shape[0]
+    pix = _sample_pixels(
+        windows, [CENTRE_SAMPLE_REACH * r for r in rads], rng, N_CENTRE_NEAR, N_CENTRE_UNIFORM
+    )
+    x = np.concatenate(
+        [_features_at(w, band_names, cspec, r, c) for w, (r, c) in zip(windows, pix, strict=True)]
+    )
+    y = np.concatenate(
+        [
+            centre_target(w.ref, rw, c + w.c0, r + w.r0, WIDTH_SHARE)
+            for w, rw, (r, c) in zip(windows, rads, pix, strict=True)
+        ]
+    )
+    fold = np.concatenate([w.fold_map[r, c] for w, (r, c) in zip(windows, pix, strict=True)])
+    if y.size == 0 or not (y > 0.5).any() or any((fold != f).sum() == 0 for f in range(n_folds)):
+        return None
+    models = [_regressor(x[fold != f], y[fold != f], seed) for f in range(n_folds)]
+    r_min = prob_run.dmin_px / 2.0
+    variants = [(sm, md) for sm in CENTRE_SMOOTH_GRID for md in CENTRE_DISTANCE_GRID]
+    p_grid = np.asarray(CENTRE_PEAK_GRID)
+    counts = np.zeros((len(variants), p_grid.size, n_folds, 3), dtype=np.int64)
+    cmaps = []
+    for w in windows:
+        m = predict_probability(
+            None, w.data, band_names, cspec, fold_of_row=w.fold_map, forests=models
+        )
+        m[~w.valid] = 0.0
+        cmaps.append(m)
+        for i, (sm, md) in enumerate(variants):
+            found = find_centres(
+                m, md * r_min, sm * r_min, float(p_grid[0]), w.valid, (w.c0, w.r0)
+            )
+            counts[i] += _peak_counts(found, w, p_grid, n_folds, tol_px)
+    pooled, fold_f1, (i, j) = _cross_validate(counts)
+    score = LayerScore.from_counts("centre_map", pooled, fold_f1)
+    peaks = None
+    if score.tp > 0:
+        sm, md = variants[i]
+        peaks = _LayerRun(
+            "centre_map",
+            score,
+            prob_run.dmin_px,
+            prob_run.dmax_px,
+            0.0,
+            0.0,
+            0.0,
+            diam,
+            centres={
+                "smooth_share": float(sm),
+                "distance_share": float(md),
+                "min_peak": float(p_grid[j]),
+                "crown_diameter_px": float(np.median(2.0 * rad)),  # metres: by the caller
+            },
+        )
+    return _regressor(x, y, seed), cspec, cmaps, peaks
 
 
 # --- the whole calibration -----------------------------------------------------------------
@@ -960,28 +1149,32 @@ def calibrate_detector(
     want_forest = classifier == "always" or (
         classifier == "auto" and (best_simple is None or best_simple.score.f1 < GOOD_ENOUGH_F1)
     )
-    forest = None
-    spec = None
+    learnt: dict[str, dict] = {}  # what each learnt run needs at detection time
     if want_forest:
-        forest, spec, run = _classifier_run(
+        forest, spec, run, centre = _classifier_run(
             windows, band_names, n_folds, tol_px, broad, diam_given, best_simple, seed
         )
         if run is not None:
             runs.append(run)
-            if best_simple is not None and run.score.f1 < best_simple.score.f1 + CLASSIFIER_MARGIN:
-                forest = None
+            learnt[run.name] = {"forest": forest, "features": spec}
+            if run.split.get("centre_weight"):
+                learnt[run.name].update(centre_model=centre[0], centre_features=centre[1])
+        if centre is not None and centre[3] is not None:
+            peaks = centre[3]
+            peaks.centres["crown_diameter_m"] = peaks.centres.pop("crown_diameter_px") * ps
+            runs.append(peaks)
+            learnt[peaks.name] = {"centre_model": centre[0], "centre_features": centre[1]}
     if not runs:
         raise InputError(
             f"no layer of {names[0]} finds the plants mapped in {names[1]}; check that the "
             "points mark crown centres and use the raster's CRS"
         )
     runs.sort(key=lambda r: -(r.score.f1 if math.isfinite(r.score.f1) else -1))
-    chosen = _choose(runs, forest, notes)
+    chosen = _choose(runs, best_simple, notes)
     det = _detector_record(
         info,
         chosen,
-        spec,
-        forest,
+        learnt.get(chosen.name, {}),
         band_names,
         {"fold_by": fold_by, "folds": n_folds, "tolerance_m": float(tolerance_m)},
         runs,
@@ -1053,10 +1246,20 @@ def _simple_runs(windows, band_names, n_folds, tol_px, broad, diam_given) -> lis
     return runs
 
 
-def _choose(runs: list[_LayerRun], forest, notes: list[str]) -> _LayerRun:
-    """The best run (sorted best first) that can be used, with notes on the choice."""
-    chosen = next(r for r in runs if r.name != "probability" or forest is not None)
-    if forest is None and runs[0].name == "probability":
+def _choose(runs: list[_LayerRun], best_simple: _LayerRun | None, notes: list[str]) -> _LayerRun:
+    """The best run (sorted best first) that can be used, with notes on the choice.
+
+    A learnt route (plant probability or centre map) is used only when it beats the best
+    simple layer by :data:`CLASSIFIER_MARGIN`; between learnt routes the higher
+    cross-validated F1 wins (the plant probability on a tie).
+    """
+    floor = -1.0 if best_simple is None else best_simple.score.f1 + CLASSIFIER_MARGIN
+
+    def usable(r: _LayerRun) -> bool:
+        return r.name not in LEARNT_ROUTES or r.score.f1 >= floor
+
+    chosen = next(r for r in runs if usable(r))
+    if runs[0].name in LEARNT_ROUTES and chosen is not runs[0]:
         notes.append(
             "the classifier scored no better than the best simple layer by "
             f"{CLASSIFIER_MARGIN}; the simple layer is used"
@@ -1066,6 +1269,13 @@ def _choose(runs: list[_LayerRun], forest, notes: list[str]) -> _LayerRun:
             "touching crowns merge in the plant probability: crowns are split along its "
             f"valleys (watershed, marker height {chosen.split['h']:g}, least peak "
             f"{chosen.split['min_peak']:g}; chosen by cross-validation)"
+        )
+    if chosen.centres:
+        notes.append(
+            "crowns are the peaks of a learnt crown-centre map (least peak "
+            f"{chosen.centres['min_peak']:g}, crowns at least "
+            f"{chosen.centres['distance_share']:g} of the smallest crown radius apart; "
+            "chosen by cross-validation)"
         )
     if chosen.score.f1 < 0.9:
         notes.append(
@@ -1078,22 +1288,22 @@ def _choose(runs: list[_LayerRun], forest, notes: list[str]) -> _LayerRun:
 def _detector_record(
     info: RasterInfo,
     chosen: _LayerRun,
-    spec,
-    forest,
+    models: dict,
     band_names: tuple[str, ...],
     folds: dict,
     runs: list[_LayerRun],
     training: dict,
 ) -> CalibratedDetector:
-    """The detector file's content for the chosen run."""
+    """The detector file's content for the chosen run (``models``: its forest, centre-map
+    regressor and their features, as far as it uses them)."""
     import sklearn
 
     from ecoscan import __version__
 
     ps = info.pixel_size_m
-    probability = chosen.name == "probability"
+    kind = {"probability": "classifier", "centre_map": "centres"}.get(chosen.name, "layer")
     return CalibratedDetector(
-        kind="classifier" if probability else "layer",
+        kind=kind,
         layer=chosen.name,
         band_names=tuple(band_names),
         dtype=str(info.dtype),
@@ -1103,9 +1313,12 @@ def _detector_record(
         min_response=chosen.min_response,
         min_value=chosen.min_value,
         background=chosen.background,
-        features=spec if probability else None,
-        forest=forest if probability else None,
+        features=models.get("features"),
+        forest=models.get("forest"),
+        centre_features=models.get("centre_features"),
+        centre_model=models.get("centre_model"),
         split=dict(chosen.split),
+        centres=dict(chosen.centres),
         cross_validation={**folds, **chosen.score.as_dict()},
         candidates=[r.score.as_dict() for r in runs],
         training=training,

@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from ecoscan.detect.centres import WIDTH_SHARE
 from ecoscan.detect.pixel_model import SIMPLE_LAYERS, FeatureSpec, PlantLayer
 from ecoscan.errors import InputError
 from ecoscan.io.outputs import atomic_path
@@ -31,8 +32,12 @@ __all__ = [
     "write_detector",
 ]
 
-#: Version of the detector-file layout (raised when keys change meaning).
-FORMAT_VERSION = 2
+#: Version of the detector-file layout (raised when keys change meaning). Version 2 added
+#: ``[crown_split]``, version 3 the crown-centre map (``[centre_map]``, kind ``centres``
+#: with ``[centre_peaks]``, ``centre_weight`` in ``[crown_split]``; the model file then
+#: holds a mapping of models); a file is written with the lowest version that holds its
+#: content, so older readers still read what they can and refuse the rest with one line.
+FORMAT_VERSION = 3
 
 #: Largest relative difference between the raster's pixel size and the detector's.
 PIXEL_SIZE_TOLERANCE = 0.05
@@ -54,9 +59,10 @@ class CalibratedDetector:
     Attributes
     ----------
     kind : str
-        ``layer`` or ``classifier``.
+        ``layer``, ``classifier`` or ``centres``.
     layer : str
-        Simple layer name, or ``probability`` for the classifier.
+        Simple layer name, ``probability`` for the classifier, or ``centre_map`` for the
+        crown-centre regressor (:mod:`ecoscan.detect.centres`).
     band_names : tuple of str
         Name of each raster band, in band order (``red``, ``green``, ``blue``, ``nir``,
         ``bandN``).
@@ -93,6 +99,17 @@ class CalibratedDetector:
         blobs (:mod:`ecoscan.detect.canopy`): marker height ``h`` and least region peak
         ``min_peak`` (layer units), smoothing and least area as shares of the smallest
         crown radius and disc (``smooth_share``, ``min_area_share``). Empty: blobs.
+        With ``centre_weight``, the split runs on the probability plus that weight times
+        the centre map.
+    centres : dict
+        Kind ``centres``: crowns are the peaks of the centre map (:mod:`ecoscan.detect.
+        centres`), with smoothing and least distance as shares of the smallest crown
+        radius (``smooth_share``, ``distance_share``), least peak ``min_peak`` and the
+        median calibrated ``crown_diameter_m`` (written for every point).
+    centre_features : FeatureSpec or None
+        Features of the crown-centre regressor.
+    centre_model : object or None
+        The crown-centre regressor (loaded from the model file).
     """
 
     kind: str
@@ -116,10 +133,27 @@ class CalibratedDetector:
     forest: Any = None
     source: str = ""
     split: dict = field(default_factory=dict)
+    centres: dict = field(default_factory=dict)
+    centre_features: FeatureSpec | None = None
+    centre_model: Any = None
+
+    @property
+    def learnt(self) -> bool:
+        """True when a model file goes with the detector (classifier or centre map)."""
+        return self.kind in ("classifier", "centres")
 
     def plant_layer(self) -> PlantLayer:
         """The picklable layer function used by the tile workers."""
-        return PlantLayer(self.kind, self.layer, self.band_names, self.features, self.forest)
+        return PlantLayer(
+            self.kind,
+            self.layer,
+            self.band_names,
+            self.features,
+            self.forest,
+            self.centre_model,
+            self.centre_features,
+            float(self.split.get("centre_weight", 0.0)),
+        )
 
 
 # --- writing -------------------------------------------------------------------------------
@@ -158,6 +192,61 @@ def _toml_table(name: str, table: dict, comments: dict | None = None) -> list[st
     return lines
 
 
+def _model_tables(det: CalibratedDetector) -> list[str]:
+    """TOML lines of the model file, the centre map, the crown split and the centre peaks."""
+    lines: list[str] = []
+    if det.learnt:
+        table = {"model_file": det.model_file, "model_sha256": det.model_sha256}
+        if det.features is not None:
+            table.update(
+                sigma_min_px=det.features.sigma_min,
+                sigma_max_px=det.features.sigma_max,
+                num_sigma=det.features.num_sigma,
+                brightness_scale=det.features.brightness_scale,
+            )
+        lines += _toml_table("classifier", table)
+    if det.centre_features is not None:
+        lines += _toml_table(
+            "centre_map",
+            {
+                "sigma_min_px": det.centre_features.sigma_min,
+                "sigma_max_px": det.centre_features.sigma_max,
+                "num_sigma": det.centre_features.num_sigma,
+                "brightness_scale": det.centre_features.brightness_scale,
+                "target_width_share": WIDTH_SHARE,
+            },
+            {
+                "sigma_max_px": "features of the crown-centre regressor (in the model file)",
+                "target_width_share": "trained on Gaussians of this share of each crown radius",
+            },
+        )
+    if det.split:
+        lines += _toml_table(
+            "crown_split",
+            dict(det.split),
+            {
+                "h": "marker height (h-maxima) of the smoothed layer, layer units",
+                "min_peak": "regions whose smoothed peak is lower are ground",
+                "smooth_share": "Gaussian smoothing, share of the smallest crown radius",
+                "min_area_share": "smallest region, share of the smallest crown's disc",
+                "centre_weight": "the layer is the probability plus this times the centre map",
+            },
+        )
+    if det.centres:
+        lines += _toml_table(
+            "centre_peaks",
+            dict(det.centres),
+            {
+                "smooth_share": "Gaussian smoothing of the map, share of the smallest radius",
+                "distance_share": "a crown is the highest value within this share of the "
+                "smallest crown radius",
+                "min_peak": "least peak of the centre map (1 = a mapped crown centre)",
+                "crown_diameter_m": "median calibrated crown diameter (written per plant)",
+            },
+        )
+    return lines
+
+
 def to_toml(det: CalibratedDetector) -> str:
     """The detector as TOML text (see :func:`write_detector`)."""
     head = [
@@ -165,7 +254,7 @@ def to_toml(det: CalibratedDetector) -> str:
         "# Use it with `ecoscan detect RASTER --detector FILE` or, in a survey file,",
         '# detector = "FILE" in a [raster.detect] table.',
     ]
-    if det.kind == "classifier":
+    if det.learnt:
         head.append(
             "# The model file beside it is pickle-based: load detector files only from a "
             "trusted source."
@@ -173,9 +262,13 @@ def to_toml(det: CalibratedDetector) -> str:
     lines = [*head, ""]
     lines += _toml_table(
         "detector",
-        # version 2 adds [crown_split]; a file without it stays readable by version-1 readers
-        {"format_version": 2 if det.split else 1, "kind": det.kind, "layer": det.layer},
-        {"kind": "layer: a simple per-pixel layer; classifier: random-forest probability"},
+        # version 2 adds [crown_split], 3 the centre map; other files stay readable by older
+        # readers
+        {"format_version": _version(det), "kind": det.kind, "layer": det.layer},
+        {
+            "kind": "layer: a simple per-pixel layer; classifier: random-forest probability; "
+            "centres: peaks of a learnt crown-centre map"
+        },
     )
     lines += _toml_table(
         "raster",
@@ -202,29 +295,7 @@ def to_toml(det: CalibratedDetector) -> str:
             "background": "layer value of bare ground",
         },
     )
-    if det.kind == "classifier" and det.features is not None:
-        lines += _toml_table(
-            "classifier",
-            {
-                "model_file": det.model_file,
-                "model_sha256": det.model_sha256,
-                "sigma_min_px": det.features.sigma_min,
-                "sigma_max_px": det.features.sigma_max,
-                "num_sigma": det.features.num_sigma,
-                "brightness_scale": det.features.brightness_scale,
-            },
-        )
-    if det.split:
-        lines += _toml_table(
-            "crown_split",
-            dict(det.split),
-            {
-                "h": "marker height (h-maxima) of the smoothed layer, layer units",
-                "min_peak": "regions whose smoothed peak is lower are ground",
-                "smooth_share": "Gaussian smoothing, share of the smallest crown radius",
-                "min_area_share": "smallest region, share of the smallest crown's disc",
-            },
-        )
+    lines += _model_tables(det)
     lines += _toml_table("cross_validation", dict(det.cross_validation))
     for cand in det.candidates:
         lines.append("[[cross_validation.candidates]]")
@@ -233,6 +304,13 @@ def to_toml(det: CalibratedDetector) -> str:
     lines += _toml_table("training", dict(det.training))
     lines += _toml_table("software", dict(det.software))
     return "\n".join(lines).rstrip() + "\n"
+
+
+def _version(det: CalibratedDetector) -> int:
+    """The lowest format version that holds the detector."""
+    if det.centre_features is not None:
+        return 3
+    return 2 if det.split else 1
 
 
 def write_detector(path: str | os.PathLike, det: CalibratedDetector) -> list[Path]:
@@ -266,12 +344,15 @@ def write_detector(path: str | os.PathLike, det: CalibratedDetector) -> list[Pat
     """
     dest = Path(path)
     written: list[Path] = []
-    if det.kind == "classifier":
+    if det.learnt:
         import joblib
 
         model = dest.with_suffix(".model.joblib")
+        content = det.forest
+        if det.centre_model is not None:  # format 3: a mapping of the models
+            content = {"forest": det.forest, "centre_map": det.centre_model}
         with atomic_path(model) as tmp:
-            joblib.dump(det.forest, tmp, compress=3)
+            joblib.dump(content, tmp, compress=3)
         det.model_file = model.name
         det.model_sha256 = sha256_file(model)
         written.append(model)
@@ -331,7 +412,9 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
         )
     kind = _need(d, "detector", "kind", str, name)
     layer = _need(d, "detector", "layer", str, name)
-    if kind not in ("layer", "classifier") or (kind == "layer" and layer not in SIMPLE_LAYERS):
+    known = {"classifier": ("probability",), "centres": ("centre_map",)}
+    bad = layer not in SIMPLE_LAYERS if kind == "layer" else layer not in known.get(kind, ())
+    if bad:
         raise InputError(
             f"detector file {name}: unknown detector kind/layer {kind}/{layer}; make it again "
             "with ecoscan calibrate"
@@ -356,8 +439,12 @@ def read_detector(path: str | os.PathLike, *, load_model: bool = True) -> Calibr
     det.candidates = list(det.cross_validation.pop("candidates", []))
     if "crown_split" in d:
         det.split = _crown_split(d, name)
+    if kind == "centres":
+        det.centres = _centres(d, name)
+    if "centre_map" in d:
+        det.centre_features = _features(d, "centre_map", name)
     _check_values(det, name)
-    if kind == "classifier":
+    if det.learnt:
         _read_classifier(det, d, p, name, load_model)
     return det
 
@@ -389,12 +476,66 @@ def _crown_split(d: dict, name: str) -> dict[str, float | bool]:
             "make it again with ecoscan calibrate"
         )
     split["join_fragments"] = join
+    weight = d["crown_split"].get("centre_weight", 0.0)  # format 3 only
+    if isinstance(weight, bool) or not isinstance(weight, (int, float)) or not weight >= 0:
+        raise InputError(
+            f"detector file {name}: [crown_split] centre_weight must be a number of at least "
+            "0; make it again with ecoscan calibrate"
+        )
+    if weight:
+        if "centre_map" not in d:
+            raise InputError(
+                f"detector file {name}: [crown_split] centre_weight needs a [centre_map] "
+                "table; make it again with ecoscan calibrate"
+            )
+        split["centre_weight"] = float(weight)
     if not all(math.isfinite(v) for v in split.values()) or split["h"] <= 0:
         raise InputError(
             f"detector file {name} holds an impossible [crown_split] table; make it "
             "again with ecoscan calibrate"
         )
     return split
+
+
+def _features(d: dict, table: str, name: str) -> FeatureSpec:
+    """Pixel-feature settings from a ``[classifier]`` or ``[centre_map]`` table, checked."""
+    num = (int, float)
+    spec = FeatureSpec(
+        sigma_min=float(_need(d, table, "sigma_min_px", num, name)),
+        sigma_max=float(_need(d, table, "sigma_max_px", num, name)),
+        num_sigma=int(_need(d, table, "num_sigma", int, name)),
+        brightness_scale=float(_need(d, table, "brightness_scale", num, name)),
+    )
+    ok = (
+        0 < spec.sigma_min <= spec.sigma_max <= 256
+        and 1 <= spec.num_sigma <= 32
+        and math.isfinite(spec.brightness_scale)
+        and spec.brightness_scale > 0
+    )
+    if not ok:
+        raise InputError(
+            f"detector file {name} holds impossible [{table}] feature settings; make it "
+            "again with ecoscan calibrate"
+        )
+    return spec
+
+
+def _centres(d: dict, name: str) -> dict[str, float]:
+    """The ``[centre_peaks]`` table, checked."""
+    keys = ("smooth_share", "distance_share", "min_peak", "crown_diameter_m")
+    out = {k: float(_need(d, "centre_peaks", k, (int, float), name)) for k in keys}
+    ok = (
+        all(math.isfinite(v) for v in out.values())
+        and out["smooth_share"] >= 0
+        and out["distance_share"] > 0
+        and out["crown_diameter_m"] > 0
+    )
+    if not ok:
+        raise InputError(
+            f"detector file {name} holds an impossible [centre_peaks] table; make it again with "
+            "ecoscan calibrate"
+        )
+    return out
 
 
 def _check_values(det: CalibratedDetector, name: str) -> None:
@@ -416,14 +557,13 @@ def _check_values(det: CalibratedDetector, name: str) -> None:
 def _read_classifier(
     det: CalibratedDetector, d: dict, p: Path, name: str, load_model: bool
 ) -> None:
-    """The classifier's features and model file (hash checked before loading), in place."""
-    num = (int, float)
-    det.features = FeatureSpec(
-        sigma_min=float(_need(d, "classifier", "sigma_min_px", num, name)),
-        sigma_max=float(_need(d, "classifier", "sigma_max_px", num, name)),
-        num_sigma=int(_need(d, "classifier", "num_sigma", int, name)),
-        brightness_scale=float(_need(d, "classifier", "brightness_scale", num, name)),
-    )
+    """The models' features and model file (hash checked before loading), in place."""
+    if det.kind == "classifier":
+        det.features = _features(d, "classifier", name)
+    elif det.centre_features is None:
+        raise InputError(
+            f"detector file {name} lacks [centre_map]; make it again with ecoscan calibrate"
+        )
     det.model_file = _need(d, "classifier", "model_file", str, name)
     det.model_sha256 = _need(d, "classifier", "model_sha256", str, name)
     model = p.parent / det.model_file
@@ -447,13 +587,25 @@ def _read_classifier(
     import joblib
 
     try:
-        det.forest = joblib.load(model)
+        content = joblib.load(model)
     except Exception as exc:  # a file with the right hash but unreadable here
         raise InputError(
             f"cannot load the model file {det.model_file} ({type(exc).__name__}); "
             "it may come from another scikit-learn version: run ecoscan calibrate "
             "again"
         ) from None
+    if isinstance(content, dict):  # format 3: forest and centre map
+        det.forest = content.get("forest")
+        det.centre_model = content.get("centre_map")
+    else:
+        det.forest = content
+    need_forest = det.kind == "classifier"
+    need_centre = det.centre_features is not None
+    if (need_forest and det.forest is None) or (need_centre and det.centre_model is None):
+        raise InputError(
+            f"the model file {det.model_file} lacks a model that {name} names; run ecoscan "
+            "calibrate again"
+        )
 
 
 def check_raster(det: CalibratedDetector, raster_name: str, info) -> list[str]:

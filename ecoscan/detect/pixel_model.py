@@ -235,7 +235,7 @@ def predict_probability(
     Returns
     -------
     numpy.ndarray
-        float32 probabilities, shape (rows, columns).
+        float32 probabilities (a regressor's predictions), shape (rows, columns).
     """
     _nb, h, w = data.shape
     out = np.empty((h, w), np.float32)
@@ -258,6 +258,11 @@ def predict_probability(
 def _proba(forest: Any, x: np.ndarray) -> np.ndarray:
     if x.shape[0] == 0:
         return np.empty(0, np.float32)
+    if not hasattr(forest, "predict_proba"):  # a regressor (the centre map): its prediction
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(limits=1):  # OpenMP threads spin on a shared machine
+            return np.asarray(forest.predict(x), np.float32)
     p = forest.predict_proba(x)
     col = list(forest.classes_).index(1) if 1 in forest.classes_ else None
     if col is None:
@@ -274,16 +279,24 @@ class PlantLayer:
     Attributes
     ----------
     kind : str
-        ``layer`` (a simple layer) or ``classifier`` (random-forest probability).
+        ``layer`` (a simple layer), ``classifier`` (random-forest probability, plus
+        ``centre_weight`` times the centre map when that is set) or ``centres`` (a
+        regressor's crown-centre map alone, :mod:`ecoscan.detect.centres`).
     layer : str
-        Simple layer name (``exg``, ``ndvi``, ``darkness``, ``brightness``) or
-        ``probability``.
+        Simple layer name (``exg``, ``ndvi``, ``darkness``, ``brightness``),
+        ``probability`` or ``centre_map``.
     band_names : tuple of str
         Name of each band read, in order.
     spec : FeatureSpec or None
         Classifier features.
     forest : object or None
         The trained classifier.
+    centre_model : object or None
+        The crown-centre regressor.
+    centre_spec : FeatureSpec or None
+        Its features.
+    centre_weight : float
+        Weight of the centre map added to the probability (kind ``classifier``).
 
     Examples
     --------
@@ -297,14 +310,29 @@ class PlantLayer:
     band_names: tuple[str, ...]
     spec: FeatureSpec | None = None
     forest: Any = None
+    centre_model: Any = None
+    centre_spec: FeatureSpec | None = None
+    centre_weight: float = 0.0
 
     @property
     def halo_px(self) -> int:
         """Pixels beyond a tile's core that the layer needs (0 for simple layers)."""
-        return self.spec.halo_px if self.kind == "classifier" and self.spec else 0
+        if self.kind == "layer":
+            return 0
+        halo = self.spec.halo_px if self.kind == "classifier" and self.spec else 0
+        if self.centre_spec is not None and (self.kind == "centres" or self.centre_weight):
+            halo = max(halo, self.centre_spec.halo_px)
+        return halo
 
     def __call__(self, data: np.ndarray) -> np.ndarray:
         """The plant layer of band values shaped (bands, rows, columns)."""
         if self.kind == "layer":
             return simple_layer(data, self.band_names, self.layer)
-        return predict_probability(self.forest, data, self.band_names, self.spec)
+        if self.kind == "centres":
+            return predict_probability(self.centre_model, data, self.band_names, self.centre_spec)
+        out = predict_probability(self.forest, data, self.band_names, self.spec)
+        if self.centre_weight:
+            out += np.float32(self.centre_weight) * predict_probability(
+                self.centre_model, data, self.band_names, self.centre_spec
+            )
+        return out

@@ -3,25 +3,44 @@
 The detector file (:mod:`ecoscan.detect.detector_file`) fixes the layer (a simple layer or
 a pixel classifier's plant probability, :mod:`ecoscan.detect.pixel_model`), the thresholds
 and the crown range; tiles then run as the ``imagery`` detector's blobs (or its watershed
-crown split when the file asks for one). Chosen by ``--detector FILE``, never by
-``--method``.
+crown split when the file asks for one), or, for a crown-centre map, as the peaks of the
+map (:mod:`ecoscan.detect.centres`). Chosen by ``--detector FILE``, never by ``--method``.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ecoscan.detect.detectors.base import Prepared
+import numpy as np
+
+from ecoscan.detect.centres import CentrePeaks
+from ecoscan.detect.detectors.base import Prepared, TilePoints
 from ecoscan.detect.detectors.blob import BlobPlan, ImageryDetector
 
 if TYPE_CHECKING:
     from ecoscan.detect.detector_file import CalibratedDetector
     from ecoscan.detect.settings import DetectionSettings
 
-__all__ = ["CalibratedBlobDetector", "calibrated_plan"]
+__all__ = ["CalibratedBlobDetector", "CentrePlan", "calibrated_plan"]
+
+
+@dataclass(frozen=True)
+class CentrePlan(BlobPlan):
+    """A blob plan whose tiles give the peaks of a crown-centre map instead of blobs.
+
+    Attributes
+    ----------
+    peaks : CentrePeaks or None
+        The peak search (pixels).
+    diameter_px : float
+        Crown diameter written for every point (the median calibrated diameter), pixels.
+    """
+
+    peaks: CentrePeaks | None = None
+    diameter_px: float = 0.0
 
 
 def _crown_split(det: CalibratedDetector, r_min: float, r_max: float):
@@ -94,7 +113,21 @@ def calibrated_plan(det: CalibratedDetector, info, raster_name: str):
         "background": det.background,
         "how": "calibrated from mapped plants",
     }
-    if det.split:  # closed canopy: watershed crown split of the calibrated layer
+    if det.centres:  # peaks of the crown-centre map
+        r_min = dmin_px / 2.0
+        peaks = CentrePeaks(
+            min_distance_px=det.centres["distance_share"] * r_min,
+            smooth_px=det.centres["smooth_share"] * r_min,
+            min_peak=det.centres["min_peak"],
+        )
+        plan = CentrePlan(
+            **{f: getattr(plan, f) for f in BlobPlan.__dataclass_fields__},
+            peaks=peaks,
+            diameter_px=det.centres["crown_diameter_m"] / ps,
+        )
+        overlap = peaks.reach_px + layer.halo_px
+        thresholds["centres"] = dict(det.centres)
+    elif det.split:  # closed canopy: watershed crown split of the calibrated layer
         split = _crown_split(det, dmin_px / 2.0, dmax_px / 2.0)
         plan = replace(plan, canopy=split, roles=tuple(det.band_names))
         overlap = max(overlap, split.overlap_px + layer.halo_px)
@@ -121,6 +154,39 @@ class CalibratedBlobDetector(ImageryDetector):
         det = read_detector(settings.detector)
         plan, overlap, align, th, notes = calibrated_plan(det, info, source)
         return Prepared(plan, overlap, align, th, notes, f"calibrated:{det.layer}")
+
+    def run(self, window, plan):
+        """Peaks of the centre map in one window, or the imagery detector's tile."""
+        if not isinstance(plan, CentrePlan):
+            return super().run(window, plan)
+        layer = plan.layer_model(window.pop_data())
+        valid = window.valid
+        if not valid.all():
+            layer[~valid] = 0.0
+        found = plan.peaks(layer, valid, window.origin)
+        n = found["col"].size
+        return TilePoints(
+            found["col"],
+            found["row"],
+            {
+                "sigma_px": np.full(n, plan.diameter_px / (2.0 * math.sqrt(2.0))),
+                "score": found["peak"],
+                "index_value": found["peak"],
+            },
+        )
+
+    def finish(self, points, plan):
+        """Centre-map peaks are final (each is the highest within its disc); otherwise the
+        imagery detector's pruning."""
+        if not isinstance(plan, CentrePlan):
+            return super().finish(points, plan)
+        c = points.columns
+        attrs = {
+            "diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m,
+            "score": c["score"],
+            "index_value": c["index_value"],
+        }
+        return points, attrs, []
 
 
 DETECTOR = CalibratedBlobDetector()
