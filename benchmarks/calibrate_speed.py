@@ -30,9 +30,10 @@ from ecoscan.model.points import PointSet
 from ecoscan.synthetic import SCENE_STYLES, make_scene, write_scene
 
 
-def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:
-    """Calibrate on ``train``, score on ``test``; returns a row of figures."""
-    sc = make_scene(style, size, seed)
+def calibrate_and_score(sc, folder: Path, stem: str) -> dict:
+    """Write scene ``sc``, calibrate on its ``train`` plot, detect with the learnt file and
+    score on its ``test`` plot (matching within half the smallest diameter, as ``ecoscan
+    validate`` does). Returns the calibration result, the test row and the timings."""
     paths = write_scene(sc, folder)
     info = open_raster(paths.raster)
     ref = read_points(paths.truth)
@@ -45,11 +46,25 @@ def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:
         info, ref, train, band_names=band_names_for(info, parse_band_spec(sc.bands_option))
     )
     t1, c1 = time.perf_counter(), time.process_time()
-    toml = folder / f"{style}.toml"
+    toml = folder / f"{stem}.toml"
     write_detector(toml, res.detector)
     det = detect_raster(paths.raster, DetectionSettings(detector=str(toml)), plots=test)
-    t2 = time.perf_counter()
+    t2, c2 = time.perf_counter(), time.process_time()
     row = validate_points(det.points, ref, 0.5 * sc.diameter_range_m[0], plots=test)[-1]
+    return {
+        "result": res,
+        "row": row,
+        "calibrate_s": t1 - t0,
+        "calibrate_cpu_s": c1 - c0,
+        "detect_s": t2 - t1,
+        "detect_cpu_s": c2 - c1,
+    }
+
+
+def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:
+    """Calibrate on ``train``, score on ``test``; returns a row of figures."""
+    got = calibrate_and_score(make_scene(style, size, seed), folder, style)
+    res, row = got["result"], got["row"]
     return {
         "style": style,
         "layer": res.detector.layer,
@@ -57,9 +72,9 @@ def one_style(style: str, size: int, folder: Path, seed: int = 0) -> dict:
         "precision": row.precision,
         "recall": row.recall,
         "f1": row.f1,
-        "calibrate_s": t1 - t0,
-        "calibrate_cpu_s": c1 - c0,
-        "detect_s": t2 - t1,
+        "calibrate_s": got["calibrate_s"],
+        "calibrate_cpu_s": got["calibrate_cpu_s"],
+        "detect_s": got["detect_s"],
         "plants": res.detector.training["plants"],
     }
 

@@ -213,36 +213,13 @@ def ecoscan_default(scene, raster: Path, tol: float, workers: int) -> dict:
 
 def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
     """Calibrate on the scene's ``train`` plot and score on its ``test`` plot."""
-    from ecoscan.analysis.validation.compute import validate_points
-    from ecoscan.detect import DetectionSettings, detect_raster
-    from ecoscan.detect.calibration import band_names_for, calibrate_detector
-    from ecoscan.detect.detector_file import write_detector
-    from ecoscan.detect.settings import parse_band_spec
-    from ecoscan.io.raster import open_raster
-    from ecoscan.io.vector import read_plots, read_points
-    from ecoscan.model.plots import PlotLayer
-    from ecoscan.model.points import PointSet
-    from ecoscan.synthetic import make_scene, write_scene
+    from calibrate_speed import calibrate_and_score
+
+    from ecoscan.synthetic import make_scene
 
     size = max(size, CALIBRATED_MIN_SIZE.get(style, 0))
-    sc = make_scene(style, size, seed)
-    paths = write_scene(sc, folder)
-    info = open_raster(paths.raster)
-    ref = read_points(paths.truth)
-    ref = PointSet(ref.x, ref.y, {}, ref.crs)  # positions only, as mapped in the field
-    plots = read_plots(paths.plots, target_crs=info.crs)
-    train = PlotLayer([p for p in plots.plots if p.plot_id == "train"], plots.crs)
-    test = PlotLayer([p for p in plots.plots if p.plot_id == "test"], plots.crs)
-    c0 = time.process_time()
-    res = calibrate_detector(
-        info, ref, train, band_names=band_names_for(info, parse_band_spec(sc.bands_option))
-    )
-    c1 = time.process_time()
-    toml = folder / f"{style}_{seed}.toml"
-    write_detector(toml, res.detector)
-    det = detect_raster(paths.raster, DetectionSettings(detector=str(toml)), plots=test)
-    c2 = time.process_time()
-    row = validate_points(det.points, ref, 0.5 * sc.diameter_range_m[0], plots=test)[-1]
+    got = calibrate_and_score(make_scene(style, size, seed), folder, f"{style}_{seed}")
+    res, row = got["result"], got["row"]
     d = res.detector
     split = getattr(d, "split", None) or {}
     route = d.layer + (" split" if split else "")
@@ -257,8 +234,8 @@ def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
         "precision": row.precision,
         "recall": row.recall,
         "f1": row.f1,
-        "calibrate_cpu_s": c1 - c0,
-        "detect_cpu_s": c2 - c1,
+        "calibrate_cpu_s": got["calibrate_cpu_s"],
+        "detect_cpu_s": got["detect_cpu_s"],
     }
 
 
