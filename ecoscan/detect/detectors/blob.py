@@ -285,6 +285,7 @@ def _canopy_points(
         max_area_px=cs.max_area_px,
         lean=(cs.lean_col, cs.lean_row),
         tint=tint,
+        crown_join=cs.crown_join,
     )
     return TilePoints(
         np.asarray(found["col"], float),

@@ -169,6 +169,12 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
             f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
             f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
         ),
+        "canopy_join_crown_scale": split.crown_join,
+        "canopy_join_crown_scale_from": (
+            f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
+            f"neighbours meeting >= {canopy.CROWN_SCALE_PASS:g} of the way up on the layer "
+            f"smoothed at {canopy.CROWN_SCALE_SHARE:g} x the larger region's radius"
+        ),
         "weak_separation": False,
         "split_touching": True,
     }
