@@ -476,11 +476,11 @@ def join_at_crown_scale(
     >>> yy, xx = np.mgrid[:60, :120].astype(float)
     >>> def dome(cx, r):
     ...     return np.sqrt(np.clip(r * r - (xx - cx) ** 2 - (yy - 30) ** 2, 0, None)) / r
-    >>> clumps = 0.15 * (np.exp(-((xx - 22) ** 2 + (yy - 30) ** 2) / 20)
+    >>> clumps = 0.08 * (np.exp(-((xx - 22) ** 2 + (yy - 30) ** 2) / 20)
     ...                  + np.exp(-((xx - 38) ** 2 + (yy - 30) ** 2) / 20))
     >>> one = dome(30, 24) + clumps
     >>> markers = np.zeros(one.shape, int); markers[30, 22] = 1; markers[30, 38] = 2
-    >>> reg = watershed(-one, markers, mask=one > 0)
+    >>> reg = watershed(-one, markers, mask=dome(30, 24) > 0)
     >>> join_at_crown_scale(reg, 2, one, 1.0, 25.0, 3000.0).tolist()
     [0, 1, 1]
     >>> two = np.maximum(dome(30, 20), dome(68, 20))
