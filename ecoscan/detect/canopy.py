@@ -105,6 +105,14 @@ CROWN_SCALE_GAIN = 0.05
 CROWN_SCALE_REACH = 1.05
 #: ... and their mean tint g / (r + g + b) may differ by at most this much.
 CROWN_SCALE_TINT_STEP = 0.02
+#: A second way to show there is no valley between two neighbours: on the layer they were
+#: grown on, the valley between them is no deeper than this many standard deviations of
+#: the layer within the two (the leaf texture inside a crown), with looser geometry and
+#: a tighter tint limit (the next three). Chosen on the tuning scenes as above.
+TEXTURE_VALLEY_SDS = 0.3
+TEXTURE_GAIN = 0.0
+TEXTURE_REACH = 1.1
+TEXTURE_TINT_STEP = 0.015
 #: Joining at the crown's scale presumes shaded domes (leaf clumps make extra maxima on
 #: one lit dome); it is switched on only when the raster's lean (:func:`level_set_lean`,
 #: in region radii) reaches this: flat-coloured crowns without shading measure 0.019-0.026
@@ -424,6 +432,7 @@ def join_at_crown_scale(
     reach: float = CROWN_SCALE_REACH,
     max_tint_step: float = CROWN_SCALE_TINT_STEP,
     rounds: int = CROWN_SCALE_ROUNDS,
+    texture_sds: float | None = TEXTURE_VALLEY_SDS,
 ) -> np.ndarray:
     """Join neighbouring regions that show no valley at the larger one's own scale.
 
@@ -439,8 +448,14 @@ def join_at_crown_scale(
     two by ``gain`` in roundness (:func:`merge_fragments`), their centroids lie within
     ``reach`` × the union's equal-area radius (two crowns whose centres lie outside each
     other's crowns lie farther apart), their mean tint differs by at most
-    ``max_tint_step`` and the union is no larger than ``max_area_px``. Joins are made
-    best first (highest pass), each region at most once per round.
+    ``max_tint_step`` and the union is no larger than ``max_area_px``. A pair is also
+    joined when, on ``layer`` itself, the valley between the two is no deeper (from the
+    lower peak down to their pass) than ``texture_sds`` standard deviations of the layer
+    within them (the valley is no deeper than the leaf texture inside a crown), one disc
+    fits their union no worse than two (``TEXTURE_GAIN``), their centroids lie within
+    ``TEXTURE_REACH`` union radii and their tint differs by at most
+    ``TEXTURE_TINT_STEP``. Joins are made best first (highest pass at the crown's
+    scale), each region at most once per round.
 
     Parameters
     ----------
@@ -460,6 +475,8 @@ def join_at_crown_scale(
         :func:`canopy_tint` of the window.
     share, min_pass, gain, reach, max_tint_step, rounds
         The rule's limits (module constants by default).
+    texture_sds : float, optional
+        The texture-relative valley test's limit (``None``: not used).
 
     Returns
     -------
@@ -504,11 +521,12 @@ def join_at_crown_scale(
         return cache[k]
 
     tint_flat = None if tint is None else np.asarray(tint, np.float64).ravel()
+    lay_flat = lay.ravel().astype(np.float64)
     for _round in range(rounds):
         reg = lut[regions]
         mom = np.vstack([np.zeros((1, 6)), _moments(reg, n)])
         area = mom[:, 0]
-        pairs, _ = _neighbour_pairs(reg)
+        pairs, fine_pass = _neighbour_pairs(reg, lay)
         if pairs.size == 0:
             break
         i, j = pairs[:, 0], pairs[:, 1]
@@ -520,12 +538,30 @@ def join_at_crown_scale(
         safe = np.maximum(area, 1.0)
         dist = np.hypot(mom[i, 1] / safe[i] - mom[j, 1] / safe[j],
                         mom[i, 2] / safe[i] - mom[j, 2] / safe[j])
-        cand = (score >= gain) & (mu[:, 0] <= max_area_px)
-        cand &= dist <= reach * np.sqrt(mu[:, 0] / math.pi)
+        union_r = np.sqrt(mu[:, 0] / math.pi)
+        small = mu[:, 0] <= max_area_px
+        cand = (score >= gain) & small & (dist <= reach * union_r)
+        tint_step = np.zeros(len(i))
         if tint_flat is not None:
             mean_tint = np.bincount(reg.ravel(), tint_flat, n + 1) / safe
-            cand &= np.abs(mean_tint[i] - mean_tint[j]) <= max_tint_step
-        if not cand.any():
+            tint_step = np.abs(mean_tint[i] - mean_tint[j])
+        cand &= tint_step <= max_tint_step
+        texture = np.zeros(len(i), bool)
+        if texture_sds is not None:
+            # the valley against the texture inside the two: depth from the lower peak
+            # down to their pass, over the pooled within-region standard deviation
+            s1 = np.bincount(reg.ravel(), lay_flat, n + 1)
+            s2 = np.bincount(reg.ravel(), lay_flat * lay_flat, n + 1)
+            var = np.maximum(s2 / safe - (s1 / safe) ** 2, 0.0)
+            sd = np.sqrt((var[i] * area[i] + var[j] * area[j]) / np.maximum(mu[:, 0], 1.0))
+            top = np.full(n + 1, -np.inf)
+            present = np.flatnonzero(area > 0)
+            present = present[present > 0]
+            top[present] = ndimage.maximum(lay, reg, present)
+            depth = np.minimum(top[i], top[j]) - fine_pass
+            texture = (depth <= texture_sds * sd) & (score >= TEXTURE_GAIN) & small
+            texture &= (dist <= TEXTURE_REACH * union_r) & (tint_step <= TEXTURE_TINT_STEP)
+        if not (cand.any() or texture.any()):
             break
         r_big = np.sqrt(np.maximum(area[i], area[j]) / math.pi)
         pick = np.argmin(np.abs(np.log(ladder[None, :] / (share * r_big[:, None]))), axis=1)
@@ -545,7 +581,8 @@ def join_at_crown_scale(
             floor = np.minimum(low[i[sel]], low[j[sel]])
             rise = np.minimum(peak[i[sel]], peak[j[sel]]) - floor
             passed[sel] = (pas[at] - floor) / np.maximum(rise, 1e-12)
-        ok = cand & (passed >= min_pass)
+        ok = (cand & (passed >= min_pass)) | texture
+        passed[texture & ~np.isfinite(passed)] = min_pass
         if not ok.any():
             break
         used = np.zeros(n + 1, bool)
