@@ -168,3 +168,27 @@ def test_crown_scale_join_is_on_for_shaded_domes_only():
     above = _dome_grid(90.0)
     assert math.hypot(above.lean_col, above.lean_row) < canopy.MIN_DOME_LEAN
     assert not above.crown_join
+
+
+@pytest.mark.parametrize("valley_sds, joined", [(0.1, True), (1.5, False)])
+def test_valley_no_deeper_than_the_leaf_texture_joins(valley_sds, joined):
+    # two halves of one dome with fine leaf texture, cut by a groove valley_sds standard
+    # deviations of the layer within the crown deep; the crown-scale pass test is
+    # switched off (min_pass 2) so that only the texture-relative test can join them
+    from scipy import ndimage
+
+    rng = np.random.default_rng(3)
+    yy, xx = np.mgrid[:80, :80].astype(float)
+    rho = np.hypot(xx - 40, yy - 40) / 30
+    disc = rho < 1
+    layer = 10.0 * np.sqrt(np.clip(1 - rho**2, 0, None))
+    layer += ndimage.gaussian_filter(rng.normal(0.0, 1.0, (80, 80)), 2.0)
+    sd = layer[disc].std()
+    layer -= valley_sds * sd * np.exp(-((xx - 40) ** 2) / 2.0)
+    layer[~disc] = 0.0
+    reg = np.where(disc, np.where(xx < 40, 1, 2), 0)
+    common = dict(min_pass=2.0)
+    lut = canopy.join_at_crown_scale(reg, 2, layer, 1.0, R_MAX, MAX_AREA, **common)
+    assert (lut[1] == lut[2]) == joined
+    off = canopy.join_at_crown_scale(reg, 2, layer, 1.0, R_MAX, MAX_AREA, texture_sds=None, **common)
+    assert off[1] != off[2]
