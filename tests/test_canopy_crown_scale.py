@@ -190,5 +190,7 @@ def test_valley_no_deeper_than_the_leaf_texture_joins(valley_sds, joined):
     common = dict(min_pass=2.0)
     lut = canopy.join_at_crown_scale(reg, 2, layer, 1.0, R_MAX, MAX_AREA, **common)
     assert (lut[1] == lut[2]) == joined
-    off = canopy.join_at_crown_scale(reg, 2, layer, 1.0, R_MAX, MAX_AREA, texture_sds=None, **common)
+    off = canopy.join_at_crown_scale(
+        reg, 2, layer, 1.0, R_MAX, MAX_AREA, texture_sds=None, **common
+    )
     assert off[1] != off[2]
