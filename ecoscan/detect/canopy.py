@@ -536,8 +536,9 @@ def join_at_crown_scale(
         )
         score = _roundness(mu) - parts
         safe = np.maximum(area, 1.0)
-        dist = np.hypot(mom[i, 1] / safe[i] - mom[j, 1] / safe[j],
-                        mom[i, 2] / safe[i] - mom[j, 2] / safe[j])
+        dist = np.hypot(
+            mom[i, 1] / safe[i] - mom[j, 1] / safe[j], mom[i, 2] / safe[i] - mom[j, 2] / safe[j]
+        )
         union_r = np.sqrt(mu[:, 0] / math.pi)
         small = mu[:, 0] <= max_area_px
         cand = (score >= gain) & small & (dist <= reach * union_r)
@@ -796,9 +797,8 @@ def split_crowns(
         if crown_join:
             # max_area_px is MERGE_MAX_AREA_SHARE x the largest crown's disc
             r_max = math.sqrt(max_area_px / (MERGE_MAX_AREA_SHARE * math.pi))
-            regions = join_at_crown_scale(
-                regions, n, smooth, s, r_max, max_area_px, tint=tint
-            )[regions]
+            joined = join_at_crown_scale(regions, n, smooth, s, r_max, max_area_px, tint=tint)
+            regions = joined[regions]
         idx = np.unique(regions[regions > 0])
     else:
         idx = np.arange(1, n + 1)
