@@ -212,10 +212,6 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         ring_mads=ring_test(choice),
     )
-    from ecoscan.detect.ground_colour import reach_px
-
-    # a smoothed layer reads beyond the blob filter's reach: widen the tiles' overlap
-    overlap += max((reach_px(n) for n, _w in choice.terms), default=0)
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
     if params.ring_mads is not None:  # each ring pixel must be exact in every tile's core
