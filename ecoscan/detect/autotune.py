@@ -52,6 +52,7 @@ __all__ = [
     "near_shares",
     "ring_test",
     "robust_centre_scale",
+    "strong_test",
     "threshold_raise",
 ]
 
@@ -106,6 +107,14 @@ VALUE_SAMPLE_PX = 2_000_000
 #: where one spread for the whole raster is too low for grass patches and compression
 #: blocks. The same 1 as ``VALUE_MADS``, applied locally.
 RING_MADS = 1.0
+#: Clear blobs below the centre-value threshold (:func:`strong_test`): kept when the
+#: layer at the centre reaches the background median plus this many robust SDs ...
+STRONG_VALUE_MADS = 0.0
+#: ... and the response this many times the scale's threshold (None: the rule off).
+#: Chosen on benchmarks/tuning_scenes.py (1.5 lowered tuning ``pines`` and ``grass``)
+#: and the suite's development seeds (2 added ground points on rocky shrubland, whose
+#: responses were 2.05-2.11 times the threshold; docs/detection.md).
+STRONG_RATIO: float | None = 3.0
 #: Label of the colour layer that ignores brightness (:mod:`ecoscan.detect.chromaticity`).
 INVARIANT = "chroma"
 #: The log-chromaticity layers.
@@ -294,6 +303,38 @@ def ring_test(choice: LayerChoice) -> float | None:
     True
     """
     return RING_MADS if choice.threshold_raise > 1.0 else None
+
+
+def strong_test(choice: LayerChoice) -> tuple[float, float] | None:
+    """``(lowest centre value, response factor)`` for clear blobs below the centre-value
+    threshold (:func:`ecoscan.detect.blobs.detect_blobs`, ``strong``), or None.
+
+    A pale or senescent crown has a vegetation-index value near the ground's: the layer at
+    its centre can fall short of ``background + VALUE_MADS × spread`` while its blob
+    response, its contrast with the ground right around it, is clear. Such a blob is kept
+    when its centre value reaches ``background + STRONG_VALUE_MADS × spread`` and its
+    response ``STRONG_RATIO`` times its scale's threshold. Only on smooth ground (no
+    threshold raise: on rough ground the ring test is the local check), only on layers
+    holding Excess Green (a darkness or log-chromaticity layer has no index value for a
+    pale crown to fall short of; on NDVI it added ground points on the suite's
+    multispectral development seed 7) and never on closed canopy.
+
+    Examples
+    --------
+    >>> c = LayerChoice("exg", (("exg", 1.0),), 0.02, 0.01, (1.0,), 1.0, 0.03, 5.0, 0.0, 20)
+    >>> strong_test(c)
+    (0.02, 3.0)
+    >>> strong_test(LayerChoice("darkness", (("darkness", 1.0),), 0.0, 1.0, (1.0,), 1.0,
+    ...                         1.0, 5.0, 0.0, 20)) is None
+    True
+    """
+    if STRONG_RATIO is None or choice.closed or not math.isfinite(choice.min_value):
+        return None
+    if choice.threshold_raise > 1.0:
+        return None
+    if not any(n == "exg" for n, _w in choice.terms):
+        return None
+    return (choice.background + STRONG_VALUE_MADS * choice.spread, STRONG_RATIO)
 
 
 def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
