@@ -1060,6 +1060,12 @@ def choose_layer(
     m, s = res["background"], res["spread"]
     layers = next(job.layers for job in jobs if job.label == label)
     elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
+    if label not in SHADOW_FREE:  # the classic choice unusable: the colour layer's valley
+        rescue = _shadow_free_rescue(jobs, results, cache, res, elong)
+        if rescue is not None:
+            label, terms, layers, res, elong = rescue
+            m, s = res["background"], res["spread"]
+            scores[label + "-valley"] = round(res["separation"], 3)
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -1069,7 +1075,7 @@ def choose_layer(
         min_response=tuple(float(v) for v in thresholds),
         min_contrast=float(np.median(thresholds) / DISC_RESPONSE),
         threshold_raise=res["raise"],
-        min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
+        min_value=-math.inf if res["closed"] else res.get("min_value", m + VALUE_MADS * s),
         closed=res["closed"],
         separation=res["separation"],
         near_share=res["near_share"],
@@ -1134,6 +1140,58 @@ def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
     valid = [w.valid for w in windows]
     core = [w.core for w in windows]
     return [_LayerJob(INVARIANT, terms, layers, valid, core, scales, None)]
+
+
+def _shadow_free_rescue(jobs, results, cache: _WindowCache, res: dict, elong: dict):
+    """The log-chromaticity layer with thresholds from the valley between its candidates,
+    where the classic layers' best choice is unusable; None where it is usable or the
+    colour layer does not help.
+
+    Unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
+    split) or its blobs stretched along one axis (crowns joined to their cast shadows,
+    :func:`ecoscan.detect.elongation.is_aligned`). The colour layer's response noise is
+    then the spread of its background response floored over scales
+    (:func:`ecoscan.detect.chromaticity.floor_spread`); its candidates must reach the
+    ground's median level and a response in the valley between the ground's bumps and the
+    plants (:func:`ecoscan.detect.chromaticity.valley_factor`). Used when that keeps at
+    least ``MIN_CANDIDATES`` whose blobs are not aligned (docs/detection.md, "Conifer
+    pasture, fourth round").
+    """
+    from ecoscan.detect.chromaticity import floor_spread, valley_factor
+    from ecoscan.detect.detectors.blob import MIN_CANDIDATES
+    from ecoscan.detect.elongation import is_aligned
+
+    if res["candidates"] >= MIN_CANDIDATES and not is_aligned(elong):
+        return None
+    found = [(j, r) for j, r in zip(jobs, results, strict=True) if j.label in SHADOW_FREE]
+    if not found or found[0][1]["closed"]:
+        return None
+    job, cres = found[0]
+    m = cres["background"]
+    sr = floor_spread(cres["response_spread"])
+    cand = _candidates(_LayerPyramids(job.layers, cache, m), 0.5 * sr)
+    si = _scale_index(cache.scales, cand["sigma"])
+    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
+    zok = cand["value"] >= m
+    factor = valley_factor(ratio, zok)
+    kept = (ratio >= factor) & zok
+    if int(kept.sum()) < MIN_CANDIDATES:
+        return None
+    near = float(near_shares(ratio, zok, np.array([factor]))[0])
+    blobs = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float)
+    own = _kept_elongation(job.layers, cache.windows, blobs, m)
+    med = RESPONSE_MADS * float(np.median(ratio[kept])) / factor
+    out = {
+        **cres,
+        "response_spread": sr,
+        "raise": factor,
+        "separation": med * (1.0 - min(1.0, near)),
+        "near_share": near,
+        "candidates": int(kept.sum()),
+        "min_value": m,
+        "kept_blobs": blobs,
+    }
+    return job.label, job.terms, job.layers, out, own
 
 
 def _kept_elongation(layers, windows, kept, level: float) -> dict:
