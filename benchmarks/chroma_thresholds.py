@@ -94,7 +94,8 @@ def _chroma_detail(at, job, cache, res, scales, xy, dmin) -> None:
     lo = vals[vals <= m]
     hi = vals[vals >= m]
     print(
-        "    layer quantiles 1/5/25/50/75/95/99 %: " + " ".join(f"{v:.3f}" for v in q)
+        "    layer quantiles 1/5/25/50/75/95/99 %: "
+        + " ".join(f"{v:.3f}" for v in q)
         + f" | robust SD lower side {1.4826 * np.median(m - lo):.4f}"
         f" upper side {1.4826 * np.median(hi - m):.4f}"
     )
@@ -111,9 +112,7 @@ def _chroma_detail(at, job, cache, res, scales, xy, dmin) -> None:
             f"    {name}: near a crown {true.sum()} quantiles 10/50/90 "
             + " ".join(f"{v:.2f}" for v in np.quantile(arr[true], [0.1, 0.5, 0.9]))
             + f" | others {(~true).sum()} (top 200) "
-            + " ".join(
-                f"{v:.2f}" for v in np.quantile(np.sort(arr[~true])[-200:], [0.1, 0.5, 0.9])
-            )
+            + " ".join(f"{v:.2f}" for v in np.quantile(np.sort(arr[~true])[-200:], [0.1, 0.5, 0.9]))
         )
     best = (0.0, 0.0)
     for t in np.quantile(cand["response"][cand["response"] > 0], np.linspace(0, 0.995, 50)):
@@ -152,7 +151,13 @@ def main(argv: list[str] | None = None) -> None:
             thr = res["raise"] * at.response_mads(scales) * res["response_spread"]
             mv = -math.inf if res["closed"] else res["background"] + at.VALUE_MADS * res["spread"]
             f1, n = detect_f1(
-                layer, scales, thr, mv, res["background"], xy, dmin,
+                layer,
+                scales,
+                thr,
+                mv,
+                res["background"],
+                xy,
+                dmin,
                 at.RING_MADS if res["raise"] > 1 else None,
             )
             print(

@@ -39,6 +39,7 @@ __all__ = [
     "floor_spread",
     "invariant_terms",
     "log_chromaticity",
+    "otsu_split",
     "projection_entropy",
     "valley_factor",
 ]
@@ -288,13 +289,14 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     candidates: bumps of the ground and plants.
 
     Of the candidates that pass the noise threshold (``ratio`` ≥ 1) and the other tests
-    (``eligible``), the logarithms of ``ratio`` are split by Otsu's method (Otsu, N. 1979,
-    *A threshold selection method from gray-level histograms*, IEEE Trans. SMC 9: 62-66:
-    the split of greatest between-class variance, which for two modes of equal weight
-    and spread lies halfway between them). On the log scale, responses that differ by a
-    factor are equally far apart whatever the layer's units. The factor is ``exp`` of the
-    split, at least 1 and at most ``VALLEY_MAX``; 1 with fewer than ``VALLEY_MIN``
-    candidates.
+    (``eligible``), the logarithms of ``ratio`` are split by Otsu's method
+    (:func:`otsu_split`; Otsu, N. 1979, *A threshold selection method from gray-level
+    histograms*, IEEE Trans. SMC 9: 62-66: the split of greatest between-class variance,
+    which for two overlapping modes of equal weight and spread lies halfway between them,
+    and for two groups with a clean gap in the gap's middle). On the log scale,
+    responses that differ by a factor are equally far apart whatever the layer's units.
+    The factor is ``exp`` of the split, at least 1 and at most ``VALLEY_MAX``; 1 with
+    fewer than ``VALLEY_MIN`` candidates.
 
     Parameters
     ----------
@@ -317,13 +319,37 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     >>> bool(1.6 < f < 2.2)      # about the geometric mean sqrt(1.2 * 3.0) = 1.90
     True
     """
-    from skimage.filters import threshold_otsu
-
     r = np.asarray(ratio, float)
     sel = np.asarray(eligible, bool) & (r >= 1.0) & np.isfinite(r)
     if int(sel.sum()) < VALLEY_MIN:
         return 1.0
-    lr = np.log(r[sel])
-    if float(np.ptp(lr)) == 0.0:
+    split = otsu_split(np.log(r[sel]))
+    if split is None:
         return 1.0
-    return float(np.clip(math.exp(float(threshold_otsu(lr))), 1.0, VALLEY_MAX))
+    return float(np.clip(math.exp(split), 1.0, VALLEY_MAX))
+
+
+def otsu_split(values: np.ndarray) -> float | None:
+    """Otsu's split of values, exactly: the cut between two neighbouring sorted values
+    that maximises the between-class variance w0 w1 (mu0 - mu1)^2 (Otsu 1979), placed
+    halfway between them, so that two groups with a clean gap are split in its middle.
+    None when all values are equal.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> otsu_split(np.array([1.0, 1.1, 0.9, 5.0, 5.2, 4.9]))
+    3.0
+    """
+    v = np.sort(np.asarray(values, float))
+    n = v.size
+    if n < 2 or v[0] == v[-1]:
+        return None
+    k = np.arange(1, n)
+    c = np.cumsum(v)
+    mu0 = c[:-1] / k
+    mu1 = (c[-1] - c[:-1]) / (n - k)
+    between = (k / n) * (1.0 - k / n) * (mu0 - mu1) ** 2
+    between[v[1:] == v[:-1]] = -1.0  # no cut between equal values
+    i = int(np.argmax(between))
+    return 0.5 * float(v[i] + v[i + 1])
