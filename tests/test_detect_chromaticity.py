@@ -208,6 +208,9 @@ def test_conifers_joined_to_shadows_are_found_on_the_colour_layer(tmp_path):
     th = res.thresholds
     assert th["layer"] == "chroma"
     assert "chroma-valley" in th["layer_scores"]
+    assert th["vegetation_threshold"] == th["background"]  # the valley rule's value test
+    assert th["vegetation_threshold_from"] == "background median"
+    assert th["threshold_raise"] > 1.0
     assert f1 >= 0.75, f"F1 {f1:.3f}"
 
 

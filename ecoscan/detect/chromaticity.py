@@ -42,6 +42,7 @@ __all__ = [
     "otsu_split",
     "projection_entropy",
     "valley_factor",
+    "valley_rule",
 ]
 
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
@@ -353,3 +354,32 @@ def otsu_split(values: np.ndarray) -> float | None:
     between[v[1:] == v[:-1]] = -1.0  # no cut between equal values
     i = int(np.argmax(between))
     return 0.5 * float(v[i] + v[i + 1])
+
+
+def valley_rule() -> dict[str, str]:
+    """How the log-chromaticity layer's thresholds were set, for the detection metadata
+    (replacing the classic rule's wording where this layer used valley thresholds).
+
+    Examples
+    --------
+    >>> sorted(valley_rule())[:2]
+    ['layer_chosen_by', 'min_contrast_from']
+    """
+    return {
+        "layer_chosen_by": (
+            "log-chromaticity layer: won the separation contest by the required margin, or "
+            "the classic layers' best choice was unusable (too few candidates, or blobs "
+            "joined to cast shadows) and it kept enough candidates"
+        ),
+        "min_contrast_from": (
+            "robust SD (1.4826 MAD) of the blob response over background pixels per scale, "
+            "never above that of a smaller scale, times the rising factor below the "
+            "reference scale"
+        ),
+        "threshold_raise_from": (
+            "Otsu's split of the log responses (over that threshold) of the candidates at "
+            f"or above the background median: the valley between ground and plants, 1 to "
+            f"{VALLEY_MAX:g}"
+        ),
+        "vegetation_threshold_from": "background median",
+    }
