@@ -8,10 +8,14 @@ import pytest
 from scipy import stats
 
 from ecoscan.detect.chromaticity import (
+    VALLEY_MAX,
+    VALLEY_MIN,
     entropy_angle,
+    floor_spread,
     invariant_terms,
     log_chromaticity,
     projection_entropy,
+    valley_factor,
 )
 from ecoscan.detect.engine import compose_layer
 
@@ -104,3 +108,113 @@ def test_dark_crowns_with_long_shadows_on_pasture_are_found_one_point_each(tmp_p
     assert res.thresholds["layer"] == "chroma"
     assert f1 >= 0.9
     assert res.thresholds["shadow_joined"] is False
+
+
+# --- thresholds of the colour layer where the classic choice is unusable ------------------
+
+
+def test_noise_response_spread_falls_as_one_over_sigma():
+    # the premise of floor_spread: the scale-normalised DoG (sigma^2 times the Laplacian of
+    # a Gaussian, Lindeberg 1998, IJCV 30: 79-116) of white noise has a standard deviation
+    # proportional to 1/sigma in 2-D (its kernel's L2 norm scales as sigma^2 * sigma^-3);
+    # a spread that rises with scale is therefore not noise
+    from ecoscan.detect.blobs import blob_scales, response_spread
+
+    sc = blob_scales(2, 20)
+    noise = np.random.default_rng(3).standard_normal((512, 512)).astype(np.float32)
+    sp = response_spread(noise, sc, np.ones(noise.shape, bool), 0.0)[1:-1]
+    scaled = sp * sc.sigmas[1:-1]
+    assert np.all(np.diff(sp) < 0)
+    np.testing.assert_allclose(scaled, np.median(scaled), rtol=0.15)
+
+
+def test_floor_spread_is_the_running_minimum_over_scales():
+    # numpy's fmin.accumulate (NaN skipped) as the reference
+    rng = np.random.default_rng(5)
+    sp = rng.uniform(0.01, 0.1, 40)
+    sp[[0, 7, 19]] = np.nan
+    expect = np.fmin.accumulate(sp)
+    np.testing.assert_allclose(floor_spread(sp)[1:], expect[1:])
+    assert math.isnan(floor_spread(sp)[0])  # nothing measured yet: left as it was
+    np.testing.assert_allclose(floor_spread(np.array([0.03, 0.05, 0.07])), 0.03)
+
+
+def _between_variance(v, t):
+    # Otsu (1979), IEEE Trans. SMC 9: 62: the between-class variance w0 w1 (mu0 - mu1)^2
+    # of the split of the values at t
+    lo, hi = v[v <= t], v[v > t]
+    w0, w1 = lo.size / v.size, hi.size / v.size
+    return w0 * w1 * (lo.mean() - hi.mean()) ** 2
+
+
+def test_valley_factor_splits_log_responses_by_otsu_criterion():
+    rng = np.random.default_rng(6)
+    ground = np.exp(rng.normal(np.log(1.3), 0.2, 300))
+    plants = np.exp(rng.normal(np.log(4.0), 0.25, 150))
+    ratio = np.r_[ground, plants, rng.uniform(0.2, 0.99, 100)]  # below noise: ignored
+    f = valley_factor(ratio, np.ones(ratio.size, bool))
+    lv = np.sort(np.log(ratio[ratio >= 1.0]))
+    gaps = 0.5 * (lv[1:] + lv[:-1])
+    best = max(_between_variance(lv, t) for t in gaps)  # exhaustive, every split
+    assert _between_variance(lv, math.log(f)) == pytest.approx(best, rel=1e-9)
+    # scikit-image's histogram version (256 bins) finds no better split
+    from skimage.filters import threshold_otsu
+
+    assert _between_variance(lv, threshold_otsu(lv)) <= best * (1 + 1e-9)
+    assert 1.6 < f < 3.5  # between the two groups
+    # two overlapping normal modes of equal weight and spread: by symmetry the split is
+    # halfway between them on the log scale
+    sym = np.exp(np.r_[rng.normal(1.0, 0.3, 20000), rng.normal(2.0, 0.3, 20000)])
+    assert math.log(valley_factor(sym, np.ones(sym.size, bool))) == pytest.approx(1.5, abs=0.03)
+
+
+def test_valley_factor_limits():
+    rng = np.random.default_rng(7)
+    few = rng.uniform(1.0, 5.0, VALLEY_MIN - 1)
+    assert valley_factor(few, np.ones(few.size, bool)) == 1.0
+    far = np.r_[np.full(50, 1.1), np.full(50, 1000.0)]
+    assert valley_factor(far, np.ones(100, bool)) == VALLEY_MAX
+    # a clean gap is cut in its middle on the log scale: sqrt(1.2 * 4.8) = 2.4
+    gap = np.r_[np.full(50, 1.2), np.full(50, 4.8)]
+    assert valley_factor(gap, np.ones(100, bool)) == pytest.approx(2.4)
+    # candidates failing the other tests do not count
+    mixed = np.r_[np.full(50, 1.2), np.full(50, 9.0)]
+    keep = np.r_[np.zeros(50, bool), np.ones(50, bool)]
+    assert valley_factor(mixed, keep) == 1.0  # one group left: its ptp is 0
+
+
+def _suite_f1(style, size, seed, tmp_path):
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.stats.matching import match_points
+    from ecoscan.synthetic import make_scene, write_scene
+
+    sc = make_scene(style, size, seed)
+    paths = write_scene(sc, tmp_path)
+    lo, hi = sc.diameter_range_m
+    res = detect_raster(
+        paths.raster,
+        DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, bands=sc.bands_option),
+    )
+    m = match_points(res.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
+    return 2 * m.n_matched / (res.n + sc.n), res
+
+
+def test_conifers_joined_to_shadows_are_found_on_the_colour_layer(tmp_path):
+    # the scene suite's conifer pasture (development seed 0): the classic layers are
+    # unusable (Excess Green keeps too few candidates, darkness joins crowns to their
+    # shadows); before this rule the defaults gave F1 0.46 at 512 px. F1 against the
+    # scene's known positions, one-to-one within half the smallest diameter
+    f1, res = _suite_f1("conifer-pasture", 384, 0, tmp_path)
+    th = res.thresholds
+    assert th["layer"] == "chroma"
+    assert "chroma-valley" in th["layer_scores"]
+    assert th["vegetation_threshold"] == th["background"]  # the valley rule's value test
+    assert th["vegetation_threshold_from"] == "background median"
+    assert th["threshold_raise"] > 1.0
+    assert f1 >= 0.75, f"F1 {f1:.3f}"
+
+
+def test_the_valley_rule_stays_off_where_a_classic_layer_works(tmp_path):
+    _f1, res = _suite_f1("dry-shrubs", 384, 7, tmp_path)
+    assert res.thresholds["layer"] != "chroma"
+    assert "chroma-valley" not in res.thresholds["layer_scores"]

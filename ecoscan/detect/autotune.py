@@ -125,6 +125,15 @@ SHADOW_FREE = (INVARIANT,)
 #: 0.939 -> 0.919 at 1.77, JPEG 0.952 -> 0.927 at 1.02), where it won by 6.6-8.3 times
 #: (tuning ``pasture``) it lifted F1 by 0.06-0.11.
 SHADOW_FREE_MARGIN = 2.0
+#: Where the classic choice is unusable, the log-chromaticity layer takes over only when it
+#: keeps at least this share of the candidates of the classic layer that kept most. Blobs
+#: joined to their shadows count each crown at most about three times (crown, shadow, a
+#: patch between them). Measured (docs/detection.md, "Conifer pasture, fourth round"):
+#: 0.35-0.37 of the darkness blobs on the suite's conifer pasture (development seeds;
+#: F1 0.19-0.46 -> 0.81-0.86), 0.09 and 0.21 on tuning ``conifers`` 102 and 103, where it
+#: would lower F1 (0.46 -> 0.04, 0.54 -> 0.26), 0.48 on tuning ``conifers`` 101 (0.56 ->
+#: 0.67).
+SHADOW_FREE_SHARE = 0.25
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -1070,6 +1079,13 @@ def choose_layer(
     m, s = res["background"], res["spread"]
     layers = next(job.layers for job in jobs if job.label == label)
     elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
+    # the log-chromaticity layer takes thresholds from the valley of its candidates, and
+    # takes over where the classic choice is unusable (_shadow_free_valley)
+    valley = _shadow_free_valley(jobs, results, cache, label, res, elong)
+    if valley is not None:
+        label, terms, layers, res, elong = valley
+        m, s = res["background"], res["spread"]
+        scores[label + "-valley"] = round(res["separation"], 3)
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -1079,7 +1095,7 @@ def choose_layer(
         min_response=tuple(float(v) for v in thresholds),
         min_contrast=float(np.median(thresholds) / DISC_RESPONSE),
         threshold_raise=res["raise"],
-        min_value=-math.inf if res["closed"] else m + VALUE_MADS * s,
+        min_value=-math.inf if res["closed"] else res.get("min_value", m + VALUE_MADS * s),
         closed=res["closed"],
         separation=res["separation"],
         near_share=res["near_share"],
@@ -1111,6 +1127,64 @@ def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
     valid = [w.valid for w in windows]
     core = [w.core for w in windows]
     return [_LayerJob(INVARIANT, terms, layers, valid, core, scales, None)]
+
+
+def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dict, elong):
+    """The log-chromaticity layer with thresholds from the valley between its candidates:
+    ``(label, terms, layers, result, elongation)`` to use instead of the choice made, or
+    None to keep it.
+
+    Where that layer won the separation contest, and where the classic layers' best choice
+    is unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
+    split) or blobs stretched along one axis (crowns joined to their cast shadows,
+    :func:`ecoscan.detect.elongation.is_aligned`). The layer's response noise is the spread
+    of its background response floored over scales
+    (:func:`ecoscan.detect.chromaticity.floor_spread`); a candidate must reach the ground's
+    median level and a response in the valley between the ground's bumps and the plants
+    (:func:`ecoscan.detect.chromaticity.valley_factor`); at least ``MIN_CANDIDATES`` must
+    be kept. Taking over an unusable choice needs, besides, at least
+    ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
+    (docs/detection.md, "Conifer pasture, fourth round").
+    """
+    from ecoscan.detect.chromaticity import floor_spread, valley_factor
+    from ecoscan.detect.detectors.blob import MIN_CANDIDATES
+    from ecoscan.detect.elongation import is_aligned
+
+    won = label in SHADOW_FREE
+    if not won and res["candidates"] >= MIN_CANDIDATES and not is_aligned(elong):
+        return None
+    found = [(j, r) for j, r in zip(jobs, results, strict=True) if j.label in SHADOW_FREE]
+    if not found or found[0][1]["closed"]:
+        return None
+    job, cres = found[0]
+    m = cres["background"]
+    sr = floor_spread(cres["response_spread"])
+    cand = _candidates(_LayerPyramids(job.layers, cache, m), 0.5 * sr)
+    si = _scale_index(cache.scales, cand["sigma"])
+    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
+    zok = cand["value"] >= m
+    factor = valley_factor(ratio, zok)
+    kept = (ratio >= factor) & zok
+    n_kept = int(kept.sum())
+    others = [r["candidates"] for j, r in zip(jobs, results, strict=True) if j is not job]
+    most = max(others, default=0)
+    if n_kept < MIN_CANDIDATES or (not won and n_kept < SHADOW_FREE_SHARE * most):
+        return None
+    near = float(near_shares(ratio, zok, np.array([factor]))[0])
+    blobs = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float)
+    own = _kept_elongation(job.layers, cache.windows, blobs, m)
+    med = RESPONSE_MADS * float(np.median(ratio[kept])) / factor
+    out = {
+        **cres,
+        "response_spread": sr,
+        "raise": factor,
+        "separation": med * (1.0 - min(1.0, near)),
+        "near_share": near,
+        "candidates": n_kept,
+        "min_value": m,
+        "kept_blobs": blobs,
+    }
+    return job.label, job.terms, job.layers, out, own
 
 
 def _kept_elongation(layers, windows, kept, level: float) -> dict:

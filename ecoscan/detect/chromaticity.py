@@ -36,9 +36,13 @@ import numpy as np
 __all__ = [
     "LOG_OFFSET",
     "entropy_angle",
+    "floor_spread",
     "invariant_terms",
     "log_chromaticity",
+    "otsu_split",
     "projection_entropy",
+    "valley_factor",
+    "valley_rule",
 ]
 
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
@@ -56,6 +60,11 @@ FINE_STEP = 0.5
 TAIL = 0.05
 #: Share of the projected values at each end whose brightness decides the layer's sign.
 TAIL_SIDE = 0.02
+#: Fewest candidates above the noise threshold for a valley threshold between them.
+VALLEY_MIN = 20
+#: Largest factor a valley threshold may put on the noise threshold (the same bound as
+#: ``ecoscan.detect.autotune.MAX_RAISE``).
+VALLEY_MAX = 6.0
 
 
 def log_chromaticity(
@@ -237,3 +246,140 @@ def invariant_terms(
     if gap < 0:
         wr, wb = -wr, -wb
     return (("logchroma_r", wr), ("logchroma_b", wb)), angle, abs(gap)
+
+
+def floor_spread(spread: np.ndarray) -> np.ndarray:
+    """The response spread per scale, never above that of any smaller scale.
+
+    The scale-normalised response of noise keeps its spread or loses it as the scale
+    grows (white noise: the normalised DoG of unit noise falls roughly as 1/σ), so a spread
+    that *rises* with scale does not come from noise but from ground structure at the
+    crowns' own size: on the log-chromaticity layer, cast shadows and dry patches of
+    pasture (docs/detection.md, "Conifer pasture, fourth round"). Those are objects, told
+    apart from crowns by the valley of the candidates' responses (:func:`valley_factor`),
+    not noise for a threshold to sit above. This gives the running minimum from the
+    smallest scale up; scales without a measurement (NaN) take the last measured one.
+
+    Parameters
+    ----------
+    spread : numpy.ndarray
+        Robust spread of the response over background pixels, one per scale, smallest
+        scale first.
+
+    Returns
+    -------
+    numpy.ndarray
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> floor_spread(np.array([0.03, 0.02, 0.05, np.nan, 0.01])).tolist()
+    [0.03, 0.02, 0.02, 0.02, 0.01]
+    """
+    out = np.asarray(spread, float).copy()
+    best = math.inf
+    for i, v in enumerate(out):
+        if math.isfinite(v) and v < best:
+            best = float(v)
+        out[i] = best if math.isfinite(best) else v
+    return out
+
+
+def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
+    """Factor on the noise threshold that puts it in the valley between two groups of
+    candidates: bumps of the ground and plants.
+
+    Of the candidates that pass the noise threshold (``ratio`` ≥ 1) and the other tests
+    (``eligible``), the logarithms of ``ratio`` are split by Otsu's method
+    (:func:`otsu_split`; Otsu, N. 1979, *A threshold selection method from gray-level
+    histograms*, IEEE Trans. SMC 9: 62-66: the split of greatest between-class variance,
+    which for two overlapping modes of equal weight and spread lies halfway between them,
+    and for two groups with a clean gap in the gap's middle). On the log scale,
+    responses that differ by a factor are equally far apart whatever the layer's units.
+    The factor is ``exp`` of the split, at least 1 and at most ``VALLEY_MAX``; 1 with
+    fewer than ``VALLEY_MIN`` candidates.
+
+    Parameters
+    ----------
+    ratio : numpy.ndarray
+        Each candidate's response over its scale's noise threshold.
+    eligible : numpy.ndarray of bool
+        Candidates that pass the other tests (centre value).
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> ground = np.exp(rng.normal(np.log(1.2), 0.15, 200))   # bumps just above noise
+    >>> plants = np.exp(rng.normal(np.log(3.0), 0.15, 200))   # crowns 2.5 times higher
+    >>> f = valley_factor(np.r_[ground, plants], np.ones(400, bool))
+    >>> bool(1.6 < f < 2.2)      # about the geometric mean sqrt(1.2 * 3.0) = 1.90
+    True
+    """
+    r = np.asarray(ratio, float)
+    sel = np.asarray(eligible, bool) & (r >= 1.0) & np.isfinite(r)
+    if int(sel.sum()) < VALLEY_MIN:
+        return 1.0
+    split = otsu_split(np.log(r[sel]))
+    if split is None:
+        return 1.0
+    return float(np.clip(math.exp(split), 1.0, VALLEY_MAX))
+
+
+def otsu_split(values: np.ndarray) -> float | None:
+    """Otsu's split of values, exactly: the cut between two neighbouring sorted values
+    that maximises the between-class variance w0 w1 (mu0 - mu1)^2 (Otsu 1979), placed
+    halfway between them, so that two groups with a clean gap are split in its middle.
+    None when all values are equal.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> otsu_split(np.array([1.0, 1.1, 0.9, 5.0, 5.2, 4.9]))
+    3.0
+    """
+    v = np.sort(np.asarray(values, float))
+    n = v.size
+    if n < 2 or v[0] == v[-1]:
+        return None
+    k = np.arange(1, n)
+    c = np.cumsum(v)
+    mu0 = c[:-1] / k
+    mu1 = (c[-1] - c[:-1]) / (n - k)
+    between = (k / n) * (1.0 - k / n) * (mu0 - mu1) ** 2
+    between[v[1:] == v[:-1]] = -1.0  # no cut between equal values
+    i = int(np.argmax(between))
+    return 0.5 * float(v[i] + v[i + 1])
+
+
+def valley_rule() -> dict[str, str]:
+    """How the log-chromaticity layer's thresholds were set, for the detection metadata
+    (replacing the classic rule's wording where this layer used valley thresholds).
+
+    Examples
+    --------
+    >>> sorted(valley_rule())[:2]
+    ['layer_chosen_by', 'min_contrast_from']
+    """
+    return {
+        "layer_chosen_by": (
+            "log-chromaticity layer: won the separation contest by the required margin, or "
+            "the classic layers' best choice was unusable (too few candidates, or blobs "
+            "joined to cast shadows) and it kept enough candidates"
+        ),
+        "min_contrast_from": (
+            "robust SD (1.4826 MAD) of the blob response over background pixels per scale, "
+            "never above that of a smaller scale, times the rising factor below the "
+            "reference scale"
+        ),
+        "threshold_raise_from": (
+            "Otsu's split of the log responses (over that threshold) of the candidates at "
+            f"or above the background median: the valley between ground and plants, 1 to "
+            f"{VALLEY_MAX:g}"
+        ),
+        "vegetation_threshold_from": "background median",
+    }

@@ -346,4 +346,8 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         "weak_separation": choice.weak,
         "split_touching": split,
     }
+    if f"{choice.name}-valley" in choice.scores:  # log-chromaticity: valley thresholds
+        from ecoscan.detect.chromaticity import valley_rule
+
+        th.update(valley_rule())
     return th
