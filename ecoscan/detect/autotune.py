@@ -987,20 +987,27 @@ class _Queued(list):
 class LayerScoring:
     """Candidate layers being scored, started before the layer choice needs them.
 
-    Made by :func:`begin_layer_choice`: the window statistics are computed and the
-    classic layers (:func:`candidate_layers`, or ``options``) are made one by one, each
-    handed to the lent workers as soon as it is made, so that they score while this
-    process makes the next or does other work. :func:`choose_layer` given it adds the
+    Made by :func:`begin_layer_choice`: the window statistics are computed and the first
+    ``BEGIN_JOBS`` classic layers (:func:`candidate_layers`, or ``options``) are made and
+    handed to the lent workers, which score them while this process does other work
+    (the closed-canopy check). :meth:`classic_jobs` makes the other classic layers, each
+    handed out as soon as it is made; :func:`choose_layer` given this object adds the
     log-chromaticity layer, scores here what no worker took and chooses. Leaving the
-    ``with`` block without choosing abandons the scoring (see :class:`WorkShare`).
+    ``with`` block without choosing abandons the scoring (see :class:`WorkShare`): at
+    most ``BEGIN_JOBS`` layers were scored for nothing.
 
     Attributes
     ----------
     jobs : list
-        The layer jobs in order (adding one hands it to the workers).
+        The layer jobs made so far, in order (adding one hands it to the workers).
     cache : _WindowCache
         The window statistics shared by every layer.
     """
+
+    #: Layers handed out before the closed-canopy check: one keeps one worker busy
+    #: beside this process (two cores) and wastes at most one layer when the canopy is
+    #: closed and the layer choice is abandoned.
+    BEGIN_JOBS = 1
 
     def __init__(self, windows, roles, scales, options=None, pool=None, ground_colour=None):
         self._share = WorkShare(_score_job, pool if pool is not None else lent_pool())
@@ -1009,13 +1016,22 @@ class LayerScoring:
             self.jobs = _Queued(self._share)
             colour = GROUND_COLOUR if ground_colour is None else ground_colour
             options = options or candidate_layers(roles)
-            for job in _layer_jobs(windows, roles, scales, options, cache.stride):
-                if colour and _has_colour(roles) and job.label == "exg":
-                    job = _with_ground_colour(job, windows, roles, scales, cache.stride)
+            self._rest = (
+                _with_ground_colour(job, windows, roles, scales, cache.stride)
+                if colour and _has_colour(roles) and job.label == "exg"
+                else job
+                for job in _layer_jobs(windows, roles, scales, options, cache.stride)
+            )
+            for _i, job in zip(range(self.BEGIN_JOBS), self._rest, strict=False):
                 self.jobs.append(job)
         except BaseException:
             self._share.__exit__(None, None, None)
             raise
+
+    def classic_jobs(self) -> _Queued:
+        """The job list with every classic layer made (each handed out as it is made)."""
+        self.jobs.extend(self._rest)
+        return self.jobs
 
     def results(self) -> list[dict]:
         """Every job's score (:func:`_score_layer`) in job order; no job can be added after."""
@@ -1134,7 +1150,7 @@ def choose_layer(
     if scoring is None:
         scoring = begin_layer_choice(windows, roles, scales, options, pool, ground_colour)
     try:
-        jobs = scoring.jobs  # adding a job hands it to the workers
+        jobs = scoring.classic_jobs()  # adding a job hands it to the workers
         if chroma and _has_colour(roles):
             jobs.extend(_invariant_jobs(windows, roles, scales))
         results = scoring.results()
