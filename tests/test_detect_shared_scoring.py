@@ -159,13 +159,13 @@ def test_detection_lends_its_workers_to_the_layer_choice(tmp_path, monkeypatch):
     lo, hi = sc.diameter_range_m
     settings = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=256)
     lent = []
-    real = autotune.share_work
+    real = autotune.WorkShare
 
-    def spy(func, jobs, *, pool=None, local=None):
+    def spy(func, pool):
         lent.append(pool)
-        return real(func, jobs, pool=pool, local=local)
+        return real(func, pool)
 
-    monkeypatch.setattr(autotune, "share_work", spy)
+    monkeypatch.setattr(autotune, "WorkShare", spy)
     two = detect_raster(raster, settings, workers=2)
     one = detect_raster(raster, settings, workers=1)
     assert isinstance(lent[0], EarlyPool) and lent[1] is None

@@ -26,6 +26,7 @@ Pure computation on arrays: :func:`choose_layer` takes sample windows and return
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -42,11 +43,13 @@ from ecoscan.detect.blobs import (
     response_spread,
 )
 from ecoscan.detect.engine import compose_layer
-from ecoscan.detect.tiling import EarlyPool, lent_pool, share_work
+from ecoscan.detect.tiling import EarlyPool, WorkShare, lent_pool
 
 __all__ = [
     "LayerChoice",
+    "LayerScoring",
     "SampleWindow",
+    "begin_layer_choice",
     "candidate_layers",
     "choose_layer",
     "near_shares",
@@ -965,8 +968,9 @@ def _score_job(job: _LayerJob) -> dict:
     return _score_layer(job.layers, _WindowCache(windows, job.scales), centre=job.centre)
 
 
-def _layer_jobs(windows, roles, scales, options, stride: int) -> list[_LayerJob]:
-    """A job per option. Base layers, their sampled values and robust centre and scale are
+def _layer_jobs(windows, roles, scales, options, stride: int) -> Iterator[_LayerJob]:
+    """A job per option, each as soon as it is made (a worker may start on it while the
+    next is made). Base layers, their sampled values and robust centre and scale are
     computed once, shared by the single-layer options and the weights of the combined
     ones (each base layer divided by its robust standard deviation)."""
     base: dict[str, tuple[list[np.ndarray], tuple[float, float]]] = {}
@@ -982,7 +986,6 @@ def _layer_jobs(windows, roles, scales, options, stride: int) -> list[_LayerJob]
 
     valid = [w.valid for w in windows]
     core = [w.core for w in windows]
-    jobs = []
     for opt in options:
         if len(opt) == 1:
             layers, centre = base_of(opt[0])
@@ -995,8 +998,117 @@ def _layer_jobs(windows, roles, scales, options, stride: int) -> list[_LayerJob]
                 for i in range(len(windows))
             ]
             centre = None
-        jobs.append(_LayerJob("+".join(opt), terms, layers, valid, core, scales, centre))
-    return jobs
+        yield _LayerJob("+".join(opt), terms, layers, valid, core, scales, centre)
+
+
+class _Queued(list):
+    """Layer jobs in order; each one added is handed at once to a :class:`WorkShare`."""
+
+    def __init__(self, share: WorkShare) -> None:
+        super().__init__()
+        self._share = share
+
+    def append(self, job: _LayerJob) -> None:
+        super().append(job)
+        self._share.add(job)
+
+    def extend(self, jobs) -> None:
+        for job in jobs:
+            self.append(job)
+
+
+class LayerScoring:
+    """Candidate layers being scored, started before the layer choice needs them.
+
+    Made by :func:`begin_layer_choice`: the window statistics are computed and the first
+    ``BEGIN_JOBS`` classic layers (:func:`candidate_layers`, or ``options``) are made and
+    handed to the lent workers, which score them while this process does other work
+    (the closed-canopy check). :meth:`classic_jobs` makes the other classic layers, each
+    handed out as soon as it is made; :func:`choose_layer` given this object adds the
+    log-chromaticity layer, scores here what no worker took and chooses. Leaving the
+    ``with`` block without choosing abandons the scoring (see :class:`WorkShare`): at
+    most ``BEGIN_JOBS`` layers were scored for nothing.
+
+    Attributes
+    ----------
+    jobs : list
+        The layer jobs made so far, in order (adding one hands it to the workers).
+    cache : _WindowCache
+        The window statistics shared by every layer.
+    """
+
+    #: Layers handed out before the closed-canopy check: one keeps one worker busy
+    #: beside this process (two cores) and wastes at most one layer when the canopy is
+    #: closed and the layer choice is abandoned.
+    BEGIN_JOBS = 1
+
+    def __init__(self, windows, roles, scales, options=None, pool=None):
+        self._share = WorkShare(_score_job, pool if pool is not None else lent_pool())
+        try:
+            self.cache = cache = _WindowCache(windows, scales)
+            self.jobs = _Queued(self._share)
+            options = options or candidate_layers(roles)
+            self._rest = _layer_jobs(windows, roles, scales, options, cache.stride)
+            for _i, job in zip(range(self.BEGIN_JOBS), self._rest, strict=False):
+                self.jobs.append(job)
+        except BaseException:
+            self._share.__exit__(None, None, None)
+            raise
+
+    def classic_jobs(self) -> _Queued:
+        """The job list with every classic layer made (each handed out as it is made)."""
+        self.jobs.extend(self._rest)
+        return self.jobs
+
+    def results(self) -> list[dict]:
+        """Every job's score (:func:`_score_layer`) in job order; no job can be added after."""
+        cache = self.cache
+        return self._share.results(lambda job: _score_layer(job.layers, cache, centre=job.centre))
+
+    def __enter__(self) -> LayerScoring:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._share.__exit__(*exc)
+
+
+def begin_layer_choice(
+    windows: list[SampleWindow],
+    roles: tuple[str, ...],
+    scales: BlobScales,
+    options: list[tuple[str, ...]] | None = None,
+    pool: EarlyPool | None = None,
+) -> LayerScoring:
+    """Start scoring the classic candidate layers; :func:`choose_layer` finishes the choice.
+
+    Detection calls this before its closed-canopy check (:mod:`ecoscan.detect.canopy`),
+    so that the lent workers (:func:`ecoscan.detect.tiling.lend_pool`) score layers while
+    this process runs the check; the choice is the same, to the bit, as
+    :func:`choose_layer` alone. Use it as a context manager: leaving the block without
+    choosing (the canopy is closed) abandons the scoring.
+
+    Parameters
+    ----------
+    windows, roles, scales, options, pool
+        As for :func:`choose_layer`.
+
+    Returns
+    -------
+    LayerScoring
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> rng = np.random.default_rng(0)
+    >>> img = rng.normal(100.0, 2.0, (3, 96, 96)).astype(np.float32)
+    >>> win = SampleWindow(img, np.ones((96, 96), bool), (slice(0, 96), slice(0, 96)))
+    >>> roles = ("red", "green", "blue")
+    >>> with begin_layer_choice([win], roles, blob_scales(6, 12)) as scoring:
+    ...     [job.label for job in scoring.jobs]
+    ['exg', 'darkness', 'exg+darkness']
+    """
+    return LayerScoring(windows, roles, scales, options, pool)
 
 
 def choose_layer(
@@ -1006,6 +1118,7 @@ def choose_layer(
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
     chroma: bool = True,
+    scoring: LayerScoring | None = None,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
 
@@ -1023,12 +1136,15 @@ def choose_layer(
     pool : EarlyPool, optional
         Worker processes started for the tiles (:class:`ecoscan.detect.tiling.EarlyPool`):
         while this process scores some layers, the workers score others
-        (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
+        (:class:`ecoscan.detect.tiling.WorkShare`). The choice is the same, to the bit.
         Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
         lends the workers it started), else none.
     chroma : bool, optional
         Also try the log-chromaticity layer (:mod:`ecoscan.detect.chromaticity`) on
         red, green and blue bands without near infrared (default True).
+    scoring : LayerScoring, optional
+        The classic layers already being scored (:func:`begin_layer_choice`, called with
+        the same windows, roles, scales, options and pool); default: start them here.
 
     Returns
     -------
@@ -1050,18 +1166,17 @@ def choose_layer(
     >>> choice.candidates
     1
     """
-    options = options or candidate_layers(roles)
-    pool = pool if pool is not None else lent_pool()
-    cache = _WindowCache(windows, scales)
-    jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
-    if chroma and _has_colour(roles):
-        jobs.extend(_invariant_jobs(windows, roles, scales))
-    results = share_work(
-        _score_job,
-        jobs,
-        pool=pool,
-        local=lambda job: _score_layer(job.layers, cache, centre=job.centre),
-    )
+    own = scoring is None
+    if scoring is None:
+        scoring = begin_layer_choice(windows, roles, scales, options, pool)
+    try:
+        jobs = scoring.classic_jobs()  # adding a job hands it to the workers
+        if chroma and _has_colour(roles):
+            jobs.extend(_invariant_jobs(windows, roles, scales))
+        results = scoring.results()
+    finally:
+        if own:
+            scoring.__exit__(None, None, None)
     scores: dict[str, float] = {}
     best: tuple | None = None
     classic = max(

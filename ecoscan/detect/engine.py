@@ -162,8 +162,9 @@ def compose_layer(
     -8.333333015441895
     """
     out: np.ndarray | None = None
+    made = _paired_layers(data, roles, [name for name, _w in terms])
     for name, w in terms:
-        layer = base_layer(data, roles, name)
+        layer = made.pop(name) if name in made else base_layer(data, roles, name)
         if w != 1.0:
             layer *= np.float32(w)
         if out is None:
@@ -173,6 +174,22 @@ def compose_layer(
     if out is None:
         raise ValueError("a detection layer needs at least one term")
     return out
+
+
+def _paired_layers(
+    data: np.ndarray, roles: tuple[str, ...], names: list[str]
+) -> dict[str, np.ndarray]:
+    """Base layers that come out of one computation, made once when a layer uses both:
+    the two log-chromaticities (:func:`ecoscan.detect.chromaticity.log_chromaticity`
+    gives both; :func:`base_layer` would compute it once for each). The same arrays as
+    :func:`base_layer`'s."""
+    if names.count("logchroma_r") != 1 or names.count("logchroma_b") != 1:
+        return {}
+    from ecoscan.detect.chromaticity import log_chromaticity
+
+    pos = {r: i for i, r in enumerate(roles)}
+    chi_r, chi_b = log_chromaticity(data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+    return {"logchroma_r": chi_r, "logchroma_b": chi_b}
 
 
 def run_tile(job: TileJob) -> TilePoints:

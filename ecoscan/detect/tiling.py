@@ -31,6 +31,7 @@ from ecoscan.progress import progress
 __all__ = [
     "EarlyPool",
     "Tile",
+    "WorkShare",
     "fork_is_safe",
     "in_core",
     "in_pool_worker",
@@ -391,7 +392,9 @@ def share_work(
     background thread waits for ``pool`` and hands jobs from the front to its workers, one
     per idle worker. A job a worker could not run (the pool broke or was stopped) is run
     here. The results, in job order, are those of ``[func(j) for j in jobs]``: each job is
-    computed once, whole, by the same code.
+    computed once, whole, by the same code. :class:`WorkShare` does the same for jobs
+    that are made one by one (the workers start on the first while this process makes
+    the next).
 
     Parameters
     ----------
@@ -415,63 +418,139 @@ def share_work(
     >>> share_work(abs, [-1, 2, -3])
     [1, 2, 3]
     """
-    from concurrent.futures import CancelledError
+    with WorkShare(func, pool) as share:
+        for job in jobs:
+            share.add(job)
+        return share.results(local)
 
-    from ecoscan.detect.shared_arrays import Segments
 
-    run_here = local or func
-    results: list[Any] = [None] * len(jobs)
-    with Segments() as segments:
-        state = _Dispatch(func, jobs, pool, segments)
+class WorkShare:
+    """Jobs handed to a pool's workers as soon as they are added; the rest run here.
+
+    A background thread waits for ``pool`` (an :class:`EarlyPool`, possibly still
+    starting) and hands jobs from the front, one per idle worker, as they are added with
+    :meth:`add`, so that the workers start on the first jobs while this process is still
+    making the next. :meth:`results` then takes the jobs left from the end, runs them
+    here, and returns every result in job order: those of ``[func(j) for j in jobs]``.
+    A job a worker could not run (the pool broke or was stopped) is run here.
+
+    Leaving the ``with`` block without :meth:`results` abandons the work: no more jobs
+    are handed out, those waiting in the pool are cancelled (one a worker already runs
+    finishes there, its result unused) and every shared-memory segment is released.
+
+    Examples
+    --------
+    >>> with WorkShare(abs, None) as share:
+    ...     share.add(-2)
+    ...     share.add(3)
+    ...     share.results()
+    [2, 3]
+    """
+
+    def __init__(self, func: Callable[[J], R], pool: EarlyPool | None) -> None:
+        from ecoscan.detect.shared_arrays import Segments
+
+        self.func = func
+        self._segments = Segments()
+        self._state = _Dispatch(func, pool, self._segments)
+
+    def add(self, job: J) -> None:
+        """Queue one more job (handed to the next idle worker)."""
+        self._state.add(job)
+
+    def results(self, local: Callable[[J], R] | None = None) -> list[R]:
+        """No more jobs: run the ones no worker took here (``local`` instead of ``func``
+        when given; it must give the same result) and return every result in job order."""
+        from concurrent.futures import CancelledError
+
+        state = self._state
+        run_here = local or self.func
+        jobs = state.close()
+        results: list[Any] = [None] * len(jobs)
+        while (i := state.take(front=False)) is not None:
+            results[i] = run_here(jobs[i])
+        state.join()
+        while (i := state.take(front=False)) is not None:  # left by a pool that failed
+            results[i] = run_here(jobs[i])
+        for i, fut in sorted(state.futures.items()):
+            try:
+                results[i] = fut.result() if fut is not None else run_here(jobs[i])
+            except (BrokenProcessPool, CancelledError):
+                results[i] = run_here(jobs[i])
+        return results
+
+    def __enter__(self) -> WorkShare:
+        return self
+
+    def __exit__(self, *exc) -> None:
         try:
-            while (i := state.take(front=False)) is not None:
-                results[i] = run_here(jobs[i])
-            state.join()
-            while (i := state.take(front=False)) is not None:  # left by a pool that failed
-                results[i] = run_here(jobs[i])
-            for i, fut in sorted(state.futures.items()):
-                try:
-                    results[i] = fut.result() if fut is not None else run_here(jobs[i])
-                except (BrokenProcessPool, CancelledError):
-                    results[i] = run_here(jobs[i])
+            self._state.drain()  # done, an error, Ctrl-C or abandoned: hand out no more
         finally:
-            state.drain()  # on an error or Ctrl-C: no job is handed out any more
-    return results
+            self._segments.close()
 
 
 class _Dispatch:
-    """The jobs of :func:`share_work` not taken yet, and a thread that hands jobs from the
-    front to the workers of a pool (one per idle worker) once it has started.
+    """The jobs of a :class:`WorkShare` not taken yet, and a thread that hands jobs from
+    the front to the workers of a pool (one per idle worker) once it has started and a
+    job is there.
 
     A job's large arrays go through a shared-memory segment
     (:mod:`ecoscan.detect.shared_arrays`), released when the job is done.
     """
 
-    def __init__(self, func, jobs, pool: EarlyPool | None, segments) -> None:
-        self.func, self.jobs, self.pool, self.segments = func, jobs, pool, segments
-        self.lock = threading.Lock()
-        self.span = [0, len(jobs)]  # jobs [span[0], span[1]) are not taken yet
+    def __init__(self, func, pool: EarlyPool | None, segments) -> None:
+        self.func, self.pool, self.segments = func, pool, segments
+        self.jobs: list[Any] = []
+        self.ready = threading.Condition()
+        self.span = [0, None]  # jobs [span[0], span[1]) not taken; span[1] None: still open
         self.futures: dict[int, Any] = {}  # job -> future (None: submitting it failed)
+        self.free = threading.Semaphore(max(1, pool.workers) if pool is not None else 1)
         self.helper = None
         if pool is not None:
             self.helper = threading.Thread(target=self._dispatch, daemon=True)
             self.helper.start()
 
+    def add(self, job) -> None:
+        with self.ready:
+            if self.span[1] is not None:
+                raise RuntimeError("no job can be added once the results are asked for")
+            self.jobs.append(job)
+            self.ready.notify_all()
+
+    def close(self) -> list:
+        """No more jobs (this process now takes them from the end); all of them."""
+        with self.ready:
+            if self.span[1] is None:
+                self.span[1] = len(self.jobs)
+            self.ready.notify_all()
+            return list(self.jobs)
+
     def take(self, front: bool) -> int | None:
-        """The next job from the front (for a worker) or the end (for this process)."""
-        with self.lock:
-            if self.span[0] >= self.span[1]:
+        """The next job from the front (for a worker: waits while more may come) or the
+        end (for this process, once closed)."""
+        with self.ready:
+            if front:
+                while self.span[1] is None and self.span[0] >= len(self.jobs):
+                    self.ready.wait()
+            end = len(self.jobs) if self.span[1] is None else self.span[1]
+            if self.span[0] >= end:
                 return None
             if front:
                 self.span[0] += 1
                 return self.span[0] - 1
-            self.span[1] -= 1
+            self.span[1] = end - 1
             return self.span[1]
 
     def drain(self) -> None:
-        """Hand out no more jobs; wait for the helper thread."""
-        with self.lock:
-            self.span[0] = self.span[1]
+        """Hand out no more jobs and cancel those a worker has not started; wait for the
+        helper thread."""
+        with self.ready:
+            self.span[1] = self.span[0]
+            self.ready.notify_all()
+            pending = [f for f in self.futures.values() if f is not None]
+        for fut in pending:
+            fut.cancel()  # no effect on a finished job or one a worker runs
+        self.free.release()  # a helper waiting for an idle worker finds no job and ends
         self.join()
 
     def join(self) -> None:
@@ -485,7 +564,7 @@ class _Dispatch:
         ex = self.pool.wait()
         if ex is None:
             return
-        free = threading.Semaphore(max(1, self.pool.workers))
+        free = self.free
         while True:
             free.acquire()
             i = self.take(front=True)
@@ -497,7 +576,7 @@ class _Dispatch:
                 fut = ex.submit(run_packed, self.func, job)
             except Exception:  # the pool was shut down or broke: run it here instead
                 self.segments.release(segment)
-                with self.lock:
+                with self.ready:
                     self.futures[i] = None
                 return
 
@@ -506,7 +585,7 @@ class _Dispatch:
                 free.release()
 
             fut.add_done_callback(done)
-            with self.lock:
+            with self.ready:
                 self.futures[i] = fut
 
 

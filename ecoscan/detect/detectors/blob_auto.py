@@ -183,7 +183,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
 
 def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
-    from ecoscan.detect.autotune import choose_layer, ring_test, strong_test
+    from ecoscan.detect.autotune import begin_layer_choice, choose_layer, ring_test, strong_test
 
     lookup = band_lookup(info, settings)
     roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
@@ -194,13 +194,15 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     if all(float(np.ptp(w.data[:, w.valid])) == 0.0 for w in windows if w.valid.any()):
         return None, 0, 1, {}, [*notes, no_plants("the image is constant: no plants found")]
     rule: dict[str, float] = {}  # the closed-canopy rule's figures, recorded when it stays off
-    if settings.split_touching:
-        closed = _closed_canopy(
-            info, settings, windows, roles, abands, scales, overlap, notes, rule
-        )
-        if closed is not None:
-            return closed
-    choice = choose_layer(windows, roles, scales)
+    # the lent workers start scoring candidate layers while the canopy check runs here
+    with begin_layer_choice(windows, roles, scales) as scoring:
+        if settings.split_touching:
+            closed = _closed_canopy(
+                info, settings, windows, roles, abands, scales, overlap, notes, rule
+            )
+            if closed is not None:
+                return closed
+        choice = choose_layer(windows, roles, scales, scoring=scoring)
     del windows
     if choice.candidates < MIN_CANDIDATES:
         return None
