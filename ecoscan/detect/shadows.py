@@ -19,10 +19,11 @@ joined blob. :mod:`ecoscan.detect.elongation` detects that the blobs share one l
    until it falls below :data:`EDGE_SHARE` of the way from the background to the blob's
    own level: that is
    the joined region's sun-side edge, which only the crown makes (a shadow starts under
-   its own crown). The point is put one blob radius back from that edge, on the axis (the
-   across-axis width of a crown-plus-shadow blob is the crown's, so the pyramid's radius
-   is the crown's radius). Points of one crown that land together are then pruned as
-   usual.
+   its own crown). The point is put one crown radius back from that edge, on the axis.
+   The crown's radius is half the region's width across the axis, one blob radius inside
+   the edge (a shadow is as wide as its crown), at most the blob's radius (the pyramid
+   finds a crown-plus-shadow blob at a scale between its width and its length). Points of
+   one crown that land together are then pruned as usual.
 
 The correction is used only when the blob-alignment check fires on the chosen layer, so
 scenes without long shadows are untouched. Pure computation on arrays.
@@ -223,9 +224,11 @@ def crown_ends(
     Returns
     -------
     cols, rows : numpy.ndarray
-        The moved centres: one radius down-sun from the first point, walking towards the
-        sun, where the strip profile falls below :data:`EDGE_SHARE` of the way from
-        ``level`` to the blob's own value. A blob whose walk finds no such point, or whose
+        The moved centres: one crown radius down-sun from the first point, walking
+        towards the sun, where the strip profile falls below :data:`EDGE_SHARE` of the way
+        from ``level`` to the blob's own value; the crown radius is half the width of the
+        run above that level across the axis, one blob radius down-sun of the edge, at
+        most the blob's radius. A blob whose walk finds no such point, or whose
         own value is not above ``level``, stays.
 
     Examples
@@ -258,9 +261,11 @@ def crown_ends(
         # towards the sun is -u; across is the normal (-uy, ux)
         xs = cols[sel, None, None] - t[None, :, None] * ux - s_px * uy
         ys = rows[sel, None, None] - t[None, :, None] * uy + s_px * ux
-        prof = ndimage.map_coordinates(
-            lay, [ys.ravel(), xs.ravel()], order=1, mode="nearest"
-        ).reshape(sel.size, t.size, _ACROSS).mean(axis=2)
+        prof = (
+            ndimage.map_coordinates(lay, [ys.ravel(), xs.ravel()], order=1, mode="nearest")
+            .reshape(sel.size, t.size, _ACROSS)
+            .mean(axis=2)
+        )
         k = max(0, round(_SMOOTH_RADII * rad / step))
         if k:
             prof = ndimage.uniform_filter1d(prof, 2 * k + 1, axis=1, mode="nearest")
@@ -269,7 +274,12 @@ def crown_ends(
         below = prof < cut[:, None]
         found = below.any(axis=1) & (own > level)
         edge = t[np.argmax(below, axis=1)]
-        move = np.where(found, edge - rad, 0.0)
+        # the crown's radius: half the region's width one blob radius inside the edge (a
+        # shadow is as wide as its crown), at most the blob's radius (a crown-plus-shadow
+        # blob is found at a scale between the crown's width and the region's length)
+        ec, er = cols[sel] - edge * ux, rows[sel] - edge * uy
+        half = _half_width(lay, ec + rad * ux, er + rad * uy, (ux, uy), cut, rad, step)
+        move = np.where(found, edge - np.clip(half, 1.0, rad), 0.0)
         out_c[sel] -= move * ux
         out_r[sel] -= move * uy
     return out_c, out_r
@@ -323,3 +333,19 @@ def shadow_step(choice, windows, roles: tuple[str, ...], r_min_px: float, r_max_
     u = down_sun(axis, sign)
     bearing = (axis + (0.0 if sign > 0 else 180.0)) % 360.0
     return {"shadow_dir": (float(u[0]), float(u[1])), "bearing_deg": bearing, "asymmetry": asym}
+
+
+def _half_width(lay, cols, rows, u, cut, rad: float, step: float) -> np.ndarray:
+    """Half the width, across the axis, of the run above ``cut`` through each point
+    (searched up to 1.5 ``rad`` either side; pixels)."""
+    ux, uy = u
+    n = max(2, math.ceil(1.5 * rad / step))
+    w = np.arange(-n, n + 1) * step
+    xs = cols[:, None] - w[None, :] * uy
+    ys = rows[:, None] + w[None, :] * ux
+    prof = ndimage.map_coordinates(lay, [ys.ravel(), xs.ravel()], order=1, mode="nearest")
+    out = ~(prof.reshape(cols.size, w.size) >= cut[:, None])
+    right = np.where(out[:, n:].any(axis=1), np.argmax(out[:, n:], axis=1), n + 1)
+    back = out[:, : n + 1][:, ::-1]
+    left = np.where(back.any(axis=1), np.argmax(back, axis=1), n + 1)
+    return (right + left - 1) * step / 2.0
