@@ -9,6 +9,7 @@ closed-canopy watershed split when the sampled pixels look like a packed canopy
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -195,8 +196,10 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         if closed is not None:
             return closed
     choice = choose_layer(windows, roles, scales)
-    if choice.candidates < MIN_CANDIDATES:
-        return None
+    if choice.candidates < MIN_CANDIDATES:  # the best layer shows too few plants
+        choice = _shadow_joined_darkness(choice, windows, roles, scales, notes)
+        if choice is None:
+            return None
     shadow = _shadow_step(choice, windows, roles, info, settings)
     del windows
     params = BlobPlan(
@@ -244,6 +247,31 @@ def _shadow_step(choice, windows, roles, info, settings):
     ps = info.pixel_size_m
     r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
     return shadow_step(choice, windows, roles, r_min, r_max)
+
+
+def _shadow_joined_darkness(best, windows, roles, scales, notes):
+    """The darkness layer when its blobs are joined to their shadows, else None.
+
+    Called when the best-separated layer keeps too few candidates (which would fall back
+    to Otsu's split): dark crowns on pasture with long shadows show on darkness as many
+    strong blobs stretched along the sun's axis, which the crown-end step
+    (:mod:`ecoscan.detect.shadows`) can place.
+    """
+    from ecoscan.detect.autotune import choose_layer
+
+    if not {"red", "green", "blue"} <= set(roles):
+        return None
+    dark = choose_layer(
+        windows, roles, scales, options=[("darkness",)], ground_colour=False, chroma=False
+    )
+    if dark.candidates < MIN_CANDIDATES or not dark.aligned:
+        return None
+    notes.append(
+        f"the best-separated layer ({LAYER_LABELS.get(best.name, best.name)}) kept only "
+        f"{best.candidates} candidates; darkness kept {dark.candidates}, stretched along one "
+        "axis (crowns joined to their shadows), and is used with the crown-end step"
+    )
+    return replace(dark, scores={**best.scores, **dark.scores})
 
 
 def _shadow_meta(shadow: dict) -> dict:
