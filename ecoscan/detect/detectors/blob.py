@@ -135,6 +135,7 @@ class BlobPlan:
     ring_mads: float | None = None
     shadow_dir: tuple[float, float] | None = None
     shadow_radius_max: float = 0.0
+    strong: tuple[float, float] | None = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -389,6 +390,7 @@ class ImageryDetector(Detector):
             origin=window.origin,
             background=plan.fill_value,
             ring_mads=plan.ring_mads,
+            strong=plan.strong,
         )
         columns = {"sigma_px": found["sigma"], "score": found["response"]}
         columns["index_value"] = found["value"]
