@@ -258,9 +258,7 @@ def _shadow_joined_darkness(best, windows, roles, scales, notes):
 
     if not {"red", "green", "blue"} <= set(roles):
         return None
-    dark = choose_layer(
-        windows, roles, scales, options=[("darkness",)], chroma=False
-    )
+    dark = choose_layer(windows, roles, scales, options=[("darkness",)], chroma=False)
     if dark.candidates < MIN_CANDIDATES or not dark.aligned:
         return None
     notes.append(
