@@ -1196,7 +1196,7 @@ def choose_layer(
     elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
     # the log-chromaticity layer takes thresholds from the valley of its candidates, and
     # takes over where the classic choice is unusable (_shadow_free_valley)
-    valley = _shadow_free_valley(jobs, results, cache, label, res, elong)
+    valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong)
     if valley is not None:
         label, terms, layers, res, elong = valley
         m, s = res["background"], res["spread"]
