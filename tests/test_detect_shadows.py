@@ -152,7 +152,18 @@ def _write(tmp_path, img, xy, r):
     return path, truth_points(xy, PS, {"diameter_m": 2 * r * PS})
 
 
+def _without_chroma_takeover(monkeypatch):
+    # the log-chromaticity layer takes over blobs joined to their shadows first where it
+    # keeps enough candidates (valley thresholds); the crown-end step is the fallback
+    # where it cannot, so these tests switch that layer off to reach the step
+    from ecoscan.detect import autotune
+
+    monkeypatch.setattr(autotune, "SHADOW_FREE_MARGIN", float("inf"))
+    monkeypatch.setattr(autotune, "SHADOW_FREE_SHARE", float("inf"))
+
+
 def test_detection_puts_points_on_the_crowns_not_between_crown_and_shadow(tmp_path, monkeypatch):
+    _without_chroma_takeover(monkeypatch)
     bearing = 120.0
     img, xy, r = _scene(bearing)
     path, truth = _write(tmp_path, img, xy, r)
@@ -175,7 +186,8 @@ def test_detection_puts_points_on_the_crowns_not_between_crown_and_shadow(tmp_pa
     assert res.n >= 0.7 * truth.n and res.n <= truth.n
 
 
-def test_tiled_detection_equals_the_whole_image_with_the_step_on(tmp_path):
+def test_tiled_detection_equals_the_whole_image_with_the_step_on(tmp_path, monkeypatch):
+    _without_chroma_takeover(monkeypatch)
     img, xy, r = _scene(250.0)
     path, _truth = _write(tmp_path, img, xy, r)
     whole = detect_raster(path, DetectionSettings(diameter_min_m=0.6, diameter_max_m=1.2))
@@ -197,11 +209,18 @@ def test_crowns_without_long_shadows_are_left_alone():
     assert sh.shadow_step(choice, [_window(img)], RGB, 3.5, 11.0) is None
 
 
-def test_suite_conifers_use_darkness_with_the_step_instead_of_the_otsu_fallback(tmp_path):
+def test_suite_conifers_use_darkness_with_the_step_instead_of_the_otsu_fallback(
+    tmp_path, monkeypatch
+):
     # development seed 7 of the scene suite's conifer pasture: Excess Green separates best
     # but keeps two candidates (which used to fall back to Otsu's split, F1 0.26); darkness
-    # joins crowns and shadows along the sun's axis and now takes the crown-end step
+    # joins crowns and shadows along the sun's axis and takes the crown-end step. On this
+    # seed the log-chromaticity layer takes over first (its valley thresholds); the step is
+    # the fallback where that layer cannot (measured on the tuning scenes `conifers` 100
+    # and 102: F1 0.475 -> 0.732 and 0.449 -> 0.745), so that layer is switched off here.
     from ecoscan.synthetic import make_scene, write_scene
+
+    _without_chroma_takeover(monkeypatch)
 
     sc = make_scene("conifer-pasture", 512, 7)
     paths = write_scene(sc, tmp_path)
