@@ -110,6 +110,13 @@ class BlobPlan:
         Each blob must also stand out from its own ring of background by this many robust
         SDs of the ring (:func:`ecoscan.detect.blobs.ring_contrast`); None skips the test.
         Set by the image-chosen defaults on rough ground (threshold raised).
+    shadow_dir : tuple of float or None
+        Unit (column, row) vector in which cast shadows fall: each blob is moved to the
+        sun-side end of its crown-plus-shadow region
+        (:func:`ecoscan.detect.shadows.crown_ends`). Set by the image-chosen defaults when
+        the blobs are joined to their shadows; None leaves blobs where they are.
+    shadow_radius_max : float
+        Largest crown radius in pixels, for the walk of ``shadow_dir``.
     """
 
     bands: tuple[int, ...]
@@ -126,6 +133,8 @@ class BlobPlan:
     layer_model: object = None
     canopy: object = None
     ring_mads: float | None = None
+    shadow_dir: tuple[float, float] | None = None
+    shadow_radius_max: float = 0.0
     strong: tuple[float, float] | None = None
 
 
@@ -270,6 +279,22 @@ def _imagery_plan(info: RasterInfo, settings: DetectionSettings, bands, index):
     return _otsu_plan(info, settings, bands, index, scales, overlap, data, valid, fallback, notes)
 
 
+def _crown_ends(layer, col, row, sigma, origin, plan: BlobPlan):
+    """Blobs moved to the sun-side ends of their crown-plus-shadow regions (raster pixels)."""
+    from ecoscan.detect.shadows import crown_ends
+
+    c, r = crown_ends(
+        layer,
+        col - origin[0],
+        row - origin[1],
+        math.sqrt(2.0) * sigma,
+        np.asarray(plan.shadow_dir),
+        plan.fill_value,
+        plan.shadow_radius_max,
+    )
+    return c + origin[0], r + origin[1]
+
+
 def _canopy_points(
     window: TileWindow, layer: np.ndarray, cs, tint: np.ndarray | None = None
 ) -> TilePoints:
@@ -370,7 +395,10 @@ class ImageryDetector(Detector):
         )
         columns = {"sigma_px": found["sigma"], "score": found["response"]}
         columns["index_value"] = found["value"]
-        return TilePoints(found["col"], found["row"], columns)
+        col, row = found["col"], found["row"]
+        if plan.shadow_dir is not None:  # crowns joined to their shadows (detect/shadows.py)
+            col, row = _crown_ends(layer, col, row, found["sigma"], window.origin, plan)
+        return TilePoints(col, row, columns)
 
     def empty_tile(self, plan: BlobPlan) -> TilePoints:
         """No blobs."""

@@ -9,6 +9,7 @@ closed-canopy watershed split when the sampled pixels look like a packed canopy
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
@@ -203,9 +204,12 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
             if closed is not None:
                 return closed
         choice = choose_layer(windows, roles, scales, scoring=scoring)
+    if choice.candidates < MIN_CANDIDATES:  # the best layer shows too few plants
+        choice = _shadow_joined_darkness(choice, windows, roles, scales, notes)
+        if choice is None:
+            return None
+    shadow = _shadow_step(choice, windows, roles, info, settings)
     del windows
-    if choice.candidates < MIN_CANDIDATES:
-        return None
     params = BlobPlan(
         bands=abands,
         pixel_size_m=info.pixel_size_m,
@@ -219,15 +223,75 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         terms=choice.terms,
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         ring_mads=ring_test(choice),
+        shadow_dir=None if shadow is None else shadow["shadow_dir"],
+        shadow_radius_max=settings.diameter_max_m / 2 / info.pixel_size_m,
         strong=strong_test(choice),
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
+    if shadow is not None:  # crown-end walks: every blob that lands in a core is exact
+        from ecoscan.detect.shadows import reach_px as shadow_reach
+
+        overlap = max(overlap, scales.support_px + shadow_reach(params.shadow_radius_max))
+        th.update(_shadow_meta(shadow))
+        notes.append(
+            f"points placed at the sun-side ends of the crown-plus-shadow blobs (shadows "
+            f"fall towards bearing {shadow['bearing_deg']:.0f} deg)"
+        )
     if params.ring_mads is not None:  # each ring pixel must be exact in every tile's core
         from ecoscan.detect.blobs import ring_reach_px
 
         overlap = max(overlap, ring_reach_px(scales))
     return params, overlap, scales.align, th, notes
+
+
+def _shadow_step(choice, windows, roles, info, settings):
+    """:func:`ecoscan.detect.shadows.shadow_step` for this raster's crown sizes."""
+    from ecoscan.detect.shadows import shadow_step
+
+    ps = info.pixel_size_m
+    r_min, r_max = settings.diameter_min_m / 2 / ps, settings.diameter_max_m / 2 / ps
+    return shadow_step(choice, windows, roles, r_min, r_max)
+
+
+def _shadow_joined_darkness(best, windows, roles, scales, notes):
+    """The darkness layer when its blobs are joined to their shadows, else None.
+
+    Called when the best-separated layer keeps too few candidates (which would fall back
+    to Otsu's split): dark crowns on pasture with long shadows show on darkness as many
+    strong blobs stretched along the sun's axis, which the crown-end step
+    (:mod:`ecoscan.detect.shadows`) can place.
+    """
+    from ecoscan.detect.autotune import choose_layer
+
+    if not {"red", "green", "blue"} <= set(roles):
+        return None
+    dark = choose_layer(windows, roles, scales, options=[("darkness",)], chroma=False)
+    if dark.candidates < MIN_CANDIDATES or not dark.aligned:
+        return None
+    notes.append(
+        f"the best-separated layer ({LAYER_LABELS.get(best.name, best.name)}) kept only "
+        f"{best.candidates} candidates; darkness kept {dark.candidates}, stretched along one "
+        "axis (crowns joined to their shadows), and is used with the crown-end step"
+    )
+    return replace(dark, scores={**best.scores, **dark.scores})
+
+
+def _shadow_meta(shadow: dict) -> dict:
+    """Detection metadata of the crown-end step."""
+    from ecoscan.detect.shadows import EDGE_SHARE, REACH_RADII
+
+    return {
+        "shadow_bearing_deg": shadow["bearing_deg"],
+        "shadow_asymmetry": shadow["asymmetry"],
+        "shadow_step": (
+            "blobs joined to their shadows: each point moved towards the sun to one blob "
+            f"radius inside the first point (within {REACH_RADII:g} largest radii) where "
+            f"the layer falls below {EDGE_SHARE:g} of the way from the background to the "
+            "blob's own level; the shadows' side of the blob axis from the antisymmetric "
+            "cross-correlation of texture and the layer on sample windows"
+        ),
+    }
 
 
 def _describe_choice(choice, notes: list) -> None:
