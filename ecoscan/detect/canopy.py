@@ -521,7 +521,6 @@ def join_at_crown_scale(
         return cache[k]
 
     tint_flat = None if tint is None else np.asarray(tint, np.float64).ravel()
-    lay_flat = lay.ravel().astype(np.float64)
     for _round in range(rounds):
         reg = lut[regions]
         mom = np.vstack([np.zeros((1, 6)), _moments(reg, n)])
@@ -549,17 +548,7 @@ def join_at_crown_scale(
         cand &= tint_step <= max_tint_step
         texture = np.zeros(len(i), bool)
         if texture_sds is not None:
-            # the valley against the texture inside the two: depth from the lower peak
-            # down to their pass, over the pooled within-region standard deviation
-            s1 = np.bincount(reg.ravel(), lay_flat, n + 1)
-            s2 = np.bincount(reg.ravel(), lay_flat * lay_flat, n + 1)
-            var = np.maximum(s2 / safe - (s1 / safe) ** 2, 0.0)
-            sd = np.sqrt((var[i] * area[i] + var[j] * area[j]) / np.maximum(mu[:, 0], 1.0))
-            top = np.full(n + 1, -np.inf)
-            present = np.flatnonzero(area > 0)
-            present = present[present > 0]
-            top[present] = ndimage.maximum(lay, reg, present)
-            depth = np.minimum(top[i], top[j]) - fine_pass
+            depth, sd = _valley_and_texture(reg, lay, n, area, pairs, fine_pass)
             texture = (depth <= texture_sds * sd) & (score >= TEXTURE_GAIN) & small
             texture &= (dist <= TEXTURE_REACH * union_r) & (tint_step <= TEXTURE_TINT_STEP)
         if not (cand.any() or texture.any()):
@@ -567,21 +556,9 @@ def join_at_crown_scale(
         r_big = np.sqrt(np.maximum(area[i], area[j]) / math.pi)
         pick = np.argmin(np.abs(np.log(ladder[None, :] / (share * r_big[:, None]))), axis=1)
         passed = np.full(len(i), -np.inf)
-        idx = np.flatnonzero(np.bincount(reg.ravel(), minlength=n + 1))
-        idx = idx[idx > 0]
-        key = i * (n + 1) + j
         for k in np.unique(pick[cand]):
             sel = cand & (pick == k)
-            co = smoothed(int(k))
-            peak = np.full(n + 1, -np.inf)
-            low = np.full(n + 1, np.inf)
-            peak[idx] = ndimage.maximum(co, reg, idx)
-            low[idx] = ndimage.minimum(co, reg, idx)
-            pp, pas = _neighbour_pairs(reg, co)
-            at = np.clip(np.searchsorted(pp[:, 0] * (n + 1) + pp[:, 1], key[sel]), 0, len(pas) - 1)
-            floor = np.minimum(low[i[sel]], low[j[sel]])
-            rise = np.minimum(peak[i[sel]], peak[j[sel]]) - floor
-            passed[sel] = (pas[at] - floor) / np.maximum(rise, 1e-12)
+            passed[sel] = _pass_share(reg, n, smoothed(int(k)), pairs[sel])
         ok = (cand & (passed >= min_pass)) | texture
         passed[texture & ~np.isfinite(passed)] = min_pass
         if not ok.any():
@@ -594,6 +571,48 @@ def join_at_crown_scale(
             used[a] = used[b] = True
             lut[lut == b] = a
     return lut
+
+
+def _valley_and_texture(
+    reg: np.ndarray,
+    lay: np.ndarray,
+    n: int,
+    area: np.ndarray,
+    pairs: np.ndarray,
+    passes: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """For each pair: the valley's depth (the lower of the two peaks minus their pass) and
+    the pooled standard deviation of ``lay`` within the two regions (their texture)."""
+    i, j = pairs[:, 0], pairs[:, 1]
+    flat = lay.ravel().astype(np.float64)
+    safe = np.maximum(area, 1.0)
+    s1 = np.bincount(reg.ravel(), flat, n + 1)
+    s2 = np.bincount(reg.ravel(), flat * flat, n + 1)
+    var = np.maximum(s2 / safe - (s1 / safe) ** 2, 0.0)
+    sd = np.sqrt((var[i] * area[i] + var[j] * area[j]) / np.maximum(area[i] + area[j], 1.0))
+    top = np.full(n + 1, -np.inf)
+    present = np.flatnonzero(area > 0)
+    present = present[present > 0]
+    top[present] = ndimage.maximum(lay, reg, present)
+    return np.minimum(top[i], top[j]) - passes, sd
+
+
+def _pass_share(reg: np.ndarray, n: int, layer: np.ndarray, pairs: np.ndarray) -> np.ndarray:
+    """For each pair of touching labels: how far up they meet on ``layer``, as a share of
+    the way from the lower of their floors to the lower of their peaks."""
+    idx = np.flatnonzero(np.bincount(reg.ravel(), minlength=n + 1))
+    idx = idx[idx > 0]
+    peak = np.full(n + 1, -np.inf)
+    low = np.full(n + 1, np.inf)
+    peak[idx] = ndimage.maximum(layer, reg, idx)
+    low[idx] = ndimage.minimum(layer, reg, idx)
+    pp, pas = _neighbour_pairs(reg, layer)
+    key = pairs[:, 0] * (n + 1) + pairs[:, 1]
+    at = np.clip(np.searchsorted(pp[:, 0] * (n + 1) + pp[:, 1], key), 0, len(pas) - 1)
+    i, j = pairs[:, 0], pairs[:, 1]
+    floor = np.minimum(low[i], low[j])
+    rise = np.minimum(peak[i], peak[j]) - floor
+    return (pas[at] - floor) / np.maximum(rise, 1e-12)
 
 
 def level_set_lean(

@@ -91,6 +91,50 @@ def _read_all(info: RasterInfo, bands: tuple[int, ...], spots) -> list:
         return list(ex.map(lambda spot: read_window(info, bands, spot[0]), spots))
 
 
+def _canopy_record(abands, roles, evidence, split) -> dict:
+    """What the closed-canopy path records in the detection metadata."""
+    from ecoscan.detect import canopy
+
+    return {
+        "layer": "canopy",
+        "layer_bands": list(abands),
+        "layer_roles": list(roles),
+        "layer_chosen_by": (
+            "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
+            f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
+            f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
+            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}; "
+            f"either only with open ground (bright, > {canopy.OPEN_REACH:g} largest crown "
+            f"radii from dark) below {canopy.MAX_OPEN_SHARE:g}"
+        ),
+        "canopy_green_share": evidence["green_share"],
+        "canopy_bright_green_corr": evidence["bright_green_corr"],
+        "canopy_open_share": evidence["open_share"],
+        "canopy_layer": "log(1 + green band), Gaussian smoothed",
+        "canopy_smooth_px": split.smooth_px,
+        "canopy_marker_h": split.h,
+        "canopy_marker_h_from": (
+            f"{canopy.H_SHARE:g} x robust SD (1.4826 MAD) of the smoothed layer on sample windows"
+        ),
+        "canopy_min_area_px": split.min_area_px,
+        "canopy_join_fragments": split.merge,
+        "canopy_lean_radii": [split.lean_col, split.lean_row],
+        "canopy_lean_from": (
+            f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
+            f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
+            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
+        ),
+        "canopy_join_crown_scale": split.crown_join,
+        "canopy_join_crown_scale_from": (
+            f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
+            f"neighbours meeting >= {canopy.CROWN_SCALE_PASS:g} of the way up on the layer "
+            f"smoothed at {canopy.CROWN_SCALE_SHARE:g} x the larger region's radius"
+        ),
+        "weak_separation": False,
+        "split_touching": True,
+    }
+
+
 def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, notes, seen=None):
     """The closed-canopy path (:mod:`ecoscan.detect.canopy`) when the switch rule fires.
 
@@ -141,44 +185,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
             WARNING,
         )
     )
-    th = {
-        "layer": "canopy",
-        "layer_bands": list(abands),
-        "layer_roles": list(roles),
-        "layer_chosen_by": (
-            "closed-canopy rule on sample windows: green share (chromatic Excess Green > "
-            f"{canopy.GREEN_EXG:g}) >= {canopy.CLOSED_GREEN_SHARE:g} and brightness-greenness "
-            f"correlation > {canopy.CLOSED_MIN_CORR:g}, or green share >= "
-            f"{canopy.PACKED_GREEN_SHARE:g} and correlation >= {canopy.PACKED_MIN_CORR:g}; "
-            f"either only with open ground (bright, > {canopy.OPEN_REACH:g} largest crown "
-            f"radii from dark) below {canopy.MAX_OPEN_SHARE:g}"
-        ),
-        "canopy_green_share": evidence["green_share"],
-        "canopy_bright_green_corr": evidence["bright_green_corr"],
-        "canopy_open_share": evidence["open_share"],
-        "canopy_layer": "log(1 + green band), Gaussian smoothed",
-        "canopy_smooth_px": split.smooth_px,
-        "canopy_marker_h": split.h,
-        "canopy_marker_h_from": (
-            f"{canopy.H_SHARE:g} x robust SD (1.4826 MAD) of the smoothed layer on sample windows"
-        ),
-        "canopy_min_area_px": split.min_area_px,
-        "canopy_join_fragments": split.merge,
-        "canopy_lean_radii": [split.lean_col, split.lean_row],
-        "canopy_lean_from": (
-            f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
-            f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
-            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
-        ),
-        "canopy_join_crown_scale": split.crown_join,
-        "canopy_join_crown_scale_from": (
-            f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
-            f"neighbours meeting >= {canopy.CROWN_SCALE_PASS:g} of the way up on the layer "
-            f"smoothed at {canopy.CROWN_SCALE_SHARE:g} x the larger region's radius"
-        ),
-        "weak_separation": False,
-        "split_touching": True,
-    }
+    th = _canopy_record(abands, roles, evidence, split)
     return params, max(overlap, split.overlap_px), scales.align, th, notes
 
 
