@@ -211,14 +211,17 @@ def ecoscan_default(scene, raster: Path, tol: float, workers: int) -> dict:
     }
 
 
-def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
-    """Calibrate on the scene's ``train`` plot and score on its ``test`` plot."""
+def calibrated(style: str, size: int, seed: int, folder: Path, layout: dict | None = None) -> dict:
+    """Calibrate on the scene's ``train`` plot (or the plots ``layout`` places: keywords
+    of :func:`calibrate_speed.calibrate_and_score`) and score on the rest."""
     from calibrate_speed import calibrate_and_score
 
     from ecoscan.synthetic import make_scene
 
     size = max(size, CALIBRATED_MIN_SIZE.get(style, 0))
-    got = calibrate_and_score(make_scene(style, size, seed), folder, f"{style}_{seed}")
+    got = calibrate_and_score(
+        make_scene(style, size, seed), folder, f"{style}_{seed}", **(layout or {})
+    )
     res, row = got["result"], got["row"]
     d = res.detector
     split = getattr(d, "split", None) or {}
@@ -239,18 +242,24 @@ def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
     }
 
 
-def calibrated_suite(styles: list[str], seeds: list[int], size: int) -> list[dict]:
+def calibrated_suite(
+    styles: list[str], seeds: list[int], size: int, layout: dict | None = None
+) -> list[dict]:
     """:func:`calibrated` for every style and seed, printed as it goes."""
     import ecoscan
     from ecoscan.errors import InputError
 
-    print(f"calibrated, ecoscan from {Path(ecoscan.__file__).parent}; seeds {seeds}", flush=True)
+    print(
+        f"calibrated, ecoscan from {Path(ecoscan.__file__).parent}; seeds {seeds}; "
+        f"training plots {layout or 'the top-left 12 %'}",
+        flush=True,
+    )
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         for style in styles:
             for seed in seeds:
                 try:
-                    r = calibrated(style, size, seed, Path(tmp))
+                    r = calibrated(style, size, seed, Path(tmp), layout)
                 except InputError as exc:
                     print(f"{style:16s} seed {seed}: not calibrated: {exc}", flush=True)
                     continue
@@ -304,6 +313,27 @@ def main(argv: list[str] | None = None) -> int:
         help="measure ecoscan calibrate (train plot) scored on the test plot, per seed",
     )
     ap.add_argument("--seeds", help="comma-separated seeds for --calibrated (default --seed)")
+    ap.add_argument(
+        "--train-plots",
+        type=int,
+        default=1,
+        metavar="N",
+        help="--calibrated: N square training plots spread over the scene (default 1: the "
+        "top-left corner)",
+    )
+    ap.add_argument(
+        "--train-fraction",
+        type=float,
+        default=0.12,
+        help="--calibrated: share of the scene the training plots cover in total (at most "
+        "0.15, the issue's rule; default 0.12)",
+    )
+    ap.add_argument(
+        "--diameters",
+        action="store_true",
+        help="--calibrated: give calibrate the mapped crown diameters (diameter_m), not "
+        "positions only",
+    )
     ap.add_argument("--styles", default=",".join(SCENE_STYLES), help="comma-separated styles")
     ap.add_argument("--workers", type=int, default=1, help="ecoscan detection processes")
     ap.add_argument("--markdown", metavar="FILE", help="also write the table as Markdown")
@@ -335,7 +365,16 @@ def main(argv: list[str] | None = None) -> int:
 
     if args.calibrated:
         seeds = [int(v) for v in (args.seeds or str(args.seed)).split(",")]
-        calibrated_suite(args.styles.split(","), seeds, args.size)
+        if not 0 < args.train_fraction <= 0.15 or args.train_plots < 1:
+            ap.error("--train-fraction must be in (0, 0.15] and --train-plots at least 1")
+        layout = None
+        if (args.train_plots, args.train_fraction, args.diameters) != (1, 0.12, False):
+            layout = {
+                "train_plots": args.train_plots,
+                "train_fraction": args.train_fraction,
+                "diameters": args.diameters,
+            }
+        calibrated_suite(args.styles.split(","), seeds, args.size, layout)
         return 0
     rows = []
     if not args.skip_accuracy:
