@@ -48,7 +48,9 @@ class ChoiceLog:
 
     def __enter__(self):
         def wrapped(counts, ordered=(0, 1), width=None):
-            row = {}
+            import inspect
+
+            row = {"grid": inspect.stack()[1].function}
             for w in WIDTHS:
                 pooled = self.orig(counts, ordered, w)[0]
                 row[w] = self.cal._f1(*pooled)
@@ -173,6 +175,14 @@ def main(argv: list[str] | None = None) -> int:
                 + " ".join(f"w{w} {mean[w]:.3f}" for w in WIDTHS)
                 + f" | test P {row.precision:.3f} R {row.recall:.3f} F1 {row.f1:.3f} "
                 f"| {cpu:.0f} s",
+                flush=True,
+            )
+            print(
+                "    grids (w1/w3/w5): "
+                + "; ".join(
+                    f"{r['grid'].strip('_')} " + "/".join(f"{r[w]:.3f}" for w in WIDTHS)
+                    for r in log.rows
+                ),
                 flush=True,
             )
     if allrows:

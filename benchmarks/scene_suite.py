@@ -28,11 +28,14 @@ rest) and scored with ``ecoscan validate``'s matching within half the style's sm
 diameter. Styles whose training plot would hold fewer than 20 plants at ``--size`` are
 drawn at :data:`CALIBRATED_MIN_SIZE` instead (JPEG and coarse: 1000 px). Printed per
 scene: the route chosen, cross-validated F1, test precision, recall, F1 and CPU seconds;
-per style the mean and lowest test F1. To measure an earlier version of the code, run the
-same command with ``PYTHONPATH`` pointing to an export of it (``git archive REV``): the
-script then imports ``ecoscan`` from there. ``--memory-size N`` also writes N×N
-scenes in fresh processes and reports their peak resident memory (the renderer works in
-512-row strips).
+per style the mean and lowest test F1. ``--train-plots N --train-fraction F`` calibrate on
+N square plots spread over the scene covering F of it in total instead (at most 0.15, the
+issue's rule; ``calibrate_speed.spread_training_plots``), and score on the rest;
+``--diameters`` also gives calibrate the mapped crown diameters. To measure an earlier
+version of the code, run the same command with ``PYTHONPATH`` pointing to an export of it
+(``git archive REV``): the script then imports ``ecoscan`` from there. ``--memory-size N``
+also writes N×N scenes in fresh processes and reports their peak resident memory (the
+renderer works in 512-row strips).
 
 Run: ``nice python benchmarks/scene_suite.py`` (a few minutes of CPU at 1500 px);
 ``--size 800`` for a quick run. Not run by the test suite.
