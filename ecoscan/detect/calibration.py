@@ -127,13 +127,15 @@ CENTRE_LEAVES = 31
 CENTRE_SMOOTH_GRID = (0.0, 0.25)
 CENTRE_DISTANCE_GRID = (0.5, 0.8, 1.2)
 CENTRE_PEAK_GRID = (0.05, 0.1, 0.15, 0.2, 0.3, 0.4, 0.5)
-#: Blob thresholds are chosen by the F1 of each grid cell's counts pooled with its
-#: neighbours along both threshold axes, over this many cells (1: the plain argmax of F1).
-#: Only the blob grid (up to 24 response × 6 value thresholds, quantiles of the mapped
-#: plants' values) is pooled; the split's and the centre peaks' grids are coarse (4-7
-#: least peaks), where pooling neighbours mixes unlike settings: on the suite's closed
-#: canopy, development seed 7, pooling them lost the split (test F1 0.908 -> 0.876).
-CHOICE_WIDTH = 3
+#: Blob thresholds can be chosen by the F1 of each grid cell's counts pooled with its
+#: neighbours along both threshold axes, over this many cells; 1 (the default) is the plain
+#: argmax of F1. Measured on the suite's development seeds (benchmarks/calibrate_choice.py),
+#: pooling over 3 cells raised the cross-validated F1 of the plant probability's blobs on
+#: closed canopy (seed 7: 0.800 -> 0.841), which then beat the crown split in the route
+#: choice, and test F1 fell 0.908 -> 0.876; conifer pasture 0.967 -> 0.965, dry shrubs
+#: unchanged. So it is off. The split's and centre peaks' coarse grids (4-7 least peaks)
+#: are never pooled.
+CHOICE_WIDTH = 1
 
 
 @dataclass(frozen=True)
