@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import shapely
 from sklearn.metrics import f1_score
 
 from ecoscan.detect.calibration import _cross_validate, _smoothed_f1
@@ -112,3 +113,37 @@ def test_spread_training_plots_cover_the_share_and_leave_the_rest_for_testing():
         assert all(shapely.intersection(g, test.plots[0].geometry).area < 1e-9 for g in geoms)
     with pytest.raises(ValueError, match="15%"):
         spread_training_plots(sc, 4, 0.2)
+
+
+def test_several_training_plots_are_folds_of_their_own(tmp_path):
+    """Two or more small training plots: each plot is one cross-validation fold (every
+    plant and every pixel of its window in its plot's fold), never random pixels (Roberts
+    et al. 2017, Ecography 40: 913-929: spatial folds, common practice since)."""
+    from calibrate_helpers import X0, Y0, scene_files
+
+    from ecoscan.detect.calibration import _prepare
+    from ecoscan.io.raster import open_raster
+    from ecoscan.model.plots import Plot, PlotLayer
+
+    f = scene_files(tmp_path, "conifer")
+    info = open_raster(f["raster"])
+    pts = f["truth_points"]
+    side = 600 * 0.05
+    t = side * np.sqrt(0.15 / 3)  # three plots, 15 % of the scene in total
+    centres = [(0.2, 0.2), (0.5, 0.8), (0.8, 0.4)]
+    boxes = [
+        shapely.box(
+            X0 + a * side - t / 2,
+            Y0 - b * side - t / 2,
+            X0 + a * side + t / 2,
+            Y0 - b * side + t / 2,
+        )
+        for a, b in centres
+    ]
+    plots = PlotLayer([Plot(f"p{i}", g, {}) for i, g in enumerate(boxes)], pts.crs)
+    windows, fold_by, n_folds, _notes = _prepare(info, pts, plots, ("r", "p", "q"), 8)
+    assert (fold_by, n_folds) == ("plot", 3)
+    inside = [shapely.contains_xy(g, pts.x, pts.y) for g in boxes]
+    for k, w in enumerate(windows):
+        assert w.ref.shape[0] == int(inside[w.plot].sum())  # its own plot's plants only
+        assert set(np.unique(w.ref_fold)) == {k} and set(np.unique(w.fold_map)) == {k}
