@@ -52,6 +52,7 @@ __all__ = [
     "near_shares",
     "ring_test",
     "robust_centre_scale",
+    "strong_test",
     "threshold_raise",
 ]
 
@@ -106,23 +107,14 @@ VALUE_SAMPLE_PX = 2_000_000
 #: where one spread for the whole raster is too low for grass patches and compression
 #: blocks. The same 1 as ``VALUE_MADS``, applied locally.
 RING_MADS = 1.0
-#: Whether Excess Green gets the colour distance from the ground added by default
-#: (:func:`_with_ground_colour`). Off: measured on 5 December 2026 it lifted the tuning
-#: scenes (mixed 0.948 -> 0.985) and dry shrubs at 1024-2048 px, but not dry shrubs at
-#: 512 px, lowered two rocky-shrubland development seeds a little and cost about +40 %
-#: CPU (docs/detection.md, "Colour distance from the ground").
-GROUND_COLOUR = False
-#: Weight of the colour distance from the ground added to Excess Green (both in robust
-#: SDs; :func:`_with_ground_colour`). Measured on the dry-shrub development seeds.
-GROUND_WEIGHT = 0.3
-#: The bands are smoothed before the colour distance at this share of the smallest crown
-#: radius (the log of a ratio amplifies noise in dark pixels).
-GROUND_SMOOTH = 0.35
-#: ... and only on ground that is not green: chromatic Excess Green of the ground's modal
-#: colour below this. Measured: soil of the tuning and suite scenes 0.01-0.08, pasture
-#: and conifer pasture 0.32-0.43 (where the added term lowered tuning pasture 0.884 to
-#: 0.709).
-GREEN_GROUND = 0.2
+#: Clear blobs below the centre-value threshold (:func:`strong_test`): kept when the
+#: layer at the centre reaches the background median plus this many robust SDs ...
+STRONG_VALUE_MADS = 0.0
+#: ... and the response this many times the scale's threshold (None: the rule off).
+#: Chosen on benchmarks/tuning_scenes.py (1.5 lowered tuning ``pines`` and ``grass``)
+#: and the suite's development seeds (2 added ground points on rocky shrubland, whose
+#: responses were 2.05-2.11 times the threshold; docs/detection.md).
+STRONG_RATIO: float | None = 3.0
 #: Label of the colour layer that ignores brightness (:mod:`ecoscan.detect.chromaticity`).
 INVARIANT = "chroma"
 #: The log-chromaticity layers.
@@ -311,6 +303,38 @@ def ring_test(choice: LayerChoice) -> float | None:
     True
     """
     return RING_MADS if choice.threshold_raise > 1.0 else None
+
+
+def strong_test(choice: LayerChoice) -> tuple[float, float] | None:
+    """``(lowest centre value, response factor)`` for clear blobs below the centre-value
+    threshold (:func:`ecoscan.detect.blobs.detect_blobs`, ``strong``), or None.
+
+    A pale or senescent crown has a vegetation-index value near the ground's: the layer at
+    its centre can fall short of ``background + VALUE_MADS × spread`` while its blob
+    response, its contrast with the ground right around it, is clear. Such a blob is kept
+    when its centre value reaches ``background + STRONG_VALUE_MADS × spread`` and its
+    response ``STRONG_RATIO`` times its scale's threshold. Only on smooth ground (no
+    threshold raise: on rough ground the ring test is the local check), only on layers
+    holding Excess Green (a darkness or log-chromaticity layer has no index value for a
+    pale crown to fall short of; on NDVI it added ground points on the suite's
+    multispectral development seed 7) and never on closed canopy.
+
+    Examples
+    --------
+    >>> c = LayerChoice("exg", (("exg", 1.0),), 0.02, 0.01, (1.0,), 1.0, 0.03, 5.0, 0.0, 20)
+    >>> strong_test(c)
+    (0.02, 3.0)
+    >>> strong_test(LayerChoice("darkness", (("darkness", 1.0),), 0.0, 1.0, (1.0,), 1.0,
+    ...                         1.0, 5.0, 0.0, 20)) is None
+    True
+    """
+    if STRONG_RATIO is None or choice.closed or not math.isfinite(choice.min_value):
+        return None
+    if choice.threshold_raise > 1.0:
+        return None
+    if not any(n == "exg" for n, _w in choice.terms):
+        return None
+    return (choice.background + STRONG_VALUE_MADS * choice.spread, STRONG_RATIO)
 
 
 def candidate_layers(roles: tuple[str, ...]) -> list[tuple[str, ...]]:
@@ -972,7 +996,6 @@ def choose_layer(
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
-    ground_colour: bool | None = None,
     chroma: bool = True,
 ) -> LayerChoice:
     """Score candidate layers on sample windows and keep the best separated one.
@@ -994,10 +1017,6 @@ def choose_layer(
         (:func:`ecoscan.detect.tiling.share_work`). The choice is the same, to the bit.
         Default: the pool lent by :func:`ecoscan.detect.tiling.lend_pool` (detection
         lends the workers it started), else none.
-    ground_colour : bool, optional
-        On red, green and blue bands without near infrared, Excess Green gets the colour
-        distance from the ground added (:mod:`ecoscan.detect.ground_colour`;
-        :data:`GROUND_WEIGHT`). Default :data:`GROUND_COLOUR`.
     chroma : bool, optional
         Also try the log-chromaticity layer (:mod:`ecoscan.detect.chromaticity`) on
         red, green and blue bands without near infrared (default True).
@@ -1026,15 +1045,6 @@ def choose_layer(
     pool = pool if pool is not None else lent_pool()
     cache = _WindowCache(windows, scales)
     jobs = _layer_jobs(windows, roles, scales, options, cache.stride)
-    if ground_colour is None:
-        ground_colour = GROUND_COLOUR
-    if ground_colour and _has_colour(roles):
-        jobs = [
-            _with_ground_colour(job, windows, roles, scales, cache.stride)
-            if job.label == "exg"
-            else job
-            for job in jobs
-        ]
     if chroma and _has_colour(roles):
         jobs.extend(_invariant_jobs(windows, roles, scales))
     results = share_work(
@@ -1077,39 +1087,6 @@ def choose_layer(
         scores=scores,
         elongation=elong,
     )
-
-
-def _with_ground_colour(job: _LayerJob, windows, roles, scales, stride: int) -> _LayerJob:
-    """Excess Green plus ``GROUND_WEIGHT`` times the colour distance from the ground
-    (:mod:`ecoscan.detect.ground_colour`), each in its own robust standard deviations;
-    the ground's colour is estimated once on the sample windows. The job unchanged when
-    the ground is green (``GREEN_GROUND``)."""
-    from ecoscan.detect.ground_colour import (
-        estimate_ground_colour,
-        ground_excess_green,
-        layer_name,
-    )
-
-    pos = {r: i for i, r in enumerate(roles)}
-    rgb = [
-        np.concatenate([_values(w.data[pos[b]], w.valid, stride) for w in windows])
-        for b in ("red", "green", "blue")
-    ]
-    smooth = GROUND_SMOOTH * float(scales.sigmas[1]) * math.sqrt(2)  # smallest radius
-    gc = estimate_ground_colour(*rgb, smooth_px=smooth)
-    if ground_excess_green(gc) >= GREEN_GROUND:
-        return job  # plants on grass: Excess Green is already the colour contrast
-    gname = layer_name(gc)
-    ground = [compose_layer(w.data, roles, ((gname, 1.0),)) for w in windows]
-    sd_exg = job.centre[1] if job.centre is not None else 0.0
-    sd_gr = robust_centre_scale(
-        np.concatenate([_values(g, w.valid, stride) for g, w in zip(ground, windows, strict=True)])
-    )[1]
-    if not (sd_exg > 0 and sd_gr > 0):
-        return job
-    terms = (("exg", 1.0 / sd_exg), (gname, GROUND_WEIGHT / sd_gr))
-    layers = [_weighted_sum([e, g], terms) for e, g in zip(job.layers, ground, strict=True)]
-    return _LayerJob("exg+ground", terms, layers, job.valid, job.core, scales, None)
 
 
 def _has_colour(roles: tuple[str, ...]) -> bool:

@@ -424,6 +424,7 @@ def detect_blobs(
     origin: tuple[int, int] = (0, 0),
     background: float = 0.0,
     ring_mads: float | None = None,
+    strong: tuple[float, float] | None = None,
 ) -> dict[str, np.ndarray]:
     """Find bright blobs as maxima of the normalised DoG over position and scale.
 
@@ -477,6 +478,7 @@ def detect_blobs(
             min_value,
             origin,
             ring_mads,
+            strong,
         )
     return {n: (np.concatenate(v).astype(float) if v else np.empty(0)) for n, v in out.items()}
 
@@ -506,7 +508,18 @@ def pyramid_blobs(
 
 
 def _level_maxima(
-    out, lev, ext, resp, blurs, level_valid, scales, min_response, min_value, origin, ring_mads=None
+    out,
+    lev,
+    ext,
+    resp,
+    blurs,
+    level_valid,
+    scales,
+    min_response,
+    min_value,
+    origin,
+    ring_mads=None,
+    strong=None,
 ):
     """Append the blobs of one pyramid level to ``out`` (see :func:`detect_blobs`)."""
     f = 2**lev
@@ -523,6 +536,11 @@ def _level_maxima(
         sel = zi == z
         value[sel] = blurs[z][yi[sel], xi[sel]]
     ok = value >= min_value
+    if strong is not None:
+        # a blob below the centre-value threshold is kept when its value reaches the lower
+        # level strong[0] and its response is strong[1] times its scale's threshold
+        thr_b = thr[zi - 1, 0, 0] if np.ndim(thr) else np.float32(thr)
+        ok |= (value >= strong[0]) & (resp[zi, yi, xi] >= np.float32(strong[1]) * thr_b)
     if ring_mads is not None and ok.any():
         ok[ok] = ring_contrast(blurs, zi[ok], yi[ok], xi[ok], level_valid, scales, ext, f) >= (
             ring_mads

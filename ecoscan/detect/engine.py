@@ -113,8 +113,7 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         ``darkness`` (minus the mean of the visible bands, or of all bands when none is
         named), ``band`` (the first band as it is), ``logchroma_r`` / ``logchroma_b``
         (log of red / blue over the geometric mean of red, green and blue:
-        :func:`ecoscan.detect.chromaticity.log_chromaticity`) or ``ground_colour@...``
-        (colour distance from the ground, :mod:`ecoscan.detect.ground_colour`).
+        :func:`ecoscan.detect.chromaticity.log_chromaticity`).
 
     Returns
     -------
@@ -138,12 +137,6 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         return darkness(*vis)
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
-    if name.startswith("ground_colour@"):
-        # colour distance from the ground (ecoscan.detect.ground_colour)
-        from ecoscan.detect.ground_colour import ground_distance, parse_layer_name
-
-        rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
-        return ground_distance(*rgb, parse_layer_name(name))
     if name in ("logchroma_r", "logchroma_b"):
         # log-chromaticities for the log-chromaticity layer (ecoscan.detect.chromaticity)
         from ecoscan.detect.chromaticity import log_chromaticity

@@ -126,6 +126,7 @@ class BlobPlan:
     layer_model: object = None
     canopy: object = None
     ring_mads: float | None = None
+    strong: tuple[float, float] | None = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -364,6 +365,7 @@ class ImageryDetector(Detector):
             origin=window.origin,
             background=plan.fill_value,
             ring_mads=plan.ring_mads,
+            strong=plan.strong,
         )
         columns = {"sigma_px": found["sigma"], "score": found["response"]}
         columns["index_value"] = found["value"]

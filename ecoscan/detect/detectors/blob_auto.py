@@ -177,7 +177,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
 
 def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     """Layer and thresholds chosen from the image (robust background statistics)."""
-    from ecoscan.detect.autotune import choose_layer, ring_test
+    from ecoscan.detect.autotune import choose_layer, ring_test, strong_test
 
     lookup = band_lookup(info, settings)
     roles = tuple(r for r in ("red", "green", "blue", "nir") if r in lookup)
@@ -211,11 +211,8 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         terms=choice.terms,
         split_ratio=SPLIT_RATIO if settings.split_touching else 0.0,
         ring_mads=ring_test(choice),
+        strong=strong_test(choice),
     )
-    from ecoscan.detect.ground_colour import reach_px
-
-    # a smoothed layer reads beyond the blob filter's reach: widen the tiles' overlap
-    overlap += max((reach_px(n) for n, _w in choice.terms), default=0)
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
     if params.ring_mads is not None:  # each ring pixel must be exact in every tile's core
@@ -283,8 +280,10 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         NEAR,
         REFERENCE_SIGMA_PX,
         RESPONSE_MADS,
+        STRONG_VALUE_MADS,
         VALUE_MADS,
         ring_test,
+        strong_test,
     )
     from ecoscan.detect.blobs import RING
     from ecoscan.detect.elongation import ALIGNED_MIN, ALIGNED_MIN_Z, MAX_BLOBS
@@ -320,6 +319,13 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
             f"exceed the median of the same over a ring {RING[0]:g}-{RING[1]:g} blob radii "
             "out by this many robust SDs (1.4826 MAD) of the ring; none (null) on smooth "
             "ground"
+        ),
+        "strong_blob": None if strong_test(choice) is None else list(strong_test(choice)),
+        "strong_blob_from": (
+            "on smooth ground and a layer with Excess Green: a blob below the "
+            "vegetation threshold is kept when its smoothed centre value reaches the first "
+            f"figure (background median + {STRONG_VALUE_MADS:g} x robust SD) and its response "
+            "the second figure times its scale's threshold; none (null) elsewhere"
         ),
         "near_threshold_share": choice.near_share,
         "blob_alignment": choice.elongation.get("alignment", 0.0),
