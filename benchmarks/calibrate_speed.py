@@ -13,9 +13,12 @@ latter. Run under nice:  nice python benchmarks/calibrate_speed.py [--size 1000]
 from __future__ import annotations
 
 import argparse
+import math
 import tempfile
 import time
 from pathlib import Path
+
+import numpy as np
 
 from ecoscan.analysis.validation.compute import validate_points
 from ecoscan.detect import DetectionSettings, detect_raster
@@ -29,18 +32,80 @@ from ecoscan.model.plots import PlotLayer
 from ecoscan.model.points import PointSet
 from ecoscan.synthetic import SCENE_STYLES, make_scene, write_scene
 
+#: The issue's rule: training plots cover at most this share of the scene in total.
+MAX_TRAIN_FRACTION = 0.15
 
-def calibrate_and_score(sc, folder: Path, stem: str) -> dict:
-    """Write scene ``sc``, calibrate on its ``train`` plot, detect with the learnt file and
-    score on its ``test`` plot (matching within half the smallest diameter, as ``ecoscan
-    validate`` does). Returns the calibration result, the test row and the timings."""
+
+def spread_training_plots(sc, n: int, fraction: float) -> tuple[PlotLayer, PlotLayer]:
+    """``n`` square training plots covering ``fraction`` of scene ``sc`` in total, spread
+    over it, and the test plot (the rest of the scene, with holes where they are).
+
+    The scene is cut into k × k cells (k = ceil(sqrt(n))); the plots sit at the centres of
+    ``n`` cells spread evenly along the cell order (two plots: opposite corners; four: one
+    per quarter; five: the corners of a 3 × 3 grid and its centre). ``n = 1`` gives the
+    scene's own ``train`` plot, a square in the top-left corner.
+
+    Examples
+    --------
+    >>> from ecoscan.synthetic import make_scene
+    >>> train, test = spread_training_plots(make_scene("coarse", 100, 0), 4, 0.15)
+    >>> len(train.plots), round(sum(p.geometry.area for p in train.plots) / 625.0, 3)
+    (4, 0.15)
+    """
+    import shapely
+    from pyproj import CRS
+
+    from ecoscan.model.plots import Plot
+    from ecoscan.synthetic.scene import SCENE_ORIGIN, training_plots
+
+    if not 0 < fraction <= MAX_TRAIN_FRACTION:
+        raise ValueError(f"training plots may cover at most {MAX_TRAIN_FRACTION:.0%} in total")
+    crs = CRS.from_user_input(sc.crs)
+    if n == 1:
+        layer = training_plots(sc, fraction)
+        return (
+            PlotLayer([p for p in layer.plots if p.plot_id == "train"], layer.crs),
+            PlotLayer([p for p in layer.plots if p.plot_id == "test"], layer.crs),
+        )
+    x0, y0 = SCENE_ORIGIN
+    side = sc.size_px * sc.pixel_size_m
+    k = math.ceil(math.sqrt(n))
+    t = side * math.sqrt(fraction / n)
+    cells = np.round(np.linspace(0, k * k - 1, n)).astype(int)
+    boxes = []
+    for c in cells:
+        cx = x0 + (c % k + 0.5) * side / k
+        cy = y0 - (c // k + 0.5) * side / k
+        boxes.append(shapely.box(cx - t / 2, cy - t / 2, cx + t / 2, cy + t / 2))
+    whole = shapely.box(x0, y0 - side, x0 + side, y0)
+    test = whole.difference(shapely.union_all(boxes))
+    train = PlotLayer([Plot(f"train{i + 1}", b, {}) for i, b in enumerate(boxes)], crs)
+    return train, PlotLayer([Plot("test", test, {})], crs)
+
+
+def calibrate_and_score(
+    sc,
+    folder: Path,
+    stem: str,
+    *,
+    train_plots: int = 1,
+    train_fraction: float = 0.12,
+    diameters: bool = False,
+) -> dict:
+    """Write scene ``sc``, calibrate on its training plots, detect with the learnt file and
+    score on the test plot (matching within half the smallest diameter, as ``ecoscan
+    validate`` does). Returns the calibration result, the test row and the timings.
+
+    By default the training plot is the scene's ``train`` plot (the top-left 12 %) and
+    the reference holds positions only; ``train_plots`` and ``train_fraction`` place
+    several plots instead (:func:`spread_training_plots`, at most 15 % in total), and
+    ``diameters`` keeps the mapped crown diameters (``diameter_m``) in the reference."""
     paths = write_scene(sc, folder)
     info = open_raster(paths.raster)
     ref = read_points(paths.truth)
-    ref = PointSet(ref.x, ref.y, {}, ref.crs)  # positions only, as mapped in the field
-    plots = read_plots(paths.plots, target_crs=info.crs)
-    train = PlotLayer([p for p in plots.plots if p.plot_id == "train"], plots.crs)
-    test = PlotLayer([p for p in plots.plots if p.plot_id == "test"], plots.crs)
+    keep = {"diameter_m": ref.attrs["diameter_m"]} if diameters else {}
+    ref = PointSet(ref.x, ref.y, keep, ref.crs)  # positions only, as mapped in the field
+    train, test = spread_training_plots(sc, train_plots, train_fraction)
     t0, c0 = time.perf_counter(), time.process_time()
     res = calibrate_detector(
         info, ref, train, band_names=band_names_for(info, parse_band_spec(sc.bands_option))

@@ -28,11 +28,14 @@ rest) and scored with ``ecoscan validate``'s matching within half the style's sm
 diameter. Styles whose training plot would hold fewer than 20 plants at ``--size`` are
 drawn at :data:`CALIBRATED_MIN_SIZE` instead (JPEG and coarse: 1000 px). Printed per
 scene: the route chosen, cross-validated F1, test precision, recall, F1 and CPU seconds;
-per style the mean and lowest test F1. To measure an earlier version of the code, run the
-same command with ``PYTHONPATH`` pointing to an export of it (``git archive REV``): the
-script then imports ``ecoscan`` from there. ``--memory-size N`` also writes N×N
-scenes in fresh processes and reports their peak resident memory (the renderer works in
-512-row strips).
+per style the mean and lowest test F1. ``--train-plots N --train-fraction F`` calibrate on
+N square plots spread over the scene covering F of it in total instead (at most 0.15, the
+issue's rule; ``calibrate_speed.spread_training_plots``), and score on the rest;
+``--diameters`` also gives calibrate the mapped crown diameters. To measure an earlier
+version of the code, run the same command with ``PYTHONPATH`` pointing to an export of it
+(``git archive REV``): the script then imports ``ecoscan`` from there. ``--memory-size N``
+also writes N×N scenes in fresh processes and reports their peak resident memory (the
+renderer works in 512-row strips).
 
 Run: ``nice python benchmarks/scene_suite.py`` (a few minutes of CPU at 1500 px);
 ``--size 800`` for a quick run. Not run by the test suite.
@@ -211,14 +214,17 @@ def ecoscan_default(scene, raster: Path, tol: float, workers: int) -> dict:
     }
 
 
-def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
-    """Calibrate on the scene's ``train`` plot and score on its ``test`` plot."""
+def calibrated(style: str, size: int, seed: int, folder: Path, layout: dict | None = None) -> dict:
+    """Calibrate on the scene's ``train`` plot (or the plots ``layout`` places: keywords
+    of :func:`calibrate_speed.calibrate_and_score`) and score on the rest."""
     from calibrate_speed import calibrate_and_score
 
     from ecoscan.synthetic import make_scene
 
     size = max(size, CALIBRATED_MIN_SIZE.get(style, 0))
-    got = calibrate_and_score(make_scene(style, size, seed), folder, f"{style}_{seed}")
+    got = calibrate_and_score(
+        make_scene(style, size, seed), folder, f"{style}_{seed}", **(layout or {})
+    )
     res, row = got["result"], got["row"]
     d = res.detector
     split = getattr(d, "split", None) or {}
@@ -239,18 +245,24 @@ def calibrated(style: str, size: int, seed: int, folder: Path) -> dict:
     }
 
 
-def calibrated_suite(styles: list[str], seeds: list[int], size: int) -> list[dict]:
+def calibrated_suite(
+    styles: list[str], seeds: list[int], size: int, layout: dict | None = None
+) -> list[dict]:
     """:func:`calibrated` for every style and seed, printed as it goes."""
     import ecoscan
     from ecoscan.errors import InputError
 
-    print(f"calibrated, ecoscan from {Path(ecoscan.__file__).parent}; seeds {seeds}", flush=True)
+    print(
+        f"calibrated, ecoscan from {Path(ecoscan.__file__).parent}; seeds {seeds}; "
+        f"training plots {layout or 'the top-left 12 %'}",
+        flush=True,
+    )
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         for style in styles:
             for seed in seeds:
                 try:
-                    r = calibrated(style, size, seed, Path(tmp))
+                    r = calibrated(style, size, seed, Path(tmp), layout)
                 except InputError as exc:
                     print(f"{style:16s} seed {seed}: not calibrated: {exc}", flush=True)
                     continue
@@ -304,6 +316,27 @@ def main(argv: list[str] | None = None) -> int:
         help="measure ecoscan calibrate (train plot) scored on the test plot, per seed",
     )
     ap.add_argument("--seeds", help="comma-separated seeds for --calibrated (default --seed)")
+    ap.add_argument(
+        "--train-plots",
+        type=int,
+        default=1,
+        metavar="N",
+        help="--calibrated: N square training plots spread over the scene (default 1: the "
+        "top-left corner)",
+    )
+    ap.add_argument(
+        "--train-fraction",
+        type=float,
+        default=0.12,
+        help="--calibrated: share of the scene the training plots cover in total (at most "
+        "0.15, the issue's rule; default 0.12)",
+    )
+    ap.add_argument(
+        "--diameters",
+        action="store_true",
+        help="--calibrated: give calibrate the mapped crown diameters (diameter_m), not "
+        "positions only",
+    )
     ap.add_argument("--styles", default=",".join(SCENE_STYLES), help="comma-separated styles")
     ap.add_argument("--workers", type=int, default=1, help="ecoscan detection processes")
     ap.add_argument("--markdown", metavar="FILE", help="also write the table as Markdown")
@@ -335,7 +368,16 @@ def main(argv: list[str] | None = None) -> int:
 
     if args.calibrated:
         seeds = [int(v) for v in (args.seeds or str(args.seed)).split(",")]
-        calibrated_suite(args.styles.split(","), seeds, args.size)
+        if not 0 < args.train_fraction <= 0.15 or args.train_plots < 1:
+            ap.error("--train-fraction must be in (0, 0.15] and --train-plots at least 1")
+        layout = None
+        if (args.train_plots, args.train_fraction, args.diameters) != (1, 0.12, False):
+            layout = {
+                "train_plots": args.train_plots,
+                "train_fraction": args.train_fraction,
+                "diameters": args.diameters,
+            }
+        calibrated_suite(args.styles.split(","), seeds, args.size, layout)
         return 0
     rows = []
     if not args.skip_accuracy:

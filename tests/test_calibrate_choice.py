@@ -1,0 +1,149 @@
+"""How calibration chooses thresholds from a cross-validated grid, and the benchmark's
+placement of several training plots.
+
+F1 = 2 TP / (2 TP + FP + FN), the harmonic mean of precision and recall (van Rijsbergen
+1979, *Information Retrieval*, ch. 7); the brute-force choices below recompute it with
+``sklearn.metrics.f1_score`` on expanded label vectors, a reference implementation outside
+the project.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import shapely
+from sklearn.metrics import f1_score
+
+from ecoscan.detect.calibration import _cross_validate, _smoothed_f1
+
+
+def _f1_reference(tp: int, fp: int, fn: int) -> float:
+    """F1 from scikit-learn on label vectors with these counts (positives: plants)."""
+    truth = np.r_[np.ones(tp), np.zeros(fp), np.ones(fn)]
+    found = np.r_[np.ones(tp), np.ones(fp), np.zeros(fn)]
+    return float(f1_score(truth, found, zero_division=0.0))
+
+
+def _brute_force(counts: np.ndarray) -> tuple[np.ndarray, tuple[int, int]]:
+    """Leave-one-fold-out choice by the plain argmax, cell by cell with the reference F1."""
+    a, b, n_folds, _ = counts.shape
+    total = counts.sum(axis=2)
+    pooled = np.zeros(3, int)
+    for f in range(n_folds):
+        rest = total - counts[:, :, f]
+        f1 = np.array([[_f1_reference(*rest[i, j]) for j in range(b)] for i in range(a)])
+        i, j = np.unravel_index(int(np.argmax(f1)), f1.shape)
+        pooled += counts[i, j, f]
+    f1 = np.array([[_f1_reference(*total[i, j]) for j in range(b)] for i in range(a)])
+    best = np.unravel_index(int(np.argmax(f1)), f1.shape)
+    return pooled, (int(best[0]), int(best[1]))
+
+
+def test_width_one_is_the_plain_leave_one_fold_out_argmax():
+    rng = np.random.default_rng(3)
+    for _ in range(5):
+        plants = rng.integers(5, 15, size=4)
+        tp = rng.binomial(plants[None, None, :], rng.uniform(0.5, 1.0, (6, 4, 1)))
+        fp = rng.poisson(rng.uniform(0.2, 4.0, (6, 4, 1)), (6, 4, 4))
+        counts = np.stack([tp, fp, plants[None, None, :] - tp], axis=-1)
+        pooled, _fold_f1, best = _cross_validate(counts, width=1)
+        ref_pooled, ref_best = _brute_force(counts)
+        np.testing.assert_array_equal(pooled, ref_pooled)
+        assert best == ref_best
+
+
+def test_smoothing_pools_counts_of_neighbouring_cells_only_along_ordered_axes():
+    c = np.random.default_rng(0).integers(0, 20, (4, 3, 3)).astype(float)
+    got = _smoothed_f1(c, (1,), 3)
+    # by hand: column j pools columns j-1, j, j+1 (edge columns repeat themselves)
+    padded = np.concatenate([c[:, :1], c, c[:, -1:]], axis=1)
+    pooled = (padded[:, :-2] + padded[:, 1:-1] + padded[:, 2:]) / 3
+    want = [
+        [_f1_reference(*np.round(3 * pooled[i, j]).astype(int)) for j in range(3)] for i in range(4)
+    ]
+    np.testing.assert_allclose(got, want, atol=1e-12)
+    # rows (a categorical axis here) are never mixed
+    np.testing.assert_allclose(_smoothed_f1(c[:1], (1,), 3), got[:1])
+
+
+@pytest.mark.parametrize("plants", [36])
+def test_pooled_choice_picks_better_thresholds_than_the_argmax_on_few_plants(plants):
+    """The situation of a single 12 % training plot: about 36 mapped plants in 4 folds and a
+    grid of 12 response thresholds whose true F1 is a smooth hill (recall falls and
+    precision rises with the threshold). Counts are drawn binomially around it; each rule
+    chooses a cell on the drawn counts, and the cell's *true* F1 is what the detector would
+    reach on new ground. Pooling neighbours must choose better on average; the plain
+    argmax chases the noise (a property of choosing the maximum of noisy estimates:
+    the winner's curse, e.g. Varma & Simon 2006, BMC Bioinformatics 7: 91)."""
+    rng = np.random.default_rng(11)
+    thr = np.linspace(0, 1, 12)
+    recall = 1.0 - 0.35 * thr**2
+    false_per_plant = 0.6 * (1 - thr) ** 2.5
+    true_f1 = 2 * recall / (1 + recall + false_per_plant)
+    per_fold = np.full(4, plants // 4)
+    gains = []
+    for _ in range(300):
+        tp = rng.binomial(per_fold[None, :], recall[:, None])
+        fp = rng.poisson(false_per_plant[:, None] * per_fold[None, :])
+        counts = np.stack([tp, fp, per_fold[None, :] - tp], axis=-1)[:, None]
+        _p, _f, (i1, _j) = _cross_validate(counts, ordered=(0,), width=1)
+        _p, _f, (i3, _j) = _cross_validate(counts, ordered=(0,), width=3)
+        gains.append(true_f1[i3] - true_f1[i1])
+    gains = np.asarray(gains)
+    assert gains.mean() > 0.002  # better on average ...
+    assert np.mean(gains < -0.01) < np.mean(gains > 0.01)  # ... and more often better
+
+
+def test_spread_training_plots_cover_the_share_and_leave_the_rest_for_testing():
+    import shapely
+
+    from benchmarks.calibrate_speed import spread_training_plots
+    from ecoscan.synthetic import make_scene
+
+    sc = make_scene("coarse", 200, 0)
+    side = sc.size_px * sc.pixel_size_m
+    for n in (1, 2, 4, 5):
+        train, test = spread_training_plots(sc, n, 0.15)
+        geoms = [p.geometry for p in train.plots]
+        assert len(geoms) == n
+        assert sum(g.area for g in geoms) == pytest.approx(0.15 * side**2)
+        assert shapely.union_all(geoms).area == pytest.approx(0.15 * side**2)  # disjoint
+        whole = shapely.union_all([*geoms, test.plots[0].geometry])
+        assert whole.area == pytest.approx(side**2)
+        assert all(shapely.intersection(g, test.plots[0].geometry).area < 1e-9 for g in geoms)
+    with pytest.raises(ValueError, match="15%"):
+        spread_training_plots(sc, 4, 0.2)
+
+
+def test_several_training_plots_are_folds_of_their_own(tmp_path):
+    """Two or more small training plots: each plot is one cross-validation fold (every
+    plant and every pixel of its window in its plot's fold), never random pixels (Roberts
+    et al. 2017, Ecography 40: 913-929: spatial folds, common practice since)."""
+    from calibrate_helpers import X0, Y0, scene_files
+
+    from ecoscan.detect.calibration import _prepare
+    from ecoscan.io.raster import open_raster
+    from ecoscan.model.plots import Plot, PlotLayer
+
+    f = scene_files(tmp_path, "conifer")
+    info = open_raster(f["raster"])
+    pts = f["truth_points"]
+    side = 600 * 0.05
+    t = side * np.sqrt(0.15 / 3)  # three plots, 15 % of the scene in total
+    centres = [(0.2, 0.2), (0.5, 0.8), (0.8, 0.4)]
+    boxes = [
+        shapely.box(
+            X0 + a * side - t / 2,
+            Y0 - b * side - t / 2,
+            X0 + a * side + t / 2,
+            Y0 - b * side + t / 2,
+        )
+        for a, b in centres
+    ]
+    plots = PlotLayer([Plot(f"p{i}", g, {}) for i, g in enumerate(boxes)], pts.crs)
+    windows, fold_by, n_folds, _notes = _prepare(info, pts, plots, ("r", "p", "q"), 8)
+    assert (fold_by, n_folds) == ("plot", 3)
+    inside = [shapely.contains_xy(g, pts.x, pts.y) for g in boxes]
+    for k, w in enumerate(windows):
+        assert w.ref.shape[0] == int(inside[w.plot].sum())  # its own plot's plants only
+        assert set(np.unique(w.ref_fold)) == {k} and set(np.unique(w.fold_map)) == {k}
