@@ -125,7 +125,10 @@ def test_a_choice_begun_early_is_the_serial_one(pool, style):
     with begin_layer_choice(wins, roles, scales, pool=pool) as scoring:
         assert [j.label for j in scoring.jobs] == ["exg"]  # one handed out before the check
         early = choose_layer(wins, roles, scales, pool=pool, scoring=scoring)
-    assert set(early.scores) == {"exg", "darkness", "exg+darkness", "chroma"}
+    # every layer was scored (conifer pasture adds "chroma-valley": the log-chromaticity
+    # layer with valley thresholds took over the classic choice)
+    assert {"exg", "darkness", "exg+darkness", "chroma"} <= set(early.scores)
+    assert ("chroma-valley" in early.scores) == (style == "conifer-pasture")
     # every field, to the bit
     assert dataclasses.asdict(early) == dataclasses.asdict(serial)
 
