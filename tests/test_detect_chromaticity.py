@@ -211,6 +211,8 @@ def test_conifers_joined_to_shadows_are_found_on_the_colour_layer(tmp_path):
     assert th["vegetation_threshold"] == th["background"]  # the valley rule's value test
     assert th["vegetation_threshold_from"] == "background median"
     assert th["threshold_raise"] > 1.0
+    # the notes say why a layer with a lower separation score was used
+    assert any("better-scored layers were unusable" in str(n) for n in res.notes)
     assert f1 >= 0.75, f"F1 {f1:.3f}"
 
 
@@ -218,3 +220,4 @@ def test_the_valley_rule_stays_off_where_a_classic_layer_works(tmp_path):
     _f1, res = _suite_f1("dry-shrubs", 384, 7, tmp_path)
     assert res.thresholds["layer"] != "chroma"
     assert "chroma-valley" not in res.thresholds["layer_scores"]
+    assert not any("valley between ground" in str(n) for n in res.notes)

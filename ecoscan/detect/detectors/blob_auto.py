@@ -301,6 +301,28 @@ def _shadow_meta(shadow: dict) -> dict:
     }
 
 
+def _takeover_note(choice) -> str:
+    """Why the log-chromaticity layer was used, in one line (its valley thresholds)."""
+    from ecoscan.detect.autotune import SHADOW_FREE, SHADOW_FREE_MARGIN
+
+    label = LAYER_LABELS.get(choice.name, choice.name)
+    classic = max(
+        (v for k, v in choice.scores.items() if k not in SHADOW_FREE and "-valley" not in k),
+        default=0.0,
+    )
+    if choice.scores.get(choice.name, 0.0) >= SHADOW_FREE_MARGIN * classic > 0.0:
+        why = f"it separated at least {SHADOW_FREE_MARGIN:g}x better than every other layer"
+    else:
+        why = (
+            "the better-scored layers were unusable here (too few candidates, or blobs "
+            "joined to their cast shadows), and it kept enough candidates"
+        )
+    return (
+        f"{label} used because {why}; its thresholds sit in the valley between ground "
+        "bumps and plants"
+    )
+
+
 def _describe_choice(choice, notes: list) -> None:
     """Notes on the layer and thresholds chosen from the image."""
     tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
@@ -308,6 +330,8 @@ def _describe_choice(choice, notes: list) -> None:
         f"detection layer: {LAYER_LABELS.get(choice.name, choice.name)}, chosen from the image "
         f"(separation score {tried})"
     )
+    if f"{choice.name}-valley" in choice.scores:
+        notes.append(_takeover_note(choice))
     notes.append(
         f"thresholds from the background (median {choice.background:.4g}, robust SD "
         f"{choice.spread:.4g}): crown contrast at least {choice.min_contrast:.4g}, centre "
