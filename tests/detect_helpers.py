@@ -95,3 +95,24 @@ def sorted_xy(points: PointSet) -> np.ndarray:
     """Coordinates sorted lexicographically, to compare two runs."""
     xy = points.xy
     return xy[np.lexsort((xy[:, 1], xy[:, 0]))]
+
+
+def suite_scene_f1(style: str, size: int, seed: int, folder: Path):
+    """Default detection (only the diameter range and bands given) on a scene-suite scene.
+
+    Returns ``(f1, result)``: a detection counts when it is matched one to one within half
+    the smallest stated diameter of a plant (as ``ecoscan validate`` matches).
+    """
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.stats.matching import match_points
+    from ecoscan.synthetic import make_scene, write_scene
+
+    sc = make_scene(style, size, seed)
+    paths = write_scene(sc, folder)
+    lo, hi = sc.diameter_range_m
+    res = detect_raster(
+        paths.raster,
+        DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, bands=sc.bands_option),
+    )
+    m = match_points(res.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
+    return 2 * m.n_matched / (res.n + sc.n), res

@@ -5,6 +5,7 @@ import math
 
 import numpy as np
 import pytest
+from detect_helpers import suite_scene_f1
 from scipy import stats
 
 from ecoscan.detect.chromaticity import (
@@ -183,28 +184,12 @@ def test_valley_factor_limits():
     assert valley_factor(mixed, keep) == 1.0  # one group left: its ptp is 0
 
 
-def _suite_f1(style, size, seed, tmp_path):
-    from ecoscan.detect import DetectionSettings, detect_raster
-    from ecoscan.stats.matching import match_points
-    from ecoscan.synthetic import make_scene, write_scene
-
-    sc = make_scene(style, size, seed)
-    paths = write_scene(sc, tmp_path)
-    lo, hi = sc.diameter_range_m
-    res = detect_raster(
-        paths.raster,
-        DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, bands=sc.bands_option),
-    )
-    m = match_points(res.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
-    return 2 * m.n_matched / (res.n + sc.n), res
-
-
 def test_conifers_joined_to_shadows_are_found_on_the_colour_layer(tmp_path):
     # the scene suite's conifer pasture (development seed 0): the classic layers are
     # unusable (Excess Green keeps too few candidates, darkness joins crowns to their
     # shadows); before this rule the defaults gave F1 0.46 at 512 px. F1 against the
     # scene's known positions, one-to-one within half the smallest diameter
-    f1, res = _suite_f1("conifer-pasture", 384, 0, tmp_path)
+    f1, res = suite_scene_f1("conifer-pasture", 384, 0, tmp_path)
     th = res.thresholds
     assert th["layer"] == "chroma"
     assert "chroma-valley" in th["layer_scores"]
@@ -217,7 +202,7 @@ def test_conifers_joined_to_shadows_are_found_on_the_colour_layer(tmp_path):
 
 
 def test_the_valley_rule_stays_off_where_a_classic_layer_works(tmp_path):
-    _f1, res = _suite_f1("dry-shrubs", 384, 7, tmp_path)
+    _f1, res = suite_scene_f1("dry-shrubs", 384, 7, tmp_path)
     assert res.thresholds["layer"] != "chroma"
     assert "chroma-valley" not in res.thresholds["layer_scores"]
     assert not any("valley between ground" in str(n) for n in res.notes)

@@ -13,6 +13,7 @@ import math
 import numpy as np
 import pytest
 import rasterio
+from detect_helpers import suite_scene_f1
 from pyproj import CRS
 from scipy import ndimage
 
@@ -338,17 +339,6 @@ def _detect_params():
 
 @pytest.mark.parametrize("style", _detect_params())
 def test_default_detector_f1_per_style(style, tmp_path):
-    from ecoscan.detect import DetectionSettings, detect_raster
-    from ecoscan.stats.matching import match_points
-
-    sc = make_scene(style, DETECT, 7)
-    paths = write_scene(sc, tmp_path)
-    lo, hi = sc.diameter_range_m
-    res = detect_raster(
-        paths.raster,
-        DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, bands=sc.bands_option),
-    )
     # a detection counts when within half the smallest stated diameter of a plant
-    m = match_points(res.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
-    f1 = 2 * m.n_matched / (res.n + sc.n)
+    f1, _res = suite_scene_f1(style, DETECT, 7, tmp_path)
     assert f1 >= 0.90, f"{style}: F1 {f1:.3f}"
