@@ -341,6 +341,21 @@ def _garbage_plots(base: Path, out: Path) -> list[str]:
     return a
 
 
+def _metre_geojson_plots(base: Path, out: Path) -> list[str]:
+    # projected metres in a GeoJSON file without a "crs" member, which RFC 7946 reads as
+    # WGS 84 longitude/latitude
+    import json
+
+    feats = [
+        {"type": "Feature", "properties": {"plot_id": pid}, "geometry": shapely.geometry.mapping(g)}
+        for pid, g in PLOTS.items()
+    ]
+    (out / "plots.geojson").write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    a = _analyse(base, out)
+    a[a.index("--plots") + 1] = str(out / "plots.geojson")
+    return a
+
+
 def _point_plots(base: Path, out: Path) -> list[str]:
     a = _analyse(base, out)
     a[a.index("--plots") + 1] = str(base / "results" / "points.csv")
@@ -865,6 +880,15 @@ CASES: list[Case] = [
         "exit 2 with GDAL's reason folded into the line",
         _garbage_plots,
         says=("plots.geojson",),
+    ),
+    Case(
+        "plots-geojson-in-metres",
+        "analyse",
+        "GeoJSON plots in projected metres with no CRS (RFC 7946 makes that longitude/latitude)",
+        "exit 2 before any work, says to write longitude/latitude or a GeoPackage",
+        _metre_geojson_plots,
+        says=("plots.geojson", "longitude/latitude", "GeoPackage"),
+        check=_no_output,
     ),
     Case(
         "plots-are-points",

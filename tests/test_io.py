@@ -91,6 +91,34 @@ def test_plots_ids_reprojection_and_repair(tmp_path):
     assert back.plots[1].geometry.is_valid
 
 
+def test_projected_metres_in_a_geojson_file_are_refused(tmp_path):
+    # RFC 7946 §4: GeoJSON coordinates are WGS 84 longitude/latitude; metres written there
+    # (a common mistake) used to give "no polygons with area" after a failed reprojection
+    import json
+
+    ring = [[500_000, 5_000_000], [500_050, 5_000_000], [500_050, 5_000_050], [500_000, 5_000_000]]
+    feature = {
+        "type": "Feature",
+        "properties": {},
+        "geometry": {"type": "Polygon", "coordinates": [ring]},
+    }
+    (tmp_path / "plots.geojson").write_text(
+        json.dumps({"type": "FeatureCollection", "features": [feature]})
+    )
+    with pytest.raises(InputError, match=r"outside longitude/latitude ranges.*RFC 7946"):
+        read_plots(tmp_path / "plots.geojson", target_crs=UTM33)
+    point = {
+        "type": "Feature",
+        "properties": {},
+        "geometry": {"type": "Point", "coordinates": ring[0]},
+    }
+    (tmp_path / "pts.geojson").write_text(
+        json.dumps({"type": "FeatureCollection", "features": [point]})
+    )
+    with pytest.raises(InputError, match="outside longitude/latitude ranges"):
+        read_points(tmp_path / "pts.geojson")
+
+
 def test_no_point_in_any_plot_hints_at_crs(tmp_path):
     write_points(_points(), tmp_path / "p.csv")
     far = PlotLayer([Plot("x", shapely.box(0, 0, 10, 10))], UTM33)

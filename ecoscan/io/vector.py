@@ -178,7 +178,23 @@ def _read_layer(path: Path, layer: str | None, what: str):
     geoms = shapely.from_wkb(geom) if geom is not None else np.array([], dtype=object)
     fields = [str(f) for f in meta.get("fields", [])]
     crs = parse_crs(meta.get("crs"), what=path.name) if meta.get("crs") else None
+    if crs is not None and crs.is_geographic and len(geoms):
+        _check_degree_ranges(shapely.get_coordinates(geoms), crs, path.name)
     return geoms, fields, list(field_data), crs
+
+
+def _check_degree_ranges(coords: np.ndarray, crs: CRS, name: str) -> None:
+    """Refuse coordinates a longitude/latitude CRS cannot hold (projected metres written
+    into a GeoJSON file, which RFC 7946 fixes to WGS 84 longitude/latitude)."""
+    out = (np.abs(coords[:, 0]) > 180.0) | (np.abs(coords[:, 1]) > 90.0)
+    if np.any(out):
+        x, y = coords[np.argmax(out)]
+        raise InputError(
+            f"{name}: coordinates such as ({x:.6g}, {y:.6g}) are outside longitude/latitude "
+            f"ranges, but the file's CRS is {crs_label(crs)} (GeoJSON is always WGS 84 "
+            "longitude/latitude, RFC 7946); write the file in longitude/latitude, or as a "
+            "GeoPackage that stores its projected CRS"
+        )
 
 
 def _vector_attr(values) -> np.ndarray:
