@@ -213,10 +213,14 @@ def _choice(name, terms, raise_by=1.0, closed=False):
 def test_second_layer_off_where_it_does_not_belong():
     rgb = ("red", "green", "blue")
     # rough ground (threshold raised), closed canopy, darkness, NDVI, log-chromaticity
-    # layers and near-infrared bands: nothing is scored and no second layer is used
+    # layers and near-infrared bands: nothing is scored (no windows are given, so scoring
+    # would fail) and no second layer is used
     assert second_layer(_choice("exg", (("exg", 1.0),), raise_by=1.7), [], rgb, None) is None
     assert second_layer(_choice("exg", (("exg", 1.0),), closed=True), [], rgb, None) is None
     assert second_layer(_choice("darkness", (("darkness", 1.0),)), [], rgb, None) is None
+    # Excess Green with darkness (the tuning scenes' grass patches came in there)
+    both = _choice("exg+darkness", (("exg", 2.0), ("darkness", 0.1)))
+    assert second_layer(both, [], rgb, None) is None
     assert second_layer(_choice("ndvi", (("ndvi", 1.0),)), [], (*rgb, "nir"), None) is None
     chroma = _choice("chroma", (("logchroma_r", 1.0), ("logchroma_b", -0.5)))
     assert second_layer(chroma, [], rgb, None) is None

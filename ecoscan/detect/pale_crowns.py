@@ -22,8 +22,9 @@ only where
    soil patch of a less red tint is not.
 
 GRVI blobs left after these tests are pruned among themselves like Excess Green blobs and
-added to the points. The layer is used only where the main layer holds Excess Green on
-smooth ground (no threshold raise) and is not a closed canopy, and only when GRVI itself
+added to the points. The layer is used only where the main layer is Excess Green alone
+(with a darkness term it added pale grass patches on the tuning scenes ``grass``) on
+smooth ground (no threshold raise) and not a closed canopy, and only when GRVI itself
 separates on smooth ground (its own threshold not raised, at least ten candidates in the
 sample windows); elsewhere detection is unchanged.
 
@@ -49,6 +50,7 @@ __all__ = [
     "SecondLayer",
     "added_points",
     "find_second",
+    "plain_excess_green",
     "second_layer",
 ]
 
@@ -102,6 +104,31 @@ class SecondLayer:
     score_scale: float
 
 
+def plain_excess_green(choice, roles: tuple[str, ...]) -> bool:
+    """True when the main layer is Excess Green alone on smooth ground, in an RGB image.
+
+    Smooth ground: no threshold raise (on rough ground the ring test judges each blob) and
+    not a closed canopy. With a darkness term the second layer added pale grass patches on
+    the tuning scenes ``grass``; with near infrared the main layer is NDVI. The second
+    layer (:func:`second_layer`) and the lobed-crown rule
+    (:func:`ecoscan.detect.blobs.lobed_parents`) are used only here.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.autotune import LayerChoice
+    >>> exg = LayerChoice("exg", (("exg", 1.0),), 0.0, 1.0, (1.0,), 1.0, 1.0, 5.0, 0.0, 20)
+    >>> plain_excess_green(exg, ("red", "green", "blue"))
+    True
+    >>> plain_excess_green(exg, ("red", "green", "blue", "nir"))
+    False
+    """
+    if not {"red", "green", "blue"} <= set(roles) or "nir" in roles:
+        return False
+    if choice.closed or choice.threshold_raise > 1.0 or not math.isfinite(choice.min_value):
+        return False
+    return tuple(n for n, _w in choice.terms) == ("exg",)
+
+
 def second_layer(choice, windows, roles: tuple[str, ...], scales) -> SecondLayer | None:
     """The second evidence layer for a raster whose main layer is ``choice``, or None.
 
@@ -119,7 +146,7 @@ def second_layer(choice, windows, roles: tuple[str, ...], scales) -> SecondLayer
     Returns
     -------
     SecondLayer or None
-        None unless the main layer holds Excess Green on smooth ground (no threshold
+        None unless the main layer is Excess Green alone on smooth ground (no threshold
         raise, not a closed canopy) and GRVI separates there too.
 
     Examples
@@ -132,11 +159,7 @@ def second_layer(choice, windows, roles: tuple[str, ...], scales) -> SecondLayer
     """
     from ecoscan.detect.autotune import choose_layer
 
-    if not {"red", "green", "blue"} <= set(roles) or "nir" in roles:
-        return None
-    if choice.closed or choice.threshold_raise > 1.0 or not math.isfinite(choice.min_value):
-        return None
-    if not any(n == "exg" for n, _w in choice.terms):
+    if not plain_excess_green(choice, roles):
         return None
     grvi = choose_layer(windows, roles, scales, options=[(LAYER,)], chroma=False)
     if grvi.closed or grvi.threshold_raise > 1.0 or grvi.candidates < MIN_SECOND_CANDIDATES:

@@ -125,6 +125,10 @@ class BlobPlan:
     second : SecondLayer or None
         A second evidence layer whose blobs only add crowns the main layer lacks
         (:mod:`ecoscan.detect.pale_crowns`); None: the main layer alone.
+    lobe_share : float or None
+        Merged-pair parents whose centre value stands this share as high as their
+        children's are one lobed crown and kept (:func:`ecoscan.detect.blobs.lobed_parents`);
+        None: every merged pair is split.
     """
 
     bands: tuple[int, ...]
@@ -145,6 +149,7 @@ class BlobPlan:
     shadow_radius_max: float = 0.0
     strong: tuple[float, float] | None = None
     second: object = None
+    lobe_share: float | None = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -444,6 +449,18 @@ class ImageryDetector(Detector):
             merged = blobs.split_merged(
                 points.col, points.row, radius, c["score"], plan.split_ratio
             )
+            if plan.lobe_share is not None and merged.any():  # one lobed crown, kept
+                merged &= ~blobs.lobed_parents(
+                    points.col,
+                    points.row,
+                    radius,
+                    c["score"],
+                    c["index_value"],
+                    plan.fill_value,
+                    merged,
+                    plan.split_ratio,
+                    plan.lobe_share,
+                )
             points = points.take(~merged)
             radius = radius[~merged]
         if plan.canopy is None:  # watershed regions are disjoint: nothing to prune
