@@ -12,7 +12,7 @@ import numpy as np
 import rasterio
 from rasterio.transform import from_origin
 
-from ecoscan.detect import DetectionSettings, detect_raster, pale_crowns
+from ecoscan.detect import DetectionSettings, blobs, detect_raster, pale_crowns
 from ecoscan.detect.autotune import LayerChoice, SampleWindow, choose_layer
 from ecoscan.detect.blobs import blob_scales
 from ecoscan.detect.engine import compose_layer
@@ -245,3 +245,34 @@ def test_dry_shrubs_development_seed_gains_grey_crowns(tmp_path, monkeypatch):
     grey_on = np.isin(np.flatnonzero(kinds == "grey"), np.asarray(m_on.index_b, int)).sum()
     grey_off = np.isin(np.flatnonzero(kinds == "grey"), np.asarray(m_off.index_b, int)).sum()
     assert grey_on > grey_off
+
+
+def test_lobed_crown_kept_whole_on_a_development_scene(tmp_path, monkeypatch):
+    # suite development seed 0 of rocky shrubland (never a held-out seed): one big shrub
+    # is found by the blob pyramid as a parent blob over strong lobes; split as "touching
+    # crowns" it gave off-centre points, kept whole it gives one point at the crown
+    sc = make_scene("rocky-shrubland", 512, 0)
+    paths = write_scene(sc, tmp_path)
+    lo, hi = sc.diameter_range_m
+    truth = np.column_stack([sc.x_m, sc.y_m])
+    st = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi)
+    on = detect_raster(paths.raster, st)
+    assert on.thresholds["lobed_crown_share"] == blobs.LOBE_SHARE
+    tiled = detect_raster(
+        paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=192)
+    )
+    assert tiled.tiles_total >= 9
+    np.testing.assert_array_equal(sorted_xy(on.points), sorted_xy(tiled.points))
+    monkeypatch.setattr(blobs, "LOBE_SHARE", None)  # every merged pair split
+    off = detect_raster(paths.raster, st)
+    assert off.thresholds["lobed_crown_share"] is None
+    m_on = match_points(on.points.xy, truth, 0.5 * lo)
+    m_off = match_points(off.points.xy, truth, 0.5 * lo)
+    assert m_on.n_matched > m_off.n_matched
+    assert on.n < off.n  # lobes replaced by their crown
+    # every point the rule adds (a kept parent) lies within the tolerance of a crown
+    a, b = sorted_xy(on.points), sorted_xy(off.points)
+    new = np.array([p for p in a if not np.any(np.all(b == p, axis=1))])
+    assert new.size
+    d = np.hypot(new[:, None, 0] - truth[None, :, 0], new[:, None, 1] - truth[None, :, 1])
+    assert np.all(d.min(axis=1) <= 0.5 * lo)
