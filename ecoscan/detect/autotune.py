@@ -203,6 +203,10 @@ class LayerChoice:
         How the kept candidates are stretched along one common direction
         (:func:`ecoscan.detect.elongation.common_elongation`): blobs of crowns joined to
         their cast shadows all share the sun's axis.
+    band_blur_px : float
+        Gaussian σ (pixels) by which the bands are smoothed before the log-chromaticities
+        of the ``chroma`` layer (:func:`ecoscan.detect.chromaticity.band_blur_px`); 0 for
+        the other layers.
     """
 
     name: str
@@ -219,6 +223,7 @@ class LayerChoice:
     closed: bool = False
     threshold_raise: float = 1.0
     elongation: dict = field(default_factory=dict)
+    band_blur_px: float = 0.0
 
     @property
     def crowded_threshold(self) -> bool:
@@ -1217,6 +1222,7 @@ def choose_layer(
         candidates=res["candidates"],
         scores=scores,
         elongation=elong,
+        band_blur_px=_band_blur(scales) if label in SHADOW_FREE else 0.0,
     )
 
 
@@ -1238,10 +1244,18 @@ def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
     terms, _angle, _tail = invariant_terms(
         [w.data for w in windows], [w.valid for w in windows], roles
     )
-    layers = [compose_layer(w.data, roles, terms) for w in windows]
+    blur = _band_blur(scales)
+    layers = [compose_layer(w.data, roles, terms, blur) for w in windows]
     valid = [w.valid for w in windows]
     core = [w.core for w in windows]
     return [_LayerJob(INVARIANT, terms, layers, valid, core, scales, None)]
+
+
+def _band_blur(scales: BlobScales) -> float:
+    """Smoothing of the bands before the log-chromaticities, from the smallest blob scale."""
+    from ecoscan.detect.chromaticity import band_blur_px
+
+    return band_blur_px(float(scales.sigmas[0]))
 
 
 def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dict, elong):

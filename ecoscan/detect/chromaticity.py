@@ -32,9 +32,12 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import ndimage
 
 __all__ = [
+    "BAND_BLUR",
     "LOG_OFFSET",
+    "band_blur_px",
     "entropy_angle",
     "floor_spread",
     "invariant_terms",
@@ -48,6 +51,15 @@ __all__ = [
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
 #: 8- and 16-bit imagery stay finite.
 LOG_OFFSET = 1.0
+#: Before the logarithm, each band is smoothed by a Gaussian of this share of the smallest
+#: blob scale (σ of the smallest crown; :func:`band_blur_px`). Dark crowns have digital
+#: numbers of 10-40, where 3 DN of pixel noise and 8-bit steps make the log of a band ratio
+#: swing by 0.1-0.4 from pixel to pixel (the speckle of crowns on this layer), while shaded
+#: and lit pasture are smooth; the log of locally averaged bands is the chromaticity of the
+#: local mean colour. 0.65 of the smallest scale widens the smallest blob filter by a fifth
+#: (the scales add in quadrature: sqrt(1 + 0.65²) = 1.19). Chosen on the tuning scenes and the
+#: suite's development seeds (docs/detection.md, "Conifer pasture, fifth round").
+BAND_BLUR = 0.65
 #: Pixels used to choose the projection (a regular sample of the sample windows).
 ANGLE_SAMPLE = 60_000
 #: Coarse angle step (degrees) of the entropy search; refined to ``FINE_STEP`` around the
@@ -67,8 +79,20 @@ VALLEY_MIN = 20
 VALLEY_MAX = 6.0
 
 
+def band_blur_px(sigma_min_px: float) -> float:
+    """Gaussian σ (pixels) by which the bands are smoothed before the log-chromaticities:
+    ``BAND_BLUR`` times the smallest blob scale ``sigma_min_px``.
+
+    Examples
+    --------
+    >>> round(band_blur_px(3.0), 2)
+    1.95
+    """
+    return float(BAND_BLUR * sigma_min_px)
+
+
 def log_chromaticity(
-    red: np.ndarray, green: np.ndarray, blue: np.ndarray
+    red: np.ndarray, green: np.ndarray, blue: np.ndarray, blur_px: float = 0.0
 ) -> tuple[np.ndarray, np.ndarray]:
     """Log-chromaticities of red and blue over the geometric mean of the three bands.
 
@@ -76,6 +100,10 @@ def log_chromaticity(
     and ``c = LOG_OFFSET`` (negative values taken as 0); the green one is minus their sum,
     so two carry all the colour.
     A uniform change of brightness (R, G, B all times k) leaves them unchanged.
+    With ``blur_px`` > 0 each band is first smoothed by a Gaussian of that σ (pixels,
+    cut at 4 σ, edges continued by their nearest pixel; :func:`band_blur_px`), so that
+    the log is taken of the local mean colour rather than of single noisy pixels; a
+    tile must then overlap its neighbours by ``ceil(4 blur_px)`` more pixels.
 
     Examples
     --------
@@ -87,6 +115,11 @@ def log_chromaticity(
     >>> round(float(r2[0]), 4)                            # twice as bright: the same
     -0.231
     """
+    if blur_px > 0:
+        red, green, blue = (
+            ndimage.gaussian_filter(np.asarray(b, np.float32), blur_px, mode="nearest")
+            for b in (red, green, blue)
+        )
     c = np.float32(LOG_OFFSET)
     # negative values (offsets, noise in calibrated data) count as black
     lr = np.log(np.maximum(np.asarray(red, np.float32), np.float32(0.0)) + c)

@@ -117,6 +117,9 @@ class BlobPlan:
         the blobs are joined to their shadows; None leaves blobs where they are.
     shadow_radius_max : float
         Largest crown radius in pixels, for the walk of ``shadow_dir``.
+    band_blur_px : float
+        Gaussian σ (pixels) by which the bands are smoothed before log-chromaticities in
+        ``terms`` (:func:`ecoscan.detect.chromaticity.log_chromaticity`); 0 for none.
     """
 
     bands: tuple[int, ...]
@@ -136,6 +139,7 @@ class BlobPlan:
     shadow_dir: tuple[float, float] | None = None
     shadow_radius_max: float = 0.0
     strong: tuple[float, float] | None = None
+    band_blur_px: float = 0.0
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -371,7 +375,7 @@ class ImageryDetector(Detector):
         elif plan.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = plan.layer_model(data)
         elif plan.terms:
-            layer = compose_layer(data, plan.roles, plan.terms)
+            layer = compose_layer(data, plan.roles, plan.terms, plan.band_blur_px)
         else:
             layer = vegetation_layer(data, plan.index)
         del data

@@ -233,6 +233,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         shadow_dir=None if shadow is None else shadow["shadow_dir"],
         shadow_radius_max=settings.diameter_max_m / 2 / info.pixel_size_m,
         strong=strong_test(choice),
+        band_blur_px=choice.band_blur_px,
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
@@ -249,6 +250,8 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         from ecoscan.detect.blobs import ring_reach_px
 
         overlap = max(overlap, ring_reach_px(scales))
+    if params.band_blur_px > 0:  # the bands' smoothing reaches beyond the filters
+        overlap += math.ceil(4.0 * params.band_blur_px) + 1
     return params, overlap, scales.align, th, notes
 
 
@@ -447,4 +450,12 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         from ecoscan.detect.chromaticity import valley_rule
 
         th.update(valley_rule())
+    if choice.band_blur_px > 0:  # the log-chromaticities of locally averaged bands
+        from ecoscan.detect.chromaticity import BAND_BLUR
+
+        th["band_blur_px"] = choice.band_blur_px
+        th["band_blur_px_from"] = (
+            f"Gaussian sigma by which red, green and blue are smoothed before the "
+            f"log-chromaticities: {BAND_BLUR:g} x the smallest blob scale"
+        )
     return th
