@@ -120,6 +120,9 @@ class BlobPlan:
     band_blur_px : float
         Gaussian σ (pixels) by which the bands are smoothed before log-chromaticities in
         ``terms`` (:func:`ecoscan.detect.chromaticity.log_chromaticity`); 0 for none.
+    recentre : bool
+        Move each blob to the middle of its crown on the layer
+        (:func:`ecoscan.detect.chromaticity.recentre`); set with the log-chromaticity layer.
     """
 
     bands: tuple[int, ...]
@@ -140,6 +143,7 @@ class BlobPlan:
     shadow_radius_max: float = 0.0
     strong: tuple[float, float] | None = None
     band_blur_px: float = 0.0
+    recentre: bool = False
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -402,6 +406,11 @@ class ImageryDetector(Detector):
         col, row = found["col"], found["row"]
         if plan.shadow_dir is not None:  # crowns joined to their shadows (detect/shadows.py)
             col, row = _crown_ends(layer, col, row, found["sigma"], window.origin, plan)
+        if plan.recentre:  # log-chromaticity layer: points to the crowns' middles
+            from ecoscan.detect.chromaticity import recentre
+
+            radii = math.sqrt(2.0) * found["sigma"]
+            col, row = recentre(layer, col, row, radii, plan.fill_value, window.origin)
         return TilePoints(col, row, columns)
 
     def empty_tile(self, plan: BlobPlan) -> TilePoints:

@@ -234,6 +234,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         shadow_radius_max=settings.diameter_max_m / 2 / info.pixel_size_m,
         strong=strong_test(choice),
         band_blur_px=choice.band_blur_px,
+        recentre=choice.band_blur_px > 0,
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
@@ -250,6 +251,10 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         from ecoscan.detect.blobs import ring_reach_px
 
         overlap = max(overlap, ring_reach_px(scales))
+    if params.recentre:  # every point that lands in a core is recentred as in the whole
+        from ecoscan.detect.chromaticity import recentre_reach_px
+
+        overlap = max(overlap, scales.support_px + recentre_reach_px(dmax_px / 2.0))
     if params.band_blur_px > 0:  # the bands' smoothing reaches beyond the filters
         overlap += math.ceil(4.0 * params.band_blur_px) + 1
     return params, overlap, scales.align, th, notes
@@ -451,11 +456,22 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
 
         th.update(valley_rule())
     if choice.band_blur_px > 0:  # the log-chromaticities of locally averaged bands
-        from ecoscan.detect.chromaticity import BAND_BLUR
+        from ecoscan.detect.chromaticity import (
+            BAND_BLUR,
+            RECENTRE_PEAK,
+            RECENTRE_ROUNDS,
+            RECENTRE_SHARE,
+        )
 
         th["band_blur_px"] = choice.band_blur_px
         th["band_blur_px_from"] = (
             f"Gaussian sigma by which red, green and blue are smoothed before the "
             f"log-chromaticities: {BAND_BLUR:g} x the smallest blob scale"
+        )
+        th["recentre"] = (
+            f"each point moved to the centroid of the layer's excess over {RECENTRE_SHARE:g} "
+            f"of the way from the background to the crown's upper level ({RECENTRE_PEAK:g} "
+            f"quantile) within the blob radius, {RECENTRE_ROUNDS} rounds, at most one blob "
+            "radius in all"
         )
     return th
