@@ -1204,11 +1204,13 @@ def choose_layer(
     elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
     # the log-chromaticity layer takes thresholds from the valley of its candidates, and
     # takes over where the classic choice is unusable (_shadow_free_valley)
-    valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong)
+    valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong, roles)
+    blur = 0.0
     if valley is not None:
         label, terms, layers, res, elong = valley
         m, s = res["background"], res["spread"]
         scores[label + "-valley"] = round(res["separation"], 3)
+        blur = res["band_blur_px"]
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -1225,7 +1227,7 @@ def choose_layer(
         candidates=res["candidates"],
         scores=scores,
         elongation=elong,
-        band_blur_px=_band_blur(scales) if label in SHADOW_FREE else 0.0,
+        band_blur_px=blur,
     )
 
 
@@ -1247,8 +1249,7 @@ def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
     terms, _angle, _tail = invariant_terms(
         [w.data for w in windows], [w.valid for w in windows], roles
     )
-    blur = _band_blur(scales)
-    layers = [compose_layer(w.data, roles, terms, blur) for w in windows]
+    layers = [compose_layer(w.data, roles, terms) for w in windows]
     valid = [w.valid for w in windows]
     core = [w.core for w in windows]
     return [_LayerJob(INVARIANT, terms, layers, valid, core, scales, None)]
@@ -1261,7 +1262,9 @@ def _band_blur(scales: BlobScales) -> float:
     return band_blur_px(float(scales.sigmas[0]))
 
 
-def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dict, elong):
+def _shadow_free_valley(
+    jobs, results, cache: _WindowCache, label: str, res: dict, elong, roles: tuple[str, ...]
+):
     """The log-chromaticity layer with thresholds from the valley between its candidates:
     ``(label, terms, layers, result, elongation)`` to use instead of the choice made, or
     None to keep it.
@@ -1269,7 +1272,11 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     Where that layer won the separation contest, and where the classic layers' best choice
     is unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
     split) or blobs stretched along one axis (crowns joined to their cast shadows,
-    :func:`ecoscan.detect.elongation.is_aligned`). The layer's response noise is the spread
+    :func:`ecoscan.detect.elongation.is_aligned`). Unless the valley on the layer of single
+    pixels is clean (its factor at ``VALLEY_MAX``), the layer is then made of the bands
+    smoothed before the log (:func:`ecoscan.detect.chromaticity.band_blur_px`) and scored
+    afresh; the contest used the layer of single pixels, so the smoothing changes no layer
+    choice elsewhere. The layer's response noise is the spread
     of its background response floored over scales
     (:func:`ecoscan.detect.chromaticity.floor_spread`); a candidate must reach the ground's
     median level and a response in the valley between the ground's bumps and the plants
@@ -1278,7 +1285,7 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
     (docs/detection.md, "Conifer pasture, fourth round").
     """
-    from ecoscan.detect.chromaticity import floor_spread, valley_factor
+    from ecoscan.detect.chromaticity import VALLEY_MAX
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES
     from ecoscan.detect.elongation import is_aligned
 
@@ -1289,13 +1296,19 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     if not found or found[0][1]["closed"]:
         return None
     job, cres = found[0]
+    layers, blur = job.layers, 0.0
+    cand, sr, ratio, zok, factor = _valley_candidates(layers, cres, cache)
+    if factor < VALLEY_MAX:
+        # no clean gap on the layer of single pixels: the layer of locally averaged bands
+        # (chromaticity.band_blur_px), scored afresh. The contest above used the layer of
+        # single pixels, so the smoothing changes no layer choice elsewhere
+        blur = _band_blur(cache.scales)
+        layers = [compose_layer(w.data, roles, job.terms, blur) for w in cache.windows]
+        cres = _score_layer(layers, cache)
+        if cres["closed"]:
+            return None
+        cand, sr, ratio, zok, factor = _valley_candidates(layers, cres, cache)
     m = cres["background"]
-    sr = floor_spread(cres["response_spread"])
-    cand = _candidates(_LayerPyramids(job.layers, cache, m), 0.5 * sr)
-    si = _scale_index(cache.scales, cand["sigma"])
-    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
-    zok = cand["value"] >= m
-    factor = valley_factor(ratio, zok)
     kept = (ratio >= factor) & zok
     n_kept = int(kept.sum())
     others = [r["candidates"] for j, r in zip(jobs, results, strict=True) if j is not job]
@@ -1304,7 +1317,7 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
         return None
     near = float(near_shares(ratio, zok, np.array([factor]))[0])
     blobs = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float)
-    own = _kept_elongation(job.layers, cache.windows, blobs, m)
+    own = _kept_elongation(layers, cache.windows, blobs, m)
     med = RESPONSE_MADS * float(np.median(ratio[kept])) / factor
     out = {
         **cres,
@@ -1315,8 +1328,24 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
         "candidates": n_kept,
         "min_value": m,
         "kept_blobs": blobs,
+        "band_blur_px": blur,
     }
-    return job.label, job.terms, job.layers, out, own
+    return job.label, job.terms, layers, out, own
+
+
+def _valley_candidates(layers, cres: dict, cache: _WindowCache):
+    """Candidates of the log-chromaticity layer under the valley rule: the candidates, the
+    floored response spread, each candidate's ratio to its noise threshold, whether it
+    reaches the background median, and the valley factor."""
+    from ecoscan.detect.chromaticity import floor_spread, valley_factor
+
+    m = cres["background"]
+    sr = floor_spread(cres["response_spread"])
+    cand = _candidates(_LayerPyramids(layers, cache, m), 0.5 * sr)
+    si = _scale_index(cache.scales, cand["sigma"])
+    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
+    zok = cand["value"] >= m
+    return cand, sr, ratio, zok, valley_factor(ratio, zok)
 
 
 def _kept_elongation(layers, windows, kept, level: float) -> dict:
