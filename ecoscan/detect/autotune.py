@@ -1273,7 +1273,8 @@ def _shadow_free_valley(
     is unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
     split) or blobs stretched along one axis (crowns joined to their cast shadows,
     :func:`ecoscan.detect.elongation.is_aligned`). Unless the valley on the layer of single
-    pixels is clean (its factor at ``VALLEY_MAX``), the layer is then made of the bands
+    pixels is clean (at most ``GAP_SHARE`` of the kept candidates within a factor ``NEAR``
+    of the threshold, as in :func:`threshold_raise`), the layer is then made of the bands
     smoothed before the log (:func:`ecoscan.detect.chromaticity.band_blur_px`) and scored
     afresh; the contest used the layer of single pixels, so the smoothing changes no layer
     choice elsewhere. The layer's response noise is the spread
@@ -1285,7 +1286,6 @@ def _shadow_free_valley(
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
     (docs/detection.md, "Conifer pasture, fourth round").
     """
-    from ecoscan.detect.chromaticity import VALLEY_MAX
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES
     from ecoscan.detect.elongation import is_aligned
 
@@ -1298,10 +1298,12 @@ def _shadow_free_valley(
     job, cres = found[0]
     layers, blur = job.layers, 0.0
     cand, sr, ratio, zok, factor = _valley_candidates(layers, cres, cache)
-    if factor < VALLEY_MAX:
-        # no clean gap on the layer of single pixels: the layer of locally averaged bands
-        # (chromaticity.band_blur_px), scored afresh. The contest above used the layer of
-        # single pixels, so the smoothing changes no layer choice elsewhere
+    if near_shares(ratio, zok, np.array([factor]))[0] > GAP_SHARE:
+        # no clean gap on the layer of single pixels (measured: 0 on tuning ``pines`` and
+        # ``pasture``, 0.24-0.34 on ``conifers``, 0.54-0.80 on the suite's conifer
+        # pasture): the layer of locally averaged bands (chromaticity.band_blur_px),
+        # scored afresh. The contest above used the layer of single pixels, so the
+        # smoothing changes no layer choice elsewhere
         blur = _band_blur(cache.scales)
         layers = [compose_layer(w.data, roles, job.terms, blur) for w in cache.windows]
         cres = _score_layer(layers, cache)

@@ -60,7 +60,8 @@ LOG_OFFSET = 1.0
 #: and lit pasture are smooth; the log of locally averaged bands is the chromaticity of the
 #: local mean colour. 0.65 of the smallest scale widens the smallest blob filter by a fifth
 #: (the scales add in quadrature: sqrt(1 + 0.65²) = 1.19). Used only where the valley rule
-#: finds no clean gap on the layer of single pixels (``ecoscan.detect.autotune``). Chosen on
+#: finds no clean gap on the layer of single pixels (``ecoscan.detect.autotune``: more than
+#: ``GAP_SHARE`` of the kept candidates near the threshold). Chosen on
 #: the tuning scenes and the suite's development seeds (docs/detection.md, "Conifer
 #: pasture, fifth round": 0.4 and 0.5 gave 0.895 and 0.906 there, 0.65 gave 0.925).
 BAND_BLUR = 0.65
