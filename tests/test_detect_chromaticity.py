@@ -111,6 +111,9 @@ def test_dark_crowns_with_long_shadows_on_pasture_are_found_one_point_each(tmp_p
     assert res.thresholds["layer"] == "chroma"
     assert f1 >= 0.9
     assert res.thresholds["shadow_joined"] is False
+    # a clean valley on the layer of single pixels (no kept candidate near the threshold):
+    # the bands are not smoothed and the points not recentred
+    assert "band_blur_px" not in res.thresholds and "recentre" not in res.thresholds
 
 
 # --- thresholds of the colour layer where the classic choice is unusable ------------------
