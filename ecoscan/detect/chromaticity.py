@@ -46,6 +46,7 @@ __all__ = [
     "projection_entropy",
     "recentre",
     "recentre_reach_px",
+    "smoothing_rule",
     "valley_factor",
     "valley_rule",
 ]
@@ -528,3 +529,29 @@ def recentre_reach_px(radius_max_px: float) -> int:
     22
     """
     return math.ceil(2.0 * radius_max_px) + 2
+
+
+def smoothing_rule(blur_px: float) -> dict:
+    """The detection metadata of smoothed bands and recentred points (where the valley
+    rule found no clean gap on the layer of single pixels).
+
+    Examples
+    --------
+    >>> sorted(smoothing_rule(1.6))
+    ['band_blur_px', 'band_blur_px_from', 'recentre']
+    """
+    return {
+        "band_blur_px": blur_px,
+        "band_blur_px_from": (
+            f"Gaussian sigma by which red, green and blue are smoothed before the "
+            f"log-chromaticities: {BAND_BLUR:g} x the smallest blob scale, where more than "
+            "the gap share of the valley's kept candidates sat near its threshold on the "
+            "layer of single pixels"
+        ),
+        "recentre": (
+            f"each point moved to the centroid of the layer's excess over {RECENTRE_SHARE:g} "
+            f"of the way from the background to the crown's upper level ({RECENTRE_PEAK:g} "
+            f"quantile) within the blob radius, {RECENTRE_ROUNDS} rounds, at most one blob "
+            "radius in all"
+        ),
+    }

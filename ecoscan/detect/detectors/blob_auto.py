@@ -456,22 +456,7 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
 
         th.update(valley_rule())
     if choice.band_blur_px > 0:  # the log-chromaticities of locally averaged bands
-        from ecoscan.detect.chromaticity import (
-            BAND_BLUR,
-            RECENTRE_PEAK,
-            RECENTRE_ROUNDS,
-            RECENTRE_SHARE,
-        )
+        from ecoscan.detect.chromaticity import smoothing_rule
 
-        th["band_blur_px"] = choice.band_blur_px
-        th["band_blur_px_from"] = (
-            f"Gaussian sigma by which red, green and blue are smoothed before the "
-            f"log-chromaticities: {BAND_BLUR:g} x the smallest blob scale"
-        )
-        th["recentre"] = (
-            f"each point moved to the centroid of the layer's excess over {RECENTRE_SHARE:g} "
-            f"of the way from the background to the crown's upper level ({RECENTRE_PEAK:g} "
-            f"quantile) within the blob radius, {RECENTRE_ROUNDS} rounds, at most one blob "
-            "radius in all"
-        )
+        th.update(smoothing_rule(choice.band_blur_px))
     return th
