@@ -236,3 +236,27 @@ def test_a_simple_layer_is_good_enough_only_in_every_fold():
     assert good_enough(LayerScore.from_counts("exg", (99, 1, 1), [0.99, np.nan, 1.0, 1.0]))
     low = LayerScore.from_counts("exg", (95, 3, 3), [0.99, 0.99, 0.99, 0.99])
     assert low.f1 < GOOD_ENOUGH_F1 and not good_enough(low)
+
+
+def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one():
+    """_choose: a learnt route must beat the best simple layer by the margin; the centre
+    peaks must beat the plant probability's route by it too (the probability wins ties)."""
+    from ecoscan.detect.calibration import CLASSIFIER_MARGIN, LayerScore, _choose, _LayerRun
+
+    def run(name: str, counts: tuple[int, int, int]) -> _LayerRun:
+        s = LayerScore.from_counts(name, counts, [0.9] * 4)
+        return _LayerRun(name, s, 4.0, 20.0, 0.1, 0.0, 0.0, np.ones(3))
+
+    exg = run("exg", (90, 10, 10))  # F1 0.900
+    prob = run("probability", (93, 7, 7))  # 0.930
+    near = run("centre_map", (932, 68, 68))  # 0.932: within the margin of prob
+    far = run("centre_map", (95, 5, 5))  # 0.950
+    assert near.score.f1 - prob.score.f1 < CLASSIFIER_MARGIN
+    runs = sorted([exg, prob, near], key=lambda r: -r.score.f1)
+    assert _choose(runs, exg, []) is prob
+    runs = sorted([exg, prob, far], key=lambda r: -r.score.f1)
+    assert _choose(runs, exg, []) is far
+    close = run("probability", (902, 98, 98))  # 0.902: no better than Excess Green
+    notes: list[str] = []
+    assert _choose(sorted([exg, close], key=lambda r: -r.score.f1), exg, notes) is exg
+    assert any("simple layer is used" in n for n in notes)
