@@ -242,6 +242,10 @@ def calibrated(style: str, size: int, seed: int, folder: Path, layout: dict | No
         "f1": row.f1,
         "calibrate_cpu_s": got["calibrate_cpu_s"],
         "detect_cpu_s": got["detect_cpu_s"],
+        "routes": {
+            k: (v.f1, tuple(round(float(f), 3) for f in v.fold_f1))
+            for k, v in getattr(res, "routes", {}).items()
+        },
     }
 
 
@@ -274,6 +278,8 @@ def calibrated_suite(
                     f"{r['calibrate_cpu_s']:.1f} + {r['detect_cpu_s']:.1f} s",
                     flush=True,
                 )
+                for name, (f1, folds) in r["routes"].items():
+                    print(f"    route {name:18s} cv F1 {f1:.3f}  folds {folds}", flush=True)
     print("\n| style | calibrated test F1, mean (lowest) |\n|---|---|")
     for style in styles:
         f1 = [r["f1"] for r in rows if r["style"] == style]
