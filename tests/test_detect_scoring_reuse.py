@@ -215,3 +215,19 @@ def test_layer_choice_is_unchanged_field_by_field(windows):
         ref = choose_layer(wins, roles, scales)
     for f in dataclasses.fields(ref):
         _same(getattr(fast, f.name), getattr(ref, f.name), f.name)
+
+
+def test_pixel_noise_of_an_all_valid_window_equals_the_masked_sum():
+    # reference: the masked computation (a window with one invalid row), whose last row no
+    # sampled 3 x 3 neighbourhood reaches at stride 2 (an even height): the same pixels
+    # count, so the all-valid shortcut must give the same float to the bit
+    rng = np.random.default_rng(8)
+    for scale in (0.01, 3.0, 250.0):
+        lay = (rng.standard_normal((96, 80)) * scale).astype(np.float32)
+        lay += np.linspace(0, 5 * scale, 80, dtype=np.float32)[None]
+        every = np.ones(lay.shape, bool)
+        masked = every.copy()
+        masked[-1] = False
+        ref = autotune.pixel_noise(lay, masked, stride=2)
+        lay[-1] = 1e6  # never looked at
+        assert autotune.pixel_noise(lay, every, stride=2) == ref

@@ -459,8 +459,9 @@ def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
     # +1 where a run starts, -1 after it ends; a pixel is covered where the running sum
     # along its row is positive (int32 counts: never more runs than discs overlap)
     edges = np.zeros(h * (w + 1), np.int32)
-    np.add.at(edges, flat + lo[run], 1)
-    np.add.at(edges, flat + hi[run] + 1, -1)
+    ones = np.ones(flat.size, np.int32)  # an array (not 1): numpy's fast path of add.at
+    np.add.at(edges, flat + lo[run], ones)
+    np.subtract.at(edges, flat + hi[run] + 1, ones)
     return np.cumsum(edges.reshape(h, w + 1), axis=1, dtype=np.int32)[:, :w] > 0
 
 
@@ -715,15 +716,19 @@ def pixel_noise(
         if h < 3 or w < 3:
             return 0.0
         acc = np.zeros(((h - 2 + stride - 1) // stride, (w - 2 + stride - 1) // stride))
-        ok = np.ones(acc.shape, bool)
+        # every pixel valid (most windows): every sampled pixel counts, no mask to build
+        ok = None if valid.all() else np.ones(acc.shape, bool)
         for dy in (-1, 0, 1):
             for dx in (-1, 0, 1):
                 win = (slice(1 + dy, h - 1 + dy, stride), slice(1 + dx, w - 1 + dx, stride))
-                acc += float(kern[dy + 1, dx + 1]) * lay[win]
-                ok &= valid[win]
-        if not ok.any():
+                c = float(kern[dy + 1, dx + 1])
+                acc += lay[win] if c == 1.0 else c * lay[win]  # 1 × x is x
+                if ok is not None:
+                    ok &= valid[win]
+        if ok is not None and not ok.any():
             return 0.0
-        return float(math.sqrt(math.pi / 2.0) * np.abs(acc[ok]).mean() / 6.0)
+        dev = np.abs(acc, out=acc)
+        return float(math.sqrt(math.pi / 2.0) * (dev if ok is None else dev[ok]).mean() / 6.0)
     conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
     if inner is None:  # valid pixels whose 3 x 3 neighbourhood is valid
         inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
