@@ -130,6 +130,12 @@ def _canopy_record(abands, roles, evidence, split) -> dict:
             f"neighbours meeting >= {canopy.CROWN_SCALE_PASS:g} of the way up on the layer "
             f"smoothed at {canopy.CROWN_SCALE_SHARE:g} x the larger region's radius"
         ),
+        # regions whose smoothed peak stays below this are gaps (-inf: none dropped)
+        "canopy_min_peak": split.min_peak if math.isfinite(split.min_peak) else None,
+        "canopy_min_peak_from": (
+            "median of the smoothed layer on sample windows, with shaded domes (a crown's "
+            "lit top rises above it, a gap does not)"
+        ),
         "weak_separation": False,
         "split_touching": True,
     }
