@@ -167,7 +167,10 @@ def test_detection_lends_its_workers_to_the_layer_choice(tmp_path, monkeypatch):
 
     monkeypatch.setattr(autotune, "WorkShare", spy)
     two = detect_raster(raster, settings, workers=2)
+    n_two = len(lent)  # the main layer choice, and the second (GRVI) layer's on this scene
     one = detect_raster(raster, settings, workers=1)
-    assert isinstance(lent[0], EarlyPool) and lent[1] is None
+    assert n_two >= 1 and len(lent) == 2 * n_two
+    assert all(isinstance(p, EarlyPool) for p in lent[:n_two])
+    assert all(p is None for p in lent[n_two:])
     assert two.thresholds == one.thresholds
     np.testing.assert_array_equal(two.points.xy, one.points.xy)

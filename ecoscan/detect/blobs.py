@@ -31,6 +31,7 @@ __all__ = [
     "blob_scales",
     "detect_blobs",
     "level_masks",
+    "lobed_parents",
     "prune_blobs",
     "pyramid_blobs",
     "pyramid_spread",
@@ -789,6 +790,78 @@ def split_merged(
     spread[has] = np.hypot(hi_x[has] - lo_x[has], hi_y[has] - lo_y[has])
     merged[has] = spread[has] >= big[has]
     return merged
+
+
+#: A merged-pair parent (:func:`split_merged`) is one lobed crown, not touching crowns, when
+#: the layer at its centre stands at least this share as high above the background as at
+#: its children's centres on average (:func:`lobed_parents`). Chosen on the tuning scenes
+#: and checked on the suite's development seeds (docs/detection.md).
+LOBE_SHARE = 0.8
+
+
+def lobed_parents(
+    x: np.ndarray,
+    y: np.ndarray,
+    radius: np.ndarray,
+    score: np.ndarray,
+    value: np.ndarray,
+    background: float,
+    merged: np.ndarray,
+    ratio: float,
+    share: float = LOBE_SHARE,
+    *,
+    child_size: tuple[float, float] = (0.4, 0.8),
+) -> np.ndarray:
+    """Which merged-pair parents are one lobed crown (to be kept after all).
+
+    :func:`split_merged` drops a blob that holds two or more smaller strong blobs, taking
+    them for touching crowns. A big crown with a few leaf clumps or lobes gives the same
+    pattern, and its points then sit on the lobes, off the crown's centre. The two differ
+    at the parent's centre: between two touching crowns lies their rim, shade or soil, so
+    the layer smoothed at the parent's scale is lower there than at the children's
+    centres; inside one crown it stays at the foliage's level. A parent is kept when its
+    centre value (``value``, the layer smoothed at its scale) stands at least ``share`` as
+    high above ``background`` as the mean of its children's.
+
+    Parameters
+    ----------
+    x, y, radius, score, value : numpy.ndarray
+        Candidate blobs (the ``value`` of :func:`detect_blobs`).
+    background : float
+        The layer's background level.
+    merged : numpy.ndarray of bool
+        Output of :func:`split_merged` for the same blobs.
+    ratio, child_size
+        The arguments given to :func:`split_merged` (which blobs count as children).
+    share : float
+        Least centre excess of the parent, as a share of its children's mean excess.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+        True for the merged parents that are one crown.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.array([0.0, -5.0, 5.0]); y = np.zeros(3)
+    >>> r = np.array([10.0, 5.0, 5.0]); s = np.array([1.0, 0.9, 0.9])
+    >>> m = split_merged(x, y, r, s, 0.7)
+    >>> lobed_parents(x, y, r, s, np.array([0.9, 1.0, 1.0]), 0.0, m, 0.7).tolist()
+    [True, False, False]
+    >>> lobed_parents(x, y, r, s, np.array([0.5, 1.0, 1.0]), 0.0, m, 0.7).tolist()
+    [False, False, False]
+    """
+    out = np.zeros(x.size, dtype=bool)
+    for p in np.flatnonzero(merged):
+        d = np.hypot(x - x[p], y - y[p])
+        rel = radius / radius[p]
+        child = (d < radius[p]) & (rel >= child_size[0]) & (rel <= child_size[1])
+        child &= score >= ratio * score[p]
+        child[p] = False
+        if child.sum() >= 2:
+            out[p] = value[p] - background >= share * float(np.mean(value[child] - background))
+    return out
 
 
 def prune_blobs(

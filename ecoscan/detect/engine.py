@@ -17,7 +17,7 @@ import numpy as np
 
 from ecoscan.detect.detectors.base import TilePoints, TileWindow
 from ecoscan.detect.detectors.registry import get_detector
-from ecoscan.detect.indices import darkness, excess_green, ndvi
+from ecoscan.detect.indices import darkness, excess_green, green_red, ndvi
 from ecoscan.detect.tiling import Tile, in_pool_worker
 from ecoscan.io.raster import RasterInfo, opened, read_window
 
@@ -111,7 +111,8 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
     name : str
         ``exg`` (Excess Green, Woebbecke et al. 1995), ``ndvi`` (Rouse et al. 1974),
         ``darkness`` (minus the mean of the visible bands, or of all bands when none is
-        named), ``band`` (the first band as it is), ``logchroma_r`` / ``logchroma_b``
+        named), ``band`` (the first band as it is), ``grvi`` (green-red index,
+        :func:`ecoscan.detect.indices.green_red`), ``logchroma_r`` / ``logchroma_b``
         (log of red / blue over the geometric mean of red, green and blue:
         :func:`ecoscan.detect.chromaticity.log_chromaticity`).
 
@@ -137,6 +138,8 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         return darkness(*vis)
     if name == "band":
         return np.asarray(data[0], np.float32).copy()
+    if name == "grvi":  # the second evidence layer for pale crowns (detect/autotune.py)
+        return green_red(data[pos["red"]], data[pos["green"]])
     if name in ("logchroma_r", "logchroma_b"):
         # log-chromaticities for the log-chromaticity layer (ecoscan.detect.chromaticity)
         from ecoscan.detect.chromaticity import log_chromaticity

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["darkness", "excess_green", "ndvi"]
+__all__ = ["darkness", "excess_green", "green_red", "ndvi"]
 
 
 def excess_green(red: np.ndarray, green: np.ndarray, blue: np.ndarray) -> np.ndarray:
@@ -59,6 +59,41 @@ def ndvi(red: np.ndarray, nir: np.ndarray) -> np.ndarray:
     s = n + r
     with np.errstate(invalid="ignore", divide="ignore"):
         out = (n - r) / s
+    out[~(s != 0)] = 0.0
+    return out.astype(np.float32, copy=False)
+
+
+def green_red(red: np.ndarray, green: np.ndarray) -> np.ndarray:
+    """Green-red vegetation index GRVI = (Green − Red) / (Green + Red).
+
+    Tucker, C. J. (1979). Red and photographic infrared linear combinations for monitoring
+    vegetation. Remote Sensing of Environment 8: 127–150 (the green-red difference over
+    the sum); Motohashi, K. et al. (2010) used it as the green-red vegetation index for
+    phenology (cited from memory). Reddish soil and dry litter are negative, green
+    foliage positive, and grey, olive or senescent foliage near zero: above the soil
+    even where Excess Green barely rises.
+
+    Parameters
+    ----------
+    red, green : numpy.ndarray
+        Red and green band values (any consistent radiometric unit).
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 GRVI in [−1, 1]; 0 where Green + Red = 0.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> round(float(green_red(np.array([150.0]), np.array([116.0]))[0]), 4)  # reddish soil
+    -0.1278
+    """
+    r = np.asarray(red, np.float32)
+    g = np.asarray(green, np.float32)
+    s = g + r
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = (g - r) / s
     out[~(s != 0)] = 0.0
     return out.astype(np.float32, copy=False)
 

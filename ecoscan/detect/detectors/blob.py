@@ -70,6 +70,8 @@ LAYER_LABELS = {
 
 #: Columns of the tile tables.
 TILE_COLUMNS = ("sigma_px", "score", "index_value")
+#: Column marking the blobs of a second evidence layer (:mod:`ecoscan.detect.pale_crowns`).
+SECOND = "second_layer"
 
 
 @dataclass(frozen=True)
@@ -117,6 +119,16 @@ class BlobPlan:
         the blobs are joined to their shadows; None leaves blobs where they are.
     shadow_radius_max : float
         Largest crown radius in pixels, for the walk of ``shadow_dir``.
+    strong : tuple of float or None
+        Clear blobs below the centre-value threshold
+        (:func:`ecoscan.detect.autotune.strong_test`).
+    second : SecondLayer or None
+        A second evidence layer whose blobs only add crowns the main layer lacks
+        (:mod:`ecoscan.detect.pale_crowns`); None: the main layer alone.
+    lobe_share : float or None
+        Merged-pair parents whose centre value stands this share as high as their
+        children's are one lobed crown and kept (:func:`ecoscan.detect.blobs.lobed_parents`);
+        None: every merged pair is split.
     """
 
     bands: tuple[int, ...]
@@ -136,6 +148,8 @@ class BlobPlan:
     shadow_dir: tuple[float, float] | None = None
     shadow_radius_max: float = 0.0
     strong: tuple[float, float] | None = None
+    second: object = None
+    lobe_share: float | None = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -374,10 +388,17 @@ class ImageryDetector(Detector):
             layer = compose_layer(data, plan.roles, plan.terms)
         else:
             layer = vegetation_layer(data, plan.index)
-        del data
         valid = window.valid
         if not valid.all():
             layer[~valid] = plan.fill_value
+        extra = None
+        if plan.second is not None:  # pale crowns (ecoscan.detect.pale_crowns)
+            from ecoscan.detect.pale_crowns import find_second
+
+            extra = find_second(
+                data, layer, plan.roles, plan.second, plan.scales, valid, window.origin
+            )
+        del data
         if plan.canopy is not None:
             return _canopy_points(window, layer, plan.canopy, tint)
         found = blobs.detect_blobs(
@@ -398,20 +419,48 @@ class ImageryDetector(Detector):
         col, row = found["col"], found["row"]
         if plan.shadow_dir is not None:  # crowns joined to their shadows (detect/shadows.py)
             col, row = _crown_ends(layer, col, row, found["sigma"], window.origin, plan)
+        if extra is not None:  # second-layer blobs, marked; kept or not in finish()
+            columns = {
+                "sigma_px": np.concatenate([found["sigma"], extra["sigma"]]),
+                "score": np.concatenate([found["response"], extra["response"]]),
+                "index_value": np.concatenate([found["value"], extra["value"]]),
+                SECOND: np.concatenate([np.zeros(col.size), np.ones(extra["col"].size)]),
+            }
+            col = np.concatenate([col, extra["col"]])
+            row = np.concatenate([row, extra["row"]])
         return TilePoints(col, row, columns)
 
     def empty_tile(self, plan: BlobPlan) -> TilePoints:
         """No blobs."""
-        return TilePoints.empty(TILE_COLUMNS)
+        return TilePoints.empty(TILE_COLUMNS + ((SECOND,) if plan.second is not None else ()))
 
     def finish(self, points: TilePoints, plan: BlobPlan):
         """Split blobs of touching crowns, prune lobes, then diameters in metres."""
+        added, notes = None, []
+        if SECOND in points.columns:  # second-layer blobs apart from the main layer's
+            is_second = points.columns[SECOND] > 0
+            added = points.take(is_second)
+            points = points.take(~is_second)
+            added.columns.pop(SECOND)
+            points.columns.pop(SECOND)
         c = points.columns
         radius = math.sqrt(2.0) * c["sigma_px"]
         if plan.split_ratio > 0 and plan.canopy is None:
             merged = blobs.split_merged(
                 points.col, points.row, radius, c["score"], plan.split_ratio
             )
+            if plan.lobe_share is not None and merged.any():  # one lobed crown, kept
+                merged &= ~blobs.lobed_parents(
+                    points.col,
+                    points.row,
+                    radius,
+                    c["score"],
+                    c["index_value"],
+                    plan.fill_value,
+                    merged,
+                    plan.split_ratio,
+                    plan.lobe_share,
+                )
             points = points.take(~merged)
             radius = radius[~merged]
         if plan.canopy is None:  # watershed regions are disjoint: nothing to prune
@@ -423,11 +472,38 @@ class ImageryDetector(Detector):
                 margin=PRUNE_MARGIN if plan.split_ratio > 0 else 0.0,
             )
             points = points.take(keep)
+        if added is not None:
+            points, note = _with_second(points, added)
+            notes.append(note)
         c = points.columns
         attrs = {"diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m}
         attrs["score"] = c["score"]
         attrs["index_value"] = c["index_value"]
-        return points, attrs, []
+        return points, attrs, notes
+
+
+def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str]:
+    """The main layer's crowns plus the second layer's blobs clear of them (one note)."""
+    from ecoscan.detect.pale_crowns import added_points
+
+    root2 = math.sqrt(2.0)
+    keep = added_points(
+        points.col,
+        points.row,
+        root2 * points.columns["sigma_px"],
+        added.col,
+        added.row,
+        root2 * added.columns["sigma_px"],
+        added.columns["score"],
+    )
+    n = int(keep.sum())
+    note = (
+        f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed none "
+        "(pale or grey crowns; their index_value is GRVI)"
+    )
+    if n == 0:
+        return points, note
+    return TilePoints.concat([points, added.take(keep)]), note
 
 
 DETECTOR = ImageryDetector()

@@ -222,6 +222,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         if choice is None:
             return None
     shadow = _shadow_step(choice, windows, roles, info, settings)
+    second = _second_layer(choice, windows, roles, scales, settings)
     del windows
     params = BlobPlan(
         bands=abands,
@@ -239,9 +240,19 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         shadow_dir=None if shadow is None else shadow["shadow_dir"],
         shadow_radius_max=settings.diameter_max_m / 2 / info.pixel_size_m,
         strong=strong_test(choice),
+        second=second,
+        lobe_share=_lobe_share(choice, roles, settings),
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
+    th.update(_second_meta(second))
+    th["lobed_crown_share"] = params.lobe_share
+    th["lobed_crown_from"] = (
+        "on smooth ground with the Excess Green layer alone: a blob holding two or more "
+        "strong smaller blobs is kept as one lobed crown (not split as touching crowns) when "
+        "its smoothed centre value stands at least this share as high above the background "
+        "as its children's on average; none (null) elsewhere"
+    )
     if shadow is not None:  # crown-end walks: every blob that lands in a core is exact
         from ecoscan.detect.shadows import reach_px as shadow_reach
 
@@ -256,6 +267,50 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
 
         overlap = max(overlap, ring_reach_px(scales))
     return params, overlap, scales.align, th, notes
+
+
+def _second_layer(choice, windows, roles, scales, settings):
+    """:func:`ecoscan.detect.pale_crowns.second_layer`, or None (also with ``--no-split``,
+    which keeps the plain one-layer blobs)."""
+    from ecoscan.detect.pale_crowns import second_layer
+
+    if not settings.split_touching or choice.candidates < MIN_CANDIDATES:
+        return None
+    return second_layer(choice, windows, roles, scales)
+
+
+def _lobe_share(choice, roles, settings) -> float | None:
+    """:data:`ecoscan.detect.blobs.LOBE_SHARE` where merged pairs may be lobed crowns."""
+    from ecoscan.detect.blobs import LOBE_SHARE
+    from ecoscan.detect.pale_crowns import plain_excess_green
+
+    if not settings.split_touching or not plain_excess_green(choice, roles):
+        return None
+    return LOBE_SHARE
+
+
+def _second_meta(second) -> dict:
+    """Detection metadata of the second evidence layer (null figures when it is off)."""
+    from ecoscan.detect.pale_crowns import CLEAR_RADII, LAYER, MAX_BRIGHTNESS
+
+    return {
+        "second_layer": None if second is None else LAYER,
+        "second_layer_thresholds": None
+        if second is None
+        else {
+            "min_response_by_scale": list(second.min_response),
+            "min_value": second.min_value,
+            "background": second.background,
+            "max_brightness": second.max_brightness,
+        },
+        "second_layer_from": (
+            "on smooth ground with the Excess Green layer alone: blobs of the green-red index "
+            "(GRVI), thresholds from its own background statistics, added as crowns when "
+            f"no Excess Green crown lies within {CLEAR_RADII:g} of its radii (its cast "
+            f"shadow) and the smoothed brightness at the centre is at most "
+            f"{MAX_BRIGHTNESS:g} x the median sampled brightness; none (null) elsewhere"
+        ),
+    }
 
 
 def _shadow_step(choice, windows, roles, info, settings):

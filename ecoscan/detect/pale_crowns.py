@@ -1,0 +1,321 @@
+"""A second evidence layer for pale and grey crowns, used only to add crowns Excess Green lacks.
+
+Grey, olive and senescent shrubs have an Excess Green value close to the soil's: about
+half of the grey crowns of the scene suite's dry shrubs form no Excess Green blob at all.
+On the green-red index GRVI = (G − R) / (G + R) (:func:`ecoscan.detect.indices.green_red`)
+they do stand out, because reddish soil is clearly negative and grey foliage near zero;
+but so do the cast shadows next to every crown (shade is bluer and less red than lit
+soil), and bright soil patches of a less red tint. So GRVI does not replace Excess Green:
+its blobs are searched as a second layer, with thresholds from its own background
+statistics (:func:`ecoscan.detect.autotune.choose_layer`), and a GRVI blob becomes a crown
+only where
+
+1. no Excess Green crown lies within :data:`CLEAR_RADII` of that crown's radius (plus half
+   the GRVI blob's radius, the pruning margin). A cast shadow starts at its crown's edge
+   and reaches about one crown height beyond it; at the suite's and tuning scenes' sun
+   elevations (35–55°) its blob centre lies 1.2–1.7 crown radii from the crown's centre
+   (measured on the suite's development seeds), inside the cleared zone;
+2. the brightness (mean of the visible bands) at its centre, smoothed at the smallest
+   searched scale, is at most :data:`MAX_BRIGHTNESS` times the median brightness of the
+   sampled pixels. A crown shades itself and is darker than the open ground around it
+   (the premise of the darkness layer; common practice in crown delineation); a bright
+   soil patch of a less red tint is not.
+
+GRVI blobs left after these tests are pruned among themselves like Excess Green blobs and
+added to the points. The layer is used only where the main layer is Excess Green alone
+(with a darkness term it added pale grass patches on the tuning scenes ``grass``) on
+smooth ground (no threshold raise) and not a closed canopy, and only when GRVI itself
+separates on smooth ground (its own threshold not raised, at least ten candidates in the
+sample windows); elsewhere detection is unchanged.
+
+Everything a tile needs is fixed once per raster in :class:`SecondLayer`; the GRVI blobs
+and their brightness are exact in every tile's core (the brightness smoothing reaches less
+far than the blob filters), and the clearing and pruning run over all tiles at once, so
+tiled runs equal whole-image runs.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ecoscan.detect import blobs
+
+__all__ = [
+    "CLEAR_RADII",
+    "LAYER",
+    "MAX_BRIGHTNESS",
+    "SecondLayer",
+    "added_points",
+    "find_second",
+    "plain_excess_green",
+    "second_layer",
+]
+
+#: Base layer of the second evidence layer (:func:`ecoscan.detect.engine.base_layer`).
+LAYER = "grvi"
+#: A GRVI blob is dropped when an Excess Green crown's centre lies within this many of that
+#: crown's radii (plus half the GRVI blob's radius): the crown's own cast shadow. Chosen on
+#: the suite's development seeds 0, 7, 11 (2.0, 2.5 and 3.0 tried) and checked on the
+#: tuning scenes (docs/detection.md, "Grey crowns: a second evidence layer").
+CLEAR_RADII = 2.0
+#: A GRVI blob must be at most this many times as bright as the median sampled pixel.
+MAX_BRIGHTNESS = 1.0
+#: The main (Excess Green) layer at a GRVI blob's centre, smoothed at the smallest searched
+#: scale, must reach its background median plus this many robust SDs: grey foliage is a
+#: little greener than soil, dark rocks and stones (neutral grey) are not.
+MAIN_VALUE_MADS = 0.5
+#: Fewest GRVI candidates in the sample windows for the layer to be used.
+MIN_SECOND_CANDIDATES = 10
+
+
+@dataclass(frozen=True)
+class SecondLayer:
+    """The second evidence layer of a raster, fixed once (picklable, sent to every tile).
+
+    Attributes
+    ----------
+    terms : tuple of (str, float)
+        The layer as a weighted sum of base layers (:func:`ecoscan.detect.engine.compose_layer`).
+    min_response : tuple of float
+        Response threshold per scale of the blob scales.
+    min_value : float
+        Lowest smoothed layer value at a blob's centre.
+    background : float
+        Median of the layer over background pixels (also the fill value).
+    max_brightness : float
+        Highest smoothed brightness (mean of the visible bands) at a kept blob's centre.
+    main_min_value : float
+        Lowest smoothed value of the main (Excess Green) layer at a kept blob's centre.
+    score_scale : float
+        Factor that puts a GRVI response on the main layer's scale (ratio of the two
+        layers' median response thresholds), so scores of added points compare with the
+        others'.
+    """
+
+    terms: tuple[tuple[str, float], ...]
+    min_response: tuple[float, ...]
+    min_value: float
+    background: float
+    max_brightness: float
+    main_min_value: float
+    score_scale: float
+
+
+def plain_excess_green(choice, roles: tuple[str, ...]) -> bool:
+    """True when the main layer is Excess Green alone on smooth ground, in an RGB image.
+
+    Smooth ground: no threshold raise (on rough ground the ring test judges each blob) and
+    not a closed canopy. With a darkness term the second layer added pale grass patches on
+    the tuning scenes ``grass``; with near infrared the main layer is NDVI. The second
+    layer (:func:`second_layer`) and the lobed-crown rule
+    (:func:`ecoscan.detect.blobs.lobed_parents`) are used only here.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.autotune import LayerChoice
+    >>> exg = LayerChoice("exg", (("exg", 1.0),), 0.0, 1.0, (1.0,), 1.0, 1.0, 5.0, 0.0, 20)
+    >>> plain_excess_green(exg, ("red", "green", "blue"))
+    True
+    >>> plain_excess_green(exg, ("red", "green", "blue", "nir"))
+    False
+    """
+    if not {"red", "green", "blue"} <= set(roles) or "nir" in roles:
+        return False
+    if choice.closed or choice.threshold_raise > 1.0 or not math.isfinite(choice.min_value):
+        return False
+    return tuple(n for n, _w in choice.terms) == ("exg",)
+
+
+def second_layer(choice, windows, roles: tuple[str, ...], scales) -> SecondLayer | None:
+    """The second evidence layer for a raster whose main layer is ``choice``, or None.
+
+    Parameters
+    ----------
+    choice : ecoscan.detect.autotune.LayerChoice
+        The main layer chosen from the image.
+    windows : list of ecoscan.detect.autotune.SampleWindow
+        The sample windows it was chosen on (bands in the order of ``roles``).
+    roles : tuple of str
+        Band roles.
+    scales : ecoscan.detect.blobs.BlobScales
+        The scales searched.
+
+    Returns
+    -------
+    SecondLayer or None
+        None unless the main layer is Excess Green alone on smooth ground (no threshold
+        raise, not a closed canopy) and GRVI separates there too.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.autotune import LayerChoice
+    >>> dark = LayerChoice("darkness", (("darkness", 1.0),), 0.0, 1.0, (1.0,), 1.0, 1.0,
+    ...                    5.0, 0.0, 20)
+    >>> second_layer(dark, [], ("red", "green", "blue"), None) is None
+    True
+    """
+    from ecoscan.detect.autotune import choose_layer
+
+    if not plain_excess_green(choice, roles):
+        return None
+    grvi = choose_layer(windows, roles, scales, options=[(LAYER,)], chroma=False)
+    if grvi.closed or grvi.threshold_raise > 1.0 or grvi.candidates < MIN_SECOND_CANDIDATES:
+        return None
+    pos = {r: i for i, r in enumerate(roles)}
+    vis = [pos["red"], pos["green"], pos["blue"]]
+    bright = np.concatenate(
+        [w.data[vis][:, w.core[0], w.core[1]].mean(axis=0)[w.valid[w.core]] for w in windows]
+    )
+    level = float(np.median(bright)) if bright.size else math.inf
+    main_thr = float(np.median(choice.min_response))
+    own_thr = float(np.median(grvi.min_response))
+    return SecondLayer(
+        terms=grvi.terms,
+        min_response=grvi.min_response,
+        min_value=grvi.min_value,
+        background=grvi.background,
+        max_brightness=MAX_BRIGHTNESS * level,
+        main_min_value=choice.background + MAIN_VALUE_MADS * choice.spread,
+        score_scale=main_thr / own_thr if own_thr > 0 else 1.0,
+    )
+
+
+def find_second(
+    data: np.ndarray,
+    main_layer: np.ndarray,
+    roles: tuple[str, ...],
+    second: SecondLayer,
+    scales: blobs.BlobScales,
+    valid: np.ndarray,
+    origin: tuple[int, int],
+) -> dict[str, np.ndarray]:
+    """GRVI blobs of one window that pass the brightness and main-layer tests (raster
+    pixel frame).
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        The window's bands, shape (bands, rows, columns), in the order of ``roles``.
+    main_layer : numpy.ndarray
+        The main detection layer of the window (invalid pixels filled).
+    roles : tuple of str
+        Band roles.
+    second : SecondLayer
+        The raster's second layer.
+    scales : ecoscan.detect.blobs.BlobScales
+        The scales searched.
+    valid : numpy.ndarray of bool
+        Valid pixels of the window.
+    origin : (int, int)
+        Column and row of the window's first pixel in the raster.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        ``row``, ``col``, ``sigma``, ``response`` (on the main layer's scale: times
+        ``score_scale``) and ``value`` (GRVI at the centre) of the kept blobs.
+    """
+    from ecoscan.detect.engine import compose_layer
+
+    layer = compose_layer(data, roles, second.terms)
+    if not valid.all():
+        layer[~valid] = second.background
+    found = blobs.detect_blobs(
+        layer,
+        scales,
+        np.asarray(second.min_response),
+        second.min_value,
+        valid,
+        origin=origin,
+        background=second.background,
+    )
+    if found["row"].size == 0:
+        return found
+    pos = {r: i for i, r in enumerate(roles)}
+    bright = (data[pos["red"]] + data[pos["green"]] + data[pos["blue"]]) / np.float32(3.0)
+    # smoothed only around the blobs' pixels would save little: one filter per window
+    from scipy import ndimage
+
+    sigma = float(scales.sigmas[1])
+    bright = ndimage.gaussian_filter(bright.astype(np.float32), sigma)
+    main = ndimage.gaussian_filter(np.asarray(main_layer, np.float32), sigma)
+    h, w = bright.shape
+    r = np.clip(np.rint(found["row"] - origin[1]).astype(int), 0, h - 1)
+    c = np.clip(np.rint(found["col"] - origin[0]).astype(int), 0, w - 1)
+    keep = (bright[r, c] <= second.max_brightness) & (main[r, c] >= second.main_min_value)
+    out = {k: v[keep] for k, v in found.items()}
+    out["response"] = out["response"] * second.score_scale
+    return out
+
+
+def added_points(
+    main_x: np.ndarray,
+    main_y: np.ndarray,
+    main_radius: np.ndarray,
+    x: np.ndarray,
+    y: np.ndarray,
+    radius: np.ndarray,
+    score: np.ndarray,
+    clear_radii: float | None = None,
+    margin: float = 0.5,
+) -> np.ndarray:
+    """Which second-layer blobs become crowns: clear of every main crown, then pruned.
+
+    A blob is dropped when a main crown's centre lies closer than
+    ``max(radius, clear_radii × main radius) + margin × min(radius, main radius)`` (its
+    cast shadow, a lobe or the rim of a crown already found); the rest are pruned among
+    themselves (:func:`ecoscan.detect.blobs.prune_blobs`, the same margin).
+
+    Parameters
+    ----------
+    main_x, main_y, main_radius : numpy.ndarray
+        The main layer's final crowns (any consistent unit).
+    x, y, radius, score : numpy.ndarray
+        The second layer's blobs.
+    clear_radii : float, optional
+        Cleared zone around each main crown, in its radii (default :data:`CLEAR_RADII`).
+    margin : float
+        Pruning margin, as a share of the smaller radius.
+
+    Returns
+    -------
+    numpy.ndarray of bool
+        True for the blobs added as crowns.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> main = (np.array([0.0]), np.array([0.0]), np.array([10.0]))
+    >>> x = np.array([15.0, 40.0, 44.0]); y = np.zeros(3)
+    >>> added_points(*main, x, y, np.full(3, 5.0), np.array([1.0, 1.0, 2.0])).tolist()
+    [False, False, True]
+    """
+    from scipy.spatial import cKDTree
+
+    if clear_radii is None:
+        clear_radii = CLEAR_RADII
+    n = x.size
+    keep = np.ones(n, dtype=bool)
+    if n == 0:
+        return keep
+    if main_x.size:
+        tree = cKDTree(np.column_stack([main_x, main_y]))
+        reach = max(float(radius.max()), clear_radii * float(main_radius.max()))
+        reach += margin * float(max(radius.max(), main_radius.max()))
+        pairs = tree.query_ball_point(np.column_stack([x, y]), reach)
+        for k, near in enumerate(pairs):
+            if not near:
+                continue
+            j = np.asarray(near)
+            d = np.hypot(main_x[j] - x[k], main_y[j] - y[k])
+            lim = np.maximum(radius[k], clear_radii * main_radius[j])
+            lim = lim + margin * np.minimum(radius[k], main_radius[j])
+            keep[k] = not bool(np.any(d < lim))
+    idx = np.flatnonzero(keep)
+    if idx.size:
+        kept = blobs.prune_blobs(x[idx], y[idx], radius[idx], score[idx], margin=margin)
+        keep[idx[~kept]] = False
+    return keep
