@@ -289,6 +289,7 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
     )
     with DescendantPeaks(separate=True) as kids, phases:
         forked = fork_is_safe() and workers > 1  # the early workers will be forked
+        load0 = os.getloadavg()[0]
         t0 = time.perf_counter()
         c0 = time.process_time()
         k0 = _children_cpu()
@@ -313,6 +314,7 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
         "cpu_seconds": cpu + cpu_kids,
         "layer": res.thresholds.get("layer", res.index),
         "workers_forked": forked,
+        "load_start": load0,
         "load": os.getloadavg()[0],
     }
 
@@ -379,6 +381,7 @@ def run_plain(tif: Path, truth: Path, facts: dict, threshold: float) -> dict:
 
     from ecoscan.detect.indices import excess_green
 
+    load0 = os.getloadavg()[0]
     t0 = time.perf_counter()
     c0 = time.process_time()
     with rasterio.open(tif) as src:
@@ -391,6 +394,9 @@ def run_plain(tif: Path, truth: Path, facts: dict, threshold: float) -> dict:
     cpu = time.process_time() - c0
     tr = np.load(truth)
     return {
+        "threads": int((_status(os.getpid()) or {}).get("Threads", "0").strip() or 0),
+        "load_start": load0,
+        "load": os.getloadavg()[0],
         "cpu_seconds": cpu,
         "seconds": dt,
         "megapixels": mp,
@@ -561,6 +567,16 @@ def main() -> None:
             f"{per_cpu:.1f}x per CPU-second; "
             f"F1 ecoscan {ref['f1']:.3f} vs plain {plain['f1']:.3f} (goal: not lower); "
             f"peak memory plain {plain['peak_main_mb']:.0f} MB"
+        )
+        # the two runs under the same conditions? (one process, its threads, the load)
+        nan = float("nan")
+        print(
+            f"conditions: plain {plain['seconds']:.2f} s wall, {plain['cpu_seconds']:.2f} CPU-s "
+            f"in one process with {plain.get('threads', 0)} threads at the end, load average "
+            f"{plain.get('load_start', nan):.2f} -> {plain.get('load', nan):.2f}; "
+            f"ecoscan {ref['seconds']:.2f} s wall, {ref['cpu_seconds']:.2f} CPU-s "
+            f"({ref['cpu_main']:.2f} main + {ref['cpu_workers']:.2f} in {a.workers} workers), "
+            f"load average {ref.get('load_start', nan):.2f} -> {ref['load']:.2f}"
         )
     print()
     print(

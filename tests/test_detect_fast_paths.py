@@ -81,7 +81,7 @@ def test_fill_value_shift_matches_filtering_with_that_fill():
     assert np.max(np.abs(unshifted / ref - 1)) > 1e-2  # the shift matters here
 
 
-def _direct_candidates(lp, floor):
+def _direct_candidates(lp, floor, lower=None):
     """Reference: detect anew on each window's layer filled with the pyramids' fill."""
     out = {k: [] for k in ("w", "row", "col", "sigma", "response", "value")}
     for wi, (lay, win) in enumerate(zip(lp.layers, lp.cache.windows, strict=True)):

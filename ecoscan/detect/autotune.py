@@ -279,9 +279,45 @@ def _median(v: np.ndarray) -> float:
     n = v.size
     k = n // 2
     if n % 2:
-        return float(np.partition(v, k)[k])
-    part = np.partition(v, (k - 1, k))
-    return (float(part[k - 1]) + float(part[k])) / 2.0
+        return float(_order_stats(v, (k,))[0])
+    lo, hi = _order_stats(v, (k - 1, k))
+    return (float(lo) + float(hi)) / 2.0
+
+
+#: Arrays at least this long have their order statistics selected from a bracket
+#: (:func:`_order_stats`); shorter ones are partitioned whole.
+BRACKET_MIN = 100_000
+
+
+def _order_stats(v: np.ndarray, ks: tuple[int, ...]) -> np.ndarray:
+    """The ``ks``-th smallest values of ``v`` (as ``numpy.partition(v, ks)[ks]``, to the
+    bit), for a large ``v`` without partitioning all of it.
+
+    A regular sample of about 4 000 values brackets the wanted ranks (their sample
+    quantiles ± 6 binomial standard deviations); the values below the bracket are counted,
+    the few inside it partitioned. When the bracket misses a rank (the check is exact),
+    or a wanted value is zero (whose sign a partition leaves to chance), or NaN is near,
+    the whole array is partitioned as before. Selection of the same ranks gives the same
+    values: the result never depends on which path was taken.
+    """
+    n = v.size
+    if n < BRACKET_MIN:
+        return np.partition(v, ks)[list(ks)]
+    step = n // 4096
+    sample = np.sort(v[::step])
+    m = sample.size
+    q0, q1 = min(ks) / n, max(ks) / n
+    width = 6.0 * math.sqrt(max(q0 * (1 - q0), q1 * (1 - q1)) * m) + 8.0
+    lo = sample[max(0, int(q0 * m - width))]
+    hi = sample[min(m - 1, math.ceil(q1 * m + width))]
+    if lo == lo and hi == hi:  # not NaN
+        below = int(np.count_nonzero(v < lo))
+        inside = v[(v >= lo) & (v <= hi)]
+        if below <= min(ks) and max(ks) < below + inside.size:
+            got = np.partition(inside, [k - below for k in ks])[[k - below for k in ks]]
+            if np.all(got != 0):
+                return got
+    return np.partition(v, ks)[list(ks)]
 
 
 def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
@@ -428,10 +464,13 @@ def _disc_mask(shape: tuple[int, int], rows, cols, radii) -> np.ndarray:
     hi = np.minimum(hi, x1[d] - 1)
     run = lo <= hi
     flat = (w + 1) * y[run]
-    edges = np.bincount(flat + lo[run], minlength=h * (w + 1)) - np.bincount(
-        flat + hi[run] + 1, minlength=h * (w + 1)
-    )
-    return np.cumsum(edges.reshape(h, w + 1), axis=1)[:, :w] > 0
+    # +1 where a run starts, -1 after it ends; a pixel is covered where the running sum
+    # along its row is positive (int32 counts: never more runs than discs overlap)
+    edges = np.zeros(h * (w + 1), np.int32)
+    ones = np.ones(flat.size, np.int32)  # an array (not 1): numpy's fast path of add.at
+    np.add.at(edges, flat + lo[run], ones)
+    np.subtract.at(edges, flat + hi[run] + 1, ones)
+    return np.cumsum(edges.reshape(h, w + 1), axis=1, dtype=np.int32)[:, :w] > 0
 
 
 class _WindowCache:
@@ -516,6 +555,12 @@ class _LayerPyramids:
             for lay, w in zip(layers, cache.windows, strict=True)
         ]
         self._noise: float | None = None
+        #: per (window, exclusion factor, dense): the last round's excluded candidates
+        #: and what they gave (:func:`_background_pixels`)
+        self.rounds_seen: dict[tuple, tuple] = {}
+        #: per window: the last mask measured by :func:`_spreads`, its level masks and
+        #: the spreads measured on it (by fill shift)
+        self.levels_seen: dict[int, tuple] = {}
 
     def noise(self) -> float:
         """Median over the windows of the pixel noise (:func:`pixel_noise`), computed once."""
@@ -533,11 +578,21 @@ class _LayerPyramids:
         return self._noise
 
 
-def _candidates(lp: _LayerPyramids, floor):
+def _candidates(lp: _LayerPyramids, floor, lower: list[dict] | None = None):
     """All blob candidates in the windows' cores (pruned per window), at the fill value
-    the pyramids were made with."""
-    out = {k: [] for k in ("w", "row", "col", "sigma", "response", "value")}
+    the pyramids were made with.
+
+    ``lower``: the blobs :func:`_core_blobs` found at a floor nowhere higher, which are
+    filtered (:func:`_above`) instead of searching the pyramids again where that is exact.
+    """
+    found = None if lower is None else _above(lp.cache.scales, lower, floor)
+    return _pruned(_core_blobs(lp, floor) if found is None else found)
+
+
+def _core_blobs(lp: _LayerPyramids, floor) -> list[dict]:
+    """Per window, the blobs reaching ``floor`` in its core, before pruning."""
     scales = lp.cache.scales
+    out = []
     for wi, win in enumerate(lp.cache.windows):
         found = pyramid_blobs(lp.pyramids[wi], scales, floor, -np.inf, lp.cache.valid_levels[wi])
         ys, xs = win.core
@@ -547,7 +602,41 @@ def _candidates(lp: _LayerPyramids, floor):
             & (found["col"] >= xs.start - 0.5)
             & (found["col"] < xs.stop - 0.5)
         )
-        found = {k: v[inside] for k, v in found.items()}
+        out.append({k: v[inside] for k, v in found.items()})
+    return out
+
+
+def _above(scales: BlobScales, blobs: list[dict], floor) -> list[dict] | None:
+    """The blobs of :func:`_core_blobs` at a floor that reach a higher ``floor`` (per
+    scale): what :func:`_core_blobs` at that floor finds, without filtering again.
+
+    A blob is a maximum over its neighbours whatever the floor, and is found when its
+    response reaches the floor of its own (integer) scale in float32. That scale is the
+    refined σ's nearest one unless the refinement sits half a step off (the parabola's
+    offset clipped at ±0.5); then, where the two scales' floors would disagree, None
+    (filter again).
+    """
+    thr = np.asarray(floor, np.float32).astype(float)
+
+    def passes(r, at):  # the response against the floor of scale ``at`` (clipped)
+        return r >= thr[np.clip(at.astype(int), 0, thr.size - 1)]
+
+    out = []
+    for found in blobs:
+        r = found["response"]
+        x = np.log(found["sigma"] / scales.sigmas[0]) / math.log(scales.k)
+        odd = np.abs(x - np.rint(x)) > 0.5 - 1e-6
+        if np.any(passes(r[odd], np.floor(x[odd])) != passes(r[odd], np.ceil(x[odd]))):
+            return None
+        keep = passes(r, np.rint(x))
+        out.append({k: v[keep] for k, v in found.items()})
+    return out
+
+
+def _pruned(blobs: list[dict]) -> dict:
+    """:func:`_core_blobs` pruned per window and joined, with each blob's window ``w``."""
+    out = {k: [] for k in ("w", "row", "col", "sigma", "response", "value")}
+    for wi, found in enumerate(blobs):
         if found["row"].size:
             keep = prune_blobs(
                 found["col"], found["row"], math.sqrt(2) * found["sigma"], found["response"]
@@ -567,20 +656,30 @@ def _spreads(lp: _LayerPyramids, masks, fill, clearances=None):
     clearances = clearances or [None] * len(lp.layers)
     shift = float(fill) - float(lp.fill)
     for wi, (mask, clear) in enumerate(zip(masks, clearances, strict=True)):
-        sel = mask & cache.core_valid[wi]
+        seen = lp.levels_seen.get(wi)
+        if seen is None or seen[0] is not mask:
+            levels = level_masks(mask & cache.core_valid[wi], cache.scales)
+            seen = lp.levels_seen[wi] = (mask, levels, {})
+        edge = cache.edges[wi] if shift != 0.0 and cache.edges[wi] is not None else None
+        # the same mask as a round before, measured at the same fill (or at any fill
+        # where the fill does not reach the core): the same spreads
+        key = None if edge is None else shift
+        if clear is None and key in seen[2]:
+            per.append(seen[2][key])
+            continue
         per.append(
             pyramid_spread(
                 lp.pyramids[wi],
                 cache.scales,
-                level_masks(sel, cache.scales),
+                seen[1],
                 clearance=clear,
                 clearance_sigmas=CLEARANCE,
                 min_pixels=MIN_SPREAD_PX if clear is not None else 1,
-                shift=(shift, cache.edges[wi])
-                if shift != 0.0 and cache.edges[wi] is not None
-                else None,
+                shift=None if edge is None else (shift, edge),
             )
         )
+        if clear is None:
+            seen[2][key] = per[-1]
     stack = np.vstack(per)
     has = np.isfinite(stack).any(axis=0)
     sp = np.full(stack.shape[1], np.nan)
@@ -625,15 +724,19 @@ def pixel_noise(
         if h < 3 or w < 3:
             return 0.0
         acc = np.zeros(((h - 2 + stride - 1) // stride, (w - 2 + stride - 1) // stride))
-        ok = np.ones(acc.shape, bool)
+        # every pixel valid (most windows): every sampled pixel counts, no mask to build
+        ok = None if valid.all() else np.ones(acc.shape, bool)
         for dy in (-1, 0, 1):
             for dx in (-1, 0, 1):
                 win = (slice(1 + dy, h - 1 + dy, stride), slice(1 + dx, w - 1 + dx, stride))
-                acc += float(kern[dy + 1, dx + 1]) * lay[win]
-                ok &= valid[win]
-        if not ok.any():
+                c = float(kern[dy + 1, dx + 1])
+                acc += lay[win] if c == 1.0 else c * lay[win]  # 1 × x is x
+                if ok is not None:
+                    ok &= valid[win]
+        if ok is not None and not ok.any():
             return 0.0
-        return float(math.sqrt(math.pi / 2.0) * np.abs(acc[ok]).mean() / 6.0)
+        dev = np.abs(acc, out=acc)
+        return float(math.sqrt(math.pi / 2.0) * (dev if ok is None else dev[ok]).mean() / 6.0)
     conv = np.abs(ndimage.convolve(np.asarray(layer, np.float32), kern, mode="nearest"))
     if inner is None:  # valid pixels whose 3 x 3 neighbourhood is valid
         inner = ndimage.binary_erosion(valid, iterations=1, border_value=0)
@@ -759,10 +862,13 @@ def _first_candidates(lp: _LayerPyramids, m0: float):
     sr_noise = TEXTURE * noise * cache.white_spread(lp.layers[0].shape)
     if noise > 0 and np.any(sr_noise < sr0):
         low = np.minimum(sr0, sr_noise)
-        cand = _candidates(lp, 0.5 * low)
+        found = _core_blobs(lp, 0.5 * low)
+        cand = _pruned(found)
         spread_low = low[_scale_index(cache.scales, cand["sigma"])]
         if _background_share(cache.windows, cand, spread_low) < DENSE_BACKGROUND:
             return cand, low, True
+        # the blobs at the higher floor are among those found at the lower one
+        return _candidates(lp, 0.5 * sr0, lower=found), sr0, False
     return _candidates(lp, 0.5 * sr0), sr0, False
 
 
@@ -821,6 +927,16 @@ def _background_pixels(lp: _LayerPyramids, cand, strong, factor: float, dense: b
     bg_masks, bg_vals, clears = [], [], []
     for wi, (lay, win) in enumerate(zip(lp.layers, cache.windows, strict=True)):
         sel = strong & (cand["w"] == wi)
+        # a window whose excluded candidates did not change since the last round gives
+        # the same pixels again (the rounds of one layer share their candidates)
+        picked = np.flatnonzero(sel)
+        last = lp.rounds_seen.get((wi, factor, dense))
+        if last is not None and last[0] is cand and np.array_equal(last[1], picked):
+            bg_masks.append(last[2])
+            bg_vals.append(last[3])
+            if dense:
+                clears.append(last[4])
+            continue
         covered = _disc_mask(
             lay.shape,
             cand["row"][sel],
@@ -836,6 +952,13 @@ def _background_pixels(lp: _LayerPyramids, cand, strong, factor: float, dense: b
             )
         bg_masks.append(win.valid & ~covered)
         bg_vals.append(_values(lay, bg_masks[-1], cache.stride))
+        lp.rounds_seen[(wi, factor, dense)] = (
+            cand,
+            picked,
+            bg_masks[-1],
+            bg_vals[-1],
+            clears[-1] if dense else None,
+        )
     return bg_masks, np.concatenate(bg_vals), (clears if dense else None)
 
 

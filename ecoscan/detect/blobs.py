@@ -312,6 +312,26 @@ def _level_spread(
 ) -> None:
     """Fill ``out`` with the response spread of the scales computed on this level."""
     f = 2**lev
+    if clearance is None:
+        # one mask for every scale: the medians of all of them in one call per statistic
+        # (row by row the same float32 operations as one scale at a time)
+        js = [
+            j
+            for j, e in enumerate(ext)
+            if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == lev
+        ]
+        n = int(np.count_nonzero(sel_level))
+        if not js or n < min_pixels or n == 0:
+            return
+        take = slice(js[0], js[-1] + 1) if js[-1] - js[0] == len(js) - 1 else js
+        v = resp[take][:, sel_level]
+        if shift is not None and shift[0] != 0.0:
+            v = v + np.float32(shift[0]) * shift[1][take][:, sel_level]
+        med = np.median(v, axis=1)
+        mad = np.median(np.abs(v - med[:, None]), axis=1)
+        for j, m in zip(js, mad, strict=True):
+            out[ext[j]] = 1.4826 * float(m)
+        return
     for j, e in enumerate(ext):
         if 1 <= e < scales.sigmas.size - 1 and scales.levels[e] == lev:
             sel = sel_level
