@@ -135,8 +135,11 @@ SHADOW_FREE_MARGIN = 2.0
 #: 0.35-0.37 of the darkness blobs on the suite's conifer pasture (development seeds;
 #: F1 0.19-0.46 -> 0.81-0.86), 0.09 and 0.21 on tuning ``conifers`` 102 and 103, where it
 #: would lower F1 (0.46 -> 0.04, 0.54 -> 0.26), 0.48 on tuning ``conifers`` 101 (0.56 ->
-#: 0.67).
-SHADOW_FREE_SHARE = 0.25
+#: 0.67). With the bands smoothed before the log (``chromaticity.BAND_BLUR``) the layer
+#: keeps more: 0.37-0.43 on the suite's development seeds, 0.46 on ``conifers`` 101, but
+#: 0.28 on ``conifers`` 103 (F1 0.80 -> 0.33 if taken over), so 0.25 became 0.32, about
+#: the geometric mean of 0.28 and 0.37 (docs/detection.md, "Conifer pasture, fifth round").
+SHADOW_FREE_SHARE = 0.32
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -203,6 +206,10 @@ class LayerChoice:
         How the kept candidates are stretched along one common direction
         (:func:`ecoscan.detect.elongation.common_elongation`): blobs of crowns joined to
         their cast shadows all share the sun's axis.
+    band_blur_px : float
+        Gaussian σ (pixels) by which the bands are smoothed before the log-chromaticities
+        of the ``chroma`` layer (:func:`ecoscan.detect.chromaticity.band_blur_px`); 0 for
+        the other layers.
     """
 
     name: str
@@ -219,6 +226,7 @@ class LayerChoice:
     closed: bool = False
     threshold_raise: float = 1.0
     elongation: dict = field(default_factory=dict)
+    band_blur_px: float = 0.0
 
     @property
     def crowded_threshold(self) -> bool:
@@ -1319,11 +1327,13 @@ def choose_layer(
     elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
     # the log-chromaticity layer takes thresholds from the valley of its candidates, and
     # takes over where the classic choice is unusable (_shadow_free_valley)
-    valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong)
+    valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong, roles)
+    blur = 0.0
     if valley is not None:
         label, terms, layers, res, elong = valley
         m, s = res["background"], res["spread"]
         scores[label + "-valley"] = round(res["separation"], 3)
+        blur = res["band_blur_px"]
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -1340,6 +1350,7 @@ def choose_layer(
         candidates=res["candidates"],
         scores=scores,
         elongation=elong,
+        band_blur_px=blur,
     )
 
 
@@ -1367,7 +1378,16 @@ def _invariant_jobs(windows, roles, scales) -> list[_LayerJob]:
     return [_LayerJob(INVARIANT, terms, layers, valid, core, scales, None)]
 
 
-def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dict, elong):
+def _band_blur(scales: BlobScales) -> float:
+    """Smoothing of the bands before the log-chromaticities, from the smallest blob scale."""
+    from ecoscan.detect.chromaticity import band_blur_px
+
+    return band_blur_px(float(scales.sigmas[0]))
+
+
+def _shadow_free_valley(
+    jobs, results, cache: _WindowCache, label: str, res: dict, elong, roles: tuple[str, ...]
+):
     """The log-chromaticity layer with thresholds from the valley between its candidates:
     ``(label, terms, layers, result, elongation)`` to use instead of the choice made, or
     None to keep it.
@@ -1375,7 +1395,12 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     Where that layer won the separation contest, and where the classic layers' best choice
     is unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
     split) or blobs stretched along one axis (crowns joined to their cast shadows,
-    :func:`ecoscan.detect.elongation.is_aligned`). The layer's response noise is the spread
+    :func:`ecoscan.detect.elongation.is_aligned`). Unless the valley on the layer of single
+    pixels is clean (at most ``GAP_SHARE`` of the kept candidates within a factor ``NEAR``
+    of the threshold, as in :func:`threshold_raise`), the layer is then made of the bands
+    smoothed before the log (:func:`ecoscan.detect.chromaticity.band_blur_px`) and scored
+    afresh; the contest used the layer of single pixels, so the smoothing changes no layer
+    choice elsewhere. The layer's response noise is the spread
     of its background response floored over scales
     (:func:`ecoscan.detect.chromaticity.floor_spread`); a candidate must reach the ground's
     median level and a response in the valley between the ground's bumps and the plants
@@ -1384,7 +1409,6 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
     (docs/detection.md, "Conifer pasture, fourth round").
     """
-    from ecoscan.detect.chromaticity import floor_spread, valley_factor
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES
     from ecoscan.detect.elongation import is_aligned
 
@@ -1395,13 +1419,21 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
     if not found or found[0][1]["closed"]:
         return None
     job, cres = found[0]
+    layers, blur = job.layers, 0.0
+    cand, sr, ratio, zok, factor = _valley_candidates(layers, cres, cache)
+    if near_shares(ratio, zok, np.array([factor]))[0] > GAP_SHARE:
+        # no clean gap on the layer of single pixels (measured: 0 on tuning ``pines`` and
+        # ``pasture``, 0.24-0.34 on ``conifers``, 0.54-0.80 on the suite's conifer
+        # pasture): the layer of locally averaged bands (chromaticity.band_blur_px),
+        # scored afresh. The contest above used the layer of single pixels, so the
+        # smoothing changes no layer choice elsewhere
+        blur = _band_blur(cache.scales)
+        layers = [compose_layer(w.data, roles, job.terms, blur) for w in cache.windows]
+        cres = _score_layer(layers, cache)
+        if cres["closed"]:
+            return None
+        cand, sr, ratio, zok, factor = _valley_candidates(layers, cres, cache)
     m = cres["background"]
-    sr = floor_spread(cres["response_spread"])
-    cand = _candidates(_LayerPyramids(job.layers, cache, m), 0.5 * sr)
-    si = _scale_index(cache.scales, cand["sigma"])
-    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
-    zok = cand["value"] >= m
-    factor = valley_factor(ratio, zok)
     kept = (ratio >= factor) & zok
     n_kept = int(kept.sum())
     others = [r["candidates"] for j, r in zip(jobs, results, strict=True) if j is not job]
@@ -1410,7 +1442,7 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
         return None
     near = float(near_shares(ratio, zok, np.array([factor]))[0])
     blobs = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float)
-    own = _kept_elongation(job.layers, cache.windows, blobs, m)
+    own = _kept_elongation(layers, cache.windows, blobs, m)
     med = RESPONSE_MADS * float(np.median(ratio[kept])) / factor
     out = {
         **cres,
@@ -1421,8 +1453,24 @@ def _shadow_free_valley(jobs, results, cache: _WindowCache, label: str, res: dic
         "candidates": n_kept,
         "min_value": m,
         "kept_blobs": blobs,
+        "band_blur_px": blur,
     }
-    return job.label, job.terms, job.layers, out, own
+    return job.label, job.terms, layers, out, own
+
+
+def _valley_candidates(layers, cres: dict, cache: _WindowCache):
+    """Candidates of the log-chromaticity layer under the valley rule: the candidates, the
+    floored response spread, each candidate's ratio to its noise threshold, whether it
+    reaches the background median, and the valley factor."""
+    from ecoscan.detect.chromaticity import floor_spread, valley_factor
+
+    m = cres["background"]
+    sr = floor_spread(cres["response_spread"])
+    cand = _candidates(_LayerPyramids(layers, cache, m), 0.5 * sr)
+    si = _scale_index(cache.scales, cand["sigma"])
+    ratio = cand["response"] / sr[si] / response_mads(cache.scales)[si]
+    zok = cand["value"] >= m
+    return cand, sr, ratio, zok, valley_factor(ratio, zok)
 
 
 def _kept_elongation(layers, windows, kept, level: float) -> dict:

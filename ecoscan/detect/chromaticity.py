@@ -32,15 +32,21 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import ndimage
 
 __all__ = [
+    "BAND_BLUR",
     "LOG_OFFSET",
+    "band_blur_px",
     "entropy_angle",
     "floor_spread",
     "invariant_terms",
     "log_chromaticity",
     "otsu_split",
     "projection_entropy",
+    "recentre",
+    "recentre_reach_px",
+    "smoothing_rule",
     "valley_factor",
     "valley_rule",
 ]
@@ -48,6 +54,26 @@ __all__ = [
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
 #: 8- and 16-bit imagery stay finite.
 LOG_OFFSET = 1.0
+#: Before the logarithm, each band is smoothed by a Gaussian of this share of the smallest
+#: blob scale (σ of the smallest crown; :func:`band_blur_px`). Dark crowns have digital
+#: numbers of 10-40, where 3 DN of pixel noise and 8-bit steps make the log of a band ratio
+#: swing by 0.1-0.4 from pixel to pixel (the speckle of crowns on this layer), while shaded
+#: and lit pasture are smooth; the log of locally averaged bands is the chromaticity of the
+#: local mean colour. 0.65 of the smallest scale widens the smallest blob filter by a fifth
+#: (the scales add in quadrature: sqrt(1 + 0.65²) = 1.19). Used only where the valley rule
+#: finds no clean gap on the layer of single pixels (``ecoscan.detect.autotune``: more than
+#: ``GAP_SHARE`` of the kept candidates near the threshold). Chosen on
+#: the tuning scenes and the suite's development seeds (docs/detection.md, "Conifer
+#: pasture, fifth round": 0.4 and 0.5 gave 0.895 and 0.906 there, 0.65 gave 0.925).
+BAND_BLUR = 0.65
+#: Recentring of the points on this layer (:func:`recentre`): the weighted centroid of the
+#: pixels above this share of the way from the background to the crown's upper level ...
+RECENTRE_SHARE = 0.5
+#: ... within one blob radius, repeated this many times (a mean shift that settles on the
+#: crown's middle), the point moving at most one blob radius in all.
+RECENTRE_ROUNDS = 3
+#: The crown's upper level: this quantile of the layer within the blob radius.
+RECENTRE_PEAK = 0.9
 #: Pixels used to choose the projection (a regular sample of the sample windows).
 ANGLE_SAMPLE = 60_000
 #: Coarse angle step (degrees) of the entropy search; refined to ``FINE_STEP`` around the
@@ -67,8 +93,20 @@ VALLEY_MIN = 20
 VALLEY_MAX = 6.0
 
 
+def band_blur_px(sigma_min_px: float) -> float:
+    """Gaussian σ (pixels) by which the bands are smoothed before the log-chromaticities:
+    ``BAND_BLUR`` times the smallest blob scale ``sigma_min_px``.
+
+    Examples
+    --------
+    >>> round(band_blur_px(3.0), 2)
+    1.95
+    """
+    return float(BAND_BLUR * sigma_min_px)
+
+
 def log_chromaticity(
-    red: np.ndarray, green: np.ndarray, blue: np.ndarray
+    red: np.ndarray, green: np.ndarray, blue: np.ndarray, blur_px: float = 0.0
 ) -> tuple[np.ndarray, np.ndarray]:
     """Log-chromaticities of red and blue over the geometric mean of the three bands.
 
@@ -76,6 +114,10 @@ def log_chromaticity(
     and ``c = LOG_OFFSET`` (negative values taken as 0); the green one is minus their sum,
     so two carry all the colour.
     A uniform change of brightness (R, G, B all times k) leaves them unchanged.
+    With ``blur_px`` > 0 each band is first smoothed by a Gaussian of that σ (pixels,
+    cut at 4 σ, edges continued by their nearest pixel; :func:`band_blur_px`), so that
+    the log is taken of the local mean colour rather than of single noisy pixels; a
+    tile must then overlap its neighbours by ``ceil(4 blur_px)`` more pixels.
 
     Examples
     --------
@@ -87,6 +129,11 @@ def log_chromaticity(
     >>> round(float(r2[0]), 4)                            # twice as bright: the same
     -0.231
     """
+    if blur_px > 0:
+        red, green, blue = (
+            ndimage.gaussian_filter(np.asarray(b, np.float32), blur_px, mode="nearest")
+            for b in (red, green, blue)
+        )
     c = np.float32(LOG_OFFSET)
     # negative values (offsets, noise in calibrated data) count as black
     lr = np.log(np.maximum(np.asarray(red, np.float32), np.float32(0.0)) + c)
@@ -382,4 +429,129 @@ def valley_rule() -> dict[str, str]:
             f"{VALLEY_MAX:g}"
         ),
         "vegetation_threshold_from": "background median",
+    }
+
+
+def recentre(
+    layer: np.ndarray,
+    cols: np.ndarray,
+    rows: np.ndarray,
+    radii: np.ndarray,
+    background: float,
+    origin: tuple[int, int] = (0, 0),
+) -> tuple[np.ndarray, np.ndarray]:
+    """Points moved to the middle of their crowns on the log-chromaticity layer.
+
+    On this layer a crown's colour is not uniform (lobes, lit and shaded sides under sky
+    light of another colour), so the blob pyramid's maximum can sit on a bright part of a
+    big crown, a quarter to half its radius off the middle. Each point is moved to the
+    centroid of the layer's excess over a level ``RECENTRE_SHARE`` of the way from
+    ``background`` to the crown's upper level (the ``RECENTRE_PEAK`` quantile within the
+    blob radius), over the disc of the blob radius around it; ``RECENTRE_ROUNDS`` times, as
+    a mean shift (Fukunaga, K. & Hostetler, L. 1975, *The estimation of the gradient of a
+    density function*, IEEE Trans. Inf. Theory 21: 32-40) with the excess as weight. Cast
+    shadows lie between the pasture and the crowns on this layer, mostly below the
+    half-way level, so they pull little. A point moves at most its blob radius in all.
+
+    Parameters
+    ----------
+    layer : numpy.ndarray
+        The log-chromaticity layer (2-D).
+    cols, rows : numpy.ndarray
+        Points (raster pixels).
+    radii : numpy.ndarray
+        Blob radii (pixels).
+    background : float
+        The layer's background median.
+    origin : (int, int)
+        Column and row of ``layer``'s first pixel in the raster. Centroids are summed in
+        raster coordinates, so a tile gives the whole image's positions to the bit.
+
+    Returns
+    -------
+    (numpy.ndarray, numpy.ndarray)
+        New columns and rows.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> yy, xx = np.mgrid[:60, :60]
+    >>> crown = (yy - 30) ** 2 + (xx - 30) ** 2 <= 100          # radius 10 at (30, 30)
+    >>> shadow = ((yy - 42) ** 2 + (xx - 30) ** 2 <= 100) & ~crown
+    >>> layer = np.where(crown, 1.0, np.where(shadow, 0.4, 0.0))
+    >>> c, r = recentre(layer, np.array([30.0]), np.array([34.0]), np.array([10.0]), 0.0)
+    >>> float(c[0]), float(r[0])             # from 4 px towards the shadow to 0.5 px
+    (30.0, 30.5)
+    """
+    h, w = layer.shape
+    ox, oy = origin
+    c0 = np.asarray(cols, float)
+    r0 = np.asarray(rows, float)
+    cc, rr = c0.copy(), r0.copy()
+    for k, rad in enumerate(np.asarray(radii, float)):
+        if not rad > 0:
+            continue
+        for _ in range(RECENTRE_ROUNDS):
+            y0 = max(math.floor(rr[k] - rad), oy)
+            y1 = min(math.ceil(rr[k] + rad) + 1, oy + h)
+            x0 = max(math.floor(cc[k] - rad), ox)
+            x1 = min(math.ceil(cc[k] + rad) + 1, ox + w)
+            if y1 <= y0 or x1 <= x0:
+                break
+            sy, sx = np.mgrid[y0:y1, x0:x1]
+            inside = (sy - rr[k]) ** 2 + (sx - cc[k]) ** 2 <= rad * rad
+            vals = layer[y0 - oy : y1 - oy, x0 - ox : x1 - ox][inside]
+            if vals.size == 0:
+                break
+            peak = float(np.quantile(vals, RECENTRE_PEAK))
+            level = background + RECENTRE_SHARE * (peak - background)
+            wgt = np.clip(vals - level, 0.0, None)
+            total = float(wgt.sum())
+            if not total > 0:
+                break
+            nc = float((wgt * sx[inside]).sum() / total)
+            nr = float((wgt * sy[inside]).sum() / total)
+            step = math.hypot(nc - c0[k], nr - r0[k])
+            if step > rad:  # at most one blob radius from the blob in all
+                nc = c0[k] + (nc - c0[k]) * rad / step
+                nr = r0[k] + (nr - r0[k]) * rad / step
+            cc[k], rr[k] = nc, nr
+    return cc, rr
+
+
+def recentre_reach_px(radius_max_px: float) -> int:
+    """Pixels :func:`recentre` reads beyond a blob centre (a shift of one radius, then a
+    disc of one radius), for tile overlaps.
+
+    Examples
+    --------
+    >>> recentre_reach_px(10.0)
+    22
+    """
+    return math.ceil(2.0 * radius_max_px) + 2
+
+
+def smoothing_rule(blur_px: float) -> dict:
+    """The detection metadata of smoothed bands and recentred points (where the valley
+    rule found no clean gap on the layer of single pixels).
+
+    Examples
+    --------
+    >>> sorted(smoothing_rule(1.6))
+    ['band_blur_px', 'band_blur_px_from', 'recentre']
+    """
+    return {
+        "band_blur_px": blur_px,
+        "band_blur_px_from": (
+            f"Gaussian sigma by which red, green and blue are smoothed before the "
+            f"log-chromaticities: {BAND_BLUR:g} x the smallest blob scale, where more than "
+            "the gap share of the valley's kept candidates sat near its threshold on the "
+            "layer of single pixels"
+        ),
+        "recentre": (
+            f"each point moved to the centroid of the layer's excess over {RECENTRE_SHARE:g} "
+            f"of the way from the background to the crown's upper level ({RECENTRE_PEAK:g} "
+            f"quantile) within the blob radius, {RECENTRE_ROUNDS} rounds, at most one blob "
+            "radius in all"
+        ),
     }

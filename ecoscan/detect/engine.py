@@ -99,7 +99,9 @@ def vegetation_layer(data: np.ndarray, index: str) -> np.ndarray:
     return np.asarray(data[0], np.float32)
 
 
-def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarray:
+def base_layer(
+    data: np.ndarray, roles: tuple[str, ...], name: str, band_blur_px: float = 0.0
+) -> np.ndarray:
     """One base layer from bands whose roles are known.
 
     Parameters
@@ -115,6 +117,9 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         :func:`ecoscan.detect.indices.green_red`), ``logchroma_r`` / ``logchroma_b``
         (log of red / blue over the geometric mean of red, green and blue:
         :func:`ecoscan.detect.chromaticity.log_chromaticity`).
+    band_blur_px : float, optional
+        Gaussian σ (pixels) by which the bands are smoothed before the log-chromaticities
+        (the other layers ignore it).
 
     Returns
     -------
@@ -145,17 +150,21 @@ def base_layer(data: np.ndarray, roles: tuple[str, ...], name: str) -> np.ndarra
         from ecoscan.detect.chromaticity import log_chromaticity
 
         rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
-        return log_chromaticity(*rgb)[0 if name == "logchroma_r" else 1]
+        return log_chromaticity(*rgb, band_blur_px)[0 if name == "logchroma_r" else 1]
     raise ValueError(f"unknown layer {name!r}")
 
 
 def compose_layer(
-    data: np.ndarray, roles: tuple[str, ...], terms: tuple[tuple[str, float], ...]
+    data: np.ndarray,
+    roles: tuple[str, ...],
+    terms: tuple[tuple[str, float], ...],
+    band_blur_px: float = 0.0,
 ) -> np.ndarray:
     """The detection layer: a weighted sum of base layers (see :func:`base_layer`).
 
     The weights are fixed once per raster (:mod:`ecoscan.detect.autotune`), so every tile
     computes the same layer. A calibrated detector can supply its own layer instead.
+    ``band_blur_px`` smooths the bands of the log-chromaticities (:func:`base_layer`).
 
     Examples
     --------
@@ -165,9 +174,9 @@ def compose_layer(
     -8.333333015441895
     """
     out: np.ndarray | None = None
-    made = _paired_layers(data, roles, [name for name, _w in terms])
+    made = _paired_layers(data, roles, [name for name, _w in terms], band_blur_px)
     for name, w in terms:
-        layer = made.pop(name) if name in made else base_layer(data, roles, name)
+        layer = made.pop(name) if name in made else base_layer(data, roles, name, band_blur_px)
         if w != 1.0:
             layer *= np.float32(w)
         if out is None:
@@ -180,7 +189,7 @@ def compose_layer(
 
 
 def _paired_layers(
-    data: np.ndarray, roles: tuple[str, ...], names: list[str]
+    data: np.ndarray, roles: tuple[str, ...], names: list[str], band_blur_px: float = 0.0
 ) -> dict[str, np.ndarray]:
     """Base layers that come out of one computation, made once when a layer uses both:
     the two log-chromaticities (:func:`ecoscan.detect.chromaticity.log_chromaticity`
@@ -191,7 +200,8 @@ def _paired_layers(
     from ecoscan.detect.chromaticity import log_chromaticity
 
     pos = {r: i for i, r in enumerate(roles)}
-    chi_r, chi_b = log_chromaticity(data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+    rgb = (data[pos["red"]], data[pos["green"]], data[pos["blue"]])
+    chi_r, chi_b = log_chromaticity(*rgb, band_blur_px)
     return {"logchroma_r": chi_r, "logchroma_b": chi_b}
 
 

@@ -129,6 +129,12 @@ class BlobPlan:
         Merged-pair parents whose centre value stands this share as high as their
         children's are one lobed crown and kept (:func:`ecoscan.detect.blobs.lobed_parents`);
         None: every merged pair is split.
+    band_blur_px : float
+        Gaussian σ (pixels) by which the bands are smoothed before log-chromaticities in
+        ``terms`` (:func:`ecoscan.detect.chromaticity.log_chromaticity`); 0 for none.
+    recentre : bool
+        Move each blob to the middle of its crown on the layer
+        (:func:`ecoscan.detect.chromaticity.recentre`); set with the log-chromaticity layer.
     """
 
     bands: tuple[int, ...]
@@ -150,6 +156,8 @@ class BlobPlan:
     strong: tuple[float, float] | None = None
     second: object = None
     lobe_share: float | None = None
+    band_blur_px: float = 0.0
+    recentre: bool = False
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -385,7 +393,7 @@ class ImageryDetector(Detector):
         elif plan.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
             layer = plan.layer_model(data)
         elif plan.terms:
-            layer = compose_layer(data, plan.roles, plan.terms)
+            layer = compose_layer(data, plan.roles, plan.terms, plan.band_blur_px)
         else:
             layer = vegetation_layer(data, plan.index)
         valid = window.valid
@@ -419,6 +427,11 @@ class ImageryDetector(Detector):
         col, row = found["col"], found["row"]
         if plan.shadow_dir is not None:  # crowns joined to their shadows (detect/shadows.py)
             col, row = _crown_ends(layer, col, row, found["sigma"], window.origin, plan)
+        if plan.recentre:  # log-chromaticity layer: points to the crowns' middles
+            from ecoscan.detect.chromaticity import recentre
+
+            radii = math.sqrt(2.0) * found["sigma"]
+            col, row = recentre(layer, col, row, radii, plan.fill_value, window.origin)
         if extra is not None:  # second-layer blobs, marked; kept or not in finish()
             columns = {
                 "sigma_px": np.concatenate([found["sigma"], extra["sigma"]]),

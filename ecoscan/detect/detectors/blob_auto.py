@@ -242,6 +242,8 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         strong=strong_test(choice),
         second=second,
         lobe_share=_lobe_share(choice, roles, settings),
+        band_blur_px=choice.band_blur_px,
+        recentre=choice.band_blur_px > 0,
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
@@ -266,6 +268,12 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         from ecoscan.detect.blobs import ring_reach_px
 
         overlap = max(overlap, ring_reach_px(scales))
+    if params.recentre:  # every point that lands in a core is recentred as in the whole
+        from ecoscan.detect.chromaticity import recentre_reach_px
+
+        overlap = max(overlap, scales.support_px + recentre_reach_px(dmax_px / 2.0))
+    if params.band_blur_px > 0:  # the bands' smoothing reaches beyond the filters
+        overlap += math.ceil(4.0 * params.band_blur_px) + 1
     return params, overlap, scales.align, th, notes
 
 
@@ -508,4 +516,8 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         from ecoscan.detect.chromaticity import valley_rule
 
         th.update(valley_rule())
+    if choice.band_blur_px > 0:  # the log-chromaticities of locally averaged bands
+        from ecoscan.detect.chromaticity import smoothing_rule
+
+        th.update(smoothing_rule(choice.band_blur_px))
     return th
