@@ -276,3 +276,19 @@ def test_lobed_crown_kept_whole_on_a_development_scene(tmp_path, monkeypatch):
     assert new.size
     d = np.hypot(new[:, None, 0] - truth[None, :, 0], new[:, None, 1] - truth[None, :, 1])
     assert np.all(d.min(axis=1) <= 0.5 * lo)
+
+
+def test_smoothed_at_equals_the_whole_image_filter():
+    # scipy.ndimage.gaussian_filter is the reference (general-purpose library); the
+    # pixels include the four corners, where the filter mirrors the image
+    from scipy import ndimage
+
+    from ecoscan.detect.pale_crowns import smoothed_at
+
+    rng = np.random.default_rng(3)
+    img = (rng.random((300, 260)) * 200).astype(np.float32)
+    rows = np.concatenate([[0, 0, 299, 299], rng.integers(0, 300, 3000)])
+    cols = np.concatenate([[0, 259, 0, 259], rng.integers(0, 260, 3000)])
+    for sigma in (1.0, 2.83, 5.5):
+        want = ndimage.gaussian_filter(img, sigma)[rows, cols]
+        assert np.array_equal(smoothed_at(img, rows, cols, sigma), want)

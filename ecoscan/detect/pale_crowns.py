@@ -236,18 +236,66 @@ def find_second(
         return found
     pos = {r: i for i, r in enumerate(roles)}
     bright = (data[pos["red"]] + data[pos["green"]] + data[pos["blue"]]) / np.float32(3.0)
-    # smoothed only around the blobs' pixels would save little: one filter per window
-    from scipy import ndimage
-
     sigma = float(scales.sigmas[1])
-    bright = ndimage.gaussian_filter(bright.astype(np.float32), sigma)
-    main = ndimage.gaussian_filter(np.asarray(main_layer, np.float32), sigma)
     h, w = bright.shape
     r = np.clip(np.rint(found["row"] - origin[1]).astype(int), 0, h - 1)
     c = np.clip(np.rint(found["col"] - origin[0]).astype(int), 0, w - 1)
-    keep = (bright[r, c] <= second.max_brightness) & (main[r, c] >= second.main_min_value)
+    bright_at = smoothed_at(bright.astype(np.float32), r, c, sigma)
+    main_at = smoothed_at(np.asarray(main_layer, np.float32), r, c, sigma)
+    keep = (bright_at <= second.max_brightness) & (main_at >= second.main_min_value)
     out = {k: v[keep] for k, v in found.items()}
     out["response"] = out["response"] * second.score_scale
+    return out
+
+
+def smoothed_at(
+    image: np.ndarray, rows: np.ndarray, cols: np.ndarray, sigma: float
+) -> np.ndarray:
+    """The Gaussian-smoothed image at some pixels only, the same floats as
+    ``scipy.ndimage.gaussian_filter(image, sigma)[rows, cols]``.
+
+    Each pixel's value depends only on the pixels within the filter's radius (its
+    ``truncate`` of 4 σ), so the filter is run on a stack of patches of that radius around
+    the wanted pixels, with the image mirrored at its edges as the filter's default
+    ``reflect`` mode does. A window holds a few hundred candidate crowns and about a
+    million pixels: this costs a fraction of one whole-window filter.
+
+    Parameters
+    ----------
+    image : numpy.ndarray
+        A 2-D float image.
+    rows, cols : numpy.ndarray of int
+        Pixel indices inside the image.
+    sigma : float
+        Gaussian σ in pixels.
+
+    Returns
+    -------
+    numpy.ndarray
+        One smoothed value per pixel, of the image's dtype.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from scipy import ndimage
+    >>> img = np.arange(100, dtype=np.float32).reshape(10, 10) ** 1.5
+    >>> rows, cols = np.array([0, 4, 9]), np.array([9, 5, 0])
+    >>> bool(np.array_equal(smoothed_at(img, rows, cols, 1.2),
+    ...                     ndimage.gaussian_filter(img, 1.2)[rows, cols]))
+    True
+    """
+    from numpy.lib.stride_tricks import sliding_window_view
+    from scipy import ndimage
+
+    radius = int(4.0 * float(sigma) + 0.5)
+    size = 2 * radius + 1
+    padded = np.pad(image, radius, mode="symmetric")  # ndimage's "reflect"
+    view = sliding_window_view(padded, (size, size))
+    out = np.empty(rows.size, image.dtype)
+    for start in range(0, rows.size, 2048):  # at most 2048 patches in memory at once
+        part = slice(start, start + 2048)
+        patches = view[rows[part], cols[part]]
+        out[part] = ndimage.gaussian_filter(patches, (0.0, sigma, sigma))[:, radius, radius]
     return out
 
 
