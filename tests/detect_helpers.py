@@ -116,3 +116,25 @@ def suite_scene_f1(style: str, size: int, seed: int, folder: Path):
     )
     m = match_points(res.points.xy, np.column_stack([sc.x_m, sc.y_m]), 0.5 * lo)
     return 2 * m.n_matched / (res.n + sc.n), res
+
+
+def layer_choice(name, terms, raise_by=1.0, closed=False):
+    """A layer choice with fixed, plausible figures, to test the rules that read it."""
+    import math
+
+    from ecoscan.detect.autotune import LayerChoice
+
+    return LayerChoice(
+        name=name,
+        terms=terms,
+        background=0.01,
+        spread=0.02,
+        min_response=(1.0,),
+        min_contrast=1.0,
+        min_value=-math.inf if closed else 0.03,
+        separation=5.0,
+        near_share=0.0,
+        candidates=20,
+        closed=closed,
+        threshold_raise=raise_by,
+    )

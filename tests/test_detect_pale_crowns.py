@@ -10,10 +10,11 @@ from dataclasses import replace
 
 import numpy as np
 import rasterio
+from detect_helpers import layer_choice
 from rasterio.transform import from_origin
 
 from ecoscan.detect import DetectionSettings, blobs, detect_raster, pale_crowns
-from ecoscan.detect.autotune import LayerChoice, SampleWindow, choose_layer
+from ecoscan.detect.autotune import SampleWindow, choose_layer
 from ecoscan.detect.blobs import blob_scales
 from ecoscan.detect.engine import compose_layer
 from ecoscan.detect.indices import excess_green, green_red
@@ -193,36 +194,19 @@ def test_added_points_clear_of_main_crowns_and_pruned():
     ]
 
 
-def _choice(name, terms, raise_by=1.0, closed=False):
-    return LayerChoice(
-        name=name,
-        terms=terms,
-        background=0.01,
-        spread=0.02,
-        min_response=(1.0,),
-        min_contrast=1.0,
-        min_value=-math.inf if closed else 0.03,
-        separation=5.0,
-        near_share=0.0,
-        candidates=20,
-        closed=closed,
-        threshold_raise=raise_by,
-    )
-
-
 def test_second_layer_off_where_it_does_not_belong():
     rgb = ("red", "green", "blue")
     # rough ground (threshold raised), closed canopy, darkness, NDVI, log-chromaticity
     # layers and near-infrared bands: nothing is scored (no windows are given, so scoring
     # would fail) and no second layer is used
-    assert second_layer(_choice("exg", (("exg", 1.0),), raise_by=1.7), [], rgb, None) is None
-    assert second_layer(_choice("exg", (("exg", 1.0),), closed=True), [], rgb, None) is None
-    assert second_layer(_choice("darkness", (("darkness", 1.0),)), [], rgb, None) is None
+    assert second_layer(layer_choice("exg", (("exg", 1.0),), raise_by=1.7), [], rgb, None) is None
+    assert second_layer(layer_choice("exg", (("exg", 1.0),), closed=True), [], rgb, None) is None
+    assert second_layer(layer_choice("darkness", (("darkness", 1.0),)), [], rgb, None) is None
     # Excess Green with darkness (the tuning scenes' grass patches came in there)
-    both = _choice("exg+darkness", (("exg", 2.0), ("darkness", 0.1)))
+    both = layer_choice("exg+darkness", (("exg", 2.0), ("darkness", 0.1)))
     assert second_layer(both, [], rgb, None) is None
-    assert second_layer(_choice("ndvi", (("ndvi", 1.0),)), [], (*rgb, "nir"), None) is None
-    chroma = _choice("chroma", (("logchroma_r", 1.0), ("logchroma_b", -0.5)))
+    assert second_layer(layer_choice("ndvi", (("ndvi", 1.0),)), [], (*rgb, "nir"), None) is None
+    chroma = layer_choice("chroma", (("logchroma_r", 1.0), ("logchroma_b", -0.5)))
     assert second_layer(chroma, [], rgb, None) is None
 
 

@@ -12,10 +12,11 @@ import math
 
 import numpy as np
 import pytest
+from detect_helpers import layer_choice
 from scipy import ndimage
 
 from ecoscan.detect import DetectionSettings, autotune, detect_raster, pale_crowns
-from ecoscan.detect.autotune import LayerChoice, strong_test
+from ecoscan.detect.autotune import strong_test
 from ecoscan.detect.blobs import DISC_RESPONSE, blob_scales, detect_blobs
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import make_scene, write_scene
@@ -74,33 +75,17 @@ def test_strong_blobs_keep_clear_crowns_below_the_centre_value():
         assert np.any((strong["row"] == r) & (strong["col"] == c) & (strong["sigma"] == s))
 
 
-def _choice(name, terms, raise_by=1.0, closed=False):
-    return LayerChoice(
-        name=name,
-        terms=terms,
-        background=0.01,
-        spread=0.02,
-        min_response=(1.0,),
-        min_contrast=1.0,
-        min_value=-math.inf if closed else 0.03,
-        separation=5.0,
-        near_share=0.0,
-        candidates=20,
-        closed=closed,
-        threshold_raise=raise_by,
-    )
-
-
 def test_strong_rule_only_on_smooth_ground_and_vegetation_indices():
-    assert strong_test(_choice("exg", (("exg", 1.0),))) == (0.01, autotune.STRONG_RATIO)
-    assert strong_test(_choice("exg+darkness", (("exg", 2.0), ("darkness", 0.1)))) is not None
+    assert strong_test(layer_choice("exg", (("exg", 1.0),))) == (0.01, autotune.STRONG_RATIO)
+    assert strong_test(layer_choice("exg+darkness", (("exg", 2.0), ("darkness", 0.1)))) is not None
     # rough ground (threshold raised: the ring test is on), NDVI, the log-chromaticity and
     # darkness layers (no index value for a pale crown to fall short of) and closed canopy
-    assert strong_test(_choice("exg", (("exg", 1.0),), raise_by=1.7)) is None
-    assert strong_test(_choice("chroma", (("logchroma_r", 1.0), ("logchroma_b", -0.5)))) is None
-    assert strong_test(_choice("darkness", (("darkness", 1.0),))) is None
-    assert strong_test(_choice("ndvi", (("ndvi", 1.0),))) is None
-    assert strong_test(_choice("exg", (("exg", 1.0),), closed=True)) is None
+    assert strong_test(layer_choice("exg", (("exg", 1.0),), raise_by=1.7)) is None
+    chroma = layer_choice("chroma", (("logchroma_r", 1.0), ("logchroma_b", -0.5)))
+    assert strong_test(chroma) is None
+    assert strong_test(layer_choice("darkness", (("darkness", 1.0),))) is None
+    assert strong_test(layer_choice("ndvi", (("ndvi", 1.0),))) is None
+    assert strong_test(layer_choice("exg", (("exg", 1.0),), closed=True)) is None
 
 
 def test_dry_shrubs_find_more_pale_crowns_and_tiles_stay_exact(tmp_path, monkeypatch):
