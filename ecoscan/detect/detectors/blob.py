@@ -510,12 +510,15 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
         added.columns["score"],
     )
     n = int(keep.sum())
+    if n == 0:
+        return points, (
+            "the green-red index (GRVI) was searched for pale or grey crowns that Excess "
+            "Green missed: none found clear of the Excess Green crowns and their shadows"
+        )
     note = (
         f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed none "
         "(pale or grey crowns; their index_value is GRVI)"
     )
-    if n == 0:
-        return points, note
     return TilePoints.concat([points, added.take(keep)]), note
 
 
