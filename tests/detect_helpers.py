@@ -138,3 +138,33 @@ def layer_choice(name, terms, raise_by=1.0, closed=False):
         closed=closed,
         threshold_raise=raise_by,
     )
+
+
+def sample_windows(style="dry-shrubs", size=320, seed=0, zero_nodata=False):
+    """Four sample windows of a suite scene (seed 0 is a development seed), each read
+    with a 40-pixel margin around its core (the outer ones touch the scene's edges), the
+    last with a 30-pixel nodata corner (its pixels set to 0 with ``zero_nodata``); and the
+    blob scales of the scene's diameter range."""
+    from ecoscan.detect.autotune import SampleWindow
+    from ecoscan.detect.blobs import blob_scales
+    from ecoscan.synthetic import make_scene
+
+    sc = make_scene(style, size, seed)
+    img = np.asarray(sc.image, np.float32)[:3]
+    half, m = size // 2, 40
+    wins = []
+    for r0 in (0, half):
+        for c0 in (0, half):
+            rs = slice(max(0, r0 - m), min(size, r0 + half + m))
+            cs = slice(max(0, c0 - m), min(size, c0 + half + m))
+            data = img[:, rs, cs].copy()
+            core = (
+                slice(r0 - rs.start, r0 - rs.start + half),
+                slice(c0 - cs.start, c0 - cs.start + half),
+            )
+            wins.append(SampleWindow(data, np.ones(data.shape[1:], bool), core))
+    wins[3].valid[-30:, -30:] = False
+    if zero_nodata:
+        wins[3].data[:, -30:, -30:] = 0.0
+    lo, hi = sc.diameter_range_m
+    return wins, blob_scales(lo / sc.pixel_size_m / 2, hi / sc.pixel_size_m / 2)

@@ -18,10 +18,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from detect_helpers import sample_windows
 
 from ecoscan.detect import autotune, engine
-from ecoscan.detect.autotune import SampleWindow, begin_layer_choice, choose_layer
-from ecoscan.detect.blobs import blob_scales
+from ecoscan.detect.autotune import begin_layer_choice, choose_layer
 from ecoscan.detect.shared_arrays import PREFIX
 from ecoscan.detect.tiling import EarlyPool, WorkShare
 from ecoscan.synthetic import make_scene
@@ -90,23 +90,7 @@ def test_work_left_without_asking_for_results_is_abandoned_cleanly():
 
 def _windows(style: str = "dry-shrubs", size: int = 320, seed: int = 0):
     """Four windows with margins of a suite scene (development seed), one with nodata."""
-    sc = make_scene(style, size, seed)
-    img = np.asarray(sc.image, np.float32)[:3]
-    half, m = size // 2, 40
-    wins = []
-    for r0 in (0, half):
-        for c0 in (0, half):
-            rs = slice(max(0, r0 - m), min(size, r0 + half + m))
-            cs = slice(max(0, c0 - m), min(size, c0 + half + m))
-            data = img[:, rs, cs].copy()
-            core = (
-                slice(r0 - rs.start, r0 - rs.start + half),
-                slice(c0 - cs.start, c0 - cs.start + half),
-            )
-            wins.append(SampleWindow(data, np.ones(data.shape[1:], bool), core))
-    wins[3].valid[-30:, -30:] = False
-    lo, hi = sc.diameter_range_m
-    return wins, blob_scales(lo / sc.pixel_size_m / 2, hi / sc.pixel_size_m / 2)
+    return sample_windows(style, size, seed)
 
 
 @pytest.fixture(scope="module")

@@ -13,34 +13,16 @@ import dataclasses
 
 import numpy as np
 import pytest
+from detect_helpers import sample_windows
 
 from ecoscan.detect import autotune
-from ecoscan.detect.autotune import SampleWindow, choose_layer
+from ecoscan.detect.autotune import choose_layer
 from ecoscan.detect.blobs import blob_pyramid, blob_scales, level_masks, pyramid_spread
-from ecoscan.synthetic import make_scene
 
 
 def _windows(size: int = 480):
-    """Four windows of a dry-shrub suite scene, each read with a margin around its core
-    (the outer ones touch the scene's edges), one with a nodata corner."""
-    sc = make_scene("dry-shrubs", size, 0)
-    img = np.asarray(sc.image, np.float32)[:3]
-    half, m = size // 2, 40
-    wins = []
-    for r0 in (0, half):
-        for c0 in (0, half):
-            rs = slice(max(0, r0 - m), min(size, r0 + half + m))
-            cs = slice(max(0, c0 - m), min(size, c0 + half + m))
-            data = img[:, rs, cs].copy()
-            core = (
-                slice(r0 - rs.start, r0 - rs.start + half),
-                slice(c0 - cs.start, c0 - cs.start + half),
-            )
-            wins.append(SampleWindow(data, np.ones(data.shape[1:], bool), core))
-    wins[3].valid[-30:, -30:] = False
-    wins[3].data[:, -30:, -30:] = 0.0
-    lo, hi = sc.diameter_range_m
-    return wins, blob_scales(lo / sc.pixel_size_m / 2, hi / sc.pixel_size_m / 2)
+    """Four windows of a dry-shrub suite scene, one with a zeroed nodata corner."""
+    return sample_windows(size=size, zero_nodata=True)
 
 
 @pytest.fixture(scope="module")

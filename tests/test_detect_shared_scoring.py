@@ -14,11 +14,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from detect_helpers import sample_windows
 from test_function_length import long_functions
 
 from ecoscan.detect import autotune
-from ecoscan.detect.autotune import SampleWindow, choose_layer
-from ecoscan.detect.blobs import blob_scales
+from ecoscan.detect.autotune import choose_layer
 from ecoscan.detect.tiling import EarlyPool, share_work
 from ecoscan.synthetic import make_scene
 
@@ -26,32 +26,9 @@ ROOT = Path(__file__).resolve().parents[1]
 
 
 def _windows(size: int = 320):
-    """Four windows of a dry-shrub suite scene (seed 0, a development seed), each read with
-    a margin around its core; the outer ones touch the scene's edges (the edge pyramids of
-    the window statistics are then in use), and one has a nodata corner."""
-    sc = make_scene("dry-shrubs", size, 0)
-    img = np.asarray(sc.image, np.float32)[:3]
-    half, m = size // 2, 40
-    wins = []
-    for r0 in (0, half):
-        for c0 in (0, half):
-            rs, cs = (
-                slice(max(0, r0 - m), min(size, r0 + half + m)),
-                slice(max(0, c0 - m), min(size, c0 + half + m)),
-            )
-            data = img[:, rs, cs].copy()
-            valid = np.ones(data.shape[1:], bool)
-            core = (
-                slice(r0 - rs.start, r0 - rs.start + half),
-                slice(c0 - cs.start, c0 - cs.start + half),
-            )
-            wins.append(SampleWindow(data, valid, core))
-    corner = wins[3]
-    corner.valid[-30:, -30:] = False
-    corner.data[:, -30:, -30:] = 0.0
-    lo, hi = sc.diameter_range_m
-    ps = sc.pixel_size_m
-    return wins, blob_scales(lo / ps / 2, hi / ps / 2)
+    """Four windows of a dry-shrub suite scene; the outer ones touch the scene's edges (the
+    edge pyramids of the window statistics are then in use), one has a zeroed nodata corner."""
+    return sample_windows(size=size, zero_nodata=True)
 
 
 @pytest.fixture(scope="module")
