@@ -54,13 +54,7 @@ def ndvi(red: np.ndarray, nir: np.ndarray) -> np.ndarray:
     numpy.ndarray
         float32 NDVI in [−1, 1]; 0 where NIR + Red = 0.
     """
-    r = np.asarray(red, np.float32)
-    n = np.asarray(nir, np.float32)
-    s = n + r
-    with np.errstate(invalid="ignore", divide="ignore"):
-        out = (n - r) / s
-    out[~(s != 0)] = 0.0
-    return out.astype(np.float32, copy=False)
+    return _normalised_difference(nir, red)
 
 
 def green_red(red: np.ndarray, green: np.ndarray) -> np.ndarray:
@@ -89,11 +83,16 @@ def green_red(red: np.ndarray, green: np.ndarray) -> np.ndarray:
     >>> round(float(green_red(np.array([150.0]), np.array([116.0]))[0]), 4)  # reddish soil
     -0.1278
     """
-    r = np.asarray(red, np.float32)
-    g = np.asarray(green, np.float32)
-    s = g + r
+    return _normalised_difference(green, red)
+
+
+def _normalised_difference(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """(a − b) / (a + b) in float32; 0 where a + b = 0 (NDVI, GRVI)."""
+    a = np.asarray(a, np.float32)
+    b = np.asarray(b, np.float32)
+    s = a + b
     with np.errstate(invalid="ignore", divide="ignore"):
-        out = (g - r) / s
+        out = (a - b) / s
     out[~(s != 0)] = 0.0
     return out.astype(np.float32, copy=False)
 
