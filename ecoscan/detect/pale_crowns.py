@@ -22,7 +22,10 @@ only where
    soil patch of a less red tint is not.
 
 GRVI blobs left after these tests are pruned among themselves like Excess Green blobs and
-added to the points. The layer is used only where the main layer is Excess Green alone
+added to the points. Before that, a GRVI blob that holds only smaller Excess Green points
+stands for the whole crown and replaces them (:func:`whole_crowns`): big dry and grey
+crowns are green only in their lobes and leaf clumps, which Excess Green finds off the
+crown's centre. The layer is used only where the main layer is Excess Green alone
 (with a darkness term it added pale grass patches on the tuning scenes ``grass``) on
 smooth ground (no threshold raise) and not a closed canopy, and only when GRVI itself
 separates on smooth ground (its own threshold not raised, at least ten candidates in the
@@ -52,6 +55,7 @@ __all__ = [
     "find_second",
     "plain_excess_green",
     "second_layer",
+    "whole_crowns",
 ]
 
 #: Base layer of the second evidence layer (:func:`ecoscan.detect.engine.base_layer`).
@@ -61,6 +65,12 @@ LAYER = "grvi"
 #: the suite's development seeds 0, 7, 11 (2.0, 2.5 and 3.0 tried) and checked on the
 #: tuning scenes (docs/detection.md, "Grey crowns: a second evidence layer").
 CLEAR_RADII = 2.0
+#: A GRVI blob replaces the Excess Green points inside its radius when each of them is at
+#: most this share of its radius (they are lobes of the crown it covers, not crowns of
+#: their own) and none scores higher (:func:`whole_crowns`). Chosen on suite seeds 0, 7,
+#: 11 and 500-520 of dry shrubs (0.6, 0.7 and 0.8 tried) and checked on the tuning scenes
+#: (docs/detection.md, "Big dry crowns from the second layer (dry11)").
+WHOLE_SHARE = 0.7
 #: A GRVI blob must be at most this many times as bright as the median sampled pixel.
 MAX_BRIGHTNESS = 1.0
 #: The main (Excess Green) layer at a GRVI blob's centre, smoothed at the smallest searched
@@ -297,6 +307,79 @@ def smoothed_at(
         patches = view[rows[part], cols[part]]
         out[part] = ndimage.gaussian_filter(patches, (0.0, sigma, sigma))[:, radius, radius]
     return out
+
+
+def whole_crowns(
+    main_x: np.ndarray,
+    main_y: np.ndarray,
+    main_radius: np.ndarray,
+    main_score: np.ndarray,
+    x: np.ndarray,
+    y: np.ndarray,
+    radius: np.ndarray,
+    score: np.ndarray,
+    share: float | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Second-layer blobs that stand for a whole crown whose main-layer points are lobes.
+
+    A big dry or grey crown is green only in a few lobes or leaf clumps; Excess Green finds
+    those, each a small blob 0.4-0.8 crown radii from the centre (beyond the matching
+    tolerance), while the green-red index sees the crown whole, one blob at its centre.
+    Such a blob is then dropped by :func:`added_points` (main points lie inside it). Here a
+    second-layer blob takes over when at least one main point lies within its radius, every
+    such point has at most ``share`` of its radius (a part, not a crown of the blob's own
+    size or bigger) and none scores higher; those main points are dropped. Blobs are taken
+    strongest first (ties by position); a main point is replaced at most once. A cast
+    shadow holds no Excess Green point and a green crown's own blob is not smaller than its
+    GRVI blob, so neither takes over.
+
+    Parameters
+    ----------
+    main_x, main_y, main_radius, main_score : numpy.ndarray
+        The main layer's crowns (any consistent unit; scores on one scale with ``score``).
+    x, y, radius, score : numpy.ndarray
+        The second layer's blobs.
+    share : float, optional
+        Largest main-point radius, as a share of the blob's radius (default
+        :data:`WHOLE_SHARE`; 0 turns the rule off).
+
+    Returns
+    -------
+    (numpy.ndarray of bool, numpy.ndarray of bool)
+        Main points replaced, and second-layer blobs that replace them.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lobes = (np.array([-6.0, 6.0, 40.0]), np.zeros(3), np.array([4.0, 4.0, 4.0]),
+    ...          np.array([1.0, 1.0, 1.0]))
+    >>> drop, take = whole_crowns(*lobes, np.array([0.0, 40.0]), np.zeros(2),
+    ...                           np.array([10.0, 5.0]), np.array([2.0, 2.0]))
+    >>> drop.tolist(), take.tolist()
+    ([True, True, False], [True, False])
+    """
+    from scipy.spatial import cKDTree
+
+    if share is None:
+        share = WHOLE_SHARE
+    drop = np.zeros(main_x.size, dtype=bool)
+    take = np.zeros(x.size, dtype=bool)
+    if x.size == 0 or main_x.size == 0 or share <= 0:
+        return drop, take
+    tree = cKDTree(np.column_stack([main_x, main_y]))
+    order = np.lexsort((x, y, -score))
+    for k in order:
+        near = tree.query_ball_point((x[k], y[k]), float(radius[k]))
+        if not near:
+            continue
+        j = np.asarray(near)
+        j = j[np.hypot(main_x[j] - x[k], main_y[j] - y[k]) < radius[k]]
+        if j.size == 0 or drop[j].any():
+            continue
+        if np.all(main_radius[j] <= share * radius[k]) and score[k] >= main_score[j].max():
+            drop[j] = True
+            take[k] = True
+    return drop, take
 
 
 def added_points(

@@ -497,9 +497,24 @@ class ImageryDetector(Detector):
 
 def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str]:
     """The main layer's crowns plus the second layer's blobs clear of them (one note)."""
-    from ecoscan.detect.pale_crowns import added_points
+    from ecoscan.detect.pale_crowns import added_points, whole_crowns
 
     root2 = math.sqrt(2.0)
+    # big dry crowns whose Excess Green points are lobes: the GRVI blob replaces them
+    drop, take = whole_crowns(
+        points.col,
+        points.row,
+        root2 * points.columns["sigma_px"],
+        points.columns["score"],
+        added.col,
+        added.row,
+        root2 * added.columns["sigma_px"],
+        added.columns["score"],
+    )
+    n_whole = int(take.sum())
+    if n_whole:
+        points = TilePoints.concat([points.take(~drop), added.take(take)])
+        added = added.take(~take)
     keep = added_points(
         points.col,
         points.row,
@@ -510,14 +525,21 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
         added.columns["score"],
     )
     n = int(keep.sum())
+    whole = (
+        f"; {n_whole} big crown(s) whose Excess Green points were only lobes placed at the "
+        "GRVI blob instead"
+        if n_whole
+        else ""
+    )
     if n == 0:
         return points, (
             "the green-red index (GRVI) was searched for pale or grey crowns that Excess "
             "Green missed: none found clear of the Excess Green crowns and their shadows"
+            + whole
         )
     note = (
         f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed none "
-        "(pale or grey crowns; their index_value is GRVI)"
+        "(pale or grey crowns; their index_value is GRVI)" + whole
     )
     return TilePoints.concat([points, added.take(keep)]), note
 
