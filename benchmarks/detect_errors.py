@@ -112,6 +112,7 @@ def classify(
     def group(i: int) -> str:
         size = ("small", "mid", "large")[int(np.searchsorted(edges, truth_d[i]))]
         return size + ("" if kind is None else f" {kind[i]}")
+
     # raw candidates of the chosen layer, all thresholds off
     cand = None
     if data is not None:

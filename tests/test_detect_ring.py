@@ -113,3 +113,44 @@ def test_smooth_ground_keeps_the_ring_test_off(tmp_path):
     res = detect_raster(paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi))
     assert res.thresholds["threshold_raise"] == 1.0
     assert res.thresholds["ring_mads"] is None
+
+
+def test_no_gap_in_the_responses_turns_the_ring_test_on():
+    # weak candidates spread evenly from just below the threshold to four times it, with
+    # the plants from 3.5 times up: no factor up to MAX_RAISE leaves the threshold in a
+    # gap, the least crowded factor is the base threshold, and the ground counts as rough
+    from dataclasses import replace
+
+    from ecoscan.detect import autotune
+    from tests.detect_helpers import layer_choice
+
+    ratio = np.r_[np.geomspace(0.8, 4.0, 40), np.geomspace(3.5, 40.0, 80)]
+    factor, share = autotune.threshold_raise(ratio, np.ones(ratio.size, bool))
+    assert factor == 1.0 and share > autotune.GAP_SHARE
+    c = layer_choice("exg", (("exg", 1.0),))
+    assert autotune.ring_test(replace(c, near_share=share)) == autotune.RING_MADS
+    assert autotune.ring_test(replace(c, near_share=0.0)) is None  # smooth ground
+    assert autotune.ring_test(replace(c, threshold_raise=1.5, near_share=0.0)) is not None
+
+
+def test_ring_test_without_a_gap_removes_ground_points_on_a_diagnosis_seed(tmp_path, monkeypatch):
+    # suite seed 507 of JPEG with vignetting (a diagnosis seed, dry11; not held out): no
+    # factor finds a gap, so the threshold stays at its base and 27 weak blobs on grass
+    # and compression blocks pass; the ring test removes most of them and no plant
+    from ecoscan.detect import autotune
+
+    sc = make_scene("jpeg-vignette", 512, 507)
+    paths = write_scene(sc, tmp_path)
+    lo, hi = sc.diameter_range_m
+    st = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi)
+    on = detect_raster(paths.raster, st)
+    assert on.thresholds["threshold_raise"] == 1.0 and on.thresholds["ring_mads"] == 1.0
+    assert any("no gap to raise the threshold into" in str(n) for n in on.notes)
+    monkeypatch.setattr(autotune, "ring_test", lambda c: None)
+    off = detect_raster(paths.raster, st)
+    truth = np.column_stack([sc.x_m, sc.y_m])
+    m_on = match_points(on.points.xy, truth, 0.5 * lo)
+    m_off = match_points(off.points.xy, truth, 0.5 * lo)
+    assert m_on.n_matched == m_off.n_matched  # no plant lost
+    assert off.n - on.n >= 10  # false points removed
+    assert 2 * m_on.n_matched / (on.n + sc.n) > 2 * m_off.n_matched / (off.n + sc.n) + 0.05

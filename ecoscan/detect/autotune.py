@@ -350,15 +350,25 @@ def clipped_centre_scale(values: np.ndarray, k: float = 3.0, rounds: int = 5):
 
 
 def ring_test(choice: LayerChoice) -> float | None:
-    """``RING_MADS`` when the layer's threshold was raised (rough ground), else None.
+    """``RING_MADS`` on rough ground, else None.
+
+    The ground is rough when the layer's threshold was raised into a gap of the
+    candidates' responses, or when no factor up to ``MAX_RAISE`` found a gap and the least
+    crowded one was the base threshold (``near_share`` above ``GAP_SHARE`` with no raise):
+    weak candidates of grass patches or compression blocks spread over a wide range of
+    responses, up to the weakest crowns' (JPEG-vignette suite seed 507, dry11).
 
     Examples
     --------
     >>> c = LayerChoice("exg", (("exg", 1.0),), 0.0, 1.0, (1.0,), 1.0, 1.0, 5.0, 0.0, 20)
     >>> ring_test(c) is None
     True
+    >>> from dataclasses import replace
+    >>> ring_test(replace(c, near_share=GAP_SHARE + 0.01)) == RING_MADS
+    True
     """
-    return RING_MADS if choice.threshold_raise > 1.0 else None
+    rough = choice.threshold_raise > 1.0 or choice.near_share > GAP_SHARE
+    return RING_MADS if rough else None
 
 
 def strong_test(choice: LayerChoice) -> tuple[float, float] | None:

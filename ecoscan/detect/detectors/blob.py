@@ -534,8 +534,7 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
     if n == 0:
         return points, (
             "the green-red index (GRVI) was searched for pale or grey crowns that Excess "
-            "Green missed: none found clear of the Excess Green crowns and their shadows"
-            + whole
+            "Green missed: none found clear of the Excess Green crowns and their shadows" + whole
         )
     note = (
         f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed none "

@@ -394,6 +394,8 @@ def _takeover_note(choice) -> str:
 
 def _describe_choice(choice, notes: list) -> None:
     """Notes on the layer and thresholds chosen from the image."""
+    from ecoscan.detect.autotune import ring_test
+
     tried = ", ".join(f"{k} {v:.2f}" for k, v in choice.scores.items())
     notes.append(
         f"detection layer: {LAYER_LABELS.get(choice.name, choice.name)}, chosen from the image "
@@ -411,6 +413,12 @@ def _describe_choice(choice, notes: list) -> None:
             f"response threshold raised {choice.threshold_raise:.2f}x above the background "
             "noise level: many weak candidates (rough ground, compression blocks or noise) "
             "sat just above it; each plant must also stand out from its own ring of ground"
+        )
+    elif ring_test(choice) is not None:  # rough ground without a gap to raise into (dry11)
+        notes.append(
+            "weak candidates (rough ground, compression blocks or noise) spread over a wide "
+            "range of responses, with no gap to raise the threshold into; each plant must "
+            "also stand out from its own ring of ground"
         )
     if choice.crowded_threshold:
         notes.append(
@@ -487,7 +495,8 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         "vegetation_threshold_from": f"background median + {VALUE_MADS:g} x robust SD",
         "ring_mads": ring_test(choice),
         "ring_mads_from": (
-            "on rough ground (threshold raised): the layer smoothed at the blob's scale must "
+            "on rough ground (threshold raised, or no gap to raise it into): the layer "
+            "smoothed at the blob's scale must "
             f"exceed the median of the same over a ring {RING[0]:g}-{RING[1]:g} blob radii "
             "out by this many robust SDs (1.4826 MAD) of the ring; none (null) on smooth "
             "ground"
