@@ -69,7 +69,7 @@ CLEAR_RADII = 2.0
 #: most this share of its radius (they are lobes of the crown it covers, not crowns of
 #: their own) and none scores higher (:func:`whole_crowns`). Chosen on suite seeds 0, 7,
 #: 11 and 500-520 of dry shrubs (0.6, 0.7 and 0.8 tried) and checked on the tuning scenes
-#: (docs/detection.md, "Big dry crowns from the second layer (dry11)").
+#: (docs/detection.md, "Big dry crowns placed whole (dry11)").
 WHOLE_SHARE = 0.7
 #: A GRVI blob must be at most this many times as bright as the median sampled pixel.
 MAX_BRIGHTNESS = 1.0
