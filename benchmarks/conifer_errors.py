@@ -176,6 +176,18 @@ def apply_variant(name: str) -> None:
 
         autotune._shadow_free_valley = forced
         return
+    if name == "noring":
+        from ecoscan.detect import autotune
+        from ecoscan.detect.detectors import blob_auto
+
+        orig_ring = autotune.ring_test
+
+        def ring(choice):
+            return None if choice.name == autotune.INVARIANT else orig_ring(choice)
+
+        autotune.ring_test = ring
+        blob_auto.ring_test = ring
+        return
     if name.startswith("cap"):
         chromaticity.VALLEY_MAX = float(name[3:])
         return

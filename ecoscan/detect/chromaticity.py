@@ -430,8 +430,9 @@ def valley_rule() -> dict[str, str]:
     return {
         "layer_chosen_by": (
             "log-chromaticity layer: won the separation contest by the required margin, or "
-            "the classic layers' best choice was unusable (too few candidates, or blobs "
-            "joined to cast shadows) and it kept enough candidates"
+            "the classic layers' best choice was unusable (too few candidates, or few against "
+            "the classic layer that kept most, or blobs joined to cast shadows) and it kept "
+            "enough candidates"
         ),
         "min_contrast_from": (
             "robust SD (1.4826 MAD) of the blob response over background pixels per scale, "
