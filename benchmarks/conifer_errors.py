@@ -176,6 +176,17 @@ def apply_variant(name: str) -> None:
 
         autotune._shadow_free_valley = forced
         return
+    if name.startswith("ring"):
+        from ecoscan.detect import autotune
+
+        orig_r = autotune.ring_test
+        level = float(name[4:])
+
+        def ring_k(choice):
+            return level if choice.name == autotune.INVARIANT else orig_r(choice)
+
+        autotune.ring_test = ring_k
+        return
     if name == "noring":
         from ecoscan.detect import autotune
         from ecoscan.detect.detectors import blob_auto
