@@ -140,6 +140,15 @@ SHADOW_FREE_MARGIN = 2.0
 #: 0.28 on ``conifers`` 103 (F1 0.80 -> 0.33 if taken over), so 0.25 became 0.32, about
 #: the geometric mean of 0.28 and 0.37 (docs/detection.md, "Conifer pasture, fifth round").
 SHADOW_FREE_SHARE = 0.32
+#: The classic layers' best choice also counts as unusable when it keeps fewer than this
+#: share of the candidates of the classic layer that kept most: it sees only a few of the
+#: plants that another layer sees (since 5 December 2026, conifer11). On the suite's
+#: conifer-pasture diagnosis seed 308, Excess Green won with 25 candidates against 270
+#: for darkness (0.09; F1 0.58, its points off the crowns' middles); working scenes keep
+#: at least 0.41 (rocky shrubland, darkness counting the rocks), most 0.65-1.0 (tuning
+#: scenes and the suite's development seeds; docs/detection.md, "Conifer pasture, sixth
+#: round"). 0.2 is about the geometric mean of 0.09 and 0.41.
+FEW_SHARE = 0.2
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 
 
@@ -1404,7 +1413,8 @@ def _shadow_free_valley(
 
     Where that layer won the separation contest, and where the classic layers' best choice
     is unusable: fewer than ``MIN_CANDIDATES`` kept (the detector would fall back to Otsu's
-    split) or blobs stretched along one axis (crowns joined to their cast shadows,
+    split) or fewer than ``FEW_SHARE`` of the classic layer that kept most, or blobs
+    stretched along one axis (crowns joined to their cast shadows,
     :func:`ecoscan.detect.elongation.is_aligned`). Unless the valley on the layer of single
     pixels is clean (at most ``GAP_SHARE`` of the kept candidates within a factor ``NEAR``
     of the threshold, as in :func:`threshold_raise`), the layer is then made of the bands
@@ -1423,7 +1433,12 @@ def _shadow_free_valley(
     from ecoscan.detect.elongation import is_aligned
 
     won = label in SHADOW_FREE
-    if not won and res["candidates"] >= MIN_CANDIDATES and not is_aligned(elong):
+    most_classic = max(
+        (r["candidates"] for j, r in zip(jobs, results, strict=True) if j.label not in SHADOW_FREE),
+        default=0,
+    )
+    few = res["candidates"] < max(MIN_CANDIDATES, FEW_SHARE * most_classic)
+    if not won and not few and not is_aligned(elong):
         return None
     found = [(j, r) for j, r in zip(jobs, results, strict=True) if j.label in SHADOW_FREE]
     if not found or found[0][1]["closed"]:

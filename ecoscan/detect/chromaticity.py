@@ -88,9 +88,18 @@ TAIL = 0.05
 TAIL_SIDE = 0.02
 #: Fewest candidates above the noise threshold for a valley threshold between them.
 VALLEY_MIN = 20
-#: Largest factor a valley threshold may put on the noise threshold (the same bound as
-#: ``ecoscan.detect.autotune.MAX_RAISE``).
-VALLEY_MAX = 6.0
+#: The valley factor has no fixed upper bound (since 5 December 2026, conifer11; it was 6,
+#: the same bound as ``ecoscan.detect.autotune.MAX_RAISE``). The factor multiplies the
+#: floored noise spread, and smoothing the bands (``BAND_BLUR``) shrinks that spread far
+#: more on some scenes than on others: 0.022-0.034 at the smallest scale on the suite's
+#: development seeds of conifer pasture, where the valley lay at 1.6-4.7 times it, but
+#: 0.0034-0.0050 on the diagnosis seeds 300-320, where it lay at 7.5-14 times it and a
+#: bound of 6 kept the shadow edges and crown rims of the ground group (precision
+#: 0.75-0.89). Otsu's split of the candidates' log responses is already in the
+#: candidates' own units; what bounds it is that the detection must keep at least
+#: ``MIN_CANDIDATES`` and a share of the classic layer's count (``autotune``), else the
+#: valley rule is not used.
+VALLEY_MAX = math.inf
 
 
 def band_blur_px(sigma_min_px: float) -> float:
@@ -343,8 +352,10 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     which for two overlapping modes of equal weight and spread lies halfway between them,
     and for two groups with a clean gap in the gap's middle). On the log scale,
     responses that differ by a factor are equally far apart whatever the layer's units.
-    The factor is ``exp`` of the split, at least 1 and at most ``VALLEY_MAX``; 1 with
-    fewer than ``VALLEY_MIN`` candidates.
+    The factor is ``exp`` of the split, at least 1 and not bounded above (``VALLEY_MAX``:
+    a fixed bound on a noise floor that smoothing shrinks cut into the ground group,
+    docs/detection.md, "Conifer pasture, sixth round"); 1 with fewer than ``VALLEY_MIN``
+    candidates.
 
     Parameters
     ----------
@@ -366,6 +377,10 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     >>> f = valley_factor(np.r_[ground, plants], np.ones(400, bool))
     >>> bool(1.6 < f < 2.2)      # about the geometric mean sqrt(1.2 * 3.0) = 1.90
     True
+    >>> ground = np.exp(rng.normal(np.log(8.0), 0.15, 200))    # bumps far above a low floor
+    >>> plants = np.exp(rng.normal(np.log(20.0), 0.15, 200))
+    >>> bool(11.0 < valley_factor(np.r_[ground, plants], np.ones(400, bool)) < 14.5)
+    True
     """
     r = np.asarray(ratio, float)
     sel = np.asarray(eligible, bool) & (r >= 1.0) & np.isfinite(r)
@@ -374,7 +389,7 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     split = otsu_split(np.log(r[sel]))
     if split is None:
         return 1.0
-    return float(np.clip(math.exp(split), 1.0, VALLEY_MAX))
+    return float(min(max(math.exp(split), 1.0), VALLEY_MAX))
 
 
 def otsu_split(values: np.ndarray) -> float | None:
@@ -415,8 +430,9 @@ def valley_rule() -> dict[str, str]:
     return {
         "layer_chosen_by": (
             "log-chromaticity layer: won the separation contest by the required margin, or "
-            "the classic layers' best choice was unusable (too few candidates, or blobs "
-            "joined to cast shadows) and it kept enough candidates"
+            "the classic layers' best choice was unusable (too few candidates, or few against "
+            "the classic layer that kept most, or blobs joined to cast shadows) and it kept "
+            "enough candidates"
         ),
         "min_contrast_from": (
             "robust SD (1.4826 MAD) of the blob response over background pixels per scale, "
@@ -425,8 +441,8 @@ def valley_rule() -> dict[str, str]:
         ),
         "threshold_raise_from": (
             "Otsu's split of the log responses (over that threshold) of the candidates at "
-            f"or above the background median: the valley between ground and plants, 1 to "
-            f"{VALLEY_MAX:g}"
+            "or above the background median: the valley between ground and plants, at "
+            "least 1"
         ),
         "vegetation_threshold_from": "background median",
     }
