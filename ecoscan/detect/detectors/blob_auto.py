@@ -130,6 +130,13 @@ def _canopy_record(abands, roles, evidence, split) -> dict:
             f"neighbours meeting >= {canopy.CROWN_SCALE_PASS:g} of the way up on the layer "
             f"smoothed at {canopy.CROWN_SCALE_SHARE:g} x the larger region's radius"
         ),
+        # with the same gate: neighbours that are one blob at their union's scale
+        "canopy_join_one_blob": split.crown_join,
+        "canopy_join_one_blob_from": (
+            "with shaded domes; joins neighbours whose centres lie within "
+            f"{canopy.BLOB_JOIN_REACH:g} union radii when the scale-normalised blob response "
+            f"at their midpoint beats {canopy.BLOB_JOIN_RATIO:g} x the weaker one's own"
+        ),
         # regions whose smoothed peak stays below this are gaps (-inf: none dropped)
         "canopy_min_peak": split.min_peak if math.isfinite(split.min_peak) else None,
         "canopy_min_peak_from": (
