@@ -155,3 +155,36 @@ def test_the_spare_choice_is_that_layer_chosen_alone(pool, lend):
     got = {k: v for k, v in dataclasses.asdict(spare).items() if k != "elongation"}
     assert got == want
     assert spare.elongation["blobs"] == 0
+
+
+def _added_by_loop(main_x, main_y, main_r, x, y, r, score, clear=2.0, margin=0.5):
+    """The clearing rule blob by blob over every main crown (no tree), then the pruning."""
+    from ecoscan.detect import blobs
+
+    keep = np.ones(x.size, bool)
+    for k in range(x.size):
+        d = np.hypot(main_x - x[k], main_y - y[k])
+        lim = np.maximum(r[k], clear * main_r) + margin * np.minimum(r[k], main_r)
+        keep[k] = not np.any(d < lim)
+    idx = np.flatnonzero(keep)
+    if idx.size:
+        kept = blobs.prune_blobs(x[idx], y[idx], r[idx], score[idx], margin=margin)
+        keep[idx[~kept]] = False
+    return keep
+
+
+def test_added_points_at_once_equal_the_rule_blob_by_blob():
+    # the reference tests every blob against every main crown in a plain loop
+    from ecoscan.detect.pale_crowns import added_points
+
+    rng = np.random.default_rng(5)
+    for n_main, n in ((300, 500), (0, 40), (50, 0), (1, 1)):
+        mx, my = rng.uniform(0, 400, (2, n_main))
+        mr = rng.uniform(3, 20, n_main)
+        x, y = rng.uniform(0, 400, (2, n))
+        r, score = rng.uniform(3, 20, n), rng.uniform(0, 1, n)
+        got = added_points(mx, my, mr, x, y, r, score)
+        want = _added_by_loop(mx, my, mr, x, y, r, score)
+        np.testing.assert_array_equal(got, want)
+        if n_main == 300:
+            assert 0 < got.sum() < n  # some cleared, some kept

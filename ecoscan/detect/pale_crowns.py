@@ -36,6 +36,7 @@ tiled runs equal whole-image runs.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass
 
@@ -419,14 +420,14 @@ def added_points(
         reach = max(float(radius.max()), clear_radii * float(main_radius.max()))
         reach += margin * float(max(radius.max(), main_radius.max()))
         pairs = tree.query_ball_point(np.column_stack([x, y]), reach)
-        for k, near in enumerate(pairs):
-            if not near:
-                continue
-            j = np.asarray(near)
-            d = np.hypot(main_x[j] - x[k], main_y[j] - y[k])
-            lim = np.maximum(radius[k], clear_radii * main_radius[j])
-            lim = lim + margin * np.minimum(radius[k], main_radius[j])
-            keep[k] = not bool(np.any(d < lim))
+        # every (blob k, main crown j) pair within reach at once
+        counts = np.fromiter((len(p) for p in pairs), dtype=np.intp, count=n)
+        j = np.fromiter(itertools.chain.from_iterable(pairs), np.intp, int(counts.sum()))
+        k = np.repeat(np.arange(n), counts)
+        d = np.hypot(main_x[j] - x[k], main_y[j] - y[k])
+        lim = np.maximum(radius[k], clear_radii * main_radius[j])
+        lim = lim + margin * np.minimum(radius[k], main_radius[j])
+        keep[k[d < lim]] = False
     idx = np.flatnonzero(keep)
     if idx.size:
         kept = blobs.prune_blobs(x[idx], y[idx], radius[idx], score[idx], margin=margin)
