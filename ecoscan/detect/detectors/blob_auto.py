@@ -218,8 +218,6 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
             if closed is not None:
                 return closed
         choice = choose_layer(windows, roles, scales, scoring=scoring)
-        # (from the choice before any darkness fallback below: that has too few
-        # candidates or is not Excess Green, and gives no second layer either way)
         second = _second_layer(choice, windows, roles, scales, settings, scoring)
     if choice.candidates < MIN_CANDIDATES:  # the best layer shows too few plants
         choice = _shadow_joined_darkness(choice, windows, roles, scales, notes)
@@ -282,7 +280,10 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
 
 def _second_layer(choice, windows, roles, scales, settings, scoring=None):
     """:func:`ecoscan.detect.pale_crowns.second_layer`, or None (also with ``--no-split``,
-    which keeps the plain one-layer blobs)."""
+    which keeps the plain one-layer blobs). Called on the choice before any darkness
+    fallback (:func:`_shadow_joined_darkness`): that choice has too few candidates, the
+    fallback is not Excess Green, and neither gives a second layer. ``scoring``: the
+    layer choice's scoring, with the second layer as a spare layer."""
     from ecoscan.detect.pale_crowns import second_layer
 
     if not settings.split_touching or choice.candidates < MIN_CANDIDATES:
