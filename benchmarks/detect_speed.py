@@ -283,8 +283,10 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
             "closed-canopy check": (blob_auto, "_closed_canopy"),
             "layer choice (the rest)": (auto, "choose_layer"),
             "  layers scored in main": (auto, "_score_layer"),
+            "second layer scored": (blob_auto, "_second_layer"),
             "global parameters (all)": (blob, "_imagery_plan"),
             "tiles (run_plan)": (det, "run_plan"),
+            "points joined (finish)": (det, "_collect"),
         }
     )
     with DescendantPeaks(separate=True) as kids, phases:
@@ -313,10 +315,23 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
         "peak_pss_total_mb": kids.pss_peak_mb,
         "cpu_seconds": cpu + cpu_kids,
         "layer": res.thresholds.get("layer", res.index),
+        "digest": _digest(res),
         "workers_forked": forked,
         "load_start": load0,
         "load": os.getloadavg()[0],
     }
+
+
+def _digest(res) -> str:
+    """SHA-256 of the points, metadata and notes (the same digest as
+    ``benchmarks/detect_suite_identity.py``): equal digests, equal detections."""
+    import hashlib
+
+    h = hashlib.sha256()
+    h.update(np.ascontiguousarray(res.points.xy, dtype=np.float64).tobytes())
+    h.update(json.dumps(res.thresholds, sort_keys=True, default=str).encode())
+    h.update(json.dumps([str(n) for n in res.notes]).encode())
+    return h.hexdigest()
 
 
 def _children_cpu() -> float:
@@ -590,6 +605,8 @@ def main() -> None:
         f"{'whole run':28} {eco['seconds']:8.2f} {eco['cpu_main']:13.2f}   "
         f"+ {eco['cpu_workers']:.2f} CPU s in the fork server and workers"
     )
+    digests = sorted({r.get("digest", "?") for r in runs})
+    print(f"SHA-256 of points, metadata and notes at {a.size}^2: {', '.join(digests)}")
     print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     if tmp is not None:
         tmp.cleanup()

@@ -1192,8 +1192,15 @@ class LayerScoring:
     #: closed and the layer choice is abandoned.
     BEGIN_JOBS = 1
 
-    def __init__(self, windows, roles, scales, options=None, pool=None):
-        self._share = WorkShare(_score_job, pool if pool is not None else lent_pool())
+    def __init__(self, windows, roles, scales, options=None, pool=None, spare=None):
+        pool = pool if pool is not None else lent_pool()
+        self._share = WorkShare(_score_job, pool)
+        # spare layers (not candidates): scored on a worker once every candidate job is
+        # taken, used if asked for (spare_choice), else abandoned with the choice
+        self._pool, self._spare_options = pool, list(spare or ())
+        self._spare: WorkShare | None = None
+        self._spare_jobs: list[_LayerJob] = []
+        self._windows, self._roles, self._scales = windows, roles, scales
         try:
             self.cache = cache = _WindowCache(windows, scales)
             self.jobs = _Queued(self._share)
@@ -1215,11 +1222,52 @@ class LayerScoring:
         cache = self.cache
         return self._share.results(lambda job: _score_layer(job.layers, cache, centre=job.centre))
 
+    def queue_spare(self) -> None:
+        """Make the spare layers' jobs and queue them for the workers, which start on them
+        once every candidate job is taken (:class:`ecoscan.detect.tiling.WorkShare`,
+        ``after``). Only with workers: without them a spare layer is scored when asked for."""
+        if self._spare is not None or not self._spare_options or self._pool is None:
+            return
+        self._spare = WorkShare(_score_job, self._pool, after=self._share)
+        jobs = _layer_jobs(
+            self._windows, self._roles, self._scales, self._spare_options, self.cache.stride
+        )
+        for job in jobs:
+            self._spare_jobs.append(job)
+            self._spare.add(job)
+
+    def spare_choice(self, name: str) -> LayerChoice:
+        """The choice :func:`choose_layer` makes among ``[(name,)]`` alone (``chroma`` off),
+        from the spare layer's score: its worker's result, or scored here now. Every field
+        is the same except ``elongation``, which is not measured (left empty)."""
+        if self._spare is not None:
+            results = self._spare.results(
+                lambda job: _score_layer(job.layers, self.cache, centre=job.centre)
+            )
+            found = [
+                (job, res)
+                for job, res in zip(self._spare_jobs, results, strict=True)
+                if job.label == name
+            ]
+            if found:
+                job, res = found[0]
+                return _single_choice(job, res, self.cache.scales)
+        job = next(
+            _layer_jobs(self._windows, self._roles, self._scales, [(name,)], self.cache.stride)
+        )
+        return _single_choice(
+            job, _score_layer(job.layers, self.cache, centre=job.centre), self._scales
+        )
+
     def __enter__(self) -> LayerScoring:
         return self
 
     def __exit__(self, *exc) -> None:
-        self._share.__exit__(*exc)
+        try:  # the spare first: its helper may wait for the candidates' share
+            if self._spare is not None:
+                self._spare.__exit__(*exc)
+        finally:
+            self._share.__exit__(*exc)
 
 
 def begin_layer_choice(
@@ -1228,6 +1276,7 @@ def begin_layer_choice(
     scales: BlobScales,
     options: list[tuple[str, ...]] | None = None,
     pool: EarlyPool | None = None,
+    spare: list[tuple[str, ...]] | None = None,
 ) -> LayerScoring:
     """Start scoring the classic candidate layers; :func:`choose_layer` finishes the choice.
 
@@ -1241,6 +1290,11 @@ def begin_layer_choice(
     ----------
     windows, roles, scales, options, pool
         As for :func:`choose_layer`.
+    spare : list of tuple of str, optional
+        Layers that are not candidates but may be needed once the choice is made (the
+        second evidence layer, :mod:`ecoscan.detect.pale_crowns`): scored on a worker
+        that would otherwise wait, once every candidate is taken, and read with
+        :meth:`LayerScoring.spare_choice`; abandoned with the block when not asked for.
 
     Returns
     -------
@@ -1258,7 +1312,7 @@ def begin_layer_choice(
     ...     [job.label for job in scoring.jobs]
     ['exg', 'darkness', 'exg+darkness']
     """
-    return LayerScoring(windows, roles, scales, options, pool)
+    return LayerScoring(windows, roles, scales, options, pool, spare)
 
 
 def choose_layer(
@@ -1323,6 +1377,7 @@ def choose_layer(
         jobs = scoring.classic_jobs()  # adding a job hands it to the workers
         if chroma and _has_colour(roles):
             jobs.extend(_invariant_jobs(windows, roles, scales))
+        scoring.queue_spare()  # for idle workers, after every candidate job
         results = scoring.results()
     finally:
         if own:
@@ -1341,18 +1396,22 @@ def choose_layer(
             best = (job.label, job.terms, res)
     assert best is not None
     label, terms, res = best
-    m, s = res["background"], res["spread"]
     layers = next(job.layers for job in jobs if job.label == label)
-    elong = _kept_elongation(layers, windows, res.get("kept_blobs"), m)
+    elong = _kept_elongation(layers, windows, res.get("kept_blobs"), res["background"])
     # the log-chromaticity layer takes thresholds from the valley of its candidates, and
     # takes over where the classic choice is unusable (_shadow_free_valley)
     valley = _shadow_free_valley(jobs, results, scoring.cache, label, res, elong, roles)
     blur = 0.0
     if valley is not None:
         label, terms, layers, res, elong = valley
-        m, s = res["background"], res["spread"]
         scores[label + "-valley"] = round(res["separation"], 3)
         blur = res["band_blur_px"]
+    return _as_choice(label, terms, res, scales, scores, elong, blur)
+
+
+def _as_choice(label, terms, res: dict, scales, scores: dict, elong: dict, blur: float):
+    """The :class:`LayerChoice` of a scored layer (:func:`_score_layer`'s result)."""
+    m, s = res["background"], res["spread"]
     thresholds = res["raise"] * response_mads(scales) * res["response_spread"]
     return LayerChoice(
         name=label,
@@ -1371,6 +1430,17 @@ def choose_layer(
         elongation=elong,
         band_blur_px=blur,
     )
+
+
+def _single_choice(job: _LayerJob, res: dict, scales: BlobScales) -> LayerChoice:
+    """:func:`choose_layer`'s choice among one classic layer alone, without the elongation
+    of its blobs: with no log-chromaticity job the valley rule (:func:`_shadow_free_valley`)
+    never takes over, so nothing else depends on it."""
+    from ecoscan.detect.elongation import common_elongation
+
+    empty = common_elongation(np.empty((0, 2)))
+    scores = {job.label: round(res["separation"], 3)}
+    return _as_choice(job.label, job.terms, res, scales, scores, empty, 0.0)
 
 
 def _has_colour(roles: tuple[str, ...]) -> bool:

@@ -438,6 +438,11 @@ class WorkShare:
     are handed out, those waiting in the pool are cancelled (one a worker already runs
     finishes there, its result unused) and every shared-memory segment is released.
 
+    ``after``: another share whose jobs come first. No job of this one is handed to a
+    worker before every job of ``after`` has been taken (by a worker or by the process
+    that asked for its results), so spare work (a layer that may be needed later) never
+    delays the work that is needed.
+
     Examples
     --------
     >>> with WorkShare(abs, None) as share:
@@ -447,12 +452,15 @@ class WorkShare:
     [2, 3]
     """
 
-    def __init__(self, func: Callable[[J], R], pool: EarlyPool | None) -> None:
+    def __init__(
+        self, func: Callable[[J], R], pool: EarlyPool | None, after: WorkShare | None = None
+    ) -> None:
         from ecoscan.detect.shared_arrays import Segments
 
         self.func = func
         self._segments = Segments()
-        self._state = _Dispatch(func, pool, self._segments)
+        first = after._state if after is not None else None
+        self._state = _Dispatch(func, pool, self._segments, first)
 
     def add(self, job: J) -> None:
         """Queue one more job (handed to the next idle worker)."""
@@ -498,8 +506,10 @@ class _Dispatch:
     (:mod:`ecoscan.detect.shared_arrays`), released when the job is done.
     """
 
-    def __init__(self, func, pool: EarlyPool | None, segments) -> None:
+    def __init__(self, func, pool: EarlyPool | None, segments, after=None) -> None:
         self.func, self.pool, self.segments = func, pool, segments
+        self.after = after  # a _Dispatch whose jobs must all be taken before ours start
+        self.stopped = False
         self.jobs: list[Any] = []
         self.ready = threading.Condition()
         self.span = [0, None]  # jobs [span[0], span[1]) not taken; span[1] None: still open
@@ -535,11 +545,23 @@ class _Dispatch:
             end = len(self.jobs) if self.span[1] is None else self.span[1]
             if self.span[0] >= end:
                 return None
+            self.ready.notify_all()  # a share waiting for this one to be exhausted
             if front:
                 self.span[0] += 1
                 return self.span[0] - 1
             self.span[1] = end - 1
             return self.span[1]
+
+    def _exhausted(self) -> bool:
+        """Every job taken (no more can come), or the work abandoned (hold ``ready``)."""
+        return self.span[1] is not None and self.span[0] >= self.span[1]
+
+    def _wait_for_after(self) -> None:
+        """Wait until every job of ``after`` is taken, or this work is abandoned."""
+        after = self.after
+        with after.ready:
+            while not after._exhausted() and not self.stopped:
+                after.ready.wait()
 
     def drain(self) -> None:
         """Hand out no more jobs and cancel those a worker has not started; wait for the
@@ -550,6 +572,10 @@ class _Dispatch:
             pending = [f for f in self.futures.values() if f is not None]
         for fut in pending:
             fut.cancel()  # no effect on a finished job or one a worker runs
+        self.stopped = True
+        if self.after is not None:  # a helper waiting for the other share's jobs ends
+            with self.after.ready:
+                self.after.ready.notify_all()
         self.free.release()  # a helper waiting for an idle worker finds no job and ends
         self.join()
 
@@ -564,6 +590,8 @@ class _Dispatch:
         ex = self.pool.wait()
         if ex is None:
             return
+        if self.after is not None:
+            self._wait_for_after()
         free = self.free
         while True:
             free.acquire()

@@ -216,7 +216,8 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         return None, 0, 1, {}, [*notes, no_plants("the image is constant: no plants found")]
     rule: dict[str, float] = {}  # the closed-canopy rule's figures, recorded when it stays off
     # the lent workers start scoring candidate layers while the canopy check runs here
-    with begin_layer_choice(windows, roles, scales) as scoring:
+    spare = _spare_layers(roles, settings)
+    with begin_layer_choice(windows, roles, scales, spare=spare) as scoring:
         if settings.split_touching:
             closed = _closed_canopy(
                 info, settings, windows, roles, abands, scales, overlap, notes, rule
@@ -224,12 +225,12 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
             if closed is not None:
                 return closed
         choice = choose_layer(windows, roles, scales, scoring=scoring)
+        second = _second_layer(choice, windows, roles, scales, settings, scoring)
     if choice.candidates < MIN_CANDIDATES:  # the best layer shows too few plants
         choice = _shadow_joined_darkness(choice, windows, roles, scales, notes)
         if choice is None:
             return None
     shadow = _shadow_step(choice, windows, roles, info, settings)
-    second = _second_layer(choice, windows, roles, scales, settings)
     del windows
     params = BlobPlan(
         bands=abands,
@@ -284,14 +285,24 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     return params, overlap, scales.align, th, notes
 
 
-def _second_layer(choice, windows, roles, scales, settings):
+def _second_layer(choice, windows, roles, scales, settings, scoring=None):
     """:func:`ecoscan.detect.pale_crowns.second_layer`, or None (also with ``--no-split``,
-    which keeps the plain one-layer blobs)."""
+    which keeps the plain one-layer blobs). Called on the choice before any darkness
+    fallback (:func:`_shadow_joined_darkness`): that choice has too few candidates, the
+    fallback is not Excess Green, and neither gives a second layer. ``scoring``: the
+    layer choice's scoring, with the second layer as a spare layer."""
     from ecoscan.detect.pale_crowns import second_layer
 
     if not settings.split_touching or choice.candidates < MIN_CANDIDATES:
         return None
-    return second_layer(choice, windows, roles, scales)
+    return second_layer(choice, windows, roles, scales, scoring)
+
+
+def _spare_layers(roles, settings) -> list:
+    """The second evidence layer, scored beside the layer choice where it may be used."""
+    from ecoscan.detect.pale_crowns import spare_layers
+
+    return spare_layers(roles) if settings.split_touching else []
 
 
 def _lobe_share(choice, roles, settings) -> float | None:
