@@ -85,7 +85,7 @@ def error_classes(
     for i in np.flatnonzero(~matched_f):
         d, j = tree_t.query(found[i], k=min(4, len(truth)))
         d, j = np.atleast_1d(d), np.atleast_1d(j)
-        inside = [jj for dd, jj in zip(d, j) if dd <= 0.5 * diameter_m[jj]]
+        inside = [jj for dd, jj in zip(d, j, strict=True) if dd <= 0.5 * diameter_m[jj]]
         if not inside:
             out["false ground"] += 1
         elif matched_t[inside[0]]:
