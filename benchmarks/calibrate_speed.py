@@ -123,6 +123,8 @@ def calibrate_and_score(
         "calibrate_cpu_s": c1 - c0,
         "detect_s": t2 - t1,
         "detect_cpu_s": c2 - c1,
+        "points": det.points,
+        "test_plots": test,
     }
 
 

@@ -53,7 +53,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         type=float,
         metavar="METRES",
         help="largest distance at which a detection counts as a mapped plant (default half "
-        "the median crown diameter, or a quarter of the median plant spacing)",
+        "the smallest mapped crowns' diameter, 5th percentile of diameter_m, or a quarter "
+        "of the median plant spacing without diameters)",
     )
     p.add_argument(
         "--diameter",
