@@ -350,3 +350,25 @@ def test_recentring_moves_points_off_the_shadow_to_the_crown_middle():
     # with a blob radius of 2 px the point may move 2 px at most
     c2, r2 = recentre(layer, np.array([40.0]), np.array([49.0]), np.array([2.0]), 0.0)
     assert math.hypot(c2[0] - 40.0, r2[0] - 49.0) <= 2.0 + 1e-9
+
+
+def test_valley_factor_inside_one_group_keeps_the_bound():
+    # One tight group of crop plants at about 6.8 times the noise floor and nothing else
+    # above it: Otsu (1979) cuts the group itself (no valley), which would drop about
+    # half of the plants; the split is crowded, so the factor stops at CROWDED_BOUND.
+    from ecoscan.detect.chromaticity import CROWDED_BOUND, CROWDED_SHARE, CROWDED_WIDTH, otsu_split
+
+    rng = np.random.default_rng(202)
+    plants = np.exp(rng.normal(math.log(6.8), 0.06, 240))
+    ratio = plants
+    split = otsu_split(np.log(ratio))
+    near = np.mean(np.abs(np.log(ratio) - split) < CROWDED_WIDTH)
+    assert math.exp(split) > CROWDED_BOUND and near > CROWDED_SHARE  # the case guarded
+    f = valley_factor(ratio, np.ones(ratio.size, bool))
+    assert f == CROWDED_BOUND
+    assert np.mean(plants > f) > 0.95  # the plants are kept
+    # two groups with a gap above the bound are still split in the gap (not crowded)
+    two = np.r_[
+        np.exp(rng.normal(math.log(8.0), 0.1, 150)), np.exp(rng.normal(math.log(20.0), 0.1, 150))
+    ]
+    assert valley_factor(two, np.ones(two.size, bool)) > 10.0

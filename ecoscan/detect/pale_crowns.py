@@ -432,17 +432,29 @@ def whole_crowns(
     take = np.zeros(x.size, dtype=bool)
     if x.size == 0 or main_x.size == 0 or share <= 0:
         return drop, take
+    # every blob-point pair within the blob's radius at once, then the blobs whose points
+    # are all parts of it; only those few go through the greedy pass (strongest first,
+    # each main point replaced once), so the result is the blob-by-blob rule's
     tree = cKDTree(np.column_stack([main_x, main_y]))
+    near = tree.query_ball_point(np.column_stack([x, y]), radius)
+    counts = np.fromiter((len(n) for n in near), dtype=np.intp, count=x.size)
+    if counts.sum() == 0:
+        return drop, take
+    blob = np.repeat(np.arange(x.size), counts)
+    point = np.fromiter((j for n in near for j in n), dtype=np.intp, count=int(counts.sum()))
+    inside = np.hypot(main_x[point] - x[blob], main_y[point] - y[blob]) < radius[blob]
+    blob, point = blob[inside], point[inside]
+    part = (main_radius[point] <= share * radius[blob]) & (main_score[point] <= score[blob])
+    has = np.bincount(blob, minlength=x.size) > 0
+    whole = has & (np.bincount(blob, weights=~part, minlength=x.size) == 0)
+    if not whole.any():
+        return drop, take
+    by_blob = np.argsort(blob, kind="stable")
+    starts = np.searchsorted(blob[by_blob], np.arange(x.size + 1))
     order = np.lexsort((x, y, -score))
-    for k in order:
-        near = tree.query_ball_point((x[k], y[k]), float(radius[k]))
-        if not near:
-            continue
-        j = np.asarray(near)
-        j = j[np.hypot(main_x[j] - x[k], main_y[j] - y[k]) < radius[k]]
-        if j.size == 0 or drop[j].any():
-            continue
-        if np.all(main_radius[j] <= share * radius[k]) and score[k] >= main_score[j].max():
+    for k in order[whole[order]]:
+        j = point[by_blob[starts[k] : starts[k + 1]]]
+        if not drop[j].any():
             drop[j] = True
             take[k] = True
     return drop, take
