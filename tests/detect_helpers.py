@@ -5,6 +5,7 @@ All scenes are invented (synthetic ground truth made by ecoscan.synthetic).
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import numpy as np
@@ -120,7 +121,6 @@ def suite_scene_f1(style: str, size: int, seed: int, folder: Path):
 
 def layer_choice(name, terms, raise_by=1.0, closed=False):
     """A layer choice with fixed, plausible figures, to test the rules that read it."""
-    import math
 
     from ecoscan.detect.autotune import LayerChoice
 
@@ -168,3 +168,33 @@ def sample_windows(style="dry-shrubs", size=320, seed=0, zero_nodata=False):
         wins[3].data[:, -30:, -30:] = 0.0
     lo, hi = sc.diameter_range_m
     return wins, blob_scales(lo / sc.pixel_size_m / 2, hi / sc.pixel_size_m / 2)
+
+
+def lambert_domes(shape, crowns, sun_elev_deg=90.0, sun_az_deg=0.0, floor=0.05, height=1.0):
+    """Brightness of Lambert half-spheroids (col, row, radius; height ``height`` × radius)
+    seen from above; the higher surface wins where crowns overlap (closed-canopy tests).
+
+    Examples
+    --------
+    >>> img = lambert_domes((20, 20), [(10.0, 10.0, 6.0)])
+    >>> bool(img[10, 10] > img[0, 0])
+    True
+    """
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    e, a = math.radians(sun_elev_deg), math.radians(sun_az_deg)
+    s = np.array([math.cos(e) * math.cos(a), math.cos(e) * math.sin(a), math.sin(e)])
+    top = np.full(shape, -1.0)
+    out = np.full(shape, floor)
+    for cx, cy, r in crowns:
+        dx, dy = (xx - cx) / r, (yy - cy) / r
+        rho2 = dx * dx + dy * dy
+        inside = rho2 < 1
+        nz = np.sqrt(np.clip(1 - rho2, 0, None))
+        z = height * r * nz
+        # surface normal of z = height * r * sqrt(1 - rho^2): (height dx, height dy, nz)
+        norm = np.sqrt(height**2 * rho2 + nz**2) + 1e-12
+        lit = np.clip((height * (dx * s[0] + dy * s[1]) + nz * s[2]) / norm, 0, None)
+        win = inside & (z > top)
+        out[win] = floor + 0.3 + 0.7 * lit[win]
+        top[win] = z[win]
+    return out

@@ -15,6 +15,7 @@ import pytest
 from skimage.segmentation import watershed
 
 from ecoscan.detect import canopy
+from tests.detect_helpers import lambert_domes
 
 R_MIN, R_MAX = 8.0, 36.0
 MAX_AREA = canopy.MERGE_MAX_AREA_SHARE * math.pi * R_MAX**2
@@ -24,20 +25,7 @@ SHAPE = (100, 140)
 def _domes(crowns, elev_deg=45.0, az_deg=140.0, floor=0.05):
     """log(1 + 100 × brightness) of Lambert hemispheres (col, row, radius) lit at
     ``elev_deg``; the higher surface wins where crowns overlap."""
-    yy, xx = np.mgrid[: SHAPE[0], : SHAPE[1]].astype(float)
-    e, a = math.radians(elev_deg), math.radians(az_deg)
-    s = np.array([math.cos(e) * math.cos(a), math.cos(e) * math.sin(a), math.sin(e)])
-    top = np.full(SHAPE, -1.0)
-    out = np.full(SHAPE, floor)
-    for cx, cy, r in crowns:
-        dx, dy = (xx - cx) / r, (yy - cy) / r
-        rho2 = dx * dx + dy * dy
-        nz = np.sqrt(np.clip(1 - rho2, 0, None))
-        lit = np.clip(dx * s[0] + dy * s[1] + nz * s[2], 0, None)
-        win = (rho2 < 1) & (r * nz > top)
-        out[win] = floor + 0.3 + 0.7 * lit[win]
-        top[win] = (r * nz)[win]
-    return np.log1p(100 * out)
+    return np.log1p(100 * lambert_domes(SHAPE, crowns, elev_deg, az_deg, floor))
 
 
 def _join(layer, regions):

@@ -14,29 +14,7 @@ import numpy as np
 import pytest
 
 from ecoscan.detect import canopy
-
-
-def _domes(shape, crowns, sun_elev_deg=90.0, sun_az_deg=0.0, floor=0.05, height=1.0):
-    """Brightness of Lambert half-spheroids (col, row, radius; height ``height`` × radius)
-    seen from above; the higher surface wins where crowns overlap."""
-    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
-    e, a = math.radians(sun_elev_deg), math.radians(sun_az_deg)
-    s = np.array([math.cos(e) * math.cos(a), math.cos(e) * math.sin(a), math.sin(e)])
-    top = np.full(shape, -1.0)
-    out = np.full(shape, floor)
-    for cx, cy, r in crowns:
-        dx, dy = (xx - cx) / r, (yy - cy) / r
-        rho2 = dx * dx + dy * dy
-        inside = rho2 < 1
-        nz = np.sqrt(np.clip(1 - rho2, 0, None))
-        z = height * r * nz
-        # surface normal of z = height * r * sqrt(1 - rho^2): (height dx, height dy, nz)
-        norm = np.sqrt(height**2 * rho2 + nz**2) + 1e-12
-        lit = np.clip((height * (dx * s[0] + dy * s[1]) + nz * s[2]) / norm, 0, None)
-        win = inside & (z > top)
-        out[win] = floor + 0.3 + 0.7 * lit[win]
-        top[win] = z[win]
-    return out
+from tests.detect_helpers import lambert_domes
 
 
 def _clumps(shape, centres, sigma, amp):
@@ -90,7 +68,7 @@ def _scene():
     clump is yellower), more than :func:`canopy.merge_fragments` allows (0.01); all
     crowns have one species' tint otherwise."""
     # half-spheroids half as high as wide: a broad crown top on which clumps stand out
-    img = _domes(SHAPE, CROWNS, height=0.5)
+    img = lambert_domes(SHAPE, CROWNS, height=0.5)
     yy, xx = np.mgrid[: SHAPE[0], : SHAPE[1]].astype(float)
     big = np.hypot(xx - 70, yy - 70) < 30
     tint = np.full(SHAPE, 0.4, np.float32)
@@ -123,7 +101,7 @@ def test_touching_domes_of_one_size_and_colour_stay_two(gap):
     # gap radii (the scene suite's closed canopy allows gaps down to 0.45)
     r = 24.0
     crowns = [(40.0, 50.0, r), (40.0 + (1 + gap) * r, 50.0, r)]
-    img = _domes((100, 130), crowns)
+    img = lambert_domes((100, 130), crowns)
     counts, errs = _nearest(_split(img, crown_join=True), crowns)
     assert counts == [1, 1]
     assert max(errs) < 0.1
@@ -134,7 +112,7 @@ def test_joins_only_neighbours_that_fit_one_crown():
     # domes of different size: not joined
     from skimage.segmentation import watershed
 
-    img = _domes((80, 160), [(40.0, 40.0, 30.0), (108.0, 40.0, 22.0)])
+    img = lambert_domes((80, 160), [(40.0, 40.0, 30.0), (108.0, 40.0, 22.0)])
     markers = np.zeros(img.shape, int)
     markers[40, 30], markers[40, 50], markers[40, 108] = 1, 2, 3
     # regions 1 and 2 split the big dome down its middle, 3 is the neighbour
@@ -149,7 +127,7 @@ def test_joins_only_neighbours_that_fit_one_crown():
 
 def _dome_grid(sun_elev_deg):
     crowns = [(30.0 + 56 * i, 30.0 + 56 * j, 24.0) for i in range(4) for j in range(4)]
-    img = _domes((230, 230), crowns, sun_elev_deg, 200.0)
+    img = lambert_domes((230, 230), crowns, sun_elev_deg, 200.0)
     lay = np.log1p(100 * img).astype(np.float32)
     tint = np.full(img.shape, 0.4, np.float32)
     return canopy.canopy_split([lay], [np.ones(img.shape, bool)], 10.0, 30.0, tints=[tint])
