@@ -526,8 +526,8 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
     )
     n = int(keep.sum())
     whole = (
-        f"; {n_whole} big crown(s) whose Excess Green points were only lobes placed at the "
-        "GRVI blob instead"
+        f"; {n_whole} big crown(s) placed at the GRVI blob's centre instead of at the "
+        "Excess Green lobes found on it"
         if n_whole
         else ""
     )
