@@ -198,3 +198,38 @@ def lambert_domes(shape, crowns, sun_elev_deg=90.0, sun_az_deg=0.0, floor=0.05, 
         out[win] = floor + 0.3 + 0.7 * lit[win]
         top[win] = z[win]
     return out
+
+
+def rule_on_and_off(style, seed, folder, monkeypatch, module, name, off_value, size=512):
+    """Default detection on a scene-suite scene with a rule on, then with ``module.name``
+    set to ``off_value`` (the rule off); each result matched to the truth within half the
+    smallest diameter (as ``ecoscan validate`` matches). The patch stays in place (undo it
+    with ``monkeypatch.undo()``).
+
+    Returns a namespace with ``scene``, ``raster``, ``truth``, ``settings``, ``on``,
+    ``off``, ``matched_on`` and ``matched_off``.
+    """
+    from types import SimpleNamespace
+
+    from ecoscan.detect import DetectionSettings, detect_raster
+    from ecoscan.stats.matching import match_points
+    from ecoscan.synthetic import make_scene, write_scene
+
+    sc = make_scene(style, size, seed)
+    raster = write_scene(sc, folder).raster
+    lo, hi = sc.diameter_range_m
+    truth = np.column_stack([sc.x_m, sc.y_m])
+    settings = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, bands=sc.bands_option)
+    on = detect_raster(raster, settings)
+    monkeypatch.setattr(module, name, off_value)
+    off = detect_raster(raster, settings)
+    return SimpleNamespace(
+        scene=sc,
+        raster=raster,
+        truth=truth,
+        settings=settings,
+        on=on,
+        off=off,
+        matched_on=match_points(on.points.xy, truth, 0.5 * lo),
+        matched_off=match_points(off.points.xy, truth, 0.5 * lo),
+    )

@@ -21,7 +21,7 @@ from ecoscan.detect.indices import excess_green, green_red
 from ecoscan.detect.pale_crowns import added_points, find_second, second_layer
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import make_scene, write_geotiff, write_scene
-from tests.detect_helpers import UTM, X0, Y0, sorted_xy, truth_points
+from tests.detect_helpers import UTM, X0, Y0, rule_on_and_off, sorted_xy, truth_points
 
 SOIL = (172.0, 142.0, 118.0)  # Excess Green -0.014, GRVI -0.096
 SOIL_B = (170.0, 145.0, 99.0)  # Excess Green 0.050, GRVI -0.079
@@ -212,16 +212,10 @@ def test_second_layer_off_where_it_does_not_belong():
 
 def test_dry_shrubs_development_seed_gains_grey_crowns(tmp_path, monkeypatch):
     # suite development seed 0 (never a held-out seed); ground truth by construction
-    sc = make_scene("dry-shrubs", 512, 0)
-    paths = write_scene(sc, tmp_path)
-    lo, hi = sc.diameter_range_m
-    truth = np.column_stack([sc.x_m, sc.y_m])
-    st = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi)
-    on = detect_raster(paths.raster, st)
-    monkeypatch.setattr(pale_crowns, "MIN_SECOND_CANDIDATES", 10**9)
-    off = detect_raster(paths.raster, st)
-    m_on = match_points(on.points.xy, truth, 0.5 * lo)
-    m_off = match_points(off.points.xy, truth, 0.5 * lo)
+    run = rule_on_and_off(
+        "dry-shrubs", 0, tmp_path, monkeypatch, pale_crowns, "MIN_SECOND_CANDIDATES", 10**9
+    )
+    sc, on, off, m_on, m_off = run.scene, run.on, run.off, run.matched_on, run.matched_off
     f1_on = 2 * m_on.n_matched / (on.n + sc.n)
     f1_off = 2 * m_off.n_matched / (off.n + sc.n)
     assert f1_on > f1_off

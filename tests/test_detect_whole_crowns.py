@@ -5,13 +5,13 @@ Green points stands for the whole crown and replaces them. Geometry is checked o
 points; the detector on a development scene of the suite (ground truth by construction).
 """
 
+from dataclasses import replace
+
 import numpy as np
 
-from ecoscan.detect import DetectionSettings, detect_raster, pale_crowns
+from ecoscan.detect import detect_raster, pale_crowns
 from ecoscan.detect.pale_crowns import whole_crowns
-from ecoscan.stats.matching import match_points
-from ecoscan.synthetic import make_scene, write_scene
-from tests.detect_helpers import sorted_xy
+from tests.detect_helpers import rule_on_and_off, sorted_xy
 
 
 def test_lobes_inside_a_bigger_blob_are_replaced():
@@ -49,17 +49,10 @@ def test_a_main_point_is_replaced_once():
 
 def test_dry_shrubs_development_seed_gains_big_crowns(tmp_path, monkeypatch):
     # suite development seed 11 (never a held-out seed); ground truth by construction
-    sc = make_scene("dry-shrubs", 512, 11)
-    paths = write_scene(sc, tmp_path)
+    run = rule_on_and_off("dry-shrubs", 11, tmp_path, monkeypatch, pale_crowns, "WHOLE_SHARE", 0.0)
+    sc, truth, on, off = run.scene, run.truth, run.on, run.off
     lo, hi = sc.diameter_range_m
-    truth = np.column_stack([sc.x_m, sc.y_m])
-    st = DetectionSettings(diameter_min_m=lo, diameter_max_m=hi)
-    on = detect_raster(paths.raster, st)
-    monkeypatch.setattr(pale_crowns, "WHOLE_SHARE", 0.0)
-    off = detect_raster(paths.raster, st)
-    m_on = match_points(on.points.xy, truth, 0.5 * lo)
-    m_off = match_points(off.points.xy, truth, 0.5 * lo)
-    assert m_on.n_matched > m_off.n_matched
+    assert run.matched_on.n_matched > run.matched_off.n_matched
     assert on.n <= off.n  # points replaced, none added
     # every point the rule places lies within the tolerance of a crown of the big third
     assert any("placed at the GRVI blob" in str(n) for n in on.notes)
@@ -71,9 +64,7 @@ def test_dry_shrubs_development_seed_gains_big_crowns(tmp_path, monkeypatch):
     assert np.all(np.asarray(sc.diameter_m)[d.argmin(axis=1)] >= lo * (hi / lo) ** (1 / 3))
     # the rule runs once over all tiles' points: tiled runs equal the whole image
     monkeypatch.undo()
-    tiled = detect_raster(
-        paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=192)
-    )
+    tiled = detect_raster(run.raster, replace(run.settings, tile_size_px=192))
     assert tiled.tiles_total >= 9
     np.testing.assert_array_equal(sorted_xy(on.points), sorted_xy(tiled.points))
 
