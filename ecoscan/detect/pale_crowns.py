@@ -88,8 +88,9 @@ MIN_SECOND_CANDIDATES = 10
 #: on grey crowns, so on some scenes the gap search lifts GRVI's threshold by one or two
 #: grid steps (1.08 or 1.25) while Excess Green needs none; with a bound of 1.0 the second
 #: layer was off on exactly those scenes (3 of 24 dry-shrub diagnosis scenes, the two
-#: lowest among them). Chosen on suite seeds 0, 7, 11 and 900-920 (dry12); every tuning
-#: scene and every other suite style gave the same points (docs/notes-dry12.md).
+#: lowest among them). Chosen on suite seeds 0, 7, 11 and 900-920 (dry12); the tuning
+#: styles mixed, grass, clumps, coarse, jpeg and pasture and the development seeds of the
+#: other RGB suite styles gave the same points (docs/notes-dry12.md).
 MAX_SECOND_RAISE = 1.3
 
 
