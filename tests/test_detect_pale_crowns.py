@@ -9,6 +9,7 @@ import math
 from dataclasses import replace
 
 import numpy as np
+import pytest
 import rasterio
 from detect_helpers import layer_choice
 from rasterio.transform import from_origin
@@ -21,7 +22,15 @@ from ecoscan.detect.indices import excess_green, green_red
 from ecoscan.detect.pale_crowns import added_points, find_second, second_layer
 from ecoscan.stats.matching import match_points
 from ecoscan.synthetic import make_scene, write_geotiff, write_scene
-from tests.detect_helpers import UTM, X0, Y0, rule_on_and_off, sorted_xy, truth_points
+from tests.detect_helpers import (
+    UTM,
+    X0,
+    Y0,
+    rule_on_and_off,
+    sample_windows,
+    sorted_xy,
+    truth_points,
+)
 
 SOIL = (172.0, 142.0, 118.0)  # Excess Green -0.014, GRVI -0.096
 SOIL_B = (170.0, 145.0, 99.0)  # Excess Green 0.050, GRVI -0.079
@@ -270,3 +279,57 @@ def test_smoothed_at_equals_the_whole_image_filter():
     for sigma in (1.0, 2.83, 5.5):
         want = ndimage.gaussian_filter(img, sigma)[rows, cols]
         assert np.array_equal(smoothed_at(img, rows, cols, sigma), want)
+
+
+class _Scored:
+    """A layer choice's scoring with GRVI as its spare layer, the GRVI choice given."""
+
+    def __init__(self, grvi):
+        self.grvi = grvi
+
+    def spare_choice(self, name):
+        assert name == pale_crowns.LAYER
+        return self.grvi
+
+
+def test_second_layer_kept_where_grvi_threshold_is_raised_a_little():
+    # GRVI's own threshold raised by one or two steps of the gap search (1.08, 1.25) keeps
+    # the second layer, with the raised thresholds; a larger raise turns it off. The raise
+    # is common practice for a noisy layer: more noise, fewer added points.
+    windows, scales = sample_windows()
+    exg = layer_choice("exg", (("exg", 1.0),))
+    rgb = ("red", "green", "blue")
+    for raise_by, used in ((1.0, True), (1.25, True), (1.3, True), (1.31, False), (1.7, False)):
+        grvi = replace(
+            layer_choice("grvi", (("grvi", 1.0),), raise_by=raise_by),
+            min_response=(0.02 * raise_by, 0.03 * raise_by),
+        )
+        second = second_layer(exg, windows, rgb, scales, _Scored(grvi))
+        assert (second is not None) is used, raise_by
+        if used:
+            # the thresholds carry the raise, and the score scale puts GRVI responses on
+            # Excess Green's (ratio of the median thresholds)
+            assert second.min_response == grvi.min_response
+            assert second.score_scale == pytest.approx(1.0 / (0.025 * raise_by))
+    too_few = replace(layer_choice("grvi", (("grvi", 1.0),), raise_by=1.1), candidates=9)
+    assert second_layer(exg, windows, rgb, scales, _Scored(too_few)) is None
+
+
+def test_raised_grvi_threshold_adds_grey_crowns_on_a_diagnosis_scene(tmp_path, monkeypatch):
+    # dry-shrubs suite seed 902 (dry12's diagnosis block, never a held-out seed): GRVI's
+    # threshold is raised 1.08 times there, which used to turn the second layer off; with
+    # it on, F1 rises and more grey crowns are matched (ground truth by construction)
+    run = rule_on_and_off(
+        "dry-shrubs", 902, tmp_path, monkeypatch, pale_crowns, "MAX_SECOND_RAISE", 1.0
+    )
+    sc, on, off = run.scene, run.on, run.off
+    assert on.thresholds["second_layer"] == "grvi"
+    assert off.thresholds["second_layer"] is None
+    f1_on = 2 * run.matched_on.n_matched / (on.n + sc.n)
+    f1_off = 2 * run.matched_off.n_matched / (off.n + sc.n)
+    assert f1_on > f1_off + 0.01
+    grey = np.flatnonzero(np.asarray(sc.kind) == "grey")
+    assert (
+        np.isin(grey, np.asarray(run.matched_on.index_b, int)).sum()
+        > np.isin(grey, np.asarray(run.matched_off.index_b, int)).sum()
+    )
