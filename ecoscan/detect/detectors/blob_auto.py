@@ -122,8 +122,10 @@ def _canopy_record(abands, roles, evidence, split) -> dict:
         "canopy_lean_from": (
             f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
             f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
-            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
+            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome), "
+            f"times {canopy.DOME_LEAN_GAIN:g} with shaded domes"
         ),
+        "canopy_lean_gain": split.lean_gain,
         "canopy_join_crown_scale": split.crown_join,
         "canopy_join_crown_scale_from": (
             f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
