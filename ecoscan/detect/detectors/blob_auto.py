@@ -192,7 +192,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     )
     notes.append(
         Note(
-            "closed-canopy counts are unreliable (F1 about 0.89 on the scene suite; some "
+            "closed-canopy counts are unreliable (F1 about 0.92 on the scene suite; some "
             "big crowns counted twice or their points off centre, some small shaded ones "
             "missed): calibrate a detector on mapped crowns (ecoscan "
             "calibrate) and check with ecoscan validate",
