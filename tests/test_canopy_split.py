@@ -14,6 +14,7 @@ import math
 import numpy as np
 import pytest
 
+from ecoscan.detect import canopy
 from ecoscan.detect.canopy import (
     canopy_evidence,
     canopy_split,
@@ -465,9 +466,14 @@ def test_level_set_lean_recentres_lambert_domes_whose_peaks_lie_off_centre():
     cs = canopy_split([img], [ok], 5.0, r, h_share=0.05, tints=[tint])
     # the raster's lean points at the sun's azimuth
     assert abs(math.degrees(math.atan2(cs.lean_row, cs.lean_col)) - (azim - 360)) < 5.0
+    # shaded domes: the shift applied is DOME_LEAN_GAIN x the measured lean; the geometry
+    # checked here is the measured lean's (the gain corrects the suite's textured,
+    # overlapping crowns, where caps are cut and the estimate falls short)
+    assert cs.lean_gain == canopy.DOME_LEAN_GAIN > 1.0
+    lean = (cs.lean_col / cs.lean_gain, cs.lean_row / cs.lean_gain)
     kw = dict(smooth_px=cs.smooth_px, max_area_px=cs.max_area_px, tint=tint)
     before = split_crowns(img, 5.0, cs.h, **kw)
-    after = split_crowns(img, 5.0, cs.h, lean=(cs.lean_col, cs.lean_row), **kw)
+    after = split_crowns(img, 5.0, cs.h, lean=lean, **kw)
     assert before["col"].size == after["col"].size == len(centres)
 
     def miss(got):
@@ -478,3 +484,30 @@ def test_level_set_lean_recentres_lambert_domes_whose_peaks_lie_off_centre():
     assert miss(after).min(axis=0).max() < 0.06 * r
     # each crown's point and no other lies within the tolerance
     assert np.all(np.sort(miss(after), axis=1)[:, 1] > r)
+
+
+def test_the_lean_gain_is_off_for_flat_crowns_and_scales_the_shift_for_domes():
+    # flat-coloured discs (no shading): no lean, so no gain and no shift; the same discs
+    # shaded as Lambert domes lit at 65 degrees: the shift is the gain times the lean
+    # measured without it (Lambert's cosine law; common practice in shading models)
+    r = 20.0
+    centres = [(24.0 + 44 * i, 24.0 + 44 * j) for i in range(4) for j in range(3)]
+    shape = (3 * 44 + 4, 4 * 44 + 4)
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    flat = np.full(shape, 0.1)
+    for cx, cy in centres:
+        flat[(xx - cx) ** 2 + (yy - cy) ** 2 < r**2] = 1.0
+    ok = np.ones(shape, bool)
+    tint = np.full(shape, 0.5)
+    cs = canopy_split([flat], [ok], 5.0, r, h_share=0.05, tints=[tint])
+    assert cs.lean_gain == 1.0 and not cs.crown_join
+    assert math.hypot(cs.lean_col, cs.lean_row) < canopy.MIN_DOME_LEAN
+    domes = _lambert_domes(shape, centres, r, 65.0, 200.0)
+    cs = canopy_split([domes], [ok], 5.0, r, h_share=0.05, tints=[tint])
+    got = split_crowns(domes, 5.0, cs.h, smooth_px=cs.smooth_px, min_area_px=cs.min_area_px,
+                       max_area_px=cs.max_area_px, tint=tint)
+    fine = np.isfinite(got["lean_col"]) & np.isfinite(got["lean_row"])
+    measured = (np.median(got["lean_col"][fine]), np.median(got["lean_row"][fine]))
+    assert cs.crown_join and cs.lean_gain == canopy.DOME_LEAN_GAIN
+    assert cs.lean_col == pytest.approx(canopy.DOME_LEAN_GAIN * measured[0], rel=1e-9)
+    assert cs.lean_row == pytest.approx(canopy.DOME_LEAN_GAIN * measured[1], rel=1e-9)

@@ -145,6 +145,16 @@ LEAN_LEVELS = (CORE_SHARE, 0.75)
 #: level-set centroids: LEAN_LEVELS[0] / (LEAN_LEVELS[1] - LEAN_LEVELS[0]) = 2, from the
 #: geometry of a Lambertian dome (:func:`level_set_lean`), not tuned.
 LEAN_SHARE = LEAN_LEVELS[0] / (LEAN_LEVELS[1] - LEAN_LEVELS[0])
+#: With shaded domes (the lean reaches ``MIN_DOME_LEAN``) the centres are moved back by
+#: this multiple of the measured lean. The level-set estimate falls short of the drift:
+#: a cap that reaches over the dome's visible edge is cut there, so its centroid lies
+#: nearer the centre (:func:`level_set_lean`, approximations), and the watershed regions
+#: drift with the light too. After the shift by 1 × the lean, matched points on the suite's
+#: closed canopy (diagnosis seeds 0, 7, 11, 800-811) still lie a median 0.08-0.12 crown
+#: radii towards the sun. Chosen on those seeds and bounded by the tuning styles
+#: ``canopy``, ``oaks`` and ``domes`` (seeds 100-103): 1.4 lowers ``canopy`` 103 by
+#: 0.006, more than the adoption rule's 0.005 (docs/notes-canopy12.md).
+DOME_LEAN_GAIN = 1.25
 #: The lean is measured only over at least this many regions (else no shift).
 MIN_LEAN_REGIONS = 10
 #: Chromatic Excess Green above which a pixel counts as green vegetation in the switch
@@ -198,10 +208,12 @@ class CanopySplit:
     merge : bool
         Join fragments of one crown (:func:`merge_fragments`); needs the tint layer.
     lean_col, lean_row : float
-        The raster's lean (how far the centre of a region's bright part lies towards the
-        sun, in region radii: the median over the sampled regions of ``LEAN_SHARE`` × the
-        step between two level-set centroids, :func:`level_set_lean`) by which every
-        centre is moved back.
+        The shift, in region radii, by which every centre is moved back: the raster's lean
+        (how far the centre of a region's bright part lies towards the sun: the median
+        over the sampled regions of ``LEAN_SHARE`` × the step between two level-set
+        centroids, :func:`level_set_lean`) times ``lean_gain``.
+    lean_gain : float
+        ``DOME_LEAN_GAIN`` with shaded domes (``crown_join``), else 1.
     crown_join : bool
         Also join neighbours with no valley between them at the crown's own scale
         (:func:`join_at_crown_scale`); on when ``merge`` is and the raster's lean shows
@@ -219,6 +231,7 @@ class CanopySplit:
     lean_col: float = 0.0
     lean_row: float = 0.0
     crown_join: bool = False
+    lean_gain: float = 1.0
 
     @property
     def max_area_px(self) -> float | None:
@@ -1059,9 +1072,9 @@ def canopy_split(
     median over the windows' regions of each axis is removed from every centre (times its
     radius): the sun's direction and elevation are estimated once per raster, from the
     crowns themselves. When that lean reaches ``MIN_DOME_LEAN`` (the crowns are shaded
-    domes), fragments are also joined at the crown's own scale
-    (:func:`join_at_crown_scale`; ``crown_join``), and regions whose smoothed peak stays
-    below the median of the smoothed layer over the windows are dropped as gaps
+    domes), the shift is ``DOME_LEAN_GAIN`` times the lean, fragments are also joined at
+    the crown's own scale (:func:`join_at_crown_scale`; ``crown_join``), and regions whose
+    smoothed peak stays below the median of the smoothed layer over the windows are dropped as gaps
     (``min_peak``): where crowns cover most pixels the median pixel lies on a crown's
     flank, so a crown's lit top rises above it, while a patch of dark understorey or a
     shaded gap that happens to hold a maximum of its own does not (on the tuning style
@@ -1141,10 +1154,13 @@ def canopy_split(
         return split
     lean_col, lean_row = float(np.median(lc[fine])), float(np.median(lr[fine]))
     domes = math.hypot(lean_col, lean_row) >= MIN_DOME_LEAN
+    # with shaded domes the level-set estimate falls short of the drift (DOME_LEAN_GAIN)
+    gain = DOME_LEAN_GAIN if domes else 1.0
     return replace(
         split,
-        lean_col=lean_col,
-        lean_row=lean_row,
+        lean_col=gain * lean_col,
+        lean_row=gain * lean_row,
+        lean_gain=gain,
         # shaded domes (their bright part lies off-centre): leaf clumps can cut one crown
         crown_join=domes,
         # a lit dome's top is brighter than the raster's median pixel; a region that never

@@ -122,8 +122,10 @@ def _canopy_record(abands, roles, evidence, split) -> dict:
         "canopy_lean_from": (
             f"median over sampled regions of {canopy.LEAN_SHARE:g} x the step between the "
             f"centroids of the level sets {canopy.LEAN_LEVELS[0]:g} and "
-            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome)"
+            f"{canopy.LEAN_LEVELS[1]:g} of the way from floor to peak (Lambert dome), "
+            f"times {canopy.DOME_LEAN_GAIN:g} with shaded domes"
         ),
+        "canopy_lean_gain": split.lean_gain,
         "canopy_join_crown_scale": split.crown_join,
         "canopy_join_crown_scale_from": (
             f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
@@ -190,7 +192,7 @@ def _closed_canopy(info, settings, windows, roles, abands, scales, overlap, note
     )
     notes.append(
         Note(
-            "closed-canopy counts are unreliable (F1 about 0.89 on the scene suite; some "
+            "closed-canopy counts are unreliable (F1 about 0.92 on the scene suite; some "
             "big crowns counted twice or their points off centre, some small shaded ones "
             "missed): calibrate a detector on mapped crowns (ecoscan "
             "calibrate) and check with ecoscan validate",
