@@ -238,10 +238,14 @@ def test_a_simple_layer_is_good_enough_only_in_every_fold():
     assert low.f1 < GOOD_ENOUGH_F1 and not good_enough(low)
 
 
-def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one():
-    """_choose: a learnt route must beat the best simple layer by the margin; the centre
-    peaks must beat the plant probability's route by it too (the probability wins ties)."""
+def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one(monkeypatch):
+    """_choose under the old lean (ROUTE_LEAN = "simple"): a learnt route must beat the best
+    simple layer by the margin; the centre peaks must beat the plant probability's route by
+    it too (the probability wins ties)."""
+    from ecoscan.detect import calibration as cal
     from ecoscan.detect.calibration import CLASSIFIER_MARGIN, LayerScore, _choose, _LayerRun
+
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "simple")
 
     def run(name: str, counts: tuple[int, int, int]) -> _LayerRun:
         s = LayerScore.from_counts(name, counts, [0.9] * 4)
@@ -320,3 +324,19 @@ def test_learnt_lean_chooses_among_learnt_routes_as_before(monkeypatch):
     assert cal._choose(sorted([exg, prob, far], key=lambda r: -r.score.f1), exg, []) is far
     ndvi = _route("ndvi", (95, 5, 5), [0.95] * 4)
     assert cal._choose(sorted([exg, ndvi], key=lambda r: -r.score.f1), ndvi, []) is ndvi
+
+
+def test_the_classifier_is_trained_unless_asked_not_to(monkeypatch):
+    """want_classifier: under the learnt lean a simple layer perfect in every fold no longer
+    skips the classifier (it lost on new ground on the suite's coarse scenes); under the
+    old lean it does (GOOD_ENOUGH_F1); never and always are obeyed either way."""
+    from ecoscan.detect import calibration as cal
+
+    perfect = cal.LayerScore.from_counts("exg", (99, 0, 0), [1.0] * 4)
+    weak = cal.LayerScore.from_counts("exg", (80, 10, 10), [0.9] * 4)
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "learnt")
+    assert cal.want_classifier("auto", perfect) and cal.want_classifier("auto", weak)
+    assert not cal.want_classifier("never", weak) and cal.want_classifier("always", perfect)
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "simple")
+    assert not cal.want_classifier("auto", perfect) and cal.want_classifier("auto", weak)
+    assert cal.want_classifier("auto", None) and cal.want_classifier("always", perfect)
