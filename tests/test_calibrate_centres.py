@@ -257,6 +257,19 @@ def test_calibrated_on_a_packed_canopy_scores_on_unseen_ground(tmp_path, monkeyp
     )
     names = {s.layer for s in res.scores}
     assert {"probability", "centre_map"} <= names  # both learnt routes were cross-validated
+    # every route compared has a detector of its own (benchmarks score each on new ground):
+    # the chosen one is the detector itself, each holds its own route's settings and score
+    assert set(res.route_detectors) == set(res.routes)
+    assert sum(d is res.detector for d in res.route_detectors.values()) == 1
+    assert res.route_detectors["probability blobs"].split == {}
+    assert res.route_detectors["centre peaks"].kind == "centres"
+    if "probability split" in res.routes:
+        assert res.route_detectors["probability split"].split["h"] in cal.SPLIT_H_GRID
+    for name, one in res.route_detectors.items():
+        assert one.cross_validation["f1"] == pytest.approx(res.routes[name].f1, abs=1e-4), name
+        write_detector(tmp_path / f"{name.replace(' ', '_')}.toml", one)
+        back = read_detector(tmp_path / f"{name.replace(' ', '_')}.toml")
+        assert (back.kind, back.split, back.centres) == (one.kind, one.split, one.centres)
     toml = tmp_path / "d.toml"
     write_detector(toml, res.detector)
     back = read_detector(toml)

@@ -238,10 +238,14 @@ def test_a_simple_layer_is_good_enough_only_in_every_fold():
     assert low.f1 < GOOD_ENOUGH_F1 and not good_enough(low)
 
 
-def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one():
-    """_choose: a learnt route must beat the best simple layer by the margin; the centre
-    peaks must beat the plant probability's route by it too (the probability wins ties)."""
+def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one(monkeypatch):
+    """_choose under the old lean (ROUTE_LEAN = "simple"): a learnt route must beat the best
+    simple layer by the margin; the centre peaks must beat the plant probability's route by
+    it too (the probability wins ties)."""
+    from ecoscan.detect import calibration as cal
     from ecoscan.detect.calibration import CLASSIFIER_MARGIN, LayerScore, _choose, _LayerRun
+
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "simple")
 
     def run(name: str, counts: tuple[int, int, int]) -> _LayerRun:
         s = LayerScore.from_counts(name, counts, [0.9] * 4)
@@ -260,3 +264,79 @@ def test_route_choice_needs_a_learnt_route_to_beat_the_simpler_one():
     notes: list[str] = []
     assert _choose(sorted([exg, close], key=lambda r: -r.score.f1), exg, notes) is exg
     assert any("simple layer is used" in n for n in notes)
+
+
+def _route(name: str, counts: tuple[int, int, int], folds: list[float]):
+    from ecoscan.detect.calibration import LayerScore, _LayerRun
+
+    s = LayerScore.from_counts(name, counts, folds)
+    return _LayerRun(name, s, 4.0, 20.0, 0.1, 0.0, 0.0, np.ones(3))
+
+
+def test_learnt_lean_keeps_the_classifier_unless_the_simple_layer_wins_beyond_its_noise(
+    monkeypatch,
+):
+    """ROUTE_LEAN = "learnt": with a few dozen plants, Excess Green ahead of the classifier
+    by less than the standard error of the paired fold differences (a one-standard-error
+    rule: Breiman et al. 1984, CART 3.4.3; Hastie, Tibshirani & Friedman 2009, ESL 7.10)
+    does not take the route; ahead by more, it does. Under the old lean ("simple") the
+    same scores give the simple layer (a learnt route must beat it by the margin)."""
+    from ecoscan.detect import calibration as cal
+
+    # the suite's dry-shrubs pattern: Excess Green perfect in three of four folds
+    exg = _route("exg", (30, 0, 1), [1.0, 1.0, 0.967, 1.0])  # pooled 0.984
+    prob = _route("probability", (30, 2, 1), [1.0, 0.933, 0.967, 1.0])  # pooled 0.952
+    runs = sorted([exg, prob], key=lambda r: -r.score.f1)
+    se = cal.choice_noise(exg.score, prob.score)
+    gain = exg.score.f1 - prob.score.f1
+    # by hand: differences 0, 0.067, 0, 0 -> sd 0.0335, SE 0.0167; gain 0.032 = 1.9 SE
+    assert se == pytest.approx(0.0167, abs=2e-4) and gain == pytest.approx(0.032, abs=1e-3)
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "simple")
+    assert cal._choose(runs, exg, []) is exg
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "learnt")
+    monkeypatch.setattr(cal, "LEARNT_SE", 1.0)
+    assert cal._choose(runs, exg, []) is exg  # 1.9 SE: a real lead, the simple layer
+    monkeypatch.setattr(cal, "LEARNT_SE", 2.0)
+    assert cal._choose(runs, exg, []) is prob  # within 2 SE: the classifier stays
+    # a lead inside one SE keeps the classifier at LEARNT_SE 1
+    monkeypatch.setattr(cal, "LEARNT_SE", 1.0)
+    close = _route("probability", (30, 1, 1), [1.0, 0.933, 1.0, 1.0])  # pooled 0.968
+    assert cal.beats(exg.score, close.score, 0.0)  # the margin alone would give exg ...
+    assert not cal.beats(exg.score, close.score, 1.0)  # ... its noise does not
+    assert cal._choose(sorted([exg, close], key=lambda r: -r.score.f1), exg, []) is close
+    # and a classifier behind by a steady 0.06 in every fold loses whatever the lean
+    poor = _route("probability", (28, 2, 3), [0.94, 0.94, 0.907, 0.94])
+    assert cal._choose(sorted([exg, poor], key=lambda r: -r.score.f1), exg, []) is exg
+
+
+def test_learnt_lean_chooses_among_learnt_routes_as_before(monkeypatch):
+    """Under either lean, the centre peaks replace the plant probability's route only when
+    they beat it by the margin, and without a trained classifier the best simple layer is
+    used."""
+    from ecoscan.detect import calibration as cal
+
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "learnt")
+    exg = _route("exg", (90, 10, 10), [0.9] * 4)
+    prob = _route("probability", (93, 7, 7), [0.93] * 4)
+    near = _route("centre_map", (932, 68, 68), [0.932] * 4)
+    far = _route("centre_map", (95, 5, 5), [0.95] * 4)
+    assert cal._choose(sorted([exg, prob, near], key=lambda r: -r.score.f1), exg, []) is prob
+    assert cal._choose(sorted([exg, prob, far], key=lambda r: -r.score.f1), exg, []) is far
+    ndvi = _route("ndvi", (95, 5, 5), [0.95] * 4)
+    assert cal._choose(sorted([exg, ndvi], key=lambda r: -r.score.f1), ndvi, []) is ndvi
+
+
+def test_the_classifier_is_trained_unless_asked_not_to(monkeypatch):
+    """want_classifier: under the learnt lean a simple layer perfect in every fold no longer
+    skips the classifier (it lost on new ground on the suite's coarse scenes); under the
+    old lean it does (GOOD_ENOUGH_F1); never and always are obeyed either way."""
+    from ecoscan.detect import calibration as cal
+
+    perfect = cal.LayerScore.from_counts("exg", (99, 0, 0), [1.0] * 4)
+    weak = cal.LayerScore.from_counts("exg", (80, 10, 10), [0.9] * 4)
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "learnt")
+    assert cal.want_classifier("auto", perfect) and cal.want_classifier("auto", weak)
+    assert not cal.want_classifier("never", weak) and cal.want_classifier("always", perfect)
+    monkeypatch.setattr(cal, "ROUTE_LEAN", "simple")
+    assert not cal.want_classifier("auto", perfect) and cal.want_classifier("auto", weak)
+    assert cal.want_classifier("auto", None) and cal.want_classifier("always", perfect)

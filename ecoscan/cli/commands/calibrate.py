@@ -66,8 +66,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--classifier",
         choices=("auto", "always", "never"),
         default="auto",
-        help="train a pixel classifier: auto (unless a simple layer reaches F1 0.98 in "
-        "every cross-validation fold), always or never (default auto)",
+        help="train a pixel classifier: auto or always (trained, and kept unless a simple "
+        "layer scores higher in cross-validation by more than its fold-to-fold noise) or "
+        "never (simple layers only) (default auto)",
     )
     p.add_argument(
         "--seed", type=int, default=1, help="seed for pixel sampling and the forest (default 1)"
