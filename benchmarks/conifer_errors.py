@@ -199,6 +199,19 @@ def apply_variant(name: str) -> None:
         autotune.ring_test = ring
         blob_auto.ring_test = ring
         return
+    if name == "plainring":  # the ring test on the whole ring (before conifer12)
+        from ecoscan.detect.detectors import blob_auto
+
+        blob_auto._ring_open = lambda choice: False
+        return
+    if name == "noshoulder":  # the open sectors without the shoulder test
+        orig_open = chromaticity.open_ring_contrast
+
+        def open_only(centre, ring, ring_sector, inner, inner_sector):
+            return orig_open(centre, ring, ring_sector, inner[:, :0], inner_sector[:0])
+
+        chromaticity.open_ring_contrast = open_only
+        return
     if name.startswith("cap"):
         chromaticity.VALLEY_MAX = float(name[3:])
         return
