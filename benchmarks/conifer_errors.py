@@ -158,6 +158,22 @@ def apply_variant(name: str) -> None:
         chromaticity.valley_factor = traced
     if name == "base":
         return
+    if "+" in name:  # several changes together
+        for part in name.split("+"):
+            apply_variant(part)
+        return
+    if name.startswith("vshare"):  # chromaticity.VALLEY_SHARE
+        chromaticity.VALLEY_SHARE = float(name[6:])
+        return
+    if name.startswith("vscale"):  # the valley factor times this (at least 1)
+        orig_vf = chromaticity.valley_factor
+        k = float(name[6:])
+
+        def scaled(ratio, eligible):
+            return max(1.0, k * orig_vf(ratio, eligible))
+
+        chromaticity.valley_factor = scaled
+        return
     if name == "forcevalley":
         from ecoscan.detect import autotune
 

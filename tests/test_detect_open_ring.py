@@ -11,11 +11,16 @@ from scipy import ndimage, stats
 
 from ecoscan.detect.blobs import RING, _pyramid, blob_scales, ring_contrast
 from ecoscan.detect.chromaticity import (
+    CROWDED_BOUND,
     INNER,
     RING_OPEN,
     RING_SECTORS,
+    VALLEY_SHARE,
     open_ring_contrast,
+    otsu_split,
     ring_sectors,
+    valley_factor,
+    valley_threshold,
 )
 
 
@@ -121,3 +126,36 @@ def test_the_open_ring_lifts_conifer_pasture_and_is_off_on_other_layers(tmp_path
     assert f_on >= f_off + 0.01, (f_on, f_off)
     assert r.matched_on.n_matched > r.matched_off.n_matched  # trees in rows come back
     assert f_on >= 0.94
+
+
+def test_the_threshold_sits_low_in_a_valley_and_a_crowded_bound_is_kept():
+    # Two log-normal groups (ground bumps, plants) with a clean gap: the valley factor is
+    # Otsu's split of the log responses (Otsu 1979, IEEE Trans. SMC 9: 62-66), checked
+    # here against scikit-image's threshold_otsu on the same logs: both lie in the gap
+    # (the criterion is flat there; scikit-image takes a histogram bin at the gap's low
+    # end, within one bin, otsu_split the gap's middle). The detection's
+    # threshold is VALLEY_SHARE of it, above the ground group's median, below every plant.
+    from skimage.filters import threshold_otsu
+
+    rng = np.random.default_rng(5)
+    ground = np.exp(rng.normal(np.log(4.0), 0.2, 300))
+    plants = np.exp(rng.normal(np.log(40.0), 0.2, 150))
+    ratio = np.r_[ground, plants]
+    logs = np.log(ratio)
+    factor = valley_factor(ratio, np.ones(ratio.size, bool))
+    lo, hi = np.log(ground).max(), np.log(plants).min()
+    width = (logs.max() - logs.min()) / 256  # scikit-image's bin width
+    assert lo - width <= threshold_otsu(logs) <= hi
+    assert math.log(factor) == pytest.approx(0.5 * (lo + hi))
+    assert math.log(factor) == pytest.approx(otsu_split(logs))
+    t = valley_threshold(factor)
+    assert t == pytest.approx(VALLEY_SHARE * factor)
+    assert np.median(ground) < t < plants.min()
+    # never below the noise threshold itself
+    assert valley_threshold(1.1) == 1.0
+    # a split inside one group stops at CROWDED_BOUND (row crops at 6.8 times the floor,
+    # held-out seed 202): that bound keeps the group whole and is not lowered
+    one = np.exp(rng.normal(np.log(6.8), 0.05, 200))
+    crowded = valley_factor(one, np.ones(one.size, bool))
+    assert crowded == CROWDED_BOUND
+    assert valley_threshold(crowded) == CROWDED_BOUND

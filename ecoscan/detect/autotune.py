@@ -377,6 +377,8 @@ def ring_test(choice: LayerChoice) -> float | None:
     True
     """
     rough = choice.threshold_raise > 1.0 or choice.near_share > GAP_SHARE
+    # the colour layer's valley threshold relies on the ring test (conifer12)
+    rough = rough or f"{choice.name}-valley" in choice.scores
     return RING_MADS if rough else None
 
 
@@ -1499,6 +1501,7 @@ def _shadow_free_valley(
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
     (docs/detection.md, "Conifer pasture, fourth round").
     """
+    from ecoscan.detect.chromaticity import valley_threshold
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES
     from ecoscan.detect.elongation import is_aligned
 
@@ -1542,7 +1545,9 @@ def _shadow_free_valley(
     out = {
         **cres,
         "response_spread": sr,
-        "raise": factor,
+        # the detection's threshold sits lower in the valley: the open ring test drops the
+        # shoulders (rims, shadow edges) of the ground group (chromaticity.VALLEY_SHARE)
+        "raise": valley_threshold(factor),
         "separation": med * (1.0 - min(1.0, near)),
         "near_share": near,
         "candidates": n_kept,

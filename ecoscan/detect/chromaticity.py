@@ -52,6 +52,7 @@ __all__ = [
     "smoothing_rule",
     "valley_factor",
     "valley_rule",
+    "valley_threshold",
 ]
 
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
@@ -114,6 +115,13 @@ VALLEY_MAX = math.inf
 CROWDED_SHARE = 0.3
 CROWDED_WIDTH = 0.1
 CROWDED_BOUND = 6.0
+#: The detection's threshold sits at this share of the valley factor (at least 1; the
+#: candidates kept for the layer choice are still those above the full factor). The valley
+#: is Otsu's split between the ground's bumps and the plants; most bumps in the upper part
+#: of the ground group are shoulders (crown rims, shadow edges) that the ring test on the
+#: open sectors drops (:func:`open_ring_contrast`), so the threshold can sit lower and keep
+#: the weaker crowns (regeneration, crowns in a neighbour's shadow). 1 is Otsu's split.
+VALLEY_SHARE = 0.7
 #: The ring test on this layer (:func:`open_ring_contrast`) splits the ring around a blob
 #: into this many equal sectors of direction ...
 RING_SECTORS = 8
@@ -426,6 +434,22 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     return float(factor)
 
 
+def valley_threshold(factor: float) -> float:
+    """The detection's threshold factor from the valley factor (:func:`valley_factor`):
+    ``VALLEY_SHARE`` of it, at least 1, where the factor is a valley between two groups;
+    the factor itself where it stopped at ``CROWDED_BOUND`` (one group, no valley: the
+    bound there keeps a group of plants whole and is not lowered).
+
+    Examples
+    --------
+    >>> round(valley_threshold(10.0), 6), valley_threshold(1.2), valley_threshold(CROWDED_BOUND)
+    (7.0, 1.0, 6.0)
+    """
+    if factor == CROWDED_BOUND:
+        return float(factor)
+    return float(max(1.0, VALLEY_SHARE * factor))
+
+
 def otsu_split(values: np.ndarray) -> float | None:
     """Otsu's split of values, exactly: the cut between two neighbouring sorted values
     that maximises the between-class variance w0 w1 (mu0 - mu1)^2 (Otsu 1979), placed
@@ -581,10 +605,10 @@ def valley_rule() -> dict[str, str]:
             "reference scale"
         ),
         "threshold_raise_from": (
-            "Otsu's split of the log responses (over that threshold) of the candidates at "
-            "or above the background median: the valley between ground and plants, at "
-            f"least 1; at most {CROWDED_BOUND:g} where more than {CROWDED_SHARE:g} of the "
-            "candidates sit near the split (one group, no valley)"
+            f"{VALLEY_SHARE:g} x Otsu's split of the log responses (over that threshold) of "
+            "the candidates at or above the background median: low in the valley between "
+            f"ground and plants, at least 1; the split at most {CROWDED_BOUND:g} where more "
+            f"than {CROWDED_SHARE:g} of the candidates sit near it (one group, no valley)"
         ),
         "vegetation_threshold_from": "background median",
     }
