@@ -99,7 +99,9 @@ def classify(raster, truth_xy, truth_d, kind, dmin, dmax) -> dict:
             out["miss"][key] += 1
     tree = cKDTree(truth_xy)
     fx = det[~found_d]
-    shade_f = _in_shadow(fx, truth_xy[planted], rad[planted]) if len(fx) and planted.any() else []
+    shade_f = np.zeros(len(fx), bool)
+    if len(fx) and planted.any():
+        shade_f = _in_shadow(fx, truth_xy[planted], rad[planted])
     for k, p in enumerate(fx):
         dd, i = tree.query(p)
         if dd < rad[i]:
@@ -161,6 +163,15 @@ def apply_variant(name: str) -> None:
     if "+" in name:  # several changes together
         for part in name.split("+"):
             apply_variant(part)
+        return
+    if name.startswith("margin"):  # chromaticity.SHOULDER_MARGIN
+        chromaticity.SHOULDER_MARGIN = float(name[6:])
+        return
+    if name.startswith("shsec"):  # chromaticity.SHOULDER_SECTORS
+        chromaticity.SHOULDER_SECTORS = int(name[5:])
+        return
+    if name.startswith("inner"):  # chromaticity.INNER_OUT (the shoulder band's outer edge)
+        chromaticity.INNER_OUT = float(name[5:])
         return
     if name.startswith("vshare"):  # chromaticity.VALLEY_SHARE
         chromaticity.VALLEY_SHARE = float(name[6:])

@@ -570,9 +570,10 @@ def _level_maxima(
         thr_b = thr[zi - 1, 0, 0] if np.ndim(thr) else np.float32(thr)
         ok |= (value >= strong[0]) & (resp[zi, yi, xi] >= np.float32(strong[1]) * thr_b)
     if ring_mads is not None and ok.any():
-        ok[ok] = ring_contrast(
-            blurs, zi[ok], yi[ok], xi[ok], level_valid, scales, ext, f, ring_open
-        ) >= ring_mads
+        ok[ok] = (
+            ring_contrast(blurs, zi[ok], yi[ok], xi[ok], level_valid, scales, ext, f, ring_open)
+            >= ring_mads
+        )
     zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
     r = resp[zi, yi, xi]
     h, w = resp.shape[1:]
@@ -689,13 +690,14 @@ _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
 def _open_ring(img, yi, xi, level_valid, radius, oy, ox, ring):
     """:func:`ecoscan.detect.chromaticity.open_ring_contrast` of blobs at one scale: the
     ring values ``ring`` at offsets (``oy``, ``ox``) and the inner band read here."""
-    from ecoscan.detect.chromaticity import INNER, open_ring_contrast, ring_sectors
+    from ecoscan.detect import chromaticity as chroma
 
     h, w = img.shape
     reach = math.ceil(RING[0] * radius)
     iy, ix = np.mgrid[-reach : reach + 1, -reach : reach + 1]
     dist = np.hypot(iy, ix)
-    band = (dist >= INNER * radius) & (dist < RING[0] * radius)
+    outer = min(chroma.INNER_OUT, RING[0])
+    band = (dist >= chroma.INNER * radius) & (dist < outer * radius)
     iy, ix = iy[band], ix[band]
     ry, rx = yi[:, None] + iy[None], xi[:, None] + ix[None]
     inside = (ry >= 0) & (ry < h) & (rx >= 0) & (rx < w)
@@ -703,7 +705,8 @@ def _open_ring(img, yi, xi, level_valid, radius, oy, ox, ring):
     inside &= level_valid[ry, rx]
     inner = np.where(inside, img[ry, rx], np.nan).astype(float)
     centre = img[yi, xi].astype(float)
-    return open_ring_contrast(centre, ring, ring_sectors(oy, ox), inner, ring_sectors(iy, ix))
+    sectors = chroma.ring_sectors
+    return chroma.open_ring_contrast(centre, ring, sectors(oy, ox), inner, sectors(iy, ix))
 
 
 def ring_reach_px(scales: BlobScales) -> int:

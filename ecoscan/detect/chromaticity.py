@@ -49,6 +49,7 @@ __all__ = [
     "recentre",
     "recentre_reach_px",
     "ring_sectors",
+    "shallow_valley",
     "smoothing_rule",
     "valley_factor",
     "valley_rule",
@@ -136,6 +137,23 @@ RING_OPEN = 4
 #: layer does not fall away from the blob in that direction, so the blob is a shoulder of
 #: something bigger (a crown's rim or lobe, a shadow's edge), not a crown of its own.
 INNER = 1.0
+#: Outer edge of that band (blob radii; at most the ring's inner edge).
+INNER_OUT = 2.0
+#: A shoulder needs this many sectors of the inner band at or above the centre ...
+SHOULDER_SECTORS = 1
+#: ... plus this share of the blob's contrast above the open ground (a lobe of the crown
+#: itself may sit a little above the smoothed centre). Chosen on the suite's development
+#: seeds and diagnosis seeds 700-720: 0 gave mean F1 0.949 on 700-720, 0.1 about 0.96,
+#: 0.25 let rims and shadow edges back (seed 700: 0.835).
+SHOULDER_MARGIN = 0.1
+#: The open ring and the low threshold apply only where the colour layer's valley is
+#: shallow: its separation score (the kept candidates' median response over the valley
+#: threshold, ``autotune._shadow_free_valley``) below this. Measured: 1.4-2.x on the
+#: suite's conifer pasture (development seeds, 700-720), where rims and shadow edges
+#: reach near the crowns; 3.5 on tuning ``conifers`` 101 (star crowns found in fragments,
+#: which the shoulder test dropped: F1 0.707 -> 0.624), 13-16 on tuning ``pines`` and
+#: ``pasture``, where the valley alone separates.
+SHALLOW_VALLEY = 3.0
 
 
 def band_blur_px(sigma_min_px: float) -> float:
@@ -434,6 +452,18 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     return float(factor)
 
 
+def shallow_valley(score: float) -> bool:
+    """Whether the colour layer's valley is shallow (separation score below
+    ``SHALLOW_VALLEY``): the open ring test and the low threshold apply.
+
+    Examples
+    --------
+    >>> shallow_valley(1.8), shallow_valley(13.0)
+    (True, False)
+    """
+    return bool(score < SHALLOW_VALLEY)
+
+
 def valley_threshold(factor: float) -> float:
     """The detection's threshold factor from the valley factor (:func:`valley_factor`):
     ``VALLEY_SHARE`` of it, at least 1, where the factor is a valley between two groups;
@@ -507,9 +537,10 @@ def open_ring_contrast(
     median of those sectors' pixels, over their robust SD (1.4826 × MAD; Hampel, F. R.
     1974, JASA 69: 383-393). Leaving out the high sectors would also let a crown's rim
     or a shadow's edge pass, whose ring holds the crown it leans on; such a blob has no
-    fall of its own towards that crown. So a blob scores 0 when any sector of its inner
-    band (``INNER`` to the ring's inner edge, in blob radii) has a median at or above the
-    centre: a blob is a local maximum of its own surroundings in every direction
+    fall of its own towards that crown. So a blob scores 0 when ``SHOULDER_SECTORS``
+    sectors of its inner band (``INNER`` to ``INNER_OUT`` blob radii) have a median at or
+    above the centre plus ``SHOULDER_MARGIN`` of its rise above the open ground: a blob is
+    a local maximum of its own surroundings in every direction
     (Lindeberg, T. 1998, *Feature detection with automatic scale selection*, IJCV 30:
     79-116, §5: a blob is a region brighter than its surround; common practice for
     non-maximum suppression).
@@ -555,7 +586,8 @@ def open_ring_contrast(
     inner = np.asarray(inner, float)
     n = c.size
     med_s = np.full((n, RING_SECTORS), np.inf)
-    top_inner = np.full(n, -np.inf)
+    high = np.zeros(n, np.int64)  # sectors of the inner band at or above the centre
+    inner_meds = []
     with np.errstate(all="ignore"):
         for s in range(RING_SECTORS):
             cols = ring[:, ring_sector == s]
@@ -565,7 +597,7 @@ def open_ring_contrast(
             cols = inner[:, inner_sector == s]
             if cols.shape[1]:
                 have = np.isfinite(cols).any(axis=1)
-                top_inner[have] = np.maximum(top_inner[have], np.nanmedian(cols[have], axis=1))
+                inner_meds.append((have, np.nanmedian(cols[have], axis=1)))
     order = np.argsort(med_s, axis=1, kind="stable")
     keep = np.zeros(med_s.shape, bool)
     np.put_along_axis(keep, order[:, :RING_OPEN], True, axis=1)
@@ -579,7 +611,14 @@ def open_ring_contrast(
             mad = 1.4826 * np.nanmedian(np.abs(open_px[has] - med[:, None]), axis=1)
             z = np.where(mad > 0, (c[has] - med) / mad, np.where(c[has] > med, np.inf, 0.0))
         out[has] = z
-    out[~(c > top_inner)] = 0.0  # a shoulder: the layer does not fall away all round
+    ground = np.full(n, np.nan)
+    if has.any():
+        ground[has] = med
+    rise = np.where(np.isfinite(ground), np.maximum(c - ground, 0.0), 0.0)
+    level = c + SHOULDER_MARGIN * rise
+    for have, m in inner_meds:
+        high[have] += m >= level[have]
+    out[high >= SHOULDER_SECTORS] = 0.0  # a shoulder: the layer does not fall away all round
     return out
 
 
@@ -605,10 +644,11 @@ def valley_rule() -> dict[str, str]:
             "reference scale"
         ),
         "threshold_raise_from": (
-            f"{VALLEY_SHARE:g} x Otsu's split of the log responses (over that threshold) of "
-            "the candidates at or above the background median: low in the valley between "
-            f"ground and plants, at least 1; the split at most {CROWDED_BOUND:g} where more "
-            f"than {CROWDED_SHARE:g} of the candidates sit near it (one group, no valley)"
+            "Otsu's split of the log responses (over that threshold) of the candidates at "
+            "or above the background median: the valley between ground and plants, at "
+            f"least 1 (times {VALLEY_SHARE:g} where the valley is shallow and the open ring "
+            f"test runs); at most {CROWDED_BOUND:g} where more than {CROWDED_SHARE:g} of the "
+            "candidates sit near the split (one group, no valley)"
         ),
         "vegetation_threshold_from": "background median",
     }
@@ -727,7 +767,10 @@ def open_ring_rule() -> dict[str, str]:
             f"median over the {RING_OPEN} lowest of {RING_SECTORS} sectors of a ring 2-3 "
             "blob radii out (neighbouring crowns left out) by this many robust SDs (1.4826 "
             "MAD) of those sectors, and stand above the median of every sector between "
-            f"{INNER:g} blob radius and the ring (not a shoulder of a bigger crown or shadow)"
+            f"{INNER:g} and {INNER_OUT:g} blob radii (by {SHOULDER_MARGIN:g} of its rise over "
+            "that ground: not a shoulder of a bigger crown or shadow); only where the "
+            f"colour layer's valley is shallow (separation score below {SHALLOW_VALLEY:g}), "
+            f"with the threshold at {VALLEY_SHARE:g} of the valley factor"
         ),
     }
 

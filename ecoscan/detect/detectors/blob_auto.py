@@ -288,11 +288,10 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
 
 def _ring_open(choice) -> bool:
     """The ring test on its open sectors, shoulders dropped
-    (:func:`ecoscan.detect.chromaticity.open_ring_contrast`): on the log-chromaticity layer
-    only (conifer12; measured there, docs/notes-conifer12.md)."""
-    from ecoscan.detect.autotune import SHADOW_FREE
+    (:func:`ecoscan.detect.autotune.open_ring`; conifer12, docs/notes-conifer12.md)."""
+    from ecoscan.detect.autotune import open_ring
 
-    return choice.name in SHADOW_FREE
+    return open_ring(choice)
 
 
 def _second_layer(choice, windows, roles, scales, settings, scoring=None):
