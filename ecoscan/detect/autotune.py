@@ -1572,7 +1572,8 @@ def _shadow_free_valley(
         "response_spread": sr,
         # in a shallow valley the detection's threshold sits lower: the open ring test
         # drops the shoulders (rims, shadow edges) of the ground group (conifer12)
-        "raise": valley_threshold(factor) if shallow_valley(separation) else factor,
+        # (the score as recorded in choice.scores, which open_ring reads)
+        "raise": valley_threshold(factor) if shallow_valley(round(separation, 3)) else factor,
         "separation": separation,
         "near_share": near,
         "candidates": n_kept,
