@@ -99,7 +99,9 @@ def classify(raster, truth_xy, truth_d, kind, dmin, dmax) -> dict:
             out["miss"][key] += 1
     tree = cKDTree(truth_xy)
     fx = det[~found_d]
-    shade_f = _in_shadow(fx, truth_xy[planted], rad[planted]) if len(fx) and planted.any() else []
+    shade_f = np.zeros(len(fx), bool)
+    if len(fx) and planted.any():
+        shade_f = _in_shadow(fx, truth_xy[planted], rad[planted])
     for k, p in enumerate(fx):
         dd, i = tree.query(p)
         if dd < rad[i]:
@@ -158,6 +160,31 @@ def apply_variant(name: str) -> None:
         chromaticity.valley_factor = traced
     if name == "base":
         return
+    if "+" in name:  # several changes together
+        for part in name.split("+"):
+            apply_variant(part)
+        return
+    if name.startswith("margin"):  # chromaticity.SHOULDER_MARGIN
+        chromaticity.SHOULDER_MARGIN = float(name[6:])
+        return
+    if name.startswith("shsec"):  # chromaticity.SHOULDER_SECTORS
+        chromaticity.SHOULDER_SECTORS = int(name[5:])
+        return
+    if name.startswith("inner"):  # chromaticity.INNER_OUT (the shoulder band's outer edge)
+        chromaticity.INNER_OUT = float(name[5:])
+        return
+    if name.startswith("vshare"):  # chromaticity.VALLEY_SHARE
+        chromaticity.VALLEY_SHARE = float(name[6:])
+        return
+    if name.startswith("vscale"):  # the valley factor times this (at least 1)
+        orig_vf = chromaticity.valley_factor
+        k = float(name[6:])
+
+        def scaled(ratio, eligible):
+            return max(1.0, k * orig_vf(ratio, eligible))
+
+        chromaticity.valley_factor = scaled
+        return
     if name == "forcevalley":
         from ecoscan.detect import autotune
 
@@ -198,6 +225,19 @@ def apply_variant(name: str) -> None:
 
         autotune.ring_test = ring
         blob_auto.ring_test = ring
+        return
+    if name == "plainring":  # the ring test on the whole ring (before conifer12)
+        from ecoscan.detect.detectors import blob_auto
+
+        blob_auto._ring_open = lambda choice: False
+        return
+    if name == "noshoulder":  # the open sectors without the shoulder test
+        orig_open = chromaticity.open_ring_contrast
+
+        def open_only(centre, ring, ring_sector, inner, inner_sector):
+            return orig_open(centre, ring, ring_sector, inner[:, :0], inner_sector[:0])
+
+        chromaticity.open_ring_contrast = open_only
         return
     if name.startswith("cap"):
         chromaticity.VALLEY_MAX = float(name[3:])

@@ -243,7 +243,12 @@ def test_valley_factor_above_six_on_a_conifer_scene(tmp_path):
     f1, res = suite_scene_f1("conifer-pasture", 384, 300, tmp_path)
     th = res.thresholds
     assert th["layer"] == "chroma"
-    assert th["threshold_raise"] > 6.5
+    # in a shallow valley the detection's threshold sits at VALLEY_SHARE of the valley
+    # factor, with the open ring test (conifer12)
+    from ecoscan.detect.chromaticity import VALLEY_SHARE
+
+    opened = "sectors" in th["ring_mads_from"]
+    assert th["threshold_raise"] / (VALLEY_SHARE if opened else 1.0) > 6.5
     assert f1 >= 0.89, f"F1 {f1:.3f}"
 
 

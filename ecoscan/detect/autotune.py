@@ -53,6 +53,7 @@ __all__ = [
     "candidate_layers",
     "choose_layer",
     "near_shares",
+    "open_ring",
     "ring_test",
     "robust_centre_scale",
     "strong_test",
@@ -377,7 +378,32 @@ def ring_test(choice: LayerChoice) -> float | None:
     True
     """
     rough = choice.threshold_raise > 1.0 or choice.near_share > GAP_SHARE
+    # the colour layer's threshold low in a shallow valley relies on the ring test (conifer12)
+    rough = rough or open_ring(choice)
     return RING_MADS if rough else None
+
+
+def open_ring(choice: LayerChoice) -> bool:
+    """Whether the ring test measures the ring's open sectors and drops shoulders
+    (:func:`ecoscan.detect.chromaticity.open_ring_contrast`), with the threshold low in
+    the valley (:func:`ecoscan.detect.chromaticity.valley_threshold`): on the
+    log-chromaticity layer where its valley is shallow
+    (:func:`ecoscan.detect.chromaticity.shallow_valley`; conifer12).
+
+    Examples
+    --------
+    >>> c = LayerChoice("chroma", (), 0.0, 1.0, (1.0,), 1.0, 0.0, 1.8, 0.0, 90,
+    ...                 scores={"chroma-valley": 1.8})
+    >>> open_ring(c)
+    True
+    >>> from dataclasses import replace
+    >>> open_ring(replace(c, scores={"chroma-valley": 13.0}))
+    False
+    """
+    from ecoscan.detect.chromaticity import shallow_valley
+
+    score = choice.scores.get(f"{choice.name}-valley")
+    return choice.name in SHADOW_FREE and score is not None and shallow_valley(score)
 
 
 def strong_test(choice: LayerChoice) -> tuple[float, float] | None:
@@ -1499,6 +1525,7 @@ def _shadow_free_valley(
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
     (docs/detection.md, "Conifer pasture, fourth round").
     """
+    from ecoscan.detect.chromaticity import shallow_valley, valley_threshold
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES
     from ecoscan.detect.elongation import is_aligned
 
@@ -1539,11 +1566,15 @@ def _shadow_free_valley(
     blobs = np.array([cand[k][kept] for k in _KEPT_FIELDS], dtype=float)
     own = _kept_elongation(layers, cache.windows, blobs, m)
     med = RESPONSE_MADS * float(np.median(ratio[kept])) / factor
+    separation = med * (1.0 - min(1.0, near))
     out = {
         **cres,
         "response_spread": sr,
-        "raise": factor,
-        "separation": med * (1.0 - min(1.0, near)),
+        # in a shallow valley the detection's threshold sits lower: the open ring test
+        # drops the shoulders (rims, shadow edges) of the ground group (conifer12)
+        # (the score as recorded in choice.scores, which open_ring reads)
+        "raise": valley_threshold(factor) if shallow_valley(round(separation, 3)) else factor,
+        "separation": separation,
         "near_share": near,
         "candidates": n_kept,
         "min_value": m,

@@ -446,6 +446,7 @@ def detect_blobs(
     background: float = 0.0,
     ring_mads: float | None = None,
     strong: tuple[float, float] | None = None,
+    ring_open: bool = False,
 ) -> dict[str, np.ndarray]:
     """Find bright blobs as maxima of the normalised DoG over position and scale.
 
@@ -475,6 +476,10 @@ def detect_blobs(
         smoothed at the blob's scale must exceed the median of the same smoothed layer on
         a ring ``RING`` blob radii out by ``ring_mads`` robust standard deviations of the
         ring (:func:`ring_contrast`). None (default) skips the test.
+    ring_open : bool
+        Measure the ring on its open sectors only and drop shoulders
+        (:func:`ecoscan.detect.chromaticity.open_ring_contrast`; the log-chromaticity
+        layer, conifer12).
 
     Returns
     -------
@@ -500,6 +505,7 @@ def detect_blobs(
             origin,
             ring_mads,
             strong,
+            ring_open,
         )
     return {n: (np.concatenate(v).astype(float) if v else np.empty(0)) for n, v in out.items()}
 
@@ -541,6 +547,7 @@ def _level_maxima(
     origin,
     ring_mads=None,
     strong=None,
+    ring_open=False,
 ):
     """Append the blobs of one pyramid level to ``out`` (see :func:`detect_blobs`)."""
     f = 2**lev
@@ -563,8 +570,9 @@ def _level_maxima(
         thr_b = thr[zi - 1, 0, 0] if np.ndim(thr) else np.float32(thr)
         ok |= (value >= strong[0]) & (resp[zi, yi, xi] >= np.float32(strong[1]) * thr_b)
     if ring_mads is not None and ok.any():
-        ok[ok] = ring_contrast(blurs, zi[ok], yi[ok], xi[ok], level_valid, scales, ext, f) >= (
-            ring_mads
+        ok[ok] = (
+            ring_contrast(blurs, zi[ok], yi[ok], xi[ok], level_valid, scales, ext, f, ring_open)
+            >= ring_mads
         )
     zi, yi, xi, value = zi[ok], yi[ok], xi[ok], value[ok]
     r = resp[zi, yi, xi]
@@ -595,6 +603,7 @@ def ring_contrast(
     scales: BlobScales,
     ext: np.ndarray,
     f: int,
+    open_sectors: bool = False,
 ) -> np.ndarray:
     """How far each blob stands out from its own ring of background, in robust SDs.
 
@@ -620,6 +629,9 @@ def ring_contrast(
         Index in ``scales.sigmas`` of each scale of the stack.
     f : int
         Full-resolution pixels per level pixel (``2 ** level``).
+    open_sectors : bool
+        Use the ring's open sectors only and score shoulders 0
+        (:func:`ecoscan.detect.chromaticity.open_ring_contrast`).
 
     Returns
     -------
@@ -658,6 +670,11 @@ def ring_contrast(
         if not has.any():
             continue
         ring = ring[has]
+        if open_sectors:  # the log-chromaticity layer's ring test (conifer12)
+            out[sel[has]] = _open_ring(
+                img, yi[sel][has], xi[sel][has], level_valid, radius, oy, ox, ring
+            )
+            continue
         med = np.nanmedian(ring, axis=1)
         mad = _MAD_TO_SD * np.nanmedian(np.abs(ring - med[:, None]), axis=1)
         centre = img[yi[sel][has], xi[sel][has]].astype(float)
@@ -668,6 +685,28 @@ def ring_contrast(
 
 
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
+
+
+def _open_ring(img, yi, xi, level_valid, radius, oy, ox, ring):
+    """:func:`ecoscan.detect.chromaticity.open_ring_contrast` of blobs at one scale: the
+    ring values ``ring`` at offsets (``oy``, ``ox``) and the inner band read here."""
+    from ecoscan.detect import chromaticity as chroma
+
+    h, w = img.shape
+    reach = math.ceil(RING[0] * radius)
+    iy, ix = np.mgrid[-reach : reach + 1, -reach : reach + 1]
+    dist = np.hypot(iy, ix)
+    outer = min(chroma.INNER_OUT, RING[0])
+    band = (dist >= chroma.INNER * radius) & (dist < outer * radius)
+    iy, ix = iy[band], ix[band]
+    ry, rx = yi[:, None] + iy[None], xi[:, None] + ix[None]
+    inside = (ry >= 0) & (ry < h) & (rx >= 0) & (rx < w)
+    ry, rx = np.clip(ry, 0, h - 1), np.clip(rx, 0, w - 1)
+    inside &= level_valid[ry, rx]
+    inner = np.where(inside, img[ry, rx], np.nan).astype(float)
+    centre = img[yi, xi].astype(float)
+    sectors = chroma.ring_sectors
+    return chroma.open_ring_contrast(centre, ring, sectors(oy, ox), inner, sectors(iy, ix))
 
 
 def ring_reach_px(scales: BlobScales) -> int:

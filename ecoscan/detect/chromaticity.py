@@ -42,13 +42,18 @@ __all__ = [
     "floor_spread",
     "invariant_terms",
     "log_chromaticity",
+    "open_ring_contrast",
+    "open_ring_rule",
     "otsu_split",
     "projection_entropy",
     "recentre",
     "recentre_reach_px",
+    "ring_sectors",
+    "shallow_valley",
     "smoothing_rule",
     "valley_factor",
     "valley_rule",
+    "valley_threshold",
 ]
 
 #: Added to every band (digital numbers) before the logarithm, so that black pixels of
@@ -111,6 +116,44 @@ VALLEY_MAX = math.inf
 CROWDED_SHARE = 0.3
 CROWDED_WIDTH = 0.1
 CROWDED_BOUND = 6.0
+#: The detection's threshold sits at this share of the valley factor (at least 1; the
+#: candidates kept for the layer choice are still those above the full factor). The valley
+#: is Otsu's split between the ground's bumps and the plants; most bumps in the upper part
+#: of the ground group are shoulders (crown rims, shadow edges) that the ring test on the
+#: open sectors drops (:func:`open_ring_contrast`), so the threshold can sit lower and keep
+#: the weaker crowns (regeneration, crowns in a neighbour's shadow). 1 is Otsu's split.
+VALLEY_SHARE = 0.7
+#: The ring test on this layer (:func:`open_ring_contrast`) splits the ring around a blob
+#: into this many equal sectors of direction ...
+RING_SECTORS = 8
+#: ... and measures the ground on the ``RING_OPEN`` sectors with the lowest median only:
+#: in planted rows 3-4 m apart the ring 2-3 crown radii out holds the neighbouring trees in
+#: two to four of the eight sectors, which raised the ring's median and widened its MAD so
+#: that a tree in its row failed the test (docs/detection.md, "Conifer pasture, sixth
+#: round": the ring test off lifted those seeds but let rims and shadows back).
+RING_OPEN = 4
+#: A blob fails when, in any sector, the layer between one blob radius and the ring
+#: (``INNER`` radii) stands, by its median, at least as high as the blob's centre: the
+#: layer does not fall away from the blob in that direction, so the blob is a shoulder of
+#: something bigger (a crown's rim or lobe, a shadow's edge), not a crown of its own.
+INNER = 1.0
+#: Outer edge of that band (blob radii; at most the ring's inner edge).
+INNER_OUT = 2.0
+#: A shoulder needs this many sectors of the inner band at or above the centre ...
+SHOULDER_SECTORS = 1
+#: ... plus this share of the blob's contrast above the open ground (a lobe of the crown
+#: itself may sit a little above the smoothed centre). Chosen on the suite's development
+#: seeds and diagnosis seeds 700-720: 0 gave mean F1 0.949 on 700-720, 0.1 about 0.96,
+#: 0.25 let rims and shadow edges back (seed 700: 0.835).
+SHOULDER_MARGIN = 0.1
+#: The open ring and the low threshold apply only where the colour layer's valley is
+#: shallow: its separation score (the kept candidates' median response over the valley
+#: threshold, ``autotune._shadow_free_valley``) below this. Measured: 1.4-2.x on the
+#: suite's conifer pasture (development seeds, 700-720), where rims and shadow edges
+#: reach near the crowns; 3.5 on tuning ``conifers`` 101 (star crowns found in fragments,
+#: which the shoulder test dropped: F1 0.707 -> 0.624), 13-16 on tuning ``pines`` and
+#: ``pasture``, where the valley alone separates.
+SHALLOW_VALLEY = 3.0
 
 
 def band_blur_px(sigma_min_px: float) -> float:
@@ -409,6 +452,34 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     return float(factor)
 
 
+def shallow_valley(score: float) -> bool:
+    """Whether the colour layer's valley is shallow (separation score below
+    ``SHALLOW_VALLEY``): the open ring test and the low threshold apply.
+
+    Examples
+    --------
+    >>> shallow_valley(1.8), shallow_valley(13.0)
+    (True, False)
+    """
+    return bool(score < SHALLOW_VALLEY)
+
+
+def valley_threshold(factor: float) -> float:
+    """The detection's threshold factor from the valley factor (:func:`valley_factor`):
+    ``VALLEY_SHARE`` of it, at least 1, where the factor is a valley between two groups;
+    the factor itself where it stopped at ``CROWDED_BOUND`` (one group, no valley: the
+    bound there keeps a group of plants whole and is not lowered).
+
+    Examples
+    --------
+    >>> round(valley_threshold(10.0), 6), valley_threshold(1.2), valley_threshold(CROWDED_BOUND)
+    (7.0, 1.0, 6.0)
+    """
+    if factor == CROWDED_BOUND:
+        return float(factor)
+    return float(max(1.0, VALLEY_SHARE * factor))
+
+
 def otsu_split(values: np.ndarray) -> float | None:
     """Otsu's split of values, exactly: the cut between two neighbouring sorted values
     that maximises the between-class variance w0 w1 (mu0 - mu1)^2 (Otsu 1979), placed
@@ -435,6 +506,122 @@ def otsu_split(values: np.ndarray) -> float | None:
     return 0.5 * float(v[i] + v[i + 1])
 
 
+def ring_sectors(oy: np.ndarray, ox: np.ndarray) -> np.ndarray:
+    """Sector (0 to ``RING_SECTORS`` - 1) of each ring offset (rows ``oy``, columns ``ox``),
+    by direction: equal angles, counted from the negative column axis.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ring_sectors(np.array([0, 1, 0, -1]), np.array([1, 0, -1, 0])).tolist()
+    [4, 6, 0, 2]
+    """
+    angle = np.arctan2(np.asarray(oy, float), np.asarray(ox, float)) + math.pi
+    return (angle / (2.0 * math.pi) * RING_SECTORS).astype(np.int64) % RING_SECTORS
+
+
+def open_ring_contrast(
+    centre: np.ndarray,
+    ring: np.ndarray,
+    ring_sector: np.ndarray,
+    inner: np.ndarray,
+    inner_sector: np.ndarray,
+) -> np.ndarray:
+    """How far each blob stands above the open ground of its ring, in robust SDs; 0 for a
+    blob that is a shoulder of something bigger.
+
+    The ring test of :func:`ecoscan.detect.blobs.ring_contrast` for the log-chromaticity
+    layer. Of the ``RING_SECTORS`` sectors of the ring, the ``RING_OPEN`` with the lowest
+    median stand for the ground: a neighbouring crown fills a few sectors and is left out,
+    where it raised the whole ring's median and MAD. The figure is the centre minus the
+    median of those sectors' pixels, over their robust SD (1.4826 × MAD; Hampel, F. R.
+    1974, JASA 69: 383-393). Leaving out the high sectors would also let a crown's rim
+    or a shadow's edge pass, whose ring holds the crown it leans on; such a blob has no
+    fall of its own towards that crown. So a blob scores 0 when ``SHOULDER_SECTORS``
+    sectors of its inner band (``INNER`` to ``INNER_OUT`` blob radii) have a median at or
+    above the centre plus ``SHOULDER_MARGIN`` of its rise above the open ground: a blob is
+    a local maximum of its own surroundings in every direction
+    (Lindeberg, T. 1998, *Feature detection with automatic scale selection*, IJCV 30:
+    79-116, §5: a blob is a region brighter than its surround; common practice for
+    non-maximum suppression).
+
+    Parameters
+    ----------
+    centre : numpy.ndarray
+        The smoothed layer at each blob's centre, shape (n,).
+    ring : numpy.ndarray
+        The same layer over the ring, shape (n, m); NaN where a pixel is missing.
+    ring_sector : numpy.ndarray of int
+        Sector of each of the m ring offsets (:func:`ring_sectors`).
+    inner : numpy.ndarray
+        The layer over the inner band, shape (n, k); NaN where missing.
+    inner_sector : numpy.ndarray of int
+        Sector of each of the k inner offsets.
+
+    Returns
+    -------
+    numpy.ndarray
+        Robust SDs above the open ground per blob (+inf with a flat ground above which the
+        centre stands, 0 for a shoulder or a blob at or below the ground).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> oy, ox = np.mgrid[-9:10, -9:10]
+    >>> d = np.hypot(oy, ox)
+    >>> on, inn = (d >= 6) & (d <= 9), (d >= 3) & (d < 6)
+    >>> rs, ins = ring_sectors(oy[on], ox[on]), ring_sectors(oy[inn], ox[inn])
+    >>> ground = rng.normal(0.0, 0.01, on.sum())
+    >>> ring = np.where(rs == 0, 1.0, ground)[None]   # a brighter neighbour in one sector
+    >>> inner = np.zeros((1, inn.sum()))               # the layer falls away all round
+    >>> bool(open_ring_contrast(np.array([0.5]), ring, rs, inner, ins)[0] > 20)
+    True
+    >>> inner[0, ins == 0] = 0.6                       # ... except towards that crown
+    >>> float(open_ring_contrast(np.array([0.5]), ring, rs, inner, ins)[0])
+    0.0
+    """
+    c = np.asarray(centre, float)
+    ring = np.asarray(ring, float)
+    inner = np.asarray(inner, float)
+    n = c.size
+    med_s = np.full((n, RING_SECTORS), np.inf)
+    high = np.zeros(n, np.int64)  # sectors of the inner band at or above the centre
+    inner_meds = []
+    with np.errstate(all="ignore"):
+        for s in range(RING_SECTORS):
+            cols = ring[:, ring_sector == s]
+            if cols.shape[1]:
+                have = np.isfinite(cols).any(axis=1)
+                med_s[have, s] = np.nanmedian(cols[have], axis=1)
+            cols = inner[:, inner_sector == s]
+            if cols.shape[1]:
+                have = np.isfinite(cols).any(axis=1)
+                inner_meds.append((have, np.nanmedian(cols[have], axis=1)))
+    order = np.argsort(med_s, axis=1, kind="stable")
+    keep = np.zeros(med_s.shape, bool)
+    np.put_along_axis(keep, order[:, :RING_OPEN], True, axis=1)
+    keep &= np.isfinite(med_s)
+    open_px = np.where(keep[:, ring_sector], ring, np.nan)
+    out = np.full(n, np.inf)
+    has = np.isfinite(open_px).any(axis=1)
+    if has.any():
+        with np.errstate(all="ignore"):
+            med = np.nanmedian(open_px[has], axis=1)
+            mad = 1.4826 * np.nanmedian(np.abs(open_px[has] - med[:, None]), axis=1)
+            z = np.where(mad > 0, (c[has] - med) / mad, np.where(c[has] > med, np.inf, 0.0))
+        out[has] = z
+    ground = np.full(n, np.nan)
+    if has.any():
+        ground[has] = med
+    rise = np.where(np.isfinite(ground), np.maximum(c - ground, 0.0), 0.0)
+    level = c + SHOULDER_MARGIN * rise
+    for have, m in inner_meds:
+        high[have] += m >= level[have]
+    out[high >= SHOULDER_SECTORS] = 0.0  # a shoulder: the layer does not fall away all round
+    return out
+
+
 def valley_rule() -> dict[str, str]:
     """How the log-chromaticity layer's thresholds were set, for the detection metadata
     (replacing the classic rule's wording where this layer used valley thresholds).
@@ -459,7 +646,8 @@ def valley_rule() -> dict[str, str]:
         "threshold_raise_from": (
             "Otsu's split of the log responses (over that threshold) of the candidates at "
             "or above the background median: the valley between ground and plants, at "
-            f"least 1; at most {CROWDED_BOUND:g} where more than {CROWDED_SHARE:g} of the "
+            f"least 1 (times {VALLEY_SHARE:g} where the valley is shallow and the open ring "
+            f"test runs); at most {CROWDED_BOUND:g} where more than {CROWDED_SHARE:g} of the "
             "candidates sit near the split (one group, no valley)"
         ),
         "vegetation_threshold_from": "background median",
@@ -563,6 +751,28 @@ def recentre_reach_px(radius_max_px: float) -> int:
     22
     """
     return math.ceil(2.0 * radius_max_px) + 2
+
+
+def open_ring_rule() -> dict[str, str]:
+    """The detection metadata of the ring test on the ring's open sectors.
+
+    Examples
+    --------
+    >>> sorted(open_ring_rule())
+    ['ring_mads_from']
+    """
+    return {
+        "ring_mads_from": (
+            f"log-chromaticity layer: the layer smoothed at the blob's scale must exceed the "
+            f"median over the {RING_OPEN} lowest of {RING_SECTORS} sectors of a ring 2-3 "
+            "blob radii out (neighbouring crowns left out) by this many robust SDs (1.4826 "
+            "MAD) of those sectors, and stand above the median of every sector between "
+            f"{INNER:g} and {INNER_OUT:g} blob radii (by {SHOULDER_MARGIN:g} of its rise over "
+            "that ground: not a shoulder of a bigger crown or shadow); only where the "
+            f"colour layer's valley is shallow (separation score below {SHALLOW_VALLEY:g}), "
+            f"with the threshold at {VALLEY_SHARE:g} of the valley factor"
+        ),
+    }
 
 
 def smoothing_rule(blur_px: float) -> dict:

@@ -135,6 +135,10 @@ class BlobPlan:
     recentre : bool
         Move each blob to the middle of its crown on the layer
         (:func:`ecoscan.detect.chromaticity.recentre`); set with the log-chromaticity layer.
+    ring_open : bool
+        The ring test measures the ring's open sectors only and drops shoulders
+        (:func:`ecoscan.detect.chromaticity.open_ring_contrast`); set with the
+        log-chromaticity layer.
     """
 
     bands: tuple[int, ...]
@@ -158,6 +162,7 @@ class BlobPlan:
     lobe_share: float | None = None
     band_blur_px: float = 0.0
     recentre: bool = False
+    ring_open: bool = False
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -421,6 +426,7 @@ class ImageryDetector(Detector):
             background=plan.fill_value,
             ring_mads=plan.ring_mads,
             strong=plan.strong,
+            ring_open=plan.ring_open,
         )
         columns = {"sigma_px": found["sigma"], "score": found["response"]}
         columns["index_value"] = found["value"]

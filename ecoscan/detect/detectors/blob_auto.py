@@ -254,6 +254,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         lobe_share=_lobe_share(choice, roles, settings),
         band_blur_px=choice.band_blur_px,
         recentre=choice.band_blur_px > 0,
+        ring_open=_ring_open(choice),
     )
     _describe_choice(choice, notes)
     th = {**_auto_thresholds(choice, abands, roles, params.split_ratio > 0), **rule}
@@ -285,6 +286,14 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
     if params.band_blur_px > 0:  # the bands' smoothing reaches beyond the filters
         overlap += math.ceil(4.0 * params.band_blur_px) + 1
     return params, overlap, scales.align, th, notes
+
+
+def _ring_open(choice) -> bool:
+    """The ring test on its open sectors, shoulders dropped
+    (:func:`ecoscan.detect.autotune.open_ring`; conifer12, docs/notes-conifer12.md)."""
+    from ecoscan.detect.autotune import open_ring
+
+    return open_ring(choice)
 
 
 def _second_layer(choice, windows, roles, scales, settings, scoring=None):
@@ -545,6 +554,10 @@ def _auto_thresholds(choice, abands, roles, split: bool) -> dict:
         from ecoscan.detect.chromaticity import valley_rule
 
         th.update(valley_rule())
+    if _ring_open(choice) and th.get("ring_mads") is not None:  # conifer12
+        from ecoscan.detect.chromaticity import open_ring_rule
+
+        th.update(open_ring_rule())
     if choice.band_blur_px > 0:  # the log-chromaticities of locally averaged bands
         from ecoscan.detect.chromaticity import smoothing_rule
 
