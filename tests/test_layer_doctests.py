@@ -1,4 +1,5 @@
-"""The docstring examples of the data model, the I/O edge and the analysis jobs run.
+"""The docstring examples of the data model, the I/O edge, the analysis jobs, detection,
+the scene suite, the survey runner and the report run.
 
 ``tests/test_api_docs.py`` runs those of the public API and of ``ecoscan.stats``; this runs
 the layers in between, so an example cannot drift from the code it shows. The planning
@@ -14,7 +15,16 @@ import pkgutil
 import pytest
 
 FLAGS = doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE
-PACKAGES = ("ecoscan.model", "ecoscan.io", "ecoscan.analysis")
+PACKAGES = (
+    "ecoscan.model",
+    "ecoscan.io",
+    "ecoscan.analysis",
+    "ecoscan.detect",
+    "ecoscan.synthetic",
+    "ecoscan.survey",
+    "ecoscan.report",
+    "ecoscan.cli",
+)
 SLOW = {"ecoscan.analysis.planning"}
 
 
@@ -32,6 +42,7 @@ def _modules() -> list[str]:
 def test_every_layer_is_listed():
     found = _modules()
     assert "ecoscan.analysis.dispersion.compute" in found and "ecoscan.io.raster" in found
+    assert "ecoscan.detect.autotune" in found and "ecoscan.report.html" in found
 
 
 @pytest.mark.parametrize("name", _modules())

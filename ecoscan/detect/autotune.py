@@ -1335,8 +1335,10 @@ def begin_layer_choice(
     >>> win = SampleWindow(img, np.ones((96, 96), bool), (slice(0, 96), slice(0, 96)))
     >>> roles = ("red", "green", "blue")
     >>> with begin_layer_choice([win], roles, blob_scales(6, 12)) as scoring:
-    ...     [job.label for job in scoring.jobs]
-    ['exg', 'darkness', 'exg+darkness']
+    ...     first = [job.label for job in scoring.jobs]  # Excess Green goes first
+    ...     every = [job.label for job in scoring.classic_jobs()]
+    >>> first, every
+    (['exg'], ['exg', 'darkness', 'exg+darkness'])
     """
     return LayerScoring(windows, roles, scales, options, pool, spare)
 

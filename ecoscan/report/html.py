@@ -233,8 +233,9 @@ def table_html(
 
     Examples
     --------
-    >>> "plants/ha" in table_html([{"density_per_ha": 952.4}], ["density_per_ha"])
-    True
+    >>> html = table_html([{"density_per_ha": 952.4}], ["density_per_ha"])
+    >>> 'title="Plants per hectare."' in html, "<td>952</td>" in html
+    (True, True)
     """
     many = "many" if len(columns) > MANY_COLUMNS else ""
     cls = " ".join(x for x in ("data", "sortable" if sortable else "", many, css_class) if x)
