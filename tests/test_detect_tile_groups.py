@@ -77,7 +77,6 @@ def test_grouped_tiles_give_the_same_table_as_one_job_per_tile(style, tmp_path, 
 def test_group_jobs_run_on_workers_in_any_order_return_the_plan_order(tmp_path):
     """Costliest first on worker processes; results in the jobs' order, as in-process."""
     from ecoscan.detect import _prepare
-    from ecoscan.detect.detectors.registry import get_detector
     from ecoscan.io.raster import open_raster
     from ecoscan.synthetic import make_scene, write_scene
 
@@ -88,20 +87,20 @@ def test_group_jobs_run_on_workers_in_any_order_return_the_plan_order(tmp_path):
     info = open_raster(raster)
     detector, prep = _prepare(raster, info, s, [])
     tiles = plan_tiles(info.width, info.height, 160, prep.overlap, align=prep.align)
-    jobs = tile_jobs(info, tiles, prep.plan, get_detector("imagery"))
+    jobs = tile_jobs(info, tiles, prep.plan, detector)
     assert len(jobs) < len(tiles)
     assert [t.index for j in jobs for t in (j.members or (j.tile,))] == list(range(len(tiles)))
+    # memory follows the tile size: no job reads more than twice the largest tile window
+    assert max(j.tile.pixels for j in jobs) <= 2 * max(t.pixels for t in tiles)
     here = [run_tile(j) for j in jobs]
     there = run_plan(run_tile, jobs, workers=2, cost=lambda j: j.tile.pixels)
     for a, b in zip(here, there, strict=True):
         np.testing.assert_array_equal(a.col, b.col)
         np.testing.assert_array_equal(a.tile, b.tile)
     # one job per tile gives the same rows, tile by tile
-    per_tile = [run_tile(TileJob(info, t, prep.plan, "imagery")) for t in tiles]
-    joined = [p for p in here]
-    np.testing.assert_array_equal(
-        np.concatenate([p.row for p in per_tile]), np.concatenate([p.row for p in joined])
-    )
-    np.testing.assert_array_equal(
-        np.concatenate([p.tile for p in per_tile]), np.concatenate([p.tile for p in joined])
-    )
+    per_tile = [run_tile(TileJob(info, t, prep.plan, detector.name)) for t in tiles]
+    for k in ("col", "row", "tile"):
+        np.testing.assert_array_equal(
+            np.concatenate([getattr(p, k) for p in per_tile]),
+            np.concatenate([getattr(p, k) for p in here]),
+        )

@@ -358,9 +358,7 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
     if executor is None:
         pool = early.get() if early is not None and jobs else None
         parts = (
-            run_plan(run_tile, jobs, workers=workers, pool=pool, cost=_pixels_read)
-            if jobs
-            else []
+            run_plan(run_tile, jobs, workers=workers, pool=pool, cost=_pixels_read) if jobs else []
         )
     else:
         parts = executor.map(run_tile, jobs, desc="tiles", unit="tile")

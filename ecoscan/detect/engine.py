@@ -18,7 +18,13 @@ import numpy as np
 from ecoscan.detect.detectors.base import Detector, TilePoints, TileWindow
 from ecoscan.detect.detectors.registry import get_detector
 from ecoscan.detect.indices import darkness, excess_green, green_red, ndvi
-from ecoscan.detect.tiling import Tile, group_tiles, group_window, in_pool_worker
+from ecoscan.detect.tiling import (
+    GROUP_WINDOW_PX,
+    Tile,
+    group_tiles,
+    group_window,
+    in_pool_worker,
+)
 from ecoscan.io.raster import RasterInfo, opened, read_window
 
 __all__ = [
@@ -240,12 +246,14 @@ def run_tile(job: TileJob) -> TilePoints:
     return TilePoints.concat([found.in_core(t) for t in job.members])
 
 
-def tile_jobs(
-    info: RasterInfo, tiles: list[Tile], plan: Any, detector: Detector
-) -> list[TileJob]:
+def tile_jobs(info: RasterInfo, tiles: list[Tile], plan: Any, detector: Detector) -> list[TileJob]:
     """The jobs that run ``tiles`` with ``plan``: neighbouring tiles in groups read as one
     window (:func:`ecoscan.detect.tiling.group_tiles`) where the detector allows it, else
     one job per tile. Their results, one after the other, are those of one job per tile.
+
+    A group's window holds at most twice the pixels of the plan's largest tile window and
+    at most :data:`ecoscan.detect.tiling.GROUP_WINDOW_PX`, so memory still follows the
+    tile size: with 1024-pixel tiles, two tiles side by side.
 
     Examples
     --------
@@ -257,9 +265,10 @@ def tile_jobs(
     """
     if not detector.reads_together(plan):
         return [TileJob(info, t, plan, detector.name) for t in tiles]
+    largest = max((t.pixels for t in tiles), default=0)
     return [
         TileJob(info, t[0], plan, detector.name)
         if len(t) == 1
         else TileJob(info, group_window(t), plan, detector.name, t)
-        for t in group_tiles(tiles)
+        for t in group_tiles(tiles, max_pixels=min(GROUP_WINDOW_PX, 2 * largest))
     ]
