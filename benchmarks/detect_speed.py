@@ -307,6 +307,7 @@ def run_ecoscan(tif: Path, truth: Path, facts: dict, workers: int, tile: int) ->
         "cpu_workers": cpu_kids,
         "seconds": dt,
         "megapixels": res.raster.megapixels,
+        "megapixels_read": res.megapixels_read,
         "n": res.n,
         "f1": _f1(res.points.xy, tr, 0.5 * lo),
         "peak_main_mb": _peak_self_mb(),
@@ -605,6 +606,11 @@ def main() -> None:
         f"{'whole run':28} {eco['seconds']:8.2f} {eco['cpu_main']:13.2f}   "
         f"+ {eco['cpu_workers']:.2f} CPU s in the fork server and workers"
     )
+    if "megapixels_read" in eco:  # tile windows (overlaps included) over the raster
+        print(
+            f"tiles read {eco['megapixels_read']:.1f} MPx of the {eco['megapixels']:.1f} MPx "
+            f"raster ({eco['megapixels_read'] / eco['megapixels']:.2f}x)"
+        )
     digests = sorted({r.get("digest", "?") for r in runs})
     print(f"SHA-256 of points, metadata and notes at {a.size}^2: {', '.join(digests)}")
     print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")

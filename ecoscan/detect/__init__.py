@@ -24,7 +24,7 @@ import numpy as np
 from ecoscan.detect.detectors.base import Detector, Prepared, TilePoints
 from ecoscan.detect.detectors.blob import LAYER_LABELS
 from ecoscan.detect.detectors.registry import automatic, get_detector, overriding
-from ecoscan.detect.engine import TileJob, run_tile
+from ecoscan.detect.engine import run_tile, tile_jobs
 from ecoscan.detect.settings import DetectionSettings, parse_band_spec
 from ecoscan.detect.tiling import EarlyPool, Tile, lend_pool, plan_tiles, run_plan
 from ecoscan.errors import InputError
@@ -354,10 +354,12 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
     if frame.note:
         notes.append(frame.note.replace("input CRS", "raster CRS"))
     tiles, selected = _select_tiles(info, settings, prepared, plots, notes)
-    jobs = [TileJob(info, t, prepared.plan, detector.name) for t in selected]
+    jobs = tile_jobs(info, selected, prepared.plan, detector)
     if executor is None:
         pool = early.get() if early is not None and jobs else None
-        parts = run_plan(run_tile, jobs, workers=workers, pool=pool) if jobs else []
+        parts = (
+            run_plan(run_tile, jobs, workers=workers, pool=pool, cost=_pixels_read) if jobs else []
+        )
     else:
         parts = executor.map(run_tile, jobs, desc="tiles", unit="tile")
     col, row, attrs = _collect(detector, prepared.plan, parts, notes, warn)
@@ -392,11 +394,16 @@ def _detect(path, info, settings, plots, workers, executor, early) -> DetectionR
         thresholds=prepared.thresholds,
         tiles_total=len(tiles),
         tiles_read=len(selected),
-        megapixels_read=sum(t.pixels for t in selected) / 1e6,
+        megapixels_read=sum(j.tile.pixels for j in jobs) / 1e6,
         warnings=warn,
         raster=info,
         unsurveyed=unsurveyed,
     )
+
+
+def _pixels_read(job) -> int:
+    """A tile job's cost for :func:`ecoscan.detect.tiling.run_plan`: its window's pixels."""
+    return job.tile.pixels
 
 
 def _prepare(path, info: RasterInfo, settings: DetectionSettings, notes: list):

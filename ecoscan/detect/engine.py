@@ -15,10 +15,16 @@ from typing import Any
 
 import numpy as np
 
-from ecoscan.detect.detectors.base import TilePoints, TileWindow
+from ecoscan.detect.detectors.base import Detector, TilePoints, TileWindow
 from ecoscan.detect.detectors.registry import get_detector
 from ecoscan.detect.indices import darkness, excess_green, green_red, ndvi
-from ecoscan.detect.tiling import Tile, in_pool_worker
+from ecoscan.detect.tiling import (
+    GROUP_WINDOW_PX,
+    Tile,
+    group_tiles,
+    group_window,
+    in_pool_worker,
+)
 from ecoscan.io.raster import RasterInfo, opened, read_window
 
 __all__ = [
@@ -26,6 +32,7 @@ __all__ = [
     "base_layer",
     "compose_layer",
     "run_tile",
+    "tile_jobs",
     "vegetation_layer",
 ]
 
@@ -76,12 +83,17 @@ class TileJob:
         picklable; ``plan.bands`` are read.
     detector : str
         The detector's name in the registry (:mod:`ecoscan.detect.detectors.registry`).
+    members : tuple of Tile
+        When not empty, the tiles of the plan that ``tile`` holds
+        (:func:`ecoscan.detect.tiling.group_window`): read as one window, run once, and
+        each tile's plants returned as its own, one tile after the other.
     """
 
     info: RasterInfo
     tile: Tile
     plan: Any
     detector: str
+    members: tuple[Tile, ...] = ()
 
 
 def vegetation_layer(data: np.ndarray, index: str) -> np.ndarray:
@@ -208,6 +220,12 @@ def _paired_layers(
 def run_tile(job: TileJob) -> TilePoints:
     """Detect plants in one tile; keep those whose centre lies in the tile's core.
 
+    A job with ``members`` (a group of tiles read as one window) keeps each member's
+    plants as that tile's, in the members' order: for a detector whose plants in a core
+    do not depend on how far the window reaches beyond the overlap
+    (:meth:`ecoscan.detect.detectors.base.Detector.reads_together`), the same table as
+    the members' own jobs one after the other.
+
     Returns
     -------
     TilePoints
@@ -222,4 +240,35 @@ def run_tile(job: TileJob) -> TilePoints:
         return detector.empty_tile(job.plan)  # all nodata: only the mask was read
     window = TileWindow(job.info, job.tile, data, valid)
     del data
-    return detector.run(window, job.plan).in_core(job.tile)
+    found = detector.run(window, job.plan)
+    if not job.members:
+        return found.in_core(job.tile)
+    return TilePoints.concat([found.in_core(t) for t in job.members])
+
+
+def tile_jobs(info: RasterInfo, tiles: list[Tile], plan: Any, detector: Detector) -> list[TileJob]:
+    """The jobs that run ``tiles`` with ``plan``: neighbouring tiles in groups read as one
+    window (:func:`ecoscan.detect.tiling.group_tiles`) where the detector allows it, else
+    one job per tile. Their results, one after the other, are those of one job per tile.
+
+    A group's window holds at most twice the pixels of the plan's largest tile window and
+    at most :data:`ecoscan.detect.tiling.GROUP_WINDOW_PX`, so memory still follows the
+    tile size: with 1024-pixel tiles, two tiles side by side.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.detectors.registry import get_detector
+    >>> jobs = tile_jobs(info, plan_tiles(6144, 6144, 1024, 160), plan,
+    ...                  get_detector("imagery"))  # doctest: +SKIP
+    >>> len(jobs)  # doctest: +SKIP
+    18
+    """
+    if not detector.reads_together(plan):
+        return [TileJob(info, t, plan, detector.name) for t in tiles]
+    largest = max((t.pixels for t in tiles), default=0)
+    return [
+        TileJob(info, t[0], plan, detector.name)
+        if len(t) == 1
+        else TileJob(info, group_window(t), plan, detector.name, t)
+        for t in group_tiles(tiles, max_pixels=min(GROUP_WINDOW_PX, 2 * largest))
+    ]

@@ -33,6 +33,7 @@ __all__ = [
     "Tile",
     "WorkShare",
     "fork_is_safe",
+    "group_tiles",
     "in_core",
     "in_pool_worker",
     "lend_pool",
@@ -111,6 +112,74 @@ def plan_tiles(
             win = (max(0, c0 - ov), max(0, r0 - ov), min(width, c1 + ov), min(height, r1 + ov))
             tiles.append(Tile(len(tiles), (c0, r0, c1, r1), win))
     return tiles
+
+
+#: Largest read window (pixels) of a group of tiles read and run together
+#: (:func:`group_tiles`): two 1024-pixel tiles with an overlap of 160 pixels on every
+#: side (2368 x 1344 = 3.2 million pixels) fit, three do not.
+GROUP_WINDOW_PX = 3_500_000
+
+#: Most tiles in one group.
+GROUP_MOST = 4
+
+
+def group_tiles(
+    tiles: Sequence[Tile], max_pixels: int = GROUP_WINDOW_PX, most: int = GROUP_MOST
+) -> list[tuple[Tile, ...]]:
+    """Runs of neighbouring tiles in a row of the plan, each read as one window.
+
+    Neighbouring read windows share their overlaps: two tiles read as one window read
+    those pixels once, and their detector runs once over them. A group is a run of tiles
+    of ``tiles`` (in plan order) whose cores touch side by side in the same row of the
+    plan, as long as the window that holds all of theirs has at most ``max_pixels``
+    pixels and there are at most ``most`` of them; a tile with no such neighbour is a
+    group alone. :func:`group_window` gives the group's window and core.
+
+    The groups keep the plan's order, so their tiles, one after the other, are ``tiles``.
+    Only for a detector whose plants in a core do not depend on how far the window
+    reaches beyond the overlap (:meth:`ecoscan.detect.detectors.base.Detector.reads_together`).
+
+    Examples
+    --------
+    >>> plan = plan_tiles(3000, 2000, 1000, 100)  # two rows of three tiles
+    >>> [[t.index for t in g] for g in group_tiles(plan, max_pixels=2_500_000)]
+    [[0, 1], [2], [3, 4], [5]]
+    >>> [[t.index for t in g] for g in group_tiles(plan, max_pixels=1_000_000)]
+    [[0], [1], [2], [3], [4], [5]]
+    """
+    groups: list[list[Tile]] = []
+    for t in tiles:
+        last = groups[-1] if groups else None
+        if last is not None and len(last) < most:
+            prev = last[-1]
+            side_by_side = (
+                prev.core[2] == t.core[0]
+                and prev.core[1] == t.core[1]
+                and prev.core[3] == t.core[3]
+            )
+            if side_by_side and group_window((*last, t)).pixels <= max_pixels:
+                last.append(t)
+                continue
+        groups.append([t])
+    return [tuple(g) for g in groups]
+
+
+def group_window(group: Sequence[Tile]) -> Tile:
+    """One tile whose core and read window hold those of every tile of ``group`` (its
+    index is the first tile's). Windows of a plan start at multiples of its alignment, so
+    the group's does too.
+
+    Examples
+    --------
+    >>> a, b = plan_tiles(2000, 1000, 1000, 100)
+    >>> group_window([a, b])
+    Tile(index=0, core=(0, 0, 2000, 1000), window=(0, 0, 2000, 1000))
+    """
+    cores = np.array([t.core for t in group]).reshape(-1, 4)
+    wins = np.array([t.window for t in group]).reshape(-1, 4)
+    core = (*cores[:, :2].min(axis=0).tolist(), *cores[:, 2:].max(axis=0).tolist())
+    window = (*wins[:, :2].min(axis=0).tolist(), *wins[:, 2:].max(axis=0).tolist())
+    return Tile(group[0].index, tuple(core), tuple(window))
 
 
 def in_core(tile: Tile, col: np.ndarray, row: np.ndarray) -> np.ndarray:
@@ -325,6 +394,7 @@ def run_plan(
     workers: int = 1,
     desc: str = "tiles",
     pool: ProcessPoolExecutor | None = None,
+    cost: Callable[[J], float] | None = None,
 ) -> list[R]:
     """Run ``func`` on every job, in-process or on local worker processes.
 
@@ -341,6 +411,10 @@ def run_plan(
     pool : ProcessPoolExecutor, optional
         Workers already started (:func:`start_pool`), used instead of new ones and shut
         down at the end.
+    cost : callable, optional
+        A job's expected cost: on worker processes the costliest jobs are handed out
+        first, so that the last ones, which may leave a worker idle, are the cheapest.
+        The results keep the jobs' order.
 
     Returns
     -------
@@ -368,7 +442,10 @@ def run_plan(
     )
     try:
         with deferred_signals():  # workers start on submit; never leave one half-started
-            futures = {ex.submit(func, j): i for i, j in enumerate(jobs)}
+            order = range(len(jobs))
+            if cost is not None:  # stable: equal costs keep the plan's order
+                order = sorted(order, key=lambda i: -cost(jobs[i]))
+            futures = {ex.submit(func, jobs[i]): i for i in order}
         for fut in progress(as_completed(futures), total=len(jobs), desc=desc, unit="tile"):
             results[futures[fut]] = fut.result()
     except BaseException:

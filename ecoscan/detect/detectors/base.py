@@ -250,6 +250,13 @@ class Detector:
         """The result of a tile without valid pixels: every column, no rows."""
         raise NotImplementedError
 
+    def reads_together(self, plan: Any) -> bool:
+        """Whether neighbouring tiles may be read as one window and run once
+        (:func:`ecoscan.detect.engine.tile_jobs`): true only when the plants whose centres
+        lie in a core, their order and columns do not depend on how far the window
+        reaches beyond the plan's overlap. False unless a detector says so."""
+        return False
+
     def finish(self, points: TilePoints, plan: Any) -> tuple[TilePoints, dict, list]:
         """All tiles' plants (at least one): the points kept, their output columns and
         notes that are warnings too."""

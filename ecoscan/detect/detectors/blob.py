@@ -453,6 +453,13 @@ class ImageryDetector(Detector):
         """No blobs."""
         return TilePoints.empty(TILE_COLUMNS + ((SECOND,) if plan.second is not None else ()))
 
+    def reads_together(self, plan: BlobPlan) -> bool:
+        """The blob layers chosen from the image (not closed canopy's watershed, nor a
+        calibrated detector's own plan): every step reaches at most the plan's overlap, so
+        the plants in a core are those of the whole image whatever the window
+        (``tests/test_detect_tile_groups.py``)."""
+        return type(plan) is BlobPlan and plan.canopy is None and plan.layer_model is None
+
     def finish(self, points: TilePoints, plan: BlobPlan):
         """Split blobs of touching crowns, prune lobes, then diameters in metres."""
         added, notes = None, []
