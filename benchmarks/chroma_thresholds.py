@@ -1,7 +1,7 @@
 """Why the log-chromaticity layer's default thresholds fail, and what a rule would give.
 
 A diagnosis tool for the ``chroma`` layer of the imagery defaults
-(``ecoscan/detect/chromaticity.py``; docs/detection.md, "Conifer pasture, third round").
+(``ecoscan/detect/chromaticity.py``; docs/detection-history.md, "Conifer pasture, third round").
 For each scene it builds the layer as ``choose_layer`` does (projection chosen on the
 whole image), finds every blob candidate, and reports:
 

@@ -1,7 +1,7 @@
 """Which detection layer could find dark conifers that join their long cast shadows?
 
 A diagnosis tool for the conifer-on-pasture failure of the imagery defaults (see
-docs/detection.md, "Why conifer pasture ... fails"). For each scene it builds a few
+docs/detection-history.md, "Why conifer pasture ... fails"). For each scene it builds a few
 candidate layers from the RGB bands and reports the best F1 that the blob pyramid reaches
 on each **with its threshold chosen in hindsight** (a sweep over the response; touching
 crowns split and overlapping blobs pruned as in ``ecoscan detect``): an upper bound of what

@@ -8,7 +8,7 @@ with only the style's ``--diameter`` (and ``--bands`` for multispectral) given. 
 matches a plant one-to-one within half the smallest stated diameter. Printed per scene:
 found, truth, precision, recall, F1, the layer and the threshold factor; per style the mean
 and lowest F1. Seeds used by the documentation: 0, 7 and 11 for diagnosis only; 31-33,
-41-43, 51-53, 61-63 and 71-73 each measured once for a table in docs/detection.md.
+41-43, 51-53, 61-63 and 71-73 each measured once for a table in docs/detection-history.md.
 
 Run: ``nice python benchmarks/suite_defaults.py --seeds 61,62,63 --size 512``. To compare
 with an earlier version of the code, run the same command with ``PYTHONPATH`` pointing to

@@ -68,7 +68,7 @@ def test_open_ring_matches_a_direct_computation():
 
 def test_a_tree_in_its_row_stands_higher_and_a_rim_on_a_crown_is_dropped():
     # A tree between two bigger neighbours in its row, 2.6 of its radii away (planted
-    # rows, docs/detection.md "Conifer pasture, sixth round"): on the whole ring the
+    # rows, docs/detection-history.md "Conifer pasture, sixth round"): on the whole ring the
     # neighbours raise the median and widen the MAD; on the open sectors the tree stands
     # far higher above the ground. A bump on the flank of a big crown (a crown's lit rim)
     # has no fall of its own towards that crown: the plain test keeps it, the open ring

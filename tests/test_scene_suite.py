@@ -313,19 +313,19 @@ def test_written_scene_reads_back_as_raster_truth_and_plots(tmp_path):
 # improves, the test passes, xfail turns into a failure, and the mark must be removed.
 
 # Measured with the default detector at 512 px, seed 7 (F1 at 0.5 x smallest diameter);
-# causes as diagnosed in docs/detection.md ("Why conifer pasture, closed canopy and JPEG
+# causes as diagnosed in docs/detection-history.md ("Why conifer pasture, closed canopy and JPEG
 # fail"):
 _FAILS: dict[str, str] = {}
 # closed-canopy was here (F1 0.899 at this seed: big crowns cut in two, small shaded
 # crowns missed); since regions that are one blob at their union's scale are joined
 # (December 2026, canopy11) it reaches 0.908 here, though held-out seeds stay near 0.90
-# (docs/detection.md, "Closed canopy, seventh round").
+# (docs/detection-history.md, "Closed canopy, seventh round").
 # jpeg-vignette was here (F1 0.899 at this seed, precision 0.88: grass patches and chroma
 # blocks above the raised threshold); since the ring test on rough ground (December 2026)
 # it reaches 0.95 and is an ordinary test. conifer-pasture was here (F1 0.81 at this seed:
 # dark crowns speckle on the log-chromaticity layer); with smoothed bands and recentred
 # points (December 2026) it reaches 0.93 here, though held-out seeds stay below 0.90
-# (docs/detection.md, "Conifer pasture, fifth round").
+# (docs/detection-history.md, "Conifer pasture, fifth round").
 
 
 def _detect_params():

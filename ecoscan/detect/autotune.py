@@ -117,7 +117,7 @@ STRONG_VALUE_MADS = 0.0
 #: ... and the response this many times the scale's threshold (None: the rule off).
 #: Chosen on benchmarks/tuning_scenes.py (1.5 lowered tuning ``pines`` and ``grass``)
 #: and the suite's development seeds (2 added ground points on rocky shrubland, whose
-#: responses were 2.05-2.11 times the threshold; docs/detection.md).
+#: responses were 2.05-2.11 times the threshold; docs/detection-history.md).
 STRONG_RATIO: float | None = 3.0
 #: Label of the colour layer that ignores brightness (:mod:`ecoscan.detect.chromaticity`).
 INVARIANT = "chroma"
@@ -132,14 +132,14 @@ SHADOW_FREE_MARGIN = 2.0
 #: Where the classic choice is unusable, the log-chromaticity layer takes over only when it
 #: keeps at least this share of the candidates of the classic layer that kept most. Blobs
 #: joined to their shadows count each crown at most about three times (crown, shadow, a
-#: patch between them). Measured (docs/detection.md, "Conifer pasture, fourth round"):
+#: patch between them). Measured (docs/detection-history.md, "Conifer pasture, fourth round"):
 #: 0.35-0.37 of the darkness blobs on the suite's conifer pasture (development seeds;
 #: F1 0.19-0.46 -> 0.81-0.86), 0.09 and 0.21 on tuning ``conifers`` 102 and 103, where it
 #: would lower F1 (0.46 -> 0.04, 0.54 -> 0.26), 0.48 on tuning ``conifers`` 101 (0.56 ->
 #: 0.67). With the bands smoothed before the log (``chromaticity.BAND_BLUR``) the layer
 #: keeps more: 0.37-0.43 on the suite's development seeds, 0.46 on ``conifers`` 101, but
 #: 0.28 on ``conifers`` 103 (F1 0.80 -> 0.33 if taken over), so 0.25 became 0.32, about
-#: the geometric mean of 0.28 and 0.37 (docs/detection.md, "Conifer pasture, fifth round").
+#: the geometric mean of 0.28 and 0.37 (docs/detection-history.md, "Conifer pasture, fifth round").
 SHADOW_FREE_SHARE = 0.32
 #: The classic layers' best choice also counts as unusable when it keeps fewer than this
 #: share of the candidates of the classic layer that kept most: it sees only a few of the
@@ -147,7 +147,7 @@ SHADOW_FREE_SHARE = 0.32
 #: conifer-pasture diagnosis seed 308, Excess Green won with 25 candidates against 270
 #: for darkness (0.09; F1 0.58, its points off the crowns' middles); working scenes keep
 #: at least 0.41 (rocky shrubland, darkness counting the rocks), most 0.65-1.0 (tuning
-#: scenes and the suite's development seeds; docs/detection.md, "Conifer pasture, sixth
+#: scenes and the suite's development seeds; docs/detection-history.md, "Conifer pasture, sixth
 #: round"). 0.2 is about the geometric mean of 0.09 and 0.41.
 FEW_SHARE = 0.2
 _MAD_TO_SD = 1.4826  # normal consistency constant of the MAD (Hampel 1974)
@@ -1525,7 +1525,7 @@ def _shadow_free_valley(
     (:func:`ecoscan.detect.chromaticity.valley_factor`); at least ``MIN_CANDIDATES`` must
     be kept. Taking over an unusable choice needs, besides, at least
     ``SHADOW_FREE_SHARE`` as many kept candidates as the classic layer that kept most
-    (docs/detection.md, "Conifer pasture, fourth round").
+    (docs/detection-history.md, "Conifer pasture, fourth round").
     """
     from ecoscan.detect.chromaticity import shallow_valley, valley_threshold
     from ecoscan.detect.detectors.blob import MIN_CANDIDATES

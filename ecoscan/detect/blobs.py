@@ -834,7 +834,7 @@ def split_merged(
 #: A merged-pair parent (:func:`split_merged`) is one lobed crown, not touching crowns, when
 #: the layer at its centre stands at least this share as high above the background as at
 #: its children's centres on average (:func:`lobed_parents`). Chosen on the tuning scenes
-#: and checked on the suite's development seeds (docs/detection.md).
+#: and checked on the suite's development seeds (docs/detection-history.md).
 LOBE_SHARE = 0.8
 
 

@@ -133,7 +133,7 @@ BLOB_JOIN_REACH = 0.9
 #: the centres' distance / √2 up to ``BLOB_JOIN_TOP`` × the largest crown radius / √2
 #: (nine scales, geometric, from the smallest crown's r / √2). Chosen on development
 #: suite seeds 0, 7, 11 and extra suite seeds 400-405 with the tuning styles ``canopy``,
-#: ``oaks``, ``domes`` as the bound (docs/detection.md, "Closed canopy, seventh round").
+#: ``oaks``, ``domes`` as the bound (docs/detection-history.md, "Closed canopy, seventh round").
 BLOB_JOIN_PART = math.sqrt(2.0)
 BLOB_JOIN_TOP = 1.2
 #: Rounds of joining at the crown's scale (a crown cut in three needs two).
@@ -153,7 +153,8 @@ LEAN_SHARE = LEAN_LEVELS[0] / (LEAN_LEVELS[1] - LEAN_LEVELS[0])
 #: closed canopy (diagnosis seeds 0, 7, 11, 800-811) still lie a median 0.08-0.12 crown
 #: radii towards the sun. Chosen on those seeds and bounded by the tuning styles
 #: ``canopy``, ``oaks`` and ``domes`` (seeds 100-103): 1.4 lowers ``canopy`` 103 by
-#: 0.006, more than the adoption rule's 0.005 (docs/notes-canopy12.md).
+#: 0.006, more than the adoption rule's 0.005 (docs/detection-history.md, "Closed
+#: canopy, eighth round").
 DOME_LEAN_GAIN = 1.25
 #: The lean is measured only over at least this many regions (else no shift).
 MIN_LEAN_REGIONS = 10

@@ -16,7 +16,7 @@ structured, least normal projection, where the values fall into separate groups
 (projection pursuit with an entropy index: Jones, M. C. & Sibson, R. 1987, *What is
 projection pursuit?*, JRSS A 150: 1-36). Finlayson et al. fix the bin width instead,
 which seeks the direction along which shading moves colours; measured on the scene
-suite's development seeds that lost the layer's gain (docs/detection.md).
+suite's development seeds that lost the layer's gain (docs/detection-history.md).
 
 For dark crowns on green pasture this is the layer that tells a crown from its own cast
 shadow, which on a darkness layer look alike and join into one blob.
@@ -68,7 +68,7 @@ LOG_OFFSET = 1.0
 #: (the scales add in quadrature: sqrt(1 + 0.65²) = 1.19). Used only where the valley rule
 #: finds no clean gap on the layer of single pixels (``ecoscan.detect.autotune``: more than
 #: ``GAP_SHARE`` of the kept candidates near the threshold). Chosen on
-#: the tuning scenes and the suite's development seeds (docs/detection.md, "Conifer
+#: the tuning scenes and the suite's development seeds (docs/detection-history.md, "Conifer
 #: pasture, fifth round": 0.4 and 0.5 gave 0.895 and 0.906 there, 0.65 gave 0.925).
 BAND_BLUR = 0.65
 #: Recentring of the points on this layer (:func:`recentre`): the weighted centroid of the
@@ -129,7 +129,7 @@ RING_SECTORS = 8
 #: ... and measures the ground on the ``RING_OPEN`` sectors with the lowest median only:
 #: in planted rows 3-4 m apart the ring 2-3 crown radii out holds the neighbouring trees in
 #: two to four of the eight sectors, which raised the ring's median and widened its MAD so
-#: that a tree in its row failed the test (docs/detection.md, "Conifer pasture, sixth
+#: that a tree in its row failed the test (docs/detection-history.md, "Conifer pasture, sixth
 #: round": the ring test off lifted those seeds but let rims and shadows back).
 RING_OPEN = 4
 #: A blob fails when, in any sector, the layer between one blob radius and the ring
@@ -365,7 +365,7 @@ def floor_spread(spread: np.ndarray) -> np.ndarray:
     grows (white noise: the normalised DoG of unit noise falls roughly as 1/σ), so a spread
     that *rises* with scale does not come from noise but from ground structure at the
     crowns' own size: on the log-chromaticity layer, cast shadows and dry patches of
-    pasture (docs/detection.md, "Conifer pasture, fourth round"). Those are objects, told
+    pasture (docs/detection-history.md, "Conifer pasture, fourth round"). Those are objects, told
     apart from crowns by the valley of the candidates' responses (:func:`valley_factor`),
     not noise for a threshold to sit above. This gives the running minimum from the
     smallest scale up; scales without a measurement (NaN) take the last measured one.
@@ -408,7 +408,7 @@ def valley_factor(ratio: np.ndarray, eligible: np.ndarray) -> float:
     responses that differ by a factor are equally far apart whatever the layer's units.
     The factor is ``exp`` of the split, at least 1 and not bounded above (``VALLEY_MAX``:
     a fixed bound on a noise floor that smoothing shrinks cut into the ground group,
-    docs/detection.md, "Conifer pasture, sixth round"), except that a split above
+    docs/detection-history.md, "Conifer pasture, sixth round"), except that a split above
     ``CROWDED_BOUND`` with more than ``CROWDED_SHARE`` of the candidates near it lies inside
     one group (no valley) and stops at that bound; 1 with fewer than ``VALLEY_MIN``
     candidates.

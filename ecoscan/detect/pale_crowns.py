@@ -66,13 +66,13 @@ LAYER = "grvi"
 #: A GRVI blob is dropped when an Excess Green crown's centre lies within this many of that
 #: crown's radii (plus half the GRVI blob's radius): the crown's own cast shadow. Chosen on
 #: the suite's development seeds 0, 7, 11 (2.0, 2.5 and 3.0 tried) and checked on the
-#: tuning scenes (docs/detection.md, "Grey crowns: a second evidence layer").
+#: tuning scenes (docs/detection-history.md, "Grey crowns: a second evidence layer").
 CLEAR_RADII = 2.0
 #: A GRVI blob replaces the Excess Green points inside its radius when each of them is at
 #: most this share of its radius (they are lobes of the crown it covers, not crowns of
 #: their own) and none scores higher (:func:`whole_crowns`). Chosen on suite seeds 0, 7,
 #: 11 and 500-520 of dry shrubs (0.6, 0.7 and 0.8 tried) and checked on the tuning scenes
-#: (docs/detection.md, "Big dry crowns placed whole (dry11)").
+#: (docs/detection-history.md, "Big dry crowns placed whole (dry11)").
 WHOLE_SHARE = 0.7
 #: A GRVI blob must be at most this many times as bright as the median sampled pixel.
 MAX_BRIGHTNESS = 1.0
@@ -90,7 +90,9 @@ MIN_SECOND_CANDIDATES = 10
 #: layer was off on exactly those scenes (3 of 24 dry-shrub diagnosis scenes, the two
 #: lowest among them). Chosen on suite seeds 0, 7, 11 and 900-920 (dry12); the tuning
 #: styles mixed, grass, clumps, coarse, jpeg and pasture and the development seeds of the
-#: other RGB suite styles gave the same points (docs/notes-dry12.md).
+#: other RGB suite styles gave the same points
+#: (docs/detection-history.md, "Dry shrubs: the GRVI second layer where GRVI's
+#: threshold is raised a little").
 MAX_SECOND_RAISE = 1.3
 
 

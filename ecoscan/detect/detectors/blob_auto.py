@@ -290,7 +290,8 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
 
 def _ring_open(choice) -> bool:
     """The ring test on its open sectors, shoulders dropped
-    (:func:`ecoscan.detect.autotune.open_ring`; conifer12, docs/notes-conifer12.md)."""
+    (:func:`ecoscan.detect.autotune.open_ring`; docs/detection-history.md, "Conifer
+    pasture, eighth round")."""
     from ecoscan.detect.autotune import open_ring
 
     return open_ring(choice)
