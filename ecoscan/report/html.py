@@ -277,13 +277,19 @@ _TOPIC_METHODS = {
     "detection": [
         (
             "Plant detection in imagery",
-            "Vegetation layer Excess Green ExG = 2g − r − b on chromatic coordinates, or "
-            "NDVI = (NIR − Red) / (NIR + Red); threshold by Otsu's method on the whole raster; "
-            "blobs by a difference-of-Gaussians scale pyramid over the crown diameters given "
-            "in metres (a disc of radius ρ responds most at σ = ρ/√2).",
+            "The layer is chosen from the image: Excess Green ExG = 2g − r − b on chromatic "
+            "coordinates, darkness, their sum, or log-chromaticity (NDVI = (NIR − Red) / "
+            "(NIR + Red) when a near-infrared band is named), by how far blob candidates "
+            "stand above the background on sample windows. Thresholds come from the "
+            "background's median and robust spread (MAD), raised into a gap of the "
+            "candidates where many sit near it (Otsu's method only when an index or "
+            "threshold is set by hand). Blobs by a difference-of-Gaussians scale pyramid over "
+            "the crown diameters given in metres (a disc of radius ρ responds most at "
+            "σ = ρ/√2). Each raster's layer and thresholds are listed in the notes.",
             "Woebbecke, D. M. et al. (1995). Trans. ASAE 38: 259–269; Rouse, J. W. et al. "
-            "(1974). NASA SP-351; Otsu, N. (1979). IEEE Trans. SMC 9: 62–66; Lindeberg, T. "
-            "(1998). IJCV 30: 79–116; Lowe, D. G. (2004). IJCV 60: 91–110.",
+            "(1974). NASA SP-351; Hampel, F. R. (1974). JASA 69: 383–393; Finlayson, G. D. "
+            "et al. (2009). IJCV 85: 35–57; Otsu, N. (1979). IEEE Trans. SMC 9: 62–66; "
+            "Lindeberg, T. (1998). IJCV 30: 79–116; Lowe, D. G. (2004). IJCV 60: 91–110.",
         ),
         (
             "Tree tops and crowns on canopy height models; patches on class maps",
