@@ -94,8 +94,9 @@ def _add_imagery_options(p: argparse.ArgumentParser) -> None:
         "--min-contrast",
         type=float,
         metavar="VALUE",
-        help="imagery: weakest crown-to-ground contrast in index units "
-        "(default: half the Otsu class contrast)",
+        help="imagery: weakest crown-to-ground contrast in index units (default: from the "
+        "background's robust spread on the layer chosen from the image; with --threshold "
+        "or --index, half the Otsu class contrast)",
     )
 
 
