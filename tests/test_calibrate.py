@@ -8,6 +8,8 @@ never saw, and precision/recall/F1 follow van Rijsbergen (1979).
 
 from __future__ import annotations
 
+import contextlib
+import io
 import shutil
 
 import numpy as np
@@ -34,20 +36,31 @@ def conifer(tmp_path_factory):
     folder = tmp_path_factory.mktemp("conifer")
     f = scene_files(folder, "conifer")
     out = folder / "detector.toml"
-    code = main(
-        [
-            "calibrate",
-            str(f["raster"]),
-            str(f["truth"]),
-            "--plots",
-            str(f["train"]),
-            "-o",
-            str(out),
-            "--quiet",
-        ]
-    )
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed), contextlib.redirect_stderr(printed):
+        code = main(
+            [
+                "calibrate",
+                str(f["raster"]),
+                str(f["truth"]),
+                "--plots",
+                str(f["train"]),
+                "-o",
+                str(out),
+            ]
+        )
     assert code == 0
+    f["printed"] = printed.getvalue()
     return f, out
+
+
+def test_one_training_plot_is_printed_with_its_caution(conifer):
+    # a plot in one corner does not show all the ground: the user is told to check the
+    # detector on a second plot (common practice: validate on independent ground)
+    f, _ = conifer
+    assert "note: one training plot: its cross-validated F1 is a guide" in f["printed"]
+    assert "ecoscan validate" in f["printed"]
+    assert "cross-validated accuracy of each layer (4 folds by block" in f["printed"]
 
 
 def test_calibrated_detector_scores_on_unseen_ground(conifer):
