@@ -138,10 +138,10 @@ CENTRE_ITERATIONS = 150
 #: does not show all the ground a survey holds; common practice is to check on
 #: independent ground.
 ONE_PLOT_CAUTION = (
-    "one training plot: its cross-validated F1 is a guide, not a guarantee; on held-out "
-    "test scenes the F1 on the rest of the scene differed from it by -0.14 to +0.10 "
-    "(ground the plot does not show); before a survey, map a second plot and check the "
-    "detector on it with ecoscan validate"
+    "one training plot: its cross-validated F1 is a guide, not a guarantee; on ecoscan's "
+    "synthetic test scenes the F1 on the rest of a scene differed from it by -0.14 to "
+    "+0.10 (ground the plot does not show); before a survey, map a second plot and check "
+    "the detector on it with ecoscan validate"
 )
 CENTRE_LEAVES = 31
 #: Peak search grid: smoothing and least distance between crowns (shares of the smallest
