@@ -257,11 +257,14 @@ def tile_jobs(info: RasterInfo, tiles: list[Tile], plan: Any, detector: Detector
 
     Examples
     --------
-    >>> from ecoscan.detect.detectors.registry import get_detector
-    >>> jobs = tile_jobs(info, plan_tiles(6144, 6144, 1024, 160), plan,
-    ...                  get_detector("imagery"))  # doctest: +SKIP
-    >>> len(jobs)  # doctest: +SKIP
-    18
+    Two rows of three tiles, for a detector that allows groups: pairs side by side.
+
+    >>> from types import SimpleNamespace
+    >>> from ecoscan.detect.tiling import plan_tiles
+    >>> together = SimpleNamespace(name="imagery", reads_together=lambda plan: True)
+    >>> jobs = tile_jobs(None, plan_tiles(3000, 2000, 1000, 100), None, together)
+    >>> [[t.index for t in j.members] or [j.tile.index] for j in jobs]
+    [[0, 1], [2], [3, 4], [5]]
     """
     if not detector.reads_together(plan):
         return [TileJob(info, t, plan, detector.name) for t in tiles]
