@@ -52,6 +52,8 @@ HELD_OUT = set(range(21, 24)) | {
 DIAGNOSIS_SEEDS = set(range(500, 521))
 #: dry12's diagnosis block (suite seeds 900-920), used like the development seeds.
 DIAGNOSIS_SEEDS |= set(range(900, 921))
+#: dry13's diagnosis block (suite seeds 1100-1120), used like the development seeds.
+DIAGNOSIS_SEEDS |= set(range(1100, 1121))
 
 
 def classify(
@@ -224,8 +226,8 @@ def main(argv: list[str] | None = None) -> None:
         for style in filter(None, args.suite.split(",")):
             if HELD_OUT & set(seeds) or any(s >= 100 and s not in DIAGNOSIS_SEEDS for s in seeds):
                 ap.error(
-                    "suite diagnosis only on development seeds 0-20, 500-520 and 900-920 "
-                    "(not 21-23, 31-33, ..., 191-193, 200-209)"
+                    "suite diagnosis only on development seeds 0-20, 500-520, 900-920 and "
+                    "1100-1120 (not 21-23, 31-33, ..., 191-193, 200-209)"
                 )
             from ecoscan.synthetic import make_scene, write_scene
 

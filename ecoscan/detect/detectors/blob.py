@@ -411,6 +411,7 @@ class ImageryDetector(Detector):
             extra = find_second(
                 data, layer, plan.roles, plan.second, plan.scales, valid, window.origin
             )
+            extra = _with_crown_blobs(extra, layer, plan, valid, window.origin)
         del data
         if plan.canopy is not None:
             return _canopy_points(window, layer, plan.canopy, tint)
@@ -443,7 +444,7 @@ class ImageryDetector(Detector):
                 "sigma_px": np.concatenate([found["sigma"], extra["sigma"]]),
                 "score": np.concatenate([found["response"], extra["response"]]),
                 "index_value": np.concatenate([found["value"], extra["value"]]),
-                SECOND: np.concatenate([np.zeros(col.size), np.ones(extra["col"].size)]),
+                SECOND: np.concatenate([np.zeros(col.size), extra["kind"]]),
             }
             col = np.concatenate([col, extra["col"]])
             row = np.concatenate([row, extra["row"]])
@@ -467,7 +468,6 @@ class ImageryDetector(Detector):
             is_second = points.columns[SECOND] > 0
             added = points.take(is_second)
             points = points.take(~is_second)
-            added.columns.pop(SECOND)
             points.columns.pop(SECOND)
         c = points.columns
         radius = math.sqrt(2.0) * c["sigma_px"]
@@ -499,7 +499,7 @@ class ImageryDetector(Detector):
             )
             points = points.take(keep)
         if added is not None:
-            points, note = _with_second(points, added)
+            points, note = _with_second(points, added, plan)
             notes.append(note)
         c = points.columns
         attrs = {"diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m}
@@ -508,10 +508,31 @@ class ImageryDetector(Detector):
         return points, attrs, notes
 
 
-def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str]:
-    """The main layer's crowns plus the second layer's blobs clear of them (one note)."""
+def _with_crown_blobs(extra: dict, layer: np.ndarray, plan: BlobPlan, valid, origin) -> dict:
+    """The second layer's blobs (``kind`` 1) followed by the clipped main layer's crown
+    blobs (``kind`` 2; :mod:`ecoscan.detect.clipped_crowns`), one dict."""
+    from ecoscan.detect.clipped_crowns import crown_blobs
+
+    second = plan.second
+    extra = dict(extra, kind=np.ones(extra["col"].size))
+    if second.crown_band is None:
+        return extra
+    crowns = crown_blobs(
+        layer, second.crown_band, second.crown_min_response, plan.scales, valid, origin
+    )
+    crowns["kind"] = np.full(crowns["col"].size, 2.0)
+    return {k: np.concatenate([extra[k], crowns[k]]) for k in extra}
+
+
+def _with_second(points: TilePoints, added: TilePoints, plan: BlobPlan) -> tuple[TilePoints, str]:
+    """The main layer's crowns plus the second layer's blobs clear of them, then big pale
+    crowns placed whole by the clipped main layer's blobs (one note)."""
     from ecoscan.detect.pale_crowns import added_points, whole_crowns
 
+    kind = added.columns.pop(SECOND)
+    crowns = added.take(kind == 2)
+    added = added.take(kind == 1)
+    n_main = points.n
     root2 = math.sqrt(2.0)
     # big dry crowns whose Excess Green points are lobes: the GRVI blob replaces them
     drop, take = whole_crowns(
@@ -525,6 +546,7 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
         added.columns["score"],
     )
     n_whole = int(take.sum())
+    n_main -= int(drop.sum())
     if n_whole:
         points = TilePoints.concat([points.take(~drop), added.take(take)])
         added = added.take(~take)
@@ -545,15 +567,60 @@ def _with_second(points: TilePoints, added: TilePoints) -> tuple[TilePoints, str
         else ""
     )
     if n == 0:
-        return points, (
+        note = (
             "the green-red index (GRVI) was searched for pale or grey crowns that Excess "
             "Green missed: none found clear of the Excess Green crowns and their shadows" + whole
         )
-    note = (
-        f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed none "
-        "(pale or grey crowns; their index_value is GRVI)" + whole
+    else:
+        note = (
+            f"{n} crown(s) added from the green-red index (GRVI) where Excess Green showed "
+            "none (pale or grey crowns; their index_value is GRVI)" + whole
+        )
+        points = TilePoints.concat([points, added.take(keep)])
+    points, n_clip = _pale_crowns_whole(points, crowns, plan.second, n_main)
+    if n_clip:
+        note += (
+            f"; {n_clip} big pale crown(s) placed whole from Excess Green clipped to its "
+            "pale band, instead of at lobes found on them"
+        )
+    return points, note
+
+
+def _pale_crowns_whole(
+    points: TilePoints, crowns: TilePoints, second, n_main: int
+) -> tuple[TilePoints, int]:
+    """Pale lobe points replaced by the clipped main layer's crown blobs
+    (:func:`ecoscan.detect.clipped_crowns.crown_points`). The first ``n_main`` points are
+    the main layer's; the rest were placed by the GRVI second layer (pale by construction).
+    A new point keeps the score and ``index_value`` of the strongest point it replaces."""
+    from ecoscan.detect.clipped_crowns import crown_points
+
+    if crowns.n == 0 or points.n == 0:
+        return points, 0
+    root2 = math.sqrt(2.0)
+    c = points.columns
+    pale = (c["index_value"] <= second.pale_value) | (np.arange(points.n) >= n_main)
+    drop, take, by = crown_points(
+        points.col,
+        points.row,
+        root2 * c["sigma_px"],
+        pale,
+        crowns.col,
+        crowns.row,
+        root2 * crowns.columns["sigma_px"],
+        crowns.columns["score"],
     )
-    return TilePoints.concat([points, added.take(keep)]), note
+    if not take.any():
+        return points, 0
+    new = crowns.take(take)
+    # the strongest replaced point of each taking blob: its score and index_value
+    slot = np.cumsum(take) - 1
+    best = np.full(new.n, -1, dtype=np.intp)
+    for j in np.flatnonzero(drop)[np.argsort(c["score"][drop], kind="stable")]:
+        best[slot[by[j]]] = j  # ascending score: the strongest is written last
+    new.columns["score"] = c["score"][best]
+    new.columns["index_value"] = c["index_value"][best]
+    return TilePoints.concat([points.take(~drop), new]), int(take.sum())
 
 
 DETECTOR = ImageryDetector()
