@@ -25,14 +25,18 @@ A blob of the clipped layer replaces the final points inside its radius
 
 Strongest blob first (ties by position); a point is replaced once. The new point takes the
 blob's position and diameter, and the score and ``index_value`` of the strongest point it
-replaces (so scores stay on the main layer's scale). The rule runs where the GRVI second
-layer runs (:func:`ecoscan.detect.pale_crowns.second_layer`): Excess Green alone on smooth
-ground in an RGB image; the blobs are exact in every tile's core (the clipped layer is a
-pixel-wise function of the main layer and uses the same scales), so tiled runs equal
+replaces (so scores stay on the main layer's scale). The rule runs where the main layer is
+Excess Green alone on smooth ground in an RGB image
+(:func:`ecoscan.detect.pale_crowns.plain_excess_green`; also where GRVI does not separate
+and the second layer is off) and touching crowns are split. The blobs are exact in every
+tile's core (the clipped layer is a pixel-wise function of the main layer and uses the
+same scales), and the replacement runs once over all tiles' points, so tiled runs equal
 whole-image runs.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -43,6 +47,7 @@ __all__ = [
     "MIN_RESPONSE",
     "PALE_MADS",
     "PART_SHARE",
+    "PaleBand",
     "clip_band",
     "crown_blobs",
     "crown_points",
@@ -63,6 +68,50 @@ PALE_MADS = 5.0
 #: (0.8 and 1.0 tried; 1.0 also re-placed hundreds of pale crowns already found, for
 #: a small further gain).
 PART_SHARE = 0.8
+
+
+@dataclass(frozen=True)
+class PaleBand:
+    """The clipped layer of a raster, fixed once (picklable, sent to every tile).
+
+    Attributes
+    ----------
+    low, high : float
+        The band the main layer is clipped to.
+    min_response : float
+        Least response of a crown blob.
+    pale_value : float
+        Highest main-layer value of a point a crown blob may replace.
+    """
+
+    low: float
+    high: float
+    min_response: float
+    pale_value: float
+
+
+def pale_band(choice, roles: tuple[str, ...]) -> PaleBand | None:
+    """The clipped layer for a raster whose main layer is ``choice``, or None.
+
+    Only where the main layer is Excess Green alone on smooth ground in an RGB image
+    (:func:`ecoscan.detect.pale_crowns.plain_excess_green`); the band from its background
+    statistics (:func:`clip_band`).
+
+    Examples
+    --------
+    >>> from ecoscan.detect.autotune import LayerChoice
+    >>> exg = LayerChoice("exg", (("exg", 1.0),), 0.01, 0.02, (1.0,), 1.0, 1.0, 5.0, 0.0, 20)
+    >>> band = pale_band(exg, ("red", "green", "blue"))
+    >>> round(band.low, 3), round(band.high, 3)
+    (0.01, 0.05)
+    >>> pale_band(exg, ("red", "green", "blue", "nir")) is None
+    True
+    """
+    from ecoscan.detect.pale_crowns import plain_excess_green
+
+    if not plain_excess_green(choice, roles):
+        return None
+    return PaleBand(*clip_band(choice.background, choice.spread))
 
 
 def clip_band(background: float, spread: float) -> tuple[float, float, float, float]:

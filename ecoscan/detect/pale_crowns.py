@@ -118,13 +118,6 @@ class SecondLayer:
         Factor that puts a GRVI response on the main layer's scale (ratio of the two
         layers' median response thresholds), so scores of added points compare with the
         others'.
-    crown_band : (float, float) or None
-        Band of the clipped main layer whose blobs place big pale crowns whole
-        (:mod:`ecoscan.detect.clipped_crowns`); None turns that rule off.
-    crown_min_response : float
-        Least response of such a blob.
-    pale_value : float
-        Highest main-layer value of a point such a blob may replace.
     """
 
     terms: tuple[tuple[str, float], ...]
@@ -134,9 +127,6 @@ class SecondLayer:
     max_brightness: float
     main_min_value: float
     score_scale: float
-    crown_band: tuple[float, float] | None = None
-    crown_min_response: float = math.inf
-    pale_value: float = -math.inf
 
 
 def plain_excess_green(choice, roles: tuple[str, ...]) -> bool:
@@ -199,7 +189,6 @@ def second_layer(
     True
     """
     from ecoscan.detect.autotune import choose_layer
-    from ecoscan.detect.clipped_crowns import clip_band
 
     if not plain_excess_green(choice, roles):
         return None
@@ -221,7 +210,6 @@ def second_layer(
     level = float(np.median(bright)) if bright.size else math.inf
     main_thr = float(np.median(choice.min_response))
     own_thr = float(np.median(grvi.min_response))
-    lo, hi, crown_response, pale = clip_band(choice.background, choice.spread)
     return SecondLayer(
         terms=grvi.terms,
         min_response=grvi.min_response,
@@ -230,9 +218,6 @@ def second_layer(
         max_brightness=MAX_BRIGHTNESS * level,
         main_min_value=choice.background + MAIN_VALUE_MADS * choice.spread,
         score_scale=main_thr / own_thr if own_thr > 0 else 1.0,
-        crown_band=(lo, hi),
-        crown_min_response=crown_response,
-        pale_value=pale,
     )
 
 

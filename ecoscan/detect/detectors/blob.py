@@ -125,6 +125,9 @@ class BlobPlan:
     second : SecondLayer or None
         A second evidence layer whose blobs only add crowns the main layer lacks
         (:mod:`ecoscan.detect.pale_crowns`); None: the main layer alone.
+    pale_band : PaleBand or None
+        The main layer clipped to its pale band, whose crown blobs replace the lobe points
+        of big pale crowns (:mod:`ecoscan.detect.clipped_crowns`); None: off.
     lobe_share : float or None
         Merged-pair parents whose centre value stands this share as high as their
         children's are one lobed crown and kept (:func:`ecoscan.detect.blobs.lobed_parents`);
@@ -160,6 +163,7 @@ class BlobPlan:
     strong: tuple[float, float] | None = None
     second: object = None
     lobe_share: float | None = None
+    pale_band: object = None
     band_blur_px: float = 0.0
     recentre: bool = False
     ring_open: bool = False
@@ -405,13 +409,8 @@ class ImageryDetector(Detector):
         if not valid.all():
             layer[~valid] = plan.fill_value
         extra = None
-        if plan.second is not None:  # pale crowns (ecoscan.detect.pale_crowns)
-            from ecoscan.detect.pale_crowns import find_second
-
-            extra = find_second(
-                data, layer, plan.roles, plan.second, plan.scales, valid, window.origin
-            )
-            extra = _with_crown_blobs(extra, layer, plan, valid, window.origin)
+        if plan.second is not None or plan.pale_band is not None:  # pale crowns
+            extra = _pale_blobs(data, layer, plan, valid, window.origin)
         del data
         if plan.canopy is not None:
             return _canopy_points(window, layer, plan.canopy, tint)
@@ -452,7 +451,8 @@ class ImageryDetector(Detector):
 
     def empty_tile(self, plan: BlobPlan) -> TilePoints:
         """No blobs."""
-        return TilePoints.empty(TILE_COLUMNS + ((SECOND,) if plan.second is not None else ()))
+        marked = plan.second is not None or plan.pale_band is not None
+        return TilePoints.empty(TILE_COLUMNS + ((SECOND,) if marked else ()))
 
     def reads_together(self, plan: BlobPlan) -> bool:
         """The blob layers chosen from the image (not closed canopy's watershed, nor a
@@ -500,7 +500,7 @@ class ImageryDetector(Detector):
             points = points.take(keep)
         if added is not None:
             points, note = _with_second(points, added, plan)
-            notes.append(note)
+            notes += [note] if note else []
         c = points.columns
         attrs = {"diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m}
         attrs["score"] = c["score"]
@@ -508,20 +508,24 @@ class ImageryDetector(Detector):
         return points, attrs, notes
 
 
-def _with_crown_blobs(extra: dict, layer: np.ndarray, plan: BlobPlan, valid, origin) -> dict:
-    """The second layer's blobs (``kind`` 1) followed by the clipped main layer's crown
-    blobs (``kind`` 2; :mod:`ecoscan.detect.clipped_crowns`), one dict."""
+def _pale_blobs(data, layer: np.ndarray, plan: BlobPlan, valid, origin) -> dict:
+    """The GRVI second layer's blobs (``kind`` 1; :mod:`ecoscan.detect.pale_crowns`)
+    followed by the clipped main layer's crown blobs (``kind`` 2;
+    :mod:`ecoscan.detect.clipped_crowns`), one dict; each part where its plan is set."""
     from ecoscan.detect.clipped_crowns import crown_blobs
+    from ecoscan.detect.pale_crowns import find_second
 
-    second = plan.second
-    extra = dict(extra, kind=np.ones(extra["col"].size))
-    if second.crown_band is None:
-        return extra
-    crowns = crown_blobs(
-        layer, second.crown_band, second.crown_min_response, plan.scales, valid, origin
-    )
-    crowns["kind"] = np.full(crowns["col"].size, 2.0)
-    return {k: np.concatenate([extra[k], crowns[k]]) for k in extra}
+    parts = []
+    if plan.second is not None:
+        grvi = find_second(data, layer, plan.roles, plan.second, plan.scales, valid, origin)
+        parts.append(dict(grvi, kind=np.ones(grvi["col"].size)))
+    band = plan.pale_band
+    if band is not None:
+        crowns = crown_blobs(
+            layer, (band.low, band.high), band.min_response, plan.scales, valid, origin
+        )
+        parts.append(dict(crowns, kind=np.full(crowns["col"].size, 2.0)))
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 
 
 def _with_second(points: TilePoints, added: TilePoints, plan: BlobPlan) -> tuple[TilePoints, str]:
@@ -532,6 +536,9 @@ def _with_second(points: TilePoints, added: TilePoints, plan: BlobPlan) -> tuple
     kind = added.columns.pop(SECOND)
     crowns = added.take(kind == 2)
     added = added.take(kind == 1)
+    if plan.second is None:  # GRVI off: only the clipped layer's crowns
+        points, n_clip = _pale_crowns_whole(points, crowns, plan.pale_band, points.n)
+        return points, _clip_note(n_clip)
     n_main = points.n
     root2 = math.sqrt(2.0)
     # big dry crowns whose Excess Green points are lobes: the GRVI blob replaces them
@@ -577,17 +584,22 @@ def _with_second(points: TilePoints, added: TilePoints, plan: BlobPlan) -> tuple
             "none (pale or grey crowns; their index_value is GRVI)" + whole
         )
         points = TilePoints.concat([points, added.take(keep)])
-    points, n_clip = _pale_crowns_whole(points, crowns, plan.second, n_main)
-    if n_clip:
-        note += (
-            f"; {n_clip} big pale crown(s) placed whole from Excess Green clipped to its "
-            "pale band, instead of at lobes found on them"
-        )
-    return points, note
+    points, n_clip = _pale_crowns_whole(points, crowns, plan.pale_band, n_main)
+    return points, note + ("; " + _clip_note(n_clip) if n_clip else "")
+
+
+def _clip_note(n_clip: int) -> str:
+    """The note of :func:`_pale_crowns_whole` (empty when no crown was placed so)."""
+    if not n_clip:
+        return ""
+    return (
+        f"{n_clip} big pale crown(s) placed whole from Excess Green clipped to its pale "
+        "band, instead of at lobes found on them"
+    )
 
 
 def _pale_crowns_whole(
-    points: TilePoints, crowns: TilePoints, second, n_main: int
+    points: TilePoints, crowns: TilePoints, band, n_main: int
 ) -> tuple[TilePoints, int]:
     """Pale lobe points replaced by the clipped main layer's crown blobs
     (:func:`ecoscan.detect.clipped_crowns.crown_points`). The first ``n_main`` points are
@@ -595,11 +607,11 @@ def _pale_crowns_whole(
     A new point keeps the score and ``index_value`` of the strongest point it replaces."""
     from ecoscan.detect.clipped_crowns import crown_points
 
-    if crowns.n == 0 or points.n == 0:
+    if band is None or crowns.n == 0 or points.n == 0:
         return points, 0
     root2 = math.sqrt(2.0)
     c = points.columns
-    pale = (c["index_value"] <= second.pale_value) | (np.arange(points.n) >= n_main)
+    pale = (c["index_value"] <= band.pale_value) | (np.arange(points.n) >= n_main)
     drop, take, by = crown_points(
         points.col,
         points.row,

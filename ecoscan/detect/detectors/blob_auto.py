@@ -252,6 +252,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         strong=strong_test(choice),
         second=second,
         lobe_share=_lobe_share(choice, roles, settings),
+        pale_band=_pale_band(choice, roles, settings),
         band_blur_px=choice.band_blur_px,
         recentre=choice.band_blur_px > 0,
         ring_open=_ring_open(choice),
@@ -326,6 +327,13 @@ def _lobe_share(choice, roles, settings) -> float | None:
     if not settings.split_touching or not plain_excess_green(choice, roles):
         return None
     return LOBE_SHARE
+
+
+def _pale_band(choice, roles, settings):
+    """:func:`ecoscan.detect.clipped_crowns.pale_band` where touching crowns are split."""
+    from ecoscan.detect.clipped_crowns import pale_band
+
+    return pale_band(choice, roles) if settings.split_touching else None
 
 
 def _second_meta(second) -> dict:
