@@ -593,8 +593,8 @@ def _clip_note(n_clip: int) -> str:
     if not n_clip:
         return ""
     return (
-        f"{n_clip} big pale crown(s) placed whole from Excess Green clipped to its pale "
-        "band, instead of at lobes found on them"
+        f"{n_clip} pale crown(s) placed whole from Excess Green clipped to its pale band, "
+        "instead of at lobes found on them"
     )
 
 

@@ -251,8 +251,7 @@ def auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes):
         shadow_radius_max=settings.diameter_max_m / 2 / info.pixel_size_m,
         strong=strong_test(choice),
         second=second,
-        lobe_share=_lobe_share(choice, roles, settings),
-        pale_band=_pale_band(choice, roles, settings),
+        **_pale_rules(choice, roles, settings),
         band_blur_px=choice.band_blur_px,
         recentre=choice.band_blur_px > 0,
         ring_open=_ring_open(choice),
@@ -329,11 +328,13 @@ def _lobe_share(choice, roles, settings) -> float | None:
     return LOBE_SHARE
 
 
-def _pale_band(choice, roles, settings):
-    """:func:`ecoscan.detect.clipped_crowns.pale_band` where touching crowns are split."""
+def _pale_rules(choice, roles, settings) -> dict:
+    """The plan's lobed-crown share (:func:`_lobe_share`) and clipped layer
+    (:func:`ecoscan.detect.clipped_crowns.pale_band`, where touching crowns are split)."""
     from ecoscan.detect.clipped_crowns import pale_band
 
-    return pale_band(choice, roles) if settings.split_touching else None
+    band = pale_band(choice, roles) if settings.split_touching else None
+    return {"lobe_share": _lobe_share(choice, roles, settings), "pale_band": band}
 
 
 def _second_meta(second) -> dict:
