@@ -10,6 +10,9 @@
   in this process.
 * A spare share (:class:`ecoscan.detect.tiling.WorkShare` with ``after``) hands nothing to
   a worker before every job of the share it follows has been taken.
+* The tile step (:func:`ecoscan.detect.pale_crowns.find_second`, whose brightness is now
+  used without a copy) keeps the GRVI blobs that the same tests written out with
+  ``scipy.ndimage.gaussian_filter`` over whole images keep.
 
 Invented scenes only.
 """
@@ -188,3 +191,47 @@ def test_added_points_at_once_equal_the_rule_blob_by_blob():
         np.testing.assert_array_equal(got, want)
         if n_main == 300:
             assert 0 < got.sum() < n  # some cleared, some kept
+
+
+def test_find_second_keeps_the_blobs_the_whole_image_filters_keep():
+    # the tile step's brightness and main-layer tests against the rule written out with
+    # scipy.ndimage.gaussian_filter (general-purpose library) over whole images: the
+    # brightness is the mean of red, green and blue in float32, used without a copy
+    from ecoscan.detect import blobs
+    from ecoscan.detect.engine import compose_layer
+    from ecoscan.detect.pale_crowns import SecondLayer, find_second
+    from ecoscan.synthetic import make_scene
+
+    sc = make_scene("dry-shrubs", 400, 7)  # a development seed
+    data = np.asarray(sc.image, np.float32)[:3]
+    roles = ("red", "green", "blue")
+    ps = sc.pixel_size_m
+    scales = blobs.blob_scales(sc.diameter_range_m[0] / ps / 2, sc.diameter_range_m[1] / ps / 2)
+    valid = np.ones(data.shape[1:], bool)
+    main = compose_layer(data, roles, (("exg", 1.0),))
+    grvi = compose_layer(data, roles, (("grvi", 1.0),))
+    bright = (data[0] + data[1] + data[2]) / np.float32(3.0)
+    floor = tuple(np.full(scales.sigmas.size, 0.01))
+    middle = float(np.median(grvi))
+    every = blobs.detect_blobs(grvi, scales, np.asarray(floor), middle, valid, background=middle)
+    r = np.clip(np.rint(every["row"]).astype(int), 0, bright.shape[0] - 1)
+    c = np.clip(np.rint(every["col"]).astype(int), 0, bright.shape[1] - 1)
+    sigma = float(scales.sigmas[1])
+    bright_at = ndimage.gaussian_filter(bright, sigma)[r, c]
+    main_at = ndimage.gaussian_filter(main, sigma)[r, c]
+    # thresholds in the middle of the blobs' values, so that both tests decide something
+    second = SecondLayer(
+        terms=(("grvi", 1.0),),
+        min_response=floor,
+        min_value=middle,
+        background=middle,
+        max_brightness=float(np.median(bright_at)),
+        main_min_value=float(np.quantile(main_at, 0.3)),
+        score_scale=2.0,
+    )
+    got = find_second(data, main, roles, second, scales, valid, (0, 0))
+    keep = (bright_at <= second.max_brightness) & (main_at >= second.main_min_value)
+    assert 0 < keep.sum() < keep.size and every["row"].size > 30
+    np.testing.assert_array_equal(got["row"], every["row"][keep])
+    np.testing.assert_array_equal(got["col"], every["col"][keep])
+    np.testing.assert_array_equal(got["response"], every["response"][keep] * 2.0)

@@ -295,7 +295,8 @@ def find_second(
     h, w = bright.shape
     r = np.clip(np.rint(found["row"] - origin[1]).astype(int), 0, h - 1)
     c = np.clip(np.rint(found["col"] - origin[0]).astype(int), 0, w - 1)
-    keep = smoothed_at(bright.astype(np.float32), r, c, sigma) <= second.max_brightness
+    # float32 already (the bands are): no copy of the window
+    keep = smoothed_at(np.asarray(bright, np.float32), r, c, sigma) <= second.max_brightness
     # the main-layer test only where the brightness test passed (the same blobs kept)
     main_at = smoothed_at(np.asarray(main_layer, np.float32), r[keep], c[keep], sigma)
     keep[keep] = main_at >= second.main_min_value
