@@ -16,7 +16,8 @@ extra scale
   smallest stated scale's threshold raised by the white-noise rise of the response spread
   and the density rise of the response threshold (:func:`extra_threshold`), and
   :data:`CLEARNESS` times the centre-value excess of the main search; and it must pass
-  the ring test where the plan has it;
+  the ring test (the plan's figure, or the rough-ground one where the plan has none:
+  textured ground such as NDVI mottling peaks at this scale too);
 * never enters the touching-crown split or the pruning of the main blobs;
 * is kept only when no kept crown overlaps it (:func:`isolated`);
 * is reported with the smallest stated diameter (the range the user gave is respected).
@@ -33,7 +34,13 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.spatial import cKDTree
 
-from ecoscan.detect.blobs import BlobScales, detect_blobs, prune_blobs, response_spread
+from ecoscan.detect.blobs import (
+    BlobScales,
+    detect_blobs,
+    prune_blobs,
+    response_spread,
+    ring_reach_px,
+)
 
 __all__ = [
     "BELOW",
@@ -70,6 +77,10 @@ class BelowRange:
         Response threshold at the extra scale.
     min_value : float
         Lowest smoothed centre value at the extra scale.
+    ring_mads : float
+        Ring test of the extra scale's blobs (:func:`ecoscan.detect.blobs.ring_contrast`):
+        the plan's where it has one, else the rough-ground figure
+        (``ecoscan.detect.autotune.RING_MADS``).
     sigma_reported : float
         σ (pixels) reported for the crowns found: the smallest stated scale.
     """
@@ -77,6 +88,7 @@ class BelowRange:
     scales: BlobScales
     min_response: float
     min_value: float
+    ring_mads: float
     sigma_reported: float
 
 
@@ -137,6 +149,7 @@ def plan_below(auto: tuple) -> tuple:
     Plans the rule does not apply to are returned unchanged.
     """
     plan, overlap, align, th, notes = auto
+    from ecoscan.detect.autotune import RING_MADS
     from ecoscan.detect.detectors.blob import BlobPlan
 
     if (
@@ -153,19 +166,23 @@ def plan_below(auto: tuple) -> tuple:
         below_scales(plan.scales),
         CLEARNESS * extra_threshold(plan.scales, plan.min_response_by_scale),
         plan.fill_value + CLEARNESS * (plan.min_value - plan.fill_value),
+        RING_MADS if plan.ring_mads is None else plan.ring_mads,
         float(plan.scales.sigmas[1]),
     )
+    overlap = max(overlap, ring_reach_px(below.scales))  # the ring is exact in every core
     th = {
         **th,
         "below_range_sigma_px": float(below.scales.sigmas[1]),
         "below_range_threshold": below.min_response,
         "below_range_min_value": below.min_value,
+        "below_range_ring_mads": below.ring_mads,
         "below_range_from": (
             "small crowns peaking one scale below the stated range are searched there too "
             f"and kept only when isolated (no kept crown overlaps them); their threshold is "
             f"{CLEARNESS:g} x the smallest stated scale's raised by the white-noise and "
             f"density rises, their smoothed centre must stand {CLEARNESS:g} x as far above "
-            "the background as the vegetation threshold; "
+            "the background as the vegetation threshold, and they must pass the ring test "
+            "(the plan's figure, or the rough-ground one where it has none); "
             "their reported diameter is clamped to the stated minimum"
         ),
     }
@@ -184,7 +201,7 @@ def find_below(layer: np.ndarray, plan, valid: np.ndarray, origin: tuple[int, in
         valid,
         origin=origin,
         background=plan.fill_value,
-        ring_mads=plan.ring_mads,
+        ring_mads=below.ring_mads,
         ring_open=plan.ring_open,
     )
 
