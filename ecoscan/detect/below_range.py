@@ -156,10 +156,32 @@ def extra_threshold(scales: BlobScales, min_response_by_scale) -> float:
 
 
 def plan_below(auto: tuple) -> tuple:
-    """Add the extra scale to an image-chosen blob plan (``(plan, overlap, align, th,
-    notes)`` of the imagery detector), and say so in the detection metadata.
+    """Add the extra scale to an image-chosen blob plan, and say so in the metadata.
 
-    Plans the rule does not apply to are returned unchanged.
+    Parameters
+    ----------
+    auto : tuple
+        ``(plan, overlap, align, thresholds, notes)`` of the imagery detector's automatic
+        choice.
+
+    Returns
+    -------
+    tuple
+        The same, with ``plan.below`` set, the overlap widened to the extra scale's ring
+        and the rule recorded; plans the rule does not apply to unchanged.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> from ecoscan.detect.detectors.blob import BlobPlan
+    >>> sc = blob_scales(6.25, 20.0)
+    >>> plan = BlobPlan((1, 2, 3), 0.04, scales=sc, min_value=0.1, fill_value=0.0,
+    ...                 min_response_by_scale=tuple([0.02] * sc.sigmas.size))
+    >>> new, overlap, align, th, notes = plan_below((plan, 10, 4, {}, []))
+    >>> round(th["below_range_sigma_px"], 2), new.below.min_value
+    (3.51, 0.2)
+    >>> plan_below((None, 0, 1, {}, []))[0] is None
+    True
     """
     plan, overlap, align, th, notes = auto
     from ecoscan.detect.autotune import RING_MADS
@@ -195,15 +217,32 @@ def plan_below(auto: tuple) -> tuple:
             f"{CLEARNESS:g} x the smallest stated scale's raised by the white-noise and "
             f"density rises, their smoothed centre must stand {CLEARNESS:g} x as far above "
             "the background as the vegetation threshold, and they must pass the ring test "
-            "(the plan's figure, or the rough-ground one where it has none); "
-            "their reported diameter is clamped to the stated minimum"
+            "(the plan's figure, or the rough-ground one where it has none); none is added "
+            f"unless at least {MIN_ISOLATED_SHARE:.0%} of that scale's blobs in the raster "
+            "are isolated; their reported diameter is clamped to the stated minimum"
         ),
     }
     return replace(plan, below=below), overlap, align, th, notes
 
 
 def find_below(layer: np.ndarray, plan, valid: np.ndarray, origin: tuple[int, int]) -> dict:
-    """Blobs at the extra scale (:func:`detect_blobs` with the plan's other tests)."""
+    """Blobs at the extra scale of ``plan.below`` (:func:`detect_blobs` with its tests).
+
+    Returns the fields of :func:`ecoscan.detect.blobs.detect_blobs`.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> sc = blob_scales(6.25, 20.0)
+    >>> yy, xx = np.mgrid[:64, :64]
+    >>> layer = np.exp(-((yy - 32) ** 2 + (xx - 30) ** 2) / (2 * 3.5**2)).astype(np.float32)
+    >>> plan = SimpleNamespace(below=BelowRange(below_scales(sc), 0.05, 0.05, 1.0, 4.42),
+    ...                        fill_value=0.0, ring_open=False)
+    >>> found = find_below(layer, plan, np.ones(layer.shape, bool), (0, 0))
+    >>> [round(float(found[k][0])) for k in ("row", "col")]
+    [32, 30]
+    """
     below: BelowRange = plan.below
     thr = np.full(3, below.min_response)
     return detect_blobs(
@@ -262,9 +301,31 @@ def isolated(
     return keep
 
 
-def add_below(layer, plan, valid, origin, col, row, columns: dict):
+def add_below(
+    layer: np.ndarray,
+    plan,
+    valid: np.ndarray,
+    origin: tuple[int, int],
+    col: np.ndarray,
+    row: np.ndarray,
+    columns: dict,
+) -> tuple[np.ndarray, np.ndarray, dict]:
     """A tile's main blobs (``col``, ``row``, ``columns``) with the extra-scale blobs
-    appended and marked in the :data:`BELOW` column (the imagery detector's ``run``)."""
+    appended and marked in the :data:`BELOW` column (the imagery detector's ``run``).
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> from ecoscan.detect.blobs import blob_scales
+    >>> sc = blob_scales(6.25, 20.0)
+    >>> plan = SimpleNamespace(below=BelowRange(below_scales(sc), 0.05, 0.05, 1.0, 4.42),
+    ...                        fill_value=0.0, ring_open=False)
+    >>> empty = np.zeros(0)
+    >>> c, r, cols = add_below(np.zeros((32, 32), np.float32), plan, np.ones((32, 32), bool),
+    ...                        (0, 0), empty, empty, {"sigma_px": empty, "score": empty})
+    >>> sorted(cols), c.size
+    (['below_range', 'score', 'sigma_px'], 0)
+    """
     found = find_below(layer, plan, valid, origin)
     n, m = col.size, found["col"].size
     extra = {"sigma_px": found["sigma"], "score": found["response"], "index_value": found["value"]}
@@ -274,7 +335,16 @@ def add_below(layer, plan, valid, origin, col, row, columns: dict):
 
 
 def split_off(points):
-    """(main points, extra-scale points or None), the :data:`BELOW` column dropped."""
+    """(main points, extra-scale points or None), the :data:`BELOW` column dropped.
+
+    Examples
+    --------
+    >>> from ecoscan.detect.detectors.base import TilePoints
+    >>> t = TilePoints(np.array([1.0, 2.0]), np.zeros(2), {BELOW: np.array([0.0, 1.0])})
+    >>> main, below = split_off(t)
+    >>> main.col.tolist(), below.col.tolist(), BELOW in main.columns
+    ([1.0], [2.0], False)
+    """
     if BELOW not in points.columns:
         return points, None
     is_below = points.columns[BELOW] > 0
@@ -291,6 +361,17 @@ def add_isolated(points, below, sigma_reported: float):
 
     None is added when fewer than :data:`MIN_ISOLATED_SHARE` of the extra-scale blobs are
     isolated (small crowns do not commonly peak below the range in this image).
+
+    Examples
+    --------
+    >>> from ecoscan.detect.detectors.base import TilePoints
+    >>> def table(x, sigma):
+    ...     n = len(x)
+    ...     return TilePoints(np.array(x), np.zeros(n), {"sigma_px": np.array(sigma),
+    ...                       "score": np.ones(n), "index_value": np.ones(n)})
+    >>> kept, note = add_isolated(table([0.0], [10.0]), table([8.0, 60.0], [3.0, 3.5]), 4.4)
+    >>> kept.col.tolist(), kept.columns["sigma_px"].tolist()
+    ([0.0, 60.0], [10.0, 4.4])
     """
     from ecoscan.detect.detectors.base import TilePoints
 
