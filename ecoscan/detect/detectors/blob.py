@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ecoscan.detect import blobs, canopy
+from ecoscan.detect import below_range, blobs, canopy
 from ecoscan.detect.detectors.base import (
     Detector,
     Prepared,
@@ -142,6 +142,9 @@ class BlobPlan:
         The ring test measures the ring's open sectors only and drops shoulders
         (:func:`ecoscan.detect.chromaticity.open_ring_contrast`); set with the
         log-chromaticity layer.
+    below : BelowRange or None
+        Isolated small crowns searched one scale below the stated range
+        (:mod:`ecoscan.detect.below_range`); None: the stated range only.
     """
 
     bands: tuple[int, ...]
@@ -167,6 +170,7 @@ class BlobPlan:
     band_blur_px: float = 0.0
     recentre: bool = False
     ring_open: bool = False
+    below: object = None
 
 
 def auto_layer(settings: DetectionSettings) -> bool:
@@ -302,7 +306,7 @@ def _imagery_plan(info: RasterInfo, settings: DetectionSettings, bands, index):
 
         auto = auto_imagery(info, settings, bands, scales, overlap, dmax_px, notes)
         if auto is not None:
-            return auto
+            return below_range.plan_below(auto)
         fallback = _weak_separation_fallback()
         notes.append(fallback)
     if data is None:
@@ -447,12 +451,19 @@ class ImageryDetector(Detector):
             }
             col = np.concatenate([col, extra["col"]])
             row = np.concatenate([row, extra["row"]])
+        if plan.below is not None:  # small crowns one scale below the range (below_range.py)
+            col, row, columns = below_range.add_below(
+                layer, plan, valid, window.origin, col, row, columns
+            )
         return TilePoints(col, row, columns)
 
     def empty_tile(self, plan: BlobPlan) -> TilePoints:
         """No blobs."""
         marked = plan.second is not None or plan.pale_band is not None
-        return TilePoints.empty(TILE_COLUMNS + ((SECOND,) if marked else ()))
+        more = ((SECOND,) if marked else ()) + (
+            (below_range.BELOW,) if plan.below is not None else ()
+        )
+        return TilePoints.empty(TILE_COLUMNS + more)
 
     def reads_together(self, plan: BlobPlan) -> bool:
         """The blob layers chosen from the image (not closed canopy's watershed, nor a
@@ -464,6 +475,7 @@ class ImageryDetector(Detector):
     def finish(self, points: TilePoints, plan: BlobPlan):
         """Split blobs of touching crowns, prune lobes, then diameters in metres."""
         added, notes = None, []
+        points, below = below_range.split_off(points)
         if SECOND in points.columns:  # second-layer blobs apart from the main layer's
             is_second = points.columns[SECOND] > 0
             added = points.take(is_second)
@@ -501,6 +513,9 @@ class ImageryDetector(Detector):
         if added is not None:
             points, note = _with_second(points, added, plan)
             notes += [note] if note else []
+        if below is not None:  # isolated small crowns below the range (below_range.py)
+            points, note = below_range.add_isolated(points, below, plan.below.sigma_reported)
+            notes.append(note)
         c = points.columns
         attrs = {"diameter_m": 2.0 * math.sqrt(2.0) * c["sigma_px"] * plan.pixel_size_m}
         attrs["score"] = c["score"]
