@@ -155,6 +155,8 @@ def test_closed_canopy_detection_tiled_equals_whole_and_is_recorded(tmp_path):
         paths.raster, DetectionSettings(diameter_min_m=lo, diameter_max_m=hi, tile_size_px=128)
     )
     assert whole.thresholds["layer"] == "canopy"
+    # colour edges (computed per tile) are on here, so tiles must cover them too
+    assert whole.thresholds["canopy_colour_edge_gain"] > 0
     assert tiled.tiles_total > 1
     a = np.sort(np.round(whole.points.xy, 6), axis=0)
     b = np.sort(np.round(tiled.points.xy, 6), axis=0)

@@ -58,6 +58,7 @@ __all__ = [
     "canopy_layer",
     "canopy_split",
     "canopy_tint",
+    "colour_edges",
     "is_closed_canopy",
     "join_at_crown_scale",
     "level_set_lean",
@@ -156,6 +157,18 @@ LEAN_SHARE = LEAN_LEVELS[0] / (LEAN_LEVELS[1] - LEAN_LEVELS[0])
 #: 0.006, more than the adoption rule's 0.005 (docs/detection-history.md, "Closed
 #: canopy, eighth round").
 DOME_LEAN_GAIN = 1.25
+#: Colour edges as valleys (:func:`colour_edges`, on with shaded domes): the split's
+#: layer is lowered by this many times the colour step across each pixel (σ × the
+#: gradient magnitude of the chromatic coordinates r / (r + g + b) and b / (r + g + b),
+#: smoothed at σ). A crown's chromaticity is nearly the same over its lit and shaded
+#: parts (shading scales all bands alike), while neighbours of other species or of other
+#: vigour differ; so the boundary between a darker crown and the flank of a brighter one,
+#: where brightness alone has no valley, becomes one. Chosen on suite diagnosis seeds
+#: 1200-1220, 0, 7, 11 (docs/notes-canopy13.md): 12 with σ = 0.3 × the smallest crown
+#: radius.
+EDGE_GAIN = 12.0
+#: ... σ of the colour edges, as a share of the smallest crown radius.
+EDGE_SHARE = 0.3
 #: The lean is measured only over at least this many regions (else no shift).
 MIN_LEAN_REGIONS = 10
 #: Chromatic Excess Green above which a pixel counts as green vegetation in the switch
@@ -219,6 +232,9 @@ class CanopySplit:
         Also join neighbours with no valley between them at the crown's own scale
         (:func:`join_at_crown_scale`); on when ``merge`` is and the raster's lean shows
         shaded domes (at least ``MIN_DOME_LEAN``).
+    edge_gain : float
+        Colour edges (:func:`colour_edges`) are subtracted from the layer this many times
+        before the split: ``EDGE_GAIN`` with shaded domes (``crown_join``), else 0 (off).
     """
 
     r_min_px: float
@@ -233,6 +249,12 @@ class CanopySplit:
     lean_row: float = 0.0
     crown_join: bool = False
     lean_gain: float = 1.0
+    edge_gain: float = 0.0
+
+    @property
+    def edge_px(self) -> float:
+        """σ of the colour edges (:func:`colour_edges`), pixels."""
+        return EDGE_SHARE * self.r_min_px
 
     @property
     def max_area_px(self) -> float | None:
@@ -292,6 +314,64 @@ def canopy_tint(data: np.ndarray, roles: tuple[str, ...]) -> np.ndarray | None:
         return None
     r, g, b = (np.asarray(data[roles.index(k)], np.float32) for k in ("red", "green", "blue"))
     return (g / np.maximum(r + g + b, 1e-6)).astype(np.float32)
+
+
+def colour_edges(data: np.ndarray, roles: tuple[str, ...], sigma_px: float) -> np.ndarray | None:
+    """Colour step across each pixel: σ × the gradient magnitude of the chromaticity.
+
+    The chromatic coordinates r / (r + g + b) and b / (r + g + b) do not change when all
+    bands are scaled alike, as by a dome's shading (Lambert's law scales the reflected
+    light, not its colour; chromaticity as an illumination-invariant colour: Gevers, T. &
+    Smeulders, A. W. M. 1999, Color-based object recognition, *Pattern Recognition* 32:
+    453–464). So over one crown they are nearly flat and they step where two crowns of
+    different colour meet. Each coordinate is smoothed by a Gaussian of ``sigma_px`` and
+    its gradient magnitude taken (``scipy.ndimage.gaussian_gradient_magnitude``); the two
+    are added in quadrature and multiplied by σ, so that a step of height Δ gives a ridge
+    of height Δ / √(2π) whatever σ is.
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        Bands, shape (bands, rows, columns).
+    roles : tuple of str
+        Band roles; red, green and blue are needed.
+    sigma_px : float
+        Gaussian σ, pixels.
+
+    Returns
+    -------
+    numpy.ndarray or None
+        float32 edge layer (chromaticity units), or ``None`` without red, green and blue.
+
+    Examples
+    --------
+    Shading alone gives no edge; a step of 0.1 in both coordinates gives a ridge of
+    about √2 × 0.1 / √(2π) = 0.056:
+
+    >>> import numpy as np
+    >>> ramp = np.linspace(0.5, 1.5, 40)[None, None, :] * np.ones((3, 20, 40))
+    >>> shaded = ramp * np.array([60.0, 100.0, 40.0])[:, None, None]
+    >>> rgb = ("red", "green", "blue")
+    >>> float(colour_edges(shaded, rgb, 2.0).max()) < 1e-6
+    True
+    >>> step = np.where(np.arange(40) < 20, 1.0, 0.0)[None, None, :]
+    >>> two = step * np.array([60.0, 100.0, 40.0])[:, None, None] + (1 - step) * np.array(
+    ...     [40.0, 100.0, 60.0])[:, None, None] * np.ones((3, 20, 40))
+    >>> ridge = float(colour_edges(two, rgb, 2.0).max())
+    >>> abs(ridge - 0.1 * 2**0.5 / (2 * np.pi) ** 0.5) < 0.002  # the grid samples it
+    True
+    """
+    if not all(r in roles for r in ("red", "green", "blue")):
+        return None
+    r, g, b = (
+        np.maximum(np.asarray(data[roles.index(k)], np.float32), 0.0)
+        for k in ("red", "green", "blue")
+    )
+    total = np.maximum(r + g + b, 1e-6)
+    sq = np.zeros(r.shape, np.float32)
+    for share in (r / total, b / total):
+        sq += ndimage.gaussian_gradient_magnitude(share, float(sigma_px)) ** 2
+    return (float(sigma_px) * np.sqrt(sq)).astype(np.float32)
 
 
 def _moments(regions: np.ndarray, n: int) -> np.ndarray:
@@ -762,6 +842,8 @@ def split_crowns(
     tint: np.ndarray | None = None,
     max_tint_step: float = MERGE_TINT_STEP,
     crown_join: bool = False,
+    edges: np.ndarray | None = None,
+    edge_gain: float = 0.0,
 ) -> dict[str, np.ndarray]:
     """One point per crown: watershed of the smoothed layer from its h-maxima.
 
@@ -796,6 +878,12 @@ def split_crowns(
     crown_join : bool
         With ``max_area_px``: then also join neighbours without a valley at the crown's
         own scale (:func:`join_at_crown_scale`).
+    edges : numpy.ndarray, optional
+        Colour edges of the window (:func:`colour_edges`); ``edge_gain`` times them is
+        subtracted from ``layer`` first, so that where two crowns of different colour
+        meet there is a valley even where brightness has none.
+    edge_gain : float
+        Their weight, layer units per chromaticity unit (0: not used).
 
     Returns
     -------
@@ -824,6 +912,8 @@ def split_crowns(
     from skimage.segmentation import watershed
 
     lay = np.asarray(layer, np.float32)
+    if edges is not None and edge_gain > 0:
+        lay = lay - np.float32(edge_gain) * np.asarray(edges, np.float32)
     ok = np.ones(lay.shape, bool) if valid is None else np.asarray(valid, bool)
     empty = {
         k: np.zeros(0)
@@ -1164,6 +1254,9 @@ def canopy_split(
         lean_gain=gain,
         # shaded domes (their bright part lies off-centre): leaf clumps can cut one crown
         crown_join=domes,
+        # ... and a darker crown beside a brighter one has no valley of its own: colour
+        # edges make one (the lean above is measured without them)
+        edge_gain=EDGE_GAIN if domes else 0.0,
         # a lit dome's top is brighter than the raster's median pixel; a region that never
         # reaches it is understorey or a shaded gap (only with shaded domes, as above)
         min_peak=med if domes else split.min_peak,

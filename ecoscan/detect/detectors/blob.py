@@ -331,7 +331,11 @@ def _crown_ends(layer, col, row, sigma, origin, plan: BlobPlan):
 
 
 def _canopy_points(
-    window: TileWindow, layer: np.ndarray, cs, tint: np.ndarray | None = None
+    window: TileWindow,
+    layer: np.ndarray,
+    cs,
+    tint: np.ndarray | None = None,
+    edges: np.ndarray | None = None,
 ) -> TilePoints:
     """Closed canopy: crowns as watershed regions (:func:`ecoscan.detect.canopy.split_crowns`)."""
     found = canopy.split_crowns(
@@ -347,6 +351,8 @@ def _canopy_points(
         lean=(cs.lean_col, cs.lean_row),
         tint=tint,
         crown_join=cs.crown_join,
+        edges=edges,
+        edge_gain=cs.edge_gain,
     )
     return TilePoints(
         np.asarray(found["col"], float),
@@ -401,6 +407,9 @@ class ImageryDetector(Detector):
         data = window.pop_data()
         joins = plan.canopy is not None and plan.canopy.merge
         tint = canopy.canopy_tint(data, plan.roles) if joins else None
+        cs = plan.canopy
+        # colour edges as valleys (shaded domes only; canopy.colour_edges)
+        edges = canopy.colour_edges(data, plan.roles, cs.edge_px) if cs and cs.edge_gain else None
         if plan.canopy is not None and plan.canopy.layer == "brightness":
             layer = canopy.canopy_layer(data, plan.roles)
         elif plan.layer_model is not None:  # calibrated detector (ecoscan.detect.pixel_model)
@@ -417,7 +426,7 @@ class ImageryDetector(Detector):
             extra = _pale_blobs(data, layer, plan, valid, window.origin)
         del data
         if plan.canopy is not None:
-            return _canopy_points(window, layer, plan.canopy, tint)
+            return _canopy_points(window, layer, plan.canopy, tint, edges)
         found = blobs.detect_blobs(
             layer,
             plan.scales,

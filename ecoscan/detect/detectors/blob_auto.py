@@ -126,6 +126,12 @@ def _canopy_record(abands, roles, evidence, split) -> dict:
             f"times {canopy.DOME_LEAN_GAIN:g} with shaded domes"
         ),
         "canopy_lean_gain": split.lean_gain,
+        "canopy_colour_edge_gain": split.edge_gain,
+        "canopy_colour_edge_from": (
+            f"with shaded domes; the layer minus {canopy.EDGE_GAIN:g} x sigma x the gradient "
+            "magnitude of the chromaticity (r and b shares), sigma "
+            f"{canopy.EDGE_SHARE:g} x the smallest crown radius"
+        ),
         "canopy_join_crown_scale": split.crown_join,
         "canopy_join_crown_scale_from": (
             f"on when the lean reaches {canopy.MIN_DOME_LEAN:g} radii (shaded domes); joins "
