@@ -32,7 +32,7 @@ def _sunward(points_xy, truth_xy, radius_m, lean):
 def test_the_gain_moves_points_onto_their_crowns(tmp_path, monkeypatch):
     # the gain alone, as measured in the eighth round: colour edges off (with them, seed 0
     # has fewer off-centre points left and matches 120 crowns with the gain and without;
-    # over 24 diagnosis scenes the gain still helps a little, docs/notes-canopy13.md)
+    # over 24 diagnosis scenes the gain still helps a little, docs/detection-history.md)
     monkeypatch.setattr(canopy, "EDGE_GAIN", 0.0)
     run = rule_on_and_off("closed-canopy", 0, tmp_path, monkeypatch, canopy, "DOME_LEAN_GAIN", 1.0)
     on, off = run.on.thresholds, run.off.thresholds

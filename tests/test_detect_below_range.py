@@ -146,7 +146,7 @@ def test_weed_between_crop_rows_is_not_added():
 
 def test_coarse_suite_scene_finds_the_small_crowns(tmp_path):
     # suite style "coarse", development seed 0 (synthetic truth): 0.951 without the extra
-    # scale, 0.981 with it (docs/notes-jpeg13.md)
+    # scale, 0.981 with it (docs/detection-history.md)
     f1, res = suite_scene_f1("coarse", 512, 0, tmp_path)
     assert any("isolated small crown(s) found one scale below" in n for n in res.notes)
     # the metadata gives the extra scale, one step below the smallest stated one (px)

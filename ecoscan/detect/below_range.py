@@ -62,7 +62,7 @@ BELOW = "below_range"
 #: How much clearer than the stated scales a blob at the extra scale must be: its response
 #: this many times the extrapolated threshold (:func:`extra_threshold`), and its smoothed
 #: centre value this many times as far above the background as the centre-value test of
-#: the main search asks. Measured on the diagnosis seeds of docs/notes-jpeg13.md: on JPEG
+#: the main search asks. Measured on the diagnosis seeds of docs/detection-history.md: on JPEG
 #: ground, whose 8-pixel compression blocks peak at about the extra scale, false maxima
 #: reach 1.0-2.9 times the extrapolated threshold, true small crowns 2.0-15.
 CLEARNESS = 2.0
@@ -72,7 +72,7 @@ CLEARNESS = 2.0
 #: sit almost all on kept crowns (their lobes and fine structure), and the rare isolated
 #: one is a weed or a lobe of a missed large crown; where small soft crowns peak below the
 #: range, a good share of them is isolated. Pooled over the diagnosis seeds
-#: (docs/notes-jpeg13.md): row crop 0.4 %, rocky shrubland 1.6 %, dry shrubs 4 % against
+#: (docs/detection-history.md): row crop 0.4 %, rocky shrubland 1.6 %, dry shrubs 4 % against
 #: JPEG 12 %, coarse and multispectral 26 %.
 MIN_ISOLATED_SHARE = 0.05
 

@@ -164,7 +164,7 @@ DOME_LEAN_GAIN = 1.25
 #: parts (shading scales all bands alike), while neighbours of other species or of other
 #: vigour differ; so the boundary between a darker crown and the flank of a brighter one,
 #: where brightness alone has no valley, becomes one. Chosen on suite diagnosis seeds
-#: 1200-1220, 0, 7, 11 (docs/notes-canopy13.md): 12 with σ = 0.3 × the smallest crown
+#: 1200-1220, 0, 7, 11 (docs/detection-history.md): 12 with σ = 0.3 × the smallest crown
 #: radius.
 EDGE_GAIN = 12.0
 #: ... σ of the colour edges, as a share of the smallest crown radius.

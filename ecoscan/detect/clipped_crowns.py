@@ -9,7 +9,7 @@ the same height: the lobes are flattened into the crown and green neighbours no 
 dominate, so the scale-normalised Laplacian (:mod:`ecoscan.detect.blobs`) peaks at the
 crown's centre and scale. (On the scene suite's dry shrubs, 57 of the 65 crowns found at a
 lobe on the diagnosis scenes had such a blob within the matching tolerance of the centre;
-on plain Excess Green, GRVI or their sum, 8-11; ``docs/notes-dry13.md``.)
+on plain Excess Green, GRVI or their sum, 8-11; ``docs/detection-history.md``.)
 
 A blob of the clipped layer replaces the final points inside its radius
 (:func:`crown_points`) when
