@@ -125,6 +125,15 @@ def test_outputs_and_provenance(demo_run):
     assert not list(out.rglob("*.tmp-ecoscan*"))
 
 
+def test_plots_off_a_raster_are_named_once_per_note(demo_run):
+    # each run note starts with its raster's name; the note on plots beyond that raster must
+    # not repeat it ("tansy-spring: plots ... lie outside raster tansy-spring: ...")
+    _cfg, run = demo_run
+    off = [n for n in run.notes if "not surveyed" in n]
+    assert off and all("the raster's footprint" in n for n in off)
+    assert all(n.count(n.split(":")[0]) == 1 for n in off)
+
+
 def test_rerun_is_identical_and_uses_the_cache(demo_run, tmp_path):
     cfg, run = demo_run
     first = (run.output / "dispersion.csv").read_bytes()

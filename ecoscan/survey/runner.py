@@ -148,7 +148,8 @@ def _raster_runs(manifest, found, survey_crs) -> list[tuple]:
         member = assign_plots(pts, sub)
         notes = list(det.notes)
         if item.unsurveyed:
-            notes.append(unsurveyed_note(item.unsurveyed, f"raster {item.entry.name}"))
+            # run notes carry the raster name in front (below), so the note does not repeat it
+            notes.append(unsurveyed_note(item.unsurveyed, "the raster's footprint"))
         inputs = SurveyInputs(pts, sub, member, list(notes), list(item.unsurveyed))
         prepared.append((item, det, inputs, points_by_plot(pts, sub, member), notes, reprojected))
     return prepared
