@@ -26,7 +26,7 @@ from ecoscan.detect.canopy import (
     split_crowns,
 )
 from tests.detect_helpers import rule_on_and_off
-from tests.test_canopy_split import _lambert_domes
+from tests.test_canopy_split import _flat_disc_grid, _lambert_domes
 
 RGB = ("red", "green", "blue")
 
@@ -111,15 +111,7 @@ def test_a_crown_in_its_neighbours_half_shadow_is_found_only_with_colour_edges()
 
 
 def test_colour_edges_are_on_for_shaded_domes_only():
-    r = 20.0
-    centres = [(24.0 + 44 * i, 24.0 + 44 * j) for i in range(4) for j in range(3)]
-    shape = (3 * 44 + 4, 4 * 44 + 4)
-    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
-    flat = np.full(shape, 0.1)
-    for cx, cy in centres:
-        flat[(xx - cx) ** 2 + (yy - cy) ** 2 < r**2] = 1.0
-    ok = np.ones(shape, bool)
-    tint = np.full(shape, 0.5)
+    r, centres, shape, flat, ok, tint = _flat_disc_grid()
     cs = canopy_split([flat], [ok], 5.0, r, h_share=0.05, tints=[tint])
     assert cs.edge_gain == 0.0
     domes = _lambert_domes(shape, centres, r, 65.0, 200.0)

@@ -424,6 +424,18 @@ def test_lean_towards_the_sun_is_measured_and_removed():
     assert np.all(after["col"] <= truth[nearest, 0] + 0.5)
 
 
+def _flat_disc_grid(r=20.0):
+    """Twelve flat discs of radius ``r`` on a 4 x 3 grid (value 1 on 0.1), all pixels valid,
+    one tint: (r, centres, shape, layer, valid, tint)."""
+    centres = [(24.0 + 44 * i, 24.0 + 44 * j) for i in range(4) for j in range(3)]
+    shape = (3 * 44 + 4, 4 * 44 + 4)
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    flat = np.full(shape, 0.1)
+    for cx, cy in centres:
+        flat[(xx - cx) ** 2 + (yy - cy) ** 2 < r**2] = 1.0
+    return r, centres, shape, flat, np.ones(shape, bool), np.full(shape, 0.5)
+
+
 def _lambert_domes(shape, centres, radius, elevation_deg, azimuth_deg, ambient=0.2):
     """Hemispheres seen from straight above, brightness ambient + max(0, n·s) (Lambert's
     cosine law, common practice), sun at the given elevation and image azimuth (degrees
@@ -492,15 +504,7 @@ def test_the_lean_gain_is_off_for_flat_crowns_and_scales_the_shift_for_domes():
     # flat-coloured discs (no shading): no lean, so no gain and no shift; the same discs
     # shaded as Lambert domes lit at 65 degrees: the shift is the gain times the lean
     # measured without it (Lambert's cosine law; common practice in shading models)
-    r = 20.0
-    centres = [(24.0 + 44 * i, 24.0 + 44 * j) for i in range(4) for j in range(3)]
-    shape = (3 * 44 + 4, 4 * 44 + 4)
-    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
-    flat = np.full(shape, 0.1)
-    for cx, cy in centres:
-        flat[(xx - cx) ** 2 + (yy - cy) ** 2 < r**2] = 1.0
-    ok = np.ones(shape, bool)
-    tint = np.full(shape, 0.5)
+    r, centres, shape, flat, ok, tint = _flat_disc_grid()
     cs = canopy_split([flat], [ok], 5.0, r, h_share=0.05, tints=[tint])
     assert cs.lean_gain == 1.0 and not cs.crown_join
     assert math.hypot(cs.lean_col, cs.lean_row) < canopy.MIN_DOME_LEAN
