@@ -650,10 +650,13 @@ def _pale_crowns_whole(
         return points, 0
     new = crowns.take(take)
     # the strongest replaced point of each taking blob: its score and index_value
-    slot = np.cumsum(take) - 1
+    gone = np.flatnonzero(drop)
+    to = (np.cumsum(take) - 1)[by[gone]]  # the new point each replaced point goes to
+    order = np.lexsort((c["score"][gone], to))  # by new point, then by ascending score
+    gone, to = gone[order], to[order]
+    last = np.append(to[1:] != to[:-1], True)  # the strongest of each new point's group
     best = np.full(new.n, -1, dtype=np.intp)
-    for j in np.flatnonzero(drop)[np.argsort(c["score"][drop], kind="stable")]:
-        best[slot[by[j]]] = j  # ascending score: the strongest is written last
+    best[to[last]] = gone[last]
     new.columns["score"] = c["score"][best]
     new.columns["index_value"] = c["index_value"][best]
     return TilePoints.concat([points.take(~drop), new]), int(take.sum())
